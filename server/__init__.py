@@ -1,0 +1,3 @@
+"""railsign: design sign-off for switched power rails."""
+
+__version__ = "0.1.0"
