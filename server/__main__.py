@@ -1,0 +1,311 @@
+"""The `railsign` command line: serve, demo, migrate, export, import, user, token, analyze, worker, jobs.
+
+Exit codes: 0 success; 1 the analysis found a failing check; 2 bad arguments or input;
+3 the database cannot be reached.
+"""
+
+from __future__ import annotations
+
+import argparse
+import json
+import logging
+import sys
+from collections.abc import Callable, Sequence
+from pathlib import Path
+from typing import Any
+
+from pydantic import ValidationError
+from sqlalchemy.exc import OperationalError
+
+EXIT_OK, EXIT_FAILING_CHECK, EXIT_BAD_INPUT, EXIT_NO_DATABASE = 0, 1, 2, 3
+
+
+class CliError(Exception):
+    def __init__(self, message: str, code: int = EXIT_BAD_INPUT) -> None:
+        super().__init__(message)
+        self.code = code
+
+
+def _settings(**overrides: Any):
+    from server.config import Settings
+
+    try:
+        return Settings(**{k: v for k, v in overrides.items() if v is not None})
+    except ValidationError as exc:
+        raise CliError("bad setting: " + "; ".join(f"{'.'.join(map(str, e['loc']))}: {e['msg']}"
+                                                   for e in exc.errors())) from None
+
+
+def _safe_url(url: str) -> str:
+    from sqlalchemy.engine import make_url
+
+    return make_url(url).render_as_string(hide_password=True)
+
+
+def _migrate(settings) -> None:
+    from server import migrate
+
+    try:
+        migrate.upgrade(settings)
+    except OperationalError as exc:
+        raise CliError(f"cannot reach the database at {_safe_url(settings.database_url)}: "
+                       f"{str(exc.orig).strip().splitlines()[0]}", EXIT_NO_DATABASE) from None
+
+
+def _sessions(settings):
+    from server.db import make_engine, make_sessionmaker
+
+    return make_sessionmaker(make_engine(settings))
+
+
+def _actor(session, username: str | None):
+    from server.services.access import Actor
+    from server.services.users import get_user_by_name
+
+    if username is None:
+        return Actor.system("railsign-cli")
+    return Actor.for_user(get_user_by_name(session=session, username=username))
+
+
+def _read_json(path: str) -> Any:
+    if path == "-":
+        text = sys.stdin.read()
+    else:
+        file = Path(path)
+        if not file.is_file():
+            raise CliError(f"no such file: {path}")
+        text = file.read_text(encoding="utf-8")
+    try:
+        return json.loads(text)
+    except json.JSONDecodeError as exc:
+        raise CliError(f"{path} is not valid JSON: {exc}") from None
+
+
+def _write_json(data: Any, output: str | None) -> None:
+    text = json.dumps(data, indent=2, sort_keys=False, ensure_ascii=False) + "\n"
+    if output in (None, "-"):
+        sys.stdout.write(text)
+    else:
+        Path(output).write_text(text, encoding="utf-8")
+        print(f"wrote {output}", file=sys.stderr)
+
+
+def _serve(settings, *, seed_demo: bool) -> int:
+    import uvicorn
+
+    from server.app import create_app
+
+    _migrate(settings)
+    if seed_demo:
+        from server.demo import DEMO_PASSWORD, seed_if_empty
+
+        factory = _sessions(settings)
+        with factory() as session:
+            seeded = seed_if_empty(session)
+        url = f"http://{settings.host}:{settings.port}/"
+        print(f"railsign demo on {url}  (API docs: {url}docs)")
+        print(("Seeded the demo data. " if seeded else "The database has data already; not seeded again. ")
+              + f"Log in as any of the demo users with the password '{DEMO_PASSWORD}':")
+        from server.demo import DEMO_USERS
+
+        for name, role, _ in DEMO_USERS:
+            print(f"  {name:<8} {role}")
+        sys.stdout.flush()
+    try:
+        settings.check_secret()
+    except ValueError as exc:
+        raise CliError(str(exc)) from None
+    log_level = settings.log_level.lower()
+    if settings.web_workers > 1:
+        uvicorn.run("server.app:create_app", factory=True, host=settings.host, port=settings.port,
+                    workers=settings.web_workers, log_level=log_level)
+    else:
+        uvicorn.run(create_app(settings), host=settings.host, port=settings.port, log_level=log_level)
+    return EXIT_OK
+
+
+def cmd_serve(args: argparse.Namespace) -> int:
+    return _serve(_settings(host=args.host, port=args.port, web_workers=args.workers), seed_demo=False)
+
+
+def cmd_demo(args: argparse.Namespace) -> int:
+    return _serve(_settings(host=args.host, port=args.port, demo=True), seed_demo=True)
+
+
+def cmd_migrate(args: argparse.Namespace) -> int:
+    from server import migrate
+
+    settings = _settings()
+    if args.downgrade:
+        migrate.downgrade(settings, args.downgrade)
+        print(f"downgraded {_safe_url(settings.database_url)} to {args.downgrade}")
+    else:
+        _migrate(settings)
+        print(f"{_safe_url(settings.database_url)} is at the newest schema ({migrate.head_revision(settings)})")
+    return EXIT_OK
+
+
+def cmd_export(args: argparse.Namespace) -> int:
+    from server import transfer
+
+    settings = _settings()
+    _migrate(settings)
+    with _sessions(settings)() as session:
+        actor = _actor(session, args.user)
+        if args.rail is not None:
+            data = transfer.export_rail(session=session, actor=actor, rail_id=args.rail)
+        elif args.board is not None:
+            data = transfer.export_board(session=session, actor=actor, board_id=args.board)
+        else:
+            data = transfer.export_product(session=session, actor=actor, product_id=args.product)
+    _write_json(data, args.output)
+    return EXIT_OK
+
+
+def cmd_import(args: argparse.Namespace) -> int:
+    from server import transfer
+
+    data = _read_json(args.file)
+    settings = _settings()
+    _migrate(settings)
+    with _sessions(settings)() as session:
+        counts = transfer.import_data(session=session, actor=_actor(session, args.user), data=data,
+                                      board_id=args.board, team=args.team, message=args.message)
+    print(", ".join(f"{v} {k}" for k, v in counts.items()))
+    return EXIT_OK
+
+
+def cmd_user(args: argparse.Namespace) -> int:
+    from server.services import users
+
+    settings = _settings()
+    _migrate(settings)
+    with _sessions(settings)() as session:
+        actor = _actor(session, None)
+        if args.user_command == "add":
+            password = sys.stdin.readline().rstrip("\n") if args.password_stdin else None
+            user = users.create_user(session=session, actor=actor, username=args.name, role=args.role,
+                                     password=password, teams=args.team or [])
+            print(f"added {user.username} ({user.role}; teams: {', '.join(sorted(t.name for t in user.teams)) or '-'})")
+        elif args.user_command == "list":
+            for u in users.list_users(session=session, actor=actor):
+                d = users.user_dict(u)
+                print(f"{d['username']:<16} {d['role']:<9} {'active' if d['active'] else 'disabled':<8} "
+                      f"{', '.join(d['teams'])}")
+        elif args.user_command == "set-role":
+            user = users.set_role(session=session, actor=actor, username=args.name, role=args.role)
+            print(f"{user.username} is now {user.role}")
+        elif args.user_command == "add-team":
+            user = users.add_to_team(session=session, actor=actor, username=args.name, team=args.team)
+            print(f"{user.username} is in {', '.join(sorted(t.name for t in user.teams))}")
+    return EXIT_OK
+
+
+def cmd_token(args: argparse.Namespace) -> int:
+    from server.services import users
+
+    settings = _settings()
+    _migrate(settings)
+    with _sessions(settings)() as session:
+        actor = _actor(session, None)
+        if args.token_command == "create":
+            token, clear = users.create_token(session=session, actor=actor, username=args.user, name=args.name)
+            print(clear)
+            print(f"token {token.id} '{token.name}' for {args.user}: shown once, store it now", file=sys.stderr)
+        elif args.token_command == "revoke":
+            token = users.revoke_token(session=session, actor=actor, token_id=args.id)
+            print(f"token {token.id} '{token.name}' revoked")
+        elif args.token_command == "list":
+            for t in users.list_tokens(session=session, actor=actor, username=args.user):
+                state = "revoked" if t.revoked_at else "active"
+                print(f"{t.id:>5} {t.name:<20} {state:<8} created {t.created_at:%Y-%m-%d %H:%M}")
+    return EXIT_OK
+
+
+def build_parser() -> argparse.ArgumentParser:
+    parser = argparse.ArgumentParser(prog="railsign", description="Design sign-off for switched power rails.")
+    parser.add_argument("--log-level", default=None, help="DEBUG, INFO, WARNING or ERROR")
+    sub = parser.add_subparsers(dest="command", required=True, metavar="COMMAND")
+
+    def command(name: str, func: Callable[[argparse.Namespace], int], help_text: str) -> argparse.ArgumentParser:
+        p = sub.add_parser(name, help=help_text, description=help_text)
+        p.set_defaults(func=func)
+        return p
+
+    p = command("serve", cmd_serve, "migrate the database, then serve the web app and API")
+    p.add_argument("--host", help="listen address (default: RAILSIGN_HOST or 127.0.0.1)")
+    p.add_argument("--port", type=int, help="port (default: RAILSIGN_PORT or 8000)")
+    p.add_argument("--workers", type=int, help="web processes (default: RAILSIGN_WEB_WORKERS or 1)")
+    p = command("demo", cmd_demo, "serve with demo data (seeded when the database is empty)")
+    p.add_argument("--host")
+    p.add_argument("--port", type=int)
+    p = command("migrate", cmd_migrate, "upgrade the database schema to the newest revision")
+    p.add_argument("--downgrade", metavar="REV", help="downgrade to REV instead ('base' empties the schema)")
+
+    p = command("export", cmd_export, "write rail documents as JSON")
+    which = p.add_mutually_exclusive_group(required=True)
+    which.add_argument("--rail", type=int, help="one rail's current document")
+    which.add_argument("--board", type=int, help="a bundle with one board's rails")
+    which.add_argument("--product", type=int, help="a bundle with all boards of a product")
+    p.add_argument("-o", "--output", help="file to write (default: standard output)")
+    p.add_argument("--user", help="act as this user (default: the command line, all teams)")
+    p = command("import", cmd_import, "store rail documents from a JSON file (one document or a bundle)")
+    p.add_argument("file", help="JSON file, or - for standard input")
+    p.add_argument("--board", type=int, help="board for a single rail document")
+    p.add_argument("--team", help="team that owns a product the bundle creates")
+    p.add_argument("--user", help="author of the new revisions (default: railsign-cli)")
+    p.add_argument("--message", default="imported", help="revision message")
+
+    p = command("user", cmd_user, "manage users")
+    usub = p.add_subparsers(dest="user_command", required=True)
+    u = usub.add_parser("add", help="add a user")
+    u.add_argument("name")
+    u.add_argument("--role", required=True, choices=["viewer", "designer", "reviewer", "manager", "admin"])
+    u.add_argument("--team", action="append", help="team to join (repeatable; created when new)")
+    u.add_argument("--password-stdin", action="store_true", help="read the password from standard input")
+    usub.add_parser("list", help="list users")
+    u = usub.add_parser("set-role", help="change a user's role")
+    u.add_argument("name")
+    u.add_argument("--role", required=True, choices=["viewer", "designer", "reviewer", "manager", "admin"])
+    u = usub.add_parser("add-team", help="add a user to a team")
+    u.add_argument("name")
+    u.add_argument("--team", required=True)
+
+    p = command("token", cmd_token, "manage API tokens")
+    tsub = p.add_subparsers(dest="token_command", required=True)
+    t = tsub.add_parser("create", help="create a token and print it (once)")
+    t.add_argument("name", help="a label for the token")
+    t.add_argument("--user", required=True, help="the token's owner")
+    t = tsub.add_parser("revoke", help="revoke a token by id")
+    t.add_argument("id", type=int)
+    t = tsub.add_parser("list", help="list a user's tokens")
+    t.add_argument("--user", required=True)
+    return parser
+
+
+def main(argv: Sequence[str] | None = None) -> int:
+    parser = build_parser()
+    args = parser.parse_args(argv)
+    from server.services.errors import ServiceError
+
+    logging.basicConfig(level=(args.log_level or "INFO").upper(),
+                        format="%(asctime)s %(levelname)s %(name)s: %(message)s")
+    try:
+        return args.func(args)
+    except CliError as exc:
+        print(f"railsign: {exc}", file=sys.stderr)
+        return exc.code
+    except ServiceError as exc:
+        print(f"railsign: {exc.message}", file=sys.stderr)
+        for d in exc.details:
+            print(f"  {d.get('field', '')}: {d.get('message', '')}", file=sys.stderr)
+        return EXIT_BAD_INPUT
+    except OperationalError as exc:
+        print(f"railsign: cannot reach the database: {str(exc.orig).strip().splitlines()[0]}", file=sys.stderr)
+        return EXIT_NO_DATABASE
+    except KeyboardInterrupt:
+        return 130
+
+
+if __name__ == "__main__":
+    sys.exit(main())

@@ -1,0 +1,11 @@
+"""REST API under /api/v1: one router per resource."""
+
+from __future__ import annotations
+
+from fastapi import APIRouter
+
+from server.api import boards, parts, products, rails
+
+api_router = APIRouter(prefix="/api/v1")
+for module in (products, boards, parts, rails):
+    api_router.include_router(module.router)

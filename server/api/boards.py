@@ -1,0 +1,50 @@
+"""Boards: /api/v1/boards."""
+
+from __future__ import annotations
+
+from typing import Annotated
+
+from fastapi import APIRouter, Depends, Response
+
+from server.api.common import PageDep
+from server.auth import CurrentActor, require
+from server.db import SessionDep
+from server.schemas.api import BoardIn, BoardPatch
+from server.services import catalog
+from server.services.access import Actor, Permission
+
+router = APIRouter(prefix="/boards", tags=["boards"])
+Editor = Annotated[Actor, Depends(require(Permission.EDIT))]
+
+
+@router.get("")
+def list_boards(session: SessionDep, actor: CurrentActor, page: PageDep, product_id: int | None = None,
+                q: str | None = None) -> dict:
+    rows, total = catalog.list_boards(session=session, actor=actor, product_id=product_id, q=q,
+                                      limit=page.limit, offset=page.offset)
+    return page.answer([catalog.board_dict(b) for b in rows], total)
+
+
+@router.post("", status_code=201)
+def create_board(body: BoardIn, session: SessionDep, actor: Editor, response: Response) -> dict:
+    board = catalog.create_board(session=session, actor=actor, **body.model_dump())
+    response.headers["Location"] = f"/api/v1/boards/{board.id}"
+    return catalog.board_dict(board)
+
+
+@router.get("/{board_id}")
+def get_board(board_id: int, session: SessionDep, actor: CurrentActor) -> dict:
+    return catalog.board_dict(catalog.get_board(session=session, actor=actor, board_id=board_id))
+
+
+@router.patch("/{board_id}")
+def update_board(board_id: int, body: BoardPatch, session: SessionDep, actor: Editor) -> dict:
+    board = catalog.update_board(session=session, actor=actor, board_id=board_id,
+                                 **body.model_dump(exclude_unset=True))
+    return catalog.board_dict(board)
+
+
+@router.delete("/{board_id}", status_code=204)
+def delete_board(board_id: int, session: SessionDep, actor: Editor) -> Response:
+    catalog.delete_board(session=session, actor=actor, board_id=board_id)
+    return Response(status_code=204)

@@ -1,0 +1,48 @@
+"""Products: /api/v1/products."""
+
+from __future__ import annotations
+
+from typing import Annotated
+
+from fastapi import APIRouter, Depends, Response
+
+from server.api.common import PageDep
+from server.auth import CurrentActor, require
+from server.db import SessionDep
+from server.schemas.api import ProductIn, ProductPatch
+from server.services import catalog
+from server.services.access import Actor, Permission
+
+router = APIRouter(prefix="/products", tags=["products"])
+Editor = Annotated[Actor, Depends(require(Permission.EDIT))]
+
+
+@router.get("")
+def list_products(session: SessionDep, actor: CurrentActor, page: PageDep, q: str | None = None) -> dict:
+    rows, total = catalog.list_products(session=session, actor=actor, q=q, limit=page.limit, offset=page.offset)
+    return page.answer([catalog.product_dict(p) for p in rows], total)
+
+
+@router.post("", status_code=201)
+def create_product(body: ProductIn, session: SessionDep, actor: Editor, response: Response) -> dict:
+    product = catalog.create_product(session=session, actor=actor, **body.model_dump())
+    response.headers["Location"] = f"/api/v1/products/{product.id}"
+    return catalog.product_dict(product)
+
+
+@router.get("/{product_id}")
+def get_product(product_id: int, session: SessionDep, actor: CurrentActor) -> dict:
+    return catalog.product_dict(catalog.get_product(session=session, actor=actor, product_id=product_id))
+
+
+@router.patch("/{product_id}")
+def update_product(product_id: int, body: ProductPatch, session: SessionDep, actor: Editor) -> dict:
+    product = catalog.update_product(session=session, actor=actor, product_id=product_id,
+                                     **body.model_dump(exclude_unset=True))
+    return catalog.product_dict(product)
+
+
+@router.delete("/{product_id}", status_code=204)
+def delete_product(product_id: int, session: SessionDep, actor: Editor) -> Response:
+    catalog.delete_product(session=session, actor=actor, product_id=product_id)
+    return Response(status_code=204)

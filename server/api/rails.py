@@ -1,0 +1,90 @@
+"""Rails, revisions and diffs: /api/v1/rails."""
+
+from __future__ import annotations
+
+from typing import Annotated, Literal
+
+from fastapi import APIRouter, Depends, Header, Query, Response
+
+from server.api.common import PageDep
+from server.auth import CurrentActor, require
+from server.db import SessionDep
+from server.schemas.api import RailCreate, RailSave
+from server.services import rails
+from server.services.access import Actor, Permission
+
+router = APIRouter(prefix="/rails", tags=["rails"])
+Editor = Annotated[Actor, Depends(require(Permission.EDIT))]
+Mode = Literal["hard", "slew", "current_limit", "power_limit"]
+
+
+def _etag(sha256: str) -> str:
+    return f'"{sha256}"'
+
+
+@router.get("")
+def list_rails(session: SessionDep, actor: CurrentActor, page: PageDep, product_id: int | None = None,
+               board_id: int | None = None, mode: Mode | None = None,
+               q: Annotated[str | None, Query(description="text in the rail name")] = None) -> dict:
+    rows, total = rails.list_rails(session=session, actor=actor, product_id=product_id, board_id=board_id,
+                                   mode=mode, q=q, limit=page.limit, offset=page.offset)
+    return page.answer([rails.rail_dict(session, r, head, with_document=False) for r, head in rows], total)
+
+
+@router.post("", status_code=201)
+def create_rail(body: RailCreate, session: SessionDep, actor: Editor, response: Response) -> dict:
+    part = rails.PartRef(body.part.id, body.part.revision) if body.part else None
+    rail, rev = rails.create_rail(session=session, actor=actor, board_id=body.board_id, document=body.document,
+                                  part=part, message=body.message)
+    response.headers["Location"] = f"/api/v1/rails/{rail.id}"
+    response.headers["ETag"] = _etag(rev.sha256)
+    return rails.rail_dict(session, rail, rev)
+
+
+@router.get("/{rail_id}")
+def get_rail(rail_id: int, session: SessionDep, actor: CurrentActor, response: Response) -> dict:
+    rail = rails.get_rail(session=session, actor=actor, rail_id=rail_id)
+    head = rails.get_revision(session=session, actor=actor, rail_id=rail_id)
+    response.headers["ETag"] = _etag(head.sha256)
+    return rails.rail_dict(session, rail, head)
+
+
+@router.put("/{rail_id}")
+def save_rail(rail_id: int, body: RailSave, session: SessionDep, actor: Editor, response: Response,
+              if_match: Annotated[str | None, Header(description="sha256 of the base revision")] = None) -> dict:
+    if "part" not in body.model_fields_set:
+        part = rails.KEEP_PART
+    else:
+        part = rails.PartRef(body.part.id, body.part.revision) if body.part else None
+    base_sha = if_match.strip().strip('"').removeprefix("W/").strip('"') if if_match else None
+    rail, rev, created = rails.save_rail(session=session, actor=actor, rail_id=rail_id, document=body.document,
+                                         base_sha256=base_sha, base_n=body.base_revision, part=part,
+                                         message=body.message)
+    response.headers["ETag"] = _etag(rev.sha256)
+    out = rails.rail_dict(session, rail, rev)
+    out["created_revision"] = created
+    return out
+
+
+@router.delete("/{rail_id}", status_code=204)
+def delete_rail(rail_id: int, session: SessionDep, actor: Editor) -> Response:
+    rails.delete_rail(session=session, actor=actor, rail_id=rail_id)
+    return Response(status_code=204)
+
+
+@router.get("/{rail_id}/revisions")
+def list_revisions(rail_id: int, session: SessionDep, actor: CurrentActor, page: PageDep) -> dict:
+    rows, total = rails.list_revisions(session=session, actor=actor, rail_id=rail_id, limit=page.limit,
+                                       offset=page.offset)
+    return page.answer([rails.revision_dict(r, with_document=False) for r in rows], total)
+
+
+@router.get("/{rail_id}/revisions/{n}")
+def get_revision(rail_id: int, n: int, session: SessionDep, actor: CurrentActor) -> dict:
+    return rails.revision_dict(rails.get_revision(session=session, actor=actor, rail_id=rail_id, n=n))
+
+
+@router.get("/{rail_id}/diff")
+def diff(rail_id: int, session: SessionDep, actor: CurrentActor,
+         from_n: Annotated[int, Query(alias="from", ge=1)], to_n: Annotated[int, Query(alias="to", ge=1)]) -> dict:
+    return rails.diff_revisions(session=session, actor=actor, rail_id=rail_id, from_n=from_n, to_n=to_n)

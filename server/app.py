@@ -1,0 +1,119 @@
+"""The FastAPI application factory: routers, middleware, error shape, templates, static files."""
+
+from __future__ import annotations
+
+import logging
+import time
+import uuid
+from contextlib import asynccontextmanager
+from pathlib import Path
+from typing import Any
+
+import plotly
+from fastapi import FastAPI, Request
+from fastapi.exceptions import RequestValidationError
+from fastapi.responses import FileResponse, JSONResponse
+from fastapi.staticfiles import StaticFiles
+from starlette.exceptions import HTTPException as StarletteHTTPException
+
+from server import __version__
+from server.api import api_router
+from server.auth import SessionCookie
+from server.config import WEB_DIR, Settings, get_settings
+from server.db import make_engine, make_sessionmaker, ping
+from server.services.errors import ServiceError
+
+log = logging.getLogger("railsign.http")
+PLOTLY_DIR = Path(plotly.__file__).parent / "package_data"
+
+
+def error_body(status: int, code: str, message: str, details: list[dict[str, Any]] | None = None,
+               **extra: Any) -> dict[str, Any]:
+    """The one error shape of the API: {"error": {status, code, message, details, ...}}."""
+    return {"error": {"status": status, "code": code, "message": message, "details": details or [], **extra}}
+
+
+def _field_path(loc: tuple[Any, ...]) -> str:
+    parts = [p for p in loc if p not in ("body", "query", "path", "header")]
+    text = ""
+    for p in parts:
+        text += f"[{p}]" if isinstance(p, int) else ("." if text else "") + str(p)
+    return text
+
+
+def _install_error_handlers(app: FastAPI) -> None:
+    @app.exception_handler(ServiceError)
+    async def _service_error(request: Request, exc: ServiceError) -> JSONResponse:
+        return JSONResponse(error_body(exc.status, exc.code, exc.message, exc.details, **exc.extra),
+                            status_code=exc.status)
+
+    @app.exception_handler(RequestValidationError)
+    async def _validation_error(request: Request, exc: RequestValidationError) -> JSONResponse:
+        details = [{"field": _field_path(tuple(e["loc"])), "message": e["msg"]} for e in exc.errors()]
+        message = "; ".join(f"{d['field']}: {d['message']}" for d in details[:5])
+        return JSONResponse(error_body(422, "invalid", f"the request is not valid: {message}", details),
+                            status_code=422)
+
+    @app.exception_handler(StarletteHTTPException)
+    async def _http_error(request: Request, exc: StarletteHTTPException) -> JSONResponse:
+        code = {404: "not_found", 405: "method_not_allowed"}.get(exc.status_code, "http_error")
+        message = exc.detail if isinstance(exc.detail, str) else str(exc.detail)
+        return JSONResponse(error_body(exc.status_code, code, message), status_code=exc.status_code,
+                            headers=getattr(exc, "headers", None))
+
+    @app.exception_handler(Exception)
+    async def _unexpected(request: Request, exc: Exception) -> JSONResponse:
+        log.exception("unexpected error on %s %s", request.method, request.url.path)
+        return JSONResponse(error_body(500, "internal_error", "an unexpected error occurred; it has been logged",
+                                       request_id=getattr(request.state, "request_id", "")), status_code=500)
+
+
+def create_app(settings: Settings | None = None) -> FastAPI:
+    """Build the app for ``settings`` (default: the environment's)."""
+    settings = settings or get_settings()
+    settings.check_secret()
+    engine = make_engine(settings)
+
+    @asynccontextmanager
+    async def lifespan(app: FastAPI):
+        yield
+        engine.dispose()
+
+    app = FastAPI(title="railsign", version=__version__, lifespan=lifespan,
+                  description="Design sign-off for switched power rails. All numbers are SI units.")
+    app.state.settings = settings
+    app.state.engine = engine
+    app.state.sessionmaker = make_sessionmaker(engine)
+    app.state.session_cookie = SessionCookie(settings)
+
+    @app.middleware("http")
+    async def _request_id_and_timing(request: Request, call_next):
+        request.state.request_id = request.headers.get("x-request-id") or uuid.uuid4().hex[:16]
+        start = time.perf_counter()
+        response = await call_next(request)
+        elapsed_ms = (time.perf_counter() - start) * 1000
+        response.headers["X-Request-ID"] = request.state.request_id
+        response.headers["Server-Timing"] = f"app;dur={elapsed_ms:.2f}"
+        log.debug("%s %s -> %s in %.1f ms", request.method, request.url.path, response.status_code, elapsed_ms)
+        return response
+
+    _install_error_handlers(app)
+    app.include_router(api_router)
+
+    @app.get("/healthz", tags=["health"])
+    def healthz() -> JSONResponse:
+        """Whether the service and its database answer (no login needed)."""
+        problem = ping(engine)
+        body = {"status": "ok" if problem is None else "degraded", "version": __version__,
+                "database": {"reachable": problem is None, "engine": engine.dialect.name,
+                             **({"error": problem} if problem else {})}}
+        return JSONResponse(body, status_code=200 if problem is None else 503)
+
+    @app.get("/static/vendor/plotly.min.js", include_in_schema=False)
+    def plotly_js() -> FileResponse:
+        """The plotting library's JavaScript, served from the installed plotly package (no CDN)."""
+        return FileResponse(PLOTLY_DIR / "plotly.min.js", media_type="application/javascript",
+                            headers={"Cache-Control": "public, max-age=86400"})
+
+    app.mount("/static", StaticFiles(directory=WEB_DIR / "static"), name="static")
+    return app

@@ -1,0 +1,111 @@
+"""Database engine and sessions: one engine per settings, one session per request or job.
+
+SQLite gets WAL journaling, foreign keys and a busy timeout on every connection;
+PostgreSQL is used as it comes (psycopg 3).
+"""
+
+from __future__ import annotations
+
+from collections.abc import Iterator
+from contextlib import contextmanager
+from typing import Annotated
+
+from fastapi import Depends, Request
+from sqlalchemy import Engine, create_engine, event, text
+from sqlalchemy.orm import Session, sessionmaker
+
+from server.config import Settings
+
+__all__ = ["make_engine", "make_sessionmaker", "session_scope", "get_session", "SessionDep", "ping",
+           "begin_write"]
+
+
+def make_engine(settings: Settings) -> Engine:
+    """Create the engine for ``settings.database_url``."""
+    url = settings.database_url
+    if settings.is_sqlite:
+        engine = create_engine(
+            url,
+            echo=settings.sql_echo,
+            connect_args={"check_same_thread": False, "timeout": 30},
+        )
+
+        @event.listens_for(engine, "connect")
+        def _sqlite_pragmas(dbapi_conn, _record) -> None:  # noqa: ANN001
+            cur = dbapi_conn.cursor()
+            cur.execute("PRAGMA journal_mode=WAL")
+            cur.execute("PRAGMA foreign_keys=ON")
+            cur.execute("PRAGMA synchronous=NORMAL")
+            cur.execute("PRAGMA busy_timeout=30000")
+            cur.close()
+
+        # pysqlite's own transaction handling defers BEGIN; emit it ourselves so that
+        # a write transaction takes its lock at the start (no lost updates under load).
+        @event.listens_for(engine, "connect")
+        def _no_pysqlite_begin(dbapi_conn, _record) -> None:  # noqa: ANN001
+            dbapi_conn.isolation_level = None
+
+        @event.listens_for(engine, "begin")
+        def _sqlite_begin(conn) -> None:  # noqa: ANN001
+            immediate = conn.get_execution_options().get("sqlite_write")
+            conn.exec_driver_sql("BEGIN IMMEDIATE" if immediate else "BEGIN")
+
+        return engine
+    return create_engine(
+        url, echo=settings.sql_echo, pool_pre_ping=True, pool_size=10, max_overflow=20,
+        connect_args={"connect_timeout": 5},
+    )
+
+
+def make_sessionmaker(engine: Engine) -> sessionmaker[Session]:
+    return sessionmaker(bind=engine, expire_on_commit=False)
+
+
+@contextmanager
+def session_scope(factory: sessionmaker[Session]) -> Iterator[Session]:
+    """A session for work outside a request (CLI, jobs); rolls back on error."""
+    session = factory()
+    try:
+        yield session
+    except BaseException:
+        session.rollback()
+        raise
+    finally:
+        session.close()
+
+
+def get_session(request: Request) -> Iterator[Session]:
+    """FastAPI dependency: the request's session. Services commit; errors roll back."""
+    with session_scope(request.app.state.sessionmaker) as session:
+        yield session
+
+
+SessionDep = Annotated[Session, Depends(get_session)]
+
+
+def ping(engine: Engine) -> str | None:
+    """None when the database answers, else the reason it does not."""
+    try:
+        with engine.connect() as conn:
+            conn.execute(text("SELECT 1"))
+        return None
+    except Exception as exc:  # any driver error means unreachable
+        return f"{type(exc).__name__}: {str(exc).splitlines()[0] if str(exc) else ''}"
+
+
+def begin_write(session: Session) -> None:
+    """Start a write transaction that takes SQLite's write lock at once (BEGIN IMMEDIATE).
+
+    With SQLite's deferred transactions, two writers that both read first cannot both
+    upgrade to writing; one gets "database is locked" instead of waiting. Taking the lock
+    at the start makes concurrent saves queue up, so the second sees the first's revision
+    and gets a clean conflict. Any open read-only transaction is ended first. PostgreSQL
+    needs nothing: row locks and unique constraints do the job there.
+    """
+    if session.get_bind().dialect.name != "sqlite":
+        return
+    if session.in_transaction():
+        if session.new or session.dirty or session.deleted:
+            raise RuntimeError("begin_write called with unsaved changes in the session")
+        session.commit()
+    session.connection(execution_options={"sqlite_write": True})

@@ -1,0 +1,188 @@
+"""ORM tables (SQLAlchemy 2 typed mappings). Alembic migrations are the only way they change.
+
+Ownership: Team -> Product -> Board -> Rail -> RailRevision (immutable). Parts (MOSFETs) are a
+shared library, revisioned the same way; a rail revision pins the part revision it used.
+Users belong to teams; API tokens are stored as hashes; the audit trail is append-only.
+"""
+
+from __future__ import annotations
+
+import enum
+from datetime import datetime, timezone
+from typing import Any
+
+from sqlalchemy import JSON, DateTime, ForeignKey, Index, Integer, String, Text, UniqueConstraint
+from sqlalchemy.dialects.postgresql import JSONB
+from sqlalchemy.types import TypeDecorator
+from sqlalchemy.orm import DeclarativeBase, Mapped, mapped_column, relationship
+
+JsonType = JSON().with_variant(JSONB(), "postgresql")
+
+
+def utcnow() -> datetime:
+    return datetime.now(timezone.utc)
+
+
+class Utc(TypeDecorator[datetime]):
+    """Timezone-aware UTC datetimes on both engines (SQLite keeps no zone: read back as UTC)."""
+
+    impl = DateTime(timezone=True)
+    cache_ok = True
+
+    def process_bind_param(self, value: datetime | None, dialect) -> datetime | None:  # noqa: ANN001
+        if value is not None and value.tzinfo is None:
+            raise ValueError("naive datetime: use timezone-aware UTC times")
+        return value
+
+    def process_result_value(self, value: datetime | None, dialect) -> datetime | None:  # noqa: ANN001
+        if value is not None and value.tzinfo is None:
+            value = value.replace(tzinfo=timezone.utc)
+        return value
+
+
+class Base(DeclarativeBase):
+    type_annotation_map = {dict[str, Any]: JsonType, list[Any]: JsonType, datetime: Utc}
+
+
+class Role(str, enum.Enum):
+    viewer = "viewer"
+    designer = "designer"
+    reviewer = "reviewer"
+    manager = "manager"
+    admin = "admin"
+
+
+class Team(Base):
+    __tablename__ = "teams"
+    id: Mapped[int] = mapped_column(primary_key=True)
+    name: Mapped[str] = mapped_column(String(100), unique=True)
+    created_at: Mapped[datetime] = mapped_column(default=utcnow)
+
+
+class User(Base):
+    __tablename__ = "users"
+    id: Mapped[int] = mapped_column(primary_key=True)
+    username: Mapped[str] = mapped_column(String(64), unique=True)
+    display_name: Mapped[str] = mapped_column(String(200), default="")
+    role: Mapped[str] = mapped_column(String(20), default=Role.viewer.value)
+    password_hash: Mapped[str | None] = mapped_column(String(255))
+    active: Mapped[bool] = mapped_column(default=True)
+    created_at: Mapped[datetime] = mapped_column(default=utcnow)
+    teams: Mapped[list[Team]] = relationship(secondary="team_members", lazy="selectin")
+
+    @property
+    def team_ids(self) -> set[int]:
+        return {t.id for t in self.teams}
+
+
+class TeamMember(Base):
+    __tablename__ = "team_members"
+    team_id: Mapped[int] = mapped_column(ForeignKey("teams.id", ondelete="CASCADE"), primary_key=True)
+    user_id: Mapped[int] = mapped_column(ForeignKey("users.id", ondelete="CASCADE"), primary_key=True)
+
+
+class ApiToken(Base):
+    __tablename__ = "api_tokens"
+    id: Mapped[int] = mapped_column(primary_key=True)
+    user_id: Mapped[int] = mapped_column(ForeignKey("users.id", ondelete="CASCADE"), index=True)
+    name: Mapped[str] = mapped_column(String(100))
+    token_sha256: Mapped[str] = mapped_column(String(64), unique=True)
+    created_at: Mapped[datetime] = mapped_column(default=utcnow)
+    last_used_at: Mapped[datetime | None]
+    revoked_at: Mapped[datetime | None]
+
+
+class Product(Base):
+    __tablename__ = "products"
+    id: Mapped[int] = mapped_column(primary_key=True)
+    team_id: Mapped[int] = mapped_column(ForeignKey("teams.id"), index=True)
+    name: Mapped[str] = mapped_column(String(200), unique=True)
+    description: Mapped[str] = mapped_column(Text, default="")
+    created_at: Mapped[datetime] = mapped_column(default=utcnow)
+    boards: Mapped[list[Board]] = relationship(back_populates="product", order_by="Board.name")
+
+
+class Board(Base):
+    __tablename__ = "boards"
+    __table_args__ = (UniqueConstraint("product_id", "name", "revision"),)
+    id: Mapped[int] = mapped_column(primary_key=True)
+    product_id: Mapped[int] = mapped_column(ForeignKey("products.id", ondelete="RESTRICT"), index=True)
+    name: Mapped[str] = mapped_column(String(200))
+    revision: Mapped[str] = mapped_column(String(10), default="A")
+    description: Mapped[str] = mapped_column(Text, default="")
+    created_at: Mapped[datetime] = mapped_column(default=utcnow)
+    product: Mapped[Product] = relationship(back_populates="boards")
+
+
+class Part(Base):
+    __tablename__ = "parts"
+    id: Mapped[int] = mapped_column(primary_key=True)
+    name: Mapped[str] = mapped_column(String(200), unique=True)
+    kind: Mapped[str] = mapped_column(String(20), default="mosfet")
+    head_n: Mapped[int] = mapped_column(Integer, default=0)
+    created_at: Mapped[datetime] = mapped_column(default=utcnow)
+    updated_at: Mapped[datetime] = mapped_column(default=utcnow)
+
+
+class PartRevision(Base):
+    __tablename__ = "part_revisions"
+    __table_args__ = (UniqueConstraint("part_id", "n"),)
+    id: Mapped[int] = mapped_column(primary_key=True)
+    part_id: Mapped[int] = mapped_column(ForeignKey("parts.id", ondelete="CASCADE"), index=True)
+    n: Mapped[int]
+    document: Mapped[dict[str, Any]]
+    sha256: Mapped[str] = mapped_column(String(64))
+    author_id: Mapped[int | None] = mapped_column(ForeignKey("users.id"))
+    author_name: Mapped[str] = mapped_column(String(200))
+    message: Mapped[str] = mapped_column(Text, default="")
+    created_at: Mapped[datetime] = mapped_column(default=utcnow)
+
+
+class Rail(Base):
+    __tablename__ = "rails"
+    __table_args__ = (UniqueConstraint("board_id", "name"), Index("ix_rails_mode", "mode"))
+    id: Mapped[int] = mapped_column(primary_key=True)
+    board_id: Mapped[int] = mapped_column(ForeignKey("boards.id", ondelete="RESTRICT"), index=True)
+    name: Mapped[str] = mapped_column(String(200))
+    mode: Mapped[str] = mapped_column(String(20))
+    head_n: Mapped[int] = mapped_column(Integer, default=0)
+    head_sha256: Mapped[str] = mapped_column(String(64), default="")
+    part_id: Mapped[int | None] = mapped_column(ForeignKey("parts.id"), index=True)
+    created_at: Mapped[datetime] = mapped_column(default=utcnow)
+    updated_at: Mapped[datetime] = mapped_column(default=utcnow)
+    board: Mapped[Board] = relationship()
+
+
+class RailRevision(Base):
+    __tablename__ = "rail_revisions"
+    __table_args__ = (UniqueConstraint("rail_id", "n"), Index("ix_rail_revisions_sha256", "sha256"))
+    id: Mapped[int] = mapped_column(primary_key=True)
+    rail_id: Mapped[int] = mapped_column(ForeignKey("rails.id", ondelete="CASCADE"), index=True)
+    n: Mapped[int]
+    document: Mapped[dict[str, Any]]
+    sha256: Mapped[str] = mapped_column(String(64))
+    part_revision_id: Mapped[int | None] = mapped_column(ForeignKey("part_revisions.id"))
+    author_id: Mapped[int | None] = mapped_column(ForeignKey("users.id"))
+    author_name: Mapped[str] = mapped_column(String(200))
+    message: Mapped[str] = mapped_column(Text, default="")
+    created_at: Mapped[datetime] = mapped_column(default=utcnow)
+    part_revision: Mapped[PartRevision | None] = relationship()
+
+
+class AuditEntry(Base):
+    """Append-only change record: written in the same transaction as the change it describes."""
+
+    __tablename__ = "audit_entries"
+    __table_args__ = (Index("ix_audit_object", "object_type", "object_id"),)
+    id: Mapped[int] = mapped_column(primary_key=True)
+    at: Mapped[datetime] = mapped_column(default=utcnow, index=True)
+    user_id: Mapped[int | None] = mapped_column(ForeignKey("users.id"))
+    user_name: Mapped[str] = mapped_column(String(200), default="")
+    request_id: Mapped[str] = mapped_column(String(64), default="")
+    action: Mapped[str] = mapped_column(String(50))
+    object_type: Mapped[str] = mapped_column(String(50))
+    object_id: Mapped[int | None]
+    object_repr: Mapped[str] = mapped_column(String(300), default="")
+    product_id: Mapped[int | None] = mapped_column(index=True)
+    before: Mapped[dict[str, Any] | None] = mapped_column(JsonType)
+    after: Mapped[dict[str, Any] | None] = mapped_column(JsonType)

@@ -1,0 +1,1 @@
+"""Pydantic models: the rail design document, API bodies and answers."""

@@ -1,0 +1,98 @@
+"""Who is acting, what their role allows, and which teams' data they can see.
+
+Authorisation lives here and in :mod:`server.auth` only: routers declare the permission a
+route needs; services scope every query to the actor's teams, so another team's object by
+id is simply not found.
+"""
+
+from __future__ import annotations
+
+import uuid
+from dataclasses import dataclass, field
+
+from sqlalchemy import Select
+
+from server.models import Board, Product, Rail, Role, User
+from server.services.errors import Forbidden
+
+__all__ = ["Permission", "ROLE_PERMISSIONS", "Actor", "scoped_products", "scoped_boards", "scoped_rails"]
+
+
+class Permission:
+    READ = "read"            # see products, boards, rails, parts, results
+    EDIT = "edit"            # create and change products, boards, rails and parts
+    ANALYZE = "analyze"      # queue analyses
+    REVIEW = "review"        # approve revisions, waive checks
+    RISK = "risk"            # the managers' risk view and audit export
+    ADMIN = "admin"          # users, teams, workflows
+
+
+ROLE_PERMISSIONS: dict[str, frozenset[str]] = {
+    Role.viewer.value: frozenset({Permission.READ}),
+    Role.designer.value: frozenset({Permission.READ, Permission.EDIT, Permission.ANALYZE}),
+    Role.reviewer.value: frozenset({Permission.READ, Permission.ANALYZE, Permission.REVIEW}),
+    Role.manager.value: frozenset({Permission.READ, Permission.RISK}),
+    Role.admin.value: frozenset({Permission.READ, Permission.EDIT, Permission.ANALYZE, Permission.RISK,
+                                 Permission.ADMIN}),
+}
+
+
+@dataclass
+class Actor:
+    """The user behind a request (or a named system actor for the CLI and demo seeding)."""
+
+    user: User | None
+    name: str
+    request_id: str = field(default_factory=lambda: uuid.uuid4().hex[:16])
+    all_teams: bool = False
+
+    @classmethod
+    def for_user(cls, user: User, request_id: str | None = None) -> "Actor":
+        actor = cls(user=user, name=user.username, all_teams=user.role == Role.admin.value)
+        if request_id:
+            actor.request_id = request_id
+        return actor
+
+    @classmethod
+    def system(cls, name: str = "railsign") -> "Actor":
+        return cls(user=None, name=name, all_teams=True)
+
+    @property
+    def user_id(self) -> int | None:
+        return self.user.id if self.user else None
+
+    @property
+    def role(self) -> str:
+        return self.user.role if self.user else Role.admin.value
+
+    @property
+    def team_ids(self) -> set[int]:
+        return self.user.team_ids if self.user else set()
+
+    def can(self, permission: str) -> bool:
+        return permission in ROLE_PERMISSIONS.get(self.role, frozenset())
+
+    def require(self, permission: str) -> None:
+        if not self.can(permission):
+            raise Forbidden(f"your role ({self.role}) may not do this (needs '{permission}')")
+
+    def sees_team(self, team_id: int) -> bool:
+        return self.all_teams or team_id in self.team_ids
+
+
+def scoped_products(stmt: Select, actor: Actor) -> Select:
+    """Limit a statement that involves Product to the actor's teams."""
+    return stmt if actor.all_teams else stmt.where(Product.team_id.in_(actor.team_ids or {-1}))
+
+
+def scoped_boards(stmt: Select, actor: Actor) -> Select:
+    if actor.all_teams:
+        return stmt
+    return stmt.join(Product, Product.id == Board.product_id).where(Product.team_id.in_(actor.team_ids or {-1}))
+
+
+def scoped_rails(stmt: Select, actor: Actor) -> Select:
+    if actor.all_teams:
+        return stmt
+    return (stmt.join(Board, Board.id == Rail.board_id).join(Product, Product.id == Board.product_id)
+            .where(Product.team_id.in_(actor.team_ids or {-1})))

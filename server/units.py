@@ -1,0 +1,141 @@
+"""Engineering notation in and out: "680uF", "4.7 mOhm", "50 nH", "1 V/ms" <-> SI floats.
+
+Parsing uses quantiphy (a small, well-kept library made for exactly this: numbers with SI
+scale factors and units, as engineers write them), then checks that the unit fits the
+quantity asked for. Everything stored and computed is in SI base units.
+
+Provides :func:`parse_quantity`, :func:`format_quantity`, :data:`KINDS` and
+:class:`UnitError`.
+"""
+
+from __future__ import annotations
+
+import math
+import re
+from dataclasses import dataclass
+
+from quantiphy import InvalidNumber, Quantity
+
+__all__ = ["UnitError", "Kind", "KINDS", "parse_quantity", "format_quantity"]
+
+_PREFIX = {"T": 1e12, "G": 1e9, "M": 1e6, "k": 1e3, "m": 1e-3, "u": 1e-6, "µ": 1e-6, "μ": 1e-6,
+           "n": 1e-9, "p": 1e-12, "f": 1e-15}
+_OHM = {"ohm", "Ohm", "ohms", "Ohms", "Ω", "Ω"}
+
+
+class UnitError(ValueError):
+    """A value that is not a number with a unit fitting its quantity."""
+
+
+@dataclass(frozen=True)
+class Kind:
+    """A physical quantity: its SI unit symbol, the spellings accepted, and the word for it."""
+
+    symbol: str
+    spellings: frozenset[str]
+    word: str
+
+
+def _kind(symbol: str, word: str, *spellings: str) -> Kind:
+    return Kind(symbol, frozenset({symbol, *spellings}), word)
+
+
+KINDS: dict[str, Kind] = {
+    "V": _kind("V", "voltage", "volt", "volts"),
+    "A": _kind("A", "current", "amp", "amps"),
+    "F": _kind("F", "capacitance"),
+    "H": _kind("H", "inductance"),
+    "ohm": _kind("Ω", "resistance", *_OHM),
+    "s": _kind("s", "time", "sec"),
+    "W": _kind("W", "power"),
+    "J": _kind("J", "energy"),
+    "K/W": _kind("K/W", "thermal resistance", "°C/W", "degC/W", "C/W"),
+    "degC": _kind("°C", "temperature", "degC", "C"),
+    "K": _kind("K", "temperature difference", "degC", "°C"),
+    "V/s": _kind("V/s", "slew rate"),
+    "1/K": _kind("1/K", "temperature coefficient"),
+    "fraction": _kind("", "fraction"),
+    "ratio": _kind("", "ratio"),
+}
+
+# Rates and temperature coefficients carry a scaled denominator that quantiphy leaves alone.
+_RATE = re.compile(r"^(?P<num>[^/]*?)\s*V\s*/\s*(?P<den>[a-zµμ]*s)$")
+_TEMPCO = re.compile(r"^(?P<num>.*?)\s*(?P<scale>%|ppm|1)?\s*/\s*(K|°C|degC)$")
+_TIME_SCALE = {"s": 1.0, "ms": 1e-3, "us": 1e-6, "µs": 1e-6, "μs": 1e-6, "ns": 1e-9}
+
+
+def _number(text: str) -> tuple[float, str]:
+    try:
+        q = Quantity(text)
+    except InvalidNumber:
+        raise UnitError(f"'{text}' is not a number (write it like 470uF, 4.7 mOhm or 0.0047)") from None
+    return float(q), q.units.strip()
+
+
+def _apply_prefix(value: float, units: str, kind: Kind) -> tuple[float, str]:
+    """quantiphy does not split a prefix that follows an exponent ("1e3 uF"): do it here."""
+    if units and units not in kind.spellings and units[0] in _PREFIX and units[1:] in kind.spellings:
+        return value * _PREFIX[units[0]], units[1:]
+    return value, units
+
+
+def parse_quantity(value: object, kind: str) -> float:
+    """Return ``value`` as an SI float of quantity ``kind`` (a key of :data:`KINDS`).
+
+    Accepts an int or float (already SI) or a string in engineering notation. Raises
+    :class:`UnitError` with a sentence for a wrong unit, a non-number, NaN or infinity.
+    """
+    k = KINDS[kind]
+    if isinstance(value, bool) or value is None:
+        raise UnitError(f"expected a {k.word}, got {value!r}")
+    if isinstance(value, (int, float)):
+        number = float(value)
+    elif isinstance(value, str):
+        number = _parse_text(value.strip(), kind, k)
+    else:
+        raise UnitError(f"expected a {k.word} as a number or text like '470uF', got {type(value).__name__}")
+    if not math.isfinite(number):
+        raise UnitError(f"expected a finite {k.word}, got {value!r}")
+    return number
+
+
+def _parse_text(text: str, kind: str, k: Kind) -> float:
+    if not text:
+        raise UnitError(f"expected a {k.word}, got an empty text")
+    if kind == "V/s" and (m := _RATE.match(text)):
+        num, _ = _number(m["num"] or "1")
+        den = _TIME_SCALE.get(m["den"])
+        if den is None:
+            raise UnitError(f"unknown time unit '{m['den']}' in slew rate '{text}' (use V/s, V/ms or V/us)")
+        return num / den
+    if kind == "1/K" and (m := _TEMPCO.match(text)):
+        num, units = _number(m["num"])
+        if units:
+            raise UnitError(f"'{text}' is not a temperature coefficient (write it like 0.5 %/K or 5000 ppm/K)")
+        return num * {"%": 1e-2, "ppm": 1e-6}.get(m["scale"] or "", 1.0)
+    number, units = _number(text)
+    number, units = _apply_prefix(number, units, k)
+    if units == "%" and kind in ("fraction", "ratio"):
+        return number / 100.0
+    if units and units not in k.spellings:
+        expected = k.symbol or "no unit"
+        raise UnitError(f"unknown or wrong unit '{units}' for a {k.word} (expected {expected})")
+    return number
+
+
+def format_quantity(value: float | None, kind: str, digits: int = 3) -> str:
+    """Engineering notation for display: 0.00047, "F" -> "470 uF"; None -> "-"."""
+    if value is None:
+        return "-"
+    if isinstance(value, float) and not math.isfinite(value):
+        return "inf" if value > 0 else ("-inf" if value < 0 else "-")
+    k = KINDS[kind]
+    if kind in ("fraction",):
+        return f"{value * 100:.{digits}g} %"
+    if kind in ("ratio",):
+        return f"{value:.{digits}g}"
+    if kind in ("degC", "K"):
+        return f"{value:.{max(digits - 2, 1)}f} {k.symbol}"
+    if kind == "1/K":
+        return f"{value * 100:.{digits}g} %/K"
+    return Quantity(value, k.symbol).render(prec=max(digits - 1, 0))

@@ -1,0 +1,147 @@
+"""Test fixtures: the same tests run on SQLite and on PostgreSQL over a real connection.
+
+PostgreSQL: a database of its own per test process is created on the server named by
+RAILSIGN_TEST_POSTGRES_URL (default: the machine's server, database ``test``), migrated
+once, and emptied between tests. SQLite: a migrated template file is copied per test.
+"""
+
+from __future__ import annotations
+
+import os
+import shutil
+import uuid
+from collections.abc import Iterator
+from pathlib import Path
+
+import pytest
+from fastapi.testclient import TestClient
+from sqlalchemy import create_engine, text
+from sqlalchemy.engine import make_url
+
+from server import migrate
+from server.app import create_app
+from server.config import Settings
+from server.db import make_engine, make_sessionmaker
+from server.models import Base
+from server.services.access import Actor
+from server.services import users as user_service
+
+POSTGRES_URL = os.environ.get("RAILSIGN_TEST_POSTGRES_URL", "postgresql+psycopg://postgres@127.0.0.1:5432/test")
+TEST_SECRET = "test-secret-" + "x" * 32
+BACKENDS = ["sqlite", "postgres"]
+
+
+def make_settings(url: str, **extra) -> Settings:
+    return Settings(database_url=url, secret_key=TEST_SECRET, worker_threads=0, **extra)
+
+
+@pytest.fixture(scope="session")
+def postgres_database() -> Iterator[str]:
+    """A fresh, migrated PostgreSQL database for this test process; dropped at the end."""
+    admin_url = make_url(POSTGRES_URL)
+    name = f"railsign_test_{uuid.uuid4().hex[:10]}"
+    admin = create_engine(admin_url, isolation_level="AUTOCOMMIT")
+    try:
+        with admin.connect() as conn:
+            conn.execute(text(f'CREATE DATABASE "{name}"'))
+    except Exception as exc:  # the suite needs PostgreSQL: fail loudly, never skip
+        pytest.fail(f"PostgreSQL at {admin_url.render_as_string(hide_password=True)} is needed for the "
+                    f"postgres half of the suite and cannot be reached: {exc}")
+    url = admin_url.set(database=name).render_as_string(hide_password=False)
+    migrate.upgrade(make_settings(url))
+    yield url
+    with admin.connect() as conn:
+        conn.execute(text(f'DROP DATABASE IF EXISTS "{name}" WITH (FORCE)'))
+    admin.dispose()
+
+
+@pytest.fixture(scope="session")
+def sqlite_template(tmp_path_factory) -> Path:
+    path = tmp_path_factory.mktemp("template") / "railsign.db"
+    settings = make_settings(f"sqlite:///{path}")
+    migrate.upgrade(settings)
+    engine = make_engine(settings)
+    with engine.connect() as conn:
+        conn.exec_driver_sql("PRAGMA wal_checkpoint(TRUNCATE)")
+    engine.dispose()
+    return path
+
+
+def _empty_postgres(url: str) -> None:
+    engine = create_engine(url)
+    with engine.begin() as conn:  # DELETE is much faster than TRUNCATE on small tables
+        for table in reversed(Base.metadata.sorted_tables):
+            conn.execute(table.delete())
+    engine.dispose()
+
+
+@pytest.fixture(params=BACKENDS)
+def database_url(request, tmp_path) -> str:
+    """A migrated, empty database on each backend."""
+    if request.param == "sqlite":
+        path = tmp_path / "railsign.db"
+        shutil.copy(request.getfixturevalue("sqlite_template"), path)
+        return f"sqlite:///{path}"
+    url = request.getfixturevalue("postgres_database")
+    _empty_postgres(url)
+    return url
+
+
+@pytest.fixture
+def settings(database_url) -> Settings:
+    return make_settings(database_url)
+
+
+@pytest.fixture
+def app(settings):
+    return create_app(settings)
+
+
+@pytest.fixture
+def session_factory(app):
+    return app.state.sessionmaker
+
+
+@pytest.fixture
+def client(app) -> Iterator[TestClient]:
+    with TestClient(app) as c:
+        yield c
+
+
+class People:
+    """Users of every role in team 'alpha', one designer in team 'beta', each with an API token.
+
+    Passwords (Argon2, about 0.1 s each) are set only where a test logs in with one.
+    """
+
+    ROLES = ["viewer", "designer", "reviewer", "manager", "admin"]
+
+    def __init__(self, session_factory, *, passwords: bool = False) -> None:
+        self.passwords = passwords
+        self.tokens: dict[str, str] = {}
+        self.ids: dict[str, int] = {}
+        with session_factory() as session:
+            system = Actor.system("test-setup")
+            for role in self.ROLES:
+                self._add(session, system, role, role, ["alpha"])
+            self._add(session, system, "reviewer2", "reviewer", ["alpha"])
+            self._add(session, system, "outsider", "designer", ["beta"])
+            self.team_ids = {t.name: t.id for t in
+                             user_service.get_user_by_name(session=session, username="admin").teams}
+            self.team_ids["beta"] = user_service.get_user_by_name(session=session,
+                                                                  username="outsider").teams[0].id
+
+    def _add(self, session, system, name, role, teams) -> None:
+        user = user_service.create_user(session=session, actor=system, username=name, role=role,
+                                        password=f"{name}-password" if self.passwords else None, teams=teams)
+        _, clear = user_service.create_token(session=session, actor=system, username=name, name="tests")
+        self.tokens[name] = clear
+        self.ids[name] = user.id
+
+    def headers(self, name: str) -> dict[str, str]:
+        return {"Authorization": f"Bearer {self.tokens[name]}"}
+
+
+@pytest.fixture
+def people(session_factory) -> People:
+    return People(session_factory)
