@@ -186,3 +186,61 @@ class AuditEntry(Base):
     product_id: Mapped[int | None] = mapped_column(index=True)
     before: Mapped[dict[str, Any] | None] = mapped_column(JsonType)
     after: Mapped[dict[str, Any] | None] = mapped_column(JsonType)
+
+
+class JobState(str, enum.Enum):
+    queued = "queued"
+    running = "running"
+    done = "done"
+    failed = "failed"
+    cancelled = "cancelled"
+
+
+class JobKind(str, enum.Enum):
+    rail = "rail"                # nominal + tolerance corners of one rail revision
+    monte_carlo = "monte_carlo"  # Monte Carlo run of one rail revision
+    board = "board"              # container: one rail job per rail of a board
+
+
+class AnalysisResult(Base):
+    """A computed result, stored once per (revision sha256, engine version, options)."""
+
+    __tablename__ = "analysis_results"
+    __table_args__ = (UniqueConstraint("sha256", "engine_version", "options_key"),)
+    id: Mapped[int] = mapped_column(primary_key=True)
+    sha256: Mapped[str] = mapped_column(String(64), index=True)
+    engine_version: Mapped[str] = mapped_column(String(20))
+    options_key: Mapped[str] = mapped_column(String(64))
+    options: Mapped[dict[str, Any]]
+    verdict: Mapped[str] = mapped_column(String(10))
+    result: Mapped[dict[str, Any]]
+    duration_s: Mapped[float] = mapped_column(default=0.0)
+    created_at: Mapped[datetime] = mapped_column(default=utcnow)
+
+
+class Job(Base):
+    __tablename__ = "jobs"
+    __table_args__ = (Index("ix_jobs_state_created", "state", "created_at"),)
+    id: Mapped[int] = mapped_column(primary_key=True)
+    kind: Mapped[str] = mapped_column(String(20))
+    state: Mapped[str] = mapped_column(String(12), default=JobState.queued.value)
+    rail_id: Mapped[int | None] = mapped_column(ForeignKey("rails.id", ondelete="CASCADE"), index=True)
+    board_id: Mapped[int | None] = mapped_column(ForeignKey("boards.id", ondelete="CASCADE"), index=True)
+    parent_id: Mapped[int | None] = mapped_column(ForeignKey("jobs.id", ondelete="CASCADE"), index=True)
+    sha256: Mapped[str | None] = mapped_column(String(64))
+    revision_n: Mapped[int | None]
+    engine_version: Mapped[str] = mapped_column(String(20))
+    options: Mapped[dict[str, Any]]
+    options_key: Mapped[str] = mapped_column(String(64))
+    progress: Mapped[float] = mapped_column(default=0.0)
+    attempts: Mapped[int] = mapped_column(default=0)
+    max_attempts: Mapped[int] = mapped_column(default=3)
+    error: Mapped[str] = mapped_column(Text, default="")
+    worker: Mapped[str] = mapped_column(String(100), default="")
+    result_id: Mapped[int | None] = mapped_column(ForeignKey("analysis_results.id"))
+    requested_by_id: Mapped[int | None] = mapped_column(ForeignKey("users.id"))
+    requested_by: Mapped[str] = mapped_column(String(200), default="")
+    created_at: Mapped[datetime] = mapped_column(default=utcnow)
+    started_at: Mapped[datetime | None]
+    heartbeat_at: Mapped[datetime | None]
+    finished_at: Mapped[datetime | None]

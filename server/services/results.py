@@ -1,0 +1,87 @@
+"""Stored analysis results: one per (revision sha256, engine version, options).
+
+A result belongs to the hash of the revision it was computed from and to the engine
+version that computed it, so a cached result is never shown for a changed document,
+and a new engine version computes afresh.
+"""
+
+from __future__ import annotations
+
+import hashlib
+import json
+from typing import Any
+
+from sqlalchemy import select
+from sqlalchemy.exc import IntegrityError
+from sqlalchemy.orm import Session
+
+from server.models import AnalysisResult
+
+__all__ = ["NOMINAL_OPTIONS", "engine_version", "normalize_options", "options_key", "find_result", "store_result",
+           "latest_result", "checks_for_revision"]
+
+NOMINAL_OPTIONS: dict[str, Any] = {"corners": True, "monte_carlo": 0, "seed": 0, "distribution": "uniform"}
+
+
+def engine_version() -> str:
+    from server.analysis import ENGINE_VERSION
+
+    return ENGINE_VERSION
+
+
+def normalize_options(options: dict[str, Any] | None) -> dict[str, Any]:
+    """Fill the defaults; the seed and distribution only matter for a Monte Carlo run."""
+    out = {**NOMINAL_OPTIONS, **(options or {})}
+    out = {k: out[k] for k in NOMINAL_OPTIONS}
+    out["corners"], out["monte_carlo"], out["seed"] = bool(out["corners"]), int(out["monte_carlo"]), int(out["seed"])
+    if out["monte_carlo"] == 0:
+        out["seed"], out["distribution"] = 0, "uniform"
+    return out
+
+
+def options_key(options: dict[str, Any]) -> str:
+    text = json.dumps(normalize_options(options), sort_keys=True, separators=(",", ":"))
+    return hashlib.sha256(text.encode()).hexdigest()
+
+
+def find_result(session: Session, *, sha256: str, options: dict[str, Any],
+                version: str | None = None) -> AnalysisResult | None:
+    return session.scalar(select(AnalysisResult).where(
+        AnalysisResult.sha256 == sha256, AnalysisResult.engine_version == (version or engine_version()),
+        AnalysisResult.options_key == options_key(options)))
+
+
+def store_result(session: Session, *, sha256: str, options: dict[str, Any], result: dict[str, Any],
+                 duration_s: float, version: str | None = None) -> AnalysisResult:
+    """Insert the result (the caller commits); when an equal one exists already, return that one."""
+    version = version or engine_version()
+    row = AnalysisResult(sha256=sha256, engine_version=version, options_key=options_key(options),
+                         options=normalize_options(options), verdict=result.get("verdict", "n/a"), result=result,
+                         duration_s=duration_s)
+    try:
+        with session.begin_nested():
+            session.add(row)
+    except IntegrityError:
+        existing = find_result(session, sha256=sha256, options=options, version=version)
+        assert existing is not None
+        return existing
+    return row
+
+
+def latest_result(session: Session, *, sha256: str, monte_carlo: bool = False,
+                  current_engine_only: bool = True) -> AnalysisResult | None:
+    """The newest stored result for a revision: nominal+corners, or the newest Monte Carlo run."""
+    stmt = select(AnalysisResult).where(AnalysisResult.sha256 == sha256)
+    if current_engine_only:
+        stmt = stmt.where(AnalysisResult.engine_version == engine_version())
+    if monte_carlo:
+        rows = session.scalars(stmt.order_by(AnalysisResult.created_at.desc(), AnalysisResult.id.desc())).all()
+        return next((r for r in rows if r.options.get("monte_carlo", 0) > 0), None)
+    stmt = stmt.where(AnalysisResult.options_key == options_key(NOMINAL_OPTIONS))
+    return session.scalar(stmt.order_by(AnalysisResult.created_at.desc(), AnalysisResult.id.desc()).limit(1))
+
+
+def checks_for_revision(session: Session, *, sha256: str) -> list[dict[str, Any]] | None:
+    """The checks of the revision's nominal+corners result at this engine version; None if not analysed."""
+    row = latest_result(session, sha256=sha256)
+    return None if row is None else list(row.result.get("checks", []))

@@ -1,0 +1,11 @@
+"""The Jinja2 environment of the pages: templates from web/templates, shared filters."""
+
+from __future__ import annotations
+
+from fastapi.templating import Jinja2Templates
+
+from server.config import WEB_DIR
+from server.units import format_quantity
+
+templates = Jinja2Templates(directory=str(WEB_DIR / "templates"))
+templates.env.filters["eng"] = lambda value, kind, digits=3: format_quantity(value, kind, digits)
