@@ -222,6 +222,82 @@ def cmd_token(args: argparse.Namespace) -> int:
     return EXIT_OK
 
 
+def cmd_worker(args: argparse.Namespace) -> int:
+    import signal
+    import threading
+
+    from server.db import ping
+    from server.worker import WorkerPool
+
+    settings = _settings()
+    if args.check:
+        from server.db import make_engine
+
+        problem = ping(make_engine(settings))
+        if problem:
+            raise CliError(f"cannot reach the database at {_safe_url(settings.database_url)}: {problem}",
+                           EXIT_NO_DATABASE)
+        print("database reachable")
+        return EXIT_OK
+    _migrate(settings)
+    pool = WorkerPool(_sessions(settings), settings, threads=args.concurrency, poll_s=args.poll)
+    stop = threading.Event()
+
+    def _stop(signum, _frame) -> None:  # noqa: ANN001
+        logging.getLogger("railsign.worker").info("signal %s: finishing running jobs, then stopping", signum)
+        stop.set()
+
+    signal.signal(signal.SIGTERM, _stop)
+    signal.signal(signal.SIGINT, _stop)
+    pool.start()
+    print(f"worker {pool.name}: {args.concurrency} threads on {_safe_url(settings.database_url)}", flush=True)
+    if args.exit_when_empty:
+        from sqlalchemy import func, select
+
+        from server.models import Job
+
+        factory = _sessions(settings)
+        while not stop.wait(args.poll):
+            with factory() as session:
+                left = session.scalar(select(func.count()).select_from(Job).where(Job.state.in_(["queued",
+                                                                                                 "running"])))
+            if not left:
+                break
+    else:
+        stop.wait()
+    pool.stop()
+    print(f"worker {pool.name}: stopped after {pool.jobs_done} jobs", flush=True)
+    return EXIT_OK
+
+
+def cmd_jobs(args: argparse.Namespace) -> int:
+    from server import jobs
+
+    settings = _settings()
+    _migrate(settings)
+    with _sessions(settings)() as session:
+        actor = _actor(session, None)
+        if args.jobs_command == "retry":
+            if args.failed:
+                rows, _ = jobs.list_jobs(session=session, actor=actor, state="failed", limit=100_000)
+                ids = [j.id for j in rows if j.kind != "board"]
+            elif args.id is not None:
+                ids = [args.id]
+            else:
+                raise CliError("say which job to retry: an ID, or --failed for all failed jobs")
+            for job_id in ids:
+                jobs.retry_job(session=session, actor=actor, job_id=job_id)
+            print(f"queued again: {len(ids)} job(s)")
+            return EXIT_OK
+        rows, total = jobs.list_jobs(session=session, actor=actor, state=args.state, limit=args.limit)
+        print(f"{'id':>6} {'kind':<12} {'state':<10} {'progress':>8} {'rail':>6} {'rev':>4} {'tries':>5}  error")
+        for j in rows:
+            print(f"{j.id:>6} {j.kind:<12} {j.state:<10} {j.progress:>8.0%} {j.rail_id or '-':>6} "
+                  f"{j.revision_n or '-':>4} {j.attempts:>5}  {(j.error or '')[:60]}")
+        print(f"{len(rows)} of {total} jobs")
+    return EXIT_OK
+
+
 def build_parser() -> argparse.ArgumentParser:
     parser = argparse.ArgumentParser(prog="railsign", description="Design sign-off for switched power rails.")
     parser.add_argument("--log-level", default=None, help="DEBUG, INFO, WARNING or ERROR")
@@ -255,6 +331,21 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--team", help="team that owns a product the bundle creates")
     p.add_argument("--user", help="author of the new revisions (default: railsign-cli)")
     p.add_argument("--message", default="imported", help="revision message")
+
+    p = command("worker", cmd_worker, "run analysis jobs from the database queue until stopped")
+    p.add_argument("--concurrency", type=int, default=1, help="worker threads in this process (default 1)")
+    p.add_argument("--poll", type=float, default=0.5, help="seconds between looks at an empty queue")
+    p.add_argument("--exit-when-empty", action="store_true", help="stop once no job is queued or running")
+    p.add_argument("--check", action="store_true", help="only check that the database answers (health check)")
+    p = command("jobs", cmd_jobs, "list analysis jobs, or queue failed ones again")
+    jsub = p.add_subparsers(dest="jobs_command")
+    p.set_defaults(jobs_command="list", state=None, limit=50)
+    j = jsub.add_parser("list", help="list jobs, newest first")
+    j.add_argument("--state", choices=["queued", "running", "done", "failed", "cancelled"])
+    j.add_argument("--limit", type=int, default=50)
+    j = jsub.add_parser("retry", help="queue a failed or cancelled job again")
+    j.add_argument("id", type=int, nargs="?")
+    j.add_argument("--failed", action="store_true", help="every failed job")
 
     p = command("user", cmd_user, "manage users")
     usub = p.add_subparsers(dest="user_command", required=True)

@@ -76,7 +76,15 @@ def create_app(settings: Settings | None = None) -> FastAPI:
 
     @asynccontextmanager
     async def lifespan(app: FastAPI):
+        pool = None
+        if settings.worker_threads > 0:
+            from server.worker import WorkerPool
+
+            pool = WorkerPool(app.state.sessionmaker, settings, threads=settings.worker_threads).start()
+        app.state.worker_pool = pool
         yield
+        if pool is not None:
+            pool.stop()
         engine.dispose()
 
     app = FastAPI(title="railsign", version=__version__, lifespan=lifespan,
@@ -84,6 +92,7 @@ def create_app(settings: Settings | None = None) -> FastAPI:
     app.state.settings = settings
     app.state.engine = engine
     app.state.sessionmaker = make_sessionmaker(engine)
+    app.state.read_sessionmaker = make_sessionmaker(engine, read_only=True)
     app.state.session_cookie = SessionCookie(settings)
 
     @app.middleware("http")

@@ -57,8 +57,11 @@ def make_engine(settings: Settings) -> Engine:
     )
 
 
-def make_sessionmaker(engine: Engine) -> sessionmaker[Session]:
-    return sessionmaker(bind=engine, expire_on_commit=False)
+def make_sessionmaker(engine: Engine, *, read_only: bool = False) -> sessionmaker[Session]:
+    """Sessions on ``engine``. On SQLite their transactions take the write lock at the start
+    (see :func:`begin_write`), unless ``read_only``: then they are plain deferred readers."""
+    bind = engine if read_only else engine.execution_options(sqlite_write=True)
+    return sessionmaker(bind=bind, expire_on_commit=False)
 
 
 @contextmanager
@@ -75,8 +78,14 @@ def session_scope(factory: sessionmaker[Session]) -> Iterator[Session]:
 
 
 def get_session(request: Request) -> Iterator[Session]:
-    """FastAPI dependency: the request's session. Services commit; errors roll back."""
-    with session_scope(request.app.state.sessionmaker) as session:
+    """FastAPI dependency: the request's session. Services commit; errors roll back.
+
+    GET and HEAD requests read: on SQLite they get deferred transactions that never wait
+    for a writer. Every other request may write and takes SQLite's write lock at once.
+    """
+    state = request.app.state
+    factory = state.read_sessionmaker if request.method in ("GET", "HEAD") else state.sessionmaker
+    with session_scope(factory) as session:
         yield session
 
 
@@ -104,6 +113,8 @@ def begin_write(session: Session) -> None:
     """
     if session.get_bind().dialect.name != "sqlite":
         return
+    if session.get_bind().get_execution_options().get("sqlite_write"):
+        return  # a write session: every transaction begins with the lock already
     if session.in_transaction():
         if session.new or session.dirty or session.deleted:
             raise RuntimeError("begin_write called with unsaved changes in the session")

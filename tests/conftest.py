@@ -32,7 +32,7 @@ BACKENDS = ["sqlite", "postgres"]
 
 
 def make_settings(url: str, **extra) -> Settings:
-    return Settings(database_url=url, secret_key=TEST_SECRET, worker_threads=0, **extra)
+    return Settings(**{"database_url": url, "secret_key": TEST_SECRET, "worker_threads": 0, **extra})
 
 
 @pytest.fixture(scope="session")

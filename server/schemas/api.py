@@ -2,7 +2,7 @@
 
 from __future__ import annotations
 
-from typing import Any
+from typing import Any, Literal
 
 from pydantic import BaseModel, ConfigDict, Field
 
@@ -64,3 +64,18 @@ class PartSave(_Body):
     document: dict[str, Any]
     base_revision: int = Field(ge=1)
     message: str = ""
+
+
+class AnalysisRequest(_Body):
+    corners: bool = Field(True, description="also run every tolerance corner")
+    monte_carlo: int = Field(0, ge=0, le=200_000, description="Monte Carlo samples (0: none)")
+    seed: int = Field(0, ge=0, description="random seed of the Monte Carlo run")
+    distribution: Literal["uniform", "normal"] = Field("uniform", description="uniform within tolerance, or "
+                                                       "normal with the tolerance as 3 sigma")
+    revision: int | None = Field(None, ge=1, description="revision to analyse (default: the newest)")
+    force: bool = Field(False, description="compute again even when a stored result exists")
+
+
+class BoardAnalysisRequest(_Body):
+    corners: bool = True
+    force: bool = False

@@ -18,7 +18,7 @@ from sqlalchemy.orm import Session
 from server.models import AnalysisResult
 
 __all__ = ["NOMINAL_OPTIONS", "engine_version", "normalize_options", "options_key", "find_result", "store_result",
-           "latest_result", "checks_for_revision"]
+           "latest_result", "checks_for_revision", "result_dict"]
 
 NOMINAL_OPTIONS: dict[str, Any] = {"corners": True, "monte_carlo": 0, "seed": 0, "distribution": "uniform"}
 
@@ -85,3 +85,14 @@ def checks_for_revision(session: Session, *, sha256: str) -> list[dict[str, Any]
     """The checks of the revision's nominal+corners result at this engine version; None if not analysed."""
     row = latest_result(session, sha256=sha256)
     return None if row is None else list(row.result.get("checks", []))
+
+
+def result_dict(row: AnalysisResult, *, rail_id: int | None = None, revision: int | None = None,
+                with_result: bool = True) -> dict[str, Any]:
+    out = {"id": row.id, "rail_id": rail_id, "revision": revision, "sha256": row.sha256,
+           "engine_version": row.engine_version, "options": row.options, "verdict": row.verdict,
+           "duration_s": row.duration_s, "created_at": row.created_at.isoformat(),
+           "current_engine": row.engine_version == engine_version()}
+    if with_result:
+        out["result"] = row.result
+    return out

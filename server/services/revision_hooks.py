@@ -16,5 +16,7 @@ __all__ = ["run"]
 
 def run(session: Session, actor: Actor, rail: Rail, revision: RailRevision, *,
         previous: RailRevision | None) -> None:
-    """Side effects of a new revision (queued analyses, workflow state) go here, in order."""
-    return None
+    """Side effects of a new revision, in order."""
+    from server import jobs  # jobs imports the rail services; imported here to keep the import graph acyclic
+
+    jobs.enqueue_for_revision(session, actor, rail, revision)

@@ -1,0 +1,172 @@
+"""Demo data: an invented product with three boards, a dozen switched rails and invented MOSFETs.
+
+The scenario is made up for the demo: "Lanternfish", an outdoor edge gateway for a
+fictional fleet of tidal-energy monitoring stations. The MOSFETs are invented; their
+numbers are plausible for their class, not taken from any datasheet. Some rails sit
+comfortably inside their margins and some do not, so the pages show every verdict.
+"""
+
+from __future__ import annotations
+
+from typing import Any
+
+from sqlalchemy import func, select
+from sqlalchemy.orm import Session
+
+from server.models import Product
+from server.services import catalog, parts, rails, users
+from server.services.access import Actor
+from server.services.rails import PartRef
+
+__all__ = ["DEMO_PASSWORD", "DEMO_USERS", "DEMO_TEAM", "seed", "seed_if_empty"]
+
+DEMO_PASSWORD = "railsign-demo"
+DEMO_TEAM = "gateway-power"
+DEMO_USERS = [  # (username, role, display name)
+    ("dana", "designer", "Dana Okafor"),
+    ("ravi", "reviewer", "Ravi Lindqvist"),
+    ("rosa", "reviewer", "Rosa Ibarra"),
+    ("mona", "manager", "Mona Achterberg"),
+    ("vic", "viewer", "Vic Tamura"),
+    ("ada", "admin", "Ada Mbeki"),
+]
+
+
+def _soa_curves(vds_max: float, id_pulse: float, p_by_pulse: dict[float | None, float]) -> list[dict]:
+    """Power-limited SOA lines I = P/V capped at the pulse current, from 0.1 V to vds_max."""
+    curves = []
+    for t_pulse, p_w in p_by_pulse.items():
+        i_cap = id_pulse if t_pulse is not None and t_pulse <= 1e-3 else min(id_pulse, id_pulse * 0.4)
+        knee = p_w / i_cap
+        points = [[0.1, i_cap]]
+        if 0.1 < knee < vds_max:
+            points.append([round(knee, 4), i_cap])
+        points.append([vds_max, round(min(i_cap, p_w / vds_max), 5)])
+        curves.append({"t_pulse": t_pulse, "points": points})
+    return curves
+
+
+def _fet(name: str, vds_max: float, rds_on: float, id_pulse: float, rth_ja: float, zth: list[tuple[float, float]],
+         p_by_pulse: dict[float | None, float], tj_max: float = 150.0) -> dict[str, Any]:
+    return {"name": name, "vds_max": vds_max, "id_pulse_max": id_pulse, "rds_on": rds_on, "rds_on_alpha": 0.0045,
+            "tj_max": tj_max, "rth_ja": rth_ja, "zth": [{"r": r, "tau": tau} for r, tau in zth],
+            "soa": {"t_case": 25.0, "curves": _soa_curves(vds_max, id_pulse, p_by_pulse)}}
+
+
+# Invented parts: "Brightwater" is the demo's own fictional component vendor.
+FETS = [
+    _fet("BW-N30L5 (demo)", 30.0, 5.2e-3, 180.0, 42.0,
+         [(0.08, 15e-6), (0.45, 4e-4), (1.6, 6e-3), (7.0, 0.12), (32.87, 4.5)],
+         {1e-4: 900.0, 1e-3: 260.0, 1e-2: 90.0, None: 45.0}),
+    _fet("BW-N60H12 (demo)", 60.0, 11.5e-3, 120.0, 35.0,
+         [(0.1, 20e-6), (0.5, 5e-4), (2.0, 8e-3), (6.4, 0.15), (26.0, 5.0)],
+         {1e-4: 1100.0, 1e-3: 320.0, 1e-2: 110.0, None: 50.0}),
+    _fet("BW-N100H26 (demo)", 100.0, 26e-3, 80.0, 30.0,
+         [(0.12, 25e-6), (0.6, 6e-4), (2.2, 1e-2), (5.5, 0.2), (21.58, 6.0)],
+         {1e-4: 1300.0, 1e-3: 380.0, 1e-2: 130.0, None: 60.0}),
+    _fet("BW-LS20S9 load switch (demo)", 20.0, 9e-3, 40.0, 70.0,
+         [(0.3, 10e-6), (1.5, 3e-4), (5.0, 5e-3), (15.0, 0.1), (48.2, 3.0)],
+         {1e-4: 250.0, 1e-3: 70.0, 1e-2: 22.0, None: 8.0}),
+]
+
+
+def _timer(c: float, *, retry_off: float | None = None) -> dict[str, Any]:
+    t = {"c": c, "c_tol": 0.1, "i_charge": 10e-6, "i_charge_tol": 0.15, "v_trip": 1.2, "v_trip_tol": 0.03,
+         "after_fault": "retry" if retry_off else "latch"}
+    if retry_off:
+        t["retry_off"] = retry_off
+    return t
+
+
+def _rail(name: str, supply: dict, load: dict, switch: dict, t_ambient: float, path: dict | None = None) -> dict:
+    return {"schema": "railsign.rail/1", "name": name, "supply": supply, "path": path or {"r": 4e-3, "l": 15e-9},
+            "load": load, "switch": switch, "environment": {"t_ambient": t_ambient}}
+
+
+SUPPLY_24 = {"v_min": 18.0, "v_nom": 24.0, "v_max": 32.0, "r_source": 0.05, "l_source": 1e-6, "i_max": 12.0,
+             "uvlo": 16.0}
+SUPPLY_12 = {"v_min": 11.4, "v_nom": 12.0, "v_max": 12.6, "r_source": 0.015, "l_source": 200e-9, "i_max": 15.0,
+             "uvlo": 10.0}
+SUPPLY_5 = {"v_min": 4.75, "v_nom": 5.0, "v_max": 5.25, "r_source": 0.02, "l_source": 100e-9, "i_max": 6.0,
+            "uvlo": 4.2}
+
+# (board name, board revision, [(rail document, part index)])
+BOARDS = [
+    ("Power entry", "B", [
+        (_rail("VIN_24V_HOTSWAP", SUPPLY_24,
+               {"c_nom": 2.2e-3, "c_tol": 0.2, "esr": 0.02, "model": "constant_power", "i_nom": 3.0, "v_on": 16.0},
+               {"mode": "power_limit", "p_limit": 40.0, "i_limit": 9.0, "i_limit_tol": 0.1,
+                "timer": _timer(470e-9)}, 60.0), 2),
+        (_rail("PSE_PORT_24V", SUPPLY_24,
+               {"c_nom": 100e-6, "c_tol": 0.2, "esr": 0.05, "model": "resistive", "i_nom": 0.6},
+               {"mode": "current_limit", "i_limit": 1.5, "i_limit_tol": 0.15, "timer": _timer(100e-9, retry_off=0.5)},
+               60.0), 1),
+        (_rail("HEATER_24V", SUPPLY_24,
+               {"c_nom": 10e-6, "c_tol": 0.1, "esr": 0.1, "model": "resistive", "i_nom": 2.0},
+               {"mode": "hard", "t_on": 50e-6}, 60.0), 1),
+        (_rail("FAN_24V", SUPPLY_24,
+               {"c_nom": 47e-6, "c_tol": 0.2, "esr": 0.2, "model": "constant_current", "i_nom": 0.5, "v_on": 8.0},
+               {"mode": "slew", "dvdt": 2000.0}, 60.0), 1),
+    ]),
+    ("Compute carrier", "A", [
+        (_rail("SOM_12V", SUPPLY_12,
+               {"c_nom": 1.0e-3, "c_tol": 0.2, "esr": 0.01, "model": "constant_power", "i_nom": 2.5, "v_on": 9.0},
+               {"mode": "current_limit", "i_limit": 6.0, "i_limit_tol": 0.1, "timer": _timer(68e-9, retry_off=0.2)},
+               55.0), 0),
+        (_rail("MODEM_12V", SUPPLY_12,
+               {"c_nom": 470e-6, "c_tol": 0.2, "esr": 0.03, "model": "constant_power", "i_nom": 0.8, "v_on": 8.0},
+               {"mode": "current_limit", "i_limit": 3.0, "i_limit_tol": 0.1, "timer": _timer(33e-9)}, 55.0), 0),
+        (_rail("SSD_12V", SUPPLY_12,
+               {"c_nom": 220e-6, "c_tol": 0.2, "esr": 0.02, "model": "constant_current", "i_nom": 1.2, "v_on": 3.0},
+               {"mode": "slew", "dvdt": 6000.0}, 55.0), 0),
+        (_rail("USB_HUB_12V", SUPPLY_12,
+               {"c_nom": 150e-6, "c_tol": 0.2, "esr": 0.02, "model": "none"},
+               {"mode": "hard", "t_on": 0.0}, 55.0), 0),
+    ]),
+    ("Sensor head", "C", [
+        (_rail("LIDAR_12V", SUPPLY_12,
+               {"c_nom": 4.7e-3, "c_tol": 0.2, "esr": 0.01, "model": "constant_power", "i_nom": 1.5, "v_on": 9.0},
+               {"mode": "current_limit", "i_limit": 2.5, "i_limit_tol": 0.1, "timer": _timer(47e-9)}, 70.0), 0),
+        (_rail("CAMERA_12V", SUPPLY_12,
+               {"c_nom": 330e-6, "c_tol": 0.2, "esr": 0.02, "model": "resistive", "i_nom": 0.9},
+               {"mode": "power_limit", "p_limit": 8.0, "i_limit": 2.0, "i_limit_tol": 0.1, "timer": _timer(150e-9)},
+               70.0), 0),
+        (_rail("SENSORS_5V", SUPPLY_5,
+               {"c_nom": 100e-6, "c_tol": 0.2, "esr": 0.03, "model": "resistive", "i_nom": 0.4},
+               {"mode": "slew", "dvdt": 5000.0}, 70.0), 3),
+        (_rail("IR_LED_5V", SUPPLY_5,
+               {"c_nom": 22e-6, "c_tol": 0.1, "esr": 0.05, "model": "constant_current", "i_nom": 1.0, "v_on": 2.5},
+               {"mode": "hard", "t_on": 20e-6}, 70.0), 3),
+    ]),
+]
+
+
+def seed(session: Session) -> dict[str, int]:
+    """Create the demo team, users, parts, product, boards and rails. Returns counts."""
+    system = Actor.system("railsign-demo")
+    for username, role, display in DEMO_USERS:
+        users.create_user(session=session, actor=system, username=username, role=role, password=DEMO_PASSWORD,
+                          display_name=display, teams=[DEMO_TEAM])
+    designer = Actor.for_user(users.get_user_by_name(session=session, username="dana"))
+    part_ids = [parts.create_part(session=session, actor=designer, document=fet,
+                                  message="entered from the demo vendor's sheet").part_id for fet in FETS]
+    product = catalog.create_product(session=session, actor=designer, name="Lanternfish edge gateway",
+                                     description="Outdoor gateway for a fleet of tidal-energy monitoring stations "
+                                                 "(an invented demo product).")
+    count = 0
+    for board_name, revision, rail_specs in BOARDS:
+        board = catalog.create_board(session=session, actor=designer, product_id=product.id, name=board_name,
+                                     revision=revision)
+        for document, part_index in rail_specs:
+            rails.create_rail(session=session, actor=designer, board_id=board.id, document=document,
+                              part=PartRef(part_ids[part_index]), message="first entry")
+            count += 1
+    return {"users": len(DEMO_USERS), "parts": len(FETS), "boards": len(BOARDS), "rails": count}
+
+
+def seed_if_empty(session: Session) -> bool:
+    """Seed when the database holds no product yet; True when it seeded."""
+    if session.scalar(select(func.count()).select_from(Product)):
+        return False
+    seed(session)
+    return True

@@ -1,0 +1,135 @@
+"""The command line: export/import round trip, exit codes and messages for bad input."""
+
+from __future__ import annotations
+
+import json
+import subprocess
+import sys
+
+import pytest
+
+from server.__main__ import EXIT_BAD_INPUT, EXIT_NO_DATABASE, build_parser, main
+from tests.conftest import TEST_SECRET
+from tests.factories import rail_doc
+
+
+@pytest.fixture
+def cli_env(monkeypatch, database_url):
+    monkeypatch.setenv("RAILSIGN_DATABASE_URL", database_url)
+    monkeypatch.setenv("RAILSIGN_SECRET_KEY", TEST_SECRET)
+    return database_url
+
+
+@pytest.fixture
+def board_id(cli_env, tmp_path, capsys) -> int:
+    bundle = {"schema": "railsign.bundle/1", "product": {"name": "CLI gateway"},
+              "boards": [{"name": "Main", "revision": "A", "rails": [rail_doc("VOUT_A"), rail_doc("VOUT_B")]}]}
+    path = tmp_path / "bundle.json"
+    path.write_text(json.dumps(bundle))
+    assert main(["user", "add", "cli-admin", "--role", "admin", "--team", "alpha"]) == 0
+    assert main(["import", str(path), "--team", "alpha"]) == 0
+    assert "2 created" in capsys.readouterr().out
+    from server.db import make_engine, make_sessionmaker
+    from server.models import Board
+    from tests.conftest import make_settings
+
+    engine = make_engine(make_settings(cli_env))
+    with make_sessionmaker(engine)() as session:
+        board = session.query(Board).one()
+        bid = board.id
+    engine.dispose()
+    return bid
+
+
+def test_import_then_export_round_trips_the_documents(board_id, tmp_path, capsys):
+    out = tmp_path / "board.json"
+    assert main(["export", "--board", str(board_id), "-o", str(out)]) == 0
+    bundle = json.loads(out.read_text())
+    assert bundle["schema"] == "railsign.bundle/1"
+    docs = {d["name"]: d for d in bundle["boards"][0]["rails"]}
+    assert set(docs) == {"VOUT_A", "VOUT_B"}
+    assert docs["VOUT_A"]["load"]["c_nom"] == pytest.approx(680e-6)
+    # Importing the same file again changes nothing; a changed document makes a new revision.
+    assert main(["import", str(out)]) == 0
+    assert "2 unchanged" in capsys.readouterr().out
+    bundle["boards"][0]["rails"][0]["load"]["c_nom"] = 1e-3
+    out.write_text(json.dumps(bundle))
+    assert main(["import", str(out)]) == 0
+    assert "1 updated, 1 unchanged" in capsys.readouterr().out
+
+
+def test_single_document_import_needs_a_board(board_id, tmp_path, capsys):
+    path = tmp_path / "rail.json"
+    path.write_text(json.dumps(rail_doc("VOUT_C")))
+    assert main(["import", str(path)]) == EXIT_BAD_INPUT
+    assert "--board" in capsys.readouterr().err
+    assert main(["import", str(path), "--board", str(board_id)]) == 0
+
+
+def test_bad_document_in_a_bundle_stores_nothing(board_id, tmp_path, capsys):
+    bad = rail_doc("VOUT_BAD")
+    bad["load"]["c_nom"] = "-1 uF"
+    bundle = {"schema": "railsign.bundle/1", "product": {"name": "CLI gateway"},
+              "boards": [{"name": "Main", "revision": "A", "rails": [rail_doc("VOUT_NEW"), bad]}]}
+    path = tmp_path / "bad.json"
+    path.write_text(json.dumps(bundle))
+    assert main(["import", str(path)]) == EXIT_BAD_INPUT
+    err = capsys.readouterr().err
+    assert "boards[0].rails[1].load.c_nom" in err
+    out = tmp_path / "after.json"
+    assert main(["export", "--board", str(board_id), "-o", str(out)]) == 0
+    names = {d["name"] for d in json.loads(out.read_text())["boards"][0]["rails"]}
+    assert names == {"VOUT_A", "VOUT_B"}
+
+
+@pytest.mark.parametrize("args,words", [
+    (["import", "no-such-file.json"], "no such file"),
+    (["export", "--rail", "999"], "no rail 999"),
+])
+def test_bad_input_exits_2_with_a_message(cli_env, args, words, capsys):
+    assert main(args) == EXIT_BAD_INPUT
+    assert words in capsys.readouterr().err
+
+
+def test_invalid_json_file_exits_2(cli_env, tmp_path, capsys):
+    path = tmp_path / "broken.json"
+    path.write_text("{ not json")
+    assert main(["import", str(path), "--board", "1"]) == EXIT_BAD_INPUT
+    assert "not valid JSON" in capsys.readouterr().err
+
+
+def test_unreachable_database_exits_3(monkeypatch, capsys):
+    monkeypatch.setenv("RAILSIGN_DATABASE_URL", "postgresql+psycopg://nobody@127.0.0.1:1/none")
+    assert main(["migrate"]) == EXIT_NO_DATABASE
+    assert "cannot reach the database" in capsys.readouterr().err
+
+
+def test_unknown_database_scheme_exits_2(monkeypatch, capsys):
+    monkeypatch.setenv("RAILSIGN_DATABASE_URL", "mysql://somewhere/db")
+    assert main(["migrate"]) == EXIT_BAD_INPUT
+    assert "RAILSIGN_DATABASE_URL" in capsys.readouterr().err
+
+
+def test_bad_arguments_exit_2_through_the_console_entry():
+    # `python -m server` is the same program as the `railsign` console script.
+    proc = subprocess.run([sys.executable, "-m", "server", "export"], capture_output=True, text=True)
+    assert proc.returncode == 2
+    assert "one of the arguments --rail --board --product is required" in proc.stderr
+    proc = subprocess.run([sys.executable, "-m", "server", "--help"], capture_output=True, text=True)
+    assert proc.returncode == 0
+    for command in ("serve", "demo", "migrate", "export", "import"):
+        assert command in proc.stdout
+
+
+def test_serve_refuses_the_placeholder_secret(monkeypatch, tmp_path, capsys):
+    monkeypatch.setenv("RAILSIGN_DATABASE_URL", f"sqlite:///{tmp_path / 'x.db'}")
+    monkeypatch.delenv("RAILSIGN_SECRET_KEY", raising=False)
+    assert main(["serve", "--port", "1"]) == EXIT_BAD_INPUT
+    assert "RAILSIGN_SECRET_KEY" in capsys.readouterr().err
+
+
+def test_parser_knows_every_documented_command():
+    parser = build_parser()
+    for argv in (["serve", "--host", "0.0.0.0", "--port", "9000", "--workers", "2"], ["demo"], ["migrate"],
+                 ["user", "add", "x", "--role", "viewer", "--password-stdin"], ["token", "create", "t", "--user", "x"]):
+        assert parser.parse_args(argv).func is not None
