@@ -21,6 +21,7 @@ from server.api import api_router
 from server.auth import SessionCookie
 from server.config import WEB_DIR, Settings, get_settings
 from server.db import make_engine, make_sessionmaker, ping
+from server.pages import page_router
 from server.services.errors import ServiceError
 
 log = logging.getLogger("railsign.http")
@@ -108,6 +109,7 @@ def create_app(settings: Settings | None = None) -> FastAPI:
 
     _install_error_handlers(app)
     app.include_router(api_router)
+    app.include_router(page_router)
 
     @app.get("/healthz", tags=["health"])
     def healthz() -> JSONResponse:

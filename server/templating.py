@@ -9,3 +9,4 @@ from server.units import format_quantity
 
 templates = Jinja2Templates(directory=str(WEB_DIR / "templates"))
 templates.env.filters["eng"] = lambda value, kind, digits=3: format_quantity(value, kind, digits)
+templates.env.filters["when"] = lambda dt: dt.strftime("%Y-%m-%d %H:%M UTC") if dt else "never"

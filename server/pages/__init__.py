@@ -1,1 +1,11 @@
 """Server-rendered pages (Jinja2) over the same service functions as the API."""
+
+from __future__ import annotations
+
+from fastapi import APIRouter
+
+from server.pages import boards, history, home, parts, rail_form, rails
+
+page_router = APIRouter(include_in_schema=False)
+for module in (home, boards, rails, rail_form, history, parts):
+    page_router.include_router(module.router)

@@ -20,7 +20,7 @@ from server.services.audit import record
 from server.services.errors import Conflict, Invalid, NotFound
 
 __all__ = ["normalize_fet", "part_dict", "part_revision_dict", "list_parts", "get_part", "get_part_revision",
-           "create_part", "save_part", "part_usage"]
+           "list_part_revisions", "create_part", "save_part", "part_usage"]
 
 
 def normalize_fet(data: Any, prefix: str = "document") -> dict[str, Any]:
@@ -73,6 +73,13 @@ def get_part_revision(*, session: Session, actor: Actor, part_id: int, n: int | 
     if rev is None:
         raise NotFound(f"part {part_id} has no revision {n}")
     return rev
+
+
+def list_part_revisions(*, session: Session, actor: Actor, part_id: int) -> list[PartRevision]:
+    """Every revision of a part, newest first."""
+    part = get_part(session=session, actor=actor, part_id=part_id)
+    return list(session.scalars(select(PartRevision).where(PartRevision.part_id == part.id)
+                                .order_by(PartRevision.n.desc())))
 
 
 def create_part(*, session: Session, actor: Actor, document: Any, message: str = "") -> PartRevision:
@@ -131,9 +138,10 @@ def save_part(*, session: Session, actor: Actor, part_id: int, document: Any, ba
 def part_usage(*, session: Session, actor: Actor, part_id: int) -> list[dict]:
     """Which rails (that the actor can see) use which revision of this part, head revisions only."""
     stmt = scoped_rails(
-        select(Rail.id, Rail.name, Rail.board_id, PartRevision.n)
+        select(Rail.id, Rail.name, Rail.board_id, PartRevision.n, Rail.head_n)
         .join(RailRevision, (RailRevision.rail_id == Rail.id) & (RailRevision.n == Rail.head_n))
         .join(PartRevision, PartRevision.id == RailRevision.part_revision_id)
         .where(PartRevision.part_id == part_id), actor)
-    return [{"rail_id": r.id, "rail_name": r.name, "board_id": r.board_id, "part_revision": r.n}
+    return [{"rail_id": r.id, "rail_name": r.name, "board_id": r.board_id, "part_revision": r.n,
+             "rail_revision": r.head_n}
             for r in session.execute(stmt.order_by(Rail.name))]

@@ -1,0 +1,92 @@
+"""The board page: its rails in a sortable, filterable table, whole-board analysis, the supply budget."""
+
+from __future__ import annotations
+
+from typing import Annotated, Any
+
+from fastapi import APIRouter, Depends, Request
+from fastapi.responses import HTMLResponse, RedirectResponse
+from sqlalchemy.orm import Session
+
+from server import jobs
+from server.auth import CurrentActor, require
+from server.db import SessionDep
+from server.pages import signoff_view
+from server.pages.display import VERDICT_ORDER, fmt, verdict_style, worst_check
+from server.pages.plots import budget_figure
+from server.pages.rendering import page_context, redirect, render
+from server.services import budget, overview
+from server.services.access import Actor, Permission
+
+router = APIRouter(include_in_schema=False)
+Analyst = Annotated[Actor, Depends(require(Permission.ANALYZE))]
+MODES = ("hard", "slew", "current_limit", "power_limit")
+
+
+def supply_text(supply: dict[str, Any]) -> str:
+    text = f"{fmt(supply.get('v_nom'), 'V')} ({fmt(supply.get('v_min'), 'V')} to {fmt(supply.get('v_max'), 'V')})"
+    return text
+
+
+def _row(r: dict[str, Any], state: str) -> dict[str, Any]:
+    worst = worst_check(r["checks"], r["t_ambient"])
+    return {
+        "id": r["id"], "name": r["name"], "mode": r["mode"], "head_n": r["head_n"],
+        "supply": supply_text(r["supply"]), "supply_sort": r["supply"].get("v_nom") or 0,
+        "c": fmt(r["load"].get("c_nom"), "F"), "c_sort": r["load"].get("c_nom") or 0,
+        "verdict": r["verdict"], "verdict_sort": verdict_style(r["verdict"]).severity,
+        "worst": worst, "worst_sort": worst["margin"] if worst and worst["margin"] is not None else "",
+        "state": state, "analysed_at": r["analysed_at"],
+        "analysed_sort": r["analysed_at"].isoformat() if r["analysed_at"] else "",
+    }
+
+
+def _budget_title(entry: dict[str, Any]) -> tuple[str, str]:
+    """Title of a supply's budget plot, and its verdict in words."""
+    s = entry["supply"]
+    name = f"{fmt(s.get('v_nom'), 'V')} supply ({len(entry['rails'])} rail{'' if len(entry['rails']) == 1 else 's'})"
+    if entry["peak"] is None:
+        return name, "no start-up results yet"
+    if entry["i_max"] is None:
+        words = f"peak {fmt(entry['peak'], 'A')}; the supply gives no i_max to compare with"
+    else:
+        words = (f"peak {fmt(entry['peak'], 'A')} at {fmt(entry['t_peak'], 's')} against i_max "
+                 f"{fmt(entry['i_max'], 'A')}: {'over budget' if entry['over'] else 'within budget'}")
+    return name, words
+
+
+def board_context(session: Session, actor: Actor, board_id: int, *, q: str = "", verdict: str = "",
+                  mode: str = "") -> dict[str, Any]:
+    data = overview.board_rails(session=session, actor=actor, board_id=board_id)
+    states = signoff_view.board_states(session, [r["id"] for r in data["rails"]])
+    rows = [_row(r, states.get(r["id"], signoff_view.NO_STATE)) for r in data["rails"]]
+    counts = {}
+    for r in rows:
+        counts[r["verdict"]] = counts.get(r["verdict"], 0) + 1
+    shown = [r for r in rows if (not q or q.lower() in r["name"].lower())
+             and (not verdict or verdict_style(r["verdict"]).word == verdict) and (not mode or r["mode"] == mode)]
+    supplies = []
+    for k, entry in enumerate(budget.board_budget(session=session, actor=actor, board_id=board_id)):
+        name, words = _budget_title(entry)
+        supplies.append({"id": f"budget-{k}", "name": name, "words": words, "over": entry["over"],
+                         "missing": entry["missing"], "figure": budget_figure(entry, f"{name}: {words}"),
+                         "rails": entry["rails"]})
+    job = overview.active_job(session=session, board_id=board_id, kind="board")
+    return {"board": data["board"], "product": data["product"], "rows": shown, "total": len(rows),
+            "counts": [(v, counts[v]) for v in VERDICT_ORDER if counts.get(v)], "supplies": supplies,
+            "job": job, "filters": {"q": q, "verdict": verdict, "mode": mode}, "modes": MODES,
+            "verdict_words": [verdict_style(v).word for v in VERDICT_ORDER]}
+
+
+@router.get("/boards/{board_id}", response_class=HTMLResponse)
+def board_page(board_id: int, request: Request, session: SessionDep, actor: CurrentActor, q: str = "",
+               verdict: str = "", mode: str = "") -> HTMLResponse:
+    ctx = board_context(session, actor, board_id, q=q, verdict=verdict, mode=mode)
+    return render(request, "board.html", page_context(request, actor, **ctx))
+
+
+@router.post("/boards/{board_id}/analyses")
+def analyse_board(board_id: int, session: SessionDep, actor: Analyst) -> RedirectResponse:
+    """Queue every rail of the board; the board page shows the progress."""
+    jobs.enqueue_board(session=session, actor=actor, board_id=board_id)
+    return redirect(f"/boards/{board_id}#analysis")

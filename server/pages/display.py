@@ -1,0 +1,184 @@
+"""How results read on the pages: verdict words and styles, check rows, margins, input listings.
+
+Provides
+--------
+VERDICT_STYLES, verdict_style(verdict)
+    Every verdict's word, its CSS class and a shape, kept together in one place: a verdict
+    is always shown in words as well as colour.
+check_sense(check_id), check_margin(check, t_ambient)
+    Which way a check's limit points, and a normalised margin (>= 1: inside the team limit).
+check_rows(checks, t_ambient), worst_check(checks, t_ambient)
+    The checks table of the rail page, and the check with the least margin.
+input_sections(document)
+    The rail document as labelled sections of engineering-notation values.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass
+from typing import Any
+
+from server.units import format_quantity
+
+__all__ = ["VerdictStyle", "VERDICT_STYLES", "VERDICT_ORDER", "verdict_style", "check_sense", "check_margin",
+           "check_rows", "worst_check", "fmt", "input_sections", "BASIS_TEXT", "UNIT_KIND"]
+
+
+@dataclass(frozen=True)
+class VerdictStyle:
+    word: str        # the text shown, always
+    css: str         # the colour class
+    shape: str       # a second cue besides colour
+    severity: int    # sort order: higher is worse
+
+
+VERDICT_STYLES: dict[str | None, VerdictStyle] = {
+    "fail": VerdictStyle("fail", "verdict-fail", "\u2716", 4),
+    "marginal": VerdictStyle("marginal", "verdict-marginal", "\u25b2", 3),
+    None: VerdictStyle("not analysed", "verdict-none", "\u25cb", 2),
+    "pass": VerdictStyle("pass", "verdict-pass", "\u2714", 1),
+    "n/a": VerdictStyle("n/a", "verdict-na", "\u2013", 0),
+}
+# worst first: the order of counts and of "what needs attention"
+VERDICT_ORDER: list[str | None] = ["fail", "marginal", None, "pass", "n/a"]
+
+BASIS_TEXT = {
+    "standard": "standard",
+    "common practice": "common practice, not a standard",
+    "physical limit": "physical limit",
+}
+
+# unit of a check (as the analysis names it) -> quantity kind of server.units
+UNIT_KIND = {"V": "V", "A": "A", "degC": "degC", "ratio": "ratio", "s": "s", "K": "K", "W": "W", "J": "J",
+             "F": "F"}
+
+
+def verdict_style(verdict: str | None) -> VerdictStyle:
+    return VERDICT_STYLES.get(verdict, VERDICT_STYLES[None])
+
+
+def fmt(value: float | None, kind: str, digits: int = 3) -> str:
+    """Engineering notation of an SI value; '-' when there is none."""
+    if value is None:
+        return "-"
+    if kind == "ratio":
+        return f"{value:.{digits}g}"
+    return format_quantity(value, kind, digits)
+
+
+def _specs() -> dict[str, Any]:
+    from server.analysis import CHECKS
+
+    return {c.id: c for c in CHECKS}
+
+
+def check_sense(check_id: str) -> str:
+    """'at_least', 'at_most' or 'flag' (unknown checks read as flags)."""
+    spec = _specs().get(check_id)
+    return spec.sense if spec is not None else "flag"
+
+
+def check_margin(check: dict[str, Any], t_ambient: float | None = None) -> float | None:
+    """How far a check sits inside its limit, as a ratio: >= 1 within the team limit, < 1 beyond it.
+
+    at_least: value / limit. at_most: limit / value, and for temperatures the allowed rise
+    over the ambient against the actual rise. Flags and missing values have no margin (None).
+    """
+    value, limit = check.get("value"), check.get("limit")
+    if value is None or limit is None:
+        return None
+    sense = check_sense(check["id"])
+    if sense == "at_least":
+        return value / limit if limit > 0 else None
+    if sense == "at_most":
+        if check.get("unit") == "degC":
+            if t_ambient is None:
+                return None
+            rise = value - t_ambient
+            return (limit - t_ambient) / rise if rise > 0 else None
+        return limit / value if value > 0 else None
+    return None
+
+
+def _limit_text(check: dict[str, Any]) -> str:
+    kind = UNIT_KIND.get(check.get("unit") or "", "ratio")
+    if check.get("limit") is None:
+        return "-"
+    sign = {"at_least": "\u2265 ", "at_most": "\u2264 "}.get(check_sense(check["id"]), "")
+    return sign + fmt(check["limit"], kind)
+
+
+def check_rows(checks: list[dict[str, Any]], t_ambient: float | None = None) -> list[dict[str, Any]]:
+    """The rows of the checks table, in the analysis' order."""
+    rows = []
+    for c in checks:
+        kind = UNIT_KIND.get(c.get("unit") or "", "ratio")
+        margin = check_margin(c, t_ambient)
+        rows.append({
+            "id": c["id"], "title": c.get("title", c["id"]), "verdict": c.get("verdict"),
+            "value": fmt(c.get("value"), kind), "limit": _limit_text(c),
+            "unit": {"ratio": "ratio", "degC": "\u00b0C"}.get(kind, c.get("unit") or ""),
+            "basis": c.get("basis", ""), "basis_text": BASIS_TEXT.get(c.get("basis", ""), c.get("basis", "")),
+            "detail": c.get("detail") or "", "corner": c.get("corner"),
+            "margin": margin, "margin_text": "-" if margin is None else f"{margin:.3g}\u00d7",
+        })
+    return rows
+
+
+def worst_check(checks: list[dict[str, Any]] | None, t_ambient: float | None = None) -> dict[str, Any] | None:
+    """The check to look at first: the worst verdict, then the smallest margin."""
+    if not checks:
+        return None
+    rows = [r for r in check_rows(checks, t_ambient) if r["verdict"] != "n/a"]
+    if not rows:
+        return None
+
+    def key(r: dict[str, Any]) -> tuple[int, float]:
+        m = r["margin"]
+        return (-verdict_style(r["verdict"]).severity, m if m is not None and math.isfinite(m) else math.inf)
+
+    return min(rows, key=key)
+
+
+# (section title, document key, [(label, field, kind)])
+_INPUTS: list[tuple[str, str, list[tuple[str, str, str | None]]]] = [
+    ("Supply", "supply", [("V min", "v_min", "V"), ("V nom", "v_nom", "V"), ("V max", "v_max", "V"),
+                          ("Source resistance", "r_source", "ohm"), ("Source inductance", "l_source", "H"),
+                          ("Current capability (i_max)", "i_max", "A"), ("Upstream UVLO", "uvlo", "V")]),
+    ("Path", "path", [("Resistance", "r", "ohm"), ("Inductance", "l", "H")]),
+    ("Load", "load", [("Capacitance", "c_nom", "F"), ("Capacitance tolerance", "c_tol", "fraction"),
+                      ("ESR", "esr", "ohm"), ("Load model", "model", None), ("Load current at V nom", "i_nom", "A"),
+                      ("Turn-on voltage", "v_on", "V")]),
+    ("Switch", "switch", [("Mode", "mode", None), ("Turn-on time", "t_on", "s"), ("Slew rate", "dvdt", "V/s"),
+                          ("Current limit", "i_limit", "A"), ("Current limit tolerance", "i_limit_tol", "fraction"),
+                          ("Power limit", "p_limit", "W")]),
+    ("Environment", "environment", [("Worst-case ambient", "t_ambient", "degC")]),
+]
+_TIMER = [("Timer capacitor", "c", "F"), ("Capacitor tolerance", "c_tol", "fraction"),
+          ("Charge current", "i_charge", "A"), ("Charge current tolerance", "i_charge_tol", "fraction"),
+          ("Trip voltage", "v_trip", "V"), ("Trip voltage tolerance", "v_trip_tol", "fraction"),
+          ("After a fault", "after_fault", None), ("Off time between retries", "retry_off", "s")]
+_FET = [("Name", "name", None), ("V_DS rating", "vds_max", "V"), ("Pulsed drain current", "id_pulse_max", "A"),
+        ("R_DS(on) at 25 \u00b0C", "rds_on", "ohm"), ("R_DS(on) temperature coefficient", "rds_on_alpha", "1/K"),
+        ("Maximum junction temperature", "tj_max", "degC"), ("R_th junction-ambient", "rth_ja", "K/W")]
+
+
+def _items(section: dict[str, Any], spec: list[tuple[str, str, str | None]]) -> list[tuple[str, str]]:
+    out = []
+    for label, key, kind in spec:
+        value = section.get(key)
+        if value is None:
+            continue
+        out.append((label, str(value).replace("_", " ") if kind is None else fmt(value, kind)))
+    return out
+
+
+def input_sections(document: dict[str, Any]) -> list[dict[str, Any]]:
+    """The inputs of a rail, grouped, in engineering notation (fields left unset are left out)."""
+    sections = [{"title": title, "items": _items(document.get(key) or {}, spec)} for title, key, spec in _INPUTS]
+    timer = (document.get("switch") or {}).get("timer")
+    sections.insert(4, {"title": "Fault timer",
+                        "items": _items(timer, _TIMER) if timer else [("Fault timer", "none")]})
+    sections.append({"title": "MOSFET", "items": _items(document.get("fet") or {}, _FET)})
+    return sections

@@ -1,0 +1,158 @@
+"""The part (MOSFET) form: fields, pasted CSV for SOA curves and Foster stages, errors by field.
+
+Pure functions over plain dicts. An SOA curve is one pulse width and a block of pasted
+points, one "V_ds, I_d" pair per line (comma, semicolon, tab or spaces between the two;
+a header line and lines starting with # are skipped). Foster stages are pasted the same
+way, one "r, tau" pair per line. Values may carry units ("12 V", "20 us").
+
+Provides :data:`PART_FIELDS`, :func:`parse_pairs`, :func:`document_from_part_form`,
+:func:`part_form_from_document`, :func:`curve_slots`.
+"""
+
+from __future__ import annotations
+
+import re
+from typing import Any
+
+from server.pages.forms import FormField, form_value, place_errors
+
+__all__ = ["PART_FIELDS", "parse_pairs", "document_from_part_form", "part_form_from_document", "curve_slots",
+           "part_errors", "ZTH_FIELD", "EMPTY_CURVES"]
+
+F = FormField
+PART_FIELDS = [
+    F("name", "Part name", required=True, placeholder="e.g. N-channel 30 V 5 mOhm"),
+    F("vds_max", "Drain-source voltage rating V_DS(max)", "V", True),
+    F("id_pulse_max", "Pulsed drain current rating", "A", hint="optional"),
+    F("rds_on", "R_DS(on) at T_j 25 \u00b0C", "ohm", True),
+    F("rds_on_alpha", "R_DS(on) temperature coefficient", "1/K", placeholder="0.5 %/K if blank"),
+    F("tj_max", "Maximum junction temperature", "degC", True),
+    F("rth_ja", "Thermal resistance junction to ambient (mounted)", "K/W", True),
+    F("soa.t_case", "Case temperature of the SOA curves", "degC", placeholder="25 \u00b0C if blank"),
+]
+ZTH_FIELD = "zth"
+EMPTY_CURVES = ["100 us", "1 ms", "10 ms", "DC"]
+_SPLIT = re.compile(r"\s*[,;\t]\s*")
+_COMMENT = "#"
+
+
+def _curve_name(k: int, part: str) -> str:
+    return f"soa.curves[{k}].{part}"
+
+
+def parse_pairs(text: str) -> tuple[list[tuple[str, str, int]], list[str]]:
+    """Pairs of values from pasted text: [(first, second, line number)], and the problems found.
+
+    A first line that holds no digit at all is taken for a header and skipped.
+    """
+    pairs, problems = [], []
+    for n, line in enumerate(text.splitlines(), start=1):
+        line = line.strip()
+        if not line or line.startswith(_COMMENT):
+            continue
+        if not pairs and not problems and not re.search(r"\d", line):
+            continue  # header
+        cells = [c for c in (_SPLIT.split(line) if _SPLIT.search(line) else line.split()) if c]
+        if len(cells) != 2:
+            problems.append(f"line {n}: expected two values, got {len(cells)} ('{line[:40]}')")
+            continue
+        pairs.append((cells[0], cells[1], n))
+    return pairs, problems
+
+
+def curve_slots(form: dict[str, str]) -> list[int]:
+    """The curve indices present in a submitted form, ascending."""
+    found = set()
+    for key in form:
+        m = re.match(r"soa\.curves\[(\d+)\]\.", key)
+        if m:
+            found.add(int(m.group(1)))
+    return sorted(found)
+
+
+def document_from_part_form(form: dict[str, str]) -> tuple[dict[str, Any], dict[str, str], dict[str, Any]]:
+    """The FET document of a submitted part form.
+
+    Returns (document, errors found while reading the pasted text by field, how document
+    indices map back to form fields: {"curves": {doc index: form index}, "zth_lines": [...],
+    "points_lines": {form index: [line numbers]}}).
+    """
+    doc: dict[str, Any] = {"soa": {"curves": []}}
+    errors: dict[str, str] = {}
+    for f in PART_FIELDS:
+        raw = form.get(f.name, "").strip()
+        if raw:
+            if f.name == "soa.t_case":
+                doc["soa"]["t_case"] = raw
+            else:
+                doc[f.name] = raw
+    pairs, problems = parse_pairs(form.get(ZTH_FIELD, ""))
+    if problems:
+        errors[ZTH_FIELD] = "; ".join(problems)
+    doc["zth"] = [{"r": a, "tau": b} for a, b, _ in pairs]
+    mapping: dict[str, Any] = {"curves": {}, "zth_lines": [n for _, _, n in pairs], "points_lines": {}}
+    for k in curve_slots(form):
+        t_raw = form.get(_curve_name(k, "t_pulse"), "").strip()
+        text = form.get(_curve_name(k, "points"), "")
+        if not t_raw and not text.strip():
+            continue
+        pts, problems = parse_pairs(text)
+        if problems:
+            errors[_curve_name(k, "points")] = "; ".join(problems)
+        mapping["curves"][len(doc["soa"]["curves"])] = k
+        mapping["points_lines"][k] = [n for _, _, n in pts]
+        t_pulse = None if t_raw.upper() in ("", "DC") else t_raw
+        doc["soa"]["curves"].append({"t_pulse": t_pulse, "points": [[a, b] for a, b, _ in pts]})
+    return doc, errors, mapping
+
+
+def part_errors(details: list[dict[str, Any]], mapping: dict[str, Any]) -> tuple[dict[str, str], list[str]]:
+    """Errors of the part service placed beside the form's fields (document indices made form fields)."""
+    fixed = []
+    for d in details:
+        path = str(d.get("field") or "").removeprefix("document").lstrip(".")
+        message = str(d.get("message", ""))
+        m = re.match(r"soa\.curves\[(\d+)\](.*)", path)
+        if m and int(m.group(1)) in mapping["curves"]:
+            k = mapping["curves"][int(m.group(1))]
+            rest = m.group(2)
+            pm = re.match(r"\.points\[(\d+)\]", rest)
+            lines = mapping["points_lines"].get(k, [])
+            if pm and int(pm.group(1)) < len(lines):
+                message = f"line {lines[int(pm.group(1))]}: {message}"
+            path = _curve_name(k, "t_pulse" if rest.startswith(".t_pulse") else "points")
+        zm = re.match(r"zth\[(\d+)\](.*)", path)
+        if zm:
+            j = int(zm.group(1))
+            line = mapping["zth_lines"][j] if j < len(mapping["zth_lines"]) else j + 1
+            message, path = f"line {line} ({zm.group(2).lstrip('.') or 'stage'}): {message}", ZTH_FIELD
+        if path == "soa.curves" or path == "soa":
+            path = "soa.curves"
+        fixed.append({"field": path, "message": message})
+    names = [f.name for f in PART_FIELDS] + [ZTH_FIELD, "soa.curves"] + [
+        _curve_name(k, p) for k in mapping["curves"].values() for p in ("t_pulse", "points")]
+    return place_errors(fixed, names)
+
+
+def part_form_from_document(doc: dict[str, Any] | None) -> dict[str, str]:
+    """The form's values for a stored FET document (or the empty form: four curve slots)."""
+    form: dict[str, str] = {}
+    if doc is None:
+        for k, label in enumerate(EMPTY_CURVES):
+            form[_curve_name(k, "t_pulse")] = label
+            form[_curve_name(k, "points")] = ""
+        form[ZTH_FIELD] = ""
+        return form
+    for f in PART_FIELDS:
+        value = (doc.get("soa") or {}).get("t_case") if f.name == "soa.t_case" else doc.get(f.name)
+        form[f.name] = form_value(value, f.kind)
+    form[ZTH_FIELD] = "\n".join(f"{form_value(s['r'], 'K/W')}, {form_value(s['tau'], 's')}" for s in doc["zth"])
+    for k, c in enumerate(doc["soa"]["curves"]):
+        form[_curve_name(k, "t_pulse")] = "DC" if c["t_pulse"] is None else form_value(c["t_pulse"], "s")
+        form[_curve_name(k, "points")] = "\n".join(f"{_num(v)}, {_num(i)}" for v, i in c["points"])
+    return form
+
+
+def _num(x: float) -> str:
+    text = f"{x:.15g}"
+    return text if float(text) == x else repr(x)

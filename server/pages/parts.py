@@ -1,0 +1,164 @@
+"""The part library: MOSFET entries with their SOA curves and Foster stages, who uses them, and the part form."""
+
+from __future__ import annotations
+
+from typing import Annotated, Any
+
+from fastapi import APIRouter, Depends, Request
+from fastapi.responses import HTMLResponse, Response
+from sqlalchemy.orm import Session
+
+from server.auth import CurrentActor, require
+from server.db import SessionDep
+from server.pages.display import fmt
+from server.pages.part_forms import (PART_FIELDS, ZTH_FIELD, curve_slots, document_from_part_form,
+                                     part_errors, part_form_from_document)
+from server.pages.plots import part_soa_figure, pulse_label, zth_figure
+from server.pages.rendering import FormDep, form_dict, page_context, redirect, render
+from server.services import overview
+from server.services import parts as part_service
+from server.services.access import Actor, Permission
+from server.services.errors import Conflict, Invalid
+
+router = APIRouter(include_in_schema=False)
+Editor = Annotated[Actor, Depends(require(Permission.EDIT))]
+PARTS_SHOWN = 500
+
+
+def parts_context(session: Session, actor: Actor, q: str = "") -> dict[str, Any]:
+    rows, total = part_service.list_parts(session=session, actor=actor, q=q or None, limit=PARTS_SHOWN)
+    items = []
+    for p in rows:
+        head = part_service.get_part_revision(session=session, actor=actor, part_id=p.id)
+        d = head.document
+        items.append({"part": p, "vds_max": fmt(d["vds_max"], "V"), "rds_on": fmt(d["rds_on"], "ohm"),
+                      "tj_max": fmt(d["tj_max"], "degC"), "curves": len(d["soa"]["curves"]),
+                      "stages": len(d["zth"])})
+    return {"items": items, "total": total, "q": q}
+
+
+def part_context(session: Session, actor: Actor, part_id: int, n: int | None = None) -> dict[str, Any]:
+    part = part_service.get_part(session=session, actor=actor, part_id=part_id)
+    rev = part_service.get_part_revision(session=session, actor=actor, part_id=part_id, n=n)
+    doc = rev.document
+    usage = part_service.part_usage(session=session, actor=actor, part_id=part_id)
+    labels = overview.board_labels(session=session, actor=actor, board_ids=[u["board_id"] for u in usage])
+    for u in usage:
+        b = labels.get(u["board_id"], {})
+        u["board"] = f"{b.get('product', '')} / {b.get('name', '')} rev {b.get('revision', '')}"
+        u["newest"] = u["part_revision"] == part.head_n
+    ratings = [("V_DS rating", fmt(doc["vds_max"], "V")), ("Pulsed drain current", fmt(doc.get("id_pulse_max"), "A")),
+               ("R_DS(on) at 25 \u00b0C", fmt(doc["rds_on"], "ohm")),
+               ("R_DS(on) temperature coefficient", fmt(doc["rds_on_alpha"], "1/K")),
+               ("Maximum junction temperature", fmt(doc["tj_max"], "degC")),
+               ("R_th junction-ambient (mounted)", fmt(doc["rth_ja"], "K/W")),
+               ("SOA case temperature", fmt(doc["soa"]["t_case"], "degC"))]
+    curves = [{"label": pulse_label(c["t_pulse"]), "points": len(c["points"]),
+               "range": f"{fmt(c['points'][0][0], 'V')} to {fmt(c['points'][-1][0], 'V')}",
+               "i_max": fmt(max(p[1] for p in c["points"]), "A")}
+              for c in sorted(doc["soa"]["curves"], key=lambda c: float("inf") if c["t_pulse"] is None else c["t_pulse"])]
+    stages = [{"k": k + 1, "r": fmt(s["r"], "K/W"), "tau": fmt(s["tau"], "s")} for k, s in enumerate(doc["zth"])]
+    zsum = sum(s["r"] for s in doc["zth"])
+    return {"part": part, "rev": rev, "document": doc, "ratings": ratings, "curves": curves, "stages": stages,
+            "zth_sum": fmt(zsum, "K/W"), "revisions": part_service.list_part_revisions(
+                session=session, actor=actor, part_id=part_id),
+            "usage": usage, "figures": {"soa": part_soa_figure(doc), "zth": zth_figure(doc["zth"])}}
+
+
+def part_form_context(*, values: dict[str, str], errors: dict[str, str], other: list[str], part=None,
+                      base_n: int | None = None, conflict: str | None = None) -> dict[str, Any]:
+    slots = curve_slots(values) or [0]
+    return {"part": part, "values": values, "errors": errors, "other_errors": other, "fields": PART_FIELDS,
+            "zth_field": ZTH_FIELD, "slots": slots, "base_n": base_n, "conflict": conflict,
+            "labels": {f.name: f.html_id for f in PART_FIELDS} | {ZTH_FIELD: "f-zth"} | {
+                f"soa.curves[{k}].{p}": f"f-curve-{k}-{p.replace('_', '-')}" for k in slots
+                for p in ("t_pulse", "points")},
+            "action": f"/parts/{part.id}/edit" if part else "/parts/new"}
+
+
+def new_part_context() -> dict[str, Any]:
+    return part_form_context(values=part_form_from_document(None), errors={}, other=[])
+
+
+def edit_part_context(session: Session, actor: Actor, part_id: int) -> dict[str, Any]:
+    part = part_service.get_part(session=session, actor=actor, part_id=part_id)
+    head = part_service.get_part_revision(session=session, actor=actor, part_id=part_id)
+    return part_form_context(values=part_form_from_document(head.document), errors={}, other=[], part=part,
+                             base_n=head.n)
+
+
+def submit_part(session: Session, actor: Actor, form: dict[str, str], part_id: int | None = None
+                ) -> tuple[int | None, dict[str, Any]]:
+    """Create or save a part from its form: (part id, {}) or (None, the form again with its errors)."""
+    doc, errors, mapping = document_from_part_form(form)
+    part = part_service.get_part(session=session, actor=actor, part_id=part_id) if part_id else None
+    base_n = None
+    conflict = None
+    if part_id:
+        try:
+            base_n = int(form.get("base_revision", ""))
+        except ValueError:
+            base_n = 0
+    if not errors:
+        try:
+            if part_id is None:
+                rev = part_service.create_part(session=session, actor=actor, document=doc,
+                                               message=form.get("message", ""))
+            else:
+                rev = part_service.save_part(session=session, actor=actor, part_id=part_id, document=doc,
+                                             base_n=base_n, message=form.get("message", ""))
+            return rev.part_id, {}
+        except Invalid as exc:
+            session.rollback()
+            errors, other = part_errors(exc.details or [{"field": "", "message": exc.message}], mapping)
+            return None, part_form_context(values=form, errors=errors, other=other, part=part, base_n=base_n)
+        except Conflict as exc:
+            session.rollback()
+            if part_id is None:
+                errors = {"name": exc.message}
+            else:
+                conflict = exc.message
+                current = (exc.extra or {}).get("current") or {}
+                base_n = current.get("n", base_n)
+    return None, part_form_context(values=form, errors=errors, other=[], part=part, base_n=base_n,
+                                   conflict=conflict)
+
+
+@router.get("/parts", response_class=HTMLResponse)
+def parts_page(request: Request, session: SessionDep, actor: CurrentActor, q: str = "") -> HTMLResponse:
+    return render(request, "parts.html", page_context(request, actor, **parts_context(session, actor, q)))
+
+
+@router.get("/parts/new", response_class=HTMLResponse)
+def new_part_form(request: Request, actor: Editor) -> HTMLResponse:
+    return render(request, "part_form.html", page_context(request, actor, **new_part_context()))
+
+
+@router.post("/parts/new", response_class=HTMLResponse)
+def create_part_from_form(request: Request, session: SessionDep, actor: Editor, form: FormDep) -> Response:
+    part_id, ctx = submit_part(session, actor, form_dict(form))
+    if part_id is not None:
+        return redirect(f"/parts/{part_id}")
+    return render(request, "part_form.html", page_context(request, actor, **ctx), status_code=422)
+
+
+@router.get("/parts/{part_id}", response_class=HTMLResponse)
+def part_page(part_id: int, request: Request, session: SessionDep, actor: CurrentActor,
+              revision: int | None = None) -> HTMLResponse:
+    ctx = part_context(session, actor, part_id, revision)
+    return render(request, "part.html", page_context(request, actor, **ctx))
+
+
+@router.get("/parts/{part_id}/edit", response_class=HTMLResponse)
+def edit_part_form(part_id: int, request: Request, session: SessionDep, actor: Editor) -> HTMLResponse:
+    return render(request, "part_form.html", page_context(request, actor, **edit_part_context(session, actor, part_id)))
+
+
+@router.post("/parts/{part_id}/edit", response_class=HTMLResponse)
+def save_part_from_form(part_id: int, request: Request, session: SessionDep, actor: Editor,
+                        form: FormDep) -> Response:
+    saved_id, ctx = submit_part(session, actor, form_dict(form), part_id)
+    if saved_id is not None:
+        return redirect(f"/parts/{part_id}")
+    return render(request, "part_form.html", page_context(request, actor, **ctx),
+                  status_code=409 if ctx.get("conflict") else 422)

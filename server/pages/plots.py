@@ -1,0 +1,397 @@
+"""Plot figures of the pages, as plain Plotly figure dicts ({"data": [...], "layout": {...}}).
+
+Built here in Python (testable without a browser) and drawn in the page by
+``web/static/plots.js``. All values are SI; axes show SI prefixes with the unit as suffix.
+
+Provides :func:`startup_figure`, :func:`soa_figure`, :func:`timer_figure`,
+:func:`monte_carlo_figure`, :func:`startup_overlay_figure`, :func:`soa_overlay_figure`,
+:func:`budget_figure`, :func:`part_soa_figure`, :func:`zth_figure`, and the palette.
+"""
+
+from __future__ import annotations
+
+import math
+from typing import Any
+
+import numpy as np
+
+from server.units import format_quantity
+
+__all__ = ["PALETTE", "VERDICT_COLOURS", "startup_figure", "soa_figure", "timer_figure", "monte_carlo_figure",
+           "startup_overlay_figure", "soa_overlay_figure", "timer_limits", "budget_figure", "part_soa_figure", "zth_figure",
+           "pulse_label"]
+
+INK, GRID, AXIS = "#22303c", "#e4e8ed", "#9aa5b1"
+PALETTE = ["#3a6ea5", "#2a9d8f", "#c98a1b", "#8e5a9b", "#5c6b7a", "#b5523b", "#6f8f3a", "#a0527a"]
+VERDICT_COLOURS = {"pass": "#2f7d4f", "marginal": "#b7791f", "fail": "#b3261e", "n/a": "#7a8591"}
+CURVE_BLUES = ["#9cc3e6", "#6fa3d4", "#4a84bf", "#2f66a3", "#1f4c80", "#15365c", "#0d2440"]
+SIGNIFICANT = 5
+
+
+def _r(values: Any) -> list[float | None]:
+    """Values rounded to a few significant digits: smaller pages, nothing visible lost."""
+    return [None if v is None or not math.isfinite(v) else float(f"{v:.{SIGNIFICANT}g}") for v in values]
+
+
+def pulse_label(t_pulse: float | None) -> str:
+    return "DC" if t_pulse is None else format_quantity(t_pulse, "s", 3)
+
+
+def _axis(title: str, suffix: str = "", *, log: bool = False, **extra: Any) -> dict[str, Any]:
+    axis = {"title": {"text": title}, "ticksuffix": suffix, "tickformat": "~s", "gridcolor": GRID,
+            "zeroline": False, "showline": True, "linecolor": AXIS, "automargin": True}
+    if log:
+        axis["type"] = "log"
+    axis.update(extra)
+    return axis
+
+
+def _layout(title: str, height: int = 420, **extra: Any) -> dict[str, Any]:
+    layout = {"title": {"text": title, "x": 0, "xanchor": "left", "font": {"size": 15}},
+              "font": {"family": "system-ui, -apple-system, Segoe UI, sans-serif", "size": 12, "color": INK},
+              "paper_bgcolor": "#ffffff", "plot_bgcolor": "#ffffff", "height": height,
+              "margin": {"l": 70, "r": 24, "t": 48, "b": 56},
+              "legend": {"orientation": "h", "x": 0, "y": -0.16, "yanchor": "top"},
+              "colorway": PALETTE}
+    layout.update(extra)
+    return layout
+
+
+def _hline(y: float, colour: str, yref: str = "y", dash: str = "dash") -> dict[str, Any]:
+    return {"type": "line", "xref": "paper", "x0": 0, "x1": 1, "yref": yref, "y0": y, "y1": y,
+            "line": {"color": colour, "width": 1.5, "dash": dash}}
+
+
+def _vline(x: float, colour: str, xref: str = "x", yref: str = "paper", dash: str = "dash") -> dict[str, Any]:
+    return {"type": "line", "xref": xref, "x0": x, "x1": x, "yref": yref,
+            "y0": 0, "y1": 1, "line": {"color": colour, "width": 1.5, "dash": dash}}
+
+
+# --- start-up waveforms --------------------------------------------------------------------
+
+_ROWS = [("v_out", "Output voltage", "V"), ("i", "Current", "A"), ("p_fet", "FET power", "W"),
+         ("tj", "Junction temperature", "\u00b0C")]
+
+
+def _stacked_axes(rows: int, gap: float = 0.05) -> list[list[float]]:
+    h = (1 - gap * (rows - 1)) / rows
+    return [[round(1 - (k + 1) * h - k * gap, 4), round(1 - k * (h + gap), 4)] for k in range(rows)]
+
+
+def startup_figure(result: dict[str, Any], document: dict[str, Any]) -> dict[str, Any] | None:
+    """V_out, current, FET power and Tj of the nominal start-up on one shared time axis."""
+    wave = (result.get("startup") or {}).get("waveforms")
+    if not wave or not wave.get("t"):
+        return None
+    return _startup(
+        [(wave, "", PALETTE[0], "solid")], document, result.get("rules") or {},
+        "Start-up at nominal conditions")
+
+
+def _startup(waves: list[tuple[dict, str, str, str]], document: dict[str, Any], rules: dict[str, Any],
+             title: str) -> dict[str, Any]:
+    data, layout = [], _layout(title, height=640, hovermode="x unified", hoversubplots="axis")
+    domains = _stacked_axes(len(_ROWS))
+    for k, (key, label, unit) in enumerate(_ROWS):
+        ax = "y" if k == 0 else f"y{k + 1}"
+        layout["yaxis" if k == 0 else f"yaxis{k + 1}"] = _axis(f"{label}", " " + unit if unit == "\u00b0C" else unit,
+                                                               domain=domains[k], anchor="x")
+        for wave, suffix, colour, dash in waves:
+            data.append({"type": "scatter", "mode": "lines", "name": label + suffix, "x": _r(wave["t"]),
+                         "y": _r(wave[key]), "xaxis": "x", "yaxis": ax,
+                         "line": {"color": colour if len(waves) > 1 else PALETTE[k], "width": 2, "dash": dash},
+                         "showlegend": len(waves) > 1 and k == 0 or len(waves) == 1,
+                         "legendgroup": suffix or key})
+    layout["xaxis"] = _axis("Time since turn-on", "s", anchor=f"y{len(_ROWS)}", showspikes=True,
+                            spikemode="across", spikethickness=1, spikecolor=AXIS)
+    tj_max = (document.get("fet") or {}).get("tj_max")
+    shapes = []
+    if tj_max is not None:
+        shapes.append(_hline(tj_max, VERDICT_COLOURS["fail"], yref=f"y{len(_ROWS)}"))
+        if rules.get("tj_headroom") is not None:
+            shapes.append(_hline(tj_max - rules["tj_headroom"], VERDICT_COLOURS["marginal"], yref=f"y{len(_ROWS)}",
+                                 dash="dot"))
+        layout["annotations"] = [{"xref": "paper", "x": 1, "yref": f"y{len(_ROWS)}", "y": tj_max, "showarrow": False,
+                                  "xanchor": "right", "yanchor": "bottom", "font": {"size": 11},
+                                  "text": f"tj_max {tj_max:.0f} \u00b0C (dashed); team limit dotted"}]
+    layout["shapes"] = shapes
+    return {"data": data, "layout": layout}
+
+
+def startup_overlay_figure(pairs: list[tuple[str, dict[str, Any]]], document: dict[str, Any],
+                           rules: dict[str, Any]) -> dict[str, Any] | None:
+    """Start-up waveforms of several revisions overlaid: [(label, result)], newest last."""
+    styles = [("dash", PALETTE[4]), ("solid", PALETTE[0])]
+    waves = []
+    for k, (label, result) in enumerate(pairs):
+        wave = (result.get("startup") or {}).get("waveforms")
+        if wave and wave.get("t"):
+            dash, colour = styles[k % 2] if len(pairs) == 2 else ("solid", PALETTE[k % len(PALETTE)])
+            waves.append((wave, f" ({label})", colour, dash))
+    if not waves:
+        return None
+    return _startup(waves, document, rules, "Start-up waveforms, " + " against ".join(p[0] for p in pairs))
+
+
+# --- safe operating area ---------------------------------------------------------------------
+
+def _curve_traces(curves: list[dict[str, Any]], note: str) -> list[dict[str, Any]]:
+    traces = []
+    for k, c in enumerate(curves):
+        pts = c["points"]
+        traces.append({"type": "scatter", "mode": "lines", "name": f"SOA {pulse_label(c['t_pulse'])}{note}",
+                       "x": _r([p[0] for p in pts]), "y": _r([p[1] for p in pts]),
+                       "line": {"color": CURVE_BLUES[min(k, len(CURVE_BLUES) - 1)], "width": 2},
+                       "hovertemplate": "%{x:.3s}V, %{y:.3s}A<extra>" + pulse_label(c["t_pulse"]) + "</extra>"})
+    return traces
+
+
+def _trajectory(wave: dict[str, Any] | None, v_floor: float) -> tuple[list, list]:
+    if not wave or not wave.get("v_ds"):
+        return [], []
+    v = np.asarray(wave["v_ds"], dtype=float)
+    i = np.asarray(wave["i"], dtype=float)
+    keep = (v >= v_floor) & (i > 0)
+    return _r(v[keep]), _r(i[keep])
+
+
+def _derated(document: dict[str, Any]) -> list[dict[str, Any]]:
+    from server.analysis import derated_soa_curves
+
+    return derated_soa_curves(document["fet"], document.get("environment", {}).get("t_ambient", 25.0))
+
+
+def soa_figure(result: dict[str, Any], document: dict[str, Any]) -> dict[str, Any]:
+    """The SOA curves derated to t_ambient, the start-up trajectory and the short-circuit point."""
+    t_amb = document.get("environment", {}).get("t_ambient", 25.0)
+    curves = _derated(document)
+    v_floor = min(p[0] for c in curves for p in c["points"]) / 10
+    data = _curve_traces(curves, "")
+    st = result.get("startup") or {}
+    x, y = _trajectory(st.get("waveforms"), v_floor)
+    if x:
+        data.append({"type": "scatter", "mode": "lines+markers", "name": "Start-up trajectory (V_DS, I_D)",
+                     "x": x, "y": y, "line": {"color": PALETTE[2], "width": 2.5}, "marker": {"size": 4},
+                     "hovertemplate": "%{x:.3s}V, %{y:.3s}A<extra>start-up</extra>"})
+    annotations = []
+    if st.get("pulse_v_ds") and st.get("pulse_i"):
+        data.append({"type": "scatter", "mode": "markers", "name": "Start-up as its equivalent rectangle",
+                     "x": _r([st["pulse_v_ds"]]), "y": _r([st["pulse_i"]]),
+                     "marker": {"symbol": "square", "size": 10, "color": PALETTE[2],
+                                "line": {"color": INK, "width": 1}}})
+    sc = result.get("short_circuit") or {}
+    if sc.get("applies") and sc.get("v_ds") and sc.get("i"):
+        allowed = "indefinitely" if sc.get("survives_indefinitely") else format_quantity(sc.get("t_allow"), "s")
+        timer_max = format_quantity(sc["t_fault_max"], "s") if sc.get("t_fault_max") else "no timer"
+        label = f"Short circuit: allowed {allowed}; timer maximum {timer_max}"
+        data.append({"type": "scatter", "mode": "markers", "name": "Short circuit (V_DS, I_D)",
+                     "x": _r([sc["v_ds"]]), "y": _r([sc["i"]]),
+                     "marker": {"symbol": "diamond", "size": 13, "color": VERDICT_COLOURS["fail"],
+                                "line": {"color": INK, "width": 1}},
+                     "hovertemplate": label + "<extra></extra>"})
+        annotations.append({"x": math.log10(sc["v_ds"]), "y": math.log10(sc["i"]), "xref": "x", "yref": "y",
+                            "text": label, "showarrow": True, "arrowhead": 0, "ax": -40, "ay": -44,
+                            "bgcolor": "rgba(255,255,255,0.85)", "bordercolor": AXIS, "font": {"size": 11}})
+    layout = _layout(f"Safe operating area, derated to {t_amb:g} \u00b0C", height=520,
+                     xaxis=_axis("Drain-source voltage V_DS", "V", log=True),
+                     yaxis=_axis("Drain current I_D", "A", log=True), annotations=annotations,
+                     hovermode="closest")
+    return {"data": data, "layout": layout}
+
+
+def soa_overlay_figure(pairs: list[tuple[str, dict[str, Any], dict[str, Any]]]) -> dict[str, Any] | None:
+    """Start-up trajectories of several revisions on the newest revision's derated curves.
+
+    ``pairs``: [(label, result, document)], newest last.
+    """
+    if not pairs:
+        return None
+    newest_doc = pairs[-1][2]
+    curves = _derated(newest_doc)
+    v_floor = min(p[0] for c in curves for p in c["points"]) / 10
+    data = _curve_traces(curves, f" ({pairs[-1][0]})")
+    for k, (label, result, _doc) in enumerate(pairs):
+        x, y = _trajectory((result.get("startup") or {}).get("waveforms"), v_floor)
+        if x:
+            last = k == len(pairs) - 1
+            data.append({"type": "scatter", "mode": "lines+markers", "name": f"Start-up trajectory ({label})",
+                         "x": x, "y": y, "marker": {"size": 4},
+                         "line": {"color": PALETTE[2] if last else PALETTE[4], "width": 2.5,
+                                  "dash": "solid" if last else "dash"}})
+    t_amb = newest_doc.get("environment", {}).get("t_ambient", 25.0)
+    layout = _layout(f"Start-up trajectories on the SOA derated to {t_amb:g} \u00b0C", height=480,
+                     xaxis=_axis("Drain-source voltage V_DS", "V", log=True),
+                     yaxis=_axis("Drain current I_D", "A", log=True), hovermode="closest")
+    return {"data": data, "layout": layout}
+
+
+# --- fault timer -----------------------------------------------------------------------------
+
+def timer_figure(result: dict[str, Any], document: dict[str, Any]) -> dict[str, Any] | None:
+    """Worst-case time in limit against the fault timer's min..max band, with the E12 suggestion."""
+    tw = result.get("timer")
+    if not tw or not tw.get("t_fault_min"):
+        return None
+    rules = result.get("rules") or {}
+    sc = result.get("short_circuit") or {}
+    timer = (document.get("switch") or {}).get("timer") or {}
+    rows, data, shapes = [], [], []
+    t_lim = tw.get("t_limit_worst")
+    need_min = rules.get("timer_margin", 1.5) * t_lim if t_lim else None
+    t_allow = sc.get("t_allow") if sc.get("applies") else None
+    allow_max = t_allow / rules.get("fault_margin", 1.5) if t_allow else None
+
+    def band(name: str, lo: float, nom: float | None, hi: float, colour: str) -> None:
+        rows.append(name)
+        data.append({"type": "scatter", "mode": "lines+markers", "name": name, "x": _r([lo, hi]), "y": [name, name],
+                     "line": {"color": colour, "width": 12}, "marker": {"size": 14, "symbol": "line-ns",
+                                                                        "line": {"width": 2, "color": INK}},
+                     "hovertemplate": "%{x:.3s}s<extra>" + name + "</extra>"})
+        if nom is not None:
+            data.append({"type": "scatter", "mode": "markers", "name": name + " (nominal)", "x": _r([nom]),
+                         "y": [name], "marker": {"symbol": "line-ns", "size": 18, "line": {"width": 3, "color": INK}},
+                         "showlegend": False, "hovertemplate": "nominal %{x:.3s}s<extra></extra>"})
+
+    if t_lim:
+        name = "Start-up time in limit (worst case)"
+        rows.append(name)
+        data.append({"type": "bar", "orientation": "h", "name": name, "x": _r([t_lim]), "y": [name],
+                     "base": 0, "marker": {"color": PALETTE[2]}, "width": 0.35,
+                     "hovertemplate": "%{x:.3s}s<extra>" + (tw.get("t_limit_corner") or "") + "</extra>"})
+    c = timer.get("c")
+    band(f"Fault timer now (C = {format_quantity(c, 'F')})", tw["t_fault_min"], tw.get("t_fault_nom"),
+         tw["t_fault_max"], PALETTE[0])
+    suggested = tw.get("c_suggested")
+    if suggested and c:
+        k = suggested / c
+        band(f"With the suggested E12 value C = {format_quantity(suggested, 'F')}", tw["t_fault_min"] * k,
+             (tw.get("t_fault_nom") or 0) * k or None, tw["t_fault_max"] * k, PALETTE[1])
+    if need_min:
+        shapes.append(_vline(need_min, VERDICT_COLOURS["marginal"]))
+    if allow_max:
+        shapes.append(_vline(allow_max, VERDICT_COLOURS["fail"]))
+    if need_min and allow_max and need_min < allow_max:
+        shapes.append({"type": "rect", "xref": "x", "x0": need_min, "x1": allow_max, "yref": "paper", "y0": 0,
+                       "y1": 1, "fillcolor": "rgba(47,125,79,0.10)", "line": {"width": 0}, "layer": "below"})
+    xs = [v for v in (t_lim, need_min, allow_max, tw["t_fault_min"], tw["t_fault_max"]) if v]
+    if suggested and c:
+        xs += [tw["t_fault_min"] * suggested / c, tw["t_fault_max"] * suggested / c]
+    lo, hi = math.log10(min(xs)) - 0.3, math.log10(max(xs)) + 0.3
+    layout = _layout("Fault timer window", height=150 + 70 * len(rows),
+                     xaxis=_axis("Time", "s", log=True, range=[lo, hi]),
+                     yaxis={"type": "category", "categoryorder": "array", "categoryarray": rows[::-1],
+                            "automargin": True, "gridcolor": GRID, "showline": True, "linecolor": AXIS},
+                     shapes=shapes, hovermode="closest", showlegend=False)
+    return {"data": data, "layout": layout}
+
+
+def timer_limits(result: dict[str, Any]) -> list[str]:
+    """The two limits the timer window's dashed lines stand for, in words."""
+    tw, sc, rules = result.get("timer") or {}, result.get("short_circuit") or {}, result.get("rules") or {}
+    notes = []
+    t_lim = tw.get("t_limit_worst")
+    if t_lim:
+        need_min = rules.get("timer_margin", 1.5) * t_lim
+        notes.append(f"The timer must not trip before {format_quantity(need_min, 's')} (amber line): timer_margin "
+                     f"{rules.get('timer_margin', 1.5):g} \u00d7 the worst-case time in limit "
+                     f"{format_quantity(t_lim, 's')}.")
+    if sc.get("applies") and sc.get("t_allow"):
+        allow_max = sc["t_allow"] / rules.get("fault_margin", 1.5)
+        notes.append(f"It must trip by {format_quantity(allow_max, 's')} (red line): the FET survives the short "
+                     f"circuit for {format_quantity(sc['t_allow'], 's')}, over fault_margin "
+                     f"{rules.get('fault_margin', 1.5):g}.")
+    return notes
+
+
+# --- Monte Carlo -----------------------------------------------------------------------------
+
+def monte_carlo_figure(mc: dict[str, Any], titles: dict[str, str]) -> dict[str, Any] | None:
+    """Histograms of every check value with its limit drawn in; a grid of small plots."""
+    hists = mc.get("histograms") or {}
+    ids = [cid for cid in titles if cid in hists] + [cid for cid in hists if cid not in titles]
+    if not ids:
+        return None
+    cols = 2
+    rows = math.ceil(len(ids) / cols)
+    gap_x, gap_y = 0.1, 0.5 / max(rows, 1) * 0.35
+    w = (1 - gap_x * (cols - 1)) / cols
+    h = (1 - gap_y * (rows - 1)) / rows
+    data, layout = [], _layout(f"Monte Carlo: {mc.get('n')} samples, yield {mc.get('yield', 0) * 100:.1f} %",
+                               height=90 + 210 * rows, showlegend=False, hovermode="closest", bargap=0.02)
+    shapes, annotations = [], []
+    for k, cid in enumerate(ids):
+        r, c = divmod(k, cols)
+        n = "" if k == 0 else str(k + 1)
+        xd = [round(c * (w + gap_x), 4), round(c * (w + gap_x) + w, 4)]
+        yd = [round(1 - (r + 1) * h - r * gap_y, 4), round(1 - r * (h + gap_y), 4)]
+        edges, counts = hists[cid]["edges"], hists[cid]["counts"]
+        centres = [(a + b) / 2 for a, b in zip(edges[:-1], edges[1:])]
+        margin = (mc.get("margins") or {}).get(cid) or {}
+        unit = margin.get("unit", "")
+        suffix = {"degC": " \u00b0C", "ratio": ""}.get(unit, unit)
+        data.append({"type": "bar", "x": _r(centres), "y": counts, "width": (edges[1] - edges[0]) if len(edges) > 1
+                     else None, "xaxis": f"x{n}", "yaxis": f"y{n}", "marker": {"color": PALETTE[0]},
+                     "name": titles.get(cid, cid), "hovertemplate": "%{x:.3s}: %{y}<extra></extra>"})
+        layout[f"xaxis{n}"] = _axis("", suffix, domain=xd, anchor=f"y{n}")
+        layout[f"yaxis{n}"] = _axis("", "", domain=yd, anchor=f"x{n}", rangemode="tozero")
+        fail = (mc.get("fail_fraction") or {}).get(cid, 0.0)
+        annotations.append({"xref": f"x{n} domain", "yref": f"y{n} domain", "x": 0, "y": 1.02, "xanchor": "left",
+                            "yanchor": "bottom", "showarrow": False, "font": {"size": 11},
+                            "text": f"{titles.get(cid, cid)}: fails in {fail * 100:.1f} %"})
+        if margin.get("limit") is not None:
+            shapes.append({"type": "line", "xref": f"x{n}", "x0": margin["limit"], "x1": margin["limit"],
+                           "yref": f"y{n} domain", "y0": 0, "y1": 1,
+                           "line": {"color": VERDICT_COLOURS["fail"], "width": 2, "dash": "dash"}})
+    layout["shapes"], layout["annotations"] = shapes, annotations
+    return {"data": data, "layout": layout}
+
+
+# --- supply budget ---------------------------------------------------------------------------
+
+def budget_figure(entry: dict[str, Any], title: str) -> dict[str, Any] | None:
+    if not entry["t"]:
+        return None
+    data = [{"type": "scatter", "mode": "lines", "name": name, "x": _r(entry["t"]), "y": _r(cur),
+             "stackgroup": "rails", "line": {"width": 0.5}, "hovertemplate": "%{y:.3s}A<extra>" + name + "</extra>"}
+            for name, cur in entry["currents"].items()]
+    data.append({"type": "scatter", "mode": "lines", "name": "Sum of start-up currents", "x": _r(entry["t"]),
+                 "y": _r(entry["total"]), "line": {"color": INK, "width": 2}})
+    shapes, annotations = [], []
+    if entry.get("i_max"):
+        shapes.append(_hline(entry["i_max"], VERDICT_COLOURS["fail"]))
+        annotations.append({"xref": "paper", "x": 1, "y": entry["i_max"], "yref": "y", "xanchor": "right",
+                            "yanchor": "bottom", "showarrow": False,
+                            "text": f"supply i_max {format_quantity(entry['i_max'], 'A')}"})
+    layout = _layout(title, height=380, xaxis=_axis("Time since a common turn-on", "s"),
+                     yaxis=_axis("Current drawn from the supply", "A", rangemode="tozero"), shapes=shapes,
+                     annotations=annotations, hovermode="x unified")
+    return {"data": data, "layout": layout}
+
+
+# --- part library ----------------------------------------------------------------------------
+
+def part_soa_figure(fet: dict[str, Any]) -> dict[str, Any]:
+    """A part's SOA curves as entered (case at t_case, not derated)."""
+    curves = sorted((fet.get("soa") or {}).get("curves", []),
+                    key=lambda c: math.inf if c["t_pulse"] is None else c["t_pulse"])
+    t_case = (fet.get("soa") or {}).get("t_case", 25.0)
+    return {"data": _curve_traces(curves, ""),
+            "layout": _layout(f"SOA curves as entered (T_case {t_case:g} \u00b0C)", height=440,
+                              xaxis=_axis("Drain-source voltage V_DS", "V", log=True),
+                              yaxis=_axis("Drain current I_D", "A", log=True), hovermode="closest")}
+
+
+def zth_figure(stages: list[dict[str, Any]]) -> dict[str, Any] | None:
+    """Zth(t) of the Foster stages, from a decade below the fastest to a decade above the slowest stage."""
+    if not stages:
+        return None
+    from server.analysis import zth
+
+    taus = [s["tau"] for s in stages]
+    t = np.logspace(math.log10(min(taus)) - 1, math.log10(max(taus)) + 1, 120)
+    z = zth([(s["r"], s["tau"]) for s in stages], t)
+    return {"data": [{"type": "scatter", "mode": "lines", "name": "Zth(t)", "x": _r(t), "y": _r(z),
+                      "line": {"color": PALETTE[3], "width": 2}}],
+            "layout": _layout("Transient thermal impedance of the Foster stages", height=360,
+                              xaxis=_axis("Pulse duration", "s", log=True),
+                              yaxis=_axis("Zth junction to ambient", " K/W", log=True), showlegend=False)}

@@ -1,0 +1,193 @@
+"""The rail form: a new rail (blank or copied from another), and editing one with conflict handling.
+
+The MOSFET of a rail is chosen from the part library (its newest revision, or the revision
+the rail pins now), or is the rail's own FET carried over from the revision being edited
+or copied (choice values ``part:ID``, ``part:ID:N`` and ``own:RAIL:N``).
+"""
+
+from __future__ import annotations
+
+from typing import Annotated, Any
+
+from fastapi import APIRouter, Depends, Request
+from fastapi.responses import HTMLResponse, Response
+from sqlalchemy.orm import Session
+
+from server.auth import require
+from server.db import SessionDep
+from server.pages.forms import (OWN_FET, PART_FIELD, RAIL_SECTIONS, compare_rows, document_from_form,
+                                form_from_document, place_errors, rail_fields)
+from server.pages.rendering import FormDep, form_dict, page_context, redirect, render
+from server.services import parts as part_service
+from server.services.access import Actor, Permission
+from server.services.catalog import get_board
+from server.services.errors import Conflict, Invalid
+from server.services.rails import PartRef, create_rail, get_rail, get_revision, save_rail
+
+router = APIRouter(include_in_schema=False)
+Editor = Annotated[Actor, Depends(require(Permission.EDIT))]
+COPY_SUFFIX = "_COPY"
+
+
+def fet_choice_of(rev) -> str:
+    """The form's MOSFET choice for a revision: its pinned part revision, or its own FET."""
+    if rev.part_revision is not None:
+        return f"part:{rev.part_revision.part_id}:{rev.part_revision.n}"
+    return f"{OWN_FET}:{rev.rail_id}:{rev.n}"
+
+
+def fet_options(session: Session, actor: Actor, current: str | None) -> list[tuple[str, str]]:
+    """(value, label) of every MOSFET choice: library parts at their newest revision, plus the current one."""
+    rows, _ = part_service.list_parts(session=session, actor=actor, limit=500)
+    options = [(f"part:{p.id}", f"{p.name} (library, newest revision {p.head_n})") for p in rows]
+    if current and current.startswith("part:") and current.count(":") == 2:
+        _, pid, n = current.split(":")
+        name = next((p.name for p in rows if str(p.id) == pid), f"part {pid}")
+        options.insert(0, (current, f"{name}, keep revision {n}"))
+    elif current and current.startswith(OWN_FET + ":"):
+        options.insert(0, (current, "this rail's own MOSFET (as stored, not from the library)"))
+    return options
+
+
+def resolve_fet_choice(session: Session, actor: Actor, value: str) -> tuple[PartRef | None, dict | None]:
+    """(part reference, own FET document) for a MOSFET choice; Invalid at the field when it is not one."""
+    try:
+        kind, *rest = value.split(":")
+        if kind == "part" and len(rest) in (1, 2):
+            return PartRef(int(rest[0]), int(rest[1]) if len(rest) == 2 else None), None
+        if kind == OWN_FET and len(rest) == 2:
+            rev = get_revision(session=session, actor=actor, rail_id=int(rest[0]), n=int(rest[1]))
+            return None, rev.document["fet"]
+    except ValueError:
+        pass
+    raise Invalid("choose a MOSFET", details=[{"field": PART_FIELD, "message": "choose a MOSFET from the library"}])
+
+
+def _labels() -> dict[str, str]:
+    return {f.name: f.html_id for f in rail_fields()} | {PART_FIELD: "f-part", "message": "f-message"}
+
+
+def form_context(session: Session, actor: Actor, *, board, values: dict[str, str], errors: dict[str, str],
+                 other: list[str], rail=None, base_n: int | None = None, conflict: dict | None = None,
+                 copied_from=None) -> dict[str, Any]:
+    return {"board": board, "product": board.product, "rail": rail, "values": values, "errors": errors,
+            "other_errors": other, "sections": RAIL_SECTIONS, "labels": _labels(),
+            "fet_options": fet_options(session, actor, values.get(PART_FIELD)), "base_n": base_n,
+            "conflict": conflict, "copied_from": copied_from,
+            "action": f"/rails/{rail.id}/edit" if rail else f"/boards/{board.id}/rails/new"}
+
+
+def new_rail_context(session: Session, actor: Actor, board_id: int, copy_from: int | None = None) -> dict[str, Any]:
+    board = get_board(session=session, actor=actor, board_id=board_id)
+    values: dict[str, str] = {"load.model": "none", "switch.mode": "current_limit",
+                              "switch.timer.after_fault": "latch"}
+    source = None
+    if copy_from is not None:
+        source = get_rail(session=session, actor=actor, rail_id=copy_from)
+        rev = get_revision(session=session, actor=actor, rail_id=copy_from)
+        values = form_from_document(rev.document)
+        values["name"] = values["name"] + COPY_SUFFIX
+        values[PART_FIELD] = fet_choice_of(rev)
+        values["message"] = f"copied from {source.name} revision {rev.n}"
+    return form_context(session, actor, board=board, values=values, errors={}, other=[], copied_from=source)
+
+
+def edit_rail_context(session: Session, actor: Actor, rail_id: int) -> dict[str, Any]:
+    rail = get_rail(session=session, actor=actor, rail_id=rail_id)
+    head = get_revision(session=session, actor=actor, rail_id=rail_id)
+    values = form_from_document(head.document)
+    values[PART_FIELD] = fet_choice_of(head)
+    return form_context(session, actor, board=rail.board, values=values, errors={}, other=[], rail=rail,
+                        base_n=head.n)
+
+
+def _invalid(exc: Invalid) -> tuple[dict[str, str], list[str]]:
+    names = [f.name for f in rail_fields()] + [PART_FIELD]
+    return place_errors(exc.details or [{"field": "", "message": exc.message}], names, aliases={"fet": PART_FIELD})
+
+
+def submit_new(session: Session, actor: Actor, board_id: int, form: dict[str, str]) -> tuple[int | None, dict]:
+    """Create the rail a submitted form describes: (rail id, None), or (None, the form again with errors)."""
+    board = get_board(session=session, actor=actor, board_id=board_id)
+    try:
+        part, fet = resolve_fet_choice(session, actor, form.get(PART_FIELD, ""))
+        rail, _ = create_rail(session=session, actor=actor, board_id=board.id,
+                              document=document_from_form(form, fet), part=part, message=form.get("message", ""))
+        return rail.id, {}
+    except Invalid as exc:
+        session.rollback()
+        errors, other = _invalid(exc)
+    except Conflict as exc:
+        session.rollback()
+        errors, other = {"name": exc.message}, []
+    return None, form_context(session, actor, board=board, values=form, errors=errors, other=other)
+
+
+def submit_edit(session: Session, actor: Actor, rail_id: int, form: dict[str, str]) -> tuple[bool, dict]:
+    """Save a new revision from a submitted form: (True, {}) or (False, the form again with errors or a conflict).
+
+    A conflict (someone saved since the revision the form started from) keeps the typed
+    values, shows them beside the current revision, and bases the form on that revision,
+    so that saving again is a deliberate choice made after seeing both.
+    """
+    rail = get_rail(session=session, actor=actor, rail_id=rail_id)
+    board = rail.board
+    try:
+        base_n = int(form.get("base_revision", ""))
+    except ValueError:
+        base_n = 0
+    try:
+        part, fet = resolve_fet_choice(session, actor, form.get(PART_FIELD, ""))
+        save_rail(session=session, actor=actor, rail_id=rail_id, document=document_from_form(form, fet),
+                  base_n=base_n, part=part, message=form.get("message", ""))
+        return True, {}
+    except Invalid as exc:
+        session.rollback()
+        errors, other = _invalid(exc)
+        return False, form_context(session, actor, board=board, values=form, errors=errors, other=other,
+                                   rail=rail, base_n=base_n)
+    except Conflict as exc:
+        session.rollback()
+        current = (exc.extra or {}).get("current")
+        if not current:
+            return False, form_context(session, actor, board=board, values=form, errors={"name": exc.message},
+                                       other=[], rail=rail, base_n=base_n)
+        head = get_revision(session=session, actor=actor, rail_id=rail_id)
+        theirs = form_from_document(head.document)
+        conflict = {"message": exc.message, "n": head.n, "author": head.author_name, "at": head.created_at,
+                    "revision_message": head.message, "base_n": base_n,
+                    "rows": compare_rows(form, theirs),
+                    "fet_mine": form.get(PART_FIELD, ""), "fet_theirs": fet_choice_of(head)}
+        return False, form_context(session, actor, board=board, values=form, errors={}, other=[], rail=rail,
+                                   base_n=head.n, conflict=conflict)
+
+
+@router.get("/boards/{board_id}/rails/new", response_class=HTMLResponse)
+def new_rail_form(board_id: int, request: Request, session: SessionDep, actor: Editor,
+                  copy_from: int | None = None) -> HTMLResponse:
+    ctx = new_rail_context(session, actor, board_id, copy_from)
+    return render(request, "rail_form.html", page_context(request, actor, **ctx))
+
+
+@router.post("/boards/{board_id}/rails/new", response_class=HTMLResponse)
+def create_rail_from_form(board_id: int, request: Request, session: SessionDep, actor: Editor,
+                          form: FormDep) -> Response:
+    rail_id, ctx = submit_new(session, actor, board_id, form_dict(form))
+    if rail_id is not None:
+        return redirect(f"/rails/{rail_id}")
+    return render(request, "rail_form.html", page_context(request, actor, **ctx), status_code=422)
+
+
+@router.get("/rails/{rail_id}/edit", response_class=HTMLResponse)
+def edit_rail_form(rail_id: int, request: Request, session: SessionDep, actor: Editor) -> HTMLResponse:
+    return render(request, "rail_form.html", page_context(request, actor, **edit_rail_context(session, actor, rail_id)))
+
+
+@router.post("/rails/{rail_id}/edit", response_class=HTMLResponse)
+def save_rail_from_form(rail_id: int, request: Request, session: SessionDep, actor: Editor,
+                        form: FormDep) -> Response:
+    saved, ctx = submit_edit(session, actor, rail_id, form_dict(form))
+    if saved:
+        return redirect(f"/rails/{rail_id}")
+    return render(request, "rail_form.html", page_context(request, actor, **ctx),
+                  status_code=409 if ctx.get("conflict") else 422)

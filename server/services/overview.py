@@ -1,0 +1,154 @@
+"""Read models of the overview pages: rails with their head revision's verdict, per board and product.
+
+One query per view, joining each rail's head revision to its stored nominal+corners result
+at the current engine version (a rail whose head has no such result reads as not analysed).
+Only the parts of a result a view needs are read from the database (the checks, or the
+start-up current), never whole results with their waveforms.
+
+Provides :func:`home_products`, :func:`product_overview`, :func:`board_rails`,
+:func:`active_job`.
+"""
+
+from __future__ import annotations
+
+from collections import Counter
+from typing import Any
+
+from sqlalchemy import func, select
+from sqlalchemy.orm import Session
+
+from server.models import AnalysisResult, Board, Job, Product, Rail, RailRevision
+from server.services import results
+from server.services.access import Actor, scoped_products
+from server.services.catalog import get_board, get_product
+
+__all__ = ["nominal_result_of_head", "verdicts_by_sha", "board_labels", "home_products", "product_overview", "board_rails", "active_job",
+           "ATTENTION_LIMIT"]
+
+ATTENTION_LIMIT = 12
+_ACTIVE = ("queued", "running")
+
+
+def nominal_result_of_head():
+    """Join condition: the rail's head revision's nominal+corners result at the current engine version."""
+    return ((AnalysisResult.sha256 == Rail.head_sha256)
+            & (AnalysisResult.engine_version == results.engine_version())
+            & (AnalysisResult.options_key == results.options_key(results.NOMINAL_OPTIONS)))
+
+
+def verdicts_by_sha(session: Session, shas: list[str]) -> dict[str, str]:
+    """The verdict of the nominal+corners result (current engine) of each revision hash that has one."""
+    if not shas:
+        return {}
+    stmt = select(AnalysisResult.sha256, AnalysisResult.verdict).where(
+        AnalysisResult.sha256.in_(set(shas)), AnalysisResult.engine_version == results.engine_version(),
+        AnalysisResult.options_key == results.options_key(results.NOMINAL_OPTIONS))
+    return dict(session.execute(stmt).all())
+
+
+def board_labels(*, session: Session, actor: Actor, board_ids: list[int]) -> dict[int, dict[str, Any]]:
+    """Name, revision and product of boards the actor can see, by id."""
+    if not board_ids:
+        return {}
+    stmt = select(Board.id, Board.name, Board.revision, Product.name.label("product")).join(
+        Product, Product.id == Board.product_id)
+    if not actor.all_teams:
+        stmt = stmt.where(Product.team_id.in_(actor.team_ids or {-1}))
+    rows = session.execute(stmt.where(Board.id.in_(set(board_ids)))).all()
+    return {r.id: {"name": r.name, "revision": r.revision, "product": r.product} for r in rows}
+
+
+def home_products(*, session: Session, actor: Actor) -> list[dict[str, Any]]:
+    """The actor's products, each with its board count and its rails counted by verdict (None: not analysed)."""
+    products = list(session.scalars(scoped_products(select(Product), actor).order_by(Product.name)))
+    ids = [p.id for p in products]
+    boards = dict(session.execute(select(Board.product_id, func.count()).where(Board.product_id.in_(ids))
+                                  .group_by(Board.product_id)).all()) if ids else {}
+    counts: dict[int, Counter] = {pid: Counter() for pid in ids}
+    if ids:
+        stmt = (select(Board.product_id, AnalysisResult.verdict, func.count())
+                .select_from(Rail).join(Board, Board.id == Rail.board_id)
+                .outerjoin(AnalysisResult, nominal_result_of_head())
+                .where(Board.product_id.in_(ids)).group_by(Board.product_id, AnalysisResult.verdict))
+        for pid, verdict, n in session.execute(stmt):
+            counts[pid][verdict] += n
+    return [{"product": p, "boards": boards.get(p.id, 0), "rails": sum(counts[p.id].values()),
+             "by_verdict": dict(counts[p.id])} for p in products]
+
+
+def product_overview(*, session: Session, actor: Actor, product_id: int) -> dict[str, Any]:
+    """A product's boards with their rails counted by verdict, and the rails that need attention first.
+
+    Attention order: failing rails, then marginal ones, then rails never analysed at their
+    current revision; at most :data:`ATTENTION_LIMIT` of them, each with its checks.
+    """
+    product = get_product(session=session, actor=actor, product_id=product_id)
+    boards = list(session.scalars(select(Board).where(Board.product_id == product.id)
+                                  .order_by(Board.name, Board.revision)))
+    rows = session.execute(
+        select(Rail.id, Rail.name, Rail.board_id, Rail.head_n, Rail.updated_at, AnalysisResult.verdict)
+        .join(Board, Board.id == Rail.board_id).outerjoin(AnalysisResult, nominal_result_of_head())
+        .where(Board.product_id == product.id)).all()
+    per_board: dict[int, Counter] = {b.id: Counter() for b in boards}
+    for r in rows:
+        per_board[r.board_id][r.verdict] += 1
+    rank = {"fail": 0, "marginal": 1, None: 2}
+    needy = sorted((r for r in rows if r.verdict in rank), key=lambda r: (rank[r.verdict], r.name))
+    needy = needy[:ATTENTION_LIMIT]
+    checks = _checks_of([r.id for r in needy if r.verdict is not None], session)
+    board_names = {b.id: f"{b.name} rev {b.revision}" for b in boards}
+    attention = [{"rail_id": r.id, "name": r.name, "board_id": r.board_id, "board": board_names[r.board_id],
+                  "verdict": r.verdict, "checks": checks.get(r.id, (None, []))[1],
+                  "t_ambient": checks.get(r.id, (None, []))[0]} for r in needy]
+    total = Counter()
+    for c in per_board.values():
+        total.update(c)
+    return {"product": product, "boards": [{"board": b, "by_verdict": dict(per_board[b.id]),
+                                            "rails": sum(per_board[b.id].values())} for b in boards],
+            "by_verdict": dict(total), "rails": len(rows), "attention": attention,
+            "rail_ids": [r.id for r in rows]}
+
+
+def _checks_of(rail_ids: list[int], session: Session) -> dict[int, tuple[float | None, list[dict]]]:
+    if not rail_ids:
+        return {}
+    stmt = (select(Rail.id, RailRevision.document["environment"], AnalysisResult.result["checks"])
+            .join(RailRevision, (RailRevision.rail_id == Rail.id) & (RailRevision.n == Rail.head_n))
+            .join(AnalysisResult, nominal_result_of_head()).where(Rail.id.in_(rail_ids)))
+    return {rid: ((env or {}).get("t_ambient"), list(checks or [])) for rid, env, checks in session.execute(stmt)}
+
+
+def board_rails(*, session: Session, actor: Actor, board_id: int) -> dict[str, Any]:
+    """A board and its rails: head revision summary, verdict, checks and when they were analysed."""
+    board = get_board(session=session, actor=actor, board_id=board_id)
+    doc = RailRevision.document
+    stmt = (select(Rail.id, Rail.name, Rail.mode, Rail.head_n, Rail.updated_at, doc["supply"], doc["load"],
+                   doc["environment"], AnalysisResult.verdict, AnalysisResult.created_at,
+                   AnalysisResult.result["checks"])
+            .join(RailRevision, (RailRevision.rail_id == Rail.id) & (RailRevision.n == Rail.head_n))
+            .outerjoin(AnalysisResult, nominal_result_of_head())
+            .where(Rail.board_id == board.id).order_by(Rail.name))
+    rails = []
+    for (rid, name, mode, head_n, updated_at, supply, load, env, verdict, analysed_at,
+         checks) in session.execute(stmt):
+        rails.append({"id": rid, "name": name, "mode": mode, "head_n": head_n, "updated_at": updated_at,
+                      "supply": supply or {}, "load": load or {}, "t_ambient": (env or {}).get("t_ambient"),
+                      "verdict": verdict, "analysed_at": analysed_at, "checks": list(checks or [])})
+    return {"board": board, "product": board.product, "rails": rails}
+
+
+def active_job(*, session: Session, board_id: int, rail_id: int | None = None, kind: str | None = None,
+               sha256: str | None = None) -> Job | None:
+    """The newest queued or running job of a board (or of one rail of it), optionally of one kind."""
+    stmt = select(Job).where(Job.board_id == board_id, Job.state.in_(_ACTIVE))
+    if rail_id is None:
+        stmt = stmt.where(Job.parent_id.is_(None))
+    else:
+        stmt = stmt.where(Job.rail_id == rail_id)
+    if kind is not None:
+        stmt = stmt.where(Job.kind == kind)
+    if sha256 is not None:
+        stmt = stmt.where(Job.sha256 == sha256)
+    return session.scalar(stmt.order_by(Job.id.desc()).limit(1))
+
+
