@@ -46,12 +46,27 @@ def _axis(title: str, suffix: str = "", *, log: bool = False, **extra: Any) -> d
     return axis
 
 
+def _log_ticks(values: list[float], kind: str) -> dict[str, Any]:
+    """Tick values 1-2-5 per decade spanning ``values`` (only 1 per decade when that is many),
+    labelled in engineering notation."""
+    pos = [v for v in values if v is not None and v > 0 and math.isfinite(v)]
+    if not pos:
+        return {}
+    lo, hi = math.floor(math.log10(min(pos))), math.ceil(math.log10(max(pos)))
+    steps = (1, 2, 5) if hi - lo <= 5 else (1,)
+    ticks = [m * 10.0 ** e for e in range(lo, hi + 1) for m in steps]
+    ticks = [t for t in ticks if min(pos) / 2.5 <= t <= max(pos) * 2.5]
+    return {"tickmode": "array", "tickvals": ticks, "ticktext": [format_quantity(t, kind, 3) for t in ticks],
+            "ticksuffix": ""}
+
+
 def _layout(title: str, height: int = 420, **extra: Any) -> dict[str, Any]:
     layout = {"title": {"text": title, "x": 0, "xanchor": "left", "font": {"size": 15}},
               "font": {"family": "system-ui, -apple-system, Segoe UI, sans-serif", "size": 12, "color": INK},
               "paper_bgcolor": "#ffffff", "plot_bgcolor": "#ffffff", "height": height,
-              "margin": {"l": 70, "r": 24, "t": 48, "b": 56},
-              "legend": {"orientation": "h", "x": 0, "y": -0.16, "yanchor": "top"},
+              "margin": {"l": 70, "r": 24, "t": 48, "b": 100},
+              "legend": {"orientation": "h", "x": 0, "xanchor": "left", "y": 0.005, "yanchor": "bottom",
+                         "yref": "container"},
               "colorway": PALETTE}
     layout.update(extra)
     return layout
@@ -192,10 +207,12 @@ def soa_figure(result: dict[str, Any], document: dict[str, Any]) -> dict[str, An
         annotations.append({"x": math.log10(sc["v_ds"]), "y": math.log10(sc["i"]), "xref": "x", "yref": "y",
                             "text": label, "showarrow": True, "arrowhead": 0, "ax": -40, "ay": -44,
                             "bgcolor": "rgba(255,255,255,0.85)", "bordercolor": AXIS, "font": {"size": 11}})
+    xs = [v for t in data for v in t["x"]]
+    ys = [v for t in data for v in t["y"]]
     layout = _layout(f"Safe operating area, derated to {t_amb:g} \u00b0C", height=520,
-                     xaxis=_axis("Drain-source voltage V_DS", "V", log=True),
-                     yaxis=_axis("Drain current I_D", "A", log=True), annotations=annotations,
-                     hovermode="closest")
+                     xaxis=_axis("Drain-source voltage V_DS", "V", log=True, **_log_ticks(xs, "V")),
+                     yaxis=_axis("Drain current I_D", "A", log=True, **_log_ticks(ys, "A")),
+                     annotations=annotations, hovermode="closest")
     return {"data": data, "layout": layout}
 
 
@@ -219,9 +236,12 @@ def soa_overlay_figure(pairs: list[tuple[str, dict[str, Any], dict[str, Any]]]) 
                          "line": {"color": PALETTE[2] if last else PALETTE[4], "width": 2.5,
                                   "dash": "solid" if last else "dash"}})
     t_amb = newest_doc.get("environment", {}).get("t_ambient", 25.0)
+    xs = [v for t in data for v in t["x"]]
+    ys = [v for t in data for v in t["y"]]
     layout = _layout(f"Start-up trajectories on the SOA derated to {t_amb:g} \u00b0C", height=480,
-                     xaxis=_axis("Drain-source voltage V_DS", "V", log=True),
-                     yaxis=_axis("Drain current I_D", "A", log=True), hovermode="closest")
+                     xaxis=_axis("Drain-source voltage V_DS", "V", log=True, **_log_ticks(xs, "V")),
+                     yaxis=_axis("Drain current I_D", "A", log=True, **_log_ticks(ys, "A")),
+                     hovermode="closest")
     return {"data": data, "layout": layout}
 
 
@@ -278,7 +298,8 @@ def timer_figure(result: dict[str, Any], document: dict[str, Any]) -> dict[str, 
         xs += [tw["t_fault_min"] * suggested / c, tw["t_fault_max"] * suggested / c]
     lo, hi = math.log10(min(xs)) - 0.3, math.log10(max(xs)) + 0.3
     layout = _layout("Fault timer window", height=150 + 70 * len(rows),
-                     xaxis=_axis("Time", "s", log=True, range=[lo, hi]),
+                     xaxis=_axis("Time", "s", log=True, range=[lo, hi],
+                                 **_log_ticks([10 ** lo, 10 ** hi], "s")),
                      yaxis={"type": "category", "categoryorder": "array", "categoryarray": rows[::-1],
                             "automargin": True, "gridcolor": GRID, "showline": True, "linecolor": AXIS},
                      shapes=shapes, hovermode="closest", showlegend=False)
@@ -375,10 +396,14 @@ def part_soa_figure(fet: dict[str, Any]) -> dict[str, Any]:
     curves = sorted((fet.get("soa") or {}).get("curves", []),
                     key=lambda c: math.inf if c["t_pulse"] is None else c["t_pulse"])
     t_case = (fet.get("soa") or {}).get("t_case", 25.0)
-    return {"data": _curve_traces(curves, ""),
+    data = _curve_traces(curves, "")
+    xs = [v for t in data for v in t["x"]]
+    ys = [v for t in data for v in t["y"]]
+    return {"data": data,
             "layout": _layout(f"SOA curves as entered (T_case {t_case:g} \u00b0C)", height=440,
-                              xaxis=_axis("Drain-source voltage V_DS", "V", log=True),
-                              yaxis=_axis("Drain current I_D", "A", log=True), hovermode="closest")}
+                              xaxis=_axis("Drain-source voltage V_DS", "V", log=True, **_log_ticks(xs, "V")),
+                              yaxis=_axis("Drain current I_D", "A", log=True, **_log_ticks(ys, "A")),
+                              hovermode="closest")}
 
 
 def zth_figure(stages: list[dict[str, Any]]) -> dict[str, Any] | None:
@@ -393,5 +418,6 @@ def zth_figure(stages: list[dict[str, Any]]) -> dict[str, Any] | None:
     return {"data": [{"type": "scatter", "mode": "lines", "name": "Zth(t)", "x": _r(t), "y": _r(z),
                       "line": {"color": PALETTE[3], "width": 2}}],
             "layout": _layout("Transient thermal impedance of the Foster stages", height=360,
-                              xaxis=_axis("Pulse duration", "s", log=True),
-                              yaxis=_axis("Zth junction to ambient", " K/W", log=True), showlegend=False)}
+                              xaxis=_axis("Pulse duration", "s", log=True, **_log_ticks(list(t), "s")),
+                              yaxis=_axis("Zth junction to ambient", " K/W", log=True,
+                                          **_log_ticks(list(z), "K/W")), showlegend=False)}
