@@ -1,0 +1,229 @@
+"""The pages in a real browser: headless Debian Chromium driven by Playwright, against the app served
+by uvicorn on a free local port with in-process analysis workers. Screenshots go to test-artifacts/.
+
+One server and one browser for the module (SQLite; the page logic runs on both engines in the
+other page tests); each test opens its own browser context.
+"""
+
+from __future__ import annotations
+
+import re
+import socket
+import threading
+import time
+from pathlib import Path
+
+import pytest
+import uvicorn
+
+from server import migrate
+from server.app import create_app
+from server.config import REPO_ROOT
+from server.pages.forms import form_from_document, rail_fields
+from server.services.rails import normalize_document
+from tests.conftest import People, make_settings
+from tests.factories import rail_doc
+from tests.pages.helpers import seed_board
+
+pytestmark = pytest.mark.browser
+ARTIFACTS = REPO_ROOT / "test-artifacts"
+CHROMIUM = "/usr/bin/chromium"
+CHROMIUM_ARGS = ["--headless", "--no-sandbox", "--disable-gpu", "--disable-background-networking"]
+PLOT_SVG = ".js-plotly-plot svg.main-svg"  # a drawn plot: Plotly marks its div and adds its SVG
+TIMEOUT_MS = 30_000
+
+
+def _free_port() -> int:
+    with socket.socket() as s:
+        s.bind(("127.0.0.1", 0))
+        return s.getsockname()[1]
+
+
+@pytest.fixture(scope="module")
+def served(tmp_path_factory):
+    """The app on a real HTTP server in a background thread, with two worker threads."""
+    path = tmp_path_factory.mktemp("browser") / "railsign.db"
+    settings = make_settings(f"sqlite:///{path}", worker_threads=2)
+    migrate.upgrade(settings)
+    app = create_app(settings)
+    people = People(app.state.sessionmaker)
+    ids = seed_board(app.state.sessionmaker, analysed=2, unanalysed=0)
+    port = _free_port()
+    server = uvicorn.Server(uvicorn.Config(app, host="127.0.0.1", port=port, log_level="warning"))
+    thread = threading.Thread(target=server.run, name="browser-test-server", daemon=True)
+    thread.start()
+    deadline = time.monotonic() + 20
+    while not server.started:
+        assert time.monotonic() < deadline, "the test server did not start"
+        time.sleep(0.05)
+    yield {"app": app, "base": f"http://127.0.0.1:{port}", "people": people, "ids": ids}
+    server.should_exit = True
+    thread.join(timeout=20)
+
+
+@pytest.fixture(scope="module")
+def browser():
+    from playwright.sync_api import sync_playwright
+
+    with sync_playwright() as p:
+        b = p.chromium.launch(executable_path=CHROMIUM, args=CHROMIUM_ARGS)
+        yield b
+        b.close()
+
+
+@pytest.fixture
+def page(browser, served):
+    """A logged-in page (the signed session cookie of user 'designer')."""
+    context = browser.new_context(viewport={"width": 1280, "height": 900}, base_url=served["base"])
+    value, _ = served["app"].state.session_cookie.dump(served["people"].ids["designer"])
+    context.add_cookies([{"name": "railsign_session", "value": value, "url": served["base"]}])
+    context.set_default_timeout(TIMEOUT_MS)
+    pg = context.new_page()
+    errors: list[str] = []
+    pg.on("pageerror", lambda e: errors.append(str(e)))
+    yield pg
+    context.close()
+    assert errors == [], f"script errors in the page: {errors}"
+
+
+def shot(pg, name: str) -> Path:
+    ARTIFACTS.mkdir(exist_ok=True)
+    path = ARTIFACTS / f"{name}.png"
+    pg.screenshot(path=str(path), full_page=True)
+    assert path.stat().st_size > 10_000
+    return path
+
+
+def _plot_drawn(pg, plot_id: str) -> None:
+    pg.wait_for_selector(f"#{plot_id}{PLOT_SVG}")
+    assert pg.locator(f"#{plot_id} .scatterlayer .trace, #{plot_id} .barlayer .trace").count() > 0
+
+
+def _fill_rail_form(pg, values: dict[str, str]) -> None:
+    for f in rail_fields():
+        value = values.get(f.name, "")
+        if f.choices:
+            if value:
+                pg.select_option(f"#{f.html_id}", value)
+        else:
+            pg.fill(f"#{f.html_id}", value)
+
+
+def test_create_a_rail_through_the_form_see_a_refusal_then_every_plot(page, served):
+    board_id, part_id = served["ids"]["board_id"], served["ids"]["part_id"]
+    page.goto(f"/boards/{board_id}")
+    page.get_by_role("link", name="New rail").click()
+    page.wait_for_selector("h1:has-text('New rail')")
+    values = form_from_document(normalize_document(rail_doc("VOUT_BROWSER")))
+    values["load.c_nom"] = "680 uQ"  # a unit slip
+    _fill_rail_form(page, values)
+    page.select_option("#f-part", f"part:{part_id}")
+    page.fill("#f-message", "entered in the browser")
+    page.click("#save-rail")
+    error = page.locator("#f-load-c-nom-error")
+    error.wait_for()
+    assert "unknown or wrong unit" in error.inner_text()
+    assert page.input_value("#f-load-c-nom") == "680 uQ"
+    assert page.input_value("#f-name") == "VOUT_BROWSER"
+    assert page.input_value("#f-supply-v-min") == values["supply.v_min"]
+    assert page.evaluate("document.activeElement.id") == "error-summary"
+    shot(page, "rail-form-refused")
+
+    page.fill("#f-load-c-nom", "680uF")
+    page.click("#save-rail")
+    page.wait_for_url(re.compile(r"/rails/\d+$"))
+    # the saved revision's analysis runs in the server's workers; the page follows it and reloads
+    for plot_id in ("plot-startup", "plot-soa", "plot-timer"):
+        _plot_drawn(page, plot_id)
+    assert page.locator("#checks-table .verdict").count() > 5
+    words = set(page.locator("#checks-table .verdict").all_inner_texts())
+    assert words <= {"pass", "marginal", "fail", "n/a"}
+    soa = page.locator("#plot-soa")
+    assert "Short circuit: allowed" in soa.inner_text() and "timer maximum" in soa.inner_text()
+    shot(page, "rail-page")
+
+
+def test_monte_carlo_runs_with_progress_and_draws_histograms(page, served):
+    rail_id = served["ids"]["rail_ids"][0]
+    page.goto(f"/rails/{rail_id}")
+    page.select_option("#mc-samples", "5000")
+    page.fill("#mc-seed", "3")
+    page.click("#run-mc")
+    page.wait_for_selector(f"#plot-mc{PLOT_SVG}")
+    assert page.locator("#plot-mc .barlayer .trace").count() >= 5
+    assert re.search(r"5000 samples \(uniform, seed 3\)", page.inner_text("#monte-carlo-section"))
+    assert "yield" in page.inner_text("#monte-carlo-section")
+    shot(page, "rail-monte-carlo")
+
+
+def test_edit_a_rail_and_see_the_history_diff_and_overlays(page, served):
+    rail_id = served["ids"]["rail_ids"][1]
+    page.goto(f"/rails/{rail_id}")
+    page.get_by_role("link", name="Edit").click()
+    page.fill("#f-load-c-nom", "1.2 mF")
+    page.fill("#f-message", "more bulk capacitance")
+    page.click("#save-rail")
+    page.wait_for_url(re.compile(rf"/rails/{rail_id}$"))
+    page.wait_for_selector(f"#plot-startup{PLOT_SVG}")  # revision 2 analysed
+    page.get_by_role("link", name="History").click()
+    row = page.locator("#diff-table tr[data-field='load.c_nom']")
+    row.wait_for()
+    assert "430 uF" in row.inner_text() and "1.2 mF" in row.inner_text()
+    _plot_drawn(page, "plot-history-startup")
+    _plot_drawn(page, "plot-history-soa")
+    legend = page.inner_text("#plot-history-soa")
+    assert "revision 1" in legend and "revision 2" in legend
+    shot(page, "rail-history")
+
+
+def test_enter_an_soa_curve_by_pasting_csv_and_see_the_preview(page, served):
+    page.goto("/parts/new")
+    page.fill("#f-name", "Pasted N45 (test)")
+    page.fill("#f-vds-max", "45 V")
+    page.fill("#f-rds-on", "4 mOhm")
+    page.fill("#f-tj-max", "175")
+    page.fill("#f-rth-ja", "38 K/W")
+    page.fill("#f-zth", "0.3, 30us\n2, 3ms\n35, 4")
+    page.fill("#f-curve-0-points", "V_DS, I_D\n1, 180\n12, 60\n45, 9")
+    page.wait_for_selector(f"#soa-preview{PLOT_SVG}")
+    page.wait_for_function("document.querySelectorAll('#soa-preview .scatterlayer .trace').length === 1")
+    assert "Preview of 1 curve" in page.inner_text("#preview-status")
+    page.fill("#f-curve-3-points", "1\t25\n45\t0.8")
+    page.wait_for_function("document.querySelectorAll('#soa-preview .scatterlayer .trace').length === 2")
+    page.fill("#f-curve-1-points", "1, 120\n0.5, 40")
+    page.wait_for_function("document.getElementById('preview-status').textContent.includes('must rise')")
+    shot(page, "part-soa-preview")
+    page.fill("#f-curve-1-points", "")
+    page.fill("#f-curve-1-t-pulse", "")
+    page.fill("#f-curve-2-t-pulse", "")
+    page.click("#save-part")
+    page.wait_for_url(re.compile(r"/parts/\d+$"))
+    _plot_drawn(page, "plot-part-soa")
+    _plot_drawn(page, "plot-part-zth")
+    shot(page, "part-page")
+
+
+def test_the_board_table_sorts_and_filters_from_the_keyboard_and_the_board_is_analysed(page, served):
+    board_id = served["ids"]["board_id"]
+    page.goto(f"/boards/{board_id}")
+    _plot_drawn(page, "budget-0")
+    names = lambda: page.locator("#rail-table tbody tr:not([hidden]) td:first-child a").all_inner_texts()  # noqa: E731
+    first = names()
+    page.focus("#rail-table button[data-key='c']")
+    page.keyboard.press("Enter")
+    ascending = names()
+    page.keyboard.press("Space")
+    assert names() == list(reversed(ascending))
+    assert page.get_attribute("#rail-table th:nth-child(4)", "aria-sort") == "descending"
+    page.focus("#filter-q")
+    page.keyboard.type(first[0][-1])
+    assert all(n.endswith(first[0][-1]) for n in names())
+    page.fill("#filter-q", "")
+    page.keyboard.press("Tab")
+    page.click("#analyse-board")
+    page.wait_for_url(re.compile(rf"/boards/{board_id}"))
+    page.wait_for_function("!document.querySelector('.job-progress') || "
+                           "document.querySelector('.job-status').textContent.includes('done')")
+    page.wait_for_selector(f"#budget-0{PLOT_SVG}")
+    assert page.locator("#rail-table .verdict").count() == len(first)
+    shot(page, "board-page")
