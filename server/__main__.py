@@ -422,8 +422,10 @@ def main(argv: Sequence[str] | None = None) -> int:
     args = parser.parse_args(argv)
     from server.services.errors import ServiceError
 
-    logging.basicConfig(level=(args.log_level or "INFO").upper(),
-                        format="%(asctime)s %(levelname)s %(name)s: %(message)s")
+    level = (args.log_level or "INFO").upper()
+    logging.basicConfig(level=level, format="%(asctime)s %(levelname)s %(name)s: %(message)s")
+    if level != "DEBUG":
+        logging.getLogger("alembic").setLevel(logging.WARNING)
     try:
         return args.func(args)
     except CliError as exc:
