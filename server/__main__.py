@@ -222,6 +222,39 @@ def cmd_token(args: argparse.Namespace) -> int:
     return EXIT_OK
 
 
+def cmd_analyze(args: argparse.Namespace) -> int:
+    """Analyse a rail document file without any database: report, JSON, exit 1 when a check fails."""
+    from server.analysis import AnalysisError, DocumentError, analyze_rail, format_report
+    from server.schemas.rail import normalize
+    from server.schemas.validation import DocumentInvalid, parse_rail_document
+
+    data = _read_json(args.file)
+    try:
+        document = normalize(parse_rail_document(data))
+    except DocumentInvalid as exc:
+        lines = "\n".join(f"  {e.field or '(document)'}: {e.message}" for e in exc.errors)
+        raise CliError(f"{args.file} is not a valid rail document:\n{lines}") from None
+    progress = None
+    if args.monte_carlo and not args.json and sys.stderr.isatty():
+        def progress(fraction: float) -> None:
+            print(f"\rMonte Carlo {fraction:6.1%}", end="", file=sys.stderr, flush=True)
+    try:
+        result = analyze_rail(document, corners=args.corners, monte_carlo=args.monte_carlo, seed=args.seed,
+                              distribution=args.distribution, waveforms=args.waveforms, progress=progress)
+    except DocumentError as exc:
+        raise CliError(f"{args.file}: {exc}") from None
+    except AnalysisError as exc:
+        raise CliError(f"{args.file}: the analysis could not be completed: {exc}") from None
+    if progress:
+        print(file=sys.stderr)
+    if args.json:
+        print(json.dumps(result, indent=2, allow_nan=False))
+    else:
+        print(format_report(result, document))
+    failing = any(c["verdict"] == "fail" for c in result["checks"])
+    return EXIT_FAILING_CHECK if failing else EXIT_OK
+
+
 def cmd_worker(args: argparse.Namespace) -> int:
     import signal
     import threading
@@ -332,6 +365,16 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--user", help="author of the new revisions (default: railsign-cli)")
     p.add_argument("--message", default="imported", help="revision message")
 
+    p = command("analyze", cmd_analyze, "analyse a rail document file (no database needed)")
+    p.add_argument("file", help="rail document (JSON), or - for standard input")
+    p.add_argument("--json", action="store_true", help="print one JSON object (SI units) instead of the report")
+    p.add_argument("--corners", action="store_true", help="also run every tolerance corner")
+    p.add_argument("--monte-carlo", type=int, default=0, metavar="N", help="Monte Carlo samples (default 0)")
+    p.add_argument("--seed", type=int, default=0, help="random seed of the Monte Carlo run")
+    p.add_argument("--distribution", choices=["uniform", "normal"], default="uniform",
+                   help="uniform within tolerance, or normal with the tolerance as 3 sigma")
+    p.add_argument("--waveforms", action="store_true", help="include the start-up waveforms in --json")
+
     p = command("worker", cmd_worker, "run analysis jobs from the database queue until stopped")
     p.add_argument("--concurrency", type=int, default=1, help="worker threads in this process (default 1)")
     p.add_argument("--poll", type=float, default=0.5, help="seconds between looks at an empty queue")
@@ -379,8 +422,10 @@ def main(argv: Sequence[str] | None = None) -> int:
     args = parser.parse_args(argv)
     from server.services.errors import ServiceError
 
-    logging.basicConfig(level=(args.log_level or "INFO").upper(),
-                        format="%(asctime)s %(levelname)s %(name)s: %(message)s")
+    level = (args.log_level or "INFO").upper()
+    logging.basicConfig(level=level, format="%(asctime)s %(levelname)s %(name)s: %(message)s")
+    if level != "DEBUG":
+        logging.getLogger("alembic").setLevel(logging.WARNING)
     try:
         return args.func(args)
     except CliError as exc:

@@ -21,7 +21,7 @@ SECRET = "benchmark-secret-" + "y" * 32
 
 
 def settings_for(url: str, **extra) -> Settings:
-    return Settings(database_url=url, secret_key=SECRET, worker_threads=0, **extra)
+    return Settings(**{"database_url": url, "secret_key": SECRET, "worker_threads": 0, **extra})
 
 
 @contextlib.contextmanager
