@@ -138,10 +138,9 @@ def save_part(*, session: Session, actor: Actor, part_id: int, document: Any, ba
 def part_usage(*, session: Session, actor: Actor, part_id: int) -> list[dict]:
     """Which rails (that the actor can see) use which revision of this part, head revisions only."""
     stmt = scoped_rails(
-        select(Rail.id, Rail.name, Rail.board_id, PartRevision.n, Rail.head_n)
+        select(Rail.id, Rail.name, Rail.board_id, PartRevision.n)
         .join(RailRevision, (RailRevision.rail_id == Rail.id) & (RailRevision.n == Rail.head_n))
         .join(PartRevision, PartRevision.id == RailRevision.part_revision_id)
         .where(PartRevision.part_id == part_id), actor)
-    return [{"rail_id": r.id, "rail_name": r.name, "board_id": r.board_id, "part_revision": r.n,
-             "rail_revision": r.head_n}
+    return [{"rail_id": r.id, "rail_name": r.name, "board_id": r.board_id, "part_revision": r.n}
             for r in session.execute(stmt.order_by(Rail.name))]
