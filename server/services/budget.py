@@ -22,9 +22,10 @@ from server.services.access import Actor
 from server.services.catalog import get_board
 from server.services.overview import nominal_result_of_head
 
-__all__ = ["supply_key", "sum_currents", "board_budget", "MAX_PLOT_POINTS"]
+__all__ = ["supply_key", "sum_currents", "board_budget", "MAX_PLOT_POINTS", "MAX_RAIL_TRACES"]
 
-MAX_PLOT_POINTS = 1500
+MAX_PLOT_POINTS = 800
+MAX_RAIL_TRACES = 8  # rails drawn one by one; the rest of a supply is drawn as one sum
 
 
 def supply_key(supply: dict[str, Any]) -> str:
@@ -73,7 +74,8 @@ def board_budget(*, session: Session, actor: Actor, board_id: int) -> list[dict[
     """One entry per supply of the board: its rails, the summed start-up current and its i_max.
 
     Each entry: ``supply`` (the section), ``rails`` [{id, name, analysed}], ``t`` and
-    ``currents`` {rail name: [A]} and ``total`` [A] (thinned for plotting, the peak kept),
+    ``currents`` {rail name: [A]} and ``total`` [A] (thinned for plotting, the peak kept; the
+    :data:`MAX_RAIL_TRACES` - 1 rails with the highest peaks by name, the others as one sum),
     ``peak`` (A, exact), ``t_peak`` (s), ``i_max`` (A or None), ``over`` (bool or None when
     the supply gives no i_max), ``missing`` (names of rails with no result yet).
     """
@@ -99,10 +101,15 @@ def board_budget(*, session: Session, actor: Actor, board_id: int) -> list[dict[
         i_max = g["supply"].get("i_max")
         peak = float(total.max()) if total.size else None
         keep = _thin(t, each, total)
+        order = sorted(range(len(each)), key=lambda k: -float(each[k].max()))
+        shown = order if len(order) <= MAX_RAIL_TRACES else order[:MAX_RAIL_TRACES - 1]
+        currents = {g["waves"][k][0]: each[k][keep].tolist() for k in sorted(shown)}
+        rest = [k for k in order if k not in set(shown)]
+        if rest:
+            currents[f"{len(rest)} other rails"] = np.sum([each[k] for k in rest], axis=0)[keep].tolist()
         out.append({
             "supply": g["supply"], "rails": g["rails"], "missing": g["missing"],
-            "t": t[keep].tolist(), "total": total[keep].tolist(),
-            "currents": {w[0]: e[keep].tolist() for w, e in zip(g["waves"], each)},
+            "t": t[keep].tolist(), "total": total[keep].tolist(), "currents": currents,
             "peak": peak, "t_peak": float(t[int(np.argmax(total))]) if total.size else None,
             "i_max": i_max, "over": None if i_max is None or peak is None else peak > i_max,
         })
