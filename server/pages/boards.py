@@ -66,7 +66,8 @@ def board_context(session: Session, actor: Actor, board_id: int, *, q: str = "",
     shown = [r for r in rows if (not q or q.lower() in r["name"].lower())
              and (not verdict or verdict_style(r["verdict"]).word == verdict) and (not mode or r["mode"] == mode)]
     supplies = []
-    for k, entry in enumerate(budget.board_budget(session=session, actor=actor, board_id=board_id)):
+    for k, entry in enumerate(budget.board_budget(session=session, actor=actor, board_id=board_id,
+                                                  rails=data["rails"])):
         name, words = _budget_title(entry)
         supplies.append({"id": f"budget-{k}", "name": name, "words": words, "over": entry["over"],
                          "missing": entry["missing"], "figure": budget_figure(entry, f"{name}: {words}"),

@@ -23,6 +23,7 @@ from server.services.errors import Conflict, Invalid
 router = APIRouter(include_in_schema=False)
 Editor = Annotated[Actor, Depends(require(Permission.EDIT))]
 PARTS_SHOWN = 500
+USAGE_SHOWN = 100  # rails listed on a part's page; all of them are counted
 
 
 def parts_context(session: Session, actor: Actor, q: str = "") -> dict[str, Any]:
@@ -41,7 +42,11 @@ def part_context(session: Session, actor: Actor, part_id: int, n: int | None = N
     part = part_service.get_part(session=session, actor=actor, part_id=part_id)
     rev = part_service.get_part_revision(session=session, actor=actor, part_id=part_id, n=n)
     doc = rev.document
-    usage = part_service.part_usage(session=session, actor=actor, part_id=part_id)
+    all_usage = part_service.part_usage(session=session, actor=actor, part_id=part_id)
+    by_revision: dict[int, int] = {}
+    for u in all_usage:
+        by_revision[u["part_revision"]] = by_revision.get(u["part_revision"], 0) + 1
+    usage = all_usage[:USAGE_SHOWN]
     labels = overview.board_labels(session=session, actor=actor, board_ids=[u["board_id"] for u in usage])
     for u in usage:
         b = labels.get(u["board_id"], {})
@@ -62,7 +67,8 @@ def part_context(session: Session, actor: Actor, part_id: int, n: int | None = N
     return {"part": part, "rev": rev, "document": doc, "ratings": ratings, "curves": curves, "stages": stages,
             "zth_sum": fmt(zsum, "K/W"), "revisions": part_service.list_part_revisions(
                 session=session, actor=actor, part_id=part_id),
-            "usage": usage, "figures": {"soa": part_soa_figure(doc), "zth": zth_figure(doc["zth"])}}
+            "usage": usage, "usage_total": len(all_usage), "usage_by_revision": sorted(by_revision.items()),
+            "figures": {"soa": part_soa_figure(doc), "zth": zth_figure(doc["zth"])}}
 
 
 def part_form_context(*, values: dict[str, str], errors: dict[str, str], other: list[str], part=None,

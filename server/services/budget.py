@@ -14,13 +14,10 @@ import json
 from typing import Any
 
 import numpy as np
-from sqlalchemy import select
 from sqlalchemy.orm import Session
 
-from server.models import AnalysisResult, Rail, RailRevision
 from server.services.access import Actor
-from server.services.catalog import get_board
-from server.services.overview import nominal_result_of_head
+from server.services.overview import board_rails
 
 __all__ = ["supply_key", "sum_currents", "board_budget", "MAX_PLOT_POINTS", "MAX_RAIL_TRACES"]
 
@@ -70,8 +67,12 @@ def _thin(t: np.ndarray, ys: list[np.ndarray], total: np.ndarray) -> np.ndarray:
     return np.unique(np.append(idx, int(np.argmax(total))))
 
 
-def board_budget(*, session: Session, actor: Actor, board_id: int) -> list[dict[str, Any]]:
+def board_budget(*, session: Session, actor: Actor, board_id: int,
+                 rails: list[dict[str, Any]] | None = None) -> list[dict[str, Any]]:
     """One entry per supply of the board: its rails, the summed start-up current and its i_max.
+
+    ``rails``: the board's rails as :func:`server.services.overview.board_rails` gives them
+    (read again when not given).
 
     Each entry: ``supply`` (the section), ``rails`` [{id, name, analysed}], ``t`` and
     ``currents`` {rail name: [A]} and ``total`` [A] (thinned for plotting, the peak kept; the
@@ -79,22 +80,16 @@ def board_budget(*, session: Session, actor: Actor, board_id: int) -> list[dict[
     ``peak`` (A, exact), ``t_peak`` (s), ``i_max`` (A or None), ``over`` (bool or None when
     the supply gives no i_max), ``missing`` (names of rails with no result yet).
     """
-    board = get_board(session=session, actor=actor, board_id=board_id)
-    stmt = (select(Rail.id, Rail.name, RailRevision.document["supply"],
-                   AnalysisResult.result[("startup", "waveforms", "t")],
-                   AnalysisResult.result[("startup", "waveforms", "i")])
-            .join(RailRevision, (RailRevision.rail_id == Rail.id) & (RailRevision.n == Rail.head_n))
-            .outerjoin(AnalysisResult, nominal_result_of_head())
-            .where(Rail.board_id == board.id).order_by(Rail.name))
+    if rails is None:
+        rails = board_rails(session=session, actor=actor, board_id=board_id)["rails"]
     groups: dict[str, dict[str, Any]] = {}
-    for rid, name, supply, t, i in session.execute(stmt):
-        g = groups.setdefault(supply_key(supply), {"supply": supply, "rails": [], "waves": [], "missing": []})
-        analysed = bool(t) and bool(i)
-        g["rails"].append({"id": rid, "name": name, "analysed": analysed})
-        if analysed:
-            g["waves"].append((name, t, i))
+    for r in rails:
+        g = groups.setdefault(supply_key(r["supply"]), {"supply": r["supply"], "rails": [], "waves": [], "missing": []})
+        g["rails"].append({"id": r["id"], "name": r["name"], "analysed": r["startup"] is not None})
+        if r["startup"] is not None:
+            g["waves"].append((r["name"], *r["startup"]))
         else:
-            g["missing"].append(name)
+            g["missing"].append(r["name"])
     out = []
     for g in sorted(groups.values(), key=lambda g: (-g["supply"]["v_nom"], supply_key(g["supply"]))):
         t, each, total = sum_currents([(w[1], w[2]) for w in g["waves"]])
@@ -104,7 +99,7 @@ def board_budget(*, session: Session, actor: Actor, board_id: int) -> list[dict[
         order = sorted(range(len(each)), key=lambda k: -float(each[k].max()))
         shown = order if len(order) <= MAX_RAIL_TRACES else order[:MAX_RAIL_TRACES - 1]
         currents = {g["waves"][k][0]: each[k][keep].tolist() for k in sorted(shown)}
-        rest = [k for k in order if k not in set(shown)]
+        rest = order[len(shown):]
         if rest:
             currents[f"{len(rest)} other rails"] = np.sum([each[k] for k in rest], axis=0)[keep].tolist()
         out.append({

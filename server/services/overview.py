@@ -19,6 +19,7 @@ from sqlalchemy.orm import Session
 
 from server.models import AnalysisResult, Board, Job, Product, Rail, RailRevision
 from server.services import results
+from server.services.result_parts import ResultKey, result_parts
 from server.services.access import Actor, scoped_products
 from server.services.catalog import get_board, get_product
 
@@ -112,28 +113,38 @@ def product_overview(*, session: Session, actor: Actor, product_id: int) -> dict
 def _checks_of(rail_ids: list[int], session: Session) -> dict[int, tuple[float | None, list[dict]]]:
     if not rail_ids:
         return {}
-    stmt = (select(Rail.id, RailRevision.document["environment"], AnalysisResult.result["checks"])
+    stmt = (select(Rail.id, RailRevision.document["environment"], AnalysisResult.id, AnalysisResult.sha256,
+                   AnalysisResult.created_at)
             .join(RailRevision, (RailRevision.rail_id == Rail.id) & (RailRevision.n == Rail.head_n))
             .join(AnalysisResult, nominal_result_of_head()).where(Rail.id.in_(rail_ids)))
-    return {rid: ((env or {}).get("t_ambient"), list(checks or [])) for rid, env, checks in session.execute(stmt)}
+    rows = session.execute(stmt).all()
+    parts = result_parts(session, [ResultKey(r[2], r[3], r[4]) for r in rows])
+    return {r[0]: ((r[1] or {}).get("t_ambient"), parts[r[2]].checks if r[2] in parts else []) for r in rows}
 
 
 def board_rails(*, session: Session, actor: Actor, board_id: int) -> dict[str, Any]:
-    """A board and its rails: head revision summary, verdict, checks and when they were analysed."""
+    """A board and its rails: head revision summary, verdict, checks and when they were analysed.
+
+    Each rail also carries ``startup`` (t, i) of its result for the supply budget.
+    """
     board = get_board(session=session, actor=actor, board_id=board_id)
     doc = RailRevision.document
     stmt = (select(Rail.id, Rail.name, Rail.mode, Rail.head_n, Rail.updated_at, doc["supply"], doc["load"],
-                   doc["environment"], AnalysisResult.verdict, AnalysisResult.created_at,
-                   AnalysisResult.result["checks"])
+                   doc["environment"], AnalysisResult.verdict, AnalysisResult.id, AnalysisResult.sha256,
+                   AnalysisResult.created_at)
             .join(RailRevision, (RailRevision.rail_id == Rail.id) & (RailRevision.n == Rail.head_n))
             .outerjoin(AnalysisResult, nominal_result_of_head())
             .where(Rail.board_id == board.id).order_by(Rail.name))
+    rows = session.execute(stmt).all()
+    parts = result_parts(session, [ResultKey(r[9], r[10], r[11]) for r in rows if r[9] is not None])
     rails = []
-    for (rid, name, mode, head_n, updated_at, supply, load, env, verdict, analysed_at,
-         checks) in session.execute(stmt):
+    for (rid, name, mode, head_n, updated_at, supply, load, env, verdict, result_id, _sha,
+         analysed_at) in rows:
+        p = parts.get(result_id)
         rails.append({"id": rid, "name": name, "mode": mode, "head_n": head_n, "updated_at": updated_at,
                       "supply": supply or {}, "load": load or {}, "t_ambient": (env or {}).get("t_ambient"),
-                      "verdict": verdict, "analysed_at": analysed_at, "checks": list(checks or [])})
+                      "verdict": verdict, "analysed_at": analysed_at, "checks": p.checks if p else [],
+                      "startup": (p.t, p.i) if p and p.t and p.i else None})
     return {"board": board, "product": board.product, "rails": rails}
 
 
