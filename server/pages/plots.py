@@ -15,7 +15,7 @@ from typing import Any
 
 import numpy as np
 
-from server.units import format_quantity
+from server.pages.display import fmt as format_quantity
 
 __all__ = ["PALETTE", "VERDICT_COLOURS", "startup_figure", "soa_figure", "timer_figure", "monte_carlo_figure",
            "startup_overlay_figure", "soa_overlay_figure", "timer_limits", "budget_figure", "part_soa_figure", "zth_figure",

@@ -75,8 +75,12 @@ def latest_result(session: Session, *, sha256: str, monte_carlo: bool = False,
     if current_engine_only:
         stmt = stmt.where(AnalysisResult.engine_version == engine_version())
     if monte_carlo:
-        rows = session.scalars(stmt.order_by(AnalysisResult.created_at.desc(), AnalysisResult.id.desc())).all()
-        return next((r for r in rows if r.options.get("monte_carlo", 0) > 0), None)
+        # read the options of the candidates first, and then only the one whole result that is wanted
+        candidates = session.execute(stmt.with_only_columns(AnalysisResult.id, AnalysisResult.options).where(
+            AnalysisResult.options_key != options_key(NOMINAL_OPTIONS))
+            .order_by(AnalysisResult.created_at.desc(), AnalysisResult.id.desc())).all()
+        wanted = next((rid for rid, opts in candidates if (opts or {}).get("monte_carlo", 0) > 0), None)
+        return None if wanted is None else session.get(AnalysisResult, wanted)
     stmt = stmt.where(AnalysisResult.options_key == options_key(NOMINAL_OPTIONS))
     return session.scalar(stmt.order_by(AnalysisResult.created_at.desc(), AnalysisResult.id.desc()).limit(1))
 

@@ -188,6 +188,7 @@ def concurrent(url: str, app, ids: dict, clients: int, seconds: float, web_worke
             time.sleep(0.2)
         cookie, _ = app.state.session_cookie.dump(ids["user_id"])
         latencies: list[float] = []
+        server_ms: list[float] = []
         errors: list[str] = []
         lock = threading.Lock()
         start = threading.Event()
@@ -195,6 +196,7 @@ def concurrent(url: str, app, ids: dict, clients: int, seconds: float, web_worke
         def browse(k: int) -> None:
             rng = random.Random(100 + k)
             mine: list[float] = []
+            theirs: list[float] = []
             with httpx.Client(base_url=base, cookies={SESSION_COOKIE: cookie}, timeout=30) as c:
                 c.get(f"/rails/{ids['rail_ids'][k]}")  # its connection is open before the clock starts
                 start.wait()
@@ -204,11 +206,13 @@ def concurrent(url: str, app, ids: dict, clients: int, seconds: float, web_worke
                     t0 = time.perf_counter()
                     r = c.get(path)
                     mine.append(time.perf_counter() - t0)
+                    theirs.append(server_time_s(r) * 1000)
                     if r.status_code != 200:
                         with lock:
                             errors.append(f"{path}: {r.status_code}")
             with lock:
                 latencies.extend(mine)
+                server_ms.extend(theirs)
 
         threads = [threading.Thread(target=browse, args=(k,)) for k in range(clients)]
         for t in threads:
@@ -223,6 +227,9 @@ def concurrent(url: str, app, ids: dict, clients: int, seconds: float, web_worke
         print(f"  {clients} clients, {web_workers} web process{'es' if web_workers > 1 else ''}, {seconds:.0f} s: "
               f"p50 {percentile(ms, 50):.1f} ms  p95 {percentile(ms, 95):.1f} ms  p99 {percentile(ms, 99):.1f} ms  "
               f"{len(ms) / wall:.1f} requests/s  (n={len(ms)}, errors={len(errors)})")
+        print(f"    server time under that load: p50 {percentile(server_ms, 50):.1f} ms  "
+              f"p95 {percentile(server_ms, 95):.1f} ms  p99 {percentile(server_ms, 99):.1f} ms "
+              "(the rest of the latency is queueing; clients and server share the machine's cores)")
         if errors:
             print("   first errors:", errors[:5])
     finally:
