@@ -25,9 +25,11 @@ from server.services.access import Actor
 from server.services.errors import Forbidden, Unauthenticated
 
 __all__ = ["hash_password", "verify_password", "new_token", "token_digest", "SessionCookie", "SESSION_COOKIE",
-           "user_from_token", "current_actor", "CurrentActor", "require"]
+           "LOGIN_CSRF_COOKIE", "user_from_token", "current_actor", "optional_actor", "CurrentActor", "require"]
 
 SESSION_COOKIE = "railsign_session"
+LOGIN_CSRF_COOKIE = "railsign_login_csrf"
+LOGIN_CSRF_MAX_AGE_S = 3600
 TOKEN_PREFIX = "rsk_"
 _hasher = PasswordHasher()
 
@@ -56,17 +58,47 @@ def token_digest(token: str) -> str:
     return hashlib.sha256(token.encode()).hexdigest()
 
 
+def password_fingerprint(password_hash: str | None) -> str:
+    """A short digest of the stored hash: a session ends when its user's password changes."""
+    return hashlib.sha256((password_hash or "").encode()).hexdigest()[:16]
+
+
 class SessionCookie:
-    """Signed, timestamped cookie holding the user id and the session's CSRF token."""
+    """Signed, timestamped cookie holding the user id and the session's CSRF token.
+
+    The cookie also holds a fingerprint of the user's password hash, so that setting a new
+    password ends every session of the old one. Before login, a second short-lived signed
+    cookie (:data:`LOGIN_CSRF_COOKIE`) carries the login form's CSRF token.
+    """
 
     def __init__(self, settings: Settings) -> None:
         self._serializer = URLSafeTimedSerializer(settings.secret_key, salt="railsign-session")
+        self._login_serializer = URLSafeTimedSerializer(settings.secret_key, salt="railsign-login-csrf")
         self.max_age_s = settings.session_max_age_s
         self.secure = settings.cookie_secure
 
-    def dump(self, user_id: int) -> tuple[str, str]:
+    def dump(self, user_id: int, password_hash: str | None = None) -> tuple[str, str]:
         csrf = secrets.token_urlsafe(24)
-        return self._serializer.dumps({"uid": user_id, "csrf": csrf}), csrf
+        data = {"uid": user_id, "csrf": csrf, "pw": password_fingerprint(password_hash)}
+        return self._serializer.dumps(data), csrf
+
+    def dump_login_csrf(self) -> tuple[str, str]:
+        """(cookie value, token) for a login form."""
+        token = secrets.token_urlsafe(24)
+        return self._login_serializer.dumps(token), token
+
+    def load_login_csrf(self, value: str | None) -> str | None:
+        if not value:
+            return None
+        try:
+            token = self._login_serializer.loads(value, max_age=LOGIN_CSRF_MAX_AGE_S)
+        except (BadSignature, SignatureExpired):
+            return None
+        return token if isinstance(token, str) else None
+
+    def login_csrf_kwargs(self) -> dict[str, Any]:
+        return {"max_age": LOGIN_CSRF_MAX_AGE_S, "httponly": True, "samesite": "lax", "secure": self.secure,
+                "path": "/"}
 
     def load(self, value: str | None) -> dict[str, Any] | None:
         if not value:
@@ -110,7 +142,8 @@ def current_actor(request: Request, session: SessionDep) -> Actor:
         data = request.app.state.session_cookie.load(request.cookies.get(SESSION_COOKIE))
         if data is not None:
             candidate = session.get(User, data["uid"])
-            if candidate is not None and candidate.active:
+            if candidate is not None and candidate.active and \
+                    data.get("pw") == password_fingerprint(candidate.password_hash):
                 user = candidate
                 request.state.auth = "cookie"
                 request.state.csrf_token = data.get("csrf", "")
@@ -118,10 +151,20 @@ def current_actor(request: Request, session: SessionDep) -> Actor:
         raise Unauthenticated("log in first")
     actor = Actor.for_user(user, request_id)
     request.state.actor = actor
+    # plain values for pages drawn after the request's session has closed (error pages)
+    request.state.actor_summary = {"name": actor.name, "role": actor.role}
     return actor
 
 
 CurrentActor = Annotated[Actor, Depends(current_actor)]
+
+
+def optional_actor(request: Request, session: SessionDep) -> Actor | None:
+    """The logged-in actor, or None (for the login page, which anyone may open)."""
+    try:
+        return current_actor(request, session)
+    except Unauthenticated:
+        return None
 
 
 def require(permission: str):

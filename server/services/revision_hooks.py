@@ -9,6 +9,7 @@ from __future__ import annotations
 from sqlalchemy.orm import Session
 
 from server.models import Rail, RailRevision
+from server.services import signoff
 from server.services.access import Actor
 
 __all__ = ["run"]
@@ -17,4 +18,4 @@ __all__ = ["run"]
 def run(session: Session, actor: Actor, rail: Rail, revision: RailRevision, *,
         previous: RailRevision | None) -> None:
     """Side effects of a new revision (queued analyses, workflow state) go here, in order."""
-    return None
+    signoff.on_new_revision(session, actor, rail, revision, previous=previous)
