@@ -370,18 +370,19 @@ def _check_curve_order(curves: list[SoaCurve]) -> None:
     from .soa import curve_current  # local import: soa depends on this module's types
 
     vs = sorted({v for c in curves for v, _ in c.points})
-    prev = None
+    prev = prev_curve = None
     for c in curves:
         cur = [curve_current(c, v) for v in vs]
         if prev is not None:
+            v_end = prev_curve.points[-1][0]  # compare where the shorter pulse is drawn
             for v, a, b in zip(vs, prev, cur):
-                if b > a * (1.0 + 1e-9):
+                if v <= v_end and b > a * (1.0 + 1e-9):
                     label = "DC" if c.t_pulse is None else f"{c.t_pulse:g} s"
                     raise DocumentError(
                         "fet.soa.curves",
                         f"the {label} curve allows more current than a shorter pulse at {v:g} V",
                     )
-        prev = cur
+        prev, prev_curve = cur, c
 
 
 def _read_fet(doc: dict, t_ambient: float) -> Fet:

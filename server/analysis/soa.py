@@ -97,8 +97,14 @@ class _Table:
         return np.where(x > lv[-1] + 1e-12, 0.0, out)
 
     def matrix(self, v: np.ndarray) -> tuple[np.ndarray, np.ndarray | None]:
-        fin = np.stack([self._currents(c, v) for c in self.finite])  # (m, n)
-        dc = None if self.dc is None else self._currents(self.dc, v)
+        """Currents of the finite curves (m, n) and of the DC curve (n,) at voltages v.
+
+        A longer pulse never allows more than a shorter one (running minimum along the
+        pulse widths): where a short-pulse curve is not drawn up to v, nothing longer is
+        allowed either (conservative).
+        """
+        fin = np.minimum.accumulate(np.stack([self._currents(c, v) for c in self.finite]), axis=0)
+        dc = None if self.dc is None else np.minimum(self._currents(self.dc, v), fin[-1])
         return fin, dc
 
     def tail_slope(self, fin: np.ndarray) -> np.ndarray:

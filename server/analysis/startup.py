@@ -21,23 +21,30 @@ i <= i_ref (complementarity: v_reg = 0 or i = i_ref):
 
     l di/dt = v_s - r i - R_sw i - v_reg - v_out,      c dv_c/dt = i - i_load(v_out).
 
-R_sw is Rds(on)(Tj) (rising with the junction temperature of the previous step); in hard
-mode it falls log-linearly from R_OFF = 1 Mohm to Rds(on) over t_on:
+R_sw is Rds(on)(Tj), rising with the junction temperature of the previous step. Over the
+turn-on time t_on (hard mode per DESIGN.md; the same gate ramp is honoured in the
+regulating modes, default 0 = instant) it falls log-linearly from R_OFF = 1 Mohm:
 ln R_sw(t) = ln R_OFF + (t / t_on) (ln Rds(on) - ln R_OFF). i_ref is i_limit (current
 limit, and any mode that has one), c dvdt + i_load(v_out) (slew: the capacitor ramps at
 dvdt), and the current at which the FET dissipates p_limit with v_ds = v_s - r i - v_out
 (power limit; the l di/dt of the regulated current is neglected there). With l = 0 the
-current is algebraic (an index-1 DAE). t_limit counts the time with v_reg > 0.
+current is algebraic (an index-1 DAE). t_limit counts the time with v_reg > 0. A load
+draws nothing below v_on and, once started, keeps drawing (its own UVLO hysteresis). The
+start-up is computed as if the fault timer never trips; the timer check says whether it
+would. No input capacitance is modelled: the switch input is v_out + v_ds.
 
 Method
 ------
 TR-BDF2 with adaptive steps, every row with its own step, all rows advanced in one
 vectorised iteration (`integrator`; Bank et al. 1985, Hosea and Shampine 1996): L-stable,
-so nanohenries with farads and microseconds with seconds share one run. A row stops when the switch no longer regulates, t >= t_on and the energy of the deviation
-from the DC operating point, l (i - i_f)^2 + c (v_c - v_f)^2, is below c (1e-3 v_f)^2.
-A row that needs more than ``max_steps`` attempted steps is reported as not converged.
+so nanohenries with farads and microseconds with seconds share one run. A row stops when
+the switch no longer regulates, t >= t_on and the energy of the deviation from the DC
+operating point, l (i - i_f)^2 + c (v_c - v_f)^2, is below c (1e-3 v_f)^2. A row that
+needs more than ``max_steps`` attempted steps is reported as not converged. Before
+integrating, a regulated start is checked for a stall: where the reference current does
+not exceed the load current somewhere below v_f (checked on 257 voltages), the output
+would stop rising there; the row is reported as stalled at that voltage.
 """
-
 
 from __future__ import annotations
 

@@ -25,44 +25,49 @@ def ngspice_missing_message() -> str:
     return "ngspice is not installed: install the Debian package `ngspice` (apt-get install ngspice)"
 
 
+def _n(x) -> str:
+    """A number for the netlist (plain Python float repr)."""
+    return repr(float(x))
+
+
 def _netlist(*, v, r, l, c, esr, r_load, mode, rds, i_limit, dvdt, t_on, r_off, t_stop, t_max, out_file):
-    lines = ["* railsign reference circuit", f"V1 vs 0 DC {v!r}"]
+    lines = ["* railsign reference circuit", f"V1 vs 0 DC {_n(v)}"]
     node = "vs"
     if r > 0:
-        lines.append(f"R1 vs n1 {r!r}")
+        lines.append(f"R1 vs n1 {_n(r)}")
         node = "n1"
     if l > 0:
-        lines.append(f"L1 {node} sw {l!r} IC=0")
+        lines.append(f"L1 {node} sw {_n(l)} IC=0")
     else:
         lines.append(f"Rz {node} sw 1e-12")
     lines.append("Vsense sw swx DC 0")
     if t_on > 0:
         a, b = math.log(r_off), math.log(rds) - math.log(r_off)
-        rsw = f"exp({a!r} + {b!r} * min(time / {t_on!r}, 1))"
+        rsw = f"exp({_n(a)} + {_n(b)} * min(time / {_n(t_on)}, 1))"
     else:
-        rsw = f"{rds!r}"
+        rsw = f"{_n(rds)}"
     full = f"V(swx,out) / ({rsw})"
     refs = []
     if i_limit is not None:
-        refs.append(f"{i_limit!r}")
+        refs.append(f"{_n(i_limit)}")
     if mode == "slew":
-        load_i = f"V(out) / {r_load!r}" if r_load is not None else "0"
-        refs.append(f"{c * dvdt!r} + {load_i}")
+        load_i = f"V(out) / {_n(r_load)}" if r_load is not None else "0"
+        refs.append(f"{_n(c * dvdt)} + {load_i}")
     expr = full
     for ref in refs:
         expr = f"min({expr}, {ref})"
     lines.append(f"B1 swx out I = {expr}")
     if esr > 0:
-        lines.append(f"Resr out x {esr!r}")
-        lines.append(f"C1 x 0 {c!r} IC=0")
+        lines.append(f"Resr out x {_n(esr)}")
+        lines.append(f"C1 x 0 {_n(c)} IC=0")
     else:
-        lines.append(f"C1 out 0 {c!r} IC=0")
+        lines.append(f"C1 out 0 {_n(c)} IC=0")
     if r_load is not None:
-        lines.append(f"Rload out 0 {r_load!r}")
+        lines.append(f"Rload out 0 {_n(r_load)}")
     lines += [
         ".options reltol=1e-6 abstol=1e-12 vntol=1e-9 method=gear maxord=2 itl4=100",
         ".control",
-        f"tran {t_max!r} {t_stop!r} 0 {t_max!r} uic",
+        f"tran {_n(t_max)} {_n(t_stop)} 0 {_n(t_max)} uic",
         f"wrdata {out_file} i(vsense) v(out) v(swx)",
         "quit",
         ".endc",
