@@ -3,7 +3,7 @@
 NumPy and SciPy only; no web, database, file or network I/O. Entry points:
 
 analyze_rail(doc, *, rules=None, corners=False, monte_carlo=0, seed=0,
-             distribution="uniform", waveforms=True, progress=None) -> dict
+             distribution="uniform", waveforms=True, progress=None, headroom=True) -> dict
     Every figure, check and verdict of DESIGN.md section 4 for a rail document.
 format_report(result, doc) -> str
     The result as a readable text report.

@@ -5,8 +5,10 @@ Provides
 ENGINE_VERSION
     Version of the numbers: results are cached per engine version.
 analyze_rail(doc, *, rules=None, corners=False, monte_carlo=0, seed=0,
-             distribution="uniform", waveforms=True, progress=None)
+             distribution="uniform", waveforms=True, progress=None, headroom=True)
     The result dict of DESIGN.md section 4 (SI units, degC; no NaN or infinity: None).
+CAUTION
+    The caution line every report and page carries.
 
 The nominal evaluation runs the start-up at v_nom and c_nom with the nominal limit, and
 takes the worst cases that DESIGN.md builds into the short circuit (v_max, i_limit at its

@@ -131,3 +131,19 @@ def test_current_limit_junction_temperature_against_foster_ramp_response():
         e = -np.expm1(-t / st["tau"])
         rise += st["r"] * (p0 * e - (p0 / t_ch) * (t - st["tau"] * e))
     assert_allclose(fig.tj_peak[0], 40.0 + rise.max(), rtol=0, atol=2e-3 * rise.max())
+
+
+@pytest.mark.parametrize("v, c, p, i", [(48.0, 470e-6, 60.0, 5.0), (12.0, 2.2e-3, 20.0, 8.0), (54.0, 100e-6, 100.0, 10.0)])
+def test_power_limit_then_current_limit_charge_time(v, c, p, i):
+    # Source: separable ODE of a capacitor fed at constant FET power from a stiff source,
+    # C dv/dt = P / (V - v): t1 = C (V^2 - (V - v1)^2) / (2 P) up to v1 = V - P / I where
+    # the current reaches the limit; then C dv/dt = I up to V - I Rds: t2 = C (V - I Rds - v1) / I.
+    # (Derived here; the constant-power charge of a capacitor is textbook calculus.)
+    rds = 1e-5
+    fig = _start(simple_doc(mode="power_limit", v=v, c=c, p_limit=p, i_limit=i, rds_on=rds))
+    v1 = v - p / i
+    t1 = c * (v * v - (v - v1) ** 2) / (2 * p)
+    t2 = c * (v - i * rds - v1) / i
+    assert_allclose(fig.t_limit[0], t1 + t2, rtol=2e-3)
+    assert_allclose(fig.p_fet_peak[0], p, rtol=1e-3)
+    assert_allclose(fig.i_peak[0], i, rtol=1e-6)
