@@ -166,24 +166,31 @@ def section_engines() -> None:
     per_ivp = (time.perf_counter() - t0) / n_ivp
 
     n_ng = 10
-    per_ng = None
+    per_ng = per_ng_coarse = None
     ng = []
+
+    def run_ng(j, points):
+        with tempfile.TemporaryDirectory() as d:
+            return simulate_ngspice(
+                Path(d), t_stop=float(ours.t_end[j]), v=params.v_s[j], r=rail.supply.r_source + rail.path.r,
+                l=0.0, c=params.c[j], esr=rail.load.esr, r_load=rail.supply.v_nom / rail.load.i_nom,
+                mode="current_limit", rds=rail.fet.rds_on, i_limit=params.i_lim[j], dvdt=None,
+                t_on=rail.switch.t_on, r_off=R_OFF, points=points)
+
     if NGSPICE is not None:
         t0 = time.perf_counter()
-        for j in range(n_ng):
-            with tempfile.TemporaryDirectory() as d:
-                ng.append(simulate_ngspice(
-                    Path(d), t_stop=float(ours.t_end[j]), v=params.v_s[j], r=rail.supply.r_source + rail.path.r,
-                    l=0.0, c=params.c[j], esr=rail.load.esr, r_load=rail.supply.v_nom / rail.load.i_nom,
-                    mode="current_limit", rds=rail.fet.rds_on, i_limit=params.i_lim[j], dvdt=None,
-                    t_on=rail.switch.t_on, r_off=R_OFF, points=20000))
+        ng = [run_ng(j, 20000) for j in range(n_ng)]  # max step t_end / 20000: the reference
         per_ng = (time.perf_counter() - t0) / n_ng
+        t0 = time.perf_counter()
+        ng_coarse = [run_ng(j, 200) for j in range(n_ng)]  # max step t_end / 200
+        per_ng_coarse = (time.perf_counter() - t0) / n_ng
 
     print(f"  ours, batch of {n_batch} rows     {per_batch * 1e6:9.1f} us per sample ({t_batch * 1e3:.1f} ms in all)")
     print(f"  ours, one row (float path)    {per_single * 1e6:9.1f} us per sample ({n_single} samples)")
     print(f"  solve_ivp Radau, one per call {per_ivp * 1e6:9.1f} us per sample ({n_ivp} samples)")
     if per_ng is not None:
-        print(f"  ngspice -b, one per process   {per_ng * 1e6:9.1f} us per sample ({n_ng} samples)")
+        print(f"  ngspice -b, one per process   {per_ng * 1e6:9.1f} us per sample ({n_ng} samples, max step t/20000)")
+        print(f"  ngspice -b, coarse max step   {per_ng_coarse * 1e6:9.1f} us per sample ({n_ng} samples, max step t/200)")
     else:
         print("  ngspice: not installed (install the Debian package ngspice)")
     print(f"  ratio solve_ivp / ours batch: {per_ivp / per_batch:8.1f} x")
@@ -191,6 +198,7 @@ def section_engines() -> None:
     if per_ng is not None:
         print(f"  ratio ngspice / ours batch:   {per_ng / per_batch:8.1f} x")
         print(f"  ratio ngspice / ours row:     {per_ng / per_single:8.1f} x")
+        print(f"  ratio ngspice coarse / batch: {per_ng_coarse / per_batch:8.1f} x")
 
     def worst(key, other, n):
         return max(abs(getattr(ours, key)[j] / other[j][key] - 1.0) for j in range(n) if other[j][key] > 0)
@@ -199,7 +207,7 @@ def section_engines() -> None:
     for key in ("i_peak", "e_fet", "t_limit"):
         line = f"    {key:8s} vs solve_ivp {worst(key, ivp, n_ivp):.2e}"
         if ng:
-            line += f"   vs ngspice {worst(key, ng, n_ng):.2e}"
+            line += f"   vs ngspice {worst(key, ng, n_ng):.2e}   vs ngspice coarse {worst(key, ng_coarse, n_ng):.2e}"
         print(line)
     print(f"    tj_peak  vs solve_ivp {max(abs(ours.tj_peak[j] - ivp[j]['tj_peak']) for j in range(n_ivp)):.2e} K")
 
