@@ -37,6 +37,7 @@ __all__ = [
     "Fet",
     "Rail",
     "read_rail",
+    "read_fet",
     "read_rules",
 ]
 
@@ -421,6 +422,15 @@ def _read_fet(doc: dict, t_ambient: float) -> Fet:
         t_case=t_case,
         curves=_read_curves(soa, t_case),
     )
+
+
+def read_fet(fet: Any) -> Fet:
+    """Validate a FET on its own (a part library entry: the rail document's ``fet`` section).
+
+    The checks that involve the rest of a rail (tj_max above the ambient) are left to
+    `read_rail`; raises `DocumentError` with paths starting at ``fet``.
+    """
+    return _read_fet({"fet": fet}, t_ambient=-273.15)
 
 
 def read_rules(*overrides: Any) -> dict[str, float]:
