@@ -11,7 +11,7 @@ import enum
 from datetime import datetime, timezone
 from typing import Any
 
-from sqlalchemy import JSON, DateTime, ForeignKey, Index, Integer, String, Text, UniqueConstraint
+from sqlalchemy import JSON, DateTime, ForeignKey, Index, Integer, String, Text, UniqueConstraint, text
 from sqlalchemy.dialects.postgresql import JSONB
 from sqlalchemy.types import TypeDecorator
 from sqlalchemy.orm import DeclarativeBase, Mapped, mapped_column, relationship
@@ -148,6 +148,8 @@ class Rail(Base):
     head_n: Mapped[int] = mapped_column(Integer, default=0)
     head_sha256: Mapped[str] = mapped_column(String(64), default="")
     part_id: Mapped[int | None] = mapped_column(ForeignKey("parts.id"), index=True)
+    # A few figures of the head revision's document, kept beside it so lists need not read documents.
+    summary: Mapped[dict[str, Any]] = mapped_column(JsonType, default=dict, server_default=text("'{}'"))
     created_at: Mapped[datetime] = mapped_column(default=utcnow)
     updated_at: Mapped[datetime] = mapped_column(default=utcnow)
     board: Mapped[Board] = relationship()
