@@ -183,7 +183,7 @@ def cmd_user(args: argparse.Namespace) -> int:
     with _sessions(settings)() as session:
         actor = _actor(session, None)
         if args.user_command == "add":
-            password = sys.stdin.readline().rstrip("\n") if args.password_stdin else None
+            password = _password_from_stdin() if args.password_stdin else None
             user = users.create_user(session=session, actor=actor, username=args.name, role=args.role,
                                      password=password, teams=args.team or [])
             print(f"added {user.username} ({user.role}; teams: {', '.join(sorted(t.name for t in user.teams)) or '-'})")
@@ -198,7 +198,22 @@ def cmd_user(args: argparse.Namespace) -> int:
         elif args.user_command == "add-team":
             user = users.add_to_team(session=session, actor=actor, username=args.name, team=args.team)
             print(f"{user.username} is in {', '.join(sorted(t.name for t in user.teams))}")
+        elif args.user_command == "set-password":
+            user = users.get_user_by_name(session=session, username=args.name)
+            users.update_user(session=session, actor=actor, user_id=user.id, password=_password_from_stdin())
+            print(f"new password set for {user.username}; their sessions have ended")
+        elif args.user_command in ("disable", "enable"):
+            user = users.get_user_by_name(session=session, username=args.name)
+            users.update_user(session=session, actor=actor, user_id=user.id, active=args.user_command == "enable")
+            print(f"{user.username} is {'disabled' if not user.active else 'active'}")
     return EXIT_OK
+
+
+def _password_from_stdin() -> str:
+    password = sys.stdin.readline().rstrip("\r\n")
+    if not password:
+        raise CliError("no password on standard input")
+    return password
 
 
 def cmd_token(args: argparse.Namespace) -> int:
@@ -209,7 +224,7 @@ def cmd_token(args: argparse.Namespace) -> int:
     with _sessions(settings)() as session:
         actor = _actor(session, None)
         if args.token_command == "create":
-            token, clear = users.create_token(session=session, actor=actor, username=args.user, name=args.name)
+            token, clear = users.create_token(session=session, actor=actor, username=args.user, name=args.label)
             print(clear)
             print(f"token {token.id} '{token.name}' for {args.user}: shown once, store it now", file=sys.stderr)
         elif args.token_command == "revoke":
@@ -404,16 +419,20 @@ def build_parser() -> argparse.ArgumentParser:
     u = usub.add_parser("add-team", help="add a user to a team")
     u.add_argument("name")
     u.add_argument("--team", required=True)
+    u = usub.add_parser("set-password", help="set a user's password (read from standard input)")
+    u.add_argument("name")
+    for verb, text in (("disable", "stop a user from logging in or using tokens"), ("enable", "let a user in again")):
+        usub.add_parser(verb, help=text).add_argument("name")
 
     p = command("token", cmd_token, "manage API tokens")
     tsub = p.add_subparsers(dest="token_command", required=True)
-    t = tsub.add_parser("create", help="create a token and print it (once)")
-    t.add_argument("name", help="a label for the token")
-    t.add_argument("--user", required=True, help="the token's owner")
+    t = tsub.add_parser("create", help="create an API token for a user and print it (shown once)")
+    t.add_argument("user", metavar="NAME", help="the user who owns the token")
+    t.add_argument("--label", default="command line", help="what the token is for (default: command line)")
     t = tsub.add_parser("revoke", help="revoke a token by id")
     t.add_argument("id", type=int)
     t = tsub.add_parser("list", help="list a user's tokens")
-    t.add_argument("--user", required=True)
+    t.add_argument("user", metavar="NAME")
     return parser
 
 

@@ -10,9 +10,9 @@ from pathlib import Path
 from typing import Any
 
 import plotly
-from fastapi import FastAPI, Request
+from fastapi import Depends, FastAPI, Request
 from fastapi.exceptions import RequestValidationError
-from fastapi.responses import FileResponse, JSONResponse
+from fastapi.responses import FileResponse, JSONResponse, RedirectResponse, Response
 from fastapi.staticfiles import StaticFiles
 from starlette.exceptions import HTTPException as StarletteHTTPException
 
@@ -20,9 +20,12 @@ from server import __version__
 from server.api import api_router
 from server.auth import SessionCookie
 from server.config import WEB_DIR, Settings, get_settings
+from server.csrf import csrf_guard
 from server.db import make_engine, make_sessionmaker, ping
 from server.pages import page_router
-from server.services.errors import ServiceError
+from server.pages.common import login_url
+from server.services.errors import ServiceError, Unauthenticated
+from server.templating import templates
 
 log = logging.getLogger("railsign.http")
 PLOTLY_DIR = Path(plotly.__file__).parent / "package_data"
@@ -42,11 +45,33 @@ def _field_path(loc: tuple[Any, ...]) -> str:
     return text
 
 
+def is_page_request(request: Request) -> bool:
+    """Pages answer errors with HTML (and a login redirect); the API and /healthz with JSON."""
+    path = request.url.path
+    return not (path.startswith("/api/") or path == "/healthz" or path.startswith("/static/"))
+
+
+PAGE_ERROR_TITLES = {403: "Not allowed", 404: "Not found", 409: "Conflict", 422: "Not valid",
+                     429: "Too many attempts"}
+
+
+def _error_page(request: Request, status: int, message: str) -> Response:
+    context = {"actor": getattr(request.state, "actor_summary", None),
+               "csrf_token": getattr(request.state, "csrf_token", ""),
+               "status": status, "title": PAGE_ERROR_TITLES.get(status, "Something went wrong"), "message": message}
+    return templates.TemplateResponse(request, "error.html", context, status_code=status)
+
+
 def _install_error_handlers(app: FastAPI) -> None:
     @app.exception_handler(ServiceError)
-    async def _service_error(request: Request, exc: ServiceError) -> JSONResponse:
+    async def _service_error(request: Request, exc: ServiceError) -> Response:
+        if is_page_request(request):
+            if isinstance(exc, Unauthenticated):
+                return RedirectResponse(login_url(request), status_code=303)
+            return _error_page(request, exc.status, exc.message)
+        headers = {"WWW-Authenticate": "Bearer"} if isinstance(exc, Unauthenticated) else None
         return JSONResponse(error_body(exc.status, exc.code, exc.message, exc.details, **exc.extra),
-                            status_code=exc.status)
+                            status_code=exc.status, headers=headers)
 
     @app.exception_handler(RequestValidationError)
     async def _validation_error(request: Request, exc: RequestValidationError) -> JSONResponse:
@@ -56,9 +81,11 @@ def _install_error_handlers(app: FastAPI) -> None:
                             status_code=422)
 
     @app.exception_handler(StarletteHTTPException)
-    async def _http_error(request: Request, exc: StarletteHTTPException) -> JSONResponse:
+    async def _http_error(request: Request, exc: StarletteHTTPException) -> Response:
         code = {404: "not_found", 405: "method_not_allowed"}.get(exc.status_code, "http_error")
         message = exc.detail if isinstance(exc.detail, str) else str(exc.detail)
+        if is_page_request(request):
+            return _error_page(request, exc.status_code, message)
         return JSONResponse(error_body(exc.status_code, code, message), status_code=exc.status_code,
                             headers=getattr(exc, "headers", None))
 
@@ -89,7 +116,8 @@ def create_app(settings: Settings | None = None) -> FastAPI:
         engine.dispose()
 
     app = FastAPI(title="railsign", version=__version__, lifespan=lifespan,
-                  description="Design sign-off for switched power rails. All numbers are SI units.")
+                  description="Design sign-off for switched power rails. All numbers are SI units.",
+                  dependencies=[Depends(csrf_guard)])
     app.state.settings = settings
     app.state.engine = engine
     app.state.sessionmaker = make_sessionmaker(engine)

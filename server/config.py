@@ -42,6 +42,10 @@ class Settings(BaseSettings):
     session_max_age_s: int = Field(8 * 3600, gt=0, description="seconds a login session lasts")
     login_max_failures: int = Field(5, ge=1, description="failed logins (per account or address) before refusal")
     login_lockout_s: float = Field(300.0, gt=0, description="seconds a throttled account or address is refused")
+    login_slowdown_s: float = Field(
+        0.5, ge=0, description="delay of a login attempt after one recent failure, doubled with each further "
+        "failure up to 16 times (0: no delay); failures older than login_lockout_s are forgotten"
+    )
     log_level: str = Field("INFO", description="logging level: DEBUG, INFO, WARNING, ERROR")
     sql_echo: bool = Field(False, description="log every SQL statement (debugging)")
 

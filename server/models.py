@@ -11,7 +11,7 @@ import enum
 from datetime import datetime, timezone
 from typing import Any
 
-from sqlalchemy import JSON, DateTime, ForeignKey, Index, Integer, String, Text, UniqueConstraint
+from sqlalchemy import JSON, DateTime, ForeignKey, Index, Integer, String, Text, UniqueConstraint, text
 from sqlalchemy.dialects.postgresql import JSONB
 from sqlalchemy.types import TypeDecorator
 from sqlalchemy.orm import DeclarativeBase, Mapped, mapped_column, relationship
@@ -148,6 +148,8 @@ class Rail(Base):
     head_n: Mapped[int] = mapped_column(Integer, default=0)
     head_sha256: Mapped[str] = mapped_column(String(64), default="")
     part_id: Mapped[int | None] = mapped_column(ForeignKey("parts.id"), index=True)
+    # A few figures of the head revision's document, kept beside it so lists need not read documents.
+    summary: Mapped[dict[str, Any]] = mapped_column(JsonType, default=dict, server_default=text("'{}'"))
     created_at: Mapped[datetime] = mapped_column(default=utcnow)
     updated_at: Mapped[datetime] = mapped_column(default=utcnow)
     board: Mapped[Board] = relationship()
@@ -244,3 +246,75 @@ class Job(Base):
     started_at: Mapped[datetime | None]
     heartbeat_at: Mapped[datetime | None]
     finished_at: Mapped[datetime | None]
+
+
+# --- Sign-off: team workflows, rail states, approvals, waivers, login throttling -------------
+
+
+class Workflow(Base):
+    """A team's sign-off workflow: states and transitions as one definition (see server.workflow)."""
+
+    __tablename__ = "workflows"
+    id: Mapped[int] = mapped_column(primary_key=True)
+    team_id: Mapped[int] = mapped_column(ForeignKey("teams.id", ondelete="CASCADE"), unique=True)
+    definition: Mapped[dict[str, Any]]
+    version: Mapped[int] = mapped_column(Integer, default=1)
+    updated_at: Mapped[datetime] = mapped_column(default=utcnow)
+    updated_by: Mapped[str] = mapped_column(String(200), default="")
+
+
+class RailState(Base):
+    """Where a rail stands in its team's workflow, and since which revision."""
+
+    __tablename__ = "rail_states"
+    rail_id: Mapped[int] = mapped_column(ForeignKey("rails.id", ondelete="CASCADE"), primary_key=True)
+    state: Mapped[str] = mapped_column(String(100))
+    revision_n: Mapped[int] = mapped_column(Integer, default=1)
+    since: Mapped[datetime] = mapped_column(default=utcnow)
+    changed_by: Mapped[str] = mapped_column(String(200), default="")
+
+
+class Approval(Base):
+    """A reviewer's approval of one rail revision; stale (kept) once the rail has a newer revision."""
+
+    __tablename__ = "approvals"
+    __table_args__ = (UniqueConstraint("rail_id", "revision_n", "reviewer_id"),)
+    id: Mapped[int] = mapped_column(primary_key=True)
+    rail_id: Mapped[int] = mapped_column(ForeignKey("rails.id", ondelete="CASCADE"), index=True)
+    revision_n: Mapped[int]
+    sha256: Mapped[str] = mapped_column(String(64))
+    reviewer_id: Mapped[int] = mapped_column(ForeignKey("users.id"))
+    reviewer_name: Mapped[str] = mapped_column(String(200))
+    comment: Mapped[str] = mapped_column(Text, default="")
+    created_at: Mapped[datetime] = mapped_column(default=utcnow)
+    stale_at: Mapped[datetime | None]
+
+
+class Waiver(Base):
+    """A reviewer's reasoned acceptance of one failing or marginal check of one rail revision."""
+
+    __tablename__ = "waivers"
+    __table_args__ = (UniqueConstraint("rail_id", "revision_n", "check_id"),)
+    id: Mapped[int] = mapped_column(primary_key=True)
+    rail_id: Mapped[int] = mapped_column(ForeignKey("rails.id", ondelete="CASCADE"), index=True)
+    revision_n: Mapped[int]
+    sha256: Mapped[str] = mapped_column(String(64))
+    check_id: Mapped[str] = mapped_column(String(100))
+    check_title: Mapped[str] = mapped_column(String(200), default="")
+    verdict: Mapped[str] = mapped_column(String(10))
+    reason: Mapped[str] = mapped_column(Text)
+    reviewer_id: Mapped[int] = mapped_column(ForeignKey("users.id"))
+    reviewer_name: Mapped[str] = mapped_column(String(200))
+    created_at: Mapped[datetime] = mapped_column(default=utcnow)
+    carried_from_id: Mapped[int | None] = mapped_column(ForeignKey("waivers.id", ondelete="SET NULL"))
+
+
+class LoginThrottle(Base):
+    """Failed-login counter of one account or one address, shared by every web process."""
+
+    __tablename__ = "login_throttles"
+    id: Mapped[int] = mapped_column(primary_key=True)
+    key: Mapped[str] = mapped_column(String(200), unique=True)
+    failures: Mapped[int] = mapped_column(Integer, default=0)
+    last_failure_at: Mapped[datetime | None]
+    locked_until: Mapped[datetime | None]

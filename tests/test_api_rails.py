@@ -83,6 +83,10 @@ BAD_INPUTS = [
     ("switch.i_limit", lambda d: d["switch"].pop("i_limit"), "required"),
     ("load.c_tol", lambda d: d["load"].update(c_tol=1.5), "tolerance"),
     ("load.capacitance", lambda d: d["load"].update(capacitance=1e-3), "not a known field"),
+    ("load.v_on", lambda d: d["load"].update(model="constant_current", i_nom=1.0, v_on=11.5), "never turns on"),
+    # Caught by the analysis core's own reading of the document, after the schema:
+    ("fet.soa.curves", lambda d: d["fet"]["soa"]["curves"][3].update(points=[[0.5, 90.0], [30.0, 30.0]]),
+     "more current than a shorter pulse"),
 ]
 
 
@@ -300,3 +304,13 @@ def test_healthz_says_when_the_database_is_unreachable(tmp_path):
         r = c.get("/healthz")
     assert r.status_code == 503
     assert r.json()["database"]["reachable"] is False
+
+
+def test_part_with_curves_the_analysis_refuses_is_not_stored(client, people):
+    h = people.headers("designer")
+    fet = fet_doc("Odd curves")
+    fet["soa"]["curves"][3]["points"] = [[0.5, 90.0], [30.0, 30.0]]  # DC above the 10 ms curve
+    r = client.post("/api/v1/parts", json={"document": fet}, headers=h)
+    assert r.status_code == 422, r.text
+    assert r.json()["error"]["details"][0]["field"] == "document.soa.curves"
+    assert client.get("/api/v1/parts", headers=h).json()["total"] == 0

@@ -131,5 +131,5 @@ def test_serve_refuses_the_placeholder_secret(monkeypatch, tmp_path, capsys):
 def test_parser_knows_every_documented_command():
     parser = build_parser()
     for argv in (["serve", "--host", "0.0.0.0", "--port", "9000", "--workers", "2"], ["demo"], ["migrate"],
-                 ["user", "add", "x", "--role", "viewer", "--password-stdin"], ["token", "create", "t", "--user", "x"]):
+                 ["user", "add", "x", "--role", "viewer", "--password-stdin"], ["token", "create", "x", "--label", "ci"]):
         assert parser.parse_args(argv).func is not None

@@ -127,7 +127,10 @@ def test_a_new_engine_version_computes_again(running_app, people, board, monkeyp
     assert len(versions) == 2 and versions[1].endswith("+next")
 
 
-def test_an_analysis_that_raises_fails_its_job_and_the_worker_goes_on(running_app, people, board):
+def test_an_analysis_that_raises_fails_its_job_and_the_worker_goes_on(running_app, people, board, caplog):
+    import logging
+
+    caplog.set_level(logging.INFO, logger="railsign")
     app, client = running_app
     h = people.headers("designer")
     broken = _new_rail(client, people, board, name="BROKEN")
@@ -142,6 +145,8 @@ def test_an_analysis_that_raises_fails_its_job_and_the_worker_goes_on(running_ap
     assert bad["state"] == "failed"
     assert "c_nom" in bad["error"]
     assert bad["attempts"] == 1  # an error of the analysis itself is not retried
+    assert any(r.getMessage().startswith(f"job {bad['id']} failed after") and "c_nom" in r.getMessage()
+               for r in caplog.records)
     good = _new_rail(client, people, board, name="GOOD")
     ok = _wait_job(client, h, _jobs_of(app.state.sessionmaker, good["id"])[0].id)
     assert ok["state"] == "done"
@@ -241,3 +246,34 @@ def test_jobs_of_another_team_are_not_found(client, people, board):
     assert client.delete(f"/api/v1/jobs/{job_id}", headers=people.headers("outsider")).status_code == 404
     assert client.post(f"/api/v1/rails/{rail['id']}/analyses", json={},
                        headers=people.headers("outsider")).status_code == 404
+
+
+def test_a_running_analysis_does_not_block_the_web_server(running_app, people, board):
+    app, client = running_app
+    h = people.headers("designer")
+    rail = _new_rail(client, people, board)
+    _wait_job(client, h, _jobs_of(app.state.sessionmaker, rail["id"])[0].id)
+    r = client.post(f"/api/v1/rails/{rail['id']}/analyses", json={"monte_carlo": 100_000, "seed": 2}, headers=h)
+    job_id = r.json()["id"]
+    _wait_job(client, h, job_id, states=("running",))
+    worst = 0.0
+    for _ in range(10):
+        t0 = time.perf_counter()
+        assert client.get("/healthz").status_code == 200
+        worst = max(worst, time.perf_counter() - t0)
+    client.delete(f"/api/v1/jobs/{job_id}", headers=h)
+    assert worst < 0.5, f"a health check took {worst * 1000:.0f} ms while an analysis ran"
+
+
+def test_job_start_and_finish_are_logged_with_id_and_duration(running_app, people, board, caplog):
+    import logging
+
+    app, client = running_app
+    caplog.set_level(logging.INFO, logger="railsign")
+    rail = _new_rail(client, people, board)
+    job_id = _jobs_of(app.state.sessionmaker, rail["id"])[0].id
+    _wait_job(client, people.headers("viewer"), job_id)
+    time.sleep(0.1)
+    messages = [r.getMessage() for r in caplog.records if r.name.startswith("railsign")]
+    assert any(m.startswith(f"job {job_id} started") for m in messages), messages
+    assert any(m.startswith(f"job {job_id} done in") and " ms" in m for m in messages), messages

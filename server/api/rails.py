@@ -27,8 +27,8 @@ def list_rails(session: SessionDep, actor: CurrentActor, page: PageDep, product_
                board_id: int | None = None, mode: Mode | None = None,
                q: Annotated[str | None, Query(description="text in the rail name")] = None) -> dict:
     rows, total = rails.list_rails(session=session, actor=actor, product_id=product_id, board_id=board_id,
-                                   mode=mode, q=q, limit=page.limit, offset=page.offset)
-    return page.answer([rails.rail_dict(session, r, head, with_document=False) for r, head in rows], total)
+                                   mode=mode, q=q, limit=page.limit, offset=page.offset, with_documents=False)
+    return page.answer(rails.rail_dicts(session, rows), total)
 
 
 @router.post("", status_code=201)

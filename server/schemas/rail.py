@@ -231,9 +231,12 @@ class RailDocument(_Section):
         if self.fet.tj_max <= self.environment.t_ambient:
             _fail("fet.tj_max", f"fet.tj_max ({self.fet.tj_max:g} °C) must be above environment.t_ambient "
                   f"({self.environment.t_ambient:g} °C)")
-        if self.load.v_on >= self.supply.v_max:
-            _fail("load.v_on", f"load.v_on ({self.load.v_on:g} V) must be below supply.v_max ({self.supply.v_max:g} V), "
-                  "or the load never turns on")
+        if self.load.v_on >= self.supply.v_min:
+            _fail("load.v_on", f"load.v_on ({self.load.v_on:g} V) must be below supply.v_min ({self.supply.v_min:g} V), "
+                  "or the load never turns on at the low end of the supply")
+        if self.fet.soa.t_case >= self.fet.tj_max:
+            _fail("fet.soa.t_case", f"fet.soa.t_case ({self.fet.soa.t_case:g} °C) must be below fet.tj_max "
+                  f"({self.fet.tj_max:g} °C): the SOA curves are measured below the junction limit")
         return self
 
 

@@ -125,9 +125,35 @@ def parse_model(model: type[M], data: Any, what: str, prefix: str = "") -> M:
 
 
 def parse_rail_document(data: Any, prefix: str = "") -> RailDocument:
-    """Validate a rail document; raise :class:`DocumentInvalid` naming every bad field."""
-    return parse_model(RailDocument, data, "rail document", prefix)
+    """Validate a rail document; raise :class:`DocumentInvalid` naming every bad field.
+
+    The schema's own checks come first (their messages name units and values); then the
+    analysis core reads the normalised document with its own validation, so that no
+    document is stored that the analysis would refuse.
+    """
+    from server.analysis import DocumentError
+    from server.analysis.document import read_rail
+    from server.schemas.rail import normalize
+
+    document = parse_model(RailDocument, data, "rail document", prefix)
+    try:
+        read_rail(normalize(document))
+    except DocumentError as exc:
+        field = f"{prefix}.{exc.field}" if prefix else exc.field
+        raise DocumentInvalid([FieldError(field, exc.reason)], "rail document") from None
+    return document
 
 
 def parse_fet(data: Any, prefix: str = "") -> Fet:
-    return parse_model(Fet, data, "part", prefix)
+    """Validate a FET (part) document: the schema, then the analysis core's own reading of it."""
+    from server.analysis import DocumentError
+    from server.analysis.document import read_fet
+
+    fet = parse_model(Fet, data, "part", prefix)
+    try:
+        read_fet(fet.model_dump(mode="json"))
+    except DocumentError as exc:
+        field = exc.field.removeprefix("fet").lstrip(".")
+        field = ".".join(p for p in (prefix, field) if p)
+        raise DocumentInvalid([FieldError(field, exc.reason)], "part") from None
+    return fet

@@ -24,16 +24,17 @@ class Permission:
     ANALYZE = "analyze"      # queue analyses
     REVIEW = "review"        # approve revisions, waive checks
     RISK = "risk"            # the managers' risk view and audit export
+    ADVANCE = "advance"      # move rails along the team's workflow (each transition names its roles)
     ADMIN = "admin"          # users, teams, workflows
 
 
 ROLE_PERMISSIONS: dict[str, frozenset[str]] = {
     Role.viewer.value: frozenset({Permission.READ}),
-    Role.designer.value: frozenset({Permission.READ, Permission.EDIT, Permission.ANALYZE}),
-    Role.reviewer.value: frozenset({Permission.READ, Permission.ANALYZE, Permission.REVIEW}),
-    Role.manager.value: frozenset({Permission.READ, Permission.RISK}),
+    Role.designer.value: frozenset({Permission.READ, Permission.EDIT, Permission.ANALYZE, Permission.ADVANCE}),
+    Role.reviewer.value: frozenset({Permission.READ, Permission.ANALYZE, Permission.REVIEW, Permission.ADVANCE}),
+    Role.manager.value: frozenset({Permission.READ, Permission.RISK, Permission.ADVANCE}),
     Role.admin.value: frozenset({Permission.READ, Permission.EDIT, Permission.ANALYZE, Permission.RISK,
-                                 Permission.ADMIN}),
+                                 Permission.ADMIN, Permission.ADVANCE}),
 }
 
 

@@ -5,7 +5,7 @@ from __future__ import annotations
 from typing import Any
 
 __all__ = ["ServiceError", "NotFound", "Forbidden", "Conflict", "Invalid", "PreconditionRequired",
-           "Unauthenticated", "TooManyRequests"]
+           "Unauthenticated", "TooManyRequests", "CsrfFailed"]
 
 
 class ServiceError(Exception):
@@ -26,6 +26,10 @@ class Unauthenticated(ServiceError):
 
 class Forbidden(ServiceError):
     status, code = 403, "forbidden"
+
+
+class CsrfFailed(Forbidden):
+    code = "csrf_failed"
 
 
 class NotFound(ServiceError):

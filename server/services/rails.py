@@ -14,7 +14,7 @@ from typing import Any
 
 from sqlalchemy import func, select
 from sqlalchemy.exc import IntegrityError
-from sqlalchemy.orm import Session
+from sqlalchemy.orm import Session, defer
 
 from server.db import begin_write
 from server.models import Board, Part, PartRevision, Rail, RailRevision, utcnow
@@ -27,7 +27,7 @@ from server.services.catalog import get_board
 from server.services.errors import Conflict, Invalid, NotFound, PreconditionRequired
 from server.services.parts import get_part_revision
 
-__all__ = ["KEEP_PART", "PartRef", "normalize_document", "revision_dict", "rail_dict", "list_rails", "get_rail",
+__all__ = ["KEEP_PART", "PartRef", "normalize_document", "revision_dict", "rail_dict", "rail_dicts", "list_rails", "get_rail",
            "get_revision", "list_revisions", "create_rail", "save_rail", "delete_rail", "diff_documents",
            "diff_revisions",
            "part_status"]
@@ -66,14 +66,20 @@ def revision_dict(rev: RailRevision, *, with_document: bool = True) -> dict:
     return out
 
 
+def _part_statuses(session: Session, revs: list[RailRevision]) -> dict[int, dict]:
+    """Pinned part of each revision (by part revision id), with two queries for any number of rails."""
+    ids = {r.part_revision_id for r in revs if r.part_revision_id is not None}
+    if not ids:
+        return {}
+    rows = session.execute(select(PartRevision.id, PartRevision.n, Part.id, Part.name, Part.head_n)
+                           .join(Part, Part.id == PartRevision.part_id).where(PartRevision.id.in_(ids))).all()
+    return {rid: {"id": pid, "name": name, "pinned_revision": n, "latest_revision": head_n,
+                  "newer_available": head_n > n} for rid, n, pid, name, head_n in rows}
+
+
 def part_status(session: Session, rev: RailRevision) -> dict | None:
     """The pinned part of a revision and whether the library holds a newer revision of it."""
-    if rev.part_revision_id is None:
-        return None
-    pinned = rev.part_revision or session.get(PartRevision, rev.part_revision_id)
-    part = session.get(Part, pinned.part_id)
-    return {"id": part.id, "name": part.name, "pinned_revision": pinned.n, "latest_revision": part.head_n,
-            "newer_available": part.head_n > pinned.n}
+    return _part_statuses(session, [rev]).get(rev.part_revision_id) if rev.part_revision_id else None
 
 
 def _summary(doc: dict) -> dict:
@@ -81,22 +87,41 @@ def _summary(doc: dict) -> dict:
             "fet": doc["fet"]["name"]}
 
 
-def rail_dict(session: Session, rail: Rail, head: RailRevision, *, with_document: bool = True) -> dict:
-    out = {"id": rail.id, "board_id": rail.board_id, "product_id": rail.board.product_id, "name": rail.name,
+def _rail_dict(rail: Rail, head: RailRevision, product_id: int, part: dict | None, with_document: bool) -> dict:
+    out = {"id": rail.id, "board_id": rail.board_id, "product_id": product_id, "name": rail.name,
            "mode": rail.mode, "created_at": rail.created_at.isoformat(), "updated_at": rail.updated_at.isoformat(),
-           "head": revision_dict(head, with_document=False), "summary": _summary(head.document),
-           "part": part_status(session, head)}
+           "head": revision_dict(head, with_document=False), "summary": rail.summary, "part": part}
     if with_document:
         out["document"] = head.document
     return out
 
 
+def rail_dict(session: Session, rail: Rail, head: RailRevision, *, with_document: bool = True) -> dict:
+    return _rail_dict(rail, head, rail.board.product_id, part_status(session, head), with_document)
+
+
+def rail_dicts(session: Session, rows: list[tuple[Rail, RailRevision]], *, with_document: bool = False) -> list[dict]:
+    """``rail_dict`` for a list of (rail, head) pairs, with a fixed number of queries."""
+    parts = _part_statuses(session, [head for _, head in rows])
+    board_ids = {rail.board_id for rail, _ in rows}
+    products = dict(session.execute(select(Board.id, Board.product_id).where(Board.id.in_(board_ids))).all()) \
+        if board_ids else {}
+    return [_rail_dict(rail, head, products[rail.board_id], parts.get(head.part_revision_id), with_document)
+            for rail, head in rows]
+
+
 def list_rails(*, session: Session, actor: Actor, product_id: int | None = None, board_id: int | None = None,
-               mode: str | None = None, q: str | None = None, limit: int = 50,
-               offset: int = 0) -> tuple[list[tuple[Rail, RailRevision]], int]:
-    """Rails with their head revisions, filtered and paginated, ordered by board then name."""
+               mode: str | None = None, q: str | None = None, limit: int = 50, offset: int = 0,
+               with_documents: bool = True) -> tuple[list[tuple[Rail, RailRevision]], int]:
+    """Rails with their head revisions, filtered and paginated, ordered by board then name.
+
+    ``with_documents=False`` leaves the revisions' documents unread (``Rail.summary`` has
+    the figures a list shows); reading ``head.document`` then loads it on demand.
+    """
     stmt = scoped_rails(select(Rail, RailRevision).join(
         RailRevision, (RailRevision.rail_id == Rail.id) & (RailRevision.n == Rail.head_n)), actor)
+    if not with_documents:
+        stmt = stmt.options(defer(RailRevision.document))
     if product_id is not None:
         if actor.all_teams:
             stmt = stmt.join(Board, Board.id == Rail.board_id)
@@ -168,7 +193,7 @@ def create_rail(*, session: Session, actor: Actor, board_id: int, document: Any,
     board = get_board(session=session, actor=actor, board_id=board_id)
     part_rev = _resolve_part(session, actor, part)
     doc = _document_with_part(document, part_rev)
-    rail = Rail(board_id=board.id, name=doc["name"], mode=doc["switch"]["mode"], head_n=1,
+    rail = Rail(board_id=board.id, name=doc["name"], mode=doc["switch"]["mode"], head_n=1, summary=_summary(doc),
                 head_sha256=document_sha256(doc), part_id=part_rev.part_id if part_rev else None)
     session.add(rail)
     try:
@@ -219,6 +244,7 @@ def save_rail(*, session: Session, actor: Actor, rail_id: int, document: Any, ba
     before = {"n": head.n, "sha256": head.sha256}
     rail.head_n, rail.head_sha256 = head.n + 1, sha
     rail.name, rail.mode, rail.updated_at = doc["name"], doc["switch"]["mode"], utcnow()
+    rail.summary = _summary(doc)
     rail.part_id = part_rev.part_id if part_rev else None
     rev = RailRevision(rail_id=rail.id, n=rail.head_n, document=doc, sha256=sha, part_revision_id=part_rev_id,
                        author_id=actor.user_id, author_name=actor.name, message=message)

@@ -10,10 +10,12 @@ from server.auth import hash_password, new_token, token_digest
 from server.models import ApiToken, Role, Team, TeamMember, User, utcnow
 from server.services.access import Actor, Permission
 from server.services.audit import record
+from server.services import workflows
 from server.services.errors import Conflict, Forbidden, Invalid, NotFound
 
 __all__ = ["ROLES", "user_dict", "get_or_create_team", "create_user", "set_role", "list_users", "get_user_by_name",
-           "create_token", "revoke_token", "list_tokens", "add_to_team"]
+           "create_token", "revoke_token", "list_tokens", "add_to_team", "get_user", "update_user", "me_dict",
+           "token_dict"]
 
 ROLES = [r.value for r in Role]
 
@@ -38,6 +40,7 @@ def get_or_create_team(*, session: Session, actor: Actor, name: str) -> Team:
         session.flush()
         record(session, actor, action="create", object_type="team", object_id=team.id, object_repr=name,
                after={"name": name})
+        workflows.ensure_default(session, actor, team)
     return team
 
 
@@ -45,9 +48,8 @@ def create_user(*, session: Session, actor: Actor, username: str, role: str, pas
                 display_name: str = "", teams: list[str] = ()) -> User:
     actor.require(Permission.ADMIN)
     _check_role(role)
-    if password is not None and len(password) < 8:
-        raise Invalid("a password needs at least 8 characters",
-                      details=[{"field": "password", "message": "needs at least 8 characters"}])
+    if password is not None:
+        _check_password(password)
     user = User(username=username, display_name=display_name or username, role=role,
                 password_hash=hash_password(password) if password else None)
     session.add(user)
@@ -134,7 +136,70 @@ def revoke_token(*, session: Session, actor: Actor, token_id: int) -> ApiToken:
         raise NotFound(f"no token {token_id}")
     if token.revoked_at is None:
         token.revoked_at = utcnow()
+        owner = session.get(User, token.user_id)
         record(session, actor, action="revoke", object_type="api_token", object_id=token.id,
-               object_repr=token.name, before={"revoked": False}, after={"revoked": True})
+               object_repr=f"{owner.username if owner else token.user_id}/{token.name}", before={"revoked": False},
+               after={"revoked": True})
     session.commit()
     return token
+
+
+def _check_password(password: str) -> None:
+    if len(password) < 8:
+        raise Invalid("a password needs at least 8 characters",
+                      details=[{"field": "password", "message": "needs at least 8 characters"}])
+
+
+def get_user(*, session: Session, actor: Actor, user_id: int) -> User:
+    actor.require(Permission.ADMIN)
+    user = session.get(User, user_id)
+    if user is None:
+        raise NotFound(f"no user {user_id}")
+    return user
+
+
+def update_user(*, session: Session, actor: Actor, user_id: int, role: str | None = None,
+                display_name: str | None = None, active: bool | None = None, password: str | None = None) -> User:
+    """Change a user's role, name, whether they may log in, or password (admins). The audit shows no password."""
+    actor.require(Permission.ADMIN)
+    user = get_user(session=session, actor=actor, user_id=user_id)
+    before = user_dict(user)
+    if role is not None:
+        _check_role(role)
+        user.role = role
+    if display_name is not None:
+        user.display_name = display_name
+    if active is not None:
+        if not active and user.id == actor.user_id:
+            raise Conflict("you cannot disable your own account")
+        user.active = active
+    if password is not None:
+        _check_password(password)
+        user.password_hash = hash_password(password)
+    after = user_dict(user)
+    if password is not None:
+        after["password"] = "changed"
+    record(session, actor, action="update", object_type="user", object_id=user.id, object_repr=user.username,
+           before=before, after=after)
+    session.commit()
+    return user
+
+
+def me_dict(actor: Actor, *, auth: str | None = None, csrf_token: str | None = None) -> dict:
+    """Who the actor is, their teams (with ids) and what their role allows."""
+    from server.services.access import ROLE_PERMISSIONS
+
+    user = actor.user
+    out = {"id": actor.user_id, "username": actor.name, "display_name": user.display_name if user else actor.name,
+           "role": actor.role, "permissions": sorted(ROLE_PERMISSIONS.get(actor.role, ())),
+           "teams": sorted(({"id": t.id, "name": t.name} for t in user.teams), key=lambda t: t["name"]) if user else [],
+           "auth": auth}
+    if csrf_token:
+        out["csrf_token"] = csrf_token
+    return out
+
+
+def token_dict(t: ApiToken, owner: str | None = None) -> dict:
+    return {"id": t.id, "name": t.name, "user_id": t.user_id, **({"user": owner} if owner else {}),
+            "created_at": t.created_at.isoformat(), "last_used_at": t.last_used_at.isoformat() if t.last_used_at else None,
+            "revoked": t.revoked_at is not None, "revoked_at": t.revoked_at.isoformat() if t.revoked_at else None}

@@ -46,7 +46,7 @@ def served(tmp_path_factory):
     settings = make_settings(f"sqlite:///{path}", worker_threads=2)
     migrate.upgrade(settings)
     app = create_app(settings)
-    people = People(app.state.sessionmaker)
+    people = People(app.state.sessionmaker, passwords=True)
     ids = seed_board(app.state.sessionmaker, analysed=2, unanalysed=0)
     port = _free_port()
     server = uvicorn.Server(uvicorn.Config(app, host="127.0.0.1", port=port, log_level="warning"))
@@ -71,16 +71,24 @@ def browser():
         b.close()
 
 
+def log_in(pg, username: str, next_path: str = "/") -> None:
+    """Log in through the login page, as a person would."""
+    pg.goto(f"/login?next={next_path}")
+    pg.fill("#username", username)
+    pg.fill("#password", f"{username}-password")
+    pg.click("button[type=submit]")
+    pg.wait_for_url(re.compile(re.escape(next_path) + "$"))
+
+
 @pytest.fixture
 def page(browser, served):
-    """A logged-in page (the signed session cookie of user 'designer')."""
+    """A page logged in as 'designer' through the login form."""
     context = browser.new_context(viewport={"width": 1280, "height": 900}, base_url=served["base"])
-    value, _ = served["app"].state.session_cookie.dump(served["people"].ids["designer"])
-    context.add_cookies([{"name": "railsign_session", "value": value, "url": served["base"]}])
     context.set_default_timeout(TIMEOUT_MS)
     pg = context.new_page()
     errors: list[str] = []
     pg.on("pageerror", lambda e: errors.append(str(e)))
+    log_in(pg, "designer")
     yield pg
     context.close()
     assert errors == [], f"script errors in the page: {errors}"
@@ -107,6 +115,24 @@ def _fill_rail_form(pg, values: dict[str, str]) -> None:
                 pg.select_option(f"#{f.html_id}", value)
         else:
             pg.fill(f"#{f.html_id}", value)
+
+
+def test_a_page_asks_for_a_login_and_returns_after_it(browser, served):
+    context = browser.new_context(base_url=served["base"])
+    pg = context.new_page()
+    board_id = served["ids"]["board_id"]
+    pg.goto(f"/boards/{board_id}")
+    assert "/login" in pg.url
+    pg.fill("#username", "viewer")
+    pg.fill("#password", "wrong-password")
+    pg.click("button[type=submit]")
+    assert pg.locator("[role=alert]").count() == 1
+    pg.fill("#password", "viewer-password")
+    pg.click("button[type=submit]")
+    pg.wait_for_url(re.compile(rf"/boards/{board_id}$"))
+    assert pg.locator("#analyse-board").count() == 0  # a viewer reads, and is offered nothing to change
+    shot(pg, "login-then-board-as-viewer")
+    context.close()
 
 
 def test_create_a_rail_through_the_form_see_a_refusal_then_every_plot(page, served):

@@ -85,7 +85,8 @@ def site(client, app, people, session_factory):
     ids = seed_board(session_factory, analysed=2, unanalysed=1, monte_carlo=True)
     csrf = log_in(client, app, people.ids["admin"])
     return client, csrf, {"product_id": ids["product_id"], "board_id": ids["board_id"],
-                          "rail_id": ids["rail_ids"][0], "part_id": ids["part_id"]}, ids
+                          "rail_id": ids["rail_ids"][0], "part_id": ids["part_id"],
+                          "team_id": people.team_ids["alpha"]}, ids
 
 
 def test_every_page_is_labelled_ordered_and_says_its_verdicts(site, app):
@@ -97,6 +98,9 @@ def test_every_page_is_labelled_ordered_and_says_its_verdicts(site, app):
              f"/boards/{ids['board_id']}/rails/new?copy_from={ids['rail_ids'][0]}",
              f"/boards/{ids['board_id']}?verdict=fail", f"/rails/{ids['rail_ids'][0]}/history?from_n=1&to_n=1"]
     report = {}
+    anonymous = client.__class__(client.app)
+    login = anonymous.get("/login")
+    assert login.status_code == 200 and problems_of(login.text) == []
     for url in urls:
         r = client.get(url)
         assert r.status_code == 200, f"{url}: {r.status_code} {r.text[:300]}"

@@ -1,0 +1,47 @@
+"""railsign analysis: the pure computation of a switched rail's protection margins.
+
+NumPy and SciPy only; no web, database, file or network I/O. Entry points:
+
+analyze_rail(doc, *, rules=None, corners=False, monte_carlo=0, seed=0,
+             distribution="uniform", waveforms=True, progress=None, headroom=True) -> dict
+    Every figure, check and verdict of DESIGN.md section 4 for a rail document.
+format_report(result, doc) -> str
+    The result as a readable text report.
+derated_soa_curves(fet, t_ambient), soa_allowed_time(fet, v_ds, i_d, t_ambient)
+    SOA helpers for the chart pages.
+zth(stages, t)
+    Foster transient thermal impedance.
+e12_values(), e_series(name), values_between(lo, hi, series), round_to_series(x, ...)
+    IEC 60063 preferred values.
+ENGINE_VERSION, DEFAULT_RULES, RULE_DESCRIPTIONS, CHECKS
+    Versions, team rules with their meaning and basis, and the check catalogue.
+DocumentError (a ValueError with ``.field``), AnalysisError
+"""
+
+from .checks import CHECKS
+from .document import DEFAULT_RULES, RULE_DESCRIPTIONS
+from .engine import CAUTION, ENGINE_VERSION, analyze_rail
+from .errors import AnalysisError, DocumentError
+from .eseries import e12_values, e_series, round_to_series, values_between
+from .report import format_report
+from .soa import derated_soa_curves, soa_allowed_time
+from .thermal import zth
+
+__all__ = [
+    "ENGINE_VERSION",
+    "DEFAULT_RULES",
+    "RULE_DESCRIPTIONS",
+    "CHECKS",
+    "CAUTION",
+    "AnalysisError",
+    "DocumentError",
+    "analyze_rail",
+    "format_report",
+    "derated_soa_curves",
+    "soa_allowed_time",
+    "zth",
+    "e12_values",
+    "e_series",
+    "values_between",
+    "round_to_series",
+]

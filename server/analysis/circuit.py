@@ -1,0 +1,223 @@
+"""The switched-rail circuit as rows of parameters, one row per corner or sample.
+
+Provides
+--------
+Circuit
+    Per-row circuit parameters (supply, series R and L, capacitor, current limit) and the
+    parameters all rows share (load model, switch mode, FET, Foster network).
+circuit_rows(rail, *, v_s, c, i_limit)
+    Build a `Circuit` for a rail with per-row supply voltage, capacitance and current limit.
+
+The circuit: an ideal supply v_s with r_source and l_source, the path (r, l), the switch,
+and at the output a capacitor c with series esr in parallel with the load. The load draws
+nothing below v_on; above it, resistive: v / R with R = v_nom / i_nom; constant current:
+i_nom; constant power: P / v with P = v_nom * i_nom.
+
+Every method here is a few lines of circuit algebra: Kirchhoff's laws and Ohm's law, the
+quadratic of a constant-power load behind a resistance (any circuit-analysis textbook, e.g.
+C. K. Alexander and M. N. O. Sadiku, "Fundamentals of Electric Circuits", chapters 2-4).
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, field, replace
+
+import numpy as np
+
+from .document import Rail
+from .thermal import foster_arrays, rds_at
+
+__all__ = ["NO_LIMIT", "R_OFF", "Circuit", "circuit_rows"]
+
+NO_LIMIT = 1e30  # A or W: stands for "no limit" (kept finite so arithmetic stays clean)
+R_OFF = 1e6  # ohm: switch resistance at the start of a hard turn-on ramp
+
+
+@dataclass(frozen=True)
+class Circuit:
+    """Rows of circuit parameters (arrays of shape (n,)) and shared parameters.
+
+    Attributes (units)
+    ------------------
+    v_s : supply voltage, V.  r : r_source + path r, ohm.  l : l_source + path l, H.
+    c : output capacitance, F.  esr : capacitor series resistance, ohm.
+    i_lim : current limit, A (``NO_LIMIT`` where there is none).
+    load, i_nom (A), v_on (V), v_nom (V): the load model.
+    mode, t_on (s), dvdt (V/s), p_lim (W): the switch.
+    rds_on (ohm at 25 degC), alpha (1/K), r_th (K/W), tau_th (s), t_amb (degC): the FET.
+    """
+
+    v_s: np.ndarray
+    r: np.ndarray
+    l: np.ndarray
+    c: np.ndarray
+    esr: np.ndarray
+    i_lim: np.ndarray
+    load: str
+    i_nom: float
+    v_on: float
+    v_nom: float
+    mode: str
+    t_on: float
+    dvdt: float
+    p_lim: float
+    rds_on: float
+    alpha: float
+    r_th: np.ndarray = field(repr=False)
+    tau_th: np.ndarray = field(repr=False)
+    t_amb: float = 25.0
+
+    @property
+    def n(self) -> int:
+        return self.v_s.shape[0]
+
+    @property
+    def has_limit(self) -> bool:
+        """Whether the switch can regulate (slew, a current limit or a power limit)."""
+        return self.mode in ("slew", "power_limit") or bool(np.any(self.i_lim < NO_LIMIT))
+
+    def take(self, rows: np.ndarray) -> "Circuit":
+        """The same circuit restricted to ``rows`` (index or boolean array)."""
+        return replace(
+            self,
+            v_s=self.v_s[rows], r=self.r[rows], l=self.l[rows], c=self.c[rows],
+            esr=self.esr[rows], i_lim=self.i_lim[rows],
+        )
+
+    # -- load ---------------------------------------------------------------
+
+    @property
+    def r_load(self) -> float:
+        """Resistive load, ohm."""
+        return self.v_nom / self.i_nom if self.i_nom > 0 else np.inf
+
+    @property
+    def p_load(self) -> float:
+        """Constant-power load, W."""
+        return self.v_nom * self.i_nom
+
+    def load_current(self, v):
+        """Load current at output voltage ``v`` (V), A."""
+        v = np.asarray(v, dtype=float)
+        if self.load == "none":
+            return np.zeros_like(v)
+        on = v > self.v_on
+        if self.load == "resistive":
+            return np.where(on, v / self.r_load, 0.0)
+        if self.load == "constant_current":
+            return np.where(on, self.i_nom, 0.0)
+        return np.where(on, self.p_load / np.maximum(v, self.v_on), 0.0)
+
+    def load_is_on(self, v):
+        """Whether the load conducts at ``v`` (V); always for a continuous load."""
+        if self.load == "none" or (self.load == "resistive" and self.v_on == 0.0):
+            return np.ones(np.shape(v), dtype=bool)
+        return v > self.v_on
+
+    def load_max_current(self, v_final):
+        """Largest load current between v_on and ``v_final`` (V), A."""
+        if self.load == "none":
+            return np.zeros_like(v_final)
+        if self.load == "resistive":
+            return v_final / self.r_load
+        if self.load == "constant_current":
+            return np.full_like(v_final, self.i_nom)
+        return np.full_like(v_final, self.p_load / self.v_on)
+
+    # -- DC operating point ---------------------------------------------------
+
+    def final_output(self, tj) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+        """DC operating point with the switch fully on at junction temperature ``tj``.
+
+        Parameters
+        ----------
+        tj : float or ndarray
+            Junction temperature, degC (sets Rds(on)).
+
+        Returns
+        -------
+        v_out : ndarray
+            Output voltage, V.
+        i : ndarray
+            Load current, A.
+        ok : ndarray of bool
+            False where no operating point exists (a constant-power load asking for
+            more than v_s^2 / (4 R), or a load that would sit below its v_on).
+        """
+        rt = self.r + rds_at(self.rds_on, self.alpha, tj)
+        v = self.v_s
+        if self.load == "none":
+            return v.copy(), np.zeros_like(v), np.ones(v.shape, bool)
+        if self.load == "resistive":
+            i = v / (rt + self.r_load)
+        elif self.load == "constant_current":
+            i = np.full_like(v, self.i_nom)
+        else:
+            disc = v * v - 4.0 * rt * self.p_load
+            root = np.sqrt(np.maximum(disc, 0.0))
+            i = 2.0 * self.p_load / (v + root)  # smaller root, stable form
+            ok_p = disc >= 0.0
+            vo = v - rt * i
+            return vo, i, ok_p & (vo > self.v_on)
+        vo = v - rt * i
+        return vo, i, vo > self.v_on
+
+    def limit_reference(self, v_out) -> np.ndarray:
+        """Current the switch allows while regulating, at output voltage ``v_out``, A."""
+        v_out = np.asarray(v_out, dtype=float)
+        ref = np.broadcast_to(self.i_lim, v_out.shape[-1:]) * np.ones_like(v_out)
+        if self.mode == "slew":
+            ref = np.minimum(ref, self.c * self.dvdt + self.load_current(v_out))
+        elif self.mode == "power_limit":
+            vd = np.maximum(self.v_s - v_out, 0.0)
+            disc = vd * vd - 4.0 * self.r * self.p_lim
+            ip = np.where(disc > 0, 2.0 * self.p_lim / (vd + np.sqrt(np.maximum(disc, 0.0))), NO_LIMIT)
+            ref = np.minimum(ref, ip)
+        return ref
+
+
+def circuit_rows(rail: Rail, *, v_s, c, i_limit=None) -> Circuit:
+    """Build the circuit rows of a rail.
+
+    Parameters
+    ----------
+    rail : Rail
+    v_s : array_like, shape (n,)
+        Supply voltage per row, V.
+    c : array_like, shape (n,)
+        Output capacitance per row, F.
+    i_limit : array_like, shape (n,), optional
+        Current limit per row, A (default: the rail's nominal limit, or none).
+
+    Returns
+    -------
+    Circuit
+    """
+    v_s = np.atleast_1d(np.asarray(v_s, dtype=float))
+    n = v_s.shape[0]
+    full = lambda x: np.full(n, float(x))  # noqa: E731
+    sw = rail.switch
+    if i_limit is None:
+        i_limit = full(sw.i_limit if sw.i_limit is not None else NO_LIMIT)
+    r_th, tau_th = foster_arrays(rail.fet.zth)
+    return Circuit(
+        v_s=v_s,
+        r=full(rail.supply.r_source + rail.path.r),
+        l=full(rail.supply.l_source + rail.path.l),
+        c=np.broadcast_to(np.asarray(c, dtype=float), (n,)).copy(),
+        esr=full(rail.load.esr),
+        i_lim=np.broadcast_to(np.asarray(i_limit, dtype=float), (n,)).copy(),
+        load=rail.load.model,
+        i_nom=rail.load.i_nom,
+        v_on=rail.load.v_on,
+        v_nom=rail.supply.v_nom,
+        mode=sw.mode,
+        t_on=sw.t_on,
+        dvdt=sw.dvdt or 0.0,
+        p_lim=sw.p_limit if sw.p_limit is not None else NO_LIMIT,
+        rds_on=rail.fet.rds_on,
+        alpha=rail.fet.rds_on_alpha,
+        r_th=r_th,
+        tau_th=tau_th,
+        t_amb=rail.t_ambient,
+    )

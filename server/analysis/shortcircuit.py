@@ -1,0 +1,73 @@
+"""Output short circuit while the switch limits: how long the FET survives it.
+
+Provides
+--------
+short_circuit(rail, *, v_ds, i_limit, t_fault)
+    V_ds, I, P, t_soa, t_thermal, t_allow and margin for rows of (v_ds, i_limit, t_fault).
+has_limit(rail)
+    Whether the switch limits a short-circuit current at all.
+
+Method
+------
+With the output shorted the whole supply stands across the regulating FET: V_ds = v_max
+(DESIGN.md section 4; conservative: the drop in the source and path resistance is not
+subtracted), I = i_limit at its high tolerance (power limit: I = min(i_limit, p_limit /
+V_ds), so P = p_limit while the power limit binds). Two independent limits: the derated
+SOA curves (`soa.soa_allowed_time`, measured curves include the hot-spot instability at
+high V_ds that a thermal model misses) and the Foster network (`thermal.time_to_rise`,
+time for Zth(t) P to reach tj_max - t_ambient). t_allow is the smaller one and
+margin = t_allow / t_fault_max.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+
+from .circuit import NO_LIMIT
+from .document import Rail
+from .soa import soa_allowed_time
+from .thermal import foster_arrays, time_to_rise
+
+__all__ = ["has_limit", "short_circuit"]
+
+
+def has_limit(rail: Rail) -> bool:
+    """Whether the switch limits the current into a shorted output."""
+    return rail.switch.i_limit is not None
+
+
+def short_circuit(rail: Rail, *, v_ds, i_limit, t_fault) -> dict:
+    """Short-circuit figures for rows of operating conditions.
+
+    Parameters
+    ----------
+    rail : Rail
+    v_ds : ndarray, shape (n,)
+        Voltage across the FET, V (normally v_max).
+    i_limit : ndarray, shape (n,)
+        Current limit, A (normally at its high tolerance).
+    t_fault : ndarray, shape (n,)
+        Time until the fault timer turns the FET off, s (``inf`` without a timer).
+
+    Returns
+    -------
+    dict of ndarray
+        ``v_ds`` (V), ``i`` (A), ``p`` (W), ``t_soa``, ``t_thermal``, ``t_allow`` (s,
+        ``inf`` = indefinitely), ``margin`` (t_allow / t_fault; ``inf`` when the FET
+        survives indefinitely, 0 when it does not and nothing turns it off).
+    """
+    v = np.atleast_1d(np.asarray(v_ds, dtype=float))
+    i = np.broadcast_to(np.asarray(i_limit, dtype=float), v.shape).copy()
+    if rail.switch.mode == "power_limit" and rail.switch.p_limit is not None:
+        i = np.minimum(i, rail.switch.p_limit / v)
+    i = np.minimum(i, NO_LIMIT)
+    p = v * i
+    fet = rail.fet
+    t_soa = soa_allowed_time(fet, v, i, rail.t_ambient)
+    r, tau = foster_arrays(fet.zth)
+    t_th = time_to_rise(r, tau, p, fet.tj_max - rail.t_ambient)
+    t_allow = np.minimum(t_soa, t_th)
+    tf = np.broadcast_to(np.asarray(t_fault, dtype=float), v.shape)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        margin = np.where(np.isinf(t_allow), np.inf, np.where(np.isinf(tf), 0.0, t_allow / tf))
+    return {"v_ds": v, "i": i, "p": p, "t_soa": t_soa, "t_thermal": t_th, "t_allow": t_allow, "margin": margin}

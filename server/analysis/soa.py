@@ -1,0 +1,290 @@
+"""Safe operating area (SOA) of the FET: interpolation, temperature derating, pulse checks.
+
+Provides
+--------
+curve_current(curve, v_ds)
+    Drain current a single SOA curve allows at ``v_ds`` (no derating).
+derating_factor(fet, t_start)
+    (tj_max - T) / (tj_max - t_case), clipped to [0, 1].
+allowed_current(fet, v_ds, t_pulse, t_start)
+    Current the derated curves allow for a rectangular pulse (vectorised).
+soa_allowed_time(fet, v_ds, i_d, t_ambient)
+    Longest rectangular pulse the derated curves allow at (v_ds, i_d) (vectorised).
+derated_soa_curves(fet, t_ambient)
+    The curves scaled to ``t_ambient``, for the SOA chart.
+equivalent_rectangle(energy, p_peak)
+    Duration of the rectangle of the same energy and peak power.
+
+Method
+------
+Along one curve log(I) is interpolated linearly against log(V); between curves log(I) is
+interpolated linearly against log(t_pulse). Below the first point of a curve its first
+current holds; above its last point nothing is allowed. Pulses shorter than the shortest
+curve get the shortest curve's current (conservative). Pulses longer than the longest
+finite curve follow the slope of the last two finite curves in log-log (or -1/2, the
+semi-infinite one-dimensional heat-flow law, when there is only one finite curve), and
+never go below the DC curve, which is the long-time limit. The allowed power is derated
+linearly with the starting junction temperature T: factor (tj_max - T) / (tj_max - t_case)
+(the linear SOA derating of power MOSFET application notes; common practice, not a
+standard), never above 1. References: the -1/2 slope, H. S. Carslaw and J. C. Jaeger,
+"Conduction of Heat in Solids", 2nd ed., section 2.9 (surface temperature of a
+semi-infinite solid under constant flux grows as sqrt(t)).
+
+A non-rectangular pulse is compared as the rectangle of the same energy and the same peak
+power (t_equiv = E / P_peak); DESIGN.md section 4.
+"""
+
+from __future__ import annotations
+
+import math
+from typing import Any
+
+import numpy as np
+
+from .document import Fet, SoaCurve
+
+__all__ = [
+    "curve_current",
+    "derating_factor",
+    "allowed_current",
+    "soa_allowed_time",
+    "derated_soa_curves",
+    "equivalent_rectangle",
+]
+
+_DIFFUSION_SLOPE = -0.5
+
+
+def curve_current(curve: SoaCurve, v_ds: float) -> float:
+    """Drain current one SOA curve allows at ``v_ds`` (no derating).
+
+    Parameters
+    ----------
+    curve : SoaCurve
+        Points (vds V, id A) with vds increasing.
+    v_ds : float
+        Drain-source voltage, V (> 0).
+
+    Returns
+    -------
+    float
+        Current in A: log-log interpolation; the first current below the first point;
+        0 above the last point.
+    """
+    lv = np.log([p[0] for p in curve.points])
+    li = np.log([p[1] for p in curve.points])
+    x = math.log(v_ds)
+    if x > lv[-1] * (1 + 1e-12) + 1e-12:
+        return 0.0
+    return float(np.exp(np.interp(x, lv, li)))
+
+
+class _Table:
+    """Curve currents at given voltages: log t of finite curves and the DC curve."""
+
+    def __init__(self, fet: Fet) -> None:
+        self.finite = [c for c in fet.curves if c.t_pulse is not None]
+        self.dc = next((c for c in fet.curves if c.t_pulse is None), None)
+        self.log_t = np.log([c.t_pulse for c in self.finite])
+        self.fet = fet
+
+    @staticmethod
+    def _currents(curve: SoaCurve, v: np.ndarray) -> np.ndarray:
+        lv = np.log([p[0] for p in curve.points])
+        li = np.log([p[1] for p in curve.points])
+        x = np.log(np.maximum(v, 1e-300))
+        out = np.exp(np.interp(x, lv, li))
+        return np.where(x > lv[-1] + 1e-12, 0.0, out)
+
+    def matrix(self, v: np.ndarray) -> tuple[np.ndarray, np.ndarray | None]:
+        """Currents of the finite curves (m, n) and of the DC curve (n,) at voltages v.
+
+        A longer pulse never allows more than a shorter one (running minimum along the
+        pulse widths): where a short-pulse curve is not drawn up to v, nothing longer is
+        allowed either (conservative).
+        """
+        fin = np.minimum.accumulate(np.stack([self._currents(c, v) for c in self.finite]), axis=0)
+        dc = None if self.dc is None else np.minimum(self._currents(self.dc, v), fin[-1])
+        return fin, dc
+
+    def tail_slope(self, fin: np.ndarray) -> np.ndarray:
+        """log-log slope dlogI/dlogt beyond the longest finite curve, per row (< 0)."""
+        n = fin.shape[1]
+        if len(self.finite) < 2:
+            return np.full(n, _DIFFUSION_SLOPE)
+        a, b = fin[-2], fin[-1]
+        ok = (a > 0) & (b > 0) & (a > b)
+        with np.errstate(divide="ignore", invalid="ignore"):
+            s = np.log(np.where(ok, b / np.where(ok, a, 1.0), 1.0)) / (self.log_t[-1] - self.log_t[-2])
+        return np.where(ok & (s < 0), s, _DIFFUSION_SLOPE)
+
+
+def derating_factor(fet: Fet, t_start) -> np.ndarray:
+    """Linear derating of the allowed SOA power with starting junction temperature.
+
+    Parameters
+    ----------
+    fet : Fet
+    t_start : float or ndarray
+        Junction temperature at the start of the pulse, degC.
+
+    Returns
+    -------
+    ndarray
+        (tj_max - T) / (tj_max - t_case) clipped to [0, 1] (dimensionless).
+    """
+    k = (fet.tj_max - np.asarray(t_start, dtype=float)) / (fet.tj_max - fet.t_case)
+    return np.clip(k, 0.0, 1.0)
+
+
+def allowed_current(fet: Fet, v_ds, t_pulse, t_start) -> np.ndarray:
+    """Drain current the derated SOA allows for a rectangular pulse.
+
+    Parameters
+    ----------
+    fet : Fet
+    v_ds : float or ndarray, shape (n,)
+        Drain-source voltage during the pulse, V.
+    t_pulse : float or ndarray, shape (n,)
+        Pulse duration, s (``inf`` = DC).
+    t_start : float or ndarray
+        Junction temperature at the start of the pulse, degC.
+
+    Returns
+    -------
+    ndarray, shape (n,)
+        Allowed current in A.
+    """
+    v = np.atleast_1d(np.asarray(v_ds, dtype=float))
+    t = np.broadcast_to(np.asarray(t_pulse, dtype=float), v.shape)
+    tab = _Table(fet)
+    fin, dc = tab.matrix(v)
+    m = fin.shape[0]
+    with np.errstate(divide="ignore"):
+        lfin = np.log(fin)
+        lt = np.log(np.maximum(t, 1e-300))
+    # between finite curves
+    k = np.clip(np.searchsorted(tab.log_t, lt) - 1, 0, max(m - 2, 0))
+    cols = np.arange(v.size)
+    if m >= 2:
+        t0, t1 = tab.log_t[k], tab.log_t[k + 1]
+        i0, i1 = fin[k, cols], fin[k + 1, cols]
+        w = np.clip((lt - t0) / (t1 - t0), 0.0, 1.0)
+        both = (i0 > 0) & (i1 > 0)
+        with np.errstate(invalid="ignore"):
+            inner = np.where(both, np.exp(np.where(both, (1 - w) * lfin[k, cols] + w * lfin[k + 1, cols], 0.0)), 0.0)
+    else:
+        inner = fin[0]
+    # shorter than the shortest curve: its current; longer than the longest: tail law
+    inner = np.where(lt <= tab.log_t[0], fin[0], inner)
+    s = tab.tail_slope(fin)
+    with np.errstate(over="ignore"):
+        tail = fin[-1] * np.exp(s * np.maximum(lt - tab.log_t[-1], 0.0))
+    if dc is not None:
+        tail = np.maximum(tail, dc)
+    out = np.where(lt > tab.log_t[-1], tail, inner)
+    if dc is not None:
+        out = np.where(np.isinf(t), dc, out)
+    elif np.any(np.isinf(t)):
+        out = np.where(np.isinf(t), 0.0, out)
+    return out * derating_factor(fet, t_start)
+
+
+def soa_allowed_time(fet: Any, v_ds, i_d, t_ambient) -> np.ndarray:
+    """Longest rectangular pulse the derated SOA curves allow at (v_ds, i_d).
+
+    Parameters
+    ----------
+    fet : Fet or dict
+        The FET (a ``fet`` section of a rail document is accepted).
+    v_ds : float or ndarray, shape (n,)
+        Drain-source voltage, V.
+    i_d : float or ndarray, shape (n,)
+        Drain current, A.
+    t_ambient : float
+        Junction temperature at the start of the pulse, degC.
+
+    Returns
+    -------
+    ndarray, shape (n,)
+        Allowed duration in s; ``inf`` where the DC curve allows the point; 0 where even
+        the shortest curve does not.
+    """
+    fet = _as_fet(fet, t_ambient)
+    v = np.atleast_1d(np.asarray(v_ds, dtype=float))
+    i = np.broadcast_to(np.asarray(i_d, dtype=float), v.shape)
+    tab = _Table(fet)
+    kd = derating_factor(fet, t_ambient)
+    fin, dc = tab.matrix(v)
+    fin = fin * kd
+    m = fin.shape[0]
+    cols = np.arange(v.size)
+    # the longest finite curve that still allows the current
+    allows = fin >= i  # (m, n); nonincreasing along m by validation
+    k = np.sum(allows, axis=0) - 1  # index of the last allowing curve, -1 if none
+    kk = np.clip(k, 0, m - 1)
+    kn = np.clip(k + 1, 0, m - 1)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        li = np.log(np.maximum(i, 1e-300))
+        la, lb = np.log(fin[kk, cols]), np.log(fin[kn, cols])
+        frac = np.where(fin[kn, cols] > 0, (li - la) / np.where(lb != la, lb - la, -1.0), 0.0)
+        between = np.exp(tab.log_t[kk] + frac * (tab.log_t[kn] - tab.log_t[kk]))
+        s = tab.tail_slope(fin)
+        beyond = np.exp(tab.log_t[-1] + (li - np.log(np.maximum(fin[-1], 1e-300))) / s)
+    t = np.where(k < 0, 0.0, np.where(k >= m - 1, beyond, between))
+    if dc is not None:
+        t = np.where((dc * kd >= i) & (dc * kd > 0), np.inf, t)
+    return np.where(i <= 0, np.inf, t)
+
+
+def derated_soa_curves(fet: Any, t_ambient: float) -> list[dict]:
+    """The SOA curves with the allowed current derated to ``t_ambient``.
+
+    Parameters
+    ----------
+    fet : Fet or dict
+        The FET (a ``fet`` section of a rail document is accepted).
+    t_ambient : float
+        Starting junction temperature, degC.
+
+    Returns
+    -------
+    list of dict
+        ``[{"t_pulse": s or None, "points": [[vds V, id A], ...]}, ...]``, shortest
+        pulse first, DC last.
+    """
+    fet = _as_fet(fet, t_ambient)
+    kd = float(derating_factor(fet, t_ambient))
+    return [
+        {"t_pulse": c.t_pulse, "points": [[v, i * kd] for v, i in c.points]}
+        for c in fet.curves
+    ]
+
+
+def equivalent_rectangle(energy, p_peak) -> np.ndarray:
+    """Duration of the rectangle with the same energy and the same peak power.
+
+    Parameters
+    ----------
+    energy : float or ndarray
+        Pulse energy, J.
+    p_peak : float or ndarray
+        Peak power of the pulse, W.
+
+    Returns
+    -------
+    ndarray
+        t_equiv = energy / p_peak in s (0 where p_peak is 0).
+    """
+    e = np.asarray(energy, dtype=float)
+    p = np.asarray(p_peak, dtype=float)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        return np.where(p > 0, e / np.where(p > 0, p, 1.0), 0.0)
+
+
+def _as_fet(fet: Any, t_ambient: float) -> Fet:
+    if isinstance(fet, Fet):
+        return fet
+    from .document import _read_fet  # a fet section of a rail document
+
+    return _read_fet({"fet": fet}, float(t_ambient) if t_ambient is not None else -273.15)

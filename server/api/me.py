@@ -1,0 +1,17 @@
+"""Who is logged in: /api/v1/me."""
+
+from __future__ import annotations
+
+from fastapi import APIRouter, Request
+
+from server.auth import CurrentActor
+from server.services import users
+
+router = APIRouter(prefix="/me", tags=["me"])
+
+
+@router.get("")
+def me(request: Request, actor: CurrentActor) -> dict:
+    """Your account, teams and permissions; with a session cookie, also the CSRF token for X-CSRF-Token."""
+    return users.me_dict(actor, auth=getattr(request.state, "auth", None),
+                         csrf_token=getattr(request.state, "csrf_token", None))

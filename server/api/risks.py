@@ -1,0 +1,21 @@
+"""The managers' risk view: /api/v1/products/{id}/risks."""
+
+from __future__ import annotations
+
+from typing import Annotated
+
+from fastapi import APIRouter, Depends
+
+from server.auth import require
+from server.db import SessionDep
+from server.services import risks
+from server.services.access import Actor, Permission
+
+router = APIRouter(tags=["risks"])
+RiskReader = Annotated[Actor, Depends(require(Permission.RISK))]
+
+
+@router.get("/products/{product_id}/risks")
+def product_risks(product_id: int, session: SessionDep, actor: RiskReader) -> dict:
+    """Per board: failing and marginal checks, waivers, stale or missing sign-offs, rails not analysed."""
+    return risks.product_risks(session=session, actor=actor, product_id=product_id)

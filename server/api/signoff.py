@@ -1,0 +1,66 @@
+"""Sign-off of rails: /api/v1/rails/{id}/signoff, approvals, waivers, transitions."""
+
+from __future__ import annotations
+
+from typing import Annotated
+
+from fastapi import APIRouter, Depends
+
+from server.auth import CurrentActor, require
+from server.db import SessionDep
+from server.schemas.signoff import ApprovalIn, TransitionIn, WaiverCarry, WaiverIn
+from server.services import signoff
+from server.services.access import Actor, Permission
+
+router = APIRouter(prefix="/rails", tags=["sign-off"])
+Reviewer = Annotated[Actor, Depends(require(Permission.REVIEW))]
+Mover = Annotated[Actor, Depends(require(Permission.ADVANCE))]
+
+
+@router.get("/{rail_id}/signoff")
+def signoff_status(rail_id: int, session: SessionDep, actor: CurrentActor) -> dict:
+    """State, approvals (current and stale), waivers, checks and the transitions on offer with what blocks them."""
+    return signoff.signoff_status(session=session, actor=actor, rail_id=rail_id)
+
+
+@router.get("/{rail_id}/approvals")
+def list_approvals(rail_id: int, session: SessionDep, actor: CurrentActor) -> dict:
+    rows = signoff.list_approvals(session=session, actor=actor, rail_id=rail_id)
+    return {"items": [signoff.approval_dict(a) for a in rows], "total": len(rows)}
+
+
+@router.post("/{rail_id}/approvals", status_code=201)
+def approve(rail_id: int, body: ApprovalIn, session: SessionDep, actor: Reviewer) -> dict:
+    """Approve the rail's current revision, named by its sha256 (never one you authored)."""
+    approval = signoff.approve(session=session, actor=actor, rail_id=rail_id, sha256=body.sha256,
+                               comment=body.comment)
+    return signoff.approval_dict(approval)
+
+
+@router.get("/{rail_id}/waivers")
+def list_waivers(rail_id: int, session: SessionDep, actor: CurrentActor) -> dict:
+    rows, head_n = signoff.list_waivers(session=session, actor=actor, rail_id=rail_id)
+    return {"items": [signoff.waiver_dict(w, head_n) for w in rows], "total": len(rows)}
+
+
+@router.post("/{rail_id}/waivers", status_code=201)
+def waive(rail_id: int, body: WaiverIn, session: SessionDep, actor: Reviewer) -> dict:
+    """Waive a failing or marginal check of the current revision, with a reason."""
+    waiver = signoff.waive(session=session, actor=actor, rail_id=rail_id, sha256=body.sha256,
+                           check_id=body.check_id, reason=body.reason)
+    return signoff.waiver_dict(waiver, waiver.revision_n)
+
+
+@router.post("/{rail_id}/waivers/{waiver_id}/carry", status_code=201)
+def carry_waiver(rail_id: int, waiver_id: int, body: WaiverCarry, session: SessionDep, actor: Reviewer) -> dict:
+    """Carry a waiver of an earlier revision to the current one (the check must still fail or be marginal)."""
+    waiver = signoff.carry_waiver(session=session, actor=actor, rail_id=rail_id, waiver_id=waiver_id,
+                                  sha256=body.sha256, reason=body.reason)
+    return signoff.waiver_dict(waiver, waiver.revision_n)
+
+
+@router.post("/{rail_id}/transitions")
+def take_transition(rail_id: int, body: TransitionIn, session: SessionDep, actor: Mover) -> dict:
+    """Move the rail along a transition of its team's workflow (the transition names who may)."""
+    return signoff.take_transition(session=session, actor=actor, rail_id=rail_id, transition=body.transition,
+                                   sha256=body.sha256, comment=body.comment)

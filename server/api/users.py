@@ -1,0 +1,42 @@
+"""Users (admins): /api/v1/users."""
+
+from __future__ import annotations
+
+from typing import Annotated
+
+from fastapi import APIRouter, Depends, Response
+
+from server.auth import require
+from server.db import SessionDep
+from server.schemas.accounts import UserIn, UserPatch
+from server.services import users
+from server.services.access import Actor, Permission
+
+router = APIRouter(prefix="/users", tags=["users"])
+Admin = Annotated[Actor, Depends(require(Permission.ADMIN))]
+
+
+@router.get("")
+def list_users(session: SessionDep, actor: Admin) -> dict:
+    rows = users.list_users(session=session, actor=actor)
+    return {"items": [{**users.user_dict(u), "created_at": u.created_at.isoformat()} for u in rows],
+            "total": len(rows)}
+
+
+@router.post("", status_code=201)
+def create_user(body: UserIn, session: SessionDep, actor: Admin, response: Response) -> dict:
+    user = users.create_user(session=session, actor=actor, username=body.username, role=body.role,
+                             password=body.password, display_name=body.display_name, teams=body.teams)
+    response.headers["Location"] = f"/api/v1/users/{user.id}"
+    return users.user_dict(user)
+
+
+@router.get("/{user_id}")
+def get_user(user_id: int, session: SessionDep, actor: Admin) -> dict:
+    return users.user_dict(users.get_user(session=session, actor=actor, user_id=user_id))
+
+
+@router.patch("/{user_id}")
+def update_user(user_id: int, body: UserPatch, session: SessionDep, actor: Admin) -> dict:
+    user = users.update_user(session=session, actor=actor, user_id=user_id, **body.model_dump(exclude_unset=True))
+    return users.user_dict(user)

@@ -1,0 +1,40 @@
+"""Request bodies of the sign-off API: approvals, waivers, transitions, team workflows."""
+
+from __future__ import annotations
+
+from typing import Any
+
+from pydantic import BaseModel, ConfigDict, Field
+
+Sha256 = Field(min_length=64, max_length=64, pattern=r"^[0-9a-fA-F]{64}$",
+               description="sha256 of the rail revision this is about (its current revision)")
+
+
+class _Body(BaseModel):
+    model_config = ConfigDict(extra="forbid")
+
+
+class ApprovalIn(_Body):
+    sha256: str = Sha256
+    comment: str = Field(min_length=1, max_length=4000, description="what was checked")
+
+
+class WaiverIn(_Body):
+    sha256: str = Sha256
+    check_id: str = Field(min_length=1, max_length=100)
+    reason: str = Field(min_length=1, max_length=4000)
+
+
+class WaiverCarry(_Body):
+    sha256: str = Sha256
+    reason: str | None = Field(None, max_length=4000, description="omitted: keep the original reason")
+
+
+class TransitionIn(_Body):
+    transition: str = Field(min_length=1, max_length=60, description="name of a transition leaving the current state")
+    sha256: str = Sha256
+    comment: str = Field("", max_length=4000)
+
+
+class WorkflowIn(_Body):
+    definition: dict[str, Any] = Field(description="states, transitions and on_edit (see server.workflow)")

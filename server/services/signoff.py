@@ -1,0 +1,335 @@
+"""Sign-off of rail revisions: approvals, waivers, workflow transitions, and what an edit undoes.
+
+Every approval and waiver names the revision (sha256) it is about, and only the rail's
+current revision can be approved or waived. A reviewer never approves or waives a revision
+they authored. When the rail gets a new revision (:func:`on_new_revision`, called by
+:mod:`server.services.revision_hooks` in the save's transaction), approvals of older
+revisions become stale (kept, shown as stale) and the rail goes to the state its workflow
+names. Waivers cover their revision only; :func:`carry_waiver` is the explicit act that
+carries one to the current revision.
+"""
+
+from __future__ import annotations
+
+from typing import Any
+
+from sqlalchemy import select
+from sqlalchemy.exc import IntegrityError
+from sqlalchemy.orm import Session
+
+from server.db import begin_write
+from server.models import Approval, Rail, RailRevision, Waiver, utcnow
+from server.services import rails as rail_service  # module import: rails imports the hooks, which import this
+from server.services import workflows
+from server.services.access import Actor, Permission
+from server.services.errors import Conflict, Forbidden, Invalid, NotFound
+from server.services.audit import record
+from server.services.results import checks_for_revision
+from server.workflow import PROBLEM_VERDICTS, ApprovalFact, CheckFact, RailFacts, WorkflowDef, blockers
+
+__all__ = ["TransitionBlocked", "approval_dict", "waiver_dict", "on_new_revision", "approve", "list_approvals",
+           "waive", "carry_waiver", "list_waivers", "take_transition", "signoff_status", "rail_facts"]
+
+
+class TransitionBlocked(Conflict):
+    code = "transition_blocked"
+
+
+def approval_dict(a: Approval) -> dict[str, Any]:
+    return {"id": a.id, "rail_id": a.rail_id, "revision": a.revision_n, "sha256": a.sha256,
+            "reviewer": a.reviewer_name, "reviewer_id": a.reviewer_id, "comment": a.comment,
+            "created_at": a.created_at.isoformat(), "stale": a.stale_at is not None,
+            "stale_since": a.stale_at.isoformat() if a.stale_at else None}
+
+
+def waiver_dict(w: Waiver, head_n: int | None = None) -> dict[str, Any]:
+    out = {"id": w.id, "rail_id": w.rail_id, "revision": w.revision_n, "sha256": w.sha256, "check_id": w.check_id,
+           "check_title": w.check_title, "verdict": w.verdict, "reason": w.reason, "reviewer": w.reviewer_name,
+           "reviewer_id": w.reviewer_id, "created_at": w.created_at.isoformat(), "carried_from": w.carried_from_id}
+    if head_n is not None:
+        out["current"] = w.revision_n == head_n
+    return out
+
+
+# --- what a new revision undoes ------------------------------------------------------------
+
+
+def on_new_revision(session: Session, actor: Actor, rail: Rail, revision: RailRevision, *,
+                    previous: RailRevision | None) -> None:
+    """New rail: initial state. New revision: approvals of older revisions stale, rail to ``on_edit``."""
+    if previous is None:
+        workflows.place_new_rail(session, actor, rail, revision)
+        return
+    team_id, product_id = workflows.team_of_rail(session, rail)
+    now = utcnow()
+    stale = session.scalars(select(Approval).where(Approval.rail_id == rail.id, Approval.stale_at.is_(None),
+                                                   Approval.revision_n < revision.n)).all()
+    for approval in stale:
+        approval.stale_at = now
+    if stale:
+        record(session, actor, action="approvals_stale", object_type="rail", object_id=rail.id,
+               object_repr=rail.name, product_id=product_id,
+               before={"approvals": [{"id": a.id, "reviewer": a.reviewer_name, "revision": a.revision_n}
+                                     for a in stale]},
+               after={"stale": [a.id for a in stale], "revision": revision.n})
+    wf = workflows.definition_for_team(session, team_id)
+    row = workflows.state_of(session, rail, wf)
+    if row.state != wf.on_edit:
+        workflows.move_rail(session, actor, rail, row, wf.on_edit, product_id=product_id, action="reset_state",
+                            note=f"revision {revision.n} saved")
+    else:
+        row.revision_n = revision.n
+
+
+# --- facts and status ----------------------------------------------------------------------
+
+
+def _head(session: Session, rail: Rail) -> RailRevision:
+    return session.scalar(select(RailRevision).where(RailRevision.rail_id == rail.id, RailRevision.n == rail.head_n))
+
+
+def _approvals(session: Session, rail_id: int) -> list[Approval]:
+    return list(session.scalars(select(Approval).where(Approval.rail_id == rail_id).order_by(Approval.id)))
+
+
+def _waivers(session: Session, rail_id: int) -> list[Waiver]:
+    return list(session.scalars(select(Waiver).where(Waiver.rail_id == rail_id).order_by(Waiver.id)))
+
+
+def rail_facts(session: Session, rail: Rail, state: str, *, approvals: list[Approval] | None = None,
+               waivers: list[Waiver] | None = None, checks: list[dict] | None | Any = ...) -> RailFacts:
+    """What the workflow rules need to know about ``rail`` in ``state``."""
+    approvals = _approvals(session, rail.id) if approvals is None else approvals
+    waivers = _waivers(session, rail.id) if waivers is None else waivers
+    if checks is ...:
+        checks = checks_for_revision(session, sha256=rail.head_sha256)
+    return RailFacts(
+        state=state, head_n=rail.head_n,
+        approvals=tuple(ApprovalFact(a.reviewer_id, a.reviewer_name, a.revision_n, a.stale_at is not None)
+                        for a in approvals),
+        checks=None if checks is None else tuple(CheckFact(str(c.get("id")), str(c.get("verdict"))) for c in checks),
+        waived=frozenset(w.check_id for w in waivers if w.revision_n == rail.head_n))
+
+
+def _transition_dicts(wf: WorkflowDef, facts: RailFacts, actor: Actor) -> list[dict[str, Any]]:
+    out = []
+    for t in wf.transitions_from(facts.state):
+        problems = blockers(t, facts)
+        out.append({"name": t.name, "to": t.target, "roles": list(t.roles),
+                    "demands": {"approvals": t.demands.approvals, "checks_pass": t.demands.checks_pass,
+                                "no_stale_approvals": t.demands.no_stale_approvals},
+                    "blockers": [b.as_dict() for b in problems],
+                    "you_may_take": t.allows(actor.role) and actor.can(Permission.ADVANCE) and not problems})
+    return out
+
+
+def _check_summary(checks: list[dict] | None, waivers: list[Waiver], head_n: int) -> dict[str, Any]:
+    if checks is None:
+        return {"analysed": False, "checks": [], "open": []}
+    waived = {w.check_id: w for w in waivers if w.revision_n == head_n}
+    rows = []
+    for c in checks:
+        w = waived.get(str(c.get("id")))
+        rows.append({"id": c.get("id"), "title": c.get("title", ""), "verdict": c.get("verdict"),
+                     "value": c.get("value"), "limit": c.get("limit"), "unit": c.get("unit"),
+                     "corner": c.get("corner"), "waiver": waiver_dict(w) if w else None})
+    open_ids = [r["id"] for r in rows if r["verdict"] in PROBLEM_VERDICTS and r["waiver"] is None]
+    return {"analysed": True, "checks": rows, "open": open_ids}
+
+
+def signoff_status(*, session: Session, actor: Actor, rail_id: int) -> dict[str, Any]:
+    """The rail's state, approvals (current and stale), waivers, checks and the transitions it offers."""
+    rail = rail_service.get_rail(session=session, actor=actor, rail_id=rail_id)
+    team_id, product_id = workflows.team_of_rail(session, rail)
+    wf = workflows.definition_for_team(session, team_id)
+    row = workflows.state_of(session, rail, wf)
+    approvals, waivers = _approvals(session, rail.id), _waivers(session, rail.id)
+    checks = checks_for_revision(session, sha256=rail.head_sha256)
+    facts = rail_facts(session, rail, row.state, approvals=approvals, waivers=waivers, checks=checks)
+    head = _head(session, rail)
+    return {
+        "rail_id": rail.id, "product_id": product_id, "team_id": team_id,
+        "head": {"n": head.n, "sha256": head.sha256, "author": head.author_name, "author_id": head.author_id},
+        "state": {"name": row.state, "signed_off": wf.is_signed_off(row.state), "since": row.since.isoformat()
+                  if row.since else None, "revision": row.revision_n, "by": row.changed_by},
+        "workflow": wf.name,
+        "approvals": [approval_dict(a) for a in approvals],
+        "waivers": [waiver_dict(w, rail.head_n) for w in waivers],
+        "checks": _check_summary(checks, waivers, rail.head_n),
+        "transitions": _transition_dicts(wf, facts, actor),
+    }
+
+
+# --- approving, waiving, moving ------------------------------------------------------------
+
+
+def _current_revision(session: Session, rail: Rail, sha256: str, what: str) -> RailRevision:
+    """The head revision, when ``sha256`` names it; refused when it names an older one."""
+    sha256 = (sha256 or "").strip().lower()
+    found = session.scalar(select(RailRevision).where(RailRevision.rail_id == rail.id, RailRevision.sha256 == sha256)
+                           .order_by(RailRevision.n.desc()).limit(1))
+    if found is None:
+        raise Invalid(f"rail '{rail.name}' has no revision with sha256 {sha256[:12] or '(none)'}",
+                      details=[{"field": "sha256", "message": "names no revision of this rail"}])
+    if found.n != rail.head_n or sha256 != rail.head_sha256:
+        raise Conflict(f"revision {found.n} of rail '{rail.name}' is not its current revision ({rail.head_n}): "
+                       f"{what} an old revision is refused; look at revision {rail.head_n}",
+                       extra={"current": {"n": rail.head_n, "sha256": rail.head_sha256}})
+    return found
+
+
+def _refuse_own(actor: Actor, rev: RailRevision, what: str) -> None:
+    own = (rev.author_id is not None and rev.author_id == actor.user_id) or \
+          (rev.author_id is None and rev.author_name == actor.name)
+    if own:
+        raise Forbidden(f"you authored revision {rev.n}: someone else must {what} it")
+
+
+def _locked_rail(session: Session, actor: Actor, rail_id: int) -> Rail:
+    begin_write(session)
+    return rail_service.get_rail(session=session, actor=actor, rail_id=rail_id, for_update=True)
+
+
+def approve(*, session: Session, actor: Actor, rail_id: int, sha256: str, comment: str) -> Approval:
+    """Approve the rail's current revision (reviewers; never one's own revision)."""
+    actor.require(Permission.REVIEW)
+    comment = (comment or "").strip()
+    if not comment:
+        raise Invalid("say what you checked: an approval needs a comment",
+                      details=[{"field": "comment", "message": "is required"}])
+    rail = _locked_rail(session, actor, rail_id)
+    rev = _current_revision(session, rail, sha256, "approving")
+    _refuse_own(actor, rev, "approve")
+    exists = session.scalar(select(Approval.id).where(Approval.rail_id == rail.id, Approval.revision_n == rev.n,
+                                                      Approval.reviewer_id == actor.user_id))
+    if exists is not None:
+        raise Conflict(f"you approved revision {rev.n} already")
+    approval = Approval(rail_id=rail.id, revision_n=rev.n, sha256=rev.sha256, reviewer_id=actor.user_id,
+                        reviewer_name=actor.name, comment=comment[:4000])
+    session.add(approval)
+    try:
+        session.flush()
+    except IntegrityError:
+        session.rollback()
+        raise Conflict(f"you approved revision {rev.n} already") from None
+    record(session, actor, action="approve", object_type="rail", object_id=rail.id, object_repr=rail.name,
+           product_id=workflows.team_of_rail(session, rail)[1],
+           after={"approval": approval.id, "revision": rev.n, "sha256": rev.sha256, "comment": approval.comment})
+    session.commit()
+    return approval
+
+
+def list_approvals(*, session: Session, actor: Actor, rail_id: int) -> list[Approval]:
+    rail = rail_service.get_rail(session=session, actor=actor, rail_id=rail_id)
+    return _approvals(session, rail.id)
+
+
+def list_waivers(*, session: Session, actor: Actor, rail_id: int) -> tuple[list[Waiver], int]:
+    rail = rail_service.get_rail(session=session, actor=actor, rail_id=rail_id)
+    return _waivers(session, rail.id), rail.head_n
+
+
+def _problem_check(session: Session, rail: Rail, rev: RailRevision, check_id: str) -> dict:
+    checks = checks_for_revision(session, sha256=rev.sha256)
+    if checks is None:
+        raise Conflict(f"revision {rev.n} of rail '{rail.name}' has not been analysed: there is nothing to waive yet")
+    found = [c for c in checks if str(c.get("id")) == check_id]
+    if not found:
+        raise Invalid(f"revision {rev.n} has no check '{check_id}'",
+                      details=[{"field": "check_id", "message": f"is not a check of revision {rev.n}"}])
+    worst = next((c for c in found if c.get("verdict") == "fail"), None) or \
+        next((c for c in found if c.get("verdict") == "marginal"), None)
+    if worst is None:
+        raise Invalid(f"check '{check_id}' of revision {rev.n} is {found[0].get('verdict')}: only failing or "
+                      "marginal checks are waived",
+                      details=[{"field": "check_id", "message": "is neither failing nor marginal"}])
+    return worst
+
+
+def _add_waiver(session: Session, actor: Actor, rail: Rail, rev: RailRevision, check: dict, reason: str,
+                carried_from: Waiver | None) -> Waiver:
+    check_id = str(check.get("id"))
+    exists = session.scalar(select(Waiver.id).where(Waiver.rail_id == rail.id, Waiver.revision_n == rev.n,
+                                                    Waiver.check_id == check_id))
+    if exists is not None:
+        raise Conflict(f"check '{check_id}' of revision {rev.n} has a waiver already (waiver {exists})")
+    waiver = Waiver(rail_id=rail.id, revision_n=rev.n, sha256=rev.sha256, check_id=check_id,
+                    check_title=str(check.get("title", ""))[:200], verdict=str(check.get("verdict")),
+                    reason=reason[:4000], reviewer_id=actor.user_id, reviewer_name=actor.name,
+                    carried_from_id=carried_from.id if carried_from else None)
+    session.add(waiver)
+    try:
+        session.flush()
+    except IntegrityError:
+        session.rollback()
+        raise Conflict(f"check '{check_id}' of revision {rev.n} has a waiver already") from None
+    after = {"waiver": waiver.id, "revision": rev.n, "sha256": rev.sha256, "check_id": check_id,
+             "verdict": waiver.verdict, "value": check.get("value"), "limit": check.get("limit"),
+             "unit": check.get("unit"), "reason": waiver.reason}
+    if carried_from is not None:
+        after["carried_from"] = {"waiver": carried_from.id, "revision": carried_from.revision_n}
+    record(session, actor, action="carry_waiver" if carried_from else "waive", object_type="rail",
+           object_id=rail.id, object_repr=rail.name, product_id=workflows.team_of_rail(session, rail)[1],
+           after=after)
+    return waiver
+
+
+def waive(*, session: Session, actor: Actor, rail_id: int, sha256: str, check_id: str, reason: str) -> Waiver:
+    """Waive a failing or marginal check of the rail's current revision, with a reason (reviewers)."""
+    actor.require(Permission.REVIEW)
+    reason = (reason or "").strip()
+    if not reason:
+        raise Invalid("a waiver needs a reason", details=[{"field": "reason", "message": "is required"}])
+    rail = _locked_rail(session, actor, rail_id)
+    rev = _current_revision(session, rail, sha256, "waiving a check of")
+    _refuse_own(actor, rev, "waive checks of")
+    waiver = _add_waiver(session, actor, rail, rev, _problem_check(session, rail, rev, check_id), reason, None)
+    session.commit()
+    return waiver
+
+
+def carry_waiver(*, session: Session, actor: Actor, rail_id: int, waiver_id: int, sha256: str,
+                 reason: str | None = None) -> Waiver:
+    """Carry a waiver of an earlier revision to the current one (reviewers; the check must still need it)."""
+    actor.require(Permission.REVIEW)
+    rail = _locked_rail(session, actor, rail_id)
+    source = session.get(Waiver, waiver_id)
+    if source is None or source.rail_id != rail.id:
+        raise NotFound(f"rail {rail_id} has no waiver {waiver_id}")
+    rev = _current_revision(session, rail, sha256, "carrying a waiver to")
+    if source.revision_n == rev.n:
+        raise Conflict(f"waiver {waiver_id} covers revision {rev.n} already")
+    _refuse_own(actor, rev, "waive checks of")
+    check = _problem_check(session, rail, rev, source.check_id)
+    text = (reason or "").strip() or source.reason
+    waiver = _add_waiver(session, actor, rail, rev, check, text, source)
+    session.commit()
+    return waiver
+
+
+def take_transition(*, session: Session, actor: Actor, rail_id: int, transition: str, sha256: str,
+                    comment: str = "") -> dict[str, Any]:
+    """Move the rail along one of its workflow's transitions, when the role may and its demands are met."""
+    actor.require(Permission.ADVANCE)
+    rail = _locked_rail(session, actor, rail_id)
+    rev = _current_revision(session, rail, sha256, "moving")
+    team_id, product_id = workflows.team_of_rail(session, rail)
+    wf = workflows.definition_for_team(session, team_id)
+    row = workflows.state_of(session, rail, wf)
+    step = wf.transition(row.state, (transition or "").strip())
+    if step is None:
+        offered = ", ".join(f"'{t.name}'" for t in wf.transitions_from(row.state)) or "none"
+        raise Invalid(f"the rail is in '{row.state}', which offers no transition '{transition}' (it offers {offered})",
+                      details=[{"field": "transition", "message": "is not offered from the current state"}])
+    if not step.allows(actor.role):
+        raise Forbidden(f"'{step.name}' is for {', '.join(step.roles)}; your role is {actor.role}")
+    problems = blockers(step, rail_facts(session, rail, row.state))
+    if problems:
+        raise TransitionBlocked(f"'{step.name}' cannot be taken yet: " + "; ".join(b.message for b in problems),
+                                details=[b.as_dict() for b in problems])
+    source = row.state
+    workflows.move_rail(session, actor, rail, row, step.target, product_id=product_id,
+                        extra={"transition": step.name, "sha256": rev.sha256, "comment": (comment or "")[:4000]})
+    session.commit()
+    return {"rail_id": rail.id, "from": source, "to": step.target, "transition": step.name, "revision": rev.n,
+            "signed_off": wf.is_signed_off(step.target)}

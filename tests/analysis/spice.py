@@ -1,0 +1,122 @@
+"""Running ngspice in batch mode on the circuit of a rail, for comparisons.
+
+The netlist models the same circuit as the analysis: ideal supply, series resistance and
+inductance, the switch as a behavioural current source (B-source) whose current is the
+smaller of the fully-on current v_ds / R_sw(t) and the regulation reference, a capacitor
+with its ESR, and a resistive load. ngspice integrates it with its own Gear method and
+step control (ngspice manual, chapter 15 "Transient analysis"; B-sources chapter 5.1).
+"""
+
+from __future__ import annotations
+
+import math
+import shutil
+import subprocess
+from pathlib import Path
+
+import numpy as np
+
+__all__ = ["NGSPICE", "ngspice_missing_message", "simulate_ngspice"]
+
+NGSPICE = shutil.which("ngspice")
+
+
+def ngspice_missing_message() -> str:
+    return "ngspice is not installed: install the Debian package `ngspice` (apt-get install ngspice)"
+
+
+def _n(x) -> str:
+    """A number for the netlist (plain Python float repr)."""
+    return repr(float(x))
+
+
+def _netlist(*, v, r, l, c, esr, r_load, mode, rds, i_limit, dvdt, t_on, r_off, t_stop, t_max, out_file):
+    lines = ["* railsign reference circuit", f"V1 vs 0 DC {_n(v)}"]
+    node = "vs"
+    if r > 0:
+        lines.append(f"R1 vs n1 {_n(r)}")
+        node = "n1"
+    if l > 0:
+        lines.append(f"L1 {node} sw {_n(l)} IC=0")
+    else:
+        lines.append(f"Rz {node} sw 1e-12")
+    lines.append("Vsense sw swx DC 0")
+    if t_on > 0:
+        a, b = math.log(r_off), math.log(rds) - math.log(r_off)
+        rsw = f"exp({_n(a)} + {_n(b)} * min(time / {_n(t_on)}, 1))"
+    else:
+        rsw = f"{_n(rds)}"
+    full = f"V(swx,out) / ({rsw})"
+    refs = []
+    if i_limit is not None:
+        refs.append(f"{_n(i_limit)}")
+    if mode == "slew":
+        load_i = f"V(out) / {_n(r_load)}" if r_load is not None else "0"
+        refs.append(f"{_n(c * dvdt)} + {load_i}")
+    expr = full
+    for ref in refs:
+        expr = f"min({expr}, {ref})"
+    lines.append(f"B1 swx out I = {expr}")
+    if esr > 0:
+        lines.append(f"Resr out x {_n(esr)}")
+        lines.append(f"C1 x 0 {_n(c)} IC=0")
+    else:
+        lines.append(f"C1 out 0 {_n(c)} IC=0")
+    if r_load is not None:
+        lines.append(f"Rload out 0 {_n(r_load)}")
+    lines += [
+        ".options reltol=1e-6 abstol=1e-12 vntol=1e-9 method=gear maxord=2 itl4=100",
+        ".control",
+        f"tran {_n(t_max)} {_n(t_stop)} 0 {_n(t_max)} uic",
+        f"wrdata {out_file} i(vsense) v(out) v(swx)",
+        "quit",
+        ".endc",
+        ".end",
+    ]
+    return "\n".join(lines) + "\n"
+
+
+def simulate_ngspice(tmp_path: Path, *, t_stop: float, points: int = 40000, **circuit) -> dict:
+    """Run ngspice -b on the circuit and return its waveform and figures.
+
+    Returns
+    -------
+    dict
+        ``t``, ``i``, ``v_out``, ``v_ds`` arrays, and ``i_peak`` (A), ``e_fet`` (J,
+        trapezoidal integral of v_ds i), ``t_limit`` (s, time during which the
+        regulation reference is below the fully-on current).
+    """
+    if NGSPICE is None:
+        raise RuntimeError(ngspice_missing_message())
+    out_file = "wave.txt"
+    net = _netlist(t_stop=t_stop, t_max=t_stop / points, out_file=out_file, **circuit)
+    (tmp_path / "rail.cir").write_text(net)
+    proc = subprocess.run([NGSPICE, "-b", "rail.cir"], cwd=tmp_path, capture_output=True, text=True, timeout=120)
+    if proc.returncode != 0 or not (tmp_path / out_file).exists():
+        raise RuntimeError(f"ngspice failed: {proc.stdout[-2000:]} {proc.stderr[-2000:]}")
+    data = np.loadtxt(tmp_path / out_file)
+    t, i, v_out, v_sw = data[:, 0], data[:, 1], data[:, 3], data[:, 5]
+    v_ds = v_sw - v_out
+    p = v_ds * i
+    # regulating where the fully-on current exceeds the regulation reference
+    rds = circuit["rds"]
+    t_on = circuit["t_on"]
+    if t_on > 0:
+        r_sw = np.exp(math.log(circuit["r_off"]) + np.minimum(t / t_on, 1.0) * (math.log(rds) - math.log(circuit["r_off"])))
+    else:
+        r_sw = np.full_like(t, rds)
+    ref = np.full_like(t, np.inf)
+    if circuit.get("i_limit") is not None:
+        ref = np.minimum(ref, circuit["i_limit"])
+    if circuit["mode"] == "slew":
+        load_i = v_out / circuit["r_load"] if circuit.get("r_load") is not None else 0.0
+        ref = np.minimum(ref, circuit["c"] * circuit["dvdt"] + load_i)
+    limited = (v_ds / r_sw) > ref * (1.0 + 1e-4)
+    dt = np.diff(t)
+    t_limit = float(np.sum(dt * 0.5 * (limited[1:].astype(float) + limited[:-1].astype(float))))
+    return {
+        "t": t, "i": i, "v_out": v_out, "v_ds": v_ds,
+        "i_peak": float(i.max()),
+        "e_fet": float(np.sum(dt * 0.5 * (p[1:] + p[:-1]))),
+        "t_limit": t_limit,
+    }

@@ -1,0 +1,74 @@
+"""Helpers of the sign-off tests: a product with a rail, stored analysis results, logging in with a form."""
+
+from __future__ import annotations
+
+import re
+from typing import Any
+
+from server.services.results import NOMINAL_OPTIONS, store_result
+from tests.factories import rail_doc
+
+
+def check(check_id: str, verdict: str, value: float = 1.0, limit: float = 1.5, unit: str = "ratio",
+          corner: str = "v_max, c_max, 55 degC") -> dict[str, Any]:
+    """A check as the analysis stores it (invented values)."""
+    return {"id": check_id, "title": check_id.replace("_", " "), "verdict": verdict, "value": value,
+            "limit": limit, "unit": unit, "basis": "common practice", "detail": f"{check_id} at the worst corner",
+            "corner": corner}
+
+
+PASSING = [check("startup_soa", "pass", 2.1), check("fault_margin", "pass", 1.9), check("vds_derating", "pass", 0.6,
+                                                                                       0.8, "fraction")]
+FAILING = [check("startup_soa", "fail", 0.9), check("fault_margin", "marginal", 1.2),
+           check("vds_derating", "pass", 0.6, 0.8, "fraction"), check("retry_tj", "n/a", 0.0, 0.0, "degC")]
+
+
+def store_checks(session_factory, sha256: str, checks: list[dict[str, Any]]) -> None:
+    """Store a nominal+corners result for a revision, as the jobs worker will."""
+    worst = "fail" if any(c["verdict"] == "fail" for c in checks) else \
+        "marginal" if any(c["verdict"] == "marginal" for c in checks) else "pass"
+    with session_factory() as session:
+        store_result(session, sha256=sha256, options=NOMINAL_OPTIONS, result={"verdict": worst, "checks": checks},
+                     duration_s=0.05)
+        session.commit()
+
+
+def make_board(client, people, *, name: str = "Test gateway", designer: str = "designer") -> dict:
+    h = people.headers(designer)
+    product = client.post("/api/v1/products", json={"name": name}, headers=h)
+    assert product.status_code == 201, product.text
+    board = client.post("/api/v1/boards", json={"product_id": product.json()["id"], "name": "Main", "revision": "B"},
+                        headers=h)
+    assert board.status_code == 201, board.text
+    return board.json()
+
+
+def make_rail(client, people, board: dict, *, name: str = "VOUT_12V", designer: str = "designer") -> dict:
+    r = client.post("/api/v1/rails", json={"board_id": board["id"], "document": rail_doc(name=name)},
+                    headers=people.headers(designer))
+    assert r.status_code == 201, r.text
+    return r.json()
+
+
+def edit_rail(client, people, rail: dict, c_nom: str, *, designer: str = "designer") -> dict:
+    current = client.get(f"/api/v1/rails/{rail['id']}", headers=people.headers(designer)).json()
+    r = client.put(f"/api/v1/rails/{rail['id']}", json={"document": rail_doc(name=current["name"],
+                                                                             load={"c_nom": c_nom}),
+                                                        "base_revision": current["head"]["n"]},
+                   headers=people.headers(designer))
+    assert r.status_code == 200, r.text
+    return r.json()
+
+
+def csrf_from(html: str) -> str:
+    found = re.search(r'name="csrf_token" value="([^"]+)"', html)
+    assert found, "the page has no CSRF field"
+    return found.group(1)
+
+
+def log_in(client, username: str, password: str, next_path: str = "/account"):
+    """Open the login page, then send its form as a browser would."""
+    page = client.get("/login", params={"next": next_path})
+    assert page.status_code == 200, page.text
+    return client.post("/login", data={"username": username, "password": password, "next": next_path,
+                                       "csrf_token": csrf_from(page.text)}, follow_redirects=False)

@@ -1,0 +1,32 @@
+"""The demo scenario: every switch mode and load model, and every verdict, on both engines."""
+
+from __future__ import annotations
+
+from sqlalchemy import func, select
+
+from server.analysis import analyze_rail
+from server.demo import BOARDS, DEMO_USERS, seed_if_empty
+from server.models import Board, Part, Product, Rail, RailRevision, User
+
+
+def test_demo_covers_every_mode_and_load_model():
+    docs = [doc for _, _, rails in BOARDS for doc, _ in rails]
+    assert len(BOARDS) == 3 and 10 <= len(docs) <= 14
+    assert {d["switch"]["mode"] for d in docs} == {"hard", "slew", "current_limit", "power_limit"}
+    assert {d["load"]["model"] for d in docs} == {"none", "resistive", "constant_current", "constant_power"}
+
+
+def test_demo_seeds_once_and_shows_every_verdict(session_factory):
+    with session_factory() as s:
+        assert seed_if_empty(s) is True
+        assert seed_if_empty(s) is False
+        assert s.scalar(select(func.count()).select_from(Product)) == 1
+        assert s.scalar(select(func.count()).select_from(Board)) == 3
+        assert s.scalar(select(func.count()).select_from(Part)) >= 3
+        assert s.scalar(select(func.count()).select_from(User)) == len(DEMO_USERS)
+        rails = s.scalars(select(Rail)).all()
+        heads = [s.scalar(select(RailRevision).where(RailRevision.rail_id == r.id, RailRevision.n == r.head_n))
+                 for r in rails]
+    assert all(h.part_revision_id is not None for h in heads)  # every demo rail uses a library part
+    verdicts = {analyze_rail(h.document, headroom=False)["verdict"] for h in heads}
+    assert {"pass", "marginal", "fail"} <= verdicts
