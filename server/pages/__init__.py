@@ -4,8 +4,8 @@ from __future__ import annotations
 
 from fastapi import APIRouter
 
-from server.pages import account, admin, boards, history, home, login, parts, rail_form, rails
+from server.pages import account, admin, boards, history, home, login, parts, rail_form, rails, risks, signoff
 
 page_router = APIRouter(include_in_schema=False)
-for module in (login, account, admin, home, boards, rails, rail_form, history, parts):
+for module in (login, account, admin, home, boards, rails, rail_form, history, parts, signoff, risks):
     page_router.include_router(module.router)

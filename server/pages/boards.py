@@ -28,7 +28,7 @@ def supply_text(supply: dict[str, Any]) -> str:
     return text
 
 
-def _row(r: dict[str, Any], state: str) -> dict[str, Any]:
+def _row(r: dict[str, Any], so: dict[str, Any]) -> dict[str, Any]:
     worst = worst_check(r["checks"], r["t_ambient"])
     return {
         "id": r["id"], "name": r["name"], "mode": r["mode"], "head_n": r["head_n"],
@@ -36,7 +36,8 @@ def _row(r: dict[str, Any], state: str) -> dict[str, Any]:
         "c": fmt(r["load"].get("c_nom"), "F"), "c_sort": r["load"].get("c_nom") or 0,
         "verdict": r["verdict"], "verdict_sort": verdict_style(r["verdict"]).severity,
         "worst": worst, "worst_sort": worst["margin"] if worst and worst["margin"] is not None else "",
-        "state": state, "analysed_at": r["analysed_at"],
+        "state": so["state"], "signed_off": so["signed_off"], "approvals": so["approvals"], "stale": so["stale"],
+        "waivers": so["waivers"], "analysed_at": r["analysed_at"],
         "analysed_sort": r["analysed_at"].isoformat() if r["analysed_at"] else "",
     }
 
@@ -58,8 +59,8 @@ def _budget_title(entry: dict[str, Any]) -> tuple[str, str]:
 def board_context(session: Session, actor: Actor, board_id: int, *, q: str = "", verdict: str = "",
                   mode: str = "") -> dict[str, Any]:
     data = overview.board_rails(session=session, actor=actor, board_id=board_id)
-    states = signoff_view.board_states(session, [r["id"] for r in data["rails"]])
-    rows = [_row(r, states.get(r["id"], signoff_view.NO_STATE)) for r in data["rails"]]
+    signoffs = signoff_view.board_signoff(session, [r["id"] for r in data["rails"]], data["product"].team_id)
+    rows = [_row(r, signoffs[r["id"]]) for r in data["rails"]]
     counts = {}
     for r in rows:
         counts[r["verdict"]] = counts.get(r["verdict"], 0) + 1

@@ -1,11 +1,10 @@
-"""Sign-off on the pages: the place where workflow state, approvals and waivers join the views.
+"""Sign-off on the pages: workflow state, approvals (stale ones marked) and waivers of rails.
 
-The rail page, the board table and the product overview ask this module for a rail's
-workflow state, its approvals (stale ones marked) and its waivers. Until the sign-off
-services are part of the application these answer "nothing recorded", and the pages say
-so in words.
+The rail page shows a rail's sign-off status and offers the transitions, approval and
+waivers its viewer may give; the board table and the product overview show each rail's
+state and its approval and waiver counts. Everything comes from the sign-off services.
 
-Provides :func:`rail_signoff`, :func:`board_states`, :func:`waivers_by_check`,
+Provides :func:`rail_signoff`, :func:`waivers_by_check`, :func:`board_signoff`,
 :func:`product_states`.
 """
 
@@ -15,33 +14,55 @@ from typing import Any
 
 from sqlalchemy.orm import Session
 
-from server.services.access import Actor
+from server.services import overview, signoff
+from server.services.access import Actor, Permission
 
-__all__ = ["rail_signoff", "board_states", "waivers_by_check", "product_states", "NO_STATE"]
-
-NO_STATE = "not tracked"
-
-
-def rail_signoff(session: Session, actor: Actor, rail_id: int) -> dict[str, Any] | None:
-    """The rail's workflow state, approvals and waivers; None while no sign-off is recorded."""
-    return None
+__all__ = ["rail_signoff", "waivers_by_check", "board_signoff", "product_states"]
 
 
-def waivers_by_check(signoff: dict[str, Any] | None) -> dict[str, dict[str, Any]]:
-    """The waivers of a rail's current revision by check id."""
-    return {}
+def rail_signoff(session: Session, actor: Actor, rail_id: int) -> dict[str, Any]:
+    """The rail's sign-off status, with what this actor may do about it.
+
+    ``may_review``: the actor reviews and did not author the current revision (approve, waive);
+    ``waivable``: failing or marginal checks of the current revision without a waiver;
+    ``carryable``: waivers of earlier revisions whose check still needs one now.
+    """
+    status = signoff.signoff_status(session=session, actor=actor, rail_id=rail_id)
+    head = status["head"]
+    own = head.get("author_id") is not None and head["author_id"] == actor.user_id
+    current = [w for w in status["waivers"] if w.get("current")]
+    waived_now = {w["check_id"] for w in current}
+    open_checks = [c for c in status["checks"]["checks"] if c["id"] in status["checks"]["open"]]
+    seen: set[str] = set()
+    waivable = []
+    for c in open_checks:
+        if c["id"] not in seen:
+            seen.add(c["id"])
+            waivable.append(c)
+    carryable = [w for w in status["waivers"] if not w.get("current") and w["check_id"] in seen
+                 and w["check_id"] not in waived_now]
+    approved_by_me = any(a["reviewer_id"] == actor.user_id and a["revision"] == head["n"] and not a["stale"]
+                         for a in status["approvals"])
+    return {**status, "own_revision": own, "may_review": actor.can(Permission.REVIEW) and not own,
+            "approved_by_me": approved_by_me, "current_waivers": current, "waivable": waivable,
+            "carryable": carryable,
+            "current_approvals": [a for a in status["approvals"] if not a["stale"] and a["revision"] == head["n"]],
+            "stale_approvals": [a for a in status["approvals"] if a["stale"]]}
 
 
-def board_states(session: Session, rail_ids: list[int]) -> dict[int, str]:
-    """Workflow state by rail id (rails not listed read as :data:`NO_STATE`)."""
-    return {}
+def waivers_by_check(status: dict[str, Any] | None) -> dict[str, dict[str, Any]]:
+    """The waivers of the rail's current revision by check id."""
+    return {w["check_id"]: w for w in (status or {}).get("current_waivers", [])}
 
 
-def product_states(session: Session, rail_ids: list[int]) -> dict[str, int]:
+def board_signoff(session: Session, rail_ids: list[int], team_id: int) -> dict[int, dict[str, Any]]:
+    """Workflow state, current and stale approvals and current waivers of each rail."""
+    return overview.signoff_summary(session, rail_ids, team_id)
+
+
+def product_states(session: Session, rail_ids: list[int], team_id: int) -> dict[str, int]:
     """Rails counted by workflow state."""
-    states = board_states(session, rail_ids)
     counts: dict[str, int] = {}
-    for rid in rail_ids:
-        s = states.get(rid, NO_STATE)
-        counts[s] = counts.get(s, 0) + 1
+    for entry in board_signoff(session, rail_ids, team_id).values():
+        counts[entry["state"]] = counts.get(entry["state"], 0) + 1
     return counts

@@ -17,13 +17,13 @@ from typing import Any
 from sqlalchemy import func, select
 from sqlalchemy.orm import Session
 
-from server.models import AnalysisResult, Board, Job, Product, Rail, RailRevision
+from server.models import AnalysisResult, Approval, Board, Job, Product, Rail, RailRevision, Waiver
 from server.services import results
 from server.services.result_parts import ResultKey, result_parts
 from server.services.access import Actor, scoped_products
 from server.services.catalog import get_board, get_product
 
-__all__ = ["nominal_result_of_head", "verdicts_by_sha", "board_labels", "home_products", "product_overview", "board_rails", "active_job",
+__all__ = ["nominal_result_of_head", "verdicts_by_sha", "signoff_summary", "board_labels", "home_products", "product_overview", "board_rails", "active_job",
            "ATTENTION_LIMIT"]
 
 ATTENTION_LIMIT = 12
@@ -45,6 +45,33 @@ def verdicts_by_sha(session: Session, shas: list[str]) -> dict[str, str]:
         AnalysisResult.sha256.in_(set(shas)), AnalysisResult.engine_version == results.engine_version(),
         AnalysisResult.options_key == results.options_key(results.NOMINAL_OPTIONS))
     return dict(session.execute(stmt).all())
+
+
+def signoff_summary(session: Session, rail_ids: list[int], team_id: int) -> dict[int, dict[str, Any]]:
+    """Each rail's workflow state (and whether it counts as signed off), its approvals of the current
+    revision, its stale approvals and the waivers of its current revision: three queries for any number."""
+    from server.services import workflows  # the workflow service imports the rail services
+
+    if not rail_ids:
+        return {}
+    wf = workflows.definition_for_team(session, team_id)
+    states = workflows.rail_states(session, rail_ids)
+    heads = dict(session.execute(select(Rail.id, Rail.head_n).where(Rail.id.in_(rail_ids))).all())
+    out: dict[int, dict[str, Any]] = {}
+    for rid in rail_ids:
+        state = states.get(rid)
+        state = state if state is not None and wf.has_state(state) else wf.initial
+        out[rid] = {"state": state, "signed_off": wf.is_signed_off(state), "approvals": 0, "stale": 0, "waivers": 0}
+    for rid, n, stale_at in session.execute(select(Approval.rail_id, Approval.revision_n, Approval.stale_at)
+                                            .where(Approval.rail_id.in_(rail_ids))):
+        if stale_at is not None:
+            out[rid]["stale"] += 1
+        elif n == heads.get(rid):
+            out[rid]["approvals"] += 1
+    for rid, n in session.execute(select(Waiver.rail_id, Waiver.revision_n).where(Waiver.rail_id.in_(rail_ids))):
+        if n == heads.get(rid):
+            out[rid]["waivers"] += 1
+    return out
 
 
 def board_labels(*, session: Session, actor: Actor, board_ids: list[int]) -> dict[int, dict[str, Any]]:

@@ -16,7 +16,7 @@ from server.services.rails import normalize_document
 from tests.factories import rail_doc
 from tests.pages.helpers import Page, log_in, seed_board
 
-VERDICT_WORDS = {s.word for s in VERDICT_STYLES.values()} | {"within budget", "over budget"}
+VERDICT_WORDS = {s.word for s in VERDICT_STYLES.values()} | {"within budget", "over budget", "signed off", "not signed off"}
 NOT_PAGES = ("/api/", "/static/", "/healthz", "/docs", "/redoc", "/openapi")
 
 

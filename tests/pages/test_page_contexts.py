@@ -40,7 +40,7 @@ def test_product_overview_puts_failing_rails_first(seeded, session_factory):
     analysed = [a for a in ctx["attention"] if a["verdict"] is not None]
     assert analysed and all(a["worst"] is not None and a["worst"]["verdict"] == a["verdict"] for a in analysed)
     assert ctx["attention"][-1]["verdict"] is None
-    assert ctx["states"] == [("not tracked", 3)]
+    assert ctx["states"] == [("in design", 3)]  # the default workflow's initial state
 
 
 def test_board_context_rows_filters_and_budget(seeded, session_factory):
