@@ -253,3 +253,27 @@ def test_the_board_table_sorts_and_filters_from_the_keyboard_and_the_board_is_an
     page.wait_for_selector(f"#budget-0{PLOT_SVG}")
     assert page.locator("#rail-table .verdict").count() == len(first)
     shot(page, "board-page")
+
+
+def test_a_reviewer_approves_from_the_keyboard_and_a_manager_reads_the_risks(browser, served):
+    rail_id = served["ids"]["rail_ids"][0]
+    context = browser.new_context(viewport={"width": 1280, "height": 900}, base_url=served["base"])
+    context.set_default_timeout(TIMEOUT_MS)
+    pg = context.new_page()
+    log_in(pg, "reviewer", f"/rails/{rail_id}")
+    pg.focus("#approve-comment")
+    pg.keyboard.type("start-up SOA and timer window checked")
+    pg.keyboard.press("Enter")  # submits the approval form
+    pg.wait_for_selector("#approval-table")
+    assert "start-up SOA and timer window checked" in pg.inner_text("#approval-table")
+    pg.locator("#signoff-section").screenshot(path=str(ARTIFACTS / "rail-signoff.png"))
+    context.close()
+    context = browser.new_context(viewport={"width": 1280, "height": 900}, base_url=served["base"])
+    pg = context.new_page()
+    log_in(pg, "manager")
+    pg.get_by_role("link", name="Risks").click()
+    pg.get_by_role("link", name="Tideline buoy").click()
+    pg.wait_for_selector("h1:has-text('Open risks of Tideline buoy')")
+    assert "not in a signed-off state" in pg.inner_text("main")
+    shot(pg, "product-risks")
+    context.close()
