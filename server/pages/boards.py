@@ -59,7 +59,7 @@ def _budget_title(entry: dict[str, Any]) -> tuple[str, str]:
 def board_context(session: Session, actor: Actor, board_id: int, *, q: str = "", verdict: str = "",
                   mode: str = "") -> dict[str, Any]:
     data = overview.board_rails(session=session, actor=actor, board_id=board_id)
-    signoffs = signoff_view.board_signoff(session, [r["id"] for r in data["rails"]], data["product"].team_id)
+    signoffs = signoff_view.board_signoff(session, board_id, data["product"].team_id)
     rows = [_row(r, signoffs[r["id"]]) for r in data["rails"]]
     counts = {}
     for r in rows:

@@ -37,7 +37,7 @@ def product_context(session: Session, actor: Actor, product_id: int) -> dict[str
     for a in data["attention"]:
         a["worst"] = worst_check(a["checks"], a["t_ambient"])
     data["counts"] = _ordered_counts(data["by_verdict"])
-    data["states"] = sorted(signoff_view.product_states(session, data["rail_ids"], data["product"].team_id).items())
+    data["states"] = sorted(signoff_view.product_states(session, product_id, data["product"].team_id).items())
     return data
 
 

@@ -55,14 +55,14 @@ def waivers_by_check(status: dict[str, Any] | None) -> dict[str, dict[str, Any]]
     return {w["check_id"]: w for w in (status or {}).get("current_waivers", [])}
 
 
-def board_signoff(session: Session, rail_ids: list[int], team_id: int) -> dict[int, dict[str, Any]]:
-    """Workflow state, current and stale approvals and current waivers of each rail."""
-    return overview.signoff_summary(session, rail_ids, team_id)
+def board_signoff(session: Session, board_id: int, team_id: int) -> dict[int, dict[str, Any]]:
+    """Workflow state, current and stale approvals and current waivers of each rail of a board."""
+    return overview.signoff_summary(session, team_id=team_id, board_id=board_id)
 
 
-def product_states(session: Session, rail_ids: list[int], team_id: int) -> dict[str, int]:
-    """Rails counted by workflow state."""
+def product_states(session: Session, product_id: int, team_id: int) -> dict[str, int]:
+    """A product's rails counted by workflow state."""
     counts: dict[str, int] = {}
-    for entry in board_signoff(session, rail_ids, team_id).values():
+    for entry in overview.signoff_summary(session, team_id=team_id, product_id=product_id).values():
         counts[entry["state"]] = counts.get(entry["state"], 0) + 1
     return counts

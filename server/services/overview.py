@@ -17,7 +17,7 @@ from typing import Any
 from sqlalchemy import func, select
 from sqlalchemy.orm import Session
 
-from server.models import AnalysisResult, Approval, Board, Job, Product, Rail, RailRevision, Waiver
+from server.models import AnalysisResult, Approval, Board, Job, Product, Rail, RailRevision, RailState, Waiver
 from server.services import results
 from server.services.result_parts import ResultKey, result_parts
 from server.services.access import Actor, scoped_products
@@ -47,29 +47,35 @@ def verdicts_by_sha(session: Session, shas: list[str]) -> dict[str, str]:
     return dict(session.execute(stmt).all())
 
 
-def signoff_summary(session: Session, rail_ids: list[int], team_id: int) -> dict[int, dict[str, Any]]:
-    """Each rail's workflow state (and whether it counts as signed off), its approvals of the current
-    revision, its stale approvals and the waivers of its current revision: three queries for any number."""
+def signoff_summary(session: Session, *, team_id: int, board_id: int | None = None,
+                    product_id: int | None = None) -> dict[int, dict[str, Any]]:
+    """Each rail of a board (or of a product): its workflow state (and whether that counts as signed
+    off), its approvals of the current revision, its stale approvals and the waivers of its current
+    revision. Three queries however many rails."""
     from server.services import workflows  # the workflow service imports the rail services
 
-    if not rail_ids:
-        return {}
     wf = workflows.definition_for_team(session, team_id)
-    states = workflows.rail_states(session, rail_ids)
-    heads = dict(session.execute(select(Rail.id, Rail.head_n).where(Rail.id.in_(rail_ids))).all())
+    rails = select(Rail.id, Rail.head_n).join(Board, Board.id == Rail.board_id)
+    if board_id is not None:
+        rails = rails.where(Rail.board_id == board_id)
+    if product_id is not None:
+        rails = rails.where(Board.product_id == product_id)
+    scope = rails.subquery()
     out: dict[int, dict[str, Any]] = {}
-    for rid in rail_ids:
-        state = states.get(rid)
+    for rid, _head, state in session.execute(select(scope.c.id, scope.c.head_n, RailState.state)
+                                             .outerjoin(RailState, RailState.rail_id == scope.c.id)):
         state = state if state is not None and wf.has_state(state) else wf.initial
         out[rid] = {"state": state, "signed_off": wf.is_signed_off(state), "approvals": 0, "stale": 0, "waivers": 0}
-    for rid, n, stale_at in session.execute(select(Approval.rail_id, Approval.revision_n, Approval.stale_at)
-                                            .where(Approval.rail_id.in_(rail_ids))):
+    for rid, n, head, stale_at in session.execute(
+            select(Approval.rail_id, Approval.revision_n, scope.c.head_n, Approval.stale_at)
+            .join(scope, scope.c.id == Approval.rail_id)):
         if stale_at is not None:
             out[rid]["stale"] += 1
-        elif n == heads.get(rid):
+        elif n == head:
             out[rid]["approvals"] += 1
-    for rid, n in session.execute(select(Waiver.rail_id, Waiver.revision_n).where(Waiver.rail_id.in_(rail_ids))):
-        if n == heads.get(rid):
+    for rid, n, head in session.execute(select(Waiver.rail_id, Waiver.revision_n, scope.c.head_n)
+                                        .join(scope, scope.c.id == Waiver.rail_id)):
+        if n == head:
             out[rid]["waivers"] += 1
     return out
 
@@ -133,8 +139,7 @@ def product_overview(*, session: Session, actor: Actor, product_id: int) -> dict
         total.update(c)
     return {"product": product, "boards": [{"board": b, "by_verdict": dict(per_board[b.id]),
                                             "rails": sum(per_board[b.id].values())} for b in boards],
-            "by_verdict": dict(total), "rails": len(rows), "attention": attention,
-            "rail_ids": [r.id for r in rows]}
+            "by_verdict": dict(total), "rails": len(rows), "attention": attention}
 
 
 def _checks_of(rail_ids: list[int], session: Session) -> dict[int, tuple[float | None, list[dict]]]:
