@@ -21,7 +21,7 @@ from sqlalchemy.engine import make_url
 from server import migrate
 from server.app import create_app
 from server.config import Settings
-from server.db import make_engine, make_sessionmaker
+from server.db import make_engine
 from server.models import Base
 from server.services.access import Actor
 from server.services import users as user_service

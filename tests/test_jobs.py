@@ -203,7 +203,7 @@ def test_results_of_a_revision_without_results_say_so(client, people, board):
 
 
 def test_an_expired_lease_is_claimed_again_and_the_old_owner_cannot_write(client, people, board, session_factory):
-    rail = _new_rail(client, people, board)
+    _new_rail(client, people, board)
     with session_factory() as s:
         first = jobs.claim_next(s, worker="A", lease_s=5, max_attempts=3)
     assert first is not None and first.attempt == 1

@@ -3,13 +3,12 @@
 from __future__ import annotations
 
 from sqlalchemy import func, select
-from sqlalchemy.exc import IntegrityError
 from sqlalchemy.orm import Session
 
 from server.models import Board, Product, Rail, Team
 from server.services.access import Actor, Permission, scoped_boards, scoped_products
 from server.services.audit import record
-from server.services.errors import Conflict, Invalid, NotFound
+from server.services.errors import Conflict, Invalid, NotFound, flush_or_conflict
 
 __all__ = ["product_dict", "board_dict", "list_products", "get_product", "create_product", "update_product",
            "delete_product", "list_boards", "get_board", "create_board", "update_board", "delete_board"]
@@ -59,11 +58,7 @@ def create_product(*, session: Session, actor: Actor, name: str, description: st
     product = Product(name=name, description=description,
                       team_id=_team_for_new_product(session, actor, team_id))
     session.add(product)
-    try:
-        session.flush()
-    except IntegrityError:
-        session.rollback()
-        raise Conflict(f"a product named '{name}' exists already") from None
+    flush_or_conflict(session, f"a product named '{name}' exists already")
     record(session, actor, action="create", object_type="product", object_id=product.id,
            object_repr=name, product_id=product.id, after=product_dict(product))
     session.commit()
@@ -79,11 +74,7 @@ def update_product(*, session: Session, actor: Actor, product_id: int, name: str
         product.name = name
     if description is not None:
         product.description = description
-    try:
-        session.flush()
-    except IntegrityError:
-        session.rollback()
-        raise Conflict(f"a product named '{name}' exists already") from None
+    flush_or_conflict(session, f"a product named '{name}' exists already")
     record(session, actor, action="update", object_type="product", object_id=product.id,
            object_repr=product.name, product_id=product.id, before=before, after=product_dict(product))
     session.commit()
@@ -126,11 +117,7 @@ def create_board(*, session: Session, actor: Actor, product_id: int, name: str, 
     product = get_product(session=session, actor=actor, product_id=product_id)
     board = Board(product_id=product.id, name=name, revision=revision, description=description)
     session.add(board)
-    try:
-        session.flush()
-    except IntegrityError:
-        session.rollback()
-        raise Conflict(f"board '{name}' revision {revision} exists already in '{product.name}'") from None
+    flush_or_conflict(session, f"board '{name}' revision {revision} exists already in '{product.name}'")
     record(session, actor, action="create", object_type="board", object_id=board.id,
            object_repr=f"{name} rev {revision}", product_id=product.id, after=board_dict(board))
     session.commit()
@@ -145,11 +132,7 @@ def update_board(*, session: Session, actor: Actor, board_id: int, name: str | N
     for attr, value in (("name", name), ("revision", revision), ("description", description)):
         if value is not None:
             setattr(board, attr, value)
-    try:
-        session.flush()
-    except IntegrityError:
-        session.rollback()
-        raise Conflict("a board with that name and revision exists already in this product") from None
+    flush_or_conflict(session, "a board with that name and revision exists already in this product")
     record(session, actor, action="update", object_type="board", object_id=board.id,
            object_repr=f"{board.name} rev {board.revision}", product_id=board.product_id,
            before=before, after=board_dict(board))

@@ -4,8 +4,20 @@ from __future__ import annotations
 
 from typing import Any
 
-__all__ = ["ServiceError", "NotFound", "Forbidden", "Conflict", "Invalid", "PreconditionRequired",
+from sqlalchemy.exc import IntegrityError
+from sqlalchemy.orm import Session
+
+__all__ = ["flush_or_conflict", "ServiceError", "NotFound", "Forbidden", "Conflict", "Invalid", "PreconditionRequired",
            "Unauthenticated", "TooManyRequests", "CsrfFailed"]
+
+
+def flush_or_conflict(session: Session, message: str) -> None:
+    """Flush pending rows; a unique constraint refusing them becomes :class:`Conflict` (nothing written)."""
+    try:
+        session.flush()
+    except IntegrityError:
+        session.rollback()
+        raise Conflict(message) from None
 
 
 class ServiceError(Exception):

@@ -8,7 +8,6 @@ from __future__ import annotations
 from typing import Any
 
 from sqlalchemy import func, select
-from sqlalchemy.exc import IntegrityError
 from sqlalchemy.orm import Session
 
 from server.db import begin_write
@@ -17,7 +16,7 @@ from server.schemas.rail import document_sha256
 from server.schemas.validation import DocumentInvalid, parse_fet
 from server.services.access import Actor, Permission, scoped_rails
 from server.services.audit import record
-from server.services.errors import Conflict, Invalid, NotFound
+from server.services.errors import Conflict, Invalid, NotFound, flush_or_conflict
 
 __all__ = ["normalize_fet", "part_dict", "part_revision_dict", "list_parts", "get_part", "get_part_revision",
            "list_part_revisions", "create_part", "save_part", "part_usage"]
@@ -89,11 +88,7 @@ def create_part(*, session: Session, actor: Actor, document: Any, message: str =
     begin_write(session)
     part = Part(name=fet["name"], head_n=1)
     session.add(part)
-    try:
-        session.flush()
-    except IntegrityError:
-        session.rollback()
-        raise Conflict(f"a part named '{fet['name']}' exists already") from None
+    flush_or_conflict(session, f"a part named '{fet['name']}' exists already")
     rev = PartRevision(part_id=part.id, n=1, document=fet, sha256=document_sha256(fet), author_id=actor.user_id,
                        author_name=actor.name, message=message or "created")
     session.add(rev)
@@ -124,11 +119,7 @@ def save_part(*, session: Session, actor: Actor, part_id: int, document: Any, ba
     rev = PartRevision(part_id=part.id, n=part.head_n, document=fet, sha256=sha, author_id=actor.user_id,
                        author_name=actor.name, message=message)
     session.add(rev)
-    try:
-        session.flush()
-    except IntegrityError:
-        session.rollback()
-        raise Conflict(f"part '{part.name}' was saved by someone else at the same moment") from None
+    flush_or_conflict(session, f"part '{part.name}' was saved by someone else at the same moment")
     record(session, actor, action="update", object_type="part", object_id=part.id, object_repr=part.name,
            before={"n": head.n, "sha256": head.sha256}, after={"n": rev.n, "sha256": sha})
     session.commit()

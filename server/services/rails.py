@@ -13,7 +13,6 @@ from dataclasses import dataclass
 from typing import Any
 
 from sqlalchemy import func, select
-from sqlalchemy.exc import IntegrityError
 from sqlalchemy.orm import Session, defer
 
 from server.db import begin_write
@@ -24,7 +23,7 @@ from server.services import revision_hooks
 from server.services.access import Actor, Permission, scoped_rails
 from server.services.audit import record
 from server.services.catalog import get_board
-from server.services.errors import Conflict, Invalid, NotFound, PreconditionRequired
+from server.services.errors import Conflict, Invalid, NotFound, PreconditionRequired, flush_or_conflict
 from server.services.parts import get_part_revision
 
 __all__ = ["KEEP_PART", "PartRef", "normalize_document", "revision_dict", "rail_dict", "rail_dicts", "list_rails", "get_rail",
@@ -196,11 +195,7 @@ def create_rail(*, session: Session, actor: Actor, board_id: int, document: Any,
     rail = Rail(board_id=board.id, name=doc["name"], mode=doc["switch"]["mode"], head_n=1, summary=_summary(doc),
                 head_sha256=document_sha256(doc), part_id=part_rev.part_id if part_rev else None)
     session.add(rail)
-    try:
-        session.flush()
-    except IntegrityError:
-        session.rollback()
-        raise Conflict(f"board '{board.name}' has a rail named '{doc['name']}' already") from None
+    flush_or_conflict(session, f"board '{board.name}' has a rail named '{doc['name']}' already")
     rev = RailRevision(rail_id=rail.id, n=1, document=doc, sha256=rail.head_sha256,
                        part_revision_id=part_rev.id if part_rev else None, author_id=actor.user_id,
                        author_name=actor.name, message=message or "created")
@@ -249,12 +244,8 @@ def save_rail(*, session: Session, actor: Actor, rail_id: int, document: Any, ba
     rev = RailRevision(rail_id=rail.id, n=rail.head_n, document=doc, sha256=sha, part_revision_id=part_rev_id,
                        author_id=actor.user_id, author_name=actor.name, message=message)
     session.add(rev)
-    try:
-        session.flush()
-    except IntegrityError:
-        session.rollback()
-        raise Conflict(f"rail '{rail.name}' was saved by someone else at the same moment, or its new name "
-                       "is taken on this board; nothing was saved") from None
+    flush_or_conflict(session, f"rail '{rail.name}' was saved by someone else at the same moment, or its new name "
+                       "is taken on this board; nothing was saved")
     record(session, actor, action="update", object_type="rail", object_id=rail.id, object_repr=rail.name,
            product_id=rail.board.product_id, before=before,
            after={"n": rev.n, "sha256": sha, "changes": diff_documents(head.document, doc)})

@@ -14,7 +14,6 @@ from __future__ import annotations
 from typing import Any
 
 from sqlalchemy import select
-from sqlalchemy.exc import IntegrityError
 from sqlalchemy.orm import Session
 
 from server.db import begin_write
@@ -22,7 +21,7 @@ from server.models import Approval, Rail, RailRevision, Waiver, utcnow
 from server.services import rails as rail_service  # module import: rails imports the hooks, which import this
 from server.services import workflows
 from server.services.access import Actor, Permission
-from server.services.errors import Conflict, Forbidden, Invalid, NotFound
+from server.services.errors import Conflict, Forbidden, Invalid, NotFound, flush_or_conflict
 from server.services.audit import record
 from server.services.results import checks_for_revision
 from server.workflow import PROBLEM_VERDICTS, ApprovalFact, CheckFact, RailFacts, WorkflowDef, blockers
@@ -207,11 +206,7 @@ def approve(*, session: Session, actor: Actor, rail_id: int, sha256: str, commen
     approval = Approval(rail_id=rail.id, revision_n=rev.n, sha256=rev.sha256, reviewer_id=actor.user_id,
                         reviewer_name=actor.name, comment=comment[:4000])
     session.add(approval)
-    try:
-        session.flush()
-    except IntegrityError:
-        session.rollback()
-        raise Conflict(f"you approved revision {rev.n} already") from None
+    flush_or_conflict(session, f"you approved revision {rev.n} already")
     record(session, actor, action="approve", object_type="rail", object_id=rail.id, object_repr=rail.name,
            product_id=workflows.team_of_rail(session, rail)[1],
            after={"approval": approval.id, "revision": rev.n, "sha256": rev.sha256, "comment": approval.comment})
@@ -258,11 +253,7 @@ def _add_waiver(session: Session, actor: Actor, rail: Rail, rev: RailRevision, c
                     reason=reason[:4000], reviewer_id=actor.user_id, reviewer_name=actor.name,
                     carried_from_id=carried_from.id if carried_from else None)
     session.add(waiver)
-    try:
-        session.flush()
-    except IntegrityError:
-        session.rollback()
-        raise Conflict(f"check '{check_id}' of revision {rev.n} has a waiver already") from None
+    flush_or_conflict(session, f"check '{check_id}' of revision {rev.n} has a waiver already")
     after = {"waiver": waiver.id, "revision": rev.n, "sha256": rev.sha256, "check_id": check_id,
              "verdict": waiver.verdict, "value": check.get("value"), "limit": check.get("limit"),
              "unit": check.get("unit"), "reason": waiver.reason}

@@ -3,7 +3,6 @@
 from __future__ import annotations
 
 from sqlalchemy import select
-from sqlalchemy.exc import IntegrityError
 from sqlalchemy.orm import Session
 
 from server.auth import hash_password, new_token, token_digest
@@ -11,7 +10,7 @@ from server.models import ApiToken, Role, Team, TeamMember, User, utcnow
 from server.services.access import Actor, Permission
 from server.services.audit import record
 from server.services import workflows
-from server.services.errors import Conflict, Forbidden, Invalid, NotFound
+from server.services.errors import Conflict, Forbidden, Invalid, NotFound, flush_or_conflict
 
 __all__ = ["ROLES", "user_dict", "get_or_create_team", "create_user", "set_role", "list_users", "get_user_by_name",
            "create_token", "revoke_token", "list_tokens", "add_to_team", "get_user", "update_user", "me_dict",
@@ -53,11 +52,7 @@ def create_user(*, session: Session, actor: Actor, username: str, role: str, pas
     user = User(username=username, display_name=display_name or username, role=role,
                 password_hash=hash_password(password) if password else None)
     session.add(user)
-    try:
-        session.flush()
-    except IntegrityError:
-        session.rollback()
-        raise Conflict(f"a user named '{username}' exists already") from None
+    flush_or_conflict(session, f"a user named '{username}' exists already")
     for name in teams:
         team = get_or_create_team(session=session, actor=actor, name=name)
         session.add(TeamMember(team_id=team.id, user_id=user.id))
