@@ -229,7 +229,8 @@ def concurrent(url: str, app, ids: dict, clients: int, seconds: float, web_worke
               f"{len(ms) / wall:.1f} requests/s  (n={len(ms)}, errors={len(errors)})")
         print(f"    server time under that load: p50 {percentile(server_ms, 50):.1f} ms  "
               f"p95 {percentile(server_ms, 95):.1f} ms  p99 {percentile(server_ms, 99):.1f} ms "
-              "(the rest of the latency is queueing; clients and server share the machine's cores)")
+              "(inside the app: the requests in flight share the processes' CPU time, and the clients run on "
+              "the same cores)")
         if errors:
             print("   first errors:", errors[:5])
     finally:
