@@ -14,6 +14,11 @@ Rail, Supply, SeriesPath, Load, Timer, Switch, SoaCurve, Fet
 Every problem raises `DocumentError` naming the dotted field path and the reason. The
 web schema normally fills the defaults; they are filled here as well so that the
 analysis can be called directly on a hand-written document.
+
+Beyond the fields of DESIGN.md section 3, ``supply.uvlo_filter`` (s, >= 0, default
+`UVLO_FILTER` = 1 us; common practice, no source) is the time constant of the upstream
+UVLO's deglitch filter: the supply-dip check compares the UVLO with the switch-input
+voltage passed through a first-order lag of that time constant (0: unfiltered).
 """
 
 from __future__ import annotations
@@ -26,6 +31,7 @@ from .errors import DocumentError
 
 __all__ = [
     "SCHEMA",
+    "UVLO_FILTER",
     "DEFAULT_RULES",
     "RULE_DESCRIPTIONS",
     "Supply",
@@ -41,6 +47,10 @@ __all__ = [
 ]
 
 SCHEMA = "railsign.rail/1"
+
+# s: default time constant of the upstream UVLO's deglitch filter, a first-order lag;
+# comparators filter glitches over about a microsecond (common practice, no source)
+UVLO_FILTER = 1e-6
 
 DEFAULT_RULES: dict[str, float] = {
     "tj_headroom": 25.0,
@@ -92,6 +102,7 @@ class Supply:
     l_source: float
     i_max: float | None
     uvlo: float | None
+    uvlo_filter: float = 1e-6  # s: the UVLO's deglitch filter (common practice, no source)
 
 
 @dataclass(frozen=True)
@@ -242,6 +253,7 @@ def _read_supply(doc: dict) -> Supply:
         l_source=_number(sec, "l_source", w, default=0.0, minimum=0.0),
         i_max=_number(sec, "i_max", w, optional=True, above=0.0),
         uvlo=_number(sec, "uvlo", w, optional=True, minimum=0.0),
+        uvlo_filter=_number(sec, "uvlo_filter", w, default=UVLO_FILTER, minimum=0.0),
     )
 
 

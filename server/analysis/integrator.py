@@ -29,7 +29,18 @@ the limit (v_reg >= 0, i <= i_ref, one of them tight) is resolved by taking the 
 solution where the unregulated current exceeds it. A step in which a load switches on at
 v_on, or the switch enters or leaves regulation, is rejected until it is shorter than 1e-4
 of the time scale (so t_limit and the load's start are located to that accuracy). The Foster stage
-rises are advanced exactly with the power linear between stage points.
+rises are advanced exactly with the power linear between stage points, and so is the
+switch-input voltage as the upstream UVLO sees it, through a first-order lag of time
+constant ``uvlo_filter`` (`lag`), with its lowest value inside each step. The lag's input
+v_s - r i - l di/dt has v_s - r i linear between stage points and l di/dt at its mean over
+each stage interval (the stage currents' difference over the interval), so the inductive
+drop keeps its exact area l (i_1 - i_0). Where a load switching on steps the regulated
+reference up, the ideal FET is fully on for the few nanoseconds the inductance needs to
+take the new current: that notch is shorter than any step, and is put back with its
+depth (down to v_out + R_sw i) and its width (area / depth), so that a filter not much
+slower than the step still sees the right dip (`_uvlo_interval`). Interpolating the
+stage samples of v_in instead would understate the dip: a regulated stage's sample is
+already the mean over its interval.
 """
 
 from __future__ import annotations
@@ -41,6 +52,7 @@ from dataclasses import replace
 import numpy as np
 
 from .circuit import NO_LIMIT, R_OFF, Circuit
+from .lag import lag_advance, lag_advance_floats
 from .thermal import foster_advance, foster_advance_floats
 
 __all__ = ["RTOL", "SETTLE_BAND", "STOP_BAND", "integrate"]
@@ -82,6 +94,7 @@ class _ArrayOps:
         return ~m
 
     foster = staticmethod(foster_advance)
+    lag = staticmethod(lag_advance)
 
     @staticmethod
     def rise(theta):
@@ -105,6 +118,7 @@ class _FloatOps:
     not_ = staticmethod(operator.not_)
 
     foster = staticmethod(foster_advance_floats)
+    lag = staticmethod(lag_advance_floats)
 
     @staticmethod
     def rise(theta):
@@ -137,6 +151,7 @@ class _Model:
         self.g_free = cz.load in ("none", "constant_current")  # no load conductance
         self.cdvdt = self.c * cz.dvdt
         self.has_l = bool(np.any(cz.l > 0))
+        self.tau_uv = float(cz.uvlo_filter)
 
     def take(self, rows) -> "_Model":
         return _Model(self.cz.take(rows), self.B)
@@ -280,9 +295,10 @@ class _State:
 
 _STATE = ("t", "h", "grow", "i", "vc", "vout", "ic", "fi", "p", "exc", "lim", "theta", "tj", "r_on", "started",
           "i_scale", "atol_i", "atol_v", "t_est", "h_evt", "steps", "rows", "active",
-          "i_peak", "t_i_peak", "p_peak", "v_pk", "i_pk", "e_fet", "t_limit", "v_in_min", "t_settle", "tj_peak")
+          "i_peak", "t_i_peak", "p_peak", "v_pk", "i_pk", "e_fet", "t_limit", "v_in_min", "t_settle", "tj_peak",
+          "v_flt", "v_flt_min")
 FIGURES = ("i_peak", "t_i_peak", "p_peak", "v_pk", "i_pk", "e_fet", "t_limit", "v_in_min", "t_settle",
-           "tj_peak", "t", "tj", "steps", "active")
+           "tj_peak", "t", "tj", "steps", "active", "i", "v_flt_min")
 
 
 def _initial(model: _Model, t_est, i_typ, rows, active, t_amb: float) -> _State:
@@ -333,6 +349,9 @@ def _initial(model: _Model, t_est, i_typ, rows, active, t_amb: float) -> _State:
     vals["i_pk"] = vals["i"]
     vals["tj_peak"] = vals["tj"]
     vals["v_ds0"] = np.where(with_l, cz.v_s, vds0)
+    # the UVLO filter has seen the supply before the switch turns on
+    vals["v_flt"] = np.array(cz.v_s, dtype=float)
+    vals["v_flt_min"] = np.array(cz.v_s, dtype=float)
     k = cz.r_th.shape[0]
     if B is _FloatOps:
         for key, val in vals.items():
@@ -495,8 +514,36 @@ def _run(model: _Model, S: _State, final: dict, wave, rec, record, t_amb: float,
         if m.limit:
             dtl = _lim_time(B, S.exc, s1.exc, gh) + _lim_time(B, s1.exc, s2.exc, dt1)
             S.t_limit = B.where(ok, S.t_limit + dtl, S.t_limit)
-        v_in = B.minimum(s1.vout + s1.vds, s2.vout + s2.vds)
-        S.v_in_min = B.where(ok, B.minimum(S.v_in_min, v_in), S.v_in_min)
+        # lowest switch input: the stage samples, and the floor of a notch shorter than the step
+        v_lo = B.minimum(s1.vout + s1.vds, s2.vout + s2.vds)
+        w_0 = m.v_s - m.r * i
+        w_g = m.v_s - m.r * s1.i
+        w_1 = m.v_s - m.r * s2.i
+        cut_g = cut_1 = None
+        if m.has_l and m.limit and s1.on is not None:
+            # a load switching on while the FET regulates steps the reference up
+            on_0 = S.started | (vout > m.v_on)
+            floor_g = s1.vout + s1.r_sw * s1.i
+            floor_1 = s2.vout + s2.r_sw * s2.i
+            cut_g = _notch(B, s1.lim & s1.on & B.not_(on_0), w_g, floor_g, m.l * (s1.i - i), gh)
+            cut_1 = _notch(B, s2.lim & s2.on & B.not_(s1.on), w_1, floor_1, m.l * (s2.i - s1.i), dt1)
+            if cut_g is not None:
+                v_lo = B.where(cut_g[0], B.minimum(v_lo, floor_g), v_lo)
+            if cut_1 is not None:
+                v_lo = B.where(cut_1[0], B.minimum(v_lo, floor_1), v_lo)
+        S.v_in_min = B.where(ok, B.minimum(S.v_in_min, v_lo), S.v_in_min)
+        if m.tau_uv > 0.0:
+            # the switch input v_s - r i - l di/dt through the UVLO's first-order filter
+            if m.has_l:
+                y_g, low_g = _uvlo_interval(B, S.v_flt, w_0, w_g, m.l * (s1.i - i), gh, m.tau_uv, cut_g,
+                                            floor_g if cut_g is not None else None)
+                y_1, low_1 = _uvlo_interval(B, y_g, w_g, w_1, m.l * (s2.i - s1.i), dt1, m.tau_uv, cut_1,
+                                            floor_1 if cut_1 is not None else None)
+            else:
+                y_g, low_g = B.lag(S.v_flt, w_0, w_g, gh, m.tau_uv)
+                y_1, low_1 = B.lag(y_g, w_g, w_1, dt1, m.tau_uv)
+            S.v_flt_min = B.where(ok, B.minimum(S.v_flt_min, B.minimum(low_g, low_1)), S.v_flt_min)
+            S.v_flt = B.where(ok, y_1, S.v_flt)
         S.tj_peak = B.where(ok, B.maximum(S.tj_peak, B.maximum(tj_g, tj_1)), S.tj_peak)
 
         r_on1 = m.r_on(tj_1)
@@ -569,6 +616,47 @@ def _compact(model: _Model, S: _State, final: dict):
         if isinstance(val, np.ndarray) and val.ndim >= 1 and val.shape[0] == n_old:
             setattr(S, name, val[keep])
     return model.take(keep), S
+
+
+def _notch(B, event, w_b, floor, area, dt):
+    """Where the regulated reference stepped up inside a stage interval: the notch.
+
+    The ideal FET is then fully on until the inductance carries the new current: the
+    switch input falls to ``floor`` = v_out + R_sw i (V) for area / (w_b - floor) seconds,
+    ``area`` = l (i_b - i_a) (V s) being the inductive drop's integral, w_b = v_s - r i_b
+    (V). Returns None where no row has such a notch, else (mask, width in s) for the rows
+    whose notch is shorter than the interval (``dt``, s): the others resolve it.
+    """
+    if not B.any(event):
+        return None
+    depth = w_b - floor
+    width = area / B.where(depth > 0.0, depth, 1.0)
+    use = event & (depth > 0.0) & (width > 0.0) & (width < dt)
+    if not B.any(use):
+        return None
+    return use, B.where(use, width, 0.5 * dt)
+
+
+def _uvlo_interval(B, y, w_a, w_b, area, dt, tau: float, cut, floor):
+    """The UVLO filter over one stage interval of length dt (s).
+
+    The filter input is v_s - r i, linear from w_a to w_b (V), less the inductive drop
+    l di/dt whose integral over the interval is ``area`` = l (i_b - i_a) (V s). The drop
+    is taken at its mean over the interval, except in the rows of ``cut`` (from `_notch`),
+    where it is the notch down to ``floor`` at the end of the interval. Either way its
+    area is exact; the notch also has its depth, which matters when the filter is not
+    much slower than the interval. Returns the filter output at the end and its lowest
+    value inside the interval (V).
+    """
+    mean = area / dt
+    y1, low = B.lag(y, w_a - mean, w_b - mean, dt, tau)
+    if cut is None:
+        return y1, low
+    use, width = cut
+    lead = dt - width
+    y_m, low_m = B.lag(y, w_a, w_a + (w_b - w_a) * (lead / dt), lead, tau)
+    y_n, low_n = B.lag(y_m, floor, floor, width, tau)
+    return B.where(use, y_n, y1), B.where(use, B.minimum(low_m, low_n), low)
 
 
 def _lim_time(B, e0, e1, dt):
