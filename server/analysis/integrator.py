@@ -21,26 +21,29 @@ circuits", IEEE Trans. CAD 4 (1985) 436-451; M. E. Hosea and L. F. Shampine, "An
 and implementation of TR-BDF2", Appl. Numer. Math. 20 (1996) 21-37, whose local error
 estimate 2 C h (f_n / gamma - f_g / (gamma (1 - gamma)) + f_1 / (1 - gamma)),
 C = (-3 gamma^2 + 4 gamma - 2) / (12 (2 - gamma)), controls the step (step factor
-0.9 err^(-1/3), limited to [0.2, 4]).
+0.9 err^(-1/3), limited to [0.2, 8], the bounds RADAU5 uses by default: E. Hairer and
+G. Wanner, "Solving Ordinary Differential Equations II", section IV.8; from memory).
 
 Each stage is a 2x2 linear system in (i, v_c): the load and the limit reference are
 linearised at a second-order predictor of v_out (one Newton step), the complementarity of
 the limit (v_reg >= 0, i <= i_ref, one of them tight) is resolved by taking the regulated
 solution where the unregulated current exceeds it. A step in which a load switches on at
 v_on, or the switch enters or leaves regulation, is rejected until it is shorter than 1e-4
-of the time scale (so t_limit and the load's start are located to that accuracy). The Foster stage
-rises are advanced exactly with the power linear between stage points, and so is the
-switch-input voltage as the upstream UVLO sees it, through a first-order lag of time
-constant ``uvlo_filter`` (`lag`), with its lowest value inside each step. The lag's input
-v_s - r i - l di/dt has v_s - r i linear between stage points and l di/dt at its mean over
-each stage interval (the stage currents' difference over the interval), so the inductive
-drop keeps its exact area l (i_1 - i_0). Where a load switching on steps the regulated
-reference up, the ideal FET is fully on for the few nanoseconds the inductance needs to
-take the new current: that notch is shorter than any step, and is put back with its
-depth (down to v_out + R_sw i) and its width (area / depth), so that a filter not much
-slower than the step still sees the right dip (`_uvlo_interval`). Interpolating the
-stage samples of v_in instead would understate the dip: a regulated stage's sample is
-already the mean over its interval.
+of the time scale (so t_limit and the load's start are located to that accuracy); the
+steps that close in on the event aim at it from the stage values and do not grow back
+until it is crossed, after which the error control resumes the step size the event cut
+(`_event_steps`). The Foster stage rises are advanced exactly with the power linear
+between stage points, and so is the switch-input voltage as the upstream UVLO sees it,
+through a first-order lag of time constant ``uvlo_filter`` (`lag`), with its lowest value
+inside each step. The lag's input v_s - r i - l di/dt has v_s - r i linear between stage
+points and l di/dt at its mean over each stage interval (the stage currents' difference
+over the interval), so the inductive drop keeps its exact area l (i_1 - i_0). Where a load
+switching on steps the regulated reference up, the ideal FET is fully on for the few
+nanoseconds the inductance needs to take the new current: that notch is shorter than any
+step, and is put back with its depth (down to v_out + R_sw i) and its width (area /
+depth), so that a filter not much slower than the step still sees the right dip
+(`_uvlo_interval`). Interpolating the stage samples of v_in instead would understate the
+dip: a regulated stage's sample is already the mean over its interval.
 """
 
 from __future__ import annotations
@@ -152,17 +155,25 @@ class _Model:
         self.cdvdt = self.c * cz.dvdt
         self.has_l = bool(np.any(cz.l > 0))
         self.tau_uv = float(cz.uvlo_filter)
+        # shared constants looked up once (the float back end calls these every stage)
+        self.floats = ops is _FloatOps
+        self.mode = cz.mode
+        self.regulates = cz.mode in ("slew", "power_limit")
+        self.i_nom, self.p_load, self.p_lim = cz.i_nom, cz.p_load, cz.p_lim
+        self.g_load = 1.0 / cz.r_load if cz.load == "resistive" else 0.0
+        self.rds_on, self.alpha = cz.rds_on, cz.alpha
 
     def take(self, rows) -> "_Model":
         return _Model(self.cz.take(rows), self.B)
 
     def r_on(self, tj):
-        cz = self.cz
-        return cz.rds_on * self.B.maximum(1.0 + cz.alpha * (tj - 25.0), 0.1)
+        return self.rds_on * self.B.maximum(1.0 + self.alpha * (tj - 25.0), 0.1)
 
     def switch_r(self, t, r_on):
         """Switch resistance: log-linear from R_OFF to r_on over t_on, then r_on."""
         if self.t_on > 0.0:
+            if self.floats and t >= self.t_on:
+                return r_on
             B = self.B
             x = B.minimum(t * (1.0 / self.t_on), 1.0)
             return B.exp(_LOG_ROFF + x * (B.log(r_on) - _LOG_ROFF))
@@ -175,34 +186,35 @@ class _Model:
         undervoltage lockout has hysteresis, so the dip its start causes does not turn it
         off again).
         """
-        B, cz = self.B, self.cz
+        B = self.B
         if self.load == "none":
             return 0.0, 0.0, None
         if self.load == "resistive":
-            g = 1.0 / cz.r_load
+            g = self.g_load
             if self.v_on == 0.0:
                 return 0.0, g, None
             on = started | (v > self.v_on)
             return 0.0, B.where(on, g, 0.0), on
         on = started | (v > self.v_on)
         if self.load == "constant_current":
-            return B.where(on, cz.i_nom, 0.0), 0.0, on
+            return B.where(on, self.i_nom, 0.0), 0.0, on
         vv = B.maximum(v, self.v_on)
-        a = B.where(on, 2.0 * cz.p_load / vv, 0.0)
+        a = B.where(on, 2.0 * self.p_load / vv, 0.0)
         return a, -0.5 * a / vv, on
 
     def reference(self, v_p, a, g):
         """Limit reference linearised at the predictor v_p: i_ref ~ q + s v_out."""
-        B, cz = self.B, self.cz
-        if cz.mode == "slew":
+        B = self.B
+        if self.mode == "slew":
             q = self.cdvdt + a
             use_lim = q + g * v_p > self.i_lim
             return B.where(use_lim, self.i_lim, q), B.where(use_lim, 0.0, g)
-        if cz.mode == "power_limit":
+        if self.mode == "power_limit":
+            p_lim = self.p_lim
             vd = B.maximum(self.v_s - v_p, 0.0)
-            disc = vd * vd - 4.0 * self.r * cz.p_lim
+            disc = vd * vd - 4.0 * self.r * p_lim
             root = B.sqrt(B.maximum(disc, 0.0))
-            ip = B.where(disc > 0.0, 2.0 * cz.p_lim / B.maximum(vd + root, 1e-300), NO_LIMIT)
+            ip = B.where(disc > 0.0, 2.0 * p_lim / B.maximum(vd + root, 1e-300), NO_LIMIT)
             use_lim = ip >= self.i_lim
             s = ip / B.maximum(root, 1e-3 * vd + 1e-300)
             return B.where(use_lim, self.i_lim, ip - s * v_p), B.where(use_lim, 0.0, s)
@@ -210,17 +222,16 @@ class _Model:
 
     def final_output(self, r_on):
         """DC operating point (v_f, i_f) with the switch fully on at resistance r_on."""
-        cz = self.cz
         rt = self.r + r_on
         if self.load == "none":
             return self.v_s, 0.0
         if self.load == "resistive":
-            i = self.v_s / (rt + cz.r_load)
+            i = self.v_s / (rt + self.cz.r_load)
         elif self.load == "constant_current":
-            i = cz.i_nom
+            i = self.i_nom
         else:
-            disc = self.v_s * self.v_s - 4.0 * rt * cz.p_load
-            i = 2.0 * cz.p_load / (self.v_s + self.B.sqrt(self.B.maximum(disc, 0.0)))
+            disc = self.v_s * self.v_s - 4.0 * rt * self.p_load
+            i = 2.0 * self.p_load / (self.v_s + self.B.sqrt(self.B.maximum(disc, 0.0)))
         return self.v_s - rt * i, i
 
     def stage(self, ts, dh, rhs_i, rhs_v, v_p, r_on, i_prev, dt_prev, started) -> _Stage:
@@ -258,7 +269,7 @@ class _Model:
         if self.limit:
             q, s = self.reference(v_p, a, g)
             den_l = 1.0 - s * (ai - avw * m21)
-            if self.cz.mode in ("slew", "power_limit"):
+            if self.regulates:
                 weak = den_l < 0.1
                 st.bad = weak if st.bad is None else (st.bad | weak)
                 den_l = B.where(weak, 1.0, den_l)
@@ -293,7 +304,7 @@ class _State:
     """Working values of the rows still being integrated (arrays, or floats for one row)."""
 
 
-_STATE = ("t", "h", "grow", "i", "vc", "vout", "ic", "fi", "p", "exc", "lim", "theta", "tj", "r_on", "started",
+_STATE = ("t", "h", "grow", "phase", "h_back", "h_cut", "t_hi", "aimed", "i", "vc", "vout", "ic", "fi", "p", "exc", "lim", "theta", "tj", "r_on", "started",
           "i_scale", "atol_i", "atol_v", "t_est", "h_evt", "steps", "rows", "active",
           "i_peak", "t_i_peak", "p_peak", "v_pk", "i_pk", "e_fet", "t_limit", "v_in_min", "t_settle", "tj_peak",
           "v_flt", "v_flt_min")
@@ -324,7 +335,12 @@ def _initial(model: _Model, t_est, i_typ, rows, active, t_amb: float) -> _State:
         "r_on": r_on0,
         "t": zero,
         "h": 1e-7 * t_est,
-        "grow": np.full(n, 4.0),
+        "grow": np.full(n, 8.0),
+        "phase": np.zeros(n, np.int8),
+        "h_back": zero,
+        "t_hi": zero,
+        "h_cut": zero,
+        "aimed": np.zeros(n, bool),
         "h_evt": 1e-4 * t_est,
         "t_est": t_est,
         "atol_i": 1e-6 * i_typ,
@@ -462,20 +478,37 @@ def _run(model: _Model, S: _State, final: dict, wave, rec, record, t_amb: float,
         bad = B.not_(err <= 1e300)
         if s1.bad is not None:
             bad = bad | s1.bad | s2.bad
+        evt = None
         if s1.event is not None:
             # a load switching on inside the step: against the predictor of either stage,
             # or between the start of the step and its end
             on_n = S.started | (vout > m.v_on)
-            bad = bad | ((s1.event | s2.event | (s2.on ^ on_n)) & (h > S.h_evt))
+            evt = s1.event | s2.event | (s2.on ^ on_n)
         if m.limit:
-            # the switch enters or leaves regulation inside the step: shorten it until the
-            # transition is located within 1e-4 of the time scale (t_limit to that accuracy)
+            # the switch enters or leaves regulation inside the step
             turn = (S.lim ^ s1.lim) | (s1.lim ^ s2.lim)
-            bad = bad | (turn & (h > S.h_evt))
+            evt = turn if evt is None else (evt | turn)
         ok = active & (err <= 1.0) & B.not_(bad)
-        fac = B.minimum(B.maximum(0.9 * B.maximum(err, 1e-12) ** (-1.0 / 3.0), 0.2), S.grow)
-        S.h = B.where(ok, h * fac, B.where(bad, 0.25 * h, h * B.maximum(fac, 0.1)))
-        S.grow = B.where(ok, 4.0, 1.0)  # no growth right after a rejected step (Hairer & Wanner)
+        if evt is not None:
+            # ... is located within 1e-4 of the time scale (t_limit and the load's start to
+            # that accuracy): a step holding an event must not be longer than h_evt
+            long_evt = evt & (h > S.h_evt)
+            ok = ok & B.not_(long_evt)
+        fac_err = 0.9 * B.maximum(err, 1e-12) ** (-1.0 / 3.0)
+        fac = B.minimum(B.maximum(fac_err, 0.2), S.grow)
+        h_next = B.where(ok, h * fac, B.where(bad, 0.25 * h, h * B.maximum(fac, 0.1)))
+        if evt is not None:
+            hit = long_evt & B.not_(bad)
+            if B.any(hit) or B.any(S.phase == 1):
+                frac = None
+                if s1.event is not None:
+                    frac = _crossing(B, vout - m.v_on, s1.vout - m.v_on, s2.vout - m.v_on)
+                if m.limit:
+                    f_turn = _crossing(B, S.exc, s1.exc, s2.exc)
+                    frac = f_turn if frac is None else B.minimum(frac, f_turn)
+                h_next = _event_steps(B, S, ok, hit, evt, frac, t, h, h_next, fac_err)
+        S.h = h_next
+        S.grow = B.where(ok, 8.0, 1.0)  # no growth right after a rejected step (Hairer & Wanner)
         if not B.any(ok):
             continue
 
@@ -657,6 +690,53 @@ def _uvlo_interval(B, y, w_a, w_b, area, dt, tau: float, cut, floor):
     y_m, low_m = B.lag(y, w_a, w_a + (w_b - w_a) * (lead / dt), lead, tau)
     y_n, low_n = B.lag(y_m, floor, floor, width, tau)
     return B.where(use, y_n, y1), B.where(use, B.minimum(low_m, low_n), low)
+
+
+def _crossing(B, f0, f1, f2):
+    """Fraction of the step where f, linear between the step start (f0), the trapezoidal
+    stage (f1, at gamma) and the end (f2), first changes sign; 2 where it does not."""
+    p0, p1, p2 = f0 > 0.0, f1 > 0.0, f2 > 0.0
+    c01 = p0 ^ p1
+    c12 = p1 ^ p2
+    x01 = _G * f0 / B.where(c01, f0 - f1, 1.0)
+    x12 = _G + (1.0 - _G) * f1 / B.where(c12, f1 - f2, 1.0)
+    return B.where(c01, x01, B.where(c12, x12, 2.0))
+
+
+def _event_steps(B, S: _State, ok, hit, evt, frac, t, h, h_next, fac_err):
+    """Next step sizes while an event (a load switching on, the switch entering or
+    leaving regulation) is being located, and the bookkeeping of each row.
+
+    A step longer than h_evt that holds an event is rejected (``hit``); its end bounds the
+    event (``S.t_hi``). Where the stage values put the event beyond the first quarter of
+    the step (its sign change, linear between them: ``frac``) the next step ends half an
+    h_evt before that estimate and, once accepted, the one after it tries the rest of the
+    bracket, short enough by then to cross the event. Otherwise the step is cut to a
+    quarter, and the accepted steps keep that size (they do not grow back) until the event
+    is reached (growing back to it after a cut for the error). Never shorter than h_evt.
+    When an accepted step holds the event (``evt``) the steps grow back at once, by the
+    error control's own factor 0.9 err^(-1/3) (``fac_err``) without its limit of x4, up to
+    the step size the event cut (``S.h_back``).
+    """
+    h_evt = S.h_evt
+    locating = S.phase == 1
+    land = B.where(frac < 1.0, frac * h - 0.5 * h_evt, 0.0)
+    aimed = land >= 0.25 * h
+    S.h_back = B.where(hit & B.not_(locating), h, S.h_back)
+    S.t_hi = B.where(hit, t + h, S.t_hi)
+    S.aimed = B.where(hit, aimed, S.aimed)
+    S.phase = B.where(hit, 1, S.phase)
+    h_cut = B.maximum(B.where(aimed, land, 0.25 * h), h_evt)
+    S.h_cut = B.where(hit, h_cut, S.h_cut)
+    h_next = B.where(hit, h_cut, h_next)
+    # crossed it, or passed the bracket without meeting it (an event the predictor saw)
+    crossed = ok & (evt | (t + h >= S.t_hi))
+    rest = B.maximum(S.t_hi - (t + h), h_evt)
+    go_on = B.where(S.aimed, rest, B.minimum(B.minimum(h_next, S.h_cut), rest))
+    resume = B.maximum(B.minimum(S.h_back, h * fac_err), h_evt)
+    h_next = B.where(ok & (S.phase == 1), B.where(crossed, resume, go_on), h_next)
+    S.phase = B.where(crossed, 0, S.phase)
+    return h_next
 
 
 def _lim_time(B, e0, e1, dt):

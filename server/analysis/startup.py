@@ -39,8 +39,10 @@ filter. v_supply_min is therefore the switch input through a first-order lag of 
 constant uvlo_filter (default 1 us, common practice, no source), tau dy/dt + y = v_in,
 starting from y = v_s (the supply before the switch turns on) and integrated exactly per
 step (`lag`; v_s - r i linear between stage points, l di/dt at its mean over each stage
-interval so that a notch keeps its area l delta-i); v_supply_min_raw is the lowest
-unfiltered value at the stage points. With uvlo_filter = 0 the two are the same number.
+interval so that a notch keeps its area l delta-i, and the notch of a reference step is
+put back with its depth and width); v_supply_min_raw is the lowest unfiltered value: the
+stage points and the floor of such a notch. With uvlo_filter = 0 the two are the same
+number.
 
 Method
 ------
