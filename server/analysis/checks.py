@@ -119,10 +119,13 @@ def evaluate_checks(rail: Rail, rules: dict, fig: dict) -> dict:
     ok = fig["status_ok"]
     out = {}
 
+    def row(x):
+        if isinstance(x, np.ndarray) and x.shape == (n,):
+            return x.astype(float)  # a copy
+        return np.full(n, float(x)) if np.ndim(x) == 0 else np.broadcast_to(np.asarray(x, float), (n,)).copy()
+
     def put(cid, value, limit, edge, verdict=None):
-        value = np.broadcast_to(np.asarray(value, dtype=float), (n,)).copy()
-        limit = np.broadcast_to(np.asarray(limit, dtype=float), (n,)).copy()
-        edge = np.broadcast_to(np.asarray(edge, dtype=float), (n,)).copy()
+        value, limit, edge = row(value), row(limit), row(edge)
         if verdict is None:
             verdict = _grade(_SPEC[cid].sense, value, limit, edge)
         out[cid] = {"value": value, "limit": limit, "edge": edge, "verdict": np.asarray(verdict, np.int8)}

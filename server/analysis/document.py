@@ -27,6 +27,8 @@ import math
 from dataclasses import dataclass
 from typing import Any
 
+import numpy as np
+
 from .errors import DocumentError
 
 __all__ = [
@@ -379,12 +381,15 @@ def _read_curves(soa: dict, t_case: float) -> tuple[SoaCurve, ...]:
 
 def _check_curve_order(curves: list[SoaCurve]) -> None:
     """A longer pulse must not allow more current than a shorter one at any vds."""
-    from .soa import curve_current  # local import: soa depends on this module's types
-
     vs = sorted({v for c in curves for v, _ in c.points})
+    x = np.log(vs)
     prev = prev_curve = None
     for c in curves:
-        cur = [curve_current(c, v) for v in vs]
+        # the current the curve allows at each vs: log-log interpolation, 0 beyond its
+        # last point (as soa.curve_current)
+        pts = np.log(np.asarray(c.points, dtype=float))
+        cur = np.where(x > pts[-1, 0] * (1 + 1e-12) + 1e-12, 0.0, np.exp(np.interp(x, pts[:, 0], pts[:, 1])))
+        cur = cur.tolist()
         if prev is not None:
             v_end = prev_curve.points[-1][0]  # compare where the shorter pulse is drawn
             for v, a, b in zip(vs, prev, cur):
