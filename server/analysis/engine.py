@@ -59,6 +59,8 @@ def _clean(obj: Any) -> Any:
     if isinstance(obj, dict):
         return {str(k): _clean(v) for k, v in obj.items()}
     if isinstance(obj, (list, tuple)):
+        if obj and all(type(v) is float for v in obj):  # waveform samples
+            return [v if math.isfinite(v) else None for v in obj]
         return [_clean(v) for v in obj]
     if isinstance(obj, (bool, np.bool_)):
         return bool(obj)
@@ -254,7 +256,7 @@ def analyze_rail(
                         "v_drop": g("steady_v_drop"), "stable": bool(g("steady_stable"))}
 
     if headroom:
-        head = capacitance_headroom(rail, rules_used, params, checks)
+        head = capacitance_headroom(rail, rules_used, params, checks, fig)
         head.update(limit_headroom(rail, rules_used, v_sc=rail.supply.v_max, t_fault=t_max))
     else:
         head = {"c_max": None, "c_max_check": None, "c_max_note": "Not computed.", "c_max_excluded": [],
