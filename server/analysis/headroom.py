@@ -15,21 +15,21 @@ Method
 ------
 Capacitance: the normalised margin m_k of every check that depends on C
 (`checks.C_DEPENDENT`, each >= 1 exactly when it passes) is a continuous function of C,
-and close to a power law in it (where a limit holds the current the start-up stretches in
-time in proportion to C; where a ramp sets the time the capacitor current grows in
-proportion to C; the SOA and Zth curves are power laws piecewise). The search therefore
-works on the lines g_k(x) = ln m_k, x = ln C, one per check, and steps to where the first
-of them falls to ln 1.001, the middle of the stopping window below: a secant method per
-check (G. Dahlquist and A. Bjorck, "Numerical Methods", section 6.2) whose lines pass
-through the two latest transients. The first step, with only the nominal run known, takes
-the slopes those proportionalities give (`_first_slopes`). Steps are kept inside the
-bracket once one exists (with a bisection whenever an iteration shrinks neither the
-bracket by 40 % nor the margin error by 4: a safeguarded secant), grow C at most x4 or
-shrink it at most /4 at a time, and stay within c_nom / 64 .. c_nom * 4^10. Each trial
-runs the full start-up transient, one row on the float back end: with a handful of rows a
-NumPy call costs more than the arithmetic it does (a batch of 16 candidate rows on the
-array back end costs about ten single-row transients), and the secant needs 1 to 3 trials
-(tests/benchmarks/bench_analysis.py measures both).
+and close to a simple one: where a limit holds the current the start-up stretches in time
+in proportion to C and, the SOA and Zth curves being power laws piecewise, ln m_k is
+nearly straight in ln C; where a ramp sets the time the current is C dv/dt plus the
+load's, and 1 / m_k is nearly straight in C (`_first_slopes`). The search works on one
+such line per check, in x = ln C, and steps to where the first of them falls to ln 1.001,
+the middle of the stopping window below: a secant method per check (G. Dahlquist and A.
+Bjorck, "Numerical Methods", section 6.2) whose lines pass through the two latest
+transients; the first step, with only the nominal run known, takes the slopes the scaling
+gives. Steps are kept inside the bracket once one exists (with a bisection whenever an
+iteration shrinks neither the bracket by 40 % nor the margin error by 4: a safeguarded
+secant), grow C at most x4 or shrink it at most /4 at a time, and stay within c_nom / 64
+.. c_nom * 4^10. Each trial runs the full start-up transient, one row on the float back
+end: with a handful of rows a NumPy call costs more than the arithmetic it does (a batch
+of 16 candidate rows on the array back end costs about fifteen single-row transients), and
+the secant needs 1 to 3 trials (tests/benchmarks/bench_analysis.py measures both).
 
 Tolerance: the reported c_max is a capacitance whose transient passes every
 capacitance-dependent check, and either a capacitance at most 0.5 % larger fails (the
@@ -103,21 +103,24 @@ def _margins(rail: Rail, checks: dict, row: int) -> dict:
     return out
 
 
-def _first_slopes(rail: Rail, fig: dict | None, use: list) -> dict:
-    """d ln m / d ln C of each check, from the nominal run and how the start-up scales with C.
+def _first_slopes(rail: Rail, fig: dict | None, use: list) -> tuple[dict, dict]:
+    """d ln m / d ln C of each check at c_nom, and the kind of line it lies on.
 
     Where a limit holds the current (current or power limit, a slew whose ramp current
     reaches i_limit, an instant hard start whose time scale is R C) the start-up stretches
     in time in proportion to C: the SOA and Zth margins follow their curves' log-log
     slopes at the equivalent pulse, the timer margin falls as 1 / C, the peak current
-    stays. Where a ramp sets the time (slew, a hard start over t_on) the capacitor's share
-    of the current grows in proportion to C at a fixed time scale: SOA, Tj and peak-current
-    margins fall with that share, the timer margin stays. The supply dip is taken flat.
-    These slopes only place the first trial; the secant takes over from there.
+    stays; these lines are straight in (ln C, ln m), kind "log". Where a ramp sets the
+    time (slew, a hard start over t_on) the current is C dv/dt plus the load's at a fixed
+    time scale, so the SOA, Tj and peak-current margins go as 1 / current: straight in
+    (C, 1 / m), kind "share", with slope -f at c_nom, f the capacitor's share of the
+    current there; the timer margin stays. The supply dip is taken flat. These only place
+    the first trial; the secant takes over from there, on the same kinds of line.
     """
     slopes = {cid: -1.0 for cid in use}
+    kinds = {cid: "log" for cid in use}
     if fig is None:
-        return slopes
+        return slopes, kinds
     sw = rail.switch
     t_eq, v_pk = float(fig["pulse_t_equiv"][0]), float(fig["v_ds_at_peak"][0])
     i_pk, i_at = float(fig["i_peak"][0]), float(fig["i_at_peak"][0])
@@ -145,31 +148,54 @@ def _first_slopes(rail: Rail, fig: dict | None, use: list) -> dict:
         f = share(i_at, rail.supply.v_nom - v_pk)  # the capacitor's share at the peak power
         for cid in ("startup_soa", "startup_tj"):
             if cid in slopes:
-                slopes[cid] = -f
+                slopes[cid], kinds[cid] = -f, "share"
         if "timer_startup" in slopes:
             slopes["timer_startup"] = 0.0
         cur = -share(i_pk, float(fig["v_final"][0]))
     for cid in ("supply_current", "fet_pulse_current"):
         if cid in slopes:
             slopes[cid] = cur
+            if not limited:
+                kinds[cid] = "share"
     if "supply_dip" in slopes:
         slopes["supply_dip"] = 0.0
-    return slopes
+    return slopes, kinds
 
 
-def _aim(x_b: float, g_b: dict, slopes: dict) -> float:
-    """x where the first falling line g_k(x) = g_b[k] + slope_k (x - x_b) reaches _AIM
-    (inf where no line falls)."""
+def _secant(kind: str, xa: float, ga: float, xb: float, gb: float) -> float:
+    """d ln m / d ln C at b of the line of ``kind`` through (xa, ga) and (xb, gb)."""
+    if kind == "share":  # 1 / m linear in C
+        ya, yb = math.exp(-ga), math.exp(-gb)
+        ca, cb = math.exp(xa), math.exp(xb)
+        return -(yb - ya) / (cb - ca) * cb / yb
+    return (gb - ga) / (xb - xa)
+
+
+def _line(kind: str, xb: float, gb: float, slope: float, x: float) -> float:
+    """ln m at x on the line of ``kind`` through (xb, gb) with d ln m / d ln C = slope there."""
+    if kind == "share":
+        y = math.exp(-gb) * (1.0 - slope * (math.exp(x - xb) - 1.0))
+        return -math.log(y) if y > 0.0 else _G_CAP
+    return gb + slope * (x - xb)
+
+
+def _aim(x_b: float, g_b: dict, slopes: dict, kinds: dict) -> float:
+    """x where the first falling line (through x_b, of each check's kind) reaches _AIM
+    (inf where no line falls; -inf where one never rises to it at any C)."""
     best = math.inf
     for cid, s in slopes.items():
         if s < -1e-9:
-            best = min(best, x_b + (_AIM - g_b[cid]) / s)
+            if kinds[cid] == "share":  # 1 / m = (1 / m_b) (1 - s (C / C_b - 1))
+                ratio = 1.0 + (math.exp(g_b[cid] - _AIM) - 1.0) / -s
+                best = min(best, x_b + math.log(ratio) if ratio > 0.0 else -math.inf)
+            else:
+                best = min(best, x_b + (_AIM - g_b[cid]) / s)
     return best
 
 
-def _unfixable(g: dict, slopes: dict, floor: float, x0: float) -> bool:
+def _unfixable(g: dict, slopes: dict, kinds: dict, floor: float, x0: float) -> bool:
     """Whether a check failing at x0 would, on its line, still fail at x = floor."""
-    return any(g[cid] < 0.0 and g[cid] + slopes[cid] * (floor - x0) < 0.0 for cid in slopes)
+    return any(g[cid] < 0.0 and _line(kinds[cid], x0, g[cid], slopes[cid], floor) < 0.0 for cid in slopes)
 
 
 def capacitance_headroom(rail: Rail, rules: dict, params: RowParams, nominal_checks: dict,
@@ -218,10 +244,10 @@ def capacitance_headroom(rail: Rail, rules: dict, params: RowParams, nominal_che
         return out
     x0 = math.log(c0)
     x_tiny = x0 - _DOWN
-    first = _first_slopes(rail, nominal_fig, use)
-    search = _CSearch(rail, rules, params, x0, g_nom, first)
+    first, kinds = _first_slopes(rail, nominal_fig, use)
+    search = _CSearch(rail, rules, params, x0, g_nom, first, kinds)
     # checks that fail at c_nom and whose lines still fail at c_nom / 64
-    suspects = [cid for cid in use if g_nom[cid] < 0.0 and _unfixable(g_nom, {cid: first[cid]}, x_tiny, x0)]
+    suspects = [cid for cid in use if g_nom[cid] < 0.0 and _unfixable(g_nom, {cid: first[cid]}, kinds, x_tiny, x0)]
     excluded, basis = [], None
     if suspects and len(suspects) < len(use):
         rest = [cid for cid in use if cid not in suspects]
@@ -260,9 +286,10 @@ def capacitance_headroom(rail: Rail, rules: dict, params: RowParams, nominal_che
 class _CSearch:
     """The secant search of the module docstring over ln C, with every transient kept."""
 
-    def __init__(self, rail: Rail, rules: dict, params: RowParams, x0: float, g_nom: dict, first: dict) -> None:
+    def __init__(self, rail: Rail, rules: dict, params: RowParams, x0: float, g_nom: dict, first: dict,
+                 kinds: dict) -> None:
         self.rail, self.rules, self.params = rail, rules, params
-        self.x0, self.g_nom, self.first = x0, g_nom, first
+        self.x0, self.g_nom, self.first, self.kinds = x0, g_nom, first, kinds
         self.points: dict[float, dict] = {x0: g_nom}
         self.order = [x0]  # the search's own points, latest last
         self.trials = 0
@@ -305,11 +332,12 @@ class _CSearch:
             # or when they lie more than x4 apart, the first slopes at the nominal point
             xb = order[-1]
             xa = order[-2] if len(order) > 1 else None
+            kinds = self.kinds
             if xa is not None and xa != xb and abs(xa - xb) <= 1.001 * math.log(4.0):
-                slopes = {cid: (points[xb][cid] - points[xa][cid]) / (xb - xa) for cid in use}
-                x = _aim(xb, points[xb], slopes)
+                slopes = {cid: _secant(kinds[cid], xa, points[xa][cid], xb, points[xb][cid]) for cid in use}
+                x = _aim(xb, points[xb], slopes, kinds)
             else:
-                x = _aim(x0, self.g_nom, {cid: self.first[cid] for cid in use})
+                x = _aim(x0, self.g_nom, {cid: self.first[cid] for cid in use}, kinds)
             g_last = abs(worst(points[xb])[0])
             if lo is not None and hi is not None:
                 width = hi - lo
