@@ -499,13 +499,15 @@ def _run(model: _Model, S: _State, final: dict, wave, rec, record, t_amb: float,
         h_next = B.where(ok, h * fac, B.where(bad, 0.25 * h, h * B.maximum(fac, 0.1)))
         if evt is not None:
             hit = long_evt & B.not_(bad)
-            if B.any(hit) or B.any(S.phase == 1):
-                frac = None
-                if s1.event is not None:
-                    frac = _crossing(B, vout - m.v_on, s1.vout - m.v_on, s2.vout - m.v_on)
-                if m.limit:
-                    f_turn = _crossing(B, S.exc, s1.exc, s2.exc)
-                    frac = f_turn if frac is None else B.minimum(frac, f_turn)
+            any_hit = B.any(hit)
+            if any_hit or B.any(S.phase == 1):
+                frac = 2.0
+                if any_hit:
+                    if s1.event is not None:
+                        frac = _crossing(B, vout - m.v_on, s1.vout - m.v_on, s2.vout - m.v_on)
+                    if m.limit:
+                        f_turn = _crossing(B, S.exc, s1.exc, s2.exc)
+                        frac = f_turn if s1.event is None else B.minimum(frac, f_turn)
                 h_next = _event_steps(B, S, ok, hit, evt, frac, t, h, h_next, fac_err)
         S.h = h_next
         S.grow = B.where(ok, 8.0, 1.0)  # no growth right after a rejected step (Hairer & Wanner)
@@ -553,9 +555,9 @@ def _run(model: _Model, S: _State, final: dict, wave, rec, record, t_amb: float,
         w_g = m.v_s - m.r * s1.i
         w_1 = m.v_s - m.r * s2.i
         cut_g = cut_1 = None
-        if m.has_l and m.limit and s1.on is not None:
+        if m.has_l and m.limit and s1.on is not None and B.any(evt & ok):
             # a load switching on while the FET regulates steps the reference up
-            on_0 = S.started | (vout > m.v_on)
+            on_0 = on_n
             floor_g = s1.vout + s1.r_sw * s1.i
             floor_1 = s2.vout + s2.r_sw * s2.i
             cut_g = _notch(B, s1.lim & s1.on & B.not_(on_0), w_g, floor_g, m.l * (s1.i - i), gh)
@@ -569,12 +571,12 @@ def _run(model: _Model, S: _State, final: dict, wave, rec, record, t_amb: float,
             # the switch input v_s - r i - l di/dt through the UVLO's first-order filter
             if m.has_l:
                 y_g, low_g = _uvlo_interval(B, S.v_flt, w_0, w_g, m.l * (s1.i - i), gh, m.tau_uv, cut_g,
-                                            floor_g if cut_g is not None else None)
+                                            floor_g if cut_g is not None else None, S.v_flt_min)
                 y_1, low_1 = _uvlo_interval(B, y_g, w_g, w_1, m.l * (s2.i - s1.i), dt1, m.tau_uv, cut_1,
-                                            floor_1 if cut_1 is not None else None)
+                                            floor_1 if cut_1 is not None else None, S.v_flt_min)
             else:
-                y_g, low_g = B.lag(S.v_flt, w_0, w_g, gh, m.tau_uv)
-                y_1, low_1 = B.lag(y_g, w_g, w_1, dt1, m.tau_uv)
+                y_g, low_g = B.lag(S.v_flt, w_0, w_g, gh, m.tau_uv, S.v_flt_min)
+                y_1, low_1 = B.lag(y_g, w_g, w_1, dt1, m.tau_uv, S.v_flt_min)
             S.v_flt_min = B.where(ok, B.minimum(S.v_flt_min, B.minimum(low_g, low_1)), S.v_flt_min)
             S.v_flt = B.where(ok, y_1, S.v_flt)
         S.tj_peak = B.where(ok, B.maximum(S.tj_peak, B.maximum(tj_g, tj_1)), S.tj_peak)
@@ -670,7 +672,7 @@ def _notch(B, event, w_b, floor, area, dt):
     return use, B.where(use, width, 0.5 * dt)
 
 
-def _uvlo_interval(B, y, w_a, w_b, area, dt, tau: float, cut, floor):
+def _uvlo_interval(B, y, w_a, w_b, area, dt, tau: float, cut, floor, low_so_far):
     """The UVLO filter over one stage interval of length dt (s).
 
     The filter input is v_s - r i, linear from w_a to w_b (V), less the inductive drop
@@ -679,16 +681,16 @@ def _uvlo_interval(B, y, w_a, w_b, area, dt, tau: float, cut, floor):
     where it is the notch down to ``floor`` at the end of the interval. Either way its
     area is exact; the notch also has its depth, which matters when the filter is not
     much slower than the interval. Returns the filter output at the end and its lowest
-    value inside the interval (V).
+    value inside the interval (V), exact where it is below ``low_so_far`` (`lag`).
     """
     mean = area / dt
-    y1, low = B.lag(y, w_a - mean, w_b - mean, dt, tau)
+    y1, low = B.lag(y, w_a - mean, w_b - mean, dt, tau, low_so_far)
     if cut is None:
         return y1, low
     use, width = cut
     lead = dt - width
-    y_m, low_m = B.lag(y, w_a, w_a + (w_b - w_a) * (lead / dt), lead, tau)
-    y_n, low_n = B.lag(y_m, floor, floor, width, tau)
+    y_m, low_m = B.lag(y, w_a, w_a + (w_b - w_a) * (lead / dt), lead, tau, low_so_far)
+    y_n, low_n = B.lag(y_m, floor, floor, width, tau, low_so_far)
     return B.where(use, y_n, y1), B.where(use, B.minimum(low_m, low_n), low)
 
 
@@ -719,16 +721,16 @@ def _event_steps(B, S: _State, ok, hit, evt, frac, t, h, h_next, fac_err):
     the step size the event cut (``S.h_back``).
     """
     h_evt = S.h_evt
-    locating = S.phase == 1
-    land = B.where(frac < 1.0, frac * h - 0.5 * h_evt, 0.0)
-    aimed = land >= 0.25 * h
-    S.h_back = B.where(hit & B.not_(locating), h, S.h_back)
-    S.t_hi = B.where(hit, t + h, S.t_hi)
-    S.aimed = B.where(hit, aimed, S.aimed)
-    S.phase = B.where(hit, 1, S.phase)
-    h_cut = B.maximum(B.where(aimed, land, 0.25 * h), h_evt)
-    S.h_cut = B.where(hit, h_cut, S.h_cut)
-    h_next = B.where(hit, h_cut, h_next)
+    if B.any(hit):
+        land = B.where(frac < 1.0, frac * h - 0.5 * h_evt, 0.0)
+        aimed = land >= 0.25 * h
+        S.h_back = B.where(hit & (S.phase == 0), h, S.h_back)
+        S.t_hi = B.where(hit, t + h, S.t_hi)
+        S.aimed = B.where(hit, aimed, S.aimed)
+        S.phase = B.where(hit, 1, S.phase)
+        h_cut = B.maximum(B.where(aimed, land, 0.25 * h), h_evt)
+        S.h_cut = B.where(hit, h_cut, S.h_cut)
+        h_next = B.where(hit, h_cut, h_next)
     # crossed it, or passed the bracket without meeting it (an event the predictor saw)
     crossed = ok & (evt | (t + h >= S.t_hi))
     rest = B.maximum(S.t_hi - (t + h), h_evt)
@@ -740,10 +742,8 @@ def _event_steps(B, S: _State, ok, hit, evt, frac, t, h, h_next, fac_err):
 
 
 def _lim_time(B, e0, e1, dt):
-    """Time with positive limit excess over a step where the excess varies linearly."""
-    p0 = e0 > 0
-    p1 = e1 > 0
-    both = p0 & p1
-    one = p0 ^ p1
-    frac = B.maximum(e0, e1) / B.where(one, B.fabs(e0 - e1), 1.0)
-    return dt * B.where(both, 1.0, B.where(one, B.minimum(B.maximum(frac, 0.0), 1.0), 0.0))
+    """Time with positive limit excess over a step where the excess varies linearly:
+    dt times the part of [0, 1] where it is positive, max(e0, e1) / |e0 - e1| clipped to
+    [0, 1] (1 where both are positive, 0 where neither is)."""
+    frac = B.maximum(e0, e1) / (B.fabs(e0 - e1) + 1e-300)
+    return dt * B.minimum(B.maximum(frac, 0.0), 1.0)

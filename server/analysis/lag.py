@@ -38,7 +38,7 @@ import numpy as np
 __all__ = ["lag_advance", "lag_advance_floats"]
 
 
-def lag_advance(y0, u0, u1, dt, tau: float):
+def lag_advance(y0, u0, u1, dt, tau: float, floor=None):
     """Advance a first-order lag over one step with its input linear in the step.
 
     Parameters
@@ -51,13 +51,18 @@ def lag_advance(y0, u0, u1, dt, tau: float):
         Step length, s (> 0).
     tau : float
         Time constant, s (> 0).
+    floor : ndarray, shape (n,), optional
+        Where the input starts at or above ``floor`` (V) the lowest value is only looked
+        for at the end of the step: inside it the output cannot fall below the input's
+        start when it has a minimum there, so it cannot fall below ``floor``.
 
     Returns
     -------
     y1 : ndarray, shape (n,)
         Output at the end of the step (V).
     y_low : ndarray, shape (n,)
-        Lowest output inside the step, end included (V).
+        Lowest output inside the step, end included (V); with ``floor``, exact where it
+        is below ``floor``.
 
     Notes
     -----
@@ -68,8 +73,12 @@ def lag_advance(y0, u0, u1, dt, tau: float):
     q = u1 - u0
     d = y0 - u0
     y1 = y0 - e1 * d + q * (1.0 - e1 / x)
-    # interior minimum: rising input below a falling output
+    # interior minimum: rising input below a falling output; it is u(t*) >= u0
     rise = (q > 0.0) & (d > 0.0)
+    if floor is not None:
+        rise = rise & (u0 < floor)
+        if not rise.any():
+            return y1, y1
     qs = np.where(rise, q, 1.0)
     z = np.log1p(np.where(rise, d, 0.0) * x / qs)  # t* / tau
     inside = rise & (z < x)
@@ -77,14 +86,15 @@ def lag_advance(y0, u0, u1, dt, tau: float):
     return y1, y_low
 
 
-def lag_advance_floats(y0: float, u0: float, u1: float, dt: float, tau: float) -> tuple[float, float]:
+def lag_advance_floats(y0: float, u0: float, u1: float, dt: float, tau: float,
+                       floor: float | None = None) -> tuple[float, float]:
     """`lag_advance` for one row on Python floats (V, s)."""
     x = dt / tau
     e1 = -math.expm1(-x)
     q = u1 - u0
     d = y0 - u0
     y1 = y0 - e1 * d + q * (1.0 - e1 / x)
-    if q > 0.0 and d > 0.0:
+    if q > 0.0 and d > 0.0 and (floor is None or u0 < floor):
         z = math.log1p(d * x / q)
         if z < x:
             return y1, min(u0 + q * z / x, y1)

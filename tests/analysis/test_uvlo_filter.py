@@ -199,3 +199,21 @@ def test_array_and_float_back_ends_agree():
     assert_allclose(many.v_supply_min[0], one.v_supply_min[0], rtol=1e-12)
     assert_allclose(many.v_supply_min_raw[0], one.v_supply_min_raw[0], rtol=1e-12)
     assert np.all(many.v_supply_min >= many.v_supply_min_raw)
+
+
+def test_floor_only_skips_minima_that_cannot_matter():
+    # The running minimum only needs the in-step minimum where it can fall below the
+    # minimum so far: an interior minimum equals u(t*) >= u0 (the module's closed form).
+    rng = np.random.default_rng(4)
+    n = 2000
+    y0, u0, u1 = 12 + rng.normal(0, 0.5, n), 12 + rng.normal(0, 0.5, n), 12 + rng.normal(0, 0.5, n)
+    dt = 10 ** rng.uniform(-8, -5, n)
+    floor = 12 + rng.normal(0, 0.5, n)
+    y_a, low_a = lag_advance(y0, u0, u1, dt, 1e-6)
+    y_b, low_b = lag_advance(y0, u0, u1, dt, 1e-6, floor)
+    assert np.array_equal(y_a, y_b)
+    assert np.array_equal(np.minimum(low_a, floor), np.minimum(low_b, floor))
+    assert np.any(low_a < np.minimum(low_b, y_a))  # interior minima above the floor were skipped...
+    for k in range(50):  # ... and the float back end does the same
+        f = lag_advance_floats(y0[k], u0[k], u1[k], dt[k], 1e-6, floor[k])
+        assert_allclose(min(f[1], floor[k]), min(low_b[k], floor[k]), rtol=1e-13)
