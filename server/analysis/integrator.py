@@ -499,16 +499,12 @@ def _run(model: _Model, S: _State, final: dict, wave, rec, record, t_amb: float,
         h_next = B.where(ok, h * fac, B.where(bad, 0.25 * h, h * B.maximum(fac, 0.1)))
         if evt is not None:
             hit = long_evt & B.not_(bad)
-            any_hit = B.any(hit)
-            if any_hit or B.any(S.phase == 1):
-                frac = 2.0
-                if any_hit:
-                    if s1.event is not None:
-                        frac = _crossing(B, vout - m.v_on, s1.vout - m.v_on, s2.vout - m.v_on)
-                    if m.limit:
-                        f_turn = _crossing(B, S.exc, s1.exc, s2.exc)
-                        frac = f_turn if s1.event is None else B.minimum(frac, f_turn)
-                h_next = _event_steps(B, S, ok, hit, evt, frac, t, h, h_next, fac_err)
+            f_on = (vout, s1.vout, s2.vout, m.v_on) if s1.event is not None else None
+            f_lim = (S.exc, s1.exc, s2.exc, 0.0) if m.limit else None
+            if arrays:
+                h_next = _event_rows(S, ok, hit, evt, f_on, f_lim, t, h, h_next, fac_err)
+            elif hit or S.phase == 1:
+                h_next = _event_steps(B, S, ok, hit, evt, _event_frac(B, hit, f_on, f_lim), t, h, h_next, fac_err)
         S.h = h_next
         S.grow = B.where(ok, 8.0, 1.0)  # no growth right after a rejected step (Hairer & Wanner)
         if not B.any(ok):
@@ -584,14 +580,18 @@ def _run(model: _Model, S: _State, final: dict, wave, rec, record, t_amb: float,
         r_on1 = m.r_on(tj_1)
         v_f, i_f = m.final_output(r_on1)
         band = SETTLE_BAND * B.fabs(v_f)
-        d0 = B.fabs(vout - v_f) - band
-        dg = B.fabs(s1.vout - v_f) - band
         d1 = B.fabs(s2.vout - v_f) - band
-        x1 = dg / B.where(dg > d1, dg - d1, 1.0)
-        x0 = d0 / B.where(d0 > dg, d0 - dg, 1.0)
-        cross_g1 = t + gh + dt1 * B.minimum(B.maximum(x1, 0.0), 1.0)
-        cross_0g = t + gh * B.minimum(B.maximum(x0, 0.0), 1.0)
-        ts_new = B.where(d1 > 0, t1, B.where(dg > 0, cross_g1, B.where(d0 > 0, cross_0g, S.t_settle)))
+        out_1 = d1 > 0
+        if B.any(B.not_(out_1)):  # some row ends the step inside the band: where did it enter
+            d0 = B.fabs(vout - v_f) - band
+            dg = B.fabs(s1.vout - v_f) - band
+            x1 = dg / B.where(dg > d1, dg - d1, 1.0)
+            x0 = d0 / B.where(d0 > dg, d0 - dg, 1.0)
+            cross_g1 = t + gh + dt1 * B.minimum(B.maximum(x1, 0.0), 1.0)
+            cross_0g = t + gh * B.minimum(B.maximum(x0, 0.0), 1.0)
+            ts_new = B.where(out_1, t1, B.where(dg > 0, cross_g1, B.where(d0 > 0, cross_0g, S.t_settle)))
+        else:
+            ts_new = t1
         S.t_settle = B.where(ok, ts_new, S.t_settle)
 
         if rec is not None:
@@ -703,6 +703,49 @@ def _crossing(B, f0, f1, f2):
     x01 = _G * f0 / B.where(c01, f0 - f1, 1.0)
     x12 = _G + (1.0 - _G) * f1 / B.where(c12, f1 - f2, 1.0)
     return B.where(c01, x01, B.where(c12, x12, 2.0))
+
+
+def _event_frac(B, hit, f_on, f_lim):
+    """Where in the step the stage values put the event (`_crossing`): v_out crossing v_on
+    (``f_on``: v_out at the step start, the stage and the end, and v_on) or the limit
+    excess crossing 0 (``f_lim``), the earlier one; 2 where no row is hit."""
+    if not B.any(hit):
+        return 2.0
+    frac = None
+    for f in (f_on, f_lim):
+        if f is not None:
+            x = _crossing(B, f[0] - f[3], f[1] - f[3], f[2] - f[3])
+            frac = x if frac is None else B.minimum(frac, x)
+    return frac
+
+
+_EVENT_STATE = ("h_evt", "phase", "h_back", "t_hi", "aimed", "h_cut")
+
+
+def _event_rows(S: _State, ok, hit, evt, f_on, f_lim, t, h, h_next, fac_err):
+    """`_event_steps` on the array back end, on the rows it concerns (those hit or still
+    locating an event): in a large batch a few rows at a time, so it runs on those
+    rows alone and writes back (the same arithmetic, row by row)."""
+    B = _ArrayOps
+    sel = hit | (S.phase == 1)
+    k = int(np.count_nonzero(sel))
+    if k == 0:
+        return h_next
+    if k == sel.size or sel.size <= 64:
+        return _event_steps(B, S, ok, hit, evt, _event_frac(B, hit, f_on, f_lim), t, h, h_next, fac_err)
+    idx = np.flatnonzero(sel)
+    sub = _State()
+    for name in _EVENT_STATE:
+        setattr(sub, name, getattr(S, name)[idx])
+    pick = lambda f: None if f is None else tuple(x[idx] for x in f[:3]) + (f[3],)  # noqa: E731
+    hit_i = hit[idx]
+    hn = _event_steps(B, sub, ok[idx], hit_i, evt[idx], _event_frac(B, hit_i, pick(f_on), pick(f_lim)),
+                      t[idx], h[idx], h_next[idx], fac_err[idx])
+    for name in _EVENT_STATE[1:]:
+        getattr(S, name)[idx] = getattr(sub, name)
+    h_next = np.array(h_next, copy=True)
+    h_next[idx] = hn
+    return h_next
 
 
 def _event_steps(B, S: _State, ok, hit, evt, frac, t, h, h_next, fac_err):
