@@ -304,10 +304,10 @@ class _State:
     """Working values of the rows still being integrated (arrays, or floats for one row)."""
 
 
-_STATE = ("t", "h", "grow", "phase", "h_back", "h_cut", "t_hi", "aimed", "i", "vc", "vout", "ic", "fi", "p", "exc", "lim", "theta", "tj", "r_on", "started",
-          "i_scale", "atol_i", "atol_v", "t_est", "h_evt", "steps", "rows", "active",
-          "i_peak", "t_i_peak", "p_peak", "v_pk", "i_pk", "e_fet", "t_limit", "v_in_min", "t_settle", "tj_peak",
-          "v_flt", "v_flt_min")
+_STATE = ("t", "h", "grow", "phase", "h_back", "h_cut", "t_hi", "aimed", "i", "vc", "vout", "ic", "fi", "p",
+          "exc", "lim", "theta", "tj", "r_on", "started", "i_scale", "atol_i", "atol_v", "t_est", "h_evt",
+          "steps", "rows", "active", "i_peak", "t_i_peak", "p_peak", "v_pk", "i_pk", "e_fet", "t_limit",
+          "v_in_min", "t_settle", "tj_peak", "v_flt", "v_flt_min")
 FIGURES = ("i_peak", "t_i_peak", "p_peak", "v_pk", "i_pk", "e_fet", "t_limit", "v_in_min", "t_settle",
            "tj_peak", "t", "tj", "steps", "active", "i", "v_flt_min")
 
