@@ -124,12 +124,12 @@ def _first_slopes(rail: Rail, fig: dict | None, use: list) -> tuple[dict, dict]:
     sw = rail.switch
     t_eq, v_pk = float(fig["pulse_t_equiv"][0]), float(fig["v_ds_at_peak"][0])
     i_pk, i_at = float(fig["i_peak"][0]), float(fig["i_at_peak"][0])
-    cz = circuit_rows(rail, v_s=[rail.supply.v_nom], c=[rail.load.c_nom])
     limited = sw.mode in ("current_limit", "power_limit") or (sw.mode == "hard" and sw.t_on == 0.0)
     if sw.i_limit is not None and i_pk >= 0.999 * sw.i_limit:
         limited = True
 
     def share(i, v_out):
+        cz = circuit_rows(rail, v_s=[rail.supply.v_nom], c=[rail.load.c_nom])
         i_load = float(cz.load_current(np.array([max(v_out, 0.0)]))[0])
         return max(i - i_load, 0.0) / i if i > 0.0 else 0.0
 
