@@ -15,6 +15,10 @@ check_detail(check_id, fig, row, rail, rules)
 worst_verdict(codes)
     The rail verdict: the worst of its checks.
 
+The supply dip compares the UVLO with the switch input through the UVLO's deglitch
+filter (a first-order lag of ``supply.uvlo_filter``, 1 us by default: common practice,
+no source), not with the unfiltered nanosecond notch of an ideal regulating FET.
+
 Grading (DESIGN.md section 5): a value on the safe side of the team limit passes; a value
 between the team limit and the bare physical edge (ratio 1.0, tj_max, vds_max) is
 marginal; beyond the edge it fails. Checks against a physical limit alone (a rating or an
@@ -115,10 +119,13 @@ def evaluate_checks(rail: Rail, rules: dict, fig: dict) -> dict:
     ok = fig["status_ok"]
     out = {}
 
+    def row(x):
+        if isinstance(x, np.ndarray) and x.shape == (n,):
+            return x.astype(float)  # a copy
+        return np.full(n, float(x)) if np.ndim(x) == 0 else np.broadcast_to(np.asarray(x, float), (n,)).copy()
+
     def put(cid, value, limit, edge, verdict=None):
-        value = np.broadcast_to(np.asarray(value, dtype=float), (n,)).copy()
-        limit = np.broadcast_to(np.asarray(limit, dtype=float), (n,)).copy()
-        edge = np.broadcast_to(np.asarray(edge, dtype=float), (n,)).copy()
+        value, limit, edge = row(value), row(limit), row(edge)
         if verdict is None:
             verdict = _grade(_SPEC[cid].sense, value, limit, edge)
         out[cid] = {"value": value, "limit": limit, "edge": edge, "verdict": np.asarray(verdict, np.int8)}
@@ -248,8 +255,15 @@ def check_detail(cid: str, fig: dict, row: int, rail: Rail, rules: dict) -> str:
     if cid == "supply_dip":
         if rail.supply.uvlo is None:
             return "No upstream UVLO given."
-        return (f"Lowest switch-input voltage {eng(f['v_supply_min'], 'V')} against UVLO "
-                f"{eng(rail.supply.uvlo, 'V')}; no input capacitance is modelled.")
+        tau = rail.supply.uvlo_filter
+        if tau > 0.0:
+            return (f"Lowest switch-input voltage {eng(f['v_supply_min'], 'V')} through the UVLO's deglitch "
+                    f"filter (first-order lag of {eng(tau, 's')}, supply.uvlo_filter; its 1 us default is common "
+                    f"practice, no source) against UVLO "
+                    f"{eng(rail.supply.uvlo, 'V')}; unfiltered dip to {eng(f['v_supply_min_raw'], 'V')}; "
+                    "no input capacitance is modelled.")
+        return (f"Lowest switch-input voltage {eng(f['v_supply_min'], 'V')} (unfiltered: uvlo_filter is 0) "
+                f"against UVLO {eng(rail.supply.uvlo, 'V')}; no input capacitance is modelled.")
     if cid == "supply_current":
         if rail.supply.i_max is None:
             return "No supply current capability given."

@@ -45,6 +45,7 @@ class Circuit:
     load, i_nom (A), v_on (V), v_nom (V): the load model.
     mode, t_on (s), dvdt (V/s), p_lim (W): the switch.
     rds_on (ohm at 25 degC), alpha (1/K), r_th (K/W), tau_th (s), t_amb (degC): the FET.
+    uvlo_filter : time constant of the upstream UVLO's first-order filter, s (0: none).
     """
 
     v_s: np.ndarray
@@ -66,6 +67,7 @@ class Circuit:
     r_th: np.ndarray = field(repr=False)
     tau_th: np.ndarray = field(repr=False)
     t_amb: float = 25.0
+    uvlo_filter: float = 1e-6
 
     @property
     def n(self) -> int:
@@ -220,4 +222,5 @@ def circuit_rows(rail: Rail, *, v_s, c, i_limit=None) -> Circuit:
         r_th=r_th,
         tau_th=tau_th,
         t_amb=rail.t_ambient,
+        uvlo_filter=rail.supply.uvlo_filter,
     )

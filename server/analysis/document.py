@@ -14,6 +14,11 @@ Rail, Supply, SeriesPath, Load, Timer, Switch, SoaCurve, Fet
 Every problem raises `DocumentError` naming the dotted field path and the reason. The
 web schema normally fills the defaults; they are filled here as well so that the
 analysis can be called directly on a hand-written document.
+
+Beyond the fields of DESIGN.md section 3, ``supply.uvlo_filter`` (s, >= 0, default
+`UVLO_FILTER` = 1 us; common practice, no source) is the time constant of the upstream
+UVLO's deglitch filter: the supply-dip check compares the UVLO with the switch-input
+voltage passed through a first-order lag of that time constant (0: unfiltered).
 """
 
 from __future__ import annotations
@@ -22,10 +27,13 @@ import math
 from dataclasses import dataclass
 from typing import Any
 
+import numpy as np
+
 from .errors import DocumentError
 
 __all__ = [
     "SCHEMA",
+    "UVLO_FILTER",
     "DEFAULT_RULES",
     "RULE_DESCRIPTIONS",
     "Supply",
@@ -42,6 +50,10 @@ __all__ = [
 ]
 
 SCHEMA = "railsign.rail/1"
+
+# s: default time constant of the upstream UVLO's deglitch filter, a first-order lag;
+# comparators filter glitches over about a microsecond (common practice, no source)
+UVLO_FILTER = 1e-6
 
 DEFAULT_RULES: dict[str, float] = {
     "tj_headroom": 25.0,
@@ -93,6 +105,7 @@ class Supply:
     l_source: float
     i_max: float | None
     uvlo: float | None
+    uvlo_filter: float = 1e-6  # s: the UVLO's deglitch filter (common practice, no source)
 
 
 @dataclass(frozen=True)
@@ -243,6 +256,7 @@ def _read_supply(doc: dict) -> Supply:
         l_source=_number(sec, "l_source", w, default=0.0, minimum=0.0),
         i_max=_number(sec, "i_max", w, optional=True, above=0.0),
         uvlo=_number(sec, "uvlo", w, optional=True, minimum=0.0),
+        uvlo_filter=_number(sec, "uvlo_filter", w, default=UVLO_FILTER, minimum=0.0),
     )
 
 
@@ -368,12 +382,15 @@ def _read_curves(soa: dict, t_case: float) -> tuple[SoaCurve, ...]:
 
 def _check_curve_order(curves: list[SoaCurve]) -> None:
     """A longer pulse must not allow more current than a shorter one at any vds."""
-    from .soa import curve_current  # local import: soa depends on this module's types
-
     vs = sorted({v for c in curves for v, _ in c.points})
+    x = np.log(vs)
     prev = prev_curve = None
     for c in curves:
-        cur = [curve_current(c, v) for v in vs]
+        # the current the curve allows at each vs: log-log interpolation, 0 beyond its
+        # last point (as soa.curve_current)
+        pts = np.log(np.asarray(c.points, dtype=float))
+        cur = np.where(x > pts[-1, 0] * (1 + 1e-12) + 1e-12, 0.0, np.exp(np.interp(x, pts[:, 0], pts[:, 1])))
+        cur = cur.tolist()
         if prev is not None:
             v_end = prev_curve.points[-1][0]  # compare where the shorter pulse is drawn
             for v, a, b in zip(vs, prev, cur):

@@ -15,6 +15,10 @@ takes the worst cases that DESIGN.md builds into the short circuit (v_max, i_lim
 high tolerance, the longest trip time) and the timer (the shortest trip time). With
 ``corners`` every tolerance corner is evaluated and each check reports its worst corner;
 with ``monte_carlo`` > 0 the yield and the spread of every check value are added.
+
+``startup.v_supply_min`` is the lowest switch-input voltage as the upstream UVLO sees it,
+through its deglitch filter (a first-order lag of ``supply.uvlo_filter``, default 1 us:
+common practice, no source); ``startup.v_supply_min_raw`` is the unfiltered minimum.
 """
 
 from __future__ import annotations
@@ -38,7 +42,7 @@ from .waveform import decimate
 
 __all__ = ["ENGINE_VERSION", "CAUTION", "analyze_rail"]
 
-ENGINE_VERSION = "1.0.0"
+ENGINE_VERSION = "1.1.0"
 CAUTION = ("railsign computes design margins; it does not certify hardware. Verify on hardware, treat "
            "stored energy and high currents with care, and follow the applicable codes and licensed practice.")
 
@@ -55,6 +59,8 @@ def _clean(obj: Any) -> Any:
     if isinstance(obj, dict):
         return {str(k): _clean(v) for k, v in obj.items()}
     if isinstance(obj, (list, tuple)):
+        if obj and all(type(v) is float for v in obj):  # waveform samples
+            return [v if math.isfinite(v) else None for v in obj]
         return [_clean(v) for v in obj]
     if isinstance(obj, (bool, np.bool_)):
         return bool(obj)
@@ -103,8 +109,9 @@ def _notes(rail: Rail) -> list[str]:
         notes.append(f"fet.zth sums to {zsum:.3g} K/W but rth_ja is {rail.fet.rth_ja:.3g} K/W: transients use "
                      "the Foster stages, steady conduction uses rth_ja.")
     if rail.switch.mode == "hard" and rail.switch.t_on == 0.0 and rail.supply.l_source + rail.path.l > 0:
-        notes.append("Instant hard turn-on behind series inductance: the switch input falls to the output "
-                     "voltage at turn-on (no input capacitance is modelled); give t_on for a realistic dip.")
+        notes.append("Instant hard turn-on behind series inductance: the unfiltered switch input falls to the "
+                     "output voltage at turn-on (no input capacitance is modelled; v_supply_min_raw), and the "
+                     "supply-dip check sees it through the UVLO filter; give t_on for a realistic dip.")
     return notes
 
 
@@ -195,6 +202,7 @@ def analyze_rail(
         "status": "complete" if ok else "stalled",
         "i_peak": g("i_peak"), "t_i_peak": g("t_i_peak"), "t_limit": g("t_limit"), "t_settle": g("t_settle"), "e_fet": g("e_fet"),
         "p_fet_peak": g("p_fet_peak"), "tj_peak": g("tj_peak"), "v_supply_min": g("v_supply_min"),
+        "v_supply_min_raw": g("v_supply_min_raw"), "uvlo_filter": rail.supply.uvlo_filter,
         "v_final": g("v_final"), "v_stall": g("v_stall") if st.status[0] == STATUS_STALLED else None,
         "pulse_t_equiv": g("pulse_t_equiv"), "pulse_p_peak": g("pulse_p_peak"),
         "pulse_v_ds": g("v_ds_at_peak"), "pulse_i": g("i_at_peak"),
@@ -248,7 +256,7 @@ def analyze_rail(
                         "v_drop": g("steady_v_drop"), "stable": bool(g("steady_stable"))}
 
     if headroom:
-        head = capacitance_headroom(rail, rules_used, params, checks)
+        head = capacitance_headroom(rail, rules_used, params, checks, fig)
         head.update(limit_headroom(rail, rules_used, v_sc=rail.supply.v_max, t_fault=t_max))
     else:
         head = {"c_max": None, "c_max_check": None, "c_max_note": "Not computed.", "c_max_excluded": [],
@@ -289,6 +297,7 @@ def _corner_list(cr: dict) -> list:
             "figures": {
                 "i_peak": fig["i_peak"][j], "t_limit": fig["t_limit"][j], "e_fet": fig["e_fet"][j],
                 "tj_peak": fig["tj_peak"][j], "v_supply_min": fig["v_supply_min"][j],
+                "v_supply_min_raw": fig["v_supply_min_raw"][j],
                 "soa_ratio": fig["soa_ratio"][j], "t_fault": fig["t_fault_sc"][j],
                 "sc_margin": fig["sc_margin"][j], "startup_margin": fig["startup_margin"][j],
                 "steady_tj": fig["steady_tj"][j],

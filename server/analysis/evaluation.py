@@ -104,7 +104,7 @@ def evaluate_rows(rail: Rail, rules: dict, params: RowParams, *, startup: Startu
     fig: dict = {"n": n, "status_ok": ok, "v_target": v_target, "v_stall": startup.v_stall,
                  "v_final": startup.v_final, "v_sc": params.v_sc}
     for name in ("i_peak", "t_i_peak", "t_limit", "t_settle", "e_fet", "p_fet_peak", "tj_peak", "v_supply_min",
-                 "v_ds_at_peak", "i_at_peak"):
+                 "v_supply_min_raw", "v_ds_at_peak", "i_at_peak"):
         fig[name] = getattr(startup, name)
 
     # start-up pulse against the SOA: rectangle of the same energy and peak power

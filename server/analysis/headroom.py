@@ -2,29 +2,50 @@
 
 Provides
 --------
-capacitance_headroom(rail, rules, params, nominal)
+capacitance_headroom(rail, rules, params, nominal, nominal_fig=None)
     The largest load capacitance with which every capacitance-dependent check still
     passes, found on the same start-up model.
-limit_headroom(rail, rules, params)
+limit_headroom(rail, rules, *, v_sc, t_fault)
     The highest current limit whose short circuit the FET still survives with the team's
     fault_margin under the given timer.
+C_TOL, M_TOL
+    The stopping tolerances of the capacitance search (ln 1.005 in C, ln 1.002 in margin).
 
 Method
 ------
-Capacitance: the smallest normalised margin over the checks that depend on C
-(`checks.C_DEPENDENT`, each >= 1 exactly when it passes) is a continuous function of
-log C. Its crossing of 1 is bracketed from c_nom (first trial at c_nom times the margin,
-as if the margin fell as 1/C, then steps of x4, within c_nom / 4^10 .. c_nom * 4^10) and
-then located by regula falsi on (log C, log margin), in its Illinois form and with a
-bisection step whenever an iteration fails to shrink the bracket by 40 % (a safeguarded
-bisection; G. Dahlquist and A. Bjorck, "Numerical Methods", section 6.2), until the bracket
-is narrower than 0.5 % or a passing capacitance has a margin below 1.002. Each trial runs the full start-up transient. The lower
-end of the final bracket, the largest capacitance known to pass, is reported.
+Capacitance: the normalised margin m_k of every check that depends on C
+(`checks.C_DEPENDENT`, each >= 1 exactly when it passes) is a continuous function of C,
+and close to a simple one: where a limit holds the current the start-up stretches in time
+in proportion to C and, the SOA and Zth curves being power laws piecewise, ln m_k is
+nearly straight in ln C; where a ramp sets the time the current is C dv/dt plus the
+load's, and 1 / m_k is nearly straight in C (`_first_slopes`). The search works on one
+such line per check, in x = ln C, and steps to where the first of them falls to ln 1.001,
+the middle of the stopping window below: a secant method per check (G. Dahlquist and A.
+Bjorck, "Numerical Methods", section 6.2) whose lines pass through the two latest
+transients; the first step, with only the nominal run known, takes the slopes the scaling
+gives. Steps are kept inside the bracket once one exists (with a bisection whenever an
+iteration shrinks neither the bracket by 40 % nor the margin error by 4: a safeguarded
+secant), grow C at most x4 or shrink it at most /4 at a time, and stay within c_nom / 64
+.. c_nom * 4^10. Each trial runs the full start-up transient, one row on the float back
+end: with a handful of rows a NumPy call costs more than the arithmetic it does (a batch
+of 16 candidate rows on the array back end costs about fifteen single-row transients), and
+the secant needs 1 to 3 trials (tests/benchmarks/bench_analysis.py measures both).
 
-Current limit: the short-circuit margin falls with the limit; it is evaluated on a grid
-of 193 limits (log-spaced over six decades around the nominal limit, all at once), then
-on a grid of 193 inside the bracketing interval; the largest passing grid value is
-reported (resolution below 0.01 %).
+Tolerance: the reported c_max is a capacitance whose transient passes every
+capacitance-dependent check, and either a capacitance at most 0.5 % larger fails (the
+bracket), or c_max's smallest normalised margin is below 1.002 (within 0.2 % of its
+limit). The nominal run is the first point of the search; checks that fail whatever the
+capacitance are left out and named (`capacitance_headroom`).
+
+Current limit: the short circuit passes while t_allow >= fault_margin * t_fault_max, and
+t_allow falls with the current, so the highest short-circuit current is the smaller of
+the current the derated SOA curves allow for a pulse of that length (`soa.allowed_current`,
+the inverse of `soa.soa_allowed_time`) and the current whose constant power heats the
+Foster network to tj_max in that time, (tj_max - t_ambient) / (Zth(t) V_ds). Divided by
+the limit's high tolerance it is the highest nominal limit; it is reported 1e-6 below that
+and verified with the short-circuit figures themselves: the reported limit passes, 0.01 %
+more fails. Should the check disagree (a curve set the inverse does not represent), a grid
+of 193 limits over six decades and 193 more inside the bracket decides instead.
 """
 
 from __future__ import annotations
@@ -34,28 +55,42 @@ import math
 import numpy as np
 
 from .checks import C_DEPENDENT, CHECKS, PASS, normalised_margin
+from .circuit import circuit_rows
 from .document import Rail
 from .errors import AnalysisError
 from .evaluation import RowParams, evaluate_rows
 from .shortcircuit import has_limit, short_circuit
+from .soa import allowed_current
 from .startup import STATUS_OK
+from .thermal import foster_arrays, zth
 
-__all__ = ["capacitance_headroom", "limit_headroom"]
+__all__ = ["capacitance_headroom", "limit_headroom", "C_TOL", "M_TOL"]
 
 _SPECS = {c.id: c for c in CHECKS}
-_MAX_TRIALS = 40
-_C_TOL = math.log(1.005)  # the search stops when the bracket on C is narrower than 0.5 %
-_M_TOL = math.log(1.002)  # ... or when a passing capacitance has a margin below 1.002
+_MAX_TRIALS = 30
+C_TOL = math.log(1.005)  # a bracket on C narrower than 0.5 % ends the search
+M_TOL = math.log(1.002)  # ... and so does a passing capacitance with its margin below 1.002
+_AIM = 0.5 * M_TOL  # the secant aims at a margin of 1.001, inside that window
+_G_CAP = 50.0  # |ln m| beyond this (a check that cannot bind, or a start that fails) is clipped
 _TRIAL_STEPS = 4000  # a trial capacitance whose start-up does not settle within this fails
+_UP, _DOWN = math.log(4.0**10), math.log(64.0)  # the range searched around c_nom
+
+
+def _log_margin(m: float) -> float:
+    if not m > 0.0:
+        return -_G_CAP
+    if not math.isfinite(m):
+        return _G_CAP
+    return min(max(math.log(m), -_G_CAP), _G_CAP)
 
 
 def _c_margins(rail: Rail, rules: dict, params: RowParams, c: float) -> dict:
-    """Normalised margin of every capacitance-dependent check at load capacitance c."""
+    """ln of the normalised margin of every capacitance-dependent check at load capacitance c."""
     p = RowParams(**{k: getattr(params, k).copy() for k in params.__dataclass_fields__})
     p.c[:] = c
     fig, checks, st = evaluate_rows(rail, rules, p, startup_only=True, max_steps=_TRIAL_STEPS)
     if st.status[0] != STATUS_OK:  # stalls, or does not settle: does not pass
-        return {cid: 0.0 for cid in C_DEPENDENT}
+        return {cid: -_G_CAP for cid in C_DEPENDENT}
     return _margins(rail, checks, 0)
 
 
@@ -63,11 +98,108 @@ def _margins(rail: Rail, checks: dict, row: int) -> dict:
     out = {}
     for cid in C_DEPENDENT:
         ch = checks[cid]
-        out[cid] = float(normalised_margin(_SPECS[cid], ch["value"][row], ch["limit"][row], rail.t_ambient))
+        m = float(normalised_margin(_SPECS[cid], ch["value"][row], ch["limit"][row], rail.t_ambient))
+        out[cid] = _log_margin(m)
     return out
 
 
-def capacitance_headroom(rail: Rail, rules: dict, params: RowParams, nominal_checks: dict) -> dict:
+def _first_slopes(rail: Rail, fig: dict | None, use: list) -> tuple[dict, dict]:
+    """d ln m / d ln C of each check at c_nom, and the kind of line it lies on.
+
+    Where a limit holds the current (current or power limit, a slew whose ramp current
+    reaches i_limit, an instant hard start whose time scale is R C) the start-up stretches
+    in time in proportion to C: the SOA and Zth margins follow their curves' log-log
+    slopes at the equivalent pulse, the timer margin falls as 1 / C, the peak current
+    stays; these lines are straight in (ln C, ln m), kind "log". Where a ramp sets the
+    time (slew, a hard start over t_on) the current is C dv/dt plus the load's at a fixed
+    time scale, so the SOA, Tj and peak-current margins go as 1 / current: straight in
+    (C, 1 / m), kind "share", with slope -f at c_nom, f the capacitor's share of the
+    current there; the timer margin stays. The supply dip is taken flat. These only place
+    the first trial; the secant takes over from there, on the same kinds of line.
+    """
+    slopes = {cid: -1.0 for cid in use}
+    kinds = {cid: "log" for cid in use}
+    if fig is None:
+        return slopes, kinds
+    sw = rail.switch
+    t_eq, v_pk = float(fig["pulse_t_equiv"][0]), float(fig["v_ds_at_peak"][0])
+    i_pk, i_at = float(fig["i_peak"][0]), float(fig["i_at_peak"][0])
+    limited = sw.mode in ("current_limit", "power_limit") or (sw.mode == "hard" and sw.t_on == 0.0)
+    if sw.i_limit is not None and i_pk >= 0.999 * sw.i_limit:
+        limited = True
+
+    def share(i, v_out):
+        cz = circuit_rows(rail, v_s=[rail.supply.v_nom], c=[rail.load.c_nom])
+        i_load = float(cz.load_current(np.array([max(v_out, 0.0)]))[0])
+        return max(i - i_load, 0.0) / i if i > 0.0 else 0.0
+
+    k = 1.1
+    if limited:
+        if t_eq > 0.0 and math.isfinite(t_eq):
+            if "startup_soa" in slopes and v_pk > 0.0:
+                ia = allowed_current(rail.fet, np.array([v_pk, v_pk]), np.array([t_eq, k * t_eq]), rail.t_ambient)
+                if ia[0] > 0.0 and ia[1] > 0.0:
+                    slopes["startup_soa"] = math.log(ia[1] / ia[0]) / math.log(k)
+            if "startup_tj" in slopes:
+                z = zth(rail.fet.zth, np.array([t_eq, k * t_eq]))
+                slopes["startup_tj"] = -math.log(z[1] / z[0]) / math.log(k)
+        cur = 0.0 if sw.mode != "hard" else -share(i_pk, 0.0)
+    else:
+        f = share(i_at, rail.supply.v_nom - v_pk)  # the capacitor's share at the peak power
+        for cid in ("startup_soa", "startup_tj"):
+            if cid in slopes:
+                slopes[cid], kinds[cid] = -f, "share"
+        if "timer_startup" in slopes:
+            slopes["timer_startup"] = 0.0
+        cur = -share(i_pk, float(fig["v_final"][0]))
+    for cid in ("supply_current", "fet_pulse_current"):
+        if cid in slopes:
+            slopes[cid] = cur
+            if not limited:
+                kinds[cid] = "share"
+    if "supply_dip" in slopes:
+        slopes["supply_dip"] = 0.0
+    return slopes, kinds
+
+
+def _secant(kind: str, xa: float, ga: float, xb: float, gb: float) -> float:
+    """d ln m / d ln C at b of the line of ``kind`` through (xa, ga) and (xb, gb)."""
+    if kind == "share":  # 1 / m linear in C
+        ya, yb = math.exp(-ga), math.exp(-gb)
+        ca, cb = math.exp(xa), math.exp(xb)
+        return -(yb - ya) / (cb - ca) * cb / yb
+    return (gb - ga) / (xb - xa)
+
+
+def _line(kind: str, xb: float, gb: float, slope: float, x: float) -> float:
+    """ln m at x on the line of ``kind`` through (xb, gb) with d ln m / d ln C = slope there."""
+    if kind == "share":
+        y = math.exp(-gb) * (1.0 - slope * (math.exp(x - xb) - 1.0))
+        return -math.log(y) if y > 0.0 else _G_CAP
+    return gb + slope * (x - xb)
+
+
+def _aim(x_b: float, g_b: dict, slopes: dict, kinds: dict) -> float:
+    """x where the first falling line (through x_b, of each check's kind) reaches _AIM
+    (inf where no line falls; -inf where one never rises to it at any C)."""
+    best = math.inf
+    for cid, s in slopes.items():
+        if s < -1e-9:
+            if kinds[cid] == "share":  # 1 / m = (1 / m_b) (1 - s (C / C_b - 1))
+                ratio = 1.0 + (math.exp(g_b[cid] - _AIM) - 1.0) / -s
+                best = min(best, x_b + math.log(ratio) if ratio > 0.0 else -math.inf)
+            else:
+                best = min(best, x_b + (_AIM - g_b[cid]) / s)
+    return best
+
+
+def _unfixable(g: dict, slopes: dict, kinds: dict, floor: float, x0: float) -> bool:
+    """Whether a check failing at x0 would, on its line, still fail at x = floor."""
+    return any(g[cid] < 0.0 and _line(kinds[cid], x0, g[cid], slopes[cid], floor) < 0.0 for cid in slopes)
+
+
+def capacitance_headroom(rail: Rail, rules: dict, params: RowParams, nominal_checks: dict,
+                         nominal_fig: dict | None = None) -> dict:
     """Largest load capacitance that still passes the capacitance-dependent checks.
 
     Parameters
@@ -77,7 +209,10 @@ def capacitance_headroom(rail: Rail, rules: dict, params: RowParams, nominal_che
     params : RowParams
         The nominal row (one row); only its capacitance is varied.
     nominal_checks : dict
-        Checks of the nominal row (saves one transient).
+        Checks of the nominal row: the first point of the search (saves one transient).
+    nominal_fig : dict, optional
+        Figures of the nominal row; they set the first step (without them every margin
+        is taken to fall as 1 / C).
 
     Returns
     -------
@@ -88,115 +223,145 @@ def capacitance_headroom(rail: Rail, rules: dict, params: RowParams, nominal_che
 
     Notes
     -----
-    Checks that fail at c_nom are tried at c_nom / 64; those that still fail there do
-    not depend on the capacitance in a way a smaller capacitor can fix (an upstream UVLO
-    below an instant turn-on, say) and are left out of the search, and named.
+    Method and tolerance in the module docstring. A check that fails at c_nom and, by its
+    line, cannot be made to pass by a smaller capacitor (an upstream UVLO below an
+    instant turn-on, say, or a timer against a slew ramp that C does not change) is left
+    out of the search and named, once the search confirms it: it still fails, and no
+    better, at the smaller c_max found without it. Where the search finds no c_max below
+    c_nom, or contradicts the line, the check is tried at c_nom / 64 instead, and left
+    out only if it still fails there. The search also tries c_nom / 64 when it gets there
+    without a passing capacitance.
     """
     c0 = float(params.c[0])
     out = {"c_max": None, "c_max_check": None, "c_max_note": None, "c_max_excluded": [], "c_max_trials": 0}
     if nominal_checks["startup_complete"]["verdict"][0] != PASS:
         out["c_max_note"] = "The start-up does not complete at c_nom; no capacitance headroom."
         return out
-    m_nom = _margins(rail, nominal_checks, 0)
-    use = [cid for cid, m in m_nom.items() if math.isfinite(m)]
+    g_nom = _margins(rail, nominal_checks, 0)
+    use = [cid for cid, g in g_nom.items() if g < _G_CAP]
     if not use:
         out["c_max_note"] = "No capacitance-dependent check applies to this rail."
         return out
-    trials = 0
-
-    def f(c):
-        nonlocal trials
-        trials += 1
-        if trials > _MAX_TRIALS:
-            raise AnalysisError(f"capacitance headroom search did not converge in {_MAX_TRIALS} transients")
-        return _c_margins(rail, rules, params, c)
-
-    c_tiny = c0 / 64.0
-    if any(m_nom[cid] < 1.0 for cid in use):
-        m_tiny = f(c_tiny)
-        excluded = [cid for cid in use if m_nom[cid] < 1.0 and m_tiny[cid] < 1.0]
-        use = [cid for cid in use if cid not in excluded]
-        out["c_max_excluded"] = excluded
-        if excluded:
-            out["c_max_note"] = ("Left out, failing whatever the capacitance: " + ", ".join(excluded) + ".")
-        if not use:
-            out["c_max_trials"] = trials
-            return out
-
-    def worst(ms):
-        cid = min(use, key=lambda k: ms[k])
-        return ms[cid], cid
-
-    # bracket the crossing of 1 by the worst margin; the first trial assumes margin ~ 1/C
-    m0, w0 = worst(m_nom)
-    lo = hi = None
-    if m0 >= 1.0:
-        lo = (c0, m0, w0)
-        c = c0 * min(max(m0, 1.5), 4.0) if math.isfinite(m0) else c0 * 4.0
-        for _ in range(12):
-            m, w = worst(f(c))
-            if m < 1.0:
-                hi = (c, m, w)
-                break
-            lo = (c, m, w)
-            c *= 4.0
-            if c > c0 * 4.0**10:
-                break
-        if hi is None:
-            out.update(c_max_trials=trials,
-                       c_max_note=((out["c_max_note"] or "") +
-                                   f" Passes beyond {lo[0] / c0:.3g} x c_nom; no practical limit from the start-up.").strip())
-            return out
-    else:
-        hi = (c0, m0, w0)
-        c = c0 * max(m0, 0.25)
-        for _ in range(12):
-            m, w = worst(f(c))
-            if m >= 1.0:
-                lo = (c, m, w)
-                break
-            hi = (c, m, w)
-            c /= 4.0
-            if c < c_tiny:
-                break
-        if lo is None:
-            out.update(c_max_trials=trials, c_max_check=hi[2],
-                       c_max_note=f"Fails even at c_nom / {4**10:g}.")
-            return out
-
-    # regula falsi (Illinois) on g(x) = log m, x = log c; bisection when it stalls
-    def gl(mv):
-        return math.log(max(mv, 1e-300)) if math.isfinite(mv) else 50.0
-
-    xa, ga = math.log(lo[0]), gl(lo[1])
-    xb, gb = math.log(hi[0]), gl(hi[1])
-    side = 0
-    while xb - xa > _C_TOL and ga > _M_TOL:
-        width = xb - xa
-        x = xb - gb * (xb - xa) / (gb - ga) if ga > gb else 0.5 * (xa + xb)
-        x = min(max(x, xa + 0.02 * width), xb - 0.02 * width)
-        mv, w = worst(f(math.exp(x)))
-        gx = gl(mv)
-        if mv >= 1.0:
-            xa, ga, lo = x, gx, (math.exp(x), mv, w)
-            if side == -1:
-                gb *= 0.5
-            side = -1
+    x0 = math.log(c0)
+    x_tiny = x0 - _DOWN
+    first, kinds = _first_slopes(rail, nominal_fig, use)
+    search = _CSearch(rail, rules, params, x0, g_nom, first, kinds)
+    # checks that fail at c_nom and whose lines still fail at c_nom / 64
+    suspects = [cid for cid in use if g_nom[cid] < 0.0 and _unfixable(g_nom, {cid: first[cid]}, kinds, x_tiny, x0)]
+    excluded, basis = [], None
+    if suspects and len(suspects) < len(use):
+        rest = [cid for cid in use if cid not in suspects]
+        res = search.run(rest)
+        lo = res.get("lo")
+        if lo is not None and lo < x0 and all(search.points[lo][cid] < 0.0 and
+                                              search.points[lo][cid] <= g_nom[cid] + 1e-9 for cid in suspects):
+            use, excluded = rest, suspects
+            basis = f"each fails at c_nom and, no better, at c_max = {math.exp(lo) / c0:.3g} x c_nom"
         else:
-            xb, gb, hi = x, gx, (math.exp(x), mv, w)
-            if side == 1:
-                ga *= 0.5
-            side = 1
-        if xb - xa > 0.6 * width and xb - xa > _C_TOL and ga > _M_TOL:  # slow: one bisection
-            xm = 0.5 * (xa + xb)
-            mv, w = worst(f(math.exp(xm)))
-            if mv >= 1.0:
-                xa, ga, lo = xm, gl(mv), (math.exp(xm), mv, w)
-            else:
-                xb, gb, hi = xm, gl(mv), (math.exp(xm), mv, w)
-            side = 0
-    out.update(c_max=lo[0], c_max_check=hi[2], c_max_trials=trials)
+            search.restart()
+            res = None
+    else:
+        res = None
+    if res is None:
+        if suspects:
+            g_tiny = search.trial(x_tiny, keep=False)
+            excluded = [cid for cid in use if g_nom[cid] < 0.0 and g_tiny[cid] < 0.0]
+            use = [cid for cid in use if cid not in excluded]
+            basis = "each still fails at c_nom / 64"
+        res = search.run(use) if use else {}
+    if excluded:
+        out["c_max_excluded"] = excluded
+        out["c_max_note"] = f"Left out, failing whatever the capacitance ({basis}): " + ", ".join(excluded) + "."
+    out["c_max_trials"] = search.trials
+    if not use:
+        return out
+    if "note" in res:
+        out["c_max_note"] = ((out["c_max_note"] or "") + " " + res["note"]).strip()
+        out["c_max_check"] = res.get("check")
+        return out
+    out.update(c_max=math.exp(res["lo"]), c_max_check=res["check"])
     return out
+
+
+class _CSearch:
+    """The secant search of the module docstring over ln C, with every transient kept."""
+
+    def __init__(self, rail: Rail, rules: dict, params: RowParams, x0: float, g_nom: dict, first: dict,
+                 kinds: dict) -> None:
+        self.rail, self.rules, self.params = rail, rules, params
+        self.x0, self.g_nom, self.first, self.kinds = x0, g_nom, first, kinds
+        self.points: dict[float, dict] = {x0: g_nom}
+        self.order = [x0]  # the search's own points, latest last
+        self.trials = 0
+        self.tried_tiny = False
+
+    def restart(self) -> None:
+        """Search again (with other checks) from the nominal point; transients are kept."""
+        self.order = [self.x0]
+
+    def trial(self, x: float, keep: bool = True) -> dict:
+        """ln margins at C = exp(x): one start-up transient (none if x was tried)."""
+        if x not in self.points:
+            self.trials += 1
+            if self.trials > _MAX_TRIALS:
+                raise AnalysisError(f"capacitance headroom search did not converge in {_MAX_TRIALS} transients")
+            self.points[x] = _c_margins(self.rail, self.rules, self.params, math.exp(x))
+        if keep:
+            self.order.append(x)
+        if x == self.x0 - _DOWN:
+            self.tried_tiny = True
+        return self.points[x]
+
+    def run(self, use: list) -> dict:
+        """Largest ln C passing the checks ``use``: {"lo", "check"} or {"note", "check"}."""
+        points, order, x0 = self.points, self.order, self.x0
+        x_tiny = x0 - _DOWN
+
+        def worst(g: dict) -> tuple[float, str]:
+            cid = min(use, key=lambda k: g[k])
+            return g[cid], cid
+
+        width_before = g_best_before = math.inf
+        while True:
+            lo = max((x for x, g in points.items() if worst(g)[0] >= 0.0), default=None)
+            hi = min((x for x, g in points.items() if worst(g)[0] < 0.0 and (lo is None or x > lo)), default=None)
+            if lo is not None and (worst(points[lo])[0] <= M_TOL or (hi is not None and hi - lo <= C_TOL)):
+                end = points[hi] if hi is not None else points[lo]
+                return {"lo": lo, "check": worst(end)[1]}
+            # per-check secant through the two latest points; from the nominal run alone,
+            # or when they lie more than x4 apart, the first slopes at the nominal point
+            xb = order[-1]
+            xa = order[-2] if len(order) > 1 else None
+            kinds = self.kinds
+            if xa is not None and xa != xb and abs(xa - xb) <= 1.001 * math.log(4.0):
+                slopes = {cid: _secant(kinds[cid], xa, points[xa][cid], xb, points[xb][cid]) for cid in use}
+                x = _aim(xb, points[xb], slopes, kinds)
+            else:
+                x = _aim(x0, self.g_nom, {cid: self.first[cid] for cid in use}, kinds)
+            g_last = abs(worst(points[xb])[0])
+            if lo is not None and hi is not None:
+                width = hi - lo
+                slow = width > 0.6 * width_before and g_last > 0.25 * g_best_before
+                if not math.isfinite(x) or slow:
+                    x = 0.5 * (lo + hi)  # safeguard: bisection
+                edge = min(0.02 * width, 0.1 * C_TOL)
+                x = min(max(x, lo + edge), hi - edge)
+                width_before, g_best_before = width, g_last
+            elif hi is None:  # passing so far: look upwards, at most x4 at a time
+                x = min(x, lo + math.log(4.0)) if math.isfinite(x) and x > lo else lo + math.log(4.0)
+                x = max(x, lo + 0.5 * C_TOL)
+                if x > x0 + _UP:
+                    return {"note": f"Passes beyond {math.exp(lo - x0):.3g} x c_nom; no practical limit from the "
+                                    "start-up.", "check": None}
+            else:  # failing so far: look downwards, at most /4 at a time, down to c_nom / 64
+                x = max(x, hi - math.log(4.0)) if math.isfinite(x) and x < hi else hi - math.log(4.0)
+                x = min(x, hi - 0.5 * C_TOL)
+                if x < x_tiny:
+                    if not self.tried_tiny:
+                        x = x_tiny
+                    else:
+                        return {"note": "Fails even at c_nom / 64.", "check": worst(points[hi])[1]}
+            self.trial(x)
 
 
 def limit_headroom(rail: Rail, rules: dict, *, v_sc: float, t_fault: float) -> dict:
@@ -215,27 +380,63 @@ def limit_headroom(rail: Rail, rules: dict, *, v_sc: float, t_fault: float) -> d
     -------
     dict
         ``i_limit_max`` (A, the nominal limit whose high tolerance just passes; None
-        when there is no limit or no bound), ``i_limit_max_note``.
+        when there is no limit or no bound within 1/1000 .. 1000 x the nominal limit),
+        ``i_limit_max_note``.
+
+    Notes
+    -----
+    Closed form and its verification in the module docstring.
     """
     sw = rail.switch
     if not has_limit(rail):
         return {"i_limit_max": None, "i_limit_max_note": "The switch has no current limit."}
     up = 1.0 + sw.i_limit_tol
     need = rules["fault_margin"]
+    fet = rail.fet
 
     def passes(i_nom):
+        i_nom = np.asarray(i_nom, dtype=float)
         sc = short_circuit(rail, v_ds=np.full(i_nom.shape, v_sc), i_limit=i_nom * up,
                            t_fault=np.full(i_nom.shape, t_fault))
         return sc["margin"] >= need
 
-    grid = sw.i_limit * np.logspace(-3, 3, 193)
+    lo_b, hi_b = sw.i_limit * 1e-3, sw.i_limit * 1e3
+    every = {"i_limit_max": None,
+             "i_limit_max_note": "Every limit up to 1000 x the nominal passes (the power limit or the DC SOA bounds "
+                                 "the fault)."}
+    none = {"i_limit_max": None,
+            "i_limit_max_note": "Even 1/1000 of the nominal limit fails: the timer is too slow for this FET."}
+    # the largest short-circuit current the FET survives for fault_margin * t_fault
+    t_need = need * t_fault
+    i_soa = float(allowed_current(fet, np.array([v_sc]), np.array([t_need]), rail.t_ambient)[0])
+    r, _ = foster_arrays(fet.zth)
+    z = float(r.sum()) if math.isinf(t_need) else float(zth(fet.zth, t_need))
+    i_sc = min(i_soa, (fet.tj_max - rail.t_ambient) / (z * v_sc))
+    if sw.mode == "power_limit" and sw.p_limit is not None and sw.p_limit / v_sc <= i_sc:
+        if passes([hi_b])[0]:
+            return every
+    else:
+        cand = i_sc / up
+        if cand >= hi_b and passes([hi_b])[0]:
+            return every
+        if cand < lo_b and not passes([lo_b])[0]:
+            return none
+        if lo_b <= cand < hi_b:
+            got = float(cand * (1.0 - 1e-6))
+            ok = passes([got, cand * (1.0 + 1e-4)])
+            if ok[0] and not ok[1]:
+                return {"i_limit_max": got, "i_limit_max_note": None}
+    return _limit_grid(passes, sw.i_limit, every, none)
+
+
+def _limit_grid(passes, i_limit: float, every: dict, none: dict) -> dict:
+    """The highest passing limit on a grid: 193 limits over six decades, 193 inside the bracket."""
+    grid = i_limit * np.logspace(-3, 3, 193)
     ok = passes(grid)
     if ok.all():
-        return {"i_limit_max": None,
-                "i_limit_max_note": "Every limit up to 1000 x the nominal passes (the power limit or the DC SOA bounds the fault)."}
+        return every
     if not ok[0]:
-        return {"i_limit_max": None,
-                "i_limit_max_note": "Even 1/1000 of the nominal limit fails: the timer is too slow for this FET."}
+        return none
     j = int(np.argmin(ok))  # first failing
     fine = np.geomspace(grid[j - 1], grid[j], 193)
     ok2 = passes(fine)

@@ -66,7 +66,8 @@ def format_report(result: dict, doc: dict) -> str:
         lines.append(f"  peak current {eng(s.get('i_peak'), 'A')}, regulating for {eng(s.get('t_limit'), 's')}, "
                      f"settled after {eng(s.get('t_settle'), 's')}")
         lines.append(f"  FET energy {eng(s.get('e_fet'), 'J')}, peak power {eng(s.get('p_fet_peak'), 'W')}, "
-                     f"peak Tj {temp(s.get('tj_peak'))}, lowest switch input {eng(s.get('v_supply_min'), 'V')}")
+                     f"peak Tj {temp(s.get('tj_peak'))}, lowest switch input {eng(s.get('v_supply_min'), 'V')} "
+                     f"through the UVLO filter (unfiltered {eng(s.get('v_supply_min_raw'), 'V')})")
         lines.append(f"  equivalent rectangle {eng(s.get('pulse_p_peak'), 'W')} for {eng(s.get('pulse_t_equiv'), 's')}")
     sc = result.get("short_circuit") or {}
     if sc.get("applies"):

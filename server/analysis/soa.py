@@ -36,6 +36,7 @@ power (t_equiv = E / P_peak); DESIGN.md section 4.
 
 from __future__ import annotations
 
+import functools
 import math
 from typing import Any
 
@@ -80,19 +81,27 @@ def curve_current(curve: SoaCurve, v_ds: float) -> float:
 
 
 class _Table:
-    """Curve currents at given voltages: log t of finite curves and the DC curve."""
+    """Curve currents at given voltages: log t of finite curves and the DC curve.
+
+    Built once per FET (`_table`); the curves' points are kept as log(V), log(I) arrays.
+    """
 
     def __init__(self, fet: Fet) -> None:
         self.finite = [c for c in fet.curves if c.t_pulse is not None]
         self.dc = next((c for c in fet.curves if c.t_pulse is None), None)
         self.log_t = np.log([c.t_pulse for c in self.finite])
         self.fet = fet
+        self._fin_logs = [self._logs(c) for c in self.finite]
+        self._dc_logs = None if self.dc is None else self._logs(self.dc)
 
     @staticmethod
-    def _currents(curve: SoaCurve, v: np.ndarray) -> np.ndarray:
-        lv = np.log([p[0] for p in curve.points])
-        li = np.log([p[1] for p in curve.points])
-        x = np.log(np.maximum(v, 1e-300))
+    def _logs(curve: SoaCurve) -> tuple[np.ndarray, np.ndarray]:
+        pts = np.asarray(curve.points, dtype=float)
+        return np.log(pts[:, 0]), np.log(pts[:, 1])
+
+    @staticmethod
+    def _currents(logs: tuple[np.ndarray, np.ndarray], x: np.ndarray) -> np.ndarray:
+        lv, li = logs
         out = np.exp(np.interp(x, lv, li))
         return np.where(x > lv[-1] + 1e-12, 0.0, out)
 
@@ -103,8 +112,9 @@ class _Table:
         pulse widths): where a short-pulse curve is not drawn up to v, nothing longer is
         allowed either (conservative).
         """
-        fin = np.minimum.accumulate(np.stack([self._currents(c, v) for c in self.finite]), axis=0)
-        dc = None if self.dc is None else np.minimum(self._currents(self.dc, v), fin[-1])
+        x = np.log(np.maximum(v, 1e-300))
+        fin = np.minimum.accumulate(np.stack([self._currents(lg, x) for lg in self._fin_logs]), axis=0)
+        dc = None if self._dc_logs is None else np.minimum(self._currents(self._dc_logs, x), fin[-1])
         return fin, dc
 
     def tail_slope(self, fin: np.ndarray) -> np.ndarray:
@@ -117,6 +127,12 @@ class _Table:
         with np.errstate(divide="ignore", invalid="ignore"):
             s = np.log(np.where(ok, b / np.where(ok, a, 1.0), 1.0)) / (self.log_t[-1] - self.log_t[-2])
         return np.where(ok & (s < 0), s, _DIFFUSION_SLOPE)
+
+
+@functools.lru_cache(maxsize=64)
+def _table(fet: Fet) -> _Table:
+    """The curve table of a FET (a frozen, hashable `Fet`), built once."""
+    return _Table(fet)
 
 
 def derating_factor(fet: Fet, t_start) -> np.ndarray:
@@ -157,7 +173,7 @@ def allowed_current(fet: Fet, v_ds, t_pulse, t_start) -> np.ndarray:
     """
     v = np.atleast_1d(np.asarray(v_ds, dtype=float))
     t = np.broadcast_to(np.asarray(t_pulse, dtype=float), v.shape)
-    tab = _Table(fet)
+    tab = _table(fet)
     fin, dc = tab.matrix(v)
     m = fin.shape[0]
     with np.errstate(divide="ignore"):
@@ -213,7 +229,7 @@ def soa_allowed_time(fet: Any, v_ds, i_d, t_ambient) -> np.ndarray:
     fet = _as_fet(fet, t_ambient)
     v = np.atleast_1d(np.asarray(v_ds, dtype=float))
     i = np.broadcast_to(np.asarray(i_d, dtype=float), v.shape)
-    tab = _Table(fet)
+    tab = _table(fet)
     kd = derating_factor(fet, t_ambient)
     fin, dc = tab.matrix(v)
     fin = fin * kd

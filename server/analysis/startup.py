@@ -5,8 +5,8 @@ Provides
 simulate_startup(circuit, *, record=None, max_steps=MAX_STEPS)
     Integrate the start-up of every row of a `Circuit` at once and return the figures
     (`StartupFigures`): i_peak, t_limit, t_settle, e_fet, p_fet_peak, tj_peak,
-    v_supply_min and the operating point of the peak power; optionally the full-resolution
-    waveform of one row.
+    v_supply_min (through the UVLO filter) and v_supply_min_raw, and the operating point
+    of the peak power; optionally the full-resolution waveform of one row.
 StartupFigures
     The figures as arrays of shape (n,) and a per-row status.
 STATUS_OK, STATUS_STALLED, STATUS_NO_CONVERGENCE
@@ -31,7 +31,18 @@ dvdt), and the current at which the FET dissipates p_limit with v_ds = v_s - r i
 current is algebraic (an index-1 DAE). t_limit counts the time with v_reg > 0. A load
 draws nothing below v_on and, once started, keeps drawing (its own UVLO hysteresis). The
 start-up is computed as if the fault timer never trips; the timer check says whether it
-would. No input capacitance is modelled: the switch input is v_out + v_ds.
+would. No input capacitance is modelled: the switch input is v_out + v_ds, and while the
+FET regulates a step of its reference can pull it down to nearly v_out for the few
+nanoseconds the series inductance needs to take the new current (an ideal controller of
+infinite bandwidth). No real UVLO sees such a notch: its comparator has a deglitch
+filter. v_supply_min is therefore the switch input through a first-order lag of time
+constant uvlo_filter (default 1 us, common practice, no source), tau dy/dt + y = v_in,
+starting from y = v_s (the supply before the switch turns on) and integrated exactly per
+step (`lag`; v_s - r i linear between stage points, l di/dt at its mean over each stage
+interval so that a notch keeps its area l delta-i, and the notch of a reference step is
+put back with its depth and width); v_supply_min_raw is the lowest unfiltered value: the
+stage points and the floor of such a notch. With uvlo_filter = 0 the two are the same
+number.
 
 Method
 ------
@@ -77,7 +88,8 @@ class StartupFigures:
     to its final voltage: the output stalls at ``v_stall``; or the load has no DC
     operating point) or STATUS_NO_CONVERGENCE. Figures of rows that are not OK are NaN.
     ``v_ds_at_peak`` and ``i_at_peak`` are the FET operating point at its peak power,
-    ``t_i_peak`` the time of the current peak.
+    ``t_i_peak`` the time of the current peak. ``v_supply_min`` is the lowest switch-input
+    voltage through the UVLO filter, ``v_supply_min_raw`` the lowest unfiltered one.
     ``waveform`` holds the full-resolution waveform of the recorded row.
     """
 
@@ -90,6 +102,7 @@ class StartupFigures:
     p_fet_peak: np.ndarray
     tj_peak: np.ndarray
     v_supply_min: np.ndarray
+    v_supply_min_raw: np.ndarray
     v_ds_at_peak: np.ndarray
     i_at_peak: np.ndarray
     v_final: np.ndarray
@@ -176,6 +189,14 @@ def simulate_startup(cz: Circuit, *, record: int | None = None, max_steps: int =
     def out(x):
         return np.where(good, x, np.nan)
 
+    v_raw = np.minimum(fig["v_in_min"], cz.v_s)
+    if cz.uvlo_filter > 0.0:
+        # after the run the filter output tends to the last input, which it may not
+        # have reached yet
+        v_flt = np.minimum(np.minimum(fig["v_flt_min"], cz.v_s - cz.r * fig["i"]), cz.v_s)
+    else:
+        v_flt = v_raw
+
     if record is not None and not good[record]:
         wave = None
     return StartupFigures(
@@ -187,7 +208,8 @@ def simulate_startup(cz: Circuit, *, record: int | None = None, max_steps: int =
         e_fet=out(fig["e_fet"]),
         p_fet_peak=out(fig["p_peak"]),
         tj_peak=out(fig["tj_peak"]),
-        v_supply_min=out(np.minimum(fig["v_in_min"], cz.v_s)),
+        v_supply_min=out(v_flt),
+        v_supply_min_raw=out(v_raw),
         v_ds_at_peak=out(fig["v_pk"]),
         i_at_peak=out(fig["i_pk"]),
         v_final=out(cz.final_output(fig["tj"])[0]),

@@ -28,6 +28,7 @@ one MOSFET datasheets publish (common practice, no standard).
 
 from __future__ import annotations
 
+import functools
 import math
 from typing import Iterable
 
@@ -130,6 +131,17 @@ def foster_advance_floats(theta, p0: float, p1: float, dt: float, r, tau) -> lis
     return out
 
 
+_GRID = np.linspace(math.log(1e-12), math.log(1e6), 97)  # ln t of the bracketing grid
+
+
+@functools.lru_cache(maxsize=64)
+def _zth_grid(r: tuple, tau: tuple) -> np.ndarray:
+    """Zth on the bracketing grid of `time_to_rise`, K/W (computed once per network)."""
+    z = np.sum(np.asarray(r) * -np.expm1(-np.exp(_GRID)[:, None] / np.asarray(tau)), axis=1)
+    z.setflags(write=False)
+    return z
+
+
 def time_to_rise(r: np.ndarray, tau: np.ndarray, power, rise) -> np.ndarray:
     """Time for a constant power to raise the junction temperature by ``rise``.
 
@@ -150,30 +162,37 @@ def time_to_rise(r: np.ndarray, tau: np.ndarray, power, rise) -> np.ndarray:
     Notes
     -----
     Zth(t) is increasing, so the root of P Zth(t) = rise is unique. It is bracketed on a
-    grid of 97 times, log-spaced over 1e-12 .. 1e6 s, refined by 20 bisections on log t
-    and finished by linear interpolation in log t (relative error below 1e-9).
+    grid of 97 times, log-spaced over 1e-12 .. 1e6 s, and located by Newton's method on
+    log t, dZth/dlog t = sum r_i (t / tau_i) exp(-t / tau_i), from the regula falsi point
+    of the bracket and kept inside it (a regula falsi step wherever Newton's would leave
+    it; the safeguarded Newton method, e.g. W. H. Press et al., "Numerical Recipes",
+    section 9.4). Six steps bring the relative error of P Zth(t) below 1e-9.
     """
     power = np.atleast_1d(np.asarray(power, dtype=float))
     rise = np.broadcast_to(np.asarray(rise, dtype=float), power.shape)
     reach = power * r.sum() > rise
-    grid = np.linspace(math.log(1e-12), math.log(1e6), 97)
-    z = np.sum(r * -np.expm1(-np.exp(grid)[:, None] / tau), axis=1)  # (97,)
+    z = _zth_grid(tuple(r), tuple(tau))  # (97,)
     over = power[:, None] * z[None, :] >= rise[:, None]  # (n, 97)
-    j = np.clip(np.argmax(over, axis=1), 1, grid.size - 1)
-    lo, hi = grid[j - 1], grid[j]
+    j = np.minimum(np.maximum(np.argmax(over, axis=1), 1), _GRID.size - 1)
+    lo, hi = _GRID[j - 1], _GRID[j]
+    f_lo, f_hi = power * z[j - 1] - rise, power * z[j] - rise
+    add = np.add.reduce
 
-    def excess(x):
-        return power * np.sum(r * -np.expm1(-np.exp(x)[:, None] / tau), axis=1) - rise
+    def inside(f_a, f_b):  # regula falsi point of the bracket
+        return lo + (hi - lo) * np.minimum(np.maximum(f_a / np.where(f_a < f_b, f_a - f_b, -1.0), 0.0), 1.0)
 
-    for _ in range(20):
-        mid = 0.5 * (lo + hi)
-        up = excess(mid) >= 0.0
-        hi = np.where(up, mid, hi)
-        lo = np.where(up, lo, mid)
-    fa, fb = excess(lo), excess(hi)
-    with np.errstate(invalid="ignore", divide="ignore"):
-        w = np.where(fb > fa, -fa / (fb - fa), 0.5)
-    t = np.exp(lo + np.clip(w, 0.0, 1.0) * (hi - lo))
+    with np.errstate(invalid="ignore", divide="ignore", over="ignore"):
+        x = inside(f_lo, f_hi)
+        for _ in range(6):
+            u = np.exp(x)[:, None] / tau  # (n, k)
+            f = power * add(r * -np.expm1(-u), axis=1) - rise
+            d = power * add(r * u * np.exp(-u), axis=1)
+            up = f >= 0.0
+            hi, f_hi = np.where(up, x, hi), np.where(up, f, f_hi)
+            lo, f_lo = np.where(up, lo, x), np.where(up, f_lo, f)
+            xn = x - f / d
+            x = np.where((d > 0.0) & (xn >= lo) & (xn <= hi), xn, inside(f_lo, f_hi))
+    t = np.exp(x)
     t = np.where(reach, t, np.inf)
     return np.where(rise <= 0.0, 0.0, t)
 

@@ -76,6 +76,9 @@ class Supply(_Section):
     l_source: Henry = Field(0.0, ge=0)
     i_max: OptAmp = Field(None, gt=0)
     uvlo: OptVolt = Field(None, gt=0)
+    # time constant of the upstream UVLO's deglitch filter (a first-order lag); 1 us is
+    # common practice, no source
+    uvlo_filter: Second = Field(1e-6, ge=0)
 
     @model_validator(mode="after")
     def _ordered(self) -> "Supply":

@@ -11,6 +11,7 @@ from __future__ import annotations
 import copy
 
 __all__ = [
+    "FET_30V",
     "FET_40V",
     "FET_60V",
     "FET_100V",
@@ -18,8 +19,30 @@ __all__ = [
     "hotswap_48v",
     "load_switch_5v",
     "slew_24v",
+    "slew_12v_demo",
     "simple_doc",
 ]
+
+# 30 V, 5 mOhm, mounted rth_ja 40 K/W (invented)
+FET_30V = {
+    "name": "INV-N30-5M0",
+    "vds_max": 30.0,
+    "id_pulse_max": 200.0,
+    "rds_on": 5.0e-3,
+    "rds_on_alpha": 0.005,
+    "tj_max": 150.0,
+    "rth_ja": 40.0,
+    "zth": [{"r": 0.2, "tau": 2e-5}, {"r": 1.8, "tau": 2e-3}, {"r": 8.0, "tau": 0.1}, {"r": 30.0, "tau": 5.0}],
+    "soa": {
+        "t_case": 25.0,
+        "curves": [
+            {"t_pulse": 1e-4, "points": [[0.5, 150.0], [10.0, 150.0], [30.0, 40.0]]},
+            {"t_pulse": 1e-3, "points": [[0.5, 100.0], [5.0, 100.0], [30.0, 12.0]]},
+            {"t_pulse": 1e-2, "points": [[0.5, 60.0], [2.0, 60.0], [30.0, 4.0]]},
+            {"t_pulse": None, "points": [[0.5, 20.0], [1.0, 20.0], [30.0, 0.7]]},
+        ],
+    },
+}
 
 # 40 V, 2 mOhm, mounted rth_ja 30 K/W (invented)
 FET_40V = {
@@ -163,6 +186,29 @@ def slew_24v() -> dict:
                              "v_trip_tol": 0.05, "after_fault": "latch", "retry_off": None}},
         "fet": copy.deepcopy(FET_60V),
         "environment": {"t_ambient": 50.0},
+        "rules": {},
+    }
+
+
+def slew_12v_demo() -> dict:
+    """12 V slew-controlled rail into 220 uF with a constant-current load that starts at 3 V.
+
+    When the load switches on, the regulated reference steps by 1.2 A and the ideal
+    regulating FET takes it through the 215 nH in about 30 ns: an unfiltered notch of the
+    switch input that no real UVLO sees.
+    """
+    return {
+        "schema": "railsign.rail/1",
+        "name": "12 V logic, slew-controlled",
+        "supply": {"v_min": 11.4, "v_nom": 12.0, "v_max": 12.6, "r_source": 0.015, "l_source": 200e-9,
+                   "i_max": 15.0, "uvlo": 10.0},
+        "path": {"r": 4e-3, "l": 15e-9},
+        "load": {"c_nom": 220e-6, "c_tol": 0.2, "esr": 0.02, "model": "constant_current", "i_nom": 1.2,
+                 "v_on": 3.0},
+        "switch": {"mode": "slew", "t_on": 100e-6, "dvdt": 6000.0, "i_limit": None, "i_limit_tol": 0.0,
+                   "p_limit": None, "timer": None},
+        "fet": copy.deepcopy(FET_30V),
+        "environment": {"t_ambient": 55.0},
         "rules": {},
     }
 

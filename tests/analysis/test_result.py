@@ -33,8 +33,9 @@ def test_result_is_strict_json_with_the_contract_keys(efuse_result):
         assert key in efuse_result
     assert efuse_result["engine_version"] == ENGINE_VERSION
     for key in ("i_peak", "t_limit", "t_settle", "e_fet", "p_fet_peak", "tj_peak", "v_supply_min",
-                "pulse_t_equiv", "pulse_p_peak", "waveforms"):
+                "v_supply_min_raw", "uvlo_filter", "pulse_t_equiv", "pulse_p_peak", "waveforms"):
         assert key in efuse_result["startup"]
+    assert efuse_result["startup"]["v_supply_min_raw"] <= efuse_result["startup"]["v_supply_min"]
     for key in ("v_ds", "i", "p", "t_soa", "t_thermal", "t_allow", "t_fault_max", "margin"):
         assert key in efuse_result["short_circuit"]
     for key in ("t_fault_min", "t_fault_nom", "t_fault_max", "startup_margin", "c_window", "c_suggested"):

@@ -2,10 +2,13 @@
 
 Prints, measured side by side in the same run on this machine:
 
-- the nominal analysis of each demo rail (median), with and without the headroom search;
+- the nominal analysis of each demo rail (median), with and without the headroom search,
+  and the number of start-up transients the headroom search ran;
 - the full tolerance-corner set (median);
 - Monte Carlo of 10,000 samples (median of 3) and its peak memory (tracemalloc, in a
   separate run because tracing slows allocation; and the process's peak RSS);
+- the headroom search's choice of back end: one candidate capacitance on the float back
+  end against a batch of 16 candidates on the array back end;
 - per-sample cost of the start-up transient on one circuit: our batch integrator over
   2,000 samples, our single-row path, a straightforward loop calling
   ``scipy.integrate.solve_ivp`` (Radau) once per sample, and ngspice in batch mode once
@@ -49,6 +52,7 @@ RAILS = {
     "hotswap_48v (power limit)": rd.hotswap_48v,
     "load_switch_5v (hard)": rd.load_switch_5v,
     "slew_24v (slew)": rd.slew_24v,
+    "slew_12v_demo (slew, notch)": rd.slew_12v_demo,
 }
 
 
@@ -72,7 +76,8 @@ def section_speed() -> None:
     for name, make in RAILS.items():
         doc = make()
         t_nom = median_time(lambda: analyze_rail(doc, headroom=False), 30)
-        t_head = median_time(lambda: analyze_rail(doc), 10)
+        t_head = median_time(lambda: analyze_rail(doc), 15)
+        trials = analyze_rail(doc, waveforms=False)["headroom"]["c_max_trials"]
         n_c = len(analyze_rail(doc, corners=True, headroom=False, waveforms=False)["corners"])
         t_cor = median_time(lambda: analyze_rail(doc, corners=True, headroom=False, waveforms=False), 10)
         t_mc = median_time(lambda: analyze_rail(doc, monte_carlo=10000, headroom=False, waveforms=False), 3)
@@ -81,10 +86,24 @@ def section_speed() -> None:
         peak = tracemalloc.get_traced_memory()[1]
         tracemalloc.stop()
         print(f"  {name:28s} {ms(t_nom):>11s} {ms(t_head):>11s} {ms(t_cor):>11s} {t_mc:8.3f} s {peak / 1e6:7.1f} MB"
-              f"   ({n_c} corners)")
+              f"   ({n_c} corners, {trials} headroom transients)")
     rss = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024.0
     print(f"  process peak RSS so far: {rss:.0f} MB")
     print("  goals: nominal < 10 ms, corners < 100 ms, MC 10k < 1 s with peak memory < 300 MB")
+
+
+def section_headroom_backends() -> None:
+    """One candidate capacitance per float-path transient, or a batch of candidates."""
+    print()
+    print("Headroom candidates: one row on the float back end, or 16 rows in one array batch")
+    for name, make in RAILS.items():
+        rail = read_rail(make())
+        c0 = rail.load.c_nom
+        one = circuit_rows(rail, v_s=[rail.supply.v_nom], c=[1.3 * c0])
+        batch = circuit_rows(rail, v_s=np.full(16, rail.supply.v_nom), c=c0 * np.geomspace(0.25, 4.0, 16))
+        t1 = median_time(lambda: simulate_startup(one), 15)
+        t16 = median_time(lambda: simulate_startup(batch), 5)
+        print(f"  {name:28s} one row {ms(t1)}   16 rows {ms(t16)}   ({t16 / t1:4.1f} single rows)")
 
 
 # --------------------------------------------------------------------------------------
@@ -228,6 +247,7 @@ def section_stiff() -> None:
 def main() -> None:
     print(f"railsign analysis benchmark (python {sys.version.split()[0]}, numpy {np.__version__})")
     section_speed()
+    section_headroom_backends()
     section_engines()
     section_stiff()
 
