@@ -171,7 +171,8 @@ def worst_check(checks: list[dict[str, Any]] | None, t_ambient: float | None = N
 _INPUTS: list[tuple[str, str, list[tuple[str, str, str | None]]]] = [
     ("Supply", "supply", [("V min", "v_min", "V"), ("V nom", "v_nom", "V"), ("V max", "v_max", "V"),
                           ("Source resistance", "r_source", "ohm"), ("Source inductance", "l_source", "H"),
-                          ("Current capability (i_max)", "i_max", "A"), ("Upstream UVLO", "uvlo", "V")]),
+                          ("Current capability (i_max)", "i_max", "A"), ("Upstream UVLO", "uvlo", "V"),
+                          ("UVLO deglitch time constant", "uvlo_filter", "s")]),
     ("Path", "path", [("Resistance", "r", "ohm"), ("Inductance", "l", "H")]),
     ("Load", "load", [("Capacitance", "c_nom", "F"), ("Capacitance tolerance", "c_tol", "fraction"),
                       ("ESR", "esr", "ohm"), ("Load model", "model", None), ("Load current at V nom", "i_nom", "A"),

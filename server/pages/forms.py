@@ -52,6 +52,7 @@ RAIL_SECTIONS: list[tuple[str, str, list[FormField]]] = [
         F("supply.l_source", "Source inductance", "H", placeholder="0 if blank"),
         F("supply.i_max", "Current the supply can deliver (i_max)", "A", hint="optional"),
         F("supply.uvlo", "Upstream undervoltage lockout (UVLO)", "V", hint="optional"),
+        F("supply.uvlo_filter", "UVLO deglitch time constant", "s", placeholder="1 us if blank"),
     ]),
     ("Path (traces, connector, sense resistor)", "path", [
         F("path.r", "Path resistance", "ohm", placeholder="0 if blank"),

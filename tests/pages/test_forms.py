@@ -23,6 +23,7 @@ def test_form_values_read_back_to_exactly_the_stored_number(value, kind, text):
 
 def test_every_field_of_a_stored_document_survives_the_form_unchanged():
     doc = normalize_document(rail_doc(rules={"soa_margin": 2.0, "tj_headroom": 30.0},
+                                      supply={"uvlo_filter": "4.7 us"},
                                       fet=fet_doc(rds_on_alpha=0.0045)))
     again = normalize_document(document_from_form(form_from_document(doc), doc["fet"]))
     assert again == doc
