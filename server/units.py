@@ -51,7 +51,7 @@ KINDS: dict[str, Kind] = {
     "J": _kind("J", "energy"),
     "K/W": _kind("K/W", "thermal resistance", "°C/W", "degC/W", "C/W"),
     "degC": _kind("°C", "temperature", "degC", "C"),
-    "K": _kind("K", "temperature difference", "degC", "°C"),
+    "K": _kind("K", "temperature difference", "kelvin", "degC", "°C"),
     "V/s": _kind("V/s", "slew rate"),
     "1/K": _kind("1/K", "temperature coefficient"),
     "fraction": _kind("", "fraction"),
@@ -61,6 +61,7 @@ KINDS: dict[str, Kind] = {
 # Rates and temperature coefficients carry a scaled denominator that quantiphy leaves alone.
 _RATE = re.compile(r"^(?P<num>[^/]*?)\s*V\s*/\s*(?P<den>[a-zµμ]*s)$")
 _TEMPCO = re.compile(r"^(?P<num>.*?)\s*(?P<scale>%|ppm|1)?\s*/\s*(K|°C|degC)$")
+_TEMPERATURE = re.compile(r"^(?P<num>[-+]?(\d+\.?\d*|\.\d+)([eE][-+]?\d+)?)\s*(?P<unit>\S*)$")
 _TIME_SCALE = {"s": 1.0, "ms": 1e-3, "us": 1e-6, "µs": 1e-6, "μs": 1e-6, "ns": 1e-9}
 
 
@@ -108,6 +109,14 @@ def _parse_text(text: str, kind: str, k: Kind) -> float:
         if den is None:
             raise UnitError(f"unknown time unit '{m['den']}' in slew rate '{text}' (use V/s, V/ms or V/us)")
         return num / den
+    if kind in ("degC", "K"):
+        # No scale factors on temperatures: "25 K" is 25 kelvin, not 25 kilo.
+        m = _TEMPERATURE.match(text)
+        if m is None:
+            raise UnitError(f"'{text}' is not a {k.word} (write it like 25, 25 degC or 125 °C)")
+        if m["unit"] and m["unit"] not in k.spellings:
+            raise UnitError(f"unknown or wrong unit '{m['unit']}' for a {k.word} (expected {k.symbol})")
+        return float(m["num"])
     if kind == "1/K" and (m := _TEMPCO.match(text)):
         num, units = _number(m["num"])
         if units:

@@ -98,7 +98,9 @@ def settings(database_url) -> Settings:
 
 @pytest.fixture
 def app(settings):
-    return create_app(settings)
+    app = create_app(settings)
+    yield app
+    app.state.engine.dispose()  # also for tests that never start the app's lifespan
 
 
 @pytest.fixture
