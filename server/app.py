@@ -12,9 +12,11 @@ from typing import Any
 import plotly
 from fastapi import Depends, FastAPI, Request
 from fastapi.exceptions import RequestValidationError
-from fastapi.responses import FileResponse, JSONResponse, RedirectResponse, Response
+from fastapi.openapi.docs import get_swagger_ui_html, get_swagger_ui_oauth2_redirect_html
+from fastapi.responses import FileResponse, HTMLResponse, JSONResponse, RedirectResponse, Response
 from fastapi.staticfiles import StaticFiles
 from starlette.exceptions import HTTPException as StarletteHTTPException
+from swagger_ui_bundle import swagger_ui_path
 
 from server import __version__
 from server.api import api_router
@@ -117,7 +119,7 @@ def create_app(settings: Settings | None = None) -> FastAPI:
 
     app = FastAPI(title="railsign", version=__version__, lifespan=lifespan,
                   description="Design sign-off for switched power rails. All numbers are SI units.",
-                  dependencies=[Depends(csrf_guard)])
+                  dependencies=[Depends(csrf_guard)], docs_url=None, redoc_url=None)
     app.state.settings = settings
     app.state.engine = engine
     app.state.sessionmaker = make_sessionmaker(engine)
@@ -154,5 +156,19 @@ def create_app(settings: Settings | None = None) -> FastAPI:
         return FileResponse(PLOTLY_DIR / "plotly.min.js", media_type="application/javascript",
                             headers={"Cache-Control": "public, max-age=86400"})
 
+    @app.get("/docs", include_in_schema=False)
+    def api_docs() -> HTMLResponse:
+        """The interactive API description, its JavaScript served from here (no CDN)."""
+        return get_swagger_ui_html(openapi_url=app.openapi_url, title="railsign API",
+                                   oauth2_redirect_url="/docs/oauth2-redirect",
+                                   swagger_js_url="/static/docs/swagger-ui-bundle.js",
+                                   swagger_css_url="/static/docs/swagger-ui.css",
+                                   swagger_favicon_url="/static/docs/favicon-32x32.png")
+
+    @app.get("/docs/oauth2-redirect", include_in_schema=False)
+    def api_docs_redirect() -> HTMLResponse:
+        return get_swagger_ui_oauth2_redirect_html()
+
+    app.mount("/static/docs", StaticFiles(directory=swagger_ui_path), name="docs-assets")
     app.mount("/static", StaticFiles(directory=WEB_DIR / "static"), name="static")
     return app

@@ -23,7 +23,7 @@ ROUTES: list[tuple[str, str, str]] = [
     ("GET",    "/openapi.json",                                     PUBLIC),
     ("GET",    "/docs",                                             PUBLIC),
     ("GET",    "/docs/oauth2-redirect",                             PUBLIC),
-    ("GET",    "/redoc",                                            PUBLIC),
+    ("GET",    "/static/docs",                                      PUBLIC),
     ("GET",    "/static",                                           PUBLIC),
     ("GET",    "/static/vendor/plotly.min.js",                      PUBLIC),
     ("GET",    "/login",                                            PUBLIC),
@@ -121,7 +121,7 @@ ROUTES: list[tuple[str, str, str]] = [
 EXPECTED = {(method, path): permission for method, path, permission in ROUTES}
 ROLES = ["viewer", "designer", "reviewer", "manager", "admin"]
 NOBODY = "999999"
-STATIC_SAMPLE = {"/static": "/static/railsign.css"}
+STATIC_SAMPLE = {"/static": "/static/railsign.css", "/static/docs": "/static/docs/swagger-ui.css"}
 
 
 def all_routes(app) -> list[tuple[str, str]]:
