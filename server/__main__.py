@@ -263,6 +263,8 @@ def cmd_analyze(args: argparse.Namespace) -> int:
     if progress:
         print(file=sys.stderr)
     if args.json:
+        if not args.waveforms:
+            result["startup"].pop("waveforms", None)
         print(json.dumps(result, indent=2, allow_nan=False))
     else:
         print(format_report(result, document))
