@@ -69,12 +69,12 @@ def _kind_for(options: dict[str, Any]) -> str:
 
 
 def _new_rail_job(session: Session, actor: Actor, rail: Rail, rev: RailRevision, options: dict[str, Any], *,
-                  force: bool, parent_id: int | None = None) -> Job:
+                  force: bool, parent_id: int | None = None, reuse_active: bool = True) -> Job:
     """A job for one revision: an equal queued/running job is reused, a stored result answers at once."""
     options = results.normalize_options(options)
     version = results.engine_version()
     key = results.options_key(options)
-    if parent_id is None:
+    if parent_id is None and reuse_active:
         same = session.scalar(select(Job).where(
             Job.sha256 == rev.sha256, Job.rail_id == rail.id, Job.options_key == key,
             Job.engine_version == version, Job.state.in_(ACTIVE)).order_by(Job.id).limit(1))
@@ -94,7 +94,8 @@ def _new_rail_job(session: Session, actor: Actor, rail: Rail, rev: RailRevision,
 
 def enqueue_for_revision(session: Session, actor: Actor, rail: Rail, rev: RailRevision) -> Job:
     """Queue the nominal + corners analysis of a new revision (called inside the save transaction)."""
-    job = _new_rail_job(session, actor, rail, rev, results.NOMINAL_OPTIONS, force=False)
+    # A revision just made has no job yet (a stored result of an equal document still answers at once).
+    job = _new_rail_job(session, actor, rail, rev, results.NOMINAL_OPTIONS, force=False, reuse_active=False)
     session.info["railsign_wakeup"] = True
     return job
 

@@ -117,23 +117,28 @@ def list_rails(*, session: Session, actor: Actor, product_id: int | None = None,
     ``with_documents=False`` leaves the revisions' documents unread (``Rail.summary`` has
     the figures a list shows); reading ``head.document`` then loads it on demand.
     """
-    stmt = scoped_rails(select(Rail, RailRevision).join(
-        RailRevision, (RailRevision.rail_id == Rail.id) & (RailRevision.n == Rail.head_n)), actor)
-    if not with_documents:
-        stmt = stmt.options(defer(RailRevision.document))
+    ids = scoped_rails(select(Rail.id), actor)
     if product_id is not None:
         if actor.all_teams:
-            stmt = stmt.join(Board, Board.id == Rail.board_id)
-        stmt = stmt.where(Board.product_id == product_id)
+            ids = ids.join(Board, Board.id == Rail.board_id)
+        ids = ids.where(Board.product_id == product_id)
     if board_id is not None:
-        stmt = stmt.where(Rail.board_id == board_id)
+        ids = ids.where(Rail.board_id == board_id)
     if mode:
-        stmt = stmt.where(Rail.mode == mode)
+        ids = ids.where(Rail.mode == mode)
     if q:
-        stmt = stmt.where(Rail.name.ilike(f"%{q}%"))
-    total = session.scalar(select(func.count()).select_from(stmt.with_only_columns(Rail.id).subquery())) or 0
-    rows = session.execute(stmt.order_by(Rail.board_id, Rail.name, Rail.id).limit(limit).offset(offset)).all()
-    return [(r[0], r[1]) for r in rows], total
+        ids = ids.where(Rail.name.ilike(f"%{q}%"))
+    total = session.scalar(select(func.count()).select_from(ids.subquery())) or 0
+    # The page's ids first, in the order of the (board_id, name) unique index; then their heads.
+    page = list(session.scalars(ids.order_by(Rail.board_id, Rail.name).limit(limit).offset(offset)))
+    if not page:
+        return [], total
+    stmt = select(Rail, RailRevision).join(
+        RailRevision, (RailRevision.rail_id == Rail.id) & (RailRevision.n == Rail.head_n)).where(Rail.id.in_(page))
+    if not with_documents:
+        stmt = stmt.options(defer(RailRevision.document))
+    heads = {rail.id: (rail, head) for rail, head in session.execute(stmt).all()}
+    return [heads[i] for i in page if i in heads], total
 
 
 def get_rail(*, session: Session, actor: Actor, rail_id: int, for_update: bool = False) -> Rail:
@@ -218,7 +223,7 @@ def save_rail(*, session: Session, actor: Actor, rail_id: int, document: Any, ba
             "say which revision your edit is based on: an If-Match header with its sha256, or base_revision")
     begin_write(session)
     rail = get_rail(session=session, actor=actor, rail_id=rail_id, for_update=True)
-    head = get_revision(session=session, actor=actor, rail_id=rail.id)
+    head = session.scalar(select(RailRevision).where(RailRevision.rail_id == rail.id, RailRevision.n == rail.head_n))
     stale = (base_sha256 is not None and base_sha256 != rail.head_sha256) or \
             (base_n is not None and base_n != rail.head_n)
     if stale:
