@@ -25,7 +25,7 @@ from sqlalchemy import event, func, select, update
 from sqlalchemy.orm import Session
 
 from server.db import begin_write
-from server.models import Board, Job, JobKind, JobState, Rail, RailRevision, utcnow
+from server.models import Board, Job, JobKind, JobState, Product, Rail, RailRevision, utcnow
 from server.services import results
 from server.services.access import Actor, Permission
 from server.services.catalog import get_board
@@ -155,8 +155,6 @@ def list_jobs(*, session: Session, actor: Actor, state: str | None = None, rail_
               board_id: int | None = None, limit: int = 50, offset: int = 0) -> tuple[list[Job], int]:
     stmt = select(Job)
     if not actor.all_teams:
-        from server.models import Product
-
         stmt = (stmt.join(Board, Board.id == Job.board_id).join(Product, Product.id == Board.product_id)
                 .where(Product.team_id.in_(actor.team_ids or {-1})))
     if state:

@@ -13,6 +13,8 @@ from __future__ import annotations
 import math
 import re
 from dataclasses import dataclass
+from decimal import Decimal
+from functools import lru_cache
 
 from quantiphy import InvalidNumber, Quantity
 
@@ -132,11 +134,25 @@ def _parse_text(text: str, kind: str, k: Kind) -> float:
     return number
 
 
-def format_quantity(value: float | None, kind: str, digits: int = 3) -> str:
-    """Engineering notation for display: 0.00047, "F" -> "470 uF"; None -> "-"."""
-    if value is None:
-        return "-"
-    if isinstance(value, float) and not math.isfinite(value):
+_PREFIX_OF_EXPONENT = {-15: "f", -12: "p", -9: "n", -6: "u", -3: "m", 0: "", 3: "k", 6: "M", 9: "G", 12: "T"}
+
+
+def _engineering(value: float, symbol: str, digits: int) -> str:
+    """``digits`` significant digits with an SI prefix ("680 uF", "5.2 mΩ"); quantiphy's rendering,
+    computed directly because pages format thousands of numbers. Outside f..T: quantiphy."""
+    if value == 0:
+        return f"0 {symbol}"
+    mantissa, exponent = f"{value:.{max(digits - 1, 0)}e}".split("e")  # rounds as the library does
+    exp = int(exponent) // 3 * 3
+    if exp not in _PREFIX_OF_EXPONENT:
+        return Quantity(value, symbol).render(prec=max(digits - 1, 0))
+    shifted = float(Decimal(mantissa).scaleb(int(exponent) - exp))  # exact decimal shift, < 1000
+    return f"{shifted:.{max(digits, 3)}g} {_PREFIX_OF_EXPONENT[exp]}{symbol}"
+
+
+@lru_cache(maxsize=65536)
+def _format(value: float, kind: str, digits: int) -> str:
+    if not math.isfinite(value):
         return "inf" if value > 0 else ("-inf" if value < 0 else "-")
     k = KINDS[kind]
     if kind in ("fraction",):
@@ -147,4 +163,11 @@ def format_quantity(value: float | None, kind: str, digits: int = 3) -> str:
         return f"{value:.{max(digits - 2, 1)}f} {k.symbol}"
     if kind == "1/K":
         return f"{value * 100:.{digits}g} %/K"
-    return Quantity(value, k.symbol).render(prec=max(digits - 1, 0))
+    return _engineering(value, k.symbol, digits)
+
+
+def format_quantity(value: float | None, kind: str, digits: int = 3) -> str:
+    """Engineering notation for display: 0.00047, "F" -> "470 uF"; None -> "-"."""
+    if value is None:
+        return "-"
+    return _format(float(value), kind, digits)

@@ -76,3 +76,14 @@ def test_format(value, kind, text):
 @pytest.mark.parametrize("value,kind", [(680e-6, "F"), (4.7e-3, "ohm"), (2.5, "A"), (1e-6, "s"), (3.3e-8, "F")])
 def test_format_then_parse_round_trips_to_three_digits(value, kind):
     assert math.isclose(parse_quantity(format_quantity(value, kind), kind), value, rel_tol=5e-3)
+
+
+@pytest.mark.parametrize("kind,symbol", [("F", "F"), ("ohm", "Ω"), ("A", "A"), ("s", "s"), ("V/s", "V/s")])
+def test_fast_rendering_matches_the_units_library(kind, symbol):
+    from quantiphy import Quantity
+
+    values = [s * m * 10.0 ** e for e in range(-16, 14) for m in (1.0, 1.234, 4.7, 9.995, 99.96, 999.6)
+              for s in (1, -1)] + [0.0]
+    for digits in (2, 3, 4):
+        for v in values:
+            assert format_quantity(v, kind, digits) == Quantity(v, symbol).render(prec=digits - 1), (v, digits)

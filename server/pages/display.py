@@ -20,7 +20,7 @@ from dataclasses import dataclass
 from functools import lru_cache
 from typing import Any
 
-from server.units import KINDS, format_quantity
+from server.units import format_quantity
 
 __all__ = ["VerdictStyle", "VERDICT_STYLES", "VERDICT_ORDER", "verdict_style", "check_sense", "check_margin",
            "check_rows", "worst_check", "fmt", "input_sections", "BASIS_TEXT", "UNIT_KIND"]
@@ -59,39 +59,7 @@ def verdict_style(verdict: str | None) -> VerdictStyle:
     return VERDICT_STYLES.get(verdict, VERDICT_STYLES[None])
 
 
-_PREFIXES = {-15: "f", -12: "p", -9: "n", -6: "u", -3: "m", 0: "", 3: "k", 6: "M", 9: "G", 12: "T"}
-_PLAIN_KINDS = {"V", "A", "F", "H", "ohm", "s", "W", "J", "V/s", "K/W"}
-
-
-def _engineering(value: float, symbol: str, digits: int) -> str | None:
-    """Engineering notation like the units library's ("680 uF", "5.2 m\u03a9"), computed directly."""
-    if value == 0:
-        return f"0 {symbol}"
-    exp = int(math.floor(math.log10(abs(value)) / 3) * 3)
-    mantissa = float(f"{value / 10.0 ** exp:.{digits}g}")
-    if abs(mantissa) >= 1000:
-        exp, mantissa = exp + 3, mantissa / 1000
-    if exp not in _PREFIXES:
-        return None
-    return f"{mantissa:.{digits}g} {_PREFIXES[exp]}{symbol}"
-
-
-@lru_cache(maxsize=65536)
-def _fmt(value: float, kind: str, digits: int) -> str:
-    if kind == "ratio":
-        return f"{value:.{digits}g}"
-    if kind in _PLAIN_KINDS and math.isfinite(value):
-        text = _engineering(value, KINDS[kind].symbol, digits)
-        if text is not None:
-            return text
-    return format_quantity(value, kind, digits)
-
-
-def fmt(value: float | None, kind: str, digits: int = 3) -> str:
-    """Engineering notation of an SI value for display; '-' when there is none."""
-    if value is None:
-        return "-"
-    return _fmt(float(value), kind, digits)
+fmt = format_quantity  # engineering notation of an SI value for display; '-' when there is none
 
 
 @lru_cache(maxsize=1)
