@@ -9,6 +9,7 @@ from contextlib import asynccontextmanager
 from pathlib import Path
 from typing import Any
 
+import fastapi_offline
 import plotly
 from fastapi import Depends, FastAPI, Request
 from fastapi.exceptions import RequestValidationError
@@ -16,7 +17,6 @@ from fastapi.openapi.docs import get_swagger_ui_html, get_swagger_ui_oauth2_redi
 from fastapi.responses import FileResponse, HTMLResponse, JSONResponse, RedirectResponse, Response
 from fastapi.staticfiles import StaticFiles
 from starlette.exceptions import HTTPException as StarletteHTTPException
-from swagger_ui_bundle import swagger_ui_path
 
 from server import __version__
 from server.api import api_router
@@ -31,6 +31,8 @@ from server.templating import templates
 
 log = logging.getLogger("railsign.http")
 PLOTLY_DIR = Path(plotly.__file__).parent / "package_data"
+# Swagger UI 5 (it reads OpenAPI 3.1, which FastAPI writes), as packaged for offline use by fastapi-offline.
+DOCS_ASSETS_DIR = Path(fastapi_offline.__file__).parent / "static"
 
 
 def error_body(status: int, code: str, message: str, details: list[dict[str, Any]] | None = None,
@@ -163,12 +165,12 @@ def create_app(settings: Settings | None = None) -> FastAPI:
                                    oauth2_redirect_url="/docs/oauth2-redirect",
                                    swagger_js_url="/static/docs/swagger-ui-bundle.js",
                                    swagger_css_url="/static/docs/swagger-ui.css",
-                                   swagger_favicon_url="/static/docs/favicon-32x32.png")
+                                   swagger_favicon_url="data:,")
 
     @app.get("/docs/oauth2-redirect", include_in_schema=False)
     def api_docs_redirect() -> HTMLResponse:
         return get_swagger_ui_oauth2_redirect_html()
 
-    app.mount("/static/docs", StaticFiles(directory=swagger_ui_path), name="docs-assets")
+    app.mount("/static/docs", StaticFiles(directory=DOCS_ASSETS_DIR), name="docs-assets")
     app.mount("/static", StaticFiles(directory=WEB_DIR / "static"), name="static")
     return app

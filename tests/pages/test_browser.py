@@ -277,3 +277,17 @@ def test_a_reviewer_approves_from_the_keyboard_and_a_manager_reads_the_risks(bro
     assert "not in a signed-off state" in pg.inner_text("main")
     shot(pg, "product-risks")
     context.close()
+
+
+def test_the_api_docs_render_offline(browser, served):
+    """/docs draws its operations with nothing but this server's files (Swagger UI 5 reads OpenAPI 3.1)."""
+    context = browser.new_context(base_url=served["base"])
+    pg = context.new_page()
+    outside: list[str] = []
+    pg.on("request", lambda r: outside.append(r.url) if not r.url.startswith((served["base"], "data:")) else None)
+    pg.goto("/docs")
+    pg.wait_for_selector(".swagger-ui .opblock", timeout=TIMEOUT_MS)
+    assert pg.locator(".opblock").count() > 50
+    assert "Unable to render" not in pg.inner_text("body")
+    assert outside == []
+    context.close()
