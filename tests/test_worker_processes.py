@@ -63,7 +63,7 @@ def test_a_job_of_a_killed_worker_is_finished_by_another_exactly_once(settings, 
     with session_factory() as s:
         rail, _ = rails.create_rail(session=s, actor=system, board_id=board_id, document=rail_doc())
         job = jobs.enqueue_rail(session=s, actor=system, rail_id=rail.id,
-                                options={"monte_carlo": 20_000, "seed": 7})
+                                options={"monte_carlo": 150_000, "seed": 7})  # long enough to be caught mid-run
         job_id = job.id
     first = _worker(settings.database_url)
     try:
@@ -89,7 +89,7 @@ def test_a_job_of_a_killed_worker_is_finished_by_another_exactly_once(settings, 
         stored = s.scalars(select(AnalysisResult).where(AnalysisResult.sha256 == done.sha256,
                                                         AnalysisResult.options_key == done.options_key)).all()
     assert len(stored) == 1 and stored[0].id == done.result_id
-    assert stored[0].result["monte_carlo"]["n"] == 20_000
+    assert stored[0].result["monte_carlo"]["n"] == 150_000
 
 
 @pytest.mark.slow
