@@ -255,7 +255,7 @@ def check_detail(cid: str, fig: dict, row: int, rail: Rail, rules: dict) -> str:
     if cid == "supply_dip":
         if rail.supply.uvlo is None:
             return "No upstream UVLO given."
-        tau = rail.supply.uvlo_filter
+        tau = rail.supply.uvlo_filter or 0.0
         if tau > 0.0:
             return (f"Lowest switch-input voltage {eng(f['v_supply_min'], 'V')} through the UVLO's deglitch "
                     f"filter (first-order lag of {eng(tau, 's')}, supply.uvlo_filter; its 1 us default is common "

@@ -222,5 +222,5 @@ def circuit_rows(rail: Rail, *, v_s, c, i_limit=None) -> Circuit:
         r_th=r_th,
         tau_th=tau_th,
         t_amb=rail.t_ambient,
-        uvlo_filter=rail.supply.uvlo_filter,
+        uvlo_filter=0.0,  # the deglitch time is applied by the supply-dip check, not as a lag
     )

@@ -42,7 +42,7 @@ from .waveform import decimate
 
 __all__ = ["ENGINE_VERSION", "CAUTION", "analyze_rail"]
 
-ENGINE_VERSION = "1.1.0"
+ENGINE_VERSION = "2.0.0"
 CAUTION = ("railsign computes design margins; it does not certify hardware. Verify on hardware, treat "
            "stored energy and high currents with care, and follow the applicable codes and licensed practice.")
 
