@@ -178,7 +178,7 @@ class Circuit:
         return ref
 
 
-def circuit_rows(rail: Rail, *, v_s, c, i_limit=None) -> Circuit:
+def circuit_rows(rail: Rail, *, v_s, c, i_limit=None, t_fault=None) -> Circuit:
     """Build the circuit rows of a rail.
 
     Parameters

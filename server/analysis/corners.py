@@ -3,9 +3,11 @@
 Provides
 --------
 corner_set(rail)
-    The corners: name and parameter values (v_s, c, i_limit, timer c, i_charge, v_trip).
-run_corners(rail, rules, *, progress=None)
-    Figures and checks at every corner, and the worst corner of each check.
+    The corners: parameter values and their description in words.
+corner_params(corners)
+    The corners as `RowParams` rows.
+point_words(rail, v_s, c, i_lim, t_fault, timer=None)
+    A point of the tolerance box in words ("supply 18 V (min), load C +20 %, ...").
 
 Method
 ------
@@ -13,131 +15,120 @@ A full factorial of the two extremes of every parameter that has a spread: the s
 (v_min, v_max), the load capacitance (c_nom (1 -/+ c_tol)), the current limit
 (i_limit (1 -/+ i_limit_tol)) and the timer capacitor, charge current and trip voltage
 (each nominal (1 -/+ tol)), all at t_ambient (the worst-case high ambient of the
-document). At most 2^6 = 64 corners. The start-up transient depends on the first three
-only, so it runs once per distinct (v_s, c, i_limit), at most 8 rows in one batch; the
-timer, short-circuit, retry and steady figures are closed forms evaluated per corner.
-Each check reports its worst corner: the highest severity, then the smallest normalised
-margin. Where a figure is monotone in each parameter (the usual case) the corners bracket
-the nominal value and the worst corner is the worst case over the whole tolerance box.
+document). At most 2^6 = 64 corners. The timer's three parts act through one figure, the
+trip time t_fault = C v_trip / i_charge (`timer.fault_time`). Corners alone bound a check
+only where it is monotone in each parameter; the worst-case search (`worstcase`) looks
+inside the box as well.
 """
 
 from __future__ import annotations
 
 import itertools
-from dataclasses import fields
+import math
 
 import numpy as np
 
-from .checks import CHECKS, normalised_margin
 from .circuit import NO_LIMIT
 from .document import Rail
-from .evaluation import RowParams, evaluate_rows, startup_rows
-from .startup import STATUS_NO_CONVERGENCE, StartupFigures
-from .errors import AnalysisError
+from .evaluation import RowParams
+from .units import eng
 
-__all__ = ["corner_set", "run_corners", "worst_rows"]
+__all__ = ["corner_set", "corner_params", "point_words", "PARAM_WORDS"]
+
+# the toleranced parameters in words (a corner or a point of the box is described with these)
+PARAM_WORDS = {"v_s": "supply", "c": "load C", "i_limit": "current limit", "timer_c": "timer C",
+               "i_charge": "timer charge current", "v_trip": "timer trip voltage", "t_fault": "fault timer"}
 
 
-def _levels(nominal: float, tol: float, lo_name: str, hi_name: str):
+def _levels(nominal: float, tol: float):
     if tol > 0:
-        return [(lo_name, nominal * (1 - tol)), (hi_name, nominal * (1 + tol))]
-    return [(None, nominal)]
+        return [nominal * (1 - tol), nominal * (1 + tol)]
+    return [nominal]
+
+
+def _relative(value: float, nominal: float) -> str:
+    """A deviation from nominal in percent, with a true minus sign: "+20 %", "−10 %"."""
+    pct = 100.0 * (value / nominal - 1.0)
+    if abs(pct) < 5e-4:
+        return "nominal"
+    text = f"{abs(pct):.3g} %"
+    return ("+" if pct > 0 else "\u2212") + text
+
+
+def point_words(rail: Rail, v_s: float, c: float, i_lim: float, t_fault: float,
+                timer: tuple[float, float, float] | None = None) -> str:
+    """A point of the tolerance box in words.
+
+    Parameters
+    ----------
+    rail : Rail
+    v_s, c, i_lim, t_fault : float
+        The point: supply (V), load capacitance (F), current limit (A), trip time (s).
+    timer : (timer C, charge current, trip voltage), optional
+        A corner names the timer's three parts; otherwise its trip time is given.
+
+    Returns
+    -------
+    str
+        Only parameters with a spread are named, e.g. "supply 18 V (min), load C +20 %,
+        current limit −10 %, timer C −10 %"; "nominal" when every one sits at nominal.
+    """
+    s, sw, parts = rail.supply, rail.switch, []
+    if s.v_max > s.v_min:
+        tag = ("min" if math.isclose(v_s, s.v_min, rel_tol=1e-9) else "max" if math.isclose(v_s, s.v_max, rel_tol=1e-9)
+               else "nominal" if math.isclose(v_s, s.v_nom, rel_tol=1e-9) else None)
+        parts.append(f"{PARAM_WORDS['v_s']} {eng(v_s, 'V')}" + (f" ({tag})" if tag else ""))
+    if rail.load.c_tol > 0:
+        parts.append(f"{PARAM_WORDS['c']} {_relative(c, rail.load.c_nom)}")
+    if sw.i_limit is not None and sw.i_limit_tol > 0:
+        parts.append(f"{PARAM_WORDS['i_limit']} {_relative(i_lim, sw.i_limit)}")
+    t = sw.timer
+    if t is not None:
+        if timer is not None:
+            for key, value, nominal, tol in (("timer_c", timer[0], t.c, t.c_tol),
+                                             ("i_charge", timer[1], t.i_charge, t.i_charge_tol),
+                                             ("v_trip", timer[2], t.v_trip, t.v_trip_tol)):
+                if tol > 0:
+                    parts.append(f"{PARAM_WORDS[key]} {_relative(value, nominal)}")
+        elif t.c_tol > 0 or t.i_charge_tol > 0 or t.v_trip_tol > 0:
+            parts.append(f"{PARAM_WORDS['t_fault']} trips after {eng(t_fault, 's')}")
+    if not parts or all(p.endswith("nominal") for p in parts):
+        return "nominal"
+    return ", ".join(parts)
 
 
 def corner_set(rail: Rail) -> list[dict]:
     """All tolerance corners of a rail.
 
-    Parameters
-    ----------
-    rail : Rail
-
     Returns
     -------
     list of dict
-        ``{"name", "v_s" (V), "c" (F), "i_limit" (A or None), "timer_c" (F),
-        "i_charge" (A), "v_trip" (V)}``; timer entries None without a timer.
+        ``{"name" (words), "v_s" (V), "c" (F), "i_limit" (A or None), "timer_c" (F),
+        "i_charge" (A), "v_trip" (V), "t_fault" (s, inf without a timer)}``; timer parts
+        None without a timer.
     """
     s = rail.supply
-    v = [("v_min", s.v_min), ("v_max", s.v_max)] if s.v_max > s.v_min else [(None, s.v_nom)]
-    c = _levels(rail.load.c_nom, rail.load.c_tol, "c_lo", "c_hi")
+    v = [s.v_min, s.v_max] if s.v_max > s.v_min else [s.v_nom]
+    c = _levels(rail.load.c_nom, rail.load.c_tol)
     sw = rail.switch
-    il = _levels(sw.i_limit, sw.i_limit_tol, "ilim_lo", "ilim_hi") if sw.i_limit is not None else [(None, None)]
+    il = _levels(sw.i_limit, sw.i_limit_tol) if sw.i_limit is not None else [None]
     t = sw.timer
     if t is not None:
-        tc = _levels(t.c, t.c_tol, "ct_lo", "ct_hi")
-        ic = _levels(t.i_charge, t.i_charge_tol, "ich_lo", "ich_hi")
-        vt = _levels(t.v_trip, t.v_trip_tol, "vtrip_lo", "vtrip_hi")
+        tc, ic, vt = _levels(t.c, t.c_tol), _levels(t.i_charge, t.i_charge_tol), _levels(t.v_trip, t.v_trip_tol)
     else:
-        tc = ic = vt = [(None, None)]
+        tc = ic = vt = [None]
     out = []
-    for combo in itertools.product(v, c, il, tc, ic, vt):
-        name = " ".join(n for n, _ in combo if n) or "nominal"
-        vals = [x for _, x in combo]
-        out.append({"name": name, "v_s": vals[0], "c": vals[1], "i_limit": vals[2],
-                    "timer_c": vals[3], "i_charge": vals[4], "v_trip": vals[5]})
+    for vv, cc, ii, a, b, d in itertools.product(v, c, il, tc, ic, vt):
+        t_fault = a * d / b if t is not None else math.inf
+        i_row = ii if ii is not None else NO_LIMIT
+        name = point_words(rail, vv, cc, i_row, t_fault, (a, b, d) if t is not None else None)
+        out.append({"name": name, "v_s": vv, "c": cc, "i_limit": ii, "timer_c": a, "i_charge": b, "v_trip": d,
+                    "t_fault": t_fault})
     return out
 
 
-def _take_startup(st: StartupFigures, idx: np.ndarray) -> StartupFigures:
-    kw = {}
-    for f in fields(st):
-        val = getattr(st, f.name)
-        kw[f.name] = val[idx] if isinstance(val, np.ndarray) else None
-    return StartupFigures(**kw)
-
-
-def worst_rows(checks: dict, t_ambient: float) -> dict:
-    """Row index of the worst case of every check (severity, then smallest margin)."""
-    out = {}
-    for spec in CHECKS:
-        ch = checks[spec.id]
-        mu = normalised_margin(spec, ch["value"], ch["limit"], t_ambient, ch["verdict"])
-        order = np.lexsort((mu, -ch["verdict"].astype(int)))
-        out[spec.id] = int(order[0])
-    return out
-
-
-def run_corners(rail: Rail, rules: dict, *, progress=None) -> dict:
-    """Figures and checks at every tolerance corner.
-
-    Parameters
-    ----------
-    rail : Rail
-    rules : dict
-    progress : callable, optional
-        Called with the fraction done (0 .. 1); an exception it raises propagates.
-
-    Returns
-    -------
-    dict
-        ``corners`` (list from `corner_set`), ``params`` (RowParams), ``fig``, ``checks``
-        (arrays over corners) and ``worst`` ({check id: corner index}).
-    """
-    cs = corner_set(rail)
-    n = len(cs)
-    if progress is not None:
-        progress(0.0)
-    v = np.array([c["v_s"] for c in cs], float)
-    cap = np.array([c["c"] for c in cs], float)
-    il = np.array([NO_LIMIT if c["i_limit"] is None else c["i_limit"] for c in cs], float)
-    if rail.switch.timer is not None:
-        tf = np.array([c["timer_c"] * c["v_trip"] / c["i_charge"] for c in cs], float)
-    else:
-        tf = np.full(n, np.inf)
-    params = RowParams(v_s=v, c=cap, i_lim=il, v_sc=v, i_sc=il, t_fault_start=tf, t_fault_sc=tf, v_steady=v)
-    key = np.stack([v, cap, il], axis=1)
-    uniq, idx = np.unique(key, axis=0, return_inverse=True)
-    idx = idx.reshape(-1)
-    first = np.array([int(np.nonzero(idx == k)[0][0]) for k in range(uniq.shape[0])])
-    st_u = startup_rows(rail, params.take(first))
-    if np.any(st_u.status == STATUS_NO_CONVERGENCE):
-        bad = [cs[first[k]]["name"] for k in np.nonzero(st_u.status == STATUS_NO_CONVERGENCE)[0]]
-        raise AnalysisError(f"start-up transient did not converge at corner(s): {', '.join(bad)}")
-    if progress is not None:
-        progress(0.9)
-    st = _take_startup(st_u, idx)
-    fig, checks, _ = evaluate_rows(rail, rules, params, startup=st)
-    if progress is not None:
-        progress(1.0)
-    return {"corners": cs, "params": params, "fig": fig, "checks": checks,
-            "worst": worst_rows(checks, rail.t_ambient), "startup": st}
+def corner_params(corners: list[dict]) -> RowParams:
+    """The corners as rows of operating conditions."""
+    arr = lambda key, default=None: np.array(  # noqa: E731
+        [default if c[key] is None else c[key] for c in corners], dtype=float)
+    return RowParams(v_s=arr("v_s"), c=arr("c"), i_lim=arr("i_limit", NO_LIMIT), t_fault=arr("t_fault"))

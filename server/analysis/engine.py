@@ -3,22 +3,23 @@
 Provides
 --------
 ENGINE_VERSION
-    Version of the numbers: results are cached per engine version.
-analyze_rail(doc, *, rules=None, corners=False, monte_carlo=0, seed=0,
-             distribution="uniform", waveforms=True, progress=None, headroom=True)
-    The result dict of DESIGN.md section 4 (SI units, degC; no NaN or infinity: None).
+    Version of the numbers: results are stored per engine version.
+analyze_rail(doc, *, rules=None, corners=True, monte_carlo=0, seed=0, distribution="uniform",
+             waveforms=True, progress=None, headroom=True)
+    The result of DESIGN.md section 4 (SI units, degC; no NaN or infinity: None).
 CAUTION
     The caution line every report and page carries.
 
-The nominal evaluation runs the start-up at v_nom and c_nom with the nominal limit, and
-takes the worst cases that DESIGN.md builds into the short circuit (v_max, i_limit at its
-high tolerance, the longest trip time) and the timer (the shortest trip time). With
-``corners`` every tolerance corner is evaluated and each check reports its worst corner;
-with ``monte_carlo`` > 0 the yield and the spread of every check value are added.
+The sign-off basis is the worst case: every check's verdict, value and margin are those of
+its worst point over the tolerance corners and a deterministic search inside the tolerance
+box (`worstcase`), and the record names that point in words and what found it. With
+``corners=False`` only the nominal point is evaluated: a quick look, labelled as not a
+sign-off verdict. Every check record also carries its nominal reading, and the key figures
+show nominal and worst case side by side.
 
-``startup.v_supply_min`` is the lowest switch-input voltage as the upstream UVLO sees it,
-through its deglitch filter (a first-order lag of ``supply.uvlo_filter``, default 1 us:
-common practice, no source); ``startup.v_supply_min_raw`` is the unfiltered minimum.
+Each part of the result is built by one function below (`_check_records`,
+`_key_figures`, `_startup_section`, ...) from the evaluated rows; nothing downstream
+recomputes a number.
 """
 
 from __future__ import annotations
@@ -28,23 +29,50 @@ from typing import Any, Callable
 
 import numpy as np
 
-from .checks import CHECKS, VERDICTS, check_detail, worst_verdict
+from .checks import CHECKS, NA, SEVERITY, SPECS, VERDICTS, check_detail, edge_margin, worst_verdict
 from .circuit import NO_LIMIT
-from .corners import run_corners
 from .document import Rail, read_rail
-from .errors import AnalysisError
-from .evaluation import RowParams, evaluate_rows
+from .evaluation import RowParams, evaluate_rows, nominal_point
 from .headroom import capacitance_headroom, limit_headroom
 from .montecarlo import run_monte_carlo
-from .startup import STATUS_NO_CONVERGENCE, STATUS_OK, STATUS_STALLED
+from .soa import CONVENTION as SOA_CONVENTION
+from .startup import (STATUS_NO_CONVERGENCE, STATUS_OK, STATUS_RETRIED, STATUS_RETRY_EXHAUSTED, STATUS_RUNAWAY,
+                      STATUS_STALLED, STATUS_TRIPPED)
 from .timer import fault_times, timer_window
+from .units import eng
 from .waveform import decimate
+from .worstcase import WorstCase, find_worst_case
 
-__all__ = ["ENGINE_VERSION", "CAUTION", "analyze_rail"]
+__all__ = ["ENGINE_VERSION", "CAUTION", "BASIS_WORST", "BASIS_NOMINAL", "FIGURES", "analyze_rail"]
 
 ENGINE_VERSION = "2.0.0"
 CAUTION = ("railsign computes design margins; it does not certify hardware. Verify on hardware, treat "
            "stored energy and high currents with care, and follow the applicable codes and licensed practice.")
+BASIS_WORST = "worst case"
+BASIS_NOMINAL = "nominal"
+MARGIN_CONVENTION = ("Margin: 1.00 is the team's limit; above it the check passes. For temperatures it is the "
+                     "allowed rise over the ambient against the actual rise.")
+
+STATUS_WORDS = {STATUS_OK: "complete", STATUS_STALLED: "stalled", STATUS_NO_CONVERGENCE: "could not settle",
+                STATUS_TRIPPED: "tripped", STATUS_RETRIED: "completes after retries",
+                STATUS_RETRY_EXHAUSTED: "retries exhausted", STATUS_RUNAWAY: "thermal runaway"}
+
+# key figures: id, title, unit, the row figure, which way is worse
+FIGURES: tuple[tuple[str, str, str, str, str], ...] = (
+    ("i_peak", "Inrush peak current", "A", "i_peak", "max"),
+    ("t_limit", "Time in regulation the start needs", "s", "t_limit", "max"),
+    ("t_settle", "Settling time (within 1 %)", "s", "t_settle", "max"),
+    ("e_fet", "FET energy during start-up", "J", "e_fet", "max"),
+    ("p_fet_peak", "FET peak power during start-up", "W", "p_fet_peak", "max"),
+    ("tj_peak", "Peak junction temperature during start-up", "degC", "tj_peak", "max"),
+    ("v_supply_min", "Lowest switch-input voltage", "V", "v_supply_min", "min"),
+    ("sc_p", "Short circuit: FET power", "W", "sc_p", "max"),
+    ("sc_t_allow", "Short circuit: time the FET survives", "s", "sc_t_allow", "min"),
+    ("retry_tj_peak", "Retry: peak junction temperature", "degC", "retry_tj_peak", "max"),
+    ("steady_p_fet", "Steady conduction: FET power", "W", "steady_p_fet", "max"),
+    ("steady_tj", "Steady conduction: junction temperature", "degC", "steady_tj", "max"),
+    ("steady_v_drop", "Steady conduction: voltage drop", "V", "steady_v_drop", "max"),
+)
 
 
 def _num(x) -> float | None:
@@ -73,62 +101,303 @@ def _clean(obj: Any) -> Any:
     return obj
 
 
-def _nominal_params(rail: Rail, t_min: float, t_max: float) -> RowParams:
-    s, sw = rail.supply, rail.switch
-    i_lim = sw.i_limit if sw.i_limit is not None else NO_LIMIT
-    i_hi = i_lim * (1.0 + sw.i_limit_tol) if sw.i_limit is not None else NO_LIMIT
-    a = lambda x: np.array([float(x)])  # noqa: E731
-    return RowParams(v_s=a(s.v_nom), c=a(rail.load.c_nom), i_lim=a(i_lim), v_sc=a(s.v_max), i_sc=a(i_hi),
-                     t_fault_start=a(t_min), t_fault_sc=a(t_max), v_steady=a(s.v_nom))
-
-
-def _check_entries(rail: Rail, rules: dict, fig: dict, checks: dict, rows: dict, names: list | None) -> list:
-    out = []
-    for spec in CHECKS:
-        r = rows[spec.id]
-        ch = checks[spec.id]
-        code = int(ch["verdict"][r])
-        out.append({
-            "id": spec.id,
-            "title": spec.title,
-            "verdict": VERDICTS[code],
-            "value": _num(ch["value"][r]),
-            "limit": _num(ch["limit"][r]),
-            "unit": spec.unit,
-            "basis": spec.basis,
-            "detail": check_detail(spec.id, fig, r, rail, rules),
-            "corner": names[r] if names is not None and code != 0 else None,
-        })
-    return out
-
-
-def _notes(rail: Rail) -> list[str]:
-    notes = []
-    zsum = sum(r for r, _ in rail.fet.zth)
-    if abs(zsum - rail.fet.rth_ja) > 0.1 * rail.fet.rth_ja:
-        notes.append(f"fet.zth sums to {zsum:.3g} K/W but rth_ja is {rail.fet.rth_ja:.3g} K/W: transients use "
-                     "the Foster stages, steady conduction uses rth_ja.")
-    if rail.switch.mode == "hard" and rail.switch.t_on == 0.0 and rail.supply.l_source + rail.path.l > 0:
-        notes.append("Instant hard turn-on behind series inductance: the unfiltered switch input falls to the "
-                     "output voltage at turn-on (no input capacitance is modelled; v_supply_min_raw), and the "
-                     "supply-dip check sees it through the UVLO filter; give t_on for a realistic dip.")
-    return notes
-
-
 def _split_progress(progress: Callable | None, a: float, b: float):
     if progress is None:
         return None
     return lambda x: progress(a + (b - a) * float(x))
 
 
+def _point(params: RowParams, row: int) -> dict:
+    i_lim = float(params.i_lim[row])
+    return {"v_s": float(params.v_s[row]), "c": float(params.c[row]),
+            "i_limit": None if i_lim >= NO_LIMIT else i_lim, "t_fault": _num(params.t_fault[row])}
+
+
+# --- checks ----------------------------------------------------------------------------------
+
+
+def _check_records(rail: Rail, rules: dict, nominal: tuple[dict, dict], wc: WorstCase | None) -> list[dict]:
+    """One record per check: the sign-off reading (worst case, or nominal for a quick look),
+    its nominal reading, and where the worst case lies in words."""
+    fig_n, checks_n = nominal
+    out = []
+    for spec in CHECKS:
+        ch_n = checks_n[spec.id]
+        if wc is None:
+            fig, ch, row, found, name, params = fig_n, ch_n, 0, "nominal", "nominal", None
+        else:
+            row = wc.worst[spec.id]
+            fig, ch, found, name, params = wc.fig, wc.checks[spec.id], wc.found_by[spec.id], wc.names[row], wc.params
+        code = int(ch["verdict"][row])
+        applies = code != NA
+        limit, edge = ch["limit"][row], ch["edge"][row]
+        out.append({
+            "id": spec.id,
+            "title": spec.title,
+            "verdict": VERDICTS[code],
+            "value": _num(ch["value"][row]) if applies else None,
+            "limit": _num(limit) if applies else None,
+            "edge": _num(edge) if applies else None,
+            "unit": spec.unit,
+            "direction": spec.direction,
+            "margin": _num(ch["margin"][row]) if applies else None,
+            "margin_edge": _num(edge_margin(spec, limit, edge, rail.t_ambient)) if applies else None,
+            "basis": spec.basis,
+            "nominal": {"value": _num(ch_n["value"][0]), "verdict": VERDICTS[int(ch_n["verdict"][0])],
+                        "margin": _num(ch_n["margin"][0])},
+            "corner": name if applies else None,
+            "found_by": found if applies else None,
+            "point": _point(params, row) if (applies and params is not None) else None,
+            "detail": check_detail(spec.id, fig, row, rail, rules),
+        })
+    return out
+
+
+# --- key figures ---------------------------------------------------------------------------
+
+
+def _key_figures(fig_n: dict, wc: WorstCase | None) -> list[dict]:
+    """Nominal and worst case of each key figure side by side, with the worst point in words."""
+    out = []
+    for fid, title, unit, key, worse in FIGURES:
+        nominal = _num(fig_n[key][0])
+        entry = {"id": fid, "title": title, "unit": unit, "worse": worse, "nominal": nominal, "worst": None,
+                 "corner": None, "found_by": None}
+        if wc is not None:
+            vals = np.asarray(wc.fig[key], dtype=float)
+            finite = np.isfinite(vals)
+            if finite.any():
+                pick = np.where(finite, vals, -np.inf if worse == "max" else np.inf)
+                j = int(np.argmax(pick) if worse == "max" else np.argmin(pick))
+                entry.update(worst=float(vals[j]), corner=wc.names[j], found_by=wc.source[j])
+            elif key == "sc_t_allow" and np.all(np.isinf(vals)):
+                entry.update(corner="every point: survives indefinitely")
+        if nominal is None and entry["worst"] is None and entry["corner"] is None:
+            continue
+        out.append(entry)
+    return out
+
+
+# --- sections of the nominal point ---------------------------------------------------------
+
+
+def _startup_section(rail: Rail, fig: dict, st, waveforms: bool) -> dict:
+    g = lambda k: fig[k][0]  # noqa: E731
+    status = int(g("status"))
+    wave = decimate(st.waveform) if (waveforms and st.waveform is not None) else None
+    return {
+        "status": STATUS_WORDS.get(status, "incomplete"), "complete": status == STATUS_OK,
+        "attempts": int(g("attempts")), "t_trip": _num(g("t_trip")),
+        "i_peak": g("i_peak"), "t_i_peak": g("t_i_peak"), "t_limit": g("t_limit"), "t_settle": g("t_settle"),
+        "e_fet": g("e_fet"), "p_fet_peak": g("p_fet_peak"), "tj_peak": g("tj_peak"),
+        "v_supply_min": g("v_supply_min"), "t_below_uvlo": g("t_below_uvlo"),
+        "dip_unbounded": bool(g("dip_unbounded")), "uvlo_deglitch": rail.supply.uvlo_filter,
+        "c_in": rail.supply.c_in,
+        "v_final": g("v_final"), "v_target": g("v_target"),
+        "v_stall": g("v_stall") if status == STATUS_STALLED else None,
+        "pulse_t_equiv": g("pulse_t_equiv"), "pulse_p_peak": g("pulse_p_peak"), "pulse_e": g("pulse_e"),
+        "pulse_v_ds": g("pulse_v_ds"), "pulse_i": g("pulse_i"), "pulse_tj_start": g("pulse_tj_start"),
+        "soa_i_allowed": g("soa_i_allowed"), "soa_ratio": g("soa_ratio"),
+        "t_end": g("t_end"), "steps": int(g("steps")), "waveforms": wave,
+    }
+
+
+def _short_circuit_section(rail: Rail, fig: dict) -> dict:
+    if not fig["has_limit"]:
+        return {"applies": False}
+    g = lambda k: fig[k][0]  # noqa: E731
+    by = None
+    if math.isfinite(g("sc_t_allow")):
+        by = "soa" if g("sc_t_soa") <= g("sc_t_thermal") else "thermal"
+    return {"applies": True, "v_ds": g("sc_v_ds"), "i": g("sc_i"), "p": g("sc_p"), "t_soa": g("sc_t_soa"),
+            "t_thermal": g("sc_t_thermal"), "t_allow": g("sc_t_allow"), "t_fault": _num(g("t_fault")),
+            "margin": g("sc_margin"), "limited_by": by, "survives_indefinitely": not math.isfinite(g("sc_t_allow"))}
+
+
+def _timer_section(rail: Rail, rules: dict, fig_n: dict, wc: WorstCase | None, times: tuple) -> dict | None:
+    timer = rail.switch.timer
+    if timer is None:
+        return None
+    t_min, t_nom, t_max = times
+    src = wc.fig if wc is not None else fig_n
+    names = wc.names if wc is not None else ["nominal"]
+    t_need = np.asarray(src["t_limit"], dtype=float)
+    complete_free = np.isfinite(t_need)
+    out = {"t_fault_min": t_min, "t_fault_nom": t_nom, "t_fault_max": t_max, "t_limit_worst": None,
+           "t_limit_corner": None, "startup_margin": None}
+    if complete_free.all():
+        j = int(np.argmax(t_need))
+        out.update(t_limit_worst=float(t_need[j]), t_limit_corner=names[j],
+                   startup_margin=(t_min / t_need[j]) if t_need[j] > 0 else None)
+        allow = np.asarray(src["sc_t_allow"], dtype=float) if src["has_limit"] else np.array([math.inf])
+        win = timer_window(timer, t_limit_worst=float(t_need[j]), t_allow=float(np.min(allow)),
+                           timer_margin=rules["timer_margin"], fault_margin=rules["fault_margin"])
+    else:
+        win = {"c_lo": None, "c_hi": None, "c_window": None, "c_suggested": None,
+               "window_note": "The start-up does not complete even without the timer at some point of the "
+                              "tolerance box, so no timer window can be set."}
+    out.update(win)
+    return out
+
+
+def _retry_section(rail: Rail, fig: dict) -> dict | None:
+    if not fig["has_retry"]:
+        return None
+    g = lambda k: fig[k][0]  # noqa: E731
+    return {"duty": g("retry_duty"), "p_avg": g("retry_p_avg"), "tj_peak": g("retry_tj_peak"),
+            "tj_valley": g("retry_tj_valley"), "period": g("t_fault") + rail.switch.timer.retry_off}
+
+
+def _steady_section(fig: dict) -> dict:
+    g = lambda k: fig[k][0]  # noqa: E731
+    return {"i": g("steady_i"), "p_fet": g("steady_p_fet"), "tj": g("steady_tj"), "v_drop": g("steady_v_drop"),
+            "stable": bool(g("steady_stable"))}
+
+
+# --- headroom --------------------------------------------------------------------------------
+
+
+def _headroom(rail: Rail, rules: dict, nominal: tuple[dict, dict], wc: WorstCase | None,
+              t_fault_max: float) -> dict:
+    """Load capacitance and limit headroom on the sign-off basis, with the check that bounds each."""
+    fig_n, checks_n = nominal
+    if wc is None:
+        base, owner, start = nominal_point_of(fig_n), {s.id: 0 for s in CHECKS}, checks_n
+    else:
+        rows = sorted({wc.worst[s.id] for s in CHECKS})
+        base = wc.params.take(np.array(rows))
+        owner = {s.id: rows.index(wc.worst[s.id]) for s in CHECKS}
+        start = {cid: {k: v[np.array(rows)] for k, v in ch.items()} for cid, ch in wc.checks.items()}
+    c = capacitance_headroom(rail, rules, base, owner, start, fig_n)
+    v_sc = rail.supply.v_max
+    lim = limit_headroom(rail, rules, v_sc=v_sc, t_fault=t_fault_max)
+    return {"c_max": _c_record(rail, c), "limit_max": _limit_record(rail, lim)}
+
+
+def nominal_point_of(fig: dict) -> RowParams:
+    return RowParams(v_s=np.asarray(fig["v_s"][:1], float), c=np.asarray(fig["c"][:1], float),
+                     i_lim=np.asarray(fig["i_lim"][:1], float), t_fault=np.asarray(fig["t_fault"][:1], float))
+
+
+def _c_record(rail: Rail, c: dict) -> dict:
+    c_nom = rail.load.c_nom
+    title = "Largest load capacitance that still passes"
+    check = c.get("check")
+    rec = {"title": title, "unit": "F", "value": c["c_max"], "present": c_nom, "status": c["status"],
+           "check": check, "check_title": SPECS[check].title if check else None,
+           "excluded": [{"id": x, "title": SPECS[x].title} for x in c["excluded"]], "trials": c["trials"]}
+    bound = f" ({SPECS[check].title.lower()} bounds it)" if check else ""
+    if c["status"] == "found" and c["c_max"] >= c_nom:
+        note = f"Up to {eng(c['c_max'], 'F')} nominal passes{bound}; the present {eng(c_nom, 'F')} has room."
+    elif c["status"] == "found":
+        note = (f"The rail already fails at its {eng(c_nom, 'F')}: it needs at most {eng(c['c_max'], 'F')} "
+                f"nominal{bound}.")
+        rec["status"] = "fails"
+    elif c["status"] == "unbounded":
+        note = f"No limit from the start-up: {c['beyond']:.3g} × the present capacitance still passes."
+    elif c["status"] == "fails_everywhere":
+        note = ("No load capacitance down to 1/64 of the present one passes"
+                + (f": {SPECS[check].title.lower()} fails throughout." if check else "."))
+    elif c["status"] == "not_settled":
+        note = "The search did not settle within its budget of transients."
+    else:
+        note = "No capacitance-dependent check applies to this rail."
+    if rec["excluded"]:
+        note += (" Failing whatever the capacitance, left out: "
+                 + "; ".join(x["title"].lower() for x in rec["excluded"]) + ".")
+    rec["note"] = note
+    return rec
+
+
+def _limit_record(rail: Rail, lim: dict) -> dict:
+    kind = lim["kind"]
+    check_title = SPECS["short_circuit_time"].title
+    if kind is None:
+        return {"title": "Highest current limit the short circuit allows", "unit": "A", "value": None,
+                "present": None, "status": "not_applicable", "check": None, "check_title": None,
+                "note": "The switch has no current limit: the short circuit is not limited by it."}
+    unit, word = ("A", "current limit") if kind == "current" else ("W", "power limit")
+    rec = {"title": f"Highest {word} the short circuit allows", "unit": unit, "value": lim["value"],
+           "present": lim["present"], "status": lim["status"], "check": "short_circuit_time",
+           "check_title": check_title}
+    value, present = lim["value"], lim["present"]
+    if lim["status"] == "found" and value >= present:
+        note = (f"Up to {eng(value, unit)} nominal passes ({check_title.lower()} at the supply maximum, the "
+                f"{word}'s high tolerance and the longest trip time); the present {eng(present, unit)} has room.")
+    elif lim["status"] == "found":
+        note = (f"The short circuit already fails at the present {eng(present, unit)}: it needs a {word} of at "
+                f"most {eng(value, unit)} nominal, or a faster timer.")
+        rec["status"] = "fails"
+    elif lim["status"] == "unbounded":
+        note = ("No bound from the short circuit: every limit up to 1000 × the present passes, or the current "
+                "limit bounds the fault before the power limit does.")
+    else:
+        note = (f"Even 1/1000 of the present {word} fails: the fault timer is too slow for this FET at the supply "
+                "maximum.")
+    rec["note"] = note
+    return rec
+
+
+def _empty_headroom() -> dict:
+    rec = {"value": None, "present": None, "status": "not_computed", "check": None, "check_title": None,
+           "note": "Not computed."}
+    return {"c_max": {"title": "Largest load capacitance that still passes", "unit": "F", "excluded": [],
+                      "trials": 0, **rec},
+            "limit_max": {"title": "Highest current limit the short circuit allows", "unit": "A", **rec}}
+
+
+# --- notes ---------------------------------------------------------------------------------
+
+
+def _notes(rail: Rail, wc: WorstCase | None) -> list[str]:
+    notes = []
+    zsum = sum(r for r, _ in rail.fet.zth)
+    if abs(zsum - rail.fet.rth_ja) > 0.1 * rail.fet.rth_ja:
+        notes.append(f"The Foster stages sum to {zsum:.3g} K/W but rth_ja is {rail.fet.rth_ja:.3g} K/W: transients "
+                     "use the Foster stages, steady conduction uses rth_ja.")
+    if wc is None:
+        notes.append("Nominal reading only: not a sign-off verdict. The sign-off basis is the worst case over the "
+                     "tolerance corners and the search inside the tolerance box.")
+    else:
+        searched = [SPECS[cid].title for cid, f in wc.found_by.items() if f == "search"]
+        if searched:
+            notes.append("Worse than every corner, found inside the tolerance box by the search: "
+                         + "; ".join(searched) + ".")
+    return notes
+
+
+def _worst_case_summary(wc: WorstCase | None) -> dict:
+    if wc is None:
+        return {"basis": BASIS_NOMINAL, "corners": 0, "search_points": 0, "budget": None, "found_by_search": []}
+    return {"basis": BASIS_WORST, "corners": len(wc.corners), "search_points": wc.n_search, "budget": wc.budget,
+            "found_by_search": [cid for cid, f in wc.found_by.items() if f == "search"]}
+
+
+def _corner_list(wc: WorstCase) -> list[dict]:
+    out = []
+    for j, c in enumerate(wc.corners):
+        codes = [int(wc.checks[s.id]["verdict"][j]) for s in CHECKS]
+        out.append({
+            "name": c["name"],
+            "params": {k: c[k] for k in ("v_s", "c", "i_limit", "timer_c", "i_charge", "v_trip", "t_fault")},
+            "figures": {key: wc.fig[key][j] for _, _, _, key, _ in FIGURES},
+            "verdict": VERDICTS[max(codes)],
+            "worst_for": [s.id for s in CHECKS if wc.worst[s.id] == j],
+        })
+    return out
+
+
+# --- the analysis ----------------------------------------------------------------------------
+
+
 def analyze_rail(
     doc: dict,
     *,
     rules: dict | None = None,
-    corners: bool = False,
+    corners: bool = True,
     monte_carlo: int = 0,
     seed: int = 0,
-    distribution: str = "uniform",
+    distribution: str | dict = "uniform",
     waveforms: bool = True,
     progress: Callable[[float], None] | None = None,
     headroom: bool = True,
@@ -143,166 +412,79 @@ def analyze_rail(
         The team's rules (partial dict over `DEFAULT_RULES`); the document's own
         ``rules`` override them.
     corners : bool
-        Evaluate every tolerance corner; the checks then report worst cases.
+        True (the sign-off basis): every check's worst case over the tolerance corners and
+        the worst-case search. False: the nominal point only, a quick look that is not a
+        sign-off verdict.
     monte_carlo : int
         Number of Monte Carlo samples (0: none).
     seed : int
         Seed of the Monte Carlo generator.
-    distribution : {"uniform", "normal"}
-        Monte Carlo draws within the tolerances, or normal with tolerance = 3 sigma.
+    distribution : str or dict
+        Monte Carlo distribution of the tolerances: "uniform" or "normal" for all, or per
+        parameter (`montecarlo.PARAMETERS`), see `montecarlo.sample_params`.
     waveforms : bool
-        Include the start-up waveforms (at most 2000 points each).
+        Include the nominal start-up waveforms (at most 2000 points each).
     progress : callable, optional
-        Called with the fraction done (0 .. 1) during corners and Monte Carlo; an
-        exception it raises propagates (cancels the analysis).
+        Called with the fraction done (0 .. 1); an exception it raises propagates
+        (cancels the analysis).
     headroom : bool
-        Search the largest load capacitance and the highest current limit (a handful of
-        further transients); False leaves ``headroom`` figures None.
+        Search the largest load capacitance and the highest limit (a handful of further
+        transients); False leaves them "not computed".
 
     Returns
     -------
     dict
-        JSON-serialisable; keys ``engine_version``, ``name``, ``verdict``, ``startup``,
-        ``short_circuit``, ``timer``, ``retry``, ``steady``, ``headroom``, ``checks``,
-        ``rules``, ``notes``, ``caution``, and ``corners`` / ``monte_carlo`` when asked.
+        JSON-serialisable; keys ``engine_version``, ``name``, ``verdict``, ``basis``,
+        ``signoff``, ``checks``, ``figures``, ``startup``, ``short_circuit``, ``timer``,
+        ``retry``, ``steady``, ``headroom``, ``worst_case``, ``rules``, ``conventions``,
+        ``notes``, ``caution``, and ``corners`` / ``monte_carlo`` when computed.
 
     Raises
     ------
     DocumentError
-        Bad input, naming the field.
-    AnalysisError
-        The start-up transient does not converge within the step cap.
+        Bad input (a document that cannot be computed), naming the field.
     """
     rail = read_rail(doc, rules)
     rules_used = rail.rules
     if isinstance(monte_carlo, bool) or not isinstance(monte_carlo, (int, np.integer)) or monte_carlo < 0:
         raise ValueError("monte_carlo: must be a whole number >= 0")
-    if distribution not in ("uniform", "normal"):
-        raise ValueError("distribution: must be uniform or normal")
-    sw = rail.switch
-    timer = sw.timer
-    t_min, t_nom, t_max = fault_times(timer) if timer is not None else (math.inf, math.inf, math.inf)
+    timer = rail.switch.timer
+    times = fault_times(timer) if timer is not None else (math.inf, math.inf, math.inf)
 
-    params = _nominal_params(rail, t_min, t_max)
-    fig, checks, st = evaluate_rows(rail, rules_used, params, record=0 if waveforms else None)
-    if st.status[0] == STATUS_NO_CONVERGENCE:
-        raise AnalysisError(
-            "start-up transient did not converge within the step cap "
-            f"({int(st.steps[0])} steps); the case is too stiff or does not settle")
-
-    p_corners = _split_progress(progress, 0.0, 0.1 if monte_carlo else 1.0)
-    p_mc = _split_progress(progress, 0.1 if corners else 0.0, 1.0)
-    cr = run_corners(rail, rules_used, progress=p_corners) if corners else None
-
-    result: dict = {"engine_version": ENGINE_VERSION, "name": rail.name}
-    ok = st.status[0] == STATUS_OK
-    g = lambda k: fig[k][0]  # noqa: E731
-    wave = decimate(st.waveform) if (waveforms and st.waveform is not None) else None
-    result["startup"] = {
-        "status": "complete" if ok else "stalled",
-        "i_peak": g("i_peak"), "t_i_peak": g("t_i_peak"), "t_limit": g("t_limit"), "t_settle": g("t_settle"), "e_fet": g("e_fet"),
-        "p_fet_peak": g("p_fet_peak"), "tj_peak": g("tj_peak"), "v_supply_min": g("v_supply_min"),
-        "v_supply_min_raw": g("v_supply_min_raw"), "uvlo_filter": rail.supply.uvlo_filter,
-        "v_final": g("v_final"), "v_stall": g("v_stall") if st.status[0] == STATUS_STALLED else None,
-        "pulse_t_equiv": g("pulse_t_equiv"), "pulse_p_peak": g("pulse_p_peak"),
-        "pulse_v_ds": g("v_ds_at_peak"), "pulse_i": g("i_at_peak"),
-        "soa_i_allowed": g("soa_i_allowed"), "soa_ratio": g("soa_ratio"),
-        "steps": int(st.steps[0]), "waveforms": wave,
+    fig_n, checks_n, st_n = evaluate_rows(rail, rules_used, nominal_point(rail, times[1]),
+                                          record=0 if waveforms else None)
+    share = 0.6 if monte_carlo else 1.0
+    wc = None
+    if corners:
+        wc = find_worst_case(rail, rules_used, t_fault_range=(times[0], times[2]),
+                             progress=_split_progress(progress, 0.0, share))
+    records = _check_records(rail, rules_used, (fig_n, checks_n), wc)
+    result: dict = {
+        "engine_version": ENGINE_VERSION,
+        "name": rail.name,
+        "verdict": VERDICTS[worst_verdict(SEVERITY[r["verdict"]] for r in records)],
+        "basis": BASIS_WORST if wc is not None else BASIS_NOMINAL,
+        "signoff": wc is not None,
+        "checks": records,
+        "figures": _key_figures(fig_n, wc),
+        "startup": _startup_section(rail, fig_n, st_n, waveforms),
+        "short_circuit": _short_circuit_section(rail, fig_n),
+        "timer": _timer_section(rail, rules_used, fig_n, wc, times),
+        "retry": _retry_section(rail, fig_n),
+        "steady": _steady_section(fig_n),
+        "headroom": (_headroom(rail, rules_used, (fig_n, checks_n), wc, times[2]) if headroom
+                     else _empty_headroom()),
+        "worst_case": _worst_case_summary(wc),
     }
-    if fig["has_limit"]:
-        by = None
-        if math.isfinite(g("sc_t_allow")):
-            by = "soa" if g("sc_t_soa") <= g("sc_t_thermal") else "thermal"
-        result["short_circuit"] = {
-            "applies": True, "v_ds": g("sc_v_ds"), "i": g("sc_i"), "p": g("sc_p"), "t_soa": g("sc_t_soa"),
-            "t_thermal": g("sc_t_thermal"), "t_allow": g("sc_t_allow"), "t_fault_max": t_max if timer else None,
-            "margin": g("sc_margin"), "limited_by": by,
-            "survives_indefinitely": not math.isfinite(g("sc_t_allow")),
-        }
-    else:
-        result["short_circuit"] = {"applies": False, "v_ds": None, "i": None, "p": None, "t_soa": None,
-                                   "t_thermal": None, "t_allow": None, "t_fault_max": None, "margin": None,
-                                   "limited_by": None, "survives_indefinitely": None}
-
-    t_limit_worst = float(g("t_limit")) if ok else math.nan
-    worst_corner = None
-    if cr is not None:
-        tl = cr["fig"]["t_limit"]
-        if np.all(np.isfinite(tl)):
-            j = int(np.argmax(tl))
-            t_limit_worst, worst_corner = float(tl[j]), cr["corners"][j]["name"]
-    if timer is not None:
-        tw = {"t_fault_min": t_min, "t_fault_nom": t_nom, "t_fault_max": t_max,
-              "t_limit_worst": t_limit_worst, "t_limit_corner": worst_corner,
-              "startup_margin": (t_min / t_limit_worst if t_limit_worst > 0 else math.inf)
-              if math.isfinite(t_limit_worst) else None}
-        if math.isfinite(t_limit_worst):
-            t_allow = g("sc_t_allow") if fig["has_limit"] else math.inf
-            win = timer_window(timer, t_limit_worst=t_limit_worst, t_allow=float(t_allow),
-                               timer_margin=rules_used["timer_margin"], fault_margin=rules_used["fault_margin"])
-        else:
-            win = {"c_lo": None, "c_hi": None, "c_window": None, "c_suggested": None,
-                   "window_note": "The start-up does not complete, so no timer window can be set."}
-        tw.update(win)
-        result["timer"] = tw
-    else:
-        result["timer"] = None
-    if fig["has_retry"]:
-        result["retry"] = {"duty": g("retry_duty"), "p_avg": g("retry_p_avg"), "tj_peak": g("retry_tj_peak"),
-                           "tj_valley": g("retry_tj_valley"), "period": t_max + timer.retry_off}
-    else:
-        result["retry"] = None
-    result["steady"] = {"i": g("steady_i"), "p_fet": g("steady_p_fet"), "tj": g("steady_tj"),
-                        "v_drop": g("steady_v_drop"), "stable": bool(g("steady_stable"))}
-
-    if headroom:
-        head = capacitance_headroom(rail, rules_used, params, checks, fig)
-        head.update(limit_headroom(rail, rules_used, v_sc=rail.supply.v_max, t_fault=t_max))
-    else:
-        head = {"c_max": None, "c_max_check": None, "c_max_note": "Not computed.", "c_max_excluded": [],
-                "c_max_trials": 0, "i_limit_max": None, "i_limit_max_note": "Not computed."}
-    result["headroom"] = head
-
-    if cr is None:
-        rows = {c.id: 0 for c in CHECKS}
-        entries = _check_entries(rail, rules_used, fig, checks, rows, None)
-    else:
-        names = [c["name"] for c in cr["corners"]]
-        entries = _check_entries(rail, rules_used, cr["fig"], cr["checks"], cr["worst"], names)
-        result["corners"] = _corner_list(cr)
-    result["checks"] = entries
-    codes = [next(k for k, v in VERDICTS.items() if v == e["verdict"]) for e in entries]
-    result["verdict"] = VERDICTS[worst_verdict(codes)]
+    if wc is not None:
+        result["corners"] = _corner_list(wc)
     if monte_carlo:
         result["monte_carlo"] = run_monte_carlo(rail, rules_used, int(monte_carlo), seed=seed,
-                                                distribution=distribution, progress=p_mc)
+                                                distribution=distribution, worst=records,
+                                                progress=_split_progress(progress, share, 1.0))
     result["rules"] = dict(rules_used)
-    notes = _notes(rail)
-    if cr is None:
-        notes.append("Figures at nominal conditions (short circuit and timer at their worst cases); "
-                     "run the corners for the worst case of every check.")
-    result["notes"] = notes
+    result["conventions"] = [MARGIN_CONVENTION, SOA_CONVENTION]
+    result["notes"] = _notes(rail, wc)
     result["caution"] = CAUTION
     return _clean(result)
 
-
-def _corner_list(cr: dict) -> list:
-    fig, checks = cr["fig"], cr["checks"]
-    out = []
-    for j, c in enumerate(cr["corners"]):
-        codes = [int(checks[s.id]["verdict"][j]) for s in CHECKS]
-        out.append({
-            "name": c["name"],
-            "params": {k: c[k] for k in ("v_s", "c", "i_limit", "timer_c", "i_charge", "v_trip")},
-            "figures": {
-                "i_peak": fig["i_peak"][j], "t_limit": fig["t_limit"][j], "e_fet": fig["e_fet"][j],
-                "tj_peak": fig["tj_peak"][j], "v_supply_min": fig["v_supply_min"][j],
-                "v_supply_min_raw": fig["v_supply_min_raw"][j],
-                "soa_ratio": fig["soa_ratio"][j], "t_fault": fig["t_fault_sc"][j],
-                "sc_margin": fig["sc_margin"][j], "startup_margin": fig["startup_margin"][j],
-                "steady_tj": fig["steady_tj"][j],
-            },
-            "verdict": VERDICTS[max(codes)],
-            "worst_for": [s.id for s in CHECKS if cr["worst"][s.id] == j and int(checks[s.id]["verdict"][j]) != 0],
-        })
-    return out

@@ -3,17 +3,22 @@
 Provides
 --------
 RowParams
-    Per-row operating conditions (nominal, a corner or a Monte Carlo sample).
-evaluate_rows(rail, rules, params, *, startup=None, record=None)
+    Per-row operating conditions: a point of the tolerance box (the nominal point, a
+    corner, a point of the worst-case search or a Monte Carlo sample).
+evaluate_rows(rail, rules, params, *, startup=None, record=None, startup_only=False, max_steps)
     Start-up transient, equivalent-rectangle SOA ratio, short circuit, fault timer,
     retry and steady state for every row, and the graded checks.
+startup_rows(rail, params, *, record=None, max_steps)
+    The start-up transient of every row (one batch integration).
 
-A row carries separate conditions for the start-up (v_s, c, i_lim), the short circuit
-(v_sc, i_sc), the timer (t_fault_start: the shortest trip time a good start must not
-reach; t_fault_sc: the longest time a short circuit lasts) and steady conduction
-(v_steady). The nominal evaluation uses the worst cases that DESIGN.md section 4 builds
-into the short-circuit and timer figures; a corner or a sample uses its own values
-throughout.
+A row is one point (v_s, c, i_lim, t_fault) of the tolerance box and every figure of the
+row is computed at that point: the start-up at supply v_s into load capacitance c with
+current limit i_lim and the fault timer tripping after t_fault of regulation; the output
+short circuit at V_ds = v_s (DESIGN.md section 4: the supply across the FET, the drop in
+the source and path resistance not subtracted, conservatively) with the current limit
+i_lim, cleared after t_fault; the retry pulse train of that short circuit; and steady
+conduction at v_s. The nominal row is the nominal point; the worst cases come from the
+corners and the worst-case search (`worstcase`).
 """
 
 from __future__ import annotations
@@ -27,40 +32,94 @@ from .circuit import NO_LIMIT, circuit_rows
 from .document import Rail
 from .retry import retry_figures
 from .shortcircuit import has_limit, short_circuit
-from .soa import allowed_current, derating_factor, equivalent_rectangle
+from .soa import allowed_current, equivalent_rectangle
 from .startup import MAX_STEPS, STATUS_OK, StartupFigures, simulate_startup
 from .steady import steady_state
 from .thermal import foster_arrays
 
-__all__ = ["RowParams", "evaluate_rows", "startup_rows"]
+__all__ = ["RowParams", "evaluate_rows", "startup_rows", "nominal_point", "PARAMS"]
+
+PARAMS = ("v_s", "c", "i_lim", "t_fault")
 
 
 @dataclass
 class RowParams:
-    """Operating conditions per row (arrays of shape (n,); V, F, A, s)."""
+    """Points of the tolerance box, one per row (arrays of shape (n,)).
+
+    ``v_s`` supply (V), ``c`` load capacitance (F), ``i_lim`` current limit (A,
+    ``NO_LIMIT`` without one), ``t_fault`` fault-timer trip time (s, ``inf`` without a
+    timer).
+    """
 
     v_s: np.ndarray
     c: np.ndarray
     i_lim: np.ndarray
-    v_sc: np.ndarray
-    i_sc: np.ndarray
-    t_fault_start: np.ndarray
-    t_fault_sc: np.ndarray
-    v_steady: np.ndarray
+    t_fault: np.ndarray
 
     @property
     def n(self) -> int:
         return self.v_s.shape[0]
 
     def take(self, rows) -> "RowParams":
-        return RowParams(**{k: getattr(self, k)[rows] for k in self.__dataclass_fields__})
+        return RowParams(**{k: getattr(self, k)[rows] for k in PARAMS})
+
+    def copy(self) -> "RowParams":
+        return RowParams(**{k: np.array(getattr(self, k), dtype=float, copy=True) for k in PARAMS})
+
+    @staticmethod
+    def stack(parts: list["RowParams"]) -> "RowParams":
+        return RowParams(**{k: np.concatenate([getattr(p, k) for p in parts]) for k in PARAMS})
+
+
+def nominal_point(rail: Rail, t_fault_nom: float) -> RowParams:
+    """The nominal point: v_nom, c_nom, the nominal current limit and trip time."""
+    sw = rail.switch
+    a = lambda x: np.array([float(x)])  # noqa: E731
+    return RowParams(v_s=a(rail.supply.v_nom), c=a(rail.load.c_nom),
+                     i_lim=a(sw.i_limit if sw.i_limit is not None else NO_LIMIT), t_fault=a(t_fault_nom))
 
 
 def startup_rows(rail: Rail, params: RowParams, *, record: int | None = None,
                  max_steps: int = MAX_STEPS) -> StartupFigures:
     """Start-up transient of every row (one batch integration)."""
-    cz = circuit_rows(rail, v_s=params.v_s, c=params.c, i_limit=params.i_lim)
+    cz = circuit_rows(rail, v_s=params.v_s, c=params.c, i_limit=params.i_lim, t_fault=params.t_fault)
     return simulate_startup(cz, record=record, max_steps=max_steps)
+
+
+def _attempts(st: StartupFigures, t_amb: float) -> dict:
+    """The start-up pulse of every attempt, arrays (n, k)."""
+    keys = ("pulse_e", "pulse_p_peak", "pulse_v_ds", "pulse_i", "pulse_tj_start")
+    if all(hasattr(st, k) for k in keys):
+        return {k: np.atleast_2d(np.asarray(getattr(st, k), dtype=float)) for k in keys}
+    # one attempt: the run's own figures
+    col = lambda x: np.asarray(x, dtype=float)[:, None]  # noqa: E731
+    return {"pulse_e": col(st.e_fet), "pulse_p_peak": col(st.p_fet_peak), "pulse_v_ds": col(st.v_ds_at_peak),
+            "pulse_i": col(st.i_at_peak), "pulse_tj_start": np.full((st.status.shape[0], 1), float(t_amb))}
+
+
+def _soa_pulses(rail: Rail, st: StartupFigures) -> dict:
+    """Each attempt's pulse as its equivalent rectangle against the SOA derated from the
+    attempt's starting junction temperature; the worst attempt per row."""
+    n = st.status.shape[0]
+    att = _attempts(st, rail.t_ambient)
+    e, p, v, i, tj0 = (att[k] for k in ("pulse_e", "pulse_p_peak", "pulse_v_ds", "pulse_i", "pulse_tj_start"))
+    k = e.shape[1]
+    t_eq = equivalent_rectangle(np.nan_to_num(e), np.nan_to_num(p))
+    valid = np.isfinite(e) & np.isfinite(p) & (p > 0) & np.isfinite(v) & (v > 0) & (i > 0)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        allowed = allowed_current(rail.fet, np.where(valid, v, 1.0).ravel(), np.where(valid, t_eq, 1.0).ravel(),
+                                  np.where(valid, tj0, rail.t_ambient).ravel()).reshape(n, k)
+        ratio = np.where(valid, allowed / np.where(valid, i, 1.0), np.inf)
+    worst = np.argmin(ratio, axis=1)
+    rows = np.arange(n)
+    any_pulse = valid.any(axis=1)
+
+    def pick(x):
+        return np.where(any_pulse, x[rows, worst], np.nan)
+
+    return {"soa_ratio": pick(ratio), "soa_i_allowed": pick(allowed), "soa_attempt": worst,
+            "pulse_t_equiv": pick(t_eq), "pulse_p_peak": pick(p), "pulse_e": pick(e), "pulse_v_ds": pick(v),
+            "pulse_i": pick(i), "pulse_tj_start": pick(tj0)}
 
 
 def evaluate_rows(rail: Rail, rules: dict, params: RowParams, *, startup: StartupFigures | None = None,
@@ -78,11 +137,11 @@ def evaluate_rows(rail: Rail, rules: dict, params: RowParams, *, startup: Startu
         Already computed start-up figures for these rows.
     record : int, optional
         Row whose start-up waveform is kept.
-    max_steps : int
-        Step cap of the transient per row.
     startup_only : bool
         Skip the short circuit, retry and steady state (their checks become n/a): what
         the capacitance headroom search needs.
+    max_steps : int
+        Step cap of the transient per row.
 
     Returns
     -------
@@ -96,52 +155,42 @@ def evaluate_rows(rail: Rail, rules: dict, params: RowParams, *, startup: Startu
     n = params.n
     if startup is None:
         startup = startup_rows(rail, params, record=record, max_steps=max_steps)
-    fet = rail.fet
     t_amb = rail.t_ambient
-    ok = startup.status == STATUS_OK
-    cz = circuit_rows(rail, v_s=params.v_s, c=params.c, i_limit=params.i_lim)
-    v_target = cz.final_output(t_amb)[0]
-    fig: dict = {"n": n, "status_ok": ok, "v_target": v_target, "v_stall": startup.v_stall,
-                 "v_final": startup.v_final, "v_sc": params.v_sc}
+    cz = circuit_rows(rail, v_s=params.v_s, c=params.c, i_limit=params.i_lim, t_fault=params.t_fault)
+    fig: dict = {"n": n, "status": startup.status, "v_s": params.v_s, "c": params.c, "i_lim": params.i_lim,
+                 "t_fault": params.t_fault, "v_target": cz.final_output(t_amb)[0]}
     for name in ("i_peak", "t_i_peak", "t_limit", "t_settle", "e_fet", "p_fet_peak", "tj_peak", "v_supply_min",
-                 "v_supply_min_raw", "v_ds_at_peak", "i_at_peak"):
+                 "v_ds_at_peak", "i_at_peak", "v_final", "v_stall", "t_end", "steps"):
         fig[name] = getattr(startup, name)
+    fig["attempts"] = getattr(startup, "attempts", np.ones(n, int))
+    fig["t_trip"] = getattr(startup, "t_trip", np.full(n, np.nan))
+    fig["t_below_uvlo"] = getattr(startup, "t_below_uvlo", np.zeros(n))
+    fig["dip_unbounded"] = np.asarray(getattr(startup, "dip_unbounded", np.zeros(n, bool)), dtype=bool)
+    fig.update(_soa_pulses(rail, startup))
 
-    # start-up pulse against the SOA: rectangle of the same energy and peak power
-    t_eq = equivalent_rectangle(np.nan_to_num(startup.e_fet), np.nan_to_num(startup.p_fet_peak))
-    with np.errstate(invalid="ignore", divide="ignore"):
-        i_allowed = allowed_current(fet, np.where(ok, startup.v_ds_at_peak, 1.0), np.where(t_eq > 0, t_eq, 1.0), t_amb)
-        ratio = np.where(startup.i_at_peak > 0, i_allowed / startup.i_at_peak, np.inf)
-    fig["pulse_t_equiv"] = np.where(ok, t_eq, np.nan)
-    fig["pulse_p_peak"] = startup.p_fet_peak
-    fig["soa_i_allowed"] = np.where(ok, i_allowed, np.nan)
-    fig["soa_ratio"] = np.where(ok, ratio, np.nan)
-    fig["soa_derating"] = np.full(n, float(derating_factor(fet, t_amb)))
-
-    # short circuit
+    # short circuit at the row's supply, limit and trip time
     fig["has_limit"] = has_limit(rail) and not startup_only
-    fig["t_fault_sc"] = params.t_fault_sc
     if fig["has_limit"]:
-        sc = short_circuit(rail, v_ds=params.v_sc, i_limit=params.i_sc, t_fault=params.t_fault_sc)
+        sc = short_circuit(rail, v_ds=params.v_s, i_limit=params.i_lim, t_fault=params.t_fault)
     else:
         nan = np.full(n, np.nan)
         sc = {k: nan for k in ("v_ds", "i", "p", "t_soa", "t_thermal", "t_allow", "margin")}
     for k, v in sc.items():
         fig["sc_" + k] = v
 
-    # fault timer
+    # fault timer: the row's trip time against the regulation the start needs without it
     timer = rail.switch.timer
     fig["has_timer"] = timer is not None
-    fig["t_fault_start"] = params.t_fault_start
+    t_need = startup.t_limit
     with np.errstate(invalid="ignore", divide="ignore"):
-        sm = np.where(startup.t_limit > 0, params.t_fault_start / startup.t_limit, np.inf)
-    fig["startup_margin"] = np.where(ok, sm, np.nan) if timer is not None else np.full(n, np.nan)
+        sm = np.where(t_need > 0, params.t_fault / t_need, np.inf)
+    fig["startup_margin"] = np.where(np.isfinite(t_need), sm, np.nan) if timer is not None else np.full(n, np.nan)
 
     # retry
     fig["has_retry"] = bool(timer is not None and timer.after_fault == "retry" and fig["has_limit"])
     if fig["has_retry"]:
-        r, tau = foster_arrays(fet.zth)
-        rt = retry_figures(r, tau, p=sc["p"], t_on=params.t_fault_sc, t_off=timer.retry_off, t_ambient=t_amb)
+        r, tau = foster_arrays(rail.fet.zth)
+        rt = retry_figures(r, tau, p=sc["p"], t_on=params.t_fault, t_off=timer.retry_off, t_ambient=t_amb)
     else:
         nan = np.full(n, np.nan)
         rt = {"duty": nan, "p_avg": nan, "tj_peak": nan, "tj_valley": nan}
@@ -154,14 +203,10 @@ def evaluate_rows(rail: Rail, rules: dict, params: RowParams, *, startup: Startu
         st = {"i": nan, "p_fet": nan, "tj": nan, "v_drop": nan, "stable": np.zeros(n, bool),
               "dc_ok": np.zeros(n, bool)}
     else:
-        st = steady_state(rail, v_s=params.v_steady)
+        st = steady_state(rail, v_s=params.v_s)
     for k, v in st.items():
         fig["steady_" + k] = v
 
+    fig["complete"] = startup.status == STATUS_OK
     checks = evaluate_checks(rail, rules, fig)
     return fig, checks, startup
-
-
-def limit_rows(rail: Rail, n: int) -> np.ndarray:
-    """The rail's nominal current limit repeated n times (``NO_LIMIT`` without one)."""
-    return np.full(n, rail.switch.i_limit if rail.switch.i_limit is not None else NO_LIMIT)

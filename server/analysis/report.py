@@ -3,22 +3,23 @@
 Provides
 --------
 format_report(result, doc)
-    The result of `analyze_rail` as plain text: the rail, the headline figures in
-    engineering notation, a table of checks (verdict in words, value, limit, unit, basis),
-    the timer window and headroom, corners and Monte Carlo summaries when present, and the
-    caution line. Pure string formatting: no I/O.
+    The result of `analyze_rail` as plain text for people: the verdict and its basis, the
+    check table (title, verdict, value, limit with its direction, margin, where the worst
+    case lies), the key figures nominal and worst case side by side, the reasons of the
+    failing and marginal checks, headroom, the fault timer, Monte Carlo, the conventions
+    and the caution. Pure string formatting from the result's records: nothing is
+    recomputed.
 """
 
 from __future__ import annotations
 
 from .units import eng, temp
 
-__all__ = ["format_report"]
-
-_UNIT_FMT = {"V": "V", "A": "A", "ratio": "", "degC": "degC"}
+__all__ = ["format_report", "value_text", "limit_text", "margin_text"]
 
 
-def _val(x, unit: str) -> str:
+def value_text(x, unit: str) -> str:
+    """A check value or figure in words and units ("-" when there is none)."""
     if x is None:
         return "-"
     if unit == "degC":
@@ -28,8 +29,102 @@ def _val(x, unit: str) -> str:
     return eng(x, unit)
 
 
-def _row(cols, widths) -> str:
-    return "  ".join(str(c).ljust(w) for c, w in zip(cols, widths)).rstrip()
+def limit_text(check: dict) -> str:
+    """The limit with its direction: "≥ 1.5", "≤ 125.0 °C"."""
+    if check.get("limit") is None:
+        return "-"
+    sign = {">=": "\u2265 ", "<=": "\u2264 "}.get(check.get("direction") or "", "")
+    return sign + value_text(check["limit"], check.get("unit", ""))
+
+
+def margin_text(margin) -> str:
+    """The normalised margin: "1.53×" (1.00× is the team limit)."""
+    return "-" if margin is None else f"{margin:.3g}\u00d7"
+
+
+def _table(rows: list[list[str]], head: list[str]) -> list[str]:
+    widths = [max(len(str(x)) for x in col) for col in zip(head, *rows)]
+    line = lambda cols: "  ".join(str(c).ljust(w) for c, w in zip(cols, widths)).rstrip()  # noqa: E731
+    return [line(head), line(["-" * w for w in widths])] + [line(r) for r in rows]
+
+
+def _basis_line(result: dict) -> str:
+    wc = result.get("worst_case") or {}
+    if result.get("basis") == "nominal":
+        return "basis: nominal point only (a quick look, NOT a sign-off verdict)"
+    return (f"basis: worst case over {wc.get('corners', 0)} tolerance corners and {wc.get('search_points', 0)} "
+            "points searched inside the tolerance box")
+
+
+def _check_rows(result: dict) -> list[str]:
+    rows = []
+    worst_case = result.get("basis") != "nominal"
+    for c in result.get("checks") or []:
+        unit = c.get("unit", "")
+        where = c.get("corner") or ""
+        if c.get("found_by") == "search":
+            where += " (found by the search)"
+        row = [c["verdict"].upper(), c["title"], value_text(c.get("value"), unit), limit_text(c),
+               margin_text(c.get("margin"))]
+        if worst_case:
+            row += [value_text((c.get("nominal") or {}).get("value"), unit), where]
+        rows.append(row)
+    head = ["verdict", "check", "value", "limit", "margin"]
+    if worst_case:
+        head += ["nominal", "worst case at"]
+    return _table(rows, head)
+
+
+def _figure_rows(result: dict) -> list[str]:
+    rows = []
+    for f in result.get("figures") or []:
+        unit = f.get("unit", "")
+        rows.append([f["title"], value_text(f.get("nominal"), unit), value_text(f.get("worst"), unit),
+                     f.get("corner") or ""])
+    if not rows:
+        return []
+    if result.get("basis") == "nominal":
+        return _table([r[:2] for r in rows], ["figure", "nominal"])
+    return _table(rows, ["figure", "nominal", "worst case", "worst case at"])
+
+
+def _timer_lines(tm: dict) -> list[str]:
+    lines = [f"Fault timer: trips after {eng(tm.get('t_fault_min'), 's')} to {eng(tm.get('t_fault_max'), 's')} "
+             f"(nominal {eng(tm.get('t_fault_nom'), 's')})"]
+    win = tm.get("c_window")
+    if win:
+        hi = "no upper bound" if win[1] is None else eng(win[1], "F")
+        sug = f"; suggested {eng(tm['c_suggested'], 'F')} (E12, IEC 60063)" if tm.get("c_suggested") else ""
+        lines.append(f"  timer capacitors meeting both margins: {eng(win[0], 'F')} to {hi}{sug}")
+    if tm.get("window_note"):
+        lines.append(f"  {tm['window_note']}")
+    return lines
+
+
+def _monte_carlo_lines(mc: dict) -> list[str]:
+    lo, hi = mc["yield_ci95"]
+    kinds = mc.get("distributions") or {}
+    dist = ", ".join(f"{k} {v}" for k, v in kinds.items())
+    lines = [f"Monte Carlo: {mc['n']} samples (seed {mc['seed']}; {dist}; normal = tolerance as 3 sigma, "
+             "truncated to the tolerance box)",
+             f"  yield {100 * mc['yield']:.2f} % pass every check (95 % interval {100 * lo:.2f} to {100 * hi:.2f} %); "
+             f"{100 * mc['yield_no_fail']:.2f} % have no failing check"]
+    rows = []
+    for cid, m in (mc.get("checks") or {}).items():
+        if not m.get("applies"):
+            continue
+        mg = m.get("margin") or {}
+        rows.append([m["title"], f"{100 * m['fail_share']:.2f} %", f"{100 * m['marginal_share']:.2f} %",
+                     margin_text(mg.get("min")), margin_text(mg.get("p50")),
+                     margin_text(m.get("worst_case_margin"))])
+    if rows:
+        lines += ["  " + x for x in _table(rows, ["check", "failing", "marginal", "lowest margin", "median margin",
+                                                   "worst case margin"])]
+    for flag in mc.get("flags") or []:
+        lines.append(f"  FLAG: {flag['samples']} sample(s) read worse than the sign-off worst case for "
+                     f"{flag['title']}: margin {margin_text(flag.get('margin'))} at {flag['point']} against "
+                     f"{margin_text(flag.get('worst_case_margin'))}; not folded into the verdict.")
+    return lines
 
 
 def format_report(result: dict, doc: dict) -> str:
@@ -45,102 +140,61 @@ def format_report(result: dict, doc: dict) -> str:
     Returns
     -------
     str
-        The report, lines separated by newlines, ending with the caution line.
+        The report, lines separated by newlines, with the caution line near the top and
+        at the end.
     """
     lines: list[str] = []
     name = result.get("name") or doc.get("name") or "(unnamed rail)"
     sup, load, sw, fet = doc.get("supply", {}), doc.get("load", {}), doc.get("switch", {}), doc.get("fet", {})
     lines.append(f"railsign analysis: {name}")
-    lines.append(f"engine {result.get('engine_version')}   verdict: {result.get('verdict', 'n/a').upper()}")
+    lines.append(f"engine {result.get('engine_version')}   verdict: {result.get('verdict', 'n/a').upper()}   "
+                 f"{_basis_line(result)}")
+    lines.append(f"Caution: {result.get('caution', '')}")
     lines.append("")
-    lines.append(
-        f"Supply {eng(sup.get('v_min'), 'V')} .. {eng(sup.get('v_max'), 'V')} (nominal {eng(sup.get('v_nom'), 'V')}); "
-        f"load {eng(load.get('c_nom'), 'F')} {load.get('model', 'none')}; switch {sw.get('mode')}; FET {fet.get('name')}"
-    )
+    mode = str(sw.get("mode", "")).replace("_", " ")
+    lines.append(f"Supply {eng(sup.get('v_min'), 'V')} to {eng(sup.get('v_max'), 'V')} (nominal "
+                 f"{eng(sup.get('v_nom'), 'V')}); load {eng(load.get('c_nom'), 'F')}, "
+                 f"{str(load.get('model', 'none')).replace('_', ' ')}; {mode} switch; MOSFET {fet.get('name')}")
     lines.append("")
-    s = result.get("startup") or {}
-    lines.append("Start-up (nominal)")
-    if s.get("status") == "stalled":
-        lines.append(f"  does not complete: the output stalls near {eng(s.get('v_stall'), 'V')}")
-    else:
-        lines.append(f"  peak current {eng(s.get('i_peak'), 'A')}, regulating for {eng(s.get('t_limit'), 's')}, "
-                     f"settled after {eng(s.get('t_settle'), 's')}")
-        lines.append(f"  FET energy {eng(s.get('e_fet'), 'J')}, peak power {eng(s.get('p_fet_peak'), 'W')}, "
-                     f"peak Tj {temp(s.get('tj_peak'))}, lowest switch input {eng(s.get('v_supply_min'), 'V')} "
-                     f"through the UVLO filter (unfiltered {eng(s.get('v_supply_min_raw'), 'V')})")
-        lines.append(f"  equivalent rectangle {eng(s.get('pulse_p_peak'), 'W')} for {eng(s.get('pulse_t_equiv'), 's')}")
-    sc = result.get("short_circuit") or {}
-    if sc.get("applies"):
-        allow = "indefinitely" if sc.get("survives_indefinitely") else eng(sc.get("t_allow"), "s")
-        lines.append("Short circuit")
-        lines.append(f"  {eng(sc.get('p'), 'W')} at {eng(sc.get('v_ds'), 'V')} and {eng(sc.get('i'), 'A')}: "
-                     f"SOA allows {eng(sc.get('t_soa'), 's')}, Foster network {eng(sc.get('t_thermal'), 's')}, "
-                     f"survives {allow}")
+    lines.append("Checks" + (" (sign-off reading: each check's worst case)" if result.get("basis") != "nominal"
+                             else " (nominal point only)"))
+    lines += _check_rows(result)
+    lines.append("")
+    problems = [c for c in result.get("checks") or [] if c["verdict"] in ("fail", "marginal")]
+    if problems:
+        lines.append("Why:")
+        for c in problems:
+            lines.append(f"  {c['title']} ({c['verdict']}): {c.get('detail', '')}")
+        lines.append("")
+    lines.append("Team limits are common practice, not a standard. Marginal: between the team limit and the bare "
+                 "physical edge.")
+    lines.append("")
+    fig_rows = _figure_rows(result)
+    if fig_rows:
+        lines.append("Key figures")
+        lines += fig_rows
+        lines.append("")
+    hd = result.get("headroom") or {}
+    for key in ("c_max", "limit_max"):
+        h = hd.get(key)
+        if h:
+            value = value_text(h.get("value"), h.get("unit", "")) if h.get("value") is not None else "-"
+            lines.append(f"{h['title']}: {value}. {h.get('note') or ''}".rstrip())
     tm = result.get("timer")
     if tm:
-        lines.append("Fault timer")
-        lines.append(f"  trips after {eng(tm.get('t_fault_min'), 's')} .. {eng(tm.get('t_fault_max'), 's')} "
-                     f"(nominal {eng(tm.get('t_fault_nom'), 's')})")
-        win = tm.get("c_window")
-        if win:
-            hi = "no upper bound" if win[1] is None else eng(win[1], "F")
-            lines.append(f"  capacitor window {eng(win[0], 'F')} .. {hi}; suggested {eng(tm.get('c_suggested'), 'F')} (E12)")
-        if tm.get("window_note"):
-            lines.append(f"  {tm['window_note']}")
-    rt = result.get("retry")
-    if rt:
-        lines.append(f"Retry: duty {rt['duty']:.3g}, average {eng(rt.get('p_avg'), 'W')}, peak Tj {temp(rt.get('tj_peak'))}")
-    st = result.get("steady") or {}
-    lines.append(f"Steady conduction: {eng(st.get('p_fet'), 'W')} in the FET, Tj {temp(st.get('tj'))}, "
-                 f"drop {eng(st.get('v_drop'), 'V')}{'' if st.get('stable') else ', THERMAL RUNAWAY'}")
-    hd = result.get("headroom") or {}
-    c_max = eng(hd.get("c_max"), "F") if hd.get("c_max") is not None else (hd.get("c_max_note") or "n/a")
-    i_max = eng(hd.get("i_limit_max"), "A") if hd.get("i_limit_max") is not None else (hd.get("i_limit_max_note") or "n/a")
-    lines.append(f"Headroom: largest load capacitance {c_max}; highest current limit {i_max}")
-    lines.append("")
-
-    checks = result.get("checks") or []
-    corners = any(c.get("corner") for c in checks)
-    head = ["check", "verdict", "value", "limit", "unit", "basis"] + (["worst corner"] if corners else [])
-    rows = []
-    for c in checks:
-        unit = c.get("unit", "")
-        r = [c["id"], c["verdict"].upper(), _val(c.get("value"), unit), _val(c.get("limit"), unit), unit, c.get("basis", "")]
-        if corners:
-            r.append(c.get("corner") or "")
-        rows.append(r)
-    widths = [max(len(str(x)) for x in col) for col in zip(head, *rows)]
-    lines.append("Checks" + (" (worst case over the tolerance corners)" if corners else " (nominal)"))
-    lines.append(_row(head, widths))
-    lines.append(_row(["-" * w for w in widths], widths))
-    for r in rows:
-        lines.append(_row(r, widths))
-    lines.append("")
-    for c in checks:
-        if c["verdict"] in ("fail", "marginal"):
-            lines.append(f"  {c['id']}: {c.get('detail', '')}")
-    lines.append("Team limits (soa_margin, fault_margin, timer_margin, tj_headroom, vds_derating) are common practice, not a standard.")
-
+        lines += _timer_lines(tm)
+    st = result.get("startup") or {}
+    if st and not st.get("complete", True):
+        lines.append(f"Start-up at nominal: {st.get('status')}.")
     mc = result.get("monte_carlo")
     if mc:
-        lo, hi = mc["yield_ci95"]
         lines.append("")
-        lines.append(f"Monte Carlo: {mc['n']} samples ({mc['distribution']}, seed {mc['seed']}): "
-                     f"yield {100 * mc['yield']:.2f} % (95 % interval {100 * lo:.2f} .. {100 * hi:.2f} %), "
-                     f"no failing check {100 * mc['yield_no_fail']:.2f} %")
-        for cid, m in mc.get("margins", {}).items():
-            u = m.get("unit", "")
-            lines.append(f"  {cid}: p01 {_val(m.get('p01'), u)}  p50 {_val(m.get('p50'), u)}  "
-                         f"p99 {_val(m.get('p99'), u)}  limit {_val(m.get('limit'), u)}")
-    cl = result.get("corners")
-    if cl:
-        lines.append("")
-        lines.append(f"Corners evaluated: {len(cl)}; failing: "
-                     f"{sum(1 for c in cl if c['verdict'] == 'fail')}, marginal: {sum(1 for c in cl if c['verdict'] == 'marginal')}")
+        lines += _monte_carlo_lines(mc)
+    lines.append("")
+    for text in result.get("conventions") or []:
+        lines.append(f"Convention: {text}")
     for note in result.get("notes") or []:
         lines.append(f"Note: {note}")
     lines.append("")
-    lines.append("Caution: " + (result.get("caution") or
-                 "the tool computes design margins, it does not certify hardware; verify on hardware; "
-                 "follow applicable codes and licensed practice."))
+    lines.append("Caution: " + (result.get("caution") or ""))
     return "\n".join(lines) + "\n"

@@ -20,15 +20,13 @@ Method
 Along one curve log(I) is interpolated linearly against log(V); between curves log(I) is
 interpolated linearly against log(t_pulse). Below the first point of a curve its first
 current holds; above its last point nothing is allowed. Pulses shorter than the shortest
-curve get the shortest curve's current (conservative). Pulses longer than the longest
-finite curve follow the slope of the last two finite curves in log-log (or -1/2, the
-semi-infinite one-dimensional heat-flow law, when there is only one finite curve), and
-never go below the DC curve, which is the long-time limit. The allowed power is derated
-linearly with the starting junction temperature T: factor (tj_max - T) / (tj_max - t_case)
-(the linear SOA derating of power MOSFET application notes; common practice, not a
-standard), never above 1. References: the -1/2 slope, H. S. Carslaw and J. C. Jaeger,
-"Conduction of Heat in Solids", 2nd ed., section 2.9 (surface temperature of a
-semi-infinite solid under constant flux grows as sqrt(t)).
+curve get the shortest curve's current, and above the shortest curve's current nothing is
+allowed at any pulse width. Nothing is extrapolated past the chart: a pulse longer than the
+longest finite curve is allowed only the DC curve's current (no DC curve: nothing), so
+between the longest finite curve and DC the allowed time is that curve's pulse width, as a
+datasheet reader takes it. The allowed power is derated linearly with the starting junction
+temperature T: factor (tj_max - T) / (tj_max - t_case) (the linear SOA derating of power
+MOSFET application notes; common practice, not a standard), never above 1.
 
 A non-rectangular pulse is compared as the rectangle of the same energy and the same peak
 power (t_equiv = E / P_peak); DESIGN.md section 4.
@@ -51,9 +49,13 @@ __all__ = [
     "soa_allowed_time",
     "derated_soa_curves",
     "equivalent_rectangle",
+    "CONVENTION",
 ]
 
-_DIFFUSION_SLOPE = -0.5
+CONVENTION = ("SOA read without extrapolation: between the longest pulse curve and DC the allowed time is the "
+              "longest curve's pulse width (no DC curve: nothing longer is allowed); above the shortest curve's "
+              "current nothing is allowed; derated linearly from t_case to tj_max (common practice, not a "
+              "standard).")
 
 
 def curve_current(curve: SoaCurve, v_ds: float) -> float:
@@ -116,17 +118,6 @@ class _Table:
         fin = np.minimum.accumulate(np.stack([self._currents(lg, x) for lg in self._fin_logs]), axis=0)
         dc = None if self._dc_logs is None else np.minimum(self._currents(self._dc_logs, x), fin[-1])
         return fin, dc
-
-    def tail_slope(self, fin: np.ndarray) -> np.ndarray:
-        """log-log slope dlogI/dlogt beyond the longest finite curve, per row (< 0)."""
-        n = fin.shape[1]
-        if len(self.finite) < 2:
-            return np.full(n, _DIFFUSION_SLOPE)
-        a, b = fin[-2], fin[-1]
-        ok = (a > 0) & (b > 0) & (a > b)
-        with np.errstate(divide="ignore", invalid="ignore"):
-            s = np.log(np.where(ok, b / np.where(ok, a, 1.0), 1.0)) / (self.log_t[-1] - self.log_t[-2])
-        return np.where(ok & (s < 0), s, _DIFFUSION_SLOPE)
 
 
 @functools.lru_cache(maxsize=64)
@@ -191,18 +182,11 @@ def allowed_current(fet: Fet, v_ds, t_pulse, t_start) -> np.ndarray:
             inner = np.where(both, np.exp(np.where(both, (1 - w) * lfin[k, cols] + w * lfin[k + 1, cols], 0.0)), 0.0)
     else:
         inner = fin[0]
-    # shorter than the shortest curve: its current; longer than the longest: tail law
+    # shorter than the shortest curve: its current; longer than the longest finite curve:
+    # the DC curve's (nothing without one); no extrapolation along the chart
     inner = np.where(lt <= tab.log_t[0], fin[0], inner)
-    s = tab.tail_slope(fin)
-    with np.errstate(over="ignore"):
-        tail = fin[-1] * np.exp(s * np.maximum(lt - tab.log_t[-1], 0.0))
-    if dc is not None:
-        tail = np.maximum(tail, dc)
-    out = np.where(lt > tab.log_t[-1], tail, inner)
-    if dc is not None:
-        out = np.where(np.isinf(t), dc, out)
-    elif np.any(np.isinf(t)):
-        out = np.where(np.isinf(t), 0.0, out)
+    beyond = dc if dc is not None else np.zeros_like(inner)
+    out = np.where(lt > tab.log_t[-1] * (1 + 1e-12) + 1e-12, beyond, inner)
     return out * derating_factor(fet, t_start)
 
 
@@ -224,7 +208,8 @@ def soa_allowed_time(fet: Any, v_ds, i_d, t_ambient) -> np.ndarray:
     -------
     ndarray, shape (n,)
         Allowed duration in s; ``inf`` where the DC curve allows the point; 0 where even
-        the shortest curve does not.
+        the shortest curve does not; the longest finite curve's pulse width where that
+        curve allows the point and DC does not (no extrapolation past the chart).
     """
     fet = _as_fet(fet, t_ambient)
     v = np.atleast_1d(np.asarray(v_ds, dtype=float))
@@ -245,9 +230,7 @@ def soa_allowed_time(fet: Any, v_ds, i_d, t_ambient) -> np.ndarray:
         la, lb = np.log(fin[kk, cols]), np.log(fin[kn, cols])
         frac = np.where(fin[kn, cols] > 0, (li - la) / np.where(lb != la, lb - la, -1.0), 0.0)
         between = np.exp(tab.log_t[kk] + frac * (tab.log_t[kn] - tab.log_t[kk]))
-        s = tab.tail_slope(fin)
-        beyond = np.exp(tab.log_t[-1] + (li - np.log(np.maximum(fin[-1], 1e-300))) / s)
-    t = np.where(k < 0, 0.0, np.where(k >= m - 1, beyond, between))
+    t = np.where(k < 0, 0.0, np.where(k >= m - 1, np.exp(tab.log_t[-1]), between))
     if dc is not None:
         t = np.where((dc * kd >= i) & (dc * kd > 0), np.inf, t)
     return np.where(i <= 0, np.inf, t)

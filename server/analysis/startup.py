@@ -72,12 +72,19 @@ __all__ = [
     "STATUS_OK",
     "STATUS_STALLED",
     "STATUS_NO_CONVERGENCE",
+    "STATUS_TRIPPED",
+    "STATUS_RETRIED",
+    "STATUS_RETRY_EXHAUSTED",
+    "STATUS_RUNAWAY",
+    "TJ_RUNAWAY_K",
     "StartupFigures",
     "simulate_startup",
 ]
 
 MAX_STEPS = 20000
 STATUS_OK, STATUS_STALLED, STATUS_NO_CONVERGENCE = 0, 1, 2
+STATUS_TRIPPED, STATUS_RETRIED, STATUS_RETRY_EXHAUSTED, STATUS_RUNAWAY = 3, 4, 5, 6
+TJ_RUNAWAY_K = 100.0  # K above tj_max where a start is taken as destroying the FET
 
 
 @dataclass

@@ -1,0 +1,291 @@
+"""The sign-off worst case: the tolerance corners and a deterministic search inside the box.
+
+Provides
+--------
+find_worst_case(rail, rules, *, t_fault_range, progress=None) -> WorstCase
+    Every corner, a fixed set of quasi-random points of the tolerance box and a compass
+    search from each check's worst point, all evaluated with the full model; the worst
+    row of every check and what found it.
+evaluate_unique(rail, rules, params)
+    `evaluation.evaluate_rows` on the distinct rows only (corners share many).
+SEARCH_SEED, SOBOL_POINTS, COMPASS_ROUNDS, COMPASS_STEP
+    The fixed budget of the search (part of the engine: the verdict depends only on the
+    revision and the engine version).
+
+Method
+------
+Corners bound a check only where it is monotone in every toleranced parameter; the
+start-up figures are not always (the SOA ratio of a ramped hard start, say, moves along a
+piecewise chart as the pulse changes shape). The box is the product of the parameter
+ranges: supply [v_min, v_max], load capacitance c_nom (1 -/+ c_tol), current limit
+i_limit (1 -/+ i_limit_tol) and, when some corner's start trips the fault timer, the trip
+time [t_fault_min, t_fault_max] (elsewhere the start-up does not depend on it, and the
+timer check takes the shortest trip time). Coordinates are scaled to [0, 1] per parameter.
+
+1. The corners (`corners.corner_set`).
+2. ``SOBOL_POINTS`` points of a scrambled Sobol sequence (scipy.stats.qmc.Sobol, seed
+   ``SEARCH_SEED``): a low-discrepancy cover of the box's interior (I. M. Sobol, "On the
+   distribution of points in a cube and the approximate evaluation of integrals", USSR
+   Comput. Math. Math. Phys. 7 (1967) 86-112; Owen's scrambling).
+3. From each start-up check's worst point so far, ``COMPASS_ROUNDS`` rounds of a compass
+   search (T. G. Kolda, R. M. Lewis and V. Torczon, "Optimization by direct search: new
+   perspectives on some classical and modern methods", SIAM Review 45 (2003) 385-482,
+   section 3): the 2 d neighbours at distance ``COMPASS_STEP`` along each coordinate are
+   evaluated, the worst one taken when it is worse, the step halved when none is. All the
+   checks' neighbours of a round run as one batch.
+
+A row is worse when its verdict is more severe, then when its normalised margin is
+smaller (`checks.normalised_margin`). The checks computed in closed form (short circuit,
+retry, steady state, V_DS derating) are monotone in each parameter and take their worst
+corner. Every row of every stage counts: a check's worst case is its worst row of all.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass, field
+
+import numpy as np
+from scipy.stats import qmc
+
+from .checks import CHECKS, NA, SPECS, STARTUP_CHECKS
+from .circuit import NO_LIMIT
+from .corners import corner_params, corner_set, point_words
+from .document import Rail
+from .evaluation import PARAMS, RowParams, evaluate_rows
+from .startup import STATUS_RETRIED, STATUS_RETRY_EXHAUSTED, STATUS_TRIPPED
+
+__all__ = ["SEARCH_SEED", "SOBOL_POINTS", "COMPASS_ROUNDS", "COMPASS_STEP", "WorstCase", "find_worst_case",
+           "evaluate_unique", "worse"]
+
+SEARCH_SEED = 20_261_202
+SOBOL_POINTS = 32
+COMPASS_ROUNDS = 6
+COMPASS_STEP = 0.25
+_TIE = 1e-3  # a searched row must beat the worst corner by more than this (relative margin; the
+# integration error of two separate runs) for the search to be named as finding it
+
+
+@dataclass
+class WorstCase:
+    """Every evaluated row of the tolerance box and the worst row of every check.
+
+    ``params``, ``fig`` and ``checks`` hold all rows (corners first, then the search);
+    ``source`` says per row "corner" or "search"; ``names`` the row in words; ``worst``
+    maps a check id to its worst row and ``found_by`` to what found it; ``corners`` is the
+    list of `corners.corner_set`.
+    """
+
+    params: RowParams
+    fig: dict
+    checks: dict
+    source: list[str]
+    names: list[str]
+    worst: dict[str, int]
+    found_by: dict[str, str]
+    corners: list[dict]
+    n_search: int = 0
+    budget: dict = field(default_factory=dict)
+
+
+def _expand(fig: dict, checks: dict, idx: np.ndarray, n_unique: int) -> tuple[dict, dict]:
+    def take(v):
+        if isinstance(v, np.ndarray) and v.ndim >= 1 and v.shape[0] == n_unique:
+            return v[idx]
+        return v
+
+    fig2 = {k: take(v) for k, v in fig.items()}
+    fig2["n"] = idx.shape[0]
+    checks2 = {cid: {k: take(v) for k, v in ch.items()} for cid, ch in checks.items()}
+    return fig2, checks2
+
+
+def evaluate_unique(rail: Rail, rules: dict, params: RowParams) -> tuple[dict, dict]:
+    """`evaluate_rows` on the distinct rows of ``params``, the figures spread back to every row."""
+    key = np.stack([getattr(params, k) for k in PARAMS], axis=1)
+    uniq, first, idx = np.unique(key, axis=0, return_index=True, return_inverse=True)
+    idx = idx.reshape(-1)
+    fig, checks, _ = evaluate_rows(rail, rules, params.take(first))
+    return _expand(fig, checks, idx, first.shape[0])
+
+
+def worse(sev_a, m_a, sev_b, m_b) -> np.ndarray:
+    """Whether row a is worse than row b: more severe, or as severe with a smaller margin."""
+    return (sev_a > sev_b) | ((sev_a == sev_b) & (m_a < m_b * (1.0 - _TIE)))
+
+
+class _Box:
+    """The tolerance box in coordinates scaled to [0, 1] per parameter with a spread."""
+
+    def __init__(self, rail: Rail, t_fault_range: tuple[float, float], with_timer: bool) -> None:
+        s, sw = rail.supply, rail.switch
+        self.fixed = {"v_s": s.v_nom, "c": rail.load.c_nom,
+                      "i_lim": sw.i_limit if sw.i_limit is not None else NO_LIMIT,
+                      "t_fault": t_fault_range[0]}
+        dims = []
+        if s.v_max > s.v_min:
+            dims.append(("v_s", s.v_min, s.v_max))
+        if rail.load.c_tol > 0:
+            dims.append(("c", rail.load.c_nom * (1 - rail.load.c_tol), rail.load.c_nom * (1 + rail.load.c_tol)))
+        if sw.i_limit is not None and sw.i_limit_tol > 0:
+            dims.append(("i_lim", sw.i_limit * (1 - sw.i_limit_tol), sw.i_limit * (1 + sw.i_limit_tol)))
+        lo_t, hi_t = t_fault_range
+        if with_timer and math.isfinite(hi_t) and hi_t > lo_t:
+            dims.append(("t_fault", lo_t, hi_t))
+        self.dims = dims
+
+    @property
+    def d(self) -> int:
+        return len(self.dims)
+
+    def params(self, u: np.ndarray) -> RowParams:
+        m = u.shape[0]
+        cols = {k: np.full(m, float(v)) for k, v in self.fixed.items()}
+        for j, (name, lo, hi) in enumerate(self.dims):
+            cols[name] = lo + u[:, j] * (hi - lo)
+        return RowParams(**cols)
+
+    def coords(self, params: RowParams) -> np.ndarray:
+        u = np.zeros((params.n, self.d))
+        for j, (name, lo, hi) in enumerate(self.dims):
+            u[:, j] = np.clip((getattr(params, name) - lo) / (hi - lo), 0.0, 1.0)
+        return u
+
+
+class _Pool:
+    """Every evaluated row so far (parameters, figures, checks, source, coordinates)."""
+
+    def __init__(self) -> None:
+        self.parts: list[tuple[RowParams, dict, dict, str, np.ndarray]] = []
+
+    def add(self, params: RowParams, fig: dict, checks: dict, source: str, u: np.ndarray) -> None:
+        self.parts.append((params, fig, checks, source, u))
+
+    def merged(self) -> tuple[RowParams, dict, dict, list[str], np.ndarray]:
+        params = RowParams.stack([p[0] for p in self.parts])
+        figs = [p[1] for p in self.parts]
+        fig = {}
+        for k, v in figs[0].items():
+            if isinstance(v, np.ndarray) and v.ndim >= 1:
+                fig[k] = np.concatenate([f[k] for f in figs])
+            else:
+                fig[k] = v
+        fig["n"] = params.n
+        checks = {cid: {k: np.concatenate([p[2][cid][k] for p in self.parts]) for k in self.parts[0][2][cid]}
+                  for cid in self.parts[0][2]}
+        source = [p[3] for p in self.parts for _ in range(p[0].n)]
+        u = np.concatenate([p[4] for p in self.parts], axis=0)
+        return params, fig, checks, source, u
+
+
+def _worst_rows(checks: dict, source: list[str]) -> tuple[dict, dict]:
+    """Each check's worst row (severity, then margin; a corner wins a tie) and its source."""
+    is_corner = np.array([s == "corner" for s in source])
+    worst, found = {}, {}
+    for spec in CHECKS:
+        ch = checks[spec.id]
+        sev, mu = ch["verdict"].astype(int), ch["margin"]
+        best = None
+        for j in range(sev.shape[0]):
+            if best is None or worse(sev[j], mu[j], sev[best], mu[best]):
+                best = j
+        # a corner as bad as the searched row (within the tie tolerance) names the case
+        if not is_corner[best]:
+            rival = [j for j in np.nonzero(is_corner)[0] if not worse(sev[best], mu[best], sev[j], mu[j])]
+            if rival:
+                best = min(rival, key=lambda j: (-sev[j], mu[j]))
+        worst[spec.id] = int(best)
+        found[spec.id] = "corner" if is_corner[best] else "search"
+    return worst, found
+
+
+def find_worst_case(rail: Rail, rules: dict, *, t_fault_range: tuple[float, float],
+                    progress=None) -> WorstCase:
+    """The worst case of every check over the corners and a search inside the tolerance box.
+
+    Parameters
+    ----------
+    rail : Rail
+    rules : dict
+        Team rules.
+    t_fault_range : (float, float)
+        Shortest and longest fault-timer trip time, s (inf, inf without a timer).
+    progress : callable, optional
+        Called with the fraction done (0 .. 1); an exception it raises propagates.
+
+    Returns
+    -------
+    WorstCase
+    """
+    report = progress or (lambda x: None)
+    report(0.0)
+    cs = corner_set(rail)
+    cp = corner_params(cs)
+    fig_c, checks_c = evaluate_unique(rail, rules, cp)
+    tripping = np.isin(fig_c["status"], (STATUS_TRIPPED, STATUS_RETRIED, STATUS_RETRY_EXHAUSTED))
+    box = _Box(rail, t_fault_range, with_timer=bool(tripping.any()))
+    pool = _Pool()
+    pool.add(cp, fig_c, checks_c, "corner", box.coords(cp))
+    report(0.2)
+    n_search = 0
+    live = [cid for cid in STARTUP_CHECKS if np.any(checks_c[cid]["verdict"] != NA)]
+    if box.d and live:
+        u = qmc.Sobol(box.d, scramble=True, seed=SEARCH_SEED).random(SOBOL_POINTS)
+        sp = box.params(u)
+        fig_s, checks_s = evaluate_unique(rail, rules, sp)
+        pool.add(sp, fig_s, checks_s, "search", u)
+        n_search += sp.n
+        report(0.35)
+        n_search += _compass(rail, rules, box, pool, live, report)
+    params, fig, checks, source, _ = pool.merged()
+    worst, found = _worst_rows(checks, source)
+    names = [c["name"] for c in cs] + [
+        point_words(rail, params.v_s[j], params.c[j], params.i_lim[j], params.t_fault[j])
+        for j in range(len(cs), params.n)]
+    report(1.0)
+    return WorstCase(params=params, fig=fig, checks=checks, source=source, names=names, worst=worst,
+                     found_by=found, corners=cs, n_search=n_search,
+                     budget={"sobol_points": SOBOL_POINTS if box.d and live else 0, "compass_rounds": COMPASS_ROUNDS,
+                             "compass_step": COMPASS_STEP, "seed": SEARCH_SEED,
+                             "parameters": [d[0] for d in box.dims]})
+
+
+def _compass(rail: Rail, rules: dict, box: _Box, pool: _Pool, live: list[str], report) -> int:
+    """Rounds of compass search from each live check's worst row; returns the rows evaluated."""
+    _, _, checks, _, coords = pool.merged()
+    current, key, step = {}, {}, {}
+    for cid in live:
+        sev, mu = checks[cid]["verdict"].astype(int), checks[cid]["margin"]
+        j = int(np.lexsort((mu, -sev))[0])
+        current[cid], key[cid], step[cid] = coords[j].copy(), (int(sev[j]), float(mu[j])), COMPASS_STEP
+    evaluated = 0
+    for k in range(COMPASS_ROUNDS):
+        cand, owner = [], []
+        for cid in live:
+            for j in range(box.d):
+                for sign in (1.0, -1.0):
+                    u = current[cid].copy()
+                    u[j] = min(max(u[j] + sign * step[cid], 0.0), 1.0)
+                    if u[j] != current[cid][j]:
+                        cand.append(u)
+                        owner.append(cid)
+        if not cand:
+            break
+        u_all = np.array(cand)
+        params = box.params(u_all)
+        fig, chk = evaluate_unique(rail, rules, params)
+        pool.add(params, fig, chk, "search", u_all)
+        evaluated += params.n
+        for cid in live:
+            rows = [r for r, o in enumerate(owner) if o == cid]
+            if not rows:
+                step[cid] *= 0.5
+                continue
+            sev, mu = chk[cid]["verdict"].astype(int), chk[cid]["margin"]
+            b = min(rows, key=lambda r: (-sev[r], mu[r]))
+            if worse(sev[b], mu[b], *key[cid]):
+                current[cid], key[cid] = u_all[b].copy(), (int(sev[b]), float(mu[b]))
+            else:
+                step[cid] *= 0.5
+        report(0.35 + 0.65 * (k + 1) / COMPASS_ROUNDS)
+    return evaluated

@@ -1,0 +1,327 @@
+"""The analysis result as typed models: what `server.analysis.analyze_rail` returns, and the
+stored result the API answers with.
+
+One model per part of the result (DESIGN.md section 4). Every number is SI (temperatures
+in degC); ``None`` stands where a figure does not exist or is unbounded. The models forbid
+unknown keys, so a test that validates the engine's output against them keeps the two in
+step. Results of older engine versions keep the shape of their time: the API answers them
+as `LegacyResult` (any keys, marked by their engine version).
+
+Provides :class:`AnalysisResult`, :class:`CheckRecord`, :class:`StoredResult` and the
+models of each section.
+"""
+
+from __future__ import annotations
+
+from typing import Annotated, Any, Literal, Union
+
+from pydantic import BaseModel, ConfigDict, Field
+
+__all__ = ["Verdict", "CheckRecord", "NominalReading", "Point", "KeyFigure", "Waveforms", "StartupSection",
+           "ShortCircuitSection", "TimerSection", "RetrySection", "SteadySection", "HeadroomFigure", "Headroom",
+           "WorstCaseSummary", "CornerEntry", "MonteCarloCheck", "MonteCarloFlag", "MonteCarlo", "AnalysisResult",
+           "LegacyResult", "StoredResult"]
+
+Verdict = Literal["pass", "marginal", "fail", "n/a"]
+Number = float | None
+
+
+class _Model(BaseModel):
+    model_config = ConfigDict(extra="forbid")
+
+
+class Point(_Model):
+    """A point of the tolerance box."""
+
+    v_s: float = Field(description="supply, V")
+    c: float = Field(description="load capacitance, F")
+    i_limit: Number = Field(description="current limit, A (none: no limit)")
+    t_fault: Number = Field(description="fault-timer trip time, s (none: no timer)")
+
+
+class NominalReading(_Model):
+    value: Number
+    verdict: Verdict
+    margin: Number
+
+
+class CheckRecord(_Model):
+    """One check, computed once: the sign-off reading, its nominal reading and where its worst case lies."""
+
+    id: str = Field(description="stable id, for programs")
+    title: str = Field(description="what the check says, for people")
+    verdict: Verdict
+    value: Number = Field(description="the sign-off value (the worst case; the nominal one for a nominal analysis)")
+    limit: Number = Field(description="the team's limit (or the physical one where the check has no team margin)")
+    edge: Number = Field(description="the bare physical edge")
+    unit: str = Field(description="V, A, degC or ratio")
+    direction: Literal[">=", "<="] | None = Field(description="the value must stay at or above (>=) or at or "
+                                                              "below (<=) its limit; none for a pass/fail flag")
+    margin: Number = Field(description="normalised margin: 1.0 at the team's limit, >= 1 where it passes "
+                                       "(none: does not apply, or unbounded)")
+    margin_edge: Number = Field(description="the physical edge on the same normalised scale")
+    basis: Literal["standard", "common practice", "physical limit"]
+    nominal: NominalReading
+    corner: str | None = Field(description="the worst case's point of the tolerance box in words")
+    found_by: Literal["corner", "search", "nominal"] | None
+    point: Point | None
+    detail: str = Field(description="why the value reads as it does, in words")
+
+
+class KeyFigure(_Model):
+    id: str
+    title: str
+    unit: str
+    worse: Literal["max", "min"]
+    nominal: Number
+    worst: Number
+    corner: str | None
+    found_by: Literal["corner", "search"] | None
+
+
+class Waveforms(_Model):
+    t: list[Number]
+    v_out: list[Number]
+    i: list[Number]
+    v_ds: list[Number]
+    p_fet: list[Number]
+    tj: list[Number]
+    v_in: list[Number] | None = None
+    on: list[Number] | None = None
+
+
+class StartupSection(_Model):
+    """The start-up at the nominal point: what happens, with the fault timer acting."""
+
+    status: str
+    complete: bool
+    attempts: int
+    t_trip: Number
+    i_peak: Number
+    t_i_peak: Number
+    t_limit: Number
+    t_settle: Number
+    e_fet: Number
+    p_fet_peak: Number
+    tj_peak: Number
+    v_supply_min: Number
+    t_below_uvlo: Number
+    dip_unbounded: bool
+    uvlo_deglitch: Number
+    c_in: Number
+    v_final: Number
+    v_target: Number
+    v_stall: Number
+    pulse_t_equiv: Number
+    pulse_p_peak: Number
+    pulse_e: Number
+    pulse_v_ds: Number
+    pulse_i: Number
+    pulse_tj_start: Number
+    soa_i_allowed: Number
+    soa_ratio: Number
+    t_end: Number
+    steps: int
+    waveforms: Waveforms | None
+
+
+class ShortCircuitSection(_Model):
+    applies: bool
+    v_ds: Number = None
+    i: Number = None
+    p: Number = None
+    t_soa: Number = None
+    t_thermal: Number = None
+    t_allow: Number = None
+    t_fault: Number = None
+    margin: Number = None
+    limited_by: Literal["soa", "thermal"] | None = None
+    survives_indefinitely: bool | None = None
+
+
+class TimerSection(_Model):
+    t_fault_min: float
+    t_fault_nom: float
+    t_fault_max: float
+    t_limit_worst: Number
+    t_limit_corner: str | None
+    startup_margin: Number
+    c_lo: Number
+    c_hi: Number
+    c_window: list[Number] | None
+    c_suggested: Number
+    window_note: str | None
+
+
+class RetrySection(_Model):
+    duty: Number
+    p_avg: Number
+    tj_peak: Number
+    tj_valley: Number
+    period: Number
+
+
+class SteadySection(_Model):
+    i: Number
+    p_fet: Number
+    tj: Number
+    v_drop: Number
+    stable: bool
+
+
+class Excluded(_Model):
+    id: str
+    title: str
+
+
+class HeadroomFigure(_Model):
+    title: str
+    unit: str
+    value: Number
+    present: Number
+    status: Literal["found", "fails", "unbounded", "fails_everywhere", "not_settled", "not_applicable",
+                    "not_computed"]
+    check: str | None
+    check_title: str | None
+    note: str
+    excluded: list[Excluded] | None = None
+    trials: int | None = None
+
+
+class Headroom(_Model):
+    c_max: HeadroomFigure
+    limit_max: HeadroomFigure
+
+
+class SearchBudget(_Model):
+    sobol_points: int
+    compass_rounds: int
+    compass_step: float
+    seed: int
+    parameters: list[str]
+
+
+class WorstCaseSummary(_Model):
+    basis: Literal["worst case", "nominal"]
+    corners: int
+    search_points: int
+    budget: SearchBudget | None
+    found_by_search: list[str]
+
+
+class CornerEntry(_Model):
+    name: str
+    params: dict[str, Number]
+    figures: dict[str, Number]
+    verdict: Verdict
+    worst_for: list[str]
+
+
+class Percentiles(_Model):
+    p01: float
+    p05: float
+    p50: float
+    p95: float
+    p99: float
+    min: float
+    max: float
+
+
+class Histogram(_Model):
+    edges: list[float]
+    counts: list[int]
+    total: int
+
+
+class Beaten(_Model):
+    samples: int
+    margin: Number
+    verdict: Verdict
+    worst_case_margin: Number
+    worst_case_verdict: Verdict
+    point: str
+
+
+class MonteCarloCheck(_Model):
+    title: str
+    unit: str
+    sense: str
+    applies: int
+    fail_share: float
+    marginal_share: float
+    pass_share: float
+    value: Percentiles | None
+    margin: Percentiles | None
+    margin_edge: Number
+    worst_case_margin: Number
+    histogram: Histogram | None
+    beaten: Beaten | None
+
+
+class MonteCarloFlag(Beaten):
+    check: str
+    title: str
+
+
+class MonteCarlo(_Model):
+    n: int
+    seed: int
+    distributions: dict[str, Literal["uniform", "normal"]]
+    yield_: float = Field(alias="yield")
+    yield_ci95: list[float]
+    yield_no_fail: float
+    yield_no_fail_ci95: list[float]
+    checks: dict[str, MonteCarloCheck]
+    flags: list[MonteCarloFlag]
+    flag_tolerance: float
+
+    model_config = ConfigDict(extra="forbid", populate_by_name=True, serialize_by_alias=True)
+
+
+class AnalysisResult(_Model):
+    """The whole result of one analysis of one rail revision."""
+
+    engine_version: str
+    name: str
+    verdict: Verdict
+    basis: Literal["worst case", "nominal"] = Field(description="worst case: the sign-off basis; nominal: a quick "
+                                                                "look that is not a sign-off verdict")
+    signoff: bool
+    checks: list[CheckRecord]
+    figures: list[KeyFigure]
+    startup: StartupSection
+    short_circuit: ShortCircuitSection
+    timer: TimerSection | None
+    retry: RetrySection | None
+    steady: SteadySection
+    headroom: Headroom
+    worst_case: WorstCaseSummary
+    corners: list[CornerEntry] | None = None
+    monte_carlo: MonteCarlo | None = None
+    rules: dict[str, float]
+    conventions: list[str]
+    notes: list[str]
+    caution: str
+
+
+class LegacyResult(BaseModel):
+    """A result stored by an older engine version, in the shape of its time."""
+
+    model_config = ConfigDict(extra="allow")
+    engine_version: str
+
+
+class StoredResult(_Model):
+    """A stored result: which revision and engine computed it, and the result itself."""
+
+    id: int
+    rail_id: int | None
+    revision: int | None
+    sha256: str
+    engine_version: str
+    options: dict[str, Any]
+    verdict: str
+    duration_s: float
+    created_at: str
+    current_engine: bool = Field(description="false: computed by an older engine version (outdated)")
+    result: Annotated[Union[AnalysisResult, LegacyResult], Field(union_mode="left_to_right")] | None = None
