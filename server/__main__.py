@@ -237,9 +237,20 @@ def cmd_token(args: argparse.Namespace) -> int:
     return EXIT_OK
 
 
+def _distribution_arg(text: str) -> str | dict[str, str]:
+    """``uniform``, ``normal`` or ``PARAM=KIND,...`` (e.g. ``c=normal,i_limit=normal``)."""
+    if "=" not in text:
+        return text
+    out = {}
+    for part in text.split(","):
+        key, _, kind = part.partition("=")
+        out[key.strip()] = kind.strip()
+    return out
+
+
 def cmd_analyze(args: argparse.Namespace) -> int:
     """Analyse a rail document file without any database: report, JSON, exit 1 when a check fails."""
-    from server.analysis import AnalysisError, DocumentError, analyze_rail, format_report
+    from server.analysis import DocumentError, analyze_rail, format_report
     from server.schemas.rail import normalize
     from server.schemas.validation import DocumentInvalid, parse_rail_document
 
@@ -254,12 +265,11 @@ def cmd_analyze(args: argparse.Namespace) -> int:
         def progress(fraction: float) -> None:
             print(f"\rMonte Carlo {fraction:6.1%}", end="", file=sys.stderr, flush=True)
     try:
-        result = analyze_rail(document, corners=args.corners, monte_carlo=args.monte_carlo, seed=args.seed,
-                              distribution=args.distribution, waveforms=args.waveforms, progress=progress)
-    except DocumentError as exc:
+        result = analyze_rail(document, corners=not args.nominal, monte_carlo=args.monte_carlo, seed=args.seed,
+                              distribution=_distribution_arg(args.distribution), waveforms=args.waveforms,
+                              progress=progress)
+    except (DocumentError, ValueError) as exc:
         raise CliError(f"{args.file}: {exc}") from None
-    except AnalysisError as exc:
-        raise CliError(f"{args.file}: the analysis could not be completed: {exc}") from None
     if progress:
         print(file=sys.stderr)
     if args.json:
@@ -385,11 +395,16 @@ def build_parser() -> argparse.ArgumentParser:
     p = command("analyze", cmd_analyze, "analyse a rail document file (no database needed)")
     p.add_argument("file", help="rail document (JSON), or - for standard input")
     p.add_argument("--json", action="store_true", help="print one JSON object (SI units) instead of the report")
-    p.add_argument("--corners", action="store_true", help="also run every tolerance corner")
+    p.add_argument("--nominal", action="store_true",
+                   help="the nominal point only: a quick look, not a sign-off verdict (default: the worst case over "
+                        "the tolerance corners and a search inside the tolerance box, as the pages show)")
+    p.add_argument("--corners", action="store_true", help=argparse.SUPPRESS)  # the default now; kept for old scripts
     p.add_argument("--monte-carlo", type=int, default=0, metavar="N", help="Monte Carlo samples (default 0)")
     p.add_argument("--seed", type=int, default=0, help="random seed of the Monte Carlo run")
-    p.add_argument("--distribution", choices=["uniform", "normal"], default="uniform",
-                   help="uniform within tolerance, or normal with the tolerance as 3 sigma")
+    p.add_argument("--distribution", default="uniform",
+                   help="Monte Carlo distribution: uniform (within the tolerance) or normal (the tolerance as 3 "
+                        "sigma, truncated to it) for every parameter, or per parameter as PARAM=KIND,... with "
+                        "PARAM one of v_s, c, i_limit, timer_c, i_charge, v_trip (the others uniform)")
     p.add_argument("--waveforms", action="store_true", help="include the start-up waveforms in --json")
 
     p = command("worker", cmd_worker, "run analysis jobs from the database queue until stopped")

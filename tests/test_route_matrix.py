@@ -101,6 +101,7 @@ ROUTES: list[tuple[str, str, str]] = [
     ("POST",   "/api/v1/jobs/{job_id}/retry",                       P.ANALYZE),
     ("GET",    "/api/v1/rails/{rail_id}/results/latest",            P.READ),
     ("GET",    "/api/v1/rails/{rail_id}/revisions/{n}/results",     P.READ),
+    ("GET",    "/api/v1/results/{result_id}",                       P.READ),
     ("GET",    "/api/v1/audit",                                     P.ADMIN),
     ("GET",    "/api/v1/me",                                        P.READ),
     ("GET",    "/api/v1/tokens",                                    P.READ),

@@ -33,8 +33,8 @@ from .checks import CHECKS, NA, SEVERITY, SPECS, VERDICTS, check_detail, edge_ma
 from .circuit import NO_LIMIT
 from .document import Rail, read_rail
 from .evaluation import RowParams, evaluate_rows, nominal_point
-from .headroom import capacitance_headroom, limit_headroom
-from .montecarlo import run_monte_carlo
+from .headroom import basis_rows, capacitance_headroom, limit_headroom
+from .montecarlo import distributions_for, run_monte_carlo
 from .soa import CONVENTION as SOA_CONVENTION
 from .startup import (STATUS_NO_CONVERGENCE, STATUS_OK, STATUS_RETRIED, STATUS_RETRY_EXHAUSTED, STATUS_RUNAWAY,
                       STATUS_STALLED, STATUS_TRIPPED)
@@ -202,16 +202,25 @@ def _startup_section(rail: Rail, fig: dict, st, waveforms: bool) -> dict:
     }
 
 
-def _short_circuit_section(rail: Rail, fig: dict) -> dict:
-    if not fig["has_limit"]:
-        return {"applies": False}
-    g = lambda k: fig[k][0]  # noqa: E731
+def _short_circuit_point(fig: dict, row: int) -> dict:
+    g = lambda k: fig[k][row]  # noqa: E731
     by = None
     if math.isfinite(g("sc_t_allow")):
         by = "soa" if g("sc_t_soa") <= g("sc_t_thermal") else "thermal"
-    return {"applies": True, "v_ds": g("sc_v_ds"), "i": g("sc_i"), "p": g("sc_p"), "t_soa": g("sc_t_soa"),
+    return {"v_ds": g("sc_v_ds"), "i": g("sc_i"), "p": g("sc_p"), "t_soa": g("sc_t_soa"),
             "t_thermal": g("sc_t_thermal"), "t_allow": g("sc_t_allow"), "t_fault": _num(g("t_fault")),
             "margin": g("sc_margin"), "limited_by": by, "survives_indefinitely": not math.isfinite(g("sc_t_allow"))}
+
+
+def _short_circuit_section(fig_n: dict, wc: WorstCase | None) -> dict:
+    """The output short circuit at the nominal point, and at the short-circuit check's worst case."""
+    if not fig_n["has_limit"]:
+        return {"applies": False}
+    out = {"applies": True, **_short_circuit_point(fig_n, 0), "worst": None}
+    if wc is not None:
+        row = wc.worst["short_circuit_time"]
+        out["worst"] = {**_short_circuit_point(wc.fig, row), "corner": wc.names[row]}
+    return out
 
 
 def _timer_section(rail: Rail, rules: dict, fig_n: dict, wc: WorstCase | None, times: tuple) -> dict | None:
@@ -224,13 +233,19 @@ def _timer_section(rail: Rail, rules: dict, fig_n: dict, wc: WorstCase | None, t
     t_need = np.asarray(src["t_limit"], dtype=float)
     complete_free = np.isfinite(t_need)
     out = {"t_fault_min": t_min, "t_fault_nom": t_nom, "t_fault_max": t_max, "t_limit_worst": None,
-           "t_limit_corner": None, "startup_margin": None}
+           "t_limit_corner": None, "startup_margin": None, "trip_not_before": None, "trip_by": None,
+           "t_allow_worst": None}
+    allow = np.asarray(src["sc_t_allow"], dtype=float) if src["has_limit"] else np.array([math.inf])
+    t_allow = float(np.min(allow))
+    if math.isfinite(t_allow):
+        # the short circuit must be cleared by this time, with the team's fault margin
+        out.update(t_allow_worst=t_allow, trip_by=t_allow / rules["fault_margin"])
     if complete_free.all():
         j = int(np.argmax(t_need))
         out.update(t_limit_worst=float(t_need[j]), t_limit_corner=names[j],
-                   startup_margin=(t_min / t_need[j]) if t_need[j] > 0 else None)
-        allow = np.asarray(src["sc_t_allow"], dtype=float) if src["has_limit"] else np.array([math.inf])
-        win = timer_window(timer, t_limit_worst=float(t_need[j]), t_allow=float(np.min(allow)),
+                   startup_margin=(t_min / t_need[j]) if t_need[j] > 0 else None,
+                   trip_not_before=rules["timer_margin"] * float(t_need[j]))
+        win = timer_window(timer, t_limit_worst=float(t_need[j]), t_allow=t_allow,
                            timer_margin=rules["timer_margin"], fault_margin=rules["fault_margin"])
     else:
         win = {"c_lo": None, "c_hi": None, "c_window": None, "c_suggested": None,
@@ -264,10 +279,7 @@ def _headroom(rail: Rail, rules: dict, nominal: tuple[dict, dict], wc: WorstCase
     if wc is None:
         base, owner, start = nominal_point_of(fig_n), {s.id: 0 for s in CHECKS}, checks_n
     else:
-        rows = sorted({wc.worst[s.id] for s in CHECKS})
-        base = wc.params.take(np.array(rows))
-        owner = {s.id: rows.index(wc.worst[s.id]) for s in CHECKS}
-        start = {cid: {k: v[np.array(rows)] for k, v in ch.items()} for cid, ch in wc.checks.items()}
+        base, owner, start = basis_rows(wc.params, wc.checks, wc.worst)
     c = capacitance_headroom(rail, rules, base, owner, start, fig_n)
     v_sc = rail.supply.v_max
     lim = limit_headroom(rail, rules, v_sc=v_sc, t_fault=t_fault_max)
@@ -448,6 +460,7 @@ def analyze_rail(
     rules_used = rail.rules
     if isinstance(monte_carlo, bool) or not isinstance(monte_carlo, (int, np.integer)) or monte_carlo < 0:
         raise ValueError("monte_carlo: must be a whole number >= 0")
+    distribution = distributions_for(distribution)
     timer = rail.switch.timer
     times = fault_times(timer) if timer is not None else (math.inf, math.inf, math.inf)
 
@@ -468,7 +481,7 @@ def analyze_rail(
         "checks": records,
         "figures": _key_figures(fig_n, wc),
         "startup": _startup_section(rail, fig_n, st_n, waveforms),
-        "short_circuit": _short_circuit_section(rail, fig_n),
+        "short_circuit": _short_circuit_section(fig_n, wc),
         "timer": _timer_section(rail, rules_used, fig_n, wc, times),
         "retry": _retry_section(rail, fig_n),
         "steady": _steady_section(fig_n),

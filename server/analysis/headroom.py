@@ -74,7 +74,7 @@ from .soa import allowed_current
 from .startup import STATUS_OK
 from .thermal import foster_arrays, zth
 
-__all__ = ["capacitance_headroom", "limit_headroom", "C_TOL", "M_TOL"]
+__all__ = ["capacitance_headroom", "limit_headroom", "basis_rows", "C_TOL", "M_TOL"]
 
 _SPECS = {c.id: c for c in CHECKS}
 _MAX_TRIALS = 30
@@ -92,6 +92,20 @@ def _log_margin(m: float) -> float:
     if not math.isfinite(m):
         return _G_CAP
     return min(max(math.log(m), -_G_CAP), _G_CAP)
+
+
+def basis_rows(params: RowParams, checks: dict, worst: dict[str, int]) -> tuple[RowParams, dict, dict]:
+    """The rows a capacitance search reads each check at: the distinct worst rows of the
+    checks (``worst``: check id -> row of ``params`` / ``checks``).
+
+    Returns ``(base, owner, start)``: the rows, check id -> row of ``base``, and the checks
+    of ``base`` as evaluated (the search's first point).
+    """
+    rows = sorted(set(worst.values()))
+    idx = np.array(rows)
+    owner = {cid: rows.index(row) for cid, row in worst.items()}
+    start = {cid: {k: v[idx] for k, v in ch.items()} for cid, ch in checks.items()}
+    return params.take(idx), owner, start
 
 
 def _c_margins(rail: Rail, rules: dict, base: RowParams, owner: dict, scale: float) -> dict:

@@ -12,6 +12,7 @@ from server.auth import CurrentActor, require
 from server.db import SessionDep
 from server.models import JobState
 from server.schemas.api import AnalysisRequest, BoardAnalysisRequest
+from server.schemas.result import StoredResult
 from server.services import results
 from server.services.access import Actor, Permission
 from server.services.rails import get_revision
@@ -83,14 +84,20 @@ def _revision_results(session, actor, rail_id: int, n: int | None, kind: str) ->
     return results.result_dict(row, rail_id=rail_id, revision=rev.n)
 
 
-@router.get("/rails/{rail_id}/results/latest")
+@router.get("/rails/{rail_id}/results/latest", response_model=StoredResult)
 def latest_results(rail_id: int, session: SessionDep, actor: CurrentActor,
                    kind: Literal["nominal", "monte_carlo"] = "nominal") -> dict:
     """The newest result of the rail's current revision (nominal+corners, or the newest Monte Carlo run)."""
     return _revision_results(session, actor, rail_id, None, kind)
 
 
-@router.get("/rails/{rail_id}/revisions/{n}/results")
+@router.get("/rails/{rail_id}/revisions/{n}/results", response_model=StoredResult)
 def revision_results(rail_id: int, n: int, session: SessionDep, actor: CurrentActor,
                      kind: Literal["nominal", "monte_carlo"] = "nominal") -> dict:
     return _revision_results(session, actor, rail_id, n, kind)
+
+
+@router.get("/results/{result_id}", response_model=StoredResult)
+def get_result(result_id: int, session: SessionDep, actor: CurrentActor) -> dict:
+    """A stored result by id (the link a finished job gives)."""
+    return results.get_result(session=session, actor=actor, result_id=result_id)

@@ -29,7 +29,7 @@ def supply_text(supply: dict[str, Any]) -> str:
 
 
 def _row(r: dict[str, Any], so: dict[str, Any]) -> dict[str, Any]:
-    worst = worst_check(r["checks"], r["t_ambient"])
+    worst = worst_check(r["checks"])
     return {
         "id": r["id"], "name": r["name"], "mode": r["mode"], "head_n": r["head_n"],
         "supply": supply_text(r["supply"]), "supply_sort": r["supply"].get("v_nom") or 0,

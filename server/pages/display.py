@@ -1,14 +1,14 @@
-"""How results read on the pages: verdict words and styles, check rows, margins, input listings.
+"""How results read on the pages: verdict words and styles, check rows, input listings.
 
 Provides
 --------
 VERDICT_STYLES, verdict_style(verdict)
     Every verdict's word, its CSS class and a shape, kept together in one place: a verdict
     is always shown in words as well as colour.
-check_sense(check_id), check_margin(check, t_ambient)
-    Which way a check's limit points, and a normalised margin (>= 1: inside the team limit).
-check_rows(checks, t_ambient), worst_check(checks, t_ambient)
-    The checks table of the rail page, and the check with the least margin.
+check_row(check), check_rows(checks), worst_check(checks), check_text(check)
+    A check record of the analysis as the pages show it. Everything comes from the record
+    (value, limit with its direction, normalised margin, nominal reading, worst case in
+    words) through the same formatters as the command-line report: nothing is recomputed.
 input_sections(document)
     The rail document as labelled sections of engineering-notation values.
 """
@@ -17,13 +17,13 @@ from __future__ import annotations
 
 import math
 from dataclasses import dataclass
-from functools import lru_cache
 from typing import Any
 
+from server.analysis.report import limit_text, margin_text, value_text
 from server.units import format_quantity
 
-__all__ = ["VerdictStyle", "VERDICT_STYLES", "VERDICT_ORDER", "verdict_style", "check_sense", "check_margin",
-           "check_rows", "worst_check", "fmt", "input_sections", "BASIS_TEXT", "UNIT_KIND"]
+__all__ = ["VerdictStyle", "VERDICT_STYLES", "VERDICT_ORDER", "verdict_style", "check_row", "check_rows",
+           "worst_check", "check_text", "fmt", "input_sections", "BASIS_TEXT", "UNIT_TEXT"]
 
 
 @dataclass(frozen=True)
@@ -49,10 +49,9 @@ BASIS_TEXT = {
     "common practice": "common practice, not a standard",
     "physical limit": "physical limit",
 }
-
-# unit of a check (as the analysis names it) -> quantity kind of server.units
-UNIT_KIND = {"V": "V", "A": "A", "degC": "degC", "ratio": "ratio", "s": "s", "K": "K", "W": "W", "J": "J",
-             "F": "F"}
+# unit of a check as people read it
+UNIT_TEXT = {"ratio": "ratio", "degC": "\u00b0C"}
+FOUND_BY_TEXT = {"corner": "tolerance corner", "search": "search inside the tolerance box", "nominal": "nominal point"}
 
 
 def verdict_style(verdict: str | None) -> VerdictStyle:
@@ -62,77 +61,45 @@ def verdict_style(verdict: str | None) -> VerdictStyle:
 fmt = format_quantity  # engineering notation of an SI value for display; '-' when there is none
 
 
-@lru_cache(maxsize=1)
-def _specs() -> dict[str, Any]:
-    from server.analysis import CHECKS
-
-    return {c.id: c for c in CHECKS}
-
-
-def check_sense(check_id: str) -> str:
-    """'at_least', 'at_most' or 'flag' (unknown checks read as flags)."""
-    spec = _specs().get(check_id)
-    return spec.sense if spec is not None else "flag"
-
-
-def check_margin(check: dict[str, Any], t_ambient: float | None = None) -> float | None:
-    """How far a check sits inside its limit, as a ratio: >= 1 within the team limit, < 1 beyond it.
-
-    at_least: value / limit. at_most: limit / value, and for temperatures the allowed rise
-    over the ambient against the actual rise. Flags and missing values have no margin (None).
-    """
-    value, limit = check.get("value"), check.get("limit")
-    if value is None or limit is None:
-        return None
-    sense = check_sense(check["id"])
-    if sense == "at_least":
-        return value / limit if limit > 0 else None
-    if sense == "at_most":
-        if check.get("unit") == "degC":
-            if t_ambient is None:
-                return None
-            rise = value - t_ambient
-            return (limit - t_ambient) / rise if rise > 0 else None
-        return limit / value if value > 0 else None
-    return None
+def check_row(c: dict[str, Any]) -> dict[str, Any]:
+    """One check record as the pages show it (texts from the record, nothing recomputed)."""
+    unit = c.get("unit") or ""
+    nominal = c.get("nominal") or {}
+    margin = c.get("margin")
+    return {
+        "id": c["id"], "title": c.get("title", c["id"]), "verdict": c.get("verdict"),
+        "value": value_text(c.get("value"), unit), "limit": limit_text(c),
+        "unit": UNIT_TEXT.get(unit, unit), "margin": margin, "margin_text": margin_text(margin),
+        "basis": c.get("basis", ""), "basis_text": BASIS_TEXT.get(c.get("basis", ""), c.get("basis", "")),
+        "detail": c.get("detail") or "", "corner": c.get("corner"), "found_by": c.get("found_by"),
+        "found_by_text": FOUND_BY_TEXT.get(c.get("found_by") or "", ""),
+        "nominal_value": value_text(nominal.get("value"), unit), "nominal_verdict": nominal.get("verdict"),
+    }
 
 
-def _limit_text(check: dict[str, Any]) -> str:
-    kind = UNIT_KIND.get(check.get("unit") or "", "ratio")
-    if check.get("limit") is None:
-        return "-"
-    sign = {"at_least": "\u2265 ", "at_most": "\u2264 "}.get(check_sense(check["id"]), "")
-    return sign + fmt(check["limit"], kind)
-
-
-def check_rows(checks: list[dict[str, Any]], t_ambient: float | None = None) -> list[dict[str, Any]]:
+def check_rows(checks: list[dict[str, Any]] | None) -> list[dict[str, Any]]:
     """The rows of the checks table, in the analysis' order."""
-    rows = []
-    for c in checks:
-        kind = UNIT_KIND.get(c.get("unit") or "", "ratio")
-        margin = check_margin(c, t_ambient)
-        rows.append({
-            "id": c["id"], "title": c.get("title", c["id"]), "verdict": c.get("verdict"),
-            "value": fmt(c.get("value"), kind), "limit": _limit_text(c),
-            "unit": {"ratio": "ratio", "degC": "\u00b0C"}.get(kind, c.get("unit") or ""),
-            "basis": c.get("basis", ""), "basis_text": BASIS_TEXT.get(c.get("basis", ""), c.get("basis", "")),
-            "detail": c.get("detail") or "", "corner": c.get("corner"),
-            "margin": margin, "margin_text": "-" if margin is None else f"{margin:.3g}\u00d7",
-        })
-    return rows
+    return [check_row(c) for c in checks or []]
 
 
-def worst_check(checks: list[dict[str, Any]] | None, t_ambient: float | None = None) -> dict[str, Any] | None:
-    """The check to look at first, as a row of the checks table: the worst verdict, then the smallest margin."""
+def check_text(c: dict[str, Any]) -> str:
+    """A check in one line: "title: value (limit ≥ 1.5)"."""
+    row = check_row(c)
+    return f"{row['title']}: {row['value']} (limit {row['limit']})"
+
+
+def worst_check(checks: list[dict[str, Any]] | None) -> dict[str, Any] | None:
+    """The check to look at first, as a row of the checks table: the worst verdict, then the
+    smallest normalised margin of the record."""
     candidates = [c for c in checks or [] if c.get("verdict") != "n/a"]
     if not candidates:
         return None
 
     def key(c: dict[str, Any]) -> tuple[int, float]:
-        m = check_margin(c, t_ambient)
+        m = c.get("margin")
         return (-verdict_style(c.get("verdict")).severity, m if m is not None and math.isfinite(m) else math.inf)
 
-    return check_rows([min(candidates, key=key)], t_ambient)[0]
+    return check_row(min(candidates, key=key))
 
 
 # (section title, document key, [(label, field, kind)])

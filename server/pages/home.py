@@ -35,7 +35,7 @@ def product_context(session: Session, actor: Actor, product_id: int) -> dict[str
     for b in data["boards"]:
         b["counts"] = _ordered_counts(b["by_verdict"])
     for a in data["attention"]:
-        a["worst"] = worst_check(a["checks"], a["t_ambient"])
+        a["worst"] = worst_check(a["checks"])
     data["counts"] = _ordered_counts(data["by_verdict"])
     data["states"] = sorted(signoff_view.product_states(session, product_id, data["product"].team_id).items())
     return data

@@ -84,8 +84,10 @@ def _vline(x: float, colour: str, xref: str = "x", yref: str = "paper", dash: st
 
 # --- start-up waveforms --------------------------------------------------------------------
 
-_ROWS = [("v_out", "Output voltage", "V"), ("i", "Current", "A"), ("p_fet", "FET power", "W"),
+_ROWS = [("v_out", "Voltage", "V"), ("i", "Current", "A"), ("p_fet", "FET power", "W"),
          ("tj", "Junction temperature", "\u00b0C")]
+_TRACE_NAMES = {"v_out": "Output voltage", "v_in": "Switch input voltage", "i": "Switch current",
+                "p_fet": "FET power", "tj": "Junction temperature"}
 
 
 def _stacked_axes(rows: int, gap: float = 0.05) -> list[list[float]]:
@@ -93,14 +95,44 @@ def _stacked_axes(rows: int, gap: float = 0.05) -> list[list[float]]:
     return [[round(1 - (k + 1) * h - k * gap, 4), round(1 - k * (h + gap), 4)] for k in range(rows)]
 
 
+def _off_intervals(wave: dict[str, Any]) -> list[tuple[float, float]]:
+    """Times where the switch is off (the fault timer turned it off), from the waveform's ``on`` signal."""
+    on, t = wave.get("on"), wave.get("t")
+    if not on or not t:
+        return []
+    out, start = [], None
+    for tk, flag in zip(t, on):
+        if flag is not None and flag < 0.5 and start is None:
+            start = tk
+        elif flag is not None and flag >= 0.5 and start is not None:
+            out.append((start, tk))
+            start = None
+    if start is not None:
+        out.append((start, t[-1]))
+    return out
+
+
 def startup_figure(result: dict[str, Any], document: dict[str, Any]) -> dict[str, Any] | None:
-    """V_out, current, FET power and Tj of the nominal start-up on one shared time axis."""
-    wave = (result.get("startup") or {}).get("waveforms")
+    """Output and switch-input voltage, current, FET power and Tj of the nominal start-up (what
+    happens, with the fault timer acting) on one shared time axis; switch-off times shaded."""
+    st = result.get("startup") or {}
+    wave = st.get("waveforms")
     if not wave or not wave.get("t"):
         return None
-    return _startup(
-        [(wave, "", PALETTE[0], "solid")], document, result.get("rules") or {},
-        "Start-up at nominal conditions")
+    title = "Start-up at the nominal point"
+    if st.get("t_trip") is not None:
+        title += f": the fault timer turns the switch off at {format_quantity(st['t_trip'], 's')}"
+        title += " and it retries" if st.get("attempts", 1) > 1 else " (latched)"
+    fig = _startup([(wave, "", PALETTE[0], "solid")], document, result.get("rules") or {}, title)
+    for a, b in _off_intervals(wave):
+        fig["layout"]["shapes"].append({"type": "rect", "xref": "x", "x0": a, "x1": b, "yref": "paper", "y0": 0,
+                                        "y1": 1, "fillcolor": "rgba(179,38,30,0.08)", "line": {"width": 0},
+                                        "layer": "below"})
+    if _off_intervals(wave):
+        fig["layout"].setdefault("annotations", []).append(
+            {"xref": "paper", "x": 0, "yref": "paper", "y": 1.0, "yanchor": "bottom", "showarrow": False,
+             "xanchor": "left", "font": {"size": 11}, "text": "shaded: switch off (fault timer)"})
+    return fig
 
 
 def _startup(waves: list[tuple[dict, str, str, str]], document: dict[str, Any], rules: dict[str, Any],
@@ -111,12 +143,17 @@ def _startup(waves: list[tuple[dict, str, str, str]], document: dict[str, Any], 
         ax = "y" if k == 0 else f"y{k + 1}"
         layout["yaxis" if k == 0 else f"yaxis{k + 1}"] = _axis(f"{label}", " " + unit if unit == "\u00b0C" else unit,
                                                                domain=domains[k], anchor="x")
+        keys = [key] + (["v_in"] if key == "v_out" else [])
         for wave, suffix, colour, dash in waves:
-            data.append({"type": "scatter", "mode": "lines", "name": label + suffix, "x": _r(wave["t"]),
-                         "y": _r(wave[key]), "xaxis": "x", "yaxis": ax,
-                         "line": {"color": colour if len(waves) > 1 else PALETTE[k], "width": 2, "dash": dash},
-                         "showlegend": len(waves) > 1 and k == 0 or len(waves) == 1,
-                         "legendgroup": suffix or key})
+            for j, signal in enumerate(keys):
+                if not wave.get(signal):
+                    continue
+                single = len(waves) == 1
+                data.append({"type": "scatter", "mode": "lines", "name": _TRACE_NAMES[signal] + suffix,
+                             "x": _r(wave["t"]), "y": _r(wave[signal]), "xaxis": "x", "yaxis": ax,
+                             "line": {"color": (PALETTE[k] if j == 0 else PALETTE[5]) if single else colour,
+                                      "width": 2, "dash": ("dot" if j else dash)},
+                             "showlegend": single or (k == 0), "legendgroup": (suffix or key) + signal})
     layout["xaxis"] = _axis("Time since turn-on", "s", anchor=f"y{len(_ROWS)}", showspikes=True,
                             spikemode="across", spikethickness=1, spikecolor=AXIS)
     tj_max = (document.get("fet") or {}).get("tj_max")
@@ -190,23 +227,33 @@ def soa_figure(result: dict[str, Any], document: dict[str, Any]) -> dict[str, An
                      "hovertemplate": "%{x:.3s}V, %{y:.3s}A<extra>start-up</extra>"})
     annotations = []
     if st.get("pulse_v_ds") and st.get("pulse_i"):
-        data.append({"type": "scatter", "mode": "markers", "name": "Start-up as its equivalent rectangle",
+        data.append({"type": "scatter", "mode": "markers", "name": "Start-up pulse as its equivalent rectangle",
                      "x": _r([st["pulse_v_ds"]]), "y": _r([st["pulse_i"]]),
                      "marker": {"symbol": "square", "size": 10, "color": PALETTE[2],
                                 "line": {"color": INK, "width": 1}}})
     sc = result.get("short_circuit") or {}
-    if sc.get("applies") and sc.get("v_ds") and sc.get("i"):
-        allowed = "indefinitely" if sc.get("survives_indefinitely") else format_quantity(sc.get("t_allow"), "s")
-        timer_max = format_quantity(sc["t_fault_max"], "s") if sc.get("t_fault_max") else "no timer"
-        label = f"Short circuit: allowed {allowed}; timer maximum {timer_max}"
-        data.append({"type": "scatter", "mode": "markers", "name": "Short circuit (V_DS, I_D)",
-                     "x": _r([sc["v_ds"]]), "y": _r([sc["i"]]),
-                     "marker": {"symbol": "diamond", "size": 13, "color": VERDICT_COLOURS["fail"],
-                                "line": {"color": INK, "width": 1}},
-                     "hovertemplate": label + "<extra></extra>"})
-        annotations.append({"x": math.log10(sc["v_ds"]), "y": math.log10(sc["i"]), "xref": "x", "yref": "y",
-                            "text": label, "showarrow": True, "arrowhead": 0, "ax": -40, "ay": -44,
-                            "bgcolor": "rgba(255,255,255,0.85)", "bordercolor": AXIS, "font": {"size": 11}})
+    if sc.get("applies"):
+        points = [("nominal", sc, "diamond-open")]
+        if sc.get("worst"):
+            points.append(("worst case", sc["worst"], "diamond"))
+        for label, point, symbol in points:
+            if not (point.get("v_ds") and point.get("i")):
+                continue
+            allowed = "indefinitely" if point.get("survives_indefinitely") else format_quantity(point.get("t_allow"), "s")
+            trips = format_quantity(point["t_fault"], "s") if point.get("t_fault") else "no timer"
+            text = f"Short circuit, {label}: the FET survives {allowed}; the timer trips by {trips}"
+            data.append({"type": "scatter", "mode": "markers", "name": f"Short circuit ({label})",
+                         "x": _r([point["v_ds"]]), "y": _r([point["i"]]),
+                         "marker": {"symbol": symbol, "size": 13, "color": VERDICT_COLOURS["fail"],
+                                    "line": {"color": INK, "width": 1}},
+                         "hovertemplate": text + "<extra></extra>"})
+        if sc.get("worst") and sc["worst"].get("v_ds") and sc["worst"].get("i"):
+            w = sc["worst"]
+            allowed = "indefinitely" if w.get("survives_indefinitely") else format_quantity(w.get("t_allow"), "s")
+            annotations.append({"x": math.log10(w["v_ds"]), "y": math.log10(w["i"]), "xref": "x", "yref": "y",
+                                "text": f"Short circuit, worst case: survives {allowed}", "showarrow": True,
+                                "arrowhead": 0, "ax": -40, "ay": -44, "bgcolor": "rgba(255,255,255,0.85)",
+                                "bordercolor": AXIS, "font": {"size": 11}})
     xs = [v for t in data for v in t["x"]]
     ys = [v for t in data for v in t["y"]]
     layout = _layout(f"Safe operating area, derated to {t_amb:g} \u00b0C", height=520,
@@ -252,14 +299,11 @@ def timer_figure(result: dict[str, Any], document: dict[str, Any]) -> dict[str, 
     tw = result.get("timer")
     if not tw or not tw.get("t_fault_min"):
         return None
-    rules = result.get("rules") or {}
-    sc = result.get("short_circuit") or {}
     timer = (document.get("switch") or {}).get("timer") or {}
     rows, data, shapes = [], [], []
     t_lim = tw.get("t_limit_worst")
-    need_min = rules.get("timer_margin", 1.5) * t_lim if t_lim else None
-    t_allow = sc.get("t_allow") if sc.get("applies") else None
-    allow_max = t_allow / rules.get("fault_margin", 1.5) if t_allow else None
+    need_min = tw.get("trip_not_before")
+    allow_max = tw.get("trip_by")
 
     def band(name: str, lo: float, nom: float | None, hi: float, colour: str) -> None:
         rows.append(name)
@@ -308,61 +352,63 @@ def timer_figure(result: dict[str, Any], document: dict[str, Any]) -> dict[str, 
 
 def timer_limits(result: dict[str, Any]) -> list[str]:
     """The two limits the timer window's dashed lines stand for, in words."""
-    tw, sc, rules = result.get("timer") or {}, result.get("short_circuit") or {}, result.get("rules") or {}
+    tw, rules = result.get("timer") or {}, result.get("rules") or {}
     notes = []
-    t_lim = tw.get("t_limit_worst")
-    if t_lim:
-        need_min = rules.get("timer_margin", 1.5) * t_lim
-        notes.append(f"The timer must not trip before {format_quantity(need_min, 's')} (amber line): timer_margin "
-                     f"{rules.get('timer_margin', 1.5):g} \u00d7 the worst-case time in limit "
-                     f"{format_quantity(t_lim, 's')}.")
-    if sc.get("applies") and sc.get("t_allow"):
-        allow_max = sc["t_allow"] / rules.get("fault_margin", 1.5)
-        notes.append(f"It must trip by {format_quantity(allow_max, 's')} (red line): the FET survives the short "
-                     f"circuit for {format_quantity(sc['t_allow'], 's')}, over fault_margin "
+    if tw.get("trip_not_before") is not None:
+        notes.append(f"The timer must not trip before {format_quantity(tw['trip_not_before'], 's')} (amber line): the "
+                     f"team's timer margin {rules.get('timer_margin', 1.5):g} \u00d7 the worst-case time in regulation "
+                     f"{format_quantity(tw['t_limit_worst'], 's')} ({tw.get('t_limit_corner')}).")
+    if tw.get("trip_by") is not None:
+        notes.append(f"It must trip by {format_quantity(tw['trip_by'], 's')} (red line): the FET survives the worst-case "
+                     f"short circuit for {format_quantity(tw['t_allow_worst'], 's')}, over the team's fault margin "
                      f"{rules.get('fault_margin', 1.5):g}.")
     return notes
 
 
 # --- Monte Carlo -----------------------------------------------------------------------------
 
-def monte_carlo_figure(mc: dict[str, Any], titles: dict[str, str]) -> dict[str, Any] | None:
-    """Histograms of every check value with its limit drawn in; a grid of small plots."""
-    hists = mc.get("histograms") or {}
-    ids = [cid for cid in titles if cid in hists] + [cid for cid in hists if cid not in titles]
-    if not ids:
+def monte_carlo_figure(mc: dict[str, Any]) -> dict[str, Any] | None:
+    """Histograms of every check's normalised margin over the samples, with lines at the team
+    limit (1.0) and at the physical edge; a grid of small plots."""
+    checks = {cid: m for cid, m in (mc.get("checks") or {}).items() if m.get("histogram")}
+    if not checks:
         return None
+    ids = list(checks)
     cols = 2
     rows = math.ceil(len(ids) / cols)
-    gap_x, gap_y = 0.1, 0.5 / max(rows, 1) * 0.35
+    gap_x, gap_y = 0.12, 0.6 / max(rows, 1) * 0.45
     w = (1 - gap_x * (cols - 1)) / cols
     h = (1 - gap_y * (rows - 1)) / rows
-    data, layout = [], _layout(f"Monte Carlo: {mc.get('n')} samples, yield {mc.get('yield', 0) * 100:.1f} %",
-                               height=90 + 210 * rows, showlegend=False, hovermode="closest", bargap=0.02)
+    data, layout = [], _layout(f"Monte Carlo: {mc.get('n')} samples, {mc.get('yield', 0) * 100:.1f} % pass every "
+                               "check", height=120 + 250 * rows, showlegend=False, hovermode="closest", bargap=0.02)
     shapes, annotations = [], []
     for k, cid in enumerate(ids):
+        m = checks[cid]
         r, c = divmod(k, cols)
         n = "" if k == 0 else str(k + 1)
         xd = [round(c * (w + gap_x), 4), round(c * (w + gap_x) + w, 4)]
         yd = [round(1 - (r + 1) * h - r * gap_y, 4), round(1 - r * (h + gap_y), 4)]
-        edges, counts = hists[cid]["edges"], hists[cid]["counts"]
+        hist = m["histogram"]
+        edges, counts = hist["edges"], hist["counts"]
         centres = [(a + b) / 2 for a, b in zip(edges[:-1], edges[1:])]
-        margin = (mc.get("margins") or {}).get(cid) or {}
-        unit = margin.get("unit", "")
-        suffix = {"degC": " \u00b0C", "ratio": ""}.get(unit, unit)
         data.append({"type": "bar", "x": _r(centres), "y": counts, "width": (edges[1] - edges[0]) if len(edges) > 1
                      else None, "xaxis": f"x{n}", "yaxis": f"y{n}", "marker": {"color": PALETTE[0]},
-                     "name": titles.get(cid, cid), "hovertemplate": "%{x:.3s}: %{y}<extra></extra>"})
-        layout[f"xaxis{n}"] = _axis("", suffix, domain=xd, anchor=f"y{n}")
-        layout[f"yaxis{n}"] = _axis("", "", domain=yd, anchor=f"x{n}", rangemode="tozero")
-        fail = (mc.get("fail_fraction") or {}).get(cid, 0.0)
-        annotations.append({"xref": f"x{n} domain", "yref": f"y{n} domain", "x": 0, "y": 1.02, "xanchor": "left",
+                     "name": m["title"], "hovertemplate": "margin %{x:.3g}: %{y} samples<extra></extra>"})
+        layout[f"xaxis{n}"] = _axis("Margin (1 = team limit)", "", domain=xd, anchor=f"y{n}", tickformat=".3~g")
+        layout[f"yaxis{n}"] = _axis("Samples", "", domain=yd, anchor=f"x{n}", rangemode="tozero")
+        annotations.append({"xref": f"x{n} domain", "yref": f"y{n} domain", "x": 0, "y": 1.03, "xanchor": "left",
                             "yanchor": "bottom", "showarrow": False, "font": {"size": 11},
-                            "text": f"{titles.get(cid, cid)}: fails in {fail * 100:.1f} %"})
-        if margin.get("limit") is not None:
-            shapes.append({"type": "line", "xref": f"x{n}", "x0": margin["limit"], "x1": margin["limit"],
-                           "yref": f"y{n} domain", "y0": 0, "y1": 1,
-                           "line": {"color": VERDICT_COLOURS["fail"], "width": 2, "dash": "dash"}})
+                            "text": (f"{m['title']}<br>fails in {m['fail_share'] * 100:.1f} %, marginal in "
+                                     f"{m['marginal_share'] * 100:.1f} % of {hist['total']}")})
+        lo, hi = edges[0], edges[-1]
+        for x, colour, dash in ((1.0, VERDICT_COLOURS["marginal"], "dash"),
+                                (m.get("margin_edge"), VERDICT_COLOURS["fail"], "dot")):
+            if x is not None and lo <= x <= hi:
+                shapes.append({"type": "line", "xref": f"x{n}", "x0": x, "x1": x, "yref": f"y{n} domain", "y0": 0,
+                               "y1": 1, "line": {"color": colour, "width": 2, "dash": dash}})
+    annotations.append({"xref": "paper", "yref": "paper", "x": 0, "y": 1.0, "yanchor": "bottom", "xanchor": "left",
+                        "showarrow": False, "font": {"size": 11},
+                        "text": "dashed amber: the team's limit (margin 1); dotted red: the physical edge"})
     layout["shapes"], layout["annotations"] = shapes, annotations
     return {"data": data, "layout": layout}
 

@@ -12,7 +12,8 @@ from server import jobs
 from server.auth import CurrentActor, require
 from server.db import SessionDep
 from server.pages import signoff_view
-from server.pages.display import check_rows, fmt, input_sections, worst_check
+from server.analysis.report import margin_text, value_text
+from server.pages.display import check_rows, input_sections, worst_check
 from server.pages.plots import monte_carlo_figure, soa_figure, startup_figure, timer_figure, timer_limits
 from server.pages.rendering import FormDep, form_dict, page_context, redirect, render
 from server.services import overview, results
@@ -23,66 +24,55 @@ from server.services.rails import get_rail, get_revision, part_status
 router = APIRouter(include_in_schema=False)
 Analyst = Annotated[Actor, Depends(require(Permission.ANALYZE))]
 MC_SAMPLES = (1000, 5000, 20000)
+# toleranced parameters whose Monte Carlo distribution the form sets, with their words
+MC_PARAMETERS = {"v_s": "Supply voltage", "c": "Load capacitance", "i_limit": "Current limit",
+                 "timer_c": "Timer capacitor", "i_charge": "Timer charge current", "v_trip": "Timer trip voltage"}
 
 
-def _figures_list(result: dict[str, Any]) -> list[tuple[str, str]]:
-    st, sc, tw = result.get("startup") or {}, result.get("short_circuit") or {}, result.get("timer") or {}
-    rows = [("Inrush peak current", fmt(st.get("i_peak"), "A")), ("Time in limit", fmt(st.get("t_limit"), "s")),
-            ("Settling time (within 1 %)", fmt(st.get("t_settle"), "s")), ("FET energy", fmt(st.get("e_fet"), "J")),
-            ("FET peak power", fmt(st.get("p_fet_peak"), "W")),
-            ("Peak junction temperature", fmt(st.get("tj_peak"), "degC")),
-            ("Lowest switch input voltage", fmt(st.get("v_supply_min"), "V"))]
-    if sc.get("applies"):
-        allowed = "indefinitely" if sc.get("survives_indefinitely") else fmt(sc.get("t_allow"), "s")
-        rows += [("Short circuit: V_DS and current", f"{fmt(sc.get('v_ds'), 'V')}, {fmt(sc.get('i'), 'A')}"),
-                 ("Short circuit: time allowed", f"{allowed} (SOA {fmt(sc.get('t_soa'), 's')}, "
-                                                  f"thermal {fmt(sc.get('t_thermal'), 's')})")]
-    if tw:
-        rows += [("Fault timer trips after", f"{fmt(tw.get('t_fault_min'), 's')} to {fmt(tw.get('t_fault_max'), 's')}"
-                                             f" (nominal {fmt(tw.get('t_fault_nom'), 's')})")]
-    retry = result.get("retry")
-    if retry:
-        rows += [("Retry: duty and average power", f"{retry.get('duty', 0) * 100:.2g} %, {fmt(retry.get('p_avg'), 'W')}"),
-                 ("Retry: peak junction temperature", fmt(retry.get("tj_peak"), "degC"))]
-    steady = result.get("steady") or {}
-    rows += [("Steady conduction: FET power and Tj", f"{fmt(steady.get('p_fet'), 'W')}, {fmt(steady.get('tj'), 'degC')}"),
-             ("Steady conduction: voltage drop", fmt(steady.get("v_drop"), "V"))]
-    return rows
-
-
-def _headroom(result: dict[str, Any]) -> list[tuple[str, str]]:
-    h = result.get("headroom") or {}
+def _key_figures(result: dict[str, Any]) -> list[dict[str, Any]]:
+    """The key figures, nominal and worst case side by side, as the record holds them."""
     rows = []
-    c = fmt(h.get("c_max"), "F") if h.get("c_max") is not None else "not found"
-    rows.append(("Largest load capacitance that still passes", c + (f" (limited by {h['c_max_check']})"
-                                                                   if h.get("c_max_check") else "")))
-    if h.get("c_max_note"):
-        rows.append(("", h["c_max_note"]))
-    i = fmt(h.get("i_limit_max"), "A") if h.get("i_limit_max") is not None else "not found"
-    rows.append(("Highest current limit the short circuit allows", i))
-    if h.get("i_limit_max_note"):
-        rows.append(("", h["i_limit_max_note"]))
+    for f in result.get("figures") or []:
+        unit = f.get("unit", "")
+        rows.append({"title": f["title"], "nominal": value_text(f.get("nominal"), unit),
+                     "worst": value_text(f.get("worst"), unit) if f.get("worst") is not None else "-",
+                     "corner": f.get("corner") or "", "found_by": f.get("found_by")})
     return rows
 
 
-def _mc_context(mc_row, checks: list[dict[str, Any]]) -> dict[str, Any] | None:
+def _headroom(result: dict[str, Any]) -> list[dict[str, Any]]:
+    out = []
+    for key in ("c_max", "limit_max"):
+        h = (result.get("headroom") or {}).get(key)
+        if h:
+            value = value_text(h.get("value"), h.get("unit", "")) if h.get("value") is not None else None
+            out.append({"title": h["title"], "value": value, "note": h.get("note") or "", "status": h.get("status")})
+    return out
+
+
+def _mc_context(mc_row) -> dict[str, Any] | None:
     if mc_row is None:
         return None
     mc = mc_row.result.get("monte_carlo") or {}
-    titles = {c["id"]: c.get("title", c["id"]) for c in checks or mc_row.result.get("checks", [])}
+    if "checks" not in mc:  # a run of an older engine version, in the shape of its time
+        return {"outdated": True, "n": mc.get("n"), "engine_version": mc_row.engine_version,
+                "created_at": mc_row.created_at}
     lo, hi = (mc.get("yield_ci95") or [None, None])[:2]
-    return {"n": mc.get("n"), "seed": mc.get("seed"), "distribution": mc.get("distribution"),
+    rows = [{"title": m["title"], "applies": m["applies"], "fail": m["fail_share"], "marginal": m["marginal_share"],
+             "lowest": margin_text((m.get("margin") or {}).get("min")),
+             "median": margin_text((m.get("margin") or {}).get("p50")),
+             "worst_case": margin_text(m.get("worst_case_margin")), "beaten": m.get("beaten")}
+            for m in (mc.get("checks") or {}).values() if m.get("applies")]
+    return {"outdated": False, "n": mc.get("n"), "seed": mc.get("seed"), "distributions": mc.get("distributions"),
             "yield": mc.get("yield"), "lo": lo, "hi": hi, "yield_no_fail": mc.get("yield_no_fail"),
-            "created_at": mc_row.created_at,
-            "figure": monte_carlo_figure(mc, titles),
-            "rows": [{"title": titles.get(cid, cid), **m} for cid, m in (mc.get("margins") or {}).items()]}
+            "created_at": mc_row.created_at, "figure": monte_carlo_figure(mc), "rows": rows,
+            "flags": mc.get("flags") or [], "flag_tolerance": mc.get("flag_tolerance")}
 
 
 def rail_context(session: Session, actor: Actor, rail_id: int) -> dict[str, Any]:
     rail = get_rail(session=session, actor=actor, rail_id=rail_id)
     head = get_revision(session=session, actor=actor, rail_id=rail_id)
     doc = head.document
-    t_amb = (doc.get("environment") or {}).get("t_ambient")
     row = results.latest_result(session, sha256=head.sha256)
     result = row.result if row else None
     signoff = signoff_view.rail_signoff(session, actor, rail.id)
@@ -95,19 +85,18 @@ def rail_context(session: Session, actor: Actor, rail_id: int) -> dict[str, Any]
                                    sha256=head.sha256),
         "mc_job": overview.active_job(session=session, board_id=rail.board_id, rail_id=rail.id,
                                       kind="monte_carlo", sha256=head.sha256),
-        "mc_samples": MC_SAMPLES, "figures": {}, "checks": [], "worst": None,
+        "mc_samples": MC_SAMPLES, "mc_parameters": MC_PARAMETERS, "figures": {}, "checks": [], "worst": None,
     }
     if result is not None:
-        ctx["checks"] = check_rows(result.get("checks", []), t_amb)
-        ctx["worst"] = worst_check(result.get("checks", []), t_amb)
-        ctx["key_figures"] = _figures_list(result)
+        ctx["checks"] = check_rows(result.get("checks", []))
+        ctx["worst"] = worst_check(result.get("checks", []))
+        ctx["key_figures"] = _key_figures(result)
         ctx["headroom"] = _headroom(result)
         ctx["figures"] = {"startup": startup_figure(result, doc), "soa": soa_figure(result, doc),
                           "timer": timer_figure(result, doc)}
         ctx["timer"] = result.get("timer")
         ctx["timer_limits"] = timer_limits(result)
-    ctx["mc"] = _mc_context(results.latest_result(session, sha256=head.sha256, monte_carlo=True),
-                            result.get("checks", []) if result else [])
+    ctx["mc"] = _mc_context(results.latest_result(session, sha256=head.sha256, monte_carlo=True))
     return ctx
 
 
@@ -137,9 +126,13 @@ def monte_carlo_options(form: dict[str, str]) -> dict[str, Any]:
         seed = -1
     if seed < 0:
         raise Invalid("the seed is a whole number, 0 or more", details=[{"field": "seed", "message": "whole number"}])
-    distribution = form.get("distribution", "uniform")
-    if distribution not in ("uniform", "normal"):
-        raise Invalid("unknown distribution", details=[{"field": "distribution", "message": "uniform or normal"}])
+    distribution = {}
+    for param in MC_PARAMETERS:
+        kind = form.get(f"distribution_{param}", "uniform") or "uniform"
+        if kind not in ("uniform", "normal"):
+            raise Invalid("unknown distribution", details=[{"field": f"distribution_{param}",
+                                                             "message": "uniform or normal"}])
+        distribution[param] = kind
     return {"corners": True, "monte_carlo": n, "seed": seed, "distribution": distribution}
 
 

@@ -10,7 +10,7 @@ from sqlalchemy.orm import Session
 
 from server.auth import require
 from server.db import SessionDep
-from server.pages.display import fmt, UNIT_KIND
+from server.pages.display import check_text
 from server.pages.rendering import page_context, render
 from server.services import risks
 from server.services.access import Actor, Permission
@@ -35,11 +35,6 @@ TOTALS = [("rails", "rails"), ("rails_at_risk", "rails with an open risk"), ("si
           ("never_analysed", "never analysed")]
 
 
-def _check_text(c: dict[str, Any]) -> str:
-    kind = UNIT_KIND.get(c.get("unit") or "", "ratio")
-    return f"{c.get('title') or c.get('id')}: {fmt(c.get('value'), kind)} against {fmt(c.get('limit'), kind)}"
-
-
 def risks_index_context(session: Session, actor: Actor) -> dict[str, Any]:
     products, _ = list_products(session=session, actor=actor, limit=500)
     return {"products": products}
@@ -51,7 +46,7 @@ def product_risks_context(session: Session, actor: Actor, product_id: int) -> di
         for r in board["rails"]:
             r["risk_words"] = [RISK_WORDS.get(k, k) for k in r["risks"]]
             for c in r["failing"] + r["marginal"] + r["waived"]:
-                c["text"] = _check_text(c)
+                c["text"] = check_text(c)
         board["at_risk"] = [r for r in board["rails"] if r["risks"]]
     data["totals_list"] = [(label, data["totals"].get(key, 0)) for key, label in TOTALS]
     return data

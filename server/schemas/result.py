@@ -125,7 +125,23 @@ class StartupSection(_Model):
     waveforms: Waveforms | None
 
 
+class ShortCircuitPoint(_Model):
+    v_ds: Number
+    i: Number
+    p: Number
+    t_soa: Number
+    t_thermal: Number
+    t_allow: Number
+    t_fault: Number
+    margin: Number
+    limited_by: Literal["soa", "thermal"] | None
+    survives_indefinitely: bool
+    corner: str
+
+
 class ShortCircuitSection(_Model):
+    """The output short circuit at the nominal point, and at its check's worst case."""
+
     applies: bool
     v_ds: Number = None
     i: Number = None
@@ -137,6 +153,7 @@ class ShortCircuitSection(_Model):
     margin: Number = None
     limited_by: Literal["soa", "thermal"] | None = None
     survives_indefinitely: bool | None = None
+    worst: ShortCircuitPoint | None = None
 
 
 class TimerSection(_Model):
@@ -146,6 +163,9 @@ class TimerSection(_Model):
     t_limit_worst: Number
     t_limit_corner: str | None
     startup_margin: Number
+    trip_not_before: Number = Field(description="timer_margin x the worst-case regulation time, s")
+    trip_by: Number = Field(description="the worst-case time the FET survives a short circuit / fault_margin, s")
+    t_allow_worst: Number
     c_lo: Number
     c_hi: Number
     c_window: list[Number] | None

@@ -15,10 +15,12 @@ from sqlalchemy import select
 from sqlalchemy.exc import IntegrityError
 from sqlalchemy.orm import Session
 
-from server.models import AnalysisResult
+from server.models import AnalysisResult, Rail, RailRevision
+from server.services.access import Actor, scoped_rails
+from server.services.errors import NotFound
 
 __all__ = ["NOMINAL_OPTIONS", "engine_version", "normalize_options", "options_key", "find_result", "store_result",
-           "latest_result", "checks_for_revision", "result_dict"]
+           "latest_result", "checks_for_revision", "result_dict", "get_result"]
 
 NOMINAL_OPTIONS: dict[str, Any] = {"corners": True, "monte_carlo": 0, "seed": 0, "distribution": "uniform"}
 
@@ -36,7 +38,18 @@ def normalize_options(options: dict[str, Any] | None) -> dict[str, Any]:
     out["corners"], out["monte_carlo"], out["seed"] = bool(out["corners"]), int(out["monte_carlo"]), int(out["seed"])
     if out["monte_carlo"] == 0:
         out["seed"], out["distribution"] = 0, "uniform"
+    else:
+        out["distribution"] = _distribution_option(out["distribution"])
     return out
+
+
+def _distribution_option(distribution: Any) -> str | dict[str, str]:
+    """One word when every parameter takes the same distribution, else the full per-parameter dict."""
+    from server.analysis.montecarlo import distributions_for
+
+    kinds = distributions_for(distribution)
+    words = set(kinds.values())
+    return words.pop() if len(words) == 1 else dict(sorted(kinds.items()))
 
 
 def options_key(options: dict[str, Any]) -> str:
@@ -100,3 +113,17 @@ def result_dict(row: AnalysisResult, *, rail_id: int | None = None, revision: in
     if with_result:
         out["result"] = row.result
     return out
+
+
+def get_result(*, session: Session, actor: Actor, result_id: int) -> dict[str, Any]:
+    """A stored result by id, as `result_dict`, with the newest revision of the actor's rails that it
+    belongs to; a result of no rail the actor can see is "not found"."""
+    row = session.get(AnalysisResult, result_id)
+    if row is not None:
+        owner = session.execute(scoped_rails(
+            select(RailRevision.rail_id, RailRevision.n).join(Rail, Rail.id == RailRevision.rail_id)
+            .where(RailRevision.sha256 == row.sha256), actor)
+            .order_by(RailRevision.rail_id, RailRevision.n.desc()).limit(1)).first()
+        if owner is not None:
+            return result_dict(row, rail_id=owner.rail_id, revision=owner.n)
+    raise NotFound(f"no result {result_id}")

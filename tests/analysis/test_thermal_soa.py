@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import copy
 import math
 
 import numpy as np
@@ -9,7 +10,7 @@ import pytest
 from numpy.testing import assert_allclose
 
 from server.analysis import derated_soa_curves, soa_allowed_time, zth
-from server.analysis.document import read_rail
+from server.analysis.document import read_fet, read_rail
 from server.analysis.retry import retry_figures
 from server.analysis.shortcircuit import short_circuit
 from server.analysis.soa import allowed_current, derating_factor, equivalent_rectangle
@@ -110,7 +111,7 @@ def test_soa_derating_is_linear_in_temperature():
     assert curves[-1]["t_pulse"] is None
 
 
-@pytest.mark.parametrize("v, t", [(2.0, 3e-5), (12.0, 3e-4), (12.0, 5e-3), (30.0, 0.05), (12.0, 1.0)])
+@pytest.mark.parametrize("v, t", [(2.0, 3e-5), (12.0, 3e-4), (12.0, 5e-3), (30.0, 0.05), (12.0, 0.08)])
 def test_soa_allowed_time_inverts_allowed_current(v, t):
     i = allowed_current(FET, np.array([v]), np.array([t]), 60.0)[0]
     assert_allclose(soa_allowed_time(FET, v, i * (1 - 1e-9), 60.0)[0], t, rtol=1e-6)
@@ -122,6 +123,59 @@ def test_soa_dc_curve_is_the_long_time_limit():
     assert allowed_current(FET, np.array([12.0]), np.array([1e4]), 25.0)[0] >= i_dc * (1 - 1e-12)
     # a current the shortest curve does not allow is allowed for no time at all (conservative)
     assert soa_allowed_time(FET, 12.0, 1e4, 25.0)[0] == 0.0
+
+
+# An invented chart: four curves drawn as straight lines on log-log axes (t_case 25 degC).
+CHART = {
+    "name": "INV-CHART", "vds_max": 60.0, "id_pulse_max": 60.0, "rds_on": 0.01, "rds_on_alpha": 0.005,
+    "tj_max": 150.0, "rth_ja": 40.0, "zth": [{"r": 1.0, "tau": 1e-3}, {"r": 39.0, "tau": 1.0}],
+    "soa": {"t_case": 25.0, "curves": [
+        {"t_pulse": 1e-4, "points": [[2.0, 50.0], [20.0, 50.0], [60.0, 10.0]]},
+        {"t_pulse": 1e-3, "points": [[2.0, 30.0], [10.0, 30.0], [60.0, 3.0]]},
+        {"t_pulse": 1e-2, "points": [[2.0, 15.0], [5.0, 15.0], [60.0, 0.8]]},
+        {"t_pulse": None, "points": [[2.0, 5.0], [3.0, 5.0], [60.0, 0.1]]},
+    ]},
+}
+
+
+def _on_line(v, v0, i0, v1, i1):
+    """A straight line on log-log axes through (v0, i0) and (v1, i1), read at v (by hand)."""
+    return i0 * (v / v0) ** (math.log(i1 / i0) / math.log(v1 / v0))
+
+
+def test_soa_reading_between_the_longest_curve_and_dc_is_the_longest_pulse_width():
+    # Hand reading of the invented chart at 30 V: the 10 ms curve allows
+    # 15 (30/5)^(ln(0.8/15)/ln 12) = 1.81 A, the DC curve 5 (30/3)^(ln(0.1/5)/ln 20) = 0.247 A.
+    i_10ms = _on_line(30.0, 5.0, 15.0, 60.0, 0.8)
+    i_dc = _on_line(30.0, 3.0, 5.0, 60.0, 0.1)
+    assert_allclose([i_10ms, i_dc], [1.8119, 0.24724], rtol=1e-3)
+    # 1 A lies between them: a datasheet reader allows the longest curve's pulse width, 10 ms,
+    # and nothing longer (no extrapolation along the chart)
+    assert_allclose(soa_allowed_time(CHART, 30.0, 1.0, 25.0), [1e-2], rtol=1e-12)
+    assert_allclose(soa_allowed_time(CHART, 30.0, 0.99 * i_10ms, 25.0), [1e-2], rtol=1e-12)
+    # a pulse longer than 10 ms is allowed the DC curve's current only
+    assert_allclose(allowed_current(read_fet(CHART), np.array([30.0]), np.array([0.05]), 25.0), [i_dc], rtol=1e-9)
+    assert np.isinf(soa_allowed_time(CHART, 30.0, 0.9 * i_dc, 25.0)[0])
+    # without a DC curve nothing beyond the longest curve is allowed
+    no_dc = copy.deepcopy(CHART)
+    no_dc["soa"]["curves"] = no_dc["soa"]["curves"][:3]
+    assert allowed_current(read_fet(no_dc), np.array([30.0]), np.array([0.05]), 25.0)[0] == 0.0
+    assert_allclose(soa_allowed_time(no_dc, 30.0, 0.1, 25.0), [1e-2], rtol=1e-12)
+
+
+def test_soa_reading_above_the_shortest_curves_current_allows_nothing():
+    # Hand reading at 30 V: the 100 us curve allows 50 (30/20)^(ln 0.2 / ln 3) = 27.6 A
+    i_100us = _on_line(30.0, 20.0, 50.0, 60.0, 10.0)
+    assert_allclose(i_100us, 27.606, rtol=1e-4)
+    assert soa_allowed_time(CHART, 30.0, 1.01 * i_100us, 25.0)[0] == 0.0
+    # a pulse shorter than the shortest curve gets that curve's current, not more
+    assert_allclose(allowed_current(read_fet(CHART), np.array([30.0]), np.array([1e-6]), 25.0), [i_100us],
+                    rtol=1e-9)
+    # between two curves: log I linear in log t (1 ms curve at 30 V: 30 (30/10)^(ln 0.1 / ln 6))
+    i_1ms = _on_line(30.0, 10.0, 30.0, 60.0, 3.0)
+    t_mid = math.sqrt(1e-4 * 1e-3)
+    want = math.exp(0.5 * (math.log(i_100us) + math.log(i_1ms)))
+    assert_allclose(allowed_current(read_fet(CHART), np.array([30.0]), np.array([t_mid]), 25.0), [want], rtol=1e-9)
 
 
 def test_equivalent_rectangle_of_a_triangle_is_half_its_length():

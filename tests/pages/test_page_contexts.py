@@ -70,18 +70,28 @@ def test_rail_context_has_checks_headroom_and_every_plot(seeded, session_factory
     assert len(ctx["checks"]) == len(ctx["result"]["checks"]) > 5
     bases = {c["basis_text"] for c in ctx["checks"]}
     assert "common practice, not a standard" in bases
-    assert any(label.startswith("Largest load capacitance") for label, _ in ctx["headroom"])
+    assert any(h["title"].startswith("Largest load capacitance") and h["note"] for h in ctx["headroom"])
+    # key figures: nominal and worst case side by side, the worst case's point in words
+    assert all(f["nominal"] and f["worst"] for f in ctx["key_figures"][:3])
+    assert any(f["corner"].startswith("supply") for f in ctx["key_figures"])
     startup = ctx["figures"]["startup"]
-    assert [t["yaxis"] for t in startup["data"]] == ["y", "y2", "y3", "y4"]
+    assert {t["yaxis"] for t in startup["data"]} == {"y", "y2", "y3", "y4"}
     assert all(t["xaxis"] == "x" for t in startup["data"])  # one shared time axis
     soa = ctx["figures"]["soa"]
     assert soa["layout"]["xaxis"]["type"] == "log" and soa["layout"]["yaxis"]["type"] == "log"
     names = [t["name"] for t in soa["data"]]
-    assert "Start-up trajectory (V_DS, I_D)" in names and "Short circuit (V_DS, I_D)" in names
-    assert "allowed" in soa["layout"]["annotations"][0]["text"] and "timer maximum" in soa["layout"]["annotations"][0]["text"]
+    assert "Start-up trajectory (V_DS, I_D)" in names
+    assert "Short circuit (nominal)" in names and "Short circuit (worst case)" in names
+    assert "worst case" in soa["layout"]["annotations"][0]["text"]
     timer = ctx["figures"]["timer"]
     assert any(t["name"].startswith("Fault timer now") for t in timer["data"])
-    assert ctx["mc"] is not None and ctx["mc"]["n"] == 200 and ctx["mc"]["figure"]["data"]
+    mc = ctx["mc"]
+    assert mc is not None and mc["n"] == 200 and mc["figure"]["data"]
+    # histograms of the margin, with axis titles and the team limit drawn in
+    assert mc["figure"]["layout"]["xaxis"]["title"]["text"] == "Margin (1 = team limit)"
+    assert mc["figure"]["layout"]["yaxis"]["title"]["text"] == "Samples"
+    assert any("fails in" in a["text"] and "marginal in" in a["text"] for a in mc["figure"]["layout"]["annotations"])
+    assert mc["rows"] and all("fail" in r and "marginal" in r for r in mc["rows"])
 
 
 def test_rail_context_without_a_result_shows_its_queued_job(seeded, session_factory):

@@ -167,13 +167,15 @@ def test_analysis_buttons_queue_jobs(client, app, people, seeded, session_factor
     assert r.status_code == 303
     rail_id = seeded["rail_ids"][0]
     r = client.post(f"/rails/{rail_id}/monte-carlo", data={"csrf_token": csrf, "samples": "1000", "seed": "7",
-                                                          "distribution": "normal"}, follow_redirects=False)
+                                                          "distribution_c": "normal"}, follow_redirects=False)
     assert r.status_code == 303
     with session_factory() as s:
         kinds = {(j.kind, j.state) for j in s.scalars(select(Job).where(Job.parent_id.is_(None)))}
         mc = s.scalar(select(Job).where(Job.kind == "monte_carlo"))
     assert ("board", "running") in kinds
-    assert mc.options == {"corners": True, "monte_carlo": 1000, "seed": 7, "distribution": "normal"}
+    assert mc.options == {"corners": True, "monte_carlo": 1000, "seed": 7,
+                          "distribution": {"c": "normal", "i_charge": "uniform", "i_limit": "uniform",
+                                           "timer_c": "uniform", "v_s": "uniform", "v_trip": "uniform"}}
     board = client.get(f"/boards/{seeded['board_id']}")
     assert 'class="job-progress"' in board.text
     rail = client.get(f"/rails/{rail_id}")
