@@ -73,3 +73,43 @@ def test_the_console_command_reads_standard_input():
                           capture_output=True, text=True, timeout=120)
     assert proc.returncode == 0, proc.stderr
     assert json.loads(proc.stdout)["verdict"] == "pass"
+
+
+def test_default_report_is_the_signoff_worst_case_and_nominal_is_labelled(tmp_path, capsys):
+    path = _write(tmp_path, load_switch_5v())
+    main(["analyze", path])
+    worst = capsys.readouterr().out
+    assert "basis: worst case over" in worst and "worst case at" in worst
+    main(["analyze", path, "--nominal"])
+    nominal = capsys.readouterr().out
+    assert "NOT a sign-off verdict" in nominal
+    # the default JSON carries the same verdicts as the pages: worst case, with the point in words
+    main(["analyze", path, "--json"])
+    result = json.loads(capsys.readouterr().out)
+    assert result["basis"] == "worst case" and result["signoff"] is True
+    assert all(c["corner"] for c in result["checks"] if c["verdict"] != "n/a")
+
+
+def test_a_load_turning_on_above_the_supply_minimum_is_analysed_and_fails(tmp_path, capsys):
+    doc = load_switch_5v()
+    doc["load"]["v_on"] = 4.9  # above the 4.75 V supply minimum: at v_min the load never starts
+    code = main(["analyze", _write(tmp_path, doc), "--json"])
+    result = json.loads(capsys.readouterr().out)
+    assert code == EXIT_FAILING_CHECK
+    first = result["checks"][0]
+    assert first["id"] == "startup_complete" and first["verdict"] == "fail"
+    assert "never starts" in first["detail"] and first["corner"].startswith("supply 4.75 V (min)")
+    assert first["nominal"]["verdict"] == "pass"  # at 5 V it does start
+
+
+def test_thermal_runaway_gets_a_verdict_and_exit_1(tmp_path, capsys):
+    # 30 A through a small 40 mOhm part: 36 W against 40 K/W has no thermal fixed point
+    doc = load_switch_5v()
+    doc["load"].update(model="resistive", i_nom=30.0, v_on=0.0)
+    doc["supply"]["i_max"] = None
+    doc["fet"].update(rds_on=0.04, rth_ja=40.0)
+    code = main(["analyze", _write(tmp_path, doc), "--json"])
+    result = json.loads(capsys.readouterr().out)
+    assert code == EXIT_FAILING_CHECK
+    by_id = {c["id"]: c for c in result["checks"]}
+    assert by_id["steady_stable"]["verdict"] == "fail" and "Thermal runaway" in by_id["steady_stable"]["detail"]

@@ -314,7 +314,7 @@ def _startup_words(f: dict, rail: Rail) -> str:
         return (f"The start does not complete in {int(f['attempts'])} attempts: every attempt trips the fault "
                 f"timer ({eng(f['t_fault'], 's')}) before the output settles. {_timer_advice(f, rail)}")
     if status == STATUS_RUNAWAY:
-        return (f"The junction passes {temp(rail.fet.tj_max + TJ_RUNAWAY_K)} ({TJ_RUNAWAY_K:g} K above tj_max) "
+        return (f"The junction passes {temp(rail.fet.tj_max + TJ_RUNAWAY_K)} ({TJ_RUNAWAY_K:g} K above its maximum junction temperature) "
                 f"{eng(f['t_end'], 's')} into the start: the FET would be destroyed; the start-up is followed "
                 "no further and its figures stop there.")
     if status == STATUS_NO_CONVERGENCE:
@@ -391,8 +391,8 @@ def check_detail(cid: str, fig: dict, row: int, rail: Rail, rules: dict) -> str:
             return "The load has no DC operating point."
         if not f["steady_stable"]:
             load = eng(f["steady_i"], "A") if np.isfinite(f["steady_i"]) else "the load current"
-            return (f"Thermal runaway: at {load} the heating exceeds the cooling all the way up to tj_max "
-                    f"{temp(fet.tj_max)}.")
+            return (f"Thermal runaway: at {load} the heating exceeds the cooling all the way up to the maximum "
+                    f"junction temperature {temp(fet.tj_max)}.")
         return (f"{eng(f['steady_i'], 'A')} through Rds(on) at Tj: {eng(f['steady_p_fet'], 'W')}, "
                 f"{temp(f['steady_tj'])} with rth_ja {fet.rth_ja:g} K/W.")
     if cid == "supply_dip":
@@ -415,9 +415,9 @@ def _dip_words(f: dict, rail: Rail) -> str:
     v, uvlo = f["v_supply_min"], s.uvlo
     text = f"Lowest switch-input voltage {eng(v, 'V')} (raw) against the upstream UVLO {eng(uvlo, 'V')}."
     if v < uvlo and f["dip_unbounded"]:
-        return (text + " The dip is bounded only by input capacitance: enter supply.c_in (the capacitance at "
-                "the switch input). Without it the ideal switch closing into the series inductance pulls the "
-                "input down to the output voltage.")
+        return (text + " The dip is bounded only by input capacitance: enter the capacitance at the switch input "
+                "(supply.c_in). Without it the ideal switch closing into the series inductance pulls the input down "
+                "to the output voltage.")
     if v < uvlo and s.uvlo_filter is not None:
         t_below = f["t_below_uvlo"]
         if t_below < s.uvlo_filter:

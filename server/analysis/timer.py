@@ -115,13 +115,13 @@ def timer_window(
         ratio = c_lo / c_hi if c_hi > 0 else math.inf
         start_at_hi = (c_hi * spread_lo / t_limit_worst) if c_hi > 0 else 0.0
         out["window_note"] = (
-            f"No timer capacitor meets both margins: the start-up needs at least {_eng(c_lo, 'F')} "
-            f"(timer_margin {timer_margin:g} over the worst-case t_limit {_eng(t_limit_worst, 's')}), "
-            f"the short circuit allows at most {_eng(c_hi, 'F')} (fault_margin {fault_margin:g} "
-            f"within t_allow {_eng(t_allow, 's')}); the window is closed by a factor {ratio:.3g}. "
-            f"At {_eng(c_hi, 'F')} the start-up margin would be {start_at_hi:.3g}. "
-            "Shorten the regulated start (lower dv/dt or load capacitance, higher current limit) "
-            "or choose a FET with more SOA at v_max."
+            f"No timer capacitor meets both margins: the start-up needs at least {_eng(c_lo, 'F')} (the team's "
+            f"timer margin {timer_margin:g} × the worst-case regulation time {_eng(t_limit_worst, 's')}), the "
+            f"short circuit allows at most {_eng(c_hi, 'F')} (the time the FET survives it, "
+            f"{_eng(t_allow, 's')}, over the team's fault margin {fault_margin:g}); the window is closed by a "
+            f"factor {ratio:.3g}. At {_eng(c_hi, 'F')} the start-up margin would be {start_at_hi:.3g}. "
+            "Shorten the regulated start (a lower slew rate or load capacitance, a higher current limit) "
+            "or choose a FET with more SOA at the supply maximum."
         )
         return out
     out["c_window"] = [c_lo, c_hi]
