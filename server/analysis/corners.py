@@ -33,7 +33,7 @@ from .document import Rail
 from .evaluation import RowParams
 from .units import eng
 
-__all__ = ["corner_set", "corner_params", "point_words", "PARAM_WORDS"]
+__all__ = ["corner_set", "corner_params", "point_words", "PARAM_WORDS", "ALL_PARAMETERS"]
 
 # the toleranced parameters in words (a corner or a point of the box is described with these)
 PARAM_WORDS = {"v_s": "supply", "c": "load C", "i_limit": "current limit", "timer_c": "timer C",
@@ -55,8 +55,11 @@ def _relative(value: float, nominal: float) -> str:
     return ("+" if pct > 0 else "\u2212") + text
 
 
+ALL_PARAMETERS = frozenset({"v_s", "c", "i_limit", "timer"})
+
+
 def point_words(rail: Rail, v_s: float, c: float, i_lim: float, t_fault: float,
-                timer: tuple[float, float, float] | None = None) -> str:
+                timer: tuple[float, float, float] | None = None, keys=ALL_PARAMETERS) -> str:
     """A point of the tolerance box in words.
 
     Parameters
@@ -66,6 +69,9 @@ def point_words(rail: Rail, v_s: float, c: float, i_lim: float, t_fault: float,
         The point: supply (V), load capacitance (F), current limit (A), trip time (s).
     timer : (timer C, charge current, trip voltage), optional
         A corner names the timer's three parts; otherwise its trip time is given.
+    keys : set of str
+        The parameters to name (of "v_s", "c", "i_limit", "timer"): those the figure
+        described depends on.
 
     Returns
     -------
@@ -74,16 +80,16 @@ def point_words(rail: Rail, v_s: float, c: float, i_lim: float, t_fault: float,
         current limit −10 %, timer C −10 %"; "nominal" when every one sits at nominal.
     """
     s, sw, parts = rail.supply, rail.switch, []
-    if s.v_max > s.v_min:
+    if s.v_max > s.v_min and "v_s" in keys:
         tag = ("min" if math.isclose(v_s, s.v_min, rel_tol=1e-9) else "max" if math.isclose(v_s, s.v_max, rel_tol=1e-9)
                else "nominal" if math.isclose(v_s, s.v_nom, rel_tol=1e-9) else None)
         parts.append(f"{PARAM_WORDS['v_s']} {eng(v_s, 'V')}" + (f" ({tag})" if tag else ""))
-    if rail.load.c_tol > 0:
+    if rail.load.c_tol > 0 and "c" in keys:
         parts.append(f"{PARAM_WORDS['c']} {_relative(c, rail.load.c_nom)}")
-    if sw.i_limit is not None and sw.i_limit_tol > 0:
+    if sw.i_limit is not None and sw.i_limit_tol > 0 and "i_limit" in keys:
         parts.append(f"{PARAM_WORDS['i_limit']} {_relative(i_lim, sw.i_limit)}")
     t = sw.timer
-    if t is not None:
+    if t is not None and "timer" in keys:
         if timer is not None:
             for key, value, nominal, tol in (("timer_c", timer[0], t.c, t.c_tol),
                                              ("i_charge", timer[1], t.i_charge, t.i_charge_tol),

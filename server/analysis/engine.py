@@ -41,7 +41,7 @@ from .startup import (STATUS_NO_CONVERGENCE, STATUS_OK, STATUS_RETRIED, STATUS_R
 from .timer import fault_times, timer_window
 from .units import eng
 from .waveform import decimate
-from .worstcase import WorstCase, find_worst_case
+from .worstcase import TIE, WorstCase, find_worst_case
 
 __all__ = ["ENGINE_VERSION", "CAUTION", "BASIS_WORST", "BASIS_NOMINAL", "FIGURES", "analyze_rail"]
 
@@ -56,6 +56,22 @@ MARGIN_CONVENTION = ("Margin: 1.00 is the team's limit; above it the check passe
 STATUS_WORDS = {STATUS_OK: "complete", STATUS_STALLED: "stalled", STATUS_NO_CONVERGENCE: "could not settle",
                 STATUS_TRIPPED: "tripped", STATUS_RETRIED: "completes after retries",
                 STATUS_RETRY_EXHAUSTED: "retries exhausted", STATUS_RUNAWAY: "thermal runaway"}
+
+# the parameters each check depends on (its worst case is named by these)
+_V, _STARTUP, _FAULT = {"v_s"}, {"v_s", "c", "i_limit"}, {"v_s", "i_limit", "timer"}
+CHECK_PARAMETERS = {"startup_complete": _STARTUP, "vds_derating": _V, "startup_soa": _STARTUP,
+                    "startup_tj": _STARTUP, "short_circuit_time": _FAULT, "timer_startup": _STARTUP | {"timer"},
+                    "retry_tj": _FAULT, "steady_tj": _V, "steady_stable": _V, "supply_dip": _STARTUP,
+                    "supply_current": _STARTUP, "fet_pulse_current": _STARTUP}
+FIGURE_PARAMETERS = {"sc_p": _FAULT, "sc_t_allow": _FAULT, "retry_tj_peak": _FAULT, "steady_p_fet": _V,
+                     "steady_tj": _V, "steady_v_drop": _V}
+
+
+def _keys(base: set, wc: "WorstCase", row: int) -> set:
+    """The parameters to name for a row: the timer as well where that row's start tripped it."""
+    tripped = int(wc.fig["status"][row]) in (STATUS_TRIPPED, STATUS_RETRIED, STATUS_RETRY_EXHAUSTED)
+    return base | {"timer"} if tripped and "c" in base else base
+
 
 # key figures: id, title, unit, the row figure, which way is worse
 FIGURES: tuple[tuple[str, str, str, str, str], ...] = (
@@ -127,7 +143,8 @@ def _check_records(rail: Rail, rules: dict, nominal: tuple[dict, dict], wc: Wors
             fig, ch, row, found, name, params = fig_n, ch_n, 0, "nominal", "nominal", None
         else:
             row = wc.worst[spec.id]
-            fig, ch, found, name, params = wc.fig, wc.checks[spec.id], wc.found_by[spec.id], wc.names[row], wc.params
+            fig, ch, found, params = wc.fig, wc.checks[spec.id], wc.found_by[spec.id], wc.params
+            name = wc.words(row, _keys(CHECK_PARAMETERS[spec.id], wc, row))
         code = int(ch["verdict"][row])
         applies = code != NA
         limit, edge = ch["limit"][row], ch["edge"][row]
@@ -169,13 +186,27 @@ def _key_figures(fig_n: dict, wc: WorstCase | None) -> list[dict]:
             if finite.any():
                 pick = np.where(finite, vals, -np.inf if worse == "max" else np.inf)
                 j = int(np.argmax(pick) if worse == "max" else np.argmin(pick))
-                entry.update(worst=float(vals[j]), corner=wc.names[j], found_by=wc.source[j])
+                j = _corner_if_as_bad(wc, pick, j, worse)
+                keys = _keys(FIGURE_PARAMETERS.get(fid, _STARTUP), wc, j)
+                entry.update(worst=float(vals[j]), corner=wc.words(j, keys), found_by=wc.source[j])
             elif key == "sc_t_allow" and np.all(np.isinf(vals)):
                 entry.update(corner="every point: survives indefinitely")
         if nominal is None and entry["worst"] is None and entry["corner"] is None:
             continue
         out.append(entry)
     return out
+
+
+def _corner_if_as_bad(wc: "WorstCase", vals: np.ndarray, j: int, worse: str) -> int:
+    """A corner as bad as row j (within the search's tie tolerance) names the case instead."""
+    if wc.source[j] == "corner":
+        return j
+    n = len(wc.corners)
+    corner = vals[:n]
+    k = int(np.argmax(corner) if worse == "max" else np.argmin(corner))
+    tie = abs(vals[j]) * TIE
+    as_bad = corner[k] >= vals[j] - tie if worse == "max" else corner[k] <= vals[j] + tie
+    return k if as_bad else j
 
 
 # --- sections of the nominal point ---------------------------------------------------------
@@ -219,7 +250,7 @@ def _short_circuit_section(fig_n: dict, wc: WorstCase | None) -> dict:
     out = {"applies": True, **_short_circuit_point(fig_n, 0), "worst": None}
     if wc is not None:
         row = wc.worst["short_circuit_time"]
-        out["worst"] = {**_short_circuit_point(wc.fig, row), "corner": wc.names[row]}
+        out["worst"] = {**_short_circuit_point(wc.fig, row), "corner": wc.words(row, _FAULT)}
     return out
 
 
@@ -229,7 +260,7 @@ def _timer_section(rail: Rail, rules: dict, fig_n: dict, wc: WorstCase | None, t
         return None
     t_min, t_nom, t_max = times
     src = wc.fig if wc is not None else fig_n
-    names = wc.names if wc is not None else ["nominal"]
+    names = [wc.words(j, _STARTUP) for j in range(wc.params.n)] if wc is not None else ["nominal"]
     t_need = np.asarray(src["t_limit"], dtype=float)
     complete_free = np.isfinite(t_need)
     out = {"t_fault_min": t_min, "t_fault_nom": t_nom, "t_fault_max": t_max, "t_limit_worst": None,

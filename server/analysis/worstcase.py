@@ -50,19 +50,19 @@ from scipy.stats import qmc
 
 from .checks import CHECKS, NA, SPECS, STARTUP_CHECKS
 from .circuit import NO_LIMIT
-from .corners import corner_params, corner_set, point_words
+from .corners import ALL_PARAMETERS, corner_params, corner_set, point_words
 from .document import Rail
 from .evaluation import PARAMS, RowParams, evaluate_rows
 from .startup import STATUS_RETRIED, STATUS_RETRY_EXHAUSTED, STATUS_TRIPPED
 
 __all__ = ["SEARCH_SEED", "SOBOL_POINTS", "COMPASS_ROUNDS", "COMPASS_STEP", "WorstCase", "find_worst_case",
-           "evaluate_unique", "worse"]
+           "evaluate_unique", "worse", "TIE"]
 
 SEARCH_SEED = 20_261_202
 SOBOL_POINTS = 32
 COMPASS_ROUNDS = 6
 COMPASS_STEP = 0.25
-_TIE = 1e-3  # a searched row must beat the worst corner by more than this (relative margin; the
+TIE = 1e-3  # a searched row must beat the worst corner by more than this (relative margin; the
 # integration error of two separate runs) for the search to be named as finding it
 
 
@@ -86,6 +86,15 @@ class WorstCase:
     corners: list[dict]
     n_search: int = 0
     budget: dict = field(default_factory=dict)
+    rail: Rail | None = None
+
+    def words(self, row: int, keys=ALL_PARAMETERS) -> str:
+        """Row ``row`` in words, naming only the parameters of ``keys`` (`corners.point_words`)."""
+        p = self.params
+        corner = self.corners[row] if row < len(self.corners) else None
+        parts = (corner["timer_c"], corner["i_charge"], corner["v_trip"]) if corner and corner["timer_c"] else None
+        return point_words(self.rail, float(p.v_s[row]), float(p.c[row]), float(p.i_lim[row]),
+                           float(p.t_fault[row]), parts, keys)
 
 
 def _expand(fig: dict, checks: dict, idx: np.ndarray, n_unique: int) -> tuple[dict, dict]:
@@ -111,7 +120,7 @@ def evaluate_unique(rail: Rail, rules: dict, params: RowParams) -> tuple[dict, d
 
 def worse(sev_a, m_a, sev_b, m_b) -> np.ndarray:
     """Whether row a is worse than row b: more severe, or as severe with a smaller margin."""
-    return (sev_a > sev_b) | ((sev_a == sev_b) & (m_a < m_b * (1.0 - _TIE)))
+    return (sev_a > sev_b) | ((sev_a == sev_b) & (m_a < m_b * (1.0 - TIE)))
 
 
 class _Box:
@@ -244,7 +253,7 @@ def find_worst_case(rail: Rail, rules: dict, *, t_fault_range: tuple[float, floa
         for j in range(len(cs), params.n)]
     report(1.0)
     return WorstCase(params=params, fig=fig, checks=checks, source=source, names=names, worst=worst,
-                     found_by=found, corners=cs, n_search=n_search,
+                     found_by=found, corners=cs, n_search=n_search, rail=rail,
                      budget={"sobol_points": SOBOL_POINTS if box.d and live else 0, "compass_rounds": COMPASS_ROUNDS,
                              "compass_step": COMPASS_STEP, "seed": SEARCH_SEED,
                              "parameters": [d[0] for d in box.dims]})
