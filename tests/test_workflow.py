@@ -84,7 +84,7 @@ def test_not_an_object_is_refused():
 
 def _facts(**kw) -> RailFacts:
     base = {"state": "awaiting review", "head_n": 3, "approvals": (), "checks": (CheckFact("startup_soa", "pass"),),
-            "waived": frozenset()}
+            "waived": {}}
     return RailFacts(**{**base, **kw})
 
 
@@ -124,10 +124,10 @@ def test_checks_must_pass_or_be_waived_and_an_unanalysed_rail_does_not_pass():
     checks = (CheckFact("startup_soa", "fail"), CheckFact("fault_margin", "marginal"), CheckFact("retry", "n/a"))
     open_ = blockers(step, _facts(approvals=approved, checks=checks))
     assert "startup_soa (fail)" in open_[0].message and "fault_margin (marginal)" in open_[0].message
-    partly = blockers(step, _facts(approvals=approved, checks=checks, waived=frozenset({"startup_soa"})))
+    partly = blockers(step, _facts(approvals=approved, checks=checks, waived={"startup_soa": "fail"}))
     assert "startup_soa" not in partly[0].message and "fault_margin" in partly[0].message
     assert blockers(step, _facts(approvals=approved, checks=checks,
-                                 waived=frozenset({"startup_soa", "fault_margin"}))) == []
+                                 waived={"startup_soa": "fail", "fault_margin": "marginal"})) == []
 
 
 def test_a_transition_from_another_state_is_blocked():
