@@ -30,7 +30,8 @@ from server.services import results, signoff, workflows
 from server.services.access import Actor, scoped_rails
 from server.workflow import SEVERITY, worse
 
-__all__ = ["ENGINE_ACTOR", "MOVED", "engine_actor", "outdated_heads", "on_new_result", "reason_text", "moved_rails"]
+__all__ = ["ENGINE_ACTOR", "MOVED", "engine_actor", "head_is_outdated", "outdated_heads", "rerun_job",
+           "on_new_result", "reason_text", "moved_rails"]
 
 ENGINE_ACTOR = "railsign-engine"   # the name the engine's own changes are recorded under
 MOVED = "engine_moved"             # audit action of a rail moved out of its signed-off state by a new engine
@@ -48,6 +49,14 @@ def _nominal(result_sha, *conditions):
                           AnalysisResult.options_key == results.options_key(results.NOMINAL_OPTIONS), *conditions)
 
 
+def head_is_outdated():
+    """Condition on Rail: its head revision has a nominal+corners result of another engine version and
+    none of the current one (it reads as outdated, not as not analysed)."""
+    current = results.engine_version()
+    return _nominal(Rail.head_sha256, AnalysisResult.engine_version != current) & \
+        ~_nominal(Rail.head_sha256, AnalysisResult.engine_version == current)
+
+
 def outdated_heads(session: Session, *, actor: Actor | None = None, without_job: bool = False,
                    rail_ids: list[int] | None = None) -> list[tuple[Rail, RailRevision]]:
     """Rails (with their head revision, document not loaded) whose head has a nominal+corners result of
@@ -59,9 +68,7 @@ def outdated_heads(session: Session, *, actor: Actor | None = None, without_job:
     current = results.engine_version()
     stmt: Select = (select(Rail, RailRevision)
                     .join(RailRevision, (RailRevision.rail_id == Rail.id) & (RailRevision.n == Rail.head_n))
-                    .where(_nominal(Rail.head_sha256, AnalysisResult.engine_version != current),
-                           ~_nominal(Rail.head_sha256, AnalysisResult.engine_version == current))
-                    .options(defer(RailRevision.document)).order_by(Rail.id))
+                    .where(head_is_outdated()).options(defer(RailRevision.document)).order_by(Rail.id))
     if without_job:
         stmt = stmt.where(~exists().where(
             Job.rail_id == Rail.id, Job.sha256 == Rail.head_sha256, Job.engine_version == current,
@@ -72,6 +79,13 @@ def outdated_heads(session: Session, *, actor: Actor | None = None, without_job:
     if actor is not None:
         stmt = stmt.where(Rail.id.in_(scoped_rails(select(Rail.id), actor)))
     return [(rail, rev) for rail, rev in session.execute(stmt).all()]
+
+
+def rerun_job(session: Session, *, rail_id: int, sha256: str) -> Job | None:
+    """The newest nominal+corners job of the current engine for one revision of a rail (any state)."""
+    return session.scalar(select(Job).where(
+        Job.rail_id == rail_id, Job.sha256 == sha256, Job.engine_version == results.engine_version(),
+        Job.options_key == results.options_key(results.NOMINAL_OPTIONS)).order_by(Job.id.desc()).limit(1))
 
 
 # --- a new result that reads worse ----------------------------------------------------------
@@ -185,7 +199,7 @@ def moved_rails(*, session: Session, actor: Actor, product_id: int | None = None
         after = entry.after or {}
         out.append({"rail_id": entry.object_id, "rail": rail_name, "board_id": board_id,
                     "board": f"{board_name} rev {board_rev}", "product_id": pid, "product": product_name,
-                    "at": entry.at, "revision": after.get("revision"), "reason": after.get("reason", ""),
+                    "at": entry.at.isoformat(), "revision": after.get("revision"), "reason": after.get("reason", ""),
                     "old_verdict": after.get("old_verdict"), "new_verdict": after.get("new_verdict"),
                     "old_engine": after.get("old_engine"), "new_engine": after.get("new_engine"),
                     "from": (entry.before or {}).get("state"), "to": after.get("state"),

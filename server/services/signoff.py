@@ -124,7 +124,7 @@ def on_new_revision(session: Session, actor: Actor, rail: Rail, revision: RailRe
     team_id, product_id = workflows.team_of_rail(session, rail)
     stale = list(session.scalars(select(Approval).where(Approval.rail_id == rail.id, Approval.stale_at.is_(None),
                                                         Approval.revision_n < revision.n)))
-    make_stale(session, actor, rail, stale, reason=f"revision {revision.n} was saved after it",
+    make_stale(session, actor, rail, stale, reason=f"the rail changed after it: revision {revision.n} was saved",
                product_id=product_id, revision_n=revision.n)
     wf = workflows.definition_for_team(session, team_id)
     row = workflows.state_of(session, rail, wf)
