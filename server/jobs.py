@@ -316,11 +316,9 @@ def finish(session: Session, claim: Claim, *, result: dict[str, Any], duration_s
     job.state, job.progress, job.result_id, job.finished_at = JobState.done.value, 1.0, stored.id, utcnow()
     job.error = ""
     session.flush()
-    if job.rail_id is not None:
-        moved = engine_change.on_new_result(session, rail_id=job.rail_id, sha256=job.sha256, result=stored)
-        if moved:
-            log.warning("rail %s moved from '%s' to '%s': %s", moved["rail_id"], moved["from"], moved["to"],
-                        moved["reason"])
+    for moved in engine_change.on_new_result(session, sha256=job.sha256, result=stored):
+        log.warning("rail %s moved from '%s' to '%s': %s", moved["rail_id"], moved["from"], moved["to"],
+                    moved["reason"])
     if job.parent_id:
         _refresh_parent_row(session, session.get(Job, job.parent_id))
     session.commit()

@@ -52,8 +52,9 @@ def worse(verdict: str | None, than: str | None) -> bool:
 
 
 def waiver_covers(waived_verdict: str | None, current_verdict: str | None) -> bool:
-    """A waiver covers a check while the check reads no worse than the verdict it waived."""
-    return not worse(current_verdict, waived_verdict)
+    """A waiver covers a check while the check reads no worse than the verdict it waived (a verdict
+    word the waiver does not know covers nothing)."""
+    return waived_verdict in SEVERITY and not worse(current_verdict, waived_verdict)
 
 DEFAULT_WORKFLOW: dict[str, Any] = {
     "name": "margin review",

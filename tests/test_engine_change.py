@@ -324,6 +324,26 @@ def test_a_signed_off_rail_read_worse_by_the_new_engine_goes_back_with_its_appro
     assert again.json()["engine_version"] == NEW and again.json()["stale"] is False
 
 
+def test_rails_sharing_a_document_are_all_moved_by_the_one_result_that_reads_them(client, people, session_factory,
+                                                                                  engine_at):
+    engine_at(OLD)
+    rails = [make_rail(client, people, make_board(client, people, name=f"Product {k}")) for k in range(2)]
+    assert rails[0]["head"]["sha256"] == rails[1]["head"]["sha256"]
+    _finish_queued(session_factory, lambda sha: PASSING)
+    for rail in rails:
+        _sign_off(client, people, rail["id"], rail["head"]["sha256"])
+    engine_at(NEW)
+    with session_factory() as s:
+        assert len(jobs.enqueue_outdated(session=s)) == 2
+        claim = jobs.claim_next(s, worker="test-worker", lease_s=30, max_attempts=3)
+    with session_factory() as s:
+        assert jobs.finish(s, claim, result=result_of(FAILING_SOA), duration_s=0.01)
+    assert [_status(client, people, r["id"])["state"]["name"] for r in rails] == ["in design", "in design"]
+    _finish_queued(session_factory, lambda sha: FAILING_SOA)   # the other rail's job: the same result, once
+    for rail in rails:
+        assert [e["action"] for e in _audit(client, people, rail["id"])].count(engine_change.MOVED) == 1
+
+
 def test_a_signed_off_rail_the_new_engine_reads_no_worse_stays_and_shows_the_result_it_was_given_for(
         client, app, people, session_factory, engine_at):
     _, rail = _signed_off_at_old_engine(client, people, session_factory, engine_at)

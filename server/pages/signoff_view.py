@@ -55,12 +55,6 @@ def rail_signoff(session: Session, actor: Actor, rail_id: int) -> dict[str, Any]
     status = signoff.signoff_status(session=session, actor=actor, rail_id=rail_id)
     head = status["head"]
     own = head.get("author_id") is not None and head["author_id"] == actor.user_id
-    now_reads = {}
-    for c in status["checks"]["checks"]:
-        now_reads.setdefault(str(c["id"]), []).append(c["verdict"])
-    for w in status["waivers"]:
-        if w.get("covers") is False:
-            w["now_reads"] = next((v for v in ("fail", "marginal") if v in now_reads.get(w["check_id"], [])), None)
     current = [w for w in status["waivers"] if w.get("current")]
     waived_now = {w["check_id"] for w in current if w.get("covers") is not False}
     open_checks = [c for c in status["checks"]["checks"] if c["id"] in status["checks"]["open"]]

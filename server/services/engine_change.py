@@ -7,12 +7,12 @@ results are all outdated are analysed again (:func:`outdated_heads`; the jobs ar
 :func:`server.jobs.enqueue_outdated` when the service starts, and by ``railsign jobs
 rerun-outdated``).
 
-When the new result of a signed-off rail reads worse than the result its approvals were given
-for (or, for approvals that did not keep it, than the revision's newest outdated result),
-:func:`on_new_result` moves the rail back to its workflow's ``on_edit`` state, marks those
-approvals stale with the reason in words and records both in the audit trail, in the
-transaction that stores the result. :func:`moved_rails` lists those moves for the rails'
-authors and for managers.
+When the new result of a signed-off rail's head revision reads worse than the result its
+approvals were given for (or, for approvals that did not keep it, than the revision's newest
+outdated result), :func:`on_new_result` moves the rail back to its workflow's ``on_edit``
+state through the workflow service, marks those approvals stale with the reason in words and
+records both in the audit trail, in the transaction that stores the result.
+:func:`moved_rails` lists those moves for the rails' authors and for managers.
 
 "Outdated" means computed by another engine version than the running one: in practice an
 older one (after a downgrade, the newer one's results read as outdated the same way).
@@ -57,8 +57,8 @@ def head_is_outdated():
         ~_nominal(Rail.head_sha256, AnalysisResult.engine_version == current)
 
 
-def outdated_heads(session: Session, *, actor: Actor | None = None, without_job: bool = False,
-                   rail_ids: list[int] | None = None) -> list[tuple[Rail, RailRevision]]:
+def outdated_heads(session: Session, *, actor: Actor | None = None,
+                   without_job: bool = False) -> list[tuple[Rail, RailRevision]]:
     """Rails (with their head revision, document not loaded) whose head has a nominal+corners result of
     another engine version and none of the current one, by rail id.
 
@@ -74,8 +74,6 @@ def outdated_heads(session: Session, *, actor: Actor | None = None, without_job:
             Job.rail_id == Rail.id, Job.sha256 == Rail.head_sha256, Job.engine_version == current,
             Job.options_key == results.options_key(results.NOMINAL_OPTIONS),
             Job.state != JobState.cancelled.value))
-    if rail_ids is not None:
-        stmt = stmt.where(Rail.id.in_(rail_ids))
     if actor is not None:
         stmt = stmt.where(Rail.id.in_(scoped_rails(select(Rail.id), actor)))
     return [(rail, rev) for rail, rev in session.execute(stmt).all()]
@@ -130,21 +128,25 @@ def _earlier_results(session: Session, approvals: list[Approval], sha256: str,
     return [] if old is None else [old]
 
 
-def on_new_result(session: Session, *, rail_id: int, sha256: str, result: AnalysisResult) -> dict[str, Any] | None:
+def on_new_result(session: Session, *, sha256: str, result: AnalysisResult) -> list[dict[str, Any]]:
     """React to a stored nominal+corners result of the current engine (called in the storing transaction).
 
-    When it is the result of the rail's head revision, the rail stands in a signed-off state,
-    and the new verdict is worse than the one its current approvals were given for (the
-    most favourable of them; failing approvals that kept it, the revision's newest outdated
-    result): the rail goes to the workflow's ``on_edit`` state, those approvals go stale with
-    the reason, and both are recorded. Returns what was done, or None when nothing was.
+    For every rail whose head revision has this hash (rails with equal documents share results):
+    when the rail stands in a signed-off state and the new verdict is worse than the one its
+    current approvals were given for (the most favourable of them; when no approval kept its
+    result, the revision's newest outdated result), the rail goes to the workflow's ``on_edit``
+    state, those approvals go stale with the reason, and both are recorded. Returns what was done.
     """
     if result.engine_version != results.engine_version() or \
             result.options_key != results.options_key(results.NOMINAL_OPTIONS):
-        return None
-    rail = session.scalar(select(Rail).where(Rail.id == rail_id).with_for_update(of=Rail))
-    if rail is None or rail.head_sha256 != sha256:
-        return None
+        return []
+    heads = select(RailRevision.rail_id).where(RailRevision.sha256 == sha256)
+    rails = session.scalars(select(Rail).where(Rail.id.in_(heads), Rail.head_sha256 == sha256)
+                            .order_by(Rail.id).with_for_update(of=Rail)).all()
+    return [moved for rail in rails if (moved := _react(session, rail, result)) is not None]
+
+
+def _react(session: Session, rail: Rail, result: AnalysisResult) -> dict[str, Any] | None:
     team_id, product_id = workflows.team_of_rail(session, rail)
     wf = workflows.definition_for_team(session, team_id)
     state = workflows.state_of(session, rail, wf)
@@ -153,7 +155,7 @@ def on_new_result(session: Session, *, rail_id: int, sha256: str, result: Analys
     approvals = list(session.scalars(select(Approval).where(
         Approval.rail_id == rail.id, Approval.revision_n == rail.head_n, Approval.stale_at.is_(None))
         .order_by(Approval.id)))
-    earlier = _earlier_results(session, approvals, sha256, result)
+    earlier = _earlier_results(session, approvals, rail.head_sha256, result)
     if not earlier:
         return None
     before = min(earlier, key=lambda r: (SEVERITY.get(r.verdict, 3), -r.id))

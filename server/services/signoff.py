@@ -164,16 +164,30 @@ def _waived_verdicts(waivers: list[Waiver], head_n: int) -> dict[str, str]:
     return out
 
 
+def _head_waiver_dict(w: Waiver, head_n: int, now: Reading | None, reads: str | None) -> dict[str, Any]:
+    """A waiver with, when it is of the head revision and the head has a current result, whether it
+    still covers its check (``covers``) and what the check reads now (``now_reads``)."""
+    if w.revision_n != head_n or reads is None:
+        return waiver_dict(w, head_n, now)
+    return {**waiver_dict(w, head_n, now, covers=waiver_covers(w.verdict, reads)), "now_reads": reads}
+
+
+def _worst_verdicts(checks: list[dict] | None) -> dict[str, str]:
+    """Check id -> its most severe verdict over the rows (corners) of ``checks``."""
+    worst: dict[str, str] = {}
+    for c in checks or []:
+        cid, verdict = str(c.get("id")), str(c.get("verdict"))
+        if cid not in worst or SEVERITY.get(verdict, 3) > SEVERITY.get(worst[cid], 3):
+            worst[cid] = verdict
+    return worst
+
+
 def covering_waivers(checks: list[dict] | None, waivers: list[Waiver], head_n: int) -> dict[str, Waiver]:
     """Check id -> the newest waiver of the head revision that still covers the check's worst current verdict.
 
     A check that is not in ``checks`` (or reads no problem) needs no waiver and gets none here.
     """
-    worst: dict[str, str] = {}
-    for c in checks or []:
-        cid, verdict = str(c.get("id")), str(c.get("verdict"))
-        if verdict in PROBLEM_VERDICTS and SEVERITY.get(verdict, 3) > SEVERITY.get(worst.get(cid, "n/a"), 3):
-            worst[cid] = verdict
+    worst = {cid: v for cid, v in _worst_verdicts(checks).items() if v in PROBLEM_VERDICTS}
     out: dict[str, Waiver] = {}
     for w in waivers:
         if w.revision_n == head_n and w.check_id in worst and waiver_covers(w.verdict, worst[w.check_id]):
@@ -209,8 +223,8 @@ def _transition_dicts(wf: WorkflowDef, facts: RailFacts, actor: Actor) -> list[d
 
 
 def _check_summary(checks: list[dict] | None, waivers: list[Waiver], head_n: int) -> dict[str, Any]:
-    """Each check with the waiver that covers it; ``lapsed_waiver``: a waiver of the head revision
-    for a check that now reads worse than the verdict waived (it no longer covers it)."""
+    """Each check with the newest waiver of the head revision that covers its reading (a waiver
+    of a marginal reading does not cover a failing one); ``open``: problem checks none covers."""
     if checks is None:
         return {"analysed": False, "checks": [], "open": []}
     head = [w for w in waivers if w.revision_n == head_n]
@@ -220,11 +234,9 @@ def _check_summary(checks: list[dict] | None, waivers: list[Waiver], head_n: int
         mine = [w for w in head if w.check_id == cid]
         covering = next((w for w in reversed(mine) if waiver_covers(w.verdict, verdict)), None) \
             if verdict in PROBLEM_VERDICTS else None
-        lapsed = next((w for w in reversed(mine) if not waiver_covers(w.verdict, verdict)), None)
         rows.append({"id": c.get("id"), "title": c.get("title", ""), "verdict": verdict,
                      "value": c.get("value"), "limit": c.get("limit"), "unit": c.get("unit"),
-                     "corner": c.get("corner"), "waiver": waiver_dict(covering) if covering else None,
-                     "lapsed_waiver": waiver_dict(lapsed, covers=False) if lapsed and not covering else None})
+                     "corner": c.get("corner"), "waiver": waiver_dict(covering) if covering else None})
     open_ids = [r["id"] for r in rows if r["verdict"] in PROBLEM_VERDICTS and r["waiver"] is None]
     return {"analysed": True, "checks": rows, "open": open_ids}
 
@@ -249,21 +261,11 @@ def signoff_status(*, session: Session, actor: Actor, rail_id: int) -> dict[str,
         "workflow": wf.name,
         "result": now.as_dict() if now is not None else None,
         "approvals": [approval_dict(a, now, rail.head_n) for a in approvals],
-        "waivers": [waiver_dict(w, rail.head_n, now, covers=None if w.revision_n != rail.head_n or checks is None
-                                else waiver_covers(w.verdict, verdicts.get(w.check_id, "n/a")))
+        "waivers": [_head_waiver_dict(w, rail.head_n, now, None if checks is None else verdicts.get(w.check_id, "n/a"))
                     for w in waivers],
         "checks": _check_summary(checks, waivers, rail.head_n),
         "transitions": _transition_dicts(wf, facts, actor),
     }
-
-
-def _worst_verdicts(checks: list[dict] | None) -> dict[str, str]:
-    worst: dict[str, str] = {}
-    for c in checks or []:
-        cid, verdict = str(c.get("id")), str(c.get("verdict"))
-        if cid not in worst or SEVERITY.get(verdict, 3) > SEVERITY.get(worst[cid], 3):
-            worst[cid] = verdict
-    return worst
 
 
 # --- approving, waiving, moving ------------------------------------------------------------
