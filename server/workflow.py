@@ -440,7 +440,8 @@ def blockers(transition: Transition, facts: RailFacts) -> list[Blocker]:
                                         f"{facts.head_n} by reviewers; it has {len(have)}"))
     if transition.demands.checks_pass:
         if facts.checks is None:
-            out.append(Blocker("checks", f"revision {facts.head_n} has not been analysed: analyse it first"))
+            out.append(Blocker("checks", f"revision {facts.head_n} has not been analysed at the current engine "
+                                        "version: analyse it first"))
         else:
             open_checks = unresolved_checks(facts)
             if open_checks:

@@ -22,7 +22,7 @@ from server.models import Approval, AuditEntry, Job, RailState
 from server.pages.home import home_context
 from server.pages.rendering import templates
 from server.pages.signoff_view import outdated_context, rail_signoff
-from server.services import engine_change, results
+from server.services import engine_change, overview, results
 from tests.conftest import TEST_SECRET
 from tests.pages.helpers import actor_of, log_in
 from tests.signoff_support import PASSING, check, edit_rail, make_board, make_rail, result_of, store_checks
@@ -107,8 +107,14 @@ def test_a_stored_old_engine_result_reads_as_outdated_not_as_not_analysed(client
         assert (now.row.id, now.outdated, now.engine_version, now.current_engine) == (old_id, True, OLD, NEW)
         assert results.checks_for_revision(s, sha256=sha) is None       # never taken for the current engine's
         home = home_context(s, actor_of(s, "viewer"))
+        board_view = overview.board_rails(session=s, actor=actor_of(s, "viewer"), board_id=board["id"])
+        product_view = overview.product_overview(session=s, actor=actor_of(s, "viewer"),
+                                                 product_id=rail["product_id"])
     (product,) = home["products"]
     assert product["outdated"] == 1 and product["counts"] == [("outdated", 1)]
+    assert [(r["verdict"], r["outdated"]) for r in board_view["rails"]] == [(None, {"engine_version": OLD,
+                                                                                     "verdict": "fail"})]
+    assert product_view["outdated"] == 1 and product_view["by_verdict"] == {None: 1}
 
     status = _status(client, people, rail["id"])
     assert status["result"] == {**status["result"], "id": old_id, "engine_version": OLD, "verdict": "fail",

@@ -54,7 +54,7 @@ def home_context(session: Session, actor: Actor) -> dict[str, Any]:
         p["counts"] = _with_outdated(_ordered_counts(p["by_verdict"]), p["outdated"])
     return {"products": products, "engine_moves": engine_moves_for(session, actor), "current_engine": engine_version(),
             "engine_moves_intro": "A new analysis engine read these signed-off rails worse than the result their "
-                                  "approvals were given for: each went back to design and its approvals went stale. "
+                                  "approvals were given for: each left its signed-off state and its approvals went stale. "
                                   + ("Rails of your teams." if actor.can(Permission.RISK) else
                                      "Rails you authored a revision of.")}
 

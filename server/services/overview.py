@@ -187,26 +187,30 @@ def _checks_of(rail_ids: list[int], session: Session) -> dict[int, tuple[float |
 def board_rails(*, session: Session, actor: Actor, board_id: int) -> dict[str, Any]:
     """A board and its rails: head revision summary, verdict, checks and when they were analysed.
 
-    Each rail also carries ``startup`` (t, i) of its result for the supply budget.
+    Each rail also carries ``startup`` (t, i) of its result for the supply budget, and
+    ``outdated`` (engine version and verdict of its newest result of another engine) when the
+    current engine has not read its head revision yet.
     """
     board = get_board(session=session, actor=actor, board_id=board_id)
     doc = RailRevision.document
     stmt = (select(Rail.id, Rail.name, Rail.mode, Rail.head_n, Rail.updated_at, doc["supply"], doc["load"],
-                   doc["environment"], AnalysisResult.verdict, AnalysisResult.id, AnalysisResult.sha256,
+                   doc["environment"], AnalysisResult.verdict, AnalysisResult.id, Rail.head_sha256,
                    AnalysisResult.created_at)
             .join(RailRevision, (RailRevision.rail_id == Rail.id) & (RailRevision.n == Rail.head_n))
             .outerjoin(AnalysisResult, nominal_result_of_head())
             .where(Rail.board_id == board.id).order_by(Rail.name))
     rows = session.execute(stmt).all()
     parts = result_parts(session, [ResultKey(r[9], r[10], r[11]) for r in rows if r[9] is not None])
+    outdated = results.outdated_verdicts(session, [r[10] for r in rows if r[9] is None])
     rails = []
-    for (rid, name, mode, head_n, updated_at, supply, load, env, verdict, result_id, _sha,
+    for (rid, name, mode, head_n, updated_at, supply, load, env, verdict, result_id, sha,
          analysed_at) in rows:
         p = parts.get(result_id)
         rails.append({"id": rid, "name": name, "mode": mode, "head_n": head_n, "updated_at": updated_at,
                       "supply": supply or {}, "load": load or {}, "t_ambient": (env or {}).get("t_ambient"),
                       "verdict": verdict, "analysed_at": analysed_at, "checks": p.checks if p else [],
-                      "startup": (p.t, p.i) if p and p.t and p.i else None})
+                      "startup": (p.t, p.i) if p and p.t and p.i else None,
+                      "outdated": outdated.get(sha) if verdict is None else None})
     return {"board": board, "product": board.product, "rails": rails}
 
 

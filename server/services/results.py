@@ -21,7 +21,7 @@ from sqlalchemy.orm import Session
 from server.models import AnalysisResult
 
 __all__ = ["NOMINAL_OPTIONS", "engine_version", "normalize_options", "options_key", "find_result", "store_result",
-           "latest_result", "latest_outdated_result", "Reading", "reading", "checks_for_revision", "result_dict"]
+           "latest_result", "latest_outdated_result", "outdated_verdicts", "Reading", "reading", "checks_for_revision", "result_dict"]
 
 NOMINAL_OPTIONS: dict[str, Any] = {"corners": True, "monte_carlo": 0, "seed": 0, "distribution": "uniform"}
 
@@ -94,6 +94,18 @@ def latest_outdated_result(session: Session, *, sha256: str) -> AnalysisResult |
         AnalysisResult.sha256 == sha256, AnalysisResult.engine_version != engine_version(),
         AnalysisResult.options_key == options_key(NOMINAL_OPTIONS))
         .order_by(AnalysisResult.created_at.desc(), AnalysisResult.id.desc()).limit(1))
+
+
+def outdated_verdicts(session: Session, shas: list[str]) -> dict[str, dict[str, str]]:
+    """Per revision hash: engine version and verdict of its newest nominal+corners result of another engine
+    version than the current one (for lists; whether the current engine has one is the caller's look-up)."""
+    if not shas:
+        return {}
+    rows = session.execute(select(AnalysisResult.sha256, AnalysisResult.engine_version, AnalysisResult.verdict)
+                           .where(AnalysisResult.sha256.in_(set(shas)), AnalysisResult.engine_version != engine_version(),
+                                  AnalysisResult.options_key == options_key(NOMINAL_OPTIONS))
+                           .order_by(AnalysisResult.created_at, AnalysisResult.id)).all()
+    return {sha: {"engine_version": version, "verdict": verdict} for sha, version, verdict in rows}
 
 
 @dataclass(frozen=True)

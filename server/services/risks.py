@@ -115,7 +115,7 @@ def product_risks(*, session: Session, actor: Actor, product_id: int) -> dict[st
         for rail_id, sha in session.execute(select(RailRevision.rail_id, RailRevision.sha256)
                                             .where(RailRevision.rail_id.in_(ids))):
             shas_by_rail[rail_id].add(sha)
-        outdated = _outdated_readings(session, [r.head_sha256 for r in rails])
+        outdated = results.outdated_verdicts(session, [r.head_sha256 for r in rails])
     states = workflows.rail_states(session, ids)
     by_board: dict[int, list[dict[str, Any]]] = defaultdict(list)
     for rail in rails:
@@ -138,14 +138,3 @@ def product_risks(*, session: Session, actor: Actor, product_id: int) -> dict[st
             "boards": board_entries, "current_engine": results.engine_version(),
             "engine_moves": engine_change.moved_rails(session=session, actor=actor, product_id=product.id, limit=50)}
 
-
-def _outdated_readings(session: Session, shas: list[str]) -> dict[str, dict[str, Any]]:
-    """Per revision hash: engine version and verdict of its newest nominal+corners result of another engine."""
-    if not shas:
-        return {}
-    rows = session.execute(select(AnalysisResult.sha256, AnalysisResult.engine_version, AnalysisResult.verdict)
-                           .where(AnalysisResult.sha256.in_(set(shas)),
-                                  AnalysisResult.engine_version != results.engine_version(),
-                                  AnalysisResult.options_key == results.options_key(results.NOMINAL_OPTIONS))
-                           .order_by(AnalysisResult.created_at, AnalysisResult.id)).all()
-    return {sha: {"engine_version": version, "verdict": verdict} for sha, version, verdict in rows}
