@@ -372,8 +372,7 @@ def test_a_signed_off_rail_the_new_engine_reads_no_worse_stays_and_shows_the_res
     assert f"engine {OLD}" in approvals and note in approvals
 
 
-def test_a_worse_result_of_a_rail_not_signed_off_moves_nothing(client, people, session_factory,
-                                                                                  engine_at):
+def test_a_worse_result_of_a_rail_not_signed_off_moves_nothing(client, people, session_factory, engine_at):
     engine_at(OLD)
     rail = make_rail(client, people, make_board(client, people))
     _finish_queued(session_factory, lambda sha: PASSING)
