@@ -349,6 +349,13 @@ def cmd_jobs(args: argparse.Namespace) -> int:
                 jobs.retry_job(session=session, actor=actor, job_id=job_id)
             print(f"queued again: {len(ids)} job(s)")
             return EXIT_OK
+        if args.jobs_command == "rerun-outdated":
+            from server.services.results import engine_version
+
+            queued = jobs.enqueue_outdated(session=session)
+            print(f"queued {len(queued)} analyses at engine {engine_version()} of head revisions whose results "
+                  "are all of another engine version")
+            return EXIT_OK
         rows, total = jobs.list_jobs(session=session, actor=actor, state=args.state, limit=args.limit)
         print(f"{'id':>6} {'kind':<12} {'state':<10} {'progress':>8} {'rail':>6} {'rev':>4} {'tries':>5}  error")
         for j in rows:
@@ -412,7 +419,7 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--poll", type=float, default=0.5, help="seconds between looks at an empty queue")
     p.add_argument("--exit-when-empty", action="store_true", help="stop once no job is queued or running")
     p.add_argument("--check", action="store_true", help="only check that the database answers (health check)")
-    p = command("jobs", cmd_jobs, "list analysis jobs, or queue failed ones again")
+    p = command("jobs", cmd_jobs, "list analysis jobs, queue failed ones again, or re-run outdated results")
     jsub = p.add_subparsers(dest="jobs_command")
     p.set_defaults(jobs_command="list", state=None, limit=50)
     j = jsub.add_parser("list", help="list jobs, newest first")
@@ -421,6 +428,8 @@ def build_parser() -> argparse.ArgumentParser:
     j = jsub.add_parser("retry", help="queue a failed or cancelled job again")
     j.add_argument("id", type=int, nargs="?")
     j.add_argument("--failed", action="store_true", help="every failed job")
+    jsub.add_parser("rerun-outdated", help="queue the analysis, at the current engine, of every rail's head "
+                    "revision whose results are all of another engine version (also done as the service starts)")
 
     p = command("user", cmd_user, "manage users")
     usub = p.add_subparsers(dest="user_command", required=True)

@@ -100,6 +100,21 @@ def _install_error_handlers(app: FastAPI) -> None:
                                        request_id=getattr(request.state, "request_id", "")), status_code=500)
 
 
+def queue_outdated(factory) -> int:  # noqa: ANN001
+    """As the app starts: queue the re-run of head revisions whose results are all of another engine
+    version (idempotent, serialised between processes; see :func:`server.jobs.enqueue_outdated`).
+    A failure is logged, not fatal: ``railsign jobs rerun-outdated`` does the same by hand."""
+    from server import jobs
+
+    try:
+        with factory() as session:
+            return len(jobs.enqueue_outdated(session=session))
+    except Exception:
+        logging.getLogger("railsign.jobs").exception(
+            "could not queue the re-run of outdated results; run `railsign jobs rerun-outdated`")
+        return 0
+
+
 def create_app(settings: Settings | None = None) -> FastAPI:
     """Build the app for ``settings`` (default: the environment's)."""
     settings = settings or get_settings()
@@ -108,6 +123,7 @@ def create_app(settings: Settings | None = None) -> FastAPI:
 
     @asynccontextmanager
     async def lifespan(app: FastAPI):
+        queue_outdated(app.state.sessionmaker)
         pool = None
         if settings.worker_threads > 0:
             from server.worker import WorkerPool

@@ -11,6 +11,12 @@ themselves are stored once per (sha256, engine version, options).
 
 Board jobs are containers: they hold one rail job per rail, and their progress and
 state follow their children.
+
+A new engine version: :func:`enqueue_outdated` queues the analysis of every head revision
+whose results are all of another engine version (the app calls it once as it starts; it is
+idempotent and serialised across processes), and :func:`finish` lets
+:func:`server.services.engine_change.on_new_result` react, in the same transaction, to a
+result that reads a signed-off rail worse than before.
 """
 
 from __future__ import annotations
@@ -21,12 +27,12 @@ from dataclasses import dataclass
 from datetime import timedelta
 from typing import Any
 
-from sqlalchemy import event, func, select, update
+from sqlalchemy import event, func, select, text, update
 from sqlalchemy.orm import Session
 
 from server.db import begin_write
 from server.models import Board, Job, JobKind, JobState, Product, Rail, RailRevision, utcnow
-from server.services import results
+from server.services import engine_change, results
 from server.services.access import Actor, Permission
 from server.services.catalog import get_board
 from server.services.errors import Conflict, NotFound
@@ -34,7 +40,7 @@ from server.services.rails import get_rail, get_revision, list_rails
 
 __all__ = ["ACTIVE", "job_dict", "enqueue_rail", "enqueue_for_revision", "enqueue_board", "get_job", "list_jobs",
            "cancel_job", "retry_job", "claim_next", "Claim", "heartbeat", "finish", "fail", "release_expired",
-           "refresh_parent", "wakeup"]
+           "refresh_parent", "wakeup", "enqueue_outdated"]
 
 log = logging.getLogger("railsign.jobs")
 ACTIVE = (JobState.queued.value, JobState.running.value)
@@ -135,6 +141,36 @@ def enqueue_board(*, session: Session, actor: Actor, board_id: int, options: dic
     wakeup.set()
     log.info("job %s queued: board %s, %s rails", parent.id, board.id, len(rows))
     return parent
+
+
+# One constant key for PostgreSQL's transaction-scoped advisory lock that serialises enqueue_outdated
+# between web processes starting together (crc32 of "railsign.enqueue_outdated").
+_OUTDATED_LOCK_KEY = 0x2C1E_6A33
+
+
+def enqueue_outdated(*, session: Session, actor: Actor | None = None) -> list[Job]:
+    """Queue the nominal + corners analysis of every rail's head revision whose results are all of
+    another engine version and that has no job at the current one yet; returns the jobs queued.
+
+    Idempotent: a head with a queued, running, done or failed job at the current engine is left
+    alone. Safe when several web processes start together: on PostgreSQL they take a
+    transaction-scoped advisory lock in turn (the second then sees the first's jobs), on SQLite
+    the write lock taken at the start of the transaction does the same. ``actor``: who queues
+    (default: the engine's system actor, all teams); a user queues only their teams' rails.
+    """
+    actor = actor or engine_change.engine_actor()
+    actor.require(Permission.ANALYZE)
+    begin_write(session)
+    if session.get_bind().dialect.name == "postgresql":
+        session.execute(text("SELECT pg_advisory_xact_lock(:key)"), {"key": _OUTDATED_LOCK_KEY})
+    heads = engine_change.outdated_heads(session, actor=actor, without_job=True)
+    queued = [_new_rail_job(session, actor, rail, rev, results.NOMINAL_OPTIONS, force=False) for rail, rev in heads]
+    session.commit()
+    if queued:
+        wakeup.set()
+        log.info("queued %s analyses of head revisions whose results are of another engine than %s",
+                 len(queued), results.engine_version())
+    return queued
 
 
 def _scoped_job(session: Session, actor: Actor, job: Job | None, job_id: int) -> Job:
@@ -280,6 +316,9 @@ def finish(session: Session, claim: Claim, *, result: dict[str, Any], duration_s
     job.state, job.progress, job.result_id, job.finished_at = JobState.done.value, 1.0, stored.id, utcnow()
     job.error = ""
     session.flush()
+    for moved in engine_change.on_new_result(session, sha256=job.sha256, result=stored):
+        log.warning("rail %s moved from '%s' to '%s': %s", moved["rail_id"], moved["from"], moved["to"],
+                    moved["reason"])
     if job.parent_id:
         _refresh_parent_row(session, session.get(Job, job.parent_id))
     session.commit()

@@ -175,7 +175,7 @@ class AuditEntry(Base):
     """Append-only change record: written in the same transaction as the change it describes."""
 
     __tablename__ = "audit_entries"
-    __table_args__ = (Index("ix_audit_object", "object_type", "object_id"),)
+    __table_args__ = (Index("ix_audit_object", "object_type", "object_id"), Index("ix_audit_action", "action"))
     id: Mapped[int] = mapped_column(primary_key=True)
     at: Mapped[datetime] = mapped_column(default=utcnow, index=True)
     user_id: Mapped[int | None] = mapped_column(ForeignKey("users.id"))
@@ -275,10 +275,16 @@ class RailState(Base):
 
 
 class Approval(Base):
-    """A reviewer's approval of one rail revision; stale (kept) once the rail has a newer revision."""
+    """A reviewer's approval of one rail revision as one stored result read it.
+
+    Stale (kept) once the rail has a newer revision, or once a new engine reads the revision
+    worse than the result it was given for (``stale_reason`` says which). ``engine_version``
+    and ``result_id`` name that result; they are empty on approvals made before they were kept.
+    """
 
     __tablename__ = "approvals"
-    __table_args__ = (UniqueConstraint("rail_id", "revision_n", "reviewer_id"),)
+    __table_args__ = (UniqueConstraint("rail_id", "revision_n", "reviewer_id", "result_id",
+                                       name="uq_approvals_reviewer_result"),)
     id: Mapped[int] = mapped_column(primary_key=True)
     rail_id: Mapped[int] = mapped_column(ForeignKey("rails.id", ondelete="CASCADE"), index=True)
     revision_n: Mapped[int]
@@ -288,13 +294,22 @@ class Approval(Base):
     comment: Mapped[str] = mapped_column(Text, default="")
     created_at: Mapped[datetime] = mapped_column(default=utcnow)
     stale_at: Mapped[datetime | None]
+    stale_reason: Mapped[str] = mapped_column(Text, default="", server_default=text("''"))
+    engine_version: Mapped[str | None] = mapped_column(String(20))
+    result_id: Mapped[int | None] = mapped_column(ForeignKey("analysis_results.id", ondelete="SET NULL"))
 
 
 class Waiver(Base):
-    """A reviewer's reasoned acceptance of one failing or marginal check of one rail revision."""
+    """A reviewer's reasoned acceptance of one failing or marginal check of one rail revision.
+
+    It covers the check while the check reads no worse than ``verdict``, the verdict waived.
+    ``engine_version`` and ``result_id`` name the result it was given against (empty on
+    waivers made before they were kept).
+    """
 
     __tablename__ = "waivers"
-    __table_args__ = (UniqueConstraint("rail_id", "revision_n", "check_id"),)
+    __table_args__ = (UniqueConstraint("rail_id", "revision_n", "check_id", "result_id",
+                                       name="uq_waivers_check_result"),)
     id: Mapped[int] = mapped_column(primary_key=True)
     rail_id: Mapped[int] = mapped_column(ForeignKey("rails.id", ondelete="CASCADE"), index=True)
     revision_n: Mapped[int]
@@ -307,6 +322,8 @@ class Waiver(Base):
     reviewer_name: Mapped[str] = mapped_column(String(200))
     created_at: Mapped[datetime] = mapped_column(default=utcnow)
     carried_from_id: Mapped[int | None] = mapped_column(ForeignKey("waivers.id", ondelete="SET NULL"))
+    engine_version: Mapped[str | None] = mapped_column(String(20))
+    result_id: Mapped[int | None] = mapped_column(ForeignKey("analysis_results.id", ondelete="SET NULL"))
 
 
 class LoginThrottle(Base):

@@ -7,7 +7,9 @@ Pure: no database, no web. Provides
   problem with its field path) and return a :class:`WorkflowDef`;
 - :class:`RailFacts`, :class:`ApprovalFact`, :class:`CheckFact`: what the caller knows about a
   rail when a transition is tried;
-- :func:`blockers`: the unmet demands of a transition for those facts (empty: it may be taken).
+- :func:`blockers`: the unmet demands of a transition for those facts (empty: it may be taken);
+- :data:`SEVERITY`, :func:`worse`, :func:`waiver_covers`: how verdicts rank, and when a waiver
+  still covers a check (while the check reads no worse than the verdict waived).
 
 A definition::
 
@@ -25,12 +27,13 @@ A definition::
 from __future__ import annotations
 
 from collections import deque
+from collections.abc import Mapping
 from dataclasses import dataclass, field
 from typing import Any
 
 __all__ = ["ROLES", "TRANSITION_ROLES", "DEFAULT_WORKFLOW", "WorkflowInvalid", "State", "Demands", "Transition",
            "WorkflowDef", "parse_workflow", "ApprovalFact", "CheckFact", "RailFacts", "Blocker", "blockers",
-           "current_approvers", "outstanding_stale", "unresolved_checks"]
+           "current_approvers", "outstanding_stale", "unresolved_checks", "SEVERITY", "worse", "waiver_covers"]
 
 ROLES = ("viewer", "designer", "reviewer", "manager", "admin")
 TRANSITION_ROLES = ROLES[1:]          # viewers only read
@@ -39,6 +42,19 @@ MAX_STATES = 30
 MAX_TRANSITIONS = 100
 MAX_APPROVALS = 10
 PROBLEM_VERDICTS = ("fail", "marginal")
+# How bad a verdict is: fail > marginal > pass > n/a (an unknown word ranks as a fail: conservative).
+SEVERITY = {"n/a": 0, "pass": 1, "marginal": 2, "fail": 3}
+
+
+def worse(verdict: str | None, than: str | None) -> bool:
+    """Whether ``verdict`` is more severe than ``than``."""
+    return SEVERITY.get(str(verdict), 3) > SEVERITY.get(str(than), 3)
+
+
+def waiver_covers(waived_verdict: str | None, current_verdict: str | None) -> bool:
+    """A waiver covers a check while the check reads no worse than the verdict it waived (a verdict
+    word the waiver does not know covers nothing)."""
+    return waived_verdict in SEVERITY and not worse(current_verdict, waived_verdict)
 
 DEFAULT_WORKFLOW: dict[str, Any] = {
     "name": "margin review",
@@ -358,15 +374,15 @@ class CheckFact:
 class RailFacts:
     """What is known about a rail when a transition is tried.
 
-    ``checks`` is None when the current revision has not been analysed; ``waived`` holds the
-    ids of the checks waived for the current revision.
+    ``checks`` is None when the current revision has not been analysed; ``waived`` maps the id
+    of each check waived for the current revision to the verdict its waiver accepted.
     """
 
     state: str
     head_n: int
     approvals: tuple[ApprovalFact, ...] = ()
     checks: tuple[CheckFact, ...] | None = None
-    waived: frozenset[str] = frozenset()
+    waived: Mapping[str, str] = field(default_factory=dict)
 
 
 @dataclass(frozen=True)
@@ -396,12 +412,16 @@ def outstanding_stale(facts: RailFacts) -> list[ApprovalFact]:
 
 
 def unresolved_checks(facts: RailFacts) -> list[CheckFact]:
-    """Failing or marginal checks of the current revision without a waiver (empty if not analysed)."""
+    """Failing or marginal checks of the current revision that no waiver covers (empty if not analysed).
+
+    A waiver of a marginal check does not cover the same check once it fails.
+    """
     if facts.checks is None:
         return []
     seen: dict[str, CheckFact] = {}
     for c in facts.checks:
-        if c.verdict in PROBLEM_VERDICTS and c.id not in facts.waived and c.id not in seen:
+        covered = c.id in facts.waived and waiver_covers(facts.waived[c.id], c.verdict)
+        if c.verdict in PROBLEM_VERDICTS and not covered and c.id not in seen:
             seen[c.id] = c
     return list(seen.values())
 
@@ -420,7 +440,8 @@ def blockers(transition: Transition, facts: RailFacts) -> list[Blocker]:
                                         f"{facts.head_n} by reviewers; it has {len(have)}"))
     if transition.demands.checks_pass:
         if facts.checks is None:
-            out.append(Blocker("checks", f"revision {facts.head_n} has not been analysed: analyse it first"))
+            out.append(Blocker("checks", f"revision {facts.head_n} has not been analysed at the current engine "
+                                        "version: analyse it first"))
         else:
             open_checks = unresolved_checks(facts)
             if open_checks:

@@ -23,14 +23,21 @@ FAILING = [check("startup_soa", "fail", 0.9), check("fault_margin", "marginal", 
            check("vds_derating", "pass", 0.6, 0.8, "fraction"), check("retry_tj", "n/a", 0.0, 0.0, "degC")]
 
 
-def store_checks(session_factory, sha256: str, checks: list[dict[str, Any]]) -> None:
-    """Store a nominal+corners result for a revision, as the jobs worker will."""
+def result_of(checks: list[dict[str, Any]]) -> dict[str, Any]:
+    """A result as the analysis returns it, reduced to its verdict and checks."""
     worst = "fail" if any(c["verdict"] == "fail" for c in checks) else \
         "marginal" if any(c["verdict"] == "marginal" for c in checks) else "pass"
+    return {"verdict": worst, "checks": checks}
+
+
+def store_checks(session_factory, sha256: str, checks: list[dict[str, Any]], version: str | None = None) -> int:
+    """Store a nominal+corners result for a revision, as the jobs worker will (``version``: of another
+    engine than the current one); returns the result's id."""
     with session_factory() as session:
-        store_result(session, sha256=sha256, options=NOMINAL_OPTIONS, result={"verdict": worst, "checks": checks},
-                     duration_s=0.05)
+        row = store_result(session, sha256=sha256, options=NOMINAL_OPTIONS, result=result_of(checks),
+                           duration_s=0.05, version=version)
         session.commit()
+        return row.id
 
 
 def make_board(client, people, *, name: str = "Test gateway", designer: str = "designer") -> dict:

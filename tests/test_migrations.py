@@ -145,3 +145,65 @@ def test_rails_get_the_summary_of_their_head_revision(empty_url):
     migrate.downgrade(settings, "0003")
     assert "summary" not in {c["name"] for c in inspect(engine).get_columns("rails")}
     engine.dispose()
+
+
+def test_approvals_and_waivers_made_before_0005_keep_their_rows_and_links(empty_url):
+    """0005 adds the result an approval or waiver was given against: empty on existing rows; on SQLite
+    the waivers table is rebuilt, and the link of a carried waiver to its source must survive that."""
+    settings = make_settings(empty_url)
+    migrate.upgrade(settings, "0004")
+    engine = create_engine(empty_url)
+    t = Base.metadata.tables
+    waivers_0004 = table("waivers", *(column(c) for c in (
+        "id", "rail_id", "revision_n", "sha256", "check_id", "check_title", "verdict", "reason", "reviewer_id",
+        "reviewer_name", "created_at", "carried_from_id")))
+    approvals_0004 = table("approvals", *(column(c) for c in (
+        "id", "rail_id", "revision_n", "sha256", "reviewer_id", "reviewer_name", "comment", "created_at")))
+    with engine.begin() as conn:
+        team = conn.execute(t["teams"].insert().values(name="legacy")).inserted_primary_key[0]
+        user = conn.execute(t["users"].insert().values(username="old-reviewer", display_name="", role="reviewer",
+                                                       active=True)).inserted_primary_key[0]
+        product = conn.execute(t["products"].insert().values(team_id=team, name="P", description="")) \
+            .inserted_primary_key[0]
+        board = conn.execute(t["boards"].insert().values(product_id=product, name="Main", revision="A",
+                                                         description="")).inserted_primary_key[0]
+        rail = conn.execute(t["rails"].insert().values(board_id=board, name="VBUS", mode="hard", head_n=2,
+                                                       head_sha256="b" * 64, summary={})).inserted_primary_key[0]
+        row = {"rail_id": rail, "check_id": "startup_soa", "check_title": "Start-up SOA", "verdict": "marginal",
+               "reason": "bench capture", "reviewer_id": user, "reviewer_name": "old-reviewer", "created_at": utcnow()}
+        source = conn.execute(waivers_0004.insert().values(revision_n=1, sha256="a" * 64, carried_from_id=None,
+                                                           **row).returning(waivers_0004.c.id)).scalar_one()
+        carried = conn.execute(waivers_0004.insert().values(revision_n=2, sha256="b" * 64, carried_from_id=source,
+                                                            **row).returning(waivers_0004.c.id)).scalar_one()
+        conn.execute(t["audit_entries"].insert().values(action="waive", object_type="rail", object_id=rail,
+                                                        user_name="old-reviewer", request_id="", object_repr="VBUS"))
+        approval = conn.execute(approvals_0004.insert().values(
+            rail_id=rail, revision_n=2, sha256="b" * 64, reviewer_id=user, reviewer_name="old-reviewer",
+            comment="fine", created_at=utcnow()).returning(approvals_0004.c.id)).scalar_one()
+    migrate.upgrade(settings)
+    with engine.connect() as conn:
+        waivers = conn.execute(select(t["waivers"].c.id, t["waivers"].c.carried_from_id, t["waivers"].c.engine_version,
+                                      t["waivers"].c.result_id).order_by(t["waivers"].c.id)).all()
+        approvals = conn.execute(select(t["approvals"].c.id, t["approvals"].c.engine_version,
+                                        t["approvals"].c.result_id, t["approvals"].c.stale_reason)).all()
+    assert [tuple(w) for w in waivers] == [(source, None, None, None), (carried, source, None, None)]
+    assert [tuple(a) for a in approvals] == [(approval, None, None, "")]
+    with engine.begin() as conn:  # once per result now: the same reviewer approves revision 2 as another result read it
+        result = conn.execute(t["analysis_results"].insert().values(
+            sha256="b" * 64, engine_version="2.0.0", options_key="k", options={}, verdict="pass", result={},
+            duration_s=0.0, created_at=utcnow())).inserted_primary_key[0]
+        conn.execute(t["approvals"].insert().values(rail_id=rail, revision_n=2, sha256="b" * 64, reviewer_id=user,
+                                                    reviewer_name="old-reviewer", comment="read again",
+                                                    created_at=utcnow(), engine_version="2.0.0", result_id=result))
+    with engine.connect() as conn, pytest.raises(DBAPIError):
+        conn.execute(t["approvals"].insert().values(rail_id=rail, revision_n=2, sha256="b" * 64, reviewer_id=user,
+                                                    reviewer_name="old-reviewer", comment="twice",
+                                                    created_at=utcnow(), engine_version="2.0.0", result_id=result))
+    migrate.downgrade(settings, "0004")   # the repeated approval cannot live under the old constraint
+    with engine.connect() as conn:
+        assert conn.execute(select(approvals_0004.c.id)).scalars().all() == [approval]
+        assert [tuple(r) for r in conn.execute(select(waivers_0004.c.id, waivers_0004.c.carried_from_id)
+                                               .order_by(waivers_0004.c.id))] == [(source, None), (carried, source)]
+        with pytest.raises(DBAPIError, match="append-only"):  # the audit guard outlived both rebuilds
+            conn.execute(text("UPDATE audit_entries SET user_name = 'someone else'"))
+    engine.dispose()

@@ -65,7 +65,8 @@ def test_the_risk_view_lists_what_stands_between_each_rail_and_its_sign_off(clie
     assert rails["V_IO"]["state"] == "in design" and rails["V_IO"]["head"]["n"] == 2
     assert body["totals"] == {
         "rails": 4, "signed_off": 1, "rails_at_risk": 3, "failing_check": 0, "marginal_check": 1, "waived_check": 1,
-        "stale_signoff": 1, "missing_signoff": 3, "not_analysed": 1, "never_analysed": 1, "failing_checks": 0,
+        "stale_signoff": 1, "missing_signoff": 3, "outdated_result": 0, "not_analysed": 1, "never_analysed": 1,
+        "failing_checks": 0,
         "marginal_checks": 1, "waived_checks": 1}
     io_counts = next(b for b in body["boards"] if b["name"] == "IO")["counts"]
     assert io_counts["rails"] == 1 and io_counts["stale_signoff"] == 1

@@ -97,6 +97,11 @@ def test_approval_of_an_old_revision_is_refused(client, people, rail):
     unknown = _approve(client, people, rail["id"], "reviewer", "0" * 64)
     assert unknown.status_code == 422
     assert _status(client, people, rail["id"])["approvals"] == []
+    not_analysed = _approve(client, people, rail["id"], "reviewer", new["head"]["sha256"])
+    assert not_analysed.status_code == 409, not_analysed.text
+    assert not_analysed.json()["error"]["code"] == "not_analysed"
+    assert "analyse the revision first" in not_analysed.json()["error"]["message"]
+    store_checks(client.app.state.sessionmaker, new["head"]["sha256"], PASSING)
     assert _approve(client, people, rail["id"], "reviewer", new["head"]["sha256"]).status_code == 201
     twice = _approve(client, people, rail["id"], "reviewer", new["head"]["sha256"])
     assert twice.status_code == 409

@@ -7,7 +7,7 @@ import copy
 import pytest
 
 from server.workflow import (DEFAULT_WORKFLOW, ApprovalFact, CheckFact, RailFacts, WorkflowInvalid, blockers,
-                             outstanding_stale, parse_workflow)
+                             outstanding_stale, parse_workflow, unresolved_checks, waiver_covers, worse)
 
 
 def _default() -> dict:
@@ -84,7 +84,7 @@ def test_not_an_object_is_refused():
 
 def _facts(**kw) -> RailFacts:
     base = {"state": "awaiting review", "head_n": 3, "approvals": (), "checks": (CheckFact("startup_soa", "pass"),),
-            "waived": frozenset()}
+            "waived": {}}
     return RailFacts(**{**base, **kw})
 
 
@@ -124,10 +124,31 @@ def test_checks_must_pass_or_be_waived_and_an_unanalysed_rail_does_not_pass():
     checks = (CheckFact("startup_soa", "fail"), CheckFact("fault_margin", "marginal"), CheckFact("retry", "n/a"))
     open_ = blockers(step, _facts(approvals=approved, checks=checks))
     assert "startup_soa (fail)" in open_[0].message and "fault_margin (marginal)" in open_[0].message
-    partly = blockers(step, _facts(approvals=approved, checks=checks, waived=frozenset({"startup_soa"})))
+    partly = blockers(step, _facts(approvals=approved, checks=checks, waived={"startup_soa": "fail"}))
     assert "startup_soa" not in partly[0].message and "fault_margin" in partly[0].message
     assert blockers(step, _facts(approvals=approved, checks=checks,
-                                 waived=frozenset({"startup_soa", "fault_margin"}))) == []
+                                 waived={"startup_soa": "fail", "fault_margin": "marginal"})) == []
+
+
+def test_a_waiver_covers_a_check_only_while_it_reads_no_worse_than_the_verdict_waived():
+    step = parse_workflow(DEFAULT_WORKFLOW).transition("awaiting review", "accept margins")
+    approved = (ApprovalFact(10, "rev-a", 3, False),)
+    marginal_waived = {"fault_margin": "marginal"}
+    still = _facts(approvals=approved, checks=(CheckFact("fault_margin", "marginal"),), waived=marginal_waived)
+    assert blockers(step, still) == []
+    now_fails = _facts(approvals=approved, checks=(CheckFact("fault_margin", "fail"),), waived=marginal_waived)
+    assert [c.id for c in unresolved_checks(now_fails)] == ["fault_margin"]
+    assert "fault_margin (fail)" in blockers(step, now_fails)[0].message
+    # one corner marginal, another failing: the failing reading is not covered
+    mixed = _facts(approvals=approved, checks=(CheckFact("fault_margin", "marginal"), CheckFact("fault_margin", "fail")),
+                   waived=marginal_waived)
+    assert [(c.id, c.verdict) for c in unresolved_checks(mixed)] == [("fault_margin", "fail")]
+    fail_waived = _facts(approvals=approved, checks=(CheckFact("fault_margin", "marginal"),),
+                         waived={"fault_margin": "fail"})
+    assert unresolved_checks(fail_waived) == []
+    assert [worse(a, b) for a, b in (("fail", "marginal"), ("marginal", "pass"), ("pass", "n/a"), ("pass", "pass"),
+                                     ("n/a", "fail"))] == [True, True, True, False, False]
+    assert waiver_covers("marginal", "marginal") and not waiver_covers("marginal", "fail")
 
 
 def test_a_transition_from_another_state_is_blocked():

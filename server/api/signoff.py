@@ -25,8 +25,9 @@ def signoff_status(rail_id: int, session: SessionDep, actor: CurrentActor) -> di
 
 @router.get("/{rail_id}/approvals")
 def list_approvals(rail_id: int, session: SessionDep, actor: CurrentActor) -> dict:
-    rows = signoff.list_approvals(session=session, actor=actor, rail_id=rail_id)
-    return {"items": [signoff.approval_dict(a) for a in rows], "total": len(rows)}
+    """Every approval of the rail, each with the engine version and result it was given against."""
+    rows, head_n, now = signoff.list_approvals(session=session, actor=actor, rail_id=rail_id)
+    return {"items": [signoff.approval_dict(a, now, head_n) for a in rows], "total": len(rows)}
 
 
 @router.post("/{rail_id}/approvals", status_code=201)
@@ -39,8 +40,8 @@ def approve(rail_id: int, body: ApprovalIn, session: SessionDep, actor: Reviewer
 
 @router.get("/{rail_id}/waivers")
 def list_waivers(rail_id: int, session: SessionDep, actor: CurrentActor) -> dict:
-    rows, head_n = signoff.list_waivers(session=session, actor=actor, rail_id=rail_id)
-    return {"items": [signoff.waiver_dict(w, head_n) for w in rows], "total": len(rows)}
+    rows, head_n, now = signoff.list_waivers(session=session, actor=actor, rail_id=rail_id)
+    return {"items": [signoff.waiver_dict(w, head_n, now) for w in rows], "total": len(rows)}
 
 
 @router.post("/{rail_id}/waivers", status_code=201)

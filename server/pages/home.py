@@ -1,4 +1,4 @@
-"""The home page (the user's products) and the product overview."""
+"""The home page (the user's products, and the rails an engine change moved) and the product overview."""
 
 from __future__ import annotations
 
@@ -13,8 +13,9 @@ from server.db import SessionDep
 from server.pages import signoff_view
 from server.pages.display import VERDICT_ORDER, worst_check
 from server.pages.rendering import page_context, render
-from server.services import overview
-from server.services.access import Actor
+from server.services import engine_change, overview
+from server.services.access import Actor, Permission
+from server.services.results import engine_version
 
 router = APIRouter(include_in_schema=False)
 
@@ -23,11 +24,39 @@ def _ordered_counts(by_verdict: dict) -> list[tuple[str | None, int]]:
     return [(v, by_verdict[v]) for v in VERDICT_ORDER if by_verdict.get(v)]
 
 
+def _with_outdated(counts: list[tuple[str | None, int]], outdated: int) -> list[tuple[str | None, int]]:
+    """Counts by verdict with the rails whose only results are of an older engine taken out of
+    "not analysed" and counted as "outdated" (right after it)."""
+    if not outdated:
+        return counts
+    out: list[tuple[str | None, int]] = []
+    for v, n in counts:
+        if v is None:
+            if n > outdated:
+                out.append((None, n - outdated))
+            out.append(("outdated", outdated))
+        else:
+            out.append((v, n))
+    return out
+
+
+def engine_moves_for(session: Session, actor: Actor) -> list[dict[str, Any]]:
+    """Rails an engine change moved out of their signed-off state: those of the actor's teams for
+    managers and admins, otherwise those the actor authored a revision of."""
+    if actor.can(Permission.RISK) or actor.user_id is None:
+        return engine_change.moved_rails(session=session, actor=actor)
+    return engine_change.moved_rails(session=session, actor=actor, authored_by=actor.user_id)
+
+
 def home_context(session: Session, actor: Actor) -> dict[str, Any]:
     products = overview.home_products(session=session, actor=actor)
     for p in products:
-        p["counts"] = _ordered_counts(p["by_verdict"])
-    return {"products": products}
+        p["counts"] = _with_outdated(_ordered_counts(p["by_verdict"]), p["outdated"])
+    return {"products": products, "engine_moves": engine_moves_for(session, actor), "current_engine": engine_version(),
+            "engine_moves_intro": "A new analysis engine read these signed-off rails worse than the result their "
+                                  "approvals were given for: each left its signed-off state and its approvals went stale. "
+                                  + ("Rails of your teams." if actor.can(Permission.RISK) else
+                                     "Rails you authored a revision of.")}
 
 
 def product_context(session: Session, actor: Actor, product_id: int) -> dict[str, Any]:

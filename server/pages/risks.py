@@ -25,13 +25,15 @@ RISK_WORDS = {
     "waived_check": "check accepted by a waiver",
     "stale_signoff": "approval of an earlier revision not renewed",
     "missing_signoff": "not in a signed-off state",
+    "outdated_result": "only a result of an older engine version",
     "not_analysed": "current revision not analysed",
     "never_analysed": "never analysed",
 }
 TOTALS = [("rails", "rails"), ("rails_at_risk", "rails with an open risk"), ("signed_off", "signed off"),
           ("failing_checks", "failing checks"), ("marginal_checks", "marginal checks"),
           ("waived_checks", "waived checks"), ("stale_signoff", "stale sign-offs"),
-          ("missing_signoff", "without sign-off"), ("not_analysed", "current revision not analysed"),
+          ("missing_signoff", "without sign-off"), ("outdated_result", "results of an older engine only"),
+          ("not_analysed", "current revision not analysed"),
           ("never_analysed", "never analysed")]
 
 

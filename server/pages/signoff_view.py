@@ -1,11 +1,18 @@
 """Sign-off on the pages: workflow state, approvals (stale ones marked) and waivers of rails.
 
 The rail page shows a rail's sign-off status and offers the transitions, approval and
-waivers its viewer may give; the board table and the product overview show each rail's
-state and its approval and waiver counts. Everything comes from the sign-off services.
+waivers its viewer may give; each approval and waiver says which engine's result it was
+given against, and when that is not the current result. The board table and the product
+overview show each rail's state and its approval and waiver counts. Everything comes from
+the sign-off services.
 
-Provides :func:`rail_signoff`, :func:`waivers_by_check`, :func:`board_signoff`,
-:func:`product_states`.
+When the head revision's only result is of an older engine, ``signoff["outdated"]`` holds
+what ``partials/outdated.html`` shows ("Result of engine X; the current engine is Y: re-run
+pending / re-run now"); the rail page includes it with
+``{% with outdated = signoff.outdated %}{% include "partials/outdated.html" %}{% endwith %}``.
+
+Provides :func:`rail_signoff`, :func:`outdated_context`, :func:`waivers_by_check`,
+:func:`board_signoff`, :func:`product_states`.
 """
 
 from __future__ import annotations
@@ -14,10 +21,28 @@ from typing import Any
 
 from sqlalchemy.orm import Session
 
-from server.services import overview, signoff
+from server.services import engine_change, overview, signoff
 from server.services.access import Actor, Permission
 
-__all__ = ["rail_signoff", "waivers_by_check", "board_signoff", "product_states"]
+__all__ = ["rail_signoff", "outdated_context", "waivers_by_check", "board_signoff", "product_states"]
+
+
+def outdated_context(session: Session, actor: Actor, status: dict[str, Any]) -> dict[str, Any] | None:
+    """What ``partials/outdated.html`` needs when the head revision's result is of another engine
+    version (None otherwise): that engine and its verdict, the current engine, and whether a
+    re-run at the current engine is pending, failed, or may be asked for now."""
+    result = status.get("result")
+    if not result or not result["outdated"]:
+        return None
+    head = status["head"]
+    job = engine_change.rerun_job(session, rail_id=status["rail_id"], sha256=head["sha256"])
+    pending = job is not None and job.state in ("queued", "running")
+    return {"rail_id": status["rail_id"], "revision": head["n"], "engine_version": result["engine_version"],
+            "verdict": result["verdict"], "computed_at": result["created_at"],
+            "current_engine": result["current_engine"], "pending": pending,
+            "job": {"id": job.id, "state": job.state, "error": job.error or None} if job is not None else None,
+            "failed": job is not None and job.state == "failed",
+            "may_rerun": actor.can(Permission.ANALYZE) and not pending}
 
 
 def rail_signoff(session: Session, actor: Actor, rail_id: int) -> dict[str, Any]:
@@ -31,7 +56,7 @@ def rail_signoff(session: Session, actor: Actor, rail_id: int) -> dict[str, Any]
     head = status["head"]
     own = head.get("author_id") is not None and head["author_id"] == actor.user_id
     current = [w for w in status["waivers"] if w.get("current")]
-    waived_now = {w["check_id"] for w in current}
+    waived_now = {w["check_id"] for w in current if w.get("covers") is not False}
     open_checks = [c for c in status["checks"]["checks"] if c["id"] in status["checks"]["open"]]
     seen: set[str] = set()
     waivable = []
@@ -44,6 +69,8 @@ def rail_signoff(session: Session, actor: Actor, rail_id: int) -> dict[str, Any]
     approved_by_me = any(a["reviewer_id"] == actor.user_id and a["revision"] == head["n"] and not a["stale"]
                          for a in status["approvals"])
     return {**status, "own_revision": own, "may_review": actor.can(Permission.REVIEW) and not own,
+            "outdated": outdated_context(session, actor, status),
+            "needs_result": status["result"] is None or status["result"]["outdated"],
             "approved_by_me": approved_by_me, "current_waivers": current, "waivable": waivable,
             "carryable": carryable,
             "current_approvals": [a for a in status["approvals"] if not a["stale"] and a["revision"] == head["n"]],
@@ -51,8 +78,8 @@ def rail_signoff(session: Session, actor: Actor, rail_id: int) -> dict[str, Any]
 
 
 def waivers_by_check(status: dict[str, Any] | None) -> dict[str, dict[str, Any]]:
-    """The waivers of the rail's current revision by check id."""
-    return {w["check_id"]: w for w in (status or {}).get("current_waivers", [])}
+    """The waivers of the rail's current revision that still cover their check, by check id (the newest)."""
+    return {w["check_id"]: w for w in (status or {}).get("current_waivers", []) if w.get("covers") is not False}
 
 
 def board_signoff(session: Session, board_id: int, team_id: int) -> dict[int, dict[str, Any]]:

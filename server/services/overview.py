@@ -1,12 +1,14 @@
 """Read models of the overview pages: rails with their head revision's verdict, per board and product.
 
 One query per view, joining each rail's head revision to its stored nominal+corners result
-at the current engine version (a rail whose head has no such result reads as not analysed).
+at the current engine version (a rail whose head has no such result reads as not analysed;
+``outdated`` counts apart those of them whose head has a result of another engine version,
+waiting to be read again by the current one).
 Only the parts of a result a view needs are read from the database (the checks, or the
 start-up current), never whole results with their waveforms.
 
 Provides :func:`home_products`, :func:`product_overview`, :func:`board_rails`,
-:func:`active_job`.
+:func:`active_job`, :func:`outdated_counts`.
 """
 
 from __future__ import annotations
@@ -23,8 +25,8 @@ from server.services.result_parts import ResultKey, result_parts
 from server.services.access import Actor, scoped_products
 from server.services.catalog import get_board, get_product
 
-__all__ = ["nominal_result_of_head", "verdicts_by_sha", "signoff_summary", "board_labels", "home_products", "product_overview", "board_rails", "active_job",
-           "ATTENTION_LIMIT"]
+__all__ = ["nominal_result_of_head", "verdicts_by_sha", "signoff_summary", "board_labels", "home_products",
+           "product_overview", "board_rails", "active_job", "outdated_counts", "ATTENTION_LIMIT"]
 
 ATTENTION_LIMIT = 12
 _ACTIVE = ("queued", "running")
@@ -80,6 +82,30 @@ def signoff_summary(session: Session, *, team_id: int, board_id: int | None = No
     return out
 
 
+def outdated_counts(session: Session, *, product_ids: list[int] | None = None,
+                    board_id: int | None = None) -> dict[int, dict[int, int]]:
+    """Rails whose head revision has only results of another engine version: {product id: {board id: count}}.
+
+    These rails also count as not analysed (``None``) in ``by_verdict``, which reads the current
+    engine only; a page shows them apart as outdated.
+    """
+    from server.services.engine_change import head_is_outdated  # it imports the sign-off services
+
+    stmt = (select(Board.product_id, Rail.board_id, func.count()).select_from(Rail)
+            .join(Board, Board.id == Rail.board_id).where(head_is_outdated())
+            .group_by(Board.product_id, Rail.board_id))
+    if product_ids is not None:
+        if not product_ids:
+            return {}
+        stmt = stmt.where(Board.product_id.in_(product_ids))
+    if board_id is not None:
+        stmt = stmt.where(Rail.board_id == board_id)
+    out: dict[int, dict[int, int]] = {}
+    for pid, bid, n in session.execute(stmt):
+        out.setdefault(pid, {})[bid] = n
+    return out
+
+
 def board_labels(*, session: Session, actor: Actor, board_ids: list[int]) -> dict[int, dict[str, Any]]:
     """Name, revision and product of boards the actor can see, by id."""
     if not board_ids:
@@ -106,8 +132,9 @@ def home_products(*, session: Session, actor: Actor) -> list[dict[str, Any]]:
                 .where(Board.product_id.in_(ids)).group_by(Board.product_id, AnalysisResult.verdict))
         for pid, verdict, n in session.execute(stmt):
             counts[pid][verdict] += n
+    outdated = outdated_counts(session, product_ids=ids)
     return [{"product": p, "boards": boards.get(p.id, 0), "rails": sum(counts[p.id].values()),
-             "by_verdict": dict(counts[p.id])} for p in products]
+             "by_verdict": dict(counts[p.id]), "outdated": sum(outdated.get(p.id, {}).values())} for p in products]
 
 
 def product_overview(*, session: Session, actor: Actor, product_id: int) -> dict[str, Any]:
@@ -137,9 +164,12 @@ def product_overview(*, session: Session, actor: Actor, product_id: int) -> dict
     total = Counter()
     for c in per_board.values():
         total.update(c)
+    outdated = outdated_counts(session, product_ids=[product.id]).get(product.id, {})
     return {"product": product, "boards": [{"board": b, "by_verdict": dict(per_board[b.id]),
-                                            "rails": sum(per_board[b.id].values())} for b in boards],
-            "by_verdict": dict(total), "rails": len(rows), "attention": attention}
+                                            "rails": sum(per_board[b.id].values()), "outdated": outdated.get(b.id, 0)}
+                                           for b in boards],
+            "by_verdict": dict(total), "rails": len(rows), "attention": attention,
+            "outdated": sum(outdated.values())}
 
 
 def _checks_of(rail_ids: list[int], session: Session) -> dict[int, tuple[float | None, list[dict]]]:
@@ -157,26 +187,30 @@ def _checks_of(rail_ids: list[int], session: Session) -> dict[int, tuple[float |
 def board_rails(*, session: Session, actor: Actor, board_id: int) -> dict[str, Any]:
     """A board and its rails: head revision summary, verdict, checks and when they were analysed.
 
-    Each rail also carries ``startup`` (t, i) of its result for the supply budget.
+    Each rail also carries ``startup`` (t, i) of its result for the supply budget, and
+    ``outdated`` (engine version and verdict of its newest result of another engine) when the
+    current engine has not read its head revision yet.
     """
     board = get_board(session=session, actor=actor, board_id=board_id)
     doc = RailRevision.document
     stmt = (select(Rail.id, Rail.name, Rail.mode, Rail.head_n, Rail.updated_at, doc["supply"], doc["load"],
-                   doc["environment"], AnalysisResult.verdict, AnalysisResult.id, AnalysisResult.sha256,
+                   doc["environment"], AnalysisResult.verdict, AnalysisResult.id, Rail.head_sha256,
                    AnalysisResult.created_at)
             .join(RailRevision, (RailRevision.rail_id == Rail.id) & (RailRevision.n == Rail.head_n))
             .outerjoin(AnalysisResult, nominal_result_of_head())
             .where(Rail.board_id == board.id).order_by(Rail.name))
     rows = session.execute(stmt).all()
     parts = result_parts(session, [ResultKey(r[9], r[10], r[11]) for r in rows if r[9] is not None])
+    outdated = results.outdated_verdicts(session, [r[10] for r in rows if r[9] is None])
     rails = []
-    for (rid, name, mode, head_n, updated_at, supply, load, env, verdict, result_id, _sha,
+    for (rid, name, mode, head_n, updated_at, supply, load, env, verdict, result_id, sha,
          analysed_at) in rows:
         p = parts.get(result_id)
         rails.append({"id": rid, "name": name, "mode": mode, "head_n": head_n, "updated_at": updated_at,
                       "supply": supply or {}, "load": load or {}, "t_ambient": (env or {}).get("t_ambient"),
                       "verdict": verdict, "analysed_at": analysed_at, "checks": p.checks if p else [],
-                      "startup": (p.t, p.i) if p and p.t and p.i else None})
+                      "startup": (p.t, p.i) if p and p.t and p.i else None,
+                      "outdated": outdated.get(sha) if verdict is None else None})
     return {"board": board, "product": board.product, "rails": rails}
 
 

@@ -2,13 +2,16 @@
 
 A result belongs to the hash of the revision it was computed from and to the engine
 version that computed it, so a cached result is never shown for a changed document,
-and a new engine version computes afresh.
+and a new engine version computes afresh. Until it has, a revision's result of another
+engine version is *outdated*: kept and shown with its engine version, never taken for the
+current engine's (:func:`reading`).
 """
 
 from __future__ import annotations
 
 import hashlib
 import json
+from dataclasses import dataclass
 from typing import Any
 
 from sqlalchemy import select
@@ -20,7 +23,8 @@ from server.services.access import Actor, scoped_rails
 from server.services.errors import NotFound
 
 __all__ = ["NOMINAL_OPTIONS", "engine_version", "normalize_options", "options_key", "find_result", "store_result",
-           "latest_result", "checks_for_revision", "result_dict", "get_result"]
+           "latest_result", "latest_outdated_result", "outdated_verdicts", "Reading", "reading", "checks_for_revision", "result_dict",
+           "get_result"]
 
 NOMINAL_OPTIONS: dict[str, Any] = {"corners": True, "monte_carlo": 0, "seed": 0, "distribution": "uniform"}
 
@@ -96,6 +100,55 @@ def latest_result(session: Session, *, sha256: str, monte_carlo: bool = False,
         return None if wanted is None else session.get(AnalysisResult, wanted)
     stmt = stmt.where(AnalysisResult.options_key == options_key(NOMINAL_OPTIONS))
     return session.scalar(stmt.order_by(AnalysisResult.created_at.desc(), AnalysisResult.id.desc()).limit(1))
+
+
+def latest_outdated_result(session: Session, *, sha256: str) -> AnalysisResult | None:
+    """The newest nominal+corners result of a revision computed by another engine version than the current one."""
+    return session.scalar(select(AnalysisResult).where(
+        AnalysisResult.sha256 == sha256, AnalysisResult.engine_version != engine_version(),
+        AnalysisResult.options_key == options_key(NOMINAL_OPTIONS))
+        .order_by(AnalysisResult.created_at.desc(), AnalysisResult.id.desc()).limit(1))
+
+
+def outdated_verdicts(session: Session, shas: list[str]) -> dict[str, dict[str, str]]:
+    """Per revision hash: engine version and verdict of its newest nominal+corners result of another engine
+    version than the current one (for lists; whether the current engine has one is the caller's look-up)."""
+    if not shas:
+        return {}
+    rows = session.execute(select(AnalysisResult.sha256, AnalysisResult.engine_version, AnalysisResult.verdict)
+                           .where(AnalysisResult.sha256.in_(set(shas)), AnalysisResult.engine_version != engine_version(),
+                                  AnalysisResult.options_key == options_key(NOMINAL_OPTIONS))
+                           .order_by(AnalysisResult.created_at, AnalysisResult.id)).all()
+    return {sha: {"engine_version": version, "verdict": verdict} for sha, version, verdict in rows}
+
+
+@dataclass(frozen=True)
+class Reading:
+    """A revision's nominal+corners result as it stands: the current engine's, or else an outdated one."""
+
+    row: AnalysisResult
+    outdated: bool        # computed by another engine version than the current one
+    current_engine: str   # the engine version running now
+
+    @property
+    def engine_version(self) -> str:
+        return self.row.engine_version
+
+    def as_dict(self) -> dict[str, Any]:
+        return {"id": self.row.id, "engine_version": self.row.engine_version, "verdict": self.row.verdict,
+                "outdated": self.outdated, "current_engine": self.current_engine,
+                "created_at": self.row.created_at.isoformat()}
+
+
+def reading(session: Session, *, sha256: str) -> Reading | None:
+    """The revision's newest result at the current engine; else its newest result of another engine
+    version, marked outdated; else None (never analysed)."""
+    current = engine_version()
+    row = latest_result(session, sha256=sha256)
+    if row is not None:
+        return Reading(row, False, current)
+    old = latest_outdated_result(session, sha256=sha256)
+    return None if old is None else Reading(old, True, current)
 
 
 def checks_for_revision(session: Session, *, sha256: str) -> list[dict[str, Any]] | None:

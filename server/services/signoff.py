@@ -1,12 +1,15 @@
 """Sign-off of rail revisions: approvals, waivers, workflow transitions, and what an edit undoes.
 
-Every approval and waiver names the revision (sha256) it is about, and only the rail's
-current revision can be approved or waived. A reviewer never approves or waives a revision
-they authored. When the rail gets a new revision (:func:`on_new_revision`, called by
-:mod:`server.services.revision_hooks` in the save's transaction), approvals of older
-revisions become stale (kept, shown as stale) and the rail goes to the state its workflow
-names. Waivers cover their revision only; :func:`carry_waiver` is the explicit act that
-carries one to the current revision.
+Every approval and waiver names the revision (sha256) it is about, and the stored result
+(engine version and result id) its reviewer saw: only the rail's current revision can be
+approved or waived, and only once the current engine has analysed it. A reviewer never
+approves or waives a revision they authored. When the rail gets a new revision
+(:func:`on_new_revision`, called by :mod:`server.services.revision_hooks` in the save's
+transaction), approvals of older revisions become stale (kept, shown as stale, with the
+reason) and the rail goes to the state its workflow names; a new engine reading the revision
+worse does the same through :func:`make_stale` (see :mod:`server.services.engine_change`).
+Waivers cover their revision only, and a check only while it reads no worse than the verdict
+waived; :func:`carry_waiver` is the explicit act that carries one to the current revision.
 """
 
 from __future__ import annotations
@@ -17,40 +20,99 @@ from sqlalchemy import select
 from sqlalchemy.orm import Session
 
 from server.db import begin_write
-from server.models import Approval, Rail, RailRevision, Waiver, utcnow
+from server.models import AnalysisResult, Approval, Rail, RailRevision, Waiver, utcnow
 from server.services import rails as rail_service  # module import: rails imports the hooks, which import this
 from server.services import workflows
 from server.services.access import Actor, Permission
 from server.services.errors import Conflict, Forbidden, Invalid, NotFound, flush_or_conflict
 from server.services.audit import record
-from server.services.results import checks_for_revision
-from server.workflow import PROBLEM_VERDICTS, ApprovalFact, CheckFact, RailFacts, WorkflowDef, blockers
+from server.services.results import Reading, checks_for_revision, engine_version, reading
+from server.workflow import (PROBLEM_VERDICTS, SEVERITY, ApprovalFact, CheckFact, RailFacts, WorkflowDef, blockers,
+                             waiver_covers)
 
-__all__ = ["TransitionBlocked", "approval_dict", "waiver_dict", "on_new_revision", "approve", "list_approvals",
-           "waive", "carry_waiver", "list_waivers", "take_transition", "signoff_status", "rail_facts"]
+__all__ = ["TransitionBlocked", "NotAnalysed", "approval_dict", "waiver_dict", "result_note", "on_new_revision",
+           "make_stale", "approve", "list_approvals", "waive", "carry_waiver", "list_waivers", "take_transition",
+           "signoff_status", "rail_facts", "current_reading", "covering_waivers"]
 
 
 class TransitionBlocked(Conflict):
     code = "transition_blocked"
 
 
-def approval_dict(a: Approval) -> dict[str, Any]:
-    return {"id": a.id, "rail_id": a.rail_id, "revision": a.revision_n, "sha256": a.sha256,
-            "reviewer": a.reviewer_name, "reviewer_id": a.reviewer_id, "comment": a.comment,
-            "created_at": a.created_at.isoformat(), "stale": a.stale_at is not None,
-            "stale_since": a.stale_at.isoformat() if a.stale_at else None}
+class NotAnalysed(Conflict):
+    code = "not_analysed"
 
 
-def waiver_dict(w: Waiver, head_n: int | None = None) -> dict[str, Any]:
+def result_note(engine_version: str | None, result_id: int | None, current: Reading | None) -> str | None:
+    """Words for an approval or waiver given against another result than the revision's current one.
+
+    None when it was given for the current result at the current engine (nothing to say), or
+    when nothing is known of the revision's current result.
+    """
+    if current is None:
+        return None
+    if result_id is None:
+        return (f"given before approvals and waivers kept the result they saw; the current result is engine "
+                f"{current.engine_version}")
+    if result_id != current.row.id:
+        return (f"given for the result of engine {engine_version or 'unknown'}; the current result is engine "
+                f"{current.engine_version}")
+    if current.outdated:
+        return (f"given for the result of engine {engine_version}; the current engine is {current.current_engine} "
+                "and has not read this revision yet")
+    return None
+
+
+def approval_dict(a: Approval, current: Reading | None = None, head_n: int | None = None) -> dict[str, Any]:
+    """An approval as the API and the pages read it.
+
+    ``current``: the current reading of the rail's head revision, ``head_n`` its number; with
+    them, an approval of the head revision given against another result carries ``result_note``.
+    """
+    out = {"id": a.id, "rail_id": a.rail_id, "revision": a.revision_n, "sha256": a.sha256,
+           "reviewer": a.reviewer_name, "reviewer_id": a.reviewer_id, "comment": a.comment,
+           "created_at": a.created_at.isoformat(), "stale": a.stale_at is not None,
+           "stale_since": a.stale_at.isoformat() if a.stale_at else None, "stale_reason": a.stale_reason or None,
+           "engine_version": a.engine_version, "result_id": a.result_id}
+    if current is not None and head_n is not None and a.revision_n == head_n:
+        out["for_current_result"] = a.result_id == current.row.id and not current.outdated
+        out["result_note"] = result_note(a.engine_version, a.result_id, current)
+    return out
+
+
+def waiver_dict(w: Waiver, head_n: int | None = None, current: Reading | None = None,
+                covers: bool | None = None) -> dict[str, Any]:
+    """A waiver as the API and the pages read it; ``covers``: whether it still covers its check's current verdict."""
     out = {"id": w.id, "rail_id": w.rail_id, "revision": w.revision_n, "sha256": w.sha256, "check_id": w.check_id,
            "check_title": w.check_title, "verdict": w.verdict, "reason": w.reason, "reviewer": w.reviewer_name,
-           "reviewer_id": w.reviewer_id, "created_at": w.created_at.isoformat(), "carried_from": w.carried_from_id}
+           "reviewer_id": w.reviewer_id, "created_at": w.created_at.isoformat(), "carried_from": w.carried_from_id,
+           "engine_version": w.engine_version, "result_id": w.result_id}
     if head_n is not None:
         out["current"] = w.revision_n == head_n
+        if current is not None and w.revision_n == head_n:
+            out["for_current_result"] = w.result_id == current.row.id and not current.outdated
+            out["result_note"] = result_note(w.engine_version, w.result_id, current)
+    if covers is not None:
+        out["covers"] = covers
     return out
 
 
 # --- what a new revision undoes ------------------------------------------------------------
+
+
+def make_stale(session: Session, actor: Actor, rail: Rail, approvals: list[Approval], *, reason: str,
+               product_id: int, revision_n: int) -> None:
+    """Mark ``approvals`` stale with ``reason`` in words and record it (the caller commits)."""
+    if not approvals:
+        return
+    now = utcnow()
+    for approval in approvals:
+        approval.stale_at, approval.stale_reason = now, reason[:1000]
+    record(session, actor, action="approvals_stale", object_type="rail", object_id=rail.id,
+           object_repr=rail.name, product_id=product_id,
+           before={"approvals": [{"id": a.id, "reviewer": a.reviewer_name, "revision": a.revision_n,
+                                  "engine_version": a.engine_version, "result_id": a.result_id} for a in approvals]},
+           after={"stale": [a.id for a in approvals], "revision": revision_n, "reason": reason})
 
 
 def on_new_revision(session: Session, actor: Actor, rail: Rail, revision: RailRevision, *,
@@ -60,17 +122,10 @@ def on_new_revision(session: Session, actor: Actor, rail: Rail, revision: RailRe
         workflows.place_new_rail(session, actor, rail, revision)
         return
     team_id, product_id = workflows.team_of_rail(session, rail)
-    now = utcnow()
-    stale = session.scalars(select(Approval).where(Approval.rail_id == rail.id, Approval.stale_at.is_(None),
-                                                   Approval.revision_n < revision.n)).all()
-    for approval in stale:
-        approval.stale_at = now
-    if stale:
-        record(session, actor, action="approvals_stale", object_type="rail", object_id=rail.id,
-               object_repr=rail.name, product_id=product_id,
-               before={"approvals": [{"id": a.id, "reviewer": a.reviewer_name, "revision": a.revision_n}
-                                     for a in stale]},
-               after={"stale": [a.id for a in stale], "revision": revision.n})
+    stale = list(session.scalars(select(Approval).where(Approval.rail_id == rail.id, Approval.stale_at.is_(None),
+                                                        Approval.revision_n < revision.n)))
+    make_stale(session, actor, rail, stale, reason=f"the rail changed after it: revision {revision.n} was saved",
+               product_id=product_id, revision_n=revision.n)
     wf = workflows.definition_for_team(session, team_id)
     row = workflows.state_of(session, rail, wf)
     if row.state != wf.on_edit:
@@ -95,6 +150,51 @@ def _waivers(session: Session, rail_id: int) -> list[Waiver]:
     return list(session.scalars(select(Waiver).where(Waiver.rail_id == rail_id).order_by(Waiver.id)))
 
 
+def current_reading(session: Session, rail: Rail) -> Reading | None:
+    """The reading of the rail's head revision: its current-engine result, else an outdated one, else None."""
+    return reading(session, sha256=rail.head_sha256)
+
+
+def _waived_verdicts(waivers: list[Waiver], head_n: int) -> dict[str, str]:
+    """Check id -> the most severe verdict waived for it on the head revision."""
+    out: dict[str, str] = {}
+    for w in waivers:
+        if w.revision_n == head_n and SEVERITY.get(w.verdict, 3) >= SEVERITY.get(out.get(w.check_id, "n/a"), 3):
+            out[w.check_id] = w.verdict
+    return out
+
+
+def _head_waiver_dict(w: Waiver, head_n: int, now: Reading | None, reads: str | None) -> dict[str, Any]:
+    """A waiver with, when it is of the head revision and the head has a current result, whether it
+    still covers its check (``covers``) and what the check reads now (``now_reads``)."""
+    if w.revision_n != head_n or reads is None:
+        return waiver_dict(w, head_n, now)
+    return {**waiver_dict(w, head_n, now, covers=waiver_covers(w.verdict, reads)), "now_reads": reads}
+
+
+def _worst_verdicts(checks: list[dict] | None) -> dict[str, str]:
+    """Check id -> its most severe verdict over the rows (corners) of ``checks``."""
+    worst: dict[str, str] = {}
+    for c in checks or []:
+        cid, verdict = str(c.get("id")), str(c.get("verdict"))
+        if cid not in worst or SEVERITY.get(verdict, 3) > SEVERITY.get(worst[cid], 3):
+            worst[cid] = verdict
+    return worst
+
+
+def covering_waivers(checks: list[dict] | None, waivers: list[Waiver], head_n: int) -> dict[str, Waiver]:
+    """Check id -> the newest waiver of the head revision that still covers the check's worst current verdict.
+
+    A check that is not in ``checks`` (or reads no problem) needs no waiver and gets none here.
+    """
+    worst = {cid: v for cid, v in _worst_verdicts(checks).items() if v in PROBLEM_VERDICTS}
+    out: dict[str, Waiver] = {}
+    for w in waivers:
+        if w.revision_n == head_n and w.check_id in worst and waiver_covers(w.verdict, worst[w.check_id]):
+            out[w.check_id] = w
+    return out
+
+
 def rail_facts(session: Session, rail: Rail, state: str, *, approvals: list[Approval] | None = None,
                waivers: list[Waiver] | None = None, checks: list[dict] | None | Any = ...) -> RailFacts:
     """What the workflow rules need to know about ``rail`` in ``state``."""
@@ -107,7 +207,7 @@ def rail_facts(session: Session, rail: Rail, state: str, *, approvals: list[Appr
         approvals=tuple(ApprovalFact(a.reviewer_id, a.reviewer_name, a.revision_n, a.stale_at is not None)
                         for a in approvals),
         checks=None if checks is None else tuple(CheckFact(str(c.get("id")), str(c.get("verdict"))) for c in checks),
-        waived=frozenset(w.check_id for w in waivers if w.revision_n == rail.head_n))
+        waived=_waived_verdicts(waivers, rail.head_n))
 
 
 def _transition_dicts(wf: WorkflowDef, facts: RailFacts, actor: Actor) -> list[dict[str, Any]]:
@@ -123,15 +223,20 @@ def _transition_dicts(wf: WorkflowDef, facts: RailFacts, actor: Actor) -> list[d
 
 
 def _check_summary(checks: list[dict] | None, waivers: list[Waiver], head_n: int) -> dict[str, Any]:
+    """Each check with the newest waiver of the head revision that covers its reading (a waiver
+    of a marginal reading does not cover a failing one); ``open``: problem checks none covers."""
     if checks is None:
         return {"analysed": False, "checks": [], "open": []}
-    waived = {w.check_id: w for w in waivers if w.revision_n == head_n}
+    head = [w for w in waivers if w.revision_n == head_n]
     rows = []
     for c in checks:
-        w = waived.get(str(c.get("id")))
-        rows.append({"id": c.get("id"), "title": c.get("title", ""), "verdict": c.get("verdict"),
+        cid, verdict = str(c.get("id")), c.get("verdict")
+        mine = [w for w in head if w.check_id == cid]
+        covering = next((w for w in reversed(mine) if waiver_covers(w.verdict, verdict)), None) \
+            if verdict in PROBLEM_VERDICTS else None
+        rows.append({"id": c.get("id"), "title": c.get("title", ""), "verdict": verdict,
                      "value": c.get("value"), "limit": c.get("limit"), "unit": c.get("unit"),
-                     "corner": c.get("corner"), "waiver": waiver_dict(w) if w else None})
+                     "corner": c.get("corner"), "waiver": waiver_dict(covering) if covering else None})
     open_ids = [r["id"] for r in rows if r["verdict"] in PROBLEM_VERDICTS and r["waiver"] is None]
     return {"analysed": True, "checks": rows, "open": open_ids}
 
@@ -143,23 +248,39 @@ def signoff_status(*, session: Session, actor: Actor, rail_id: int) -> dict[str,
     wf = workflows.definition_for_team(session, team_id)
     row = workflows.state_of(session, rail, wf)
     approvals, waivers = _approvals(session, rail.id), _waivers(session, rail.id)
-    checks = checks_for_revision(session, sha256=rail.head_sha256)
+    now = current_reading(session, rail)
+    checks = None if now is None or now.outdated else list(now.row.result.get("checks", []))
     facts = rail_facts(session, rail, row.state, approvals=approvals, waivers=waivers, checks=checks)
     head = _head(session, rail)
+    verdicts = _worst_verdicts(checks)
     return {
         "rail_id": rail.id, "product_id": product_id, "team_id": team_id,
         "head": {"n": head.n, "sha256": head.sha256, "author": head.author_name, "author_id": head.author_id},
         "state": {"name": row.state, "signed_off": wf.is_signed_off(row.state), "since": row.since.isoformat()
                   if row.since else None, "revision": row.revision_n, "by": row.changed_by},
         "workflow": wf.name,
-        "approvals": [approval_dict(a) for a in approvals],
-        "waivers": [waiver_dict(w, rail.head_n) for w in waivers],
+        "result": now.as_dict() if now is not None else None,
+        "approvals": [approval_dict(a, now, rail.head_n) for a in approvals],
+        "waivers": [_head_waiver_dict(w, rail.head_n, now, None if checks is None else verdicts.get(w.check_id, "n/a"))
+                    for w in waivers],
         "checks": _check_summary(checks, waivers, rail.head_n),
         "transitions": _transition_dicts(wf, facts, actor),
     }
 
 
 # --- approving, waiving, moving ------------------------------------------------------------
+
+
+def _current_result(session: Session, rail: Rail, rev: RailRevision, what: str) -> AnalysisResult:
+    """The revision's result at the current engine, which an approval or waiver is given against (409 without)."""
+    now = reading(session, sha256=rev.sha256)
+    if now is None or now.outdated:
+        seen = f" (its last result is of engine {now.engine_version})" if now is not None else ""
+        raise NotAnalysed(f"revision {rev.n} of rail '{rail.name}' has not been analysed at engine "
+                          f"{engine_version()}{seen}: analyse the revision first, "
+                          f"then {what} what its result shows",
+                          extra={"analyse": f"/api/v1/rails/{rail.id}/analyses"})
+    return now.row
 
 
 def _current_revision(session: Session, rail: Rail, sha256: str, what: str) -> RailRevision:
@@ -200,34 +321,41 @@ def approve(*, session: Session, actor: Actor, rail_id: int, sha256: str, commen
     rev = _current_revision(session, rail, sha256, "approving")
     _refuse_own(actor, rev, "approve")
     exists = session.scalar(select(Approval.id).where(Approval.rail_id == rail.id, Approval.revision_n == rev.n,
-                                                      Approval.reviewer_id == actor.user_id))
+                                                      Approval.reviewer_id == actor.user_id,
+                                                      Approval.stale_at.is_(None)))
     if exists is not None:
         raise Conflict(f"you approved revision {rev.n} already")
+    result = _current_result(session, rail, rev, "approve")
     approval = Approval(rail_id=rail.id, revision_n=rev.n, sha256=rev.sha256, reviewer_id=actor.user_id,
-                        reviewer_name=actor.name, comment=comment[:4000])
+                        reviewer_name=actor.name, comment=comment[:4000], engine_version=result.engine_version,
+                        result_id=result.id)
     session.add(approval)
     flush_or_conflict(session, f"you approved revision {rev.n} already")
     record(session, actor, action="approve", object_type="rail", object_id=rail.id, object_repr=rail.name,
            product_id=workflows.team_of_rail(session, rail)[1],
-           after={"approval": approval.id, "revision": rev.n, "sha256": rev.sha256, "comment": approval.comment})
+           after={"approval": approval.id, "revision": rev.n, "sha256": rev.sha256, "comment": approval.comment,
+                  "engine_version": result.engine_version, "result_id": result.id, "verdict": result.verdict})
     session.commit()
     return approval
 
 
-def list_approvals(*, session: Session, actor: Actor, rail_id: int) -> list[Approval]:
+def list_approvals(*, session: Session, actor: Actor,
+                   rail_id: int) -> tuple[list[Approval], int, Reading | None]:
+    """(the rail's approvals, its head revision number, the head's current reading)."""
     rail = rail_service.get_rail(session=session, actor=actor, rail_id=rail_id)
-    return _approvals(session, rail.id)
+    return _approvals(session, rail.id), rail.head_n, current_reading(session, rail)
 
 
-def list_waivers(*, session: Session, actor: Actor, rail_id: int) -> tuple[list[Waiver], int]:
+def list_waivers(*, session: Session, actor: Actor, rail_id: int) -> tuple[list[Waiver], int, Reading | None]:
+    """(the rail's waivers, its head revision number, the head's current reading)."""
     rail = rail_service.get_rail(session=session, actor=actor, rail_id=rail_id)
-    return _waivers(session, rail.id), rail.head_n
+    return _waivers(session, rail.id), rail.head_n, current_reading(session, rail)
 
 
-def _problem_check(session: Session, rail: Rail, rev: RailRevision, check_id: str) -> dict:
-    checks = checks_for_revision(session, sha256=rev.sha256)
-    if checks is None:
-        raise Conflict(f"revision {rev.n} of rail '{rail.name}' has not been analysed: there is nothing to waive yet")
+def _problem_check(session: Session, rail: Rail, rev: RailRevision, check_id: str) -> tuple[dict, AnalysisResult]:
+    """The worst reading of a failing or marginal check in the revision's current result, and that result."""
+    result = _current_result(session, rail, rev, "waive")
+    checks = list(result.result.get("checks", []))
     found = [c for c in checks if str(c.get("id")) == check_id]
     if not found:
         raise Invalid(f"revision {rev.n} has no check '{check_id}'",
@@ -238,25 +366,32 @@ def _problem_check(session: Session, rail: Rail, rev: RailRevision, check_id: st
         raise Invalid(f"check '{check_id}' of revision {rev.n} is {found[0].get('verdict')}: only failing or "
                       "marginal checks are waived",
                       details=[{"field": "check_id", "message": "is neither failing nor marginal"}])
-    return worst
+    return worst, result
 
 
-def _add_waiver(session: Session, actor: Actor, rail: Rail, rev: RailRevision, check: dict, reason: str,
-                carried_from: Waiver | None) -> Waiver:
-    check_id = str(check.get("id"))
-    exists = session.scalar(select(Waiver.id).where(Waiver.rail_id == rail.id, Waiver.revision_n == rev.n,
-                                                    Waiver.check_id == check_id))
-    if exists is not None:
-        raise Conflict(f"check '{check_id}' of revision {rev.n} has a waiver already (waiver {exists})")
+def _add_waiver(session: Session, actor: Actor, rail: Rail, rev: RailRevision, found: tuple[dict, AnalysisResult],
+                reason: str, carried_from: Waiver | None) -> Waiver:
+    check, result = found
+    check_id, verdict = str(check.get("id")), str(check.get("verdict"))
+    earlier = session.scalars(select(Waiver).where(Waiver.rail_id == rail.id, Waiver.revision_n == rev.n,
+                                                   Waiver.check_id == check_id).order_by(Waiver.id)).all()
+    still = next((w for w in earlier if waiver_covers(w.verdict, verdict)), None)
+    if still is not None:
+        raise Conflict(f"check '{check_id}' of revision {rev.n} has a waiver already (waiver {still.id})")
     waiver = Waiver(rail_id=rail.id, revision_n=rev.n, sha256=rev.sha256, check_id=check_id,
-                    check_title=str(check.get("title", ""))[:200], verdict=str(check.get("verdict")),
+                    check_title=str(check.get("title", ""))[:200], verdict=verdict,
                     reason=reason[:4000], reviewer_id=actor.user_id, reviewer_name=actor.name,
-                    carried_from_id=carried_from.id if carried_from else None)
+                    carried_from_id=carried_from.id if carried_from else None,
+                    engine_version=result.engine_version, result_id=result.id)
     session.add(waiver)
     flush_or_conflict(session, f"check '{check_id}' of revision {rev.n} has a waiver already")
     after = {"waiver": waiver.id, "revision": rev.n, "sha256": rev.sha256, "check_id": check_id,
              "verdict": waiver.verdict, "value": check.get("value"), "limit": check.get("limit"),
-             "unit": check.get("unit"), "reason": waiver.reason}
+             "unit": check.get("unit"), "reason": waiver.reason, "engine_version": result.engine_version,
+             "result_id": result.id}
+    if earlier:
+        after["replaces"] = [{"waiver": w.id, "verdict": w.verdict, "engine_version": w.engine_version}
+                             for w in earlier]
     if carried_from is not None:
         after["carried_from"] = {"waiver": carried_from.id, "revision": carried_from.revision_n}
     record(session, actor, action="carry_waiver" if carried_from else "waive", object_type="rail",
@@ -291,9 +426,9 @@ def carry_waiver(*, session: Session, actor: Actor, rail_id: int, waiver_id: int
     if source.revision_n == rev.n:
         raise Conflict(f"waiver {waiver_id} covers revision {rev.n} already")
     _refuse_own(actor, rev, "waive checks of")
-    check = _problem_check(session, rail, rev, source.check_id)
+    found = _problem_check(session, rail, rev, source.check_id)
     text = (reason or "").strip() or source.reason
-    waiver = _add_waiver(session, actor, rail, rev, check, text, source)
+    waiver = _add_waiver(session, actor, rail, rev, found, text, source)
     session.commit()
     return waiver
 
