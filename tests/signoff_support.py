@@ -2,19 +2,33 @@
 
 from __future__ import annotations
 
+import copy
+import functools
 import re
 from typing import Any
+
+from server.analysis import analyze_rail
+from server.schemas.rail import normalize
+from server.schemas.validation import parse_rail_document
 
 from server.services.results import NOMINAL_OPTIONS, store_result
 from tests.factories import rail_doc
 
 
 def check(check_id: str, verdict: str, value: float = 1.0, limit: float = 1.5, unit: str = "ratio",
-          corner: str = "v_max, c_max, 55 degC") -> dict[str, Any]:
-    """A check as the analysis stores it (invented values)."""
-    return {"id": check_id, "title": check_id.replace("_", " "), "verdict": verdict, "value": value,
-            "limit": limit, "unit": unit, "basis": "common practice", "detail": f"{check_id} at the worst corner",
-            "corner": corner}
+          corner: str = "supply 12.6 V (max), load C +20 %") -> dict[str, Any]:
+    """A check record as the analysis stores it (invented values; at-least sense)."""
+    applies = verdict != "n/a"
+    return {"id": check_id, "title": check_id.replace("_", " "), "verdict": verdict,
+            "value": value if applies else None, "limit": limit if applies else None,
+            "edge": 1.0 if applies else None, "unit": unit, "direction": ">=",
+            "margin": value / limit if applies and limit else None,
+            "margin_edge": 1.0 / limit if applies and limit else None, "basis": "common practice",
+            "nominal": {"value": value if applies else None, "verdict": verdict,
+                        "margin": value / limit if applies and limit else None},
+            "corner": corner if applies else None, "found_by": "corner" if applies else None,
+            "point": {"v_s": 12.6, "c": 1e-3, "i_limit": None, "t_fault": None} if applies else None,
+            "detail": f"{check_id} at its worst case"}
 
 
 PASSING = [check("startup_soa", "pass", 2.1), check("fault_margin", "pass", 1.9), check("vds_derating", "pass", 0.6,
@@ -23,11 +37,18 @@ FAILING = [check("startup_soa", "fail", 0.9), check("fault_margin", "marginal", 
            check("vds_derating", "pass", 0.6, 0.8, "fraction"), check("retry_tj", "n/a", 0.0, 0.0, "degC")]
 
 
+@functools.lru_cache(maxsize=1)
+def _analysed() -> dict[str, Any]:
+    """A real result of the engine (a test rail, nominal point only), whose checks the tests replace."""
+    doc = normalize(parse_rail_document(rail_doc()))
+    return analyze_rail(doc, corners=False, headroom=False, waveforms=False)
+
+
 def result_of(checks: list[dict[str, Any]]) -> dict[str, Any]:
-    """A result as the analysis returns it, reduced to its verdict and checks."""
+    """A result as the analysis returns it, with the given checks and their verdict."""
     worst = "fail" if any(c["verdict"] == "fail" for c in checks) else \
         "marginal" if any(c["verdict"] == "marginal" for c in checks) else "pass"
-    return {"verdict": worst, "checks": checks}
+    return {**copy.deepcopy(_analysed()), "verdict": worst, "checks": checks}
 
 
 def store_checks(session_factory, sha256: str, checks: list[dict[str, Any]], version: str | None = None) -> int:

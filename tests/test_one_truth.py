@@ -100,6 +100,20 @@ def test_every_check_of_every_demo_rail_reads_the_same_everywhere(app, client, s
             if check["corner"]:
                 assert check["corner"] in line, (rail_id, cid)
 
+        # the managers' risk view lists every failing and marginal check with its record's texts
+        risk_page = client.get(f"/products/{product_id}/risks").text
+        rail_row = re.search(rf'<a href="/rails/{rail_id}">.*?</tr>', risk_page, re.S)
+        for cid, check in checks.items():
+            if check["verdict"] not in ("fail", "marginal"):
+                continue
+            item = re.search(rf'<li data-check="{cid}">(.*?)</li>', rail_row.group(0), re.S)
+            assert item is not None, (rail_id, cid)
+            cells = _cells(item.group(1))
+            want = _expected(check)
+            assert (cells["value"], cells["limit"], cells["margin"], cells["corner"]) == (
+                want["value"], want["limit"], want["margin"], want["corner"]), (rail_id, cid)
+            assert f'>{check["verdict"]}<' in item.group(1)
+
         # the board table and the product overview show each rail's worst check from the record
         worst = _worst(result["checks"])
         board_page = client.get(f"/boards/{board_id}").text

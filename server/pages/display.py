@@ -40,6 +40,8 @@ VERDICT_STYLES: dict[str | None, VerdictStyle] = {
     None: VerdictStyle("not analysed", "verdict-none", "\u25cb", 2),
     "pass": VerdictStyle("pass", "verdict-pass", "\u2714", 1),
     "n/a": VerdictStyle("n/a", "verdict-na", "\u2013", 0),
+    # a result of an older engine version, not yet read by the current one
+    "outdated": VerdictStyle("result of an older engine", "verdict-none", "\u25cc", 2),
 }
 # worst first: the order of counts and of "what needs attention"
 VERDICT_ORDER: list[str | None] = ["fail", "marginal", None, "pass", "n/a"]

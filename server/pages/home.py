@@ -62,10 +62,10 @@ def home_context(session: Session, actor: Actor) -> dict[str, Any]:
 def product_context(session: Session, actor: Actor, product_id: int) -> dict[str, Any]:
     data = overview.product_overview(session=session, actor=actor, product_id=product_id)
     for b in data["boards"]:
-        b["counts"] = _ordered_counts(b["by_verdict"])
+        b["counts"] = _with_outdated(_ordered_counts(b["by_verdict"]), b["outdated"])
     for a in data["attention"]:
         a["worst"] = worst_check(a["checks"])
-    data["counts"] = _ordered_counts(data["by_verdict"])
+    data["counts"] = _with_outdated(_ordered_counts(data["by_verdict"]), data["outdated"])
     data["states"] = sorted(signoff_view.product_states(session, product_id, data["product"].team_id).items())
     return data
 

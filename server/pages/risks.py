@@ -10,7 +10,7 @@ from sqlalchemy.orm import Session
 
 from server.auth import require
 from server.db import SessionDep
-from server.pages.display import check_text
+from server.pages.display import check_row, check_text
 from server.pages.rendering import page_context, render
 from server.services import risks
 from server.services.access import Actor, Permission
@@ -49,6 +49,7 @@ def product_risks_context(session: Session, actor: Actor, product_id: int) -> di
             r["risk_words"] = [RISK_WORDS.get(k, k) for k in r["risks"]]
             for c in r["failing"] + r["marginal"] + r["waived"]:
                 c["text"] = check_text(c)
+                c["row"] = check_row(c)
         board["at_risk"] = [r for r in board["rails"] if r["risks"]]
     data["totals_list"] = [(label, data["totals"].get(key, 0)) for key, label in TOTALS]
     return data

@@ -35,9 +35,8 @@ CAUTION = ("Margins are computed from the stored design data against the team's 
 
 
 def _check_row(c: dict[str, Any], waiver: Waiver | None) -> dict[str, Any]:
-    return {"id": c.get("id"), "title": c.get("title", ""), "verdict": c.get("verdict"), "value": c.get("value"),
-            "limit": c.get("limit"), "unit": c.get("unit"), "corner": c.get("corner"),
-            "waiver": waiver_dict(waiver) if waiver else None}
+    """The check record as the analysis wrote it, with its waiver (nothing recomputed)."""
+    return {**c, "title": c.get("title", ""), "waiver": waiver_dict(waiver) if waiver else None}
 
 
 def _rail_entry(session: Session, rail: Rail, state: str, signed_off: bool, approvals: list[Approval],
