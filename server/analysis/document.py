@@ -46,7 +46,7 @@ from typing import Any
 import numpy as np
 
 from .errors import DocumentError
-from .units import quantity
+from .units import KIND_SYMBOLS, quantity
 from .words import FIELD_TITLES, generic_path
 
 __all__ = [
@@ -157,30 +157,37 @@ class Bound:
     minimum: float | None = None
     below: float | None = None
     maximum: float | None = None
+    note: str = ""  # said after the problem: what the field is
 
     def problem(self, value: float, kind: str | None) -> str | None:
         """What is wrong with ``value`` (a sentence), or None when it lies in the range."""
+        text = None
         if self.above is not None and not value > self.above:
-            if self.above == ABSOLUTE_ZERO:
-                return "must be above absolute zero (-273.15 \u00b0C)"
-            return f"must be above {_show(self.above, kind)}"
-        if self.minimum is not None and not value >= self.minimum:
-            return "must not be negative" if self.minimum == 0.0 else f"must be at least {_show(self.minimum, kind)}"
-        if self.below is not None and not value < self.below:
-            return f"must be below {_show(self.below, kind)}"
-        if self.maximum is not None and not value <= self.maximum:
-            return f"must be at most {_show(self.maximum, kind)}"
-        return None
+            text = f"must be above {_show(self.above, kind)}"
+        elif self.minimum is not None and not value >= self.minimum:
+            text = "must not be negative" if self.minimum == 0.0 else f"must be at least {_show(self.minimum, kind)}"
+        elif self.below is not None and not value < self.below:
+            text = f"must be below {_show(self.below, kind)}"
+        elif self.maximum is not None and not value <= self.maximum:
+            text = f"must be at most {_show(self.maximum, kind)}"
+        if text is None:
+            return None
+        return f"{text} ({self.note})" if self.note else text
 
 
 def _show(value: float, kind: str | None) -> str:
-    return f"{value:g}" if kind in (None, "ratio") else quantity(value, kind)
+    """A bound as written (no rounding: -273.15 °C stays -273.15 °C)."""
+    if kind in (None, "ratio"):
+        return f"{value:g}"
+    if kind in ("degC", "K"):
+        return f"{value:g} {KIND_SYMBOLS[kind]}"
+    return quantity(value, kind)
 
 
 POSITIVE = Bound(above=0.0)
 NON_NEGATIVE = Bound(minimum=0.0)
-TOLERANCE = Bound(minimum=0.0, below=1.0)  # a fraction of the nominal value
-TEMPERATURE = Bound(above=ABSOLUTE_ZERO)
+TOLERANCE = Bound(minimum=0.0, below=1.0, note="a tolerance is a fraction of the nominal value, like 0.2 or 20 %")
+TEMPERATURE = Bound(above=ABSOLUTE_ZERO, note="absolute zero")
 
 # The range of every number of the document (generic paths, list items as "[]").
 BOUNDS: dict[str, Bound] = {
@@ -543,9 +550,10 @@ def _read_curves(r: _Reader, soa: dict) -> tuple[SoaCurve, ...] | None:
             continue
         before = len(r.errors)
         t_pulse = r.number(c, "t_pulse", cw)
-        if len(r.errors) == before and t_pulse in seen:
-            r.fail(f"{cw}.t_pulse", "repeats the pulse width of another curve: give each pulse width once")
-        seen.add(t_pulse)
+        if len(r.errors) == before:
+            if t_pulse in seen:
+                r.fail(f"{cw}.t_pulse", "repeats the pulse width of another curve: give each pulse width once")
+            seen.add(t_pulse)
         points = _read_points(r, c.get("points"), cw)
         if len(r.errors) > before:
             complete = False
@@ -575,8 +583,8 @@ def _check_curve_order(r: _Reader, curves: list[SoaCurve]) -> None:
                 if v <= v_end and b > a * (1.0 + 1e-9):
                     label = "DC" if c.t_pulse is None else quantity(c.t_pulse, "s")
                     shorter = quantity(prev_curve.t_pulse, "s")
-                    r.fail("fet.soa.curves", f"the {label} curve allows more current than the shorter {shorter} "
-                                             f"pulse at {v:g} V: a longer pulse never allows more")
+                    r.fail("fet.soa.curves", f"the {label} curve allows more current than a shorter pulse "
+                                             f"({shorter}) at {v:g} V: a longer pulse never allows more")
                     return
         prev, prev_curve = cur, c
 
