@@ -255,3 +255,57 @@ def test_a_part_is_refused_on_the_same_field_by_both():
     assert [e.field for e in by_schema.value.errors] == ["soa.curves[1].points[1]"]
     assert by_schema.value.errors[0].title == "MOSFET SOA curve 2, point 2"
     assert parse_fet(fet_doc()).name == "Test N30 5m"
+
+
+def test_a_null_field_with_a_default_takes_it_in_both_validators():
+    doc = _si_doc()
+    doc["supply"]["r_source"] = None
+    doc["load"]["model"] = None
+    doc["fet"]["soa"]["t_case"] = None
+    normalized = normalize(parse_rail_document(doc))
+    rail = read_rail(doc)
+    assert normalized["supply"]["r_source"] == rail.supply.r_source == DEFAULTS["supply.r_source"]
+    assert normalized["load"]["model"] == rail.load.model == DEFAULTS["load.model"]
+    assert normalized["fet"]["soa"]["t_case"] == rail.fet.t_case == DEFAULTS["fet.soa.t_case"]
+
+
+_JUNK = [None, 0, -1, 0.0, 0.5, 1.0, 1.5, 200.0, "x", "", [], {}, [1, 2], [[1, 2], [3, 4]], {"a": 1}, True,
+         float("nan"), "DC", "retry", "slew", "power_limit", "constant_power"]
+
+
+def _paths(node, path=()):
+    yield path
+    items = node.items() if isinstance(node, dict) else enumerate(node) if isinstance(node, list) else ()
+    for key, value in items:
+        yield from _paths(value, (*path, key))
+
+
+def test_random_changes_are_refused_alike_by_both():
+    # A seeded random walk over every field of the document with values of every shape
+    # (SI numbers: units are the schema's own job).
+    import random
+
+    rng = random.Random(7)
+    base = _si_doc()
+    paths = [p for p in _paths(base) if p]
+    refused = 0
+    for _ in range(400):
+        doc = copy.deepcopy(base)
+        *heads, last = rng.choice(paths)
+        node = doc
+        for key in heads:
+            node = node[key]
+        node[last] = copy.deepcopy(rng.choice(_JUNK))
+        try:
+            read_rail(copy.deepcopy(doc))
+            by_reader = []
+        except DocumentError as exc:
+            by_reader = [e.field for e in exc.errors]
+        try:
+            parse_rail_document(doc)
+            by_schema = []
+        except DocumentInvalid as exc:
+            by_schema = [e.field for e in exc.errors]
+        assert sorted(by_schema) == sorted(by_reader), (heads, last, node[last])
+        refused += bool(by_reader)
+    assert refused > 200  # the walk does reach bad documents

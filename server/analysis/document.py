@@ -500,20 +500,25 @@ def _read_switch(r: _Reader, doc: dict) -> Switch | None:
 
 
 def _read_points(r: _Reader, points: Any, where: str) -> tuple[tuple[float, float], ...] | None:
+    """A curve's [V_DS, I_D] points: every malformed point is reported; then the first point that is
+    not positive or out of order (a later one would only repeat the problem)."""
     field = f"{where}.points"
     if not isinstance(points, list) or len(points) < 2:
         r.fail(field, "needs at least two [V_DS, I_D] points")
         return None
-    parsed: list[tuple[float, float]] = []
+    well_formed = True
     for j, p in enumerate(points):
-        pw = f"{field}[{j}]"
         if not isinstance(p, (list, tuple)) or len(p) != 2:
-            r.fail(pw, "must be a [V_DS, I_D] pair")
-            return None
-        if not all(_is_number(q) and math.isfinite(q) for q in p):
-            r.fail(pw, "must hold two finite numbers: V_DS in V and I_D in A")
-            return None
-        v, i = float(p[0]), float(p[1])
+            r.fail(f"{field}[{j}]", "must be a [V_DS, I_D] pair")
+            well_formed = False
+        elif not all(_is_number(q) and math.isfinite(q) for q in p):
+            r.fail(f"{field}[{j}]", "must hold two finite numbers: V_DS in V and I_D in A")
+            well_formed = False
+    if not well_formed:
+        return None
+    parsed: list[tuple[float, float]] = []
+    for j, (v, i) in enumerate((float(a), float(b)) for a, b in points):
+        pw = f"{field}[{j}]"
         if v <= 0.0 or i <= 0.0:
             r.fail(pw, f"V_DS and I_D must be positive, the curves are drawn on log-log axes (got {v:g} V, {i:g} A)")
             return None

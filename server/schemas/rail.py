@@ -23,7 +23,8 @@ import hashlib
 import json
 from typing import Annotated, Any, Literal
 
-from pydantic import BaseModel, BeforeValidator, ConfigDict, Field
+from pydantic import BaseModel, BeforeValidator, ConfigDict, Field, model_validator
+from pydantic_core import PydanticUndefined
 
 from server.analysis.document import AFTER_FAULT, BOUNDS, DEFAULTS, LOAD_MODELS, OPTIONAL, SCHEMA, SWITCH_MODES
 from server.analysis.words import FIELD_TITLES
@@ -82,6 +83,16 @@ def _field(path: str) -> Any:
 
 class _Section(BaseModel):
     model_config = ConfigDict(extra="forbid", populate_by_name=True)
+
+    @model_validator(mode="before")
+    @classmethod
+    def _null_takes_the_default(cls, data: Any) -> Any:
+        """A field with a default given as null takes its default, as the analysis reader reads it."""
+        if not isinstance(data, dict):
+            return data
+        defaulted = {name for name, f in cls.model_fields.items()
+                     if f.default is not None and f.default is not PydanticUndefined}
+        return {k: v for k, v in data.items() if not (v is None and k in defaulted)}
 
 
 class Supply(_Section):

@@ -12,14 +12,16 @@ Provides :class:`FieldError`, :class:`DocumentInvalid`, :func:`field_errors`,
 
 from __future__ import annotations
 
+from collections.abc import Callable
 from dataclasses import dataclass
 from typing import Any, TypeVar
 
 from pydantic import BaseModel, ValidationError
 
 from server.analysis.errors import DocumentError
-from server.analysis.words import field_title
+from server.analysis.words import FIELD_TITLES, field_title, generic_path
 from server.schemas.rail import Fet, RailDocument, normalize
+from server.units import UnitError, parse_quantity
 
 __all__ = ["FieldError", "DocumentInvalid", "field_errors", "parse_rail_document", "parse_fet", "parse_model"]
 
@@ -110,7 +112,12 @@ def field_errors(exc: ValidationError, prefix: str = "", title_prefix: str = "")
         if len(loc) >= 3 and isinstance(loc[-1], int) and _is_point(loc[:-1]):
             message = f"{'V_DS' if loc[-1] == 0 else 'I_D'}: {message}"
             loc = loc[:-1]
-        out.append(_error(_path(loc), message, prefix, title_prefix))
+        error = _error(_path(loc), message, prefix, title_prefix)
+        same = next((k for k, e in enumerate(out) if e.field == error.field), None)
+        if same is None:
+            out.append(error)
+        else:  # both values of one [V_DS, I_D] point: one error for the point
+            out[same] = FieldError(error.field, f"{out[same].message}; {error.message}", error.title)
     return out
 
 
@@ -130,6 +137,7 @@ def _error(path: str, message: str, prefix: str, title_prefix: str = "") -> Fiel
 
 
 def parse_model(model: type[M], data: Any, what: str, prefix: str = "", title_prefix: str = "") -> M:
+    """Check ``data`` against a pydantic model (shape and units) only."""
     if not isinstance(data, dict):
         raise DocumentInvalid([_error("", f"expected a JSON object, got {type(data).__name__}", prefix)], what)
     try:
@@ -147,31 +155,73 @@ def _reader_errors(exc: DocumentError, prefix: str, strip: str = "") -> list[Fie
     return out
 
 
+def _si_numbers(value: Any, path: str) -> Any:
+    """A copy of a document with every number written with units that parses turned into SI."""
+    generic = generic_path(path)
+    if isinstance(value, dict):
+        return {k: _si_numbers(v, _join(path, str(k))) for k, v in value.items()}
+    if isinstance(value, list):
+        if generic == "fet.soa.curves[].points[]" and len(value) == 2:
+            return [_si_number(value[0], "V"), _si_number(value[1], "A")]
+        return [_si_numbers(v, f"{path}[{k}]") for k, v in enumerate(value)]
+    words = FIELD_TITLES.get(generic)
+    return _si_number(value, words.kind) if words is not None and words.kind else value
+
+
+def _si_number(value: Any, kind: str) -> Any:
+    if not isinstance(value, str):
+        return value
+    try:
+        return parse_quantity(value, kind)
+    except UnitError:
+        return value  # reported by the schema
+
+
+def _related(a: str, b: str) -> bool:
+    """One path is the other or lies inside it."""
+    return a == b or any(x.startswith(y + ".") or x.startswith(y + "[") for x, y in ((a, b), (b, a)))
+
+
+def _validate(model: type[M], data: Any, what: str, prefix: str, read: Callable[[Any], Any], dump: Callable[[M], Any],
+              root: str = "") -> M:
+    """The schema (shape, units), then the analysis reader (every physics rule).
+
+    When the shape or a unit is wrong, the reader still reads what did parse, so that every
+    problem is reported at once; its problems on fields the schema already named are left out.
+    """
+    if not isinstance(data, dict):
+        raise DocumentInvalid([_error("", f"expected a JSON object, got {type(data).__name__}", prefix)], what)
+    try:
+        value = model.model_validate(data)
+    except ValidationError as exc:
+        errors = field_errors(exc, prefix, root)
+        try:
+            read(_si_numbers(data, root))
+        except DocumentError as more:
+            errors += [e for e in _reader_errors(more, prefix, root)
+                       if not any(_related(e.field, known.field) for known in errors)]
+        raise DocumentInvalid(errors, what) from None
+    try:
+        read(dump(value))
+    except DocumentError as exc:
+        raise DocumentInvalid(_reader_errors(exc, prefix, root), what) from None
+    return value
+
+
 def parse_rail_document(data: Any, prefix: str = "") -> RailDocument:
     """Validate a rail document; raise :class:`DocumentInvalid` naming every bad field.
 
-    The schema checks shape and units (every such problem at once); then the analysis
-    core reads the normalised document with every physics rule, so that no document is
-    stored that the analysis would refuse, and a document is refused for the same reason
-    and on the same field by the web and by the analysis.
+    The schema checks shape and units; the analysis core's reader checks every physics
+    rule, so that no document is stored that the analysis would refuse, and a document is
+    refused for the same reason and on the same field by the web and by the analysis.
     """
     from server.analysis.document import read_rail
 
-    document = parse_model(RailDocument, data, "rail document", prefix)
-    try:
-        read_rail(normalize(document))
-    except DocumentError as exc:
-        raise DocumentInvalid(_reader_errors(exc, prefix), "rail document") from None
-    return document
+    return _validate(RailDocument, data, "rail document", prefix, read_rail, normalize)
 
 
 def parse_fet(data: Any, prefix: str = "") -> Fet:
     """Validate a FET (part) document: the schema, then the analysis core's own reading of it."""
     from server.analysis.document import read_fet
 
-    fet = parse_model(Fet, data, "part", prefix, title_prefix="fet")
-    try:
-        read_fet(fet.model_dump(mode="json"))
-    except DocumentError as exc:
-        raise DocumentInvalid(_reader_errors(exc, prefix, strip="fet"), "part") from None
-    return fet
+    return _validate(Fet, data, "part", prefix, read_fet, lambda fet: fet.model_dump(mode="json"), root="fet")
