@@ -8,9 +8,10 @@ read_fet(fet)
     Validate a MOSFET on its own (a part library entry: the rail document's ``fet``).
 read_rules(*overrides)
     Merge partial rule dicts over `DEFAULT_RULES` and validate them.
-DEFAULTS, OPTIONAL, BOUNDS, Bound, NAME_MAX_LENGTH, LOAD_MODELS, SWITCH_MODES, AFTER_FAULT
-    The defaults, the optional fields, the bounds and the choices of the document: the web
-    schema (``server.schemas.rail``) imports them and checks only shape and units.
+DEFAULTS, OPTIONAL, BOUNDS, Bound, FIELD_KEYS, NAME_MAX_LENGTH, LOAD_MODELS, SWITCH_MODES, AFTER_FAULT
+    The defaults, the optional fields, the bounds, the keys of each object and the choices of
+    the document: the web schema (``server.schemas.rail``) imports them and checks only shape
+    and units.
 DEFAULT_RULES, RULE_DESCRIPTIONS
     The team rules of DESIGN.md section 5 and what each one means.
 Rail, Supply, SeriesPath, Load, Timer, Switch, SoaCurve, Fet
@@ -59,6 +60,7 @@ __all__ = [
     "OPTIONAL",
     "Bound",
     "BOUNDS",
+    "FIELD_KEYS",
     "DEFAULT_RULES",
     "RULE_DESCRIPTIONS",
     "Supply",
@@ -211,7 +213,7 @@ BOUNDS: dict[str, Bound] = {
 }
 
 # The keys each object of the document may hold.
-_KEYS: dict[str, tuple[str, ...]] = {
+FIELD_KEYS: dict[str, tuple[str, ...]] = {
     "": ("schema", "name", "supply", "path", "load", "switch", "fet", "environment", "rules"),
     "supply": ("v_min", "v_nom", "v_max", "r_source", "l_source", "i_max", "uvlo", "uvlo_filter", "c_in"),
     "path": ("r", "l"),
@@ -343,7 +345,7 @@ class _Reader:
             raise DocumentError(first.field, first.reason, errors=self.errors)
 
     def known_keys(self, sec: dict, where: str) -> None:
-        keys = _KEYS[generic_path(where)]
+        keys = FIELD_KEYS[generic_path(where)]
         for key in sec:
             if key not in keys:
                 self.fail(_join(where, str(key)), "is not a known field here (check the spelling)")
@@ -426,7 +428,7 @@ def _read_supply(r: _Reader, doc: dict) -> Supply | None:
     sec = r.obj(doc, "supply", "")
     if sec is None:
         return None
-    v = {key: r.number(sec, key, "supply") for key in _KEYS["supply"]}
+    v = {key: r.number(sec, key, "supply") for key in FIELD_KEYS["supply"]}
     v_min, v_nom, v_max = v["v_min"], v["v_nom"], v["v_max"]
     if v_min is not None and v_max is not None and v_min > v_max:
         r.fail("supply.v_min", f"must not be above the supply maximum ({quantity(v_max, 'V')})")

@@ -186,7 +186,8 @@ class Rules(_Section):
 
 
 class RailDocument(_Section):
-    schema_: Literal[SCHEMA] = Field(SCHEMA, alias="schema", title=FIELD_TITLES["schema"].title)  # type: ignore[valid-type]
+    schema_: Literal[SCHEMA] = Field(  # type: ignore[valid-type]
+        SCHEMA, alias="schema", title=FIELD_TITLES["schema"].title)
     name: str = _field("name")
     supply: Supply = _field("supply")
     path: PathImpedance = Field(default_factory=PathImpedance, title=FIELD_TITLES["path"].title)
