@@ -36,7 +36,7 @@ PART_FIELDS = [
     _fet_field("soa.t_case"),
 ]
 ZTH_FIELD = "zth"
-EMPTY_CURVES = ["100 us", "1 ms", "10 ms", "DC"]
+EMPTY_CURVES = ["100 µs", "1 ms", "10 ms", "DC"]
 _SPLIT = re.compile(r"\s*[,;\t]\s*")
 _COMMENT = "#"
 

@@ -97,7 +97,7 @@ def test_a_part_form_makes_the_fet_document_and_reads_back():
 
 
 def test_part_errors_name_the_form_curve_and_line():
-    form = part_form_from_document(None)  # four empty slots: 100 us, 1 ms, 10 ms, DC
+    form = part_form_from_document(None)  # four empty slots: 100 µs, 1 ms, 10 ms, DC
     form.update({"name": "X", "vds_max": "30 V", "rds_on": "5 mOhm", "tj_max": "150", "rth_ja": "40",
                  "zth": "1, 1 ms", "soa.curves[0].points": "1, 10\n0.5, 5", "soa.curves[2].t_pulse": "",
                  "soa.curves[3].points": "1, 3\n10, 1"})
