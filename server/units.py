@@ -1,5 +1,9 @@
 """Engineering notation in and out: "680uF", "4.7 mOhm", "50 nH", "1 V/ms" <-> SI floats.
 
+Formatting is the analysis core's (:func:`server.analysis.units.quantity`: "470 µF", "4.7 mΩ",
+"125.0 °C", "5 V/ms", "20 %"), so pages, reports and the CLI print the same text. Parsing
+accepts what engineers type: u, µ or μ for micro, degC or °C, V/s, V/ms or V/us.
+
 Parsing uses quantiphy (a small, well-kept library made for exactly this: numbers with SI
 scale factors and units, as engineers write them), then checks that the unit fits the
 quantity asked for. Everything stored and computed is in SI base units.
@@ -13,10 +17,11 @@ from __future__ import annotations
 import math
 import re
 from dataclasses import dataclass
-from decimal import Decimal
 from functools import lru_cache
 
 from quantiphy import InvalidNumber, Quantity
+
+from server.analysis.units import quantity
 
 __all__ = ["UnitError", "Kind", "KINDS", "parse_quantity", "format_quantity"]
 
@@ -134,40 +139,14 @@ def _parse_text(text: str, kind: str, k: Kind) -> float:
     return number
 
 
-_PREFIX_OF_EXPONENT = {-15: "f", -12: "p", -9: "n", -6: "u", -3: "m", 0: "", 3: "k", 6: "M", 9: "G", 12: "T"}
-
-
-def _engineering(value: float, symbol: str, digits: int) -> str:
-    """``digits`` significant digits with an SI prefix ("680 uF", "5.2 mΩ"); quantiphy's rendering,
-    computed directly because pages format thousands of numbers. Outside f..T: quantiphy."""
-    if value == 0:
-        return f"0 {symbol}"
-    mantissa, exponent = f"{value:.{max(digits - 1, 0)}e}".split("e")  # rounds as the library does
-    exp = int(exponent) // 3 * 3
-    if exp not in _PREFIX_OF_EXPONENT:
-        return Quantity(value, symbol).render(prec=max(digits - 1, 0))
-    shifted = float(Decimal(mantissa).scaleb(int(exponent) - exp))  # exact decimal shift, < 1000
-    return f"{shifted:.{max(digits, 3)}g} {_PREFIX_OF_EXPONENT[exp]}{symbol}"
-
-
 @lru_cache(maxsize=65536)
 def _format(value: float, kind: str, digits: int) -> str:
-    if not math.isfinite(value):
-        return "inf" if value > 0 else ("-inf" if value < 0 else "-")
-    k = KINDS[kind]
-    if kind in ("fraction",):
-        return f"{value * 100:.{digits}g} %"
-    if kind in ("ratio",):
-        return f"{value:.{digits}g}"
-    if kind in ("degC", "K"):
-        return f"{value:.{max(digits - 2, 1)}f} {k.symbol}"
-    if kind == "1/K":
-        return f"{value * 100:.{digits}g} %/K"
-    return _engineering(value, k.symbol, digits)
+    return quantity(value, kind, digits)
 
 
 def format_quantity(value: float | None, kind: str, digits: int = 3) -> str:
-    """Engineering notation for display: 0.00047, "F" -> "470 uF"; None -> "-"."""
+    """Engineering notation for display, as the analysis core writes it: 0.00047, "F" -> "470 µF";
+    None -> "-" (an empty cell). One formatter (:func:`server.analysis.units.quantity`), cached."""
     if value is None:
         return "-"
     return _format(float(value), kind, digits)

@@ -82,6 +82,42 @@ def test_bad_document_in_a_bundle_stores_nothing(board_id, tmp_path, capsys):
     assert names == {"VOUT_A", "VOUT_B"}
 
 
+# Designs that cannot work are analysed and fail their checks; they are never bad input (exit 2).
+CANNOT_WORK = {
+    "load turns on above the supply minimum": {"load": {"model": "constant_current", "i_nom": 1.0, "v_on": 11.5}},
+    "upstream UVLO above the supply minimum": {"supply": {"uvlo": 12.0}},
+    "current limit below the load current": {"switch": {"i_limit": "1 A"}, "load": {"i_nom": 3.0}},
+}
+
+
+def test_designs_that_cannot_work_are_imported_not_refused(board_id, tmp_path, capsys):
+    bundle = {"schema": "railsign.bundle/1", "product": {"name": "CLI gateway"},
+              "boards": [{"name": "Main", "revision": "A",
+                          "rails": [rail_doc(f"VOUT_X{k}", **sections)
+                                    for k, sections in enumerate(CANNOT_WORK.values())]}]}
+    path = tmp_path / "cannot_work.json"
+    path.write_text(json.dumps(bundle))
+    assert main(["import", str(path)]) == 0, capsys.readouterr().err
+    assert "3 created" in capsys.readouterr().out
+
+
+@pytest.mark.parametrize("sections", list(CANNOT_WORK.values()), ids=list(CANNOT_WORK))
+def test_designs_that_cannot_work_are_analysed_with_failing_checks(tmp_path, capsys, sections):
+    from server.__main__ import EXIT_FAILING_CHECK
+
+    path = tmp_path / "rail.json"
+    path.write_text(json.dumps(rail_doc(**sections)))
+    assert main(["analyze", str(path)]) == EXIT_FAILING_CHECK, capsys.readouterr().err
+
+
+def test_a_bad_document_is_named_in_words_then_by_path(board_id, tmp_path, capsys):
+    bad = rail_doc("VOUT_BAD", supply={"v_min": 0})
+    path = tmp_path / "bad.json"
+    path.write_text(json.dumps(bad))
+    assert main(["import", str(path), "--board", str(board_id)]) == EXIT_BAD_INPUT
+    assert "Supply minimum (supply.v_min): must be above 0 V" in capsys.readouterr().err
+
+
 @pytest.mark.parametrize("args,words", [
     (["import", "no-such-file.json"], "no such file"),
     (["export", "--rail", "999"], "no rail 999"),

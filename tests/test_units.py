@@ -60,30 +60,74 @@ def test_refused(text, kind, words):
 
 
 @pytest.mark.parametrize("value,kind,text", [
-    (470e-6, "F", "470 uF"),
-    (4.7e-3, "ohm", "4.7 mΩ"),
+    (470e-6, "F", "470 \u00b5F"),           # µ (U+00B5, the micro sign) for micro, never u
+    (10e-6, "s", "10 \u00b5s"),
+    (4.7e-3, "ohm", "4.7 m\u03a9"),          # Ω, never "ohm"
     (12.345, "A", "12.3 A"),
     (50e-9, "H", "50 nH"),
     (0.2, "fraction", "20 %"),
-    (125.0, "degC", "125.0 °C"),
+    (0.05, "fraction", "5 %"),
+    (125.0, "degC", "125.0 \u00b0C"),        # °C, never degC
+    (-40.0, "degC", "-40.0 \u00b0C"),
+    (25.0, "K", "25.0 K"),
     (0.005, "1/K", "0.5 %/K"),
+    (2000.0, "V/s", "2 V/ms"),              # slew rates in V/ms, never "2 kV/s"
+    (6000.0, "V/s", "6 V/ms"),
+    (250.0, "V/s", "250 mV/ms"),
+    (5e6, "V/s", "5 kV/ms"),
+    (1.5, "ratio", "1.5"),
+    (0.0, "V", "0 V"),
+    (float("inf"), "s", "unlimited"),
+    (float("nan"), "A", "n/a"),
     (None, "V", "-"),
 ])
 def test_format(value, kind, text):
     assert format_quantity(value, kind) == text
 
 
-@pytest.mark.parametrize("value,kind", [(680e-6, "F"), (4.7e-3, "ohm"), (2.5, "A"), (1e-6, "s"), (3.3e-8, "F")])
+@pytest.mark.parametrize("value,kind", [(470e-6, "F"), (4.7e-3, "ohm"), (85.0, "degC"), (2000.0, "V/s"),
+                                        (0.2, "fraction"), (0.005, "1/K"), (12.345, "A"), (None, "V")])
+def test_pages_and_the_analysis_core_write_the_same_text(value, kind):
+    from server.analysis.units import eng, quantity, temp
+
+    if value is None:
+        assert quantity(value, kind) == eng(value, kind) == "n/a"  # a report says n/a; a page cell shows "-"
+        return
+    assert format_quantity(value, kind) == quantity(value, kind) == eng(value, kind)
+    if kind == "degC":
+        assert temp(value) == format_quantity(value, kind) == "85.0 \u00b0C"
+
+
+@pytest.mark.parametrize("value,kind", [(680e-6, "F"), (4.7e-3, "ohm"), (2.5, "A"), (1e-6, "s"), (3.3e-8, "F"),
+                                        (2000.0, "V/s"), (125.0, "degC"), (0.2, "fraction"), (0.005, "1/K")])
 def test_format_then_parse_round_trips_to_three_digits(value, kind):
     assert math.isclose(parse_quantity(format_quantity(value, kind), kind), value, rel_tol=5e-3)
 
 
-@pytest.mark.parametrize("kind,symbol", [("F", "F"), ("ohm", "Ω"), ("A", "A"), ("s", "s"), ("V/s", "V/s")])
+@pytest.mark.parametrize("text,kind,value", [
+    ("470 \u00b5F", "F", 470e-6), ("470 \u03bcF", "F", 470e-6), ("470 uF", "F", 470e-6),  # µ, Greek mu, u
+    ("2 V/ms", "V/s", 2000.0), ("2 V/us", "V/s", 2e6), ("2 V/\u00b5s", "V/s", 2e6), ("5 kV/ms", "V/s", 5e6),
+    ("250 mV/ms", "V/s", 250.0), ("2000 V/s", "V/s", 2000.0),
+    ("85 degC", "degC", 85.0), ("85 \u00b0C", "degC", 85.0), ("85.0 \u00b0C", "degC", 85.0),
+])
+def test_parsing_keeps_accepting_every_spelling(text, kind, value):
+    assert math.isclose(parse_quantity(text, kind), value, rel_tol=1e-12)
+
+
+_MICRO = {"u": "\u00b5"}  # quantiphy writes u for micro; our pages write µ
+
+
+@pytest.mark.parametrize("kind,symbol", [("F", "F"), ("ohm", "\u03a9"), ("A", "A"), ("s", "s"), ("V/s", "V/ms")])
 def test_fast_rendering_matches_the_units_library(kind, symbol):
+    # quantiphy (a general-purpose library for numbers with SI scale factors) is the outside
+    # reference for the rounding and the prefix; slew rates are compared in V/ms.
     from quantiphy import Quantity
 
+    scale = 1e-3 if kind == "V/s" else 1.0
     values = [s * m * 10.0 ** e for e in range(-16, 14) for m in (1.0, 1.234, 4.7, 9.995, 99.96, 999.6)
               for s in (1, -1)] + [0.0]
-    for digits in (2, 3, 4):
-        for v in values:
-            assert format_quantity(v, kind, digits) == Quantity(v, symbol).render(prec=digits - 1), (v, digits)
+    with Quantity.prefs(map_sf=_MICRO):
+        for digits in (2, 3, 4):
+            for v in values:
+                expected = Quantity(v * scale, symbol).render(prec=digits - 1)
+                assert format_quantity(v, kind, digits) == expected, (v, digits)

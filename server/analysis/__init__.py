@@ -15,6 +15,10 @@ e12_values(), e_series(name), values_between(lo, hi, series), round_to_series(x,
     IEC 60063 preferred values.
 ENGINE_VERSION, DEFAULT_RULES, RULE_DESCRIPTIONS, CHECKS
     Versions, team rules with their meaning and basis, and the check catalogue.
+FIELD_TITLES, field_title(path), PARAM_WORDS (module ``words``)
+    The title, unit kind and hint of every rail-document field; corner parameters in words.
+quantity(value, kind), eng(x, unit), temp(x) (module ``units``)
+    The one formatter of figures for people: 470 µF, 4.7 mΩ, 125.0 °C, 5 V/ms, 20 %.
 DocumentError (a ValueError with ``.field``), AnalysisError
 """
 
@@ -26,6 +30,8 @@ from .eseries import e12_values, e_series, round_to_series, values_between
 from .report import format_report
 from .soa import derated_soa_curves, soa_allowed_time
 from .thermal import zth
+from .units import eng, quantity, temp
+from .words import FIELD_TITLES, PARAM_WORDS, field_title
 
 __all__ = [
     "ENGINE_VERSION",
@@ -35,6 +41,12 @@ __all__ = [
     "CAUTION",
     "AnalysisError",
     "DocumentError",
+    "FIELD_TITLES",
+    "PARAM_WORDS",
+    "field_title",
+    "quantity",
+    "eng",
+    "temp",
     "analyze_rail",
     "format_report",
     "derated_soa_curves",

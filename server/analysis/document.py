@@ -1,28 +1,41 @@
-"""Reading and validating a normalized rail document (schema ``railsign.rail/1``).
+"""Reading and validating a rail document (schema ``railsign.rail/1``): the one home of its rules.
 
 Provides
 --------
-read_rail(doc)
+read_rail(doc, team_rules=None)
     Validate a rail document (a JSON-like dict in SI units) and return a `Rail`.
+read_fet(fet)
+    Validate a MOSFET on its own (a part library entry: the rail document's ``fet``).
 read_rules(*overrides)
     Merge partial rule dicts over `DEFAULT_RULES` and validate them.
+DEFAULTS, OPTIONAL, BOUNDS, Bound, FIELD_KEYS, NAME_MAX_LENGTH, LOAD_MODELS, SWITCH_MODES, AFTER_FAULT
+    The defaults, the optional fields, the bounds, the keys of each object and the choices of
+    the document: the web schema (``server.schemas.rail``) imports them and checks only shape
+    and units.
 DEFAULT_RULES, RULE_DESCRIPTIONS
     The team rules of DESIGN.md section 5 and what each one means.
 Rail, Supply, SeriesPath, Load, Timer, Switch, SoaCurve, Fet
     Frozen dataclasses holding the validated values (SI units, degC for temperatures).
 
-Every problem raises `DocumentError` naming the dotted field path and the reason. The
-web schema normally fills the defaults; they are filled here as well so that the
-analysis can be called directly on a hand-written document.
+Every problem is reported as a `DocumentError` naming the field in words and by its dotted
+path ("Supply minimum (supply.v_min): must be above 0 V"); every problem of a document is
+collected, and the error raised holds them all in ``.errors``. Numbers are SI numbers here:
+engineering notation ("680uF") is the web schema's job.
 
-Refuses only what cannot be computed (shape, units, non-physical values). A design that
-cannot work (a load turning on above the supply minimum, an upstream UVLO above it) is read
-and analysed: its checks fail with the reason.
+Refuses only what cannot be computed: shape (required fields, known keys, choices, numbers),
+non-physical values (zero or negative capacitance, a tolerance of 100 % or more, v_min above
+v_max, SOA points that are not positive or not ordered, fewer than two pulse widths, a longer
+pulse allowing more than a shorter one, tj_max not above the ambient or the SOA case
+temperature), a constant-power load with v_on = 0 (it would draw infinite current), and a
+mode without its parameter. A design that cannot work (a load turning on at or above the
+supply minimum, an upstream UVLO at or above it, a current limit below the load current) is
+read and analysed: its checks fail with the reason.
 
 ``supply.uvlo_filter`` (s, optional) is the upstream UVLO's deglitch time from its
 datasheet: the UVLO trips only when the switch input stays below it continuously for that
 long. Absent, the raw dip is compared. ``supply.c_in`` (F, optional) is the capacitance at
-the switch input, which bounds the dip.
+the switch input, which bounds the dip. ``environment.t_ambient`` has no default: a default
+ambient of our own would make the thermal checks easier to pass.
 """
 
 from __future__ import annotations
@@ -34,9 +47,20 @@ from typing import Any
 import numpy as np
 
 from .errors import DocumentError
+from .units import KIND_SYMBOLS, quantity
+from .words import FIELD_TITLES, generic_path
 
 __all__ = [
     "SCHEMA",
+    "NAME_MAX_LENGTH",
+    "LOAD_MODELS",
+    "SWITCH_MODES",
+    "AFTER_FAULT",
+    "DEFAULTS",
+    "OPTIONAL",
+    "Bound",
+    "BOUNDS",
+    "FIELD_KEYS",
     "DEFAULT_RULES",
     "RULE_DESCRIPTIONS",
     "Supply",
@@ -53,6 +77,12 @@ __all__ = [
 ]
 
 SCHEMA = "railsign.rail/1"
+NAME_MAX_LENGTH = 200  # characters of a rail or MOSFET name
+ABSOLUTE_ZERO = -273.15  # degC
+
+LOAD_MODELS = ("none", "resistive", "constant_current", "constant_power")
+SWITCH_MODES = ("hard", "slew", "current_limit", "power_limit")
+AFTER_FAULT = ("latch", "retry")
 
 DEFAULT_RULES: dict[str, float] = {
     "tj_headroom": 25.0,
@@ -90,9 +120,113 @@ RULE_DESCRIPTIONS: dict[str, dict[str, str]] = {
     },
 }
 
-LOAD_MODELS = ("none", "resistive", "constant_current", "constant_power")
-SWITCH_MODES = ("hard", "slew", "current_limit", "power_limit")
-AFTER_FAULT = ("latch", "retry")
+# The value a field takes when the document leaves it out (DESIGN.md section 3).
+DEFAULTS: dict[str, float | str] = {
+    "supply.r_source": 0.0,
+    "supply.l_source": 0.0,
+    "path.r": 0.0,
+    "path.l": 0.0,
+    "load.c_tol": 0.0,
+    "load.esr": 0.0,
+    "load.model": "none",
+    "load.i_nom": 0.0,
+    "load.v_on": 0.0,
+    "switch.t_on": 0.0,
+    "switch.i_limit_tol": 0.0,
+    "switch.timer.c_tol": 0.0,
+    "switch.timer.i_charge_tol": 0.0,
+    "switch.timer.v_trip_tol": 0.0,
+    "switch.timer.after_fault": "latch",
+    "fet.rds_on_alpha": 0.005,
+    "fet.soa.t_case": 25.0,
+}
+
+# Fields that may be absent or null, with no default: absent means "none" (no UVLO, no timer,
+# the DC curve for a null pulse width, the team's rule).
+OPTIONAL: frozenset[str] = frozenset({
+    "supply.i_max", "supply.uvlo", "supply.uvlo_filter", "supply.c_in",
+    "switch.dvdt", "switch.i_limit", "switch.p_limit", "switch.timer", "switch.timer.retry_off",
+    "fet.id_pulse_max", "fet.soa.curves[].t_pulse",
+    *(f"rules.{k}" for k in DEFAULT_RULES),
+})
+
+
+@dataclass(frozen=True)
+class Bound:
+    """The range of a number: ``> above``, ``>= minimum``, ``< below``, ``<= maximum`` (None: open)."""
+
+    above: float | None = None
+    minimum: float | None = None
+    below: float | None = None
+    maximum: float | None = None
+    note: str = ""  # said after the problem: what the field is
+
+    def problem(self, value: float, kind: str | None) -> str | None:
+        """What is wrong with ``value`` (a sentence), or None when it lies in the range."""
+        text = None
+        if self.above is not None and not value > self.above:
+            text = f"must be above {_show(self.above, kind)}"
+        elif self.minimum is not None and not value >= self.minimum:
+            text = "must not be negative" if self.minimum == 0.0 else f"must be at least {_show(self.minimum, kind)}"
+        elif self.below is not None and not value < self.below:
+            text = f"must be below {_show(self.below, kind)}"
+        elif self.maximum is not None and not value <= self.maximum:
+            text = f"must be at most {_show(self.maximum, kind)}"
+        if text is None:
+            return None
+        return f"{text} ({self.note})" if self.note else text
+
+
+def _show(value: float, kind: str | None) -> str:
+    """A bound as written (no rounding: -273.15 °C stays -273.15 °C)."""
+    if kind in (None, "ratio"):
+        return f"{value:g}"
+    if kind in ("degC", "K"):
+        return f"{value:g} {KIND_SYMBOLS[kind]}"
+    return quantity(value, kind)
+
+
+POSITIVE = Bound(above=0.0)
+NON_NEGATIVE = Bound(minimum=0.0)
+TOLERANCE = Bound(minimum=0.0, below=1.0, note="a tolerance is a fraction of the nominal value, like 0.2 or 20 %")
+TEMPERATURE = Bound(above=ABSOLUTE_ZERO, note="absolute zero")
+
+# The range of every number of the document (generic paths, list items as "[]").
+BOUNDS: dict[str, Bound] = {
+    "supply.v_min": POSITIVE, "supply.v_nom": POSITIVE, "supply.v_max": POSITIVE,
+    "supply.r_source": NON_NEGATIVE, "supply.l_source": NON_NEGATIVE, "supply.i_max": POSITIVE,
+    "supply.uvlo": POSITIVE, "supply.uvlo_filter": NON_NEGATIVE, "supply.c_in": POSITIVE,
+    "path.r": NON_NEGATIVE, "path.l": NON_NEGATIVE,
+    "load.c_nom": POSITIVE, "load.c_tol": TOLERANCE, "load.esr": NON_NEGATIVE, "load.i_nom": NON_NEGATIVE,
+    "load.v_on": NON_NEGATIVE,
+    "switch.t_on": NON_NEGATIVE, "switch.dvdt": POSITIVE, "switch.i_limit": POSITIVE,
+    "switch.i_limit_tol": TOLERANCE, "switch.p_limit": POSITIVE,
+    "switch.timer.c": POSITIVE, "switch.timer.c_tol": TOLERANCE, "switch.timer.i_charge": POSITIVE,
+    "switch.timer.i_charge_tol": TOLERANCE, "switch.timer.v_trip": POSITIVE, "switch.timer.v_trip_tol": TOLERANCE,
+    "switch.timer.retry_off": POSITIVE,
+    "fet.vds_max": POSITIVE, "fet.id_pulse_max": POSITIVE, "fet.rds_on": POSITIVE, "fet.rds_on_alpha": NON_NEGATIVE,
+    "fet.tj_max": TEMPERATURE, "fet.rth_ja": POSITIVE, "fet.zth[].r": POSITIVE, "fet.zth[].tau": POSITIVE,
+    "fet.soa.t_case": TEMPERATURE, "fet.soa.curves[].t_pulse": POSITIVE,
+    "environment.t_ambient": TEMPERATURE,
+    "rules.tj_headroom": NON_NEGATIVE, "rules.soa_margin": Bound(minimum=1.0), "rules.fault_margin": Bound(minimum=1.0),
+    "rules.timer_margin": Bound(minimum=1.0), "rules.vds_derating": Bound(above=0.0, maximum=1.0),
+}
+
+# The keys each object of the document may hold.
+FIELD_KEYS: dict[str, tuple[str, ...]] = {
+    "": ("schema", "name", "supply", "path", "load", "switch", "fet", "environment", "rules"),
+    "supply": ("v_min", "v_nom", "v_max", "r_source", "l_source", "i_max", "uvlo", "uvlo_filter", "c_in"),
+    "path": ("r", "l"),
+    "load": ("c_nom", "c_tol", "esr", "model", "i_nom", "v_on"),
+    "switch": ("mode", "t_on", "dvdt", "i_limit", "i_limit_tol", "p_limit", "timer"),
+    "switch.timer": ("c", "c_tol", "i_charge", "i_charge_tol", "v_trip", "v_trip_tol", "after_fault", "retry_off"),
+    "fet": ("name", "vds_max", "id_pulse_max", "rds_on", "rds_on_alpha", "tj_max", "rth_ja", "zth", "soa"),
+    "fet.zth[]": ("r", "tau"),
+    "fet.soa": ("t_case", "curves"),
+    "fet.soa.curves[]": ("t_pulse", "points"),
+    "environment": ("t_ambient",),
+    "rules": tuple(DEFAULT_RULES),
+}
 
 
 @dataclass(frozen=True)
@@ -180,206 +314,266 @@ class Rail:
 
 
 # ---------------------------------------------------------------------------
-# field readers
-
-
-def _section(doc: Any, key: str, where: str) -> dict:
-    value = doc.get(key)
-    if value is None:
-        raise DocumentError(_join(where, key), "required")
-    if not isinstance(value, dict):
-        raise DocumentError(_join(where, key), "must be an object")
-    return value
+# the reader: every field once, every problem collected
 
 
 def _join(where: str, key: str) -> str:
     return f"{where}.{key}" if where else key
 
 
-def _number(
-    sec: dict,
-    key: str,
-    where: str,
-    *,
-    default: float | None = None,
-    optional: bool = False,
-    minimum: float | None = None,
-    above: float | None = None,
-    below: float | None = None,
-) -> float | None:
-    field = _join(where, key)
-    value = sec.get(key)
-    if value is None:
-        if default is not None:
-            return float(default)
-        if optional:
+def _kind(generic: str) -> str | None:
+    words = FIELD_TITLES.get(generic)
+    return words.kind if words is not None else None
+
+
+def _is_number(value: Any) -> bool:
+    return not isinstance(value, bool) and isinstance(value, (int, float))
+
+
+class _Reader:
+    """Reads the fields of a document and collects every problem; a field that fails reads as None."""
+
+    def __init__(self) -> None:
+        self.errors: list[DocumentError] = []
+
+    def fail(self, field: str, reason: str) -> None:
+        self.errors.append(DocumentError(field, reason))
+
+    def raise_errors(self) -> None:
+        if self.errors:
+            first = self.errors[0]
+            raise DocumentError(first.field, first.reason, errors=self.errors)
+
+    def known_keys(self, sec: dict, where: str) -> None:
+        keys = FIELD_KEYS[generic_path(where)]
+        for key in sec:
+            if key not in keys:
+                self.fail(_join(where, str(key)), "is not a known field here (check the spelling)")
+
+    def obj(self, parent: dict, key: str, where: str, *, required: bool = True, what: str = "an object") -> dict | None:
+        """The object ``parent[key]`` (unknown keys reported); None when absent or bad."""
+        field = _join(where, key)
+        value = parent.get(key)
+        if value is None:
+            if required:
+                self.fail(field, "is required")
+            elif key in parent:
+                self.fail(field, f"must be {what}")
             return None
-        raise DocumentError(field, "required")
-    if isinstance(value, bool) or not isinstance(value, (int, float)):
-        raise DocumentError(field, "must be a number in SI units")
-    value = float(value)
-    if not math.isfinite(value):
-        raise DocumentError(field, "must be a finite number (no NaN or infinity)")
-    if minimum is not None and value < minimum:
-        raise DocumentError(field, f"must be >= {minimum:g}")
-    if above is not None and value <= above:
-        raise DocumentError(field, f"must be > {above:g}")
-    if below is not None and value >= below:
-        raise DocumentError(field, f"must be < {below:g}")
-    return value
+        return self.item(value, field, what)
+
+    def item(self, value: Any, field: str, what: str = "an object") -> dict | None:
+        """An object in a list (or any object at ``field``), or None (reported) when it is not one."""
+        if not isinstance(value, dict):
+            self.fail(field, f"must be {what}")
+            return None
+        self.known_keys(value, field)
+        return value
+
+    def number(self, sec: dict, key: str, where: str) -> float | None:
+        """A number in SI units within its bounds; its default, or None when optional and absent."""
+        field = _join(where, key)
+        generic = generic_path(field)
+        value = sec.get(key)
+        if value is None:
+            if generic in DEFAULTS:
+                return float(DEFAULTS[generic])
+            if generic not in OPTIONAL:
+                self.fail(field, "is required")
+            return None
+        if not _is_number(value):
+            self.fail(field, "must be a number in SI units")
+            return None
+        value = float(value)
+        if not math.isfinite(value):
+            self.fail(field, "must be a finite number (no NaN or infinity)")
+            return None
+        bound = BOUNDS.get(generic)
+        problem = bound.problem(value, _kind(generic)) if bound is not None else None
+        if problem is not None:
+            self.fail(field, problem)
+            return None
+        return value
+
+    def choice(self, sec: dict, key: str, where: str, choices: tuple[str, ...]) -> str | None:
+        field = _join(where, key)
+        value = sec.get(key)
+        if value is None:
+            default = DEFAULTS.get(generic_path(field))
+            if default is None:
+                self.fail(field, "is required")
+            return default
+        if not isinstance(value, str) or value not in choices:
+            self.fail(field, f"must be one of {', '.join(choices)}")
+            return None
+        return value
+
+    def text(self, sec: dict, key: str, where: str) -> str | None:
+        field = _join(where, key)
+        value = sec.get(key)
+        if value is None:
+            self.fail(field, "is required")
+        elif not isinstance(value, str):
+            self.fail(field, "must be a text")
+        elif not value.strip():
+            self.fail(field, "must not be empty")
+        elif len(value) > NAME_MAX_LENGTH:
+            self.fail(field, f"must be at most {NAME_MAX_LENGTH} characters long")
+        else:
+            return value
+        return None
 
 
-def _choice(sec: dict, key: str, where: str, choices: tuple[str, ...], default: str | None = None) -> str:
-    value = sec.get(key, default)
-    if value is None:
-        raise DocumentError(_join(where, key), "required")
-    if value not in choices:
-        raise DocumentError(_join(where, key), f"must be one of {', '.join(choices)}")
-    return value
+def _read_supply(r: _Reader, doc: dict) -> Supply | None:
+    sec = r.obj(doc, "supply", "")
+    if sec is None:
+        return None
+    v = {key: r.number(sec, key, "supply") for key in FIELD_KEYS["supply"]}
+    v_min, v_nom, v_max = v["v_min"], v["v_nom"], v["v_max"]
+    if v_min is not None and v_max is not None and v_min > v_max:
+        r.fail("supply.v_min", f"must not be above the supply maximum ({quantity(v_max, 'V')})")
+    elif None not in (v_min, v_nom, v_max) and not v_min <= v_nom <= v_max:
+        r.fail("supply.v_nom", f"must lie between the supply minimum and maximum "
+                               f"({quantity(v_min, 'V')} to {quantity(v_max, 'V')})")
+    return Supply(**v)
 
 
-def _read_supply(doc: dict) -> Supply:
-    sec = _section(doc, "supply", "")
-    w = "supply"
-    v_min = _number(sec, "v_min", w, above=0.0)
-    v_nom = _number(sec, "v_nom", w, above=0.0)
-    v_max = _number(sec, "v_max", w, above=0.0)
-    if v_min > v_max:
-        raise DocumentError("supply.v_min", "must not exceed supply.v_max")
-    if not v_min <= v_nom <= v_max:
-        raise DocumentError("supply.v_nom", "must lie between supply.v_min and supply.v_max")
-    return Supply(
-        v_min=v_min,
-        v_nom=v_nom,
-        v_max=v_max,
-        r_source=_number(sec, "r_source", w, default=0.0, minimum=0.0),
-        l_source=_number(sec, "l_source", w, default=0.0, minimum=0.0),
-        i_max=_number(sec, "i_max", w, optional=True, above=0.0),
-        uvlo=_number(sec, "uvlo", w, optional=True, minimum=0.0),
-        uvlo_filter=_number(sec, "uvlo_filter", w, optional=True, minimum=0.0),
-        c_in=_number(sec, "c_in", w, optional=True, above=0.0),
-    )
+def _read_path(r: _Reader, doc: dict) -> SeriesPath:
+    sec = r.obj(doc, "path", "", required=False) or {}
+    return SeriesPath(r=r.number(sec, "r", "path"), l=r.number(sec, "l", "path"))
 
 
-def _read_path(doc: dict) -> SeriesPath:
-    sec = doc.get("path") or {}
-    if not isinstance(sec, dict):
-        raise DocumentError("path", "must be an object")
-    return SeriesPath(
-        r=_number(sec, "r", "path", default=0.0, minimum=0.0),
-        l=_number(sec, "l", "path", default=0.0, minimum=0.0),
-    )
-
-
-def _read_load(doc: dict) -> Load:
-    sec = _section(doc, "load", "")
+def _read_load(r: _Reader, doc: dict) -> Load | None:
+    sec = r.obj(doc, "load", "")
+    if sec is None:
+        return None
     w = "load"
-    model = _choice(sec, "model", w, LOAD_MODELS, default="none")
-    i_nom = _number(sec, "i_nom", w, default=0.0, minimum=0.0)
-    v_on = _number(sec, "v_on", w, default=0.0, minimum=0.0)
-    if model != "none" and i_nom <= 0.0:
-        raise DocumentError("load.i_nom", f"must be > 0 for a {model} load")
-    if model == "constant_power" and v_on <= 0.0:
-        raise DocumentError("load.v_on", "must be > 0 for a constant_power load (it draws P / v)")
-    return Load(
-        c_nom=_number(sec, "c_nom", w, above=0.0),
-        c_tol=_number(sec, "c_tol", w, default=0.0, minimum=0.0, below=1.0),
-        esr=_number(sec, "esr", w, default=0.0, minimum=0.0),
-        model=model,
-        i_nom=i_nom,
-        v_on=v_on,
-    )
+    model = r.choice(sec, "model", w, LOAD_MODELS)
+    i_nom = r.number(sec, "i_nom", w)
+    v_on = r.number(sec, "v_on", w)
+    if model not in (None, "none") and i_nom is not None and i_nom <= 0.0:
+        r.fail("load.i_nom", f"must be above 0 A for a {model.replace('_', ' ')} load")
+    if model == "constant_power" and v_on is not None and v_on <= 0.0:
+        r.fail("load.v_on", "must be above 0 V for a constant-power load: at 0 V it would draw infinite current")
+    return Load(c_nom=r.number(sec, "c_nom", w), c_tol=r.number(sec, "c_tol", w), esr=r.number(sec, "esr", w),
+                model=model, i_nom=i_nom, v_on=v_on)
 
 
-def _read_timer(sec: dict) -> Timer | None:
-    t = sec.get("timer")
+def _read_timer(r: _Reader, sec: dict) -> Timer | None:
+    if sec.get("timer") is None:  # null: no fault timer
+        return None
+    t = r.item(sec["timer"], "switch.timer", "an object or null")
     if t is None:
         return None
     w = "switch.timer"
-    if not isinstance(t, dict):
-        raise DocumentError(w, "must be an object or null")
-    after = _choice(t, "after_fault", w, AFTER_FAULT, default="latch")
-    retry_off = _number(t, "retry_off", w, optional=True, above=0.0)
-    if after == "retry" and retry_off is None:
-        raise DocumentError("switch.timer.retry_off", "required when after_fault is retry")
+    after = r.choice(t, "after_fault", w, AFTER_FAULT)
+    retry_off = r.number(t, "retry_off", w)
+    if after == "retry" and t.get("retry_off") is None:
+        r.fail("switch.timer.retry_off", "is required when the timer retries after a fault")
     return Timer(
-        c=_number(t, "c", w, above=0.0),
-        c_tol=_number(t, "c_tol", w, default=0.0, minimum=0.0, below=1.0),
-        i_charge=_number(t, "i_charge", w, above=0.0),
-        i_charge_tol=_number(t, "i_charge_tol", w, default=0.0, minimum=0.0, below=1.0),
-        v_trip=_number(t, "v_trip", w, above=0.0),
-        v_trip_tol=_number(t, "v_trip_tol", w, default=0.0, minimum=0.0, below=1.0),
+        c=r.number(t, "c", w),
+        c_tol=r.number(t, "c_tol", w),
+        i_charge=r.number(t, "i_charge", w),
+        i_charge_tol=r.number(t, "i_charge_tol", w),
+        v_trip=r.number(t, "v_trip", w),
+        v_trip_tol=r.number(t, "v_trip_tol", w),
         after_fault=after,
         retry_off=retry_off,
     )
 
 
-def _read_switch(doc: dict) -> Switch:
-    sec = _section(doc, "switch", "")
+# the parameter each switch mode needs
+_MODE_NEEDS = {"slew": ("dvdt",), "current_limit": ("i_limit",), "power_limit": ("i_limit", "p_limit")}
+
+
+def _read_switch(r: _Reader, doc: dict) -> Switch | None:
+    sec = r.obj(doc, "switch", "")
+    if sec is None:
+        return None
     w = "switch"
-    mode = _choice(sec, "mode", w, SWITCH_MODES)
-    dvdt = _number(sec, "dvdt", w, optional=True, above=0.0)
-    i_limit = _number(sec, "i_limit", w, optional=True, above=0.0)
-    p_limit = _number(sec, "p_limit", w, optional=True, above=0.0)
-    if mode == "slew" and dvdt is None:
-        raise DocumentError("switch.dvdt", "required in slew mode")
-    if mode in ("current_limit", "power_limit") and i_limit is None:
-        raise DocumentError("switch.i_limit", f"required in {mode} mode")
-    if mode == "power_limit" and p_limit is None:
-        raise DocumentError("switch.p_limit", "required in power_limit mode")
-    return Switch(
-        mode=mode,
-        t_on=_number(sec, "t_on", w, default=0.0, minimum=0.0),
-        dvdt=dvdt,
-        i_limit=i_limit,
-        i_limit_tol=_number(sec, "i_limit_tol", w, default=0.0, minimum=0.0, below=1.0),
-        p_limit=p_limit if mode == "power_limit" else None,
-        timer=_read_timer(sec),
-    )
+    mode = r.choice(sec, "mode", w, SWITCH_MODES)
+    values = {key: r.number(sec, key, w) for key in ("t_on", "dvdt", "i_limit", "i_limit_tol", "p_limit")}
+    for key in _MODE_NEEDS.get(mode, ()):
+        if sec.get(key) is None:  # absent; a bad value is reported already
+            r.fail(f"switch.{key}", f"is required in {mode.replace('_', ' ')} mode")
+    if mode != "power_limit":
+        values["p_limit"] = None
+    return Switch(mode=mode, timer=_read_timer(r, sec), **values)
 
 
-def _read_curves(soa: dict, t_case: float) -> tuple[SoaCurve, ...]:
-    curves = soa.get("curves")
+def _read_points(r: _Reader, points: Any, where: str) -> tuple[tuple[float, float], ...] | None:
+    """A curve's [V_DS, I_D] points: every malformed point is reported; then the first point that is
+    not positive or out of order (a later one would only repeat the problem)."""
+    field = f"{where}.points"
+    if not isinstance(points, list) or len(points) < 2:
+        r.fail(field, "needs at least two [V_DS, I_D] points")
+        return None
+    well_formed = True
+    for j, p in enumerate(points):
+        if not isinstance(p, (list, tuple)) or len(p) != 2:
+            r.fail(f"{field}[{j}]", "must be a [V_DS, I_D] pair")
+            well_formed = False
+        elif not all(_is_number(q) and math.isfinite(q) for q in p):
+            r.fail(f"{field}[{j}]", "must hold two finite numbers: V_DS in V and I_D in A")
+            well_formed = False
+    if not well_formed:
+        return None
+    parsed: list[tuple[float, float]] = []
+    for j, (v, i) in enumerate((float(a), float(b)) for a, b in points):
+        pw = f"{field}[{j}]"
+        if v <= 0.0 or i <= 0.0:
+            r.fail(pw, f"V_DS and I_D must be positive, the curves are drawn on log-log axes (got {v:g} V, {i:g} A)")
+            return None
+        if parsed and v <= parsed[-1][0]:
+            r.fail(pw, f"V_DS must increase from point to point ({v:g} V follows {parsed[-1][0]:g} V)")
+            return None
+        if parsed and i > parsed[-1][1]:
+            r.fail(pw, f"I_D must not rise with V_DS ({i:g} A follows {parsed[-1][1]:g} A)")
+            return None
+        parsed.append((v, i))
+    return tuple(parsed)
+
+
+def _read_curves(r: _Reader, soa: dict) -> tuple[SoaCurve, ...] | None:
     w = "fet.soa.curves"
+    curves = soa.get("curves")
+    if curves is None:
+        r.fail(w, "is required: a list of curves, one per pulse width")
+        return None
     if not isinstance(curves, list):
-        raise DocumentError(w, "required: a list of curves")
+        r.fail(w, "must be a list of curves, one per pulse width")
+        return None
     if len(curves) < 2:
-        raise DocumentError(w, "needs at least two pulse widths")
+        r.fail(w, f"needs at least two pulse widths (got {len(curves)}), so that the allowed time can be "
+                  "interpolated between them")
     out: list[SoaCurve] = []
     seen: set[float | None] = set()
+    complete = True
     for k, c in enumerate(curves):
         cw = f"{w}[{k}]"
-        if not isinstance(c, dict):
-            raise DocumentError(cw, "must be an object")
-        t_pulse = _number(c, "t_pulse", cw, optional=True, above=0.0)
-        if t_pulse in seen:
-            raise DocumentError(f"{cw}.t_pulse", "duplicate pulse width")
-        seen.add(t_pulse)
-        pts = c.get("points")
-        if not isinstance(pts, list) or len(pts) < 2:
-            raise DocumentError(f"{cw}.points", "needs at least two [vds, id] points")
-        parsed: list[tuple[float, float]] = []
-        for j, p in enumerate(pts):
-            pw = f"{cw}.points[{j}]"
-            if not isinstance(p, (list, tuple)) or len(p) != 2:
-                raise DocumentError(pw, "must be a [vds, id] pair")
-            pair = []
-            for q in p:
-                if isinstance(q, bool) or not isinstance(q, (int, float)) or not math.isfinite(q):
-                    raise DocumentError(pw, "must hold two finite numbers")
-                if q <= 0.0:
-                    raise DocumentError(pw, "vds and id must be positive")
-                pair.append(float(q))
-            if parsed and pair[0] <= parsed[-1][0]:
-                raise DocumentError(pw, "vds must increase strictly along a curve")
-            parsed.append((pair[0], pair[1]))
-        out.append(SoaCurve(t_pulse=t_pulse, points=tuple(parsed)))
+        c = r.item(c, cw)
+        if c is None:
+            complete = False
+            continue
+        before = len(r.errors)
+        t_pulse = r.number(c, "t_pulse", cw)
+        if len(r.errors) == before:
+            if t_pulse in seen:
+                r.fail(f"{cw}.t_pulse", "repeats the pulse width of another curve: give each pulse width once")
+            seen.add(t_pulse)
+        points = _read_points(r, c.get("points"), cw)
+        if len(r.errors) > before:
+            complete = False
+            continue
+        out.append(SoaCurve(t_pulse=t_pulse, points=points))
+    if not complete or len(out) < 2:
+        return None
     out.sort(key=lambda c: math.inf if c.t_pulse is None else c.t_pulse)
-    _check_curve_order(out)
+    _check_curve_order(r, out)
     return tuple(out)
 
 
-def _check_curve_order(curves: list[SoaCurve]) -> None:
+def _check_curve_order(r: _Reader, curves: list[SoaCurve]) -> None:
     """A longer pulse must not allow more current than a shorter one at any vds."""
     vs = sorted({v for c in curves for v, _ in c.points})
     x = np.log(vs)
@@ -394,50 +588,57 @@ def _check_curve_order(curves: list[SoaCurve]) -> None:
             v_end = prev_curve.points[-1][0]  # compare where the shorter pulse is drawn
             for v, a, b in zip(vs, prev, cur):
                 if v <= v_end and b > a * (1.0 + 1e-9):
-                    label = "DC" if c.t_pulse is None else f"{c.t_pulse:g} s"
-                    raise DocumentError(
-                        "fet.soa.curves",
-                        f"the {label} curve allows more current than a shorter pulse at {v:g} V",
-                    )
+                    label = "DC" if c.t_pulse is None else quantity(c.t_pulse, "s")
+                    shorter = quantity(prev_curve.t_pulse, "s")
+                    r.fail("fet.soa.curves", f"the {label} curve allows more current than a shorter pulse "
+                                             f"({shorter}) at {v:g} V: a longer pulse never allows more")
+                    return
         prev, prev_curve = cur, c
 
 
-def _read_fet(doc: dict, t_ambient: float) -> Fet:
-    sec = _section(doc, "fet", "")
-    w = "fet"
-    name = sec.get("name")
-    if not isinstance(name, str) or not name.strip():
-        raise DocumentError("fet.name", "required: a text")
-    tj_max = _number(sec, "tj_max", w)
-    if tj_max <= t_ambient:
-        raise DocumentError("fet.tj_max", "must be above environment.t_ambient")
+def _read_zth(r: _Reader, sec: dict) -> tuple[tuple[float, float], ...] | None:
+    w = "fet.zth"
     zth = sec.get("zth")
     if not isinstance(zth, list) or not zth:
-        raise DocumentError("fet.zth", "required: a list of Foster stages {r, tau}")
+        r.fail(w, "is required: a list of Foster stages {r, tau}" if zth is None else
+               "must be a non-empty list of Foster stages {r, tau}")
+        return None
     stages = []
     for k, s in enumerate(zth):
-        sw = f"fet.zth[{k}]"
-        if not isinstance(s, dict):
-            raise DocumentError(sw, "must be an object {r, tau}")
-        stages.append((_number(s, "r", sw, above=0.0), _number(s, "tau", sw, above=0.0)))
-    soa = sec.get("soa")
-    if not isinstance(soa, dict):
-        raise DocumentError("fet.soa", "required: an object with curves")
-    t_case = _number(soa, "t_case", "fet.soa", default=25.0)
-    if t_case >= tj_max:
-        raise DocumentError("fet.soa.t_case", "must be below fet.tj_max")
-    return Fet(
-        name=name,
-        vds_max=_number(sec, "vds_max", w, above=0.0),
-        id_pulse_max=_number(sec, "id_pulse_max", w, optional=True, above=0.0),
-        rds_on=_number(sec, "rds_on", w, above=0.0),
-        rds_on_alpha=_number(sec, "rds_on_alpha", w, default=0.005, minimum=0.0),
-        tj_max=tj_max,
-        rth_ja=_number(sec, "rth_ja", w, above=0.0),
-        zth=tuple(stages),
-        t_case=t_case,
-        curves=_read_curves(soa, t_case),
-    )
+        s = r.item(s, f"{w}[{k}]", "an object {r, tau}")
+        if s is not None:
+            stages.append((r.number(s, "r", f"{w}[{k}]"), r.number(s, "tau", f"{w}[{k}]")))
+    return tuple(stages)
+
+
+def _read_fet_section(r: _Reader, doc: dict, t_ambient: float | None) -> Fet | None:
+    sec = r.obj(doc, "fet", "")
+    if sec is None:
+        return None
+    w = "fet"
+    name = r.text(sec, "name", w)
+    tj_max = r.number(sec, "tj_max", w)
+    if tj_max is not None and t_ambient is not None and tj_max <= t_ambient:
+        r.fail("fet.tj_max", f"must be above the worst-case high ambient temperature ({quantity(t_ambient, 'degC')})")
+    values = {key: r.number(sec, key, w) for key in ("vds_max", "id_pulse_max", "rds_on", "rds_on_alpha", "rth_ja")}
+    zth = _read_zth(r, sec)
+    soa = r.obj(sec, "soa", w)
+    t_case = curves = None
+    if soa is not None:
+        t_case = r.number(soa, "t_case", "fet.soa")
+        if t_case is not None and tj_max is not None and t_case >= tj_max:
+            r.fail("fet.soa.t_case", f"must be below the MOSFET maximum junction temperature "
+                                     f"({quantity(tj_max, 'degC')}): the curves are measured below it")
+        curves = _read_curves(r, soa)
+    return Fet(name=name, tj_max=tj_max, zth=zth, t_case=t_case, curves=curves, **values)
+
+
+def _read_fet(doc: dict, t_ambient: float | None) -> Fet:
+    """The ``fet`` section of ``doc`` on its own (tj_max checked against ``t_ambient`` unless None)."""
+    r = _Reader()
+    fet = _read_fet_section(r, doc, t_ambient)
+    r.raise_errors()
+    return fet
 
 
 def read_fet(fet: Any) -> Fet:
@@ -446,7 +647,21 @@ def read_fet(fet: Any) -> Fet:
     The checks that involve the rest of a rail (tj_max above the ambient) are left to
     `read_rail`; raises `DocumentError` with paths starting at ``fet``.
     """
-    return _read_fet({"fet": fet}, t_ambient=-273.15)
+    return _read_fet({"fet": fet}, t_ambient=None)
+
+
+def _read_rule_overrides(r: _Reader, src: Any) -> dict[str, float]:
+    if src is None:
+        return {}
+    src = r.item(src, "rules")
+    if src is None:
+        return {}
+    out = {}
+    for key in DEFAULT_RULES:
+        value = r.number(src, key, "rules")
+        if value is not None:
+            out[key] = value
+    return out
 
 
 def read_rules(*overrides: Any) -> dict[str, float]:
@@ -455,7 +670,8 @@ def read_rules(*overrides: Any) -> dict[str, float]:
     Parameters
     ----------
     *overrides : dict or None
-        Partial rule dicts, later ones win (team rules, then the rail's own).
+        Partial rule dicts, later ones win (team rules, then the rail's own); a rule given
+        as None is not overridden.
 
     Returns
     -------
@@ -463,30 +679,16 @@ def read_rules(*overrides: Any) -> dict[str, float]:
         All five rules: ``tj_headroom`` (K), ``soa_margin``, ``fault_margin``,
         ``timer_margin`` (ratios >= 1) and ``vds_derating`` (ratio in (0, 1]).
     """
+    r = _Reader()
     rules = dict(DEFAULT_RULES)
     for src in overrides:
-        if src is None:
-            continue
-        if not isinstance(src, dict):
-            raise DocumentError("rules", "must be an object")
-        for key in src:
-            if key not in DEFAULT_RULES:
-                raise DocumentError(f"rules.{key}", "unknown rule")
-        for key in src:
-            if key == "tj_headroom":
-                rules[key] = _number(src, key, "rules", minimum=0.0)
-            elif key == "vds_derating":
-                v = _number(src, key, "rules", above=0.0)
-                if v > 1.0:
-                    raise DocumentError("rules.vds_derating", "must be <= 1")
-                rules[key] = v
-            else:
-                rules[key] = _number(src, key, "rules", minimum=1.0)
+        rules.update(_read_rule_overrides(r, src))
+    r.raise_errors()
     return rules
 
 
 def read_rail(doc: Any, team_rules: dict | None = None) -> Rail:
-    """Validate a normalized rail document and return it as a `Rail`.
+    """Validate a rail document and return it as a `Rail`.
 
     Parameters
     ----------
@@ -503,27 +705,27 @@ def read_rail(doc: Any, team_rules: dict | None = None) -> Rail:
     Raises
     ------
     DocumentError
-        Naming the field path and the reason.
+        Naming the first bad field in words and by path; ``.errors`` holds every problem.
     """
     if not isinstance(doc, dict):
         raise DocumentError("document", "must be an object")
-    schema = doc.get("schema", SCHEMA)
-    if schema != SCHEMA:
-        raise DocumentError("schema", f"unsupported schema {schema!r}; expected {SCHEMA!r}")
-    name = doc.get("name", "")
-    if not isinstance(name, str):
-        raise DocumentError("name", "must be a text")
-    env = _section(doc, "environment", "")
-    t_ambient = _number(env, "t_ambient", "environment")
-    supply = _read_supply(doc)
-    rules = read_rules(team_rules, doc.get("rules"))
-    return Rail(
-        name=name,
-        supply=supply,
-        path=_read_path(doc),
-        load=_read_load(doc),
-        switch=_read_switch(doc),
-        fet=_read_fet(doc, t_ambient),
-        t_ambient=t_ambient,
-        rules=rules,
-    )
+    r = _Reader()
+    r.known_keys(doc, "")
+    if "schema" in doc and doc["schema"] != SCHEMA:
+        r.fail("schema", f"unsupported schema {doc['schema']!r}; expected {SCHEMA!r}")
+    name = r.text(doc, "name", "")
+    env = r.obj(doc, "environment", "")
+    t_ambient = r.number(env, "t_ambient", "environment") if env is not None else None
+    supply = _read_supply(r, doc)
+    path = _read_path(r, doc)
+    load = _read_load(r, doc)
+    switch = _read_switch(r, doc)
+    fet = _read_fet_section(r, doc, t_ambient)
+    rules = dict(DEFAULT_RULES)
+    for src in (team_rules, doc.get("rules")):
+        rules.update(_read_rule_overrides(r, src))
+    if "rules" in doc and doc["rules"] is None:
+        r.fail("rules", "must be an object")
+    r.raise_errors()
+    return Rail(name=name, supply=supply, path=path, load=load, switch=switch, fet=fet, t_ambient=t_ambient,
+                rules=rules)

@@ -4,7 +4,9 @@ Provides
 --------
 DocumentError
     Bad input: a field of the rail document is missing, malformed or inconsistent.
-    ``.field`` holds the dotted path of the field (``"switch.i_limit"``).
+    ``.field`` holds the dotted path of the field (``"switch.i_limit"``), ``.title`` its
+    words for people, ``.reason`` what is wrong and ``.errors`` every problem found in the
+    document (this one first).
 AnalysisError
     A well-formed rail that the analysis cannot solve (for example a transient that
     does not settle within the bounded step count). The message says so; the analysis
@@ -12,6 +14,8 @@ AnalysisError
 """
 
 from __future__ import annotations
+
+from .words import field_title
 
 __all__ = ["DocumentError", "AnalysisError"]
 
@@ -25,12 +29,26 @@ class DocumentError(ValueError):
         Dotted path of the offending field, e.g. ``"fet.soa.curves[1].points[0]"``.
     reason : str
         What is wrong, in words a designer understands.
+    errors : list of DocumentError, optional
+        Every problem of the document when there are several (this one first).
+
+    The text names the field in words first, then by path:
+    ``"Supply minimum (supply.v_min): must be above 0 V"``.
     """
 
-    def __init__(self, field: str, reason: str) -> None:
+    def __init__(self, field: str, reason: str, errors: list[DocumentError] | None = None) -> None:
         self.field = field
         self.reason = reason
-        super().__init__(f"{field}: {reason}")
+        self.title = field_title(field)
+        self.errors: list[DocumentError] = list(errors) if errors else [self]
+        super().__init__("; ".join(e.text for e in self.errors))
+
+    @property
+    def text(self) -> str:
+        """This problem alone: ``"Title (path): reason"`` (``"path: reason"`` for a path without a title)."""
+        if self.title == self.field:
+            return f"{self.field}: {self.reason}"
+        return f"{self.title} ({self.field}): {self.reason}"
 
 
 class AnalysisError(Exception):

@@ -10,7 +10,8 @@ check_row(check), check_rows(checks), worst_check(checks), check_text(check)
     (value, limit with its direction, normalised margin, nominal reading, worst case in
     words) through the same formatters as the command-line report: nothing is recomputed.
 input_sections(document)
-    The rail document as labelled sections of engineering-notation values.
+    The rail document as sections of engineering-notation values, titled from
+    ``server.analysis.words.FIELD_TITLES``.
 """
 
 from __future__ import annotations
@@ -20,6 +21,7 @@ from dataclasses import dataclass
 from typing import Any
 
 from server.analysis.report import limit_text, margin_text, value_text
+from server.analysis.words import FIELD_TITLES
 from server.units import format_quantity
 
 __all__ = ["VerdictStyle", "VERDICT_STYLES", "VERDICT_ORDER", "verdict_style", "check_row", "check_rows",
@@ -104,45 +106,45 @@ def worst_check(checks: list[dict[str, Any]] | None) -> dict[str, Any] | None:
     return check_row(min(candidates, key=key))
 
 
-# (section title, document key, [(label, field, kind)])
-_INPUTS: list[tuple[str, str, list[tuple[str, str, str | None]]]] = [
-    ("Supply", "supply", [("V min", "v_min", "V"), ("V nom", "v_nom", "V"), ("V max", "v_max", "V"),
-                          ("Source resistance", "r_source", "ohm"), ("Source inductance", "l_source", "H"),
-                          ("Current capability (i_max)", "i_max", "A"), ("Upstream UVLO", "uvlo", "V"),
-                          ("UVLO deglitch time constant", "uvlo_filter", "s")]),
-    ("Path", "path", [("Resistance", "r", "ohm"), ("Inductance", "l", "H")]),
-    ("Load", "load", [("Capacitance", "c_nom", "F"), ("Capacitance tolerance", "c_tol", "fraction"),
-                      ("ESR", "esr", "ohm"), ("Load model", "model", None), ("Load current at V nom", "i_nom", "A"),
-                      ("Turn-on voltage", "v_on", "V")]),
-    ("Switch", "switch", [("Mode", "mode", None), ("Turn-on time", "t_on", "s"), ("Slew rate", "dvdt", "V/s"),
-                          ("Current limit", "i_limit", "A"), ("Current limit tolerance", "i_limit_tol", "fraction"),
-                          ("Power limit", "p_limit", "W")]),
-    ("Environment", "environment", [("Worst-case ambient", "t_ambient", "degC")]),
+# The inputs listed on the rail page: (section path, the fields shown); titles and unit kinds
+# come from FIELD_TITLES, the one table of words of the rail document.
+_INPUTS: list[tuple[str, tuple[str, ...]]] = [
+    ("supply", ("v_min", "v_nom", "v_max", "r_source", "l_source", "i_max", "uvlo", "uvlo_filter", "c_in")),
+    ("path", ("r", "l")),
+    ("load", ("c_nom", "c_tol", "esr", "model", "i_nom", "v_on")),
+    ("switch", ("mode", "t_on", "dvdt", "i_limit", "i_limit_tol", "p_limit")),
+    ("switch.timer", ("c", "c_tol", "i_charge", "i_charge_tol", "v_trip", "v_trip_tol", "after_fault", "retry_off")),
+    ("environment", ("t_ambient",)),
+    ("fet", ("name", "vds_max", "id_pulse_max", "rds_on", "rds_on_alpha", "tj_max", "rth_ja")),
 ]
-_TIMER = [("Timer capacitor", "c", "F"), ("Capacitor tolerance", "c_tol", "fraction"),
-          ("Charge current", "i_charge", "A"), ("Charge current tolerance", "i_charge_tol", "fraction"),
-          ("Trip voltage", "v_trip", "V"), ("Trip voltage tolerance", "v_trip_tol", "fraction"),
-          ("After a fault", "after_fault", None), ("Off time between retries", "retry_off", "s")]
-_FET = [("Name", "name", None), ("V_DS rating", "vds_max", "V"), ("Pulsed drain current", "id_pulse_max", "A"),
-        ("R_DS(on) at 25 \u00b0C", "rds_on", "ohm"), ("R_DS(on) temperature coefficient", "rds_on_alpha", "1/K"),
-        ("Maximum junction temperature", "tj_max", "degC"), ("R_th junction-ambient", "rth_ja", "K/W")]
 
 
-def _items(section: dict[str, Any], spec: list[tuple[str, str, str | None]]) -> list[tuple[str, str]]:
+def _section(document: dict[str, Any], path: str) -> dict[str, Any] | None:
+    node: Any = document
+    for key in path.split("."):
+        node = node.get(key) if isinstance(node, dict) else None
+    return node
+
+
+def _items(section: dict[str, Any], path: str, keys: tuple[str, ...]) -> list[tuple[str, str]]:
     out = []
-    for label, key, kind in spec:
+    for key in keys:
         value = section.get(key)
         if value is None:
             continue
-        out.append((label, str(value).replace("_", " ") if kind is None else fmt(value, kind)))
+        words = FIELD_TITLES[f"{path}.{key}"]
+        out.append((words.title, str(value).replace("_", " ") if words.kind is None else fmt(value, words.kind)))
     return out
 
 
 def input_sections(document: dict[str, Any]) -> list[dict[str, Any]]:
-    """The inputs of a rail, grouped, in engineering notation (fields left unset are left out)."""
-    sections = [{"title": title, "items": _items(document.get(key) or {}, spec)} for title, key, spec in _INPUTS]
-    timer = (document.get("switch") or {}).get("timer")
-    sections.insert(4, {"title": "Fault timer",
-                        "items": _items(timer, _TIMER) if timer else [("Fault timer", "none")]})
-    sections.append({"title": "MOSFET", "items": _items(document.get("fet") or {}, _FET)})
+    """The inputs of a rail, grouped, titled and in engineering notation (fields left unset are left out)."""
+    sections = []
+    for path, keys in _INPUTS:
+        section = _section(document, path)
+        title = FIELD_TITLES[path].title
+        if path == "switch.timer" and not section:
+            sections.append({"title": title, "items": [(title, "none")]})
+            continue
+        sections.append({"title": title, "items": _items(section or {}, path, keys)})
     return sections

@@ -2,11 +2,15 @@
 
 Pure functions over plain dicts (no HTTP, no database). Field names are paths into the
 rail document ("supply.v_min", "switch.timer.c"), so an error the schema reports for a
-document path lands beside the field of that path. Values go to the schema as typed:
-engineering notation ("680uF", "4.7 mOhm") is parsed there, once, by the units library.
+document path lands beside the field of that path. People read each field's title (from
+:data:`server.analysis.words.FIELD_TITLES`); the path is shown small beside it. Values go
+to the schema as typed: engineering notation ("680uF", "4.7 mOhm", "5 V/ms") is parsed
+there, once, by the units library; a blank field's placeholder says the default the
+analysis package fills in.
 
-Provides :data:`RAIL_SECTIONS`, :func:`rail_fields`, :func:`document_from_form`,
-:func:`form_from_document`, :func:`form_value`, :func:`place_errors`, :func:`compare_rows`.
+Provides :class:`FormField`, :func:`titled_field`, :data:`RAIL_SECTIONS`, :func:`rail_fields`,
+:func:`document_from_form`, :func:`form_from_document`, :func:`form_value`,
+:func:`place_errors`, :func:`compare_rows`, :func:`field_titles`.
 """
 
 from __future__ import annotations
@@ -15,11 +19,13 @@ import math
 from dataclasses import dataclass
 from typing import Any
 
+from server.analysis.document import AFTER_FAULT, DEFAULT_RULES, DEFAULTS, LOAD_MODELS, SWITCH_MODES
+from server.analysis.words import FIELD_TITLES, field_title
 from server.schemas.rail import SCHEMA_ID
 from server.units import UnitError, format_quantity, parse_quantity
 
-__all__ = ["FormField", "RAIL_SECTIONS", "rail_fields", "document_from_form", "form_from_document", "form_value",
-           "place_errors", "compare_rows", "PART_FIELD", "OWN_FET"]
+__all__ = ["FormField", "titled_field", "RAIL_SECTIONS", "rail_fields", "document_from_form", "form_from_document",
+           "form_value", "place_errors", "compare_rows", "field_titles", "PART_FIELD", "OWN_FET"]
 
 PART_FIELD = "part"
 OWN_FET = "own"
@@ -27,8 +33,8 @@ OWN_FET = "own"
 
 @dataclass(frozen=True)
 class FormField:
-    name: str                              # path in the rail document
-    label: str
+    name: str                              # the form control's name: a path in the document the form makes
+    label: str                             # the title people read (FIELD_TITLES)
     kind: str | None = None                # quantity kind of server.units; None: text or a choice
     required: bool = False
     choices: tuple[str, ...] = ()
@@ -40,67 +46,91 @@ class FormField:
     def html_id(self) -> str:
         return "f-" + self.name.replace(".", "-").replace("_", "-")
 
+    @property
+    def path(self) -> str:
+        """The JSON path, shown small beside the title for whoever writes documents by hand."""
+        return self.name
 
-F = FormField
+
+def titled_field(path: str, *, name: str | None = None, required: bool = False, choices: tuple[str, ...] = (),
+                 example: str = "", modes: tuple[str, ...] = ()) -> FormField:
+    """A form field worded from :data:`server.analysis.words.FIELD_TITLES`.
+
+    ``path`` is the rail-document path (its title, unit kind, hint and default); ``name`` the
+    control's name when it differs (the part form names fields from the ``fet`` section).
+    The placeholder says what a blank field means: the default of the analysis package
+    (``DEFAULTS``), or ``example`` for a field without one.
+    """
+    words = FIELD_TITLES[path]
+    placeholder = f"e.g. {example}" if example else ""
+    if path in DEFAULTS and words.kind is not None:
+        placeholder = f"{format_quantity(DEFAULTS[path], words.kind)} if blank"
+    return FormField(name or path, words.title, words.kind, required, choices, placeholder, words.hint, modes)
+
+
+def _section_title(path: str, note: str = "") -> str:
+    return f"{FIELD_TITLES[path].title} ({note})" if note else FIELD_TITLES[path].title
+
+
+F = titled_field
+_LIMITING = ("current_limit", "power_limit")
 RAIL_SECTIONS: list[tuple[str, str, list[FormField]]] = [
-    ("Rail", "rail", [F("name", "Rail name", required=True, placeholder="e.g. VOUT_12V")]),
-    ("Supply", "supply", [
-        F("supply.v_min", "Lowest supply voltage (V min)", "V", True, placeholder="e.g. 11.4 V"),
-        F("supply.v_nom", "Nominal supply voltage (V nom)", "V", True, placeholder="e.g. 12 V"),
-        F("supply.v_max", "Highest supply voltage (V max)", "V", True, placeholder="e.g. 12.6 V"),
-        F("supply.r_source", "Source resistance", "ohm", placeholder="0 if blank"),
-        F("supply.l_source", "Source inductance", "H", placeholder="0 if blank"),
-        F("supply.i_max", "Current the supply can deliver (i_max)", "A", hint="optional"),
-        F("supply.uvlo", "Upstream undervoltage lockout (UVLO)", "V", hint="optional"),
-        F("supply.uvlo_filter", "UVLO deglitch time constant", "s", placeholder="1 us if blank"),
+    ("Rail", "rail", [F("name", required=True, example="VOUT_12V")]),
+    (_section_title("supply"), "supply", [
+        F("supply.v_min", required=True, example="11.4 V"),
+        F("supply.v_nom", required=True, example="12 V"),
+        F("supply.v_max", required=True, example="12.6 V"),
+        F("supply.r_source"),
+        F("supply.l_source"),
+        F("supply.i_max"),
+        F("supply.uvlo"),
+        F("supply.uvlo_filter"),
+        F("supply.c_in"),
     ]),
-    ("Path (traces, connector, sense resistor)", "path", [
-        F("path.r", "Path resistance", "ohm", placeholder="0 if blank"),
-        F("path.l", "Path inductance", "H", placeholder="0 if blank"),
+    (_section_title("path"), "path", [F("path.r"), F("path.l")]),
+    (_section_title("load"), "load", [
+        F("load.c_nom", required=True, example="680 \u00b5F"),
+        F("load.c_tol"),
+        F("load.esr"),
+        F("load.model", choices=LOAD_MODELS, required=True),
+        F("load.i_nom"),
+        F("load.v_on"),
     ]),
-    ("Load", "load", [
-        F("load.c_nom", "Load capacitance", "F", True, placeholder="e.g. 680uF"),
-        F("load.c_tol", "Capacitance tolerance", "fraction", placeholder="e.g. 20 % or 0.2"),
-        F("load.esr", "Capacitor ESR", "ohm", placeholder="0 if blank"),
-        F("load.model", "Load model", choices=("none", "resistive", "constant_current", "constant_power"),
-          required=True),
-        F("load.i_nom", "Load current at V nom", "A", hint="needed unless the model is none"),
-        F("load.v_on", "Voltage at which the load starts drawing", "V", hint="needed for constant power"),
+    (_section_title("switch"), "switch", [
+        F("switch.mode", choices=SWITCH_MODES, required=True),
+        F("switch.t_on", modes=("hard",)),
+        F("switch.dvdt", modes=("slew",), example="5 V/ms"),
+        F("switch.i_limit", modes=_LIMITING),
+        F("switch.i_limit_tol", modes=_LIMITING),
+        F("switch.p_limit", modes=("power_limit",)),
     ]),
-    ("Switch", "switch", [
-        F("switch.mode", "Turn-on mode", choices=("hard", "slew", "current_limit", "power_limit"), required=True),
-        F("switch.t_on", "Turn-on time", "s", modes=("hard",), placeholder="0 if blank"),
-        F("switch.dvdt", "Output slew rate", "V/s", modes=("slew",), placeholder="e.g. 5 V/ms"),
-        F("switch.i_limit", "Current limit", "A", modes=("current_limit", "power_limit")),
-        F("switch.i_limit_tol", "Current limit tolerance", "fraction", modes=("current_limit", "power_limit")),
-        F("switch.p_limit", "FET power limit", "W", modes=("power_limit",)),
+    (_section_title("switch.timer", "leave blank for none"), "timer", [
+        F("switch.timer.c", example="100 nF"),
+        F("switch.timer.c_tol"),
+        F("switch.timer.i_charge", example="10 \u00b5A"),
+        F("switch.timer.i_charge_tol"),
+        F("switch.timer.v_trip", example="1.2 V"),
+        F("switch.timer.v_trip_tol"),
+        F("switch.timer.after_fault", choices=AFTER_FAULT),
+        F("switch.timer.retry_off"),
     ]),
-    ("Fault timer (leave blank for none)", "timer", [
-        F("switch.timer.c", "Timer capacitor", "F", placeholder="e.g. 100 nF"),
-        F("switch.timer.c_tol", "Timer capacitor tolerance", "fraction"),
-        F("switch.timer.i_charge", "Timer charge current", "A", placeholder="e.g. 10 uA"),
-        F("switch.timer.i_charge_tol", "Charge current tolerance", "fraction"),
-        F("switch.timer.v_trip", "Timer trip voltage", "V"),
-        F("switch.timer.v_trip_tol", "Trip voltage tolerance", "fraction"),
-        F("switch.timer.after_fault", "After a fault", choices=("latch", "retry")),
-        F("switch.timer.retry_off", "Off time between retries", "s", hint="needed for retry"),
+    (_section_title("environment"), "environment", [
+        F("environment.t_ambient", required=True, example="55 \u00b0C"),
     ]),
-    ("Environment", "environment", [
-        F("environment.t_ambient", "Worst-case high ambient temperature", "degC", placeholder="25 \u00b0C if blank"),
-    ]),
-    ("Rule overrides (blank: the team's rule; common practice, not a standard)", "rules", [
-        F("rules.tj_headroom", "Junction temperature headroom below tj_max (K)", "K"),
-        F("rules.soa_margin", "Start-up SOA margin (ratio)", "ratio"),
-        F("rules.fault_margin", "Short-circuit time margin (ratio)", "ratio"),
-        F("rules.timer_margin", "Fault timer start-up margin (ratio)", "ratio"),
-        F("rules.vds_derating", "V_DS derating (fraction of the rating)", "ratio"),
-    ]),
+    (_section_title("rules", "blank: the team's rule; common practice, not a standard"), "rules",
+     [F(f"rules.{name}") for name in DEFAULT_RULES]),
 ]
+del F
 _TIMER_VALUES = [f.name for f in RAIL_SECTIONS[5][2] if f.name != "switch.timer.after_fault"]
 
 
 def rail_fields() -> list[FormField]:
     return [f for _, _, fields in RAIL_SECTIONS for f in fields]
+
+
+def field_titles(fields: list[FormField]) -> dict[str, str]:
+    """Field name -> title, for the error summary."""
+    return {f.name: f.label for f in fields}
 
 
 def _put(doc: dict[str, Any], path: str, value: Any) -> None:
@@ -170,6 +200,12 @@ def form_from_document(document: dict[str, Any]) -> dict[str, str]:
     return {f.name: form_value(_get(document, f.name), f.kind) for f in rail_fields()}
 
 
+def _named(path: str, message: str) -> str:
+    """A message for a field without a place of its own: its title first, then its path."""
+    title = field_title(path)
+    return f"{path}: {message}" if title == path else f"{title} ({path}): {message}"
+
+
 def place_errors(details: list[dict[str, Any]], field_names: list[str],
                  aliases: dict[str, str] | None = None) -> tuple[dict[str, str], list[str]]:
     """Errors of a service (``[{field, message}]`` with document paths) beside the form's fields.
@@ -187,10 +223,10 @@ def place_errors(details: list[dict[str, Any]], field_names: list[str],
                       None)
         message = str(d.get("message", ""))
         if target is None:
-            other.append(f"{path}: {message}" if path else message)
+            other.append(_named(path, message) if path else message)
             continue
         if target in aliases:
-            target, message = aliases[target], f"{path}: {message}"
+            target, message = aliases[target], _named(path, message)
         by_field[target] = f"{by_field[target]}; {message}" if target in by_field else message
     return by_field, other
 

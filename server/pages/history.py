@@ -3,18 +3,16 @@
 from __future__ import annotations
 
 import json
-import re
 from typing import Any
 
 from fastapi import APIRouter, Request
 from fastapi.responses import HTMLResponse
 from sqlalchemy.orm import Session
 
+from server.analysis.words import field_title, field_words
 from server.auth import CurrentActor
 from server.db import SessionDep
 from server.pages.display import fmt
-from server.pages.forms import rail_fields
-from server.pages.part_forms import PART_FIELDS
 from server.pages.plots import soa_overlay_figure, startup_overlay_figure
 from server.pages.rendering import page_context, render
 from server.services import overview, results
@@ -23,17 +21,14 @@ from server.services.rails import diff_revisions, get_rail, get_revision, list_r
 
 router = APIRouter(include_in_schema=False)
 REVISIONS_SHOWN = 200
-_KINDS = {f.name: f.kind for f in rail_fields()} | {"fet." + f.name: f.kind for f in PART_FIELDS}
-_PATTERNS = [(re.compile(r"^fet\.zth\[\d+\]\.r$"), "K/W"), (re.compile(r"^fet\.zth\[\d+\]\.tau$"), "s"),
-             (re.compile(r"^fet\.soa\.curves\[\d+\]\.t_pulse$"), "s")]
-_LABELS = {f.name: f.label for f in rail_fields()} | {"fet." + f.name: "MOSFET: " + f.label for f in PART_FIELDS}
 
 
 def diff_value(path: str, value: Any) -> str:
     """A document value as the diff shows it: engineering notation where the field has a unit."""
     if value is None:
         return "(none)"
-    kind = _KINDS.get(path) or next((k for p, k in _PATTERNS if p.match(path)), None)
+    words = field_words(path)
+    kind = words.kind if words is not None else None
     if kind is not None and isinstance(value, (int, float)) and not isinstance(value, bool):
         return fmt(float(value), kind, 4)
     if isinstance(value, (list, dict)):
@@ -56,7 +51,7 @@ def history_context(session: Session, actor: Actor, rail_id: int, from_n: int | 
     old = get_revision(session=session, actor=actor, rail_id=rail_id, n=from_n)
     new = get_revision(session=session, actor=actor, rail_id=rail_id, n=to_n)
     diff = diff_revisions(session=session, actor=actor, rail_id=rail_id, from_n=from_n, to_n=to_n)
-    ctx["changes"] = [{"field": c["field"], "label": _LABELS.get(c["field"], c["field"]), "change": c["change"],
+    ctx["changes"] = [{"field": c["field"], "label": field_title(c["field"]), "change": c["change"],
                        "old": diff_value(c["field"], c["old"]), "new": diff_value(c["field"], c["new"])}
                       for c in diff["changes"]]
     ctx["part_changed"] = old.part_revision_id != new.part_revision_id

@@ -14,30 +14,42 @@ from __future__ import annotations
 import re
 from typing import Any
 
-from server.pages.forms import FormField, form_value, place_errors
+from server.analysis.words import field_title
+from server.pages.forms import FormField, form_value, place_errors, titled_field
 
 __all__ = ["PART_FIELDS", "parse_pairs", "document_from_part_form", "part_form_from_document", "curve_slots",
-           "part_errors", "ZTH_FIELD", "EMPTY_CURVES"]
+           "part_errors", "part_field_titles", "ZTH_FIELD", "EMPTY_CURVES"]
 
-F = FormField
+def _fet_field(name: str, *, required: bool = False, example: str = "") -> FormField:
+    """A field of the part form: ``name`` is its path in the part (``fet``) document."""
+    return titled_field(f"fet.{name}", name=name, required=required, example=example)
+
+
 PART_FIELDS = [
-    F("name", "Part name", required=True, placeholder="e.g. N-channel 30 V 5 mOhm"),
-    F("vds_max", "Drain-source voltage rating V_DS(max)", "V", True),
-    F("id_pulse_max", "Pulsed drain current rating", "A", hint="optional"),
-    F("rds_on", "R_DS(on) at T_j 25 \u00b0C", "ohm", True),
-    F("rds_on_alpha", "R_DS(on) temperature coefficient", "1/K", placeholder="0.5 %/K if blank"),
-    F("tj_max", "Maximum junction temperature", "degC", True),
-    F("rth_ja", "Thermal resistance junction to ambient (mounted)", "K/W", True),
-    F("soa.t_case", "Case temperature of the SOA curves", "degC", placeholder="25 \u00b0C if blank"),
+    _fet_field("name", required=True, example="N-channel 30 V 5 m\u03a9"),
+    _fet_field("vds_max", required=True, example="30 V"),
+    _fet_field("id_pulse_max"),
+    _fet_field("rds_on", required=True, example="5 m\u03a9"),
+    _fet_field("rds_on_alpha"),
+    _fet_field("tj_max", required=True, example="150 \u00b0C"),
+    _fet_field("rth_ja", required=True, example="40 K/W"),
+    _fet_field("soa.t_case"),
 ]
 ZTH_FIELD = "zth"
-EMPTY_CURVES = ["100 us", "1 ms", "10 ms", "DC"]
+EMPTY_CURVES = ["100 µs", "1 ms", "10 ms", "DC"]
 _SPLIT = re.compile(r"\s*[,;\t]\s*")
 _COMMENT = "#"
 
 
 def _curve_name(k: int, part: str) -> str:
     return f"soa.curves[{k}].{part}"
+
+
+def part_field_titles(slots: list[int]) -> dict[str, str]:
+    """Every field of the part form (its path in the part document) -> its title."""
+    names = [f.name for f in PART_FIELDS] + [ZTH_FIELD, "soa.curves"] + [
+        _curve_name(k, p) for k in slots for p in ("t_pulse", "points")]
+    return {name: field_title(f"fet.{name}") for name in names}
 
 
 def parse_pairs(text: str) -> tuple[list[tuple[str, str, int]], list[str]]:

@@ -8,11 +8,12 @@ from fastapi import APIRouter, Depends, Request
 from fastapi.responses import HTMLResponse, Response
 from sqlalchemy.orm import Session
 
+from server.analysis.words import FIELD_TITLES
 from server.auth import CurrentActor, require
 from server.db import SessionDep
 from server.pages.display import fmt
 from server.pages.part_forms import (PART_FIELDS, ZTH_FIELD, curve_slots, document_from_part_form,
-                                     part_errors, part_form_from_document)
+                                     part_errors, part_field_titles, part_form_from_document)
 from server.pages.plots import part_soa_figure, pulse_label, zth_figure
 from server.pages.rendering import FormDep, form_dict, page_context, redirect, render
 from server.services import overview
@@ -38,6 +39,16 @@ def parts_context(session: Session, actor: Actor, q: str = "") -> dict[str, Any]
     return {"items": items, "total": total, "q": q}
 
 
+# the ratings listed on the part page (paths in the part document), worded by FIELD_TITLES
+_RATINGS = ["vds_max", "id_pulse_max", "rds_on", "rds_on_alpha", "tj_max", "rth_ja", "soa.t_case"]
+
+
+def _get(doc: dict[str, Any], path: str) -> Any:
+    for key in path.split("."):
+        doc = (doc or {}).get(key)
+    return doc
+
+
 def part_context(session: Session, actor: Actor, part_id: int, n: int | None = None) -> dict[str, Any]:
     part = part_service.get_part(session=session, actor=actor, part_id=part_id)
     rev = part_service.get_part_revision(session=session, actor=actor, part_id=part_id, n=n)
@@ -52,12 +63,7 @@ def part_context(session: Session, actor: Actor, part_id: int, n: int | None = N
         b = labels.get(u["board_id"], {})
         u["board"] = f"{b.get('product', '')} / {b.get('name', '')} rev {b.get('revision', '')}"
         u["newest"] = u["part_revision"] == part.head_n
-    ratings = [("V_DS rating", fmt(doc["vds_max"], "V")), ("Pulsed drain current", fmt(doc.get("id_pulse_max"), "A")),
-               ("R_DS(on) at 25 \u00b0C", fmt(doc["rds_on"], "ohm")),
-               ("R_DS(on) temperature coefficient", fmt(doc["rds_on_alpha"], "1/K")),
-               ("Maximum junction temperature", fmt(doc["tj_max"], "degC")),
-               ("R_th junction-ambient (mounted)", fmt(doc["rth_ja"], "K/W")),
-               ("SOA case temperature", fmt(doc["soa"]["t_case"], "degC"))]
+    ratings = [(w.title, fmt(_get(doc, path), w.kind)) for path in _RATINGS for w in [FIELD_TITLES[f"fet.{path}"]]]
     curves = [{"label": pulse_label(c["t_pulse"]), "points": len(c["points"]),
                "range": f"{fmt(c['points'][0][0], 'V')} to {fmt(c['points'][-1][0], 'V')}",
                "i_max": fmt(max(p[1] for p in c["points"]), "A")}
@@ -76,6 +82,7 @@ def part_form_context(*, values: dict[str, str], errors: dict[str, str], other: 
     slots = curve_slots(values) or [0]
     return {"part": part, "values": values, "errors": errors, "other_errors": other, "fields": PART_FIELDS,
             "zth_field": ZTH_FIELD, "slots": slots, "base_n": base_n, "conflict": conflict,
+            "titles": part_field_titles(slots) | {"message": "What changed and why"},
             "labels": {f.name: f.html_id for f in PART_FIELDS} | {ZTH_FIELD: "f-zth"} | {
                 f"soa.curves[{k}].{p}": f"f-curve-{k}-{p.replace('_', '-')}" for k in slots
                 for p in ("t_pulse", "points")},

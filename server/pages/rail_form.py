@@ -16,7 +16,7 @@ from sqlalchemy.orm import Session
 from server.auth import require
 from server.db import SessionDep
 from server.pages.forms import (OWN_FET, PART_FIELD, RAIL_SECTIONS, compare_rows, document_from_form,
-                                form_from_document, place_errors, rail_fields)
+                                field_titles, form_from_document, place_errors, rail_fields)
 from server.pages.rendering import FormDep, form_dict, page_context, redirect, render
 from server.services import parts as part_service
 from server.services.access import Actor, Permission
@@ -67,11 +67,15 @@ def _labels() -> dict[str, str]:
     return {f.name: f.html_id for f in rail_fields()} | {PART_FIELD: "f-part", "message": "f-message"}
 
 
+def _titles() -> dict[str, str]:
+    return field_titles(rail_fields()) | {PART_FIELD: "MOSFET", "message": "What changed and why"}
+
+
 def form_context(session: Session, actor: Actor, *, board, values: dict[str, str], errors: dict[str, str],
                  other: list[str], rail=None, base_n: int | None = None, conflict: dict | None = None,
                  copied_from=None) -> dict[str, Any]:
     return {"board": board, "product": board.product, "rail": rail, "values": values, "errors": errors,
-            "other_errors": other, "sections": RAIL_SECTIONS, "labels": _labels(),
+            "other_errors": other, "sections": RAIL_SECTIONS, "labels": _labels(), "titles": _titles(),
             "fet_options": fet_options(session, actor, values.get(PART_FIELD)), "base_n": base_n,
             "conflict": conflict, "copied_from": copied_from,
             "action": f"/rails/{rail.id}/edit" if rail else f"/boards/{board.id}/rails/new"}

@@ -9,6 +9,7 @@ import pytest
 from server.analysis import AnalysisError, DocumentError, analyze_rail
 from server.analysis.circuit import circuit_rows
 from server.analysis.document import read_rail
+from server.analysis.words import field_title
 from server.analysis.startup import STATUS_NO_CONVERGENCE, STATUS_STALLED, simulate_startup
 
 from .rail_documents import efuse_12v, simple_doc
@@ -59,7 +60,8 @@ def test_bad_document_names_the_field(path, value, field):
     with pytest.raises(DocumentError) as exc:
         analyze_rail(doc)
     assert exc.value.field == field
-    assert str(exc.value).startswith(field + ":")
+    # the field in words first, then its path
+    assert str(exc.value).startswith(f"{field_title(field)} ({field}): ") or str(exc.value).startswith(f"{field}: ")
     assert isinstance(exc.value, ValueError)
 
 
@@ -98,7 +100,7 @@ def test_mode_requires_its_parameter(mode, missing, extra):
     with pytest.raises(DocumentError) as exc:
         analyze_rail(simple_doc(mode=mode, **extra))
     assert exc.value.field == missing
-    assert f"required in {mode} mode" in str(exc.value)
+    assert f"is required in {mode.replace('_', ' ')} mode" in str(exc.value)
 
 
 def test_constant_power_load_needs_v_on():

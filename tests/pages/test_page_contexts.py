@@ -49,7 +49,7 @@ def test_board_context_rows_filters_and_budget(seeded, session_factory):
         ctx = board_context(s, actor, seeded["board_id"])
         assert [r["name"] for r in ctx["rows"]] == ["RAIL_0", "RAIL_1", "RAIL_2"]
         first = ctx["rows"][0]
-        assert first["c"] == "330 uF" and first["supply"] == "12 V (11.4 V to 12.6 V)"
+        assert first["c"] == "330 µF" and first["supply"] == "12 V (11.4 V to 12.6 V)"
         assert first["verdict"] in ("pass", "marginal", "fail") and first["worst"]["title"]
         assert ctx["rows"][2]["verdict"] is None and ctx["rows"][2]["analysed_at"] is None
         (supply,) = ctx["supplies"]
@@ -114,7 +114,7 @@ def test_history_context_diffs_two_revisions_and_overlays_their_plots(seeded, se
         ctx = history_context(s, actor_of(s, "viewer"), rail_id)
     assert (ctx["from_n"], ctx["to_n"]) == (1, 2)
     change = next(c for c in ctx["changes"] if c["field"] == "load.c_nom")
-    assert (change["old"], change["new"]) == ("330 uF", "470 uF")
+    assert (change["old"], change["new"]) == ("330 µF", "470 µF")
     assert change["label"] == "Load capacitance"
     names = [t["name"] for t in ctx["figures"]["startup"]["data"]]
     assert "Output voltage (revision 1)" in names and "Output voltage (revision 2)" in names
@@ -129,7 +129,7 @@ def test_part_contexts_show_curves_stages_and_users(seeded, session_factory):
         listing = parts_context(s, actor)
         assert [i["part"].name for i in listing["items"]] == ["Test N30 library"]
         ctx = part_context(s, actor, seeded["part_id"])
-    assert [c["label"] for c in ctx["curves"]] == ["100 us", "1 ms", "10 ms", "DC"]
+    assert [c["label"] for c in ctx["curves"]] == ["100 µs", "1 ms", "10 ms", "DC"]
     assert len(ctx["stages"]) == 4 and ctx["stages"][1]["tau"] == "2 ms"
     assert sorted(u["rail_name"] for u in ctx["usage"]) == ["RAIL_0", "RAIL_1", "RAIL_2"]
     assert all(u["newest"] and u["board"] == "Tideline buoy / Power rev C" for u in ctx["usage"])

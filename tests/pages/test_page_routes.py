@@ -92,7 +92,7 @@ def test_a_rail_starts_from_a_copy_of_another(client, app, people, seeded):
     r = client.get(f"/boards/{seeded['board_id']}/rails/new?copy_from={seeded['rail_ids'][0]}")
     assert r.status_code == 200
     assert _input_value(r.text, "name") == "RAIL_0_COPY"
-    assert _input_value(r.text, "load.c_nom") == "330 uF"
+    assert _input_value(r.text, "load.c_nom") == "330 µF"
     assert f'value="part:{seeded["part_id"]}:1" selected' in r.text
 
 
@@ -112,7 +112,7 @@ def test_a_conflicting_save_shows_both_versions_and_keeps_the_input(client, app,
     assert ("2", "Someone saved first") in [(str(level), text) for level, text in page.headings]
     row = re.search(r'<tr class="differs"><td>Load capacitance</td><td class="mono">([^<]*)</td>'
                     r'<td class="mono">([^<]*)</td>', second.text)
-    assert row and row.groups() == ("1.5 mF", "470 uF")
+    assert row and row.groups() == ("1.5 mF", "470 µF")
     assert _input_value(second.text, "load.c_nom") == "1.5 mF"
     assert 'name="base_revision" value="2"' in second.text  # saving again is a deliberate save on top
     third = client.post(f"/rails/{rail_id}/edit", data={**base, "base_revision": "2", "load.c_nom": "1.5 mF"},
@@ -133,7 +133,7 @@ def test_history_page_shows_the_field_diff(client, app, people, seeded):
     assert r.status_code == 200
     m = re.search(r'<tr data-field="load.c_nom">.*?<td class="mono">([^<]*)</td><td class="mono">([^<]*)</td>',
                   r.text, re.S)
-    assert m and m.groups() == ("330 uF", "1 mF")
+    assert m and m.groups() == ("330 µF", "1 mF")
 
 
 def test_a_part_is_entered_with_pasted_csv_curves(client, app, people, seeded):

@@ -86,8 +86,10 @@
     input.id = "f-curve-" + k + "-t-pulse"; input.name = "soa.curves[" + k + "].t_pulse"; input.value = "";
     area.id = "f-curve-" + k + "-points"; area.name = "soa.curves[" + k + "].points"; area.value = "";
     area.removeAttribute("aria-invalid"); area.removeAttribute("aria-describedby");
-    labels[0].htmlFor = input.id; labels[0].textContent = "Pulse width of curve " + (k + 1);
-    labels[1].htmlFor = area.id; labels[1].textContent = "Points of curve " + (k + 1) + " (CSV: V_DS, I_D)";
+    var paths = copy.querySelectorAll(".path-hint");
+    labels[0].htmlFor = input.id; labels[0].textContent = "MOSFET SOA curve " + (k + 1) + " pulse width";
+    labels[1].htmlFor = area.id; labels[1].textContent = "MOSFET SOA curve " + (k + 1) + " points (CSV: V_DS, I_D)";
+    if (paths.length === 2) { paths[0].textContent = input.name; paths[1].textContent = area.name; }
     slots.appendChild(copy);
     input.focus();
   }

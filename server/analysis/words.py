@@ -1,0 +1,172 @@
+"""Words for people: the title, unit kind and hint of every rail-document field.
+
+Provides
+--------
+FieldWords
+    A field's title, its unit kind (a key of ``units.KIND_SYMBOLS``; None for text, choices
+    and sections) and a one-line hint.
+FIELD_TITLES
+    Every field path of the rail document (schema ``railsign.rail/1``, DESIGN.md section 3)
+    to its `FieldWords`. List items are written ``[]``: ``fet.zth[].r``; their titles hold
+    ``{0}``, ``{1}`` for the 1-based item numbers.
+field_title(path), field_words(path)
+    The title (or the words) of a concrete path, indices numbered for people:
+    ``"fet.soa.curves[2].points[0]"`` -> ``"MOSFET SOA curve 3, point 1"``.
+RULE_TITLES, rule_title(name)
+    The titles of the team rules (DESIGN.md section 5).
+PARAM_WORDS
+    The words for the toleranced parameters of a corner (``"v_s"`` -> ``"supply"``).
+
+Paths name fields where a program reads (JSON, API errors); titles are what a person
+reads. An error reads "Supply minimum (supply.v_min): must be above 0 V".
+"""
+
+from __future__ import annotations
+
+import re
+from dataclasses import dataclass
+
+__all__ = ["FieldWords", "FIELD_TITLES", "RULE_TITLES", "PARAM_WORDS", "field_title", "field_words",
+           "generic_path", "rule_title"]
+
+
+@dataclass(frozen=True)
+class FieldWords:
+    """How a field reads: ``title`` (may hold ``{0}``, ``{1}`` for item numbers), unit ``kind``, ``hint``."""
+
+    title: str
+    kind: str | None = None
+    hint: str = ""
+
+
+W = FieldWords
+FIELD_TITLES: dict[str, FieldWords] = {
+    "document": W("Rail document"),
+    "schema": W("Document schema", None, 'the document\'s version; "railsign.rail/1" when absent'),
+    "name": W("Rail name", None, "the rail's name on its board, e.g. VOUT_12V"),
+    # supply
+    "supply": W("Supply"),
+    "supply.v_min": W("Supply minimum", "V", "lowest voltage of the upstream supply"),
+    "supply.v_nom": W("Supply nominal", "V", "nominal voltage of the upstream supply"),
+    "supply.v_max": W("Supply maximum", "V",
+                      "highest voltage of the upstream supply; the short circuit is taken at it"),
+    "supply.r_source": W("Source resistance", "ohm", "output resistance of the upstream supply"),
+    "supply.l_source": W("Source inductance", "H", "inductance of the upstream supply and its wiring"),
+    "supply.i_max": W("Supply current capability", "A", "what the upstream supply can deliver; blank: not checked"),
+    "supply.uvlo": W("Upstream UVLO threshold", "V",
+                     "supply voltage below which something upstream drops out; blank: none"),
+    "supply.uvlo_filter": W("UVLO deglitch time (from the upstream part's datasheet)", "s",
+                            "how long the dip must last to trip the upstream UVLO; blank: none, the raw dip is "
+                            "compared"),
+    "supply.c_in": W("Input capacitance at the switch", "F",
+                     "capacitance at the switch input, which bounds the dip; blank: none"),
+    # path
+    "path": W("Path (traces, connector, sense resistor)"),
+    "path.r": W("Path resistance", "ohm", "traces, connector and sense resistor between supply and switch"),
+    "path.l": W("Path inductance", "H", "inductance of the traces and connector"),
+    # load
+    "load": W("Load"),
+    "load.c_nom": W("Load capacitance", "F", "bulk capacitance at the switch output, nominal"),
+    "load.c_tol": W("Load capacitance tolerance", "fraction", "e.g. 20 % or 0.2"),
+    "load.esr": W("Load capacitor ESR", "ohm", "equivalent series resistance of the bulk capacitance"),
+    "load.model": W("Load model", None, "none, resistive, constant current or constant power"),
+    "load.i_nom": W("Load current at nominal supply", "A", "the current the load draws at the nominal supply"),
+    "load.v_on": W("Load turn-on voltage", "V", "the load draws nothing below it; needed for constant power"),
+    # switch
+    "switch": W("Switch"),
+    "switch.mode": W("Turn-on mode", None, "hard, slew, current limit or power limit"),
+    "switch.t_on": W("Turn-on time", "s", "hard mode: time for the switch resistance to fall to R_DS(on); 0: instant"),
+    "switch.dvdt": W("Output slew rate", "V/s", "slew mode: the controlled output ramp, e.g. 5 V/ms"),
+    "switch.i_limit": W("Current limit", "A", "current limit and power limit modes"),
+    "switch.i_limit_tol": W("Current limit tolerance", "fraction", "e.g. 10 % or 0.1"),
+    "switch.p_limit": W("Power limit", "W", "power limit mode: the FET power held during the start"),
+    "switch.timer": W("Fault timer", None, "blank: no fault timer"),
+    "switch.timer.c": W("Timer capacitor", "F", "the capacitor the timer charges"),
+    "switch.timer.c_tol": W("Timer capacitor tolerance", "fraction", "e.g. 10 % or 0.1"),
+    "switch.timer.i_charge": W("Timer charge current", "A", "the current that charges the timer capacitor"),
+    "switch.timer.i_charge_tol": W("Timer charge current tolerance", "fraction", "e.g. 20 % or 0.2"),
+    "switch.timer.v_trip": W("Timer trip voltage", "V", "the timer trips when its capacitor reaches it"),
+    "switch.timer.v_trip_tol": W("Timer trip voltage tolerance", "fraction", "e.g. 5 % or 0.05"),
+    "switch.timer.after_fault": W("After a fault", None, "latch off, or retry after the off time"),
+    "switch.timer.retry_off": W("Off time between retries", "s", "needed when the timer retries"),
+    # MOSFET
+    "fet": W("MOSFET"),
+    "fet.name": W("MOSFET name", None, "an invented or in-house name of the part"),
+    "fet.vds_max": W("MOSFET drain-source voltage rating", "V", "V_DS(max) from the datasheet"),
+    "fet.id_pulse_max": W("MOSFET pulsed drain current rating", "A", "blank: not checked"),
+    "fet.rds_on": W("MOSFET R_DS(on) at T_j 25 \u00b0C", "ohm",
+                    "on-resistance at a junction temperature of 25 \u00b0C"),
+    "fet.rds_on_alpha": W("R_DS(on) temperature coefficient", "1/K", "linear rise of R_DS(on) with T_j, e.g. 0.5 %/K"),
+    "fet.tj_max": W("MOSFET maximum junction temperature", "degC", "T_j(max) from the datasheet"),
+    "fet.rth_ja": W("MOSFET thermal resistance, junction to ambient", "K/W", "as mounted on the board"),
+    "fet.zth": W("Foster stages (junction to ambient)", None, "one r (K/W), tau (s) pair per stage"),
+    "fet.zth[]": W("Foster stage {0}", None, "r (K/W) and tau (s)"),
+    "fet.zth[].r": W("Foster stage {0} resistance", "K/W", "thermal resistance of the stage"),
+    "fet.zth[].tau": W("Foster stage {0} time constant", "s", "thermal time constant of the stage"),
+    "fet.soa": W("MOSFET SOA", None, "the safe operating area chart"),
+    "fet.soa.t_case": W("Case temperature of the SOA curves", "degC", "the case temperature the chart is drawn at"),
+    "fet.soa.curves": W("MOSFET SOA curves", None, "one curve per pulse width, at least two; null pulse width: DC"),
+    "fet.soa.curves[]": W("MOSFET SOA curve {0}", None, "a pulse width and its V_DS, I_D points"),
+    "fet.soa.curves[].t_pulse": W("MOSFET SOA curve {0} pulse width", "s", "null or DC for the DC curve"),
+    "fet.soa.curves[].points": W("MOSFET SOA curve {0} points", None, "[V_DS, I_D] pairs, V_DS rising"),
+    "fet.soa.curves[].points[]": W("MOSFET SOA curve {0}, point {1}", None, "[V_DS (V), I_D (A)]"),
+    # environment
+    "environment": W("Environment"),
+    "environment.t_ambient": W("Worst-case high ambient temperature", "degC",
+                               "the highest ambient the board sees; every check starts from it"),
+    # team rules (DESIGN.md section 5; common practice, not a standard)
+    "rules": W("Rule overrides", None, "blank: the team's rule; common practice, not a standard"),
+    "rules.tj_headroom": W("Junction temperature headroom", "K",
+                           "start-up, retry and steady T_j stay this far below T_j(max)"),
+    "rules.soa_margin": W("Start-up SOA margin", "ratio", "allowed / actual current of the start-up pulse"),
+    "rules.fault_margin": W("Short-circuit time margin", "ratio", "time the FET survives / longest fault time"),
+    "rules.timer_margin": W("Fault timer start-up margin", "ratio",
+                            "shortest fault time / longest time regulating at start-up"),
+    "rules.vds_derating": W("V_DS derating", "ratio", "supply maximum / MOSFET V_DS rating, at most"),
+}
+del W
+
+RULE_TITLES: dict[str, str] = {path.removeprefix("rules."): w.title for path, w in FIELD_TITLES.items()
+                               if path.startswith("rules.")}
+
+# the toleranced parameters of a corner or a Monte Carlo sample, in words
+PARAM_WORDS: dict[str, str] = {
+    "v_s": "supply",
+    "c": "load C",
+    "i_limit": "current limit",
+    "timer_c": "timer C",
+    "i_charge": "timer charge current",
+    "v_trip": "timer trip voltage",
+    "t_fault": "fault timer",
+}
+
+_INDEX = re.compile(r"\[(\d+)\]")
+
+
+def generic_path(path: str) -> str:
+    """``"fet.soa.curves[2].points[0]"`` -> ``"fet.soa.curves[].points[]"`` (the key in `FIELD_TITLES`)."""
+    return _INDEX.sub("[]", path)
+
+
+def field_words(path: str) -> FieldWords | None:
+    """The words of a concrete document path (indices numbered from 1), or None for an unknown path."""
+    words = FIELD_TITLES.get(generic_path(path))
+    if words is None:
+        return None
+    numbers = [int(i) + 1 for i in _INDEX.findall(path)]
+    return FieldWords(words.title.format(*numbers) if numbers else words.title, words.kind, words.hint)
+
+
+def field_title(path: str) -> str:
+    """The title of a rail-document path for people; an unknown path is returned as it is.
+
+    ``"supply.v_min"`` -> ``"Supply minimum"``, ``"fet.zth[1].r"`` -> ``"Foster stage 2
+    resistance"``, ``"fet.soa.curves[2].points[0]"`` -> ``"MOSFET SOA curve 3, point 1"``.
+    """
+    words = field_words(path or "document")
+    return path if words is None else words.title
+
+
+def rule_title(name: str) -> str:
+    """The title of a team rule (``"timer_margin"`` -> ``"Fault timer start-up margin"``)."""
+    return RULE_TITLES.get(name, name)
