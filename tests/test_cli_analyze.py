@@ -57,7 +57,7 @@ def test_bad_document_exits_2_naming_the_field(tmp_path, capsys):
     doc["load"]["c_nom"] = "-47 uF"
     assert main(["analyze", _write(tmp_path, doc)]) == EXIT_BAD_INPUT
     err = capsys.readouterr().err
-    assert "load.c_nom" in err and "greater than zero" in err
+    assert "load.c_nom" in err and "must be above 0 F" in err
 
 
 def test_missing_file_and_bad_json_exit_2(tmp_path, capsys):
