@@ -32,12 +32,10 @@ from .circuit import NO_LIMIT
 from .document import Rail
 from .evaluation import RowParams
 from .units import eng
+from .words import PARAM_WORDS
 
 __all__ = ["corner_set", "corner_params", "point_words", "PARAM_WORDS", "ALL_PARAMETERS"]
 
-# the toleranced parameters in words (a corner or a point of the box is described with these)
-PARAM_WORDS = {"v_s": "supply", "c": "load C", "i_limit": "current limit", "timer_c": "timer C",
-               "i_charge": "timer charge current", "v_trip": "timer trip voltage", "t_fault": "fault timer"}
 
 
 def _levels(nominal: float, tol: float):
