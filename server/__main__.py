@@ -9,13 +9,33 @@ from __future__ import annotations
 import argparse
 import json
 import logging
+import signal
 import sys
+import threading
 from collections.abc import Callable, Sequence
 from pathlib import Path
 from typing import Any
 
+import uvicorn
 from pydantic import ValidationError
+from sqlalchemy import func, select
+from sqlalchemy.engine import make_url
 from sqlalchemy.exc import OperationalError
+
+from server import migrate, transfer
+from server.analysis import DocumentError, analyze_rail, format_report
+from server.app import create_app
+from server.config import Settings
+from server.db import make_engine, make_sessionmaker, ping
+from server.demo import DEMO_PASSWORD, DEMO_USERS, seed_if_empty
+from server.models import Job
+from server.schemas.rail import normalize
+from server.schemas.validation import DocumentInvalid, parse_rail_document
+from server.services import jobs, teams, users
+from server.services.access import Actor
+from server.services.errors import ServiceError
+from server.services.results import engine_version
+from server.worker import WorkerPool
 
 EXIT_OK, EXIT_FAILING_CHECK, EXIT_BAD_INPUT, EXIT_NO_DATABASE = 0, 1, 2, 3
 
@@ -27,8 +47,6 @@ class CliError(Exception):
 
 
 def _settings(**overrides: Any):
-    from server.config import Settings
-
     try:
         return Settings(**{k: v for k, v in overrides.items() if v is not None})
     except ValidationError as exc:
@@ -37,14 +55,10 @@ def _settings(**overrides: Any):
 
 
 def _safe_url(url: str) -> str:
-    from sqlalchemy.engine import make_url
-
     return make_url(url).render_as_string(hide_password=True)
 
 
 def _migrate(settings) -> None:
-    from server import migrate
-
     try:
         migrate.upgrade(settings)
     except OperationalError as exc:
@@ -53,18 +67,13 @@ def _migrate(settings) -> None:
 
 
 def _sessions(settings):
-    from server.db import make_engine, make_sessionmaker
-
     return make_sessionmaker(make_engine(settings))
 
 
 def _actor(session, username: str | None):
-    from server.services.access import Actor
-    from server.services.users import get_user_by_name
-
     if username is None:
         return Actor.system("railsign-cli")
-    return Actor.for_user(get_user_by_name(session=session, username=username))
+    return Actor.for_user(users.get_user_by_name(session=session, username=username))
 
 
 def _read_json(path: str) -> Any:
@@ -91,14 +100,8 @@ def _write_json(data: Any, output: str | None) -> None:
 
 
 def _serve(settings, *, seed_demo: bool) -> int:
-    import uvicorn
-
-    from server.app import create_app
-
     _migrate(settings)
     if seed_demo:
-        from server.demo import DEMO_PASSWORD, seed_if_empty
-
         factory = _sessions(settings)
         with factory() as session:
             seeded = seed_if_empty(session)
@@ -106,8 +109,6 @@ def _serve(settings, *, seed_demo: bool) -> int:
         print(f"railsign demo on {url}  (API docs: {url}docs)")
         print(("Seeded the demo data. " if seeded else "The database has data already; not seeded again. ")
               + f"Log in as any of the demo users with the password '{DEMO_PASSWORD}':")
-        from server.demo import DEMO_USERS
-
         for name, role, _ in DEMO_USERS:
             print(f"  {name:<8} {role}")
         sys.stdout.flush()
@@ -133,8 +134,6 @@ def cmd_demo(args: argparse.Namespace) -> int:
 
 
 def cmd_migrate(args: argparse.Namespace) -> int:
-    from server import migrate
-
     settings = _settings()
     if args.downgrade:
         migrate.downgrade(settings, args.downgrade)
@@ -146,8 +145,6 @@ def cmd_migrate(args: argparse.Namespace) -> int:
 
 
 def cmd_export(args: argparse.Namespace) -> int:
-    from server import transfer
-
     settings = _settings()
     _migrate(settings)
     with _sessions(settings)() as session:
@@ -163,8 +160,6 @@ def cmd_export(args: argparse.Namespace) -> int:
 
 
 def cmd_import(args: argparse.Namespace) -> int:
-    from server import transfer
-
     data = _read_json(args.file)
     settings = _settings()
     _migrate(settings)
@@ -176,8 +171,6 @@ def cmd_import(args: argparse.Namespace) -> int:
 
 
 def cmd_user(args: argparse.Namespace) -> int:
-    from server.services import users
-
     settings = _settings()
     _migrate(settings)
     with _sessions(settings)() as session:
@@ -193,10 +186,12 @@ def cmd_user(args: argparse.Namespace) -> int:
                 print(f"{d['username']:<16} {d['role']:<9} {'active' if d['active'] else 'disabled':<8} "
                       f"{', '.join(d['teams'])}")
         elif args.user_command == "set-role":
-            user = users.set_role(session=session, actor=actor, username=args.name, role=args.role)
+            user = users.get_user_by_name(session=session, username=args.name)
+            users.update_user(session=session, actor=actor, user_id=user.id, role=args.role)
             print(f"{user.username} is now {user.role}")
         elif args.user_command == "add-team":
-            user = users.add_to_team(session=session, actor=actor, username=args.name, team=args.team)
+            user = users.get_user_by_name(session=session, username=args.name)
+            teams.join_team(session=session, actor=actor, user_id=user.id, team_name=args.team)
             print(f"{user.username} is in {', '.join(sorted(t.name for t in user.teams))}")
         elif args.user_command == "set-password":
             user = users.get_user_by_name(session=session, username=args.name)
@@ -217,8 +212,6 @@ def _password_from_stdin() -> str:
 
 
 def cmd_token(args: argparse.Namespace) -> int:
-    from server.services import users
-
     settings = _settings()
     _migrate(settings)
     with _sessions(settings)() as session:
@@ -250,10 +243,6 @@ def _distribution_arg(text: str) -> str | dict[str, str]:
 
 def cmd_analyze(args: argparse.Namespace) -> int:
     """Analyse a rail document file without any database: report, JSON, exit 1 when a check fails."""
-    from server.analysis import DocumentError, analyze_rail, format_report
-    from server.schemas.rail import normalize
-    from server.schemas.validation import DocumentInvalid, parse_rail_document
-
     data = _read_json(args.file)
     try:
         document = normalize(parse_rail_document(data))
@@ -283,16 +272,8 @@ def cmd_analyze(args: argparse.Namespace) -> int:
 
 
 def cmd_worker(args: argparse.Namespace) -> int:
-    import signal
-    import threading
-
-    from server.db import ping
-    from server.worker import WorkerPool
-
     settings = _settings()
     if args.check:
-        from server.db import make_engine
-
         problem = ping(make_engine(settings))
         if problem:
             raise CliError(f"cannot reach the database at {_safe_url(settings.database_url)}: {problem}",
@@ -312,10 +293,6 @@ def cmd_worker(args: argparse.Namespace) -> int:
     pool.start()
     print(f"worker {pool.name}: {args.concurrency} threads on {_safe_url(settings.database_url)}", flush=True)
     if args.exit_when_empty:
-        from sqlalchemy import func, select
-
-        from server.models import Job
-
         factory = _sessions(settings)
         while not stop.wait(args.poll):
             with factory() as session:
@@ -331,8 +308,6 @@ def cmd_worker(args: argparse.Namespace) -> int:
 
 
 def cmd_jobs(args: argparse.Namespace) -> int:
-    from server import jobs
-
     settings = _settings()
     _migrate(settings)
     with _sessions(settings)() as session:
@@ -350,8 +325,6 @@ def cmd_jobs(args: argparse.Namespace) -> int:
             print(f"queued again: {len(ids)} job(s)")
             return EXIT_OK
         if args.jobs_command == "rerun-outdated":
-            from server.services.results import engine_version
-
             queued = jobs.enqueue_outdated(session=session)
             print(f"queued {len(queued)} analyses at engine {engine_version()} of head revisions whose results "
                   "are all of another engine version")
@@ -465,8 +438,6 @@ def build_parser() -> argparse.ArgumentParser:
 def main(argv: Sequence[str] | None = None) -> int:
     parser = build_parser()
     args = parser.parse_args(argv)
-    from server.services.errors import ServiceError
-
     level = (args.log_level or "INFO").upper()
     logging.basicConfig(level=level, format="%(asctime)s %(levelname)s %(name)s: %(message)s")
     if level != "DEBUG":

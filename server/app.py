@@ -26,8 +26,10 @@ from server.csrf import csrf_guard
 from server.db import make_engine, make_sessionmaker, ping
 from server.pages import page_router
 from server.pages.common import login_url
+from server.services import jobs
 from server.services.errors import ServiceError, Unauthenticated
 from server.templating import templates
+from server.worker import WorkerPool
 
 log = logging.getLogger("railsign.http")
 PLOTLY_DIR = Path(plotly.__file__).parent / "package_data"
@@ -102,10 +104,8 @@ def _install_error_handlers(app: FastAPI) -> None:
 
 def queue_outdated(factory) -> int:  # noqa: ANN001
     """As the app starts: queue the re-run of head revisions whose results are all of another engine
-    version (idempotent, serialised between processes; see :func:`server.jobs.enqueue_outdated`).
+    version (idempotent, serialised between processes; see :func:`server.services.jobs.enqueue_outdated`).
     A failure is logged, not fatal: ``railsign jobs rerun-outdated`` does the same by hand."""
-    from server import jobs
-
     try:
         with factory() as session:
             return len(jobs.enqueue_outdated(session=session))
@@ -126,8 +126,6 @@ def create_app(settings: Settings | None = None) -> FastAPI:
         queue_outdated(app.state.sessionmaker)
         pool = None
         if settings.worker_threads > 0:
-            from server.worker import WorkerPool
-
             pool = WorkerPool(app.state.sessionmaker, settings, threads=settings.worker_threads).start()
         app.state.worker_pool = pool
         yield

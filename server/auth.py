@@ -1,4 +1,4 @@
-"""Authentication: password hashes, API tokens, signed session cookies, the current actor.
+"""Authentication: API tokens and signed session cookies to the current actor; route permissions.
 
 Every route except ``/healthz`` and the login page depends on :func:`current_actor`; routes
 that need more than reading declare it with :func:`require` (``Depends(require("edit"))``),
@@ -7,63 +7,31 @@ so the permission a route needs is written on the route and checked in one place
 
 from __future__ import annotations
 
-import hashlib
 import logging
 import secrets
+from datetime import datetime
 from typing import Annotated, Any
 
-from argon2 import PasswordHasher
-from argon2.exceptions import InvalidHashError, VerificationError
 from fastapi import Depends, Request
 from itsdangerous import BadSignature, SignatureExpired, URLSafeTimedSerializer
-from sqlalchemy import select, update
 from sqlalchemy.exc import OperationalError
 from sqlalchemy.orm import Session
 
 from server.config import Settings
+from server.credentials import password_fingerprint
 from server.db import SessionDep
-from server.models import ApiToken, User, utcnow
+from server.models import User
+from server.services import users
 from server.services.access import Actor
 from server.services.errors import Forbidden, Unauthenticated
 
-__all__ = ["hash_password", "verify_password", "new_token", "token_digest", "SessionCookie", "SESSION_COOKIE",
-           "LOGIN_CSRF_COOKIE", "user_from_token", "current_actor", "optional_actor", "CurrentActor", "require"]
+__all__ = ["SessionCookie", "SESSION_COOKIE", "LOGIN_CSRF_COOKIE", "current_actor", "optional_actor", "CurrentActor",
+           "require"]
 
 log = logging.getLogger("railsign.auth")
 SESSION_COOKIE = "railsign_session"
 LOGIN_CSRF_COOKIE = "railsign_login_csrf"
 LOGIN_CSRF_MAX_AGE_S = 3600
-TOKEN_PREFIX = "rsk_"
-_hasher = PasswordHasher()
-
-
-def hash_password(password: str) -> str:
-    """Argon2id hash (argon2-cffi defaults, RFC 9106 parameters)."""
-    return _hasher.hash(password)
-
-
-def verify_password(password_hash: str | None, password: str) -> bool:
-    if not password_hash:
-        return False
-    try:
-        return _hasher.verify(password_hash, password)
-    except (VerificationError, InvalidHashError):
-        return False
-
-
-def new_token() -> str:
-    """A fresh API token (shown once to its owner; only its digest is stored)."""
-    return TOKEN_PREFIX + secrets.token_urlsafe(32)
-
-
-def token_digest(token: str) -> str:
-    """SHA-256 of a token: tokens are long random strings, so a fast hash is enough."""
-    return hashlib.sha256(token.encode()).hexdigest()
-
-
-def password_fingerprint(password_hash: str | None) -> str:
-    """A short digest of the stored hash: a session ends when its user's password changes."""
-    return hashlib.sha256((password_hash or "").encode()).hexdigest()[:16]
 
 
 class SessionCookie:
@@ -117,36 +85,17 @@ class SessionCookie:
                 "path": "/"}
 
 
-def user_from_token(session: Session, token: str) -> User | None:
-    row = session.scalar(select(ApiToken).where(ApiToken.token_sha256 == token_digest(token)))
-    if row is None or row.revoked_at is not None:
-        return None
-    user = session.get(User, row.user_id)
-    if user is None or not user.active:
-        return None
-    session.info["railsign_token"] = (row.id, row.last_used_at)
-    return user
-
-
-def _touch_token(request: Request, session: Session, token_id: int, last_used_at) -> None:  # noqa: ANN001
-    """Record when a token was last used, at most once a minute; advisory, it never fails a request.
-
-    A request that may write records it in its own session. A GET on SQLite has a read-only
-    session and records it in a short write transaction of its own.
-    """
-    now = utcnow()
-    if last_used_at is not None and (now - last_used_at).total_seconds() < 60:
-        return
+def _note_token_use(request: Request, session: Session, token_id: int, last_used_at: datetime | None) -> None:
+    """Have the users service record the token's use (at most once a minute); advisory, it never fails
+    a request. A GET on SQLite has a read-only session: the use is written in a session of its own."""
     bind = session.get_bind()
     read_only = bind.dialect.name == "sqlite" and not bind.get_execution_options().get("sqlite_write")
     try:
         if read_only:
             with request.app.state.sessionmaker() as write:
-                write.execute(update(ApiToken).where(ApiToken.id == token_id).values(last_used_at=now))
-                write.commit()
+                users.note_token_use(session=write, token_id=token_id, last_used_at=last_used_at)
         else:
-            session.execute(update(ApiToken).where(ApiToken.id == token_id).values(last_used_at=now))
-            session.commit()
+            users.note_token_use(session=session, token_id=token_id, last_used_at=last_used_at)
     except OperationalError:
         session.rollback()
         log.warning("could not record the use of API token %s", token_id)
@@ -158,10 +107,11 @@ def current_actor(request: Request, session: SessionDep) -> Actor:
     header = request.headers.get("authorization", "")
     user: User | None = None
     if header.lower().startswith("bearer "):
-        user = user_from_token(session, header[7:].strip())
-        if user is None:
+        found = users.user_for_token(session=session, token=header[7:].strip())
+        if found is None:
             raise Unauthenticated("the API token is unknown or revoked")
-        _touch_token(request, session, *session.info.pop("railsign_token"))
+        user, token = found
+        _note_token_use(request, session, token.id, token.last_used_at)
         request.state.auth = "token"
     else:
         data = request.app.state.session_cookie.load(request.cookies.get(SESSION_COOKIE))

@@ -16,8 +16,7 @@ from sqlalchemy.orm import Session, sessionmaker
 
 from server.config import Settings
 
-__all__ = ["make_engine", "make_sessionmaker", "session_scope", "get_session", "SessionDep", "ping",
-           "begin_write"]
+__all__ = ["make_engine", "make_sessionmaker", "session_scope", "get_session", "SessionDep", "ping"]
 
 
 def make_engine(settings: Settings) -> Engine:
@@ -58,8 +57,16 @@ def make_engine(settings: Settings) -> Engine:
 
 
 def make_sessionmaker(engine: Engine, *, read_only: bool = False) -> sessionmaker[Session]:
-    """Sessions on ``engine``. On SQLite their transactions take the write lock at the start
-    (see :func:`begin_write`), unless ``read_only``: then they are plain deferred readers."""
+    """Sessions on ``engine``. On SQLite every transaction of theirs takes the write lock at its
+    start (``BEGIN IMMEDIATE``), unless ``read_only``: then they are plain deferred readers.
+
+    With SQLite's deferred transactions, two writers that both read first cannot both upgrade
+    to writing; one gets "database is locked" instead of waiting. Taking the lock at the start
+    makes concurrent saves queue up, so the second sees the first's revision and gets a clean
+    conflict. PostgreSQL needs nothing of the kind: row locks and unique constraints do the job.
+    Read-only sessions serve GET and HEAD requests; the commands of the services run in the
+    sessions of the other requests, of the command line and of the workers.
+    """
     bind = engine if read_only else engine.execution_options(sqlite_write=True)
     return sessionmaker(bind=bind, expire_on_commit=False)
 
@@ -100,23 +107,3 @@ def ping(engine: Engine) -> str | None:
         return None
     except Exception as exc:  # any driver error means unreachable
         return f"{type(exc).__name__}: {str(exc).splitlines()[0] if str(exc) else ''}"
-
-
-def begin_write(session: Session) -> None:
-    """Start a write transaction that takes SQLite's write lock at once (BEGIN IMMEDIATE).
-
-    With SQLite's deferred transactions, two writers that both read first cannot both
-    upgrade to writing; one gets "database is locked" instead of waiting. Taking the lock
-    at the start makes concurrent saves queue up, so the second sees the first's revision
-    and gets a clean conflict. Any open read-only transaction is ended first. PostgreSQL
-    needs nothing: row locks and unique constraints do the job there.
-    """
-    if session.get_bind().dialect.name != "sqlite":
-        return
-    if session.get_bind().get_execution_options().get("sqlite_write"):
-        return  # a write session: every transaction begins with the lock already
-    if session.in_transaction():
-        if session.new or session.dirty or session.deleted:
-            raise RuntimeError("begin_write called with unsaved changes in the session")
-        session.commit()
-    session.connection(execution_options={"sqlite_write": True})

@@ -14,9 +14,9 @@ from sqlalchemy import func, select
 from sqlalchemy.orm import Session
 
 from server.models import Product
-from server.services import catalog, parts, rails, users
+from server.services import catalog, parts, users
 from server.services.access import Actor
-from server.services.rails import PartRef
+from server.services.rail_edits import PartRef, create_rail
 
 __all__ = ["DEMO_PASSWORD", "DEMO_USERS", "DEMO_TEAM", "seed", "seed_if_empty"]
 
@@ -160,8 +160,8 @@ def seed(session: Session) -> dict[str, int]:
         board = catalog.create_board(session=session, actor=designer, product_id=product.id, name=board_name,
                                      revision=revision)
         for document, part_index in rail_specs:
-            rails.create_rail(session=session, actor=designer, board_id=board.id, document=document,
-                              part=PartRef(part_ids[part_index]), message="first entry")
+            create_rail(session=session, actor=designer, board_id=board.id, document=document,
+                        part=PartRef(part_ids[part_index]), message="first entry")
             count += 1
     return {"users": len(DEMO_USERS), "parts": len(FETS), "boards": len(BOARDS), "rails": count}
 

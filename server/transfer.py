@@ -12,7 +12,7 @@ from sqlalchemy import select
 from sqlalchemy.orm import Session
 
 from server.models import Board, Product, Rail, Team
-from server.services import catalog, rails
+from server.services import catalog, rail_edits, rails
 from server.services.access import Actor
 from server.services.errors import Invalid, NotFound
 
@@ -49,9 +49,9 @@ def _upsert_rail(session: Session, actor: Actor, board: Board, document: Any, me
     name = document.get("name") if isinstance(document, dict) else None
     existing = session.scalar(select(Rail).where(Rail.board_id == board.id, Rail.name == name)) if name else None
     if existing is None:
-        rails.create_rail(session=session, actor=actor, board_id=board.id, document=document, message=message)
+        rail_edits.create_rail(session=session, actor=actor, board_id=board.id, document=document, message=message)
         return "created"
-    _, _, created = rails.save_rail(session=session, actor=actor, rail_id=existing.id, document=document,
+    _, _, created = rail_edits.save_rail(session=session, actor=actor, rail_id=existing.id, document=document,
                                     base_n=existing.head_n, part=None, message=message)
     return "updated" if created else "unchanged"
 

@@ -21,9 +21,10 @@ from typing import Any
 from sqlalchemy import select
 from sqlalchemy.orm import Session, sessionmaker
 
-from server import jobs
+from server.analysis import AnalysisError, DocumentError, analyze_rail
 from server.config import Settings
 from server.models import Job, RailRevision
+from server.services import jobs
 
 __all__ = ["JobStopped", "run_analysis", "WorkerPool"]
 
@@ -36,17 +37,13 @@ class JobStopped(Exception):
 
 def run_analysis(document: dict[str, Any], options: dict[str, Any], progress=None) -> dict[str, Any]:
     """Run the analysis core with a job's options (kept in one place for workers and benchmarks)."""
-    from server.analysis import analyze_rail
-
     return analyze_rail(document, corners=options["corners"], monte_carlo=options["monte_carlo"],
                         seed=options["seed"], distribution=options["distribution"], waveforms=True,
                         progress=progress)
 
 
-def _deterministic_errors() -> tuple[type[BaseException], ...]:
-    from server.analysis import AnalysisError, DocumentError
-
-    return (AnalysisError, DocumentError, ValueError, ArithmeticError)
+# Errors of the analysis itself: the same document fails the same way again, so no retry.
+DETERMINISTIC_ERRORS: tuple[type[BaseException], ...] = (AnalysisError, DocumentError, ValueError, ArithmeticError)
 
 
 class _Heartbeat(threading.Thread):
@@ -165,7 +162,7 @@ class WorkerPool:
                     jobs.fail(session, claim, error="worker shut down during the run", retry=True)
         except Exception as exc:
             elapsed = time.perf_counter() - started
-            deterministic = isinstance(exc, _deterministic_errors())
+            deterministic = isinstance(exc, DETERMINISTIC_ERRORS)
             message = f"{type(exc).__name__}: {exc}"
             log.error("job %s failed after %.1f ms on %s: %s", claim.job_id, elapsed * 1000, claim.worker, message)
             if not deterministic:

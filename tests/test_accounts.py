@@ -55,7 +55,8 @@ def test_admins_create_users_and_teams_and_each_new_team_gets_the_default_workfl
                                                                                                 "gamma"]
     assert _trail(session_factory)[before:] == [
         ("create", "team", "gamma"), ("create", "workflow", "gamma: margin review"), ("create", "user", "gail"),
-        ("add_member", "team", "gamma"), ("remove_member", "team", "gamma"), ("update", "user", "gail")]
+        ("add_member", "team", "gamma"), ("add_member", "team", "gamma"), ("remove_member", "team", "gamma"),
+        ("update", "user", "gail")]
 
 
 def test_me_tells_who_you_are_and_what_you_may_do(client, people):
@@ -269,6 +270,6 @@ def test_the_demo_seeds_one_user_of_each_role_once(session_factory):
         rows = session.scalars(select(User).order_by(User.id)).all()
         assert sorted({u.role for u in rows}) == ["admin", "designer", "manager", "reviewer", "viewer"]
         assert [u.username for u in rows] == [name for name, _, _ in DEMO_USERS]
-        from server.auth import verify_password
+        from server.credentials import verify_password
 
         assert verify_password(rows[0].password_hash, DEMO_PASSWORD)

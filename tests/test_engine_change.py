@@ -15,7 +15,7 @@ from fastapi.testclient import TestClient
 from sqlalchemy import select, update
 
 import server.analysis
-from server import jobs
+from server.services import jobs
 from server.__main__ import main
 from server.app import create_app
 from server.models import Approval, AuditEntry, Job, RailState

@@ -10,7 +10,7 @@ import pytest
 from fastapi.testclient import TestClient
 from sqlalchemy import func, select, update
 
-from server import jobs
+from server.services import jobs
 from server.app import create_app
 from server.models import AnalysisResult, Job, RailRevision, utcnow
 from tests.conftest import make_settings

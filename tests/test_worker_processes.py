@@ -16,9 +16,8 @@ from pathlib import Path
 import pytest
 from sqlalchemy import func, select
 
-from server import jobs
 from server.models import AnalysisResult, Job
-from server.services import catalog, rails, results, users
+from server.services import catalog, jobs, rail_edits, results, users
 from server.services.access import Actor
 from tests.conftest import TEST_SECRET
 from tests.factories import rail_doc
@@ -61,7 +60,7 @@ def test_a_job_of_a_killed_worker_is_finished_by_another_exactly_once(settings, 
     system = Actor.system("test")
     board_id = _board(session_factory)
     with session_factory() as s:
-        rail, _ = rails.create_rail(session=s, actor=system, board_id=board_id, document=rail_doc())
+        rail, _ = rail_edits.create_rail(session=s, actor=system, board_id=board_id, document=rail_doc())
         job = jobs.enqueue_rail(session=s, actor=system, rail_id=rail.id,
                                 options={"monte_carlo": 150_000, "seed": 7})  # long enough to be caught mid-run
         job_id = job.id
@@ -99,7 +98,7 @@ def test_two_workers_drain_200_jobs_each_exactly_once(settings, session_factory)
     board_id = _board(session_factory)
     with session_factory() as s:
         for k in range(200):
-            rails.create_rail(session=s, actor=system, board_id=board_id,
+            rail_edits.create_rail(session=s, actor=system, board_id=board_id,
                               document=rail_doc(f"R{k:03d}", load={"c_nom": 200e-6 + k * 5e-6}))
         assert s.scalar(select(func.count()).select_from(Job).where(Job.state == "queued")) == 200
     workers = [_worker(settings.database_url, "--exit-when-empty", "--concurrency", "1", lease_s=30)

@@ -6,7 +6,7 @@ from typing import Annotated, Literal
 
 from fastapi import APIRouter, Depends, Response
 
-from server import jobs
+from server.services import jobs
 from server.api.common import PageDep
 from server.auth import CurrentActor, require
 from server.db import SessionDep
@@ -15,6 +15,7 @@ from server.schemas.api import AnalysisRequest, BoardAnalysisRequest
 from server.schemas.result import StoredResult
 from server.services import results
 from server.services.access import Actor, Permission
+from server.services.errors import NotFound
 from server.services.rails import get_revision
 
 router = APIRouter(tags=["analyses"])
@@ -74,8 +75,6 @@ def _revision_results(session, actor, rail_id: int, n: int | None, kind: str) ->
     rev = get_revision(session=session, actor=actor, rail_id=rail_id, n=n)
     row = results.latest_result(session, sha256=rev.sha256, monte_carlo=kind == "monte_carlo")
     if row is None:
-        from server.services.errors import NotFound
-
         pending, _ = jobs.list_jobs(session=session, actor=actor, rail_id=rail_id, limit=20)
         waiting = next((j for j in pending if j.sha256 == rev.sha256 and j.state in jobs.ACTIVE), None)
         hint = f"; job {waiting.id} is {waiting.state}" if waiting else ""

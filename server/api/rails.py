@@ -10,7 +10,7 @@ from server.api.common import PageDep
 from server.auth import CurrentActor, require
 from server.db import SessionDep
 from server.schemas.api import RailCreate, RailSave
-from server.services import rails
+from server.services import rail_edits, rails
 from server.services.access import Actor, Permission
 
 router = APIRouter(prefix="/rails", tags=["rails"])
@@ -33,8 +33,8 @@ def list_rails(session: SessionDep, actor: CurrentActor, page: PageDep, product_
 
 @router.post("", status_code=201)
 def create_rail(body: RailCreate, session: SessionDep, actor: Editor, response: Response) -> dict:
-    part = rails.PartRef(body.part.id, body.part.revision) if body.part else None
-    rail, rev = rails.create_rail(session=session, actor=actor, board_id=body.board_id, document=body.document,
+    part = rail_edits.PartRef(body.part.id, body.part.revision) if body.part else None
+    rail, rev = rail_edits.create_rail(session=session, actor=actor, board_id=body.board_id, document=body.document,
                                   part=part, message=body.message)
     response.headers["Location"] = f"/api/v1/rails/{rail.id}"
     response.headers["ETag"] = _etag(rev.sha256)
@@ -53,11 +53,11 @@ def get_rail(rail_id: int, session: SessionDep, actor: CurrentActor, response: R
 def save_rail(rail_id: int, body: RailSave, session: SessionDep, actor: Editor, response: Response,
               if_match: Annotated[str | None, Header(description="sha256 of the base revision")] = None) -> dict:
     if "part" not in body.model_fields_set:
-        part = rails.KEEP_PART
+        part = rail_edits.KEEP_PART
     else:
-        part = rails.PartRef(body.part.id, body.part.revision) if body.part else None
+        part = rail_edits.PartRef(body.part.id, body.part.revision) if body.part else None
     base_sha = if_match.strip().strip('"').removeprefix("W/").strip('"') if if_match else None
-    rail, rev, created = rails.save_rail(session=session, actor=actor, rail_id=rail_id, document=body.document,
+    rail, rev, created = rail_edits.save_rail(session=session, actor=actor, rail_id=rail_id, document=body.document,
                                          base_sha256=base_sha, base_n=body.base_revision, part=part,
                                          message=body.message)
     response.headers["ETag"] = _etag(rev.sha256)
@@ -68,7 +68,7 @@ def save_rail(rail_id: int, body: RailSave, session: SessionDep, actor: Editor, 
 
 @router.delete("/{rail_id}", status_code=204)
 def delete_rail(rail_id: int, session: SessionDep, actor: Editor) -> Response:
-    rails.delete_rail(session=session, actor=actor, rail_id=rail_id)
+    rail_edits.delete_rail(session=session, actor=actor, rail_id=rail_id)
     return Response(status_code=204)
 
 

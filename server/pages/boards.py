@@ -8,7 +8,7 @@ from fastapi import APIRouter, Depends, Request
 from fastapi.responses import HTMLResponse, RedirectResponse
 from sqlalchemy.orm import Session
 
-from server import jobs
+from server.services import jobs
 from server.auth import CurrentActor, require
 from server.db import SessionDep
 from server.pages import signoff_view

@@ -15,6 +15,7 @@ from typing import Any
 
 import numpy as np
 
+from server.analysis import derated_soa_curves, zth
 from server.pages.display import fmt as format_quantity
 
 __all__ = ["PALETTE", "VERDICT_COLOURS", "startup_figure", "soa_figure", "timer_figure", "monte_carlo_figure",
@@ -208,8 +209,6 @@ def _trajectory(wave: dict[str, Any] | None, v_floor: float) -> tuple[list, list
 
 
 def _derated(document: dict[str, Any]) -> list[dict[str, Any]]:
-    from server.analysis import derated_soa_curves
-
     return derated_soa_curves(document["fet"], document.get("environment", {}).get("t_ambient", 25.0))
 
 
@@ -456,8 +455,6 @@ def zth_figure(stages: list[dict[str, Any]]) -> dict[str, Any] | None:
     """Zth(t) of the Foster stages, from a decade below the fastest to a decade above the slowest stage."""
     if not stages:
         return None
-    from server.analysis import zth
-
     taus = [s["tau"] for s in stages]
     t = np.logspace(math.log10(min(taus)) - 1, math.log10(max(taus)) + 1, 120)
     z = zth([(s["r"], s["tau"]) for s in stages], t)

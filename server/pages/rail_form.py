@@ -22,7 +22,8 @@ from server.services import parts as part_service
 from server.services.access import Actor, Permission
 from server.services.catalog import get_board
 from server.services.errors import Conflict, Invalid
-from server.services.rails import PartRef, create_rail, get_rail, get_revision, save_rail
+from server.services.rail_edits import PartRef, create_rail, save_rail
+from server.services.rails import get_rail, get_revision
 
 router = APIRouter(include_in_schema=False)
 Editor = Annotated[Actor, Depends(require(Permission.EDIT))]

@@ -18,6 +18,7 @@ from typing import Any, TypeVar
 
 from pydantic import BaseModel, ValidationError
 
+from server.analysis.document import read_fet, read_rail
 from server.analysis.errors import DocumentError
 from server.analysis.words import FIELD_TITLES, field_title, generic_path
 from server.schemas.rail import Fet, RailDocument, normalize
@@ -215,13 +216,9 @@ def parse_rail_document(data: Any, prefix: str = "") -> RailDocument:
     rule, so that no document is stored that the analysis would refuse, and a document is
     refused for the same reason and on the same field by the web and by the analysis.
     """
-    from server.analysis.document import read_rail
-
     return _validate(RailDocument, data, "rail document", prefix, read_rail, normalize)
 
 
 def parse_fet(data: Any, prefix: str = "") -> Fet:
     """Validate a FET (part) document: the schema, then the analysis core's own reading of it."""
-    from server.analysis.document import read_fet
-
     return _validate(Fet, data, "part", prefix, read_fet, lambda fet: fet.model_dump(mode="json"), root="fet")

@@ -4,7 +4,7 @@ A stored result belongs to one revision's sha256 and one engine version. When th
 changes, the results of the old one stay, read as *outdated* with their engine version
 (:func:`server.services.results.reading`), and the head revisions whose nominal+corners
 results are all outdated are analysed again (:func:`outdated_heads`; the jobs are queued by
-:func:`server.jobs.enqueue_outdated` when the service starts, and by ``railsign jobs
+:func:`server.services.jobs.enqueue_outdated` when the service starts, and by ``railsign jobs
 rerun-outdated``).
 
 When the new result of a signed-off rail's head revision reads worse than the result its

@@ -23,9 +23,8 @@ from sqlalchemy.dialects.postgresql import insert as pg_insert
 from sqlalchemy.dialects.sqlite import insert as sqlite_insert
 from sqlalchemy.orm import Session
 
-from server.auth import hash_password, verify_password
+from server.credentials import hash_password, verify_password
 from server.config import Settings
-from server.db import begin_write
 from server.models import LoginThrottle, User, utcnow
 from server.services.access import Actor
 from server.services.audit import record
@@ -90,7 +89,6 @@ def _lock_rows(session: Session, keys: tuple[str, ...]) -> dict[str, LoginThrott
 
 def _refuse(session: Session, lock: LoginThrottle, username: str, address: str, request_id: str,
             now: datetime) -> None:
-    begin_write(session)
     wait_s = max(1, int((lock.locked_until - now).total_seconds() + 0.999))
     record(session, _anonymous(request_id), action="login_refused", object_type="login_throttle", object_id=lock.id,
            object_repr=lock.key, after={"username": username[:64], "address": address,
@@ -127,7 +125,6 @@ def log_in(*, session: Session, settings: Settings, username: str, password: str
     matches = verify_password(user.password_hash if user and user.password_hash else _decoy_hash(), password or "")
     ok = bool(user is not None and user.password_hash and user.active and matches)
 
-    begin_write(session)
     rows = _lock_rows(session, keys)
     lock = _locked(rows.values(), now)
     if lock is not None:  # a parallel attempt locked it meanwhile

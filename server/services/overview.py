@@ -20,10 +20,11 @@ from sqlalchemy import func, select
 from sqlalchemy.orm import Session
 
 from server.models import AnalysisResult, Approval, Board, Job, Product, Rail, RailRevision, RailState, Waiver
-from server.services import results
-from server.services.result_parts import ResultKey, result_parts
+from server.services import results, workflows
 from server.services.access import Actor, scoped_products
 from server.services.catalog import get_board, get_product
+from server.services.engine_change import head_is_outdated
+from server.services.result_parts import ResultKey, result_parts
 
 __all__ = ["nominal_result_of_head", "verdicts_by_sha", "signoff_summary", "board_labels", "home_products",
            "product_overview", "board_rails", "active_job", "outdated_counts", "ATTENTION_LIMIT"]
@@ -54,8 +55,6 @@ def signoff_summary(session: Session, *, team_id: int, board_id: int | None = No
     """Each rail of a board (or of a product): its workflow state (and whether that counts as signed
     off), its approvals of the current revision, its stale approvals and the waivers of its current
     revision. Three queries however many rails."""
-    from server.services import workflows  # the workflow service imports the rail services
-
     wf = workflows.definition_for_team(session, team_id)
     rails = select(Rail.id, Rail.head_n).join(Board, Board.id == Rail.board_id)
     if board_id is not None:
@@ -89,8 +88,6 @@ def outdated_counts(session: Session, *, product_ids: list[int] | None = None,
     These rails also count as not analysed (``None``) in ``by_verdict``, which reads the current
     engine only; a page shows them apart as outdated.
     """
-    from server.services.engine_change import head_is_outdated  # it imports the sign-off services
-
     stmt = (select(Board.product_id, Rail.board_id, func.count()).select_from(Rail)
             .join(Board, Board.id == Rail.board_id).where(head_is_outdated())
             .group_by(Board.product_id, Rail.board_id))

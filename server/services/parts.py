@@ -10,7 +10,6 @@ from typing import Any
 from sqlalchemy import func, select
 from sqlalchemy.orm import Session
 
-from server.db import begin_write
 from server.models import Part, PartRevision, Rail, RailRevision, utcnow
 from server.schemas.rail import document_sha256
 from server.schemas.validation import DocumentInvalid, parse_fet
@@ -85,7 +84,6 @@ def create_part(*, session: Session, actor: Actor, document: Any, message: str =
     """Create a part from its FET document (its name is the document's ``name``): revision 1."""
     actor.require(Permission.EDIT)
     fet = normalize_fet(document)
-    begin_write(session)
     part = Part(name=fet["name"], head_n=1)
     session.add(part)
     flush_or_conflict(session, f"a part named '{fet['name']}' exists already")
@@ -103,7 +101,6 @@ def save_part(*, session: Session, actor: Actor, part_id: int, document: Any, ba
     """Save a new revision of a part; ``base_n`` must be its head (else Conflict)."""
     actor.require(Permission.EDIT)
     fet = normalize_fet(document)
-    begin_write(session)
     part = get_part(session=session, actor=actor, part_id=part_id)
     head = get_part_revision(session=session, actor=actor, part_id=part_id)
     if base_n != part.head_n:

@@ -1,51 +1,25 @@
-"""Rails and their immutable revisions: create, save with conflict detection, list, diff.
+"""Rails and their immutable revisions as the actor may see them: scoped getters, lists, diffs.
 
-A save names the revision it was based on (sha256 or number). When the rail has moved on
-since, the save is refused with :class:`Conflict` carrying the current revision, and
-nothing is written. On SQLite the write lock is taken at the start of the save
-(:func:`server.db.begin_write`), on PostgreSQL the rail row is locked (``FOR UPDATE``);
-the unique (rail, n) constraint backs both.
+The lookups of the rail service: nothing here writes. Creating, saving and deleting rails is
+:mod:`server.services.rail_edits`, which sits above the job queue and the sign-off service;
+those, and everything else that needs to find a rail, import this module.
 """
 
 from __future__ import annotations
 
-from dataclasses import dataclass
 from typing import Any
 
 from sqlalchemy import func, select
 from sqlalchemy.orm import Session, defer
 
-from server.db import begin_write
-from server.models import Board, Part, PartRevision, Rail, RailRevision, utcnow
-from server.schemas.rail import document_sha256, normalize
+from server.models import Board, Part, PartRevision, Rail, RailRevision
+from server.schemas.rail import normalize
 from server.schemas.validation import DocumentInvalid, parse_rail_document
-from server.services import revision_hooks
-from server.services.access import Actor, Permission, scoped_rails
-from server.services.audit import record
-from server.services.catalog import get_board
-from server.services.errors import Conflict, Invalid, NotFound, PreconditionRequired, flush_or_conflict
-from server.services.parts import get_part_revision
+from server.services.access import Actor, scoped_rails
+from server.services.errors import Invalid, NotFound
 
-__all__ = ["KEEP_PART", "PartRef", "normalize_document", "revision_dict", "rail_dict", "rail_dicts", "list_rails", "get_rail",
-           "get_revision", "list_revisions", "create_rail", "save_rail", "delete_rail", "diff_documents",
-           "diff_revisions",
-           "part_status"]
-
-
-class _Keep:
-    def __repr__(self) -> str:
-        return "KEEP_PART"
-
-
-KEEP_PART: Any = _Keep()
-
-
-@dataclass(frozen=True)
-class PartRef:
-    """A pinned part: its id and revision number (None: the part's newest revision)."""
-
-    id: int
-    revision: int | None = None
+__all__ = ["normalize_document", "revision_dict", "rail_dict", "rail_dicts", "list_rails", "get_rail",
+           "get_revision", "list_revisions", "diff_documents", "diff_revisions", "part_status"]
 
 
 def normalize_document(data: Any, prefix: str = "document") -> dict[str, Any]:
@@ -79,11 +53,6 @@ def _part_statuses(session: Session, revs: list[RailRevision]) -> dict[int, dict
 def part_status(session: Session, rev: RailRevision) -> dict | None:
     """The pinned part of a revision and whether the library holds a newer revision of it."""
     return _part_statuses(session, [rev]).get(rev.part_revision_id) if rev.part_revision_id else None
-
-
-def _summary(doc: dict) -> dict:
-    return {"v_nom": doc["supply"]["v_nom"], "c_nom": doc["load"]["c_nom"], "load_model": doc["load"]["model"],
-            "fet": doc["fet"]["name"]}
 
 
 def _rail_dict(rail: Rail, head: RailRevision, product_id: int, part: dict | None, with_document: bool) -> dict:
@@ -166,107 +135,6 @@ def list_revisions(*, session: Session, actor: Actor, rail_id: int, limit: int =
     stmt = select(RailRevision).where(RailRevision.rail_id == rail.id)
     rows = session.scalars(stmt.order_by(RailRevision.n.desc()).limit(limit).offset(offset)).all()
     return list(rows), rail.head_n
-
-
-def _resolve_part(session: Session, actor: Actor, ref: PartRef | None) -> PartRevision | None:
-    if ref is None:
-        return None
-    try:
-        return get_part_revision(session=session, actor=actor, part_id=ref.id, n=ref.revision)
-    except NotFound as exc:
-        raise Invalid(exc.message, details=[{"field": "part", "message": exc.message}]) from None
-
-
-def _document_with_part(data: Any, part_rev: PartRevision | None) -> dict[str, Any]:
-    """Normalise ``data``; a pinned part supplies the FET, and an inline FET must match it."""
-    if part_rev is not None and isinstance(data, dict) and data.get("fet") is None:
-        data = {**data, "fet": part_rev.document}
-    doc = normalize_document(data)
-    if part_rev is not None and doc["fet"] != part_rev.document:
-        message = (f"differs from part '{part_rev.document['name']}' revision {part_rev.n} that this rail uses: "
-                   "edit the part in the library, or send part: null to use a FET of this rail's own")
-        raise Invalid(f"fet {message}", details=[{"field": "document.fet", "message": message}])
-    return doc
-
-
-def create_rail(*, session: Session, actor: Actor, board_id: int, document: Any,
-                part: PartRef | None = None, message: str = "") -> tuple[Rail, RailRevision]:
-    """Create a rail on a board from its document: revision 1."""
-    actor.require(Permission.EDIT)
-    begin_write(session)
-    board = get_board(session=session, actor=actor, board_id=board_id)
-    part_rev = _resolve_part(session, actor, part)
-    doc = _document_with_part(document, part_rev)
-    rail = Rail(board_id=board.id, name=doc["name"], mode=doc["switch"]["mode"], head_n=1, summary=_summary(doc),
-                head_sha256=document_sha256(doc), part_id=part_rev.part_id if part_rev else None)
-    session.add(rail)
-    flush_or_conflict(session, f"board '{board.name}' has a rail named '{doc['name']}' already")
-    rev = RailRevision(rail_id=rail.id, n=1, document=doc, sha256=rail.head_sha256,
-                       part_revision_id=part_rev.id if part_rev else None, author_id=actor.user_id,
-                       author_name=actor.name, message=message or "created")
-    session.add(rev)
-    session.flush()
-    record(session, actor, action="create", object_type="rail", object_id=rail.id, object_repr=rail.name,
-           product_id=board.product_id, after={"n": 1, "sha256": rev.sha256, "document": doc})
-    revision_hooks.run(session, actor, rail, rev, previous=None)
-    session.commit()
-    return rail, rev
-
-
-def save_rail(*, session: Session, actor: Actor, rail_id: int, document: Any, base_sha256: str | None = None,
-              base_n: int | None = None, part: PartRef | None | Any = KEEP_PART,
-              message: str = "") -> tuple[Rail, RailRevision, bool]:
-    """Save a new revision; returns (rail, revision, created). An unchanged document creates nothing."""
-    actor.require(Permission.EDIT)
-    if base_sha256 is None and base_n is None:
-        raise PreconditionRequired(
-            "say which revision your edit is based on: an If-Match header with its sha256, or base_revision")
-    begin_write(session)
-    rail = get_rail(session=session, actor=actor, rail_id=rail_id, for_update=True)
-    head = session.scalar(select(RailRevision).where(RailRevision.rail_id == rail.id, RailRevision.n == rail.head_n))
-    stale = (base_sha256 is not None and base_sha256 != rail.head_sha256) or \
-            (base_n is not None and base_n != rail.head_n)
-    if stale:
-        raise Conflict(
-            f"rail '{rail.name}' was saved as revision {head.n} by {head.author_name} after the revision your "
-            "edit started from; nothing was saved. Merge your change into the current revision and save again.",
-            extra={"current": revision_dict(head)})
-    if part is KEEP_PART:
-        part_rev = head.part_revision
-    else:
-        part_rev = _resolve_part(session, actor, part)
-    doc = _document_with_part(document, part_rev)
-    sha = document_sha256(doc)
-    part_rev_id = part_rev.id if part_rev else None
-    if sha == head.sha256 and part_rev_id == head.part_revision_id:
-        session.rollback()
-        return rail, head, False
-    before = {"n": head.n, "sha256": head.sha256}
-    rail.head_n, rail.head_sha256 = head.n + 1, sha
-    rail.name, rail.mode, rail.updated_at = doc["name"], doc["switch"]["mode"], utcnow()
-    rail.summary = _summary(doc)
-    rail.part_id = part_rev.part_id if part_rev else None
-    rev = RailRevision(rail_id=rail.id, n=rail.head_n, document=doc, sha256=sha, part_revision_id=part_rev_id,
-                       author_id=actor.user_id, author_name=actor.name, message=message)
-    session.add(rev)
-    flush_or_conflict(session, f"rail '{rail.name}' was saved by someone else at the same moment, or its new name "
-                       "is taken on this board; nothing was saved")
-    record(session, actor, action="update", object_type="rail", object_id=rail.id, object_repr=rail.name,
-           product_id=rail.board.product_id, before=before,
-           after={"n": rev.n, "sha256": sha, "changes": diff_documents(head.document, doc)})
-    revision_hooks.run(session, actor, rail, rev, previous=head)
-    session.commit()
-    return rail, rev, True
-
-
-def delete_rail(*, session: Session, actor: Actor, rail_id: int) -> None:
-    actor.require(Permission.EDIT)
-    begin_write(session)
-    rail = get_rail(session=session, actor=actor, rail_id=rail_id)
-    record(session, actor, action="delete", object_type="rail", object_id=rail.id, object_repr=rail.name,
-           product_id=rail.board.product_id, before={"n": rail.head_n, "sha256": rail.head_sha256})
-    session.delete(rail)
-    session.commit()
 
 
 def _flatten(value: Any, path: str, out: dict[str, Any]) -> None:

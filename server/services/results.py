@@ -18,6 +18,8 @@ from sqlalchemy import select
 from sqlalchemy.exc import IntegrityError
 from sqlalchemy.orm import Session
 
+from server import analysis
+from server.analysis.montecarlo import distributions_for
 from server.models import AnalysisResult, Rail, RailRevision
 from server.services.access import Actor, scoped_rails
 from server.services.errors import NotFound
@@ -30,9 +32,8 @@ NOMINAL_OPTIONS: dict[str, Any] = {"corners": True, "monte_carlo": 0, "seed": 0,
 
 
 def engine_version() -> str:
-    from server.analysis import ENGINE_VERSION
-
-    return ENGINE_VERSION
+    """The running analysis engine's version (read at each call: tests run flows at another one)."""
+    return analysis.ENGINE_VERSION
 
 
 def normalize_options(options: dict[str, Any] | None) -> dict[str, Any]:
@@ -49,8 +50,6 @@ def normalize_options(options: dict[str, Any] | None) -> dict[str, Any]:
 
 def _distribution_option(distribution: Any) -> str | dict[str, str]:
     """One word when every parameter takes the same distribution, else the full per-parameter dict."""
-    from server.analysis.montecarlo import distributions_for
-
     kinds = distributions_for(distribution)
     words = set(kinds.values())
     return words.pop() if len(words) == 1 else dict(sorted(kinds.items()))

@@ -4,7 +4,7 @@ Every approval and waiver names the revision (sha256) it is about, and the store
 (engine version and result id) its reviewer saw: only the rail's current revision can be
 approved or waived, and only once the current engine has analysed it. A reviewer never
 approves or waives a revision they authored. When the rail gets a new revision
-(:func:`on_new_revision`, called by :mod:`server.services.revision_hooks` in the save's
+(:func:`on_new_revision`, called by :mod:`server.services.rail_edits` in the save's
 transaction), approvals of older revisions become stale (kept, shown as stale, with the
 reason) and the rail goes to the state its workflow names; a new engine reading the revision
 worse does the same through :func:`make_stale` (see :mod:`server.services.engine_change`).
@@ -19,9 +19,8 @@ from typing import Any
 from sqlalchemy import select
 from sqlalchemy.orm import Session
 
-from server.db import begin_write
 from server.models import AnalysisResult, Approval, Rail, RailRevision, Waiver, utcnow
-from server.services import rails as rail_service  # module import: rails imports the hooks, which import this
+from server.services.rails import get_rail
 from server.services import workflows
 from server.services.access import Actor, Permission
 from server.services.errors import Conflict, Forbidden, Invalid, NotFound, flush_or_conflict
@@ -117,7 +116,8 @@ def make_stale(session: Session, actor: Actor, rail: Rail, approvals: list[Appro
 
 def on_new_revision(session: Session, actor: Actor, rail: Rail, revision: RailRevision, *,
                     previous: RailRevision | None) -> None:
-    """New rail: initial state. New revision: approvals of older revisions stale, rail to ``on_edit``."""
+    """New rail: initial state. New revision: approvals of older revisions stale, rail to ``on_edit``
+    (recorded; the caller commits)."""
     if previous is None:
         workflows.place_new_rail(session, actor, rail, revision)
         return
@@ -243,7 +243,7 @@ def _check_summary(checks: list[dict] | None, waivers: list[Waiver], head_n: int
 
 def signoff_status(*, session: Session, actor: Actor, rail_id: int) -> dict[str, Any]:
     """The rail's state, approvals (current and stale), waivers, checks and the transitions it offers."""
-    rail = rail_service.get_rail(session=session, actor=actor, rail_id=rail_id)
+    rail = get_rail(session=session, actor=actor, rail_id=rail_id)
     team_id, product_id = workflows.team_of_rail(session, rail)
     wf = workflows.definition_for_team(session, team_id)
     row = workflows.state_of(session, rail, wf)
@@ -306,8 +306,7 @@ def _refuse_own(actor: Actor, rev: RailRevision, what: str) -> None:
 
 
 def _locked_rail(session: Session, actor: Actor, rail_id: int) -> Rail:
-    begin_write(session)
-    return rail_service.get_rail(session=session, actor=actor, rail_id=rail_id, for_update=True)
+    return get_rail(session=session, actor=actor, rail_id=rail_id, for_update=True)
 
 
 def approve(*, session: Session, actor: Actor, rail_id: int, sha256: str, comment: str) -> Approval:
@@ -342,13 +341,13 @@ def approve(*, session: Session, actor: Actor, rail_id: int, sha256: str, commen
 def list_approvals(*, session: Session, actor: Actor,
                    rail_id: int) -> tuple[list[Approval], int, Reading | None]:
     """(the rail's approvals, its head revision number, the head's current reading)."""
-    rail = rail_service.get_rail(session=session, actor=actor, rail_id=rail_id)
+    rail = get_rail(session=session, actor=actor, rail_id=rail_id)
     return _approvals(session, rail.id), rail.head_n, current_reading(session, rail)
 
 
 def list_waivers(*, session: Session, actor: Actor, rail_id: int) -> tuple[list[Waiver], int, Reading | None]:
     """(the rail's waivers, its head revision number, the head's current reading)."""
-    rail = rail_service.get_rail(session=session, actor=actor, rail_id=rail_id)
+    rail = get_rail(session=session, actor=actor, rail_id=rail_id)
     return _waivers(session, rail.id), rail.head_n, current_reading(session, rail)
 
 

@@ -1,20 +1,28 @@
-"""Users, teams and API tokens."""
+"""Users and their API tokens: the one write path of the ``users`` and ``api_tokens`` tables.
+
+A user's role, name, password and whether they may log in change through :func:`update_user`
+only; their teams through :mod:`server.services.teams`. Tokens are made, revoked and marked
+used here (:func:`note_token_use`, for :mod:`server.auth`).
+"""
 
 from __future__ import annotations
 
-from sqlalchemy import select
+from collections.abc import Sequence
+from datetime import datetime
+
+from sqlalchemy import select, update
 from sqlalchemy.orm import Session
 
-from server.auth import hash_password, new_token, token_digest
-from server.models import ApiToken, Role, Team, TeamMember, User, utcnow
-from server.services.access import Actor, Permission
+from server.credentials import hash_password, new_token, token_digest
+from server.models import ApiToken, Role, User, utcnow
+from server.services.access import ROLE_PERMISSIONS, Actor, Permission
 from server.services.audit import record
-from server.services import workflows
 from server.services.errors import Conflict, Forbidden, Invalid, NotFound, flush_or_conflict
+from server.services.teams import join_teams
 
-__all__ = ["ROLES", "user_dict", "get_or_create_team", "create_user", "set_role", "list_users", "get_user_by_name",
-           "create_token", "revoke_token", "list_tokens", "add_to_team", "get_user", "update_user", "me_dict",
-           "token_dict"]
+__all__ = ["ROLES", "TOKEN_USE_INTERVAL_S", "user_dict", "create_user", "list_users", "get_user_by_name",
+           "create_token", "revoke_token", "list_tokens", "user_for_token", "note_token_use", "get_user",
+           "update_user", "me_dict", "token_dict"]
 
 ROLES = [r.value for r in Role]
 
@@ -30,21 +38,10 @@ def _check_role(role: str) -> None:
                       details=[{"field": "role", "message": f"must be one of {', '.join(ROLES)}"}])
 
 
-def get_or_create_team(*, session: Session, actor: Actor, name: str) -> Team:
-    team = session.scalar(select(Team).where(Team.name == name))
-    if team is None:
-        actor.require(Permission.ADMIN)
-        team = Team(name=name)
-        session.add(team)
-        session.flush()
-        record(session, actor, action="create", object_type="team", object_id=team.id, object_repr=name,
-               after={"name": name})
-        workflows.ensure_default(session, actor, team)
-    return team
-
-
 def create_user(*, session: Session, actor: Actor, username: str, role: str, password: str | None,
-                display_name: str = "", teams: list[str] = ()) -> User:
+                display_name: str = "", teams: Sequence[str] = ()) -> User:
+    """A new user (admins), put in the teams named (a team that does not exist yet is created), in one
+    transaction: the user's audit entry, then each membership's (:func:`server.services.teams.join_teams`)."""
     actor.require(Permission.ADMIN)
     _check_role(role)
     if password is not None:
@@ -53,48 +50,18 @@ def create_user(*, session: Session, actor: Actor, username: str, role: str, pas
                 password_hash=hash_password(password) if password else None)
     session.add(user)
     flush_or_conflict(session, f"a user named '{username}' exists already")
-    for name in teams:
-        team = get_or_create_team(session=session, actor=actor, name=name)
-        session.add(TeamMember(team_id=team.id, user_id=user.id))
-    session.flush()
-    session.refresh(user)
     record(session, actor, action="create", object_type="user", object_id=user.id, object_repr=username,
-           after=user_dict(user))
-    session.commit()
-    return user
-
-
-def add_to_team(*, session: Session, actor: Actor, username: str, team: str) -> User:
-    actor.require(Permission.ADMIN)
-    user = get_user_by_name(session=session, username=username)
-    t = get_or_create_team(session=session, actor=actor, name=team)
-    if t.id not in user.team_ids:
-        before = user_dict(user)
-        session.add(TeamMember(team_id=t.id, user_id=user.id))
-        session.flush()
-        session.refresh(user)
-        record(session, actor, action="update", object_type="user", object_id=user.id, object_repr=username,
-               before=before, after=user_dict(user))
+           after={**user_dict(user), "teams": sorted(set(teams))})
+    join_teams(session, actor, user, teams)
     session.commit()
     return user
 
 
 def get_user_by_name(*, session: Session, username: str) -> User:
+    """A user by name, whoever asks (the command line names the user it acts as)."""
     user = session.scalar(select(User).where(User.username == username))
     if user is None:
         raise NotFound(f"no user '{username}'")
-    return user
-
-
-def set_role(*, session: Session, actor: Actor, username: str, role: str) -> User:
-    actor.require(Permission.ADMIN)
-    _check_role(role)
-    user = get_user_by_name(session=session, username=username)
-    before = user_dict(user)
-    user.role = role
-    record(session, actor, action="update", object_type="user", object_id=user.id, object_repr=username,
-           before=before, after=user_dict(user))
-    session.commit()
     return user
 
 
@@ -116,6 +83,36 @@ def create_token(*, session: Session, actor: Actor, username: str, name: str) ->
            object_repr=f"{username}/{name}", after={"user": username, "name": name})
     session.commit()
     return token, clear
+
+
+def user_for_token(*, session: Session, token: str) -> tuple[User, ApiToken] | None:
+    """The active user an API token belongs to, with the token's row; None for an unknown or
+    revoked token or a disabled user (authentication: nobody is acting yet)."""
+    row = session.scalar(select(ApiToken).where(ApiToken.token_sha256 == token_digest(token)))
+    if row is None or row.revoked_at is not None:
+        return None
+    user = session.get(User, row.user_id)
+    if user is None or not user.active:
+        return None
+    return user, row
+
+
+TOKEN_USE_INTERVAL_S = 60.0   # a token's last use is written at most this often
+
+
+def note_token_use(*, session: Session, token_id: int, last_used_at: datetime | None,
+                   now: datetime | None = None) -> bool:
+    """Record when a token was last used, at most once a minute; True when it wrote (and committed).
+
+    A usage stamp, not a change anyone made: no audit entry. ``last_used_at`` is what the
+    caller read with the token, so a token used again within the minute costs no write.
+    """
+    now = now or utcnow()
+    if last_used_at is not None and (now - last_used_at).total_seconds() < TOKEN_USE_INTERVAL_S:
+        return False
+    session.execute(update(ApiToken).where(ApiToken.id == token_id).values(last_used_at=now))
+    session.commit()
+    return True
 
 
 def list_tokens(*, session: Session, actor: Actor, username: str) -> list[ApiToken]:
@@ -155,7 +152,8 @@ def get_user(*, session: Session, actor: Actor, user_id: int) -> User:
 
 def update_user(*, session: Session, actor: Actor, user_id: int, role: str | None = None,
                 display_name: str | None = None, active: bool | None = None, password: str | None = None) -> User:
-    """Change a user's role, name, whether they may log in, or password (admins). The audit shows no password."""
+    """Change a user's role, name, whether they may log in, or password (admins): the one function that
+    writes any of them. The audit entry shows no password."""
     actor.require(Permission.ADMIN)
     user = get_user(session=session, actor=actor, user_id=user_id)
     before = user_dict(user)
@@ -182,8 +180,6 @@ def update_user(*, session: Session, actor: Actor, user_id: int, role: str | Non
 
 def me_dict(actor: Actor, *, auth: str | None = None, csrf_token: str | None = None) -> dict:
     """Who the actor is, their teams (with ids) and what their role allows."""
-    from server.services.access import ROLE_PERMISSIONS
-
     user = actor.user
     out = {"id": actor.user_id, "username": actor.name, "display_name": user.display_name if user else actor.name,
            "role": actor.role, "permissions": sorted(ROLE_PERMISSIONS.get(actor.role, ())),

@@ -12,7 +12,6 @@ from typing import Any
 from sqlalchemy import select
 from sqlalchemy.orm import Session
 
-from server.db import begin_write
 from server.models import Board, Product, Rail, RailRevision, RailState, Team, Workflow, utcnow
 from server.services.access import Actor, Permission
 from server.services.audit import record
@@ -80,7 +79,6 @@ def set_workflow(*, session: Session, actor: Actor, team_id: int, definition: An
     except WorkflowInvalid as exc:
         raise Invalid(str(exc), details=[{**e, "field": f"definition.{e['field']}".rstrip(".")}
                                          for e in exc.errors]) from None
-    begin_write(session)
     team = _team(session, actor, team_id)
     row = _row(session, team.id)
     before = row.definition if row is not None else None

@@ -18,7 +18,7 @@ sys.path.insert(0, str(Path(__file__).resolve().parents[2]))
 from fastapi.testclient import TestClient  # noqa: E402
 
 from server.app import create_app  # noqa: E402
-from server.services import catalog, rails, users  # noqa: E402
+from server.services import catalog, rail_edits, users  # noqa: E402
 from server.services.access import Actor  # noqa: E402
 from tests.benchmarks.common import database, server_time_s, settings_for, summary_ms  # noqa: E402
 from tests.factories import rail_doc  # noqa: E402
@@ -38,7 +38,7 @@ def seed(app, n_rails: int) -> tuple[dict, list[int]]:
         t0 = time.perf_counter()
         for k in range(n_rails):
             doc = rail_doc(f"RAIL_{k:05d}", load={"c_nom": 100e-6 + k * 1e-7})
-            rail, _ = rails.create_rail(session=s, actor=system, board_id=boards[k % len(boards)].id, document=doc)
+            rail, _ = rail_edits.create_rail(session=s, actor=system, board_id=boards[k % len(boards)].id, document=doc)
             ids.append(rail.id)
         print(f"  seeded {n_rails} rails in {time.perf_counter() - t0:.1f} s")
     return {"Authorization": f"Bearer {token}"}, ids

@@ -25,7 +25,7 @@ from sqlalchemy import func, select  # noqa: E402
 
 from server.app import create_app  # noqa: E402
 from server.models import Job  # noqa: E402
-from server.services import catalog, rails, users  # noqa: E402
+from server.services import catalog, rail_edits, users  # noqa: E402
 from server.services.access import Actor  # noqa: E402
 from tests.benchmarks.common import SECRET, database, settings_for, summary_ms  # noqa: E402
 from tests.factories import rail_doc  # noqa: E402
@@ -41,7 +41,7 @@ def _seed(factory, n_rails: int) -> tuple[int, str]:
         product = catalog.create_product(session=s, actor=system, name="Bench", team_id=team_id)
         board = catalog.create_board(session=s, actor=system, product_id=product.id, name="Main")
         for k in range(n_rails):
-            rails.create_rail(session=s, actor=system, board_id=board.id,
+            rail_edits.create_rail(session=s, actor=system, board_id=board.id,
                               document=rail_doc(f"R{k:04d}", load={"c_nom": 220e-6 + k * 1e-6}))
     return board.id, token
 

@@ -39,7 +39,7 @@ from sqlalchemy import insert, select, update  # noqa: E402
 from server.app import create_app  # noqa: E402
 from server.auth import SESSION_COOKIE  # noqa: E402
 from server.models import AnalysisResult, Job, RailRevision, utcnow  # noqa: E402
-from server.services import catalog, parts, rails, results, users  # noqa: E402
+from server.services import catalog, parts, rail_edits, results, users  # noqa: E402
 from server.services.access import Actor  # noqa: E402
 from server.worker import run_analysis  # noqa: E402
 from tests.benchmarks.common import SECRET, database, percentile, server_time_s, settings_for, summary_ms  # noqa: E402
@@ -89,8 +89,8 @@ def seed(app, n_rails: int) -> dict:
             d = k % DESIGNS
             doc = rail_doc(f"RAIL_{k:05d}", **_design(d))
             doc.pop("fet")
-            rail, rev = rails.create_rail(session=s, actor=system, board_id=boards[k // RAILS_PER_BOARD % len(boards)],
-                                          document=doc, part=rails.PartRef(part.part_id))
+            rail, rev = rail_edits.create_rail(session=s, actor=system, board_id=boards[k // RAILS_PER_BOARD % len(boards)],
+                                          document=doc, part=rail_edits.PartRef(part.part_id))
             by_design.setdefault(d, []).append(rev.sha256)
             rail_ids.append(rail.id)
         created = time.perf_counter() - t0

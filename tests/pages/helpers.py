@@ -4,7 +4,7 @@ from __future__ import annotations
 
 from html.parser import HTMLParser
 
-from server.services import catalog, parts, rails, results
+from server.services import catalog, parts, rail_edits, results
 from server.services.access import Actor
 from server.services.users import get_user_by_name
 from server.worker import run_analysis
@@ -35,8 +35,8 @@ def seed_board(session_factory, *, analysed: int = 2, unanalysed: int = 1, monte
         for k in range(analysed + unanalysed):
             doc = rail_doc(f"RAIL_{k}", load={"c_nom": f"{330 + 100 * k}uF"})
             doc.pop("fet")
-            rail, rev = rails.create_rail(session=s, actor=designer, board_id=board.id, document=doc,
-                                          part=rails.PartRef(part.part_id), message="first entry")
+            rail, rev = rail_edits.create_rail(session=s, actor=designer, board_id=board.id, document=doc,
+                                          part=rail_edits.PartRef(part.part_id), message="first entry")
             if k < analysed:
                 analyse_now(s, rev)
                 if monte_carlo and k == 0:

@@ -9,7 +9,7 @@ from server.pages.history import history_context
 from server.pages.home import home_context, product_context
 from server.pages.parts import part_context, parts_context
 from server.pages.rails import rail_context
-from server.services import rails
+from server.services import rail_edits
 from tests.factories import rail_doc
 from tests.pages.helpers import actor_of, analyse_now, seed_board
 
@@ -107,7 +107,7 @@ def test_history_context_diffs_two_revisions_and_overlays_their_plots(seeded, se
         designer = actor_of(s, "designer")
         doc = rail_doc("RAIL_0", load={"c_nom": "470uF"})
         doc.pop("fet")
-        _, rev, created = rails.save_rail(session=s, actor=designer, rail_id=rail_id, document=doc, base_n=1,
+        _, rev, created = rail_edits.save_rail(session=s, actor=designer, rail_id=rail_id, document=doc, base_n=1,
                                           message="bigger bulk capacitor")
         assert created
         analyse_now(s, rev)

@@ -30,7 +30,6 @@ from typing import Any
 from sqlalchemy import event, func, select, text, update
 from sqlalchemy.orm import Session
 
-from server.db import begin_write
 from server.models import Board, Job, JobKind, JobState, Product, Rail, RailRevision, utcnow
 from server.services import engine_change, results
 from server.services.access import Actor, Permission
@@ -109,7 +108,6 @@ def enqueue_for_revision(session: Session, actor: Actor, rail: Rail, rev: RailRe
 def enqueue_rail(*, session: Session, actor: Actor, rail_id: int, options: dict[str, Any] | None = None,
                  revision: int | None = None, force: bool = False) -> Job:
     actor.require(Permission.ANALYZE)
-    begin_write(session)
     rail = get_rail(session=session, actor=actor, rail_id=rail_id)
     rev = get_revision(session=session, actor=actor, rail_id=rail_id, n=revision)
     job = _new_rail_job(session, actor, rail, rev, options or results.NOMINAL_OPTIONS, force=force)
@@ -123,7 +121,6 @@ def enqueue_board(*, session: Session, actor: Actor, board_id: int, options: dic
                   force: bool = False) -> Job:
     """A board job with one child job per rail (head revisions); stored results count as done."""
     actor.require(Permission.ANALYZE)
-    begin_write(session)
     board = get_board(session=session, actor=actor, board_id=board_id)
     options = results.normalize_options(options)
     parent = Job(kind=JobKind.board.value, board_id=board.id, engine_version=results.engine_version(),
@@ -160,7 +157,6 @@ def enqueue_outdated(*, session: Session, actor: Actor | None = None) -> list[Jo
     """
     actor = actor or engine_change.engine_actor()
     actor.require(Permission.ANALYZE)
-    begin_write(session)
     if session.get_bind().dialect.name == "postgresql":
         session.execute(text("SELECT pg_advisory_xact_lock(:key)"), {"key": _OUTDATED_LOCK_KEY})
     heads = engine_change.outdated_heads(session, actor=actor, without_job=True)
@@ -207,7 +203,6 @@ def list_jobs(*, session: Session, actor: Actor, state: str | None = None, rail_
 def cancel_job(*, session: Session, actor: Actor, job_id: int) -> Job:
     """Cancel a queued or running job (and a board job's unfinished children)."""
     actor.require(Permission.ANALYZE)
-    begin_write(session)
     job = get_job(session=session, actor=actor, job_id=job_id)
     if job.state in FINAL:
         raise Conflict(f"job {job_id} is {job.state} already; only queued or running jobs can be cancelled")
@@ -228,7 +223,6 @@ def cancel_job(*, session: Session, actor: Actor, job_id: int) -> Job:
 def retry_job(*, session: Session, actor: Actor, job_id: int) -> Job:
     """Queue a failed or cancelled job again, with a fresh attempt count."""
     actor.require(Permission.ANALYZE)
-    begin_write(session)
     job = get_job(session=session, actor=actor, job_id=job_id)
     if job.state not in (JobState.failed.value, JobState.cancelled.value) or job.kind == JobKind.board.value:
         raise Conflict(f"job {job_id} is {job.state}; only failed or cancelled rail jobs can be retried")
@@ -272,7 +266,6 @@ def release_expired(session: Session, *, lease_s: float, max_attempts: int) -> i
 
 def claim_next(session: Session, *, worker: str, lease_s: float, max_attempts: int) -> Claim | None:
     """Claim the oldest queued rail job for ``worker``; None when the queue is empty."""
-    begin_write(session)
     release_expired(session, lease_s=lease_s, max_attempts=max_attempts)
     job = session.scalar(select(Job).where(Job.state == JobState.queued.value, Job.kind != JobKind.board.value)
                          .order_by(Job.id).limit(1).with_for_update(skip_locked=True))
@@ -298,7 +291,6 @@ def heartbeat(session: Session, claim: Claim, progress: float | None = None) -> 
     values: dict[str, Any] = {"heartbeat_at": utcnow()}
     if progress is not None:
         values["progress"] = max(0.0, min(1.0, progress))
-    begin_write(session)
     owned = session.execute(update(Job).where(_owned(claim)).values(**values)).rowcount == 1
     session.commit()
     return owned
@@ -306,7 +298,6 @@ def heartbeat(session: Session, claim: Claim, progress: float | None = None) -> 
 
 def finish(session: Session, claim: Claim, *, result: dict[str, Any], duration_s: float) -> bool:
     """Store the result and mark the job done, if the attempt is still ours. Returns whether it was."""
-    begin_write(session)
     job = session.scalar(select(Job).where(_owned(claim)).with_for_update())
     if job is None:
         session.rollback()
@@ -327,7 +318,6 @@ def finish(session: Session, claim: Claim, *, result: dict[str, Any], duration_s
 
 def fail(session: Session, claim: Claim, *, error: str, retry: bool) -> bool:
     """Record an attempt's error: back to the queue while attempts remain and ``retry``, else failed."""
-    begin_write(session)
     job = session.scalar(select(Job).where(_owned(claim)).with_for_update())
     if job is None:
         session.rollback()
