@@ -98,7 +98,7 @@ def _new_rail_job(session: Session, actor: Actor, rail: Rail, rev: RailRevision,
 
 
 def enqueue_for_revision(session: Session, actor: Actor, rail: Rail, rev: RailRevision) -> Job:
-    """Queue the nominal + corners analysis of a new revision (called inside the save transaction)."""
+    """Queue the nominal + corners analysis of a new revision, inside the save's transaction (the caller commits)."""
     # A revision just made has no job yet (a stored result of an equal document still answers at once).
     job = _new_rail_job(session, actor, rail, rev, results.NOMINAL_OPTIONS, force=False, reuse_active=False)
     session.info["railsign_wakeup"] = True
