@@ -127,7 +127,6 @@ def create_app(settings: Settings | None = None) -> FastAPI:
         pool = None
         if settings.worker_threads > 0:
             pool = WorkerPool(app.state.sessionmaker, settings, threads=settings.worker_threads).start()
-        app.state.worker_pool = pool
         yield
         if pool is not None:
             pool.stop()

@@ -70,10 +70,6 @@ class Settings(BaseSettings):
     def is_sqlite(self) -> bool:
         return self.database_url.startswith("sqlite")
 
-    @property
-    def is_postgres(self) -> bool:
-        return self.database_url.startswith("postgresql")
-
 
 @lru_cache(maxsize=1)
 def get_settings() -> Settings:

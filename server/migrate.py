@@ -4,13 +4,11 @@ from __future__ import annotations
 
 from alembic import command
 from alembic.config import Config
-from alembic.runtime.migration import MigrationContext
 from alembic.script import ScriptDirectory
-from sqlalchemy import Engine
 
 from server.config import REPO_ROOT, Settings
 
-__all__ = ["alembic_config", "upgrade", "downgrade", "current_revision", "head_revision"]
+__all__ = ["alembic_config", "upgrade", "downgrade", "head_revision"]
 
 MIGRATIONS_DIR = REPO_ROOT / "migrations"
 
@@ -32,11 +30,6 @@ def upgrade(settings: Settings, target: str = "head") -> None:
 
 def downgrade(settings: Settings, target: str = "base") -> None:
     command.downgrade(alembic_config(settings), target)
-
-
-def current_revision(engine: Engine) -> str | None:
-    with engine.connect() as conn:
-        return MigrationContext.configure(conn).get_current_revision()
 
 
 def head_revision(settings: Settings) -> str | None:

@@ -6,13 +6,15 @@ import copy
 import io
 import re
 import sys
+from datetime import timedelta
 from html.parser import HTMLParser
 
 import pytest
-from sqlalchemy import select
+from sqlalchemy import select, update
 from starlette.datastructures import FormData
 
 from server.__main__ import main
+from server.credentials import verify_password
 from server.demo import DEMO_PASSWORD, DEMO_USERS, seed_if_empty
 from server.models import ApiToken, AuditEntry, User
 from server.pages.admin import definition_from_form
@@ -263,6 +265,71 @@ def test_the_command_line_manages_users_and_tokens(cli, session_factory, client)
         assert session.scalar(select(ApiToken).where(ApiToken.id == token_id)).revoked_at is not None
 
 
+def test_every_way_into_a_team_is_recorded_the_same_way(cli, session_factory, client, people):
+    """The teams API, a new user's teams and the command line all write a membership through the
+    teams service: one audit entry of the team, naming the user, in the transaction of the change."""
+    def members(team_name: str) -> list[tuple[str, dict]]:
+        with session_factory() as session:
+            return [(e.action, e.after) for e in session.scalars(
+                select(AuditEntry).where(AuditEntry.object_type == "team", AuditEntry.object_repr == team_name)
+                .order_by(AuditEntry.id))]
+
+    admin = people.headers("admin")
+    team_id = client.post("/api/v1/teams", json={"name": "kappa"}, headers=admin).json()["id"]
+    added = client.post(f"/api/v1/teams/{team_id}/members", json={"user_id": people.ids["viewer"]}, headers=admin)
+    assert added.status_code == 200
+    made = client.post("/api/v1/users", json={"username": "kai", "role": "designer", "teams": ["kappa"]},
+                       headers=admin)
+    assert made.status_code == 201 and made.json()["teams"] == ["kappa"]
+    code, out, _ = cli("user", "add-team", "manager", "--team", "kappa")
+    assert code == 0 and out.strip() == "manager is in alpha, kappa"
+    assert cli("user", "add-team", "manager", "--team", "kappa")[0] == 0     # a member already: nothing written
+    assert members("kappa") == [("create", {"name": "kappa"}),
+                                ("add_member", {"user": "viewer", "user_id": people.ids["viewer"]}),
+                                ("add_member", {"user": "kai", "user_id": made.json()["id"]}),
+                                ("add_member", {"user": "manager", "user_id": people.ids["manager"]})]
+    # a team named on the command line that does not exist yet is made, with its workflow, in the same step
+    assert cli("user", "add-team", "kai", "--team", "lambda")[0] == 0
+    assert [a for a, _ in members("lambda")] == ["create", "add_member"]
+    workflow = client.get("/api/v1/teams", headers=admin).json()["items"]
+    assert "lambda" in [t["name"] for t in workflow]
+
+
+def test_a_role_changes_through_one_function_whichever_way_it_comes(cli, session_factory, client, people):
+    def role_changes() -> list[tuple[str | None, str | None]]:
+        with session_factory() as session:
+            return [((e.before or {}).get("role"), (e.after or {}).get("role")) for e in session.scalars(
+                select(AuditEntry).where(AuditEntry.action == "update", AuditEntry.object_type == "user",
+                                         AuditEntry.object_repr == "viewer").order_by(AuditEntry.id))]
+
+    assert cli("user", "set-role", "viewer", "--role", "reviewer")[0] == 0
+    patched = client.patch(f"/api/v1/users/{people.ids['viewer']}", json={"role": "manager"},
+                           headers=people.headers("admin"))
+    assert patched.status_code == 200 and patched.json()["role"] == "manager"
+    assert client.patch(f"/api/v1/users/{people.ids['viewer']}", json={"role": "boss"},
+                        headers=people.headers("admin")).status_code == 422
+    assert role_changes() == [("viewer", "reviewer"), ("reviewer", "manager")]
+
+
+def test_a_token_use_is_written_at_most_once_a_minute(client, people, session_factory):
+    def last_used():
+        with session_factory() as session:
+            return session.scalar(select(ApiToken.last_used_at).where(ApiToken.user_id == people.ids["reviewer"]))
+
+    assert last_used() is None
+    assert client.get("/api/v1/me", headers=people.headers("reviewer")).status_code == 200   # a read-only request
+    first = last_used()
+    assert first is not None
+    assert client.get("/api/v1/me", headers=people.headers("reviewer")).status_code == 200
+    assert last_used() == first                                  # within the minute: not written again
+    with session_factory() as session:
+        session.execute(update(ApiToken).where(ApiToken.user_id == people.ids["reviewer"])
+                        .values(last_used_at=first - timedelta(seconds=61)))
+        session.commit()
+    assert client.post("/api/v1/teams", json={"name": "x"}, headers=people.headers("reviewer")).status_code == 403
+    assert last_used() > first                                   # a minute later, a writing request: written
+
+
 def test_the_demo_seeds_one_user_of_each_role_once(session_factory):
     with session_factory() as session:
         assert seed_if_empty(session) is True
@@ -270,6 +337,4 @@ def test_the_demo_seeds_one_user_of_each_role_once(session_factory):
         rows = session.scalars(select(User).order_by(User.id)).all()
         assert sorted({u.role for u in rows}) == ["admin", "designer", "manager", "reviewer", "viewer"]
         assert [u.username for u in rows] == [name for name, _, _ in DEMO_USERS]
-        from server.credentials import verify_password
-
         assert verify_password(rows[0].password_hash, DEMO_PASSWORD)

@@ -13,7 +13,7 @@ from itsdangerous import TimestampSigner, URLSafeTimedSerializer
 from sqlalchemy import select
 
 from server.app import create_app
-from server.credentials import password_fingerprint
+from server.credentials import password_fingerprint, verify_password
 from server.models import ApiToken, AuditEntry, LoginThrottle, User, utcnow
 from server.services import logins
 from server.services import users as user_service
@@ -172,8 +172,6 @@ def test_passwords_are_never_stored_or_logged_in_clear(database_url, session_fac
     with session_factory() as session:
         stored = session.scalar(select(User.password_hash).where(User.username == "erin"))
         assert stored.startswith("$argon2id$") and PASSWORD not in stored
-        from server.credentials import verify_password
-
         assert verify_password(stored, wrong + "-new") and not verify_password(stored, PASSWORD)
         trail = " ".join(str(e.before) + str(e.after) + e.object_repr for e in session.scalars(select(AuditEntry)))
         for secret in (PASSWORD, wrong, wrong + "-new"):

@@ -17,7 +17,7 @@ import pytest
 from sqlalchemy import func, select
 
 from server.models import AnalysisResult, Job
-from server.services import catalog, jobs, rail_edits, results, users
+from server.services import catalog, jobs, rail_edits, results, teams
 from server.services.access import Actor
 from tests.conftest import TEST_SECRET
 from tests.factories import rail_doc
@@ -35,8 +35,7 @@ def _worker(url: str, *args: str, lease_s: float = 2.0) -> subprocess.Popen:
 def _board(session_factory) -> int:
     system = Actor.system("test")
     with session_factory() as s:
-        team = users.get_or_create_team(session=s, actor=system, name="alpha")
-        s.commit()
+        team = teams.create_team(session=s, actor=system, name="alpha")
         product = catalog.create_product(session=s, actor=system, name="Workers", team_id=team.id)
         return catalog.create_board(session=s, actor=system, product_id=product.id, name="Main").id
 

@@ -39,7 +39,7 @@ from server.services.rails import get_rail, get_revision, list_rails
 
 __all__ = ["ACTIVE", "job_dict", "enqueue_rail", "enqueue_for_revision", "enqueue_board", "get_job", "list_jobs",
            "cancel_job", "retry_job", "claim_next", "Claim", "heartbeat", "finish", "fail", "release_expired",
-           "refresh_parent", "wakeup", "enqueue_outdated"]
+           "wakeup", "enqueue_outdated"]
 
 log = logging.getLogger("railsign.jobs")
 ACTIVE = (JobState.queued.value, JobState.running.value)
@@ -349,6 +349,3 @@ def _refresh_parent_row(session: Session, parent: Job | None) -> None:
         parent.error = f"{failed} of {total} rail analyses failed" if failed else ""
         parent.finished_at = parent.finished_at or utcnow()
 
-
-def refresh_parent(session: Session, parent_id: int) -> None:
-    _refresh_parent_row(session, session.get(Job, parent_id))
