@@ -52,7 +52,7 @@ def _upsert_rail(session: Session, actor: Actor, board: Board, document: Any, me
         rail_edits.create_rail(session=session, actor=actor, board_id=board.id, document=document, message=message)
         return "created"
     _, _, created = rail_edits.save_rail(session=session, actor=actor, rail_id=existing.id, document=document,
-                                    base_n=existing.head_n, part=None, message=message)
+                                         base_n=existing.head_n, part=None, message=message)
     return "updated" if created else "unchanged"
 
 

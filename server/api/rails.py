@@ -34,8 +34,8 @@ def list_rails(session: SessionDep, actor: CurrentActor, page: PageDep, product_
 @router.post("", status_code=201)
 def create_rail(body: RailCreate, session: SessionDep, actor: Editor, response: Response) -> dict:
     part = rail_edits.PartRef(body.part.id, body.part.revision) if body.part else None
-    rail, rev = rail_edits.create_rail(session=session, actor=actor, board_id=body.board_id, document=body.document,
-                                  part=part, message=body.message)
+    rail, rev = rail_edits.create_rail(session=session, actor=actor, board_id=body.board_id,
+                                       document=body.document, part=part, message=body.message)
     response.headers["Location"] = f"/api/v1/rails/{rail.id}"
     response.headers["ETag"] = _etag(rev.sha256)
     return rails.rail_dict(session, rail, rev)
@@ -57,9 +57,9 @@ def save_rail(rail_id: int, body: RailSave, session: SessionDep, actor: Editor, 
     else:
         part = rail_edits.PartRef(body.part.id, body.part.revision) if body.part else None
     base_sha = if_match.strip().strip('"').removeprefix("W/").strip('"') if if_match else None
-    rail, rev, created = rail_edits.save_rail(session=session, actor=actor, rail_id=rail_id, document=body.document,
-                                         base_sha256=base_sha, base_n=body.base_revision, part=part,
-                                         message=body.message)
+    rail, rev, created = rail_edits.save_rail(session=session, actor=actor, rail_id=rail_id,
+                                              document=body.document, base_sha256=base_sha,
+                                              base_n=body.base_revision, part=part, message=body.message)
     response.headers["ETag"] = _etag(rev.sha256)
     out = rails.rail_dict(session, rail, rev)
     out["created_revision"] = created
