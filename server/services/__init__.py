@@ -1,5 +1,7 @@
 """Service functions: the work behind the API, the pages and the CLI.
 
-Each takes a session and an :class:`~server.services.access.Actor` as keyword arguments,
-owns its commit, and raises the errors of :mod:`server.services.errors`.
+Commands and lookups take the session and an :class:`~server.services.access.Actor` as
+keyword arguments, own their commit and raise the errors of :mod:`server.services.errors`;
+steps take them positionally and run inside a command's transaction. DEVELOPERS.md
+("Layers and services") lists the kinds and the order the modules import in.
 """
