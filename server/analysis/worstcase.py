@@ -8,7 +8,7 @@ find_worst_case(rail, rules, *, t_fault_range, progress=None) -> WorstCase
     row of every check and what found it.
 evaluate_unique(rail, rules, params)
     `evaluation.evaluate_rows` on the distinct rows only (corners share many).
-SEARCH_SEED, SOBOL_POINTS, COMPASS_ROUNDS, COMPASS_STEP
+SEARCH_SEED, QUASI_RANDOM_POINTS, COMPASS_ROUNDS, COMPASS_STEP
     The fixed budget of the search (part of the engine: the verdict depends only on the
     revision and the engine version).
 
@@ -23,10 +23,12 @@ time [t_fault_min, t_fault_max] (elsewhere the start-up does not depend on it, a
 timer check takes the shortest trip time). Coordinates are scaled to [0, 1] per parameter.
 
 1. The corners (`corners.corner_set`).
-2. ``SOBOL_POINTS`` points of a scrambled Sobol sequence (scipy.stats.qmc.Sobol, seed
-   ``SEARCH_SEED``): a low-discrepancy cover of the box's interior (I. M. Sobol, "On the
-   distribution of points in a cube and the approximate evaluation of integrals", USSR
-   Comput. Math. Math. Phys. 7 (1967) 86-112; Owen's scrambling).
+2. ``QUASI_RANDOM_POINTS`` points of a Halton sequence (bases 2, 3, 5, 7), shifted by a fixed
+   offset drawn with seed ``SEARCH_SEED`` (a Cranley-Patterson rotation, so that no point
+   repeats a corner's coordinates): a low-discrepancy cover of the box's interior (J. H.
+   Halton, "On the efficiency of certain quasi-random sequences of points in evaluating
+   multi-dimensional integrals", Numer. Math. 2 (1960) 84-90; R. Cranley and T. N. L.
+   Patterson, SIAM J. Numer. Anal. 13 (1976) 904-914).
 3. From each start-up check's worst point so far, ``COMPASS_ROUNDS`` rounds of a compass
    search (T. G. Kolda, R. M. Lewis and V. Torczon, "Optimization by direct search: new
    perspectives on some classical and modern methods", SIAM Review 45 (2003) 385-482,
@@ -46,7 +48,6 @@ import math
 from dataclasses import dataclass, field
 
 import numpy as np
-from scipy.stats import qmc
 
 from .checks import CHECKS, NA, SPECS, STARTUP_CHECKS
 from .circuit import NO_LIMIT
@@ -55,11 +56,11 @@ from .document import Rail
 from .evaluation import PARAMS, RowParams, evaluate_rows
 from .startup import STATUS_RETRIED, STATUS_RETRY_EXHAUSTED, STATUS_TRIPPED
 
-__all__ = ["SEARCH_SEED", "SOBOL_POINTS", "COMPASS_ROUNDS", "COMPASS_STEP", "WorstCase", "find_worst_case",
+__all__ = ["SEARCH_SEED", "QUASI_RANDOM_POINTS", "halton_points", "COMPASS_ROUNDS", "COMPASS_STEP", "WorstCase", "find_worst_case",
            "evaluate_unique", "worse", "TIE"]
 
 SEARCH_SEED = 20_261_202
-SOBOL_POINTS = 32
+QUASI_RANDOM_POINTS = 32
 COMPASS_ROUNDS = 6
 COMPASS_STEP = 0.25
 TIE = 1e-3  # a searched row must beat the worst corner by more than this (relative margin; the
@@ -95,6 +96,30 @@ class WorstCase:
         parts = (corner["timer_c"], corner["i_charge"], corner["v_trip"]) if corner and corner["timer_c"] else None
         return point_words(self.rail, float(p.v_s[row]), float(p.c[row]), float(p.i_lim[row]),
                            float(p.t_fault[row]), parts, keys)
+
+
+_PRIMES = (2, 3, 5, 7, 11, 13)
+
+
+def _radical_inverse(k: np.ndarray, base: int) -> np.ndarray:
+    """The van der Corput radical inverse of the integers k in ``base`` (digits mirrored about the point)."""
+    out = np.zeros(k.shape)
+    f = 1.0 / base
+    k = k.copy()
+    while np.any(k > 0):
+        out += f * (k % base)
+        k //= base
+        f /= base
+    return out
+
+
+def halton_points(d: int, n: int) -> np.ndarray:
+    """n points of the d-dimensional Halton sequence in [0, 1)^d, rotated by a fixed offset
+    (seeded with `SEARCH_SEED`) modulo 1."""
+    k = np.arange(1, n + 1)
+    u = np.stack([_radical_inverse(k, _PRIMES[j]) for j in range(d)], axis=1)
+    shift = np.random.default_rng(SEARCH_SEED).uniform(0.0, 1.0, d)
+    return np.mod(u + shift, 1.0)
 
 
 def _expand(fig: dict, checks: dict, idx: np.ndarray, n_unique: int) -> tuple[dict, dict]:
@@ -239,7 +264,7 @@ def find_worst_case(rail: Rail, rules: dict, *, t_fault_range: tuple[float, floa
     n_search = 0
     live = [cid for cid in STARTUP_CHECKS if np.any(checks_c[cid]["verdict"] != NA)]
     if box.d and live:
-        u = qmc.Sobol(box.d, scramble=True, seed=SEARCH_SEED).random(SOBOL_POINTS)
+        u = halton_points(box.d, QUASI_RANDOM_POINTS)
         sp = box.params(u)
         fig_s, checks_s = evaluate_unique(rail, rules, sp)
         pool.add(sp, fig_s, checks_s, "search", u)
@@ -254,7 +279,7 @@ def find_worst_case(rail: Rail, rules: dict, *, t_fault_range: tuple[float, floa
     report(1.0)
     return WorstCase(params=params, fig=fig, checks=checks, source=source, names=names, worst=worst,
                      found_by=found, corners=cs, n_search=n_search, rail=rail,
-                     budget={"sobol_points": SOBOL_POINTS if box.d and live else 0, "compass_rounds": COMPASS_ROUNDS,
+                     budget={"quasi_random_points": QUASI_RANDOM_POINTS if box.d and live else 0, "compass_rounds": COMPASS_ROUNDS,
                              "compass_step": COMPASS_STEP, "seed": SEARCH_SEED,
                              "parameters": [d[0] for d in box.dims]})
 

@@ -214,7 +214,7 @@ class Headroom(_Model):
 
 
 class SearchBudget(_Model):
-    sobol_points: int
+    quasi_random_points: int
     compass_rounds: int
     compass_step: float
     seed: int

@@ -133,3 +133,20 @@ def test_a_sample_worse_than_the_worst_case_is_flagged_not_folded_in():
     flag = next(f for f in mc["flags"] if f["check"] == "startup_tj")
     assert flag["samples"] >= 1 and flag["point"].startswith("supply")
     assert mc["checks"]["startup_tj"]["beaten"]["margin"] < doctored[3]["margin"]
+
+
+def test_halton_points_are_the_radical_inverses():
+    # Source: J. H. Halton, Numer. Math. 2 (1960) 84-90: the k-th point's coordinate in base b
+    # mirrors k's base-b digits about the point (van der Corput): 1, 2, 3 -> 1/2, 1/4, 3/4 in
+    # base 2 and 1/3, 2/3, 1/9 in base 3.
+    from server.analysis.worstcase import _radical_inverse, halton_points
+
+    k = np.array([1, 2, 3, 4])
+    np.testing.assert_allclose(_radical_inverse(k, 2), [0.5, 0.25, 0.75, 0.125], rtol=1e-15)
+    np.testing.assert_allclose(_radical_inverse(k, 3), [1 / 3, 2 / 3, 1 / 9, 4 / 9], rtol=1e-15)
+    u = halton_points(3, 64)
+    assert u.shape == (64, 3) and (u >= 0).all() and (u < 1).all()
+    # low discrepancy: every eighth of each axis holds 8 of the 64 points, give or take two
+    for j in range(3):
+        counts = np.histogram(u[:, j], bins=8, range=(0, 1))[0]
+        assert counts.min() >= 6 and counts.max() <= 10
