@@ -169,9 +169,10 @@ def cmd_import(args: argparse.Namespace) -> int:
     settings = _settings()
     _migrate(settings)
     with _sessions(settings)() as session:
-        counts = transfer.import_data(session=session, actor=_actor(session, args.user), data=data,
-                                      board_id=args.board, team=args.team, message=args.message)
-    print(", ".join(f"{v} {k}" for k, v in counts.items()))
+        report = transfer.import_data(session=session, actor=_actor(session, args.user), data=data,
+                                      board_id=args.board, team=args.team, message=args.message,
+                                      require_parts=args.require_parts)
+    print("\n".join(report.lines()))
     return EXIT_OK
 
 
@@ -249,36 +250,36 @@ def _distribution_arg(text: str) -> str | dict[str, str]:
 
 
 def cmd_analyze(args: argparse.Namespace) -> int:
-    """Analyse a rail document file without any database: report, JSON, exit 1 when a check fails."""
-    from server.analysis import DocumentError, analyze_rail, format_report
-    from server.schemas.rail import normalize
-    from server.schemas.validation import DocumentInvalid, parse_rail_document
+    """Analyse a rail file without any database (through the public `railsign` module): report or JSON,
+    exit 1 when a check fails."""
+    import railsign
+    from server.analysis import format_report
 
-    data = _read_json(args.file)
     try:
-        document = normalize(parse_rail_document(data))
-    except DocumentInvalid as exc:
+        document = railsign.parse_document(_read_json(args.file))
+    except railsign.DocumentInvalid as exc:
         lines = "\n".join(f"  {e.field or '(document)'}: {e.message}" for e in exc.errors)
-        raise CliError(f"{args.file} is not a valid rail document:\n{lines}") from None
+        raise CliError(f"{args.file} is not a valid {exc.what}:\n{lines}") from None
     progress = None
     if args.monte_carlo and not args.json and sys.stderr.isatty():
         def progress(fraction: float) -> None:
             print(f"\rMonte Carlo {fraction:6.1%}", end="", file=sys.stderr, flush=True)
     try:
-        result = analyze_rail(document, corners=not args.nominal, monte_carlo=args.monte_carlo, seed=args.seed,
-                              distribution=_distribution_arg(args.distribution), waveforms=args.waveforms,
-                              progress=progress)
-    except (DocumentError, ValueError) as exc:
+        result = railsign.analyze(document, corners=not args.nominal, monte_carlo=args.monte_carlo, seed=args.seed,
+                                  distribution=_distribution_arg(args.distribution), waveforms=args.waveforms,
+                                  progress=progress)
+    except ValueError as exc:
         raise CliError(f"{args.file}: {exc}") from None
     if progress:
         print(file=sys.stderr)
+    data = result.model_dump(mode="json", by_alias=True, exclude_unset=True)
     if args.json:
         if not args.waveforms:
-            result["startup"].pop("waveforms", None)
-        print(json.dumps(result, indent=2, allow_nan=False))
+            data["startup"].pop("waveforms", None)
+        print(json.dumps(data, indent=2, allow_nan=False))
     else:
-        print(format_report(result, document))
-    failing = any(c["verdict"] == "fail" for c in result["checks"])
+        print(format_report(data, document))
+    failing = any(c.verdict == "fail" for c in result.checks)
     return EXIT_FAILING_CHECK if failing else EXIT_OK
 
 
@@ -385,16 +386,22 @@ def build_parser() -> argparse.ArgumentParser:
     p = command("migrate", cmd_migrate, "upgrade the database schema to the newest revision")
     p.add_argument("--downgrade", metavar="REV", help="downgrade to REV instead ('base' empties the schema)")
 
-    p = command("export", cmd_export, "write rail documents as JSON")
+    p = command("export", cmd_export, "write rails as a JSON bundle: each rail's current document, the library part "
+                "it uses (name and revision) and the revision it comes from (number and sha256)")
     which = p.add_mutually_exclusive_group(required=True)
-    which.add_argument("--rail", type=int, help="one rail's current document")
-    which.add_argument("--board", type=int, help="a bundle with one board's rails")
-    which.add_argument("--product", type=int, help="a bundle with all boards of a product")
+    which.add_argument("--rail", type=int, help="one rail, with its product and board")
+    which.add_argument("--board", type=int, help="one board's rails")
+    which.add_argument("--product", type=int, help="all boards of a product")
     p.add_argument("-o", "--output", help="file to write (default: standard output)")
     p.add_argument("--user", help="act as this user (default: the command line, all teams)")
-    p = command("import", cmd_import, "store rail documents from a JSON file (one document or a bundle)")
+    p = command("import", cmd_import, "store rails from a JSON file (a bundle, or one rail document with --board): "
+                "an unchanged rail gets no new revision, library parts are linked again by name and revision")
     p.add_argument("file", help="JSON file, or - for standard input")
-    p.add_argument("--board", type=int, help="board for a single rail document")
+    p.add_argument("--board", type=int, help="board for a file that holds one rail (a rail document or a one-rail "
+                   "bundle)")
+    p.add_argument("--require-parts", action="store_true",
+                   help="store nothing when a library part the file names is missing here or differs (default: such "
+                        "a rail keeps the FET of its document, unlinked, and the report says so)")
     p.add_argument("--team", help="team that owns a product the bundle creates")
     p.add_argument("--user", help="author of the new revisions (default: railsign-cli)")
     p.add_argument("--message", default="imported", help="revision message")
