@@ -1,7 +1,7 @@
-"""The `railsign` command line: serve, demo, migrate, export, import, user, token, analyze, worker, jobs.
+"""The `railsign` command line: serve, demo, migrate, export, import, user, token, analyze, check, worker, jobs.
 
-Exit codes: 0 success; 1 the analysis found a failing check; 2 bad arguments or input;
-3 the database cannot be reached.
+Exit codes: 0 success; 1 the analysis found a failing check (`check --strict`: or an unaccepted
+marginal one); 2 bad arguments or input; 3 the database cannot be reached.
 """
 
 from __future__ import annotations
@@ -283,6 +283,35 @@ def cmd_analyze(args: argparse.Namespace) -> int:
     return EXIT_FAILING_CHECK if failing else EXIT_OK
 
 
+def cmd_check(args: argparse.Namespace) -> int:
+    """The CI gate: analyse every rail file under the paths, one line per rail, a summary, JUnit and baseline."""
+    from railsign import gate
+
+    accepted: set = set()
+    if args.baseline:
+        try:
+            accepted = gate.load_baseline(args.baseline)
+        except gate.BaselineInvalid as exc:
+            raise CliError(str(exc)) from None
+
+    def print_line(run, rail) -> None:
+        if not args.quiet or rail.invalid or rail.result.verdict != "pass":
+            print(run.line(rail), flush=True)
+
+    run = gate.run_check(args.paths, strict=args.strict, accepted=accepted, on_rail=print_line)
+    if args.write_baseline:
+        baseline = gate.baseline_dict(run)
+        gate.write_json(args.write_baseline, baseline)
+        run.accepted |= {(item["sha256"], item["check"]) for item in baseline["accepted"]}
+        print(f"wrote {args.write_baseline}: {len(baseline['accepted'])} marginal checks accepted "
+              "(failing checks are never accepted)")
+    if args.junit:
+        Path(args.junit).write_text(gate.junit_xml(run), encoding="utf-8")
+        print(f"wrote {args.junit}")
+    print("\n".join(run.summary()))
+    return run.exit_code()
+
+
 def cmd_worker(args: argparse.Namespace) -> int:
     import signal
     import threading
@@ -420,6 +449,20 @@ def build_parser() -> argparse.ArgumentParser:
                         "sigma, truncated to it) for every parameter, or per parameter as PARAM=KIND,... with "
                         "PARAM one of v_s, c, i_limit, timer_c, i_charge, v_trip (the others uniform)")
     p.add_argument("--waveforms", action="store_true", help="include the start-up waveforms in --json")
+
+    p = command("check", cmd_check,
+                "CI gate: analyse every rail file (*.json, recursively; a bundle counts each rail) on the sign-off "
+                "basis; exit 2 when a document is invalid, else 1 when a check fails (or, with --strict, a marginal "
+                "check is not in the baseline), else 0")
+    p.add_argument("paths", nargs="+", metavar="PATH", help="rail files and folders")
+    p.add_argument("--strict", action="store_true", help="marginal checks fail the run unless the baseline accepts "
+                   "them")
+    p.add_argument("--junit", metavar="FILE", help="write a JUnit XML report: a test suite per rail, a test case per "
+                   "check")
+    p.add_argument("--baseline", metavar="FILE", help="accepted marginal checks (by document sha256 and check id)")
+    p.add_argument("--write-baseline", metavar="FILE", help="write a baseline accepting every marginal check of "
+                   "this run (never a failing one), and judge the run with it")
+    p.add_argument("--quiet", action="store_true", help="print only rails that do not pass, and the summary")
 
     p = command("worker", cmd_worker, "run analysis jobs from the database queue until stopped")
     p.add_argument("--concurrency", type=int, default=1, help="worker threads in this process (default 1)")
