@@ -74,8 +74,8 @@ def parse_document(data: Any) -> dict[str, Any]:
     """
     documents = _documents(data)
     if len(documents) != 1:
-        raise DocumentInvalid([FieldError("", f"holds {len(documents)} rails, not one: read it with "
-                                              "load_documents")], "rail file")
+        raise DocumentInvalid([FieldError("", f"holds {len(documents)} rails, not one (railsign.load_documents "
+                                              "or the check command read them all)")], "rail file")
     return documents[0]
 
 

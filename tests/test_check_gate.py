@@ -170,6 +170,8 @@ def test_a_bundle_counts_each_rail_and_bad_paths_exit_2(tmp_path, capsys):
     assert code == gate.EXIT_OK
     assert sum(line.startswith(("PASS", "MARGINAL")) and "[Main A]" in line for line in lines) == 2
     assert "2 rails in 1 files: 1 pass, 1 marginal, 0 fail, 0 invalid" in lines
+    code, quiet = _run(capsys, tmp_path / "board.json", "--quiet")
+    assert [line.split()[0] for line in quiet[:-2]] == ["MARGINAL"]  # only what does not pass, then the summary
     code, lines = _run(capsys, tmp_path / "board.json", tmp_path / "missing")
     assert code == gate.EXIT_INVALID and any("missing: (document): no such file or folder" in x for x in lines)
     (tmp_path / "empty").mkdir()
