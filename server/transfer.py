@@ -154,8 +154,7 @@ class ImportReport:
 class _Plan:
     entry: RailEntry
     document: dict[str, Any]
-    board: Board | None  # None: a board the import creates (``board_key``)
-    board_key: tuple[str, str]
+    board_key: tuple[str, str]  # (name, revision letter) of its board, existing or to be created
     label: str
     rail: Rail | None = None
     head: RailRevision | None = None
@@ -270,7 +269,7 @@ def _plan(session: Session, file: RailFile, documents: list[dict[str, Any]],
                           f"({seen[(*key, doc['name'])]} and {entry.location}); nothing was imported")
         seen[(*key, doc["name"])] = entry.location
         board = boards[key]
-        plan = _Plan(entry=entry, document=doc, board=board, board_key=key, label=_label(key, doc["name"]))
+        plan = _Plan(entry=entry, document=doc, board_key=key, label=_label(key, doc["name"]))
         if board is not None:
             plan.rail = session.scalar(select(Rail).where(Rail.board_id == board.id, Rail.name == doc["name"]))
             if plan.rail is not None:
