@@ -1,7 +1,7 @@
-"""The `railsign` command line: serve, demo, migrate, export, import, user, token, analyze, worker, jobs.
+"""The `railsign` command line: serve, demo, migrate, export, import, user, token, analyze, check, worker, jobs.
 
-Exit codes: 0 success; 1 the analysis found a failing check; 2 bad arguments or input;
-3 the database cannot be reached.
+Exit codes: 0 success; 1 the analysis found a failing check (`check --strict`: or an unaccepted
+marginal one); 2 bad arguments or input; 3 the database cannot be reached.
 """
 
 from __future__ import annotations
@@ -22,6 +22,8 @@ from sqlalchemy import func, select
 from sqlalchemy.engine import make_url
 from sqlalchemy.exc import OperationalError
 
+import railsign
+from railsign import gate
 from server import migrate, transfer
 from server.analysis import DocumentError, analyze_rail, format_report
 from server.app import create_app
@@ -164,9 +166,10 @@ def cmd_import(args: argparse.Namespace) -> int:
     settings = _settings()
     _migrate(settings)
     with _sessions(settings)() as session:
-        counts = transfer.import_data(session=session, actor=_actor(session, args.user), data=data,
-                                      board_id=args.board, team=args.team, message=args.message)
-    print(", ".join(f"{v} {k}" for k, v in counts.items()))
+        report = transfer.import_data(session=session, actor=_actor(session, args.user), data=data,
+                                      board_id=args.board, team=args.team, message=args.message,
+                                      require_parts=args.require_parts)
+    print("\n".join(report.lines()))
     return EXIT_OK
 
 
@@ -242,33 +245,62 @@ def _distribution_arg(text: str) -> str | dict[str, str]:
 
 
 def cmd_analyze(args: argparse.Namespace) -> int:
-    """Analyse a rail document file without any database: report, JSON, exit 1 when a check fails."""
-    data = _read_json(args.file)
+    """Analyse a rail file without any database (through the public `railsign` module): report or JSON,
+    exit 1 when a check fails."""
     try:
-        document = normalize(parse_rail_document(data))
-    except DocumentInvalid as exc:
+        document = railsign.parse_document(_read_json(args.file))
+    except railsign.DocumentInvalid as exc:
         lines = "\n".join(f"  {e.field or '(document)'}: {e.message}" for e in exc.errors)
-        raise CliError(f"{args.file} is not a valid rail document:\n{lines}") from None
+        raise CliError(f"{args.file} is not a valid {exc.what}:\n{lines}") from None
     progress = None
     if args.monte_carlo and not args.json and sys.stderr.isatty():
         def progress(fraction: float) -> None:
             print(f"\rMonte Carlo {fraction:6.1%}", end="", file=sys.stderr, flush=True)
     try:
-        result = analyze_rail(document, corners=not args.nominal, monte_carlo=args.monte_carlo, seed=args.seed,
-                              distribution=_distribution_arg(args.distribution), waveforms=args.waveforms,
-                              progress=progress)
-    except (DocumentError, ValueError) as exc:
+        result = railsign.analyze(document, corners=not args.nominal, monte_carlo=args.monte_carlo, seed=args.seed,
+                                  distribution=_distribution_arg(args.distribution), waveforms=args.waveforms,
+                                  progress=progress)
+    except ValueError as exc:
         raise CliError(f"{args.file}: {exc}") from None
     if progress:
         print(file=sys.stderr)
+    data = result.model_dump(mode="json", by_alias=True, exclude_unset=True)
     if args.json:
         if not args.waveforms:
-            result["startup"].pop("waveforms", None)
-        print(json.dumps(result, indent=2, allow_nan=False))
+            data["startup"].pop("waveforms", None)
+        print(json.dumps(data, indent=2, allow_nan=False))
     else:
-        print(format_report(result, document))
-    failing = any(c["verdict"] == "fail" for c in result["checks"])
+        print(format_report(data, document))
+    failing = any(c.verdict == "fail" for c in result.checks)
     return EXIT_FAILING_CHECK if failing else EXIT_OK
+
+
+def cmd_check(args: argparse.Namespace) -> int:
+    """The CI gate: analyse every rail file under the paths, one line per rail, a summary, JUnit and baseline."""
+
+    accepted: set = set()
+    if args.baseline:
+        try:
+            accepted = gate.load_baseline(args.baseline)
+        except gate.BaselineInvalid as exc:
+            raise CliError(str(exc)) from None
+
+    def print_line(run, rail) -> None:
+        if not args.quiet or rail.invalid or rail.result.verdict != "pass":
+            print(run.line(rail), flush=True)
+
+    run = gate.run_check(args.paths, strict=args.strict, accepted=accepted, on_rail=print_line)
+    if args.write_baseline:
+        baseline = gate.baseline_dict(run)
+        gate.write_json(args.write_baseline, baseline)
+        run.accepted |= {(item["sha256"], item["check"]) for item in baseline["accepted"]}
+        print(f"wrote {args.write_baseline}: {len(baseline['accepted'])} marginal checks accepted "
+              "(failing checks are never accepted)")
+    if args.junit:
+        Path(args.junit).write_text(gate.junit_xml(run), encoding="utf-8")
+        print(f"wrote {args.junit}")
+    print("\n".join(run.summary()))
+    return run.exit_code()
 
 
 def cmd_worker(args: argparse.Namespace) -> int:
@@ -358,16 +390,22 @@ def build_parser() -> argparse.ArgumentParser:
     p = command("migrate", cmd_migrate, "upgrade the database schema to the newest revision")
     p.add_argument("--downgrade", metavar="REV", help="downgrade to REV instead ('base' empties the schema)")
 
-    p = command("export", cmd_export, "write rail documents as JSON")
+    p = command("export", cmd_export, "write rails as a JSON bundle: each rail's current document, the library part "
+                "it uses (name and revision) and the revision it comes from (number and sha256)")
     which = p.add_mutually_exclusive_group(required=True)
-    which.add_argument("--rail", type=int, help="one rail's current document")
-    which.add_argument("--board", type=int, help="a bundle with one board's rails")
-    which.add_argument("--product", type=int, help="a bundle with all boards of a product")
+    which.add_argument("--rail", type=int, help="one rail, with its product and board")
+    which.add_argument("--board", type=int, help="one board's rails")
+    which.add_argument("--product", type=int, help="all boards of a product")
     p.add_argument("-o", "--output", help="file to write (default: standard output)")
     p.add_argument("--user", help="act as this user (default: the command line, all teams)")
-    p = command("import", cmd_import, "store rail documents from a JSON file (one document or a bundle)")
+    p = command("import", cmd_import, "store rails from a JSON file (a bundle, or one rail document with --board): "
+                "an unchanged rail gets no new revision, library parts are linked again by name and revision")
     p.add_argument("file", help="JSON file, or - for standard input")
-    p.add_argument("--board", type=int, help="board for a single rail document")
+    p.add_argument("--board", type=int, help="board for a file that holds one rail (a rail document or a one-rail "
+                   "bundle)")
+    p.add_argument("--require-parts", action="store_true",
+                   help="store nothing when a library part the file names is missing here or differs (default: such "
+                        "a rail keeps the FET of its document, unlinked, and the report says so)")
     p.add_argument("--team", help="team that owns a product the bundle creates")
     p.add_argument("--user", help="author of the new revisions (default: railsign-cli)")
     p.add_argument("--message", default="imported", help="revision message")
@@ -386,6 +424,20 @@ def build_parser() -> argparse.ArgumentParser:
                         "sigma, truncated to it) for every parameter, or per parameter as PARAM=KIND,... with "
                         "PARAM one of v_s, c, i_limit, timer_c, i_charge, v_trip (the others uniform)")
     p.add_argument("--waveforms", action="store_true", help="include the start-up waveforms in --json")
+
+    p = command("check", cmd_check,
+                "CI gate: analyse every rail file (*.json, recursively; a bundle counts each rail) on the sign-off "
+                "basis; exit 2 when a document is invalid, else 1 when a check fails (or, with --strict, a marginal "
+                "check is not in the baseline), else 0")
+    p.add_argument("paths", nargs="+", metavar="PATH", help="rail files and folders")
+    p.add_argument("--strict", action="store_true", help="marginal checks fail the run unless the baseline accepts "
+                   "them")
+    p.add_argument("--junit", metavar="FILE", help="write a JUnit XML report: a test suite per rail, a test case per "
+                   "check")
+    p.add_argument("--baseline", metavar="FILE", help="accepted marginal checks (by document sha256 and check id)")
+    p.add_argument("--write-baseline", metavar="FILE", help="write a baseline accepting every marginal check of "
+                   "this run (never a failing one), and judge the run with it")
+    p.add_argument("--quiet", action="store_true", help="print only rails that do not pass, and the summary")
 
     p = command("worker", cmd_worker, "run analysis jobs from the database queue until stopped")
     p.add_argument("--concurrency", type=int, default=1, help="worker threads in this process (default 1)")

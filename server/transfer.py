@@ -1,99 +1,252 @@
-"""Export and import of rail documents as JSON files.
+"""Export and import of rail files; the formats themselves are in `server.bundle`.
 
-A file holds either one rail document (schema "railsign.rail/1") or a bundle
-(schema "railsign.bundle/1"): a product with its boards and their rails' documents.
+Export writes bundles (schema ``railsign.bundle/2``): each rail's head document with the
+library part its revision pins (name and revision number) and the revision it comes from
+(number and sha256).
+
+Import keeps what a round trip must keep:
+
+- an unchanged document with the same part makes no revision;
+- a part named in the file is linked again by name and revision number when this library
+  holds that revision with the same FET; otherwise the rail keeps the part it uses here when
+  that part's FET is the document's, or else the FET of its document, unlinked, and the
+  report says which part could not be linked, why, and what was done instead
+  (``require_parts=True``: nothing is stored then);
+- a document that names no part keeps the rail's present part when its FET is that part's;
+- a rail changed here since the revision the file was exported from is a conflict.
+
+Every document is validated, every part looked up and every conflict found before anything
+is stored.
 """
 
 from __future__ import annotations
 
+from dataclasses import dataclass, field
 from typing import Any
 
 from sqlalchemy import select
 from sqlalchemy.orm import Session
 
-from server.models import Board, Product, Rail, Team
+from server.bundle import PartLink, RailEntry, RailFile, bundle_dict, rail_entry_dict, read_rail_file
+from server.models import Board, Part, PartRevision, Product, Rail, RailRevision, Team
+from server.schemas.rail import document_sha256
+from server.schemas.validation import DocumentInvalid
 from server.services import catalog, rail_edits, rails
-from server.services.access import Actor
-from server.services.errors import Invalid, NotFound
+from server.services.access import Actor, Permission
+from server.services.errors import Conflict, Invalid, NotFound
 
-__all__ = ["BUNDLE_SCHEMA", "export_rail", "export_product", "export_board", "import_data"]
+__all__ = ["export_rail", "export_board", "export_product", "import_data", "ImportReport", "PartNotLinked"]
 
-BUNDLE_SCHEMA = "railsign.bundle/1"
+_PAGE = 1000
+
+
+# --- export ----------------------------------------------------------------------------------
+
+
+def _entry(session: Session, head: RailRevision) -> dict[str, Any]:
+    status = rails.part_status(session, head)
+    part = PartLink(name=status["name"], revision=status["pinned_revision"]) if status else None
+    return rail_entry_dict(head.document, part=part, revision=head.n, sha256=head.sha256)
+
+
+def _board_dict(board: Board, entries: list[dict[str, Any]]) -> dict[str, Any]:
+    return {"name": board.name, "revision": board.revision, "description": board.description, "rails": entries}
+
+
+def _board_entries(session: Session, actor: Actor, board: Board) -> list[dict[str, Any]]:
+    entries: list[dict[str, Any]] = []
+    while True:
+        rows, total = rails.list_rails(session=session, actor=actor, board_id=board.id, limit=_PAGE,
+                                       offset=len(entries))
+        entries += [_entry(session, head) for _, head in rows]
+        if not rows or len(entries) >= total:
+            return entries
+
+
+def _product_dict(product: Product) -> dict[str, str]:
+    return {"name": product.name, "description": product.description}
 
 
 def export_rail(*, session: Session, actor: Actor, rail_id: int) -> dict[str, Any]:
-    return rails.get_revision(session=session, actor=actor, rail_id=rail_id).document
-
-
-def _board_entry(session: Session, actor: Actor, board: Board) -> dict[str, Any]:
-    rows, _ = rails.list_rails(session=session, actor=actor, board_id=board.id, limit=10_000)
-    return {"name": board.name, "revision": board.revision, "description": board.description,
-            "rails": [head.document for _, head in rows]}
-
-
-def export_product(*, session: Session, actor: Actor, product_id: int) -> dict[str, Any]:
-    product = catalog.get_product(session=session, actor=actor, product_id=product_id)
-    boards, _ = catalog.list_boards(session=session, actor=actor, product_id=product.id, limit=10_000)
-    return {"schema": BUNDLE_SCHEMA, "product": {"name": product.name, "description": product.description},
-            "boards": [_board_entry(session, actor, b) for b in boards]}
+    """A bundle with one rail: its product, its board and its head revision."""
+    rail = rails.get_rail(session=session, actor=actor, rail_id=rail_id)
+    head = rails.get_revision(session=session, actor=actor, rail_id=rail.id)
+    board = catalog.get_board(session=session, actor=actor, board_id=rail.board_id)
+    product = catalog.get_product(session=session, actor=actor, product_id=board.product_id)
+    return bundle_dict(product=_product_dict(product), boards=[_board_dict(board, [_entry(session, head)])])
 
 
 def export_board(*, session: Session, actor: Actor, board_id: int) -> dict[str, Any]:
+    """A bundle with one board and every rail on it."""
     board = catalog.get_board(session=session, actor=actor, board_id=board_id)
     product = catalog.get_product(session=session, actor=actor, product_id=board.product_id)
-    return {"schema": BUNDLE_SCHEMA, "product": {"name": product.name, "description": product.description},
-            "boards": [_board_entry(session, actor, board)]}
+    return bundle_dict(product=_product_dict(product),
+                       boards=[_board_dict(board, _board_entries(session, actor, board))])
 
 
-def _upsert_rail(session: Session, actor: Actor, board: Board, document: Any, message: str) -> str:
-    name = document.get("name") if isinstance(document, dict) else None
-    existing = session.scalar(select(Rail).where(Rail.board_id == board.id, Rail.name == name)) if name else None
-    if existing is None:
-        rail_edits.create_rail(session=session, actor=actor, board_id=board.id, document=document, message=message)
-        return "created"
-    _, _, created = rail_edits.save_rail(session=session, actor=actor, rail_id=existing.id, document=document,
-                                         base_n=existing.head_n, part=None, message=message)
-    return "updated" if created else "unchanged"
+def export_product(*, session: Session, actor: Actor, product_id: int) -> dict[str, Any]:
+    """A bundle with every board of a product and every rail on them."""
+    product = catalog.get_product(session=session, actor=actor, product_id=product_id)
+    boards: list[Board] = []
+    while True:
+        rows, total = catalog.list_boards(session=session, actor=actor, product_id=product.id, limit=_PAGE,
+                                          offset=len(boards))
+        boards += rows
+        if not rows or len(boards) >= total:
+            break
+    return bundle_dict(product=_product_dict(product),
+                       boards=[_board_dict(b, _board_entries(session, actor, b)) for b in boards])
 
 
-def import_data(*, session: Session, actor: Actor, data: Any, board_id: int | None = None,
-                team: str | None = None, message: str = "imported") -> dict[str, int]:
-    """Import one rail document (needs ``board_id``) or a bundle; returns counts per outcome.
+# --- import: the report ------------------------------------------------------------------------
 
-    Every document is validated before anything is stored, so a bad file stores nothing.
-    """
-    counts = {"created": 0, "updated": 0, "unchanged": 0}
-    if isinstance(data, dict) and data.get("schema") == BUNDLE_SCHEMA:
-        boards = data.get("boards") or []
-        for b, entry in enumerate(boards):
-            for r, doc in enumerate(entry.get("rails") or []):
-                rails.normalize_document(doc, prefix=f"boards[{b}].rails[{r}]")
-        product = _product_for_bundle(session, actor, data.get("product") or {}, team)
-        for entry in boards:
-            board = session.scalar(select(Board).where(Board.product_id == product.id, Board.name == entry["name"],
-                                                       Board.revision == entry.get("revision", "A")))
-            if board is None:
-                board = catalog.create_board(session=session, actor=actor, product_id=product.id,
-                                             name=entry["name"], revision=entry.get("revision", "A"),
-                                             description=entry.get("description", ""))
-            for doc in entry.get("rails") or []:
-                counts[_upsert_rail(session, actor, board, doc, message)] += 1
-        return counts
-    rails.normalize_document(data, prefix="")
-    if board_id is None:
+
+@dataclass(frozen=True)
+class PartNotLinked:
+    """A rail whose file names a part that could not be linked here, and what was done instead."""
+
+    rail: str
+    part: PartLink
+    reason: str
+    instead: str
+
+
+def _by_part(items: list[PartNotLinked]) -> list[tuple[PartLink, str, str, list[str]]]:
+    groups: dict[tuple[PartLink, str, str], list[str]] = {}
+    for n in items:
+        groups.setdefault((n.part, n.reason, n.instead), []).append(n.rail)
+    return [(part, reason, instead, names) for (part, reason, instead), names in groups.items()]
+
+
+@dataclass
+class ImportReport:
+    """What an import did: rails created, updated (a new revision) and unchanged; part links."""
+
+    created: int = 0
+    updated: int = 0
+    unchanged: int = 0
+    linked: int = 0
+    not_linked: list[PartNotLinked] = field(default_factory=list)
+
+    def counts(self) -> dict[str, int]:
+        return {"created": self.created, "updated": self.updated, "unchanged": self.unchanged}
+
+    def lines(self) -> list[str]:
+        """The report in words, one line per outcome and one per part that could not be linked."""
+        rails_in_file = self.created + self.updated + self.unchanged
+        out = [f"{self.created} created, {self.updated} updated, {self.unchanged} unchanged",
+               f"{self.linked} of {rails_in_file} rails linked to a library part"]
+        for part, reason, instead, names in _by_part(self.not_linked):
+            out.append(f"not linked: part '{part.name}' revision {part.revision} {reason}. {instead}: "
+                       + ", ".join(names) + ".")
+        return out
+
+    def refusal(self) -> str:
+        """Why nothing was stored when every named part had to be linked."""
+        return "; ".join(f"part '{part.name}' revision {part.revision} {reason} (for " + ", ".join(names) + ")"
+                         for part, reason, _, names in _by_part(self.not_linked))
+
+
+# --- import: plan, then store --------------------------------------------------------------------
+
+
+@dataclass
+class _Plan:
+    entry: RailEntry
+    document: dict[str, Any]
+    board_key: tuple[str, str]  # (name, revision letter) of its board, existing or to be created
+    label: str
+    rail: Rail | None = None
+    head: RailRevision | None = None
+    part: PartRevision | None = None
+    outcome: str = "created"
+
+
+def _label(board_key: tuple[str, str], name: str) -> str:
+    return f"{name} on {board_key[0]} {board_key[1]}"
+
+
+def _normalized(file: RailFile) -> list[dict[str, Any]]:
+    """Every document of the file validated and normalised, before anything is looked up."""
+    return [rails.normalize_document(e.document, prefix=e.location) for e in file.rails]
+
+
+def _named_part(session: Session, link: PartLink, fet: dict[str, Any]) -> tuple[PartRevision | None, str]:
+    """The library revision named by the file when it carries the document's FET; else why not."""
+    part = session.scalar(select(Part).where(Part.name == link.name))
+    if part is None:
+        return None, "is not in this library"
+    rev = session.scalar(select(PartRevision).where(PartRevision.part_id == part.id, PartRevision.n == link.revision))
+    if rev is None:
+        return None, f"is not in this library (it holds revisions 1 to {part.head_n} of that part)"
+    if rev.document != fet:
+        return None, "differs here from the FET in the file"
+    return rev, ""
+
+
+def _choose_part(session: Session, plan: _Plan, report: ImportReport) -> None:
+    """The part revision the rail is stored with, noting a part the file names that cannot be linked."""
+    fet = plan.document["fet"]
+    present = plan.head.part_revision if plan.head is not None else None
+    present_fits = present is not None and present.document == fet
+    link = plan.entry.part
+    if link is None:
+        plan.part = present if present_fits else None
+        return
+    rev, reason = _named_part(session, link, fet)
+    if rev is not None:
+        plan.part = rev
+        return
+    if present_fits:
+        plan.part = present
+        instead = "These rails keep the part revision they use here, which has the same FET"
+    else:
+        plan.part = None
+        instead = "These rails use the FET in their own document, not a library part"
+    report.not_linked.append(PartNotLinked(rail=plan.label, part=link, reason=reason, instead=instead))
+
+
+def _outcome(session: Session, plan: _Plan) -> str | None:
+    """created / updated / unchanged; for an update, a conflict in words when the rail moved on here."""
+    if plan.rail is None:
+        return None
+    sha = document_sha256(plan.document)
+    part_id = plan.part.id if plan.part is not None else None
+    if sha == plan.head.sha256 and part_id == plan.head.part_revision_id:
+        plan.outcome = "unchanged"
+        return None
+    plan.outcome = "updated"
+    source = plan.entry.exported_from
+    if source is None or sha == plan.head.sha256 or source.sha256 == plan.head.sha256:
+        return None
+    seen = session.scalar(select(RailRevision.n).where(RailRevision.rail_id == plan.rail.id,
+                                                       RailRevision.sha256 == source.sha256).limit(1))
+    if seen is None:  # another history (another installation): the file's document is simply newer here
+        return None
+    return (f"rail {plan.label} was exported from its revision {source.revision}, and has been saved here since "
+            f"(now revision {plan.head.n} by {plan.head.author_name})")
+
+
+def _targets(session: Session, actor: Actor, file: RailFile, board_id: int | None,
+             team: str | None) -> tuple[Product | None, dict[str, Any] | None, int | None, dict]:
+    """Where the rails go: (existing product, new product's fields, new product's team, boards by key)."""
+    if board_id is not None:
+        if len(file.rails) != 1:
+            raise Invalid(f"--board takes one rail, and this file holds {len(file.rails)}: import the bundle "
+                          "without --board to place each rail on its own board")
+        board = catalog.get_board(session=session, actor=actor, board_id=board_id)
+        return None, None, None, {(board.name, board.revision): board}
+    if not file.is_bundle:
         raise Invalid("a single rail document needs a board: give --board ID")
-    board = catalog.get_board(session=session, actor=actor, board_id=board_id)
-    counts[_upsert_rail(session, actor, board, data, message)] += 1
-    return counts
-
-
-def _product_for_bundle(session: Session, actor: Actor, meta: dict[str, Any], team: str | None) -> Product:
-    name = meta.get("name")
-    if not name:
-        raise Invalid("the bundle has no product name", details=[{"field": "product.name", "message": "is required"}])
+    name = file.product["name"]
     product = session.scalar(select(Product).where(Product.name == name))
+    boards: dict[tuple[str, str], Board | None] = {(b.name, b.revision): None for b in file.boards}
     if product is not None:
-        return catalog.get_product(session=session, actor=actor, product_id=product.id)
+        product = catalog.get_product(session=session, actor=actor, product_id=product.id)
+        for key in boards:
+            boards[key] = session.scalar(select(Board).where(Board.product_id == product.id, Board.name == key[0],
+                                                             Board.revision == key[1]))
+        return product, None, None, boards
     team_id = None
     if team:
         row = session.scalar(select(Team).where(Team.name == team))
@@ -102,5 +255,97 @@ def _product_for_bundle(session: Session, actor: Actor, meta: dict[str, Any], te
         team_id = row.id
     elif actor.user is None:
         raise Invalid(f"product '{name}' is new: say which team owns it with --team NAME")
-    return catalog.create_product(session=session, actor=actor, name=name,
-                                  description=meta.get("description", ""), team_id=team_id)
+    return None, file.product, team_id, boards
+
+
+def _plan(session: Session, file: RailFile, documents: list[dict[str, Any]],
+          boards: dict, single_board: bool, report: ImportReport) -> list[_Plan]:
+    plans: list[_Plan] = []
+    seen: dict[tuple[str, str, str], str] = {}
+    for entry, doc in zip(file.rails, documents):
+        key = next(iter(boards)) if single_board else (entry.board.name, entry.board.revision)
+        if (*key, doc["name"]) in seen:
+            raise Invalid(f"the file holds two rails named '{doc['name']}' for board '{key[0]}' revision {key[1]} "
+                          f"({seen[(*key, doc['name'])]} and {entry.location}); nothing was imported")
+        seen[(*key, doc["name"])] = entry.location
+        board = boards[key]
+        plan = _Plan(entry=entry, document=doc, board_key=key, label=_label(key, doc["name"]))
+        if board is not None:
+            plan.rail = session.scalar(select(Rail).where(Rail.board_id == board.id, Rail.name == doc["name"]))
+            if plan.rail is not None:
+                plan.head = session.scalar(select(RailRevision).where(RailRevision.rail_id == plan.rail.id,
+                                                                      RailRevision.n == plan.rail.head_n))
+        _choose_part(session, plan, report)
+        plans.append(plan)
+    return plans
+
+
+def import_data(*, session: Session, actor: Actor, data: Any, board_id: int | None = None,
+                team: str | None = None, message: str = "imported", require_parts: bool = False) -> ImportReport:
+    """Import a rail file's parsed JSON: a bundle, or one rail (a document or a one-rail bundle) with ``board_id``.
+
+    Parameters
+    ----------
+    data : Any
+        The file's JSON (``server.bundle`` formats).
+    board_id : int, optional
+        The board for a file that holds one rail; a bundle's rails otherwise go to the
+        boards it names, in its product (both created when missing).
+    team : str, optional
+        The team that owns a product the bundle creates.
+    require_parts : bool
+        Refuse the import, storing nothing, when a part the file names cannot be linked.
+
+    Raises
+    ------
+    Invalid
+        A bad document or bundle (naming the field), a missing board, or an unlinkable part
+        under ``require_parts``; nothing is stored.
+    Conflict
+        A rail was saved here after the revision the file was exported from; nothing is stored.
+    """
+    actor.require(Permission.EDIT)
+    try:
+        file = read_rail_file(data)
+    except DocumentInvalid as exc:
+        raise Invalid(str(exc), details=[e.as_dict() for e in exc.errors]) from None
+    documents = _normalized(file)
+    product, new_product, team_id, boards = _targets(session, actor, file, board_id, team)
+    report = ImportReport()
+    plans = _plan(session, file, documents, boards, board_id is not None, report)
+    conflicts = [c for c in (_outcome(session, p) for p in plans) if c]
+    if conflicts:
+        raise Conflict("; ".join(conflicts) + ". Nothing was imported: export the rails again and merge your "
+                       "changes into that file.")
+    if require_parts and report.not_linked:
+        raise Invalid("nothing was imported: " + report.refusal() + ". Add those part revisions to the library, "
+                      "or import without --require-parts to store those rails with the FET of their documents.")
+    _store(session, actor, plans, product, new_product, team_id, boards, message, report)
+    return report
+
+
+def _store(session: Session, actor: Actor, plans: list[_Plan], product: Product | None,
+           new_product: dict[str, Any] | None, team_id: int | None, boards: dict, message: str,
+           report: ImportReport) -> None:
+    if new_product is not None:
+        product = catalog.create_product(session=session, actor=actor, name=new_product["name"],
+                                         description=new_product.get("description", ""), team_id=team_id)
+    descriptions = {}
+    for plan in plans:
+        if plan.entry.board is not None:
+            descriptions.setdefault(plan.board_key, plan.entry.board.description)
+    for key, board in boards.items():
+        if board is None:
+            boards[key] = catalog.create_board(session=session, actor=actor, product_id=product.id, name=key[0],
+                                               revision=key[1], description=descriptions.get(key, ""))
+    for plan in plans:
+        part = rail_edits.PartRef(plan.part.part_id, plan.part.n) if plan.part is not None else None
+        if plan.outcome == "created":
+            rail_edits.create_rail(session=session, actor=actor, board_id=boards[plan.board_key].id,
+                              document=plan.document, part=part, message=message)
+        elif plan.outcome == "updated":
+            _, _, created = rail_edits.save_rail(session=session, actor=actor, rail_id=plan.rail.id,
+                                            document=plan.document, base_n=plan.head.n, part=part, message=message)
+            plan.outcome = "updated" if created else "unchanged"
+        setattr(report, plan.outcome, getattr(report, plan.outcome) + 1)
+        report.linked += part is not None

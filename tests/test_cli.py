@@ -45,14 +45,15 @@ def test_import_then_export_round_trips_the_documents(board_id, tmp_path, capsys
     out = tmp_path / "board.json"
     assert main(["export", "--board", str(board_id), "-o", str(out)]) == 0
     bundle = json.loads(out.read_text())
-    assert bundle["schema"] == "railsign.bundle/1"
-    docs = {d["name"]: d for d in bundle["boards"][0]["rails"]}
+    assert bundle["schema"] == "railsign.bundle/2"
+    docs = {e["document"]["name"]: e["document"] for e in bundle["boards"][0]["rails"]}
     assert set(docs) == {"VOUT_A", "VOUT_B"}
     assert docs["VOUT_A"]["load"]["c_nom"] == pytest.approx(680e-6)
+    assert bundle["boards"][0]["rails"][0]["exported_from"]["revision"] == 1
     # Importing the same file again changes nothing; a changed document makes a new revision.
     assert main(["import", str(out)]) == 0
     assert "2 unchanged" in capsys.readouterr().out
-    bundle["boards"][0]["rails"][0]["load"]["c_nom"] = 1e-3
+    bundle["boards"][0]["rails"][0]["document"]["load"]["c_nom"] = 1e-3
     out.write_text(json.dumps(bundle))
     assert main(["import", str(out)]) == 0
     assert "1 updated, 1 unchanged" in capsys.readouterr().out
@@ -78,7 +79,7 @@ def test_bad_document_in_a_bundle_stores_nothing(board_id, tmp_path, capsys):
     assert "boards[0].rails[1].load.c_nom" in err
     out = tmp_path / "after.json"
     assert main(["export", "--board", str(board_id), "-o", str(out)]) == 0
-    names = {d["name"] for d in json.loads(out.read_text())["boards"][0]["rails"]}
+    names = {e["document"]["name"] for e in json.loads(out.read_text())["boards"][0]["rails"]}
     assert names == {"VOUT_A", "VOUT_B"}
 
 
@@ -116,6 +117,37 @@ def test_a_bad_document_is_named_in_words_then_by_path(board_id, tmp_path, capsy
     path.write_text(json.dumps(bad))
     assert main(["import", str(path), "--board", str(board_id)]) == EXIT_BAD_INPUT
     assert "Supply minimum (supply.v_min): must be above 0 V" in capsys.readouterr().err
+
+
+def _id_of(database_url: str, model, name: str) -> int:
+    from server.db import make_engine, make_sessionmaker
+    from tests.conftest import make_settings
+
+    engine = make_engine(make_settings(database_url))
+    with make_sessionmaker(engine)() as session:
+        row_id = session.query(model.id).filter(model.name == name).scalar()
+    engine.dispose()
+    return row_id
+
+
+def test_one_exported_rail_goes_back_to_its_board_or_to_another_one(board_id, cli_env, tmp_path, capsys):
+    out = tmp_path / "rail.json"
+    from server.models import Board, Rail
+
+    assert main(["export", "--rail", str(_id_of(cli_env, Rail, "VOUT_A")), "-o", str(out)]) == 0
+    assert main(["import", str(out)]) == 0
+    assert capsys.readouterr().out.splitlines() == ["0 created, 0 updated, 1 unchanged",
+                                                    "0 of 1 rails linked to a library part"]
+    # the one-rail file is also a rail file for analyze
+    assert main(["analyze", str(out)]) == 1
+    capsys.readouterr()
+    bundle = {"schema": "railsign.bundle/2", "product": {"name": "CLI gateway"},
+              "boards": [{"name": "Spare", "revision": "B", "rails": []}]}
+    spare = tmp_path / "spare.json"
+    spare.write_text(json.dumps(bundle))
+    assert main(["import", str(spare)]) == 0
+    assert main(["import", str(out), "--board", str(_id_of(cli_env, Board, "Spare"))]) == 0
+    assert "1 created, 0 updated, 0 unchanged" in capsys.readouterr().out
 
 
 @pytest.mark.parametrize("args,words", [

@@ -1,0 +1,233 @@
+"""Export and import lose nothing: revisions, part links, and what they say when a part is missing here."""
+
+from __future__ import annotations
+
+import copy
+import shutil
+
+import pytest
+from sqlalchemy import func, select
+
+from server import transfer
+from server.bundle import BUNDLE_SCHEMA
+from server.db import make_engine, make_sessionmaker
+from server.demo import FETS, seed
+from server.models import Part, Product, Rail, RailRevision
+from server.schemas.rail import document_sha256
+from server.services import parts, rails, users
+from server.services.access import Actor
+from server.services.errors import Conflict, Invalid
+from tests.conftest import make_settings
+
+SYSTEM = Actor.system("transfer-tests")
+
+
+def _heads(session) -> dict[str, RailRevision]:
+    rows = session.execute(select(Rail, RailRevision).join(
+        RailRevision, (RailRevision.rail_id == Rail.id) & (RailRevision.n == Rail.head_n))).all()
+    return {rail.name: head for rail, head in rows}
+
+
+def _revision_count(session) -> int:
+    return session.scalar(select(func.count()).select_from(RailRevision))
+
+
+@pytest.fixture(scope="module")
+def demo_bundle(sqlite_template, tmp_path_factory) -> dict:
+    """The demo product exported from an installation of its own (SQLite): every board, every rail."""
+    path = tmp_path_factory.mktemp("demo-source") / "railsign.db"
+    shutil.copy(sqlite_template, path)
+    engine = make_engine(make_settings(f"sqlite:///{path}"))
+    with make_sessionmaker(engine)() as session:
+        seed(session)
+        product_id = session.scalar(select(Product.id))
+        bundle = transfer.export_product(session=session, actor=SYSTEM, product_id=product_id)
+    engine.dispose()
+    return bundle
+
+
+def _fresh_installation(session) -> None:
+    users.create_user(session=session, actor=SYSTEM, username="importer", role="designer", password=None,
+                      teams=["elsewhere"])
+
+
+def test_export_carries_the_part_and_the_revision_of_every_rail(session_factory):
+    with session_factory() as s:
+        seed(s)
+        heads = _heads(s)
+        product_id = s.scalar(select(Product.id))
+        bundle = transfer.export_product(session=s, actor=SYSTEM, product_id=product_id)
+        pinned = {name: rails.part_status(s, head) for name, head in heads.items()}
+    assert bundle["schema"] == BUNDLE_SCHEMA
+    entries = [e for board in bundle["boards"] for e in board["rails"]]
+    assert len(entries) == len(heads) == 12
+    for entry in entries:
+        name = entry["document"]["name"]
+        assert entry["exported_from"] == {"revision": heads[name].n, "sha256": heads[name].sha256}
+        assert document_sha256(entry["document"]) == heads[name].sha256
+        assert entry["part"] == {"name": pinned[name]["name"], "revision": pinned[name]["pinned_revision"]}
+
+
+def test_demo_round_trip_makes_no_revision_and_keeps_every_part_link(session_factory):
+    with session_factory() as s:
+        seed(s)
+        before = {name: (h.n, h.sha256, h.part_revision_id) for name, h in _heads(s).items()}
+        revisions = _revision_count(s)
+        product_id = s.scalar(select(Product.id))
+        board_ids = sorted({r.board_id for r in s.scalars(select(Rail))})
+        files = [transfer.export_board(session=s, actor=SYSTEM, board_id=b) for b in board_ids]
+        files.append(transfer.export_product(session=s, actor=SYSTEM, product_id=product_id))
+        files += [transfer.export_rail(session=s, actor=SYSTEM, rail_id=r) for r in s.scalars(select(Rail.id))]
+    reports = []
+    for data in files:
+        with session_factory() as s:
+            reports.append(transfer.import_data(session=s, actor=SYSTEM, data=data))
+    assert [r.counts()["unchanged"] for r in reports] == [4, 4, 4, 12] + [1] * 12
+    assert all(r.created == r.updated == 0 and not r.not_linked for r in reports)
+    assert all(r.linked == r.unchanged for r in reports)
+    with session_factory() as s:
+        assert _revision_count(s) == revisions
+        after = {name: (h.n, h.sha256, h.part_revision_id) for name, h in _heads(s).items()}
+    assert after == before
+    assert all(part_rev is not None for _, _, part_rev in after.values())
+
+
+def test_an_edited_rail_in_the_file_makes_one_revision_and_keeps_its_part(session_factory):
+    with session_factory() as s:
+        seed(s)
+        board_id = s.scalar(select(Rail.board_id).where(Rail.name == "SOM_12V"))
+        data = transfer.export_board(session=s, actor=SYSTEM, board_id=board_id)
+        part_before = _heads(s)["SOM_12V"].part_revision_id
+    entry = next(e for e in data["boards"][0]["rails"] if e["document"]["name"] == "SOM_12V")
+    entry["document"]["load"]["c_nom"] = 560e-6
+    with session_factory() as s:
+        report = transfer.import_data(session=s, actor=SYSTEM, data=data, message="smaller bulk capacitor")
+        head = _heads(s)["SOM_12V"]
+    assert report.counts() == {"created": 0, "updated": 1, "unchanged": 3}
+    assert head.n == 2 and head.document["load"]["c_nom"] == 560e-6
+    assert head.part_revision_id == part_before
+    assert head.message == "smaller bulk capacitor"
+
+
+def test_a_rail_saved_here_after_the_export_is_a_conflict_and_nothing_is_stored(session_factory):
+    with session_factory() as s:
+        seed(s)
+        board_id = s.scalar(select(Rail.board_id).where(Rail.name == "SOM_12V"))
+        old = transfer.export_board(session=s, actor=SYSTEM, board_id=board_id)
+        rail = s.scalar(select(Rail).where(Rail.name == "SOM_12V"))
+        doc = copy.deepcopy(_heads(s)["SOM_12V"].document)
+        doc["load"]["esr"] = 0.02
+        rails.save_rail(session=s, actor=SYSTEM, rail_id=rail.id, document=doc, base_n=1, message="here")
+    for entry in old["boards"][0]["rails"]:  # an offline edit of every rail in the old file
+        entry["document"]["environment"]["t_ambient"] = 50.0
+    with session_factory() as s:
+        revisions = _revision_count(s)
+        with pytest.raises(Conflict) as caught:
+            transfer.import_data(session=s, actor=SYSTEM, data=old)
+    assert "SOM_12V on Compute carrier A was exported from its revision 1" in caught.value.message
+    assert "now revision 2" in caught.value.message and "Nothing was imported" in caught.value.message
+    with session_factory() as s:
+        assert _revision_count(s) == revisions
+
+
+def test_into_another_installation_with_the_parts_relinks_them_by_name_and_revision(session_factory, demo_bundle):
+    with session_factory() as s:
+        _fresh_installation(s)
+        for fet in FETS:
+            parts.create_part(session=s, actor=SYSTEM, document=fet)
+        report = transfer.import_data(session=s, actor=SYSTEM, data=demo_bundle, team="elsewhere")
+        assert report.counts() == {"created": 12, "updated": 0, "unchanged": 0}
+        assert report.linked == 12 and report.not_linked == []
+        heads = _heads(s)
+        linked = {name: rails.part_status(s, h) for name, h in heads.items()}
+        again = transfer.import_data(session=s, actor=SYSTEM, data=demo_bundle)
+    entries = {e["document"]["name"]: e for b in demo_bundle["boards"] for e in b["rails"]}
+    for name, head in heads.items():
+        assert head.sha256 == entries[name]["exported_from"]["sha256"]
+        assert linked[name]["name"] == entries[name]["part"]["name"]
+        assert linked[name]["pinned_revision"] == entries[name]["part"]["revision"]
+    assert again.counts() == {"created": 0, "updated": 0, "unchanged": 12} and again.linked == 12
+
+
+def test_into_another_installation_without_the_parts_says_which_and_keeps_the_fets(session_factory, demo_bundle):
+    with session_factory() as s:
+        _fresh_installation(s)
+        with pytest.raises(Invalid) as refused:
+            transfer.import_data(session=s, actor=SYSTEM, data=demo_bundle, team="elsewhere", require_parts=True)
+        assert s.scalar(select(func.count()).select_from(Product)) == 0  # nothing half-done
+        report = transfer.import_data(session=s, actor=SYSTEM, data=demo_bundle, team="elsewhere")
+        heads = _heads(s)
+    assert "nothing was imported" in refused.value.message
+    assert "part 'BW-N30L5 (demo)' revision 1 is not in this library" in refused.value.message
+    assert report.counts()["created"] == 12 and report.linked == 0
+    missing = {n.part.name for n in report.not_linked}
+    assert missing == {fet["name"] for fet in FETS}
+    lines = report.lines()
+    assert lines[1] == "0 of 12 rails linked to a library part"
+    assert any(line.startswith("not linked: part 'BW-N100H26 (demo)' revision 1 is not in this library. These rails "
+                               "use the FET in their own document, not a library part: VIN_24V_HOTSWAP on Power "
+                               "entry B") for line in lines)
+    entries = {e["document"]["name"]: e for b in demo_bundle["boards"] for e in b["rails"]}
+    assert all(h.part_revision_id is None and h.sha256 == entries[n]["exported_from"]["sha256"]
+               for n, h in heads.items())
+
+
+def test_a_part_that_differs_here_is_not_linked_and_says_so(session_factory, demo_bundle):
+    with session_factory() as s:
+        _fresh_installation(s)
+        for fet in FETS:
+            parts.create_part(session=s, actor=SYSTEM, document={**fet, "rds_on": fet["rds_on"] * 1.5})
+        report = transfer.import_data(session=s, actor=SYSTEM, data=demo_bundle, team="elsewhere")
+        # the library moves on to a revision 2 with the exported FET: a new export of that revision links again
+        part = s.scalar(select(Part).where(Part.name == FETS[2]["name"]))
+        parts.save_part(session=s, actor=SYSTEM, part_id=part.id, document=FETS[2], base_n=1)
+    assert report.linked == 0
+    assert {n.reason for n in report.not_linked} == {"differs here from the FET in the file"}
+    moved = copy.deepcopy(demo_bundle)
+    for board in moved["boards"]:
+        for entry in board["rails"]:
+            if entry["part"]["name"] == FETS[2]["name"]:
+                entry["part"]["revision"] = 2
+    with session_factory() as s:
+        report = transfer.import_data(session=s, actor=SYSTEM, data=moved)
+        head = _heads(s)["VIN_24V_HOTSWAP"]
+        status = rails.part_status(s, head)
+    assert report.counts() == {"created": 0, "updated": 1, "unchanged": 11}  # only the link changes
+    assert head.n == 2 and status["name"] == FETS[2]["name"] and status["pinned_revision"] == 2
+    assert FETS[2]["name"] not in {n.part.name for n in report.not_linked}
+    assert {n.reason for n in report.not_linked} == {"differs here from the FET in the file"}
+
+
+def test_a_document_without_a_part_keeps_the_rails_present_part(session_factory):
+    with session_factory() as s:
+        seed(s)
+        head = _heads(s)["HEATER_24V"]
+        board_id = s.scalar(select(Rail.board_id).where(Rail.name == "HEATER_24V"))
+        report = transfer.import_data(session=s, actor=SYSTEM, data=head.document, board_id=board_id)
+        assert report.counts() == {"created": 0, "updated": 0, "unchanged": 1} and report.linked == 1
+        assert _heads(s)["HEATER_24V"].n == 1
+
+
+def test_two_rails_of_the_same_name_on_a_board_are_refused(session_factory, demo_bundle):
+    data = copy.deepcopy(demo_bundle)
+    data["boards"][0]["rails"].append(copy.deepcopy(data["boards"][0]["rails"][0]))
+    with session_factory() as s:
+        _fresh_installation(s)
+        with pytest.raises(Invalid, match="two rails named"):
+            transfer.import_data(session=s, actor=SYSTEM, data=data, team="elsewhere")
+        assert s.scalar(select(func.count()).select_from(Product)) == 0
+
+
+def test_a_bad_entry_names_its_field(session_factory, demo_bundle):
+    data = copy.deepcopy(demo_bundle)
+    data["boards"][1]["rails"][2]["part"] = {"name": "x", "revision": 0}
+    data["boards"][0]["rails"][1]["document"]["load"]["c_nom"] = -1
+    with session_factory() as s:
+        with pytest.raises(Invalid) as caught:
+            transfer.import_data(session=s, actor=SYSTEM, data=data, team="elsewhere")
+    assert [d["field"] for d in caught.value.details] == ["boards[1].rails[2].part.revision"]
+    data["boards"][1]["rails"][2]["part"]["revision"] = 1
+    with session_factory() as s:
+        with pytest.raises(Invalid) as caught:
+            transfer.import_data(session=s, actor=SYSTEM, data=data, team="elsewhere")
+    assert [d["field"] for d in caught.value.details] == ["boards[0].rails[1].document.load.c_nom"]
