@@ -127,7 +127,7 @@ class CheckRun:
     def line(self, rail: RailOutcome) -> str:
         """One line for a rail: the verdict and the check that reads worst, in words."""
         if rail.invalid:
-            what = "; ".join(f"{e.field or '(document)'}: {e.message}" for e in rail.errors[:3])
+            what = "; ".join(e.text for e in rail.errors[:3])
             more = f" (and {len(rail.errors) - 3} more)" if len(rail.errors) > 3 else ""
             return f"{'INVALID':<9}{_suite_name(rail)}: {what}{more}"
         verdict = rail.result.verdict
@@ -299,7 +299,7 @@ def _invalid_suite(rail: RailOutcome) -> ET.Element:
     suite = ET.Element("testsuite", name=_suite_name(rail), tests="1", failures="0", errors="1", skipped="0",
                        time="0")
     case = ET.SubElement(suite, "testcase", name="valid rail document", classname=_suite_name(rail), time="0")
-    lines = "\n".join(f"{e.field or '(document)'}: {e.message}" for e in rail.errors)
+    lines = "\n".join(e.text for e in rail.errors)
     ET.SubElement(case, "error", message="invalid rail document", type="invalid").text = lines
     return suite
 

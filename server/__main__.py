@@ -250,7 +250,7 @@ def cmd_analyze(args: argparse.Namespace) -> int:
     try:
         document = railsign.parse_document(_read_json(args.file))
     except railsign.DocumentInvalid as exc:
-        lines = "\n".join(f"  {e.field or '(document)'}: {e.message}" for e in exc.errors)
+        lines = "\n".join(f"  {e.text}" for e in exc.errors)
         raise CliError(f"{args.file} is not a valid {exc.what}:\n{lines}") from None
     progress = None
     if args.monte_carlo and not args.json and sys.stderr.isatty():

@@ -57,7 +57,7 @@ def test_a_folder_with_an_invalid_file_exits_2_and_the_junit_report_reads(folder
     assert code == gate.EXIT_INVALID
     by_file = {line.split(":")[0].split()[-1]: line for line in lines if ".json" in line.split(":")[0]}
     assert by_file[str(folder / "broken.json")].startswith("INVALID")
-    assert "HEATER_BAD: load.c_nom: must be greater than zero" in by_file[str(folder / "broken.json")]
+    assert "HEATER_BAD: Load capacitance (load.c_nom): must be above 0 F" in by_file[str(folder / "broken.json")]
     assert by_file[str(folder / "heater.json")].startswith("PASS")
     assert by_file[str(folder / "compute" / "som.json")].startswith("MARGINAL")
     assert "worst: Junction temperature in retry" in by_file[str(folder / "compute" / "som.json")]
@@ -173,7 +173,7 @@ def test_a_bundle_counts_each_rail_and_bad_paths_exit_2(tmp_path, capsys):
     code, quiet = _run(capsys, tmp_path / "board.json", "--quiet")
     assert [line.split()[0] for line in quiet[:-2]] == ["MARGINAL"]  # only what does not pass, then the summary
     code, lines = _run(capsys, tmp_path / "board.json", tmp_path / "missing")
-    assert code == gate.EXIT_INVALID and any("missing: (document): no such file or folder" in x for x in lines)
+    assert code == gate.EXIT_INVALID and any("missing: document: no such file or folder" in x for x in lines)
     (tmp_path / "empty").mkdir()
     code, lines = _run(capsys, tmp_path / "empty")
     assert code == gate.EXIT_INVALID and lines[-1] == "exit 2: no rail document found"

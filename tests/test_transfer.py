@@ -14,7 +14,7 @@ from server.db import make_engine, make_sessionmaker
 from server.demo import FETS, seed
 from server.models import Part, Product, Rail, RailRevision
 from server.schemas.rail import document_sha256
-from server.services import parts, rails, users
+from server.services import parts, rail_edits, rails, users
 from server.services.access import Actor
 from server.services.errors import Conflict, Invalid
 from tests.conftest import make_settings
@@ -117,7 +117,7 @@ def test_a_rail_saved_here_after_the_export_is_a_conflict_and_nothing_is_stored(
         rail = s.scalar(select(Rail).where(Rail.name == "SOM_12V"))
         doc = copy.deepcopy(_heads(s)["SOM_12V"].document)
         doc["load"]["esr"] = 0.02
-        rails.save_rail(session=s, actor=SYSTEM, rail_id=rail.id, document=doc, base_n=1, message="here")
+        rail_edits.save_rail(session=s, actor=SYSTEM, rail_id=rail.id, document=doc, base_n=1, message="here")
     for entry in old["boards"][0]["rails"]:  # an offline edit of every rail in the old file
         entry["document"]["environment"]["t_ambient"] = 50.0
     with session_factory() as s:
