@@ -44,7 +44,7 @@ def product_entries(product_id: int, session: SessionDep, actor: RiskReader, pag
 
 
 @router.get("/products/{product_id}/audit.csv", response_class=CsvResponse,
-            responses=CSV_BODY | errors(401, 403, 404, 422))
+            responses=CSV_BODY | errors(401, 403, 404, 422, json_success=False))
 def product_csv(product_id: int, session: SessionDep, actor: RiskReader) -> CsvResponse:
     """The product's whole trail as CSV (before and after as JSON text)."""
     filename, text = audit.product_csv(session=session, actor=actor, product_id=product_id)

@@ -43,6 +43,14 @@ ERROR_WORDS = {
 }
 
 
-def errors(*statuses: int) -> dict[int | str, dict[str, Any]]:
-    """The ``responses=`` of an operation: each error status it answers, all in the one error shape."""
-    return {status: {"model": ErrorResponse, "description": ERROR_WORDS[status]} for status in statuses}
+def errors(*statuses: int, json_success: bool = True) -> dict[int | str, dict[str, Any]]:
+    """The ``responses=`` of an operation: each error status it answers, all in the one error shape.
+
+    ``json_success=False``: the operation's success answer is not JSON (a CSV file); FastAPI would
+    document a model under that media type, so its JSON errors are declared by reference instead.
+    """
+    if json_success:
+        return {status: {"model": ErrorResponse, "description": ERROR_WORDS[status]} for status in statuses}
+    schema = {"$ref": f"#/components/schemas/{ErrorResponse.__name__}"}
+    return {status: {"description": ERROR_WORDS[status], "content": {"application/json": {"schema": schema}}}
+            for status in statuses}
