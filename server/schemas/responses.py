@@ -19,12 +19,12 @@ from pydantic import BaseModel, ConfigDict, Field
 
 from server.schemas.result import CheckRecord, Verdict
 
-__all__ = ["ErrorDetail", "ErrorInfo", "ErrorResponse", "Page", "Listing", "Health", "DatabaseHealth", "Product", "Board",
-           "PartRevision", "PartSummary", "Part", "PartDetail", "PartUse", "RevisionSummary", "Revision", "PartStatus",
-           "RailSummary", "RailListItem", "Rail", "RailSaved", "FieldChange", "RevisionDiff", "AnalysisOptions", "Job",
-           "Approval", "Waiver", "ResultReading", "SignoffStatus", "TransitionTaken", "WorkflowDefinition", "Workflow",
-           "WorkflowReplaced", "TeamSummary", "Team", "User", "UserListItem", "Me", "Token", "NewToken", "AuditEntry",
-           "ProductRisks"]
+__all__ = ["ErrorDetail", "ErrorInfo", "ErrorResponse", "Page", "Listing", "Health", "DatabaseHealth", "Product",
+           "Board", "PartRevision", "PartSummary", "Part", "PartDetail", "PartUse", "RevisionSummary", "Revision",
+           "PartStatus", "RailSummary", "RailListItem", "Rail", "RailSaved", "FieldChange", "RevisionDiff",
+           "AnalysisOptions", "Job", "Approval", "Waiver", "ResultReading", "SignoffStatus", "TransitionTaken",
+           "WorkflowDefinition", "Workflow", "WorkflowReplaced", "TeamSummary", "Team", "User", "UserListItem", "Me",
+           "Token", "NewToken", "AuditEntry", "RiskCheck", "ProductRisks"]
 
 T = TypeVar("T")
 Timestamp = Annotated[str, Field(description="ISO 8601 time, UTC", json_schema_extra={"format": "date-time"})]
