@@ -292,10 +292,15 @@ def test_every_operation_answers_its_declared_model_through_a_products_life(clie
     call("POST", "/api/v1/products", 409, role="designer", json_body={"name": "Harbour beacon"})
     invalid = call("POST", "/api/v1/products", 422, role="designer", json_body={"name": ""})
     assert invalid["error"]["details"][0]["field"] == "name"
+    unreadable = client.post("/api/v1/teams", content=b"\xe9", headers={**people.headers("admin"),
+                                                                         "content-type": "application/json"})
+    assert unreadable.status_code == 400
+    api.answered.add(("POST", "/api/v1/teams", 400))
+    check_answer(api.routes[("POST", "/api/v1/teams")], unreadable)
 
     succeeded = {(m, p) for m, p, status in api.answered if status < 300}
     assert succeeded == set(api.routes), f"operations never answered with success: {set(api.routes) - succeeded}"
-    assert {s for *_, s in api.answered if s >= 400} == {401, 403, 404, 409, 422, 428}
+    assert {s for *_, s in api.answered if s >= 400} == {400, 401, 403, 404, 409, 422, 428}
 
 
 def _sample_url(template: str) -> str:

@@ -26,7 +26,7 @@ def list_boards(session: SessionDep, actor: CurrentActor, page: PageDep, product
     return page.answer([catalog.board_dict(b) for b in rows], total)
 
 
-@router.post("", status_code=201, response_model=Board, responses=errors(401, 403, 404, 409, 422))
+@router.post("", status_code=201, response_model=Board, responses=errors(400, 401, 403, 404, 409, 422))
 def create_board(body: BoardIn, session: SessionDep, actor: Editor, response: Response) -> dict:
     board = catalog.create_board(session=session, actor=actor, **body.model_dump())
     response.headers["Location"] = f"/api/v1/boards/{board.id}"
@@ -38,7 +38,7 @@ def get_board(board_id: int, session: SessionDep, actor: CurrentActor) -> dict:
     return catalog.board_dict(catalog.get_board(session=session, actor=actor, board_id=board_id))
 
 
-@router.patch("/{board_id}", response_model=Board, responses=errors(401, 403, 404, 409, 422))
+@router.patch("/{board_id}", response_model=Board, responses=errors(400, 401, 403, 404, 409, 422))
 def update_board(board_id: int, body: BoardPatch, session: SessionDep, actor: Editor) -> dict:
     board = catalog.update_board(session=session, actor=actor, board_id=board_id,
                                  **body.model_dump(exclude_unset=True))

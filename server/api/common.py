@@ -34,6 +34,7 @@ class Page:
 PageDep = Annotated[Page, Depends(Page)]
 
 ERROR_WORDS = {
+    400: "The body cannot be read as JSON",
     401: "Not logged in: no valid API token or session cookie",
     403: "Not allowed: the role lacks the permission, or a cookie-authenticated change came without its CSRF token",
     404: "Not found (another team's object is not found either)",

@@ -35,7 +35,7 @@ def _job_answer(job, response: Response) -> dict:
 
 
 @router.post("/rails/{rail_id}/analyses", status_code=202, response_model=Job,
-             responses=ANSWERED_AT_ONCE | errors(401, 403, 404, 422))
+             responses=ANSWERED_AT_ONCE | errors(400, 401, 403, 404, 422))
 def analyse_rail(rail_id: int, body: AnalysisRequest, session: SessionDep, actor: Analyst, response: Response) -> dict:
     """Queue an analysis (202); a stored result for the same revision and options answers at once (200)."""
     options = body.model_dump(include={"corners", "monte_carlo", "seed", "distribution"})
@@ -45,7 +45,7 @@ def analyse_rail(rail_id: int, body: AnalysisRequest, session: SessionDep, actor
 
 
 @router.post("/boards/{board_id}/analyses", status_code=202, response_model=Job,
-             responses=ANSWERED_AT_ONCE | errors(401, 403, 404, 422))
+             responses=ANSWERED_AT_ONCE | errors(400, 401, 403, 404, 422))
 def analyse_board(board_id: int, body: BoardAnalysisRequest, session: SessionDep, actor: Analyst,
                   response: Response) -> dict:
     """Queue the analysis of every rail of a board as one board job with a child job per rail."""

@@ -24,7 +24,7 @@ def list_parts(session: SessionDep, actor: CurrentActor, page: PageDep, q: str |
     return page.answer([parts.part_dict(p) for p in rows], total)
 
 
-@router.post("", status_code=201, response_model=Part, responses=errors(401, 403, 409, 422))
+@router.post("", status_code=201, response_model=Part, responses=errors(400, 401, 403, 409, 422))
 def create_part(body: PartCreate, session: SessionDep, actor: Editor, response: Response) -> dict:
     rev = parts.create_part(session=session, actor=actor, document=body.document, message=body.message)
     response.headers["Location"] = f"/api/v1/parts/{rev.part_id}"
@@ -40,7 +40,7 @@ def get_part(part_id: int, session: SessionDep, actor: CurrentActor) -> dict:
     return out
 
 
-@router.put("/{part_id}", response_model=Part, responses=errors(401, 403, 404, 409, 422))
+@router.put("/{part_id}", response_model=Part, responses=errors(400, 401, 403, 404, 409, 422))
 def save_part(part_id: int, body: PartSave, session: SessionDep, actor: Editor) -> dict:
     rev = parts.save_part(session=session, actor=actor, part_id=part_id, document=body.document,
                           base_n=body.base_revision, message=body.message)

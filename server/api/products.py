@@ -24,7 +24,7 @@ def list_products(session: SessionDep, actor: CurrentActor, page: PageDep, q: st
     return page.answer([catalog.product_dict(p) for p in rows], total)
 
 
-@router.post("", status_code=201, response_model=Product, responses=errors(401, 403, 404, 409, 422))
+@router.post("", status_code=201, response_model=Product, responses=errors(400, 401, 403, 404, 409, 422))
 def create_product(body: ProductIn, session: SessionDep, actor: Editor, response: Response) -> dict:
     product = catalog.create_product(session=session, actor=actor, **body.model_dump())
     response.headers["Location"] = f"/api/v1/products/{product.id}"
@@ -36,7 +36,7 @@ def get_product(product_id: int, session: SessionDep, actor: CurrentActor) -> di
     return catalog.product_dict(catalog.get_product(session=session, actor=actor, product_id=product_id))
 
 
-@router.patch("/{product_id}", response_model=Product, responses=errors(401, 403, 404, 409, 422))
+@router.patch("/{product_id}", response_model=Product, responses=errors(400, 401, 403, 404, 409, 422))
 def update_product(product_id: int, body: ProductPatch, session: SessionDep, actor: Editor) -> dict:
     product = catalog.update_product(session=session, actor=actor, product_id=product_id,
                                      **body.model_dump(exclude_unset=True))

@@ -32,7 +32,7 @@ def list_rails(session: SessionDep, actor: CurrentActor, page: PageDep, product_
     return page.answer(rails.rail_dicts(session, rows), total)
 
 
-@router.post("", status_code=201, response_model=Rail, responses=errors(401, 403, 404, 409, 422))
+@router.post("", status_code=201, response_model=Rail, responses=errors(400, 401, 403, 404, 409, 422))
 def create_rail(body: RailCreate, session: SessionDep, actor: Editor, response: Response) -> dict:
     part = rails.PartRef(body.part.id, body.part.revision) if body.part else None
     rail, rev = rails.create_rail(session=session, actor=actor, board_id=body.board_id, document=body.document,
@@ -50,7 +50,7 @@ def get_rail(rail_id: int, session: SessionDep, actor: CurrentActor, response: R
     return rails.rail_dict(session, rail, head)
 
 
-@router.put("/{rail_id}", response_model=RailSaved, responses=errors(401, 403, 404, 409, 422, 428))
+@router.put("/{rail_id}", response_model=RailSaved, responses=errors(400, 401, 403, 404, 409, 422, 428))
 def save_rail(rail_id: int, body: RailSave, session: SessionDep, actor: Editor, response: Response,
               if_match: Annotated[str | None, Header(description="sha256 of the base revision")] = None) -> dict:
     if "part" not in body.model_fields_set:

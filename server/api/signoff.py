@@ -33,7 +33,7 @@ def list_approvals(rail_id: int, session: SessionDep, actor: CurrentActor) -> di
 
 
 @router.post("/{rail_id}/approvals", status_code=201, response_model=Approval,
-             responses=errors(401, 403, 404, 409, 422))
+             responses=errors(400, 401, 403, 404, 409, 422))
 def approve(rail_id: int, body: ApprovalIn, session: SessionDep, actor: Reviewer) -> dict:
     """Approve the rail's current revision, named by its sha256 (never one you authored)."""
     approval = signoff.approve(session=session, actor=actor, rail_id=rail_id, sha256=body.sha256,
@@ -48,7 +48,7 @@ def list_waivers(rail_id: int, session: SessionDep, actor: CurrentActor) -> dict
 
 
 @router.post("/{rail_id}/waivers", status_code=201, response_model=Waiver,
-             responses=errors(401, 403, 404, 409, 422))
+             responses=errors(400, 401, 403, 404, 409, 422))
 def waive(rail_id: int, body: WaiverIn, session: SessionDep, actor: Reviewer) -> dict:
     """Waive a failing or marginal check of the current revision, with a reason."""
     waiver = signoff.waive(session=session, actor=actor, rail_id=rail_id, sha256=body.sha256,
@@ -57,7 +57,7 @@ def waive(rail_id: int, body: WaiverIn, session: SessionDep, actor: Reviewer) ->
 
 
 @router.post("/{rail_id}/waivers/{waiver_id}/carry", status_code=201, response_model=Waiver,
-             responses=errors(401, 403, 404, 409, 422))
+             responses=errors(400, 401, 403, 404, 409, 422))
 def carry_waiver(rail_id: int, waiver_id: int, body: WaiverCarry, session: SessionDep, actor: Reviewer) -> dict:
     """Carry a waiver of an earlier revision to the current one (the check must still fail or be marginal)."""
     waiver = signoff.carry_waiver(session=session, actor=actor, rail_id=rail_id, waiver_id=waiver_id,
@@ -65,7 +65,7 @@ def carry_waiver(rail_id: int, waiver_id: int, body: WaiverCarry, session: Sessi
     return signoff.waiver_dict(waiver, waiver.revision_n)
 
 
-@router.post("/{rail_id}/transitions", response_model=TransitionTaken, responses=errors(401, 403, 404, 409, 422))
+@router.post("/{rail_id}/transitions", response_model=TransitionTaken, responses=errors(400, 401, 403, 404, 409, 422))
 def take_transition(rail_id: int, body: TransitionIn, session: SessionDep, actor: Mover) -> dict:
     """Move the rail along a transition of its team's workflow (the transition names who may)."""
     return signoff.take_transition(session=session, actor=actor, rail_id=rail_id, transition=body.transition,

@@ -26,7 +26,7 @@ def list_teams(session: SessionDep, actor: Admin) -> dict:
     return {"items": [teams.team_dict(session, t) for t in rows], "total": len(rows)}
 
 
-@router.post("", status_code=201, response_model=Team, responses=errors(401, 403, 409, 422))
+@router.post("", status_code=201, response_model=Team, responses=errors(400, 401, 403, 409, 422))
 def create_team(body: TeamIn, session: SessionDep, actor: Admin, response: Response) -> dict:
     team = teams.create_team(session=session, actor=actor, name=body.name)
     response.headers["Location"] = f"/api/v1/teams/{team.id}"
@@ -38,7 +38,7 @@ def get_team(team_id: int, session: SessionDep, actor: Admin) -> dict:
     return teams.team_dict(session, teams.get_team(session=session, actor=actor, team_id=team_id), members=True)
 
 
-@router.post("/{team_id}/members", response_model=Team, responses=errors(401, 403, 404, 422))
+@router.post("/{team_id}/members", response_model=Team, responses=errors(400, 401, 403, 404, 422))
 def add_member(team_id: int, body: MemberIn, session: SessionDep, actor: Admin) -> dict:
     team = teams.add_member(session=session, actor=actor, team_id=team_id, user_id=body.user_id)
     return teams.team_dict(session, team, members=True)
@@ -56,7 +56,7 @@ def get_workflow(team_id: int, session: SessionDep, actor: CurrentActor) -> dict
     return workflows.get_workflow(session=session, actor=actor, team_id=team_id)
 
 
-@router.put("/{team_id}/workflow", response_model=WorkflowReplaced, responses=errors(401, 403, 404, 422))
+@router.put("/{team_id}/workflow", response_model=WorkflowReplaced, responses=errors(400, 401, 403, 404, 422))
 def set_workflow(team_id: int, body: WorkflowIn, session: SessionDep, actor: Admin) -> dict:
     """Replace the team's workflow; rails in states it no longer has go to its initial state."""
     return workflows.set_workflow(session=session, actor=actor, team_id=team_id, definition=body.definition)

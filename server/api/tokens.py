@@ -31,7 +31,7 @@ def list_tokens(session: SessionDep, actor: CurrentActor, user_id: int | None = 
     return {"items": [users.token_dict(t, username) for t in rows], "total": len(rows)}
 
 
-@router.post("", status_code=201, response_model=NewToken, responses=errors(401, 403, 404, 422))
+@router.post("", status_code=201, response_model=NewToken, responses=errors(400, 401, 403, 404, 422))
 def create_token(body: TokenIn, session: SessionDep, actor: CurrentActor, response: Response) -> dict:
     username = _username(session, actor, body.user_id)
     token, clear = users.create_token(session=session, actor=actor, username=username, name=body.name)

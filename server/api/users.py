@@ -26,7 +26,7 @@ def list_users(session: SessionDep, actor: Admin) -> dict:
             "total": len(rows)}
 
 
-@router.post("", status_code=201, response_model=User, responses=errors(401, 403, 409, 422))
+@router.post("", status_code=201, response_model=User, responses=errors(400, 401, 403, 409, 422))
 def create_user(body: UserIn, session: SessionDep, actor: Admin, response: Response) -> dict:
     user = users.create_user(session=session, actor=actor, username=body.username, role=body.role,
                              password=body.password, display_name=body.display_name, teams=body.teams)
@@ -39,7 +39,7 @@ def get_user(user_id: int, session: SessionDep, actor: Admin) -> dict:
     return users.user_dict(users.get_user(session=session, actor=actor, user_id=user_id))
 
 
-@router.patch("/{user_id}", response_model=User, responses=errors(401, 403, 404, 409, 422))
+@router.patch("/{user_id}", response_model=User, responses=errors(400, 401, 403, 404, 409, 422))
 def update_user(user_id: int, body: UserPatch, session: SessionDep, actor: Admin) -> dict:
     user = users.update_user(session=session, actor=actor, user_id=user_id, **body.model_dump(exclude_unset=True))
     return users.user_dict(user)
