@@ -337,3 +337,11 @@ def test_a_key_a_service_renames_fails_the_answer(client, people, monkeypatch):
     monkeypatch.setattr(catalog, "product_dict", renamed)
     with pytest.raises(Exception, match="summary"):
         client.get(f"/api/v1/products/{product['id']}", headers=people.headers("viewer"))
+
+
+def test_a_user_created_with_a_team_named_twice_joins_it_once(client, people):
+    """Found by the schemathesis run: the duplicate membership row answered 500."""
+    r = client.post("/api/v1/users", json={"username": "twice", "role": "viewer", "teams": ["alpha", "delta", "alpha"]},
+                    headers=people.headers("admin"))
+    assert r.status_code == 201, r.text
+    assert r.json()["teams"] == ["alpha", "delta"]
