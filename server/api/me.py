@@ -5,7 +5,6 @@ from __future__ import annotations
 from fastapi import APIRouter, Request
 
 from server.api.common import TypedRoute, errors
-
 from server.auth import CurrentActor
 from server.schemas.responses import Me
 from server.services import users

@@ -7,7 +7,6 @@ from typing import Annotated
 from fastapi import APIRouter, Depends, Response
 
 from server.api.common import TypedRoute, errors
-
 from server.auth import CurrentActor, require
 from server.db import SessionDep
 from server.schemas.accounts import MemberIn, TeamIn

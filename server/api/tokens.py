@@ -6,7 +6,6 @@ from fastapi import APIRouter, Response
 from sqlalchemy.orm import Session
 
 from server.api.common import TypedRoute, errors
-
 from server.auth import CurrentActor
 from server.db import SessionDep
 from server.schemas.accounts import TokenIn
