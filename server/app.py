@@ -27,6 +27,7 @@ from server.db import make_engine, make_sessionmaker, ping
 from server.pages import page_router
 from server.pages.common import login_url
 from server.services import jobs
+from server.schemas.responses import DatabaseHealth, Health
 from server.services.errors import ServiceError, Unauthenticated
 from server.templating import templates
 from server.worker import WorkerPool
@@ -156,14 +157,15 @@ def create_app(settings: Settings | None = None) -> FastAPI:
     app.include_router(api_router)
     app.include_router(page_router)
 
-    @app.get("/healthz", tags=["health"])
+    @app.get("/healthz", tags=["health"], response_model=Health,
+             responses={503: {"model": Health, "description": "The database does not answer (status degraded)"}})
     def healthz() -> JSONResponse:
         """Whether the service and its database answer (no login needed)."""
         problem = ping(engine)
-        body = {"status": "ok" if problem is None else "degraded", "version": __version__,
-                "database": {"reachable": problem is None, "engine": engine.dialect.name,
-                             **({"error": problem} if problem else {})}}
-        return JSONResponse(body, status_code=200 if problem is None else 503)
+        database = DatabaseHealth(reachable=problem is None, engine=engine.dialect.name,
+                                  **({"error": problem} if problem else {}))
+        body = Health(status="ok" if problem is None else "degraded", version=__version__, database=database)
+        return JSONResponse(body.model_dump(exclude_unset=True), status_code=200 if problem is None else 503)
 
     @app.get("/static/vendor/plotly.min.js", include_in_schema=False)
     def plotly_js() -> FileResponse:

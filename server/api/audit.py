@@ -9,18 +9,25 @@ from typing import Annotated
 
 from fastapi import APIRouter, Depends, Response
 
-from server.api.common import PageDep
+from server.api.common import PageDep, TypedRoute, errors
 from server.auth import CurrentActor, require
 from server.db import SessionDep
+from server.schemas.responses import AuditEntry, Page
 from server.services import audit
 from server.services.access import Actor, Permission
 
-router = APIRouter(tags=["audit"])
+router = APIRouter(tags=["audit"], route_class=TypedRoute)
 Admin = Annotated[Actor, Depends(require(Permission.ADMIN))]
 RiskReader = Annotated[Actor, Depends(require(Permission.RISK))]
+CSV_BODY = {200: {"description": "The trail as CSV: one row per entry, before and after as JSON text",
+                  "content": {"text/csv": {"schema": {"type": "string"}}}}}
 
 
-@router.get("/audit")
+class CsvResponse(Response):
+    media_type = "text/csv"
+
+
+@router.get("/audit", response_model=Page[AuditEntry], responses=errors(401, 403, 422))
 def list_entries(session: SessionDep, actor: Admin, page: PageDep, action: str | None = None,
                  object_type: str | None = None, user: str | None = None) -> dict:
     """The whole trail, oldest first, with logins and account changes (admins)."""
@@ -29,22 +36,23 @@ def list_entries(session: SessionDep, actor: Admin, page: PageDep, action: str |
     return page.answer([audit.entry_dict(e) for e in rows], total)
 
 
-@router.get("/products/{product_id}/audit")
+@router.get("/products/{product_id}/audit", response_model=Page[AuditEntry], responses=errors(401, 403, 404, 422))
 def product_entries(product_id: int, session: SessionDep, actor: RiskReader, page: PageDep) -> dict:
     rows, total = audit.product_entries(session=session, actor=actor, product_id=product_id, limit=page.limit,
                                         offset=page.offset)
     return page.answer([audit.entry_dict(e) for e in rows], total)
 
 
-@router.get("/products/{product_id}/audit.csv")
-def product_csv(product_id: int, session: SessionDep, actor: RiskReader) -> Response:
+@router.get("/products/{product_id}/audit.csv", response_class=CsvResponse,
+            responses=CSV_BODY | errors(401, 403, 404, 422, json_success=False))
+def product_csv(product_id: int, session: SessionDep, actor: RiskReader) -> CsvResponse:
     """The product's whole trail as CSV (before and after as JSON text)."""
     filename, text = audit.product_csv(session=session, actor=actor, product_id=product_id)
-    return Response(text, media_type="text/csv; charset=utf-8",
-                    headers={"Content-Disposition": f'attachment; filename="{filename}"'})
+    return CsvResponse(text, media_type="text/csv; charset=utf-8",
+                       headers={"Content-Disposition": f'attachment; filename="{filename}"'})
 
 
-@router.get("/rails/{rail_id}/audit")
+@router.get("/rails/{rail_id}/audit", response_model=Page[AuditEntry], responses=errors(401, 404, 422))
 def rail_entries(rail_id: int, session: SessionDep, actor: CurrentActor, page: PageDep) -> dict:
     """One rail's history: edits, approvals, waivers, transitions."""
     rows, total = audit.rail_entries(session=session, actor=actor, rail_id=rail_id, limit=page.limit,

@@ -1,10 +1,24 @@
-"""Shared pieces of the API routers: pagination and list answers."""
+"""Shared pieces of the API routers: the route class, pagination, and the error answers an operation declares."""
 
 from __future__ import annotations
 
 from typing import Annotated, Any
 
 from fastapi import Depends, Query
+from fastapi.routing import APIRoute
+
+from server.schemas.responses import ErrorResponse
+
+__all__ = ["TypedRoute", "Page", "PageDep", "errors", "ERROR_WORDS"]
+
+
+class TypedRoute(APIRoute):
+    """An API route: its answer is validated against its response model, and keys a service leaves
+    out in some answers (optional in the model) stay out rather than reading as null."""
+
+    def __init__(self, *args: Any, **kwargs: Any) -> None:
+        kwargs["response_model_exclude_unset"] = True
+        super().__init__(*args, **kwargs)
 
 
 class Page:
@@ -18,3 +32,26 @@ class Page:
 
 
 PageDep = Annotated[Page, Depends(Page)]
+
+ERROR_WORDS = {
+    400: "The body cannot be read as JSON",
+    401: "Not logged in: no valid API token or session cookie",
+    403: "Not allowed: the role lacks the permission, or a cookie-authenticated change came without its CSRF token",
+    404: "Not found (another team's object is not found either)",
+    409: "Conflict with what is stored now",
+    422: "The request is not valid; details name each field",
+    428: "The edit does not say which revision it is based on (If-Match or base_revision)",
+}
+
+
+def errors(*statuses: int, json_success: bool = True) -> dict[int | str, dict[str, Any]]:
+    """The ``responses=`` of an operation: each error status it answers, all in the one error shape.
+
+    ``json_success=False``: the operation's success answer is not JSON (a CSV file); FastAPI would
+    document a model under that media type, so its JSON errors are declared by reference instead.
+    """
+    if json_success:
+        return {status: {"model": ErrorResponse, "description": ERROR_WORDS[status]} for status in statuses}
+    schema = {"$ref": f"#/components/schemas/{ErrorResponse.__name__}"}
+    return {status: {"description": ERROR_WORDS[status], "content": {"application/json": {"schema": schema}}}
+            for status in statuses}

@@ -7,20 +7,25 @@ from typing import Annotated, Literal
 from fastapi import APIRouter, Depends, Response
 
 from server.services import jobs
-from server.api.common import PageDep
+from server.api.common import PageDep, TypedRoute, errors
 from server.auth import CurrentActor, require
 from server.db import SessionDep
 from server.models import JobState
 from server.schemas.api import AnalysisRequest, BoardAnalysisRequest
+from server.schemas.responses import ErrorResponse, Job, Page
 from server.schemas.result import StoredResult
 from server.services import results
 from server.services.access import Actor, Permission
 from server.services.errors import NotFound
 from server.services.rails import get_revision
 
-router = APIRouter(tags=["analyses"])
+router = APIRouter(tags=["analyses"], route_class=TypedRoute)
 Analyst = Annotated[Actor, Depends(require(Permission.ANALYZE))]
 State = Literal["queued", "running", "done", "failed", "cancelled"]
+# a stored result for the same revision, engine and options answers at once
+ANSWERED_AT_ONCE = {200: {"model": Job, "description": "A stored result answers at once: the job is done"}}
+NO_RESULT_YET = {404: {"model": ErrorResponse, "description": "No such rail or revision, or no result yet "
+                       "(error.job: the job computing it, if any)"}}
 
 
 def _job_answer(job, response: Response) -> dict:
@@ -29,7 +34,8 @@ def _job_answer(job, response: Response) -> dict:
     return jobs.job_dict(job)
 
 
-@router.post("/rails/{rail_id}/analyses", status_code=202)
+@router.post("/rails/{rail_id}/analyses", status_code=202, response_model=Job,
+             responses=ANSWERED_AT_ONCE | errors(400, 401, 403, 404, 422))
 def analyse_rail(rail_id: int, body: AnalysisRequest, session: SessionDep, actor: Analyst, response: Response) -> dict:
     """Queue an analysis (202); a stored result for the same revision and options answers at once (200)."""
     options = body.model_dump(include={"corners", "monte_carlo", "seed", "distribution"})
@@ -38,7 +44,8 @@ def analyse_rail(rail_id: int, body: AnalysisRequest, session: SessionDep, actor
     return _job_answer(job, response)
 
 
-@router.post("/boards/{board_id}/analyses", status_code=202)
+@router.post("/boards/{board_id}/analyses", status_code=202, response_model=Job,
+             responses=ANSWERED_AT_ONCE | errors(400, 401, 403, 404, 422))
 def analyse_board(board_id: int, body: BoardAnalysisRequest, session: SessionDep, actor: Analyst,
                   response: Response) -> dict:
     """Queue the analysis of every rail of a board as one board job with a child job per rail."""
@@ -47,7 +54,7 @@ def analyse_board(board_id: int, body: BoardAnalysisRequest, session: SessionDep
     return _job_answer(job, response)
 
 
-@router.get("/jobs")
+@router.get("/jobs", response_model=Page[Job], responses=errors(401, 422))
 def list_jobs(session: SessionDep, actor: CurrentActor, page: PageDep, state: State | None = None,
               rail_id: int | None = None, board_id: int | None = None) -> dict:
     rows, total = jobs.list_jobs(session=session, actor=actor, state=state, rail_id=rail_id, board_id=board_id,
@@ -55,18 +62,19 @@ def list_jobs(session: SessionDep, actor: CurrentActor, page: PageDep, state: St
     return page.answer([jobs.job_dict(j) for j in rows], total)
 
 
-@router.get("/jobs/{job_id}")
+@router.get("/jobs/{job_id}", response_model=Job, responses=errors(401, 404, 422))
 def get_job(job_id: int, session: SessionDep, actor: CurrentActor) -> dict:
     return jobs.job_dict(jobs.get_job(session=session, actor=actor, job_id=job_id))
 
 
-@router.delete("/jobs/{job_id}")
+@router.delete("/jobs/{job_id}", response_model=Job, responses=errors(401, 403, 404, 409, 422))
 def cancel_job(job_id: int, session: SessionDep, actor: Analyst) -> dict:
     """Cancel a queued or running job (a board job cancels its unfinished rail jobs)."""
     return jobs.job_dict(jobs.cancel_job(session=session, actor=actor, job_id=job_id))
 
 
-@router.post("/jobs/{job_id}/retry", status_code=202)
+@router.post("/jobs/{job_id}/retry", status_code=202, response_model=Job,
+             responses=errors(401, 403, 404, 409, 422))
 def retry_job(job_id: int, session: SessionDep, actor: Analyst) -> dict:
     return jobs.job_dict(jobs.retry_job(session=session, actor=actor, job_id=job_id))
 
@@ -83,20 +91,22 @@ def _revision_results(session, actor, rail_id: int, n: int | None, kind: str) ->
     return results.result_dict(row, rail_id=rail_id, revision=rev.n)
 
 
-@router.get("/rails/{rail_id}/results/latest", response_model=StoredResult)
+@router.get("/rails/{rail_id}/results/latest", response_model=StoredResult,
+            responses=errors(401, 422) | NO_RESULT_YET)
 def latest_results(rail_id: int, session: SessionDep, actor: CurrentActor,
                    kind: Literal["nominal", "monte_carlo"] = "nominal") -> dict:
     """The newest result of the rail's current revision (nominal+corners, or the newest Monte Carlo run)."""
     return _revision_results(session, actor, rail_id, None, kind)
 
 
-@router.get("/rails/{rail_id}/revisions/{n}/results", response_model=StoredResult)
+@router.get("/rails/{rail_id}/revisions/{n}/results", response_model=StoredResult,
+            responses=errors(401, 422) | NO_RESULT_YET)
 def revision_results(rail_id: int, n: int, session: SessionDep, actor: CurrentActor,
                      kind: Literal["nominal", "monte_carlo"] = "nominal") -> dict:
     return _revision_results(session, actor, rail_id, n, kind)
 
 
-@router.get("/results/{result_id}", response_model=StoredResult)
+@router.get("/results/{result_id}", response_model=StoredResult, responses=errors(401, 404, 422))
 def get_result(result_id: int, session: SessionDep, actor: CurrentActor) -> dict:
     """A stored result by id (the link a finished job gives)."""
     return results.get_result(session=session, actor=actor, result_id=result_id)

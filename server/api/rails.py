@@ -6,14 +6,15 @@ from typing import Annotated, Literal
 
 from fastapi import APIRouter, Depends, Header, Query, Response
 
-from server.api.common import PageDep
+from server.api.common import PageDep, TypedRoute, errors
 from server.auth import CurrentActor, require
 from server.db import SessionDep
 from server.schemas.api import RailCreate, RailSave
+from server.schemas.responses import Page, Rail, RailListItem, RailSaved, Revision, RevisionDiff, RevisionSummary
 from server.services import rail_edits, rails
 from server.services.access import Actor, Permission
 
-router = APIRouter(prefix="/rails", tags=["rails"])
+router = APIRouter(prefix="/rails", tags=["rails"], route_class=TypedRoute)
 Editor = Annotated[Actor, Depends(require(Permission.EDIT))]
 Mode = Literal["hard", "slew", "current_limit", "power_limit"]
 
@@ -22,7 +23,7 @@ def _etag(sha256: str) -> str:
     return f'"{sha256}"'
 
 
-@router.get("")
+@router.get("", response_model=Page[RailListItem], responses=errors(401, 422))
 def list_rails(session: SessionDep, actor: CurrentActor, page: PageDep, product_id: int | None = None,
                board_id: int | None = None, mode: Mode | None = None,
                q: Annotated[str | None, Query(description="text in the rail name")] = None) -> dict:
@@ -31,7 +32,7 @@ def list_rails(session: SessionDep, actor: CurrentActor, page: PageDep, product_
     return page.answer(rails.rail_dicts(session, rows), total)
 
 
-@router.post("", status_code=201)
+@router.post("", status_code=201, response_model=Rail, responses=errors(400, 401, 403, 404, 409, 422))
 def create_rail(body: RailCreate, session: SessionDep, actor: Editor, response: Response) -> dict:
     part = rail_edits.PartRef(body.part.id, body.part.revision) if body.part else None
     rail, rev = rail_edits.create_rail(session=session, actor=actor, board_id=body.board_id,
@@ -41,7 +42,7 @@ def create_rail(body: RailCreate, session: SessionDep, actor: Editor, response: 
     return rails.rail_dict(session, rail, rev)
 
 
-@router.get("/{rail_id}")
+@router.get("/{rail_id}", response_model=Rail, responses=errors(401, 404, 422))
 def get_rail(rail_id: int, session: SessionDep, actor: CurrentActor, response: Response) -> dict:
     rail = rails.get_rail(session=session, actor=actor, rail_id=rail_id)
     head = rails.get_revision(session=session, actor=actor, rail_id=rail_id)
@@ -49,7 +50,7 @@ def get_rail(rail_id: int, session: SessionDep, actor: CurrentActor, response: R
     return rails.rail_dict(session, rail, head)
 
 
-@router.put("/{rail_id}")
+@router.put("/{rail_id}", response_model=RailSaved, responses=errors(400, 401, 403, 404, 409, 422, 428))
 def save_rail(rail_id: int, body: RailSave, session: SessionDep, actor: Editor, response: Response,
               if_match: Annotated[str | None, Header(description="sha256 of the base revision")] = None) -> dict:
     if "part" not in body.model_fields_set:
@@ -66,25 +67,25 @@ def save_rail(rail_id: int, body: RailSave, session: SessionDep, actor: Editor, 
     return out
 
 
-@router.delete("/{rail_id}", status_code=204)
+@router.delete("/{rail_id}", status_code=204, response_class=Response, responses=errors(401, 403, 404, 422))
 def delete_rail(rail_id: int, session: SessionDep, actor: Editor) -> Response:
     rail_edits.delete_rail(session=session, actor=actor, rail_id=rail_id)
     return Response(status_code=204)
 
 
-@router.get("/{rail_id}/revisions")
+@router.get("/{rail_id}/revisions", response_model=Page[RevisionSummary], responses=errors(401, 404, 422))
 def list_revisions(rail_id: int, session: SessionDep, actor: CurrentActor, page: PageDep) -> dict:
     rows, total = rails.list_revisions(session=session, actor=actor, rail_id=rail_id, limit=page.limit,
                                        offset=page.offset)
     return page.answer([rails.revision_dict(r, with_document=False) for r in rows], total)
 
 
-@router.get("/{rail_id}/revisions/{n}")
+@router.get("/{rail_id}/revisions/{n}", response_model=Revision, responses=errors(401, 404, 422))
 def get_revision(rail_id: int, n: int, session: SessionDep, actor: CurrentActor) -> dict:
     return rails.revision_dict(rails.get_revision(session=session, actor=actor, rail_id=rail_id, n=n))
 
 
-@router.get("/{rail_id}/diff")
+@router.get("/{rail_id}/diff", response_model=RevisionDiff, responses=errors(401, 404, 422))
 def diff(rail_id: int, session: SessionDep, actor: CurrentActor,
          from_n: Annotated[int, Query(alias="from", ge=1)], to_n: Annotated[int, Query(alias="to", ge=1)]) -> dict:
     return rails.diff_revisions(session=session, actor=actor, rail_id=rail_id, from_n=from_n, to_n=to_n)

@@ -6,54 +6,56 @@ from typing import Annotated
 
 from fastapi import APIRouter, Depends, Response
 
+from server.api.common import TypedRoute, errors
 from server.auth import CurrentActor, require
 from server.db import SessionDep
 from server.schemas.accounts import MemberIn, TeamIn
+from server.schemas.responses import Listing, Team, TeamSummary, Workflow, WorkflowReplaced
 from server.schemas.signoff import WorkflowIn
 from server.services import teams, workflows
 from server.services.access import Actor, Permission
 
-router = APIRouter(prefix="/teams", tags=["teams"])
+router = APIRouter(prefix="/teams", tags=["teams"], route_class=TypedRoute)
 Admin = Annotated[Actor, Depends(require(Permission.ADMIN))]
 
 
-@router.get("")
+@router.get("", response_model=Listing[TeamSummary], responses=errors(401, 403))
 def list_teams(session: SessionDep, actor: Admin) -> dict:
     rows = teams.list_teams(session=session, actor=actor)
     return {"items": [teams.team_dict(session, t) for t in rows], "total": len(rows)}
 
 
-@router.post("", status_code=201)
+@router.post("", status_code=201, response_model=Team, responses=errors(400, 401, 403, 409, 422))
 def create_team(body: TeamIn, session: SessionDep, actor: Admin, response: Response) -> dict:
     team = teams.create_team(session=session, actor=actor, name=body.name)
     response.headers["Location"] = f"/api/v1/teams/{team.id}"
     return teams.team_dict(session, team, members=True)
 
 
-@router.get("/{team_id}")
+@router.get("/{team_id}", response_model=Team, responses=errors(401, 403, 404, 422))
 def get_team(team_id: int, session: SessionDep, actor: Admin) -> dict:
     return teams.team_dict(session, teams.get_team(session=session, actor=actor, team_id=team_id), members=True)
 
 
-@router.post("/{team_id}/members")
+@router.post("/{team_id}/members", response_model=Team, responses=errors(400, 401, 403, 404, 422))
 def add_member(team_id: int, body: MemberIn, session: SessionDep, actor: Admin) -> dict:
     team = teams.add_member(session=session, actor=actor, team_id=team_id, user_id=body.user_id)
     return teams.team_dict(session, team, members=True)
 
 
-@router.delete("/{team_id}/members/{user_id}")
+@router.delete("/{team_id}/members/{user_id}", response_model=Team, responses=errors(401, 403, 404, 422))
 def remove_member(team_id: int, user_id: int, session: SessionDep, actor: Admin) -> dict:
     team = teams.remove_member(session=session, actor=actor, team_id=team_id, user_id=user_id)
     return teams.team_dict(session, team, members=True)
 
 
-@router.get("/{team_id}/workflow")
+@router.get("/{team_id}/workflow", response_model=Workflow, responses=errors(401, 404, 422))
 def get_workflow(team_id: int, session: SessionDep, actor: CurrentActor) -> dict:
     """The team's sign-off workflow (members of the team and admins)."""
     return workflows.get_workflow(session=session, actor=actor, team_id=team_id)
 
 
-@router.put("/{team_id}/workflow")
+@router.put("/{team_id}/workflow", response_model=WorkflowReplaced, responses=errors(400, 401, 403, 404, 422))
 def set_workflow(team_id: int, body: WorkflowIn, session: SessionDep, actor: Admin) -> dict:
     """Replace the team's workflow; rails in states it no longer has go to its initial state."""
     return workflows.set_workflow(session=session, actor=actor, team_id=team_id, definition=body.definition)

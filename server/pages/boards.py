@@ -12,7 +12,7 @@ from server.services import jobs
 from server.auth import CurrentActor, require
 from server.db import SessionDep
 from server.pages import signoff_view
-from server.pages.display import VERDICT_ORDER, fmt, verdict_style, worst_check
+from server.pages.display import VERDICT_ORDER, check_records, fmt, verdict_style, worst_check
 from server.pages.plots import budget_figure
 from server.pages.rendering import page_context, redirect, render
 from server.services import budget, overview
@@ -29,7 +29,7 @@ def supply_text(supply: dict[str, Any]) -> str:
 
 
 def _row(r: dict[str, Any], so: dict[str, Any]) -> dict[str, Any]:
-    worst = worst_check(r["checks"])
+    worst = worst_check(check_records(r["checks"]))
     return {
         "id": r["id"], "name": r["name"], "mode": r["mode"], "head_n": r["head_n"],
         "supply": supply_text(r["supply"]), "supply_sort": r["supply"].get("v_nom") or 0,

@@ -5,10 +5,12 @@ Provides
 VERDICT_STYLES, verdict_style(verdict)
     Every verdict's word, its CSS class and a shape, kept together in one place: a verdict
     is always shown in words as well as colour.
-check_row(check), check_rows(checks), worst_check(checks), check_text(check)
-    A check record of the analysis as the pages show it. Everything comes from the record
-    (value, limit with its direction, normalised margin, nominal reading, worst case in
-    words) through the same formatters as the command-line report: nothing is recomputed.
+check_records(checks), check_row(check), check_rows(checks), worst_check(checks), check_text(check)
+    A check record of the analysis (:class:`server.schemas.result.CheckRecord`) as the pages
+    show it. Everything comes from the record (value, limit with its direction, normalised
+    margin, nominal reading, worst case in words) through the same formatters as the
+    command-line report: nothing is recomputed. ``check_records`` reads stored check dicts
+    of the current engine into records.
 input_sections(document)
     The rail document as sections of engineering-notation values, titled from
     ``server.analysis.words.FIELD_TITLES``.
@@ -22,10 +24,11 @@ from typing import Any
 
 from server.analysis.report import limit_text, margin_text, value_text
 from server.analysis.words import FIELD_TITLES
+from server.schemas.result import CheckRecord
 from server.units import format_quantity
 
-__all__ = ["VerdictStyle", "VERDICT_STYLES", "VERDICT_ORDER", "verdict_style", "check_row", "check_rows",
-           "worst_check", "check_text", "fmt", "input_sections", "BASIS_TEXT", "UNIT_TEXT"]
+__all__ = ["VerdictStyle", "VERDICT_STYLES", "VERDICT_ORDER", "verdict_style", "check_records", "check_row",
+           "check_rows", "worst_check", "check_text", "fmt", "input_sections", "BASIS_TEXT", "UNIT_TEXT"]
 
 
 @dataclass(frozen=True)
@@ -65,43 +68,45 @@ def verdict_style(verdict: str | None) -> VerdictStyle:
 fmt = format_quantity  # engineering notation of an SI value for display; '-' when there is none
 
 
-def check_row(c: dict[str, Any]) -> dict[str, Any]:
+def check_records(checks: list[dict[str, Any]] | None) -> list[CheckRecord]:
+    """Stored check dicts (of a current-engine result) as typed records; a renamed key fails here."""
+    return [CheckRecord.model_validate(c) for c in checks or []]
+
+
+def check_row(c: CheckRecord) -> dict[str, Any]:
     """One check record as the pages show it (texts from the record, nothing recomputed)."""
-    unit = c.get("unit") or ""
-    nominal = c.get("nominal") or {}
-    margin = c.get("margin")
     return {
-        "id": c["id"], "title": c.get("title", c["id"]), "verdict": c.get("verdict"),
-        "value": value_text(c.get("value"), unit), "limit": limit_text(c),
-        "unit": UNIT_TEXT.get(unit, unit), "margin": margin, "margin_text": margin_text(margin),
-        "basis": c.get("basis", ""), "basis_text": BASIS_TEXT.get(c.get("basis", ""), c.get("basis", "")),
-        "detail": c.get("detail") or "", "corner": c.get("corner"), "found_by": c.get("found_by"),
-        "found_by_text": FOUND_BY_TEXT.get(c.get("found_by") or "", ""),
-        "nominal_value": value_text(nominal.get("value"), unit), "nominal_verdict": nominal.get("verdict"),
+        "id": c.id, "title": c.title, "verdict": c.verdict,
+        "value": value_text(c.value, c.unit), "limit": limit_text(c.model_dump(include={"limit", "direction", "unit"})),
+        "unit": UNIT_TEXT.get(c.unit, c.unit), "margin": c.margin, "margin_text": margin_text(c.margin),
+        "basis": c.basis, "basis_text": BASIS_TEXT.get(c.basis, c.basis),
+        "detail": c.detail, "corner": c.corner, "found_by": c.found_by,
+        "found_by_text": FOUND_BY_TEXT.get(c.found_by or "", ""),
+        "nominal_value": value_text(c.nominal.value, c.unit), "nominal_verdict": c.nominal.verdict,
     }
 
 
-def check_rows(checks: list[dict[str, Any]] | None) -> list[dict[str, Any]]:
+def check_rows(checks: list[CheckRecord]) -> list[dict[str, Any]]:
     """The rows of the checks table, in the analysis' order."""
-    return [check_row(c) for c in checks or []]
+    return [check_row(c) for c in checks]
 
 
-def check_text(c: dict[str, Any]) -> str:
+def check_text(c: CheckRecord) -> str:
     """A check in one line: "title: value (limit ≥ 1.5)"."""
     row = check_row(c)
     return f"{row['title']}: {row['value']} (limit {row['limit']})"
 
 
-def worst_check(checks: list[dict[str, Any]] | None) -> dict[str, Any] | None:
+def worst_check(checks: list[CheckRecord]) -> dict[str, Any] | None:
     """The check to look at first, as a row of the checks table: the worst verdict, then the
     smallest normalised margin of the record."""
-    candidates = [c for c in checks or [] if c.get("verdict") != "n/a"]
+    candidates = [c for c in checks if c.verdict != "n/a"]
     if not candidates:
         return None
 
-    def key(c: dict[str, Any]) -> tuple[int, float]:
-        m = c.get("margin")
-        return (-verdict_style(c.get("verdict")).severity, m if m is not None and math.isfinite(m) else math.inf)
+    def key(c: CheckRecord) -> tuple[int, float]:
+        m = c.margin
+        return (-verdict_style(c.verdict).severity, m if m is not None and math.isfinite(m) else math.inf)
 
     return check_row(min(candidates, key=key))
 

@@ -15,6 +15,7 @@ from server.db import SessionDep
 from server.pages.display import fmt
 from server.pages.plots import soa_overlay_figure, startup_overlay_figure
 from server.pages.rendering import page_context, render
+from server.schemas.result import AnalysisResult
 from server.services import overview, results
 from server.services.access import Actor
 from server.services.rails import diff_revisions, get_rail, get_revision, list_revisions
@@ -61,11 +62,11 @@ def history_context(session: Session, actor: Actor, rail_id: int, from_n: int | 
         if row is None:
             ctx["missing"].append(rev.n)
         else:
-            pairs.append((f"revision {rev.n}", row.result, rev.document))
+            pairs.append((f"revision {rev.n}", AnalysisResult.model_validate(row.result), rev.document))
     if pairs:
         ctx["figures"] = {
             "startup": startup_overlay_figure([(label, res) for label, res, _ in pairs], new.document,
-                                              pairs[-1][1].get("rules") or {}),
+                                              pairs[-1][1].rules),
             "soa": soa_overlay_figure(pairs),
         }
     return ctx

@@ -11,7 +11,7 @@ from sqlalchemy.orm import Session
 from server.auth import CurrentActor
 from server.db import SessionDep
 from server.pages import signoff_view
-from server.pages.display import VERDICT_ORDER, worst_check
+from server.pages.display import VERDICT_ORDER, check_records, worst_check
 from server.pages.rendering import page_context, render
 from server.services import engine_change, overview
 from server.services.access import Actor, Permission
@@ -64,7 +64,7 @@ def product_context(session: Session, actor: Actor, product_id: int) -> dict[str
     for b in data["boards"]:
         b["counts"] = _with_outdated(_ordered_counts(b["by_verdict"]), b["outdated"])
     for a in data["attention"]:
-        a["worst"] = worst_check(a["checks"])
+        a["worst"] = worst_check(check_records(a["checks"]))
     data["counts"] = _with_outdated(_ordered_counts(data["by_verdict"]), data["outdated"])
     data["states"] = sorted(signoff_view.product_states(session, product_id, data["product"].team_id).items())
     return data

@@ -2,6 +2,8 @@
 
 Built here in Python (testable without a browser) and drawn in the page by
 ``web/static/plots.js``. All values are SI; axes show SI prefixes with the unit as suffix.
+The figures of a result read it as the typed :class:`~server.schemas.result.AnalysisResult`
+(rail documents and part documents stay plain dicts).
 
 Provides :func:`startup_figure`, :func:`soa_figure`, :func:`timer_figure`,
 :func:`monte_carlo_figure`, :func:`startup_overlay_figure`, :func:`soa_overlay_figure`,
@@ -17,6 +19,7 @@ import numpy as np
 
 from server.analysis import derated_soa_curves, zth
 from server.pages.display import fmt as format_quantity
+from server.schemas.result import AnalysisResult, MonteCarlo, Waveforms
 
 __all__ = ["PALETTE", "VERDICT_COLOURS", "startup_figure", "soa_figure", "timer_figure", "monte_carlo_figure",
            "startup_overlay_figure", "soa_overlay_figure", "timer_limits", "budget_figure", "part_soa_figure", "zth_figure",
@@ -96,9 +99,9 @@ def _stacked_axes(rows: int, gap: float = 0.05) -> list[list[float]]:
     return [[round(1 - (k + 1) * h - k * gap, 4), round(1 - k * (h + gap), 4)] for k in range(rows)]
 
 
-def _off_intervals(wave: dict[str, Any]) -> list[tuple[float, float]]:
+def _off_intervals(wave: Waveforms) -> list[tuple[float, float]]:
     """Times where the switch is off (the fault timer turned it off), from the waveform's ``on`` signal."""
-    on, t = wave.get("on"), wave.get("t")
+    on, t = wave.on, wave.t
     if not on or not t:
         return []
     out, start = [], None
@@ -113,18 +116,18 @@ def _off_intervals(wave: dict[str, Any]) -> list[tuple[float, float]]:
     return out
 
 
-def startup_figure(result: dict[str, Any], document: dict[str, Any]) -> dict[str, Any] | None:
+def startup_figure(result: AnalysisResult, document: dict[str, Any]) -> dict[str, Any] | None:
     """Output and switch-input voltage, current, FET power and Tj of the nominal start-up (what
     happens, with the fault timer acting) on one shared time axis; switch-off times shaded."""
-    st = result.get("startup") or {}
-    wave = st.get("waveforms")
-    if not wave or not wave.get("t"):
+    st = result.startup
+    wave = st.waveforms
+    if wave is None or not wave.t:
         return None
     title = "Start-up at the nominal point"
-    if st.get("t_trip") is not None:
-        title += f": the fault timer turns the switch off at {format_quantity(st['t_trip'], 's')}"
-        title += " and it retries" if st.get("attempts", 1) > 1 else " (latched)"
-    fig = _startup([(wave, "", PALETTE[0], "solid")], document, result.get("rules") or {}, title)
+    if st.t_trip is not None:
+        title += f": the fault timer turns the switch off at {format_quantity(st.t_trip, 's')}"
+        title += " and it retries" if st.attempts > 1 else " (latched)"
+    fig = _startup([(wave, "", PALETTE[0], "solid")], document, result.rules, title)
     for a, b in _off_intervals(wave):
         fig["layout"]["shapes"].append({"type": "rect", "xref": "x", "x0": a, "x1": b, "yref": "paper", "y0": 0,
                                         "y1": 1, "fillcolor": "rgba(179,38,30,0.08)", "line": {"width": 0},
@@ -136,7 +139,7 @@ def startup_figure(result: dict[str, Any], document: dict[str, Any]) -> dict[str
     return fig
 
 
-def _startup(waves: list[tuple[dict, str, str, str]], document: dict[str, Any], rules: dict[str, Any],
+def _startup(waves: list[tuple[Waveforms, str, str, str]], document: dict[str, Any], rules: dict[str, float],
              title: str) -> dict[str, Any]:
     data, layout = [], _layout(title, height=640, hovermode="x unified", hoversubplots="axis")
     domains = _stacked_axes(len(_ROWS))
@@ -147,11 +150,12 @@ def _startup(waves: list[tuple[dict, str, str, str]], document: dict[str, Any], 
         keys = [key] + (["v_in"] if key == "v_out" else [])
         for wave, suffix, colour, dash in waves:
             for j, signal in enumerate(keys):
-                if not wave.get(signal):
+                values = getattr(wave, signal)
+                if not values:
                     continue
                 single = len(waves) == 1
                 data.append({"type": "scatter", "mode": "lines", "name": _TRACE_NAMES[signal] + suffix,
-                             "x": _r(wave["t"]), "y": _r(wave[signal]), "xaxis": "x", "yaxis": ax,
+                             "x": _r(wave.t), "y": _r(values), "xaxis": "x", "yaxis": ax,
                              "line": {"color": (PALETTE[k] if j == 0 else PALETTE[5]) if single else colour,
                                       "width": 2, "dash": ("dot" if j else dash)},
                              "showlegend": single or (k == 0), "legendgroup": (suffix or key) + signal})
@@ -171,14 +175,14 @@ def _startup(waves: list[tuple[dict, str, str, str]], document: dict[str, Any], 
     return {"data": data, "layout": layout}
 
 
-def startup_overlay_figure(pairs: list[tuple[str, dict[str, Any]]], document: dict[str, Any],
-                           rules: dict[str, Any]) -> dict[str, Any] | None:
+def startup_overlay_figure(pairs: list[tuple[str, AnalysisResult]], document: dict[str, Any],
+                           rules: dict[str, float]) -> dict[str, Any] | None:
     """Start-up waveforms of several revisions overlaid: [(label, result)], newest last."""
     styles = [("dash", PALETTE[4]), ("solid", PALETTE[0])]
     waves = []
     for k, (label, result) in enumerate(pairs):
-        wave = (result.get("startup") or {}).get("waveforms")
-        if wave and wave.get("t"):
+        wave = result.startup.waveforms
+        if wave is not None and wave.t:
             dash, colour = styles[k % 2] if len(pairs) == 2 else ("solid", PALETTE[k % len(PALETTE)])
             waves.append((wave, f" ({label})", colour, dash))
     if not waves:
@@ -199,11 +203,11 @@ def _curve_traces(curves: list[dict[str, Any]], note: str) -> list[dict[str, Any
     return traces
 
 
-def _trajectory(wave: dict[str, Any] | None, v_floor: float) -> tuple[list, list]:
-    if not wave or not wave.get("v_ds"):
+def _trajectory(wave: Waveforms | None, v_floor: float) -> tuple[list, list]:
+    if wave is None or not wave.v_ds:
         return [], []
-    v = np.asarray(wave["v_ds"], dtype=float)
-    i = np.asarray(wave["i"], dtype=float)
+    v = np.asarray(wave.v_ds, dtype=float)
+    i = np.asarray(wave.i, dtype=float)
     keep = (v >= v_floor) & (i > 0)
     return _r(v[keep]), _r(i[keep])
 
@@ -212,44 +216,44 @@ def _derated(document: dict[str, Any]) -> list[dict[str, Any]]:
     return derated_soa_curves(document["fet"], document.get("environment", {}).get("t_ambient", 25.0))
 
 
-def soa_figure(result: dict[str, Any], document: dict[str, Any]) -> dict[str, Any]:
+def soa_figure(result: AnalysisResult, document: dict[str, Any]) -> dict[str, Any]:
     """The SOA curves derated to t_ambient, the start-up trajectory and the short-circuit point."""
     t_amb = document.get("environment", {}).get("t_ambient", 25.0)
     curves = _derated(document)
     v_floor = min(p[0] for c in curves for p in c["points"]) / 10
     data = _curve_traces(curves, "")
-    st = result.get("startup") or {}
-    x, y = _trajectory(st.get("waveforms"), v_floor)
+    st = result.startup
+    x, y = _trajectory(st.waveforms, v_floor)
     if x:
         data.append({"type": "scatter", "mode": "lines+markers", "name": "Start-up trajectory (V_DS, I_D)",
                      "x": x, "y": y, "line": {"color": PALETTE[2], "width": 2.5}, "marker": {"size": 4},
                      "hovertemplate": "%{x:.3s}V, %{y:.3s}A<extra>start-up</extra>"})
     annotations = []
-    if st.get("pulse_v_ds") and st.get("pulse_i"):
+    if st.pulse_v_ds and st.pulse_i:
         data.append({"type": "scatter", "mode": "markers", "name": "Start-up pulse as its equivalent rectangle",
-                     "x": _r([st["pulse_v_ds"]]), "y": _r([st["pulse_i"]]),
+                     "x": _r([st.pulse_v_ds]), "y": _r([st.pulse_i]),
                      "marker": {"symbol": "square", "size": 10, "color": PALETTE[2],
                                 "line": {"color": INK, "width": 1}}})
-    sc = result.get("short_circuit") or {}
-    if sc.get("applies"):
+    sc = result.short_circuit
+    if sc.applies:
         points = [("nominal", sc, "diamond-open")]
-        if sc.get("worst"):
-            points.append(("worst case", sc["worst"], "diamond"))
+        if sc.worst:
+            points.append(("worst case", sc.worst, "diamond"))
         for label, point, symbol in points:
-            if not (point.get("v_ds") and point.get("i")):
+            if not (point.v_ds and point.i):
                 continue
-            allowed = "indefinitely" if point.get("survives_indefinitely") else format_quantity(point.get("t_allow"), "s")
-            trips = format_quantity(point["t_fault"], "s") if point.get("t_fault") else "no timer"
+            allowed = "indefinitely" if point.survives_indefinitely else format_quantity(point.t_allow, "s")
+            trips = format_quantity(point.t_fault, "s") if point.t_fault else "no timer"
             text = f"Short circuit, {label}: the FET survives {allowed}; the timer trips by {trips}"
             data.append({"type": "scatter", "mode": "markers", "name": f"Short circuit ({label})",
-                         "x": _r([point["v_ds"]]), "y": _r([point["i"]]),
+                         "x": _r([point.v_ds]), "y": _r([point.i]),
                          "marker": {"symbol": symbol, "size": 13, "color": VERDICT_COLOURS["fail"],
                                     "line": {"color": INK, "width": 1}},
                          "hovertemplate": text + "<extra></extra>"})
-        if sc.get("worst") and sc["worst"].get("v_ds") and sc["worst"].get("i"):
-            w = sc["worst"]
-            allowed = "indefinitely" if w.get("survives_indefinitely") else format_quantity(w.get("t_allow"), "s")
-            annotations.append({"x": math.log10(w["v_ds"]), "y": math.log10(w["i"]), "xref": "x", "yref": "y",
+        w = sc.worst
+        if w and w.v_ds and w.i:
+            allowed = "indefinitely" if w.survives_indefinitely else format_quantity(w.t_allow, "s")
+            annotations.append({"x": math.log10(w.v_ds), "y": math.log10(w.i), "xref": "x", "yref": "y",
                                 "text": f"Short circuit, worst case: survives {allowed}", "showarrow": True,
                                 "arrowhead": 0, "ax": -40, "ay": -44, "bgcolor": "rgba(255,255,255,0.85)",
                                 "bordercolor": AXIS, "font": {"size": 11}})
@@ -262,7 +266,7 @@ def soa_figure(result: dict[str, Any], document: dict[str, Any]) -> dict[str, An
     return {"data": data, "layout": layout}
 
 
-def soa_overlay_figure(pairs: list[tuple[str, dict[str, Any], dict[str, Any]]]) -> dict[str, Any] | None:
+def soa_overlay_figure(pairs: list[tuple[str, AnalysisResult, dict[str, Any]]]) -> dict[str, Any] | None:
     """Start-up trajectories of several revisions on the newest revision's derated curves.
 
     ``pairs``: [(label, result, document)], newest last.
@@ -274,7 +278,7 @@ def soa_overlay_figure(pairs: list[tuple[str, dict[str, Any], dict[str, Any]]]) 
     v_floor = min(p[0] for c in curves for p in c["points"]) / 10
     data = _curve_traces(curves, f" ({pairs[-1][0]})")
     for k, (label, result, _doc) in enumerate(pairs):
-        x, y = _trajectory((result.get("startup") or {}).get("waveforms"), v_floor)
+        x, y = _trajectory(result.startup.waveforms, v_floor)
         if x:
             last = k == len(pairs) - 1
             data.append({"type": "scatter", "mode": "lines+markers", "name": f"Start-up trajectory ({label})",
@@ -293,16 +297,16 @@ def soa_overlay_figure(pairs: list[tuple[str, dict[str, Any], dict[str, Any]]]) 
 
 # --- fault timer -----------------------------------------------------------------------------
 
-def timer_figure(result: dict[str, Any], document: dict[str, Any]) -> dict[str, Any] | None:
+def timer_figure(result: AnalysisResult, document: dict[str, Any]) -> dict[str, Any] | None:
     """Worst-case time in limit against the fault timer's min..max band, with the E12 suggestion."""
-    tw = result.get("timer")
-    if not tw or not tw.get("t_fault_min"):
+    tw = result.timer
+    if tw is None or not tw.t_fault_min:
         return None
     timer = (document.get("switch") or {}).get("timer") or {}
     rows, data, shapes = [], [], []
-    t_lim = tw.get("t_limit_worst")
-    need_min = tw.get("trip_not_before")
-    allow_max = tw.get("trip_by")
+    t_lim = tw.t_limit_worst
+    need_min = tw.trip_not_before
+    allow_max = tw.trip_by
 
     def band(name: str, lo: float, nom: float | None, hi: float, colour: str) -> None:
         rows.append(name)
@@ -320,15 +324,15 @@ def timer_figure(result: dict[str, Any], document: dict[str, Any]) -> dict[str, 
         rows.append(name)
         data.append({"type": "bar", "orientation": "h", "name": name, "x": _r([t_lim]), "y": [name],
                      "base": 0, "marker": {"color": PALETTE[2]}, "width": 0.35,
-                     "hovertemplate": "%{x:.3s}s<extra>" + (tw.get("t_limit_corner") or "") + "</extra>"})
+                     "hovertemplate": "%{x:.3s}s<extra>" + (tw.t_limit_corner or "") + "</extra>"})
     c = timer.get("c")
-    band(f"Fault timer now (C = {format_quantity(c, 'F')})", tw["t_fault_min"], tw.get("t_fault_nom"),
-         tw["t_fault_max"], PALETTE[0])
-    suggested = tw.get("c_suggested")
+    band(f"Fault timer now (C = {format_quantity(c, 'F')})", tw.t_fault_min, tw.t_fault_nom, tw.t_fault_max,
+         PALETTE[0])
+    suggested = tw.c_suggested
     if suggested and c:
         k = suggested / c
-        band(f"With the suggested E12 value C = {format_quantity(suggested, 'F')}", tw["t_fault_min"] * k,
-             (tw.get("t_fault_nom") or 0) * k or None, tw["t_fault_max"] * k, PALETTE[1])
+        band(f"With the suggested E12 value C = {format_quantity(suggested, 'F')}", tw.t_fault_min * k,
+             (tw.t_fault_nom or 0) * k or None, tw.t_fault_max * k, PALETTE[1])
     if need_min:
         shapes.append(_vline(need_min, VERDICT_COLOURS["marginal"]))
     if allow_max:
@@ -336,9 +340,9 @@ def timer_figure(result: dict[str, Any], document: dict[str, Any]) -> dict[str, 
     if need_min and allow_max and need_min < allow_max:
         shapes.append({"type": "rect", "xref": "x", "x0": need_min, "x1": allow_max, "yref": "paper", "y0": 0,
                        "y1": 1, "fillcolor": "rgba(47,125,79,0.10)", "line": {"width": 0}, "layer": "below"})
-    xs = [v for v in (t_lim, need_min, allow_max, tw["t_fault_min"], tw["t_fault_max"]) if v]
+    xs = [v for v in (t_lim, need_min, allow_max, tw.t_fault_min, tw.t_fault_max) if v]
     if suggested and c:
-        xs += [tw["t_fault_min"] * suggested / c, tw["t_fault_max"] * suggested / c]
+        xs += [tw.t_fault_min * suggested / c, tw.t_fault_max * suggested / c]
     lo, hi = math.log10(min(xs)) - 0.3, math.log10(max(xs)) + 0.3
     layout = _layout("Fault timer window", height=150 + 70 * len(rows),
                      xaxis=_axis("Time", "s", log=True, range=[lo, hi],
@@ -349,27 +353,29 @@ def timer_figure(result: dict[str, Any], document: dict[str, Any]) -> dict[str, 
     return {"data": data, "layout": layout}
 
 
-def timer_limits(result: dict[str, Any]) -> list[str]:
+def timer_limits(result: AnalysisResult) -> list[str]:
     """The two limits the timer window's dashed lines stand for, in words."""
-    tw, rules = result.get("timer") or {}, result.get("rules") or {}
+    tw, rules = result.timer, result.rules
     notes = []
-    if tw.get("trip_not_before") is not None:
-        notes.append(f"The timer must not trip before {format_quantity(tw['trip_not_before'], 's')} (amber line): the "
+    if tw is None:
+        return notes
+    if tw.trip_not_before is not None:
+        notes.append(f"The timer must not trip before {format_quantity(tw.trip_not_before, 's')} (amber line): the "
                      f"team's timer margin {rules.get('timer_margin', 1.5):g} \u00d7 the worst-case time in regulation "
-                     f"{format_quantity(tw['t_limit_worst'], 's')} ({tw.get('t_limit_corner')}).")
-    if tw.get("trip_by") is not None:
-        notes.append(f"It must trip by {format_quantity(tw['trip_by'], 's')} (red line): the FET survives the worst-case "
-                     f"short circuit for {format_quantity(tw['t_allow_worst'], 's')}, over the team's fault margin "
+                     f"{format_quantity(tw.t_limit_worst, 's')} ({tw.t_limit_corner}).")
+    if tw.trip_by is not None:
+        notes.append(f"It must trip by {format_quantity(tw.trip_by, 's')} (red line): the FET survives the worst-case "
+                     f"short circuit for {format_quantity(tw.t_allow_worst, 's')}, over the team's fault margin "
                      f"{rules.get('fault_margin', 1.5):g}.")
     return notes
 
 
 # --- Monte Carlo -----------------------------------------------------------------------------
 
-def monte_carlo_figure(mc: dict[str, Any]) -> dict[str, Any] | None:
+def monte_carlo_figure(mc: MonteCarlo) -> dict[str, Any] | None:
     """Histograms of every check's normalised margin over the samples, with lines at the team
     limit (1.0) and at the physical edge; a grid of small plots."""
-    checks = {cid: m for cid, m in (mc.get("checks") or {}).items() if m.get("histogram")}
+    checks = {cid: m for cid, m in mc.checks.items() if m.histogram}
     if not checks:
         return None
     ids = list(checks)
@@ -378,7 +384,7 @@ def monte_carlo_figure(mc: dict[str, Any]) -> dict[str, Any] | None:
     gap_x, gap_y = 0.12, 0.6 / max(rows, 1) * 0.45
     w = (1 - gap_x * (cols - 1)) / cols
     h = (1 - gap_y * (rows - 1)) / rows
-    data, layout = [], _layout(f"Monte Carlo: {mc.get('n')} samples, {mc.get('yield', 0) * 100:.1f} % pass every "
+    data, layout = [], _layout(f"Monte Carlo: {mc.n} samples, {mc.yield_ * 100:.1f} % pass every "
                                "check", height=120 + 250 * rows, showlegend=False, hovermode="closest", bargap=0.02)
     shapes, annotations = [], []
     for k, cid in enumerate(ids):
@@ -387,21 +393,21 @@ def monte_carlo_figure(mc: dict[str, Any]) -> dict[str, Any] | None:
         n = "" if k == 0 else str(k + 1)
         xd = [round(c * (w + gap_x), 4), round(c * (w + gap_x) + w, 4)]
         yd = [round(1 - (r + 1) * h - r * gap_y, 4), round(1 - r * (h + gap_y), 4)]
-        hist = m["histogram"]
-        edges, counts = hist["edges"], hist["counts"]
+        hist = m.histogram
+        edges, counts = hist.edges, hist.counts
         centres = [(a + b) / 2 for a, b in zip(edges[:-1], edges[1:])]
         data.append({"type": "bar", "x": _r(centres), "y": counts, "width": (edges[1] - edges[0]) if len(edges) > 1
                      else None, "xaxis": f"x{n}", "yaxis": f"y{n}", "marker": {"color": PALETTE[0]},
-                     "name": m["title"], "hovertemplate": "margin %{x:.3g}: %{y} samples<extra></extra>"})
+                     "name": m.title, "hovertemplate": "margin %{x:.3g}: %{y} samples<extra></extra>"})
         layout[f"xaxis{n}"] = _axis("Margin (1 = team limit)", "", domain=xd, anchor=f"y{n}", tickformat=".3~g")
         layout[f"yaxis{n}"] = _axis("Samples", "", domain=yd, anchor=f"x{n}", rangemode="tozero")
         annotations.append({"xref": f"x{n} domain", "yref": f"y{n} domain", "x": 0, "y": 1.03, "xanchor": "left",
                             "yanchor": "bottom", "showarrow": False, "font": {"size": 11},
-                            "text": (f"{m['title']}<br>fails in {m['fail_share'] * 100:.1f} %, marginal in "
-                                     f"{m['marginal_share'] * 100:.1f} % of {hist['total']}")})
+                            "text": (f"{m.title}<br>fails in {m.fail_share * 100:.1f} %, marginal in "
+                                     f"{m.marginal_share * 100:.1f} % of {hist.total}")})
         lo, hi = edges[0], edges[-1]
         for x, colour, dash in ((1.0, VERDICT_COLOURS["marginal"], "dash"),
-                                (m.get("margin_edge"), VERDICT_COLOURS["fail"], "dot")):
+                                (m.margin_edge, VERDICT_COLOURS["fail"], "dot")):
             if x is not None and lo <= x <= hi:
                 shapes.append({"type": "line", "xref": f"x{n}", "x0": x, "x1": x, "yref": f"y{n} domain", "y0": 0,
                                "y1": 1, "line": {"color": colour, "width": 2, "dash": dash}})

@@ -1,4 +1,10 @@
-"""The rail page: inputs, checks, headroom, the plots, Monte Carlo; and queueing its analyses."""
+"""The rail page: inputs, checks, headroom, the plots, Monte Carlo; and queueing its analyses.
+
+The page reads the stored result of the head revision through the typed
+:class:`~server.schemas.result.AnalysisResult`. A result of another engine version is not
+read as one: it stays a plain dict, and the page shows it as outdated (the sign-off
+context's ``outdated``, ``partials/outdated.html``; for Monte Carlo, a notice).
+"""
 
 from __future__ import annotations
 
@@ -8,6 +14,7 @@ from fastapi import APIRouter, Depends, Request
 from fastapi.responses import HTMLResponse, RedirectResponse
 from sqlalchemy.orm import Session
 
+from server import models
 from server.services import jobs
 from server.auth import CurrentActor, require
 from server.db import SessionDep
@@ -16,6 +23,7 @@ from server.analysis.report import margin_text, value_text
 from server.pages.display import check_rows, input_sections, worst_check
 from server.pages.plots import monte_carlo_figure, soa_figure, startup_figure, timer_figure, timer_limits
 from server.pages.rendering import FormDep, form_dict, page_context, redirect, render
+from server.schemas.result import AnalysisResult, MonteCarlo
 from server.services import overview, results
 from server.services.access import Actor, Permission
 from server.services.errors import Invalid
@@ -29,52 +37,55 @@ MC_PARAMETERS = {"v_s": "Supply voltage", "c": "Load capacitance", "i_limit": "C
                  "timer_c": "Timer capacitor", "i_charge": "Timer charge current", "v_trip": "Timer trip voltage"}
 
 
-def _key_figures(result: dict[str, Any]) -> list[dict[str, Any]]:
+def _key_figures(result: AnalysisResult) -> list[dict[str, Any]]:
     """The key figures, nominal and worst case side by side, as the record holds them."""
-    rows = []
-    for f in result.get("figures") or []:
-        unit = f.get("unit", "")
-        rows.append({"title": f["title"], "nominal": value_text(f.get("nominal"), unit),
-                     "worst": value_text(f.get("worst"), unit) if f.get("worst") is not None else "-",
-                     "corner": f.get("corner") or "", "found_by": f.get("found_by")})
-    return rows
+    return [{"title": f.title, "nominal": value_text(f.nominal, f.unit),
+             "worst": value_text(f.worst, f.unit) if f.worst is not None else "-",
+             "corner": f.corner or "", "found_by": f.found_by} for f in result.figures]
 
 
-def _headroom(result: dict[str, Any]) -> list[dict[str, Any]]:
+def _headroom(result: AnalysisResult) -> list[dict[str, Any]]:
     out = []
-    for key in ("c_max", "limit_max"):
-        h = (result.get("headroom") or {}).get(key)
-        if h:
-            value = value_text(h.get("value"), h.get("unit", "")) if h.get("value") is not None else None
-            out.append({"title": h["title"], "value": value, "note": h.get("note") or "", "status": h.get("status")})
+    for h in (result.headroom.c_max, result.headroom.limit_max):
+        value = value_text(h.value, h.unit) if h.value is not None else None
+        out.append({"title": h.title, "value": value, "note": h.note, "status": h.status})
     return out
+
+
+def _monte_carlo_row(session: Session, sha256: str) -> models.AnalysisResult | None:
+    """The newest Monte Carlo run of a revision at the current engine, else its newest of another engine."""
+    return (results.latest_result(session, sha256=sha256, monte_carlo=True)
+            or results.latest_result(session, sha256=sha256, monte_carlo=True, current_engine_only=False))
 
 
 def _mc_context(mc_row) -> dict[str, Any] | None:
     if mc_row is None:
         return None
-    mc = mc_row.result.get("monte_carlo") or {}
-    if "checks" not in mc:  # a run of an older engine version, in the shape of its time
-        return {"outdated": True, "n": mc.get("n"), "engine_version": mc_row.engine_version,
+    if mc_row.engine_version != results.engine_version():  # a run of an older engine, in the shape of its time
+        return {"outdated": True, "n": mc_row.options.get("monte_carlo"), "engine_version": mc_row.engine_version,
                 "created_at": mc_row.created_at}
-    lo, hi = (mc.get("yield_ci95") or [None, None])[:2]
-    rows = [{"title": m["title"], "applies": m["applies"], "fail": m["fail_share"], "marginal": m["marginal_share"],
-             "lowest": margin_text((m.get("margin") or {}).get("min")),
-             "median": margin_text((m.get("margin") or {}).get("p50")),
-             "worst_case": margin_text(m.get("worst_case_margin")), "beaten": m.get("beaten")}
-            for m in (mc.get("checks") or {}).values() if m.get("applies")]
-    return {"outdated": False, "n": mc.get("n"), "seed": mc.get("seed"), "distributions": mc.get("distributions"),
-            "yield": mc.get("yield"), "lo": lo, "hi": hi, "yield_no_fail": mc.get("yield_no_fail"),
+    mc: MonteCarlo | None = AnalysisResult.model_validate(mc_row.result).monte_carlo
+    if mc is None:
+        return None
+    lo, hi = mc.yield_ci95[:2]
+    rows = [{"title": m.title, "applies": m.applies, "fail": m.fail_share, "marginal": m.marginal_share,
+             "lowest": margin_text(m.margin.min if m.margin else None),
+             "median": margin_text(m.margin.p50 if m.margin else None),
+             "worst_case": margin_text(m.worst_case_margin), "beaten": m.beaten}
+            for m in mc.checks.values() if m.applies]
+    return {"outdated": False, "n": mc.n, "seed": mc.seed, "distributions": mc.distributions,
+            "yield": mc.yield_, "lo": lo, "hi": hi, "yield_no_fail": mc.yield_no_fail,
             "created_at": mc_row.created_at, "figure": monte_carlo_figure(mc), "rows": rows,
-            "flags": mc.get("flags") or [], "flag_tolerance": mc.get("flag_tolerance")}
+            "flags": mc.flags, "flag_tolerance": mc.flag_tolerance}
 
 
 def rail_context(session: Session, actor: Actor, rail_id: int) -> dict[str, Any]:
     rail = get_rail(session=session, actor=actor, rail_id=rail_id)
     head = get_revision(session=session, actor=actor, rail_id=rail_id)
     doc = head.document
-    row = results.latest_result(session, sha256=head.sha256)
-    result = row.result if row else None
+    now = results.reading(session, sha256=head.sha256)
+    row = now.row if now is not None and not now.outdated else None  # outdated: signoff["outdated"] shows it
+    result = AnalysisResult.model_validate(row.result) if row is not None else None
     signoff = signoff_view.rail_signoff(session, actor, rail.id)
     waivers = signoff_view.waivers_by_check(signoff)
     ctx: dict[str, Any] = {
@@ -88,15 +99,15 @@ def rail_context(session: Session, actor: Actor, rail_id: int) -> dict[str, Any]
         "mc_samples": MC_SAMPLES, "mc_parameters": MC_PARAMETERS, "figures": {}, "checks": [], "worst": None,
     }
     if result is not None:
-        ctx["checks"] = check_rows(result.get("checks", []))
-        ctx["worst"] = worst_check(result.get("checks", []))
+        ctx["checks"] = check_rows(result.checks)
+        ctx["worst"] = worst_check(result.checks)
         ctx["key_figures"] = _key_figures(result)
         ctx["headroom"] = _headroom(result)
         ctx["figures"] = {"startup": startup_figure(result, doc), "soa": soa_figure(result, doc),
                           "timer": timer_figure(result, doc)}
-        ctx["timer"] = result.get("timer")
+        ctx["timer"] = result.timer
         ctx["timer_limits"] = timer_limits(result)
-    ctx["mc"] = _mc_context(results.latest_result(session, sha256=head.sha256, monte_carlo=True))
+    ctx["mc"] = _mc_context(_monte_carlo_row(session, head.sha256))
     return ctx
 
 

@@ -12,6 +12,7 @@ from server.auth import require
 from server.db import SessionDep
 from server.pages.display import check_row, check_text
 from server.pages.rendering import page_context, render
+from server.schemas.responses import RiskCheck
 from server.services import risks
 from server.services.access import Actor, Permission
 from server.services.catalog import list_products
@@ -48,8 +49,9 @@ def product_risks_context(session: Session, actor: Actor, product_id: int) -> di
         for r in board["rails"]:
             r["risk_words"] = [RISK_WORDS.get(k, k) for k in r["risks"]]
             for c in r["failing"] + r["marginal"] + r["waived"]:
-                c["text"] = check_text(c)
-                c["row"] = check_row(c)
+                record = RiskCheck.model_validate(c)
+                c["text"] = check_text(record)
+                c["row"] = check_row(record)
         board["at_risk"] = [r for r in board["rails"] if r["risks"]]
     data["totals_list"] = [(label, data["totals"].get(key, 0)) for key, label in TOTALS]
     return data

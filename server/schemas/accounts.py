@@ -4,7 +4,7 @@ from __future__ import annotations
 
 from typing import Literal
 
-from pydantic import BaseModel, ConfigDict, Field
+from pydantic import BaseModel, ConfigDict, Field, field_validator
 
 RoleName = Literal["viewer", "designer", "reviewer", "manager", "admin"]
 
@@ -18,7 +18,13 @@ class UserIn(_Body):
     role: RoleName
     display_name: str = Field("", max_length=200)
     password: str | None = Field(None, min_length=8, max_length=1024, description="omit for a token-only account")
-    teams: list[str] = Field(default_factory=list, description="team names (created when new)")
+    teams: list[str] = Field(default_factory=list, description="team names (created when new); a name given "
+                             "twice counts once")
+
+    @field_validator("teams")
+    @classmethod
+    def _each_team_once(cls, names: list[str]) -> list[str]:
+        return list(dict.fromkeys(names))
 
 
 class UserPatch(_Body):

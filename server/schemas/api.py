@@ -1,4 +1,4 @@
-"""Request bodies of the REST API (answers are plain dicts built by the services)."""
+"""Request bodies of the REST API (its answers are the models of server.schemas.responses)."""
 
 from __future__ import annotations
 

@@ -15,7 +15,7 @@ from __future__ import annotations
 
 from typing import Annotated, Any, Literal, Union
 
-from pydantic import BaseModel, ConfigDict, Field
+from pydantic import BaseModel, ConfigDict, Field, ValidationError, model_validator
 
 __all__ = ["Verdict", "CheckRecord", "NominalReading", "Point", "KeyFigure", "Waveforms", "StartupSection",
            "ShortCircuitSection", "TimerSection", "RetrySection", "SteadySection", "HeadroomFigure", "Headroom",
@@ -345,3 +345,13 @@ class StoredResult(_Model):
     created_at: str
     current_engine: bool = Field(description="false: computed by an older engine version (outdated)")
     result: Annotated[Union[AnalysisResult, LegacyResult], Field(union_mode="left_to_right")] | None = None
+
+    @model_validator(mode="after")
+    def _current_engine_reads_as_analysis_result(self) -> "StoredResult":
+        """A result of the current engine never passes as a legacy one: a key the engine renamed fails here."""
+        if self.current_engine and isinstance(self.result, LegacyResult):
+            try:
+                AnalysisResult.model_validate(self.result.model_dump())
+            except ValidationError as exc:
+                raise ValueError(f"a result of the current engine that is no AnalysisResult: {exc}") from None
+        return self

@@ -9,9 +9,10 @@ from server.pages.history import history_context
 from server.pages.home import home_context, product_context
 from server.pages.parts import part_context, parts_context
 from server.pages.rails import rail_context
-from server.services import rail_edits
+from server.schemas.result import AnalysisResult
+from server.services import rail_edits, rails, results
 from tests.factories import rail_doc
-from tests.pages.helpers import actor_of, analyse_now, seed_board
+from tests.pages.helpers import actor_of, analyse_now, log_in, seed_board
 
 
 @pytest.fixture
@@ -66,8 +67,9 @@ def test_board_context_rows_filters_and_budget(seeded, session_factory):
 def test_rail_context_has_checks_headroom_and_every_plot(seeded, session_factory):
     with session_factory() as s:
         ctx = rail_context(s, actor_of(s, "viewer"), seeded["rail_ids"][0])
-    assert ctx["result"]["verdict"] in ("pass", "marginal", "fail")
-    assert len(ctx["checks"]) == len(ctx["result"]["checks"]) > 5
+    assert isinstance(ctx["result"], AnalysisResult)  # the page reads the typed result
+    assert ctx["result"].verdict in ("pass", "marginal", "fail")
+    assert len(ctx["checks"]) == len(ctx["result"].checks) > 5
     bases = {c["basis_text"] for c in ctx["checks"]}
     assert "common practice, not a standard" in bases
     assert any(h["title"].startswith("Largest load capacitance") and h["note"] for h in ctx["headroom"])
@@ -134,3 +136,27 @@ def test_part_contexts_show_curves_stages_and_users(seeded, session_factory):
     assert sorted(u["rail_name"] for u in ctx["usage"]) == ["RAIL_0", "RAIL_1", "RAIL_2"]
     assert all(u["newest"] and u["board"] == "Tideline buoy / Power rev C" for u in ctx["usage"])
     assert len(ctx["figures"]["soa"]["data"]) == 4 and ctx["figures"]["zth"]["data"][0]["y"]
+
+
+def test_rail_page_keeps_results_of_an_older_engine_as_outdated_dicts(seeded, session_factory, client, app, people):
+    """A result of another engine version is never read as the typed result: the page shows it as outdated,
+    its Monte Carlo run too."""
+    rail_id = seeded["rail_ids"][2]
+    # the shape of an older engine's result (invented): not what AnalysisResult reads
+    old = {"engine_version": "1.1.0", "verdict": "marginal", "checks": [{"id": "startup_soa", "verdict": "marginal"}]}
+    with session_factory() as s:
+        head = rails.get_revision(session=s, actor=actor_of(s, "viewer"), rail_id=rail_id)
+        results.store_result(s, sha256=head.sha256, options=results.NOMINAL_OPTIONS, result=old, duration_s=0.1,
+                             version="1.1.0")
+        results.store_result(s, sha256=head.sha256, options={**results.NOMINAL_OPTIONS, "monte_carlo": 1000},
+                             result={**old, "monte_carlo": {"n": 1000, "yield": 0.97}}, duration_s=0.1,
+                             version="1.1.0")
+        s.commit()
+        ctx = rail_context(s, actor_of(s, "viewer"), rail_id)
+    assert ctx["result"] is None and ctx["figures"] == {} and ctx["checks"] == []
+    assert ctx["signoff"]["outdated"]["engine_version"] == "1.1.0"
+    assert ctx["mc"]["outdated"] is True and (ctx["mc"]["n"], ctx["mc"]["engine_version"]) == (1000, "1.1.0")
+    log_in(client, app, people.ids["viewer"])
+    html = client.get(f"/rails/{rail_id}").text
+    assert 'id="outdated-result"' in html and "checks-table" not in html
+    assert "The newest Monte Carlo run (1000 samples) was computed by engine 1.1.0" in html
