@@ -9,6 +9,10 @@ foster_arrays(stages)
 foster_advance(theta, p0, p1, dt, r, tau), foster_advance_floats(...)
     Exact update of the stage temperature rises over a step with linear power (rows of
     arrays; one row of floats).
+foster_rate(theta, p, r, tau), foster_rate_floats(...)
+    Rate of change of the junction rise, K/s.
+foster_peak(theta, p0, p1, dt, r, tau), foster_peak_floats(...)
+    Largest junction rise inside a step with linear power, and where it lies.
 time_to_rise(r, tau, power, rise)
     Time for a constant power to raise the junction by ``rise`` (vectorised).
 rds_at(rds_on, alpha, tj)
@@ -19,7 +23,10 @@ Method
 Foster stage i obeys tau_i dT_i/dt + T_i = r_i P(t) and the junction rise is the sum of
 the stage rises (superposition of a linear time-invariant network). With P(t) linear over
 a step the first-order equation has the closed form used by `foster_advance`, so the
-update is exact for any step length however stiff the stage. References: the closed
+update is exact for any step length however stiff the stage, and so is the junction rise
+at any instant inside the step: `foster_peak` finds its interior maximum from that closed
+form (a root of its derivative, a sum of exponentials, by Newton's method kept inside the
+bracket; W. H. Press et al., "Numerical Recipes", section 9.4). References: the closed
 form of a linear first-order equation, W. E. Boyce and R. C. DiPrima, "Elementary
 Differential Equations", chapter 2; the lumped first-order thermal response, J. H.
 Lienhard, "A Heat Transfer Textbook", section 1.3 / 5.2. The Foster form of Zth is the
@@ -34,7 +41,8 @@ from typing import Iterable
 
 import numpy as np
 
-__all__ = ["zth", "foster_arrays", "foster_advance", "foster_advance_floats", "time_to_rise", "rds_at"]
+__all__ = ["zth", "foster_arrays", "foster_advance", "foster_advance_floats", "foster_rate", "foster_rate_floats",
+           "foster_peak", "foster_peak_floats", "time_to_rise", "rds_at"]
 
 
 def foster_arrays(stages: Iterable) -> tuple[np.ndarray, np.ndarray]:
@@ -129,6 +137,125 @@ def foster_advance_floats(theta, p0: float, p1: float, dt: float, r, tau) -> lis
         e1 = -math.expm1(-x)
         out.append(th - e1 * th + ri * (p0 * e1 + dp * (1.0 - e1 / x)))
     return out
+
+
+def foster_rate(theta, p, r, tau) -> np.ndarray:
+    """Rate of change of the junction rise at power ``p`` (rows of arrays).
+
+    Parameters
+    ----------
+    theta : ndarray, shape (n, k)
+        Stage temperature rises, K.
+    p : ndarray, shape (n,)
+        Power at that instant, W.
+    r, tau : ndarray, shape (k,)
+        Stage resistances (K/W) and time constants (s).
+
+    Returns
+    -------
+    ndarray, shape (n,)
+        d(sum of rises)/dt = sum (r_i p - T_i) / tau_i, K/s.
+    """
+    return np.add.reduce((r * p[:, None] - theta) / tau, axis=1)
+
+
+def foster_rate_floats(theta, p: float, r, tau) -> float:
+    """`foster_rate` for one row on Python floats."""
+    out = 0.0
+    for th, ri, ti in zip(theta, r, tau):
+        out += (ri * p - th) / ti
+    return out
+
+
+_PEAK_ITERATIONS = 10
+
+
+def foster_peak(theta, p0, p1, dt, r, tau) -> tuple[np.ndarray, np.ndarray]:
+    """Largest junction rise inside a step whose rise increases at its start and
+    decreases at its end (rows of arrays).
+
+    Parameters
+    ----------
+    theta : ndarray, shape (m, k)
+        Stage rises at the start of the step, K.
+    p0, p1 : ndarray, shape (m,)
+        Power at the start and the end of the step (linear in between), W.
+    dt : ndarray, shape (m,)
+        Step length, s.
+    r, tau : ndarray, shape (k,)
+        Stage resistances (K/W) and time constants (s).
+
+    Returns
+    -------
+    rise : ndarray, shape (m,)
+        Largest junction rise found inside the step, K.
+    s : ndarray, shape (m,)
+        Its time after the start of the step, s.
+
+    Notes
+    -----
+    With P(s) = p0 + q s, q = (p1 - p0) / dt, stage i follows (closed form of
+    tau dT/dt + T = r P, Boyce and DiPrima, chapter 2)
+
+        T_i(s) = r_i (p0 - q tau_i) + r_i q s + D_i exp(-s / tau_i),
+        D_i = T_i(0) - r_i (p0 - q tau_i).
+
+    The rise's derivative sum_i (r_i q - D_i / tau_i exp(-s / tau_i)) changes sign inside
+    the step; its root is found by Newton's method from the regula falsi point, with a
+    bisection wherever Newton's step would leave the bracket (Press et al., section 9.4).
+    """
+    q = (p1 - p0) / dt
+    base = r * (p0[:, None] - q[:, None] * tau)  # (m, k)
+    d = theta - base
+    rq = np.add.reduce(r * q[:, None] * np.ones_like(theta), axis=1)
+    lo, hi = np.zeros_like(dt), dt.copy()
+    f_lo = rq - np.add.reduce(d / tau, axis=1)
+    f_hi = rq - np.add.reduce(d / tau * np.exp(-hi[:, None] / tau), axis=1)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        x = lo + (hi - lo) * np.clip(f_lo / np.where(f_lo > f_hi, f_lo - f_hi, 1.0), 0.0, 1.0)
+        for _ in range(_PEAK_ITERATIONS):
+            e = d / tau * np.exp(-x[:, None] / tau)
+            f = rq - np.add.reduce(e, axis=1)
+            fp = np.add.reduce(e / tau, axis=1)
+            up = f > 0.0
+            lo = np.where(up, x, lo)
+            hi = np.where(up, hi, x)
+            xn = x - f / fp
+            x = np.where((fp != 0.0) & (xn > lo) & (xn < hi), xn, 0.5 * (lo + hi))
+    rise = np.add.reduce(base + r * q[:, None] * x[:, None] + d * np.exp(-x[:, None] / tau), axis=1)
+    return rise, x
+
+
+def foster_peak_floats(theta, p0: float, p1: float, dt: float, r, tau) -> tuple[float, float]:
+    """`foster_peak` for one row on Python floats."""
+    q = (p1 - p0) / dt
+    base = [ri * (p0 - q * ti) for ri, ti in zip(r, tau)]
+    d = [th - b for th, b in zip(theta, base)]
+    rq = q * sum(r)
+
+    def deriv(x):
+        f, fp = rq, 0.0
+        for di, ti in zip(d, tau):
+            e = di / ti * math.exp(-x / ti)
+            f -= e
+            fp += e / ti
+        return f, fp
+
+    lo, hi = 0.0, dt
+    f_lo, f_hi = deriv(lo)[0], deriv(hi)[0]
+    x = lo + (hi - lo) * min(max(f_lo / (f_lo - f_hi), 0.0), 1.0) if f_lo > f_hi else 0.5 * dt
+    for _ in range(_PEAK_ITERATIONS):
+        f, fp = deriv(x)
+        if f > 0.0:
+            lo = x
+        else:
+            hi = x
+        xn = x - f / fp if fp != 0.0 else lo - 1.0
+        x = xn if lo < xn < hi else 0.5 * (lo + hi)
+    rise = 0.0
+    for b, di, ri, ti in zip(base, d, r, tau):
+        rise += b + ri * q * x + di * math.exp(-x / ti)
+    return rise, x
 
 
 _GRID = np.linspace(math.log(1e-12), math.log(1e6), 97)  # ln t of the bracketing grid
