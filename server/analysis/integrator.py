@@ -107,8 +107,8 @@ from dataclasses import replace
 import numpy as np
 
 from .circuit import NO_LIMIT, R_OFF, Circuit
-from .thermal import (foster_advance, foster_advance_floats, foster_peak, foster_peak_floats, foster_rate,
-                      foster_rate_floats)
+from .thermal import (foster_peak, foster_peak_floats, foster_rate, foster_rate_floats, foster_step,
+                      foster_step_floats)
 
 __all__ = ["RTOL", "SETTLE_BAND", "STOP_BAND", "TJ_RTOL", "TJ_STEP", "RETRY_ATTEMPTS", "TJ_RUNAWAY_K",
            "OUTCOME_RUNNING", "OUTCOME_COMPLETE", "OUTCOME_OFF", "OUTCOME_RUNAWAY", "integrate"]
@@ -151,13 +151,13 @@ class _ArrayOps:
 
     @staticmethod
     def any(m) -> bool:
-        return bool(np.any(m))
+        return bool(m.any()) if isinstance(m, np.ndarray) else bool(m)
 
     @staticmethod
     def not_(m):
         return ~m
 
-    foster = staticmethod(foster_advance)
+    foster = staticmethod(foster_step)
     rate = staticmethod(foster_rate)
 
     @staticmethod
@@ -181,7 +181,7 @@ class _FloatOps:
     any = staticmethod(bool)
     not_ = staticmethod(operator.not_)
 
-    foster = staticmethod(foster_advance_floats)
+    foster = staticmethod(foster_step_floats)
     rate = staticmethod(foster_rate_floats)
 
     @staticmethod
@@ -368,6 +368,8 @@ class _Model:
             den_l = 1.0 - s * (ai - avw * m21)
             if self.regulates:
                 weak = den_l < 0.1
+                if sw_on is not None:  # an off switch regulates nothing
+                    weak = weak & sw_on
                 st.bad = weak if st.bad is None else (st.bad | weak)
                 den_l = B.where(weak, 1.0, den_l)
             i_lim = (q + s * (a0 + avw * b2)) / den_l
@@ -490,7 +492,7 @@ def _initial(model: _Model, t_est, i_typ, rows, active, t_amb: float) -> _State:
     vals = {
         "il": zero, "vc": zero, "vout": zero, "vin": np.array(cz.v_s, dtype=float), "i": zero, "ic": zero,
         "fi": zero, "fin": zero, "p": zero, "exc": -np.ones(n), "lim": np.zeros(n, bool),
-        "tj": np.full(n, t_amb), "r_on": r_on0, "tjr": zero, "dtj": zero,
+        "tj": np.full(n, t_amb), "r_on": r_on0, "r_rate": zero, "dtj": zero,
         "t": zero, "h": 1e-7 * t_est, "grow": np.full(n, 8.0), "phase": np.zeros(n, np.int8), "h_back": zero,
         "t_hi": zero, "h_cut": zero, "aimed": np.zeros(n, bool), "h_evt": 1e-4 * t_est, "t_est": t_est,
         "atol_i": 1e-6 * i_typ, "i_scale": i_typ, "atol_v": 1e-7 * cz.v_s, "steps": np.zeros(n, np.int64),
@@ -619,7 +621,7 @@ def _run(model: _Model, S: _State, final: dict, wave, rec, record, t_amb: float,
         t, i, il, vc, vout, vin, ic, fi = S.t, S.i, S.il, S.vc, S.vout, S.vin, S.ic, S.fi
         h = B.minimum(S.h, 0.1 * B.maximum(S.t_est, t))
         if t_on > 0.0:
-            t_full = S.t_att + t_on
+            t_full = (S.t_att + t_on) if timer else t_on
             cut = (t < t_full) & (t + h > t_full)
             h = B.where(cut, B.maximum(t_full - t, 1e-300), h)
         sw_on = None
@@ -632,9 +634,9 @@ def _run(model: _Model, S: _State, final: dict, wave, rec, record, t_amb: float,
         gh = _G * h
         dh = _D * h
         dt1 = h - gh
-        t_rel = t - S.t_att
+        t_rel = (t - S.t_att) if (t_on > 0.0 and timer) else t  # time since the switch turned on
         if varies:  # Rds(on) at the junction temperature extrapolated to the stage
-            r_on_g, r_on_1 = m.r_on(S.tj + S.tjr * gh), m.r_on(S.tj + S.tjr * h)
+            r_on_g, r_on_1 = S.r_on + S.r_rate * gh, S.r_on + S.r_rate * h
         else:
             r_on_g = r_on_1 = S.r_on
         # stage 1: trapezoidal rule to t + gamma h; stage 2: BDF2 to t + h
@@ -674,16 +676,18 @@ def _run(model: _Model, S: _State, final: dict, wave, rec, record, t_amb: float,
 
         # junction temperature: exact Foster update with the power linear between stages,
         # checked against the power linear over the whole step
-        th_g = B.foster(S.theta, S.p, s1.p, gh, m.r_th, m.tau_th)
-        th_1 = B.foster(th_g, s1.p, s2.p, dt1, m.r_th, m.tau_th)
-        th_s = B.foster(S.theta, S.p, s2.p, h, m.r_th, m.tau_th)
+        th_g, th_1, rise_s = B.foster(S.theta, S.p, s1.p, s2.p, gh, dt1, m.r_th, m.tau_th)
         rise_1 = B.rise(th_1)
         tj_g = t_amb + B.rise(th_g)
         tj_1 = t_amb + rise_1
-        err = B.maximum(err, B.fabs(rise_1 - B.rise(th_s)) / tol_th)
+        err = B.maximum(err, B.fabs(rise_1 - rise_s) / tol_th)
+        fac_err = 0.9 * B.maximum(err, 1e-12) ** (-1.0 / 3.0)
         if varies:  # Rds(on) follows Tj: bound the change of Tj while the switch conducts
             e_tj = B.fabs(tj_1 - S.tj) / step_th
-            err = B.maximum(err, B.where(sw_on, e_tj, 0.0) if timer else e_tj)
+            if timer:
+                e_tj = B.where(sw_on, e_tj, 0.0)
+            err = B.maximum(err, e_tj)
+            fac_err = B.minimum(fac_err, 0.9 / B.maximum(e_tj, 1e-12))  # the change is ~ h
 
         bad = B.not_(err <= 1e300)
         if s1.bad is not None:
@@ -715,7 +719,6 @@ def _run(model: _Model, S: _State, final: dict, wave, rec, record, t_amb: float,
             # that accuracy): a step holding an event must not be longer than h_evt
             long_evt = evt & (h > S.h_evt)
             ok = ok & B.not_(long_evt)
-        fac_err = 0.9 * B.maximum(err, 1e-12) ** (-1.0 / 3.0)
         fac = B.minimum(B.maximum(fac_err, 0.2), S.grow)
         h_next = B.where(ok, h * fac, B.where(bad, 0.25 * h, h * B.maximum(fac, 0.1)))
         if evt is not None:
@@ -778,8 +781,8 @@ def _run(model: _Model, S: _State, final: dict, wave, rec, record, t_amb: float,
         rate_g = B.rate(th_g, s1.p, m.r_th, m.tau_th)
         rate_1 = B.rate(th_1, s2.p, m.r_th, m.tau_th)
         tj_hi = B.maximum(tj_g, tj_1)
-        in_g = ok & (S.dtj > 0.0) & (rate_g < 0.0)
-        in_1 = ok & (rate_g > 0.0) & (rate_1 < 0.0)
+        in_g = (S.dtj > 0.0) & (rate_g < 0.0)
+        in_1 = (rate_g > 0.0) & (rate_1 < 0.0)
         if B.any(in_g) or B.any(in_1):
             tj_hi = _interior_peak(m, S, tj_hi, in_g, in_1, th_g, s1, s2, gh, dt1, t_amb)
         S.tj_peak = B.where(ok, B.maximum(S.tj_peak, tj_hi), S.tj_peak)
@@ -802,7 +805,6 @@ def _run(model: _Model, S: _State, final: dict, wave, rec, record, t_amb: float,
         S.t_settle = B.where(ok, ts_new, S.t_settle)
 
         # commit the accepted rows
-        S.tjr = B.where(ok, (tj_1 - S.tj) / h, S.tjr)
         S.t = B.where(ok, t1, t)
         S.i = B.where(ok, s2.i, i)
         S.vc = B.where(ok, s2.vc, vc)
@@ -822,7 +824,9 @@ def _run(model: _Model, S: _State, final: dict, wave, rec, record, t_amb: float,
         S.theta = B.where(ok[:, None], th_1, S.theta) if arrays else (th_1 if ok else S.theta)
         S.tj = B.where(ok, tj_1, S.tj)
         S.dtj = B.where(ok, rate_1, S.dtj)
-        S.r_on = B.where(ok, r_on1, S.r_on)
+        if varies:
+            S.r_rate = B.where(ok, (r_on1 - S.r_on) / h, S.r_rate)
+            S.r_on = B.where(ok, r_on1, S.r_on)
         S.i_scale = B.maximum(S.i_scale, B.fabs(S.i))
         if not m.continuous:
             if timer:
@@ -840,7 +844,7 @@ def _run(model: _Model, S: _State, final: dict, wave, rec, record, t_amb: float,
         if m.limit:
             done = done & B.not_(S.lim)
         if t_on > 0.0:
-            done = done & (S.t - S.t_att >= t_on)
+            done = done & ((S.t - S.t_att) >= t_on if timer else S.t >= t_on)
         if timer:
             done = done & sw_on
         S.outcome = B.where(done, OUTCOME_COMPLETE, S.outcome)
@@ -856,35 +860,58 @@ def _run(model: _Model, S: _State, final: dict, wave, rec, record, t_amb: float,
 
 def _dip(m: _Model, S, ok, t, gh, h, i, s1, s2, evt) -> None:
     """The lowest switch-input voltage and the longest time below the UVLO threshold over
-    the accepted step (the input linear between its start, its stage point and its end)."""
+    the accepted step (the input linear between its start, its stage point and its end,
+    with the edges and notches of an inductance without c_in put back)."""
     B = m.B
-    lo_g = s1.vin <= s2.vin
-    v_lo = B.where(lo_g, s1.vin, s2.vin)
     unb = None
-    if m.dip_flag:
-        unb = False
-        if m.t_on == 0.0:  # a fully-on sample of an instant turn-on
-            unb = B.where(lo_g, B.not_(s1.lim) if m.limit else True, B.not_(s2.lim) if m.limit else True)
-            if m.timer:
-                unb = unb & S.on
-    cut_g = cut_1 = None
+    if m.dip_flag and m.t_on == 0.0:  # a fully-on sample of an instant turn-on
+        lo_g = s1.vin <= s2.vin
+        v_lo = B.where(lo_g, s1.vin, s2.vin)
+        unb = B.where(lo_g, B.not_(s1.lim) if m.limit else True, B.not_(s2.lim) if m.limit else True)
+        if m.timer:
+            unb = unb & S.on
+    else:
+        v_lo = B.minimum(s1.vin, s2.vin)
+        if m.dip_flag:
+            unb = False
+    cut_g = cut_1 = edge = None
+    if m.dip_flag and m.limit:
+        entry = ok & B.not_(S.lim) & (s1.lim | s2.lim)
+        if B.any(entry):
+            # entering regulation, the fully-on switch passes the inductance's current up to
+            # the instant it reaches the reference: the input is lowest just before,
+            # v_out + R_sw i_ref there, and steps up as di/dt stops
+            frac = B.minimum(B.maximum(_crossing(B, S.exc, s1.exc, s2.exc), 0.0), 1.0)
+            t_e = t + frac * h
+            i_e = B.where(s1.lim, s1.i, s2.i)  # the current is the reference there
+            v_e = _at(B, frac, S.vout, s1.vout, s2.vout) + m.switch_r(t_e - S.t_att, S.r_on) * i_e
+            deeper = entry & (v_e < v_lo)
+            v_lo = B.where(deeper, v_e, v_lo)
+            if unb is not None and m.t_on == 0.0:
+                unb = unb | deeper
+            edge = (entry, t_e, v_e, _at(B, frac, S.vin, s1.vin, s2.vin))
     if m.notch and evt is not None and B.any(evt & ok):
         # a load switching on while the FET regulates steps the reference up
         floor_g = s1.vout + s1.r_sw * s1.i
         floor_1 = s2.vout + s2.r_sw * s2.i
-        dt1 = h - gh
         on_0 = S.started | (S.vout > m.v_on)
         cut_g = _notch(B, s1.lim & s1.on & B.not_(on_0), m.v_s - m.r * s1.i, floor_g, m.l * (s1.i - i), gh)
-        cut_1 = _notch(B, s2.lim & s2.on & B.not_(s1.on), m.v_s - m.r * s2.i, floor_1, m.l * (s2.i - s1.i), dt1)
-        for cut, floor in ((cut_g, floor_g), (cut_1, floor_1)):
+        cut_1 = _notch(B, s2.lim & s2.on & B.not_(s1.on), m.v_s - m.r * s2.i, floor_1, m.l * (s2.i - s1.i), h - gh)
+        if cut_g is not None:
+            cut_g = cut_g + (floor_g,)
+        if cut_1 is not None:
+            cut_1 = cut_1 + (floor_1,)
+        for cut in (cut_g, cut_1):
             if cut is not None:
-                deeper = cut[0] & (floor < v_lo)
-                v_lo = B.where(deeper, floor, v_lo)
+                deeper = cut[0] & (cut[2] < v_lo)
+                v_lo = B.where(deeper, cut[2], v_lo)
                 if unb is not None:
                     unb = unb | deeper
-    new_min = ok & (v_lo < S.v_in_min)
-    S.v_in_min = B.where(new_min, v_lo, S.v_in_min)
-    if unb is not None:
+    if unb is None:
+        S.v_in_min = B.where(ok, B.minimum(S.v_in_min, v_lo), S.v_in_min)
+    else:
+        new_min = ok & (v_lo < S.v_in_min)
+        S.v_in_min = B.where(new_min, v_lo, S.v_in_min)
         S.unb = B.where(new_min, unb, S.unb)
     if not m.has_uvlo:
         return
@@ -893,20 +920,26 @@ def _dip(m: _Model, S, ok, t, gh, h, i, s1, s2, evt) -> None:
         return
     piece = _below_arrays if m.B is _ArrayOps else _below_floats
     t_g, t_1 = t + gh, t + h
-    if cut_g is None and cut_1 is None:
-        piece(S, ok, t, S.vin, t_g, s1.vin, u)
-        piece(S, ok, t_g, s1.vin, t_1, s2.vin, u)
-        return
-    # with a notch at the end of an interval: the sample line up to it, then its floor
-    for (ta, va, tb, vb), cut, floor in (((t, S.vin, t_g, s1.vin), cut_g, floor_g),
-                                         ((t_g, s1.vin, t_1, s2.vin), cut_1, floor_1)):
+    for ta, va, tb, vb, cut in ((t, S.vin, t_g, s1.vin, cut_g), (t_g, s1.vin, t_1, s2.vin, cut_1)):
+        if edge is not None:  # the sample line up to the edge, its low point, then on
+            here = edge[0] & (edge[1] >= ta) & (edge[1] <= tb)
+            t_e = B.where(here, edge[1], ta)
+            piece(S, ok, ta, va, t_e, B.where(here, edge[2], va), u)
+            ta, va = t_e, B.where(here, edge[3], va)
         if cut is None:
             piece(S, ok, ta, va, tb, vb, u)
             continue
-        use, width = cut
-        t_n = B.where(use, tb - width, tb)
+        # a notch at the end of the interval: the sample line up to it, then its floor
+        use, width, floor = cut
+        t_n = B.where(use, B.maximum(tb - width, ta), tb)
         piece(S, ok, ta, va, t_n, vb, u)
         piece(S, ok & use, t_n, floor, tb, floor, u)
+
+
+def _at(B, frac, x0, xg, x1):
+    """Value at ``frac`` of the step of x, linear between the step start (x0), the stage
+    point (xg, at gamma) and the end (x1)."""
+    return B.where(frac < _G, x0 + (xg - x0) * (frac * (1.0 / _G)), xg + (x1 - xg) * ((frac - _G) / (1.0 - _G)))
 
 
 def _below_arrays(S, ok, ta, va, tb, vb, u: float) -> None:
@@ -951,21 +984,32 @@ def _below_floats(S, ok, ta, va, tb, vb, u: float) -> None:
 
 def _interior_peak(m: _Model, S, tj_hi, in_g, in_1, th_g, s1, s2, gh, dt1, t_amb: float):
     """The junction peak inside the step's intervals where the rise turns from rising to
-    falling (`thermal.foster_peak`), merged into ``tj_hi``."""
+    falling (`thermal.foster_peak`), merged into ``tj_hi``.
+
+    Only where it can matter: each stage rise stays below the larger of its start and
+    r_i times the interval's largest power (tau dT/dt + T = r P), and where that bound is
+    not above the peak so far the interval is passed over.
+    """
+    floor = m.B.maximum(S.tj_peak, tj_hi) - t_amb
     if m.B is _FloatOps:
-        if in_g:
-            rise, _ = foster_peak_floats(S.theta, S.p, s1.p, gh, m.r_th, m.tau_th)
-            tj_hi = max(tj_hi, t_amb + rise)
-        if in_1:
-            rise, _ = foster_peak_floats(th_g, s1.p, s2.p, dt1, m.r_th, m.tau_th)
-            tj_hi = max(tj_hi, t_amb + rise)
+        for sel, theta, pa, pb, dt in ((in_g, S.theta, S.p, s1.p, gh), (in_1, th_g, s1.p, s2.p, dt1)):
+            if sel:
+                p_hi = max(pa, pb)
+                if sum(max(th, ri * p_hi) for th, ri in zip(theta, m.r_th)) > floor:
+                    rise, _ = foster_peak_floats(theta, pa, pb, dt, m.r_th, m.tau_th)
+                    tj_hi = max(tj_hi, t_amb + rise)
         return tj_hi
     tj_hi = np.array(tj_hi, copy=True)
     for sel, theta, pa, pb, dt in ((in_g, S.theta, S.p, s1.p, gh), (in_1, th_g, s1.p, s2.p, dt1)):
         idx = np.flatnonzero(sel)
         if idx.size:
-            rise, _ = foster_peak(theta[idx], pa[idx], pb[idx], dt[idx], m.r_th, m.tau_th)
-            tj_hi[idx] = np.maximum(tj_hi[idx], t_amb + rise)
+            th = theta[idx]
+            bound = np.add.reduce(np.maximum(th, m.r_th * np.maximum(pa[idx], pb[idx])[:, None]), axis=1)
+            keep = bound > floor[idx]
+            if keep.any():
+                idx, th = idx[keep], th[keep]
+                rise, _ = foster_peak(th, pa[idx], pb[idx], dt[idx], m.r_th, m.tau_th)
+                tj_hi[idx] = np.maximum(tj_hi[idx], t_amb + rise)
     return tj_hi
 
 

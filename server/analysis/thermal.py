@@ -9,6 +9,9 @@ foster_arrays(stages)
 foster_advance(theta, p0, p1, dt, r, tau), foster_advance_floats(...)
     Exact update of the stage temperature rises over a step with linear power (rows of
     arrays; one row of floats).
+foster_step(theta, p0, pg, p1, dt_a, dt_b, r, tau), foster_step_floats(...)
+    The same over a step of two intervals, with the rise the step gives with the power
+    linear over it as a whole (for the step control).
 foster_rate(theta, p, r, tau), foster_rate_floats(...)
     Rate of change of the junction rise, K/s.
 foster_peak(theta, p0, p1, dt, r, tau), foster_peak_floats(...)
@@ -41,7 +44,8 @@ from typing import Iterable
 
 import numpy as np
 
-__all__ = ["zth", "foster_arrays", "foster_advance", "foster_advance_floats", "foster_rate", "foster_rate_floats",
+__all__ = ["zth", "foster_arrays", "foster_advance", "foster_advance_floats", "foster_step", "foster_step_floats",
+           "foster_rate", "foster_rate_floats",
            "foster_peak", "foster_peak_floats", "time_to_rise", "rds_at"]
 
 
@@ -139,6 +143,63 @@ def foster_advance_floats(theta, p0: float, p1: float, dt: float, r, tau) -> lis
     return out
 
 
+def foster_step(theta, p0, pg, p1, dt_a, dt_b, r, tau):
+    """Advance the Foster stage rises over a step of two intervals (rows of arrays), and the
+    junction rise the same step gives with the power linear over it as a whole.
+
+    Parameters
+    ----------
+    theta : ndarray, shape (n, k)
+        Stage rises at the start, K.
+    p0, pg, p1 : ndarray, shape (n,)
+        Power at the start, between the intervals and at the end (linear in each), W.
+    dt_a, dt_b : ndarray, shape (n,)
+        Interval lengths, s.
+    r, tau : ndarray, shape (k,)
+        Stage resistances (K/W) and time constants (s).
+
+    Returns
+    -------
+    theta_a, theta_b : ndarray, shape (n, k)
+        Stage rises after the first interval and at the end, K (`foster_advance`).
+    rise_whole : ndarray, shape (n,)
+        The junction rise at the end with the power linear from p0 to p1 over the whole
+        step, K: the difference from theta_b's sum measures what the bend of the power at
+        the interval boundary contributes.
+
+    Notes
+    -----
+    The closed form of `foster_advance`; 1 - exp(-(x_a + x_b)) is formed from the two
+    intervals' 1 - exp(-x) as e_a + e_b - e_a e_b, without cancellation.
+    """
+    xa = dt_a[:, None] / tau
+    xb = dt_b[:, None] / tau
+    ea = -np.expm1(-xa)
+    eb = -np.expm1(-xb)
+    p0c, pgc, p1c = p0[:, None], pg[:, None], p1[:, None]
+    ta = theta - ea * theta + r * (p0c * ea + (pgc - p0c) * (1.0 - ea / xa))
+    tb = ta - eb * ta + r * (pgc * eb + (p1c - pgc) * (1.0 - eb / xb))
+    eh = ea + eb - ea * eb
+    whole = theta - eh * theta + r * (p0c * eh + (p1c - p0c) * (1.0 - eh / (xa + xb)))
+    return ta, tb, np.add.reduce(whole, axis=1)
+
+
+def foster_step_floats(theta, p0: float, pg: float, p1: float, dt_a: float, dt_b: float, r, tau):
+    """`foster_step` for one row on Python floats (``theta``: k stage rises, K)."""
+    ta_out, tb_out = [], []
+    whole = 0.0
+    dpa, dpb, dph = pg - p0, p1 - pg, p1 - p0
+    for th, ri, ti in zip(theta, r, tau):
+        xa, xb = dt_a / ti, dt_b / ti
+        ea, eb = -math.expm1(-xa), -math.expm1(-xb)
+        ta = th - ea * th + ri * (p0 * ea + dpa * (1.0 - ea / xa))
+        ta_out.append(ta)
+        tb_out.append(ta - eb * ta + ri * (pg * eb + dpb * (1.0 - eb / xb)))
+        eh = ea + eb - ea * eb
+        whole += th - eh * th + ri * (p0 * eh + dph * (1.0 - eh / (xa + xb)))
+    return ta_out, tb_out, whole
+
+
 def foster_rate(theta, p, r, tau) -> np.ndarray:
     """Rate of change of the junction rise at power ``p`` (rows of arrays).
 
@@ -156,7 +217,7 @@ def foster_rate(theta, p, r, tau) -> np.ndarray:
     ndarray, shape (n,)
         d(sum of rises)/dt = sum (r_i p - T_i) / tau_i, K/s.
     """
-    return np.add.reduce((r * p[:, None] - theta) / tau, axis=1)
+    return p * np.add.reduce(r / tau) - theta @ (1.0 / tau)
 
 
 def foster_rate_floats(theta, p: float, r, tau) -> float:
@@ -168,11 +229,11 @@ def foster_rate_floats(theta, p: float, r, tau) -> float:
 
 
 _PEAK_ITERATIONS = 10
+_PEAK_CELLS = 16
 
 
 def foster_peak(theta, p0, p1, dt, r, tau) -> tuple[np.ndarray, np.ndarray]:
-    """Largest junction rise inside a step whose rise increases at its start and
-    decreases at its end (rows of arrays).
+    """Largest junction rise inside a step with linear power (rows of arrays).
 
     Parameters
     ----------
@@ -188,74 +249,72 @@ def foster_peak(theta, p0, p1, dt, r, tau) -> tuple[np.ndarray, np.ndarray]:
     Returns
     -------
     rise : ndarray, shape (m,)
-        Largest junction rise found inside the step, K.
+        Largest junction rise found inside the step (its ends included), K.
     s : ndarray, shape (m,)
         Its time after the start of the step, s.
 
     Notes
     -----
-    With P(s) = p0 + q s, q = (p1 - p0) / dt, stage i follows (closed form of
-    tau dT/dt + T = r P, Boyce and DiPrima, chapter 2)
+    With P(s) = p0 + q s, q = (p1 - p0) / dt, and x_i = s / tau_i, e_i = exp(-x_i), stage i
+    follows the closed form of `foster_advance` (Boyce and DiPrima, chapter 2)
 
-        T_i(s) = r_i (p0 - q tau_i) + r_i q s + D_i exp(-s / tau_i),
-        D_i = T_i(0) - r_i (p0 - q tau_i).
+        T_i(s) = T_i(0) e_i + r_i (p0 (1 - e_i) + q s (1 - (1 - e_i) / x_i)),
 
-    The rise's derivative sum_i (r_i q - D_i / tau_i exp(-s / tau_i)) changes sign inside
-    the step; its root is found by Newton's method from the regula falsi point, with a
-    bisection wherever Newton's step would leave the bracket (Press et al., section 9.4).
+    whose rate is (r_i p0 - T_i(0)) / tau_i e_i + r_i q (1 - e_i), written so that no large
+    terms cancel. The rise is sampled at 17 points; the largest sample's neighbouring cell
+    in which the rate changes sign from positive to negative brackets the maximum, which
+    Newton's method finds from the regula falsi point, with a bisection wherever Newton's
+    step would leave the bracket (Press et al., section 9.4). A sum of k exponentials can
+    turn more than once inside a step; two maxima within one sixteenth of it and of nearly
+    equal height could be confused (the step control keeps the power's bend small).
     """
+    m = dt.shape[0]
     q = (p1 - p0) / dt
-    base = r * (p0[:, None] - q[:, None] * tau)  # (m, k)
-    d = theta - base
-    rq = np.add.reduce(r * q[:, None] * np.ones_like(theta), axis=1)
-    lo, hi = np.zeros_like(dt), dt.copy()
-    f_lo = rq - np.add.reduce(d / tau, axis=1)
-    f_hi = rq - np.add.reduce(d / tau * np.exp(-hi[:, None] / tau), axis=1)
+    a = (r * p0[:, None] - theta) / tau  # (m, k)
+    rq = r * q[:, None]
+
+    def rise_at(x):  # x: (m, j) -> (m, j)
+        u = np.maximum(x, 1e-300)[:, :, None] / tau
+        e1 = -np.expm1(-u)
+        return np.add.reduce(theta[:, None, :] * (1.0 - e1)
+                             + r * (p0[:, None, None] * e1 + (q[:, None] * x)[:, :, None] * (1.0 - e1 / u)), axis=2)
+
+    def rate(x):  # x: (m,) -> rate and its derivative, (m,)
+        u = x[:, None] / tau
+        e = np.exp(-u)
+        return np.add.reduce(a * e - rq * np.expm1(-u), axis=1), np.add.reduce(e / tau * (rq - a), axis=1)
+
     with np.errstate(invalid="ignore", divide="ignore"):
+        grid = dt[:, None] * np.linspace(0.0, 1.0, _PEAK_CELLS + 1)  # (m, 17)
+        vals = rise_at(grid)
+        vals[:, 0] = np.add.reduce(theta, axis=1)
+        j = np.argmax(vals, axis=1)
+        rows = np.arange(m)
+        best, at = vals[rows, j], grid[rows, j]
+        f_j = rate(at)[0]
+        # the cell after the best sample where the rise still increases there, else before
+        jl = np.clip(np.where(f_j > 0.0, j, j - 1), 0, _PEAK_CELLS - 1)
+        lo, hi = grid[rows, jl], grid[rows, jl + 1]
+        f_lo, f_hi = rate(lo)[0], rate(hi)[0]
+        turn = (f_lo > 0.0) & (f_hi < 0.0)
         x = lo + (hi - lo) * np.clip(f_lo / np.where(f_lo > f_hi, f_lo - f_hi, 1.0), 0.0, 1.0)
         for _ in range(_PEAK_ITERATIONS):
-            e = d / tau * np.exp(-x[:, None] / tau)
-            f = rq - np.add.reduce(e, axis=1)
-            fp = np.add.reduce(e / tau, axis=1)
+            f, fp = rate(x)
             up = f > 0.0
             lo = np.where(up, x, lo)
             hi = np.where(up, hi, x)
             xn = x - f / fp
-            x = np.where((fp != 0.0) & (xn > lo) & (xn < hi), xn, 0.5 * (lo + hi))
-    rise = np.add.reduce(base + r * q[:, None] * x[:, None] + d * np.exp(-x[:, None] / tau), axis=1)
-    return rise, x
+            x = np.where((fp != 0.0) & (xn >= lo) & (xn <= hi), xn, 0.5 * (lo + hi))
+        peak = rise_at(x[:, None])[:, 0]
+    better = turn & (peak > best)
+    return np.where(better, peak, best), np.where(better, x, at)
 
 
 def foster_peak_floats(theta, p0: float, p1: float, dt: float, r, tau) -> tuple[float, float]:
     """`foster_peak` for one row on Python floats."""
-    q = (p1 - p0) / dt
-    base = [ri * (p0 - q * ti) for ri, ti in zip(r, tau)]
-    d = [th - b for th, b in zip(theta, base)]
-    rq = q * sum(r)
-
-    def deriv(x):
-        f, fp = rq, 0.0
-        for di, ti in zip(d, tau):
-            e = di / ti * math.exp(-x / ti)
-            f -= e
-            fp += e / ti
-        return f, fp
-
-    lo, hi = 0.0, dt
-    f_lo, f_hi = deriv(lo)[0], deriv(hi)[0]
-    x = lo + (hi - lo) * min(max(f_lo / (f_lo - f_hi), 0.0), 1.0) if f_lo > f_hi else 0.5 * dt
-    for _ in range(_PEAK_ITERATIONS):
-        f, fp = deriv(x)
-        if f > 0.0:
-            lo = x
-        else:
-            hi = x
-        xn = x - f / fp if fp != 0.0 else lo - 1.0
-        x = xn if lo < xn < hi else 0.5 * (lo + hi)
-    rise = 0.0
-    for b, di, ri, ti in zip(base, d, r, tau):
-        rise += b + ri * q * x + di * math.exp(-x / ti)
-    return rise, x
+    rise, at = foster_peak(np.asarray([theta], dtype=float), np.array([p0]), np.array([p1]), np.array([dt]),
+                           np.asarray(r), np.asarray(tau))
+    return float(rise[0]), float(at[0])
 
 
 _GRID = np.linspace(math.log(1e-12), math.log(1e6), 97)  # ln t of the bracketing grid
