@@ -253,7 +253,7 @@ class _Model:
                 return r_on
             B = self.B
             x = B.minimum(B.maximum(t * (1.0 / self.t_on), 0.0), 1.0)
-            return B.exp(_LOG_ROFF + x * (B.log(r_on) - _LOG_ROFF))
+            return B.where(x < 1.0, B.exp(_LOG_ROFF + x * (B.log(r_on) - _LOG_ROFF)), r_on)
         return r_on
 
     def load_linear(self, v, started, sw_on):
@@ -755,22 +755,28 @@ def _run(model: _Model, S: _State, final: dict, wave, rec, record, t_amb: float,
         new_pk = ok & (pk > S.i_peak)
         S.i_peak = B.where(new_pk, pk, S.i_peak)
         S.t_i_peak = B.where(new_pk, tpk, S.t_i_peak)
-        s2_hi = s2.p > s1.p
+        # the operating point of the peak power; on a plateau of equal power (a power limit)
+        # the one at the highest v_ds, the harder point for the SOA (and rounding does not
+        # choose it)
+        slack = 1e-9 * B.maximum(B.fabs(s1.p), B.fabs(s2.p))
+        s2_hi = (s2.p > s1.p + slack) | ((s2.p >= s1.p - slack) & (s2.vds > s1.vds))
         p_st = B.where(s2_hi, s2.p, s1.p)
         v_st = B.where(s2_hi, s2.vds, s1.vds)
         i_st = B.where(s2_hi, s2.i, s1.i)
-        better = ok & (p_st > S.p_peak)
+        slack = 1e-9 * B.fabs(S.p_peak)
+        better = ok & ((p_st > S.p_peak + slack) | ((p_st >= S.p_peak - slack) & (v_st > S.v_pk)))
         S.v_pk = B.where(better, v_st, S.v_pk)
         S.i_pk = B.where(better, i_st, S.i_pk)
-        S.p_peak = B.where(better, p_st, S.p_peak)
+        S.p_peak = B.where(better, B.maximum(p_st, S.p_peak), S.p_peak)
         de = h * (_Q0 * S.p + _Q1 * s1.p + _Q2 * s2.p)
         S.e_fet = B.where(ok, S.e_fet + de, S.e_fet)
         if timer:
             S.e_att = B.where(ok, S.e_att + de, S.e_att)
-            better = ok & (p_st > S.pp_att)
+            slack = 1e-9 * B.fabs(S.pp_att)
+            better = ok & ((p_st > S.pp_att + slack) | ((p_st >= S.pp_att - slack) & (v_st > S.v_att)))
             S.v_att = B.where(better, v_st, S.v_att)
             S.i_att = B.where(better, i_st, S.i_att)
-            S.pp_att = B.where(better, p_st, S.pp_att)
+            S.pp_att = B.where(better, B.maximum(p_st, S.pp_att), S.pp_att)
         if m.limit:
             S.t_reg = B.where(ok, S.t_reg + dtl, S.t_reg)
 
@@ -895,12 +901,17 @@ def _dip(m: _Model, S, ok, t, gh, h, i, s1, s2, evt) -> None:
         floor_g = s1.vout + s1.r_sw * s1.i
         floor_1 = s2.vout + s2.r_sw * s2.i
         on_0 = S.started | (S.vout > m.v_on)
-        cut_g = _notch(B, s1.lim & s1.on & B.not_(on_0), m.v_s - m.r * s1.i, floor_g, m.l * (s1.i - i), gh)
-        cut_1 = _notch(B, s2.lim & s2.on & B.not_(s1.on), m.v_s - m.r * s2.i, floor_1, m.l * (s2.i - s1.i), h - gh)
+        w_g, w_1 = m.v_s - m.r * s1.i, m.v_s - m.r * s2.i
+        cut_g = _notch(B, s1.lim & s1.on & B.not_(on_0), w_g, floor_g, m.l * (s1.i - i), gh)
+        cut_1 = _notch(B, s2.lim & s2.on & B.not_(s1.on), w_1, floor_1, m.l * (s2.i - s1.i), h - gh)
+        # the notch holds the interval's inductive drop: the input is v_s - r i up to it, and
+        # right after it (the sample, the drop's mean over the interval, stands for neither)
         if cut_g is not None:
             cut_g = cut_g + (floor_g,)
+            s1.vin = B.where(cut_g[0], w_g, s1.vin)
         if cut_1 is not None:
             cut_1 = cut_1 + (floor_1,)
+            s2.vin = B.where(cut_1[0], w_1, s2.vin)
         for cut in (cut_g, cut_1):
             if cut is not None:
                 deeper = cut[0] & (cut[2] < v_lo)

@@ -215,17 +215,18 @@ def foster_rate(theta, p, r, tau) -> np.ndarray:
     Returns
     -------
     ndarray, shape (n,)
-        d(sum of rises)/dt = sum (r_i p - T_i) / tau_i, K/s.
+        d(sum of rises)/dt = p sum r_i / tau_i - sum T_i / tau_i, K/s.
     """
-    return p * np.add.reduce(r / tau) - theta @ (1.0 / tau)
+    return p * np.add.reduce(r / tau) - np.add.reduce(theta / tau, axis=1)
 
 
 def foster_rate_floats(theta, p: float, r, tau) -> float:
     """`foster_rate` for one row on Python floats."""
-    out = 0.0
+    sr, st = 0.0, 0.0
     for th, ri, ti in zip(theta, r, tau):
-        out += (ri * p - th) / ti
-    return out
+        sr += ri / ti
+        st += th / ti
+    return p * sr - st
 
 
 _PEAK_ITERATIONS = 10

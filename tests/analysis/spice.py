@@ -17,7 +17,7 @@ from pathlib import Path
 
 import numpy as np
 
-__all__ = ["NGSPICE", "ngspice_missing_message", "simulate_ngspice"]
+__all__ = ["NGSPICE", "ngspice_missing_message", "simulate_ngspice", "longest_time_below"]
 
 NGSPICE = shutil.which("ngspice")
 
@@ -124,3 +124,22 @@ def simulate_ngspice(tmp_path: Path, *, t_stop: float, points: int = 40000, **ci
         "e_fet": float(np.sum(dt * 0.5 * (p[1:] + p[:-1]))),
         "t_limit": t_limit,
     }
+
+
+def longest_time_below(t: np.ndarray, v: np.ndarray, level: float) -> float:
+    """Longest continuous time (s) a sampled waveform stays below ``level`` (V), the
+    waveform linear between samples and the crossings interpolated."""
+    below = v < level
+    best, start = 0.0, (t[0] if below[0] else None)
+    for k in range(1, t.size):
+        if below[k] == below[k - 1]:
+            continue
+        tc = t[k - 1] + (t[k] - t[k - 1]) * (v[k - 1] - level) / (v[k - 1] - v[k])
+        if below[k]:
+            start = tc
+        else:
+            best = max(best, tc - start)
+            start = None
+    if start is not None:
+        best = max(best, t[-1] - start)
+    return best
