@@ -784,13 +784,15 @@ def _run(model: _Model, S: _State, final: dict, wave, rec, record, t_amb: float,
         _dip(m, S, ok, t, gh, h, i, s1, s2, evt)
 
         # junction temperature: stage points, and the interior peak the closed form gives
-        rate_g = B.rate(th_g, s1.p, m.r_th, m.tau_th)
+        # where the rise increases at the start of the step and decreases at its end (the
+        # stage point's rate tells in which interval)
         rate_1 = B.rate(th_1, s2.p, m.r_th, m.tau_th)
         tj_hi = B.maximum(tj_g, tj_1)
-        in_g = (S.dtj > 0.0) & (rate_g < 0.0)
-        in_1 = (rate_g > 0.0) & (rate_1 < 0.0)
-        if B.any(in_g) or B.any(in_1):
-            tj_hi = _interior_peak(m, S, tj_hi, in_g, in_1, th_g, s1, s2, gh, dt1, t_amb)
+        turns = ok & (S.dtj > 0.0) & (rate_1 < 0.0)
+        if B.any(turns):
+            rate_g = B.rate(th_g, s1.p, m.r_th, m.tau_th)
+            tj_hi = _interior_peak(m, S, tj_hi, turns & (rate_g < 0.0), turns & (rate_g >= 0.0), th_g, s1, s2, gh,
+                                   dt1, t_amb)
         S.tj_peak = B.where(ok, B.maximum(S.tj_peak, tj_hi), S.tj_peak)
 
         r_on1 = m.r_on(tj_1) if varies else S.r_on
@@ -1019,7 +1021,12 @@ def _interior_peak(m: _Model, S, tj_hi, in_g, in_1, th_g, s1, s2, gh, dt1, t_amb
             keep = bound > floor[idx]
             if keep.any():
                 idx, th = idx[keep], th[keep]
-                rise, _ = foster_peak(th, pa[idx], pb[idx], dt[idx], m.r_th, m.tau_th)
+                if idx.size <= 8:  # a few rows: the float code costs less than NumPy's calls
+                    rt, tt = m.r_th.tolist(), m.tau_th.tolist()
+                    rise = np.array([foster_peak_floats(th[j].tolist(), float(pa[i]), float(pb[i]), float(dt[i]),
+                                                        rt, tt)[0] for j, i in enumerate(idx)])
+                else:
+                    rise, _ = foster_peak(th, pa[idx], pb[idx], dt[idx], m.r_th, m.tau_th)
                 tj_hi[idx] = np.maximum(tj_hi[idx], t_amb + rise)
     return tj_hi
 
