@@ -10,8 +10,8 @@ foster_advance(theta, p0, p1, dt, r, tau), foster_advance_floats(...)
     Exact update of the stage temperature rises over a step with linear power (rows of
     arrays; one row of floats).
 foster_step(theta, p0, pg, p1, dt_a, dt_b, r, tau), foster_step_floats(...)
-    The same over a step of two intervals, with the rise the step gives with the power
-    linear over it as a whole (for the step control).
+    The same over a step of two intervals, with the part of the rise owed to the bend of
+    the power at the boundary (for the step control).
 foster_rate(theta, p, r, tau), foster_rate_floats(...)
     Rate of change of the junction rise, K/s.
 foster_peak(theta, p0, p1, dt, r, tau), foster_peak_floats(...)
@@ -145,7 +145,7 @@ def foster_advance_floats(theta, p0: float, p1: float, dt: float, r, tau) -> lis
 
 def foster_step(theta, p0, pg, p1, dt_a, dt_b, r, tau):
     """Advance the Foster stage rises over a step of two intervals (rows of arrays), and the
-    junction rise the same step gives with the power linear over it as a whole.
+    part of the junction rise owed to the bend of the power at the interval boundary.
 
     Parameters
     ----------
@@ -162,42 +162,46 @@ def foster_step(theta, p0, pg, p1, dt_a, dt_b, r, tau):
     -------
     theta_a, theta_b : ndarray, shape (n, k)
         Stage rises after the first interval and at the end, K (`foster_advance`).
-    rise_whole : ndarray, shape (n,)
-        The junction rise at the end with the power linear from p0 to p1 over the whole
-        step, K: the difference from theta_b's sum measures what the bend of the power at
-        the interval boundary contributes.
+    bend : ndarray, shape (n,)
+        The junction rise at the end due to the power's departure from the straight line
+        p0 -> p1 over the whole step, K: the response to the triangle that is d at the
+        boundary and 0 at both ends, d = pg - (p0 + (p1 - p0) dt_a / (dt_a + dt_b)).
 
     Notes
     -----
-    The closed form of `foster_advance`; 1 - exp(-(x_a + x_b)) is formed from the two
-    intervals' 1 - exp(-x) as e_a + e_b - e_a e_b, without cancellation.
+    The closed form of `foster_advance` over each interval; by superposition the triangle
+    gives r d (1 - e_a / x_a) after the first interval and
+    r d ((1 - e_a / x_a)(1 - e_b) + e_b - (1 - e_b / x_b)) at the end, e = 1 - exp(-x),
+    x = dt / tau (formed directly, not as a difference of two rises).
     """
     xa = dt_a[:, None] / tau
     xb = dt_b[:, None] / tau
     ea = -np.expm1(-xa)
     eb = -np.expm1(-xb)
+    ga = 1.0 - ea / xa
+    gb = 1.0 - eb / xb
     p0c, pgc, p1c = p0[:, None], pg[:, None], p1[:, None]
-    ta = theta - ea * theta + r * (p0c * ea + (pgc - p0c) * (1.0 - ea / xa))
-    tb = ta - eb * ta + r * (pgc * eb + (p1c - pgc) * (1.0 - eb / xb))
-    eh = ea + eb - ea * eb
-    whole = theta - eh * theta + r * (p0c * eh + (p1c - p0c) * (1.0 - eh / (xa + xb)))
-    return ta, tb, np.add.reduce(whole, axis=1)
+    ta = theta - ea * theta + r * (p0c * ea + (pgc - p0c) * ga)
+    tb = ta - eb * ta + r * (pgc * eb + (p1c - pgc) * gb)
+    d = pg - p0 - (p1 - p0) * (dt_a / (dt_a + dt_b))
+    bend = d * np.add.reduce(r * (ga * (1.0 - eb) + eb - gb), axis=1)
+    return ta, tb, bend
 
 
 def foster_step_floats(theta, p0: float, pg: float, p1: float, dt_a: float, dt_b: float, r, tau):
     """`foster_step` for one row on Python floats (``theta``: k stage rises, K)."""
     ta_out, tb_out = [], []
-    whole = 0.0
-    dpa, dpb, dph = pg - p0, p1 - pg, p1 - p0
+    shape = 0.0
+    dpa, dpb = pg - p0, p1 - pg
     for th, ri, ti in zip(theta, r, tau):
         xa, xb = dt_a / ti, dt_b / ti
         ea, eb = -math.expm1(-xa), -math.expm1(-xb)
-        ta = th - ea * th + ri * (p0 * ea + dpa * (1.0 - ea / xa))
+        ga, gb = 1.0 - ea / xa, 1.0 - eb / xb
+        ta = th - ea * th + ri * (p0 * ea + dpa * ga)
         ta_out.append(ta)
-        tb_out.append(ta - eb * ta + ri * (pg * eb + dpb * (1.0 - eb / xb)))
-        eh = ea + eb - ea * eb
-        whole += th - eh * th + ri * (p0 * eh + dph * (1.0 - eh / (xa + xb)))
-    return ta_out, tb_out, whole
+        tb_out.append(ta - eb * ta + ri * (pg * eb + dpb * gb))
+        shape += ri * (ga * (1.0 - eb) + eb - gb)
+    return ta_out, tb_out, (pg - p0 - (p1 - p0) * (dt_a / (dt_a + dt_b))) * shape
 
 
 def foster_rate(theta, p, r, tau) -> np.ndarray:
@@ -230,7 +234,7 @@ def foster_rate_floats(theta, p: float, r, tau) -> float:
 
 
 _PEAK_ITERATIONS = 10
-_PEAK_CELLS = 16
+_PEAK_CELLS = 4
 
 
 def foster_peak(theta, p0, p1, dt, r, tau) -> tuple[np.ndarray, np.ndarray]:
@@ -262,13 +266,13 @@ def foster_peak(theta, p0, p1, dt, r, tau) -> tuple[np.ndarray, np.ndarray]:
         T_i(s) = T_i(0) e_i + r_i (p0 (1 - e_i) + q s (1 - (1 - e_i) / x_i)),
 
     whose rate is (r_i p0 - T_i(0)) / tau_i e_i + r_i q (1 - e_i), written so that no large
-    terms cancel. The rise is sampled at 17 points; the largest sample's neighbouring cell
+    terms cancel. The rise is sampled at 5 points; the largest sample's neighbouring cell
     in which the rate changes sign from positive to negative brackets the maximum, which
     Newton's method finds from the regula falsi point, with a bisection wherever Newton's
     step would leave the bracket (Press et al., section 9.4), at most 10 iterations, ending
     when an iteration moves by less than 1e-14 of the step. A sum of k exponentials can
-    turn more than once inside a step; two maxima within one sixteenth of it and of nearly
-    equal height could be confused (the step control keeps the power's bend small).
+    turn more than once inside a step; two maxima within a quarter of it and of nearly equal
+    height could be confused (the step control keeps the power's bend small).
     """
     m = dt.shape[0]
     q = (p1 - p0) / dt
@@ -287,7 +291,7 @@ def foster_peak(theta, p0, p1, dt, r, tau) -> tuple[np.ndarray, np.ndarray]:
         return np.add.reduce(a * e - rq * np.expm1(-u), axis=1), np.add.reduce(e / tau * (rq - a), axis=1)
 
     with np.errstate(invalid="ignore", divide="ignore"):
-        grid = dt[:, None] * np.linspace(0.0, 1.0, _PEAK_CELLS + 1)  # (m, 17)
+        grid = dt[:, None] * np.linspace(0.0, 1.0, _PEAK_CELLS + 1)  # (m, cells + 1)
         vals = rise_at(grid)
         vals[:, 0] = np.add.reduce(theta, axis=1)
         j = np.argmax(vals, axis=1)
