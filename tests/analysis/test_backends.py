@@ -39,28 +39,37 @@ def _rows(make, c_in):
     return rail, v_s, cs, t_fault
 
 
+def _rel(a, b):
+    a, b = np.asarray(a, dtype=float), np.asarray(b, dtype=float)
+    both = np.isfinite(a) & np.isfinite(b)
+    assert np.array_equal(np.isfinite(a), np.isfinite(b))
+    den = np.maximum(np.abs(b), 1e-12)
+    return float(np.max(np.abs(a - b)[both] / den[both], initial=0.0))
+
+
 @pytest.mark.parametrize("c_in", [None, 10e-6])
 @pytest.mark.parametrize("make", [efuse_12v, hotswap_48v, slew_24v, slew_12v_demo, load_switch_5v])
 def test_array_and_float_back_ends_agree(make, c_in):
     rail, v_s, cs, t_fault = _rows(make, c_in)
     batch = simulate_startup(circuit_rows(rail, v_s=v_s, c=cs, t_fault=t_fault), record=1)
+    exact = 0
     for j in range(v_s.size):
         one = simulate_startup(circuit_rows(rail, v_s=[v_s[j]], c=[cs[j]], t_fault=[t_fault[j]]),
                                record=0 if j == 1 else None)
         assert one.status[0] == batch.status[j] and one.attempts[0] == batch.attempts[j]
         assert bool(one.dip_unbounded[0]) == bool(batch.dip_unbounded[j])
+        assert abs(int(one.steps[0]) - int(batch.steps[j])) <= 4
+        k = one.pulse_e.shape[1]
+        worst = max([_rel(getattr(one, name)[0], getattr(batch, name)[j]) for name in FIELDS]
+                    + [_rel(getattr(one, name)[0], getattr(batch, name)[j, :k]) for name in PULSES])
+        for name in PULSES:
+            assert np.all(np.isnan(getattr(batch, name)[j, k:]))
         # NumPy's exp and log may differ from the math module's in the last bit; where that
         # tips a step's error estimate across 1, the two runs take different steps from
         # there and agree to the integration tolerance instead of to rounding
-        same = one.steps[0] == batch.steps[j]
-        assert abs(int(one.steps[0]) - int(batch.steps[j])) <= 4
-        rtol = 1e-6 if same else 2e-3
-        for name in FIELDS:
-            assert_allclose(getattr(one, name)[0], getattr(batch, name)[j], rtol=rtol, atol=1e-15, err_msg=name)
-        k = one.pulse_e.shape[1]
-        for name in PULSES:
-            assert_allclose(getattr(one, name)[0], getattr(batch, name)[j, :k], rtol=rtol, err_msg=name)
-            assert np.all(np.isnan(getattr(batch, name)[j, k:]))
-        if j == 1 and same:
+        assert worst <= 2e-3
+        exact += worst <= 1e-6
+        if j == 1 and worst <= 1e-6:
             for key in one.waveform:
-                assert_allclose(one.waveform[key], batch.waveform[key], rtol=1e-8, atol=1e-12, err_msg=key)
+                assert_allclose(one.waveform[key], batch.waveform[key], rtol=1e-6, atol=1e-12, err_msg=key)
+    assert exact >= v_s.size - 1  # the same steps, to rounding, in all rows but at most one
