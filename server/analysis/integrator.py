@@ -75,8 +75,9 @@ current is 0 from then on (the voltage spike of the series inductance at turn-of
 modelled; without c_in the series current simply stops). "latch": the switch stays off and
 the run goes on until the input side has settled (with c_in it rings, and the ring belongs
 to the dip: settled when its energy is within the stop band, or after two periods of
-2 pi sqrt(l c_in), by when an undamped ring has shown its lowest point) and a quarter of the
-attempt's length of the output's decay is in the waveform. "retry": off for retry_off,
+2 pi sqrt(l c_in), by when an undamped ring has shown its lowest point, and the input back
+above the UVLO threshold) and a quarter of the attempt's length of the output's decay is in
+the waveform. "retry": off for retry_off,
 then a new attempt (the turn-on ramp restarts, the regulation count resets), up to
 RETRY_ATTEMPTS attempts. While the switch is off a started load stops drawing when v_out
 falls to v_on (its own undervoltage lockout) and no load draws at v_out <= 0; while it is
@@ -85,13 +86,19 @@ on a started load keeps drawing (the hysteresis of that lockout).
 The switch input: v_in is the c_in state, or without c_in v_out + v_ds (v_s - r i_L - l
 di_L/dt), sampled at the stage points and taken as linear in between for the time below the
 UVLO threshold (crossings interpolated). Without c_in a regulated stage's sample holds the
-inductive drop as its mean over the interval, l (i_b - i_a) / dt; where a load switching on
-steps the regulated reference up, the ideal FET is fully on for the few nanoseconds the
-inductance needs to take the new current and the input falls to v_out + R_sw i for
-l delta-i / depth seconds: that notch is shorter than any step and is put back with its
-floor and width (`_notch`). Such a floor, and any fully-on sample of an instant turn-on
-(t_on = 0), is a dip that only input capacitance bounds: the row's ``unb`` flag says the
-lowest value was set there.
+inductive drop as its mean over the interval, l (i_b - i_a) / dt, so two shapes are put
+back: entering regulation, the fully-on switch passes the inductance's current until it
+reaches the reference, and the input is lowest just before, v_out + R_sw i_ref at the
+crossing located between the stage values (then di/dt stops and it steps up); and where a
+load switching on steps the regulated reference up, the ideal FET is fully on for the few
+nanoseconds the inductance needs to take the new current and the input falls to
+v_out + R_sw i for l delta-i / depth seconds: that notch is shorter than any step and is put
+back with its floor and width (`_notch`). Such a floor, and any fully-on sample (or entry
+edge) of an instant turn-on (t_on = 0), is a dip that only input capacitance bounds: the
+row's ``unb`` flag says the lowest value was set there.
+
+The operating point of the peak power: on a plateau of equal power (within 1e-9, a power
+limit) the point at the highest v_ds, the harder one for the SOA.
 
 A row stops when its attempt completes (the switch no longer regulates, the turn-on ramp
 is over and the energy of the deviation from the DC operating point,

@@ -117,10 +117,14 @@ class StartupFigures:
     can reach, ``v_stall`` 0), STATUS_NO_CONVERGENCE (step budget exhausted), STATUS_TRIPPED
     (the timer latched the switch off, start incomplete), STATUS_RETRIED (completes, but only
     in attempt ``attempts`` > 1), STATUS_RETRY_EXHAUSTED (not complete within RETRY_ATTEMPTS),
-    STATUS_RUNAWAY (Tj passed tj_max + TJ_RUNAWAY_K). The figures are those of what happened
-    up to ``t_end``, whatever the status; NaN only where they do not exist (a stalled row
-    without a timer is not integrated; ``t_settle`` where the output did not settle,
-    ``t_limit`` where the free run did not complete, ``t_trip`` where nothing tripped).
+    STATUS_RUNAWAY (Tj passed tj_max + TJ_RUNAWAY_K; it takes precedence over a stall). The
+    figures are those of what happened up to ``t_end``, whatever the status; NaN only where
+    they do not exist (a stalled row without a timer is not integrated; ``t_settle`` where
+    the output did not settle, ``t_limit`` where the free run did not complete, ``t_trip``
+    where nothing tripped). ``attempts`` is 0 for a row not integrated; ``steps`` counts the
+    attempted steps of the run whose figures are given (the run with the timer acting where
+    there was one). Times are counted from the first turn-on (``t_settle`` of a retried start
+    included).
 
     ``t_limit`` is the regulation time the start needs with no timer acting (the free run).
     ``v_ds_at_peak`` and ``i_at_peak`` are the FET operating point at its peak power,
@@ -289,7 +293,8 @@ def simulate_startup(cz: Circuit, *, record: int | None = None, max_steps: int =
         else:
             st[outcome == OUTCOME_OFF] = STATUS_TRIPPED
         st[outcome == OUTCOME_RUNAWAY] = STATUS_RUNAWAY
-        status[rows] = np.where(stall_reg[rows], STATUS_STALLED, st)
+        # a stalled start stays stalled, unless the FET does not survive it
+        status[rows] = np.where(stall_reg[rows] & (st != STATUS_RUNAWAY), STATUS_STALLED, st)
 
     def out(x):
         return np.where(ran, x, np.nan)
