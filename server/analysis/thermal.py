@@ -174,18 +174,34 @@ def foster_step(theta, p0, pg, p1, dt_a, dt_b, r, tau):
     r d ((1 - e_a / x_a)(1 - e_b) + e_b - (1 - e_b / x_b)) at the end, e = 1 - exp(-x),
     x = dt / tau (formed directly, not as a difference of two rises).
     """
-    xa = dt_a[:, None] / tau
-    xb = dt_b[:, None] / tau
-    ea = -np.expm1(-xa)
-    eb = -np.expm1(-xb)
-    ga = 1.0 - ea / xa
-    gb = 1.0 - eb / xb
-    p0c, pgc, p1c = p0[:, None], pg[:, None], p1[:, None]
-    ta = theta - ea * theta + r * (p0c * ea + (pgc - p0c) * ga)
-    tb = ta - eb * ta + r * (pgc * eb + (p1c - pgc) * gb)
+    # in place where it can be: this runs every step on every row
+    xa = np.divide.outer(dt_a, tau)
+    xb = np.divide.outer(dt_b, tau)
+    ea = np.expm1(-xa)
+    np.negative(ea, out=ea)
+    eb = np.expm1(-xb)
+    np.negative(eb, out=eb)
+    ga = np.divide(ea, xa, out=xa)
+    np.subtract(1.0, ga, out=ga)
+    gb = np.divide(eb, xb, out=xb)
+    np.subtract(1.0, gb, out=gb)
+    w = np.multiply(p0[:, None], ea)
+    w += (pg - p0)[:, None] * ga
+    w *= r
+    ta = theta * (1.0 - ea)
+    ta += w
+    w = np.multiply(pg[:, None], eb)
+    w += (p1 - pg)[:, None] * gb
+    w *= r
+    tb = ta * (1.0 - eb)
+    tb += w
+    np.subtract(1.0, eb, out=w)
+    w *= ga
+    w += eb
+    w -= gb
+    w *= r
     d = pg - p0 - (p1 - p0) * (dt_a / (dt_a + dt_b))
-    bend = d * np.add.reduce(r * (ga * (1.0 - eb) + eb - gb), axis=1)
-    return ta, tb, bend
+    return ta, tb, d * np.add.reduce(w, axis=1)
 
 
 def foster_step_floats(theta, p0: float, pg: float, p1: float, dt_a: float, dt_b: float, r, tau):
@@ -197,10 +213,10 @@ def foster_step_floats(theta, p0: float, pg: float, p1: float, dt_a: float, dt_b
         xa, xb = dt_a / ti, dt_b / ti
         ea, eb = -math.expm1(-xa), -math.expm1(-xb)
         ga, gb = 1.0 - ea / xa, 1.0 - eb / xb
-        ta = th - ea * th + ri * (p0 * ea + dpa * ga)
+        ta = th * (1.0 - ea) + ri * (p0 * ea + dpa * ga)
         ta_out.append(ta)
-        tb_out.append(ta - eb * ta + ri * (pg * eb + dpb * gb))
-        shape += ri * (ga * (1.0 - eb) + eb - gb)
+        tb_out.append(ta * (1.0 - eb) + ri * (pg * eb + dpb * gb))
+        shape += (ga * (1.0 - eb) + eb - gb) * ri
     return ta_out, tb_out, (pg - p0 - (p1 - p0) * (dt_a / (dt_a + dt_b))) * shape
 
 
