@@ -46,6 +46,12 @@ the switch latches off, or retries after retry_off with the ramp and the count r
 up to RETRY_ATTEMPTS attempts (`integrator`). While off, a load stops drawing when v_out
 falls to its v_on (or to 0 V).
 
+With c_in and series inductance but no series resistance the input's L c_in ring has no
+damping while the switch regulates (a current source, or with a power limit a negative
+incremental resistance that can even grow it, the input-filter interaction of a
+constant-power sink): it rings for the whole regulation, which is resolved step by step and
+may exhaust the step budget; the capacitor's ESR belongs in supply.r_source.
+
 The supply dip is reported raw: v_supply_min is the lowest switch-input voltage over the
 run, t_below_uvlo the longest time it stays continuously below supply.uvlo (the upstream
 UVLO's deglitch time is compared with it by the checks, not applied here). Without c_in and
