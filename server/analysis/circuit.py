@@ -5,11 +5,13 @@ Provides
 Circuit
     Per-row circuit parameters (supply, series R and L, capacitor, current limit) and the
     parameters all rows share (load model, switch mode, FET, Foster network).
-circuit_rows(rail, *, v_s, c, i_limit)
-    Build a `Circuit` for a rail with per-row supply voltage, capacitance and current limit.
+circuit_rows(rail, *, v_s, c, i_limit=None, t_fault=None)
+    Build a `Circuit` for a rail with per-row supply voltage, capacitance, current limit
+    and fault-timer trip time.
 
-The circuit: an ideal supply v_s with r_source and l_source, the path (r, l), the switch,
-and at the output a capacitor c with series esr in parallel with the load. The load draws
+The circuit: an ideal supply v_s with r_source and l_source, the path (r, l), the node at
+the switch input with the input capacitance c_in to ground (optional), the switch, and at
+the output a capacitor c with series esr in parallel with the load. The load draws
 nothing below v_on; above it, resistive: v / R with R = v_nom / i_nom; constant current:
 i_nom; constant power: P / v with P = v_nom * i_nom.
 
@@ -20,6 +22,7 @@ C. K. Alexander and M. N. O. Sadiku, "Fundamentals of Electric Circuits", chapte
 
 from __future__ import annotations
 
+import math
 from dataclasses import dataclass, field, replace
 
 import numpy as np
@@ -44,8 +47,13 @@ class Circuit:
     i_lim : current limit, A (``NO_LIMIT`` where there is none).
     load, i_nom (A), v_on (V), v_nom (V): the load model.
     mode, t_on (s), dvdt (V/s), p_lim (W): the switch.
-    rds_on (ohm at 25 degC), alpha (1/K), r_th (K/W), tau_th (s), t_amb (degC): the FET.
-    uvlo_filter : time constant of the upstream UVLO's first-order filter, s (0: none).
+    rds_on (ohm at 25 degC), alpha (1/K), r_th (K/W), tau_th (s), t_amb (degC), tj_max
+    (degC): the FET.
+    t_fault : per row, the regulation time after which the fault timer turns the switch
+    off, s (``inf``: no timer acting). after_fault : "latch", "retry" or "none"; retry_off :
+    off time before a retry, s.
+    c_in : capacitance at the switch input, F (0.0: none). uvlo : the upstream
+    undervoltage lockout threshold, V (nan: none).
     """
 
     v_s: np.ndarray
@@ -67,7 +75,16 @@ class Circuit:
     r_th: np.ndarray = field(repr=False)
     tau_th: np.ndarray = field(repr=False)
     t_amb: float = 25.0
-    uvlo_filter: float = 1e-6
+    tj_max: float = 150.0
+    t_fault: np.ndarray | None = field(default=None, repr=False)
+    after_fault: str = "none"
+    retry_off: float = math.inf
+    c_in: float = 0.0
+    uvlo: float = math.nan
+
+    def __post_init__(self) -> None:
+        if self.t_fault is None:
+            object.__setattr__(self, "t_fault", np.full(self.v_s.shape, np.inf))
 
     @property
     def n(self) -> int:
@@ -83,7 +100,7 @@ class Circuit:
         return replace(
             self,
             v_s=self.v_s[rows], r=self.r[rows], l=self.l[rows], c=self.c[rows],
-            esr=self.esr[rows], i_lim=self.i_lim[rows],
+            esr=self.esr[rows], i_lim=self.i_lim[rows], t_fault=self.t_fault[rows],
         )
 
     # -- load ---------------------------------------------------------------
@@ -190,6 +207,9 @@ def circuit_rows(rail: Rail, *, v_s, c, i_limit=None, t_fault=None) -> Circuit:
         Output capacitance per row, F.
     i_limit : array_like, shape (n,), optional
         Current limit per row, A (default: the rail's nominal limit, or none).
+    t_fault : array_like, shape (n,), optional
+        Regulation time per row after which the fault timer turns the switch off, s
+        (default ``inf``: the start-up runs as if no timer acted).
 
     Returns
     -------
@@ -202,6 +222,9 @@ def circuit_rows(rail: Rail, *, v_s, c, i_limit=None, t_fault=None) -> Circuit:
     if i_limit is None:
         i_limit = full(sw.i_limit if sw.i_limit is not None else NO_LIMIT)
     r_th, tau_th = foster_arrays(rail.fet.zth)
+    if t_fault is None:
+        t_fault = np.inf
+    timer = sw.timer
     return Circuit(
         v_s=v_s,
         r=full(rail.supply.r_source + rail.path.r),
@@ -222,5 +245,10 @@ def circuit_rows(rail: Rail, *, v_s, c, i_limit=None, t_fault=None) -> Circuit:
         r_th=r_th,
         tau_th=tau_th,
         t_amb=rail.t_ambient,
-        uvlo_filter=0.0,  # the deglitch time is applied by the supply-dip check, not as a lag
+        tj_max=rail.fet.tj_max,
+        t_fault=np.broadcast_to(np.asarray(t_fault, dtype=float), (n,)).copy(),
+        after_fault=timer.after_fault if timer is not None else "none",
+        retry_off=timer.retry_off if (timer is not None and timer.retry_off is not None) else math.inf,
+        c_in=rail.supply.c_in or 0.0,
+        uvlo=rail.supply.uvlo if rail.supply.uvlo is not None else math.nan,
     )

@@ -2,10 +2,13 @@
 
 Provides
 --------
-integrate(cz, *, record=None, max_steps)
-    Run the adaptive TR-BDF2 integration of every row of a `Circuit` and return the raw
-    figures (dict of arrays), the rows left unfinished at the step cap and the waveform
-    of the recorded row.
+integrate(cz, *, t_est, i_typ, active, t_amb, record, max_steps, timer=False)
+    Run the adaptive TR-BDF2 integration of every active row of a `Circuit` and return the
+    raw figures (dict of arrays, with each row's outcome) and the waveform of the
+    recorded row.
+RETRY_ATTEMPTS, TJ_RUNAWAY_K
+    The largest number of attempts of a retrying switch, and the junction temperature
+    above tj_max at which a row stops as destroyed.
 
 One algorithm, two arithmetic back ends: `_ArrayOps` advances all rows of a batch in one
 vectorised iteration (corners, Monte Carlo, candidate capacitances), `_FloatOps` runs the
@@ -22,47 +25,111 @@ and implementation of TR-BDF2", Appl. Numer. Math. 20 (1996) 21-37, whose local 
 estimate 2 C h (f_n / gamma - f_g / (gamma (1 - gamma)) + f_1 / (1 - gamma)),
 C = (-3 gamma^2 + 4 gamma - 2) / (12 (2 - gamma)), controls the step (step factor
 0.9 err^(-1/3), limited to [0.2, 8], the bounds RADAU5 uses by default: E. Hairer and
-G. Wanner, "Solving Ordinary Differential Equations II", section IV.8; from memory).
+G. Wanner, "Solving Ordinary Differential Equations II", section IV.8; from memory). The
+estimate of each state is filtered by the iteration matrix, as Hosea and Shampine advise
+for stiff components, so that an inductance far below the step times the loop resistance
+no longer forces tiny steps.
 
-Each stage is a 2x2 linear system in (i, v_c): the load and the limit reference are
-linearised at a second-order predictor of v_out (one Newton step), the complementarity of
-the limit (v_reg >= 0, i <= i_ref, one of them tight) is resolved by taking the regulated
-solution where the unregulated current exceeds it. A step in which a load switches on at
-v_on, or the switch enters or leaves regulation, is rejected until it is shorter than 1e-4
-of the time scale (so t_limit and the load's start are located to that accuracy); the
-steps that close in on the event aim at it from the stage values and do not grow back
-until it is crossed, after which the error control resumes the step size the event cut
-(`_event_steps`). The Foster stage rises are advanced exactly with the power linear
-between stage points, and so is the switch-input voltage as the upstream UVLO sees it,
-through a first-order lag of time constant ``uvlo_filter`` (`lag`), with its lowest value
-inside each step. The lag's input v_s - r i - l di/dt has v_s - r i linear between stage
-points and l di/dt at its mean over each stage interval (the stage currents' difference
-over the interval), so the inductive drop keeps its exact area l (i_1 - i_0). Where a load
-switching on steps the regulated reference up, the ideal FET is fully on for the few
-nanoseconds the inductance needs to take the new current: that notch is shorter than any
-step, and is put back with its depth (down to v_out + R_sw i) and its width (area /
-depth), so that a filter not much slower than the step still sees the right dip
-(`_uvlo_interval`). Interpolating the stage samples of v_in instead would understate the
-dip: a regulated stage's sample is already the mean over its interval.
+States: the series current i_L (through r and l), the switch-input voltage v_in across
+c_in (where there is an input capacitance), the output capacitor voltage v_c and the Foster
+stage rises. Eliminating i_L and v_in from a stage's implicit equations leaves the switch
+facing a Thevenin source v_in = E - Z i_sw: without c_in E = rhs_L / dh + v_s,
+Z = l / dh + r; with c_in, from l i_L - dh (v_s - r i_L - v_in) = rhs_L and
+c_in v_in - dh (i_L - i_sw) = rhs_in,
+
+    E = (rhs_in (l + dh r) + dh (rhs_L + dh v_s)) / D,  Z = dh (l + dh r) / D,
+    D = c_in (l + dh r) + dh^2,
+
+so each stage stays a 2x2 linear system in (i_sw, v_c): the load and the limit reference
+are linearised at a second-order predictor of v_out (one Newton step), the
+complementarity of the limit (v_reg >= 0, i <= i_ref, one of them tight) is resolved by
+taking the regulated solution where the unregulated current exceeds it. Afterwards
+v_in = E - Z i_sw and i_L = i_sw + (c_in v_in - rhs_in) / dh. With l = r = 0 the same
+formulas give v_in = v_s: c_in then has no effect.
+
+A step in which a load switches on or off at v_on, or the switch enters or leaves
+regulation, is rejected until it is shorter than 1e-4 of the time scale (so t_limit and
+the load's start are located to that accuracy); the steps that close in on the event aim
+at it from the stage values and do not grow back until it is crossed, after which the
+error control resumes the step size the event cut (`_event_steps`). Steps land exactly on
+the end of the turn-on ramp, on the instant the fault timer trips (a step that would
+carry the regulation time past t_fault is cut back by the excess) and on the end of a
+retry's off time.
+
+Junction temperature: the Foster stage rises are advanced exactly with the power linear
+between stage points (`thermal.foster_step`); where the rise increases at the start of a
+step and decreases at its end, the closed form also gives the peak inside it
+(`thermal.foster_peak`), so the peak is not under-sampled. The step control bounds the
+thermal state too: the part of the rise owed to the bend of the power at the stage point
+(the difference from the power linear over the whole step; an estimate of the error of
+the piecewise-linear power) must stay below TJ_RTOL of (tj_max - t_ambient), and where
+Rds(on) follows Tj (a temperature coefficient) the rise may change by at most TJ_STEP of that
+span per step while the switch conducts (the step factor for that bound is linear in h).
+Rds(on) of a stage follows the junction temperature extrapolated to the stage with the
+slope of the previous step. Checked against scipy's solve_ivp within 0.5 % of the rise
+(tests/analysis/test_tj_peak.py).
+
+Fault timer (``timer=True``): each attempt accumulates the time the switch regulates
+(v_reg > 0); when it reaches the row's t_fault the switch turns off at that instant: its
+current is 0 from then on (the voltage spike of the series inductance at turn-off is not
+modelled; without c_in the series current simply stops). "latch": the switch stays off and
+the run goes on until the input side has settled (with c_in it rings, and the ring belongs
+to the dip: settled when its energy is within the stop band, or after two periods of
+2 pi sqrt(l c_in), by when an undamped ring has shown its lowest point, and the input back
+above the UVLO threshold) and a quarter of the attempt's length of the output's decay is in
+the waveform. "retry": off for retry_off,
+then a new attempt (the turn-on ramp restarts, the regulation count resets), up to
+RETRY_ATTEMPTS attempts. While the switch is off a started load stops drawing when v_out
+falls to v_on (its own undervoltage lockout) and no load draws at v_out <= 0; while it is
+on a started load keeps drawing (the hysteresis of that lockout).
+
+The switch input: v_in is the c_in state, or without c_in v_out + v_ds (v_s - r i_L - l
+di_L/dt), sampled at the stage points and taken as linear in between for the time below the
+UVLO threshold (crossings interpolated). Without c_in a regulated stage's sample holds the
+inductive drop as its mean over the interval, l (i_b - i_a) / dt, so two shapes are put
+back: entering regulation, the fully-on switch passes the inductance's current until it
+reaches the reference, and the input is lowest just before, v_out + R_sw i_ref at the
+crossing located between the stage values (then di/dt stops and it steps up); and where a
+load switching on steps the regulated reference up, the ideal FET is fully on for the few
+nanoseconds the inductance needs to take the new current and the input falls to
+v_out + R_sw i for l delta-i / depth seconds: that notch is shorter than any step and is put
+back with its floor and width (`_notch`). Such a floor, and any fully-on sample (or entry
+edge) of an instant turn-on (t_on = 0), is a dip that only input capacitance bounds: the
+row's ``unb`` flag says the lowest value was set there.
+
+The operating point of the peak power: on a plateau of equal power (within 1e-9, a power
+limit) the point at the highest v_ds, the harder one for the SOA.
+
+A row stops when its attempt completes (the switch no longer regulates, the turn-on ramp
+is over and the energy of the deviation from the DC operating point,
+l (i_L - i_f)^2 + c_in (v_in - v_s + r i_f)^2 + c (v_c - v_f)^2, is below
+c (1e-3 v_f)^2), when a tripped switch has been followed far enough, or when its junction
+passes tj_max + TJ_RUNAWAY_K (the FET would be destroyed, and Rds(on) extrapolated that
+far means nothing). Rows still running at the step cap keep what they computed.
 """
 
 from __future__ import annotations
 
 import math
 import operator
-from dataclasses import replace
 
 import numpy as np
 
 from .circuit import NO_LIMIT, R_OFF, Circuit
-from .lag import lag_advance, lag_advance_floats
-from .thermal import foster_advance, foster_advance_floats
+from .thermal import (foster_peak, foster_peak_floats, foster_rate, foster_rate_floats, foster_step,
+                      foster_step_floats)
 
-__all__ = ["RTOL", "SETTLE_BAND", "STOP_BAND", "integrate"]
+__all__ = ["RTOL", "SETTLE_BAND", "STOP_BAND", "TJ_RTOL", "TJ_STEP", "RETRY_ATTEMPTS", "TJ_RUNAWAY_K",
+           "OUTCOME_RUNNING", "OUTCOME_COMPLETE", "OUTCOME_OFF", "OUTCOME_RUNAWAY", "integrate"]
 
 RTOL = 2e-4  # local error tolerance relative to v_s and to the largest current so far
 SETTLE_BAND = 0.01  # t_settle: output within 1 % of its final value
 STOP_BAND = 1e-3  # stop when the deviation energy corresponds to 0.1 % of v_f
+TJ_RTOL = 5e-4  # local error of the junction rise per step, of (tj_max - t_ambient)
+TJ_STEP = 0.1  # largest change of the junction rise per step while Rds(on) follows it, of (tj_max - t_ambient)
+RETRY_ATTEMPTS = 8  # attempts of a retrying switch before the run gives up
+TJ_RUNAWAY_K = 100.0  # K above tj_max: the row stops as destroyed
+OUTCOME_RUNNING, OUTCOME_COMPLETE, OUTCOME_OFF, OUTCOME_RUNAWAY = 0, 1, 2, 3
 
 _G = 2.0 - math.sqrt(2.0)
 _D = _G / 2.0
@@ -75,6 +142,9 @@ _Q0 = (_G / 2.0 - 1.0 / 6.0) / _G
 _Q1 = 1.0 / (6.0 * _G * (1.0 - _G))
 _Q2 = (1.0 / 3.0 - _G / 2.0) / (1.0 - _G)
 _LOG_ROFF = math.log(R_OFF)
+_DH_INSTANT = 1e-200  # s: the stage of a switching instant (differential states hold)
+_LAND = 1e-12  # relative: a step ending this close to an instant has landed on it
+_INF = math.inf
 
 
 class _ArrayOps:
@@ -90,14 +160,14 @@ class _ArrayOps:
 
     @staticmethod
     def any(m) -> bool:
-        return bool(np.any(m))
+        return bool(m.any()) if isinstance(m, np.ndarray) else bool(m)
 
     @staticmethod
     def not_(m):
         return ~m
 
-    foster = staticmethod(foster_advance)
-    lag = staticmethod(lag_advance)
+    foster = staticmethod(foster_step)
+    rate = staticmethod(foster_rate)
 
     @staticmethod
     def rise(theta):
@@ -120,8 +190,8 @@ class _FloatOps:
     any = staticmethod(bool)
     not_ = staticmethod(operator.not_)
 
-    foster = staticmethod(foster_advance_floats)
-    lag = staticmethod(lag_advance_floats)
+    foster = staticmethod(foster_step_floats)
+    rate = staticmethod(foster_rate_floats)
 
     @staticmethod
     def rise(theta):
@@ -129,13 +199,14 @@ class _FloatOps:
 
 
 class _Stage:
-    __slots__ = ("i", "vc", "vout", "ic", "fi", "vds", "p", "lim", "exc", "event", "bad", "r_sw", "on")
+    __slots__ = ("i", "il", "vc", "vout", "vin", "ic", "fi", "fin", "vds", "p", "lim", "exc", "event", "bad",
+                 "r_sw", "on")
 
 
 class _Model:
     """Coefficients of the circuit rows, with the model branches fixed once per run."""
 
-    def __init__(self, cz: Circuit, ops) -> None:
+    def __init__(self, cz: Circuit, ops, timer: bool = False) -> None:
         self.cz = cz
         self.B = ops
         if ops is _FloatOps:
@@ -154,7 +225,21 @@ class _Model:
         self.g_free = cz.load in ("none", "constant_current")  # no load conductance
         self.cdvdt = self.c * cz.dvdt
         self.has_l = bool(np.any(cz.l > 0))
-        self.tau_uv = float(cz.uvlo_filter)
+        # the input capacitance matters only behind some series resistance or inductance
+        self.c_in = float(cz.c_in) if (cz.c_in > 0.0 and bool(np.any(cz.l + cz.r > 0))) else 0.0
+        self.has_cin = self.c_in > 0.0
+        # the dip only input capacitance bounds: none here, and series inductance
+        self.dip_flag = self.has_l and not self.has_cin
+        self.notch = self.dip_flag and self.limit and not self.continuous
+        self.t_ring = 2.0 * math.pi * math.sqrt(float(np.max(cz.l)) * self.c_in)
+        self.uvlo = float(cz.uvlo)
+        self.has_uvlo = math.isfinite(self.uvlo)
+        self.timer = timer
+        self.retry = cz.after_fault == "retry"
+        self.retry_off = float(cz.retry_off)
+        self.t_fault = pick(cz.t_fault) if timer else None
+        self.th_span = float(cz.tj_max - cz.t_amb)
+        self.tj_runaway = float(cz.tj_max + TJ_RUNAWAY_K)
         # shared constants looked up once (the float back end calls these every stage)
         self.floats = ops is _FloatOps
         self.mode = cz.mode
@@ -164,46 +249,55 @@ class _Model:
         self.rds_on, self.alpha = cz.rds_on, cz.alpha
 
     def take(self, rows) -> "_Model":
-        return _Model(self.cz.take(rows), self.B)
+        return _Model(self.cz.take(rows), self.B, self.timer)
 
     def r_on(self, tj):
         return self.rds_on * self.B.maximum(1.0 + self.alpha * (tj - 25.0), 0.1)
 
     def switch_r(self, t, r_on):
-        """Switch resistance: log-linear from R_OFF to r_on over t_on, then r_on."""
+        """Switch resistance ``t`` seconds after turn-on: log-linear from R_OFF to r_on over
+        t_on, then r_on."""
         if self.t_on > 0.0:
             if self.floats and t >= self.t_on:
                 return r_on
             B = self.B
-            x = B.minimum(t * (1.0 / self.t_on), 1.0)
-            return B.exp(_LOG_ROFF + x * (B.log(r_on) - _LOG_ROFF))
+            x = B.minimum(B.maximum(t * (1.0 / self.t_on), 0.0), 1.0)
+            return B.where(x < 1.0, B.exp(_LOG_ROFF + x * (B.log(r_on) - _LOG_ROFF)), r_on)
         return r_on
 
-    def load_linear(self, v, started):
+    def load_linear(self, v, started, sw_on):
         """Load current linearised at v: i_load ~ a + g v; and whether the load is on.
 
-        A load is on above v_on and, once started, stays on (``started``: a load's own
-        undervoltage lockout has hysteresis, so the dip its start causes does not turn it
-        off again).
+        A load is on above v_on and, once started, stays on while the switch is on (a
+        load's own undervoltage lockout has hysteresis, so the dip its start causes does
+        not turn it off again). While the switch is off (``sw_on`` False) a started load
+        stops once v falls to v_on (to 0 V for v_on = 0).
         """
         B = self.B
         if self.load == "none":
             return 0.0, 0.0, None
+        if self.load == "resistive" and self.v_on == 0.0:
+            return 0.0, self.g_load, None
+        above = v > self.v_on
+        if sw_on is None:
+            on = started | above
+        else:
+            on = B.where(sw_on, started | above, started & above)
         if self.load == "resistive":
-            g = self.g_load
-            if self.v_on == 0.0:
-                return 0.0, g, None
-            on = started | (v > self.v_on)
-            return 0.0, B.where(on, g, 0.0), on
-        on = started | (v > self.v_on)
+            return 0.0, B.where(on, self.g_load, 0.0), on
         if self.load == "constant_current":
             return B.where(on, self.i_nom, 0.0), 0.0, on
         vv = B.maximum(v, self.v_on)
         a = B.where(on, 2.0 * self.p_load / vv, 0.0)
         return a, -0.5 * a / vv, on
 
-    def reference(self, v_p, a, g):
-        """Limit reference linearised at the predictor v_p: i_ref ~ q + s v_out."""
+    def reference(self, v_p, a, g, e_ref, z_ref):
+        """Limit reference linearised at the predictor v_p: i_ref ~ q + s v_out.
+
+        The power limit holds (e_ref - z_ref i - v_out) i = p_lim: the switch faces the
+        source e_ref behind z_ref (v_s and r without c_in, the l di/dt of the regulated
+        current neglected; the stage's Thevenin source with c_in).
+        """
         B = self.B
         if self.mode == "slew":
             q = self.cdvdt + a
@@ -211,8 +305,8 @@ class _Model:
             return B.where(use_lim, self.i_lim, q), B.where(use_lim, 0.0, g)
         if self.mode == "power_limit":
             p_lim = self.p_lim
-            vd = B.maximum(self.v_s - v_p, 0.0)
-            disc = vd * vd - 4.0 * self.r * p_lim
+            vd = B.maximum(e_ref - v_p, 0.0)
+            disc = vd * vd - 4.0 * z_ref * p_lim
             root = B.sqrt(B.maximum(disc, 0.0))
             ip = B.where(disc > 0.0, 2.0 * p_lim / B.maximum(vd + root, 1e-300), NO_LIMIT)
             use_lim = ip >= self.i_lim
@@ -234,12 +328,21 @@ class _Model:
             i = 2.0 * self.p_load / (self.v_s + self.B.sqrt(self.B.maximum(disc, 0.0)))
         return self.v_s - rt * i, i
 
-    def stage(self, ts, dh, rhs_i, rhs_v, v_p, r_on, i_prev, dt_prev, started) -> _Stage:
-        """Solve (l/dh + r + R_sw) i + v_out = rhs_i/dh + v_s and
-        c v_c - dh (i - i_load(v_out)) = rhs_v, or i = i_ref where that is smaller."""
+    def source(self, dh, rhs_l, rhs_in):
+        """The Thevenin source (E, Z) the switch faces in a stage (V, ohm)."""
+        if self.has_cin:
+            yl = self.l + dh * self.r
+            den = 1.0 / (self.c_in * yl + dh * dh)
+            return (rhs_in * yl + dh * (rhs_l + dh * self.v_s)) * den, dh * yl * den
+        return rhs_l / dh + self.v_s, self.l / dh + self.r
+
+    def stage(self, ts, dh, E, Z, rhs_in, rhs_v, v_p, r_on, i_prev, dt_prev, started, sw_on) -> _Stage:
+        """Solve (Z + R_sw) i + v_out = E and c v_c - dh (i - i_load(v_out)) = rhs_v, or
+        i = i_ref where that is smaller, or i = 0 where the switch is off (``sw_on``);
+        ``ts`` is the time since the switch turned on."""
         B = self.B
         r_sw = self.switch_r(ts, r_on)
-        a, g, on_p = self.load_linear(v_p, started)
+        a, g, on_p = self.load_linear(v_p, started, sw_on)
         esr = self.esr
         st = _Stage()
         if self.g_free:
@@ -261,41 +364,65 @@ class _Model:
             st.bad = st.bad | bad22
             m22 = B.where(bad22, self.c, m22)
             b2 = rhs_v - dh * (a + g * a0)
-        m11 = self.l / dh + self.r + r_sw + ai
-        b1 = rhs_i / dh + self.v_s - a0
+        m11 = Z + r_sw + ai
+        b1 = E - a0
         w = 1.0 / m22
         avw = av * w
         i_free = (b1 - avw * b2) / (m11 - avw * m21)
         if self.limit:
-            q, s = self.reference(v_p, a, g)
+            if self.has_cin:
+                q, s = self.reference(v_p, a, g, E, Z)
+            else:
+                q, s = self.reference(v_p, a, g, self.v_s, self.r)
             den_l = 1.0 - s * (ai - avw * m21)
             if self.regulates:
                 weak = den_l < 0.1
+                if sw_on is not None:  # an off switch regulates nothing
+                    weak = weak & sw_on
                 st.bad = weak if st.bad is None else (st.bad | weak)
                 den_l = B.where(weak, 1.0, den_l)
             i_lim = (q + s * (a0 + avw * b2)) / den_l
             exc = i_free - i_lim
             lim = exc > 0.0
+            if sw_on is not None:
+                lim = lim & sw_on
+                exc = B.where(sw_on, exc, -1.0)
             i = B.where(lim, i_lim, i_free)
         else:
             exc = lim = None
             i = i_free
+        if sw_on is not None:
+            i = B.where(sw_on, i, 0.0)
         vc = (b2 - m21 * i) * w
         vout = av * vc + ai * i + a0
         ic = i - a - g * vout
-        if self.limit:
-            fi = B.where(lim, self.l * (i - i_prev) / dt_prev, self.v_s - (self.r + r_sw) * i - vout)
-            vds = B.where(lim, self.v_s - self.r * i - vout - fi, r_sw * i)
+        if self.has_cin:
+            vin = E - Z * i
+            il = i + (self.c_in * vin - rhs_in) / dh
+            st.fi = self.v_s - self.r * il - vin
+            st.fin = il - i
+            vds = vin - vout
         else:
-            fi = self.v_s - (self.r + r_sw) * i - vout
-            vds = r_sw * i
-        st.i, st.vc, st.vout, st.ic, st.fi, st.vds, st.lim, st.exc = i, vc, vout, ic, fi, vds, lim, exc
+            il = i
+            if self.limit:
+                fi = B.where(lim, self.l * (i - i_prev) / dt_prev, self.v_s - (self.r + r_sw) * i - vout)
+                vds = B.where(lim, self.v_s - self.r * i - vout - fi, r_sw * i)
+            else:
+                fi = self.v_s - (self.r + r_sw) * i - vout
+                vds = r_sw * i
+            if sw_on is not None:  # off: no current, no inductive drop, the FET blocks
+                fi = B.where(sw_on, fi, 0.0)
+                vds = B.where(sw_on, vds, self.v_s - vout)
+            st.fi = fi
+            vin = vout + vds
+        st.i, st.il, st.vc, st.vout, st.vin, st.ic, st.vds, st.lim, st.exc = i, il, vc, vout, vin, ic, vds, lim, exc
         st.p = vds * i
         st.r_sw = r_sw
         if on_p is None:
             st.event = st.on = None
         else:
-            st.on = started | (vout > self.v_on)
+            st.on = B.where(sw_on, started | (vout > self.v_on), started & (vout > self.v_on)) \
+                if sw_on is not None else started | (vout > self.v_on)
             st.event = st.on ^ on_p
         return st
 
@@ -304,71 +431,88 @@ class _State:
     """Working values of the rows still being integrated (arrays, or floats for one row)."""
 
 
-_STATE = ("t", "h", "grow", "phase", "h_back", "h_cut", "t_hi", "aimed", "i", "vc", "vout", "ic", "fi", "p",
-          "exc", "lim", "theta", "tj", "r_on", "started", "i_scale", "atol_i", "atol_v", "t_est", "h_evt",
-          "steps", "rows", "active", "i_peak", "t_i_peak", "p_peak", "v_pk", "i_pk", "e_fet", "t_limit",
-          "v_in_min", "t_settle", "tj_peak", "v_flt", "v_flt_min")
-FIGURES = ("i_peak", "t_i_peak", "p_peak", "v_pk", "i_pk", "e_fet", "t_limit", "v_in_min", "t_settle",
-           "tj_peak", "t", "tj", "steps", "active", "i", "v_flt_min")
+FIGURES = ("i_peak", "t_i_peak", "p_peak", "v_pk", "i_pk", "e_fet", "t_reg", "v_in_min", "unb", "bl_max", "bl_t0",
+           "t_settle", "tj_peak", "t", "tj", "steps", "active", "outcome", "attempt", "t_trip", "i", "vout")
+_PULSES = ("e_att", "pp_att", "v_att", "i_att", "tj_att")
+
+
+def _instant(m: _Model, S, idx=None):
+    """The algebraic quantities at a switching instant (t = 0, a trip, a retry), the
+    differential states (series current where l > 0, the capacitor voltages) holding.
+
+    Returns the `_Stage` of rows ``idx`` of ``S`` (all rows where None) for the model
+    ``m`` of those rows; where c_in is modelled the series current is the held state
+    (or v_s - r i_L = v_in where l = 0).
+    """
+    B = m.B
+    g = (lambda x: x) if idx is None else (lambda x: x[idx])  # noqa: E731
+    il, vin, vc, vout = g(S.il), g(S.vin), g(S.vc), g(S.vout)
+    dh = _DH_INSTANT
+    if m.has_cin:
+        E, Z = vin, 0.0 * vin
+    else:
+        E, Z = m.l * il / dh + m.v_s, m.l / dh + m.r
+    sw_on = g(S.on) if m.timer else None
+    t_rel = g(S.t) - g(S.t_att)
+    st = m.stage(t_rel, dh, E, Z, m.c_in * vin, m.c * vc, vout, g(S.r_on), il, 1.0, g(S.started), sw_on)
+    if m.has_cin:
+        r_safe = B.where(m.r > 0.0, m.r, 1.0)
+        il = B.where(m.l > 0.0, il, B.where(m.r > 0.0, (m.v_s - vin) / r_safe, st.i))
+        st.il = il
+        st.vin = vin
+        st.fi = m.v_s - m.r * il - vin
+        st.fin = il - st.i
+    else:
+        # the input before the inductance has taken up any change of current
+        st.vin = B.where(m.l > 0.0, m.v_s - m.r * st.i, st.vin)
+    return st
+
+
+def _put(S, name, idx, val):
+    """Write ``val`` into rows ``idx`` of state ``name`` (all rows where idx is None)."""
+    if idx is None:
+        setattr(S, name, val)
+    else:
+        arr = getattr(S, name)
+        arr[idx] = val
+
+
+def _apply_instant(m: _Model, S, st: _Stage, idx=None) -> None:
+    """Take the algebraic quantities of `_instant` into the state."""
+    for name, val in (("i", st.i), ("il", st.il), ("vout", st.vout), ("vin", st.vin), ("ic", st.ic),
+                      ("fi", st.fi), ("p", st.p)):
+        _put(S, name, idx, val)
+    if m.has_cin:
+        _put(S, "fin", idx, st.fin)
+    if m.limit:
+        _put(S, "exc", idx, st.exc)
+        _put(S, "lim", idx, st.lim)
+    g = (lambda x: x) if idx is None else (lambda x: x[idx])  # noqa: E731
+    _put(S, "dtj", idx, m.B.rate(g(S.theta), st.p, m.r_th, m.tau_th))
 
 
 def _initial(model: _Model, t_est, i_typ, rows, active, t_amb: float) -> _State:
-    """State at t = 0: the algebraic current where l = 0, zero current otherwise."""
+    """State at t = 0: capacitors discharged, no series current, the input at v_s."""
     B, cz = model.B, model.cz
     n = cz.n
-    S = _State()
     zero = np.zeros(n)
     r_on0 = cz.rds_on * np.maximum(1.0 + cz.alpha * (t_amb - 25.0), 0.1) * np.ones(n)
-    m0 = _Model(replace(cz, l=zero), _ArrayOps)
-    s0 = m0.stage(zero, np.full(n, 1e-300), zero, zero, zero, r_on0, zero, np.ones(n), np.zeros(n, bool))
-    with_l = cz.l > 0
-    exc0 = s0.exc if s0.exc is not None else -np.ones(n)
-    lim0 = s0.lim if s0.lim is not None else np.zeros(n, bool)
-    vals = {
-        "i": np.where(with_l, 0.0, s0.i),
-        "vc": zero,
-        "vout": np.where(with_l, 0.0, s0.vout),
-        "ic": np.where(with_l, 0.0, s0.ic),
-        "exc": np.where(with_l, -1.0, exc0),
-        "lim": np.where(with_l, False, lim0),
-        "tj": np.full(n, t_amb),
-        "r_on": r_on0,
-        "t": zero,
-        "h": 1e-7 * t_est,
-        "grow": np.full(n, 8.0),
-        "phase": np.zeros(n, np.int8),
-        "h_back": zero,
-        "t_hi": zero,
-        "h_cut": zero,
-        "aimed": np.zeros(n, bool),
-        "h_evt": 1e-4 * t_est,
-        "t_est": t_est,
-        "atol_i": 1e-6 * i_typ,
-        "i_scale": i_typ,
-        "atol_v": 1e-7 * cz.v_s,
-        "steps": np.zeros(n, np.int64),
-        "e_fet": zero,
-        "t_limit": zero,
-        "v_in_min": np.full(n, np.inf),
-        "t_settle": zero,
-        "rows": rows,
-        "active": active,
-        "started": np.zeros(n, bool),
-    }
-    vals["fi"] = np.where(with_l, cz.v_s - vals["vout"], 0.0)
-    vds0 = np.where(with_l, 0.0, s0.vds)
-    vals["p"] = vds0 * vals["i"]
-    vals["i_peak"] = np.maximum(vals["i"], 0.0)
-    vals["t_i_peak"] = zero
-    vals["p_peak"] = vals["p"]
-    vals["v_pk"] = vds0
-    vals["i_pk"] = vals["i"]
-    vals["tj_peak"] = vals["tj"]
-    vals["v_ds0"] = np.where(with_l, cz.v_s, vds0)
-    # the UVLO filter has seen the supply before the switch turns on
-    vals["v_flt"] = np.array(cz.v_s, dtype=float)
-    vals["v_flt_min"] = np.array(cz.v_s, dtype=float)
     k = cz.r_th.shape[0]
+    vals = {
+        "il": zero, "vc": zero, "vout": zero, "vin": np.array(cz.v_s, dtype=float), "i": zero, "ic": zero,
+        "fi": zero, "fin": zero, "p": zero, "exc": -np.ones(n), "lim": np.zeros(n, bool),
+        "tj": np.full(n, t_amb), "r_on": r_on0, "r_rate": zero, "dtj": zero,
+        "t": zero, "h": 1e-7 * t_est, "grow": np.full(n, 8.0), "phase": np.zeros(n, np.int8), "h_back": zero,
+        "t_hi": zero, "h_cut": zero, "aimed": np.zeros(n, bool), "h_evt": 1e-4 * t_est, "t_est": t_est,
+        "atol_i": 1e-6 * i_typ, "i_scale": i_typ, "atol_v": 1e-7 * cz.v_s, "steps": np.zeros(n, np.int64),
+        "e_fet": zero, "t_reg": zero, "v_in_min": np.array(cz.v_s, dtype=float), "unb": np.zeros(n, bool),
+        "bl_max": zero, "bl_t0": np.where(cz.v_s < cz.uvlo, 0.0, np.inf), "t_settle": zero,
+        "rows": rows, "active": active, "started": np.zeros(n, bool), "on": np.ones(n, bool),
+        "t_att": zero, "attempt": np.ones(n, np.int64), "t_restart": np.full(n, np.inf),
+        "t_trip": np.full(n, np.nan), "t_off": np.full(n, np.inf), "latched": np.zeros(n, bool),
+        "outcome": np.zeros(n, np.int8), "t_i_peak": zero,
+    }
+    S = _State()
     if B is _FloatOps:
         for key, val in vals.items():
             v = val[0]
@@ -378,10 +522,19 @@ def _initial(model: _Model, t_est, i_typ, rows, active, t_amb: float) -> _State:
         for key, val in vals.items():
             setattr(S, key, np.array(val, copy=True))
         S.theta = np.zeros((n, k))
+    _apply_instant(model, S, _instant(model, S))
+    S.i_peak = B.maximum(S.i, 0.0)
+    S.p_peak = S.p
+    S.v_pk = S.vin - S.vout
+    S.i_pk = S.i
+    S.tj_peak = S.tj
+    for name, val in zip(_PULSES, (0.0, S.p, S.vin - S.vout, S.i, t_amb)):
+        setattr(S, name, val if B is _FloatOps else np.array(np.broadcast_to(val, (n,)), dtype=float))
     return S
 
 
-def integrate(cz: Circuit, *, t_est, i_typ, active, t_amb: float, record: int | None, max_steps: int):
+def integrate(cz: Circuit, *, t_est, i_typ, active, t_amb: float, record: int | None, max_steps: int,
+              timer: bool = False):
     """Integrate the start-up of the rows of ``cz`` that are ``active``.
 
     Parameters
@@ -400,32 +553,52 @@ def integrate(cz: Circuit, *, t_est, i_typ, active, t_amb: float, record: int | 
         Row whose waveform is recorded.
     max_steps : int
         Step cap per row.
+    timer : bool
+        Whether the fault timer acts (each row's ``cz.t_fault``).
 
     Returns
     -------
     figures : dict of ndarray
-        Names in `FIGURES`; ``active`` is True for rows stopped by the step cap.
+        Names in `FIGURES` (shape (n,)) and the per-attempt ``pulse_e``, ``pulse_p_peak``,
+        ``pulse_v_ds``, ``pulse_i``, ``pulse_tj_start`` (shape (n, RETRY_ATTEMPTS)).
+        ``outcome`` is OUTCOME_COMPLETE, OUTCOME_OFF (the switch turned off for good),
+        OUTCOME_RUNAWAY or OUTCOME_RUNNING (stopped by the step cap).
     waveform : dict or None
     """
     n = cz.n
     ops = _FloatOps if n == 1 else _ArrayOps
-    model = _Model(cz, ops)
+    model = _Model(cz, ops, timer)
     S = _initial(model, t_est, i_typ, np.arange(n), active.copy(), t_amb)
     final = {name: np.array(np.atleast_1d(getattr(S, name)), copy=True) for name in FIGURES}
+    k = RETRY_ATTEMPTS if timer else 1
+    for name in ("pulse_e", "pulse_p_peak", "pulse_v_ds", "pulse_i", "pulse_tj_start"):
+        final[name] = np.full((n, k), np.nan)
     wave = None
     rec = None
     if record is not None and active[record]:
         rec = record
-        pick = (lambda x: x) if ops is _FloatOps else (lambda x: x[record])
-        wave = {"t": [0.0], "v_out": [float(pick(S.vout))], "i": [float(pick(S.i))],
-                "v_ds": [float(pick(S.v_ds0))], "p_fet": [float(pick(S.p))], "tj": [t_amb]}
+        wave = {key: [] for key in ("t", "v_out", "v_in", "i", "v_ds", "p_fet", "tj", "on")}
+        _record(wave, S, rec if ops is _ArrayOps else None)
     if ops is _ArrayOps and not active.all():
         model, S = _compact(model, S, final)
         rec = _locate(S, record, rec)
     with np.errstate(divide="ignore", invalid="ignore", over="ignore"):
         S = _run(model, S, final, wave, rec, record, t_amb, max_steps)
-    _store(S, final, ops)
+    _store(model, S, final, ops)
     return final, wave
+
+
+def _record(wave: dict, S, j) -> None:
+    """Append the present point of row ``j`` (None: the float back end) to the waveform."""
+    take = (lambda x: x) if j is None else (lambda x: x[j])  # noqa: E731
+    wave["t"].append(float(take(S.t)))
+    wave["v_out"].append(float(take(S.vout)))
+    wave["v_in"].append(float(take(S.vin)))
+    wave["i"].append(float(take(S.i)))
+    wave["v_ds"].append(float(take(S.vin) - take(S.vout)))
+    wave["p_fet"].append(float(take(S.p)))
+    wave["tj"].append(float(take(S.tj)))
+    wave["on"].append(1.0 if take(S.on) else 0.0)
 
 
 def _locate(S: _State, record, rec):
@@ -439,62 +612,124 @@ def _run(model: _Model, S: _State, final: dict, wave, rec, record, t_amb: float,
     B = model.B
     arrays = B is _ArrayOps
     t_on = model.t_on
+    timer = model.timer
+    tol_th = TJ_RTOL * model.th_span
+    step_th = TJ_STEP * model.th_span
+    varies = model.alpha != 0.0
     it = 0
     while B.any(S.active):
         it += 1
         if it > max_steps:
-            return S  # rows still active are reported as unfinished
+            return S  # rows still active keep what they computed
         if arrays and S.rows.size > 64 and np.count_nonzero(S.active) < 0.6 * S.rows.size:
             model, S = _compact(model, S, final)
             rec = _locate(S, record, rec)
         m = model
         active = S.active
         S.steps = S.steps + active
-        t, i, vc, vout, ic, fi = S.t, S.i, S.vc, S.vout, S.ic, S.fi
+        t, i, il, vc, vout, vin, ic, fi = S.t, S.i, S.il, S.vc, S.vout, S.vin, S.ic, S.fi
         h = B.minimum(S.h, 0.1 * B.maximum(S.t_est, t))
         if t_on > 0.0:
-            cut = (t < t_on) & (t + h > t_on)
-            h = B.where(cut, B.maximum(t_on - t, 1e-300), h)
+            t_full = (S.t_att + t_on) if timer else t_on
+            cut = (t < t_full) & (t + h > t_full)
+            h = B.where(cut, B.maximum(t_full - t, 1e-300), h)
+        sw_on = None
+        if timer:
+            sw_on = S.on
+            if m.limit:  # land on the instant the regulation time reaches t_fault
+                h = B.where(sw_on & S.lim, B.minimum(h, m.t_fault - S.t_reg), h)
+            h = B.where(t + h > S.t_restart, B.maximum(S.t_restart - t, 1e-300), h)
         c = m.c
         gh = _G * h
         dh = _D * h
         dt1 = h - gh
+        t_rel = (t - S.t_att) if (t_on > 0.0 and timer) else t  # time since the switch turned on
+        if varies:  # Rds(on) at the junction temperature extrapolated to the stage
+            r_floor = 0.1 * m.rds_on  # rds_at's floor
+            r_on_g = B.maximum(S.r_on + S.r_rate * gh, r_floor)
+            r_on_1 = B.maximum(S.r_on + S.r_rate * h, r_floor)
+        else:
+            r_on_g = r_on_1 = S.r_on
         # stage 1: trapezoidal rule to t + gamma h; stage 2: BDF2 to t + h
-        s1 = m.stage(t + gh, dh, m.l * i + dh * fi, c * vc + dh * ic, vout + gh * ic / c, S.r_on, i, gh,
-                     S.started)
-        s2 = m.stage(t + h, dh, m.l * (_C1 * s1.i - _C2 * i), c * (_C1 * s1.vc - _C2 * vc),
-                     vout + (s1.vout - vout) * (1.0 / _G), S.r_on, s1.i, dt1, S.started)
+        rhs_in1 = m.c_in * vin + dh * S.fin if m.has_cin else 0.0
+        e1, z1 = m.source(dh, m.l * il + dh * fi, rhs_in1)
+        s1 = m.stage(t_rel + gh, dh, e1, z1, rhs_in1, c * vc + dh * ic, vout + gh * ic / c, r_on_g, i, gh,
+                     S.started, sw_on)
+        rhs_in2 = m.c_in * (_C1 * s1.vin - _C2 * vin) if m.has_cin else 0.0
+        e2, z2 = m.source(dh, m.l * (_C1 * s1.il - _C2 * il), rhs_in2)
+        s2 = m.stage(t_rel + h, dh, e2, z2, rhs_in2, c * (_C1 * s1.vc - _C2 * vc),
+                     vout + (s1.vout - vout) * (1.0 / _G), r_on_1, s1.i, dt1, S.started, sw_on)
         eh = _EC * h
-        err = B.fabs(eh * (_W0 * ic + _W1 * s1.ic + _W2 * s2.ic) / c) / (S.atol_v + RTOL * m.v_s)
-        if m.has_l:
+        tol_v = S.atol_v + RTOL * m.v_s
+        err = B.fabs(eh * (_W0 * ic + _W1 * s1.ic + _W2 * s2.ic) / c) / tol_v
+        if m.has_cin:
+            # (i_L, v_in) estimates filtered by their 2x2 block of the iteration matrix, the
+            # switch a conductance to the output where it is fully on
+            ea = eh * (_W0 * fi + _W1 * s1.fi + _W2 * s2.fi)
+            eb = eh * (_W0 * S.fin + _W1 * s1.fin + _W2 * s2.fin)
+            g_sw = 1.0 / (s2.r_sw + m.esr)
+            if m.limit:
+                g_sw = B.where(s2.lim, 0.0, g_sw)
+            if timer:
+                g_sw = B.where(sw_on, g_sw, 0.0)
+            yl = m.l + dh * m.r
+            cg = m.c_in + dh * g_sw
+            inv = 1.0 / (yl * cg + dh * dh)
+            err = B.maximum(err, B.fabs((yl * eb + dh * ea) * inv) / tol_v)
+            if m.has_l:
+                err = B.maximum(err, B.fabs((cg * ea - dh * eb) * inv) / (S.atol_i + RTOL * S.i_scale))
+        elif m.has_l:
             # the current is a differential state only where no point of the step regulates
-            # filtered by the diagonal of the iteration matrix, (l + d h (r + R_sw + esr)),
-            # as Hosea and Shampine advise for stiff components: an inductance far below
-            # the step times the loop resistance no longer forces tiny steps
             ei = eh * (_W0 * fi + _W1 * s1.fi + _W2 * s2.fi) / (m.l + dh * (m.r + s2.r_sw + m.esr))
             if m.limit:
                 ei = B.where(S.lim | s1.lim | s2.lim, 0.0, ei)
             err = B.maximum(err, B.fabs(ei) / (S.atol_i + RTOL * S.i_scale))
+
+        # junction temperature: exact Foster update with the power linear between stages;
+        # what the bend of the power at the stage point adds measures the error of taking
+        # the power as linear between stage points
+        th_g, th_1, bend = B.foster(S.theta, S.p, s1.p, s2.p, gh, dt1, m.r_th, m.tau_th)
+        tj_g = t_amb + B.rise(th_g)
+        tj_1 = t_amb + B.rise(th_1)
+        err = B.maximum(err, B.fabs(bend) / tol_th)
+        fac_err = 0.9 * B.maximum(err, 1e-12) ** (-1.0 / 3.0)
+        if varies:  # Rds(on) follows Tj: bound the change of Tj while the switch conducts
+            e_tj = B.fabs(tj_1 - S.tj) / step_th
+            if timer:
+                e_tj = B.where(sw_on, e_tj, 0.0)
+            err = B.maximum(err, e_tj)
+            fac_err = B.minimum(fac_err, 0.9 / B.maximum(e_tj, 1e-12))  # the change is ~ h
+
         bad = B.not_(err <= 1e300)
         if s1.bad is not None:
             bad = bad | s1.bad | s2.bad
         evt = None
         if s1.event is not None:
-            # a load switching on inside the step: against the predictor of either stage,
-            # or between the start of the step and its end
-            on_n = S.started | (vout > m.v_on)
+            # a load switching on or off inside the step: against the predictor of either
+            # stage, or between the start of the step and its end
+            above = vout > m.v_on
+            on_n = (B.where(sw_on, S.started | above, S.started & above) if timer else S.started | above)
             evt = s1.event | s2.event | (s2.on ^ on_n)
         if m.limit:
             # the switch enters or leaves regulation inside the step
             turn = (S.lim ^ s1.lim) | (s1.lim ^ s2.lim)
             evt = turn if evt is None else (evt | turn)
+            dtl = _lim_time(B, S.exc, s1.exc, gh) + _lim_time(B, s1.exc, s2.exc, dt1)
         ok = active & (err <= 1.0) & B.not_(bad)
+        over = None
+        if timer and m.limit:
+            # a step must not carry the regulation time past t_fault: cut it back by the excess
+            excess = S.t_reg + dtl - m.t_fault
+            over = ok & (excess > 1e-9 * m.t_fault)
+            if B.any(over):
+                ok = ok & B.not_(over)
+            else:
+                over = None
         if evt is not None:
             # ... is located within 1e-4 of the time scale (t_limit and the load's start to
             # that accuracy): a step holding an event must not be longer than h_evt
             long_evt = evt & (h > S.h_evt)
             ok = ok & B.not_(long_evt)
-        fac_err = 0.9 * B.maximum(err, 1e-12) ** (-1.0 / 3.0)
         fac = B.minimum(B.maximum(fac_err, 0.2), S.grow)
         h_next = B.where(ok, h * fac, B.where(bad, 0.25 * h, h * B.maximum(fac, 0.1)))
         if evt is not None:
@@ -505,16 +740,12 @@ def _run(model: _Model, S: _State, final: dict, wave, rec, record, t_amb: float,
                 h_next = _event_rows(S, ok, hit, evt, f_on, f_lim, t, h, h_next, fac_err)
             elif hit or S.phase == 1:
                 h_next = _event_steps(B, S, ok, hit, evt, _event_frac(B, hit, f_on, f_lim), t, h, h_next, fac_err)
+        if over is not None:
+            h_next = B.where(over, B.minimum(h_next, h - excess), h_next)
         S.h = h_next
         S.grow = B.where(ok, 8.0, 1.0)  # no growth right after a rejected step (Hairer & Wanner)
         if not B.any(ok):
             continue
-
-        # junction temperature: exact Foster update with the power linear between stages
-        th_g = B.foster(S.theta, S.p, s1.p, gh, m.r_th, m.tau_th)
-        th_1 = B.foster(th_g, s1.p, s2.p, dt1, m.r_th, m.tau_th)
-        tj_g = t_amb + B.rise(th_g)
-        tj_1 = t_amb + B.rise(th_1)
         t1 = t + h
 
         # peak current: stage values, and the vertex of the quadratic where all free
@@ -535,49 +766,50 @@ def _run(model: _Model, S: _State, final: dict, wave, rec, record, t_amb: float,
         new_pk = ok & (pk > S.i_peak)
         S.i_peak = B.where(new_pk, pk, S.i_peak)
         S.t_i_peak = B.where(new_pk, tpk, S.t_i_peak)
-        s2_hi = s2.p > s1.p
-        p_st = B.where(s2_hi, s2.p, s1.p)
-        better = ok & (p_st > S.p_peak)
-        S.v_pk = B.where(better, B.where(s2_hi, s2.vds, s1.vds), S.v_pk)
-        S.i_pk = B.where(better, B.where(s2_hi, s2.i, s1.i), S.i_pk)
-        S.p_peak = B.where(better, p_st, S.p_peak)
-        S.e_fet = B.where(ok, S.e_fet + h * (_Q0 * S.p + _Q1 * s1.p + _Q2 * s2.p), S.e_fet)
+        # the operating point of the peak power; on a plateau of equal power (a power limit)
+        # the one at the highest v_ds, the harder point for the SOA (and rounding does not
+        # choose it)
+        p_hi = B.maximum(s1.p, s2.p)
+        reach = ok & (p_hi >= S.pp_att - 1e-9 * B.fabs(S.pp_att) if timer else p_hi >= S.p_peak - 1e-9 * B.fabs(S.p_peak))
+        if B.any(reach):
+            slack = 1e-9 * B.maximum(B.fabs(s1.p), B.fabs(s2.p))
+            s2_hi = (s2.p > s1.p + slack) | ((s2.p >= s1.p - slack) & (s2.vds > s1.vds))
+            v_st = B.where(s2_hi, s2.vds, s1.vds)
+            i_st = B.where(s2_hi, s2.i, s1.i)
+            slack = 1e-9 * B.fabs(S.p_peak)
+            better = ok & ((p_hi > S.p_peak + slack) | ((p_hi >= S.p_peak - slack) & (v_st > S.v_pk)))
+            S.v_pk = B.where(better, v_st, S.v_pk)
+            S.i_pk = B.where(better, i_st, S.i_pk)
+            S.p_peak = B.where(better, B.maximum(p_hi, S.p_peak), S.p_peak)
+            if timer:
+                slack = 1e-9 * B.fabs(S.pp_att)
+                better = ok & ((p_hi > S.pp_att + slack) | ((p_hi >= S.pp_att - slack) & (v_st > S.v_att)))
+                S.v_att = B.where(better, v_st, S.v_att)
+                S.i_att = B.where(better, i_st, S.i_att)
+                S.pp_att = B.where(better, B.maximum(p_hi, S.pp_att), S.pp_att)
+        de = h * (_Q0 * S.p + _Q1 * s1.p + _Q2 * s2.p)
+        S.e_fet = B.where(ok, S.e_fet + de, S.e_fet)
+        if timer:
+            S.e_att = B.where(ok, S.e_att + de, S.e_att)
         if m.limit:
-            dtl = _lim_time(B, S.exc, s1.exc, gh) + _lim_time(B, s1.exc, s2.exc, dt1)
-            S.t_limit = B.where(ok, S.t_limit + dtl, S.t_limit)
-        # lowest switch input: the stage samples, and the floor of a notch shorter than the step
-        v_lo = B.minimum(s1.vout + s1.vds, s2.vout + s2.vds)
-        w_0 = m.v_s - m.r * i
-        w_g = m.v_s - m.r * s1.i
-        w_1 = m.v_s - m.r * s2.i
-        cut_g = cut_1 = None
-        if m.has_l and m.limit and s1.on is not None and B.any(evt & ok):
-            # a load switching on while the FET regulates steps the reference up
-            on_0 = on_n
-            floor_g = s1.vout + s1.r_sw * s1.i
-            floor_1 = s2.vout + s2.r_sw * s2.i
-            cut_g = _notch(B, s1.lim & s1.on & B.not_(on_0), w_g, floor_g, m.l * (s1.i - i), gh)
-            cut_1 = _notch(B, s2.lim & s2.on & B.not_(s1.on), w_1, floor_1, m.l * (s2.i - s1.i), dt1)
-            if cut_g is not None:
-                v_lo = B.where(cut_g[0], B.minimum(v_lo, floor_g), v_lo)
-            if cut_1 is not None:
-                v_lo = B.where(cut_1[0], B.minimum(v_lo, floor_1), v_lo)
-        S.v_in_min = B.where(ok, B.minimum(S.v_in_min, v_lo), S.v_in_min)
-        if m.tau_uv > 0.0:
-            # the switch input v_s - r i - l di/dt through the UVLO's first-order filter
-            if m.has_l:
-                y_g, low_g = _uvlo_interval(B, S.v_flt, w_0, w_g, m.l * (s1.i - i), gh, m.tau_uv, cut_g,
-                                            floor_g if cut_g is not None else None, S.v_flt_min)
-                y_1, low_1 = _uvlo_interval(B, y_g, w_g, w_1, m.l * (s2.i - s1.i), dt1, m.tau_uv, cut_1,
-                                            floor_1 if cut_1 is not None else None, S.v_flt_min)
-            else:
-                y_g, low_g = B.lag(S.v_flt, w_0, w_g, gh, m.tau_uv, S.v_flt_min)
-                y_1, low_1 = B.lag(y_g, w_g, w_1, dt1, m.tau_uv, S.v_flt_min)
-            S.v_flt_min = B.where(ok, B.minimum(S.v_flt_min, B.minimum(low_g, low_1)), S.v_flt_min)
-            S.v_flt = B.where(ok, y_1, S.v_flt)
-        S.tj_peak = B.where(ok, B.maximum(S.tj_peak, B.maximum(tj_g, tj_1)), S.tj_peak)
+            S.t_reg = B.where(ok, S.t_reg + dtl, S.t_reg)
 
-        r_on1 = m.r_on(tj_1)
+        # the switch input: lowest value, and the time below the UVLO threshold
+        _dip(m, S, ok, t, gh, h, i, s1, s2, evt)
+
+        # junction temperature: stage points, and the interior peak the closed form gives
+        # where the rise increases at the start of the step and decreases at its end (the
+        # stage point's rate tells in which interval)
+        rate_1 = B.rate(th_1, s2.p, m.r_th, m.tau_th)
+        tj_hi = B.maximum(tj_g, tj_1)
+        turns = ok & (S.dtj > 0.0) & (rate_1 < 0.0)
+        if B.any(turns):
+            rate_g = B.rate(th_g, s1.p, m.r_th, m.tau_th)
+            tj_hi = _interior_peak(m, S, tj_hi, turns & (rate_g < 0.0), turns & (rate_g >= 0.0), th_g, s1, s2, gh,
+                                   dt1, t_amb)
+        S.tj_peak = B.where(ok, B.maximum(S.tj_peak, tj_hi), S.tj_peak)
+
+        r_on1 = m.r_on(tj_1) if varies else S.r_on
         v_f, i_f = m.final_output(r_on1)
         band = SETTLE_BAND * B.fabs(v_f)
         d1 = B.fabs(s2.vout - v_f) - band
@@ -594,60 +826,350 @@ def _run(model: _Model, S: _State, final: dict, wave, rec, record, t_amb: float,
             ts_new = t1
         S.t_settle = B.where(ok, ts_new, S.t_settle)
 
-        if rec is not None:
-            take = (lambda x: x) if not arrays else (lambda x: x[rec])
-            if take(ok):
-                wave["t"].append(float(take(t1)))
-                wave["v_out"].append(float(take(s2.vout)))
-                wave["i"].append(float(take(s2.i)))
-                wave["v_ds"].append(float(take(s2.vds)))
-                wave["p_fet"].append(float(take(s2.p)))
-                wave["tj"].append(float(take(tj_1)))
-
         # commit the accepted rows
         S.t = B.where(ok, t1, t)
         S.i = B.where(ok, s2.i, i)
         S.vc = B.where(ok, s2.vc, vc)
         S.vout = B.where(ok, s2.vout, vout)
+        S.vin = B.where(ok, s2.vin, vin)
         S.ic = B.where(ok, s2.ic, ic)
         S.fi = B.where(ok, s2.fi, fi)
         S.p = B.where(ok, s2.p, S.p)
+        if m.has_cin:
+            S.il = B.where(ok, s2.il, il)
+            S.fin = B.where(ok, s2.fin, S.fin)
+        else:
+            S.il = S.i
         if m.limit:
             S.exc = B.where(ok, s2.exc, S.exc)
             S.lim = B.where(ok, s2.lim, S.lim)
         S.theta = B.where(ok[:, None], th_1, S.theta) if arrays else (th_1 if ok else S.theta)
         S.tj = B.where(ok, tj_1, S.tj)
-        S.r_on = B.where(ok, r_on1, S.r_on)
+        S.dtj = B.where(ok, rate_1, S.dtj)
+        if varies:
+            S.r_rate = B.where(ok, (r_on1 - S.r_on) / h, S.r_rate)
+            S.r_on = B.where(ok, r_on1, S.r_on)
         S.i_scale = B.maximum(S.i_scale, B.fabs(S.i))
         if not m.continuous:
-            S.started = S.started | (ok & (B.maximum(s1.vout, s2.vout) > m.v_on))
+            if timer:
+                S.started = B.where(sw_on, S.started | (ok & (B.maximum(s1.vout, s2.vout) > m.v_on)),
+                                    S.started & B.not_(ok & (s2.vout <= m.v_on)))
+            else:
+                S.started = S.started | (ok & (B.maximum(s1.vout, s2.vout) > m.v_on))
+        if rec is not None and (ok[rec] if arrays else ok):
+            _record(wave, S, rec if arrays else None)
 
-        dev = m.l * (S.i - i_f) ** 2 + c * (S.vc - v_f) ** 2
+        dev = m.l * (S.il - i_f) ** 2 + c * (S.vc - v_f) ** 2
+        if m.has_cin:
+            dev = dev + m.c_in * (S.vin - m.v_s + m.r * i_f) ** 2
         done = ok & (dev <= c * (STOP_BAND * v_f) ** 2)
         if m.limit:
             done = done & B.not_(S.lim)
         if t_on > 0.0:
-            done = done & (S.t >= t_on)
+            done = done & ((S.t - S.t_att) >= t_on if timer else S.t >= t_on)
+        if timer:
+            done = done & sw_on
+        S.outcome = B.where(done, OUTCOME_COMPLETE, S.outcome)
+        hot = ok & (tj_hi > m.tj_runaway)
+        if B.any(hot):
+            S.outcome = B.where(hot & B.not_(done), OUTCOME_RUNAWAY, S.outcome)
+            done = done | hot
+        if timer:
+            done = done | _switch_events(m, S, ok, final, wave, rec)
         S.active = active & B.not_(done)
     return S
 
 
-def _store(S: _State, final: dict, ops) -> None:
+def _dip(m: _Model, S, ok, t, gh, h, i, s1, s2, evt) -> None:
+    """The lowest switch-input voltage and the longest time below the UVLO threshold over
+    the accepted step (the input linear between its start, its stage point and its end,
+    with the edges and notches of an inductance without c_in put back)."""
+    B = m.B
+    unb = None
+    if m.dip_flag and m.t_on == 0.0:  # a fully-on sample of an instant turn-on
+        lo_g = s1.vin <= s2.vin
+        v_lo = B.where(lo_g, s1.vin, s2.vin)
+        unb = B.where(lo_g, B.not_(s1.lim) if m.limit else True, B.not_(s2.lim) if m.limit else True)
+        if m.timer:
+            unb = unb & S.on
+    else:
+        v_lo = B.minimum(s1.vin, s2.vin)
+        if m.dip_flag:
+            unb = False
+    cut_g = cut_1 = edge = None
+    if m.dip_flag and m.limit:
+        entry = ok & B.not_(S.lim) & (s1.lim | s2.lim)
+        if B.any(entry):
+            # entering regulation, the fully-on switch passes the inductance's current up to
+            # the instant it reaches the reference: the input is lowest just before,
+            # v_out + R_sw i_ref there, and steps up as di/dt stops
+            frac = B.minimum(B.maximum(_crossing(B, S.exc, s1.exc, s2.exc), 0.0), 1.0)
+            t_e = t + frac * h
+            i_e = B.where(s1.lim, s1.i, s2.i)  # the current is the reference there
+            v_e = _at(B, frac, S.vout, s1.vout, s2.vout) + m.switch_r(t_e - S.t_att, S.r_on) * i_e
+            deeper = entry & (v_e < v_lo)
+            v_lo = B.where(deeper, v_e, v_lo)
+            if unb is not None and m.t_on == 0.0:
+                unb = unb | deeper
+            edge = (entry, t_e, v_e, _at(B, frac, S.vin, s1.vin, s2.vin))
+    if m.notch and evt is not None and B.any(evt & ok):
+        # a load switching on while the FET regulates steps the reference up
+        floor_g = s1.vout + s1.r_sw * s1.i
+        floor_1 = s2.vout + s2.r_sw * s2.i
+        on_0 = S.started | (S.vout > m.v_on)
+        w_g, w_1 = m.v_s - m.r * s1.i, m.v_s - m.r * s2.i
+        cut_g = _notch(B, s1.lim & s1.on & B.not_(on_0), w_g, floor_g, m.l * (s1.i - i), gh)
+        cut_1 = _notch(B, s2.lim & s2.on & B.not_(s1.on), w_1, floor_1, m.l * (s2.i - s1.i), h - gh)
+        # the notch holds the interval's inductive drop: the input is v_s - r i up to it, and
+        # right after it (the sample, the drop's mean over the interval, stands for neither)
+        if cut_g is not None:
+            cut_g = cut_g + (floor_g,)
+            s1.vin = B.where(cut_g[0], w_g, s1.vin)
+        if cut_1 is not None:
+            cut_1 = cut_1 + (floor_1,)
+            s2.vin = B.where(cut_1[0], w_1, s2.vin)
+        for cut in (cut_g, cut_1):
+            if cut is not None:
+                deeper = cut[0] & (cut[2] < v_lo)
+                v_lo = B.where(deeper, cut[2], v_lo)
+                if unb is not None:
+                    unb = unb | deeper
+    if unb is None:
+        S.v_in_min = B.where(ok, B.minimum(S.v_in_min, v_lo), S.v_in_min)
+    else:
+        new_min = ok & (v_lo < S.v_in_min)
+        S.v_in_min = B.where(new_min, v_lo, S.v_in_min)
+        S.unb = B.where(new_min, unb, S.unb)
+    if not m.has_uvlo:
+        return
+    u = m.uvlo
+    if not (B.any(v_lo < u) or B.any(S.bl_t0 < _INF)):
+        return
+    piece = _below_arrays if m.B is _ArrayOps else _below_floats
+    t_g, t_1 = t + gh, t + h
+    for ta, va, tb, vb, cut in ((t, S.vin, t_g, s1.vin, cut_g), (t_g, s1.vin, t_1, s2.vin, cut_1)):
+        if edge is not None:  # the sample line up to the edge, its low point, then on
+            here = edge[0] & (edge[1] >= ta) & (edge[1] <= tb)
+            t_e = B.where(here, edge[1], ta)
+            piece(S, ok, ta, va, t_e, B.where(here, edge[2], va), u)
+            ta, va = t_e, B.where(here, edge[3], va)
+        if cut is None:
+            piece(S, ok, ta, va, tb, vb, u)
+            continue
+        # a notch at the end of the interval: the sample line up to it, then its floor
+        use, width, floor = cut
+        t_n = B.where(use, B.maximum(tb - width, ta), tb)
+        piece(S, ok, ta, va, t_n, vb, u)
+        piece(S, ok & use, t_n, floor, tb, floor, u)
+
+
+def _at(B, frac, x0, xg, x1):
+    """Value at ``frac`` of the step of x, linear between the step start (x0), the stage
+    point (xg, at gamma) and the end (x1)."""
+    return B.where(frac < _G, x0 + (xg - x0) * (frac * (1.0 / _G)), xg + (x1 - xg) * ((frac - _G) / (1.0 - _G)))
+
+
+def _below_arrays(S, ok, ta, va, tb, vb, u: float) -> None:
+    """Time below ``u`` (V) over a piece linear from (ta, va) to (tb, vb), rows of arrays:
+    opens a run where the input falls below, closes it (keeping the longest, S.bl_max)
+    where it rises above, a jump at ta included."""
+    t0 = S.bl_t0
+    open_ = t0 < _INF
+    ina, inb = va < u, vb < u
+    close_a = ok & open_ & ~ina
+    best = np.where(close_a, np.maximum(S.bl_max, ta - t0), S.bl_max)
+    t0 = np.where(close_a, _INF, np.where(ok & ina & ~open_, ta, t0))
+    cross = ok & (ina ^ inb)
+    tc = ta + (tb - ta) * (va - u) / np.where(cross, va - vb, 1.0)
+    down = cross & inb
+    up = cross & ina
+    best = np.where(up, np.maximum(best, tc - t0), best)
+    S.bl_t0 = np.where(down, tc, np.where(up, _INF, t0))
+    S.bl_max = best
+
+
+def _below_floats(S, ok, ta, va, tb, vb, u: float) -> None:
+    """`_below_arrays` for one row on Python floats."""
+    if not ok:
+        return
+    t0 = S.bl_t0
+    ina, inb = va < u, vb < u
+    if t0 < _INF and not ina:
+        S.bl_max = max(S.bl_max, ta - t0)
+        t0 = _INF
+    elif ina and t0 == _INF:
+        t0 = ta
+    if ina != inb:
+        tc = ta + (tb - ta) * (va - u) / (va - vb)
+        if inb:
+            t0 = tc
+        else:
+            S.bl_max = max(S.bl_max, tc - t0)
+            t0 = _INF
+    S.bl_t0 = t0
+
+
+def _interior_peak(m: _Model, S, tj_hi, in_g, in_1, th_g, s1, s2, gh, dt1, t_amb: float):
+    """The junction peak inside the step's intervals where the rise turns from rising to
+    falling (`thermal.foster_peak`), merged into ``tj_hi``.
+
+    Only where it can matter: each stage rise stays below the larger of its start and
+    r_i times the interval's largest power (tau dT/dt + T = r P), and where that bound is
+    not above the peak so far the interval is passed over.
+    """
+    floor = m.B.maximum(S.tj_peak, tj_hi) - t_amb
+    if m.B is _FloatOps:
+        for sel, theta, pa, pb, dt in ((in_g, S.theta, S.p, s1.p, gh), (in_1, th_g, s1.p, s2.p, dt1)):
+            if sel:
+                p_hi = max(pa, pb)
+                if sum(max(th, ri * p_hi) for th, ri in zip(theta, m.r_th)) > floor:
+                    rise, _ = foster_peak_floats(theta, pa, pb, dt, m.r_th, m.tau_th)
+                    tj_hi = max(tj_hi, t_amb + rise)
+        return tj_hi
+    tj_hi = np.array(tj_hi, copy=True)
+    for sel, theta, pa, pb, dt in ((in_g, S.theta, S.p, s1.p, gh), (in_1, th_g, s1.p, s2.p, dt1)):
+        idx = np.flatnonzero(sel)
+        if idx.size:
+            th = theta[idx]
+            bound = np.add.reduce(np.maximum(th, m.r_th * np.maximum(pa[idx], pb[idx])[:, None]), axis=1)
+            keep = bound > floor[idx]
+            if keep.any():
+                idx, th = idx[keep], th[keep]
+                if idx.size <= 8:  # a few rows: the float code costs less than NumPy's calls
+                    rt, tt = m.r_th.tolist(), m.tau_th.tolist()
+                    rise = np.array([foster_peak_floats(th[j].tolist(), float(pa[i]), float(pb[i]), float(dt[i]),
+                                                        rt, tt)[0] for j, i in enumerate(idx)])
+                else:
+                    rise, _ = foster_peak(th, pa[idx], pb[idx], dt[idx], m.r_th, m.tau_th)
+                tj_hi[idx] = np.maximum(tj_hi[idx], t_amb + rise)
+    return tj_hi
+
+
+def _switch_events(m: _Model, S, ok, final: dict, wave, rec):
+    """Trips, retries and the end of a tripped row, after an accepted step (timer runs).
+
+    Returns the rows that are done (the switch off for good and followed far enough).
+    """
+    B = m.B
+    on = S.on
+    trip = ok & on & (S.t_reg >= m.t_fault * (1.0 - _LAND)) if m.limit else ok & False
+    restart = ok & B.not_(on) & (S.t >= S.t_restart * (1.0 - _LAND))
+    if B.any(trip) or B.any(restart):
+        if B is _FloatOps:
+            _switch_row(m, S, trip, final, wave, rec is not None)
+        else:
+            for sel, is_trip in ((trip, True), (restart, False)):
+                idx = np.flatnonzero(sel)
+                if idx.size:
+                    _switch_rows(m, S, idx, is_trip, final)
+                    if rec is not None and sel[rec]:
+                        _record(wave, S, rec)
+    # a switch off for good: follow the input's ring and a piece of the output's decay
+    if not B.any(S.latched):
+        return False
+    t_since = S.t - S.t_off
+    shown = S.latched & (t_since >= 0.25 * (S.t_off - S.t_att))
+    if m.has_cin:
+        amp2 = (m.l * S.il * S.il) / m.c_in + (S.vin - m.v_s) ** 2
+        calm = (amp2 <= (STOP_BAND * m.v_s) ** 2) | (t_since >= 2.0 * m.t_ring)
+        if m.has_uvlo:
+            calm = calm & (S.vin >= m.uvlo)
+        shown = shown & calm
+    end = ok & shown
+    S.outcome = B.where(end, OUTCOME_OFF, S.outcome)
+    return end
+
+
+def _trip_bookkeeping(m: _Model, S, final: dict, rows, j) -> None:
+    """Write the finished attempt's pulse of state row ``j`` (output row ``rows``)."""
+    k = int(S.attempt if j is None else S.attempt[j]) - 1
+    take = (lambda x: x) if j is None else (lambda x: x[j])  # noqa: E731
+    for name, src in zip(("pulse_e", "pulse_p_peak", "pulse_v_ds", "pulse_i", "pulse_tj_start"), _PULSES):
+        final[name][rows, k] = take(getattr(S, src))
+
+
+def _switch_row(m: _Model, S, trip: bool, final: dict, wave, recording: bool) -> None:
+    """A trip or a retry of the single row of the float back end."""
+    if trip:
+        _trip_bookkeeping(m, S, final, 0, None)
+        S.on = False
+        S.t_off = S.t
+        if S.t_trip != S.t_trip:  # NaN: the first trip
+            S.t_trip = S.t
+        if m.retry and S.attempt < RETRY_ATTEMPTS:
+            S.t_restart = S.t + m.retry_off
+        else:
+            S.latched = True
+    else:
+        S.on = True
+        S.attempt += 1
+        S.t_att = S.t
+        S.t_reg = 0.0
+        S.t_restart = _INF
+        S.e_att, S.pp_att, S.tj_att = 0.0, 0.0, S.tj
+    S.phase = 0
+    S.h = min(S.h, 1e-7 * S.t_est)
+    st = _instant(m, S)
+    _apply_instant(m, S, st)
+    if not trip:
+        S.v_att, S.i_att, S.pp_att = S.vin - S.vout, S.i, S.p
+    if recording:
+        _record(wave, S, None)
+
+
+def _switch_rows(m: _Model, S, idx: np.ndarray, trip: bool, final: dict) -> None:
+    """Trips (``trip``) or retries of rows ``idx`` of the array back end."""
+    if trip:
+        for j in idx:
+            _trip_bookkeeping(m, S, final, S.rows[j], j)
+        S.on[idx] = False
+        S.t_off[idx] = S.t[idx]
+        first = np.isnan(S.t_trip[idx])
+        S.t_trip[idx[first]] = S.t[idx[first]]
+        again = m.retry & (S.attempt[idx] < RETRY_ATTEMPTS)
+        S.t_restart[idx] = np.where(again, S.t[idx] + m.retry_off, np.inf)
+        S.latched[idx] = ~again
+    else:
+        S.on[idx] = True
+        S.attempt[idx] += 1
+        S.t_att[idx] = S.t[idx]
+        S.t_reg[idx] = 0.0
+        S.t_restart[idx] = np.inf
+        S.e_att[idx] = 0.0
+        S.tj_att[idx] = S.tj[idx]
+    S.phase[idx] = 0
+    S.h[idx] = np.minimum(S.h[idx], 1e-7 * S.t_est[idx])
+    sub = m.take(idx)
+    st = _instant(sub, S, idx)
+    _apply_instant(sub, S, st, idx)
+    if not trip:
+        S.v_att[idx] = S.vin[idx] - S.vout[idx]
+        S.i_att[idx] = S.i[idx]
+        S.pp_att[idx] = S.p[idx]
+
+
+def _store(model: _Model, S: _State, final: dict, ops) -> None:
     for name in FIGURES:
         val = getattr(S, name)
         if ops is _FloatOps:
             final[name][0] = val
         else:
             final[name][S.rows] = val
+    if model.timer:  # the attempt under way (a finished one is written again unchanged)
+        if ops is _FloatOps:
+            _trip_bookkeeping(model, S, final, 0, None)
+        else:
+            k = S.attempt - 1
+            for name, src in zip(("pulse_e", "pulse_p_peak", "pulse_v_ds", "pulse_i", "pulse_tj_start"), _PULSES):
+                final[name][S.rows, k] = getattr(S, src)
 
 
 def _compact(model: _Model, S: _State, final: dict):
     """Write the figures of all working rows, then keep only the active ones."""
-    _store(S, final, _ArrayOps)
+    _store(model, S, final, _ArrayOps)
     keep = np.nonzero(S.active)[0]
     n_old = S.rows.shape[0]
-    for name in _STATE:
-        val = getattr(S, name, None)
+    for name, val in list(vars(S).items()):
         if isinstance(val, np.ndarray) and val.ndim >= 1 and val.shape[0] == n_old:
             setattr(S, name, val[keep])
     return model.take(keep), S
@@ -670,28 +1192,6 @@ def _notch(B, event, w_b, floor, area, dt):
     if not B.any(use):
         return None
     return use, B.where(use, width, 0.5 * dt)
-
-
-def _uvlo_interval(B, y, w_a, w_b, area, dt, tau: float, cut, floor, low_so_far):
-    """The UVLO filter over one stage interval of length dt (s).
-
-    The filter input is v_s - r i, linear from w_a to w_b (V), less the inductive drop
-    l di/dt whose integral over the interval is ``area`` = l (i_b - i_a) (V s). The drop
-    is taken at its mean over the interval, except in the rows of ``cut`` (from `_notch`),
-    where it is the notch down to ``floor`` at the end of the interval. Either way its
-    area is exact; the notch also has its depth, which matters when the filter is not
-    much slower than the interval. Returns the filter output at the end and its lowest
-    value inside the interval (V), exact where it is below ``low_so_far`` (`lag`).
-    """
-    mean = area / dt
-    y1, low = B.lag(y, w_a - mean, w_b - mean, dt, tau, low_so_far)
-    if cut is None:
-        return y1, low
-    use, width = cut
-    lead = dt - width
-    y_m, low_m = B.lag(y, w_a, w_a + (w_b - w_a) * (lead / dt), lead, tau, low_so_far)
-    y_n, low_n = B.lag(y_m, floor, floor, width, tau, low_so_far)
-    return B.where(use, y_n, y1), B.where(use, B.minimum(low_m, low_n), low)
 
 
 def _crossing(B, f0, f1, f2):
@@ -749,7 +1249,7 @@ def _event_rows(S: _State, ok, hit, evt, f_on, f_lim, t, h, h_next, fac_err):
 
 
 def _event_steps(B, S: _State, ok, hit, evt, frac, t, h, h_next, fac_err):
-    """Next step sizes while an event (a load switching on, the switch entering or
+    """Next step sizes while an event (a load switching on or off, the switch entering or
     leaving regulation) is being located, and the bookkeeping of each row.
 
     A step longer than h_evt that holds an event is rejected (``hit``); its end bounds the

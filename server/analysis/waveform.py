@@ -15,7 +15,7 @@ import numpy as np
 
 __all__ = ["SIGNALS", "decimate"]
 
-SIGNALS = ("v_out", "i", "v_ds", "p_fet", "tj")
+SIGNALS = ("v_out", "v_in", "i", "v_ds", "p_fet", "tj", "on")
 
 
 def decimate(wave: dict, max_points: int = 2000) -> dict:
@@ -24,10 +24,15 @@ def decimate(wave: dict, max_points: int = 2000) -> dict:
     Parameters
     ----------
     wave : dict
-        ``{"t": [...], "v_out": [...], "i": [...], "v_ds": [...], "p_fet": [...],
-        "tj": [...]}`` of equal length (s, V, A, V, W, degC).
+        ``{"t": [...], "v_out": [...], "v_in": [...], "i": [...], "v_ds": [...],
+        "p_fet": [...], "tj": [...], "on": [...]}`` of equal length (s, V, V, A, V, W, degC,
+        1/0); signals of `SIGNALS` it lacks are left out.
     max_points : int
         Largest number of samples kept (>= 2 * (2 + 2 * len(SIGNALS))).
+
+    Notes
+    -----
+    A switching instant is recorded as two samples at the same time (before and after).
 
     Returns
     -------
@@ -36,13 +41,14 @@ def decimate(wave: dict, max_points: int = 2000) -> dict:
     """
     t = np.asarray(wave["t"], dtype=float)
     n = t.size
+    names = tuple(k for k in SIGNALS if k in wave)
     if n <= max_points:
-        return {k: [float(x) for x in wave[k]] for k in ("t",) + SIGNALS}
-    per_bucket = 2 + 2 * len(SIGNALS)
+        return {k: [float(x) for x in wave[k]] for k in ("t",) + names}
+    per_bucket = 2 + 2 * len(names)
     buckets = max(max_points // per_bucket, 1)
     edges = np.linspace(0, n, buckets + 1).astype(int)
     keep = [0, n - 1]
-    sig = {k: np.asarray(wave[k], dtype=float) for k in SIGNALS}
+    sig = {k: np.asarray(wave[k], dtype=float) for k in names}
     for a, b in zip(edges[:-1], edges[1:]):
         if b <= a:
             continue

@@ -1,9 +1,10 @@
 """Running ngspice in batch mode on the circuit of a rail, for comparisons.
 
 The netlist models the same circuit as the analysis: ideal supply, series resistance and
-inductance, the switch as a behavioural current source (B-source) whose current is the
-smaller of the fully-on current v_ds / R_sw(t) and the regulation reference, a capacitor
-with its ESR, and a resistive load. ngspice integrates it with its own Gear method and
+inductance, the input capacitance at the switch input (optional, charged to the supply at
+t = 0), the switch as a behavioural current source (B-source) whose current is the smaller
+of the fully-on current v_ds / R_sw(t) and the regulation reference, a capacitor with its
+ESR, and a resistive load. ngspice integrates it with its own Gear method and
 step control (ngspice manual, chapter 15 "Transient analysis"; B-sources chapter 5.1).
 """
 
@@ -16,7 +17,7 @@ from pathlib import Path
 
 import numpy as np
 
-__all__ = ["NGSPICE", "ngspice_missing_message", "simulate_ngspice"]
+__all__ = ["NGSPICE", "ngspice_missing_message", "simulate_ngspice", "longest_time_below"]
 
 NGSPICE = shutil.which("ngspice")
 
@@ -30,7 +31,7 @@ def _n(x) -> str:
     return repr(float(x))
 
 
-def _netlist(*, v, r, l, c, esr, r_load, mode, rds, i_limit, dvdt, t_on, r_off, t_stop, t_max, out_file):
+def _netlist(*, v, r, l, c, esr, r_load, mode, rds, i_limit, dvdt, t_on, r_off, t_stop, t_max, out_file, c_in=None):
     lines = ["* railsign reference circuit", f"V1 vs 0 DC {_n(v)}"]
     node = "vs"
     if r > 0:
@@ -40,6 +41,8 @@ def _netlist(*, v, r, l, c, esr, r_load, mode, rds, i_limit, dvdt, t_on, r_off, 
         lines.append(f"L1 {node} sw {_n(l)} IC=0")
     else:
         lines.append(f"Rz {node} sw 1e-12")
+    if c_in:
+        lines.append(f"Cin sw 0 {_n(c_in)} IC={_n(v)}")
     lines.append("Vsense sw swx DC 0")
     if t_on > 0:
         a, b = math.log(r_off), math.log(rds) - math.log(r_off)
@@ -82,9 +85,10 @@ def simulate_ngspice(tmp_path: Path, *, t_stop: float, points: int = 40000, **ci
     Returns
     -------
     dict
-        ``t``, ``i``, ``v_out``, ``v_ds`` arrays, and ``i_peak`` (A), ``e_fet`` (J,
+        ``t``, ``i``, ``v_out``, ``v_in``, ``v_ds`` arrays, and ``i_peak`` (A), ``e_fet`` (J,
         trapezoidal integral of v_ds i), ``t_limit`` (s, time during which the
-        regulation reference is below the fully-on current).
+        regulation reference is below the fully-on current), ``v_in_min`` (V, the lowest
+        switch-input voltage).
     """
     if NGSPICE is None:
         raise RuntimeError(ngspice_missing_message())
@@ -115,8 +119,27 @@ def simulate_ngspice(tmp_path: Path, *, t_stop: float, points: int = 40000, **ci
     dt = np.diff(t)
     t_limit = float(np.sum(dt * 0.5 * (limited[1:].astype(float) + limited[:-1].astype(float))))
     return {
-        "t": t, "i": i, "v_out": v_out, "v_ds": v_ds,
+        "t": t, "i": i, "v_out": v_out, "v_in": v_sw, "v_ds": v_ds, "v_in_min": float(v_sw.min()),
         "i_peak": float(i.max()),
         "e_fet": float(np.sum(dt * 0.5 * (p[1:] + p[:-1]))),
         "t_limit": t_limit,
     }
+
+
+def longest_time_below(t: np.ndarray, v: np.ndarray, level: float) -> float:
+    """Longest continuous time (s) a sampled waveform stays below ``level`` (V), the
+    waveform linear between samples and the crossings interpolated."""
+    below = v < level
+    best, start = 0.0, (t[0] if below[0] else None)
+    for k in range(1, t.size):
+        if below[k] == below[k - 1]:
+            continue
+        tc = t[k - 1] + (t[k] - t[k - 1]) * (v[k - 1] - level) / (v[k - 1] - v[k])
+        if below[k]:
+            start = tc
+        else:
+            best = max(best, tc - start)
+            start = None
+    if start is not None:
+        best = max(best, t[-1] - start)
+    return best
