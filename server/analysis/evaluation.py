@@ -98,14 +98,23 @@ def _attempts(st: StartupFigures, t_amb: float) -> dict:
 
 
 def _soa_pulses(rail: Rail, st: StartupFigures) -> dict:
-    """Each attempt's pulse as its equivalent rectangle against the SOA derated from the
-    attempt's starting junction temperature; the worst attempt per row."""
+    """Each attempt's pulse as its equivalent rectangle (its energy at the power of the peak's
+    operating point, V_DS I) against the SOA derated from the attempt's starting junction
+    temperature; the worst attempt per row."""
     n = st.status.shape[0]
     att = _attempts(st, rail.t_ambient)
     e, p, v, i, tj0 = (att[k] for k in ("pulse_e", "pulse_p_peak", "pulse_v_ds", "pulse_i", "pulse_tj_start"))
     k = e.shape[1]
-    t_eq = equivalent_rectangle(np.nan_to_num(e), np.nan_to_num(p))
+    if k == 0:  # no row made an attempt (every start stalled before it began)
+        nan = np.full(n, np.nan)
+        return {"soa_ratio": nan, "soa_i_allowed": nan, "soa_attempt": np.zeros(n, int), "pulse_t_equiv": nan,
+                "pulse_p_peak": nan, "pulse_e": nan, "pulse_v_ds": nan, "pulse_i": nan, "pulse_tj_start": nan}
     valid = np.isfinite(e) & np.isfinite(p) & (p > 0) & np.isfinite(v) & (v > 0) & (i > 0)
+    # the rectangle stands at the peak's operating point (V_DS, I): its power V I is the peak
+    # power (under a power limit, the plateau's, not a discrete overshoot at one end of it)
+    with np.errstate(invalid="ignore"):
+        p = np.where(valid, v * i, p)
+    t_eq = equivalent_rectangle(np.nan_to_num(e), np.nan_to_num(p))
     with np.errstate(invalid="ignore", divide="ignore"):
         allowed = allowed_current(rail.fet, np.where(valid, v, 1.0).ravel(), np.where(valid, t_eq, 1.0).ravel(),
                                   np.where(valid, tj0, rail.t_ambient).ravel()).reshape(n, k)

@@ -97,8 +97,13 @@ back with its floor and width (`_notch`). Such a floor, and any fully-on sample 
 edge) of an instant turn-on (t_on = 0), is a dip that only input capacitance bounds: the
 row's ``unb`` flag says the lowest value was set there.
 
-The operating point of the peak power: on a plateau of equal power (within 1e-9, a power
-limit) the point at the highest v_ds, the harder one for the SOA.
+The peak power is found between stage points as well (the vertex of the quadratic through
+a step's three power values, with v_ds and the current on their own quadratics there). Its
+operating point is the peak's own, except under a power limit, where it is the highest v_ds
+among the points whose power lies within ``PEAK_BAND`` (5 %) of the peak: the plateau's
+harder end for the SOA, which a brief overshoot does not move (the reference neglects the
+inductive drop, so a load switching on can lift the power a few percent for a step; common
+practice, no source).
 
 A row stops when its attempt completes (the switch no longer regulates, the turn-on ramp
 is over and the energy of the deviation from the DC operating point,
@@ -122,6 +127,7 @@ from .thermal import (foster_peak, foster_peak_floats, foster_rate, foster_rate_
 __all__ = ["RTOL", "SETTLE_BAND", "STOP_BAND", "TJ_RTOL", "TJ_STEP", "RETRY_ATTEMPTS", "TJ_RUNAWAY_K",
            "OUTCOME_RUNNING", "OUTCOME_COMPLETE", "OUTCOME_OFF", "OUTCOME_RUNAWAY", "integrate"]
 
+PEAK_BAND = 0.05  # under a power limit, points within 5 % of the peak power count as its plateau
 RTOL = 2e-4  # local error tolerance relative to v_s and to the largest current so far
 SETTLE_BAND = 0.01  # t_settle: output within 1 % of its final value
 STOP_BAND = 1e-3  # stop when the deviation energy corresponds to 0.1 % of v_f
@@ -224,14 +230,14 @@ class _Model:
         self.continuous = cz.load == "none" or (cz.load == "resistive" and cz.v_on == 0.0)
         self.g_free = cz.load in ("none", "constant_current")  # no load conductance
         self.cdvdt = self.c * cz.dvdt
-        self.has_l = bool(np.any(cz.l > 0))
+        self.has_l = bool(np.any(cz.l > 0))  # (no rows at all: the compaction left none)
         # the input capacitance matters only behind some series resistance or inductance
         self.c_in = float(cz.c_in) if (cz.c_in > 0.0 and bool(np.any(cz.l + cz.r > 0))) else 0.0
         self.has_cin = self.c_in > 0.0
         # the dip only input capacitance bounds: none here, and series inductance
         self.dip_flag = self.has_l and not self.has_cin
         self.notch = self.dip_flag and self.limit and not self.continuous
-        self.t_ring = 2.0 * math.pi * math.sqrt(float(np.max(cz.l)) * self.c_in)
+        self.t_ring = 2.0 * math.pi * math.sqrt((float(np.max(cz.l)) if cz.l.size else 0.0) * self.c_in)
         self.uvlo = float(cz.uvlo)
         self.has_uvlo = math.isfinite(self.uvlo)
         self.timer = timer
@@ -382,6 +388,24 @@ class _Model:
                 st.bad = weak if st.bad is None else (st.bad | weak)
                 den_l = B.where(weak, 1.0, den_l)
             i_lim = (q + s * (a0 + avw * b2)) / den_l
+            if self.mode == "power_limit":
+                # one more linearisation of the power limit's reference, at the output this
+                # solution gives rather than at the predictor: where the regulation passes
+                # from the power to the current limit the predictor may pick the wrong branch,
+                # and the FET would read a few percent above its power limit
+                v_l = av * ((b2 - m21 * i_lim) * w) + ai * i_lim + a0
+                if self.has_cin:
+                    q, s = self.reference(v_l, a, g, E, Z)
+                else:
+                    q, s = self.reference(v_l, a, g, self.v_s, self.r)
+                den_l = 1.0 - s * (ai - avw * m21)
+                if self.regulates:
+                    weak = den_l < 0.1
+                    if sw_on is not None:
+                        weak = weak & sw_on
+                    st.bad = weak if st.bad is None else (st.bad | weak)
+                    den_l = B.where(weak, 1.0, den_l)
+                i_lim = (q + s * (a0 + avw * b2)) / den_l
             exc = i_free - i_lim
             lim = exc > 0.0
             if sw_on is not None:
@@ -766,27 +790,15 @@ def _run(model: _Model, S: _State, final: dict, wave, rec, record, t_amb: float,
         new_pk = ok & (pk > S.i_peak)
         S.i_peak = B.where(new_pk, pk, S.i_peak)
         S.t_i_peak = B.where(new_pk, tpk, S.t_i_peak)
-        # the operating point of the peak power; on a plateau of equal power (a power limit)
-        # the one at the highest v_ds, the harder point for the SOA (and rounding does not
-        # choose it)
-        p_hi = B.maximum(s1.p, s2.p)
-        reach = ok & (p_hi >= S.pp_att - 1e-9 * B.fabs(S.pp_att) if timer else p_hi >= S.p_peak - 1e-9 * B.fabs(S.p_peak))
-        if B.any(reach):
-            slack = 1e-9 * B.maximum(B.fabs(s1.p), B.fabs(s2.p))
-            s2_hi = (s2.p > s1.p + slack) | ((s2.p >= s1.p - slack) & (s2.vds > s1.vds))
-            v_st = B.where(s2_hi, s2.vds, s1.vds)
-            i_st = B.where(s2_hi, s2.i, s1.i)
-            slack = 1e-9 * B.fabs(S.p_peak)
-            better = ok & ((p_hi > S.p_peak + slack) | ((p_hi >= S.p_peak - slack) & (v_st > S.v_pk)))
-            S.v_pk = B.where(better, v_st, S.v_pk)
-            S.i_pk = B.where(better, i_st, S.i_pk)
-            S.p_peak = B.where(better, B.maximum(p_hi, S.p_peak), S.p_peak)
-            if timer:
-                slack = 1e-9 * B.fabs(S.pp_att)
-                better = ok & ((p_hi > S.pp_att + slack) | ((p_hi >= S.pp_att - slack) & (v_st > S.v_att)))
-                S.v_att = B.where(better, v_st, S.v_att)
-                S.i_att = B.where(better, i_st, S.i_att)
-                S.pp_att = B.where(better, B.maximum(p_hi, S.pp_att), S.pp_att)
+        # the peak power (found inside the step too) and its operating point; under a power
+        # limit the highest v_ds among the points within PEAK_BAND of the peak (the plateau and
+        # its edges alike), the harder point for the SOA, which a slight overshoot at one end of
+        # the plateau does not move
+        vertex = _power_vertex(B, S, s1, s2, m.limit)
+        band = PEAK_BAND if m.mode == "power_limit" else 0.0
+        S.v_pk, S.i_pk, S.p_peak = _peak_point(B, ok, s1, s2, vertex, band, S.v_pk, S.i_pk, S.p_peak)
+        if timer:
+            S.v_att, S.i_att, S.pp_att = _peak_point(B, ok, s1, s2, vertex, band, S.v_att, S.i_att, S.pp_att)
         de = h * (_Q0 * S.p + _Q1 * s1.p + _Q2 * s2.p)
         S.e_fet = B.where(ok, S.e_fet + de, S.e_fet)
         if timer:
@@ -1192,6 +1204,61 @@ def _notch(B, event, w_b, floor, area, dt):
     if not B.any(use):
         return None
     return use, B.where(use, width, 0.5 * dt)
+
+
+def _quadratic(B, f0, f1, f2):
+    """Coefficients (b, c) of f(x) = f0 + b x + c x^2 through the step start (x = 0), the
+    trapezoidal stage (x = gamma) and the step end (x = 1)."""
+    c = (f1 - f0 - _G * (f2 - f0)) * (1.0 / (_G * _G - _G))
+    return (f2 - f0) - c, c
+
+
+def _power_vertex(B, S, s1, s2, limit: bool):
+    """The peak of the power inside a step where the quadratic through its three values has
+    one: (mask, power, v_ds and current there, the latter two on their own quadratics). Only
+    where the switch does not regulate at any point of the step: a regulated power follows
+    its reference, whose kinks (from the power to the current limit, say) no quadratic
+    represents."""
+    b, c = _quadratic(B, S.p, s1.p, s2.p)
+    neg = c < 0.0
+    cs = B.where(neg, c, -1.0)
+    x = -b / (2.0 * cs)
+    p_v = S.p - b * b / (4.0 * cs)
+    use = neg & (x > 0.0) & (x < 1.0) & (p_v > B.maximum(s1.p, s2.p))
+    if limit:
+        use = use & B.not_(S.lim | s1.lim | s2.lim)
+    i0 = S.i
+    v0 = B.where(i0 > 0.0, S.p / B.where(i0 > 0.0, i0, 1.0), s1.vds)
+    bi, ci = _quadratic(B, i0, s1.i, s2.i)
+    bv, cv = _quadratic(B, v0, s1.vds, s2.vds)
+    return use, p_v, v0 + bv * x + cv * x * x, i0 + bi * x + ci * x * x
+
+
+def _peak_point(B, ok, s1, s2, vertex, band: float, v_pk, i_pk, p_peak):
+    """The running peak power and the operating point the SOA reads it at, after one step.
+
+    The candidates are the stage points and the interior vertex of the power (`_power_vertex`).
+    The point is the highest v_ds among the candidates whose power lies within ``band`` of the
+    peak so far (0: the peak itself); it is kept while its own power (v_pk i_pk) stays within
+    the band of the peak, and replaced by the step's best point once it does not.
+    """
+    use_v, p_v, v_v, i_v = vertex
+    p_hi = B.maximum(B.maximum(s1.p, s2.p), B.where(use_v, p_v, 0.0))
+    p_new = B.maximum(p_peak, p_hi)
+    floor = (1.0 - band) * p_new - 1e-12 * B.fabs(p_new)
+    in1 = s1.p >= floor
+    in2 = s2.p >= floor
+    inv = use_v & (p_v >= floor)
+    pick2 = in2 & (B.not_(in1) | (s2.vds >= s1.vds))
+    v_c = B.where(pick2, s2.vds, s1.vds)
+    i_c = B.where(pick2, s2.i, s1.i)
+    pickv = inv & (B.not_(in1 | in2) | (v_v > v_c))
+    v_c = B.where(pickv, v_v, v_c)
+    i_c = B.where(pickv, i_v, i_c)
+    cand = in1 | in2 | inv
+    kept = v_pk * i_pk >= floor
+    take = ok & cand & (B.not_(kept) | (v_c > v_pk))
+    return B.where(take, v_c, v_pk), B.where(take, i_c, i_pk), B.where(ok, p_new, p_peak)
 
 
 def _crossing(B, f0, f1, f2):

@@ -29,8 +29,8 @@ timer check takes the shortest trip time). Coordinates are scaled to [0, 1] per 
    Halton, "On the efficiency of certain quasi-random sequences of points in evaluating
    multi-dimensional integrals", Numer. Math. 2 (1960) 84-90; R. Cranley and T. N. L.
    Patterson, SIAM J. Numer. Anal. 13 (1976) 904-914).
-3. From each start-up check's worst point so far, ``COMPASS_ROUNDS`` rounds of a compass
-   search (T. G. Kolda, R. M. Lewis and V. Torczon, "Optimization by direct search: new
+3. From each start-up check's ``WALKERS`` worst points so far, ``COMPASS_ROUNDS`` rounds of
+   a compass search (T. G. Kolda, R. M. Lewis and V. Torczon, "Optimization by direct search: new
    perspectives on some classical and modern methods", SIAM Review 45 (2003) 385-482,
    section 3): the 2 d neighbours at distance ``COMPASS_STEP`` along each coordinate are
    evaluated, the worst one taken when it is worse, the step halved when none is. All the
@@ -56,11 +56,12 @@ from .document import Rail
 from .evaluation import PARAMS, RowParams, evaluate_rows
 from .startup import STATUS_RETRIED, STATUS_RETRY_EXHAUSTED, STATUS_TRIPPED
 
-__all__ = ["SEARCH_SEED", "QUASI_RANDOM_POINTS", "halton_points", "COMPASS_ROUNDS", "COMPASS_STEP", "WorstCase", "find_worst_case",
+__all__ = ["SEARCH_SEED", "QUASI_RANDOM_POINTS", "WALKERS", "halton_points", "COMPASS_ROUNDS", "COMPASS_STEP", "WorstCase", "find_worst_case",
            "evaluate_unique", "worse", "TIE"]
 
 SEARCH_SEED = 20_261_202
-QUASI_RANDOM_POINTS = 32
+QUASI_RANDOM_POINTS = 128
+WALKERS = 3
 COMPASS_ROUNDS = 6
 COMPASS_STEP = 0.25
 TIE = 1e-3  # a searched row must beat the worst corner by more than this (relative margin; the
@@ -279,30 +280,48 @@ def find_worst_case(rail: Rail, rules: dict, *, t_fault_range: tuple[float, floa
     report(1.0)
     return WorstCase(params=params, fig=fig, checks=checks, source=source, names=names, worst=worst,
                      found_by=found, corners=cs, n_search=n_search, rail=rail,
-                     budget={"quasi_random_points": QUASI_RANDOM_POINTS if box.d and live else 0, "compass_rounds": COMPASS_ROUNDS,
+                     budget={"quasi_random_points": QUASI_RANDOM_POINTS if box.d and live else 0, "walkers": WALKERS, "compass_rounds": COMPASS_ROUNDS,
                              "compass_step": COMPASS_STEP, "seed": SEARCH_SEED,
                              "parameters": [d[0] for d in box.dims]})
 
 
+def _starts(checks: dict, coords: np.ndarray, cid: str) -> list[int]:
+    """The rows a check's compass walkers start from: its ``WALKERS`` worst rows so far, at
+    distinct points of the box."""
+    sev, mu = checks[cid]["verdict"].astype(int), checks[cid]["margin"]
+    out: list[int] = []
+    for j in np.lexsort((mu, -sev)):
+        if not any(np.allclose(coords[j], coords[k]) for k in out):
+            out.append(int(j))
+        if len(out) == WALKERS:
+            break
+    return out
+
+
 def _compass(rail: Rail, rules: dict, box: _Box, pool: _Pool, live: list[str], report) -> int:
-    """Rounds of compass search from each live check's worst row; returns the rows evaluated."""
-    _, _, checks, _, coords = pool.merged()
-    current, key, step = {}, {}, {}
+    """Rounds of compass search from each live check's worst rows; returns the rows evaluated.
+
+    Every walker of every check steps in the same batch (one integration per round: a batch's
+    cost follows its number of steps far more than its number of rows).
+    """
+    _, _, checks, source, coords = pool.merged()
+    walkers = []  # [check id, point, (severity, margin), step]
     for cid in live:
         sev, mu = checks[cid]["verdict"].astype(int), checks[cid]["margin"]
-        j = int(np.lexsort((mu, -sev))[0])
-        current[cid], key[cid], step[cid] = coords[j].copy(), (int(sev[j]), float(mu[j])), COMPASS_STEP
+        for j in _starts(checks, coords, cid):
+            step = COMPASS_STEP if source[j] == "corner" else 0.5 * COMPASS_STEP
+            walkers.append([cid, coords[j].copy(), (int(sev[j]), float(mu[j])), step])
     evaluated = 0
     for k in range(COMPASS_ROUNDS):
         cand, owner = [], []
-        for cid in live:
+        for w, (cid, point, _, step) in enumerate(walkers):
             for j in range(box.d):
                 for sign in (1.0, -1.0):
-                    u = current[cid].copy()
-                    u[j] = min(max(u[j] + sign * step[cid], 0.0), 1.0)
-                    if u[j] != current[cid][j]:
+                    u = point.copy()
+                    u[j] = min(max(u[j] + sign * step, 0.0), 1.0)
+                    if u[j] != point[j]:
                         cand.append(u)
-                        owner.append(cid)
+                        owner.append(w)
         if not cand:
             break
         u_all = np.array(cand)
@@ -310,16 +329,14 @@ def _compass(rail: Rail, rules: dict, box: _Box, pool: _Pool, live: list[str], r
         fig, chk = evaluate_unique(rail, rules, params)
         pool.add(params, fig, chk, "search", u_all)
         evaluated += params.n
-        for cid in live:
-            rows = [r for r, o in enumerate(owner) if o == cid]
-            if not rows:
-                step[cid] *= 0.5
-                continue
+        for w, walker in enumerate(walkers):
+            cid = walker[0]
+            rows = [r for r, o in enumerate(owner) if o == w]
             sev, mu = chk[cid]["verdict"].astype(int), chk[cid]["margin"]
-            b = min(rows, key=lambda r: (-sev[r], mu[r]))
-            if worse(sev[b], mu[b], *key[cid]):
-                current[cid], key[cid] = u_all[b].copy(), (int(sev[b]), float(mu[b]))
+            b = min(rows, key=lambda r: (-sev[r], mu[r])) if rows else None
+            if b is not None and worse(sev[b], mu[b], *walker[2]):
+                walker[1], walker[2] = u_all[b].copy(), (int(sev[b]), float(mu[b]))
             else:
-                step[cid] *= 0.5
+                walker[3] *= 0.5
         report(0.35 + 0.65 * (k + 1) / COMPASS_ROUNDS)
     return evaluated

@@ -215,6 +215,7 @@ class Headroom(_Model):
 
 class SearchBudget(_Model):
     quasi_random_points: int
+    walkers: int
     compass_rounds: int
     compass_step: float
     seed: int

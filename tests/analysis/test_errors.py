@@ -139,7 +139,9 @@ def test_unstable_constant_power_load_fails_as_could_not_settle():
     assert res["verdict"] == "fail"
     first = res["checks"][0]
     assert first["id"] == "startup_complete" and first["verdict"] == "fail"
-    assert "Could not settle" in first["detail"]
+    # the oscillation either never settles or heats the FET past destruction first: both are
+    # a failing start with its reason, never an error
+    assert "Could not settle" in first["detail"] or "would be destroyed" in first["detail"]
 
 
 def test_current_limit_below_the_load_stalls_and_fails():
