@@ -196,7 +196,7 @@ def test_edit_a_rail_and_see_the_history_diff_and_overlays(page, served):
     page.get_by_role("link", name="History").click()
     row = page.locator("#diff-table tr[data-field='load.c_nom']")
     row.wait_for()
-    assert "430 uF" in row.inner_text() and "1.2 mF" in row.inner_text()
+    assert "430 µF" in row.inner_text() and "1.2 mF" in row.inner_text()
     _plot_drawn(page, "plot-history-startup")
     _plot_drawn(page, "plot-history-soa")
     legend = page.inner_text("#plot-history-soa")
