@@ -84,11 +84,11 @@ def _rail(name: str, supply: dict, load: dict, switch: dict, t_ambient: float, p
 
 
 SUPPLY_24 = {"v_min": 18.0, "v_nom": 24.0, "v_max": 32.0, "r_source": 0.05, "l_source": 1e-6, "i_max": 12.0,
-             "uvlo": 16.0}
+             "uvlo": 16.0, "c_in": 47e-6}
 SUPPLY_12 = {"v_min": 11.4, "v_nom": 12.0, "v_max": 12.6, "r_source": 0.015, "l_source": 200e-9, "i_max": 15.0,
-             "uvlo": 10.0}
+             "uvlo": 10.0, "c_in": 47e-6}
 SUPPLY_5 = {"v_min": 4.75, "v_nom": 5.0, "v_max": 5.25, "r_source": 0.02, "l_source": 100e-9, "i_max": 6.0,
-            "uvlo": 4.2}
+            "uvlo": 4.2, "c_in": 4.7e-6, "uvlo_filter": 2e-6}
 
 # (board name, board revision, [(rail document, part index)])
 BOARDS = [

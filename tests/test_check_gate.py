@@ -14,7 +14,7 @@ from server.__main__ import main
 from server.demo import BOARDS, FETS
 
 # Invented demo rails with known sign-off verdicts (tests/test_demo.py shows every verdict among them).
-PASSING, MARGINAL, FAILING = "HEATER_24V", "SOM_12V", "FAN_24V"
+PASSING, MARGINAL, FAILING = "HEATER_24V", "SOM_12V", "PSE_PORT_24V"
 
 
 def demo_doc(name: str) -> dict:
@@ -62,7 +62,7 @@ def test_a_folder_with_an_invalid_file_exits_2_and_the_junit_report_reads(folder
     assert by_file[str(folder / "compute" / "som.json")].startswith("MARGINAL")
     assert "worst: Junction temperature in retry" in by_file[str(folder / "compute" / "som.json")]
     fan = by_file[str(folder / "compute" / "fan.json")]
-    assert fan.startswith("FAIL") and "worst: Switch input stays above the upstream UVLO" in fan
+    assert fan.startswith("FAIL") and "worst: Junction temperature in retry (periodic steady state)" in fan
     assert "4 rails in 4 files: 1 pass, 1 marginal, 1 fail, 1 invalid" in lines
     assert lines[-1] == "exit 2: a document is invalid"
 
@@ -74,9 +74,9 @@ def test_a_folder_with_an_invalid_file_exits_2_and_the_junit_report_reads(folder
     assert [type(r) for r in case.result] == [Error] and "load.c_nom" in case.result[0].text
     som = suites[f"{folder / 'compute' / 'som.json'}: SOM_12V"]
     assert som.failures == 0 and som.tests == 12  # marginal passes without --strict
-    fan_suite = suites[f"{folder / 'compute' / 'fan.json'}: FAN_24V"]
+    fan_suite = suites[f"{folder / 'compute' / 'fan.json'}: PSE_PORT_24V"]
     failed = [c.name for c in fan_suite if any(isinstance(r, Failure) for r in c.result)]
-    assert failed == ["Switch input stays above the upstream UVLO"]
+    assert failed == ["Junction temperature in retry (periodic steady state)"]
     skipped = [c.name for c in fan_suite if any(isinstance(r, Skipped) for r in c.result)]
     assert len(skipped) == fan_suite.skipped > 0
     assert xml.tests == sum(s.tests for s in xml) == 12 * 3 + 1

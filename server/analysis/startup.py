@@ -215,6 +215,22 @@ def _stall_voltage(cz: Circuit, v_final: np.ndarray) -> np.ndarray:
     return np.where(short.any(axis=0), v[first, np.arange(cz.n)], out)
 
 
+def _free_run(cz: Circuit, *, t_est, i_typ, active, record, max_steps):
+    """The run without a timer, once per distinct circuit row: rows that differ only in their
+    trip time (the corners of a timer's tolerances, say) share it, figures and waveform."""
+    key = np.stack([cz.v_s, cz.c, cz.i_lim, cz.r, cz.l, cz.esr], axis=1)
+    _, first, inv = np.unique(key, axis=0, return_index=True, return_inverse=True)
+    inv = inv.reshape(-1)
+    if first.size == cz.n:
+        return integrate(cz, t_est=t_est, i_typ=i_typ, active=active, t_amb=cz.t_amb, record=record,
+                         max_steps=max_steps)
+    fig, wave = integrate(cz.take(first), t_est=t_est[first], i_typ=i_typ[first], active=active[first],
+                          t_amb=cz.t_amb, record=None if record is None else int(inv[record]),
+                          max_steps=max_steps)
+    return {name: (val[inv] if isinstance(val, np.ndarray) and val.ndim >= 1 and val.shape[0] == first.size
+                   else val) for name, val in fig.items()}, wave
+
+
 def simulate_startup(cz: Circuit, *, record: int | None = None, max_steps: int = MAX_STEPS) -> StartupFigures:
     """Integrate the start-up of every row of ``cz``.
 
@@ -248,8 +264,7 @@ def simulate_startup(cz: Circuit, *, record: int | None = None, max_steps: int =
     i_typ = np.minimum(cz.i_lim, cz.v_s / (cz.r + cz.rds_on + cz.esr + np.sqrt(cz.l / cz.c)))
 
     free = ~stalled
-    fig, wave = integrate(cz, t_est=t_est, i_typ=i_typ, active=free, t_amb=cz.t_amb, record=record,
-                          max_steps=max_steps)
+    fig, wave = _free_run(cz, t_est=t_est, i_typ=i_typ, active=free, record=record, max_steps=max_steps)
     done_free = free & (fig["outcome"] == OUTCOME_COMPLETE)
     t_limit = np.where(done_free, fig["t_reg"], np.nan)
     status = np.where(stalled, STATUS_STALLED, STATUS_NO_CONVERGENCE).astype(np.int8)

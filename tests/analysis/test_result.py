@@ -279,3 +279,28 @@ def test_all_fixtures_analyse_with_corners():
         json.dumps(r, allow_nan=False)
         assert r["verdict"] in ("pass", "marginal", "fail")
         AnalysisResult.model_validate(r)
+
+
+def test_a_start_the_timer_trips_shows_the_switch_off_and_what_it_would_need():
+    # the eFuse's 100 nF timer (about 12 ms) against 10 mF behind a 3 A limit (about 40 ms)
+    doc = efuse_12v()
+    doc["load"]["c_nom"] = 10e-3
+    r = analyze_rail(doc, headroom=False)
+    st = r["startup"]
+    assert st["status"] == "tripped" and not st["complete"] and st["t_trip"] is not None
+    w = st["waveforms"]
+    on = np.array(w["on"])
+    t = np.array(w["t"])
+    i = np.array(w["i"])
+    assert on[0] == 1.0 and on[-1] == 0.0  # the switch is off at the end: latched
+    off = t >= st["t_trip"] * (1 + 1e-9)
+    assert off.any() and np.all(i[off] == 0.0)  # no switch current once it is off
+    assert t[-1] > st["t_trip"]  # the waveform follows the output after the trip
+    checks = {c["id"]: c for c in r["checks"]}
+    complete = checks["startup_complete"]
+    assert complete["verdict"] == "fail" and complete["nominal"]["verdict"] == "fail"
+    # the check says what would make the start succeed
+    assert "timer capacitor of at least" in complete["detail"]
+    timer = checks["timer_startup"]
+    assert timer["verdict"] == "fail" and timer["value"] < 1.0
+    assert st["t_limit"] > st["t_trip"]  # the regulation the start would need, without the timer
