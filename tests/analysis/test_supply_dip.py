@@ -139,3 +139,54 @@ def test_waveform_carries_the_input_and_the_switch_state():
     assert_allclose(np.array(w["v_ds"]), np.array(w["v_in"]) - np.array(w["v_out"]), atol=1e-9)
     d = decimate(w, max_points=200)
     assert len(d["t"]) <= 200 and min(d["v_in"]) == min(w["v_in"]) and set(d) == {"t", *SIGNALS}
+
+
+# --- the supply-dip check: raw by default, the UVLO's deglitch time as its datasheet means it ---
+
+
+def _dip_check(doc):
+    from server.analysis import analyze_rail
+
+    r = analyze_rail(doc, corners=False, headroom=False, waveforms=False)
+    return next(c for c in r["checks"] if c["id"] == "supply_dip"), r["startup"]
+
+
+def test_the_dip_check_reads_the_raw_dip_and_the_deglitch_time_as_continuous_time_below():
+    # The same closed-form case as above: v_in = 12 - 0.5 * 5 = 9.5 V under the limit, below an
+    # 11 V UVLO for t_lim + R_t C ln(r I / (v_s - u)) = 1.9 ms + 0.25 ms.
+    v, r, i, c, rds = 12.0, 0.5, 5.0, 1e-3, 1e-4
+    doc = simple_doc(mode="current_limit", v=v, c=c, r=r, i_limit=i, rds_on=rds)
+    doc["supply"]["uvlo"] = 11.0
+    r_t = r + rds
+    t_below = c * (v - i * r_t) / i + r_t * c * math.log(r * i / (v - 11.0))
+    raw, st = _dip_check(doc)
+    assert raw["verdict"] == "fail" and raw["value"] == pytest.approx(9.5, rel=1e-9)  # no default filter
+    assert st["uvlo_deglitch"] is None
+    # a deglitch time longer than the time below: the UVLO does not trip (it must stay below
+    # continuously for that long, the datasheet's meaning), and the check says so
+    doc["supply"]["uvlo_filter"] = 1.2 * t_below
+    held, _ = _dip_check(doc)
+    assert held["verdict"] == "pass" and held["value"] == pytest.approx(9.5, rel=1e-9)
+    assert "does not trip" in held["detail"] and held["margin"] == 1.0
+    # a deglitch time shorter than the time below: it trips
+    doc["supply"]["uvlo_filter"] = 0.8 * t_below
+    tripped, _ = _dip_check(doc)
+    assert tripped["verdict"] == "fail" and "the UVLO trips" in tripped["detail"]
+
+
+def test_an_instant_switch_into_inductance_without_input_capacitance_fails_saying_why():
+    # an instant hard turn-on behind 1 uH: the ideal switch pulls the input down to the output
+    doc = simple_doc(mode="hard", v=12.0, c=470e-6, r=0.02, l=1e-6, i_limit=None, t_on=0.0,
+                     load="resistive", i_nom=1.0)
+    doc["supply"]["uvlo"] = 9.0
+    check, st = _dip_check(doc)
+    assert check["verdict"] == "fail" and st["dip_unbounded"] is True
+    assert "bounded only by input capacitance" in check["detail"] and "supply.c_in" in check["detail"]
+    # even a deglitch time does not rescue a dip nothing in the document bounds
+    doc["supply"]["uvlo_filter"] = 1e-3
+    assert _dip_check(doc)[0]["verdict"] == "fail"
+    # with input capacitance the dip is bounded, and read as it is
+    doc["supply"]["uvlo_filter"] = None
+    doc["supply"]["c_in"] = 100e-6
+    bounded, st = _dip_check(doc)
+    assert st["dip_unbounded"] is False and "bounded only" not in bounded["detail"]
