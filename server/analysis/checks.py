@@ -222,7 +222,9 @@ def evaluate_checks(rail: Rail, rules: dict, fig: dict) -> dict:
         margin = np.where(verdict == NA, np.inf, margin)
         out[cid] = {"value": value, "limit": limit, "edge": edge, "verdict": verdict, "margin": margin}
 
-    reached = np.where(np.isnan(fig["v_final"]), fig["v_stall"], fig["v_final"])
+    # what the output reaches: its final value where the start completes, else where it stalls
+    # or where the run leaves it (a trip, a runaway, the step budget)
+    reached = np.where(complete, fig["v_final"], np.where(np.isnan(fig["v_stall"]), fig["v_end"], fig["v_stall"]))
     put("startup_complete", reached, fig["v_target"], fig["v_target"], np.where(complete, PASS, FAIL))
     put("vds_derating", fig["v_s"], rules["vds_derating"] * fet.vds_max, fet.vds_max)
     put("startup_soa", np.where(has_pulse, fig["soa_ratio"], np.nan), rules["soa_margin"], 1.0)
@@ -305,7 +307,7 @@ def _startup_words(f: dict, rail: Rail) -> str:
                 f"(final {eng(f['v_target'], 'V')}).")
     if status == STATUS_TRIPPED:
         return (f"The fault timer turns the switch off {eng(f['t_fault'], 's')} into regulation and latches: "
-                f"the output stops near {eng(f['v_final'], 'V')} of {eng(f['v_target'], 'V')}. Without the timer "
+                f"the output is left near {eng(f['v_end'], 'V')} of {eng(f['v_target'], 'V')}. Without the timer "
                 f"the start would need {eng(f['t_limit'], 's')} of regulation. {_timer_advice(f, rail)}")
     if status == STATUS_RETRIED:
         return (f"The start completes only in attempt {int(f['attempts'])}, after {int(f['attempts']) - 1} "

@@ -56,6 +56,15 @@ MARGIN_CONVENTION = ("Margin: 1.00 is the team's limit; above it the check passe
 STATUS_WORDS = {STATUS_OK: "complete", STATUS_STALLED: "stalled", STATUS_NO_CONVERGENCE: "could not settle",
                 STATUS_TRIPPED: "tripped", STATUS_RETRIED: "completes after retries",
                 STATUS_RETRY_EXHAUSTED: "retries exhausted", STATUS_RUNAWAY: "thermal runaway"}
+STATUS_TEXT = {STATUS_OK: "The start-up completes.",
+               STATUS_STALLED: "The start-up stalls: the output never reaches its final value.",
+               STATUS_NO_CONVERGENCE: "The start-up could not settle within its step budget; the figures are those "
+                                      "computed up to then.",
+               STATUS_TRIPPED: "The fault timer cuts the start-up short: it turns the switch off and latches.",
+               STATUS_RETRIED: "The start-up completes only after the fault timer has tripped and retried.",
+               STATUS_RETRY_EXHAUSTED: "The start-up does not complete: every retry trips the fault timer.",
+               STATUS_RUNAWAY: "The junction runs away past the destruction threshold during the start-up; it is "
+                               "followed no further."}
 
 # the parameters each check depends on (its worst case is named by these)
 _V, _STARTUP, _FAULT = {"v_s"}, {"v_s", "c", "i_limit"}, {"v_s", "i_limit", "timer"}
@@ -217,14 +226,15 @@ def _startup_section(rail: Rail, fig: dict, st, waveforms: bool) -> dict:
     status = int(g("status"))
     wave = decimate(st.waveform) if (waveforms and st.waveform is not None) else None
     return {
-        "status": STATUS_WORDS.get(status, "incomplete"), "complete": status == STATUS_OK,
+        "status": STATUS_WORDS.get(status, "incomplete"), "status_text": STATUS_TEXT.get(status, ""),
+        "complete": status == STATUS_OK,
         "attempts": int(g("attempts")), "t_trip": _num(g("t_trip")),
         "i_peak": g("i_peak"), "t_i_peak": g("t_i_peak"), "t_limit": g("t_limit"), "t_settle": g("t_settle"),
         "e_fet": g("e_fet"), "p_fet_peak": g("p_fet_peak"), "tj_peak": g("tj_peak"),
         "v_supply_min": g("v_supply_min"), "t_below_uvlo": g("t_below_uvlo"),
         "dip_unbounded": bool(g("dip_unbounded")), "uvlo_deglitch": rail.supply.uvlo_filter,
         "c_in": rail.supply.c_in,
-        "v_final": g("v_final"), "v_target": g("v_target"),
+        "v_final": g("v_final"), "v_target": g("v_target"), "v_end": g("v_end"),
         "v_stall": g("v_stall") if status == STATUS_STALLED else None,
         "pulse_t_equiv": g("pulse_t_equiv"), "pulse_p_peak": g("pulse_p_peak"), "pulse_e": g("pulse_e"),
         "pulse_v_ds": g("pulse_v_ds"), "pulse_i": g("pulse_i"), "pulse_tj_start": g("pulse_tj_start"),

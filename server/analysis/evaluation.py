@@ -169,7 +169,7 @@ def evaluate_rows(rail: Rail, rules: dict, params: RowParams, *, startup: Startu
     fig: dict = {"n": n, "status": startup.status, "v_s": params.v_s, "c": params.c, "i_lim": params.i_lim,
                  "t_fault": params.t_fault, "v_target": cz.final_output(t_amb)[0]}
     for name in ("i_peak", "t_i_peak", "t_limit", "t_settle", "e_fet", "p_fet_peak", "tj_peak", "v_supply_min",
-                 "v_ds_at_peak", "i_at_peak", "v_final", "v_stall", "t_end", "steps"):
+                 "v_ds_at_peak", "i_at_peak", "v_final", "v_stall", "v_end", "t_end", "steps"):
         fig[name] = getattr(startup, name)
     fig["attempts"] = getattr(startup, "attempts", np.ones(n, int))
     fig["t_trip"] = getattr(startup, "t_trip", np.full(n, np.nan))

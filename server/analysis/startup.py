@@ -162,6 +162,7 @@ class StartupFigures:
     i_at_peak: np.ndarray
     v_final: np.ndarray
     v_stall: np.ndarray
+    v_end: np.ndarray
     t_end: np.ndarray
     steps: np.ndarray
     pulse_e: np.ndarray
@@ -346,6 +347,7 @@ def simulate_startup(cz: Circuit, *, record: int | None = None, max_steps: int =
         i_at_peak=out(fig["i_pk"]),
         v_final=v_final,
         v_stall=v_stall,
+        v_end=out(fig["vout"]),
         t_end=out(t_end),
         steps=fig["steps"],
         pulse_e=pulses["pulse_e"],

@@ -94,6 +94,7 @@ class StartupSection(_Model):
     """The start-up at the nominal point: what happens, with the fault timer acting."""
 
     status: str
+    status_text: str
     complete: bool
     attempts: int
     t_trip: Number
@@ -111,6 +112,7 @@ class StartupSection(_Model):
     c_in: Number
     v_final: Number
     v_target: Number
+    v_end: Number = Field(description="the output where the run leaves it (after a trip, say), V")
     v_stall: Number
     pulse_t_equiv: Number
     pulse_p_peak: Number
