@@ -156,6 +156,7 @@ def _check_records(rail: Rail, rules: dict, nominal: tuple[dict, dict], wc: Wors
             name = wc.words(row, _keys(CHECK_PARAMETERS[spec.id], wc, row))
         code = int(ch["verdict"][row])
         applies = code != NA
+        graded = spec.sense != "flag"  # a pass/fail flag has no margin to show
         limit, edge = ch["limit"][row], ch["edge"][row]
         out.append({
             "id": spec.id,
@@ -166,11 +167,11 @@ def _check_records(rail: Rail, rules: dict, nominal: tuple[dict, dict], wc: Wors
             "edge": _num(edge) if applies else None,
             "unit": spec.unit,
             "direction": spec.direction,
-            "margin": _num(ch["margin"][row]) if applies else None,
-            "margin_edge": _num(edge_margin(spec, limit, edge, rail.t_ambient)) if applies else None,
+            "margin": _num(ch["margin"][row]) if applies and graded else None,
+            "margin_edge": _num(edge_margin(spec, limit, edge, rail.t_ambient)) if applies and graded else None,
             "basis": spec.basis,
             "nominal": {"value": _num(ch_n["value"][0]), "verdict": VERDICTS[int(ch_n["verdict"][0])],
-                        "margin": _num(ch_n["margin"][0])},
+                        "margin": _num(ch_n["margin"][0]) if graded else None},
             "corner": name if applies else None,
             "found_by": found if applies else None,
             "point": _point(params, row) if (applies and params is not None) else None,

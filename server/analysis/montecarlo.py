@@ -298,9 +298,10 @@ def run_monte_carlo(rail: Rail, rules: dict, n: int, *, seed: int = 0, distribut
 def _beaten(rail: Rail, cid: str, rec: dict, ver: np.ndarray, mu: np.ndarray, params: RowParams) -> dict | None:
     """The sample furthest beyond the worst case of one check, or None when none is."""
     w_sev = SEVERITY[rec["verdict"]]
-    w_mu = rec["margin"] if rec["margin"] is not None else math.inf
     sev = ver.astype(int)
-    worse = (sev > w_sev) | ((sev == w_sev) & (sev != NA) & (mu < w_mu * (1.0 - FLAG_TOLERANCE)))
+    worse = sev > w_sev
+    if rec["margin"] is not None:  # a graded check: also a smaller margin at the same verdict
+        worse = worse | ((sev == w_sev) & (sev != NA) & (mu < rec["margin"] * (1.0 - FLAG_TOLERANCE)))
     if not worse.any():
         return None
     idx = np.nonzero(worse)[0]
