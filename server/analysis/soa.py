@@ -54,8 +54,8 @@ __all__ = [
 
 CONVENTION = ("SOA read without extrapolation: between the longest pulse curve and DC the allowed time is the "
               "longest curve's pulse width (no DC curve: nothing longer is allowed); above the shortest curve's "
-              "current nothing is allowed; derated linearly from t_case to tj_max (common practice, not a "
-              "standard).")
+              "current nothing is allowed; the allowed power is derated linearly from the chart's case temperature "
+              "to the maximum junction temperature (common practice, not a standard).")
 
 
 def curve_current(curve: SoaCurve, v_ds: float) -> float:

@@ -259,6 +259,9 @@ def soa_figure(result: AnalysisResult, document: dict[str, Any]) -> dict[str, An
                                 "bordercolor": AXIS, "font": {"size": 11}})
     xs = [v for t in data for v in t["x"]]
     ys = [v for t in data for v in t["y"]]
+    annotations.append({"xref": "paper", "yref": "paper", "x": 0.01, "y": 0.02, "xanchor": "left",
+                        "yanchor": "bottom", "showarrow": False, "font": {"size": 11},
+                        "text": "read without extrapolation: nothing beyond the drawn curves"})
     layout = _layout(f"Safe operating area, derated to {t_amb:g} \u00b0C", height=520,
                      xaxis=_axis("Drain-source voltage V_DS", "V", log=True, **_log_ticks(xs, "V")),
                      yaxis=_axis("Drain current I_D", "A", log=True, **_log_ticks(ys, "A")),
@@ -381,11 +384,14 @@ def monte_carlo_figure(mc: MonteCarlo) -> dict[str, Any] | None:
     ids = list(checks)
     cols = 2
     rows = math.ceil(len(ids) / cols)
-    gap_x, gap_y = 0.12, 0.6 / max(rows, 1) * 0.45
+    height, top, bottom = 170 + 300 * rows, 110, 60
+    gap_x, gap_y = 0.12, 120.0 / (height - top - bottom)  # an axis title and the next row's title fit
     w = (1 - gap_x * (cols - 1)) / cols
     h = (1 - gap_y * (rows - 1)) / rows
-    data, layout = [], _layout(f"Monte Carlo: {mc.n} samples, {mc.yield_ * 100:.1f} % pass every "
-                               "check", height=120 + 250 * rows, showlegend=False, hovermode="closest", bargap=0.02)
+    data, layout = [], _layout(f"Monte Carlo: {mc.n} samples, {mc.yield_ * 100:.1f} % pass every check<br><sub>"
+                               "dashed amber: the team's limit (margin 1); dotted red: the physical edge</sub>",
+                               height=height, showlegend=False, hovermode="closest", bargap=0.02,
+                               margin={"l": 70, "r": 24, "t": top, "b": bottom})
     shapes, annotations = [], []
     for k, cid in enumerate(ids):
         m = checks[cid]
@@ -411,9 +417,6 @@ def monte_carlo_figure(mc: MonteCarlo) -> dict[str, Any] | None:
             if x is not None and lo <= x <= hi:
                 shapes.append({"type": "line", "xref": f"x{n}", "x0": x, "x1": x, "yref": f"y{n} domain", "y0": 0,
                                "y1": 1, "line": {"color": colour, "width": 2, "dash": dash}})
-    annotations.append({"xref": "paper", "yref": "paper", "x": 0, "y": 1.0, "yanchor": "bottom", "xanchor": "left",
-                        "showarrow": False, "font": {"size": 11},
-                        "text": "dashed amber: the team's limit (margin 1); dotted red: the physical edge"})
     layout["shapes"], layout["annotations"] = shapes, annotations
     return {"data": data, "layout": layout}
 
