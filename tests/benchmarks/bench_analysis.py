@@ -40,7 +40,9 @@ from scipy.integrate import solve_ivp  # noqa: E402
 from server.analysis import analyze_rail  # noqa: E402
 from server.analysis.circuit import R_OFF, circuit_rows  # noqa: E402
 from server.analysis.document import read_rail  # noqa: E402
+from server.analysis.corners import corner_params, corner_set  # noqa: E402
 from server.analysis.evaluation import startup_rows  # noqa: E402
+from server.analysis.worstcase import evaluate_unique  # noqa: E402
 from server.analysis.montecarlo import sample_params  # noqa: E402
 from server.analysis.startup import simulate_startup  # noqa: E402
 from server.analysis.thermal import foster_arrays  # noqa: E402
@@ -72,24 +74,31 @@ def ms(x: float) -> str:
 
 def section_speed() -> None:
     print("Whole analyses (median)")
-    print(f"  {'rail':28s} {'nominal':>11s} {'+headroom':>11s} {'corners':>11s} {'MC 10k':>10s} {'MC peak':>10s}")
+    print(f"  {'rail':28s} {'nominal':>11s} {'corners':>11s} {'worst case':>11s} {'+headroom':>11s} {'MC 10k':>10s}"
+          f" {'MC peak':>10s}")
     for name, make in RAILS.items():
         doc = make()
-        t_nom = median_time(lambda: analyze_rail(doc, headroom=False), 30)
-        t_head = median_time(lambda: analyze_rail(doc), 15)
-        trials = analyze_rail(doc, waveforms=False)["headroom"]["c_max_trials"]
-        n_c = len(analyze_rail(doc, corners=True, headroom=False, waveforms=False)["corners"])
-        t_cor = median_time(lambda: analyze_rail(doc, corners=True, headroom=False, waveforms=False), 10)
-        t_mc = median_time(lambda: analyze_rail(doc, monte_carlo=10000, headroom=False, waveforms=False), 3)
+        t_nom = median_time(lambda: analyze_rail(doc, corners=False, headroom=False), 30)
+        rail = read_rail(doc)
+        cp = corner_params(corner_set(rail))
+        t_cor = median_time(lambda: evaluate_unique(rail, rail.rules, cp), 10)
+        t_wc = median_time(lambda: analyze_rail(doc, headroom=False, waveforms=False), 5)
+        t_head = median_time(lambda: analyze_rail(doc), 5)
+        res = analyze_rail(doc, waveforms=False)
+        trials, n_c, n_s = (res["headroom"]["c_max"]["trials"], res["worst_case"]["corners"],
+                            res["worst_case"]["search_points"])
+        t_mc = median_time(lambda: analyze_rail(doc, corners=False, monte_carlo=10000, headroom=False,
+                                                waveforms=False), 3)
         tracemalloc.start()
-        analyze_rail(doc, monte_carlo=10000, headroom=False, waveforms=False)
+        analyze_rail(doc, corners=False, monte_carlo=10000, headroom=False, waveforms=False)
         peak = tracemalloc.get_traced_memory()[1]
         tracemalloc.stop()
-        print(f"  {name:28s} {ms(t_nom):>11s} {ms(t_head):>11s} {ms(t_cor):>11s} {t_mc:8.3f} s {peak / 1e6:7.1f} MB"
-              f"   ({n_c} corners, {trials} headroom transients)")
+        print(f"  {name:28s} {ms(t_nom):>11s} {ms(t_cor):>11s} {ms(t_wc):>11s} {ms(t_head):>11s} {t_mc:8.3f} s "
+              f"{peak / 1e6:7.1f} MB   ({n_c} corners, {n_s} searched points, {trials} headroom transients)")
     rss = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024.0
     print(f"  process peak RSS so far: {rss:.0f} MB")
-    print("  goals: nominal < 10 ms, corners < 100 ms, MC 10k < 1 s with peak memory < 300 MB")
+    print("  goals: nominal < 10 ms, corners < 100 ms, the sign-off worst case < 1 s, MC 10k < 1 s with peak "
+          "memory < 300 MB")
 
 
 def section_headroom_backends() -> None:
@@ -233,8 +242,11 @@ def section_engines() -> None:
 
 def section_stiff() -> None:
     """A supercapacitor rail: 10 nH with 1 F, microseconds and seconds in one run."""
+    fet = copy.deepcopy(rd.FET_40V)  # on an invented water-cooled block: the 72 J start stays below tj_max
+    fet["zth"] = [{"r": 0.02 * st["r"], "tau": st["tau"]} for st in fet["zth"]]
+    fet["rth_ja"] *= 0.02
     doc = rd.simple_doc(mode="current_limit", v=12.0, c=1.0, r=1e-3, l=10e-9, esr=1e-3, load="resistive",
-                        i_nom=0.5, i_limit=10.0, rds_on=2e-3, fet=copy.deepcopy(rd.FET_40V))
+                        i_nom=0.5, i_limit=10.0, rds_on=2e-3, fet=fet)
     rail = read_rail(doc)
     cz = circuit_rows(rail, v_s=[12.0], c=[1.0])
     t = median_time(lambda: simulate_startup(cz), 10)
