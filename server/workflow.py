@@ -229,7 +229,7 @@ def _parse_states(raw: Any, errors: _Errors) -> list[State]:
         if name is None:
             continue
         if name.casefold() in seen:
-            errors.add(f"{path}.name", f"'{name}' is used by states[{seen[name.casefold()]}] already")
+            errors.add(f"{path}.name", f"'{name}' names another state already")
             continue
         seen[name.casefold()] = k
         states.append(State(name=name, initial=initial, signed_off=signed_off, description=description[:500]))
@@ -251,7 +251,8 @@ def _parse_demands(raw: Any, path: str, errors: _Errors) -> Demands:
                    no_stale_approvals=_flag(raw.get("no_stale_approvals"), f"{path}.no_stale_approvals", errors))
 
 
-def _parse_transitions(raw: Any, names: set[str], errors: _Errors) -> list[Transition]:
+def _parse_transitions(raw: Any, names: set[str], errors: _Errors) -> list[tuple[int, Transition]]:
+    """The valid transitions, each with its index in ``raw`` (the index error paths name)."""
     if raw is None:
         raw = []
     if not isinstance(raw, list):
@@ -259,7 +260,7 @@ def _parse_transitions(raw: Any, names: set[str], errors: _Errors) -> list[Trans
         return []
     if len(raw) > MAX_TRANSITIONS:
         errors.add("transitions", f"has more than {MAX_TRANSITIONS} transitions")
-    out: list[Transition] = []
+    out: list[tuple[int, Transition]] = []
     seen: set[tuple[str, str]] = set()
     for k, item in enumerate(raw):
         path = f"transitions[{k}]"
@@ -274,7 +275,7 @@ def _parse_transitions(raw: Any, names: set[str], errors: _Errors) -> list[Trans
             if value is not None and value not in names:
                 errors.add(f"{path}.{end}", f"'{value}' is not a state of this workflow")
         if source is not None and source == target:
-            errors.add(f"{path}.to", "must differ from 'from': a transition changes the state")
+            errors.add(f"{path}.to", "must differ from the state it leaves: a transition changes the state")
         roles = item.get("roles")
         if not isinstance(roles, list) or not roles:
             errors.add(f"{path}.roles", f"is required: a list of roles from {', '.join(TRANSITION_ROLES)}")
@@ -290,9 +291,9 @@ def _parse_transitions(raw: Any, names: set[str], errors: _Errors) -> list[Trans
             errors.add(f"{path}.name", f"'{name}' leaves '{source}' twice: names must differ per state")
             continue
         seen.add((source, name.casefold()))
-        out.append(Transition(name=name, source=source, target=target,
-                              roles=tuple(dict.fromkeys(r for r in roles if r in TRANSITION_ROLES)),
-                              demands=demands))
+        out.append((k, Transition(name=name, source=source, target=target,
+                                  roles=tuple(dict.fromkeys(r for r in roles if r in TRANSITION_ROLES)),
+                                  demands=demands)))
     return out
 
 
@@ -306,6 +307,13 @@ def _unreachable(initial: str, states: list[State], transitions: list[Transition
                 reached.add(t.target)
                 queue.append(t.target)
     return [s.name for s in states if s.name not in reached]
+
+
+def _raw_index(raw: list, name: str) -> int:
+    """Index in the given list of the state that parsed as ``name`` (the first of that name: a later
+    one is refused as a repeat), so that an error names the entry as it was given."""
+    return next(k for k, item in enumerate(raw)
+                if isinstance(item, dict) and isinstance(item.get("name"), str) and " ".join(item["name"].split()) == name)
 
 
 def parse_workflow(data: Any) -> WorkflowDef:
@@ -325,13 +333,15 @@ def parse_workflow(data: Any) -> WorkflowDef:
     name = _name(data.get("name") or "workflow", "name", errors) or "workflow"
     states = _parse_states(data.get("states"), errors)
     names = {s.name for s in states}
-    transitions = _parse_transitions(data.get("transitions"), names, errors)
+    indexed = _parse_transitions(data.get("transitions"), names, errors)
+    transitions = [t for _, t in indexed]
     initials = [s for s in states if s.initial]
     if states and len(initials) != 1:
         errors.add("states", f"exactly one state must be initial; {len(initials)} are")
     for s in states:
         if s.initial and s.signed_off:
-            errors.add("states", f"the initial state '{s.name}' cannot be signed off: new rails start there")
+            errors.add(f"states[{_raw_index(data['states'], s.name)}].signed_off",
+                       f"the initial state '{s.name}' cannot be signed off: new rails start there")
     if states and not any(s.signed_off for s in states):
         errors.add("states", "at least one state must be signed off (what the risk view counts as signed off)")
     on_edit = _name(data.get("on_edit"), "on_edit", errors)
@@ -341,13 +351,17 @@ def parse_workflow(data: Any) -> WorkflowDef:
         elif any(s.name == on_edit and s.signed_off for s in states):
             errors.add("on_edit", f"'{on_edit}' is signed off: an edited rail must leave its signed-off state")
     signed = {s.name for s in states if s.signed_off}
-    for k, t in enumerate(transitions):
+    for k, t in indexed:
         if t.target in signed and t.source not in signed and t.demands.approvals < 1:
             errors.add(f"transitions[{k}].demands.approvals",
                        f"'{t.name}' enters the signed-off state '{t.target}': it must demand at least one approval")
     if len(initials) == 1 and not errors.items:
-        for lost in _unreachable(initials[0].name, states, transitions):
-            errors.add("transitions", f"state '{lost}' cannot be reached from the initial state '{initials[0].name}'")
+        lost = set(_unreachable(initials[0].name, states, transitions))
+        for s in states:
+            if s.name in lost:
+                errors.add(f"states[{_raw_index(data['states'], s.name)}]",
+                           f"'{s.name}' cannot be reached from the initial state '{initials[0].name}': "
+                           "no transition leads to it")
     if errors.items:
         raise WorkflowInvalid(errors.items)
     return WorkflowDef(name=name, states=tuple(states), transitions=tuple(transitions), on_edit=on_edit or "")

@@ -36,13 +36,13 @@ def _break(mutate):
 BAD = [
     ("two initial states", lambda d: d["states"][1].update(initial=True), "states", "exactly one state must be initial"),
     ("no initial state", lambda d: d["states"][0].update(initial=False), "states", "exactly one state must be initial"),
-    ("duplicate name", lambda d: d["states"][2].update(name="In  Design"), "states[2].name", "is used by states[0]"),
+    ("duplicate name", lambda d: d["states"][2].update(name="In  Design"), "states[2].name", "names another state already"),
     ("empty name", lambda d: d["states"][1].update(name="  "), "states[1].name", "is required"),
     ("transition from a missing state", lambda d: d["transitions"][0].update({"from": "on hold"}),
      "transitions[0].from", "'on hold' is not a state"),
     ("transition to a missing state", lambda d: d["transitions"][1].update(to="scrapped"),
      "transitions[1].to", "'scrapped' is not a state"),
-    ("unreachable state", lambda d: d["states"].append({"name": "parked"}), "transitions",
+    ("unreachable state", lambda d: d["states"].append({"name": "parked"}), "states[4]",
      "'parked' cannot be reached"),
     ("on_edit missing", lambda d: d.update(on_edit="nowhere"), "on_edit", "is not a state"),
     ("on_edit signed off", lambda d: d.update(on_edit="margins accepted"), "on_edit", "must leave its signed-off"),
@@ -60,7 +60,7 @@ BAD = [
      "transitions[5].name", "leaves 'margins accepted' twice"),
     ("no signed-off state", lambda d: [s.update(signed_off=False) for s in d["states"]], "states",
      "at least one state must be signed off"),
-    ("signed-off initial state", lambda d: d["states"][0].update(signed_off=True), "states",
+    ("signed-off initial state", lambda d: d["states"][0].update(signed_off=True), "states[0].signed_off",
      "cannot be signed off"),
     ("misspelt demand", lambda d: d["transitions"][2]["demands"].update(aprovals=2),
      "transitions[2].demands.aprovals", "not a known field"),
@@ -75,6 +75,27 @@ def test_a_bad_definition_is_refused_naming_its_field(label, mutate, field, word
     found = {e["field"]: e["message"] for e in caught.value.errors}
     assert field in found, found
     assert words in found[field]
+
+
+def test_errors_name_each_entry_at_its_place_in_the_list_given():
+    """Entries refused for one problem do not shift the paths of the problems found after them."""
+    data = _default()
+    data["states"].insert(1, {"name": "In design"})                 # a repeat: refused, not parsed
+    data["states"].append({"name": "parked"})                       # unreachable, given as entry 6
+    data["transitions"].insert(0, {"name": "", "from": "in design", "to": "awaiting review", "roles": ["designer"]})
+    data["transitions"][3]["demands"]["approvals"] = 0              # 'accept margins', given as entry 4
+    with pytest.raises(WorkflowInvalid) as caught:
+        parse_workflow(data)
+    found = {e["field"]: e["message"] for e in caught.value.errors}
+    assert found["states[1].name"] == "'In design' names another state already"
+    assert found["transitions[0].name"].startswith("is required")
+    assert "'accept margins' enters the signed-off state" in found["transitions[3].demands.approvals"]
+    data["states"].pop(1)
+    data["transitions"].pop(0)
+    data["transitions"][2]["demands"]["approvals"] = 1
+    with pytest.raises(WorkflowInvalid) as caught:
+        parse_workflow(data)
+    assert [e["field"] for e in caught.value.errors] == ["states[4]"]
 
 
 def test_not_an_object_is_refused():
