@@ -23,7 +23,7 @@ from server.db import SessionDep
 from server.models import User
 from server.services import users
 from server.services.access import Actor
-from server.services.errors import Forbidden, Unauthenticated
+from server.services.errors import Unauthenticated
 
 __all__ = ["SessionCookie", "SESSION_COOKIE", "LOGIN_CSRF_COOKIE", "current_actor", "optional_actor", "CurrentActor",
            "require"]
@@ -146,8 +146,7 @@ def require(permission: str):
     """Dependency factory: the current actor, refused with 403 unless the role has ``permission``."""
 
     def _dependency(actor: CurrentActor) -> Actor:
-        if not actor.can(permission):
-            raise Forbidden(f"your role ({actor.role}) may not do this (needs '{permission}')")
+        actor.require(permission)
         return actor
 
     _dependency.permission = permission  # read by the route-permission test

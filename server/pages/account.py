@@ -1,4 +1,4 @@
-"""The account page: who you are, your teams, your API tokens (created here, shown once)."""
+"""The account page: who you are, what your role lets you do (in words), your password, your API tokens."""
 
 from __future__ import annotations
 
@@ -8,24 +8,55 @@ from fastapi import APIRouter, Form, Request
 from fastapi.responses import HTMLResponse, RedirectResponse, Response
 from sqlalchemy.orm import Session
 
-from server.auth import CurrentActor
+from server.auth import SESSION_COOKIE, CurrentActor
 from server.db import SessionDep
 from server.pages.common import page_context, render
 from server.services import users
-from server.services.access import Actor
+from server.services.access import Actor, role_abilities
+from server.services.errors import Forbidden, Invalid
 
 router = APIRouter(include_in_schema=False)
+PASSWORD_CHANGED = "Your password was changed. This session goes on; every other session of the old password has ended."
 
 
-def account_context(session: Session, actor: Actor, *, new_token: dict | None = None, error: str = "") -> dict:
+def account_context(session: Session, actor: Actor, *, new_token: dict | None = None, error: str = "",
+                    password_errors: dict[str, str] | None = None, done: str = "") -> dict:
     tokens = users.list_tokens(session=session, actor=actor, username=actor.name) if actor.user else []
-    return {"me": users.me_dict(actor), "tokens": [users.token_dict(t) for t in tokens], "new_token": new_token,
-            "error": error}
+    return {"me": users.me_dict(actor), "abilities": role_abilities(actor.role),
+            "has_password": bool(actor.user and actor.user.password_hash),
+            "tokens": [users.token_dict(t) for t in tokens], "new_token": new_token, "error": error,
+            "password_errors": password_errors or {}, "notice": PASSWORD_CHANGED if done == "password" else ""}
 
 
 @router.get("/account", response_class=HTMLResponse)
-def account(request: Request, session: SessionDep, actor: CurrentActor) -> Response:
-    return render(request, "account.html", page_context(request, actor, **account_context(session, actor)))
+def account(request: Request, session: SessionDep, actor: CurrentActor, done: str = "") -> Response:
+    return render(request, "account.html", page_context(request, actor, **account_context(session, actor, done=done)))
+
+
+@router.post("/account/password", response_class=HTMLResponse)
+def change_password(request: Request, session: SessionDep, actor: CurrentActor,
+                    current_password: Annotated[str, Form()] = "", new_password: Annotated[str, Form()] = "",
+                    new_password_repeat: Annotated[str, Form()] = "") -> Response:
+    """Change your own password; the session it came from is renewed (a new cookie of the new password)."""
+    errors: dict[str, str] = {}
+    if new_password != new_password_repeat:
+        errors["new_password_repeat"] = "differs from the new password"
+    if not errors:
+        try:
+            user = users.change_own_password(session=session, actor=actor, current_password=current_password,
+                                             new_password=new_password)
+        except (Invalid, Forbidden) as exc:
+            session.rollback()
+            errors = {d["field"]: d["message"] for d in exc.details} or {"current_password": exc.message}
+    if errors:
+        context = account_context(session, actor, password_errors=errors)
+        return render(request, "account.html", page_context(request, actor, **context), 422)
+    response = RedirectResponse("/account?done=password", status_code=303)
+    if getattr(request.state, "auth", None) == "cookie":
+        cookie = request.app.state.session_cookie
+        value, _ = cookie.dump(user.id, user.password_hash)
+        response.set_cookie(SESSION_COOKIE, value, **cookie.cookie_kwargs())
+    return response
 
 
 @router.post("/account/tokens", response_class=HTMLResponse)
@@ -48,4 +79,4 @@ def revoke_token(token_id: int, session: SessionDep, actor: CurrentActor) -> Res
     return RedirectResponse("/account", status_code=303)
 
 
-__all__ = ["router", "account_context"]
+__all__ = ["router", "account_context", "PASSWORD_CHANGED"]

@@ -1,8 +1,7 @@
-"""Admin pages: the teams' workflows, each edited as a plain form of states and transitions."""
+"""Admin pages: the teams' workflows, each edited as a form of states and transitions, with its diagram."""
 
 from __future__ import annotations
 
-from collections.abc import Mapping
 from typing import Annotated, Any
 
 from fastapi import APIRouter, Depends, Request
@@ -12,74 +11,46 @@ from sqlalchemy.orm import Session
 from server.auth import require
 from server.db import SessionDep
 from server.pages.common import FormDep, page_context, render
+from server.pages.workflow_diagram import workflow_svg
+from server.pages.workflow_form import (FIELD_WORDS, PlacedErrors, WorkflowForm, definition_of, form_from_definition,
+                                        place_errors, read_form)
 from server.services import workflows
 from server.services.access import Actor, Permission
-from server.services.errors import Invalid
-from server.workflow import MAX_STATES, MAX_TRANSITIONS, TRANSITION_ROLES
+from server.services.errors import Conflict, Invalid
+from server.workflow import MAX_APPROVALS, TRANSITION_ROLES
 
 router = APIRouter(prefix="/admin", include_in_schema=False)
 Admin = Annotated[Actor, Depends(require(Permission.ADMIN))]
-EXTRA_STATES = 2
-EXTRA_TRANSITIONS = 3
 
 
-def _text(form: Mapping[str, Any], key: str) -> str:
-    value = form.get(key)
-    return value.strip() if isinstance(value, str) else ""
+def state_options(form: WorkflowForm) -> list[dict[str, Any]]:
+    """The states a transition (or the on-edit choice) picks from: every state row, by its number."""
+    return [{"value": i, "label": s.name or f"State {i + 1} (not named yet)"} for i, s in enumerate(form.states)]
 
 
-def _count(form: Mapping[str, Any], key: str, cap: int) -> int:
-    try:
-        return max(0, min(int(_text(form, key) or 0), cap))
-    except ValueError:
-        return 0
-
-
-def definition_from_form(form: Any) -> dict[str, Any]:
-    """The workflow definition typed into the page's form; rows with an empty name are left out."""
-    states = []
-    for i in range(_count(form, "state_count", MAX_STATES + EXTRA_STATES)):
-        name = _text(form, f"state-{i}-name")
-        if name:
-            states.append({"name": name, "initial": _text(form, "initial") == str(i),
-                           "signed_off": _text(form, f"state-{i}-signed_off") == "on",
-                           "description": _text(form, f"state-{i}-description")})
-    transitions = []
-    for i in range(_count(form, "transition_count", MAX_TRANSITIONS + EXTRA_TRANSITIONS)):
-        name = _text(form, f"tr-{i}-name")
-        if not name:
-            continue
-        raw = _text(form, f"tr-{i}-approvals") or "0"
-        approvals: Any = int(raw) if raw.isdigit() else raw
-        roles = form.getlist(f"tr-{i}-roles") if hasattr(form, "getlist") else form.get(f"tr-{i}-roles", [])
-        transitions.append({"name": name, "from": _text(form, f"tr-{i}-from"), "to": _text(form, f"tr-{i}-to"),
-                            "roles": [r for r in roles if isinstance(r, str)],
-                            "demands": {"approvals": approvals,
-                                        "checks_pass": _text(form, f"tr-{i}-checks_pass") == "on",
-                                        "no_stale_approvals": _text(form, f"tr-{i}-no_stale") == "on"}})
-    return {"name": _text(form, "name"), "states": states, "transitions": transitions,
-            "on_edit": _text(form, "on_edit")}
-
-
-def workflow_page_context(session: Session, actor: Actor, team_id: int, *, definition: dict | None = None,
-                          errors: list[dict] | None = None, saved: dict | None = None) -> dict[str, Any]:
-    """The rows the form shows: the stored (or just typed) definition plus a few empty rows to add with."""
+def workflow_page_context(session: Session, actor: Actor, team_id: int, *, form: WorkflowForm | None = None,
+                          errors: PlacedErrors | None = None, saved: dict | None = None,
+                          conflict: str = "") -> dict[str, Any]:
+    """The editor: the stored workflow's diagram, and its form (the stored definition, or the rows as typed)."""
     stored = workflows.get_workflow(session=session, actor=actor, team_id=team_id)
-    shown = definition if definition is not None else stored["definition"]
-    blank_state = {"name": "", "initial": False, "signed_off": False, "description": ""}
-    blank_transition = {"name": "", "from": "", "to": "", "roles": [],
-                        "demands": {"approvals": 0, "checks_pass": False, "no_stale_approvals": False}}
+    shown = form if form is not None else form_from_definition(stored["definition"], stored["version"])
+    if conflict:
+        shown.version = stored["version"]       # saving again replaces what the other admin saved
     return {"team": {"id": stored["team_id"], "name": stored["team"]}, "version": stored["version"],
-            "definition": shown, "states": list(shown["states"]) + [blank_state] * EXTRA_STATES,
-            "transitions": list(shown["transitions"]) + [blank_transition] * EXTRA_TRANSITIONS,
-            "state_names": [s["name"] for s in shown["states"]], "roles": list(TRANSITION_ROLES),
-            "errors": errors or [], "saved": saved}
+            "updated_by": stored["updated_by"], "definition": stored["definition"],
+            "diagram": workflow_svg(stored["definition"], title=f"Workflow of team {stored['team']}"),
+            "form": shown, "state_options": state_options(shown), "roles": list(TRANSITION_ROLES),
+            "max_approvals": MAX_APPROVALS, "field_words": FIELD_WORDS, "errors": errors or PlacedErrors(),
+            "saved": saved, "conflict": conflict}
+
+
+def workflows_context(session: Session, actor: Actor) -> dict[str, Any]:
+    return {"workflows": workflows.list_workflows(session=session, actor=actor)}
 
 
 @router.get("/workflows", response_class=HTMLResponse)
 def workflow_list(request: Request, session: SessionDep, actor: Admin) -> Response:
-    items = workflows.list_workflows(session=session, actor=actor)
-    return render(request, "admin_workflows.html", page_context(request, actor, workflows=items))
+    return render(request, "admin_workflows.html", page_context(request, actor, **workflows_context(session, actor)))
 
 
 @router.get("/teams/{team_id}/workflow", response_class=HTMLResponse)
@@ -90,12 +61,22 @@ def workflow_form(request: Request, team_id: int, session: SessionDep, actor: Ad
 
 @router.post("/teams/{team_id}/workflow", response_class=HTMLResponse)
 def workflow_save(request: Request, team_id: int, form: FormDep, session: SessionDep, actor: Admin) -> Response:
-    definition = definition_from_form(form)
+    typed = read_form(form)
+    definition, state_rows, transition_rows = definition_of(typed)
     try:
-        saved = workflows.set_workflow(session=session, actor=actor, team_id=team_id, definition=definition)
+        saved = workflows.set_workflow(session=session, actor=actor, team_id=team_id, definition=definition,
+                                       expected_version=typed.version)
     except Invalid as exc:
         session.rollback()
-        context = workflow_page_context(session, actor, team_id, definition=definition, errors=exc.details)
+        errors = place_errors(exc.details, state_rows, transition_rows)
+        context = workflow_page_context(session, actor, team_id, form=typed, errors=errors)
         return render(request, "admin_workflow.html", page_context(request, actor, **context), 422)
+    except Conflict as exc:
+        session.rollback()
+        context = workflow_page_context(session, actor, team_id, form=typed, conflict=exc.message)
+        return render(request, "admin_workflow.html", page_context(request, actor, **context), 409)
     context = workflow_page_context(session, actor, team_id, saved=saved)
     return render(request, "admin_workflow.html", page_context(request, actor, **context))
+
+
+__all__ = ["router", "workflow_page_context", "workflows_context", "state_options"]

@@ -24,7 +24,7 @@ __all__ = ["page_context", "render", "redirect", "FormDep", "form_dict", "NAV_IT
 # The main navigation of every page: (label, path, permission needed or None); the current
 # section is marked with aria-current.
 NAV_ITEMS = [("Products", "/", None), ("Part library", "/parts", None), ("Risks", "/risks", Permission.RISK),
-             ("Workflows", "/admin/workflows", Permission.ADMIN)]
+             ("Workflows", "/admin/workflows", Permission.ADMIN), ("Users", "/admin/users", Permission.ADMIN)]
 templates.env.globals.update(verdict_style=verdict_style, fmt=fmt, nav_items=NAV_ITEMS)
 
 

@@ -15,7 +15,8 @@ from sqlalchemy import Select
 from server.models import Board, Product, Rail, Role, User
 from server.services.errors import Forbidden
 
-__all__ = ["Permission", "ROLE_PERMISSIONS", "Actor", "scoped_products", "scoped_boards", "scoped_rails"]
+__all__ = ["Permission", "ROLE_PERMISSIONS", "PERMISSION_WORDS", "permission_words", "role_abilities", "refusal",
+           "Actor", "scoped_products", "scoped_boards", "scoped_rails"]
 
 
 class Permission:
@@ -28,6 +29,29 @@ class Permission:
     ADMIN = "admin"          # users, teams, workflows
 
 
+# What each permission lets a person do, in words: what pages and error messages show (the
+# permission names are for programs: the API's /me and the route table).
+PERMISSION_WORDS: dict[str, str] = {
+    Permission.READ: "see products, boards, rails, parts and results",
+    Permission.EDIT: "create and change products, boards, rails and parts",
+    Permission.ANALYZE: "run analyses",
+    Permission.REVIEW: "approve revisions and waive checks",
+    Permission.RISK: "see the risk view and export the audit trail",
+    Permission.ADVANCE: "move rails along the team's workflow (each transition names the roles that may take it)",
+    Permission.ADMIN: "manage users, teams and workflows",
+}
+
+
+def permission_words(permission: str) -> str:
+    """What ``permission`` lets a person do, in words (an unknown name is shown as it is)."""
+    return PERMISSION_WORDS.get(permission, permission)
+
+
+def refusal(role: str, permission: str) -> str:
+    """The message of a refusal for want of ``permission``."""
+    return f"your role ({role}) may not {permission_words(permission)}"
+
+
 ROLE_PERMISSIONS: dict[str, frozenset[str]] = {
     Role.viewer.value: frozenset({Permission.READ}),
     Role.designer.value: frozenset({Permission.READ, Permission.EDIT, Permission.ANALYZE, Permission.ADVANCE}),
@@ -36,6 +60,12 @@ ROLE_PERMISSIONS: dict[str, frozenset[str]] = {
     Role.admin.value: frozenset({Permission.READ, Permission.EDIT, Permission.ANALYZE, Permission.RISK,
                                  Permission.ADMIN, Permission.ADVANCE}),
 }
+
+
+def role_abilities(role: str) -> list[str]:
+    """What ``role`` may do, in words, in the order of :data:`PERMISSION_WORDS`."""
+    allowed = ROLE_PERMISSIONS.get(role, frozenset())
+    return [words for permission, words in PERMISSION_WORDS.items() if permission in allowed]
 
 
 @dataclass
@@ -75,7 +105,7 @@ class Actor:
 
     def require(self, permission: str) -> None:
         if not self.can(permission):
-            raise Forbidden(f"your role ({self.role}) may not do this (needs '{permission}')")
+            raise Forbidden(refusal(self.role, permission))
 
     def sees_team(self, team_id: int) -> bool:
         return self.all_teams or team_id in self.team_ids

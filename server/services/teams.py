@@ -20,7 +20,7 @@ from server.services.audit import record
 from server.services.errors import Conflict, Invalid, NotFound
 
 __all__ = ["team_dict", "list_teams", "get_team", "create_team", "add_member", "join_team", "remove_member",
-           "join_teams"]
+           "join_teams", "set_memberships"]
 
 
 def team_dict(session: Session, team: Team, *, members: bool = False) -> dict:
@@ -122,16 +122,39 @@ def join_teams(session: Session, actor: Actor, user: User, names: Sequence[str])
         _add(session, actor, _team_named(session, actor, name), user)
 
 
-def remove_member(*, session: Session, actor: Actor, team_id: int, user_id: int) -> Team:
-    team = get_team(session=session, actor=actor, team_id=team_id)
-    member = session.get(TeamMember, (team.id, user_id))
-    if member is None:
-        raise NotFound(f"user {user_id} is not a member of team '{team.name}'")
-    user = session.get(User, user_id)
+def _remove(session: Session, actor: Actor, team: Team, user: User, member: TeamMember) -> None:
+    """Take ``user`` out of ``team``, recorded (the caller commits)."""
     session.delete(member)
     session.flush()
     session.expire(user, ["teams"])
     record(session, actor, action="remove_member", object_type="team", object_id=team.id, object_repr=team.name,
            after={"user": user.username, "user_id": user.id})
+
+
+def remove_member(*, session: Session, actor: Actor, team_id: int, user_id: int) -> Team:
+    team = get_team(session=session, actor=actor, team_id=team_id)
+    member = session.get(TeamMember, (team.id, user_id))
+    if member is None:
+        raise NotFound(f"user {user_id} is not a member of team '{team.name}'")
+    _remove(session, actor, team, session.get(User, user_id), member)
     session.commit()
     return team
+
+
+def set_memberships(*, session: Session, actor: Actor, user_id: int, team_ids: Sequence[int]) -> User:
+    """Make the user a member of exactly the teams given (admins), in one transaction: one audit entry
+    per team joined or left, nothing for a team kept."""
+    actor.require(Permission.ADMIN)
+    user = _user(session, user_id)
+    wanted = set(team_ids)
+    teams = {t.id: t for t in session.scalars(select(Team).where(Team.id.in_(wanted or {-1})))}
+    unknown = sorted(wanted - set(teams))
+    if unknown:
+        raise Invalid(f"no team {unknown[0]}", details=[{"field": "team_ids", "message": f"names no team: {unknown}"}])
+    members = {m.team_id: m for m in session.scalars(select(TeamMember).where(TeamMember.user_id == user.id))}
+    for team_id in sorted(set(members) - wanted):
+        _remove(session, actor, session.get(Team, team_id), user, members[team_id])
+    for team_id in sorted(wanted - set(members)):
+        _add(session, actor, teams[team_id], user)
+    session.commit()
+    return user

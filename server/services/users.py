@@ -1,8 +1,10 @@
 """Users and their API tokens: the one write path of the ``users`` and ``api_tokens`` tables.
 
-A user's role, name, password and whether they may log in change through :func:`update_user`
-only; their teams through :mod:`server.services.teams`. Tokens are made, revoked and marked
-used here (:func:`note_token_use`, for :mod:`server.auth`).
+A user's role, name, password and whether they may log in are written by one step,
+``_apply_changes``, behind two commands: :func:`update_user` (admins, any of them) and
+:func:`change_own_password` (a user, their own password, giving the current one). Their teams
+change through :mod:`server.services.teams`. Tokens are made, revoked and marked used here
+(:func:`note_token_use`, for :mod:`server.auth`).
 """
 
 from __future__ import annotations
@@ -13,7 +15,7 @@ from datetime import datetime
 from sqlalchemy import select, update
 from sqlalchemy.orm import Session
 
-from server.credentials import hash_password, new_token, token_digest
+from server.credentials import hash_password, new_token, token_digest, verify_password
 from server.models import ApiToken, Role, User, utcnow
 from server.services.access import ROLE_PERMISSIONS, Actor, Permission
 from server.services.audit import record
@@ -22,7 +24,7 @@ from server.services.teams import join_teams
 
 __all__ = ["ROLES", "TOKEN_USE_INTERVAL_S", "user_dict", "create_user", "list_users", "get_user_by_name",
            "create_token", "revoke_token", "list_tokens", "user_for_token", "note_token_use", "get_user",
-           "update_user", "me_dict", "token_dict"]
+           "update_user", "change_own_password", "me_dict", "token_dict"]
 
 ROLES = [r.value for r in Role]
 
@@ -150,15 +152,18 @@ def get_user(*, session: Session, actor: Actor, user_id: int) -> User:
     return user
 
 
-def update_user(*, session: Session, actor: Actor, user_id: int, role: str | None = None,
-                display_name: str | None = None, active: bool | None = None, password: str | None = None) -> User:
-    """Change a user's role, name, whether they may log in, or password (admins): the one function that
-    writes any of them. The audit entry shows no password."""
-    actor.require(Permission.ADMIN)
-    user = get_user(session=session, actor=actor, user_id=user_id)
+def _apply_changes(session: Session, actor: Actor, user: User, *, role: str | None = None,
+                   display_name: str | None = None, active: bool | None = None, password: str | None = None) -> None:
+    """Write a user's role, name, whether they may log in, or password, with one audit entry that shows
+    no password: the one writer of these columns (the caller checks who may, and commits).
+
+    A new password ends every session of the old one (session cookies carry a fingerprint of the
+    password hash, :mod:`server.auth`)."""
     before = user_dict(user)
     if role is not None:
         _check_role(role)
+        if role != user.role and user.id == actor.user_id:
+            raise Conflict("you cannot change your own role: ask another admin")
         user.role = role
     if display_name is not None:
         user.display_name = display_name
@@ -174,6 +179,47 @@ def update_user(*, session: Session, actor: Actor, user_id: int, role: str | Non
         after["password"] = "changed"
     record(session, actor, action="update", object_type="user", object_id=user.id, object_repr=user.username,
            before=before, after=after)
+
+
+def update_user(*, session: Session, actor: Actor, user_id: int, role: str | None = None,
+                display_name: str | None = None, active: bool | None = None, password: str | None = None) -> User:
+    """Change a user's role, name, whether they may log in, or password (admins); an admin keeps their own
+    role and cannot disable themself."""
+    actor.require(Permission.ADMIN)
+    user = get_user(session=session, actor=actor, user_id=user_id)
+    _apply_changes(session, actor, user, role=role, display_name=display_name, active=active, password=password)
+    session.commit()
+    return user
+
+
+def change_own_password(*, session: Session, actor: Actor, current_password: str, new_password: str) -> User:
+    """Set the actor's own password, given their current one (any role).
+
+    A wrong current password is refused (422 on ``current_password``) and recorded as
+    ``password_change_refused``; a new password must differ from the current one. The caller
+    renews the session it came from: the change ends every session of the old password.
+    """
+    user = session.get(User, actor.user_id) if actor.user_id is not None else None
+    if user is None or not user.active:
+        raise Forbidden("only a user who is logged in can change their own password")
+    if not user.password_hash:
+        raise Invalid("your account has no password to change: an admin sets the first one",
+                      details=[{"field": "current_password", "message": "your account has no password yet"}])
+    if not verify_password(user.password_hash, current_password or ""):
+        record(session, actor, action="password_change_refused", object_type="user", object_id=user.id,
+               object_repr=user.username, after={"reason": "wrong current password"})
+        session.commit()
+        raise Invalid("the current password is not right",
+                      details=[{"field": "current_password", "message": "is not your current password"}])
+    if verify_password(user.password_hash, new_password or ""):
+        raise Invalid("the new password is the current one",
+                      details=[{"field": "new_password", "message": "must differ from the current password"}])
+    try:
+        _check_password(new_password or "")
+    except Invalid as exc:
+        raise Invalid(exc.message, details=[{"field": "new_password", "message": "needs at least 8 characters"}]) \
+            from None
+    _apply_changes(session, actor, user, password=new_password)
     session.commit()
     return user
 

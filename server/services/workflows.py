@@ -15,7 +15,7 @@ from sqlalchemy.orm import Session
 from server.models import Board, Product, Rail, RailRevision, RailState, Team, Workflow, utcnow
 from server.services.access import Actor, Permission
 from server.services.audit import record
-from server.services.errors import Invalid, NotFound
+from server.services.errors import Conflict, Invalid, NotFound
 from server.workflow import DEFAULT_WORKFLOW, WorkflowDef, WorkflowInvalid, parse_workflow
 
 __all__ = ["ensure_default", "definition_for_team", "workflow_dict", "get_workflow", "set_workflow", "list_workflows",
@@ -71,8 +71,13 @@ def list_workflows(*, session: Session, actor: Actor) -> list[dict[str, Any]]:
     return [workflow_dict(t, _row(session, t.id)) for t in teams]
 
 
-def set_workflow(*, session: Session, actor: Actor, team_id: int, definition: Any) -> dict[str, Any]:
-    """Replace a team's workflow (admins). Rails in a state that no longer exists go to the initial state."""
+def set_workflow(*, session: Session, actor: Actor, team_id: int, definition: Any,
+                 expected_version: int | None = None) -> dict[str, Any]:
+    """Replace a team's workflow (admins). Rails in a state that no longer exists go to the initial state.
+
+    ``expected_version`` (the version an editor was opened on; 0 for the default never replaced)
+    refuses the change with a conflict when someone saved another version meanwhile.
+    """
     actor.require(Permission.ADMIN)
     try:
         wf = parse_workflow(definition)
@@ -81,6 +86,10 @@ def set_workflow(*, session: Session, actor: Actor, team_id: int, definition: An
                                          for e in exc.errors]) from None
     team = _team(session, actor, team_id)
     row = _row(session, team.id)
+    current = row.version if row is not None else 0
+    if expected_version is not None and expected_version != current:
+        raise Conflict(f"{row.updated_by if row else 'someone'} saved version {current} of the workflow of "
+                       f"{team.name} after version {expected_version} was opened")
     before = row.definition if row is not None else None
     if row is None:
         row = Workflow(team_id=team.id, definition=wf.as_dict(), version=1, updated_by=actor.name)
