@@ -1,4 +1,5 @@
-"""Users, teams, team workflows (API and admin page) and the command line, on SQLite and PostgreSQL."""
+"""Users, teams, team workflows (API) and the command line, on SQLite and PostgreSQL (the admin pages:
+tests/pages/test_admin_pages.py)."""
 
 from __future__ import annotations
 
@@ -7,17 +8,14 @@ import io
 import re
 import sys
 from datetime import timedelta
-from html.parser import HTMLParser
 
 import pytest
 from sqlalchemy import select, update
-from starlette.datastructures import FormData
 
 from server.__main__ import main
 from server.credentials import verify_password
 from server.demo import DEMO_PASSWORD, DEMO_USERS, seed_if_empty
 from server.models import ApiToken, AuditEntry, User
-from server.pages.admin import definition_from_form
 from server.pages.common import safe_next
 from server.workflow import DEFAULT_WORKFLOW
 from tests.conftest import TEST_SECRET
@@ -106,99 +104,6 @@ def test_rails_in_a_removed_state_go_back_to_the_initial_state(client, people):
     audit = client.get(f"/api/v1/rails/{rail['id']}/audit", headers=people.headers("viewer")).json()["items"]
     assert [e["action"] for e in audit] == ["create", "transition", "reset_state"]
     assert "not in the new workflow" in audit[-1]["after"]["note"]
-
-
-class _Inputs(HTMLParser):
-    """The form fields of a page, as a browser would send them, and which inputs have labels."""
-
-    def __init__(self) -> None:
-        super().__init__()
-        self.fields: list[tuple[str, str]] = []
-        self.ids: list[str] = []
-        self.labelled: set[str] = set()
-        self.in_label = 0
-        self.unlabelled_inline = 0
-
-    def handle_starttag(self, tag, attrs):
-        a = dict(attrs)
-        if tag == "label":
-            self.in_label += 1
-            if a.get("for"):
-                self.labelled.add(a["for"])
-        if tag != "input":
-            return
-        kind = a.get("type", "text")
-        if kind != "hidden":
-            if a.get("id"):
-                self.ids.append(a["id"])
-                if self.in_label:
-                    self.labelled.add(a["id"])
-            elif not self.in_label:
-                self.unlabelled_inline += 1
-        if kind in ("checkbox", "radio") and "checked" not in a:
-            return
-        if a.get("name"):
-            self.fields.append((a["name"], a.get("value", "on")))
-
-    def handle_endtag(self, tag):
-        if tag == "label":
-            self.in_label -= 1
-
-
-def _inputs(html: str) -> _Inputs:
-    parser = _Inputs()
-    parser.feed(html)
-    return parser
-
-
-def _as_form(pairs: list[tuple[str, str]]) -> dict[str, list[str]]:
-    out: dict[str, list[str]] = {}
-    for key, value in pairs:
-        out.setdefault(key, []).append(value)
-    return out
-
-
-def test_the_admin_workflow_page_edits_the_workflow_as_a_form(client, people, session_factory):
-    admin = people.headers("admin")
-    team = people.team_ids["alpha"]
-    page = client.get(f"/admin/teams/{team}/workflow", headers=admin)
-    assert page.status_code == 200
-    form = _inputs(page.text)
-    assert form.unlabelled_inline == 0 and set(form.ids) <= form.labelled, set(form.ids) - form.labelled
-    fields = dict(form.fields)
-    assert fields["tr-2-name"] == "accept margins" and fields["tr-2-approvals"] == "1"
-    sent = [(k, "2" if k == "tr-2-approvals" else v) for k, v in form.fields]
-    saved = client.post(f"/admin/teams/{team}/workflow", data=_as_form(sent), headers=admin)
-    assert saved.status_code == 200 and "Saved as version 2" in saved.text
-    workflow = client.get(f"/api/v1/teams/{team}/workflow", headers=admin).json()
-    expected = copy.deepcopy(DEFAULT_WORKFLOW)
-    expected["transitions"][2]["demands"]["approvals"] = 2
-    assert workflow["version"] == 2 and workflow["definition"] == expected
-
-    bad = [(k, v) for k, v in form.fields if k != "initial"] + [("initial", "0"), ("state-4-name", "parked")]
-    refused = client.post(f"/admin/teams/{team}/workflow", data=_as_form(bad), headers=admin)
-    assert refused.status_code == 422
-    assert "not saved" in refused.text and "&#39;parked&#39; cannot be reached" in refused.text
-    assert 'value="parked"' in refused.text  # what was typed stays
-    assert client.get(f"/api/v1/teams/{team}/workflow", headers=admin).json()["version"] == 2
-    listing = client.get("/admin/workflows", headers=admin)
-    assert listing.status_code == 200 and f'href="/admin/teams/{team}/workflow"' in listing.text
-    assert client.get(f"/admin/teams/{team}/workflow", headers=people.headers("manager")).status_code == 403
-
-
-def test_the_form_reader_keeps_rows_with_names_only():
-    form = FormData([("name", "quick review"), ("state_count", "3"), ("transition_count", "2"),
-                     ("state-0-name", "open"), ("initial", "0"), ("state-1-name", " "),
-                     ("state-2-name", "done"), ("state-2-signed_off", "on"), ("on_edit", "open"),
-                     ("tr-0-name", "close"), ("tr-0-from", "open"), ("tr-0-to", "done"), ("tr-0-roles", "reviewer"),
-                     ("tr-0-roles", "manager"), ("tr-0-approvals", "1"), ("tr-0-checks_pass", "on"),
-                     ("tr-1-name", "")])
-    assert definition_from_form(form) == {
-        "name": "quick review", "on_edit": "open",
-        "states": [{"name": "open", "initial": True, "signed_off": False, "description": ""},
-                   {"name": "done", "initial": False, "signed_off": True, "description": ""}],
-        "transitions": [{"name": "close", "from": "open", "to": "done", "roles": ["reviewer", "manager"],
-                         "demands": {"approvals": 1, "checks_pass": True, "no_stale_approvals": False}}]}
 
 
 @pytest.mark.parametrize("target,expected", [("/rails/3?tab=history", "/rails/3?tab=history"),
