@@ -1,7 +1,7 @@
 """A picture of a team's workflow, drawn on the server as SVG from its definition (no script, no network).
 
-The states stand in one row, in the order a rail meets them (breadth first from the initial
-state, ties in the order of the definition; states nothing reaches come last). A transition to
+The states stand in one row: the initial state first, then the others in the order the definition
+lists them (the order of the editor's rows, so the author decides it). A transition to
 the next state in the row is a straight arrow; one that skips ahead arcs above the row, one that
 goes back arcs below it. Arcs that would overlap (their spans or their labels) are drawn at
 different heights. Transitions between the same two states in the same direction share an
@@ -35,21 +35,11 @@ COLOURS = {"ink": "#1f2a36", "soft": "#4a5866", "line": "#5d6d7e", "box": "#ffff
 
 
 def state_order(definition: Mapping[str, Any]) -> list[str]:
-    """State names in the order a rail meets them: breadth first from the initial state along the
-    transitions (ties in the order of the definition); unreachable states last, in their order."""
+    """State names in the order of the row: the initial state first, then the others in the order the
+    definition lists them (the order the editor's rows show)."""
     names = [s["name"] for s in definition.get("states", [])]
-    initial = next((s["name"] for s in definition.get("states", []) if s.get("initial")), names[0] if names else None)
-    order: list[str] = []
-    frontier = [initial] if initial is not None else []
-    while frontier:
-        order.extend(frontier)
-        nxt = []
-        for here in frontier:
-            for t in definition.get("transitions", []):
-                if t.get("from") == here and t.get("to") in names and t["to"] not in order and t["to"] not in nxt:
-                    nxt.append(t["to"])
-        frontier = sorted(nxt, key=names.index)
-    return order + [n for n in names if n not in order]
+    initial = [s["name"] for s in definition.get("states", []) if s.get("initial")][:1]
+    return initial + [n for n in names if n not in initial]
 
 
 def transition_words(t: Mapping[str, Any]) -> tuple[str, str]:

@@ -185,15 +185,15 @@ def test_arcs_that_would_overlap_are_drawn_at_different_heights():
         assert y1 + h1 <= y2                            # labels stacked without overlap
 
 
-def test_the_diagram_orders_states_as_a_rail_meets_them_and_escapes_names():
+def test_the_diagram_puts_the_initial_state_first_then_the_definitions_order_and_escapes_names():
     wf = _default()
     wf["states"].insert(0, {"name": "on hold <parts & \"stock\">", "initial": False, "signed_off": False,
                             "description": ""})
     wf["transitions"].append({"name": "hold", "from": "awaiting review", "to": wf["states"][0]["name"],
                               "roles": ["manager"], "demands": {"approvals": 0, "checks_pass": False,
                                                                 "no_stale_approvals": False}})
-    assert state_order(wf) == ["in design", "awaiting review", "on hold <parts & \"stock\">", "margins accepted",
-                               "frozen for build"]
+    assert state_order(wf) == ["in design", "on hold <parts & \"stock\">", "awaiting review", "margins accepted",
+                               "frozen for build"]                  # the initial state, then the definition's order
     root = _svg(wf)                                    # parses: the name is escaped
     assert any("on hold <parts &" in t for t in _texts(root))
     assert "by manager" in " ".join(_texts(root))
