@@ -312,8 +312,8 @@ def _unreachable(initial: str, states: list[State], transitions: list[Transition
 def _raw_index(raw: list, name: str) -> int:
     """Index in the given list of the state that parsed as ``name`` (the first of that name: a later
     one is refused as a repeat), so that an error names the entry as it was given."""
-    return next(k for k, item in enumerate(raw)
-                if isinstance(item, dict) and isinstance(item.get("name"), str) and " ".join(item["name"].split()) == name)
+    return next(k for k, item in enumerate(raw) if isinstance(item, dict) and isinstance(item.get("name"), str)
+                and " ".join(item["name"].split()) == name)
 
 
 def parse_workflow(data: Any) -> WorkflowDef:

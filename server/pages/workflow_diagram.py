@@ -67,7 +67,8 @@ class _Label:
 
     @property
     def width(self) -> float:
-        return min(LABEL_W, max(len(text) * (NAME_PX if cls == "t-name" else SMALL_PX) for cls, text in self.lines) + 10)
+        widest = max(len(text) * (NAME_PX if cls == "t-name" else SMALL_PX) for cls, text in self.lines)
+        return min(LABEL_W, widest + 10)
 
 
 def _wrap(text: str, px: float, max_lines: int, width: float = LABEL_W - 10) -> list[str]:
@@ -207,14 +208,36 @@ def _description(definition: Mapping[str, Any], order: list[str]) -> str:
     states = {s["name"]: s for s in definition.get("states", [])}
     said = []
     for name in order:
-        marks = [w for key, w in (("initial", "initial"), ("signed_off", "signed off"), ("archives", "archives the record"))
-                 if states[name].get(key)]
+        flags = (("initial", "initial"), ("signed_off", "signed off"), ("archives", "archives the record"))
+        marks = [w for key, w in flags if states[name].get(key)]
         said.append(name + (f" ({', '.join(marks)})" if marks else ""))
     moves = []
     for t in definition.get("transitions", []):
         who, needs = transition_words(t)
         moves.append(f"{t['name']}: from {t['from']} to {t['to']}, {who}" + (f", {needs}" if needs else ""))
     return "States: " + "; ".join(said) + ". Transitions: " + "; ".join(moves) + "."
+
+
+def _style() -> str:
+    """The diagram's style element; every rule is scoped to the diagram (a style element inside an
+    SVG applies to the whole page)."""
+    c = COLOURS
+    rules = {
+        ".box": f"fill:{c['box']};stroke:{c['border']};stroke-width:1.5",
+        ".signed .box": f"fill:{c['signed_bg']};stroke:{c['signed']};stroke-width:2",
+        ".inner": f"fill:none;stroke:{c['signed']};stroke-width:1.2",
+        ".arrow": f"fill:none;stroke:{c['line']};stroke-width:1.6",
+        ".back .arrow": "stroke-dasharray:6 4",
+        ".label-bg": f"fill:{c['paper']};fill-opacity:.92",
+        "text": "font-family:system-ui,-apple-system,'Segoe UI',sans-serif",
+        ".s-name": f"font-size:13px;font-weight:600;fill:{c['ink']}",
+        ".t-name": f"font-size:13px;font-weight:600;fill:{c['ink']}",
+        ".s-tag": f"font-size:11px;fill:{c['soft']}",
+        ".signed .s-tag": f"fill:{c['signed']}",
+        ".t-small": f"font-size:11.5px;fill:{c['soft']}",
+        ".start-dot": f"fill:{c['ink']}",
+    }
+    return "<style>" + "".join(f"svg.workflow-diagram {sel}{{{rule}}}" for sel, rule in rules.items()) + "</style>"
 
 
 def workflow_svg(definition: Mapping[str, Any], *, title: str = "") -> Markup:
@@ -252,20 +275,7 @@ def workflow_svg(definition: Mapping[str, Any], *, title: str = "") -> Markup:
         "<defs><marker id=\"wf-arrowhead\" viewBox=\"0 0 10 10\" refX=\"9\" refY=\"5\" markerWidth=\"8\" "
         f"markerHeight=\"8\" orient=\"auto-start-reverse\"><path d=\"M0,0 L10,5 L0,10 z\" fill=\"{COLOURS['line']}\"/>"
         "</marker></defs>",
-        "<style>"
-        f".box{{fill:{COLOURS['box']};stroke:{COLOURS['border']};stroke-width:1.5}}"
-        f".signed .box{{fill:{COLOURS['signed_bg']};stroke:{COLOURS['signed']};stroke-width:2}}"
-        f".inner{{fill:none;stroke:{COLOURS['signed']};stroke-width:1.2}}"
-        f".arrow{{fill:none;stroke:{COLOURS['line']};stroke-width:1.6}}"
-        f".back .arrow{{stroke-dasharray:6 4}}"
-        f".label-bg{{fill:{COLOURS['paper']};fill-opacity:.92}}"
-        "text{font-family:system-ui,-apple-system,'Segoe UI',sans-serif}"
-        f".s-name,.t-name{{font-size:13px;font-weight:600;fill:{COLOURS['ink']}}}"
-        f".s-tag{{font-size:11px;fill:{COLOURS['soft']}}}"
-        f".signed .s-tag{{fill:{COLOURS['signed']}}}"
-        f".t-small{{font-size:11.5px;fill:{COLOURS['soft']}}}"
-        f".start-dot{{fill:{COLOURS['ink']}}}"
-        "</style>",
+        _style(),
         f'<g class="start"><circle class="start-dot" cx="{sx:.1f}" cy="{sy:.1f}" r="6"/>'
         f'<path class="arrow" d="M{sx + 7:.1f},{sy:.1f} L{_x(position[initial]) - 2:.1f},{sy:.1f}" '
         f'marker-end="url(#wf-arrowhead)"/>{_text(sx, sy - 12, "t-small", "start")}</g>',

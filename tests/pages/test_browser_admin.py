@@ -83,7 +83,8 @@ def test_the_workflow_editor_places_each_problem_beside_its_transition_and_draws
     pg.locator(".workflow-figure").screenshot(path=str(ARTIFACTS / "admin-workflow-diagram.png"))
 
 
-def test_an_admin_adds_disables_and_enables_a_user_who_then_cannot_and_can_log_in(admin_page, browser, served):  # noqa: F811
+def test_an_admin_adds_disables_and_enables_a_user_who_then_cannot_and_can_log_in(
+        admin_page, browser, served):  # noqa: F811
     pg = admin_page
     pg.get_by_role("link", name="Users").click()
     pg.wait_for_url(re.compile(r"/admin/users$"))

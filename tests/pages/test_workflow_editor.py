@@ -108,13 +108,15 @@ def test_every_problem_is_placed_and_worded_for_people():
 def test_the_form_of_a_stored_definition_offers_empty_rows_and_picks_states_by_row():
     form = form_from_definition(_default(), version=4)
     assert len(form.states) == 4 + EXTRA_STATES and len(form.transitions) == 6 + EXTRA_TRANSITIONS
-    assert (form.transitions[2].name, form.transitions[2].source, form.transitions[2].target) == ("accept margins", 1, 2)
+    accept = form.transitions[2]
+    assert (accept.name, accept.source, accept.target) == ("accept margins", 1, 2)
     assert form.on_edit == 0 and form.version == 4 and form.archives is False
     assert all(t.blank for t in form.transitions[6:]) and all(s.blank for s in form.states[4:])
 
 
 def test_the_archive_flag_gets_a_checkbox_per_state_when_the_definition_carries_it():
-    """A state's ``archives`` key ("entering it archives the record"): shown and written only when the definition has it."""
+    """A state's ``archives`` key ("entering it archives the record"): shown and written only when the
+    definition has it."""
     flagged = _default()
     for s in flagged["states"]:
         s["archives"] = s["name"] == "frozen for build"
