@@ -85,7 +85,8 @@ def set_workflow(*, session: Session, actor: Actor, team_id: int, definition: An
         raise Invalid(str(exc), details=[{**e, "field": f"definition.{e['field']}".rstrip(".")}
                                          for e in exc.errors]) from None
     team = _team(session, actor, team_id)
-    row = _row(session, team.id)
+    # locked (PostgreSQL; SQLite's write sessions hold the write lock): two saves of one version cannot both pass
+    row = session.scalar(select(Workflow).where(Workflow.team_id == team.id).with_for_update())
     current = row.version if row is not None else 0
     if expected_version is not None and expected_version != current:
         raise Conflict(f"{row.updated_by if row else 'someone'} saved version {current} of the workflow of "
