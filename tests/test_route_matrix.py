@@ -50,6 +50,7 @@ ROUTES: list[tuple[str, str, str]] = [
     ("POST",   "/rails/{rail_id}/waivers/{waiver_id}/carry",        P.REVIEW),
     ("POST",   "/rails/{rail_id}/transitions",                      P.ADVANCE),
     ("GET",    "/risks",                                            P.RISK),
+    ("GET",    "/risks.csv",                                        P.RISK),
     ("GET",    "/products/{product_id}/risks",                      P.RISK),
     ("GET",    "/parts/new",                                        P.EDIT),
     ("POST",   "/parts/new",                                        P.EDIT),

@@ -23,7 +23,7 @@ from server.schemas.result import AnalysisResult, MonteCarlo, Waveforms
 
 __all__ = ["PALETTE", "VERDICT_COLOURS", "startup_figure", "soa_figure", "timer_figure", "monte_carlo_figure",
            "startup_overlay_figure", "soa_overlay_figure", "timer_limits", "budget_figure", "part_soa_figure", "zth_figure",
-           "pulse_label"]
+           "pulse_label", "risk_trend_figure"]
 
 INK, GRID, AXIS = "#22303c", "#e4e8ed", "#9aa5b1"
 PALETTE = ["#3a6ea5", "#2a9d8f", "#c98a1b", "#8e5a9b", "#5c6b7a", "#b5523b", "#6f8f3a", "#a0527a"]
@@ -473,3 +473,28 @@ def zth_figure(stages: list[dict[str, Any]]) -> dict[str, Any] | None:
                               xaxis=_axis("Pulse duration", "s", log=True, **_log_ticks(list(t), "s")),
                               yaxis=_axis("Zth junction to ambient", " K/W", log=True,
                                           **_log_ticks(list(z), "K/W")), showlegend=False)}
+
+
+# --- risk counts over time ------------------------------------------------------------------
+
+def risk_trend_figure(points: list[dict[str, Any]], lines: list[tuple[str, str, str, str]]) -> dict[str, Any] | None:
+    """Risk counts per day as a small line chart, every line named in the legend.
+
+    ``points``: [{day (ISO date), counts}], oldest first; ``lines``: (count key, name, colour, dash);
+    the line of ``not_analysed`` also counts the rails never analysed.
+    """
+    if not points:
+        return None
+    days = [p["day"] for p in points]
+    data = []
+    for key, name, colour, dash in lines:
+        values = [p["counts"].get(key, 0) + (p["counts"].get("never_analysed", 0) if key == "not_analysed" else 0)
+                  for p in points]
+        data.append({"type": "scatter", "mode": "lines+markers", "name": name, "x": days, "y": values,
+                     "line": {"color": colour, "width": 2, "dash": dash}, "marker": {"size": 5},
+                     "hovertemplate": "%{x}: %{y}<extra>" + name + "</extra>"})
+    layout = _layout("Rails at risk per day (technical risks solid, process state dashed)", height=340,
+                     xaxis={**_axis("Day (UTC)"), "tickformat": "%b %d", "type": "date"},
+                     yaxis={**_axis("Rails"), "rangemode": "tozero", "tickformat": "d"},
+                     margin={"l": 60, "r": 20, "t": 44, "b": 120}, hovermode="x unified")
+    return {"data": data, "layout": layout}
