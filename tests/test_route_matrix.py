@@ -55,6 +55,7 @@ ROUTES: list[tuple[str, str, str]] = [
     ("GET",    "/rails/{rail_id}/edit",                             P.EDIT),
     ("POST",   "/rails/{rail_id}/edit",                             P.EDIT),
     ("GET",    "/rails/{rail_id}/history",                          P.READ),
+    ("GET",    "/rails/{rail_id}/revisions/{n}",                    P.READ),
     ("GET",    "/parts",                                            P.READ),
     ("POST",   "/rails/{rail_id}/approvals",                        P.REVIEW),
     ("POST",   "/rails/{rail_id}/waivers",                          P.REVIEW),

@@ -141,7 +141,10 @@ def startup_figure(result: AnalysisResult, document: dict[str, Any]) -> dict[str
 
 def _startup(waves: list[tuple[Waveforms, str, str, str]], document: dict[str, Any], rules: dict[str, float],
              title: str) -> dict[str, Any]:
-    data, layout = [], _layout(title, height=640, hovermode="x unified", hoversubplots="axis")
+    data, layout = [], _layout(title, height=640 if len(waves) == 1 else 700, hovermode="x unified",
+                               hoversubplots="axis")
+    if len(waves) > 1:   # an overlay names every trace with its revision: room for the longer legend
+        layout["margin"] = {**layout["margin"], "b": 160}
     domains = _stacked_axes(len(_ROWS))
     for k, (key, label, unit) in enumerate(_ROWS):
         ax = "y" if k == 0 else f"y{k + 1}"
@@ -158,7 +161,7 @@ def _startup(waves: list[tuple[Waveforms, str, str, str]], document: dict[str, A
                              "x": _r(wave.t), "y": _r(values), "xaxis": "x", "yaxis": ax,
                              "line": {"color": (PALETTE[k] if j == 0 else PALETTE[5]) if single else colour,
                                       "width": 2, "dash": ("dot" if j else dash)},
-                             "showlegend": single or (k == 0), "legendgroup": (suffix or key) + signal})
+                             "showlegend": True, "legendgroup": (suffix or key) + signal})
     layout["xaxis"] = _axis("Time since turn-on", "s", anchor=f"y{len(_ROWS)}", showspikes=True,
                             spikemode="across", spikethickness=1, spikecolor=AXIS)
     tj_max = (document.get("fet") or {}).get("tj_max")

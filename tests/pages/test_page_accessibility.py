@@ -86,7 +86,7 @@ def site(client, app, people, session_factory):
     csrf = log_in(client, app, people.ids["admin"])
     return client, csrf, {"product_id": ids["product_id"], "board_id": ids["board_id"],
                           "rail_id": ids["rail_ids"][0], "part_id": ids["part_id"],
-                          "team_id": people.team_ids["alpha"]}, ids
+                          "team_id": people.team_ids["alpha"], "n": 1}, ids
 
 
 def test_every_page_is_labelled_ordered_and_says_its_verdicts(site, app):
