@@ -80,10 +80,13 @@ def _int_or_none(value: str | int | None, name: str) -> int | None:
 
 
 def _rail_row(r: dict[str, Any]) -> dict[str, Any]:
+    """A rail of the view as the table shows it (the service's check lists are shared: read, never changed)."""
+    r = dict(r)
+    r["checks"] = []
     for c in r["failing"] + r["marginal"] + r["waived"]:
         record = RiskCheck.model_validate(c)
-        c["text"] = check_text(record)
-        c["row"] = check_row(record)
+        r["checks"].append({"id": c["id"], "verdict": c["verdict"], "waiver": c["waiver"], "text": check_text(record),
+                            "row": check_row(record)})
     r["technical_words"] = [RISK_WORDS[k] for k in r["technical"]]
     r["process_words"] = [RISK_WORDS[k] for k in r["process"]]
     worst = r["risks"][0] if r["risks"] else None

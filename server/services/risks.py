@@ -30,7 +30,8 @@ from __future__ import annotations
 import csv
 import io
 import math
-from collections import defaultdict
+import threading
+from collections import OrderedDict, defaultdict
 from dataclasses import dataclass
 from datetime import date, timedelta
 from typing import Any
@@ -41,11 +42,11 @@ from sqlalchemy.dialects.sqlite import insert as sqlite_insert
 from sqlalchemy.orm import Session, aliased
 
 from server.models import (AnalysisResult, Approval, Board, Part, PartRevision, Product, Rail, RailRevision,
-                           RiskSnapshot, Waiver, utcnow)
+                           RailState, RiskSnapshot, Waiver, utcnow)
 from server.services import engine_change, results, workflows
 from server.services.access import Actor, Permission, scoped_products
 from server.services.errors import Invalid, NotFound
-from server.services.result_parts import ResultKey, result_parts
+from server.services.result_parts import ResultKey, ResultParts, result_parts
 from server.services.signoff import covering_waivers, waiver_dict
 from server.workflow import ApprovalFact, RailFacts, WorkflowDef, current_approvers, outstanding_stale
 
@@ -73,7 +74,7 @@ class _Rows:
     """What the queries of :func:`_entries` read, by rail id."""
 
     rails: list[Any]
-    checks: dict[int, list[dict[str, Any]]]
+    checks: dict[int, ResultParts]
     outdated: dict[str, dict[str, str]]
     ever: set[int]
     states: dict[int, str]
@@ -110,7 +111,7 @@ def _read(session: Session, product_ids: list[int]) -> _Rows:
     in_products = select(Rail.id).join(Board, Board.id == Rail.board_id).where(Board.product_id.in_(product_ids))
     parts = result_parts(session, [ResultKey(r.result_id, r.head_sha256, r.result_at)
                                    for r in rails if r.result_id is not None])
-    checks = {r.id: parts[r.result_id].checks for r in rails if r.result_id in parts}
+    checks = {r.id: parts[r.result_id] for r in rails if r.result_id in parts}
     outdated = results.outdated_verdicts(session, [r.head_sha256 for r in rails if r.result_id is None])
     unread = [r.id for r in rails if r.result_id is None and r.head_sha256 not in outdated]
     ever: set[int] = set()
@@ -126,31 +127,76 @@ def _read(session: Session, product_ids: list[int]) -> _Rows:
     for w in session.scalars(select(Waiver).join(Rail, (Rail.id == Waiver.rail_id) & (Waiver.revision_n == Rail.head_n))
                              .where(Waiver.rail_id.in_(in_products)).order_by(Waiver.id)):
         waivers[w.rail_id].append(w)
-    return _Rows(rails, checks, outdated, ever, workflows.rail_states(session, [r.id for r in rails]),
-                 approvals, waivers)
+    states = dict(session.execute(select(RailState.rail_id, RailState.state)
+                                  .where(RailState.rail_id.in_(in_products))).all())
+    return _Rows(rails, checks, outdated, ever, states, approvals, waivers)
 
 
-def _problem_checks(checks: list[dict[str, Any]] | None, waivers: list[Waiver],
-                    head_n: int) -> tuple[list, list, list]:
-    """(failing, marginal, waived) check records of the head revision, each with the waiver that covers it."""
-    covering = covering_waivers(checks, waivers, head_n)
-    failing, marginal, waived = [], [], []
+# The failing and marginal rows of each stored result, split once: {id(parts): (parts, failing, marginal)}.
+# A stored result never changes; the parts object is kept in the entry so that its id is not reused.
+_SPLIT: OrderedDict[int, tuple[ResultParts, list, list]] = OrderedDict()
+_SPLIT_LOCK = threading.Lock()
+_SPLIT_MAX = 20_000
+
+
+def _split(parts: ResultParts) -> tuple[list, list]:
+    """(failing, marginal) rows of a result without waivers, each check once per verdict; shared: never changed."""
+    with _SPLIT_LOCK:
+        hit = _SPLIT.get(id(parts))
+        if hit is not None and hit[0] is parts:
+            return hit[1], hit[2]
+    failing, marginal = [], []
     seen: set[tuple[str, Any]] = set()
-    for c in checks or []:
-        cid = str(c.get("id"))
-        if c.get("verdict") not in ("fail", "marginal") or (cid, c.get("verdict")) in seen:
-            continue
-        seen.add((cid, c.get("verdict")))
-        w = covering.get(cid)
-        row = {**c, "title": c.get("title", ""), "waiver": waiver_dict(w) if w else None}
-        (waived if w else failing if c.get("verdict") == "fail" else marginal).append(row)
-    return failing, marginal, waived
+    for c in parts.problems:
+        key = (str(c.get("id")), c.get("verdict"))
+        if key not in seen:
+            seen.add(key)
+            (failing if c.get("verdict") == "fail" else marginal).append(
+                {**c, "title": c.get("title", ""), "waiver": None})
+    with _SPLIT_LOCK:
+        _SPLIT[id(parts)] = (parts, failing, marginal)
+        while len(_SPLIT) > _SPLIT_MAX:
+            _SPLIT.popitem(last=False)
+    return failing, marginal
 
 
-def _awaiting_review(wf: WorkflowDef, facts: RailFacts) -> bool:
-    """Whether a transition out of the rail's state waits for approvals of its current revision."""
-    have = len(current_approvers(facts))
-    return any(t.demands.approvals > have for t in wf.transitions_from(facts.state))
+def _problem_checks(parts: ResultParts | None, waivers: list[Waiver],
+                    head_n: int) -> tuple[list, list, list]:
+    """(failing, marginal, waived) check records of the head revision, each with the waiver that covers it.
+
+    The lists may be shared between calls: callers read them and never change them.
+    """
+    if parts is None or not parts.problems:
+        return [], [], []
+    failing, marginal = _split(parts)
+    covering = covering_waivers(parts.problems, waivers, head_n) if waivers else {}
+    if not covering:
+        return failing, marginal, []
+    open_failing, open_marginal, waived = [], [], []
+    for c in failing + marginal:
+        w = covering.get(str(c.get("id")))
+        if w is None:
+            (open_failing if c.get("verdict") == "fail" else open_marginal).append(c)
+        else:
+            waived.append({**c, "waiver": waiver_dict(w)})
+    return open_failing, open_marginal, waived
+
+
+@dataclass(frozen=True)
+class _Flow:
+    """What the view asks of a team's workflow, answered once per team rather than once per rail."""
+
+    initial: str
+    states: frozenset[str]
+    signed_off: frozenset[str]
+    approvals_wanted: dict[str, int]   # state -> the most approvals a transition out of it demands
+
+    @classmethod
+    def of(cls, wf: WorkflowDef) -> "_Flow":
+        wanted = {s.name: max((t.demands.approvals for t in wf.transitions_from(s.name)), default=0)
+                  for s in wf.states}
+        return cls(wf.initial, frozenset(s.name for s in wf.states),
+                   frozenset(s.name for s in wf.states if s.signed_off), wanted)
 
 
 def _worst_margin(rows: list[dict[str, Any]]) -> float:
@@ -158,15 +204,20 @@ def _worst_margin(rows: list[dict[str, Any]]) -> float:
     return min((m for m in margins if math.isfinite(m)), default=math.inf)
 
 
-def _entry(r: Any, data: _Rows, wf: WorkflowDef, product_name: str) -> dict[str, Any]:
+def _entry(r: Any, data: _Rows, flow: _Flow, product: dict[str, Any], board: dict[str, Any]) -> dict[str, Any]:
     state = data.states.get(r.id)
-    if state is None or not wf.has_state(state):
-        state = wf.initial
+    if state is None or state not in flow.states:
+        state = flow.initial
     checks = data.checks.get(r.id)
     failing, marginal, waived = _problem_checks(checks, data.waivers.get(r.id, []), r.head_n)
-    facts = RailFacts(state=state, head_n=r.head_n, approvals=tuple(data.approvals.get(r.id, ())))
-    stale = [{"reviewer": a.reviewer_name, "revision": a.revision_n} for a in outstanding_stale(facts)]
-    signed_off = wf.is_signed_off(state)
+    approvals = data.approvals.get(r.id)
+    if approvals:
+        facts = RailFacts(state=state, head_n=r.head_n, approvals=tuple(approvals))
+        stale = [{"reviewer": a.reviewer_name, "revision": a.revision_n} for a in outstanding_stale(facts)]
+        current = len(current_approvers(facts))
+    else:
+        stale, current = [], 0
+    signed_off = state in flow.signed_off
     outdated = data.outdated.get(r.head_sha256) if checks is None else None
     ever = checks is not None or outdated is not None or r.id in data.ever
     part = None
@@ -176,17 +227,18 @@ def _entry(r: Any, data: _Rows, wf: WorkflowDef, product_name: str) -> dict[str,
         "failing_check": bool(failing), "marginal_check": bool(marginal), "waived_check": bool(waived),
         "outdated_result": outdated is not None, "not_analysed": checks is None and outdated is None and ever,
         "never_analysed": not ever, "outdated_part": part is not None,
-        "stale_signoff": bool(stale), "awaiting_review": not signed_off and _awaiting_review(wf, facts),
+        "stale_signoff": bool(stale),
+        # a transition out of its state waits for approvals of the current revision
+        "awaiting_review": not signed_off and flow.approvals_wanted.get(state, 0) > current,
         "missing_signoff": not signed_off,
     }
     kinds = [k for k in RISK_KINDS if flags[k]]
     return {"id": r.id, "name": r.name, "mode": r.mode, "head": {"n": r.head_n, "sha256": r.head_sha256},
-            "product": {"id": r.product_id, "name": product_name},
-            "board": {"id": r.board_id, "name": r.board_name, "revision": r.board_revision},
+            "product": product, "board": board,
             "owner": r.author_name, "state": state, "signed_off": signed_off, "analysed": checks is not None,
             "ever_analysed": ever, "outdated": outdated, "outdated_part": part,
             "failing": failing, "marginal": marginal, "waived": waived, "stale_approvals": stale,
-            "current_approvals": len(current_approvers(facts)), "risks": kinds,
+            "current_approvals": current, "risks": kinds,
             "technical": [k for k in kinds if k in TECHNICAL_KINDS], "process": [k for k in kinds if k in PROCESS_KINDS]}
 
 
@@ -195,9 +247,17 @@ def _entries(session: Session, products: list[Any]) -> list[dict[str, Any]]:
         return []
     names = {p.id: p.name for p in products}
     team_of = {p.id: p.team_id for p in products}
-    flows = {team: workflows.definition_for_team(session, team) for team in set(team_of.values())}
+    flows = {team: _Flow.of(workflows.definition_for_team(session, team)) for team in set(team_of.values())}
     data = _read(session, list(names))
-    return [_entry(r, data, flows[team_of[r.product_id]], names[r.product_id]) for r in data.rails]
+    product_dicts = {pid: {"id": pid, "name": name} for pid, name in names.items()}
+    boards: dict[int, dict[str, Any]] = {}
+    out = []
+    for r in data.rails:
+        board = boards.get(r.board_id)
+        if board is None:
+            board = boards[r.board_id] = {"id": r.board_id, "name": r.board_name, "revision": r.board_revision}
+        out.append(_entry(r, data, flows[team_of[r.product_id]], product_dicts[r.product_id], board))
+    return out
 
 
 def _severity_key(e: dict[str, Any]) -> tuple:
