@@ -8,13 +8,14 @@ import csv
 import io
 import json
 import re
+from pathlib import Path
 
 import pytest
 from openpyxl import Workbook
 from sqlalchemy import func, select
 
 from server.models import Board, Product, Rail, RailRevision
-from server.rail_table import TableInvalid, read_csv, read_xlsx, template_csv
+from server.rail_table import TableInvalid, columns, read_csv, read_xlsx, template_csv
 from server.schemas.rail import normalize
 from server.schemas.validation import parse_rail_document
 from server.services import catalog, parts
@@ -229,3 +230,9 @@ def test_products_and_boards_are_made_and_renamed_in_the_pages(client, editor, s
         assert (b.name, b.revision, b.product_id) == ("Buoy power", "C", product_id)
     outsider = client.get(f"/products/{product_id}/edit", headers=people.headers("outsider"))
     assert outsider.status_code == 404
+
+
+def test_the_readme_documents_every_column_of_the_set():
+    readme = (Path(__file__).resolve().parent.parent / "README.md").read_text(encoding="utf-8")
+    section = readme.split("## Importing a table of rails", 1)[1].split("\n## ", 1)[0]
+    assert [c for c in columns() if f"`{c}`" not in section] == []

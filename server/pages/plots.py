@@ -13,6 +13,7 @@ Provides :func:`startup_figure`, :func:`soa_figure`, :func:`timer_figure`,
 from __future__ import annotations
 
 import math
+from datetime import date, timedelta
 from typing import Any
 
 import numpy as np
@@ -496,8 +497,12 @@ def risk_trend_figure(points: list[dict[str, Any]], lines: list[tuple[str, str, 
         data.append({"type": "scatter", "mode": "lines+markers", "name": name, "x": days, "y": values,
                      "line": {"color": colour, "width": 2, "dash": dash}, "marker": {"size": 5},
                      "hovertemplate": "%{x}: %{y}<extra>" + name + "</extra>"})
+    first, last = date.fromisoformat(days[0]), date.fromisoformat(days[-1])
+    first = min(first, last - timedelta(days=6))           # at least a week wide, one tick a day or fewer
+    span = [(first - timedelta(hours=12)).isoformat(), (last + timedelta(hours=12)).isoformat()]
     layout = _layout("Rails at risk per day (technical risks solid, process state dashed)", height=340,
-                     xaxis={**_axis("Day (UTC)"), "tickformat": "%b %d", "type": "date"},
+                     xaxis={**_axis("Day (UTC)"), "tickformat": "%b %d", "type": "date", "range": span,
+                            "dtick": 86_400_000 * max(1, (last - first).days // 10)},
                      yaxis={**_axis("Rails"), "rangemode": "tozero", "tickformat": "d"},
                      margin={"l": 60, "r": 20, "t": 44, "b": 120}, hovermode="x unified")
     return {"data": data, "layout": layout}
