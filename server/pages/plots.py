@@ -503,6 +503,7 @@ def risk_trend_figure(points: list[dict[str, Any]], lines: list[tuple[str, str, 
     layout = _layout("Rails at risk per day (technical risks solid, process state dashed)", height=340,
                      xaxis={**_axis("Day (UTC)"), "tickformat": "%b %d", "type": "date", "range": span,
                             "dtick": 86_400_000 * max(1, (last - first).days // 10)},
-                     yaxis={**_axis("Rails"), "rangemode": "tozero", "tickformat": "d"},
+                     yaxis={**_axis("Rails"), "rangemode": "tozero", "tickformat": "d",
+                            "dtick": max(1, math.ceil(max((v for t in data for v in t["y"]), default=0) / 5))},
                      margin={"l": 60, "r": 20, "t": 44, "b": 120}, hovermode="x unified")
     return {"data": data, "layout": layout}
