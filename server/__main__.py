@@ -33,7 +33,7 @@ from server.demo import DEMO_PASSWORD, DEMO_USERS, seed_if_empty
 from server.models import Job
 from server.schemas.rail import normalize
 from server.schemas.validation import DocumentInvalid, parse_rail_document
-from server.services import jobs, teams, users
+from server.services import jobs, risks, teams, users
 from server.services.access import Actor
 from server.services.errors import ServiceError
 from server.services.results import engine_version
@@ -370,6 +370,15 @@ def cmd_jobs(args: argparse.Namespace) -> int:
     return EXIT_OK
 
 
+def cmd_risks(args: argparse.Namespace) -> int:
+    settings = _settings()
+    _migrate(settings)
+    with _sessions(settings)() as session:
+        taken = risks.snapshot_all(session=session, actor=_actor(session, None))
+    print(f"risk snapshot of today taken for {taken} product(s)")
+    return EXIT_OK
+
+
 def build_parser() -> argparse.ArgumentParser:
     parser = argparse.ArgumentParser(prog="railsign", description="Design sign-off for switched power rails.")
     parser.add_argument("--log-level", default=None, help="DEBUG, INFO, WARNING or ERROR")
@@ -455,6 +464,11 @@ def build_parser() -> argparse.ArgumentParser:
     j.add_argument("--failed", action="store_true", help="every failed job")
     jsub.add_parser("rerun-outdated", help="queue the analysis, at the current engine, of every rail's head "
                     "revision whose results are all of another engine version (also done as the service starts)")
+
+    p = command("risks", cmd_risks, "risk view: 'snapshot' stores today's risk counts of every product for the "
+                "trend chart, replacing one taken earlier today (run it daily, e.g. from a timer)")
+    rsub = p.add_subparsers(dest="risks_command", required=True)
+    rsub.add_parser("snapshot", help="store today's risk counts of every product (replacing today's earlier one)")
 
     p = command("user", cmd_user, "manage users")
     usub = p.add_subparsers(dest="user_command", required=True)

@@ -8,10 +8,10 @@ Users belong to teams; API tokens are stored as hashes; the audit trail is appen
 from __future__ import annotations
 
 import enum
-from datetime import datetime, timezone
+from datetime import date, datetime, timezone
 from typing import Any
 
-from sqlalchemy import JSON, DateTime, ForeignKey, Index, Integer, String, Text, UniqueConstraint, text
+from sqlalchemy import JSON, Date, DateTime, ForeignKey, Index, Integer, String, Text, UniqueConstraint, text
 from sqlalchemy.dialects.postgresql import JSONB
 from sqlalchemy.types import TypeDecorator
 from sqlalchemy.orm import DeclarativeBase, Mapped, mapped_column, relationship
@@ -335,3 +335,19 @@ class LoginThrottle(Base):
     failures: Mapped[int] = mapped_column(Integer, default=0)
     last_failure_at: Mapped[datetime | None]
     locked_until: Mapped[datetime | None]
+
+
+class RiskSnapshot(Base):
+    """A product's risk counts on one day (UTC): the points of the risk view's trend chart.
+
+    Taken by the first view of the risk pages on a day (when the product has none for that
+    day yet) and by ``railsign risks snapshot`` (which replaces that day's snapshot).
+    """
+
+    __tablename__ = "risk_snapshots"
+    __table_args__ = (UniqueConstraint("product_id", "day", name="uq_risk_snapshots_product_day"),)
+    id: Mapped[int] = mapped_column(primary_key=True)
+    product_id: Mapped[int] = mapped_column(ForeignKey("products.id", ondelete="CASCADE"), index=True)
+    day: Mapped[date] = mapped_column(Date)
+    taken_at: Mapped[datetime] = mapped_column(default=utcnow)
+    counts: Mapped[dict[str, Any]]

@@ -17,6 +17,10 @@ Import keeps what a round trip must keep:
 
 Every document is validated, every part looked up and every conflict found before anything
 is stored.
+
+A rail table (CSV or workbook, :mod:`server.rail_table`) is imported the same way, row by row:
+:func:`plan_table` is the dry run (each row's problems on its fields, in words), and
+:func:`import_table` stores new rails only when no row is bad, or the good rows when asked to.
 """
 
 from __future__ import annotations
@@ -27,7 +31,9 @@ from typing import Any
 from sqlalchemy import select
 from sqlalchemy.orm import Session
 
+from server.analysis.words import field_title
 from server.bundle import PartLink, RailEntry, RailFile, bundle_dict, rail_entry_dict, read_rail_file
+from server.rail_table import RailTable, TableRow
 from server.models import Board, Part, PartRevision, Product, Rail, RailRevision, Team
 from server.schemas.rail import document_sha256
 from server.schemas.validation import DocumentInvalid
@@ -35,7 +41,8 @@ from server.services import catalog, rail_edits, rails
 from server.services.access import Actor, Permission
 from server.services.errors import Conflict, Invalid, NotFound
 
-__all__ = ["export_rail", "export_board", "export_product", "import_data", "ImportReport", "PartNotLinked"]
+__all__ = ["export_rail", "export_board", "export_product", "import_data", "ImportReport", "PartNotLinked",
+           "plan_table", "import_table", "TablePlan", "TableRowPlan", "TableReport"]
 
 _PAGE = 1000
 
@@ -349,3 +356,152 @@ def _store(session: Session, actor: Actor, plans: list[_Plan], product: Product 
             plan.outcome = "updated" if created else "unchanged"
         setattr(report, plan.outcome, getattr(report, plan.outcome) + 1)
         report.linked += part is not None
+
+
+# --- import of a rail table (CSV or workbook): a dry run row by row, then the good rows ------------
+
+_META_TITLES = {"board": "Board", "board_revision": "Board revision", "part": "Library part",
+                "part_revision": "Library part revision"}
+
+
+def _row_error(path: str, message: str) -> dict[str, str]:
+    """A problem of one row: its field path, the sentence, and the text people read (title first)."""
+    title = _META_TITLES.get(path) or field_title(path)
+    text = f"{path}: {message}" if title == path else f"{title} ({path}): {message}"
+    return {"field": path, "message": message, "text": text}
+
+
+@dataclass
+class TableRowPlan:
+    """What importing one row of a rail table would do, or why it cannot."""
+
+    number: int
+    name: str
+    board: tuple[str, str]
+    part: PartRevision | None = None
+    document: dict[str, Any] | None = None
+    errors: list[dict[str, str]] = field(default_factory=list)
+    new_board: bool = False
+    part_named: str = ""
+
+    @property
+    def ok(self) -> bool:
+        return not self.errors
+
+    def as_dict(self) -> dict[str, Any]:
+        return {"row": self.number, "name": self.name, "board": f"{self.board[0]} rev {self.board[1]}",
+                "new_board": self.new_board, "ok": self.ok, "errors": self.errors,
+                "part": f"{self.part.document['name']} revision {self.part.n}" if self.part else
+                (f"{self.part_named} (not found)" if self.part_named else None),
+                "mode": (self.document or {}).get("switch", {}).get("mode")}
+
+
+@dataclass
+class TablePlan:
+    product: Product
+    rows: list[TableRowPlan]
+    source: str
+
+    @property
+    def good(self) -> list[TableRowPlan]:
+        return [r for r in self.rows if r.ok]
+
+    @property
+    def bad(self) -> list[TableRowPlan]:
+        return [r for r in self.rows if not r.ok]
+
+    @property
+    def new_boards(self) -> list[tuple[str, str]]:
+        return sorted({r.board for r in self.rows if r.new_board})
+
+
+def _table_part(session: Session, row: TableRow) -> tuple[PartRevision | None, dict[str, str] | None]:
+    part = session.scalar(select(Part).where(Part.name == row.part))
+    if part is None:
+        return None, _row_error("part", f"'{row.part}' is not in the part library")
+    n = row.part_revision or part.head_n
+    rev = session.scalar(select(PartRevision).where(PartRevision.part_id == part.id, PartRevision.n == n))
+    if rev is None:
+        return None, _row_error("part_revision", f"part '{row.part}' has no revision {n} (the library holds 1 to "
+                                                 f"{part.head_n})")
+    return rev, None
+
+
+def _plan_row(session: Session, row: TableRow, boards: dict[tuple[str, str], Board | None],
+              seen: dict[tuple[str, str, str], int]) -> TableRowPlan:
+    key = (row.board, row.board_revision)
+    plan = TableRowPlan(number=row.number, name=row.name, board=key, part_named=row.part)
+    plan.errors = [_row_error(e["field"], e["message"]) for e in row.errors]
+    if not row.board:
+        plan.errors.append(_row_error("board", "is required: the board the rail goes on"))
+    document = dict(row.document)
+    if row.part:
+        plan.part, problem = _table_part(session, row)
+        if problem:
+            plan.errors.append(problem)
+        elif document.get("fet"):
+            plan.errors.append(_row_error("fet", f"the rail uses part '{row.part}', which brings its MOSFET: "
+                                                 "leave the MOSFET columns empty"))
+        else:
+            document["fet"] = plan.part.document
+    try:
+        plan.document = rails.normalize_document(document, prefix="")
+    except Invalid as exc:   # without the part it names, the row's missing MOSFET is no problem of its own
+        plan.errors += [_row_error(d["field"], d["message"]) for d in exc.details or []
+                        if not (row.part and plan.part is None and d["field"] == "fet")]
+    if row.name and row.board:
+        if (*key, row.name) in seen:
+            plan.errors.append(_row_error("name", f"row {seen[(*key, row.name)]} has a rail of this name for the "
+                                                  "same board"))
+        seen.setdefault((*key, row.name), row.number)
+        board = boards.get(key)
+        plan.new_board = board is None
+        if board is not None and session.scalar(select(Rail.id).where(Rail.board_id == board.id,
+                                                                      Rail.name == row.name)) is not None:
+            plan.errors.append(_row_error("name", f"board '{key[0]}' revision {key[1]} has a rail named "
+                                                  f"'{row.name}' already"))
+    return plan
+
+
+def plan_table(*, session: Session, actor: Actor, product_id: int, table: RailTable) -> TablePlan:
+    """The dry run of importing a rail table into a product: every row validated as every other path
+    validates a rail document, its part looked up by name and revision, its name checked against
+    its board and the other rows. Nothing is written."""
+    actor.require(Permission.EDIT)
+    product = catalog.get_product(session=session, actor=actor, product_id=product_id)
+    boards: dict[tuple[str, str], Board | None] = {
+        (b.name, b.revision): b for b in session.scalars(select(Board).where(Board.product_id == product.id))}
+    seen: dict[tuple[str, str, str], int] = {}
+    return TablePlan(product, [_plan_row(session, row, boards, seen) for row in table.rows], table.source)
+
+
+@dataclass
+class TableReport:
+    created: int = 0
+    boards_created: int = 0
+    skipped: list[int] = field(default_factory=list)   # the numbers of the rows left out
+
+
+def import_table(*, session: Session, actor: Actor, product_id: int, table: RailTable, good_rows_only: bool = False,
+                 message: str = "imported from a table") -> tuple[TablePlan, TableReport | None]:
+    """Plan the table, then store its rails (new boards first) through the rail service, one rail per call.
+
+    While any row is bad nothing is stored (the report is None), unless ``good_rows_only``:
+    then the good rows are stored and the bad ones are left out.
+    """
+    plan = plan_table(session=session, actor=actor, product_id=product_id, table=table)
+    if (plan.bad and not good_rows_only) or not plan.good:
+        return plan, None
+    report = TableReport(skipped=[r.number for r in plan.bad])
+    boards: dict[tuple[str, str], int] = {
+        (b.name, b.revision): b.id for b in session.scalars(select(Board).where(Board.product_id == product_id))}
+    for key in sorted({r.board for r in plan.good if r.board not in boards}):
+        boards[key] = catalog.create_board(session=session, actor=actor, product_id=product_id, name=key[0],
+                                           revision=key[1]).id
+        report.boards_created += 1
+    for row in plan.good:
+        part = rail_edits.PartRef(row.part.part_id, row.part.n) if row.part is not None else None
+        rail_edits.create_rail(session=session, actor=actor, board_id=boards[row.board], document=row.document,
+                               part=part, message=message)
+        report.created += 1
+    return plan, report

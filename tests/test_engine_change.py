@@ -122,7 +122,7 @@ def test_a_stored_old_engine_result_reads_as_outdated_not_as_not_analysed(client
     assert status["checks"]["analysed"] is False
     risks = client.get(f"/api/v1/products/{rail['product_id']}/risks", headers=people.headers("manager")).json()
     (entry,) = [r for b in risks["boards"] for r in b["rails"]]
-    assert entry["risks"] == ["missing_signoff", "outdated_result"]
+    assert entry["risks"] == ["outdated_result", "missing_signoff"]      # worst first
     assert entry["outdated"] == {"engine_version": OLD, "verdict": "fail"}
     assert risks["totals"]["outdated_result"] == 1 and risks["totals"]["not_analysed"] == 0
 

@@ -59,15 +59,19 @@ def test_the_risk_view_lists_what_stands_between_each_rail_and_its_sign_off(clie
     assert [c["id"] for c in rails["V_FAN"]["marginal"]] == ["fault_margin"]
     assert rails["V_FAN"]["waived"][0]["waiver"]["reason"].startswith("fan starts with its own soft start")
     assert rails["V_FAN"]["waived"][0]["value"] == 0.9 and rails["V_FAN"]["waived"][0]["limit"] == 1.5
-    assert rails["V_AUX"]["risks"] == ["missing_signoff", "never_analysed"]
-    assert rails["V_IO"]["risks"] == ["stale_signoff", "missing_signoff", "not_analysed"]
+    assert rails["V_AUX"]["risks"] == ["never_analysed", "missing_signoff"]
+    assert rails["V_AUX"]["technical"] == ["never_analysed"] and rails["V_AUX"]["process"] == ["missing_signoff"]
+    assert rails["V_IO"]["risks"] == ["not_analysed", "stale_signoff", "missing_signoff"]
+    assert rails["V_FAN"]["owner"] == "designer" and rails["V_FAN"]["outdated_part"] is None
     assert rails["V_IO"]["stale_approvals"] == [{"reviewer": "reviewer", "revision": 1}]
     assert rails["V_IO"]["state"] == "in design" and rails["V_IO"]["head"]["n"] == 2
     assert body["totals"] == {
-        "rails": 4, "signed_off": 1, "rails_at_risk": 3, "failing_check": 0, "marginal_check": 1, "waived_check": 1,
-        "stale_signoff": 1, "missing_signoff": 3, "outdated_result": 0, "not_analysed": 1, "never_analysed": 1,
-        "failing_checks": 0,
+        "rails": 4, "signed_off": 1, "rails_at_risk": 3, "rails_at_technical_risk": 3, "failing_check": 0,
+        "marginal_check": 1, "waived_check": 1, "outdated_part": 0, "stale_signoff": 1, "awaiting_review": 0,
+        "missing_signoff": 3, "outdated_result": 0, "not_analysed": 1, "never_analysed": 1, "failing_checks": 0,
         "marginal_checks": 1, "waived_checks": 1}
+    main_rails = [r["name"] for r in next(b for b in body["boards"] if b["name"] == "Main")["rails"]]
+    assert main_rails == ["V_AUX", "V_FAN", "V_CORE"]      # worst first: never analysed, marginal, nothing
     io_counts = next(b for b in body["boards"] if b["name"] == "IO")["counts"]
     assert io_counts["rails"] == 1 and io_counts["stale_signoff"] == 1
     unwaived = make_rail(client, people, io_board, name="V_USB")

@@ -13,6 +13,7 @@ Provides :func:`startup_figure`, :func:`soa_figure`, :func:`timer_figure`,
 from __future__ import annotations
 
 import math
+from datetime import date, timedelta
 from typing import Any
 
 import numpy as np
@@ -23,7 +24,7 @@ from server.schemas.result import AnalysisResult, MonteCarlo, Waveforms
 
 __all__ = ["PALETTE", "VERDICT_COLOURS", "startup_figure", "soa_figure", "timer_figure", "monte_carlo_figure",
            "startup_overlay_figure", "soa_overlay_figure", "timer_limits", "budget_figure", "part_soa_figure", "zth_figure",
-           "pulse_label"]
+           "pulse_label", "risk_trend_figure"]
 
 INK, GRID, AXIS = "#22303c", "#e4e8ed", "#9aa5b1"
 PALETTE = ["#3a6ea5", "#2a9d8f", "#c98a1b", "#8e5a9b", "#5c6b7a", "#b5523b", "#6f8f3a", "#a0527a"]
@@ -141,7 +142,10 @@ def startup_figure(result: AnalysisResult, document: dict[str, Any]) -> dict[str
 
 def _startup(waves: list[tuple[Waveforms, str, str, str]], document: dict[str, Any], rules: dict[str, float],
              title: str) -> dict[str, Any]:
-    data, layout = [], _layout(title, height=640, hovermode="x unified", hoversubplots="axis")
+    data, layout = [], _layout(title, height=640 if len(waves) == 1 else 700, hovermode="x unified",
+                               hoversubplots="axis")
+    if len(waves) > 1:   # an overlay names every trace with its revision: room for the longer legend
+        layout["margin"] = {**layout["margin"], "b": 160}
     domains = _stacked_axes(len(_ROWS))
     for k, (key, label, unit) in enumerate(_ROWS):
         ax = "y" if k == 0 else f"y{k + 1}"
@@ -158,7 +162,7 @@ def _startup(waves: list[tuple[Waveforms, str, str, str]], document: dict[str, A
                              "x": _r(wave.t), "y": _r(values), "xaxis": "x", "yaxis": ax,
                              "line": {"color": (PALETTE[k] if j == 0 else PALETTE[5]) if single else colour,
                                       "width": 2, "dash": ("dot" if j else dash)},
-                             "showlegend": single or (k == 0), "legendgroup": (suffix or key) + signal})
+                             "showlegend": True, "legendgroup": (suffix or key) + signal})
     layout["xaxis"] = _axis("Time since turn-on", "s", anchor=f"y{len(_ROWS)}", showspikes=True,
                             spikemode="across", spikethickness=1, spikecolor=AXIS)
     tj_max = (document.get("fet") or {}).get("tj_max")
@@ -473,3 +477,33 @@ def zth_figure(stages: list[dict[str, Any]]) -> dict[str, Any] | None:
                               xaxis=_axis("Pulse duration", "s", log=True, **_log_ticks(list(t), "s")),
                               yaxis=_axis("Zth junction to ambient", " K/W", log=True,
                                           **_log_ticks(list(z), "K/W")), showlegend=False)}
+
+
+# --- risk counts over time ------------------------------------------------------------------
+
+def risk_trend_figure(points: list[dict[str, Any]], lines: list[tuple[str, str, str, str]]) -> dict[str, Any] | None:
+    """Risk counts per day as a small line chart, every line named in the legend.
+
+    ``points``: [{day (ISO date), counts}], oldest first; ``lines``: (count key, name, colour, dash);
+    the line of ``not_analysed`` also counts the rails never analysed.
+    """
+    if not points:
+        return None
+    days = [p["day"] for p in points]
+    data = []
+    for key, name, colour, dash in lines:
+        values = [p["counts"].get(key, 0) + (p["counts"].get("never_analysed", 0) if key == "not_analysed" else 0)
+                  for p in points]
+        data.append({"type": "scatter", "mode": "lines+markers", "name": name, "x": days, "y": values,
+                     "line": {"color": colour, "width": 2, "dash": dash}, "marker": {"size": 5},
+                     "hovertemplate": "%{x}: %{y}<extra>" + name + "</extra>"})
+    first, last = date.fromisoformat(days[0]), date.fromisoformat(days[-1])
+    first = min(first, last - timedelta(days=6))           # at least a week wide, one tick a day or fewer
+    span = [(first - timedelta(hours=12)).isoformat(), (last + timedelta(hours=12)).isoformat()]
+    layout = _layout("Rails at risk per day (technical risks solid, process state dashed)", height=340,
+                     xaxis={**_axis("Day (UTC)"), "tickformat": "%b %d", "type": "date", "range": span,
+                            "dtick": 86_400_000 * max(1, (last - first).days // 10)},
+                     yaxis={**_axis("Rails"), "rangemode": "tozero", "tickformat": "d",
+                            "dtick": max(1, math.ceil(max((v for t in data for v in t["y"]), default=0) / 5))},
+                     margin={"l": 60, "r": 20, "t": 44, "b": 120}, hovermode="x unified")
+    return {"data": data, "layout": layout}

@@ -530,40 +530,56 @@ class OutdatedReading(_Model):
     verdict: str
 
 
+RiskKind = Literal["failing_check", "never_analysed", "not_analysed", "marginal_check", "outdated_result",
+                   "waived_check", "outdated_part", "stale_signoff", "awaiting_review", "missing_signoff"]
+
+
+class OutdatedPart(_Model):
+    name: str
+    pinned_revision: int
+    latest_revision: int
+
+
 class RiskRail(_Model):
     id: int
     name: str
     mode: str
     head: RevisionRef
+    owner: str = Field(description="who saved the current revision")
     state: str
     signed_off: bool
     analysed: bool
     ever_analysed: bool
     outdated: OutdatedReading | None = Field(description="its only reading is of another engine version")
+    outdated_part: OutdatedPart | None = Field(description="the library holds a newer revision of its pinned part")
     failing: list[RiskCheck]
     marginal: list[RiskCheck]
     waived: list[RiskCheck]
     stale_approvals: list[StaleApproval]
     current_approvals: int
-    risks: list[Literal["failing_check", "marginal_check", "waived_check", "stale_signoff", "missing_signoff",
-                        "outdated_result", "not_analysed", "never_analysed"]]
+    risks: list[RiskKind] = Field(description="every kind of risk of the rail, worst first")
+    technical: list[RiskKind] = Field(description="the technical risks: the design itself may not hold")
+    process: list[RiskKind] = Field(description="the process state: the sign-off is not done")
 
 
 class RiskCounts(_Model):
     failing_check: int
-    marginal_check: int
-    waived_check: int
-    stale_signoff: int
-    missing_signoff: int
-    outdated_result: int
-    not_analysed: int
     never_analysed: int
+    not_analysed: int
+    marginal_check: int
+    outdated_result: int
+    waived_check: int
+    outdated_part: int
+    stale_signoff: int
+    awaiting_review: int
+    missing_signoff: int
     rails: int
     signed_off: int
     failing_checks: int
     marginal_checks: int
     waived_checks: int
     rails_at_risk: int
+    rails_at_technical_risk: int
 
 
 class RiskBoard(_Model):

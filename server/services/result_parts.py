@@ -14,6 +14,7 @@ from __future__ import annotations
 import threading
 from collections import OrderedDict
 from dataclasses import dataclass
+from functools import cached_property
 from datetime import datetime
 from typing import Any
 
@@ -35,6 +36,11 @@ class ResultParts:
     t: list[float] | None      # start-up waveform time, s
     i: list[float] | None      # start-up current, A
 
+    @cached_property
+    def problems(self) -> list[dict[str, Any]]:
+        """The failing and marginal rows of ``checks``, picked once per stored result (the risk view's)."""
+        return [c for c in self.checks if c.get("verdict") in ("fail", "marginal")]
+
 
 @dataclass(frozen=True)
 class ResultKey:
@@ -45,21 +51,23 @@ class ResultKey:
     created_at: datetime
 
 
-def _key(session: Session, k: ResultKey) -> tuple:
-    return (str(session.get_bind().url), k.id, k.sha256, k.created_at.isoformat())
+def _key(database: str, k: ResultKey) -> tuple:
+    return (database, k.id, k.sha256, k.created_at.isoformat())
 
 
 def result_parts(session: Session, keys: list[ResultKey]) -> dict[int, ResultParts]:
     """The checks and start-up current of each result, by result id (read from the database once)."""
     out: dict[int, ResultParts] = {}
     missing: list[ResultKey] = []
+    database = str(session.get_bind().url)   # once per call: rendering the URL is not free
     with _lock:
         for k in keys:
-            hit = _store.get(_key(session, k))
+            key = _key(database, k)
+            hit = _store.get(key)
             if hit is None:
                 missing.append(k)
             else:
-                _store.move_to_end(_key(session, k))
+                _store.move_to_end(key)
                 out[k.id] = hit
     if missing:
         stmt = select(AnalysisResult.id, AnalysisResult.result["checks"],
@@ -71,7 +79,7 @@ def result_parts(session: Session, keys: list[ResultKey]) -> dict[int, ResultPar
             for k in missing:
                 if k.id in fetched:
                     out[k.id] = fetched[k.id]
-                    _store[_key(session, k)] = fetched[k.id]
+                    _store[_key(database, k)] = fetched[k.id]
             while len(_store) > MAX_ENTRIES:
                 _store.popitem(last=False)
     return out

@@ -83,9 +83,9 @@ def test_the_risk_page_lists_open_risks_for_managers_only(client, app, people, s
     r = client.get(f"/products/{seeded['product_id']}/risks")
     assert r.status_code == 200
     page = Page(r.text)
-    assert page.headings[0] == (1, "Open risks of Tideline buoy")
-    assert "not in a signed-off state" in r.text
-    assert re.search(r"<dt>Rails</dt><dd>1</dd>", r.text)
+    assert page.headings[0] == (1, "Risks of Tideline buoy")
+    assert '<li class="risk-word">not signed off</li>' in r.text
+    assert re.search(r'<dt>Rails not signed off</dt><dd data-count="missing_signoff">1</dd>', r.text)
     assert client.get("/risks").status_code == 200
     log_in(client, app, people.ids["designer"])
     assert client.get(f"/products/{seeded['product_id']}/risks").status_code == 403
