@@ -274,9 +274,15 @@ def test_a_reviewer_approves_from_the_keyboard_and_a_manager_reads_the_risks(bro
     pg = context.new_page()
     log_in(pg, "manager")
     pg.get_by_role("link", name="Risks").click()
-    pg.get_by_role("link", name="Tideline buoy").click()
-    pg.wait_for_selector("h1:has-text('Open risks of Tideline buoy')")
-    assert "not in a signed-off state" in pg.inner_text("main")
+    pg.wait_for_selector("h1:has-text('Risks of every product you can see')")
+    pg.select_option("#filter-product", label="Tideline buoy")
+    pg.get_by_role("button", name="Show").click()
+    pg.wait_for_selector("h1:has-text('Risks of Tideline buoy')")
+    # the approval just given shows on its rail's row, and no other
+    approved_row = pg.locator(f"#risk-table tr[data-rail='{rail_id}']")
+    assert "1 current approval" in approved_row.inner_text()
+    assert "0 current approvals" in pg.locator(f"#risk-table tr:not([data-rail='{rail_id}'])").first.inner_text()
+    assert "not signed off" in pg.inner_text("#risk-table")
     shot(pg, "product-risks")
     context.close()
 
