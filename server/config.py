@@ -40,8 +40,8 @@ class Settings(BaseSettings):
     demo: bool = Field(False, description="demo mode: tolerates the placeholder secret key")
     cookie_secure: bool = Field(False, description="send the session cookie only over HTTPS")
     session_max_age_s: int = Field(8 * 3600, gt=0, description="seconds a login session lasts")
-    login_max_failures: int = Field(5, ge=1, description="failed logins (per account or address) before refusal")
-    login_lockout_s: float = Field(300.0, gt=0, description="seconds a throttled account or address is refused")
+    login_max_failures: int = Field(5, ge=1, description="failed logins of one account from one address before that account is refused there")
+    login_lockout_s: float = Field(300.0, gt=0, description="seconds an account is refused at an address after too many failures there")
     login_slowdown_s: float = Field(
         0.5, ge=0, description="delay of a login attempt after one recent failure, doubled with each further "
         "failure up to 16 times (0: no delay); failures older than login_lockout_s are forgotten"

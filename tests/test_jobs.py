@@ -285,3 +285,18 @@ def test_job_start_and_finish_are_logged_with_id_and_duration(running_app, peopl
     messages = [r.getMessage() for r in caplog.records if r.name.startswith("railsign")]
     assert any(m.startswith(f"job {job_id} started") for m in messages), messages
     assert any(m.startswith(f"job {job_id} done in") and " ms" in m for m in messages), messages
+
+
+def test_another_teams_job_answers_exactly_as_a_missing_one(client, people, board, session_factory):
+    """A job of team alpha, asked for by team beta's designer, reads as no job at all: same status, same words."""
+    rail = _new_rail(client, people, board)
+    job_id = _jobs_of(session_factory, rail["id"])[0].id
+    missing_id = job_id + 1000
+    outsider = people.headers("outsider")
+    for method, path in (("GET", "/api/v1/jobs/{}"), ("DELETE", "/api/v1/jobs/{}"),
+                         ("POST", "/api/v1/jobs/{}/retry")):
+        theirs = client.request(method, path.format(job_id), headers=outsider)
+        missing = client.request(method, path.format(missing_id), headers=outsider)
+        assert theirs.status_code == missing.status_code == 404, (method, theirs.text)
+        assert theirs.text.replace(str(job_id), "N") == missing.text.replace(str(missing_id), "N")
+        assert "board" not in theirs.text

@@ -247,45 +247,66 @@ def _attempt(session_factory, settings, username, password, address, now, waits)
                              address=address, now=now, sleep=waits.append)
 
 
-def test_failed_logins_on_one_account_are_slowed_then_refused_then_forgotten(database_url, session_factory):
+def test_failed_logins_on_one_account_are_slowed_then_refused_at_that_address_then_forgotten(
+        database_url, session_factory):
     _user(session_factory)
     settings = make_settings(database_url, login_max_failures=3, login_lockout_s=60, login_slowdown_s=0.5)
     since = _last_audit_id(session_factory)
     now, waits = utcnow(), []
     for k in range(3):
         with pytest.raises(Unauthenticated) as failed:
-            _attempt(session_factory, settings, "dana", "not-it", f"10.0.0.{k}", now + timedelta(seconds=k), waits)
+            _attempt(session_factory, settings, "dana", "not-it", "10.0.0.1", now + timedelta(seconds=k), waits)
     assert "refused for 60 seconds" in failed.value.message
     assert waits == [0.5, 1.0]  # nothing before the first attempt, then doubling
     with pytest.raises(TooManyRequests) as refused:
-        _attempt(session_factory, settings, "dana", PASSWORD, "10.0.0.9", now + timedelta(seconds=5), waits)
+        _attempt(session_factory, settings, "dana", PASSWORD, "10.0.0.1", now + timedelta(seconds=5), waits)
     assert 50 <= refused.value.extra["retry_after_s"] <= 60
     assert waits == [0.5, 1.0]  # a refused attempt is not even checked
-    user = _attempt(session_factory, settings, "dana", PASSWORD, "10.0.0.9", now + timedelta(seconds=70), waits)
+    # the same account from another address is slowed (its account counter) but not refused
+    user = _attempt(session_factory, settings, "dana", PASSWORD, "10.0.0.9", now + timedelta(seconds=6), waits)
+    assert user.username == "dana" and waits == [0.5, 1.0, 2.0]
+    user = _attempt(session_factory, settings, "dana", PASSWORD, "10.0.0.1", now + timedelta(seconds=70), waits)
     assert user.username == "dana"
     assert _actions(session_factory, since) == ["login_failed", "login_failed", "login_failed", "login_locked",
-                                                "login_refused", "login"]
+                                                "login_refused", "login", "login"]
     with session_factory() as session:
         account = session.scalar(select(LoginThrottle).where(LoginThrottle.key == "account:dana"))
         assert account.failures == 0 and account.last_failure_at is None
 
 
-def test_failed_logins_from_one_address_are_refused_for_every_account(database_url, session_factory):
+def test_failures_elsewhere_never_lock_a_named_account_out(database_url, session_factory):
+    """Guesses at dana's password from many addresses slow her logins down but never refuse them."""
     _user(session_factory)
     settings = make_settings(database_url, login_max_failures=3, login_lockout_s=60)
+    now, waits = utcnow(), []
+    for k in range(9):
+        with pytest.raises(Unauthenticated) as failed:
+            _attempt(session_factory, settings, "dana", "guess", f"198.51.100.{k}", now, waits)
+        assert "refused" not in failed.value.message
+    assert _attempt(session_factory, settings, "dana", PASSWORD, "192.0.2.1", now, waits).username == "dana"
+
+
+def test_failed_logins_from_one_address_lock_out_no_other_account(database_url, session_factory):
+    _user(session_factory)
+    settings = make_settings(database_url, login_max_failures=3, login_lockout_s=60, login_slowdown_s=0.5)
     now, waits = utcnow(), []
     for name in ("alice", "bob", "carol"):
         with pytest.raises(Unauthenticated):
             _attempt(session_factory, settings, name, "guess", "192.0.2.7", now, waits)
+    assert waits == [0.5, 1.0]  # spraying over accounts from one address is slowed all the same
+    assert _attempt(session_factory, settings, "dana", PASSWORD, "192.0.2.7", now, waits).username == "dana"
+    for _ in range(2):
+        with pytest.raises(Unauthenticated) as failed:
+            _attempt(session_factory, settings, "alice", "guess", "192.0.2.7", now, waits)
+    assert "refused for 60 seconds" in failed.value.message  # alice's third failure at this address
     with pytest.raises(TooManyRequests):
-        _attempt(session_factory, settings, "dana", PASSWORD, "192.0.2.7", now, waits)
-    assert _attempt(session_factory, settings, "dana", PASSWORD, "192.0.2.8", now, waits).username == "dana"
+        _attempt(session_factory, settings, "alice", "guess", "192.0.2.7", now, waits)
     with session_factory() as session:
         entries = session.scalars(select(AuditEntry).where(AuditEntry.action.in_(
             ["login_failed", "login_locked", "login_refused"])).order_by(AuditEntry.id)).all()
-        assert [e.action for e in entries] == ["login_failed"] * 3 + ["login_locked", "login_refused"]
+        assert [e.action for e in entries] == ["login_failed"] * 5 + ["login_locked", "login_refused"]
         assert entries[0].after["reason"] == "unknown user" and entries[0].after["address"] == "192.0.2.7"
-        assert entries[3].object_repr == "address:192.0.2.7"
+        assert entries[5].object_repr == "pair:alice@192.0.2.7"
 
 
 def test_the_login_page_refuses_after_the_limit_and_every_process_agrees(database_url, session_factory):

@@ -175,7 +175,10 @@ def _scoped_job(session: Session, actor: Actor, job: Job | None, job_id: int) ->
     board_id = job.board_id
     if board_id is None:
         raise NotFound(f"no job {job_id}")
-    get_board(session=session, actor=actor, board_id=board_id)  # NotFound for another team's job
+    try:
+        get_board(session=session, actor=actor, board_id=board_id)
+    except NotFound:  # another team's job answers exactly as a missing one: it names no board
+        raise NotFound(f"no job {job_id}") from None
     return job
 
 

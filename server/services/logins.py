@@ -1,11 +1,15 @@
-"""Logging in with a password; failed attempts are slowed, then refused, per account and per address.
+"""Logging in with a password; failed attempts are slowed per account and per address, and refused
+per account at one address.
 
-The counters are rows of ``login_throttles`` (one per account and one per address), so every
-web process of a deployment counts the same failures. After a failure, the next attempt on
-that account or from that address waits ``login_slowdown_s`` (doubling with each further
-recent failure, at most 16 times); after ``login_max_failures`` failures the account or
-address is refused for ``login_lockout_s``, even with the right password. Failures older
-than ``login_lockout_s`` are forgotten. Every login, failed login, lock and refusal is an
+The counters are rows of ``login_throttles`` (one per account, one per address and one per
+account at an address), so every web process of a deployment counts the same failures. After
+a failure, the next attempt on that account or from that address waits ``login_slowdown_s``
+(doubling with each further recent failure, at most 16 times), which slows password spraying
+over many accounts as well as guessing at one. After ``login_max_failures`` failures of one
+account from one address, that account is refused at that address for ``login_lockout_s``,
+even with the right password: failures from one address never lock out other accounts behind
+it, and no one can lock a named user out from elsewhere. Failures older than
+``login_lockout_s`` are forgotten. Every login, failed login, lock and refusal is an
 audit entry written in the same transaction as the counters. The password is only ever
 compared with its Argon2 hash: it is not stored, logged or put in an audit entry.
 """
@@ -14,7 +18,7 @@ from __future__ import annotations
 
 import secrets
 import time
-from collections.abc import Callable, Iterable
+from collections.abc import Callable
 from datetime import datetime, timedelta
 from functools import lru_cache
 
@@ -43,9 +47,12 @@ def delay_s(failures: int, base_s: float) -> float:
     return base_s * 2 ** min(failures - 1, MAX_DOUBLINGS)
 
 
-def throttle_keys(username: str, address: str) -> tuple[str, str]:
-    """The counter keys of an attempt: its account (case-insensitive) and its address."""
-    return "account:" + username.strip().casefold()[:150], "address:" + (address or "unknown")[:150]
+def throttle_keys(username: str, address: str) -> tuple[str, str, str]:
+    """The counter keys of an attempt: its account (case-insensitive), its address, and the two together.
+
+    The first two slow attempts down; only the third refuses them."""
+    account, where = username.strip().casefold()[:150], (address or "unknown")[:150]
+    return "account:" + account, "address:" + where, f"pair:{account}@{where}"
 
 
 @lru_cache(maxsize=1)
@@ -68,9 +75,10 @@ def _recent(row: LoginThrottle | None, now: datetime, window_s: float) -> int:
     return row.failures if (now - row.last_failure_at).total_seconds() <= window_s else 0
 
 
-def _locked(rows: Iterable[LoginThrottle], now: datetime) -> LoginThrottle | None:
-    locked = [r for r in rows if r.locked_until is not None and r.locked_until > now]
-    return max(locked, key=lambda r: r.locked_until) if locked else None
+def _locked(rows: dict[str, LoginThrottle], pair_key: str, now: datetime) -> LoginThrottle | None:
+    """The account-at-address counter when it refuses attempts now, else None."""
+    row = rows.get(pair_key)
+    return row if row is not None and row.locked_until is not None and row.locked_until > now else None
 
 
 def _read(session: Session, keys: tuple[str, ...]) -> dict[str, LoginThrottle]:
@@ -113,10 +121,10 @@ def log_in(*, session: Session, settings: Settings, username: str, password: str
     given = (username or "").strip()
     keys = throttle_keys(given, address)
     rows = _read(session, keys)
-    lock = _locked(rows.values(), now)
+    lock = _locked(rows, keys[2], now)
     if lock is not None:
         _refuse(session, lock, given, address, request_id, now)
-    failures = max(_recent(r, now, settings.login_lockout_s) for r in rows.values()) if rows else 0
+    failures = max((_recent(rows.get(k), now, settings.login_lockout_s) for k in keys[:2]), default=0)
     wait = delay_s(failures, settings.login_slowdown_s)
     session.rollback()  # end the read before waiting: no snapshot or lock is held while asleep
     if wait:
@@ -126,12 +134,12 @@ def log_in(*, session: Session, settings: Settings, username: str, password: str
     ok = bool(user is not None and user.password_hash and user.active and matches)
 
     rows = _lock_rows(session, keys)
-    lock = _locked(rows.values(), now)
+    lock = _locked(rows, keys[2], now)
     if lock is not None:  # a parallel attempt locked it meanwhile
         _refuse(session, lock, given, address, request_id, now)
     if ok:
-        account = rows[keys[0]]
-        account.failures, account.last_failure_at = 0, None
+        for key in (keys[0], keys[2]):  # the address keeps its count: it may be spraying other accounts
+            rows[key].failures, rows[key].last_failure_at = 0, None
         record(session, Actor.for_user(user, request_id), action="login", object_type="user", object_id=user.id,
                object_repr=user.username, after={"address": address, "delayed_s": wait})
         session.commit()
@@ -146,16 +154,14 @@ def log_in(*, session: Session, settings: Settings, username: str, password: str
            object_id=user.id if user else None, object_repr=given[:64],
            after={"username": given[:64], "address": address, "reason": reason, "delayed_s": wait,
                   "failures": {key: rows[key].failures for key in keys}})
-    locked_now = []
-    for key in keys:
-        row = rows[key]
-        if row.failures >= settings.login_max_failures:
-            row.locked_until = now + timedelta(seconds=settings.login_lockout_s)
-            record(session, _anonymous(request_id), action="login_locked", object_type="login_throttle",
-                   object_id=row.id, object_repr=key,
-                   after={"failures": row.failures, "locked_until": row.locked_until.isoformat()})
-            row.failures = 0
-            locked_now.append(key)
+    pair = rows[keys[2]]
+    locked_now = pair.failures >= settings.login_max_failures
+    if locked_now:
+        pair.locked_until = now + timedelta(seconds=settings.login_lockout_s)
+        record(session, _anonymous(request_id), action="login_locked", object_type="login_throttle",
+               object_id=pair.id, object_repr=keys[2],
+               after={"failures": pair.failures, "locked_until": pair.locked_until.isoformat()})
+        pair.failures = 0
     session.commit()
     if locked_now:
         raise Unauthenticated(f"{WRONG_LOGIN}; after {settings.login_max_failures} failures, further attempts are "
