@@ -38,7 +38,8 @@ class SessionCookie:
     """Signed, timestamped cookie holding the user id and the session's CSRF token.
 
     The cookie also holds a fingerprint of the user's password hash, so that setting a new
-    password ends every session of the old one. Before login, a second short-lived signed
+    password ends every session of the old one, and the user's session generation, so that
+    logging out ends the session on the server (every session of that user issued before). Before login, a second short-lived signed
     cookie (:data:`LOGIN_CSRF_COOKIE`) carries the login form's CSRF token.
     """
 
@@ -48,9 +49,9 @@ class SessionCookie:
         self.max_age_s = settings.session_max_age_s
         self.secure = settings.cookie_secure
 
-    def dump(self, user_id: int, password_hash: str | None = None) -> tuple[str, str]:
+    def dump(self, user_id: int, password_hash: str | None = None, generation: int = 0) -> tuple[str, str]:
         csrf = secrets.token_urlsafe(24)
-        data = {"uid": user_id, "csrf": csrf, "pw": password_fingerprint(password_hash)}
+        data = {"uid": user_id, "csrf": csrf, "pw": password_fingerprint(password_hash), "gen": generation}
         return self._serializer.dumps(data), csrf
 
     def dump_login_csrf(self) -> tuple[str, str]:
@@ -118,7 +119,8 @@ def current_actor(request: Request, session: SessionDep) -> Actor:
         if data is not None:
             candidate = session.get(User, data["uid"])
             if candidate is not None and candidate.active and \
-                    data.get("pw") == password_fingerprint(candidate.password_hash):
+                    data.get("pw") == password_fingerprint(candidate.password_hash) and \
+                    data.get("gen") == candidate.session_generation:
                 user = candidate
                 request.state.auth = "cookie"
                 request.state.csrf_token = data.get("csrf", "")

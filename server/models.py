@@ -68,6 +68,8 @@ class User(Base):
     password_hash: Mapped[str | None] = mapped_column(String(255))
     active: Mapped[bool] = mapped_column(default=True)
     created_at: Mapped[datetime] = mapped_column(default=utcnow)
+    # carried by session cookies; raised at logout, which ends every session issued before
+    session_generation: Mapped[int] = mapped_column(default=0, server_default="0")
     teams: Mapped[list[Team]] = relationship(secondary="team_members", lazy="selectin")
 
     @property

@@ -92,7 +92,7 @@ def test_a_session_expires(client, session_factory):
         def get_timestamp(self) -> int:
             return int(time.time()) - 9 * 3600
 
-    payload = {"uid": user_id, "csrf": "t" * 32, "pw": fingerprint}
+    payload = {"uid": user_id, "csrf": "t" * 32, "pw": fingerprint, "gen": 0}
     old = URLSafeTimedSerializer(TEST_SECRET, salt="railsign-session", signer=SignedLongAgo).dumps(payload)
     fresh = URLSafeTimedSerializer(TEST_SECRET, salt="railsign-session").dumps(payload)
     client.cookies.set("railsign_session", fresh)
@@ -321,3 +321,19 @@ def test_the_login_page_refuses_after_the_limit_and_every_process_agrees(databas
         assert "Too many failed logins" in locked.text or "too many failed logins" in locked.text
     with TestClient(create_app(settings)) as other_process:  # a second web process reads the same counters
         assert log_in(other_process, "dana", PASSWORD).status_code == 429
+
+
+def test_logout_ends_the_session_on_the_server(client, session_factory):
+    """A copy of the cookie kept from before logout no longer opens a session; a new login does."""
+    _user(session_factory)
+    assert log_in(client, "dana", PASSWORD).status_code == 303
+    kept = client.cookies.get("railsign_session")
+    assert client.get("/api/v1/me").status_code == 200
+    token = csrf_from(client.get("/account").text)
+    assert client.post("/logout", data={"csrf_token": token}, follow_redirects=False).status_code == 303
+    client.cookies.set("railsign_session", kept)
+    assert client.get("/api/v1/me").status_code == 401
+    assert client.get("/account", follow_redirects=False).status_code == 303
+    client.cookies.clear()
+    assert log_in(client, "dana", PASSWORD).status_code == 303
+    assert client.get("/api/v1/me").json()["username"] == "dana"

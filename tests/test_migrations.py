@@ -161,8 +161,11 @@ def test_approvals_and_waivers_made_before_0005_keep_their_rows_and_links(empty_
         "id", "rail_id", "revision_n", "sha256", "reviewer_id", "reviewer_name", "comment", "created_at")))
     with engine.begin() as conn:
         team = conn.execute(t["teams"].insert().values(name="legacy")).inserted_primary_key[0]
-        user = conn.execute(t["users"].insert().values(username="old-reviewer", display_name="", role="reviewer",
-                                                       active=True)).inserted_primary_key[0]
+        users_0004 = table("users", *(column(c) for c in ("id", "username", "display_name", "role", "active",
+                                                            "created_at")))
+        conn.execute(users_0004.insert().values(username="old-reviewer", display_name="", role="reviewer",
+                                                active=True, created_at=utcnow()))
+        user = conn.execute(select(users_0004.c.id).where(users_0004.c.username == "old-reviewer")).scalar_one()
         product = conn.execute(t["products"].insert().values(team_id=team, name="P", description="")) \
             .inserted_primary_key[0]
         board = conn.execute(t["boards"].insert().values(product_id=product, name="Main", revision="A",

@@ -54,7 +54,7 @@ def change_password(request: Request, session: SessionDep, actor: CurrentActor,
     response = RedirectResponse("/account?done=password", status_code=303)
     if getattr(request.state, "auth", None) == "cookie":
         cookie = request.app.state.session_cookie
-        value, _ = cookie.dump(user.id, user.password_hash)
+        value, _ = cookie.dump(user.id, user.password_hash, user.session_generation)
         response.set_cookie(SESSION_COOKIE, value, **cookie.cookie_kwargs())
     return response
 

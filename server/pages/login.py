@@ -66,7 +66,7 @@ def login_submit(request: Request, session: SessionDep, username: Annotated[str,
             response.headers["Retry-After"] = str(exc.extra.get("retry_after_s", 60))
         return response
     cookie = request.app.state.session_cookie
-    value, _ = cookie.dump(user.id, user.password_hash)
+    value, _ = cookie.dump(user.id, user.password_hash, user.session_generation)
     response = RedirectResponse(safe_next(next), status_code=303)
     response.set_cookie(SESSION_COOKIE, value, **cookie.cookie_kwargs())
     response.delete_cookie(LOGIN_CSRF_COOKIE, path="/")

@@ -32,6 +32,7 @@ from server.config import Settings
 from server.models import LoginThrottle, User, utcnow
 from server.services.access import Actor
 from server.services.audit import record
+from server.services import users
 from server.services.errors import TooManyRequests, Unauthenticated
 
 __all__ = ["WRONG_LOGIN", "delay_s", "throttle_keys", "log_in", "log_out"]
@@ -170,6 +171,11 @@ def log_in(*, session: Session, settings: Settings, username: str, password: str
 
 
 def log_out(*, session: Session, actor: Actor) -> None:
-    """Record the end of a session (the cookie itself is cleared by the page)."""
+    """End the actor's sessions on the server and record it (the page also clears the cookie).
+
+    Every session cookie of the user issued before stops opening a session, on every device:
+    a copied cookie is worth nothing after logout."""
+    if actor.user_id is not None:
+        users.end_sessions(session=session, user_id=actor.user_id)
     record(session, actor, action="logout", object_type="user", object_id=actor.user_id, object_repr=actor.name)
     session.commit()

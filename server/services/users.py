@@ -22,7 +22,7 @@ from server.services.audit import record
 from server.services.errors import Conflict, Forbidden, Invalid, NotFound, flush_or_conflict
 from server.services.teams import join_teams
 
-__all__ = ["ROLES", "TOKEN_USE_INTERVAL_S", "user_dict", "create_user", "list_users", "get_user_by_name",
+__all__ = ["ROLES", "TOKEN_USE_INTERVAL_S", "user_dict", "create_user", "end_sessions", "list_users", "get_user_by_name",
            "create_token", "revoke_token", "list_tokens", "user_for_token", "note_token_use", "get_user",
            "update_user", "change_own_password", "me_dict", "token_dict"]
 
@@ -190,6 +190,14 @@ def update_user(*, session: Session, actor: Actor, user_id: int, role: str | Non
     _apply_changes(session, actor, user, role=role, display_name=display_name, active=active, password=password)
     session.commit()
     return user
+
+
+def end_sessions(*, session: Session, user_id: int) -> None:
+    """End every session cookie of the user issued so far (logout): their generation moves on.
+    The caller commits, with its audit entry."""
+    user = session.get(User, user_id)
+    if user is not None:
+        user.session_generation = (user.session_generation or 0) + 1
 
 
 def change_own_password(*, session: Session, actor: Actor, current_password: str, new_password: str) -> User:
