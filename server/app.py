@@ -23,7 +23,7 @@ from server.api import api_router
 from server.auth import SessionCookie
 from server.config import WEB_DIR, Settings, get_settings
 from server.csrf import csrf_guard
-from server.db import make_engine, make_sessionmaker, ping
+from server.db import UNREACHABLE_ERRORS, OutageLog, make_engine, make_sessionmaker, ping
 from server.pages import page_router
 from server.pages.common import login_url
 from server.services import jobs
@@ -59,14 +59,18 @@ def is_page_request(request: Request) -> bool:
 
 
 PAGE_ERROR_TITLES = {403: "Not allowed", 404: "Not found", 409: "Conflict", 422: "Not valid",
-                     429: "Too many attempts"}
+                     429: "Too many attempts", 503: "Not available just now"}
+# Seconds a client is asked to wait when the database does not answer
+RETRY_AFTER_S = 5
+UNAVAILABLE = ("the database does not answer at the moment; nothing was changed by this request. "
+               f"Try again in {RETRY_AFTER_S} seconds")
 
 
-def _error_page(request: Request, status: int, message: str) -> Response:
+def _error_page(request: Request, status: int, message: str, headers: dict[str, str] | None = None) -> Response:
     context = {"actor": getattr(request.state, "actor_summary", None),
                "csrf_token": getattr(request.state, "csrf_token", ""),
                "status": status, "title": PAGE_ERROR_TITLES.get(status, "Something went wrong"), "message": message}
-    return templates.TemplateResponse(request, "error.html", context, status_code=status)
+    return templates.TemplateResponse(request, "error.html", context, status_code=status, headers=headers)
 
 
 def _install_error_handlers(app: FastAPI) -> None:
@@ -96,11 +100,25 @@ def _install_error_handlers(app: FastAPI) -> None:
         return JSONResponse(error_body(exc.status_code, code, message), status_code=exc.status_code,
                             headers=getattr(exc, "headers", None))
 
+    async def _unavailable(request: Request, exc: Exception) -> Response:
+        app.state.outage_log.failed(exc)
+        headers = {"Retry-After": str(RETRY_AFTER_S)}
+        if is_page_request(request):
+            return _error_page(request, 503, UNAVAILABLE, headers=headers)
+        return JSONResponse(error_body(503, "unavailable", UNAVAILABLE, retry_after_s=RETRY_AFTER_S),
+                            status_code=503, headers=headers)
+
+    for kind in UNREACHABLE_ERRORS:
+        app.add_exception_handler(kind, _unavailable)
+
     @app.exception_handler(Exception)
-    async def _unexpected(request: Request, exc: Exception) -> JSONResponse:
+    async def _unexpected(request: Request, exc: Exception) -> Response:
         log.exception("unexpected error on %s %s", request.method, request.url.path)
+        request_id = getattr(request.state, "request_id", "")
+        if is_page_request(request):
+            return _error_page(request, 500, f"an unexpected error occurred; it has been logged (request {request_id})")
         return JSONResponse(error_body(500, "internal_error", "an unexpected error occurred; it has been logged",
-                                       request_id=getattr(request.state, "request_id", "")), status_code=500)
+                                       request_id=request_id), status_code=500)
 
 
 def queue_outdated(factory) -> int:  # noqa: ANN001
@@ -139,6 +157,7 @@ def create_app(settings: Settings | None = None) -> FastAPI:
     app.state.settings = settings
     app.state.engine = engine
     app.state.sessionmaker = make_sessionmaker(engine)
+    app.state.outage_log = OutageLog(log)
     app.state.read_sessionmaker = make_sessionmaker(engine, read_only=True)
     app.state.session_cookie = SessionCookie(settings)
 

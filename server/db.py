@@ -6,17 +6,27 @@ PostgreSQL is used as it comes (psycopg 3).
 
 from __future__ import annotations
 
+import logging
+import threading
+import time
 from collections.abc import Iterator
 from contextlib import contextmanager
 from typing import Annotated
 
 from fastapi import Depends, Request
 from sqlalchemy import Engine, create_engine, event, text
+from sqlalchemy.exc import InterfaceError, OperationalError
+from sqlalchemy.exc import TimeoutError as PoolTimeout
 from sqlalchemy.orm import Session, sessionmaker
 
 from server.config import Settings
 
-__all__ = ["make_engine", "make_sessionmaker", "session_scope", "get_session", "SessionDep", "ping"]
+__all__ = ["make_engine", "make_sessionmaker", "session_scope", "get_session", "SessionDep", "ping",
+           "UNREACHABLE_ERRORS", "OutageLog"]
+
+# What the driver raises when the database does not answer (down, unreachable, every connection
+# busy, on SQLite a write lock not granted in time): answered 503 with Retry-After, never 500.
+UNREACHABLE_ERRORS: tuple[type[Exception], ...] = (OperationalError, InterfaceError, PoolTimeout)
 
 
 def make_engine(settings: Settings) -> Engine:
@@ -107,3 +117,44 @@ def ping(engine: Engine) -> str | None:
         return None
     except Exception as exc:  # any driver error means unreachable
         return f"{type(exc).__name__}: {str(exc).splitlines()[0] if str(exc) else ''}"
+
+
+class OutageLog:
+    """One log line per database outage, not one per failed request or poll.
+
+    ``failed`` logs the first failure of an outage and then at most one reminder every
+    ``remind_s``; ``answered`` logs the recovery once. Safe to share between threads.
+    """
+
+    def __init__(self, logger: logging.Logger, remind_s: float = 300.0) -> None:
+        self._log, self._remind_s = logger, remind_s
+        self._lock = threading.Lock()
+        self._since: float | None = None
+        self._last_line = 0.0
+
+    @property
+    def in_outage(self) -> bool:
+        return self._since is not None
+
+    def failed(self, exc: BaseException) -> None:
+        now = time.monotonic()
+        with self._lock:
+            first = self._since is None
+            if not first and now - self._last_line < self._remind_s:
+                return
+            self._since = self._since if not first else now
+            self._last_line = now
+            lasted = now - self._since
+        reason = str(exc).strip().splitlines()[0][:200] if str(exc).strip() else type(exc).__name__
+        if first:
+            self._log.warning("the database does not answer: %s", reason)
+        else:
+            self._log.warning("the database still does not answer after %.0f s: %s", lasted, reason)
+
+    def answered(self) -> None:
+        if self._since is None:
+            return
+        with self._lock:
+            since, self._since = self._since, None
+        if since is not None:
+            self._log.warning("the database answers again after %.0f s", time.monotonic() - since)

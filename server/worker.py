@@ -23,12 +23,15 @@ from sqlalchemy.orm import Session, sessionmaker
 
 from server.analysis import AnalysisError, DocumentError, analyze_rail
 from server.config import Settings
+from server.db import UNREACHABLE_ERRORS, OutageLog
 from server.models import Job, RailRevision
 from server.services import jobs
 
 __all__ = ["JobStopped", "run_analysis", "WorkerPool"]
 
 log = logging.getLogger("railsign.worker")
+# Longest pause between polls while the database does not answer
+MAX_BACKOFF_S = 10.0
 
 
 class JobStopped(Exception):
@@ -81,6 +84,7 @@ class WorkerPool:
         self._threads: list[threading.Thread] = []
         self.jobs_done = 0
         self._count_lock = threading.Lock()
+        self.outage_log = OutageLog(log)
 
     def start(self) -> "WorkerPool":
         for k in range(self.threads_wanted):
@@ -105,15 +109,23 @@ class WorkerPool:
                 t.join(0.5)
 
     def _loop(self, worker: str) -> None:
+        backoff_s = self.poll_s
         while not self._stop.is_set():
             try:
                 with self.factory() as session:
                     claim = jobs.claim_next(session, worker=worker, lease_s=self.settings.job_lease_s,
                                             max_attempts=self.settings.job_max_attempts)
+            except UNREACHABLE_ERRORS as exc:  # one line per outage (shared by the threads), polls spaced out
+                self.outage_log.failed(exc)
+                self._stop.wait(backoff_s)
+                backoff_s = min(2 * backoff_s, MAX_BACKOFF_S)
+                continue
             except Exception:
                 log.exception("worker %s could not claim a job; retrying", worker)
                 self._stop.wait(self.poll_s)
                 continue
+            self.outage_log.answered()
+            backoff_s = self.poll_s
             if claim is None:
                 jobs.wakeup.wait(self.poll_s)
                 jobs.wakeup.clear()
