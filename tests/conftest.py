@@ -2,7 +2,9 @@
 
 PostgreSQL: a database of its own per test process is created on the server named by
 RAILSIGN_TEST_POSTGRES_URL (default: the machine's server, database ``test``), migrated
-once, and emptied between tests. SQLite: a migrated template file is copied per test.
+once, and emptied between tests. When no server answers there, a throwaway one from Debian's
+postgresql package serves the run (tests/postgres_server.py); without that package the
+PostgreSQL half fails with the command that installs it, never skipped. SQLite: a migrated template file is copied per test.
 """
 
 from __future__ import annotations
@@ -25,6 +27,7 @@ from server.db import make_engine
 from server.models import Base
 from server.services.access import Actor
 from server.services import users as user_service
+from tests.postgres_server import HOW_TO_INSTALL, ThrowawayPostgres, server_binaries
 
 POSTGRES_URL = os.environ.get("RAILSIGN_TEST_POSTGRES_URL", "postgresql+psycopg://postgres@127.0.0.1:5432/test")
 TEST_SECRET = "test-secret-" + "x" * 32
@@ -36,18 +39,45 @@ def make_settings(url: str, **extra) -> Settings:
     return Settings(**{"database_url": url, "secret_key": TEST_SECRET, "worker_threads": 0, **extra})
 
 
+def _answers(url: str) -> Exception | None:
+    engine = create_engine(url, connect_args={"connect_timeout": 5})
+    try:
+        with engine.connect():
+            return None
+    except Exception as exc:
+        return exc
+    finally:
+        engine.dispose()
+
+
 @pytest.fixture(scope="session")
-def postgres_database() -> Iterator[str]:
+def postgres_admin_url() -> Iterator[str]:
+    """A PostgreSQL server's URL with rights to create databases: the configured one, or a throwaway
+    server for this run when none answers there."""
+    problem = _answers(POSTGRES_URL)
+    if problem is None:
+        yield POSTGRES_URL
+        return
+    binaries = server_binaries()
+    if binaries is None:  # the suite needs PostgreSQL: fail loudly, never skip
+        pytest.fail(f"PostgreSQL at {make_url(POSTGRES_URL).render_as_string(hide_password=True)} is needed for "
+                    f"the postgres half of the suite and cannot be reached ({problem}); no local server package to "
+                    f"start one for the run either: {HOW_TO_INSTALL}")
+    server = ThrowawayPostgres(binaries)
+    try:
+        yield server.start()
+    finally:
+        server.stop()
+
+
+@pytest.fixture(scope="session")
+def postgres_database(postgres_admin_url) -> Iterator[str]:
     """A fresh, migrated PostgreSQL database for this test process; dropped at the end."""
-    admin_url = make_url(POSTGRES_URL)
+    admin_url = make_url(postgres_admin_url)
     name = f"railsign_test_{uuid.uuid4().hex[:10]}"
     admin = create_engine(admin_url, isolation_level="AUTOCOMMIT")
-    try:
-        with admin.connect() as conn:
-            conn.execute(text(f'CREATE DATABASE "{name}"'))
-    except Exception as exc:  # the suite needs PostgreSQL: fail loudly, never skip
-        pytest.fail(f"PostgreSQL at {admin_url.render_as_string(hide_password=True)} is needed for the "
-                    f"postgres half of the suite and cannot be reached: {exc}")
+    with admin.connect() as conn:
+        conn.execute(text(f'CREATE DATABASE "{name}"'))
     url = admin_url.set(database=name).render_as_string(hide_password=False)
     migrate.upgrade(make_settings(url))
     yield url

@@ -16,7 +16,7 @@ from sqlalchemy.exc import DBAPIError
 from server import migrate
 from server.models import Base, utcnow
 from server.workflow import parse_workflow
-from tests.conftest import BACKENDS, POSTGRES_URL, make_settings
+from tests.conftest import BACKENDS, make_settings
 
 SIGNOFF_TABLES = {"workflows", "rail_states", "approvals", "waivers", "login_throttles"}
 
@@ -27,7 +27,7 @@ def empty_url(request, tmp_path) -> Iterator[str]:
     if request.param == "sqlite":
         yield f"sqlite:///{tmp_path / 'empty.db'}"
         return
-    admin_url = make_url(POSTGRES_URL)
+    admin_url = make_url(request.getfixturevalue("postgres_admin_url"))
     name = f"railsign_migrations_{uuid.uuid4().hex[:10]}"
     admin = create_engine(admin_url, isolation_level="AUTOCOMMIT")
     with admin.connect() as conn:
