@@ -24,7 +24,7 @@ from sqlalchemy.exc import OperationalError
 
 import railsign
 from railsign import gate
-from server import migrate, transfer
+from server import backup, migrate, transfer
 from server.analysis import DocumentError, analyze_rail, format_report
 from server.app import create_app
 from server.config import Settings
@@ -370,6 +370,28 @@ def cmd_jobs(args: argparse.Namespace) -> int:
     return EXIT_OK
 
 
+def cmd_backup(args: argparse.Namespace) -> int:
+    settings = _settings()
+    _migrate(settings)
+    try:
+        backup.backup(settings, Path(args.file))
+    except backup.BackupError as exc:
+        raise CliError(str(exc)) from None
+    print(f"backed up {_safe_url(settings.database_url)} to {args.file}")
+    return EXIT_OK
+
+
+def cmd_restore(args: argparse.Namespace) -> int:
+    settings = _settings()
+    try:
+        backup.restore(settings, Path(args.file))
+    except backup.BackupError as exc:
+        raise CliError(str(exc)) from None
+    _migrate(settings)  # a backup of an older schema is brought up to this version's
+    print(f"restored {args.file} into {_safe_url(settings.database_url)} (schema {migrate.head_revision(settings)})")
+    return EXIT_OK
+
+
 def cmd_risks(args: argparse.Namespace) -> int:
     settings = _settings()
     _migrate(settings)
@@ -418,6 +440,13 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--team", help="team that owns a product the bundle creates")
     p.add_argument("--user", help="author of the new revisions (default: railsign-cli)")
     p.add_argument("--message", default="imported", help="revision message")
+
+    p = command("backup", cmd_backup, "write the whole database (rails, revisions, results, approvals, waivers, "
+                "audit trail) to one file: SQLite's online backup, or pg_dump's custom format for PostgreSQL")
+    p.add_argument("file", help="backup file to write (replaced if it exists)")
+    p = command("restore", cmd_restore, "replace the database's contents with a backup file's (stop the service "
+                "and its workers first)")
+    p.add_argument("file", help="backup file written by railsign backup")
 
     p = command("analyze", cmd_analyze, "analyse a rail document file (no database needed)")
     p.add_argument("file", help="rail document (JSON), or - for standard input")
