@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import asyncio
 import logging
 import time
 import uuid
@@ -23,7 +24,7 @@ from server.api import api_router
 from server.auth import SessionCookie
 from server.config import WEB_DIR, Settings, get_settings
 from server.csrf import csrf_guard
-from server.db import UNREACHABLE_ERRORS, OutageLog, make_engine, make_sessionmaker, ping
+from server.db import UNREACHABLE_ERRORS, OutageLog, is_busy, make_engine, make_sessionmaker, ping
 from server.pages import page_router
 from server.pages.common import login_url
 from server.services import jobs
@@ -64,6 +65,42 @@ PAGE_ERROR_TITLES = {403: "Not allowed", 404: "Not found", 409: "Conflict", 422:
 RETRY_AFTER_S = 5
 UNAVAILABLE = ("the database does not answer at the moment; nothing was changed by this request. "
                f"Try again in {RETRY_AFTER_S} seconds")
+# ... and when the server is saturated (no turn within the bounded wait)
+BUSY_RETRY_AFTER_S = 1
+BUSY = ("the server is busy at the moment; nothing was changed by this request. "
+        f"Try again in {BUSY_RETRY_AFTER_S} second")
+
+
+def unavailable_response(request: Request, *, busy: bool) -> Response:
+    """503 with Retry-After: for pages an HTML page, for the API the error body."""
+    retry_s, message = (BUSY_RETRY_AFTER_S, BUSY) if busy else (RETRY_AFTER_S, UNAVAILABLE)
+    headers = {"Retry-After": str(retry_s)}
+    if is_page_request(request):
+        return _error_page(request, 503, message, headers=headers)
+    return JSONResponse(error_body(503, "busy" if busy else "unavailable", message, retry_after_s=retry_s),
+                        status_code=503, headers=headers)
+
+
+class Admission:
+    """At most ``slots`` requests at work in this process; a request waits ``wait_s`` at most for a
+    turn, else it is answered 503 at once (instead of queueing in the thread pool behind the others)."""
+
+    def __init__(self, slots: int, wait_s: float) -> None:
+        self.slots, self.wait_s = slots, wait_s
+        self._free: asyncio.Semaphore | None = None  # made in the server's event loop
+
+    async def enter(self) -> bool:
+        if self._free is None:
+            self._free = asyncio.Semaphore(self.slots)
+        try:
+            await asyncio.wait_for(self._free.acquire(), self.wait_s)
+        except TimeoutError:
+            return False
+        return True
+
+    def leave(self) -> None:
+        assert self._free is not None
+        self._free.release()
 
 
 def _error_page(request: Request, status: int, message: str, headers: dict[str, str] | None = None) -> Response:
@@ -101,12 +138,10 @@ def _install_error_handlers(app: FastAPI) -> None:
                             headers=getattr(exc, "headers", None))
 
     async def _unavailable(request: Request, exc: Exception) -> Response:
-        app.state.outage_log.failed(exc)
-        headers = {"Retry-After": str(RETRY_AFTER_S)}
-        if is_page_request(request):
-            return _error_page(request, 503, UNAVAILABLE, headers=headers)
-        return JSONResponse(error_body(503, "unavailable", UNAVAILABLE, retry_after_s=RETRY_AFTER_S),
-                            status_code=503, headers=headers)
+        busy = is_busy(exc)
+        if not busy:
+            app.state.outage_log.failed(exc)
+        return unavailable_response(request, busy=busy)
 
     for kind in UNREACHABLE_ERRORS:
         app.add_exception_handler(kind, _unavailable)
@@ -171,6 +206,19 @@ def create_app(settings: Settings | None = None) -> FastAPI:
         response.headers["Server-Timing"] = f"app;dur={elapsed_ms:.2f}"
         log.debug("%s %s -> %s in %.1f ms", request.method, request.url.path, response.status_code, elapsed_ms)
         return response
+
+    admission = Admission(settings.max_concurrent_requests, settings.busy_wait_s)
+
+    @app.middleware("http")
+    async def _admission(request: Request, call_next):
+        if request.url.path.startswith("/static/"):
+            return await call_next(request)
+        if not await admission.enter():
+            return unavailable_response(request, busy=True)
+        try:
+            return await call_next(request)
+        finally:
+            admission.leave()
 
     _install_error_handlers(app)
     app.include_router(api_router)

@@ -14,12 +14,11 @@ from typing import Annotated, Any
 
 from fastapi import Depends, Request
 from itsdangerous import BadSignature, SignatureExpired, URLSafeTimedSerializer
-from sqlalchemy.exc import OperationalError
 from sqlalchemy.orm import Session
 
 from server.config import Settings
 from server.credentials import password_fingerprint
-from server.db import SessionDep
+from server.db import UNREACHABLE_ERRORS
 from server.models import User
 from server.services import users
 from server.services.access import Actor
@@ -86,24 +85,28 @@ class SessionCookie:
                 "path": "/"}
 
 
-def _note_token_use(request: Request, session: Session, token_id: int, last_used_at: datetime | None) -> None:
-    """Have the users service record the token's use (at most once a minute); advisory, it never fails
-    a request. A GET on SQLite has a read-only session: the use is written in a session of its own."""
-    bind = session.get_bind()
-    read_only = bind.dialect.name == "sqlite" and not bind.get_execution_options().get("sqlite_write")
+def _note_token_use(request: Request, token_id: int, last_used_at: datetime | None) -> None:
+    """Have the users service record the token's use (at most once a minute), in a write session of its
+    own; advisory, it never fails a request (a busy or absent database only skips the stamp)."""
     try:
-        if read_only:
-            with request.app.state.sessionmaker() as write:
-                users.note_token_use(session=write, token_id=token_id, last_used_at=last_used_at)
-        else:
-            users.note_token_use(session=session, token_id=token_id, last_used_at=last_used_at)
-    except OperationalError:
-        session.rollback()
+        with request.app.state.sessionmaker() as write:
+            users.note_token_use(session=write, token_id=token_id, last_used_at=last_used_at)
+    except UNREACHABLE_ERRORS:
         log.warning("could not record the use of API token %s", token_id)
 
 
-def current_actor(request: Request, session: SessionDep) -> Actor:
-    """The logged-in user (API token or session cookie) as an Actor; 401 otherwise."""
+def current_actor(request: Request) -> Actor:
+    """The logged-in user (API token or session cookie) as an Actor; 401 otherwise.
+
+    Read in a short session of its own, closed before the endpoint runs: a request holds no
+    database connection (and on SQLite no write lock) while it waits between the two."""
+    if hasattr(request.state, "actor"):
+        return request.state.actor
+    with request.app.state.read_sessionmaker() as session:
+        return _actor_of(request, session)
+
+
+def _actor_of(request: Request, session: Session) -> Actor:
     request_id = request.state.request_id if hasattr(request.state, "request_id") else None
     header = request.headers.get("authorization", "")
     user: User | None = None
@@ -112,7 +115,7 @@ def current_actor(request: Request, session: SessionDep) -> Actor:
         if found is None:
             raise Unauthenticated("the API token is unknown or revoked")
         user, token = found
-        _note_token_use(request, session, token.id, token.last_used_at)
+        _note_token_use(request, token.id, token.last_used_at)
         request.state.auth = "token"
     else:
         data = request.app.state.session_cookie.load(request.cookies.get(SESSION_COOKIE))
@@ -136,10 +139,10 @@ def current_actor(request: Request, session: SessionDep) -> Actor:
 CurrentActor = Annotated[Actor, Depends(current_actor)]
 
 
-def optional_actor(request: Request, session: SessionDep) -> Actor | None:
+def optional_actor(request: Request) -> Actor | None:
     """The logged-in actor, or None (for the login page, which anyone may open)."""
     try:
-        return current_actor(request, session)
+        return current_actor(request)
     except Unauthenticated:
         return None
 

@@ -22,21 +22,88 @@ from sqlalchemy.orm import Session, sessionmaker
 from server.config import Settings
 
 __all__ = ["make_engine", "make_sessionmaker", "session_scope", "get_session", "SessionDep", "ping",
-           "UNREACHABLE_ERRORS", "OutageLog"]
+           "UNREACHABLE_ERRORS", "OutageLog", "Busy", "is_busy"]
+
+
+
+class Busy(Exception):
+    """The server is saturated: no turn (request slot, connection, SQLite write lock) within the bounded wait."""
+
+
+def is_busy(exc: BaseException) -> bool:
+    """Whether a database error means "busy, try again" rather than "unreachable"."""
+    if isinstance(exc, (Busy, PoolTimeout)):
+        return True
+    return isinstance(exc, OperationalError) and (
+        "database is locked" in str(exc)  # SQLite: another process's writer
+        or getattr(exc.orig, "sqlstate", None) == LOCK_NOT_AVAILABLE)
+
+
+LOCK_NOT_AVAILABLE = "55P03"  # PostgreSQL's SQLSTATE when lock_timeout ends a wait
+
 
 # What the driver raises when the database does not answer (down, unreachable, every connection
 # busy, on SQLite a write lock not granted in time): answered 503 with Retry-After, never 500.
-UNREACHABLE_ERRORS: tuple[type[Exception], ...] = (OperationalError, InterfaceError, PoolTimeout)
+UNREACHABLE_ERRORS: tuple[type[Exception], ...] = (OperationalError, InterfaceError, PoolTimeout, Busy)
+
+
+def _install_write_gate(engine: Engine, wait_s: float) -> None:
+    """Serialise SQLite write transactions of this process in a queue of their own, with a bounded wait.
+
+    SQLite has one writer at a time. Waiting on its lock inside the driver (busy_timeout) ties up
+    a pooled connection and retries blindly; here a writer waits on a semaphore before it takes
+    the lock, at most ``wait_s``, then gives up with :class:`Busy` (answered 503 with Retry-After).
+    The turn is held from ``BEGIN IMMEDIATE`` until the transaction ends, however it ends.
+    """
+    gate = threading.BoundedSemaphore(1)
+
+    def _release(info: dict) -> None:
+        if info.pop("holds_write_turn", False):
+            gate.release()
+
+    @event.listens_for(engine, "begin")
+    def _sqlite_begin(conn) -> None:  # noqa: ANN001
+        if not conn.get_execution_options().get("sqlite_write"):
+            conn.exec_driver_sql("BEGIN")
+            return
+        info = conn.connection.info
+        if not info.get("holds_write_turn"):
+            if not gate.acquire(timeout=wait_s):
+                raise Busy(f"no turn to write within {wait_s:g} s")
+            info["holds_write_turn"] = True
+        try:
+            conn.exec_driver_sql("BEGIN IMMEDIATE")
+        except BaseException:
+            _release(info)
+            raise
+
+    for name in ("commit", "rollback"):
+        event.listen(engine, name, lambda conn: _release(conn.connection.info))
+    @event.listens_for(engine.pool, "checkin")
+    def _on_checkin(_dbapi_connection, connection_record) -> None:  # noqa: ANN001
+        _release(connection_record.info)
+
+    @event.listens_for(engine.pool, "reset")
+    def _on_reset(_dbapi_connection, connection_record, _reset_state) -> None:  # noqa: ANN001
+        _release(connection_record.info)
+
+    @event.listens_for(engine.pool, "invalidate")
+    def _on_invalidate(_dbapi_connection, connection_record, _exception) -> None:  # noqa: ANN001
+        _release(connection_record.info)
 
 
 def make_engine(settings: Settings) -> Engine:
-    """Create the engine for ``settings.database_url``."""
+    """Create the engine for ``settings.database_url``.
+
+    A request that finds no pooled connection within ``settings.busy_wait_s`` gets :class:`PoolTimeout`
+    (answered 503 with Retry-After), never a 30 s stall."""
     url = settings.database_url
     if settings.is_sqlite:
         engine = create_engine(
             url,
             echo=settings.sql_echo,
-            connect_args={"check_same_thread": False, "timeout": 30},
+            connect_args={"check_same_thread": False, "timeout": settings.busy_wait_s},
+            pool_size=20, max_overflow=40, pool_timeout=settings.busy_wait_s,
         )
 
         @event.listens_for(engine, "connect")
@@ -45,7 +112,8 @@ def make_engine(settings: Settings) -> Engine:
             cur.execute("PRAGMA journal_mode=WAL")
             cur.execute("PRAGMA foreign_keys=ON")
             cur.execute("PRAGMA synchronous=NORMAL")
-            cur.execute("PRAGMA busy_timeout=30000")
+            # another process's writer (a CLI command, a second web process) is waited for this long
+            cur.execute(f"PRAGMA busy_timeout={int(settings.busy_wait_s * 1000)}")
             cur.close()
 
         # pysqlite's own transaction handling defers BEGIN; emit it ourselves so that
@@ -54,15 +122,14 @@ def make_engine(settings: Settings) -> Engine:
         def _no_pysqlite_begin(dbapi_conn, _record) -> None:  # noqa: ANN001
             dbapi_conn.isolation_level = None
 
-        @event.listens_for(engine, "begin")
-        def _sqlite_begin(conn) -> None:  # noqa: ANN001
-            immediate = conn.get_execution_options().get("sqlite_write")
-            conn.exec_driver_sql("BEGIN IMMEDIATE" if immediate else "BEGIN")
-
+        _install_write_gate(engine, settings.busy_wait_s)
         return engine
+    # a row lock (two saves of one rail) is waited for as long as any other turn, then the request is busy
+    lock_timeout_ms = int(settings.busy_wait_s * 1000)
     return create_engine(
         url, echo=settings.sql_echo, pool_pre_ping=True, pool_size=10, max_overflow=20,
-        connect_args={"connect_timeout": 5},
+        pool_timeout=settings.busy_wait_s,
+        connect_args={"connect_timeout": 5, "options": f"-c lock_timeout={lock_timeout_ms}"},
     )
 
 
