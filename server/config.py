@@ -47,10 +47,10 @@ class Settings(BaseSettings):
         "failure up to 16 times (0: no delay); failures older than login_lockout_s are forgotten"
     )
     max_concurrent_requests: int = Field(
-        32, ge=1, description="requests one web process works on at once; more wait for a turn (see busy_wait_s)"
+        8, ge=1, description="requests one web process works on at once; more wait for a turn (see busy_wait_s)"
     )
     busy_wait_s: float = Field(
-        1.5, gt=0, description="seconds a request waits for each turn it needs (a request slot, a database "
+        1.0, gt=0, description="seconds a request waits for each turn it needs (a request slot, a database "
         "connection, on SQLite the write lock) before it is answered 503 with Retry-After"
     )
     log_level: str = Field("INFO", description="logging level: DEBUG, INFO, WARNING, ERROR")

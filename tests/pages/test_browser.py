@@ -88,10 +88,12 @@ def page(browser, served):
     pg = context.new_page()
     errors: list[str] = []
     pg.on("pageerror", lambda e: errors.append(str(e)))
+    # anything the content security policy refused (a script, an eval, a style) is reported on the console
+    pg.on("console", lambda m: errors.append(m.text) if "Content Security Policy" in m.text else None)
     log_in(pg, "designer")
     yield pg
     context.close()
-    assert errors == [], f"script errors in the page: {errors}"
+    assert errors == [], f"script errors or refusals of the content security policy in the page: {errors}"
 
 
 def shot(pg, name: str) -> Path:
@@ -214,12 +216,12 @@ def test_enter_an_soa_curve_by_pasting_csv_and_see_the_preview(page, served):
     page.fill("#f-zth", "0.3, 30us\n2, 3ms\n35, 4")
     page.fill("#f-curve-0-points", "V_DS, I_D\n1, 180\n12, 60\n45, 9")
     page.wait_for_selector(f"#soa-preview{PLOT_SVG}")
-    page.wait_for_function("document.querySelectorAll('#soa-preview .scatterlayer .trace').length === 1")
+    page.wait_for_function("() => document.querySelectorAll('#soa-preview .scatterlayer .trace').length === 1")
     assert "Preview of 1 curve" in page.inner_text("#preview-status")
     page.fill("#f-curve-3-points", "1\t25\n45\t0.8")
-    page.wait_for_function("document.querySelectorAll('#soa-preview .scatterlayer .trace').length === 2")
+    page.wait_for_function("() => document.querySelectorAll('#soa-preview .scatterlayer .trace').length === 2")
     page.fill("#f-curve-1-points", "1, 120\n0.5, 40")
-    page.wait_for_function("document.getElementById('preview-status').textContent.includes('must rise')")
+    page.wait_for_function("() => document.getElementById('preview-status').textContent.includes('must rise')")
     shot(page, "part-soa-preview")
     page.fill("#f-curve-1-points", "")
     page.fill("#f-curve-1-t-pulse", "")
@@ -250,7 +252,7 @@ def test_the_board_table_sorts_and_filters_from_the_keyboard_and_the_board_is_an
     page.keyboard.press("Tab")
     page.click("#analyse-board")
     page.wait_for_url(re.compile(rf"/boards/{board_id}"))
-    page.wait_for_function("!document.querySelector('.job-progress') || "
+    page.wait_for_function("() => !document.querySelector('.job-progress') || "
                            "document.querySelector('.job-status').textContent.includes('done')")
     page.wait_for_selector(f"#budget-0{PLOT_SVG}")
     assert page.locator("#rail-table .verdict").count() == len(first)

@@ -1,0 +1,74 @@
+"""Security headers on every page route (taken from the app's own route table), the API and errors;
+pages carry no inline script, so the content security policy needs neither inline script nor eval."""
+
+from __future__ import annotations
+
+import re
+
+import pytest
+
+from server.app import CONTENT_SECURITY_POLICY
+from tests.conftest import make_settings
+from tests.test_route_matrix import all_routes
+from tests.pages.helpers import log_in, seed_board
+
+INLINE_SCRIPT = re.compile(r"<script(?![^>]*\bsrc=)(?![^>]*type=\"application/json\")[^>]*>", re.I)
+
+
+def _headers_ok(response, *, policy: str | None = CONTENT_SECURITY_POLICY) -> None:
+    h = response.headers
+    assert h["x-frame-options"] == "DENY" and h["x-content-type-options"] == "nosniff"
+    assert h["referrer-policy"] == "same-origin"
+    csp = h["content-security-policy"]
+    if policy is not None:
+        assert csp == policy
+    assert "frame-ancestors 'none'" in csp and "unsafe-eval" not in csp
+    assert "'unsafe-inline'" not in csp.split("script-src", 1)[1].split(";", 1)[0]
+
+
+def _filled(path: str, ids: dict) -> str:
+    values = {"product_id": ids["product_id"], "board_id": ids["board_id"], "rail_id": ids["rail_ids"][0],
+              "part_id": ids["part_id"]}
+    return re.sub(r"\{(\w+)\}", lambda m: str(values.get(m.group(1), 1)), path)
+
+
+def test_every_page_route_sends_the_security_headers_and_no_inline_script(app, client, people, session_factory):
+    ids = seed_board(session_factory, analysed=1, unanalysed=0)
+    log_in(client, app, people.ids["admin"])
+    pages = sorted({path for method, path in all_routes(app) if method == "GET"
+                    and not path.startswith(("/api/", "/static", "/docs", "/openapi"))})
+    assert len(pages) > 15
+    for path in pages:
+        r = client.get(_filled(path, ids), follow_redirects=False)
+        assert r.status_code < 500, (path, r.status_code)
+        _headers_ok(r)
+        if r.headers.get("content-type", "").startswith("text/html"):
+            assert not INLINE_SCRIPT.search(r.text), f"{path} has an inline script"
+            assert not re.search(r"\son[a-z]+=\"", r.text), f"{path} has an inline event handler"
+
+
+def test_errors_the_api_static_files_and_the_login_page_send_them_too(client, people):
+    for r in (client.get("/login"), client.get("/no-such-page"), client.get("/healthz"),
+              client.get("/static/plots.js"), client.get("/api/v1/products", headers=people.headers("viewer")),
+              client.get("/api/v1/products")):
+        _headers_ok(r)
+    assert "strict-transport-security" not in client.get("/login").headers
+
+
+def test_the_api_docs_allow_their_own_inline_script_by_hash_only(client):
+    r = client.get("/docs")
+    _headers_ok(r, policy=None)
+    assert re.search(r"script-src 'self' 'sha256-[A-Za-z0-9+/=]+'", r.headers["content-security-policy"])
+
+
+@pytest.fixture
+def secure_client(database_url):
+    from fastapi.testclient import TestClient
+
+    from server.app import create_app
+    with TestClient(create_app(make_settings(database_url, cookie_secure=True))) as c:
+        yield c
+
+
+def test_secure_cookies_bring_strict_transport_security(secure_client):
+    assert secure_client.get("/login").headers["strict-transport-security"].startswith("max-age=31536000")
