@@ -103,6 +103,26 @@ def _inline_script_policy(html: str) -> str:
     return CONTENT_SECURITY_POLICY.replace("script-src 'self'", f"script-src 'self' {hashes}")
 
 
+class HeadAsGet:
+    """Every GET route answers HEAD: the request is served as a GET and its body left out (the headers,
+    Content-Length included, are those of the GET)."""
+
+    def __init__(self, app) -> None:  # noqa: ANN001
+        self.app = app
+
+    async def __call__(self, scope, receive, send) -> None:  # noqa: ANN001
+        if scope["type"] != "http" or scope["method"] != "HEAD":
+            await self.app(scope, receive, send)
+            return
+
+        async def send_headers_only(message) -> None:  # noqa: ANN001
+            if message["type"] == "http.response.body":
+                message = {**message, "body": b""}
+            await send(message)
+
+        await self.app({**scope, "method": "GET"}, receive, send_headers_only)
+
+
 class Admission:
     """At most ``slots`` requests at work in this process; a request waits ``wait_s`` at most for a
     turn, else it is answered 503 at once (instead of queueing in the thread pool behind the others)."""
@@ -252,6 +272,7 @@ def create_app(settings: Settings | None = None) -> FastAPI:
         finally:
             admission.leave()
 
+    app.add_middleware(HeadAsGet)
     _install_error_handlers(app)
     app.include_router(api_router)
     app.include_router(page_router)

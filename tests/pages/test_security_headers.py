@@ -72,3 +72,16 @@ def secure_client(database_url):
 
 def test_secure_cookies_bring_strict_transport_security(secure_client):
     assert secure_client.get("/login").headers["strict-transport-security"].startswith("max-age=31536000")
+
+
+def test_every_get_route_answers_head_as_its_get_without_a_body(app, client, people, session_factory):
+    ids = seed_board(session_factory, analysed=1, unanalysed=0)
+    log_in(client, app, people.ids["admin"])
+    paths = sorted({path for method, path in all_routes(app) if method == "GET"})
+    samples = {"/static": "/static/railsign.css", "/static/docs": "/static/docs/swagger-ui.css"}
+    for path in paths:
+        url = samples.get(path) or _filled(path, ids)
+        got, head = client.get(url, follow_redirects=False), client.head(url, follow_redirects=False)
+        assert head.status_code == got.status_code, (path, head.status_code, got.status_code)
+        assert head.content == b"", path
+        assert head.headers.get("content-type") == got.headers.get("content-type"), path
