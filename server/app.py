@@ -4,6 +4,8 @@ from __future__ import annotations
 
 import asyncio
 import base64
+import functools
+import gzip
 import hashlib
 import logging
 import re
@@ -16,6 +18,7 @@ from typing import Any
 import fastapi_offline
 import plotly
 from fastapi import Depends, FastAPI, Request
+from starlette.middleware.gzip import GZipMiddleware
 from fastapi.exceptions import RequestValidationError
 from fastapi.openapi.docs import get_swagger_ui_html, get_swagger_ui_oauth2_redirect_html
 from fastapi.responses import FileResponse, HTMLResponse, JSONResponse, RedirectResponse, Response
@@ -26,7 +29,7 @@ from server import __version__
 from server.api import api_router
 from server.auth import SessionCookie
 from server.config import WEB_DIR, Settings, get_settings
-from server.csrf import csrf_guard
+from server.csrf import csrf_guard, masked
 from server.db import UNREACHABLE_ERRORS, OutageLog, is_busy, make_engine, make_sessionmaker, ping
 from server.pages import page_router
 from server.pages.common import login_url
@@ -103,6 +106,12 @@ def _inline_script_policy(html: str) -> str:
     return CONTENT_SECURITY_POLICY.replace("script-src 'self'", f"script-src 'self' {hashes}")
 
 
+@functools.lru_cache(maxsize=1)
+def _plotly_gzip() -> bytes:
+    """The plotting library's script, gzip-compressed (level 9), made once per process."""
+    return gzip.compress((PLOTLY_DIR / "plotly.min.js").read_bytes(), compresslevel=9, mtime=0)
+
+
 class HeadAsGet:
     """Every GET route answers HEAD: the request is served as a GET and its body left out (the headers,
     Content-Length included, are those of the GET)."""
@@ -147,7 +156,7 @@ class Admission:
 
 def _error_page(request: Request, status: int, message: str, headers: dict[str, str] | None = None) -> Response:
     context = {"actor": getattr(request.state, "actor_summary", None),
-               "csrf_token": getattr(request.state, "csrf_token", ""),
+               "csrf_token": masked(getattr(request.state, "csrf_token", "")),
                "status": status, "title": PAGE_ERROR_TITLES.get(status, "Something went wrong"), "message": message}
     return templates.TemplateResponse(request, "error.html", context, status_code=status, headers=headers)
 
@@ -272,6 +281,8 @@ def create_app(settings: Settings | None = None) -> FastAPI:
         finally:
             admission.leave()
 
+    # compressed answers for clients that ask; CSRF tokens in bodies are masked per response (server.csrf)
+    app.add_middleware(GZipMiddleware, minimum_size=1000, compresslevel=6)
     app.add_middleware(HeadAsGet)
     _install_error_handlers(app)
     app.include_router(api_router)
@@ -288,10 +299,14 @@ def create_app(settings: Settings | None = None) -> FastAPI:
         return JSONResponse(body.model_dump(exclude_unset=True), status_code=200 if problem is None else 503)
 
     @app.get("/static/vendor/plotly.min.js", include_in_schema=False)
-    def plotly_js() -> FileResponse:
-        """The plotting library's JavaScript, served from the installed plotly package (no CDN)."""
-        return FileResponse(PLOTLY_DIR / "plotly.min.js", media_type="application/javascript",
-                            headers={"Cache-Control": "public, max-age=86400"})
+    def plotly_js(request: Request) -> Response:
+        """The plotting library's JavaScript, served from the installed plotly package (no CDN); compressed
+        once per process for clients that take gzip."""
+        headers = {"Cache-Control": "public, max-age=86400", "Vary": "Accept-Encoding"}
+        if "gzip" in request.headers.get("accept-encoding", ""):
+            return Response(_plotly_gzip(), media_type="application/javascript",
+                            headers={**headers, "Content-Encoding": "gzip"})
+        return FileResponse(PLOTLY_DIR / "plotly.min.js", media_type="application/javascript", headers=headers)
 
     @app.get("/docs", include_in_schema=False)
     def api_docs() -> HTMLResponse:

@@ -6,6 +6,7 @@ from fastapi import APIRouter, Request
 
 from server.api.common import TypedRoute, errors
 from server.auth import CurrentActor
+from server.csrf import masked
 from server.schemas.responses import Me
 from server.services import users
 
@@ -16,4 +17,4 @@ router = APIRouter(prefix="/me", tags=["me"], route_class=TypedRoute)
 def me(request: Request, actor: CurrentActor) -> dict:
     """Your account, teams and permissions; with a session cookie, also the CSRF token for X-CSRF-Token."""
     return users.me_dict(actor, auth=getattr(request.state, "auth", None),
-                         csrf_token=getattr(request.state, "csrf_token", None))
+                         csrf_token=masked(getattr(request.state, "csrf_token", None) or ""))

@@ -9,6 +9,7 @@ from fastapi import Depends, Request
 from fastapi.responses import HTMLResponse
 from starlette.datastructures import FormData
 
+from server.csrf import masked
 from server.services.access import Actor, Permission
 from server.templating import templates
 
@@ -18,7 +19,7 @@ __all__ = ["page_context", "render", "safe_next", "login_url", "FormDep", "clien
 def page_context(request: Request, actor: Actor | None, **extra: Any) -> dict[str, Any]:
     """What every page template may use: the actor, the CSRF token for its forms, what the actor may do."""
     token = extra.pop("csrf_token", "") or getattr(request.state, "csrf_token", "")
-    return {"actor": actor, "csrf_token": token, "is_admin": bool(actor and actor.can(Permission.ADMIN)), **extra}
+    return {"actor": actor, "csrf_token": masked(token), "is_admin": bool(actor and actor.can(Permission.ADMIN)), **extra}
 
 
 def render(request: Request, name: str, context: dict[str, Any], status_code: int = 200) -> HTMLResponse:

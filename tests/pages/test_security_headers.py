@@ -85,3 +85,28 @@ def test_every_get_route_answers_head_as_its_get_without_a_body(app, client, peo
         assert head.status_code == got.status_code, (path, head.status_code, got.status_code)
         assert head.content == b"", path
         assert head.headers.get("content-type") == got.headers.get("content-type"), path
+
+
+def test_pages_come_compressed_with_a_csrf_token_masked_anew_in_each(app, client, people, session_factory):
+    """A secret repeated unchanged in compressed bodies could be read off their sizes: the token differs
+    in every response, never appears itself, and each masked copy is accepted back."""
+    from server.csrf import unmasked
+
+    csrf = log_in(client, app, people.ids["designer"])
+    first, second = client.get("/account"), client.get("/account")
+    assert first.headers["content-encoding"] == "gzip" and "accept-encoding" in first.headers["vary"].lower()
+    tokens = [re.search(r'name="csrf_token" value="([^"]+)"', r.text).group(1) for r in (first, second)]
+    assert tokens[0] != tokens[1] and csrf not in first.text and csrf not in second.text
+    assert [unmasked(t) for t in tokens] == [csrf, csrf]
+    made = client.post("/account/tokens", data={"name": "masked", "csrf_token": tokens[0]})
+    assert made.status_code == 201
+    forged = tokens[0][:-4] + ("AAAA" if not tokens[0].endswith("AAAA") else "BBBB")
+    assert client.post("/account/tokens", data={"name": "forged", "csrf_token": forged}).status_code == 403
+
+
+def test_the_plotting_script_comes_compressed(client):
+    plain = client.get("/static/vendor/plotly.min.js", headers={"accept-encoding": "identity"})
+    packed = client.get("/static/vendor/plotly.min.js", headers={"accept-encoding": "gzip"})
+    assert packed.headers["content-encoding"] == "gzip" and "content-encoding" not in plain.headers
+    assert int(packed.headers["content-length"]) < int(plain.headers["content-length"]) / 3
+    assert packed.content == plain.content  # the client decodes it to the same script
