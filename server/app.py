@@ -24,6 +24,7 @@ from server.auth import SessionCookie
 from server.config import WEB_DIR, Settings, get_settings
 from server.csrf import csrf_guard
 from server.db import make_engine, make_sessionmaker, ping
+from server.limits import BodyLimit, OptionsAnswer, allowed_methods
 from server.pages import page_router
 from server.pages.common import login_url
 from server.services import jobs
@@ -82,7 +83,8 @@ def _install_error_handlers(app: FastAPI) -> None:
 
     @app.exception_handler(RequestValidationError)
     async def _validation_error(request: Request, exc: RequestValidationError) -> JSONResponse:
-        details = [{"field": _field_path(tuple(e["loc"])), "message": e["msg"]} for e in exc.errors()]
+        details = [{"field": _field_path(tuple(e["loc"])), "message": e["msg"].removeprefix("Value error, ")}
+                   for e in exc.errors()]
         message = "; ".join(f"{d['field']}: {d['message']}" for d in details[:5])
         return JSONResponse(error_body(422, "invalid", f"the request is not valid: {message}", details),
                             status_code=422)
@@ -91,10 +93,13 @@ def _install_error_handlers(app: FastAPI) -> None:
     async def _http_error(request: Request, exc: StarletteHTTPException) -> Response:
         code = {404: "not_found", 405: "method_not_allowed"}.get(exc.status_code, "http_error")
         message = exc.detail if isinstance(exc.detail, str) else str(exc.detail)
+        headers = getattr(exc, "headers", None)
+        if exc.status_code == 405:  # every method the path serves, not only the first route's
+            headers = {**(headers or {}), "Allow": ", ".join(allowed_methods(request.app.router, request.scope))}
         if is_page_request(request):
             return _error_page(request, exc.status_code, message)
         return JSONResponse(error_body(exc.status_code, code, message), status_code=exc.status_code,
-                            headers=getattr(exc, "headers", None))
+                            headers=headers)
 
     @app.exception_handler(Exception)
     async def _unexpected(request: Request, exc: Exception) -> JSONResponse:
@@ -154,6 +159,8 @@ def create_app(settings: Settings | None = None) -> FastAPI:
         return response
 
     _install_error_handlers(app)
+    app.add_middleware(BodyLimit, limit=settings.max_request_bytes)
+    app.add_middleware(OptionsAnswer, router=app.router)
     app.include_router(api_router)
     app.include_router(page_router)
 

@@ -46,6 +46,7 @@ class Settings(BaseSettings):
         0.5, ge=0, description="delay of a login attempt after one recent failure, doubled with each further "
         "failure up to 16 times (0: no delay); failures older than login_lockout_s are forgotten"
     )
+    max_request_bytes: int = Field(2_000_000, ge=1024, description="largest request body accepted (413 above it)")
     log_level: str = Field("INFO", description="logging level: DEBUG, INFO, WARNING, ERROR")
     sql_echo: bool = Field(False, description="log every SQL statement (debugging)")
 
