@@ -5,19 +5,31 @@ Both are plain ASGI middleware, so that an oversized body is refused before any 
 an OPTIONS request is answered before authentication (it reveals only the methods, which the
 OpenAPI description shows anyway).
 
-Provides :class:`BodyLimit`, :class:`OptionsAnswer` and :func:`allowed_methods`.
+Pages take the same care through :func:`page_inputs`, a dependency of every page route: a number in
+the path or the query beyond the database's integers is not found (404) or not valid (422), and a
+form field with a control character is not valid (422, naming the field), before any page code runs.
+
+Provides :class:`BodyLimit`, :class:`OptionsAnswer`, :func:`allowed_methods` and :func:`page_inputs`.
 """
 
 from __future__ import annotations
 
 import json
+import re
 from typing import Any
 
 import fastapi.routing
+from fastapi import HTTPException, Request
 from starlette.routing import Mount, Router
 from starlette.types import ASGIApp, Message, Receive, Scope, Send
 
-__all__ = ["BodyLimit", "OptionsAnswer", "allowed_methods", "too_large_body"]
+from server.analysis.bounds import text_problem
+from server.schemas.fields import ID_MAX
+
+__all__ = ["BodyLimit", "OptionsAnswer", "allowed_methods", "too_large_body", "page_inputs"]
+
+_INTEGER = re.compile(r"^[-+]?\d+$")
+_FORM_TYPES = ("application/x-www-form-urlencoded", "multipart/form-data")
 
 
 def too_large_body(limit: int) -> dict[str, Any]:
@@ -116,3 +128,25 @@ class OptionsAnswer:
         await send({"type": "http.response.start", "status": 204,
                     "headers": [(b"allow", ", ".join(methods).encode())]})
         await send({"type": "http.response.body", "body": b""})
+
+
+def _beyond_ids(value: str) -> bool:
+    return bool(_INTEGER.match(value.strip())) and abs(int(value)) > ID_MAX
+
+
+async def page_inputs(request: Request) -> None:
+    """Refuse what no page can use: ids beyond the database's integers in the path (404) or the query
+    (422), and control characters in a form field (422, naming the field)."""
+    if any(_beyond_ids(str(v)) for v in request.path_params.values()):
+        raise HTTPException(404, "not found: no such id")
+    for name, value in request.query_params.multi_items():
+        if _beyond_ids(value):
+            raise HTTPException(422, f"{name}: the number is beyond any id or count railsign keeps")
+        if (problem := text_problem(value, one_line=False)) is not None:
+            raise HTTPException(422, f"{name}: {problem}")
+    content_type = request.headers.get("content-type", "").split(";")[0].strip().lower()
+    if request.method in ("POST", "PUT", "PATCH") and content_type in _FORM_TYPES:
+        form = await request.form()
+        for name, value in form.multi_items():
+            if isinstance(value, str) and (problem := text_problem(value, one_line=False)) is not None:
+                raise HTTPException(422, f"{name}: {problem}")

@@ -16,6 +16,7 @@ cases, operations, server errors and schema violations are printed, and both mus
 from __future__ import annotations
 
 import socket
+import sys
 import threading
 import time
 from collections import Counter
@@ -140,6 +141,8 @@ def _exercise(operation, mode: GenerationMode, client: httpx.Client, app, role: 
               suppress_health_check=list(HealthCheck))
     def run(case) -> None:
         tally.cases += 1
+        if tally.cases % 1000 == 0:  # a long pass says how far it is
+            print(f"{tally.cases} cases ({operation.label})", file=sys.stderr, flush=True)
         tally.operations.add(operation.label)
         try:
             response = _send(client, case, _headers(app, role))

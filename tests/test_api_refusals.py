@@ -8,6 +8,7 @@ import pytest
 
 from server.schemas.fields import ID_MAX, MESSAGE_MAX
 from tests.factories import rail_doc
+from tests.pages.helpers import log_in
 
 HUGE = [2**31, 2**63, 2**64 + 1, 10**30]
 
@@ -146,3 +147,19 @@ def test_options_names_every_method_of_the_path(client, people):
     assert client.options("/api/v1/nowhere").status_code == 404
     wrong = client.post("/api/v1/rails/7", json={}, headers=people.headers("designer"))
     assert wrong.status_code == 405 and wrong.headers["allow"] == "DELETE, GET, OPTIONS, PUT"
+
+
+def test_pages_refuse_ids_beyond_the_database_and_control_characters_in_forms(client, app, people, session_factory):
+    csrf = log_in(client, app, people.ids["designer"])
+    for big in HUGE:
+        assert client.get(f"/rails/{big}").status_code == 404
+        assert client.get(f"/boards/{big}").status_code == 404
+        assert client.get(f"/rails/1/history?from={big}").status_code == 422
+    before = _totals(client, people)
+    r = client.post("/products/new", data={"csrf_token": csrf, "name": "Kelp\x00farm", "description": "",
+                                           "team": str(people.team_ids["alpha"])}, follow_redirects=False)
+    assert r.status_code == 422 and "name: must not contain control characters" in r.text
+    assert _totals(client, people) == before
+    made = client.post("/products/new", data={"csrf_token": csrf, "name": "Kelp farm", "description": "two\nlines",
+                                              "team": str(people.team_ids["alpha"])}, follow_redirects=False)
+    assert made.status_code == 303

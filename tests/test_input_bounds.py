@@ -4,7 +4,9 @@ computable values accepted with a warning. Nothing refused is stored."""
 
 from __future__ import annotations
 
+import html
 import json
+import re
 
 import pytest
 
@@ -15,6 +17,7 @@ from server.rail_table import read_csv
 from server.schemas.rail import normalize
 from server.schemas.validation import DocumentInvalid, parse_rail_document
 from tests.factories import rail_doc
+from tests.pages.helpers import log_in
 
 
 def _many_points(n: int) -> list[list[float]]:
@@ -141,3 +144,16 @@ def test_the_table_import_refuses_the_same():
     fields = {e.field: e.message for e in exc.value.errors}
     assert "at most 1e+30" in fields["load.c_nom"]
     assert "control characters" in fields["fet.name"]
+
+
+def test_the_rail_form_shows_the_warning_beside_its_field(client, app, people, board):
+    log_in(client, app, people.ids["designer"])
+    r = client.post("/api/v1/rails", json={"board_id": board["id"], "document": rail_doc(load={"c_nom": 1e30})},
+                    headers=people.headers("designer"))
+    assert r.status_code == 201
+    page = client.get(f"/rails/{r.json()['id']}/edit")
+    assert page.status_code == 200
+    warning = re.search(r'<span class="field-warning" id="([^"]+)-warning">([^<]+)</span>', page.text)
+    assert warning is not None and "c_nom" in warning.group(1).replace("-", "_")
+    assert "1e30 F is outside the usual range" in html.unescape(warning.group(2))
+    assert page.text.count('class="field-warning"') == 1
