@@ -13,6 +13,7 @@ import pytest
 from server.__main__ import EXIT_BAD_INPUT, main
 from server.analysis.bounds import (MAX_FOSTER_STAGES, MAX_SOA_CURVES, MAX_SOA_POINTS, NUMBER_LARGEST,
                                     plausibility_warnings)
+from server.bundle import read_rail_file
 from server.rail_table import read_csv
 from server.schemas.rail import normalize
 from server.schemas.validation import DocumentInvalid, parse_rail_document
@@ -157,3 +158,12 @@ def test_the_rail_form_shows_the_warning_beside_its_field(client, app, people, b
     assert warning is not None and "c_nom" in warning.group(1).replace("-", "_")
     assert "1e30 F is outside the usual range" in html.unescape(warning.group(2))
     assert page.text.count('class="field-warning"') == 1
+
+
+def test_a_bundle_with_a_control_character_in_a_board_name_is_refused_before_anything_is_planned():
+    bundle = {"schema": "railsign.bundle/2", "product": {"name": "P"},
+              "boards": [{"name": "Main\x00", "rails": [{"document": rail_doc()}]}]}
+    with pytest.raises(DocumentInvalid) as exc:
+        read_rail_file(bundle)
+    assert any("control characters" in e.message and "boards[0].name" in e.field for e in exc.value.errors), \
+        exc.value.errors
