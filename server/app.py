@@ -31,6 +31,7 @@ from server.auth import SessionCookie
 from server.config import WEB_DIR, Settings, get_settings
 from server.csrf import csrf_guard, masked
 from server.db import UNREACHABLE_ERRORS, OutageLog, is_busy, make_engine, make_sessionmaker, ping
+from server.limits import BodyLimit, OptionsAnswer, allowed_methods
 from server.pages import page_router
 from server.pages.common import login_url
 from server.services import jobs
@@ -174,7 +175,8 @@ def _install_error_handlers(app: FastAPI) -> None:
 
     @app.exception_handler(RequestValidationError)
     async def _validation_error(request: Request, exc: RequestValidationError) -> JSONResponse:
-        details = [{"field": _field_path(tuple(e["loc"])), "message": e["msg"]} for e in exc.errors()]
+        details = [{"field": _field_path(tuple(e["loc"])), "message": e["msg"].removeprefix("Value error, ")}
+                   for e in exc.errors()]
         message = "; ".join(f"{d['field']}: {d['message']}" for d in details[:5])
         return JSONResponse(error_body(422, "invalid", f"the request is not valid: {message}", details),
                             status_code=422)
@@ -183,10 +185,13 @@ def _install_error_handlers(app: FastAPI) -> None:
     async def _http_error(request: Request, exc: StarletteHTTPException) -> Response:
         code = {404: "not_found", 405: "method_not_allowed"}.get(exc.status_code, "http_error")
         message = exc.detail if isinstance(exc.detail, str) else str(exc.detail)
+        headers = getattr(exc, "headers", None)
+        if exc.status_code == 405:  # every method the path serves, not only the first route's
+            headers = {**(headers or {}), "Allow": ", ".join(allowed_methods(request.app.router, request.scope))}
         if is_page_request(request):
             return _error_page(request, exc.status_code, message)
         return JSONResponse(error_body(exc.status_code, code, message), status_code=exc.status_code,
-                            headers=getattr(exc, "headers", None))
+                            headers=headers)
 
     async def _unavailable(request: Request, exc: Exception) -> Response:
         busy = is_busy(exc)
@@ -285,6 +290,8 @@ def create_app(settings: Settings | None = None) -> FastAPI:
     app.add_middleware(GZipMiddleware, minimum_size=1000, compresslevel=6)
     app.add_middleware(HeadAsGet)
     _install_error_handlers(app)
+    app.add_middleware(BodyLimit, limit=settings.max_request_bytes)
+    app.add_middleware(OptionsAnswer, router=app.router)
     app.include_router(api_router)
     app.include_router(page_router)
 

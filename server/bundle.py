@@ -30,6 +30,7 @@ from typing import Any, Literal
 
 from pydantic import BaseModel, ConfigDict, Field
 
+from server.schemas.fields import COMMENT_MAX, ID_MAX, line, prose
 from server.schemas.validation import DocumentInvalid, FieldError, parse_model
 
 __all__ = ["BUNDLE_SCHEMA", "BUNDLE_SCHEMA_V1", "BoardInfo", "PartLink", "ExportedFrom", "RailEntry", "RailFile",
@@ -46,14 +47,14 @@ class _Strict(BaseModel):
 class PartLink(_Strict):
     """A library part by name and revision number: how a rail names its part across installations."""
 
-    name: str = Field(min_length=1, max_length=200)
-    revision: int = Field(ge=1)
+    name: line(200, min_length=1)
+    revision: int = Field(ge=1, le=ID_MAX)
 
 
 class ExportedFrom(_Strict):
     """The rail revision a document was exported from: its number there and its sha256."""
 
-    revision: int = Field(ge=1)
+    revision: int = Field(ge=1, le=ID_MAX)
     sha256: str = Field(pattern=r"^[0-9a-f]{64}$")
 
 
@@ -65,16 +66,16 @@ class _EntryModel(_Strict):
 
 class _BoardModel(BaseModel):
     model_config = ConfigDict(extra="forbid")
-    name: str = Field(min_length=1, max_length=200)
-    revision: str = Field("A", min_length=1, max_length=20)
-    description: str = ""
+    name: line(200, min_length=1)
+    revision: line(20, min_length=1) = "A"
+    description: prose(COMMENT_MAX) = ""
     rails: list[Any] = Field(default_factory=list)
 
 
 class _ProductModel(BaseModel):
     model_config = ConfigDict(extra="forbid")
-    name: str = Field(min_length=1, max_length=200)
-    description: str = ""
+    name: line(200, min_length=1)
+    description: prose(COMMENT_MAX) = ""
 
 
 class _BundleModel(BaseModel):

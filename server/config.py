@@ -53,6 +53,7 @@ class Settings(BaseSettings):
         1.0, gt=0, description="seconds a request waits for each turn it needs (a request slot, a database "
         "connection, on SQLite the write lock) before it is answered 503 with Retry-After"
     )
+    max_request_bytes: int = Field(2_000_000, ge=1024, description="largest request body accepted (413 above it)")
     log_level: str = Field("INFO", description="logging level: DEBUG, INFO, WARNING, ERROR")
     sql_echo: bool = Field(False, description="log every SQL statement (debugging)")
 

@@ -21,6 +21,7 @@ from functools import lru_cache
 
 from quantiphy import InvalidNumber, Quantity
 
+from server.analysis.bounds import magnitude_problem
 from server.analysis.units import quantity
 
 __all__ = ["UnitError", "Kind", "KINDS", "parse_quantity", "format_quantity"]
@@ -73,6 +74,9 @@ _TIME_SCALE = {"s": 1.0, "ms": 1e-3, "us": 1e-6, "µs": 1e-6, "μs": 1e-6, "ns":
 
 
 def _number(text: str) -> tuple[float, str]:
+    if "," in text:
+        raise UnitError(f"'{text}' has a comma: write the decimal point as '.' (1.5, not 1,5) and no thousands "
+                        "separator")
     try:
         q = Quantity(text)
     except InvalidNumber:
@@ -97,6 +101,8 @@ def parse_quantity(value: object, kind: str) -> float:
     if isinstance(value, bool) or value is None:
         raise UnitError(f"expected a {k.word}, got {value!r}")
     if isinstance(value, (int, float)):
+        if isinstance(value, int) and (problem := magnitude_problem(value)) is not None:
+            raise UnitError(f"{problem} (a {k.word} in {k.symbol or 'SI units'})")
         number = float(value)
     elif isinstance(value, str):
         number = _parse_text(value.strip(), kind, k)
@@ -135,8 +141,16 @@ def _parse_text(text: str, kind: str, k: Kind) -> float:
         return number / 100.0
     if units and units not in k.spellings:
         expected = k.symbol or "no unit"
-        raise UnitError(f"unknown or wrong unit '{units}' for a {k.word} (expected {expected})")
+        raise UnitError(f"unknown or wrong unit '{_written_unit(text)}' in '{text}' for a {k.word} "
+                        f"(expected {expected}, with an optional prefix like m, u or k)")
     return number
+
+
+def _written_unit(text: str) -> str:
+    """The unit as written after the number ("5 furlongs" -> "furlongs"), prefix included: quantiphy takes
+    a leading letter for a scale factor ("f" of "furlongs"), which is no help in a message."""
+    m = re.match(r"^[-+]?(\d+\.?\d*|\.\d+)([eE][-+]?\d+)?\s*(?P<unit>.*)$", text)
+    return m["unit"] if m and m["unit"] else text
 
 
 @lru_cache(maxsize=65536)

@@ -31,6 +31,8 @@ from collections.abc import Mapping
 from dataclasses import dataclass, field
 from typing import Any
 
+from server.analysis.bounds import text_problem
+
 __all__ = ["ROLES", "TRANSITION_ROLES", "DEFAULT_WORKFLOW", "WorkflowInvalid", "State", "Demands", "Transition",
            "WorkflowDef", "parse_workflow", "ApprovalFact", "CheckFact", "RailFacts", "Blocker", "blockers",
            "current_approvers", "outstanding_stale", "unresolved_checks", "SEVERITY", "worse", "waiver_covers"]
@@ -187,6 +189,9 @@ def _name(value: Any, path: str, errors: _Errors) -> str | None:
     if len(name) > NAME_MAX:
         errors.add(path, f"is longer than {NAME_MAX} characters")
         return None
+    if (problem := text_problem(name)) is not None:
+        errors.add(path, problem)
+        return None
     return name
 
 
@@ -225,6 +230,9 @@ def _parse_states(raw: Any, errors: _Errors) -> list[State]:
         description = item.get("description") or ""
         if not isinstance(description, str):
             errors.add(f"{path}.description", "must be text")
+            description = ""
+        elif (problem := text_problem(description, one_line=False)) is not None:
+            errors.add(f"{path}.description", problem)
             description = ""
         if name is None:
             continue

@@ -339,9 +339,16 @@ def test_a_key_a_service_renames_fails_the_answer(client, people, monkeypatch):
         client.get(f"/api/v1/products/{product['id']}", headers=people.headers("viewer"))
 
 
-def test_a_user_created_with_a_team_named_twice_joins_it_once(client, people):
-    """Found by the schemathesis run: the duplicate membership row answered 500."""
+def test_a_user_created_with_a_team_named_twice_is_refused_and_nothing_is_stored(client, people):
+    """Found by the schemathesis run: the duplicate membership row answered 500; a list names each item once."""
+    admin = people.headers("admin")
+    teams_before = client.get("/api/v1/teams", headers=admin).json()["total"]
     r = client.post("/api/v1/users", json={"username": "twice", "role": "viewer", "teams": ["alpha", "delta", "alpha"]},
-                    headers=people.headers("admin"))
-    assert r.status_code == 201, r.text
-    assert r.json()["teams"] == ["alpha", "delta"]
+                    headers=admin)
+    assert r.status_code == 422, r.text
+    assert r.json()["error"]["details"] == [{"field": "teams", "message": "names 'alpha' twice: give each once"}]
+    assert "twice" not in [u["username"] for u in client.get("/api/v1/users", headers=admin).json()["items"]]
+    assert client.get("/api/v1/teams", headers=admin).json()["total"] == teams_before
+    once = client.post("/api/v1/users", json={"username": "once", "role": "viewer", "teams": ["alpha", "delta"]},
+                       headers=admin)
+    assert once.status_code == 201 and once.json()["teams"] == ["alpha", "delta"]

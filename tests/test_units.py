@@ -42,8 +42,15 @@ def test_parse(text, kind, value):
 
 
 @pytest.mark.parametrize("text,kind,words", [
-    ("680 uH", "F", "wrong unit 'H'"),
+    ("680 uH", "F", "wrong unit 'uH'"),
     ("3 Furlongs", "F", "wrong unit"),
+    ("5 furlongs", "F", "wrong unit 'furlongs' in '5 furlongs'"),  # not femto-"urlongs"
+    ("5 furlongs", "s", "wrong unit 'furlongs'"),
+    ("1,5", "F", "comma: write the decimal point as '.'"),  # not 15
+    ("1,5 uF", "F", "comma"),
+    ("2,200 uF", "F", "comma"),
+    (10**400, "F", r"too large: its magnitude must be at most 1e\+30"),
+    (-10**400, "V", "too large"),
     ("abc", "V", "not a number"),
     ("", "V", "empty"),
     ("nan", "F", "finite"),

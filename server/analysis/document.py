@@ -46,6 +46,8 @@ from typing import Any
 
 import numpy as np
 
+from .bounds import (MAX_FOSTER_STAGES, MAX_SOA_CURVES, MAX_SOA_POINTS, NAME_MAX_LENGTH, NUMBER_LARGEST,
+                     magnitude_problem, text_problem)
 from .errors import DocumentError
 from .units import KIND_SYMBOLS, quantity
 from .words import FIELD_TITLES, generic_path
@@ -77,7 +79,6 @@ __all__ = [
 ]
 
 SCHEMA = "railsign.rail/1"
-NAME_MAX_LENGTH = 200  # characters of a rail or MOSFET name
 ABSOLUTE_ZERO = -273.15  # degC
 
 LOAD_MODELS = ("none", "resistive", "constant_current", "constant_power")
@@ -384,10 +385,10 @@ class _Reader:
         if not _is_number(value):
             self.fail(field, "must be a number in SI units")
             return None
-        value = float(value)
-        if not math.isfinite(value):
-            self.fail(field, "must be a finite number (no NaN or infinity)")
+        if (problem := magnitude_problem(value, generic)) is not None:  # bounds.py: where computation breaks
+            self.fail(field, problem)
             return None
+        value = float(value)
         bound = BOUNDS.get(generic)
         problem = bound.problem(value, _kind(generic)) if bound is not None else None
         if problem is not None:
@@ -419,6 +420,8 @@ class _Reader:
             self.fail(field, "must not be empty")
         elif len(value) > NAME_MAX_LENGTH:
             self.fail(field, f"must be at most {NAME_MAX_LENGTH} characters long")
+        elif (problem := text_problem(value)) is not None:
+            self.fail(field, problem)
         else:
             return value
         return None
@@ -508,13 +511,17 @@ def _read_points(r: _Reader, points: Any, where: str) -> tuple[tuple[float, floa
     if not isinstance(points, list) or len(points) < 2:
         r.fail(field, "needs at least two [V_DS, I_D] points")
         return None
+    if len(points) > MAX_SOA_POINTS:
+        r.fail(field, f"has {len(points)} points; at most {MAX_SOA_POINTS} are read")
+        return None
     well_formed = True
     for j, p in enumerate(points):
         if not isinstance(p, (list, tuple)) or len(p) != 2:
             r.fail(f"{field}[{j}]", "must be a [V_DS, I_D] pair")
             well_formed = False
-        elif not all(_is_number(q) and math.isfinite(q) for q in p):
-            r.fail(f"{field}[{j}]", "must hold two finite numbers: V_DS in V and I_D in A")
+        elif not all(_is_number(q) and magnitude_problem(q) is None for q in p):
+            r.fail(f"{field}[{j}]",
+                   f"must hold two finite numbers of at most {NUMBER_LARGEST:g}: V_DS in V and I_D in A")
             well_formed = False
     if not well_formed:
         return None
@@ -542,6 +549,9 @@ def _read_curves(r: _Reader, soa: dict) -> tuple[SoaCurve, ...] | None:
         return None
     if not isinstance(curves, list):
         r.fail(w, "must be a list of curves, one per pulse width")
+        return None
+    if len(curves) > MAX_SOA_CURVES:
+        r.fail(w, f"has {len(curves)} curves; at most {MAX_SOA_CURVES} are read")
         return None
     if len(curves) < 2:
         r.fail(w, f"needs at least two pulse widths (got {len(curves)}), so that the allowed time can be "
@@ -602,6 +612,9 @@ def _read_zth(r: _Reader, sec: dict) -> tuple[tuple[float, float], ...] | None:
     if not isinstance(zth, list) or not zth:
         r.fail(w, "is required: a list of Foster stages {r, tau}" if zth is None else
                "must be a non-empty list of Foster stages {r, tau}")
+        return None
+    if len(zth) > MAX_FOSTER_STAGES:
+        r.fail(w, f"has {len(zth)} Foster stages; at most {MAX_FOSTER_STAGES} are read")
         return None
     stages = []
     for k, s in enumerate(zth):

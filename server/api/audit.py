@@ -9,7 +9,7 @@ from typing import Annotated
 
 from fastapi import APIRouter, Depends, Response
 
-from server.api.common import PageDep, TypedRoute, errors
+from server.api.common import IdPath, PageDep, SearchText, TypedRoute, errors
 from server.auth import CurrentActor, require
 from server.db import SessionDep
 from server.schemas.responses import AuditEntry, Page
@@ -28,8 +28,8 @@ class CsvResponse(Response):
 
 
 @router.get("/audit", response_model=Page[AuditEntry], responses=errors(401, 403, 422))
-def list_entries(session: SessionDep, actor: Admin, page: PageDep, action: str | None = None,
-                 object_type: str | None = None, user: str | None = None) -> dict:
+def list_entries(session: SessionDep, actor: Admin, page: PageDep, action: SearchText = None,
+                 object_type: SearchText = None, user: SearchText = None) -> dict:
     """The whole trail, oldest first, with logins and account changes (admins)."""
     rows, total = audit.list_entries(session=session, actor=actor, action=action, object_type=object_type,
                                      user=user, limit=page.limit, offset=page.offset)
@@ -37,7 +37,7 @@ def list_entries(session: SessionDep, actor: Admin, page: PageDep, action: str |
 
 
 @router.get("/products/{product_id}/audit", response_model=Page[AuditEntry], responses=errors(401, 403, 404, 422))
-def product_entries(product_id: int, session: SessionDep, actor: RiskReader, page: PageDep) -> dict:
+def product_entries(product_id: IdPath, session: SessionDep, actor: RiskReader, page: PageDep) -> dict:
     rows, total = audit.product_entries(session=session, actor=actor, product_id=product_id, limit=page.limit,
                                         offset=page.offset)
     return page.answer([audit.entry_dict(e) for e in rows], total)
@@ -45,7 +45,7 @@ def product_entries(product_id: int, session: SessionDep, actor: RiskReader, pag
 
 @router.get("/products/{product_id}/audit.csv", response_class=CsvResponse,
             responses=CSV_BODY | errors(401, 403, 404, 422, json_success=False))
-def product_csv(product_id: int, session: SessionDep, actor: RiskReader) -> CsvResponse:
+def product_csv(product_id: IdPath, session: SessionDep, actor: RiskReader) -> CsvResponse:
     """The product's whole trail as CSV (before and after as JSON text)."""
     filename, text = audit.product_csv(session=session, actor=actor, product_id=product_id)
     return CsvResponse(text, media_type="text/csv; charset=utf-8",
@@ -53,7 +53,7 @@ def product_csv(product_id: int, session: SessionDep, actor: RiskReader) -> CsvR
 
 
 @router.get("/rails/{rail_id}/audit", response_model=Page[AuditEntry], responses=errors(401, 404, 422))
-def rail_entries(rail_id: int, session: SessionDep, actor: CurrentActor, page: PageDep) -> dict:
+def rail_entries(rail_id: IdPath, session: SessionDep, actor: CurrentActor, page: PageDep) -> dict:
     """One rail's history: edits, approvals, waivers, transitions."""
     rows, total = audit.rail_entries(session=session, actor=actor, rail_id=rail_id, limit=page.limit,
                                      offset=page.offset)

@@ -7,7 +7,7 @@ from typing import Annotated, Literal
 from fastapi import APIRouter, Depends, Response
 
 from server.services import jobs
-from server.api.common import PageDep, TypedRoute, errors
+from server.api.common import IdPath, IdQuery, PageDep, TypedRoute, errors
 from server.auth import CurrentActor, require
 from server.db import SessionDep
 from server.models import JobState
@@ -36,7 +36,8 @@ def _job_answer(job, response: Response) -> dict:
 
 @router.post("/rails/{rail_id}/analyses", status_code=202, response_model=Job,
              responses=ANSWERED_AT_ONCE | errors(400, 401, 403, 404, 422))
-def analyse_rail(rail_id: int, body: AnalysisRequest, session: SessionDep, actor: Analyst, response: Response) -> dict:
+def analyse_rail(rail_id: IdPath, body: AnalysisRequest, session: SessionDep, actor: Analyst,
+                 response: Response) -> dict:
     """Queue an analysis (202); a stored result for the same revision and options answers at once (200)."""
     options = body.model_dump(include={"corners", "monte_carlo", "seed", "distribution"})
     job = jobs.enqueue_rail(session=session, actor=actor, rail_id=rail_id, options=options,
@@ -46,7 +47,7 @@ def analyse_rail(rail_id: int, body: AnalysisRequest, session: SessionDep, actor
 
 @router.post("/boards/{board_id}/analyses", status_code=202, response_model=Job,
              responses=ANSWERED_AT_ONCE | errors(400, 401, 403, 404, 422))
-def analyse_board(board_id: int, body: BoardAnalysisRequest, session: SessionDep, actor: Analyst,
+def analyse_board(board_id: IdPath, body: BoardAnalysisRequest, session: SessionDep, actor: Analyst,
                   response: Response) -> dict:
     """Queue the analysis of every rail of a board as one board job with a child job per rail."""
     job = jobs.enqueue_board(session=session, actor=actor, board_id=board_id, options={"corners": body.corners},
@@ -56,26 +57,26 @@ def analyse_board(board_id: int, body: BoardAnalysisRequest, session: SessionDep
 
 @router.get("/jobs", response_model=Page[Job], responses=errors(401, 422))
 def list_jobs(session: SessionDep, actor: CurrentActor, page: PageDep, state: State | None = None,
-              rail_id: int | None = None, board_id: int | None = None) -> dict:
+              rail_id: IdQuery = None, board_id: IdQuery = None) -> dict:
     rows, total = jobs.list_jobs(session=session, actor=actor, state=state, rail_id=rail_id, board_id=board_id,
                                  limit=page.limit, offset=page.offset)
     return page.answer([jobs.job_dict(j) for j in rows], total)
 
 
 @router.get("/jobs/{job_id}", response_model=Job, responses=errors(401, 404, 422))
-def get_job(job_id: int, session: SessionDep, actor: CurrentActor) -> dict:
+def get_job(job_id: IdPath, session: SessionDep, actor: CurrentActor) -> dict:
     return jobs.job_dict(jobs.get_job(session=session, actor=actor, job_id=job_id))
 
 
 @router.delete("/jobs/{job_id}", response_model=Job, responses=errors(401, 403, 404, 409, 422))
-def cancel_job(job_id: int, session: SessionDep, actor: Analyst) -> dict:
+def cancel_job(job_id: IdPath, session: SessionDep, actor: Analyst) -> dict:
     """Cancel a queued or running job (a board job cancels its unfinished rail jobs)."""
     return jobs.job_dict(jobs.cancel_job(session=session, actor=actor, job_id=job_id))
 
 
 @router.post("/jobs/{job_id}/retry", status_code=202, response_model=Job,
              responses=errors(401, 403, 404, 409, 422))
-def retry_job(job_id: int, session: SessionDep, actor: Analyst) -> dict:
+def retry_job(job_id: IdPath, session: SessionDep, actor: Analyst) -> dict:
     return jobs.job_dict(jobs.retry_job(session=session, actor=actor, job_id=job_id))
 
 
@@ -93,7 +94,7 @@ def _revision_results(session, actor, rail_id: int, n: int | None, kind: str) ->
 
 @router.get("/rails/{rail_id}/results/latest", response_model=StoredResult,
             responses=errors(401, 422) | NO_RESULT_YET)
-def latest_results(rail_id: int, session: SessionDep, actor: CurrentActor,
+def latest_results(rail_id: IdPath, session: SessionDep, actor: CurrentActor,
                    kind: Literal["nominal", "monte_carlo"] = "nominal") -> dict:
     """The newest result of the rail's current revision (nominal+corners, or the newest Monte Carlo run)."""
     return _revision_results(session, actor, rail_id, None, kind)
@@ -101,12 +102,12 @@ def latest_results(rail_id: int, session: SessionDep, actor: CurrentActor,
 
 @router.get("/rails/{rail_id}/revisions/{n}/results", response_model=StoredResult,
             responses=errors(401, 422) | NO_RESULT_YET)
-def revision_results(rail_id: int, n: int, session: SessionDep, actor: CurrentActor,
+def revision_results(rail_id: IdPath, n: IdPath, session: SessionDep, actor: CurrentActor,
                      kind: Literal["nominal", "monte_carlo"] = "nominal") -> dict:
     return _revision_results(session, actor, rail_id, n, kind)
 
 
 @router.get("/results/{result_id}", response_model=StoredResult, responses=errors(401, 404, 422))
-def get_result(result_id: int, session: SessionDep, actor: CurrentActor) -> dict:
+def get_result(result_id: IdPath, session: SessionDep, actor: CurrentActor) -> dict:
     """A stored result by id (the link a finished job gives)."""
     return results.get_result(session=session, actor=actor, result_id=result_id)

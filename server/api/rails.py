@@ -6,7 +6,7 @@ from typing import Annotated, Literal
 
 from fastapi import APIRouter, Depends, Header, Query, Response
 
-from server.api.common import PageDep, TypedRoute, errors
+from server.api.common import ID_MAX, IdPath, IdQuery, PageDep, SearchText, TypedRoute, errors
 from server.auth import CurrentActor, require
 from server.db import SessionDep
 from server.schemas.api import RailCreate, RailSave
@@ -24,9 +24,9 @@ def _etag(sha256: str) -> str:
 
 
 @router.get("", response_model=Page[RailListItem], responses=errors(401, 422))
-def list_rails(session: SessionDep, actor: CurrentActor, page: PageDep, product_id: int | None = None,
-               board_id: int | None = None, mode: Mode | None = None,
-               q: Annotated[str | None, Query(description="text in the rail name")] = None) -> dict:
+def list_rails(session: SessionDep, actor: CurrentActor, page: PageDep, product_id: IdQuery = None,
+               board_id: IdQuery = None, mode: Mode | None = None,
+               q: SearchText = None) -> dict:
     rows, total = rails.list_rails(session=session, actor=actor, product_id=product_id, board_id=board_id,
                                    mode=mode, q=q, limit=page.limit, offset=page.offset, with_documents=False)
     return page.answer(rails.rail_dicts(session, rows), total)
@@ -43,7 +43,7 @@ def create_rail(body: RailCreate, session: SessionDep, actor: Editor, response: 
 
 
 @router.get("/{rail_id}", response_model=Rail, responses=errors(401, 404, 422))
-def get_rail(rail_id: int, session: SessionDep, actor: CurrentActor, response: Response) -> dict:
+def get_rail(rail_id: IdPath, session: SessionDep, actor: CurrentActor, response: Response) -> dict:
     rail = rails.get_rail(session=session, actor=actor, rail_id=rail_id)
     head = rails.get_revision(session=session, actor=actor, rail_id=rail_id)
     response.headers["ETag"] = _etag(head.sha256)
@@ -51,7 +51,7 @@ def get_rail(rail_id: int, session: SessionDep, actor: CurrentActor, response: R
 
 
 @router.put("/{rail_id}", response_model=RailSaved, responses=errors(400, 401, 403, 404, 409, 422, 428))
-def save_rail(rail_id: int, body: RailSave, session: SessionDep, actor: Editor, response: Response,
+def save_rail(rail_id: IdPath, body: RailSave, session: SessionDep, actor: Editor, response: Response,
               if_match: Annotated[str | None, Header(description="sha256 of the base revision")] = None) -> dict:
     if "part" not in body.model_fields_set:
         part = rail_edits.KEEP_PART
@@ -68,24 +68,25 @@ def save_rail(rail_id: int, body: RailSave, session: SessionDep, actor: Editor, 
 
 
 @router.delete("/{rail_id}", status_code=204, response_class=Response, responses=errors(401, 403, 404, 422))
-def delete_rail(rail_id: int, session: SessionDep, actor: Editor) -> Response:
+def delete_rail(rail_id: IdPath, session: SessionDep, actor: Editor) -> Response:
     rail_edits.delete_rail(session=session, actor=actor, rail_id=rail_id)
     return Response(status_code=204)
 
 
 @router.get("/{rail_id}/revisions", response_model=Page[RevisionSummary], responses=errors(401, 404, 422))
-def list_revisions(rail_id: int, session: SessionDep, actor: CurrentActor, page: PageDep) -> dict:
+def list_revisions(rail_id: IdPath, session: SessionDep, actor: CurrentActor, page: PageDep) -> dict:
     rows, total = rails.list_revisions(session=session, actor=actor, rail_id=rail_id, limit=page.limit,
                                        offset=page.offset)
     return page.answer([rails.revision_dict(r, with_document=False) for r in rows], total)
 
 
 @router.get("/{rail_id}/revisions/{n}", response_model=Revision, responses=errors(401, 404, 422))
-def get_revision(rail_id: int, n: int, session: SessionDep, actor: CurrentActor) -> dict:
+def get_revision(rail_id: IdPath, n: IdPath, session: SessionDep, actor: CurrentActor) -> dict:
     return rails.revision_dict(rails.get_revision(session=session, actor=actor, rail_id=rail_id, n=n))
 
 
 @router.get("/{rail_id}/diff", response_model=RevisionDiff, responses=errors(401, 404, 422))
-def diff(rail_id: int, session: SessionDep, actor: CurrentActor,
-         from_n: Annotated[int, Query(alias="from", ge=1)], to_n: Annotated[int, Query(alias="to", ge=1)]) -> dict:
+def diff(rail_id: IdPath, session: SessionDep, actor: CurrentActor,
+         from_n: Annotated[int, Query(alias="from", ge=1, le=ID_MAX)],
+         to_n: Annotated[int, Query(alias="to", ge=1, le=ID_MAX)]) -> dict:
     return rails.diff_revisions(session=session, actor=actor, rail_id=rail_id, from_n=from_n, to_n=to_n)

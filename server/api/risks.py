@@ -6,7 +6,7 @@ from typing import Annotated
 
 from fastapi import APIRouter, Depends
 
-from server.api.common import TypedRoute, errors
+from server.api.common import IdPath, TypedRoute, errors
 from server.auth import require
 from server.db import SessionDep
 from server.schemas.responses import ProductRisks
@@ -18,6 +18,6 @@ RiskReader = Annotated[Actor, Depends(require(Permission.RISK))]
 
 
 @router.get("/products/{product_id}/risks", response_model=ProductRisks, responses=errors(401, 403, 404, 422))
-def product_risks(product_id: int, session: SessionDep, actor: RiskReader) -> dict:
+def product_risks(product_id: IdPath, session: SessionDep, actor: RiskReader) -> dict:
     """Per board: failing and marginal checks, waivers, stale or missing sign-offs, rails not analysed."""
     return risks.product_risks(session=session, actor=actor, product_id=product_id)

@@ -6,7 +6,7 @@ from typing import Annotated
 
 from fastapi import APIRouter, Depends
 
-from server.api.common import TypedRoute, errors
+from server.api.common import IdPath, TypedRoute, errors
 from server.auth import CurrentActor, require
 from server.db import SessionDep
 from server.schemas.responses import Approval, Listing, SignoffStatus, TransitionTaken, Waiver
@@ -20,13 +20,13 @@ Mover = Annotated[Actor, Depends(require(Permission.ADVANCE))]
 
 
 @router.get("/{rail_id}/signoff", response_model=SignoffStatus, responses=errors(401, 404, 422))
-def signoff_status(rail_id: int, session: SessionDep, actor: CurrentActor) -> dict:
+def signoff_status(rail_id: IdPath, session: SessionDep, actor: CurrentActor) -> dict:
     """State, approvals (current and stale), waivers, checks and the transitions on offer with what blocks them."""
     return signoff.signoff_status(session=session, actor=actor, rail_id=rail_id)
 
 
 @router.get("/{rail_id}/approvals", response_model=Listing[Approval], responses=errors(401, 404, 422))
-def list_approvals(rail_id: int, session: SessionDep, actor: CurrentActor) -> dict:
+def list_approvals(rail_id: IdPath, session: SessionDep, actor: CurrentActor) -> dict:
     """Every approval of the rail, each with the engine version and result it was given against."""
     rows, head_n, now = signoff.list_approvals(session=session, actor=actor, rail_id=rail_id)
     return {"items": [signoff.approval_dict(a, now, head_n) for a in rows], "total": len(rows)}
@@ -34,7 +34,7 @@ def list_approvals(rail_id: int, session: SessionDep, actor: CurrentActor) -> di
 
 @router.post("/{rail_id}/approvals", status_code=201, response_model=Approval,
              responses=errors(400, 401, 403, 404, 409, 422))
-def approve(rail_id: int, body: ApprovalIn, session: SessionDep, actor: Reviewer) -> dict:
+def approve(rail_id: IdPath, body: ApprovalIn, session: SessionDep, actor: Reviewer) -> dict:
     """Approve the rail's current revision, named by its sha256 (never one you authored)."""
     approval = signoff.approve(session=session, actor=actor, rail_id=rail_id, sha256=body.sha256,
                                comment=body.comment)
@@ -42,14 +42,14 @@ def approve(rail_id: int, body: ApprovalIn, session: SessionDep, actor: Reviewer
 
 
 @router.get("/{rail_id}/waivers", response_model=Listing[Waiver], responses=errors(401, 404, 422))
-def list_waivers(rail_id: int, session: SessionDep, actor: CurrentActor) -> dict:
+def list_waivers(rail_id: IdPath, session: SessionDep, actor: CurrentActor) -> dict:
     rows, head_n, now = signoff.list_waivers(session=session, actor=actor, rail_id=rail_id)
     return {"items": [signoff.waiver_dict(w, head_n, now) for w in rows], "total": len(rows)}
 
 
 @router.post("/{rail_id}/waivers", status_code=201, response_model=Waiver,
              responses=errors(400, 401, 403, 404, 409, 422))
-def waive(rail_id: int, body: WaiverIn, session: SessionDep, actor: Reviewer) -> dict:
+def waive(rail_id: IdPath, body: WaiverIn, session: SessionDep, actor: Reviewer) -> dict:
     """Waive a failing or marginal check of the current revision, with a reason."""
     waiver = signoff.waive(session=session, actor=actor, rail_id=rail_id, sha256=body.sha256,
                            check_id=body.check_id, reason=body.reason)
@@ -58,7 +58,7 @@ def waive(rail_id: int, body: WaiverIn, session: SessionDep, actor: Reviewer) ->
 
 @router.post("/{rail_id}/waivers/{waiver_id}/carry", status_code=201, response_model=Waiver,
              responses=errors(400, 401, 403, 404, 409, 422))
-def carry_waiver(rail_id: int, waiver_id: int, body: WaiverCarry, session: SessionDep, actor: Reviewer) -> dict:
+def carry_waiver(rail_id: IdPath, waiver_id: IdPath, body: WaiverCarry, session: SessionDep, actor: Reviewer) -> dict:
     """Carry a waiver of an earlier revision to the current one (the check must still fail or be marginal)."""
     waiver = signoff.carry_waiver(session=session, actor=actor, rail_id=rail_id, waiver_id=waiver_id,
                                   sha256=body.sha256, reason=body.reason)
@@ -66,7 +66,7 @@ def carry_waiver(rail_id: int, waiver_id: int, body: WaiverCarry, session: Sessi
 
 
 @router.post("/{rail_id}/transitions", response_model=TransitionTaken, responses=errors(400, 401, 403, 404, 409, 422))
-def take_transition(rail_id: int, body: TransitionIn, session: SessionDep, actor: Mover) -> dict:
+def take_transition(rail_id: IdPath, body: TransitionIn, session: SessionDep, actor: Mover) -> dict:
     """Move the rail along a transition of its team's workflow (the transition names who may)."""
     return signoff.take_transition(session=session, actor=actor, rail_id=rail_id, transition=body.transition,
                                    sha256=body.sha256, comment=body.comment)

@@ -6,7 +6,7 @@ from typing import Annotated
 
 from fastapi import APIRouter, Depends, Response
 
-from server.api.common import TypedRoute, errors
+from server.api.common import IdPath, TypedRoute, errors
 from server.auth import CurrentActor, require
 from server.db import SessionDep
 from server.schemas.accounts import MemberIn, TeamIn
@@ -33,29 +33,29 @@ def create_team(body: TeamIn, session: SessionDep, actor: Admin, response: Respo
 
 
 @router.get("/{team_id}", response_model=Team, responses=errors(401, 403, 404, 422))
-def get_team(team_id: int, session: SessionDep, actor: Admin) -> dict:
+def get_team(team_id: IdPath, session: SessionDep, actor: Admin) -> dict:
     return teams.team_dict(session, teams.get_team(session=session, actor=actor, team_id=team_id), members=True)
 
 
 @router.post("/{team_id}/members", response_model=Team, responses=errors(400, 401, 403, 404, 422))
-def add_member(team_id: int, body: MemberIn, session: SessionDep, actor: Admin) -> dict:
+def add_member(team_id: IdPath, body: MemberIn, session: SessionDep, actor: Admin) -> dict:
     team = teams.add_member(session=session, actor=actor, team_id=team_id, user_id=body.user_id)
     return teams.team_dict(session, team, members=True)
 
 
 @router.delete("/{team_id}/members/{user_id}", response_model=Team, responses=errors(401, 403, 404, 422))
-def remove_member(team_id: int, user_id: int, session: SessionDep, actor: Admin) -> dict:
+def remove_member(team_id: IdPath, user_id: IdPath, session: SessionDep, actor: Admin) -> dict:
     team = teams.remove_member(session=session, actor=actor, team_id=team_id, user_id=user_id)
     return teams.team_dict(session, team, members=True)
 
 
 @router.get("/{team_id}/workflow", response_model=Workflow, responses=errors(401, 404, 422))
-def get_workflow(team_id: int, session: SessionDep, actor: CurrentActor) -> dict:
+def get_workflow(team_id: IdPath, session: SessionDep, actor: CurrentActor) -> dict:
     """The team's sign-off workflow (members of the team and admins)."""
     return workflows.get_workflow(session=session, actor=actor, team_id=team_id)
 
 
 @router.put("/{team_id}/workflow", response_model=WorkflowReplaced, responses=errors(400, 401, 403, 404, 422))
-def set_workflow(team_id: int, body: WorkflowIn, session: SessionDep, actor: Admin) -> dict:
+def set_workflow(team_id: IdPath, body: WorkflowIn, session: SessionDep, actor: Admin) -> dict:
     """Replace the team's workflow; rails in states it no longer has go to its initial state."""
     return workflows.set_workflow(session=session, actor=actor, team_id=team_id, definition=body.definition)

@@ -5,7 +5,7 @@ from __future__ import annotations
 from fastapi import APIRouter, Response
 from sqlalchemy.orm import Session
 
-from server.api.common import TypedRoute, errors
+from server.api.common import IdPath, IdQuery, TypedRoute, errors
 from server.auth import CurrentActor
 from server.db import SessionDep
 from server.schemas.accounts import TokenIn
@@ -24,7 +24,7 @@ def _username(session: Session, actor: Actor, user_id: int | None) -> str:
 
 
 @router.get("", response_model=Listing[Token], responses=errors(401, 403, 404, 422))
-def list_tokens(session: SessionDep, actor: CurrentActor, user_id: int | None = None) -> dict:
+def list_tokens(session: SessionDep, actor: CurrentActor, user_id: IdQuery = None) -> dict:
     username = _username(session, actor, user_id)
     rows = users.list_tokens(session=session, actor=actor, username=username)
     return {"items": [users.token_dict(t, username) for t in rows], "total": len(rows)}
@@ -40,5 +40,5 @@ def create_token(body: TokenIn, session: SessionDep, actor: CurrentActor, respon
 
 
 @router.delete("/{token_id}", response_model=Token, responses=errors(401, 403, 404, 422))
-def revoke_token(token_id: int, session: SessionDep, actor: CurrentActor) -> dict:
+def revoke_token(token_id: IdPath, session: SessionDep, actor: CurrentActor) -> dict:
     return users.token_dict(users.revoke_token(session=session, actor=actor, token_id=token_id))

@@ -6,7 +6,7 @@ from typing import Annotated
 
 from fastapi import APIRouter, Depends, Response
 
-from server.api.common import TypedRoute, errors
+from server.api.common import IdPath, TypedRoute, errors
 from server.auth import require
 from server.db import SessionDep
 from server.schemas.accounts import UserIn, UserPatch
@@ -34,11 +34,11 @@ def create_user(body: UserIn, session: SessionDep, actor: Admin, response: Respo
 
 
 @router.get("/{user_id}", response_model=User, responses=errors(401, 403, 404, 422))
-def get_user(user_id: int, session: SessionDep, actor: Admin) -> dict:
+def get_user(user_id: IdPath, session: SessionDep, actor: Admin) -> dict:
     return users.user_dict(users.get_user(session=session, actor=actor, user_id=user_id))
 
 
 @router.patch("/{user_id}", response_model=User, responses=errors(400, 401, 403, 404, 409, 422))
-def update_user(user_id: int, body: UserPatch, session: SessionDep, actor: Admin) -> dict:
+def update_user(user_id: IdPath, body: UserPatch, session: SessionDep, actor: Admin) -> dict:
     user = users.update_user(session=session, actor=actor, user_id=user_id, **body.model_dump(exclude_unset=True))
     return users.user_dict(user)

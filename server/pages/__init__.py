@@ -2,12 +2,13 @@
 
 from __future__ import annotations
 
-from fastapi import APIRouter
+from fastapi import APIRouter, Depends
 
+from server.limits import page_inputs
 from server.pages import (account, admin, admin_users, boards, catalog_forms, history, home, login, parts, rail_form,
                           rails, risks, signoff)
 
-page_router = APIRouter(include_in_schema=False)
+page_router = APIRouter(include_in_schema=False, dependencies=[Depends(page_inputs)])
 for module in (login, account, admin, admin_users, catalog_forms, home, boards, rails, rail_form, history, parts,
                signoff, risks):
     page_router.include_router(module.router)

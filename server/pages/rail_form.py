@@ -23,7 +23,7 @@ from server.services.access import Actor, Permission
 from server.services.catalog import get_board
 from server.services.errors import Conflict, Invalid
 from server.services.rail_edits import PartRef, create_rail, save_rail
-from server.services.rails import get_rail, get_revision
+from server.services.rails import document_warnings, get_rail, get_revision
 
 router = APIRouter(include_in_schema=False)
 Editor = Annotated[Actor, Depends(require(Permission.EDIT))]
@@ -74,8 +74,9 @@ def _titles() -> dict[str, str]:
 
 def form_context(session: Session, actor: Actor, *, board, values: dict[str, str], errors: dict[str, str],
                  other: list[str], rail=None, base_n: int | None = None, conflict: dict | None = None,
-                 copied_from=None) -> dict[str, Any]:
+                 copied_from=None, warnings: dict[str, str] | None = None) -> dict[str, Any]:
     return {"board": board, "product": board.product, "rail": rail, "values": values, "errors": errors,
+            "warnings": warnings or {},
             "other_errors": other, "sections": RAIL_SECTIONS, "labels": _labels(), "titles": _titles(),
             "fet_options": fet_options(session, actor, values.get(PART_FIELD)), "base_n": base_n,
             "conflict": conflict, "copied_from": copied_from,
@@ -102,8 +103,10 @@ def edit_rail_context(session: Session, actor: Actor, rail_id: int) -> dict[str,
     head = get_revision(session=session, actor=actor, rail_id=rail_id)
     values = form_from_document(head.document)
     values[PART_FIELD] = fet_choice_of(head)
+    # values that compute but look like a slip of the prefix, beside their fields (never a reason to refuse)
+    warnings = {w["field"]: w["message"] for w in document_warnings(head.document)}
     return form_context(session, actor, board=rail.board, values=values, errors={}, other=[], rail=rail,
-                        base_n=head.n)
+                        base_n=head.n, warnings=warnings)
 
 
 def _invalid(exc: Invalid) -> tuple[dict[str, str], list[str]]:

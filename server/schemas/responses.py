@@ -202,8 +202,15 @@ class RailListItem(_Model):
     part: PartStatus | None = Field(description="the pinned library part (none: the document's own FET)")
 
 
+class FieldWarning(_Model):
+    field: str = Field(description="JSON path in the document")
+    message: str = Field(description="why the value is unusual; it is analysed as given")
+
+
 class Rail(RailListItem):
     document: Document
+    warnings: list[FieldWarning] = Field(description="values that compute but lie outside the usual range of "
+                                         "their quantity (a slip of the unit prefix?); never a reason to refuse")
 
 
 class RailSaved(Rail):

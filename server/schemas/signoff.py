@@ -6,6 +6,10 @@ from typing import Any
 
 from pydantic import BaseModel, ConfigDict, Field
 
+from server.schemas.fields import COMMENT_MAX, line, prose
+
+Comment = prose(COMMENT_MAX)
+
 Sha256 = Field(min_length=64, max_length=64, pattern=r"^[0-9a-fA-F]{64}$",
                description="sha256 of the rail revision this is about (its current revision)")
 
@@ -16,24 +20,24 @@ class _Body(BaseModel):
 
 class ApprovalIn(_Body):
     sha256: str = Sha256
-    comment: str = Field(min_length=1, max_length=4000, description="what was checked")
+    comment: prose(COMMENT_MAX, min_length=1) = Field(description="what was checked")
 
 
 class WaiverIn(_Body):
     sha256: str = Sha256
-    check_id: str = Field(min_length=1, max_length=100)
-    reason: str = Field(min_length=1, max_length=4000)
+    check_id: line(100, min_length=1)
+    reason: prose(COMMENT_MAX, min_length=1)
 
 
 class WaiverCarry(_Body):
     sha256: str = Sha256
-    reason: str | None = Field(None, max_length=4000, description="omitted: keep the original reason")
+    reason: Comment | None = Field(None, description="omitted: keep the original reason")
 
 
 class TransitionIn(_Body):
-    transition: str = Field(min_length=1, max_length=60, description="name of a transition leaving the current state")
+    transition: line(60, min_length=1) = Field(description="name of a transition leaving the current state")
     sha256: str = Sha256
-    comment: str = Field("", max_length=4000)
+    comment: Comment = ""
 
 
 class WorkflowIn(_Body):

@@ -12,6 +12,7 @@ from typing import Any
 from sqlalchemy import func, select
 from sqlalchemy.orm import Session, defer
 
+from server.analysis.bounds import plausibility_warnings
 from server.models import Board, Part, PartRevision, Rail, RailRevision
 from server.schemas.rail import normalize
 from server.schemas.validation import DocumentInvalid, parse_rail_document
@@ -61,7 +62,13 @@ def _rail_dict(rail: Rail, head: RailRevision, product_id: int, part: dict | Non
            "head": revision_dict(head, with_document=False), "summary": rail.summary, "part": part}
     if with_document:
         out["document"] = head.document
+        out["warnings"] = document_warnings(head.document)
     return out
+
+
+def document_warnings(document: dict[str, Any]) -> list[dict[str, str]]:
+    """The computable but implausible values of a stored document (the bounds table of the analysis core)."""
+    return [{"field": path, "message": message} for path, message in plausibility_warnings(document)]
 
 
 def rail_dict(session: Session, rail: Rail, head: RailRevision, *, with_document: bool = True) -> dict:
