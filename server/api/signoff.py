@@ -49,8 +49,12 @@ def list_waivers(rail_id: int, session: SessionDep, actor: CurrentActor) -> dict
 
 @router.post("/{rail_id}/waivers", status_code=201, response_model=Waiver,
              responses=errors(400, 401, 403, 404, 409, 422))
-def waive(rail_id: int, body: WaiverIn, session: SessionDep, actor: Reviewer) -> dict:
-    """Waive a failing or marginal check of the current revision, with a reason."""
+def waive(rail_id: int, body: WaiverIn, session: SessionDep, actor: CurrentActor) -> dict:
+    """Waive a failing or marginal check of the current revision, with a reason.
+
+    The team's waiver rules apply: never by the rail's author; a failing check only by the role
+    the team names (nobody by default); under the two-person rule not by a reviewer who approved
+    the revision. Reviewers waive marginal checks."""
     waiver = signoff.waive(session=session, actor=actor, rail_id=rail_id, sha256=body.sha256,
                            check_id=body.check_id, reason=body.reason)
     return signoff.waiver_dict(waiver, waiver.revision_n)
@@ -58,7 +62,7 @@ def waive(rail_id: int, body: WaiverIn, session: SessionDep, actor: Reviewer) ->
 
 @router.post("/{rail_id}/waivers/{waiver_id}/carry", status_code=201, response_model=Waiver,
              responses=errors(400, 401, 403, 404, 409, 422))
-def carry_waiver(rail_id: int, waiver_id: int, body: WaiverCarry, session: SessionDep, actor: Reviewer) -> dict:
+def carry_waiver(rail_id: int, waiver_id: int, body: WaiverCarry, session: SessionDep, actor: CurrentActor) -> dict:
     """Carry a waiver of an earlier revision to the current one (the check must still fail or be marginal)."""
     waiver = signoff.carry_waiver(session=session, actor=actor, rail_id=rail_id, waiver_id=waiver_id,
                                   sha256=body.sha256, reason=body.reason)

@@ -106,9 +106,10 @@ def _read(session: Session, product_ids: list[int]) -> _Rows:
             .join(head, (head.rail_id == Rail.id) & (head.n == Rail.head_n))
             .outerjoin(AnalysisResult, current)
             .outerjoin(pinned, pinned.id == head.part_revision_id).outerjoin(Part, Part.id == pinned.part_id)
-            .where(Board.product_id.in_(product_ids)).order_by(Rail.id))
+            .where(Board.product_id.in_(product_ids), Rail.retired_at.is_(None)).order_by(Rail.id))
     rails = list(session.execute(stmt))
-    in_products = select(Rail.id).join(Board, Board.id == Rail.board_id).where(Board.product_id.in_(product_ids))
+    in_products = select(Rail.id).join(Board, Board.id == Rail.board_id).where(Board.product_id.in_(product_ids),
+                                                                                Rail.retired_at.is_(None))
     parts = result_parts(session, [ResultKey(r.result_id, r.head_sha256, r.result_at)
                                    for r in rails if r.result_id is not None])
     checks = {r.id: parts[r.result_id] for r in rails if r.result_id in parts}

@@ -13,6 +13,13 @@ from server.pages.forms import form_from_document
 from server.services.rails import normalize_document
 from tests.factories import rail_doc
 from tests.pages.helpers import Page, log_in, seed_board
+from tests.signoff_support import allow_fail_waivers
+
+
+@pytest.fixture(autouse=True)
+def _rules_these_tests_were_written_under(session_factory, people):
+    """A reviewer may waive a failing check and approve alone here: the waiver rules are tests/test_governance.py's."""
+    allow_fail_waivers(session_factory, people.team_ids["alpha"])
 
 
 @pytest.fixture
