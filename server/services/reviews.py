@@ -36,7 +36,8 @@ from server.services.result_parts import ResultKey, result_parts
 from server.services.signoff import covering_waivers
 from server.workflow import SEVERITY, ApprovalFact, RailFacts, counted_approvers
 
-__all__ = ["assign", "unassign", "list_assignments", "assignment_dict", "review_queue", "QUEUE_PAGE"]
+__all__ = ["assign", "unassign", "list_assignments", "assignment_dict", "team_reviewers", "review_queue",
+           "QUEUE_PAGE"]
 
 QUEUE_PAGE = 50
 
@@ -140,6 +141,14 @@ def list_assignments(*, session: Session, actor: Actor, rail_id: int | None = No
                            .where(cond).order_by(ReviewAssignment.id)).all()
     return [assignment_dict(a, name, names[("rail", a.rail_id) if a.rail_id else ("board", a.board_id)])
             for a, name in rows]
+
+
+def team_reviewers(*, session: Session, actor: Actor, team_id: int) -> list[dict[str, Any]]:
+    """The active reviewers of one of the actor's teams, by name (what an assignment form offers)."""
+    if not actor.sees_team(team_id):
+        raise NotFound(f"no team {team_id}")
+    rows = session.scalars(select(User).where(User.role == "reviewer", User.active.is_(True)).order_by(User.username))
+    return [{"id": u.id, "name": u.username} for u in rows if team_id in u.team_ids]
 
 
 # --- the queue -------------------------------------------------------------------------------
