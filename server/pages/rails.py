@@ -88,8 +88,7 @@ def rail_context(session: Session, actor: Actor, rail_id: int) -> dict[str, Any]
     result = AnalysisResult.model_validate(row.result) if row is not None else None
     signoff = signoff_view.rail_signoff(session, actor, rail.id)
     waivers = signoff_view.waivers_by_check(signoff)
-    header = signoff_view.header_context(session, actor, signoff, verdict=result.verdict if result else None,
-                                         can_edit=actor.can(Permission.EDIT))
+    header = signoff_view.header_context(session, actor, signoff, verdict=result.verdict if result else None)
     ctx: dict[str, Any] = {
         "rail": rail, "head": head, "board": rail.board, "product": rail.board.product, "document": doc,
         "inputs": input_sections(doc), "part": part_status(session, head), "result_row": row, "result": result,

@@ -120,12 +120,11 @@ def _transition_needs(t: dict[str, Any]) -> dict[str, Any]:
             "needs": [b["message"] for b in t["blockers"]], "you_may_take": t["you_may_take"]}
 
 
-def header_context(session: Session, actor: Actor, so: dict[str, Any], *, verdict: str | None,
-                   can_edit: bool) -> dict[str, Any]:
+def header_context(session: Session, actor: Actor, so: dict[str, Any], *, verdict: str | None) -> dict[str, Any]:
     """The sign-off header of the rail page: the status in a few lines, and what this user may do now.
 
-    ``actions``: (label, href, id) links to the forms further down the page (or a page), in the
-    order a person would take them.
+    ``actions``: (label, href, id) links to the sign-off forms further down the page, in the order a
+    person would take them (editing, copying and the history are the page's own buttons below it).
     """
     head_n = so["head"]["n"]
     current = so["current_approvals"]
@@ -144,8 +143,6 @@ def header_context(session: Session, actor: Actor, so: dict[str, Any], *, verdic
             actions.append({"label": f"Approve revision {head_n}", "href": "#approve-form", "id": "act-approve"})
         if so["may_waive"] and so["waivable"]:
             actions.append({"label": "Waive a check", "href": "#waive-form", "id": "act-waive"})
-        if can_edit:
-            actions.append({"label": "Edit the rail", "href": f"/rails/{so['rail_id']}/edit", "id": "act-edit"})
     notes = []
     if so["two_person_bars_approval"]:
         notes.append(f"You waived a check of revision {head_n}: under the team's two-person rule another reviewer "
