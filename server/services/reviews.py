@@ -163,7 +163,7 @@ def _worst_by_check(checks: list[dict[str, Any]]) -> dict[str, dict[str, Any]]:
     return worst
 
 
-def _check_brief(c: dict[str, Any], waiver: Waiver | None = None) -> dict[str, Any]:
+def _check_brief(c: dict[str, Any], waiver: Any = None) -> dict[str, Any]:
     out = {"id": str(c.get("id")), "title": c.get("title", ""), "verdict": c.get("verdict"), "value": c.get("value"),
            "limit": c.get("limit"), "unit": c.get("unit"), "margin": c.get("margin"), "corner": c.get("corner")}
     if waiver is not None:
@@ -242,6 +242,7 @@ def review_queue(*, session: Session, actor: Actor, limit: int = QUEUE_PAGE) -> 
     current = (AnalysisResult.sha256 == Rail.head_sha256) & \
               (AnalysisResult.engine_version == results.engine_version()) & \
               (AnalysisResult.options_key == results.options_key(results.NOMINAL_OPTIONS))
+    in_scope = (Product.team_id.in_(team_ids), Rail.retired_at.is_(None), RailState.state.in_(candidate_states))
     stmt = (select(Rail.id, Rail.name, Rail.head_n, Rail.head_sha256, Rail.board_id, Board.name.label("board_name"),
                    Board.revision.label("board_revision"), Product.id.label("product_id"),
                    Product.name.label("product_name"), Product.team_id, RailState.state, RailState.since,
@@ -251,30 +252,36 @@ def review_queue(*, session: Session, actor: Actor, limit: int = QUEUE_PAGE) -> 
             .join(RailState, RailState.rail_id == Rail.id)
             .join(head, (head.rail_id == Rail.id) & (head.n == Rail.head_n))
             .outerjoin(AnalysisResult, current)
-            .where(Product.team_id.in_(team_ids), Rail.retired_at.is_(None), RailState.state.in_(candidate_states))
-            .order_by(RailState.since, Rail.id))
+            .where(*in_scope).order_by(RailState.since, Rail.id))
     rows = [r for r in session.execute(stmt)
             if waiting_states[r.team_id].get(r.state, 0) > 0 and r.author_id != actor.user_id
             and not (r.author_id is None and r.author_name == actor.name)]
-    ids = [r.id for r in rows]
+    # the rails of the same scope, as a subquery (no list of ids to bind)
+    scope = (select(Rail.id).join(Board, Board.id == Rail.board_id).join(Product, Product.id == Board.product_id)
+             .join(RailState, RailState.rail_id == Rail.id).where(*in_scope))
     approvals: dict[int, list[ApprovalFact]] = defaultdict(list)
-    waivers: dict[int, list[Waiver]] = defaultdict(list)
+    waivers: dict[int, list[Any]] = defaultdict(list)
     mine: dict[int, str] = {}
     assigned_any: set[int] = set()
-    if ids:
-        in_ids = select(Rail.id).where(Rail.id.in_(ids))
-        for rail_id, reviewer_id, name, n, stale_at in session.execute(
+    if rows:
+        for rail_id, reviewer_id, name, n, stale in session.execute(
                 select(Approval.rail_id, Approval.reviewer_id, Approval.reviewer_name, Approval.revision_n,
-                       Approval.stale_at).where(Approval.rail_id.in_(in_ids))):
-            approvals[rail_id].append(ApprovalFact(reviewer_id, name, n, stale_at is not None))
-        for w in session.scalars(select(Waiver).join(Rail, (Rail.id == Waiver.rail_id) & (Waiver.revision_n == Rail.head_n))
-                                 .where(Waiver.rail_id.in_(in_ids))):
+                       Approval.stale_at.is_not(None)).where(Approval.rail_id.in_(scope))):
+            approvals[rail_id].append(ApprovalFact(reviewer_id, name, n, bool(stale)))
+        # the columns the queue reads of each waiver of a head revision (rows, not loaded objects)
+        for w in session.execute(select(Waiver.rail_id, Waiver.revision_n, Waiver.check_id, Waiver.verdict,
+                                        Waiver.reviewer_id, Waiver.reviewer_name)
+                                 .join(Rail, (Rail.id == Waiver.rail_id) & (Waiver.revision_n == Rail.head_n))
+                                 .where(Waiver.rail_id.in_(scope)).order_by(Waiver.id)):
             waivers[w.rail_id].append(w)
-        boards = {r.board_id for r in rows}
+        by_board: dict[int, list[int]] = defaultdict(list)
+        for r in rows:
+            by_board[r.board_id].append(r.id)
+        board_scope = select(Board.id).join(Product, Product.id == Board.product_id).where(Product.team_id.in_(team_ids))
         for reviewer_id, rail_id, board_id in session.execute(
                 select(ReviewAssignment.reviewer_id, ReviewAssignment.rail_id, ReviewAssignment.board_id)
-                .where(or_(ReviewAssignment.rail_id.in_(in_ids), ReviewAssignment.board_id.in_(boards)))):
-            targets = [rail_id] if rail_id is not None else [r.id for r in rows if r.board_id == board_id]
+                .where(or_(ReviewAssignment.rail_id.in_(scope), ReviewAssignment.board_id.in_(board_scope)))):
+            targets = [rail_id] if rail_id is not None else by_board.get(board_id, [])
             for t in targets:
                 assigned_any.add(t)
                 if reviewer_id == actor.user_id:
@@ -282,28 +289,37 @@ def review_queue(*, session: Session, actor: Actor, limit: int = QUEUE_PAGE) -> 
                         mine[t] = "rail"
                     else:
                         mine.setdefault(t, "board")
-    keys = [ResultKey(r.result_id, r.head_sha256, r.result_at) for r in rows if r.result_id is not None]
-    parts = result_parts(session, keys)
+    parts = result_parts(session, [ResultKey(r.result_id, r.head_sha256, r.result_at)
+                                   for r in rows if r.result_id is not None])
     assigned, team = [], []
+    totals = {"assigned": 0, "team": 0}
     for r in rows:
-        facts_checks = parts[r.result_id].checks if r.result_id in parts else None
-        covering = covering_waivers(facts_checks, waivers.get(r.id, []), r.head_n) if facts_checks else {}
-        facts = RailFacts(state=r.state, head_n=r.head_n, approvals=tuple(approvals.get(r.id, ())),
-                          waivers_by=frozenset(w.reviewer_id for w in covering.values()),
-                          two_person=rules[r.team_id].two_person)
-        counted, barred = counted_approvers(facts)
-        if any(a.reviewer_id == actor.user_id and a.revision_n == r.head_n and not a.stale for a in facts.approvals):
+        rail_approvals = approvals.get(r.id, ())
+        if any(a.reviewer_id == actor.user_id and a.revision_n == r.head_n and not a.stale for a in rail_approvals):
             continue        # approved by the actor already: it waits for someone else
-        if len(counted) >= waiting_states[r.team_id][r.state]:
-            continue
         if r.id in mine:
-            bucket = assigned
+            bucket, key = assigned, "assigned"
         elif r.id not in assigned_any:
-            bucket = team
+            bucket, key = team, "team"
         else:
             continue        # assigned to another reviewer
-        worst = _worst_by_check(facts_checks or [])
-        problems = [c for c in worst.values() if c.get("verdict") in ("fail", "marginal")]
+        p = parts.get(r.result_id)
+        rail_waivers = waivers.get(r.id)
+        covering = covering_waivers(p.problems, rail_waivers, r.head_n) if rail_waivers and p is not None else {}
+        needed = waiting_states[r.team_id][r.state]
+        if rail_approvals:
+            counted, barred = counted_approvers(RailFacts(
+                state=r.state, head_n=r.head_n, approvals=tuple(rail_approvals),
+                waivers_by=frozenset(w.reviewer_id for w in covering.values()),
+                two_person=rules[r.team_id].two_person))
+        else:
+            counted, barred = [], []
+        if len(counted) >= needed:
+            continue
+        totals[key] += 1
+        if len(bucket) >= limit:
+            continue        # counted, not shown
+        problems = list(_worst_by_check(p.problems).values()) if p is not None else []
         bucket.append({
             "rail": {"id": r.id, "name": r.name}, "board": {"id": r.board_id, "name": r.board_name,
                                                             "revision": r.board_revision},
@@ -315,10 +331,8 @@ def review_queue(*, session: Session, actor: Actor, limit: int = QUEUE_PAGE) -> 
             "failing": [_check_brief(c, covering.get(str(c.get("id")))) for c in problems if c.get("verdict") == "fail"],
             "marginal": [_check_brief(c, covering.get(str(c.get("id")))) for c in problems
                          if c.get("verdict") == "marginal"],
-            "approvals": {"counted": counted, "barred": barred, "needed": waiting_states[r.team_id][r.state]},
+            "approvals": {"counted": counted, "barred": barred, "needed": needed},
             "assigned": mine.get(r.id)})
-    shown_assigned, shown_team = assigned[:limit], team[:limit]
-    row_of = {r.id: r for r in rows}
-    if shown_assigned or shown_team:
-        _changes(session, shown_assigned + shown_team, row_of)
-    return {"assigned": shown_assigned, "team": shown_team, "totals": {"assigned": len(assigned), "team": len(team)}}
+    if assigned or team:
+        _changes(session, assigned + team, {r.id: r for r in rows})
+    return {"assigned": assigned, "team": team, "totals": totals}
