@@ -225,6 +225,8 @@ def test_the_homes_the_waiver_rules_and_retiring_a_rail(browser, served):
 
     # the admin's waiver rules page
     admin = As(browser, served, "admin", "/admin/workflows")
+    assert "failing checks waived by nobody" in admin.page.inner_text("main")
+    shot(admin.page, "governance-admin-workflows")
     admin.page.click(f"#rules-{served['people'].team_ids['alpha']}")
     admin.page.select_option("#fail-waiver-role", "manager")
     admin.page.click("#save-rules")
