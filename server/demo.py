@@ -4,6 +4,10 @@ The scenario is made up for the demo: "Lanternfish", an outdoor edge gateway for
 fictional fleet of tidal-energy monitoring stations. The MOSFETs are invented; their
 numbers are plausible for their class, not taken from any datasheet. Some rails sit
 comfortably inside their margins and some do not, so the pages show every verdict.
+
+The sign-off is under way: some rails are submitted for review; reviewer ravi is assigned to
+the power entry board, rosa took one rail of the compute carrier, and the rest of what awaits
+review sits in the team queue, so each reviewer's home shows a queue.
 """
 
 from __future__ import annotations
@@ -14,7 +18,7 @@ from sqlalchemy import func, select
 from sqlalchemy.orm import Session
 
 from server.models import Product
-from server.services import catalog, parts, users
+from server.services import catalog, parts, reviews, signoff, users
 from server.services.access import Actor
 from server.services.rail_edits import PartRef, create_rail
 
@@ -30,6 +34,10 @@ DEMO_USERS = [  # (username, role, display name)
     ("vic", "viewer", "Vic Tamura"),
     ("ada", "admin", "Ada Mbeki"),
 ]
+# Rails the designer has submitted for review; (reviewer, board name) and (reviewer, rail name) assignments.
+SUBMITTED = ("VIN_24V_HOTSWAP", "PSE_PORT_24V", "FAN_24V", "SOM_12V", "MODEM_12V", "LIDAR_12V", "CAMERA_12V")
+BOARD_REVIEWERS = (("ravi", "Power entry"),)
+RAIL_REVIEWERS = (("rosa", "SOM_12V"),)
 
 
 def _soa_curves(vds_max: float, id_pulse: float, p_by_pulse: dict[float | None, float]) -> list[dict]:
@@ -156,14 +164,29 @@ def seed(session: Session) -> dict[str, int]:
                                      description="Outdoor gateway for a fleet of tidal-energy monitoring stations "
                                                  "(an invented demo product).")
     count = 0
+    boards, rails = {}, {}
     for board_name, revision, rail_specs in BOARDS:
         board = catalog.create_board(session=session, actor=designer, product_id=product.id, name=board_name,
                                      revision=revision)
+        boards[board_name] = board.id
         for document, part_index in rail_specs:
-            create_rail(session=session, actor=designer, board_id=board.id, document=document,
-                        part=PartRef(part_ids[part_index]), message="first entry")
+            rail, rev = create_rail(session=session, actor=designer, board_id=board.id, document=document,
+                                    part=PartRef(part_ids[part_index]), message="first entry")
+            rails[document["name"]] = (rail.id, rev.sha256)
             count += 1
-    return {"users": len(DEMO_USERS), "parts": len(FETS), "boards": len(BOARDS), "rails": count}
+    for name in SUBMITTED:
+        rail_id, sha256 = rails[name]
+        signoff.take_transition(session=session, actor=designer, rail_id=rail_id, transition="submit for review",
+                                sha256=sha256, comment="ready for a look at the margins")
+    manager = Actor.for_user(users.get_user_by_name(session=session, username="mona"))
+    for username, board_name in BOARD_REVIEWERS:
+        reviews.assign(session=session, actor=manager, reviewer_id=users.get_user_by_name(
+            session=session, username=username).id, board_id=boards[board_name])
+    for username, rail_name in RAIL_REVIEWERS:
+        reviewer = Actor.for_user(users.get_user_by_name(session=session, username=username))
+        reviews.assign(session=session, actor=reviewer, rail_id=rails[rail_name][0])
+    return {"users": len(DEMO_USERS), "parts": len(FETS), "boards": len(BOARDS), "rails": count,
+            "submitted": len(SUBMITTED)}
 
 
 def seed_if_empty(session: Session) -> bool:

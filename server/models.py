@@ -154,6 +154,9 @@ class Rail(Base):
     summary: Mapped[dict[str, Any]] = mapped_column(JsonType, default=dict, server_default=text("'{}'"))
     created_at: Mapped[datetime] = mapped_column(default=utcnow)
     updated_at: Mapped[datetime] = mapped_column(default=utcnow)
+    # A retired rail keeps its history but leaves lists, queues and the risk view until it is restored.
+    retired_at: Mapped[datetime | None]
+    retired_by: Mapped[str] = mapped_column(String(200), default="", server_default=text("''"))
     board: Mapped[Board] = relationship()
 
 
@@ -353,3 +356,28 @@ class RiskSnapshot(Base):
     day: Mapped[date] = mapped_column(Date)
     taken_at: Mapped[datetime] = mapped_column(default=utcnow)
     counts: Mapped[dict[str, Any]]
+
+
+class SignoffRules(Base):
+    """A team's waiver rules (see :class:`server.workflow.WaiverRules`); a team without a row has the defaults."""
+
+    __tablename__ = "signoff_rules"
+    team_id: Mapped[int] = mapped_column(ForeignKey("teams.id", ondelete="CASCADE"), primary_key=True)
+    two_person: Mapped[bool] = mapped_column(default=True, server_default=text("true"))
+    fail_waiver_role: Mapped[str | None] = mapped_column(String(20))
+    version: Mapped[int] = mapped_column(Integer, default=1)
+    updated_at: Mapped[datetime] = mapped_column(default=utcnow)
+    updated_by: Mapped[str] = mapped_column(String(200), default="")
+
+
+class ReviewAssignment(Base):
+    """A reviewer assigned to one rail or to every rail of one board (exactly one of the two is set)."""
+
+    __tablename__ = "review_assignments"
+    __table_args__ = (UniqueConstraint("reviewer_id", "rail_id", "board_id", name="uq_review_assignments_target"),)
+    id: Mapped[int] = mapped_column(primary_key=True)
+    reviewer_id: Mapped[int] = mapped_column(ForeignKey("users.id", ondelete="CASCADE"), index=True)
+    rail_id: Mapped[int | None] = mapped_column(ForeignKey("rails.id", ondelete="CASCADE"), index=True)
+    board_id: Mapped[int | None] = mapped_column(ForeignKey("boards.id", ondelete="CASCADE"), index=True)
+    assigned_by: Mapped[str] = mapped_column(String(200), default="")
+    created_at: Mapped[datetime] = mapped_column(default=utcnow)

@@ -9,7 +9,9 @@ Pure: no database, no web. Provides
   rail when a transition is tried;
 - :func:`blockers`: the unmet demands of a transition for those facts (empty: it may be taken);
 - :data:`SEVERITY`, :func:`worse`, :func:`waiver_covers`: how verdicts rank, and when a waiver
-  still covers a check (while the check reads no worse than the verdict waived).
+  still covers a check (while the check reads no worse than the verdict waived);
+- :class:`WaiverRules`, :func:`waiver_refusal`, :func:`two_person_refusal`: a team's waiver rules
+  (two-person rule, who may waive a failing check) and what they refuse.
 
 A definition::
 
@@ -35,7 +37,8 @@ from server.analysis.bounds import text_problem
 
 __all__ = ["ROLES", "TRANSITION_ROLES", "DEFAULT_WORKFLOW", "WorkflowInvalid", "State", "Demands", "Transition",
            "WorkflowDef", "parse_workflow", "ApprovalFact", "CheckFact", "RailFacts", "Blocker", "blockers",
-           "current_approvers", "outstanding_stale", "unresolved_checks", "SEVERITY", "worse", "waiver_covers"]
+           "current_approvers", "counted_approvers", "outstanding_stale", "unresolved_checks", "SEVERITY", "worse",
+           "waiver_covers", "WaiverRules", "FAIL_WAIVER_ROLES", "waiver_refusal", "two_person_refusal"]
 
 ROLES = ("viewer", "designer", "reviewer", "manager", "admin")
 TRANSITION_ROLES = ROLES[1:]          # viewers only read
@@ -57,6 +60,57 @@ def waiver_covers(waived_verdict: str | None, current_verdict: str | None) -> bo
     """A waiver covers a check while the check reads no worse than the verdict it waived (a verdict
     word the waiver does not know covers nothing)."""
     return waived_verdict in SEVERITY and not worse(current_verdict, waived_verdict)
+
+# Roles a team may name as allowed to waive a failing check (past the physical edge); nobody by default.
+FAIL_WAIVER_ROLES = ("reviewer", "manager")
+
+
+@dataclass(frozen=True)
+class WaiverRules:
+    """A team's waiver rules. Defaults are the safe ones.
+
+    ``two_person``: an approval of a revision that relies on a waiver must come from another
+    reviewer than the one who granted that waiver. ``fail_waiver_role``: the one role whose
+    members may waive a failing check (a reading past the physical edge: SOA ratio below 1, Tj
+    above Tj max, a start that cannot complete, a current beyond its rating); None: nobody.
+    A marginal check (between the team's limit and the physical edge) is waived by reviewers.
+    """
+
+    two_person: bool = True
+    fail_waiver_role: str | None = None
+
+    def as_dict(self) -> dict[str, Any]:
+        return {"two_person": self.two_person, "fail_waiver_role": self.fail_waiver_role}
+
+
+def waiver_refusal(rules: WaiverRules, role: str, verdict: str | None) -> str | None:
+    """Why a person of ``role`` may not waive a check reading ``verdict`` (None: they may).
+
+    The verdict is the stored check record's own: a fail is past the physical edge, whatever
+    the label of the check's limit.
+    """
+    if verdict == "fail":
+        if rules.fail_waiver_role is None:
+            return ("the check fails: its reading is past the physical edge, and this team's rules let nobody "
+                    "waive a failing check; change the design, or an admin names a role that may")
+        if role != rules.fail_waiver_role:
+            return (f"the check fails: its reading is past the physical edge, and this team's rules let only the "
+                    f"{rules.fail_waiver_role} role waive a failing check; your role is {role}")
+        return None
+    if verdict == "marginal":
+        return None if role == "reviewer" or role == rules.fail_waiver_role else \
+            f"marginal checks are waived by reviewers; your role is {role}"
+    return f"only failing or marginal checks are waived; this one is {verdict}"
+
+
+def two_person_refusal(rules: WaiverRules, *, approving: bool, revision_n: int) -> str:
+    """The message of the two-person rule (approving after waiving, or waiving after approving)."""
+    if approving:
+        return (f"you waived a check of revision {revision_n}: under this team's two-person rule another reviewer "
+                "approves the revision that relies on your waiver")
+    return (f"you approved revision {revision_n}: under this team's two-person rule another reviewer grants the "
+            "waivers your approval would rely on")
+
 
 DEFAULT_WORKFLOW: dict[str, Any] = {
     "name": "margin review",
@@ -397,7 +451,9 @@ class RailFacts:
     """What is known about a rail when a transition is tried.
 
     ``checks`` is None when the current revision has not been analysed; ``waived`` maps the id
-    of each check waived for the current revision to the verdict its waiver accepted.
+    of each check waived for the current revision to the verdict its waiver accepted;
+    ``waivers_by`` holds the ids of the reviewers whose waivers of the current revision cover a
+    check; with ``two_person`` their approvals of the current revision do not count.
     """
 
     state: str
@@ -405,6 +461,8 @@ class RailFacts:
     approvals: tuple[ApprovalFact, ...] = ()
     checks: tuple[CheckFact, ...] | None = None
     waived: Mapping[str, str] = field(default_factory=dict)
+    waivers_by: frozenset[int] = frozenset()
+    two_person: bool = False
 
 
 @dataclass(frozen=True)
@@ -420,6 +478,14 @@ def current_approvers(facts: RailFacts) -> list[str]:
     """Names of the reviewers who approved the current revision (each once)."""
     names = {a.reviewer_id: a.reviewer_name for a in facts.approvals if a.revision_n == facts.head_n and not a.stale}
     return [names[k] for k in sorted(names)]
+
+
+def counted_approvers(facts: RailFacts) -> tuple[list[str], list[str]]:
+    """(reviewers whose approval of the current revision counts, those whose does not: under the
+    two-person rule, an approval by a reviewer who waived a check of the revision)."""
+    names = {a.reviewer_id: a.reviewer_name for a in facts.approvals if a.revision_n == facts.head_n and not a.stale}
+    barred = facts.waivers_by if facts.two_person else frozenset()
+    return ([names[k] for k in sorted(names) if k not in barred], [names[k] for k in sorted(names) if k in barred])
 
 
 def outstanding_stale(facts: RailFacts) -> list[ApprovalFact]:
@@ -456,10 +522,12 @@ def blockers(transition: Transition, facts: RailFacts) -> list[Blocker]:
                                     f"but the rail is in '{facts.state}'"))
         return out
     need = transition.demands.approvals
-    have = current_approvers(facts)
+    have, barred = counted_approvers(facts)
     if len(have) < need:
+        note = (f" ({', '.join(barred)} waived a check of it: under the two-person rule another reviewer "
+                "approves)") if barred else ""
         out.append(Blocker("approvals", f"needs {need} approval{'s' if need != 1 else ''} of revision "
-                                        f"{facts.head_n} by reviewers; it has {len(have)}"))
+                                        f"{facts.head_n} by reviewers; it has {len(have)}{note}"))
     if transition.demands.checks_pass:
         if facts.checks is None:
             out.append(Blocker("checks", f"revision {facts.head_n} has not been analysed at the current engine "

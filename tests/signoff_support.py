@@ -11,6 +11,8 @@ from server.analysis import analyze_rail
 from server.schemas.rail import normalize
 from server.schemas.validation import parse_rail_document
 
+from server.services import governance
+from server.services.access import Actor
 from server.services.results import NOMINAL_OPTIONS, store_result
 from tests.factories import rail_doc
 
@@ -100,3 +102,11 @@ def log_in(client, username: str, password: str, next_path: str = "/account"):
     assert page.status_code == 200, page.text
     return client.post("/login", data={"username": username, "password": password, "next": next_path,
                                        "csrf_token": csrf_from(page.text)}, follow_redirects=False)
+
+
+def allow_fail_waivers(session_factory, team_id: int, *, role: str = "reviewer", two_person: bool = False) -> None:
+    """Team rules under which a reviewer may waive a failing check and then approve (not the defaults:
+    the tests of other matters waive a failing check of FAILING and approve with one reviewer)."""
+    with session_factory() as session:
+        governance.set_rules(session=session, actor=Actor.system("test-setup"), team_id=team_id,
+                             two_person=two_person, fail_waiver_role=role)

@@ -23,9 +23,15 @@ from server.schemas.responses import ErrorResponse
 from server.services import catalog
 from tests.factories import fet_doc, rail_doc
 from tests.pages.helpers import analyse_now
-from tests.signoff_support import FAILING, store_checks
+from tests.signoff_support import allow_fail_waivers, FAILING, store_checks
 
 NOBODY = 999999
+
+
+@pytest.fixture(autouse=True)
+def _rules_these_tests_were_written_under(session_factory, people):
+    """A reviewer may waive a failing check and approve alone here: the waiver rules are tests/test_governance.py's."""
+    allow_fail_waivers(session_factory, people.team_ids["alpha"])
 
 
 def api_operations(app) -> dict[tuple[str, str], Any]:
@@ -245,6 +251,27 @@ def test_every_operation_answers_its_declared_model_through_a_products_life(clie
     rows = {r["name"]: r for b in risks["boards"] for r in b["rails"]}
     assert rows["VOUT_5V"]["failing"] and rows["VOUT_12V"]["waived"][0]["waiver"]["id"]
 
+    # waiver rules, the review queue and its assignments, retiring and restoring a rail
+    alpha = people.team_ids["alpha"]
+    rules = call("GET", "/api/v1/teams/{team_id}/signoff-rules", 200, role="viewer", team_id=alpha)
+    call("PUT", "/api/v1/teams/{team_id}/signoff-rules", 200, team_id=alpha,
+         json_body={"two_person": True, "fail_waiver_role": "reviewer", "expected_version": rules["version"]})
+    call("POST", "/api/v1/rails/{rail_id}/transitions", 200, role="designer", rail_id=other["id"],
+         json_body={"transition": "submit for review", "sha256": other["head"]["sha256"]})
+    assignment = call("POST", "/api/v1/reviews/assignments", 201, role="manager",
+                      json_body={"reviewer_id": people.ids["reviewer"], "board_id": board["id"]})
+    listed = call("GET", "/api/v1/reviews/assignments", 200, role="viewer", params={"board_id": board["id"]})
+    assert [a["reviewer"] for a in listed["items"]] == ["reviewer"]
+    queue = call("GET", "/api/v1/reviews/queue", 200, role="reviewer")
+    assert [e["rail"]["name"] for e in queue["assigned"]] == ["VOUT_5V"] and queue["assigned"][0]["failing"]
+    call("DELETE", "/api/v1/reviews/assignments/{assignment_id}", 204, role="manager", assignment_id=assignment["id"])
+    call("POST", "/api/v1/rails/{rail_id}/transitions", 200, role="designer", rail_id=other["id"],
+         json_body={"transition": "send back", "sha256": other["head"]["sha256"]})
+    retired = call("POST", "/api/v1/rails/{rail_id}/retire", 200, role="designer", rail_id=other["id"],
+                   json_body={"reason": "merged into VOUT_12V"})
+    assert retired["retired"] is True
+    assert call("POST", "/api/v1/rails/{rail_id}/restore", 200, role="designer", rail_id=other["id"])["retired"] is False
+
     # audit
     call("GET", "/api/v1/audit", 200, role="admin", params={"object_type": "rail"})
     call("GET", "/api/v1/products/{product_id}/audit", 200, role="manager", product_id=product_id)
@@ -268,7 +295,6 @@ def test_every_operation_answers_its_declared_model_through_a_products_life(clie
     call("GET", "/api/v1/teams/{team_id}", 200, team_id=team["id"])
     call("POST", "/api/v1/teams/{team_id}/members", 200, team_id=team["id"], json_body={"user_id": user["id"]})
     call("DELETE", "/api/v1/teams/{team_id}/members/{user_id}", 200, team_id=team["id"], user_id=user["id"])
-    alpha = people.team_ids["alpha"]
     call("GET", "/api/v1/teams/{team_id}/workflow", 200, role="viewer", team_id=alpha)
     replaced = call("PUT", "/api/v1/teams/{team_id}/workflow", 200, team_id=alpha,
                     json_body={"definition": SMALL_WORKFLOW})

@@ -7,6 +7,9 @@ from sqlalchemy import func, select
 from server.analysis import analyze_rail
 from server.demo import BOARDS, DEMO_USERS, seed_if_empty
 from server.models import Board, Part, Product, Rail, RailRevision, User
+from server.services import reviews
+from server.services.access import Actor
+from server.services.users import get_user_by_name
 
 
 def test_demo_covers_every_mode_and_load_model():
@@ -30,3 +33,16 @@ def test_demo_seeds_once_and_shows_every_verdict(session_factory):
     assert all(h.part_revision_id is not None for h in heads)  # every demo rail uses a library part
     verdicts = {analyze_rail(h.document, headroom=False)["verdict"] for h in heads}
     assert {"pass", "marginal", "fail"} <= verdicts
+
+
+def test_demo_reviewers_have_a_queue(session_factory):
+    with session_factory() as s:
+        seed_if_empty(s)
+        queues = {}
+        for name in ("ravi", "rosa"):
+            actor = Actor.for_user(get_user_by_name(session=s, username=name))
+            q = reviews.review_queue(session=s, actor=actor)
+            queues[name] = ([e["rail"]["name"] for e in q["assigned"]], [e["rail"]["name"] for e in q["team"]])
+    assert sorted(queues["ravi"][0]) == ["FAN_24V", "PSE_PORT_24V", "VIN_24V_HOTSWAP"]
+    assert queues["rosa"][0] == ["SOM_12V"]
+    assert sorted(queues["ravi"][1]) == sorted(queues["rosa"][1]) == ["CAMERA_12V", "LIDAR_12V", "MODEM_12V"]

@@ -18,7 +18,8 @@ from server.models import Base, utcnow
 from server.workflow import parse_workflow
 from tests.conftest import BACKENDS, make_settings
 
-SIGNOFF_TABLES = {"workflows", "rail_states", "approvals", "waivers", "login_throttles"}
+SIGNOFF_TABLES = {"workflows", "rail_states", "approvals", "waivers", "login_throttles", "signoff_rules",
+                  "review_assignments"}
 
 
 @pytest.fixture(params=BACKENDS)
@@ -170,8 +171,11 @@ def test_approvals_and_waivers_made_before_0005_keep_their_rows_and_links(empty_
             .inserted_primary_key[0]
         board = conn.execute(t["boards"].insert().values(product_id=product, name="Main", revision="A",
                                                          description="")).inserted_primary_key[0]
-        rail = conn.execute(t["rails"].insert().values(board_id=board, name="VBUS", mode="hard", head_n=2,
-                                                       head_sha256="b" * 64, summary={})).inserted_primary_key[0]
+        rails_0004 = table("rails", *(column(c) for c in ("id", "board_id", "name", "mode", "head_n", "head_sha256",
+                                                          "created_at", "updated_at")))
+        rail = conn.execute(rails_0004.insert().values(
+            board_id=board, name="VBUS", mode="hard", head_n=2, head_sha256="b" * 64, created_at=utcnow(),
+            updated_at=utcnow()).returning(rails_0004.c.id)).scalar_one()
         row = {"rail_id": rail, "check_id": "startup_soa", "check_title": "Start-up SOA", "verdict": "marginal",
                "reason": "bench capture", "reviewer_id": user, "reviewer_name": "old-reviewer", "created_at": utcnow()}
         source = conn.execute(waivers_0004.insert().values(revision_n=1, sha256="a" * 64, carried_from_id=None,

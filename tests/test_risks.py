@@ -2,6 +2,8 @@
 
 from __future__ import annotations
 
+import pytest
+
 import csv
 import io
 import json
@@ -9,7 +11,13 @@ import json
 from server.services import risks
 from server.services.access import Actor
 from server.services.users import get_user_by_name
-from tests.signoff_support import FAILING, PASSING, edit_rail, make_board, make_rail, store_checks
+from tests.signoff_support import allow_fail_waivers, FAILING, PASSING, edit_rail, make_board, make_rail, store_checks
+
+
+@pytest.fixture(autouse=True)
+def _rules_these_tests_were_written_under(session_factory, people):
+    """A reviewer may waive a failing check and approve alone here: the waiver rules are tests/test_governance.py's."""
+    allow_fail_waivers(session_factory, people.team_ids["alpha"])
 
 
 def _board(client, people, product_id, name):

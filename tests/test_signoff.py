@@ -13,7 +13,13 @@ from server.models import AuditEntry
 from server.services import users as user_service
 from server.services.access import Actor
 from server.workflow import DEFAULT_WORKFLOW
-from tests.signoff_support import FAILING, PASSING, edit_rail, make_board, make_rail, store_checks
+from tests.signoff_support import allow_fail_waivers, FAILING, PASSING, edit_rail, make_board, make_rail, store_checks
+
+
+@pytest.fixture(autouse=True)
+def _rules_these_tests_were_written_under(session_factory, people):
+    """A reviewer may waive a failing check and approve alone here: the waiver rules are tests/test_governance.py's."""
+    allow_fail_waivers(session_factory, people.team_ids["alpha"])
 
 
 @pytest.fixture

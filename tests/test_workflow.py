@@ -6,8 +6,9 @@ import copy
 
 import pytest
 
-from server.workflow import (DEFAULT_WORKFLOW, ApprovalFact, CheckFact, RailFacts, WorkflowInvalid, blockers,
-                             outstanding_stale, parse_workflow, unresolved_checks, waiver_covers, worse)
+from server.workflow import (DEFAULT_WORKFLOW, ApprovalFact, CheckFact, RailFacts, WaiverRules, WorkflowInvalid,
+                             blockers, counted_approvers, outstanding_stale, parse_workflow, unresolved_checks,
+                             waiver_covers, waiver_refusal, worse)
 
 
 def _default() -> dict:
@@ -176,3 +177,30 @@ def test_a_transition_from_another_state_is_blocked():
     step = parse_workflow(DEFAULT_WORKFLOW).transition("in design", "submit for review")
     assert [b.demand for b in blockers(step, _facts())] == ["state"]
     assert blockers(step, _facts(state="in design")) == []
+
+
+def test_the_default_waiver_rules_let_reviewers_waive_marginal_checks_only():
+    rules = WaiverRules()
+    assert (rules.two_person, rules.fail_waiver_role) == (True, None)
+    assert waiver_refusal(rules, "reviewer", "marginal") is None
+    assert "past the physical edge" in waiver_refusal(rules, "reviewer", "fail")
+    assert waiver_refusal(rules, "manager", "marginal") is not None
+    assert "only failing or marginal" in waiver_refusal(rules, "reviewer", "pass")
+    named = WaiverRules(fail_waiver_role="manager")
+    assert waiver_refusal(named, "manager", "fail") is None
+    assert "only the manager role" in waiver_refusal(named, "reviewer", "fail")
+
+
+def test_under_the_two_person_rule_the_waivers_author_does_not_count_as_an_approver():
+    wf = parse_workflow(DEFAULT_WORKFLOW)
+    accept = wf.transition("awaiting review", "accept margins")
+    approvals = (ApprovalFact(7, "ravi", 2, False),)
+    checks = (CheckFact("timer_startup", "marginal"),)
+    facts = RailFacts(state="awaiting review", head_n=2, approvals=approvals, checks=checks,
+                      waived={"timer_startup": "marginal"}, waivers_by=frozenset({7}), two_person=True)
+    assert counted_approvers(facts) == ([], ["ravi"])
+    found = blockers(accept, facts)
+    assert [b.demand for b in found] == ["approvals"] and "ravi waived a check" in found[0].message
+    off = RailFacts(state="awaiting review", head_n=2, approvals=approvals, checks=checks,
+                    waived={"timer_startup": "marginal"}, waivers_by=frozenset({7}), two_person=False)
+    assert counted_approvers(off) == (["ravi"], []) and blockers(accept, off) == []

@@ -10,6 +10,7 @@ from server.api.common import ID_MAX, IdPath, IdQuery, PageDep, SearchText, Type
 from server.auth import CurrentActor, require
 from server.db import SessionDep
 from server.schemas.api import RailCreate, RailSave
+from server.schemas.signoff import RetireIn
 from server.schemas.responses import Page, Rail, RailListItem, RailSaved, Revision, RevisionDiff, RevisionSummary
 from server.services import rail_edits, rails
 from server.services.access import Actor, Permission
@@ -26,9 +27,11 @@ def _etag(sha256: str) -> str:
 @router.get("", response_model=Page[RailListItem], responses=errors(401, 422))
 def list_rails(session: SessionDep, actor: CurrentActor, page: PageDep, product_id: IdQuery = None,
                board_id: IdQuery = None, mode: Mode | None = None,
-               q: SearchText = None) -> dict:
+               q: SearchText = None,
+               retired: Annotated[bool, Query(description="true: the retired rails instead")] = False) -> dict:
     rows, total = rails.list_rails(session=session, actor=actor, product_id=product_id, board_id=board_id,
-                                   mode=mode, q=q, limit=page.limit, offset=page.offset, with_documents=False)
+                                   mode=mode, q=q, limit=page.limit, offset=page.offset, with_documents=False,
+                                   retired=retired)
     return page.answer(rails.rail_dicts(session, rows), total)
 
 
@@ -90,3 +93,17 @@ def diff(rail_id: IdPath, session: SessionDep, actor: CurrentActor,
          from_n: Annotated[int, Query(alias="from", ge=1, le=ID_MAX)],
          to_n: Annotated[int, Query(alias="to", ge=1, le=ID_MAX)]) -> dict:
     return rails.diff_revisions(session=session, actor=actor, rail_id=rail_id, from_n=from_n, to_n=to_n)
+
+
+@router.post("/{rail_id}/retire", response_model=Rail, responses=errors(400, 401, 403, 404, 409, 422))
+def retire_rail(rail_id: IdPath, body: RetireIn, session: SessionDep, actor: Editor) -> dict:
+    """Retire a rail: its history stays; it leaves lists, the review queue and the risk view until restored."""
+    rail = rail_edits.retire_rail(session=session, actor=actor, rail_id=rail_id, reason=body.reason)
+    return rails.rail_dict(session, rail, rails.get_revision(session=session, actor=actor, rail_id=rail.id))
+
+
+@router.post("/{rail_id}/restore", response_model=Rail, responses=errors(401, 403, 404, 409, 422))
+def restore_rail(rail_id: IdPath, session: SessionDep, actor: Editor) -> dict:
+    """Bring a retired rail back."""
+    rail = rail_edits.restore_rail(session=session, actor=actor, rail_id=rail_id)
+    return rails.rail_dict(session, rail, rails.get_revision(session=session, actor=actor, rail_id=rail.id))

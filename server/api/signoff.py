@@ -7,16 +7,19 @@ from typing import Annotated
 from fastapi import APIRouter, Depends
 
 from server.api.common import IdPath, TypedRoute, errors
-from server.auth import CurrentActor, require
+from server.auth import CurrentActor, require, require_any
 from server.db import SessionDep
 from server.schemas.responses import Approval, Listing, SignoffStatus, TransitionTaken, Waiver
 from server.schemas.signoff import ApprovalIn, TransitionIn, WaiverCarry, WaiverIn
 from server.services import signoff
 from server.services.access import Actor, Permission
+from server.workflow import FAIL_WAIVER_ROLES
 
 router = APIRouter(prefix="/rails", tags=["sign-off"], route_class=TypedRoute)
 Reviewer = Annotated[Actor, Depends(require(Permission.REVIEW))]
 Mover = Annotated[Actor, Depends(require(Permission.ADVANCE))]
+# reviewers, and the roles a team may name for failing checks: the sign-off service applies the team's rules
+Waiving = Annotated[Actor, Depends(require_any(Permission.REVIEW, *FAIL_WAIVER_ROLES))]
 
 
 @router.get("/{rail_id}/signoff", response_model=SignoffStatus, responses=errors(401, 404, 422))
@@ -49,8 +52,12 @@ def list_waivers(rail_id: IdPath, session: SessionDep, actor: CurrentActor) -> d
 
 @router.post("/{rail_id}/waivers", status_code=201, response_model=Waiver,
              responses=errors(400, 401, 403, 404, 409, 422))
-def waive(rail_id: IdPath, body: WaiverIn, session: SessionDep, actor: Reviewer) -> dict:
-    """Waive a failing or marginal check of the current revision, with a reason."""
+def waive(rail_id: IdPath, body: WaiverIn, session: SessionDep, actor: Waiving) -> dict:
+    """Waive a failing or marginal check of the current revision, with a reason.
+
+    The team's waiver rules apply: never by the rail's author; a failing check only by the role
+    the team names (nobody by default); under the two-person rule not by a reviewer who approved
+    the revision. Reviewers waive marginal checks."""
     waiver = signoff.waive(session=session, actor=actor, rail_id=rail_id, sha256=body.sha256,
                            check_id=body.check_id, reason=body.reason)
     return signoff.waiver_dict(waiver, waiver.revision_n)
@@ -58,7 +65,7 @@ def waive(rail_id: IdPath, body: WaiverIn, session: SessionDep, actor: Reviewer)
 
 @router.post("/{rail_id}/waivers/{waiver_id}/carry", status_code=201, response_model=Waiver,
              responses=errors(400, 401, 403, 404, 409, 422))
-def carry_waiver(rail_id: IdPath, waiver_id: IdPath, body: WaiverCarry, session: SessionDep, actor: Reviewer) -> dict:
+def carry_waiver(rail_id: IdPath, waiver_id: IdPath, body: WaiverCarry, session: SessionDep, actor: Waiving) -> dict:
     """Carry a waiver of an earlier revision to the current one (the check must still fail or be marginal)."""
     waiver = signoff.carry_waiver(session=session, actor=actor, rail_id=rail_id, waiver_id=waiver_id,
                                   sha256=body.sha256, reason=body.reason)

@@ -10,9 +10,9 @@ from server.api.common import IdPath, TypedRoute, errors
 from server.auth import CurrentActor, require
 from server.db import SessionDep
 from server.schemas.accounts import MemberIn, TeamIn
-from server.schemas.responses import Listing, Team, TeamSummary, Workflow, WorkflowReplaced
-from server.schemas.signoff import WorkflowIn
-from server.services import teams, workflows
+from server.schemas.responses import Listing, SignoffRulesOut, Team, TeamSummary, Workflow, WorkflowReplaced
+from server.schemas.signoff import SignoffRulesIn, WorkflowIn
+from server.services import governance, teams, workflows
 from server.services.access import Actor, Permission
 
 router = APIRouter(prefix="/teams", tags=["teams"], route_class=TypedRoute)
@@ -59,3 +59,17 @@ def get_workflow(team_id: IdPath, session: SessionDep, actor: CurrentActor) -> d
 def set_workflow(team_id: IdPath, body: WorkflowIn, session: SessionDep, actor: Admin) -> dict:
     """Replace the team's workflow; rails in states it no longer has go to its initial state."""
     return workflows.set_workflow(session=session, actor=actor, team_id=team_id, definition=body.definition)
+
+
+@router.get("/{team_id}/signoff-rules", response_model=SignoffRulesOut, responses=errors(401, 404, 422))
+def get_signoff_rules(team_id: IdPath, session: SessionDep, actor: CurrentActor) -> dict:
+    """The team's waiver rules: the two-person rule and the role that may waive failing checks."""
+    return governance.get_rules(session=session, actor=actor, team_id=team_id)
+
+
+@router.put("/{team_id}/signoff-rules", response_model=SignoffRulesOut,
+            responses=errors(400, 401, 403, 404, 409, 422))
+def set_signoff_rules(team_id: IdPath, body: SignoffRulesIn, session: SessionDep, actor: Admin) -> dict:
+    """Replace the team's waiver rules (admins)."""
+    return governance.set_rules(session=session, actor=actor, team_id=team_id, two_person=body.two_person,
+                                fail_waiver_role=body.fail_waiver_role, expected_version=body.expected_version)

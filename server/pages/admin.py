@@ -1,4 +1,5 @@
-"""Admin pages: the teams' workflows, each edited as a form of states and transitions, with its diagram."""
+"""Admin pages: the teams' workflows, each edited as a form of states and transitions, with its diagram;
+and each team's waiver rules (the two-person rule, who may waive a failing check)."""
 
 from __future__ import annotations
 
@@ -14,10 +15,10 @@ from server.pages.common import FormDep, page_context, render
 from server.pages.workflow_diagram import workflow_svg
 from server.pages.workflow_form import (FIELD_WORDS, PlacedErrors, WorkflowForm, definition_of, form_from_definition,
                                         place_errors, read_form)
-from server.services import workflows
+from server.services import governance, workflows
 from server.services.access import Actor, Permission
 from server.services.errors import Conflict, Invalid
-from server.workflow import MAX_APPROVALS, TRANSITION_ROLES
+from server.workflow import FAIL_WAIVER_ROLES, MAX_APPROVALS, TRANSITION_ROLES
 
 router = APIRouter(prefix="/admin", include_in_schema=False)
 Admin = Annotated[Actor, Depends(require(Permission.ADMIN))]
@@ -45,7 +46,20 @@ def workflow_page_context(session: Session, actor: Actor, team_id: int, *, form:
 
 
 def workflows_context(session: Session, actor: Actor) -> dict[str, Any]:
-    return {"workflows": workflows.list_workflows(session=session, actor=actor)}
+    rules = {r["team_id"]: r for r in governance.list_rules(session=session, actor=actor)}
+    return {"workflows": workflows.list_workflows(session=session, actor=actor), "rules": rules}
+
+
+def rules_page_context(session: Session, actor: Actor, team_id: int, *, typed: dict[str, Any] | None = None,
+                       error: dict[str, str] | None = None, saved: bool = False) -> dict[str, Any]:
+    """The waiver rules form of one team: what is stored, or what was typed when it was refused."""
+    actor.require(Permission.ADMIN)
+    stored = governance.get_rules(session=session, actor=actor, team_id=team_id)
+    shown = typed if typed is not None else {"two_person": stored["two_person"],
+                                             "fail_waiver_role": stored["fail_waiver_role"] or "",
+                                             "version": stored["version"]}
+    return {"team": {"id": stored["team_id"], "name": stored["team"]}, "rules": stored, "form": shown,
+            "fail_roles": list(FAIL_WAIVER_ROLES), "error": error, "saved": saved}
 
 
 @router.get("/workflows", response_class=HTMLResponse)
@@ -79,4 +93,33 @@ def workflow_save(request: Request, team_id: int, form: FormDep, session: Sessio
     return render(request, "admin_workflow.html", page_context(request, actor, **context))
 
 
-__all__ = ["router", "workflow_page_context", "workflows_context", "state_options"]
+@router.get("/teams/{team_id}/signoff-rules", response_class=HTMLResponse)
+def rules_form(request: Request, team_id: int, session: SessionDep, actor: Admin) -> Response:
+    context = rules_page_context(session, actor, team_id)
+    return render(request, "admin_signoff_rules.html", page_context(request, actor, **context))
+
+
+@router.post("/teams/{team_id}/signoff-rules", response_class=HTMLResponse)
+def rules_save(request: Request, team_id: int, form: FormDep, session: SessionDep, actor: Admin) -> Response:
+    f = {k: v for k, v in form.items() if isinstance(v, str)}
+    try:
+        version = int(f.get("version", "0") or 0)
+    except ValueError:
+        version = -1
+    typed = {"two_person": f.get("two_person") == "on", "fail_waiver_role": f.get("fail_waiver_role", ""),
+             "version": version}
+    try:
+        governance.set_rules(session=session, actor=actor, team_id=team_id, two_person=typed["two_person"],
+                             fail_waiver_role=typed["fail_waiver_role"] or None, expected_version=version)
+    except (Invalid, Conflict) as exc:
+        session.rollback()
+        field = exc.details[0]["field"] if getattr(exc, "details", None) else "form"
+        context = rules_page_context(session, actor, team_id, typed=typed,
+                                     error={"field": field, "message": exc.message})
+        return render(request, "admin_signoff_rules.html", page_context(request, actor, **context),
+                      exc.status)
+    context = rules_page_context(session, actor, team_id, saved=True)
+    return render(request, "admin_signoff_rules.html", page_context(request, actor, **context))
+
+
+__all__ = ["router", "workflow_page_context", "workflows_context", "state_options", "rules_page_context"]

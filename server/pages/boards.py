@@ -15,7 +15,7 @@ from server.pages import signoff_view
 from server.pages.display import VERDICT_ORDER, check_records, fmt, verdict_style, worst_check
 from server.pages.plots import budget_figure
 from server.pages.rendering import page_context, redirect, render
-from server.services import budget, overview
+from server.services import budget, overview, reviews
 from server.services.access import Actor, Permission
 
 router = APIRouter(include_in_schema=False)
@@ -74,7 +74,15 @@ def board_context(session: Session, actor: Actor, board_id: int, *, q: str = "",
                          "missing": entry["missing"], "figure": budget_figure(entry, f"{name}: {words}"),
                          "rails": entry["rails"]})
     job = overview.active_job(session=session, board_id=board_id, kind="board")
+    assigns_others = actor.can(Permission.RISK) or actor.can(Permission.ADMIN)
+    team_id = data["product"].team_id
+    review = {"assigned": reviews.list_assignments(session=session, actor=actor, board_id=board_id),
+              "reviewers": reviews.team_reviewers(session=session, actor=actor, team_id=team_id)
+              if assigns_others else [],
+              "may_take": actor.can(Permission.REVIEW)}
+    review["may_take"] = review["may_take"] and not any(a["reviewer_id"] == actor.user_id for a in review["assigned"])
     return {"board": data["board"], "product": data["product"], "rows": shown, "total": len(rows),
+            "retired": data["retired"], "review": review,
             "counts": [(v, counts[v]) for v in VERDICT_ORDER if counts.get(v)], "supplies": supplies,
             "job": job, "filters": {"q": q, "verdict": verdict, "mode": mode}, "modes": MODES,
             "verdict_words": [verdict_style(v).word for v in VERDICT_ORDER]}

@@ -88,10 +88,12 @@ def rail_context(session: Session, actor: Actor, rail_id: int) -> dict[str, Any]
     result = AnalysisResult.model_validate(row.result) if row is not None else None
     signoff = signoff_view.rail_signoff(session, actor, rail.id)
     waivers = signoff_view.waivers_by_check(signoff)
+    header = signoff_view.header_context(session, actor, signoff, verdict=result.verdict if result else None)
     ctx: dict[str, Any] = {
         "rail": rail, "head": head, "board": rail.board, "product": rail.board.product, "document": doc,
         "inputs": input_sections(doc), "part": part_status(session, head), "result_row": row, "result": result,
-        "rules_overridden": doc.get("rules") or {}, "signoff": signoff, "waivers": waivers,
+        "rules_overridden": doc.get("rules") or {}, "signoff": signoff, "waivers": waivers, "header": header,
+        "form_error": None,
         "job": overview.active_job(session=session, board_id=rail.board_id, rail_id=rail.id, kind="rail",
                                    sha256=head.sha256),
         "mc_job": overview.active_job(session=session, board_id=rail.board_id, rail_id=rail.id,

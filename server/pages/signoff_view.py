@@ -11,8 +11,13 @@ what ``partials/outdated.html`` shows ("Result of engine X; the current engine i
 pending / re-run now"); the rail page includes it with
 ``{% with outdated = signoff.outdated %}{% include "partials/outdated.html" %}{% endwith %}``.
 
+The header block at the top of the rail page (:func:`header_context`) reads the same status:
+verdict, workflow state, current and stale approvals, waivers (those of failing checks marked
+apart), what each transition from here still needs, and the actions this user may take now,
+each a link to its form.
+
 Provides :func:`rail_signoff`, :func:`outdated_context`, :func:`waivers_by_check`,
-:func:`board_signoff`, :func:`product_states`.
+:func:`board_signoff`, :func:`product_states`, :func:`header_context`.
 """
 
 from __future__ import annotations
@@ -21,10 +26,12 @@ from typing import Any
 
 from sqlalchemy.orm import Session
 
-from server.services import engine_change, overview, signoff
+from server.services import engine_change, overview, reviews, signoff
 from server.services.access import Actor, Permission
+from server.workflow import waiver_refusal, WaiverRules
 
-__all__ = ["rail_signoff", "outdated_context", "waivers_by_check", "board_signoff", "product_states"]
+__all__ = ["rail_signoff", "outdated_context", "waivers_by_check", "board_signoff", "product_states",
+           "header_context"]
 
 
 def outdated_context(session: Session, actor: Actor, status: dict[str, Any]) -> dict[str, Any] | None:
@@ -68,7 +75,20 @@ def rail_signoff(session: Session, actor: Actor, rail_id: int) -> dict[str, Any]
                  and w["check_id"] not in waived_now]
     approved_by_me = any(a["reviewer_id"] == actor.user_id and a["revision"] == head["n"] and not a["stale"]
                          for a in status["approvals"])
-    return {**status, "own_revision": own, "may_review": actor.can(Permission.REVIEW) and not own,
+    rules = WaiverRules(**status["rules"])
+    # what the team's rules let this actor waive, and what they keep from them (in words)
+    may_waive_role = actor.can(Permission.REVIEW) or actor.role == rules.fail_waiver_role
+    not_waivable = [{**c, "why": why} for c in waivable
+                    if (why := waiver_refusal(rules, actor.role, c["verdict"])) is not None]
+    waivable = [c for c in waivable if waiver_refusal(rules, actor.role, c["verdict"]) is None]
+    waived_by_me = [w for w in current if w.get("covers") is not False and w["reviewer_id"] == actor.user_id]
+    two_person_bars_approval = rules.two_person and bool(waived_by_me)
+    two_person_bars_waiver = rules.two_person and approved_by_me
+    retired = status["retired"]
+    return {**status, "own_revision": own, "may_review": actor.can(Permission.REVIEW) and not own and not retired,
+            "may_waive": may_waive_role and not own and not retired and not two_person_bars_waiver,
+            "not_waivable": not_waivable if may_waive_role and not own else [],
+            "two_person_bars_approval": two_person_bars_approval, "two_person_bars_waiver": two_person_bars_waiver,
             "outdated": outdated_context(session, actor, status),
             "needs_result": status["result"] is None or status["result"]["outdated"],
             "approved_by_me": approved_by_me, "current_waivers": current, "waivable": waivable,
@@ -93,3 +113,52 @@ def product_states(session: Session, product_id: int, team_id: int) -> dict[str,
     for entry in overview.signoff_summary(session, team_id=team_id, product_id=product_id).values():
         counts[entry["state"]] = counts.get(entry["state"], 0) + 1
     return counts
+
+
+def _transition_needs(t: dict[str, Any]) -> dict[str, Any]:
+    return {"name": t["name"], "to": t["to"], "roles": t["roles"], "ready": not t["blockers"],
+            "needs": [b["message"] for b in t["blockers"]], "you_may_take": t["you_may_take"]}
+
+
+def header_context(session: Session, actor: Actor, so: dict[str, Any], *, verdict: str | None) -> dict[str, Any]:
+    """The sign-off header of the rail page: the status in a few lines, and what this user may do now.
+
+    ``actions``: (label, href, id) links to the sign-off forms further down the page, in the order a
+    person would take them (editing, copying and the history are the page's own buttons below it).
+    """
+    head_n = so["head"]["n"]
+    current = so["current_approvals"]
+    stale = [a for a in so["stale_approvals"]]
+    renewed = {a["reviewer_id"] for a in current}
+    stale_open = [a for a in stale if a["reviewer_id"] not in renewed]
+    waivers = [w for w in so["current_waivers"] if w.get("covers") is not False]
+    actions: list[dict[str, str]] = []
+    retired = so["retired"]
+    if not retired:
+        for k, t in enumerate(so["transitions"], start=1):
+            if t["you_may_take"]:
+                actions.append({"label": t["name"].capitalize(), "href": f"#transition-{k}", "id": f"act-transition-{k}"})
+        if so["may_review"] and not so["approved_by_me"] and not so["needs_result"] \
+                and not so["two_person_bars_approval"]:
+            actions.append({"label": f"Approve revision {head_n}", "href": "#approve-form", "id": "act-approve"})
+        if so["may_waive"] and so["waivable"]:
+            actions.append({"label": "Waive a check", "href": "#waive-form", "id": "act-waive"})
+    notes = []
+    if so["two_person_bars_approval"]:
+        notes.append(f"You waived a check of revision {head_n}: under the team's two-person rule another reviewer "
+                     "approves it.")
+    if so["two_person_bars_waiver"] and so["checks"]["open"]:
+        notes.append(f"You approved revision {head_n}: under the team's two-person rule another reviewer waives "
+                     "its checks.")
+    if so["own_revision"] and actor.can(Permission.REVIEW):
+        notes.append(f"You authored revision {head_n}: another reviewer approves it and waives its checks.")
+    assigned = reviews.list_assignments(session=session, actor=actor, rail_id=so["rail_id"])
+    assigns_others = actor.can(Permission.RISK) or actor.can(Permission.ADMIN)
+    reviewers = reviews.team_reviewers(session=session, actor=actor, team_id=so["team_id"]) \
+        if assigns_others and not retired else []
+    return {"verdict": verdict, "head_n": head_n, "state": so["state"], "current": current, "stale": stale_open,
+            "waivers": waivers, "past_edge": [w for w in waivers if w.get("past_edge")],
+            "open_checks": so["checks"]["open"], "next": [_transition_needs(t) for t in so["transitions"]],
+            "actions": actions, "notes": notes, "rules": so["rules"], "retired": retired,
+            "assigned": assigned, "reviewers": reviewers, "may_take": actor.can(Permission.REVIEW) and not so["own_revision"]
+            and not retired and not any(a["reviewer_id"] == actor.user_id for a in assigned)}

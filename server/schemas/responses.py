@@ -200,6 +200,9 @@ class RailListItem(_Model):
     head: RevisionSummary
     summary: RailSummary
     part: PartStatus | None = Field(description="the pinned library part (none: the document's own FET)")
+    retired: bool = Field(description="retired: kept with its history, left out of lists, queues and the risk view")
+    retired_at: Timestamp | None
+    retired_by: str | None
 
 
 class FieldWarning(_Model):
@@ -310,6 +313,8 @@ class Waiver(_Model):
     carried_from: int | None = Field(description="the waiver of an earlier revision this one carries")
     engine_version: str | None
     result_id: int | None
+    past_edge: bool = Field(description="a waiver of a failing check: its reading was past the physical edge "
+                                        "(allowed only where the team's rules name a role for it)")
     current: bool | None = Field(None, description="whether it is of the rail's current revision")
     for_current_result: bool | None = None
     result_note: str | None = None
@@ -373,6 +378,12 @@ class OfferedTransition(_Model):
     you_may_take: bool
 
 
+class WaiverRulesOut(_Model):
+    two_person: bool = Field(description="an approval relying on a waiver comes from another reviewer than the "
+                                         "one who waived")
+    fail_waiver_role: str | None = Field(description="the role that may waive failing checks; null: nobody")
+
+
 class SignoffStatus(_Model):
     rail_id: int
     product_id: int
@@ -380,6 +391,8 @@ class SignoffStatus(_Model):
     head: SignoffHead
     state: SignoffState
     workflow: str
+    rules: WaiverRulesOut
+    retired: bool
     result: ResultReading | None
     approvals: list[Approval]
     waivers: list[Waiver]
@@ -638,3 +651,93 @@ class ProductRisks(_Model):
 
 
 ErrorInfo.model_rebuild()
+
+
+# --- waiver rules, review assignments, the review queue ----------------------------------------
+
+
+class SignoffRulesOut(_Model):
+    team_id: int
+    team: str
+    version: int = Field(description="0: the defaults, never saved")
+    updated_at: Timestamp | None
+    updated_by: str
+    two_person: bool = Field(description="an approval relying on a waiver comes from another reviewer than the "
+                                         "one who waived")
+    fail_waiver_role: str | None = Field(description="the role that may waive failing checks; null: nobody")
+    defaults: WaiverRulesOut
+
+
+class ReviewAssignmentOut(_Model):
+    id: int
+    reviewer_id: int
+    reviewer: str
+    rail_id: int | None
+    board_id: int | None
+    target: str = Field(description="the rail or board, in words")
+    assigned_by: str
+    created_at: Timestamp
+
+
+class QueueCheck(_Model):
+    id: str
+    title: str
+    verdict: Verdict
+    value: float | None
+    limit: float | None
+    unit: str | None
+    margin: float | None
+    corner: str | None
+    waived_by: str | None = Field(None, description="the reviewer whose waiver covers it")
+
+
+class QueueChange(_Model):
+    id: str
+    title: str
+    old_verdict: Verdict | None
+    new_verdict: Verdict | None
+    old_value: float | None
+    new_value: float | None
+    unit: str | None
+
+
+class QueueChanges(_Model):
+    since: int | None = Field(description="the last approved revision before the current one (null: none)")
+    inputs: list[FieldChange]
+    results: list[QueueChange]
+    results_known: bool | None = Field(None, description="false: one of the two revisions has no current result")
+
+
+class QueueApprovals(_Model):
+    counted: list[str]
+    barred: list[str] = Field(description="approvals that do not count under the two-person rule")
+    needed: int
+
+
+class QueueRevision(_Model):
+    n: int
+    sha256: Sha256
+    author: str
+    saved_at: Timestamp
+
+
+class QueueEntry(_Model):
+    rail: dict[str, Any]
+    board: dict[str, Any]
+    product: dict[str, Any]
+    revision: QueueRevision
+    state: str
+    waiting_since: Timestamp | None
+    verdict: Verdict | None
+    analysed: bool
+    failing: list[QueueCheck]
+    marginal: list[QueueCheck]
+    approvals: QueueApprovals
+    assigned: Literal["rail", "board"] | None = Field(description="how it is assigned to you (null: team queue)")
+    changes: QueueChanges
+
+
+class ReviewQueue(_Model):
+    assigned: list[QueueEntry] = Field(description="awaiting you, oldest first")
+    team: list[QueueEntry] = Field(description="awaiting a reviewer of your teams, nobody assigned, oldest first")
+    totals: dict[str, int]

@@ -42,3 +42,20 @@ class TransitionIn(_Body):
 
 class WorkflowIn(_Body):
     definition: dict[str, Any] = Field(description="states, transitions and on_edit (see server.workflow)")
+
+
+class SignoffRulesIn(_Body):
+    two_person: bool = Field(True, description="the approval relying on a waiver comes from another reviewer")
+    fail_waiver_role: str | None = Field(None, description="the role that may waive failing checks; null: nobody")
+    expected_version: int | None = Field(None, ge=0, description="the version you read (0: the defaults); a newer "
+                                                                 "one answers 409")
+
+
+class AssignmentIn(_Body):
+    reviewer_id: int | None = Field(None, description="omitted: yourself (taking a review from the team queue)")
+    rail_id: int | None = None
+    board_id: int | None = None
+
+
+class RetireIn(_Body):
+    reason: str = Field("", max_length=1000)

@@ -56,7 +56,7 @@ def signoff_summary(session: Session, *, team_id: int, board_id: int | None = No
     off), its approvals of the current revision, its stale approvals and the waivers of its current
     revision. Three queries however many rails."""
     wf = workflows.definition_for_team(session, team_id)
-    rails = select(Rail.id, Rail.head_n).join(Board, Board.id == Rail.board_id)
+    rails = select(Rail.id, Rail.head_n).join(Board, Board.id == Rail.board_id).where(Rail.retired_at.is_(None))
     if board_id is not None:
         rails = rails.where(Rail.board_id == board_id)
     if product_id is not None:
@@ -89,7 +89,7 @@ def outdated_counts(session: Session, *, product_ids: list[int] | None = None,
     engine only; a page shows them apart as outdated.
     """
     stmt = (select(Board.product_id, Rail.board_id, func.count()).select_from(Rail)
-            .join(Board, Board.id == Rail.board_id).where(head_is_outdated())
+            .join(Board, Board.id == Rail.board_id).where(head_is_outdated(), Rail.retired_at.is_(None))
             .group_by(Board.product_id, Rail.board_id))
     if product_ids is not None:
         if not product_ids:
@@ -126,7 +126,8 @@ def home_products(*, session: Session, actor: Actor) -> list[dict[str, Any]]:
         stmt = (select(Board.product_id, AnalysisResult.verdict, func.count())
                 .select_from(Rail).join(Board, Board.id == Rail.board_id)
                 .outerjoin(AnalysisResult, nominal_result_of_head())
-                .where(Board.product_id.in_(ids)).group_by(Board.product_id, AnalysisResult.verdict))
+                .where(Board.product_id.in_(ids), Rail.retired_at.is_(None))
+                .group_by(Board.product_id, AnalysisResult.verdict))
         for pid, verdict, n in session.execute(stmt):
             counts[pid][verdict] += n
     outdated = outdated_counts(session, product_ids=ids)
@@ -146,7 +147,7 @@ def product_overview(*, session: Session, actor: Actor, product_id: int) -> dict
     rows = session.execute(
         select(Rail.id, Rail.name, Rail.board_id, Rail.head_n, Rail.updated_at, AnalysisResult.verdict)
         .join(Board, Board.id == Rail.board_id).outerjoin(AnalysisResult, nominal_result_of_head())
-        .where(Board.product_id == product.id)).all()
+        .where(Board.product_id == product.id, Rail.retired_at.is_(None))).all()
     per_board: dict[int, Counter] = {b.id: Counter() for b in boards}
     for r in rows:
         per_board[r.board_id][r.verdict] += 1
@@ -195,7 +196,7 @@ def board_rails(*, session: Session, actor: Actor, board_id: int) -> dict[str, A
                    AnalysisResult.created_at)
             .join(RailRevision, (RailRevision.rail_id == Rail.id) & (RailRevision.n == Rail.head_n))
             .outerjoin(AnalysisResult, nominal_result_of_head())
-            .where(Rail.board_id == board.id).order_by(Rail.name))
+            .where(Rail.board_id == board.id, Rail.retired_at.is_(None)).order_by(Rail.name))
     rows = session.execute(stmt).all()
     parts = result_parts(session, [ResultKey(r[9], r[10], r[11]) for r in rows if r[9] is not None])
     outdated = results.outdated_verdicts(session, [r[10] for r in rows if r[9] is None])
@@ -208,7 +209,10 @@ def board_rails(*, session: Session, actor: Actor, board_id: int) -> dict[str, A
                       "verdict": verdict, "analysed_at": analysed_at, "checks": p.checks if p else [],
                       "startup": (p.t, p.i) if p and p.t and p.i else None,
                       "outdated": outdated.get(sha) if verdict is None else None})
-    return {"board": board, "product": board.product, "rails": rails}
+    retired = [{"id": rid, "name": name, "head_n": n, "retired_at": at, "retired_by": by} for rid, name, n, at, by in
+               session.execute(select(Rail.id, Rail.name, Rail.head_n, Rail.retired_at, Rail.retired_by)
+                               .where(Rail.board_id == board.id, Rail.retired_at.is_not(None)).order_by(Rail.name))]
+    return {"board": board, "product": board.product, "rails": rails, "retired": retired}
 
 
 def active_job(*, session: Session, board_id: int, rail_id: int | None = None, kind: str | None = None,

@@ -1,4 +1,8 @@
-"""Rail edits: create a rail, save a new revision with conflict detection, delete.
+"""Rail edits: create a rail, save a new revision with conflict detection, retire and restore, delete.
+
+A retired rail keeps its revisions, results, sign-off and audit trail; it leaves the lists,
+the review queue and the risk view, takes no new revision and no sign-off, and is restored by
+the same people who edit rails.
 
 A save names the revision it was based on (sha256 or number). When the rail has moved on
 since, the save is refused with :class:`Conflict` carrying the current revision, and
@@ -31,7 +35,7 @@ from server.services.errors import Conflict, Invalid, NotFound, PreconditionRequ
 from server.services.parts import get_part_revision
 from server.services.rails import diff_documents, get_rail, normalize_document, revision_dict
 
-__all__ = ["KEEP_PART", "PartRef", "create_rail", "save_rail", "delete_rail"]
+__all__ = ["KEEP_PART", "PartRef", "create_rail", "save_rail", "delete_rail", "retire_rail", "restore_rail"]
 
 
 class _Keep:
@@ -116,6 +120,8 @@ def save_rail(*, session: Session, actor: Actor, rail_id: int, document: Any, ba
         raise PreconditionRequired(
             "say which revision your edit is based on: an If-Match header with its sha256, or base_revision")
     rail = get_rail(session=session, actor=actor, rail_id=rail_id, for_update=True)
+    if rail.retired_at is not None:
+        raise signoff.RailRetired(f"rail '{rail.name}' is retired: restore it before saving a new revision")
     head = session.scalar(select(RailRevision).where(RailRevision.rail_id == rail.id, RailRevision.n == rail.head_n))
     stale = (base_sha256 is not None and base_sha256 != rail.head_sha256) or \
             (base_n is not None and base_n != rail.head_n)
@@ -161,3 +167,30 @@ def delete_rail(*, session: Session, actor: Actor, rail_id: int) -> None:
            product_id=rail.board.product_id, before={"n": rail.head_n, "sha256": rail.head_sha256})
     session.delete(rail)
     session.commit()
+
+
+def retire_rail(*, session: Session, actor: Actor, rail_id: int, reason: str = "") -> Rail:
+    """Retire a rail: kept with its history, hidden from lists, the queue and the risk view (editors)."""
+    actor.require(Permission.EDIT)
+    rail = get_rail(session=session, actor=actor, rail_id=rail_id, for_update=True)
+    if rail.retired_at is not None:
+        raise Conflict(f"rail '{rail.name}' is retired already (by {rail.retired_by})")
+    rail.retired_at, rail.retired_by = utcnow(), actor.name
+    record(session, actor, action="retire", object_type="rail", object_id=rail.id, object_repr=rail.name,
+           product_id=rail.board.product_id, after={"revision": rail.head_n, "reason": (reason or "").strip()[:1000]})
+    session.commit()
+    return rail
+
+
+def restore_rail(*, session: Session, actor: Actor, rail_id: int) -> Rail:
+    """Bring a retired rail back into the lists, the queue and the risk view (editors)."""
+    actor.require(Permission.EDIT)
+    rail = get_rail(session=session, actor=actor, rail_id=rail_id, for_update=True)
+    if rail.retired_at is None:
+        raise Conflict(f"rail '{rail.name}' is not retired")
+    before = {"retired_at": rail.retired_at.isoformat(), "retired_by": rail.retired_by}
+    rail.retired_at, rail.retired_by = None, ""
+    record(session, actor, action="restore", object_type="rail", object_id=rail.id, object_repr=rail.name,
+           product_id=rail.board.product_id, before=before, after={"revision": rail.head_n})
+    session.commit()
+    return rail

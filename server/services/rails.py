@@ -59,7 +59,9 @@ def part_status(session: Session, rev: RailRevision) -> dict | None:
 def _rail_dict(rail: Rail, head: RailRevision, product_id: int, part: dict | None, with_document: bool) -> dict:
     out = {"id": rail.id, "board_id": rail.board_id, "product_id": product_id, "name": rail.name,
            "mode": rail.mode, "created_at": rail.created_at.isoformat(), "updated_at": rail.updated_at.isoformat(),
-           "head": revision_dict(head, with_document=False), "summary": rail.summary, "part": part}
+           "head": revision_dict(head, with_document=False), "summary": rail.summary, "part": part,
+           "retired": rail.retired_at is not None,
+           "retired_at": rail.retired_at.isoformat() if rail.retired_at else None, "retired_by": rail.retired_by or None}
     if with_document:
         out["document"] = head.document
         out["warnings"] = document_warnings(head.document)
@@ -87,13 +89,14 @@ def rail_dicts(session: Session, rows: list[tuple[Rail, RailRevision]], *, with_
 
 def list_rails(*, session: Session, actor: Actor, product_id: int | None = None, board_id: int | None = None,
                mode: str | None = None, q: str | None = None, limit: int = 50, offset: int = 0,
-               with_documents: bool = True) -> tuple[list[tuple[Rail, RailRevision]], int]:
+               with_documents: bool = True, retired: bool = False) -> tuple[list[tuple[Rail, RailRevision]], int]:
     """Rails with their head revisions, filtered and paginated, ordered by board then name.
 
     ``with_documents=False`` leaves the revisions' documents unread (``Rail.summary`` has
     the figures a list shows); reading ``head.document`` then loads it on demand.
     """
     ids = scoped_rails(select(Rail.id), actor)
+    ids = ids.where(Rail.retired_at.is_not(None) if retired else Rail.retired_at.is_(None))
     if product_id is not None:
         if actor.all_teams:
             ids = ids.join(Board, Board.id == Rail.board_id)

@@ -22,7 +22,8 @@ records are the analysis' own.
 
 Provides :func:`risk_view` (the rails of every product the actor sees, filtered),
 :func:`product_risks` (one product per board, the API's answer), :func:`risk_csv`,
-:func:`trend`, :func:`note_snapshots`, :func:`snapshot_all`.
+:func:`trend`, :func:`note_snapshots`, :func:`snapshot_all`; :func:`owner_actions` (a designer's own rails
+that need their action, from the same entries).
 """
 
 from __future__ import annotations
@@ -51,7 +52,8 @@ from server.services.signoff import covering_waivers, waiver_dict
 from server.workflow import ApprovalFact, RailFacts, WorkflowDef, current_approvers, outstanding_stale
 
 __all__ = ["TECHNICAL_KINDS", "PROCESS_KINDS", "RISK_KINDS", "COUNT_KEYS", "CAUTION", "risk_view", "product_risks",
-           "risk_csv", "CSV_COLUMNS", "trend", "note_snapshots", "snapshot_all", "TREND_DAYS"]
+           "risk_csv", "CSV_COLUMNS", "trend", "note_snapshots", "snapshot_all", "TREND_DAYS", "owner_actions",
+           "ACTION_WORDS"]
 
 # Worst first: the order of the view, of each rail's list of kinds, and of the counts.
 TECHNICAL_KINDS = ("failing_check", "never_analysed", "not_analysed", "marginal_check", "outdated_result",
@@ -106,9 +108,10 @@ def _read(session: Session, product_ids: list[int]) -> _Rows:
             .join(head, (head.rail_id == Rail.id) & (head.n == Rail.head_n))
             .outerjoin(AnalysisResult, current)
             .outerjoin(pinned, pinned.id == head.part_revision_id).outerjoin(Part, Part.id == pinned.part_id)
-            .where(Board.product_id.in_(product_ids)).order_by(Rail.id))
+            .where(Board.product_id.in_(product_ids), Rail.retired_at.is_(None)).order_by(Rail.id))
     rails = list(session.execute(stmt))
-    in_products = select(Rail.id).join(Board, Board.id == Rail.board_id).where(Board.product_id.in_(product_ids))
+    in_products = select(Rail.id).join(Board, Board.id == Rail.board_id).where(Board.product_id.in_(product_ids),
+                                                                                Rail.retired_at.is_(None))
     parts = result_parts(session, [ResultKey(r.result_id, r.head_sha256, r.result_at)
                                    for r in rails if r.result_id is not None])
     checks = {r.id: parts[r.result_id] for r in rails if r.result_id in parts}
@@ -351,6 +354,37 @@ def product_risks(*, session: Session, actor: Actor, product_id: int) -> dict[st
             "engine_moves": engine_change.moved_rails(session=session, actor=actor, product_id=product.id, limit=50)}
 
 
+# What the owner of a rail does about each kind of risk, in words (awaiting review: a reviewer's move).
+ACTION_WORDS = {
+    "failing_check": "failing checks: change the design (a failing check is waived only where the team's rules allow)",
+    "never_analysed": "never analysed: analyse it",
+    "not_analysed": "the current revision has no result yet: analyse it",
+    "marginal_check": "marginal checks: change the design or ask a reviewer for a waiver",
+    "outdated_result": "its result is of an older engine: re-run it",
+    "outdated_part": "the part library has a newer revision of its MOSFET",
+    "stale_signoff": "approvals of an earlier revision are stale: submit the current revision for review",
+    "missing_signoff": "not signed off: submit it for review",
+}
+
+
+def owner_actions(*, session: Session, actor: Actor, limit: int = 50) -> dict[str, Any]:
+    """The actor's own rails (they saved the current revision) that need their action, worst first, each with
+    what to do in words; rails only waiting for a reviewer are left out. ``total`` counts them all."""
+    products = _visible_products(session, actor, None)
+    mine = [e for e in _entries(session, products) if e["owner"] == actor.name]
+    out = []
+    for e in sorted(mine, key=_severity_key):
+        kinds = [k for k in e["risks"] if k in ACTION_WORDS]
+        if "awaiting_review" in e["risks"] or e["current_approvals"]:
+            kinds = [k for k in kinds if k != "missing_signoff"]     # a reviewer's move now
+        if kinds:
+            out.append({"id": e["id"], "name": e["name"], "product": e["product"], "board": e["board"],
+                        "state": e["state"], "revision": e["head"]["n"], "kinds": kinds,
+                        "todo": [ACTION_WORDS[k] for k in kinds], "failing": len(e["failing"]),
+                        "marginal": len(e["marginal"])})
+    return {"rails": out[:limit], "total": len(out)}
+
+
 # --- CSV -------------------------------------------------------------------------------------
 
 CSV_COLUMNS = ["product", "board", "board_revision", "rail", "rail_id", "revision", "owner", "state", "signed_off",
@@ -380,7 +414,8 @@ def risk_csv(view: dict[str, Any]) -> str:
             e["product"]["name"], e["board"]["name"], e["board"]["revision"], e["name"], e["id"], e["head"]["n"],
             e["owner"], e["state"], "yes" if e["signed_off"] else "no", e["risks"][0] if e["risks"] else "",
             " ".join(e["technical"]), " ".join(e["process"]), _check_list(e["failing"]), _check_list(e["marginal"]),
-            "; ".join(f"{c.get('id')} ({c['waiver']['reviewer']}: {c['waiver']['reason']})" for c in e["waived"]),
+            "; ".join(f"{c.get('id')} ({'failing check waived, ' if c['waiver'].get('past_edge') else ''}"
+                      f"{c['waiver']['reviewer']}: {c['waiver']['reason']})" for c in e["waived"]),
             e["outdated"]["engine_version"] if e["outdated"] else "",
             f"{part['name']} {part['pinned_revision']} of {part['latest_revision']}" if part else "",
             "; ".join(f"{s['reviewer']} (revision {s['revision']})" for s in e["stale_approvals"]),

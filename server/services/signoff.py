@@ -10,6 +10,13 @@ reason) and the rail goes to the state its workflow names; a new engine reading 
 worse does the same through :func:`make_stale` (see :mod:`server.services.engine_change`).
 Waivers cover their revision only, and a check only while it reads no worse than the verdict
 waived; :func:`carry_waiver` is the explicit act that carries one to the current revision.
+
+The team's waiver rules (:mod:`server.services.governance`) are enforced here, for the API and
+the pages alike: a waiver is never granted by the rail's author (the author of its first or
+its current revision); a failing check (past the physical edge, by the stored record's own
+verdict) is waived only by the role the team names, and nobody by default; under the
+two-person rule (on by default) a reviewer who waived a check of a revision does not approve
+it, nor waives after approving it, and such an approval does not count for a transition.
 """
 
 from __future__ import annotations
@@ -21,17 +28,17 @@ from sqlalchemy.orm import Session
 
 from server.models import AnalysisResult, Approval, Rail, RailRevision, Waiver, utcnow
 from server.services.rails import get_rail
-from server.services import workflows
+from server.services import governance, workflows
 from server.services.access import Actor, Permission
 from server.services.errors import Conflict, Forbidden, Invalid, NotFound, flush_or_conflict
 from server.services.audit import record
 from server.services.results import Reading, checks_for_revision, engine_version, reading
-from server.workflow import (PROBLEM_VERDICTS, SEVERITY, ApprovalFact, CheckFact, RailFacts, WorkflowDef, blockers,
-                             waiver_covers)
+from server.workflow import (FAIL_WAIVER_ROLES, PROBLEM_VERDICTS, SEVERITY, ApprovalFact, CheckFact, RailFacts, WaiverRules,
+                             WorkflowDef, blockers, two_person_refusal, waiver_covers, waiver_refusal)
 
 __all__ = ["TransitionBlocked", "NotAnalysed", "approval_dict", "waiver_dict", "result_note", "on_new_revision",
            "make_stale", "approve", "list_approvals", "waive", "carry_waiver", "list_waivers", "take_transition",
-           "signoff_status", "rail_facts", "current_reading", "covering_waivers"]
+           "signoff_status", "rail_facts", "current_reading", "covering_waivers", "RailRetired"]
 
 
 class TransitionBlocked(Conflict):
@@ -40,6 +47,10 @@ class TransitionBlocked(Conflict):
 
 class NotAnalysed(Conflict):
     code = "not_analysed"
+
+
+class RailRetired(Conflict):
+    code = "rail_retired"
 
 
 def result_note(engine_version: str | None, result_id: int | None, current: Reading | None) -> str | None:
@@ -85,7 +96,9 @@ def waiver_dict(w: Waiver, head_n: int | None = None, current: Reading | None = 
     out = {"id": w.id, "rail_id": w.rail_id, "revision": w.revision_n, "sha256": w.sha256, "check_id": w.check_id,
            "check_title": w.check_title, "verdict": w.verdict, "reason": w.reason, "reviewer": w.reviewer_name,
            "reviewer_id": w.reviewer_id, "created_at": w.created_at.isoformat(), "carried_from": w.carried_from_id,
-           "engine_version": w.engine_version, "result_id": w.result_id}
+           "engine_version": w.engine_version, "result_id": w.result_id,
+           # a waiver of a failing check (past the physical edge): marked apart wherever waivers are shown
+           "past_edge": w.verdict == "fail"}
     if head_n is not None:
         out["current"] = w.revision_n == head_n
         if current is not None and w.revision_n == head_n:
@@ -196,13 +209,18 @@ def covering_waivers(checks: list[dict] | None, waivers: list[Waiver], head_n: i
 
 
 def rail_facts(session: Session, rail: Rail, state: str, *, approvals: list[Approval] | None = None,
-               waivers: list[Waiver] | None = None, checks: list[dict] | None | Any = ...) -> RailFacts:
-    """What the workflow rules need to know about ``rail`` in ``state``."""
+               waivers: list[Waiver] | None = None, checks: list[dict] | None | Any = ...,
+               rules: WaiverRules | None = None) -> RailFacts:
+    """What the workflow rules need to know about ``rail`` in ``state`` (with the team's waiver rules)."""
     approvals = _approvals(session, rail.id) if approvals is None else approvals
     waivers = _waivers(session, rail.id) if waivers is None else waivers
     if checks is ...:
         checks = checks_for_revision(session, sha256=rail.head_sha256)
+    if rules is None:
+        rules = governance.rules_for_team(session, workflows.team_of_rail(session, rail)[0])
     return RailFacts(
+        waivers_by=frozenset(w.reviewer_id for w in covering_waivers(checks, waivers, rail.head_n).values()),
+        two_person=rules.two_person,
         state=state, head_n=rail.head_n,
         approvals=tuple(ApprovalFact(a.reviewer_id, a.reviewer_name, a.revision_n, a.stale_at is not None)
                         for a in approvals),
@@ -250,7 +268,8 @@ def signoff_status(*, session: Session, actor: Actor, rail_id: int) -> dict[str,
     approvals, waivers = _approvals(session, rail.id), _waivers(session, rail.id)
     now = current_reading(session, rail)
     checks = None if now is None or now.outdated else list(now.row.result.get("checks", []))
-    facts = rail_facts(session, rail, row.state, approvals=approvals, waivers=waivers, checks=checks)
+    rules = governance.rules_for_team(session, team_id)
+    facts = rail_facts(session, rail, row.state, approvals=approvals, waivers=waivers, checks=checks, rules=rules)
     head = _head(session, rail)
     verdicts = _worst_verdicts(checks)
     return {
@@ -258,7 +277,8 @@ def signoff_status(*, session: Session, actor: Actor, rail_id: int) -> dict[str,
         "head": {"n": head.n, "sha256": head.sha256, "author": head.author_name, "author_id": head.author_id},
         "state": {"name": row.state, "signed_off": wf.is_signed_off(row.state), "since": row.since.isoformat()
                   if row.since else None, "revision": row.revision_n, "by": row.changed_by},
-        "workflow": wf.name,
+        "workflow": wf.name, "rules": rules.as_dict(),
+        "retired": rail.retired_at is not None,
         "result": now.as_dict() if now is not None else None,
         "approvals": [approval_dict(a, now, rail.head_n) for a in approvals],
         "waivers": [_head_waiver_dict(w, rail.head_n, now, None if checks is None else verdicts.get(w.check_id, "n/a"))
@@ -306,7 +326,52 @@ def _refuse_own(actor: Actor, rev: RailRevision, what: str) -> None:
 
 
 def _locked_rail(session: Session, actor: Actor, rail_id: int) -> Rail:
-    return get_rail(session=session, actor=actor, rail_id=rail_id, for_update=True)
+    rail = get_rail(session=session, actor=actor, rail_id=rail_id, for_update=True)
+    if rail.retired_at is not None:
+        raise RailRetired(f"rail '{rail.name}' is retired: restore it before signing it off")
+    return rail
+
+
+def _refuse_rail_author(session: Session, actor: Actor, rail: Rail, rev: RailRevision) -> None:
+    """A waiver is never granted by the rail's author: whoever wrote its first or its current revision."""
+    _refuse_own(actor, rev, "waive checks of")
+    first = session.scalar(select(RailRevision).where(RailRevision.rail_id == rail.id).order_by(RailRevision.n)
+                           .limit(1))
+    if first is not None and first.n != rev.n:
+        own = (first.author_id is not None and first.author_id == actor.user_id) or \
+              (first.author_id is None and first.author_name == actor.name)
+        if own:
+            raise Forbidden(f"you created rail '{rail.name}': someone else waives its checks")
+
+
+def _rules(session: Session, rail: Rail) -> WaiverRules:
+    return governance.rules_for_team(session, workflows.team_of_rail(session, rail)[0])
+
+
+def _may_waive(session: Session, actor: Actor, rail: Rail, rev: RailRevision, verdict: str) -> None:
+    """The team's waiver rules for ``actor`` waiving a check reading ``verdict`` of ``rev`` (403 otherwise)."""
+    rules = _rules(session, rail)
+    why = waiver_refusal(rules, actor.role, verdict)
+    if why is not None:
+        raise Forbidden(why)
+    if rules.two_person:
+        approved = session.scalar(select(Approval.id).where(Approval.rail_id == rail.id, Approval.revision_n == rev.n,
+                                                            Approval.reviewer_id == actor.user_id,
+                                                            Approval.stale_at.is_(None)).limit(1))
+        if approved is not None:
+            raise Forbidden(two_person_refusal(rules, approving=False, revision_n=rev.n))
+
+
+def _require_waiver_role(session: Session, actor: Actor, rail_id: int) -> None:
+    """Reviewers waive; so does the role a team names for failing checks (its rules decide per check)."""
+    if actor.can(Permission.REVIEW):
+        return
+    if actor.role not in FAIL_WAIVER_ROLES:
+        actor.require(Permission.REVIEW)
+    rail = get_rail(session=session, actor=actor, rail_id=rail_id)
+    role = _rules(session, rail).fail_waiver_role
+    if role is None or actor.role != role:
+        actor.require(Permission.REVIEW)
 
 
 def approve(*, session: Session, actor: Actor, rail_id: int, sha256: str, comment: str) -> Approval:
@@ -325,6 +390,13 @@ def approve(*, session: Session, actor: Actor, rail_id: int, sha256: str, commen
     if exists is not None:
         raise Conflict(f"you approved revision {rev.n} already")
     result = _current_result(session, rail, rev, "approve")
+    rules = _rules(session, rail)
+    if rules.two_person:
+        mine = [w for w in covering_waivers(list(result.result.get("checks", [])), _waivers(session, rail.id), rev.n)
+                .values() if w.reviewer_id == actor.user_id]
+        if mine:
+            raise Forbidden(two_person_refusal(rules, approving=True, revision_n=rev.n) + " (your waiver of "
+                            + ", ".join(f"'{w.check_title or w.check_id}'" for w in mine) + ")")
     approval = Approval(rail_id=rail.id, revision_n=rev.n, sha256=rev.sha256, reviewer_id=actor.user_id,
                         reviewer_name=actor.name, comment=comment[:4000], engine_version=result.engine_version,
                         result_id=result.id)
@@ -400,23 +472,28 @@ def _add_waiver(session: Session, actor: Actor, rail: Rail, rev: RailRevision, f
 
 
 def waive(*, session: Session, actor: Actor, rail_id: int, sha256: str, check_id: str, reason: str) -> Waiver:
-    """Waive a failing or marginal check of the rail's current revision, with a reason (reviewers)."""
-    actor.require(Permission.REVIEW)
+    """Waive a failing or marginal check of the rail's current revision, with a reason (reviewers; a failing
+    check only by the role the team's rules name)."""
+    _require_waiver_role(session, actor, rail_id)
     reason = (reason or "").strip()
     if not reason:
-        raise Invalid("a waiver needs a reason", details=[{"field": "reason", "message": "is required"}])
+        raise Invalid("a waiver needs a reason: say why the reading is acceptable",
+                      details=[{"field": "reason", "message": "is required: say why the reading is acceptable"}])
     rail = _locked_rail(session, actor, rail_id)
     rev = _current_revision(session, rail, sha256, "waiving a check of")
-    _refuse_own(actor, rev, "waive checks of")
-    waiver = _add_waiver(session, actor, rail, rev, _problem_check(session, rail, rev, check_id), reason, None)
+    _refuse_rail_author(session, actor, rail, rev)
+    found = _problem_check(session, rail, rev, (check_id or "").strip())
+    _may_waive(session, actor, rail, rev, str(found[0].get("verdict")))
+    waiver = _add_waiver(session, actor, rail, rev, found, reason, None)
     session.commit()
     return waiver
 
 
 def carry_waiver(*, session: Session, actor: Actor, rail_id: int, waiver_id: int, sha256: str,
                  reason: str | None = None) -> Waiver:
-    """Carry a waiver of an earlier revision to the current one (reviewers; the check must still need it)."""
-    actor.require(Permission.REVIEW)
+    """Carry a waiver of an earlier revision to the current one (reviewers; the check must still need it, and
+    the team's waiver rules apply as to a new waiver)."""
+    _require_waiver_role(session, actor, rail_id)
     rail = _locked_rail(session, actor, rail_id)
     source = session.get(Waiver, waiver_id)
     if source is None or source.rail_id != rail.id:
@@ -424,8 +501,9 @@ def carry_waiver(*, session: Session, actor: Actor, rail_id: int, waiver_id: int
     rev = _current_revision(session, rail, sha256, "carrying a waiver to")
     if source.revision_n == rev.n:
         raise Conflict(f"waiver {waiver_id} covers revision {rev.n} already")
-    _refuse_own(actor, rev, "waive checks of")
+    _refuse_rail_author(session, actor, rail, rev)
     found = _problem_check(session, rail, rev, source.check_id)
+    _may_waive(session, actor, rail, rev, str(found[0].get("verdict")))
     text = (reason or "").strip() or source.reason
     waiver = _add_waiver(session, actor, rail, rev, found, text, source)
     session.commit()

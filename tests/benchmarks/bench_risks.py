@@ -1,12 +1,14 @@
 """Benchmark of the risk view: server time of ``/products/{id}/risks``, ``/risks`` and ``/risks.csv`` for a
-product with 5,000 rails on 25 boards of 200 (goal: under 300 ms).
+product with 5,000 rails on 25 boards of 200 (goal: under 300 ms); and of a reviewer's queue over the same
+rails (``/api/v1/reviews/queue`` and the home page that shows it; goal: under 300 ms).
 
 Run: ``python tests/benchmarks/bench_risks.py [--rails N] [--repeat N] [--engines sqlite postgres]``.
 
 Seeding as ``bench_pages.py`` (rails through the rail service, a stored result per distinct design
 given to every rail of it); on top, the sign-off as a busy product has it: a third of the rails
 awaiting review, every tenth approved and then edited (its approval stale), every seventh with
-a waiver of its current revision's worst problem check, and 30 days of daily snapshots. The
+a waiver of its current revision's worst problem check, and 30 days of daily snapshots. A second
+reviewer is assigned to five of the boards (the rest of the rails awaiting review are the team queue). The
 timings are the app's Server-Timing header through the ASGI test client in this process; the
 first view of a day (which takes the snapshot) is timed apart.
 """
@@ -27,16 +29,17 @@ from sqlalchemy import delete, insert, select  # noqa: E402
 
 from server.app import create_app  # noqa: E402
 from server.auth import SESSION_COOKIE  # noqa: E402
-from server.models import (AnalysisResult, Approval, Rail, RailState, RiskSnapshot, Waiver,  # noqa: E402
-                           utcnow)
+from server.models import (AnalysisResult, Approval, Rail, RailState, ReviewAssignment, RiskSnapshot,  # noqa: E402
+                           Waiver, utcnow)
 from server.services import result_parts, users  # noqa: E402
 from server.services.access import Actor  # noqa: E402
 from tests.benchmarks.bench_pages import seed  # noqa: E402
 from tests.benchmarks.common import database, server_time_s, settings_for, summary_ms  # noqa: E402
 
 
-def sign_off_state(app, ids: dict) -> int:
-    """Workflow states, approvals (some stale), waivers and 30 days of snapshots; returns the manager's id."""
+def sign_off_state(app, ids: dict) -> tuple[int, int]:
+    """Workflow states, approvals (some stale), waivers, board assignments and 30 days of snapshots; returns the
+    ids of the manager and of the assigned reviewer."""
     factory = app.state.sessionmaker
     now = utcnow()
     with factory() as s:
@@ -45,6 +48,8 @@ def sign_off_state(app, ids: dict) -> int:
                                     password=None, teams=["bench-team"])
         reviewer = users.create_user(session=s, actor=system, username="bench-reviewer", role="reviewer",
                                      password=None, teams=["bench-team"])
+        queued = users.create_user(session=s, actor=system, username="bench-reviewer2", role="reviewer",
+                                   password=None, teams=["bench-team"])
         rails = s.execute(select(Rail.id, Rail.head_sha256).order_by(Rail.id)).all()
         checks = dict(s.execute(select(AnalysisResult.sha256, AnalysisResult.result["checks"])
                                 .where(AnalysisResult.options["monte_carlo"].as_integer() == 0)).all())
@@ -67,6 +72,9 @@ def sign_off_state(app, ids: dict) -> int:
         for table, rows in ((RailState, states), (Approval, approvals), (Waiver, waivers)):
             for a in range(0, len(rows), 500):
                 s.execute(insert(table), rows[a:a + 500])
+        s.execute(insert(ReviewAssignment), [{"reviewer_id": queued.id, "board_id": b, "rail_id": None,
+                                              "assigned_by": "bench", "created_at": now}
+                                             for b in ids["board_ids"][:5]])
         product_id = ids["product_id"]
         s.execute(insert(RiskSnapshot), [{"product_id": product_id, "day": now.date() - timedelta(days=d),
                                           "taken_at": now, "counts": {"failing_check": 100 + d, "rails": 5000}}
@@ -74,7 +82,26 @@ def sign_off_state(app, ids: dict) -> int:
         s.commit()
         print(f"  sign-off state: {len(states)} awaiting review, {len(approvals)} stale approvals, "
               f"{len(waivers)} waivers, 30 days of snapshots")
-        return manager.id
+        return manager.id, queued.id
+
+
+def queue_times(app, reviewer_id: int, repeat: int) -> None:
+    """Server time of the reviewer's queue: the API answer and the home page that shows it."""
+    cookie, _ = app.state.session_cookie.dump(reviewer_id)
+    with TestClient(app) as client:
+        client.cookies.set(SESSION_COOKIE, cookie)
+        answer = client.get("/api/v1/reviews/queue")
+        assert answer.status_code == 200, answer.text[:300]
+        body = answer.json()
+        print(f"  review queue: {body['totals']['assigned']} assigned (boards), {body['totals']['team']} in the team "
+              f"queue; {len(body['assigned'])} + {len(body['team'])} shown with their changes")
+        for label, path in (("review queue (API)", "/api/v1/reviews/queue"), ("reviewer's home page", "/")):
+            times = []
+            for _ in range(repeat):
+                r = client.get(path)
+                assert r.status_code == 200, (path, r.status_code)
+                times.append(server_time_s(r))
+            print(f"  {label:<28} {summary_ms(times)}   goal < 300 ms")
 
 
 def server_times(app, ids: dict, manager_id: int, repeat: int) -> None:
@@ -110,8 +137,9 @@ def run(engine_name: str, args: argparse.Namespace) -> None:
         app = create_app(settings_for(url))
         print(f"{engine_name}:")
         ids = seed(app, args.rails)
-        manager_id = sign_off_state(app, ids)
+        manager_id, reviewer_id = sign_off_state(app, ids)
         server_times(app, ids, manager_id, args.repeat)
+        queue_times(app, reviewer_id, args.repeat)
         app.state.engine.dispose()
 
 

@@ -275,7 +275,7 @@ def test_a_reviewer_approves_from_the_keyboard_and_a_manager_reads_the_risks(bro
     context = browser.new_context(viewport={"width": 1280, "height": 900}, base_url=served["base"])
     pg = context.new_page()
     log_in(pg, "manager")
-    pg.get_by_role("link", name="Risks").click()
+    pg.get_by_role("link", name="Risks", exact=True).click()
     pg.wait_for_selector("h1:has-text('Risks of every product you can see')")
     pg.select_option("#filter-product", label="Tideline buoy")
     pg.get_by_role("button", name="Show").click()

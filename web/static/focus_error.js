@@ -1,7 +1,18 @@
-/* railsign: bring a form's error summary into view and give it the focus, so a refused form never looks
-   as if nothing happened. */
+// A refused form: bring its error (marked data-focus-error) into view and give it the focus, so that
+// the person reads what went wrong beside the form they sent, wherever it sits on the page.
 (function () {
   "use strict";
-  var summary = document.getElementById("error-summary");
-  if (summary) { summary.scrollIntoView({ block: "center" }); summary.focus(); }
+  function show() {
+    var el = document.querySelector("[data-focus-error]");
+    if (!el) { return; }
+    var fold = el.closest("details");
+    if (fold) { fold.open = true; }
+    el.scrollIntoView({block: "center"});
+    el.focus({preventScroll: true});
+  }
+  if (document.readyState === "loading") {
+    document.addEventListener("DOMContentLoaded", show);
+  } else {
+    show();
+  }
 })();
