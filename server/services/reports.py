@@ -21,6 +21,7 @@ deletions), and a later edit of a rail changes the live report, never an archive
 from __future__ import annotations
 
 import hashlib
+import re
 from datetime import datetime
 from typing import Any
 
@@ -42,8 +43,8 @@ from server.services.rails import input_sections
 from server.services.results import engine_version, reading
 from server.workflow import WorkflowDef
 
-__all__ = ["CAUTION", "board_report", "report_pdf_bytes", "archive_on_entry", "archive_dict", "list_archives",
-           "get_archive", "archive_pdf", "when"]
+__all__ = ["CAUTION", "board_report", "live_pdf", "archive_on_entry", "archive_dict", "list_archives",
+           "get_archive", "archive_pdf", "archive_count", "when"]
 
 BASIS_WORDS = {"standard": "standard", "common practice": "common practice, not a standard",
                "physical limit": "physical limit"}
@@ -221,9 +222,16 @@ def _report(session: Session, board: Board, *, plots: bool) -> dict[str, Any]:
             "workflow": _workflow_rules(wf, wf_row), "rails": entries}
 
 
-def report_pdf_bytes(*, session: Session, actor: Actor, board_id: int) -> bytes:
-    """The PDF of the board's report as it reads now."""
-    return report_pdf.render(board_report(session=session, actor=actor, board_id=board_id))
+def _filename(board: Board, what: str) -> str:
+    """A download's file name: plain letters, digits and dashes."""
+    words = re.sub(r"[^A-Za-z0-9]+", "-", f"{board.name} rev {board.revision}").strip("-").lower() or "board"
+    return f"signoff-report-{words}-{what}.pdf"
+
+
+def live_pdf(*, session: Session, actor: Actor, board_id: int) -> tuple[bytes, str]:
+    """The PDF of the board's report as it reads now, and its file name."""
+    board = get_board(session=session, actor=actor, board_id=board_id)
+    return report_pdf.render(_report(session, board, plots=True)), _filename(board, "live")
 
 
 # --- archived copies -----------------------------------------------------------------------
@@ -291,12 +299,14 @@ def get_archive(*, session: Session, actor: Actor, archive_id: int) -> dict[str,
     return archive_dict(row)  # type: ignore[arg-type]
 
 
-def archive_pdf(*, session: Session, actor: Actor, archive_id: int) -> tuple[bytes, dict[str, Any]]:
-    """The stored bytes of an archived copy, and its description."""
+def archive_pdf(*, session: Session, actor: Actor, archive_id: int) -> tuple[bytes, dict[str, Any], str]:
+    """The stored bytes of an archived copy, its description and its file name."""
     meta = get_archive(session=session, actor=actor, archive_id=archive_id)
     pdf = session.scalar(select(ArchivedReport.pdf).where(ArchivedReport.id == archive_id))
-    return bytes(pdf), meta
+    board = session.get(Board, meta["board_id"])
+    return bytes(pdf), meta, _filename(board, f"archived-{archive_id}")
 
 
 def archive_count(session: Session, board_id: int) -> int:
+    """How many archived copies the board's report has (for a caller that has scoped already)."""
     return session.scalar(select(func.count()).select_from(ArchivedReport).where(ArchivedReport.board_id == board_id))
