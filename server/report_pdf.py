@@ -22,6 +22,7 @@ import matplotlib
 from matplotlib.backends.backend_agg import FigureCanvasAgg
 from matplotlib.figure import Figure
 from matplotlib.ticker import EngFormatter
+from reportlab import rl_config
 from reportlab.lib import colors
 from reportlab.lib.enums import TA_LEFT
 from reportlab.lib.pagesizes import A4
@@ -42,6 +43,9 @@ if FONT not in pdfmetrics.getRegisteredFontNames():
     pdfmetrics.registerFont(TTFont(FONT, str(_FONT_DIR / "DejaVuSans.ttf")))
     pdfmetrics.registerFont(TTFont(FONT_BOLD, str(_FONT_DIR / "DejaVuSans-Bold.ttf")))
     pdfmetrics.registerFontFamily(FONT, normal=FONT, bold=FONT_BOLD, italic=FONT, boldItalic=FONT_BOLD)
+
+# binary streams as they are (ASCII85 text of every image would cost more time than drawing it)
+rl_config.useA85 = 0
 
 INK = colors.HexColor("#22303c")
 MUTED = colors.HexColor("#5c6b7a")
@@ -121,88 +125,122 @@ def _finite(xs: list[Any], ys: list[Any]) -> tuple[list[float], list[float]]:
 
 
 def _png(fig: Figure) -> io.BytesIO:
+    """The figure as an image for the PDF: JPEG, which the PDF embeds as it is (a PNG would be
+    decoded and compressed again, which costs more than drawing it)."""
     out = io.BytesIO()
-    FigureCanvasAgg(fig).print_png(out)
+    FigureCanvasAgg(fig).print_jpg(out, pil_kwargs={"quality": 90, "optimize": False})
     out.seek(0)
     return out
 
 
-def _startup_plot(plots: dict[str, Any]) -> Image:
-    """Output and switch-input voltage, current, FET power and Tj of the nominal start-up, on one time axis."""
-    w = plots["waves"]
-    fig = Figure(figsize=(7.0, 5.2), dpi=PLOT_DPI, layout="constrained")
-    axes = fig.subplots(4, 1, sharex=True)
-    rows = [("Voltage", "V", [("v_out", "output"), ("v_in", "switch input")]), ("Current", "A", [("i", "switch")]),
-            ("FET power", "W", [("p_fet", "FET")]), ("Junction temperature", "°C", [("tj", "junction")])]
-    for k, (ax, (label, unit, signals)) in enumerate(zip(axes, rows)):
-        for j, (key, name) in enumerate(signals):
-            x, y = _finite(w.get("t") or [], w.get(key) or [])
-            if x:
-                ax.plot(x, y, color=PLOT_COLOURS[k] if j == 0 else PLOT_COLOURS[5], lw=1.3,
-                        ls="-" if j == 0 else ":", label=name)
-        ax.set_ylabel(f"{label}\n({unit})", fontsize=7.5)
-        if unit != "°C":
-            ax.yaxis.set_major_formatter(EngFormatter(unit="", places=None))
-        ax.grid(True, color="#e4e8ed", lw=0.6)
+def _clear(ax) -> None:  # noqa: ANN001
+    """Take a rail's data off an axis; its ticks, formatters and labels stay for the next rail."""
+    for artist in list(ax.lines) + list(ax.collections) + list(ax.patches):
+        artist.remove()
+    if ax.get_legend() is not None:
+        ax.get_legend().remove()
+
+
+STARTUP_ROWS = [("Voltage", "V", [("v_out", "output"), ("v_in", "switch input")]), ("Current", "A", [("i", "switch")]),
+                ("FET power", "W", [("p_fet", "FET")]), ("Junction temperature", "°C", [("tj", "junction")])]
+SOA_BLUES = ["#9cc3e6", "#6fa3d4", "#4a84bf", "#2f66a3", "#1f4c80", "#15365c"]
+
+
+class _Plots:
+    """The two figures of a rail section, made once per document and drawn again for each rail
+    (making a figure and its axes costs more than drawing the few curves of a rail)."""
+
+    def __init__(self) -> None:
+        self.startup = Figure(figsize=(7.0, 5.0), dpi=PLOT_DPI)
+        self.startup.subplots_adjust(left=0.1, right=0.98, top=0.94, bottom=0.09, hspace=0.12)
+        self.axes = self.startup.subplots(4, 1, sharex=True)
+        for ax, (label, unit, _) in zip(self.axes, STARTUP_ROWS):
+            ax.set_ylabel(f"{label}\n({unit})", fontsize=7.5)
+            if unit != "°C":
+                ax.yaxis.set_major_formatter(EngFormatter(unit="", places=None))
+            ax.grid(True, color="#e4e8ed", lw=0.6)
+            ax.tick_params(labelsize=7)
+        self.axes[3].xaxis.set_major_formatter(EngFormatter(unit="s"))
+        self.axes[3].set_xlabel("Time since turn-on", fontsize=7.5)
+        self.startup.suptitle("Start-up at the nominal point (stored waveforms)", fontsize=9, x=0.01, ha="left")
+        self.soa = Figure(figsize=(7.0, 3.2), dpi=PLOT_DPI)
+        self.soa.subplots_adjust(left=0.1, right=0.66, top=0.9, bottom=0.15)
+        self.soa_ax = self.soa.subplots()
+        ax = self.soa_ax
+        ax.set_xscale("log")
+        ax.set_yscale("log")
+        ax.xaxis.set_major_formatter(EngFormatter(unit="V"))
+        ax.yaxis.set_major_formatter(EngFormatter(unit="A"))
+        ax.minorticks_off()
+        ax.set_xlabel("Drain-source voltage", fontsize=7.5)
+        ax.set_ylabel("Drain current", fontsize=7.5)
         ax.tick_params(labelsize=7)
-        if len(signals) > 1:
-            ax.legend(fontsize=6.5, loc="lower right", frameon=False)
-    if plots.get("tj_max") is not None:
-        axes[3].axhline(plots["tj_max"], color="#b3261e", ls="--", lw=1, label="tj_max")
-        if plots.get("tj_headroom") is not None:
-            axes[3].axhline(plots["tj_max"] - plots["tj_headroom"], color="#b7791f", ls=":", lw=1, label="team limit")
-        axes[3].legend(fontsize=6.5, loc="lower right", frameon=False)
-    if plots.get("t_trip") is not None:
+        ax.grid(True, color="#e4e8ed", lw=0.5)
+        self.soa.suptitle("Safe operating area at the rail's ambient, start-up trajectory", fontsize=9, x=0.01,
+                          ha="left")
+
+    def startup_image(self, plots: dict[str, Any]) -> Image:
+        """Output and switch-input voltage, current, FET power and Tj of the nominal start-up, one time axis."""
+        w = plots["waves"]
+        axes = self.axes
+        for k, (ax, (_, _, signals)) in enumerate(zip(axes, STARTUP_ROWS)):
+            _clear(ax)
+            for j, (key, name) in enumerate(signals):
+                x, y = _finite(w.get("t") or [], w.get(key) or [])
+                if x:
+                    ax.plot(x, y, color=PLOT_COLOURS[k] if j == 0 else PLOT_COLOURS[5], lw=1.3,
+                            ls="-" if j == 0 else ":", label=name)
+            if len(signals) > 1 and ax.lines:
+                ax.legend(fontsize=6.5, loc="lower right", frameon=False)
+        if plots.get("tj_max") is not None:
+            axes[3].axhline(plots["tj_max"], color="#b3261e", ls="--", lw=1, label="tj_max")
+            if plots.get("tj_headroom") is not None:
+                axes[3].axhline(plots["tj_max"] - plots["tj_headroom"], color="#b7791f", ls=":", lw=1,
+                                label="team limit")
+            axes[3].legend(fontsize=6.5, loc="lower right", frameon=False)
+        if plots.get("t_trip") is not None:
+            for ax in axes:
+                ax.axvline(plots["t_trip"], color="#b3261e", lw=0.8, alpha=0.6)
         for ax in axes:
-            ax.axvline(plots["t_trip"], color="#b3261e", lw=0.8, alpha=0.6)
-    axes[3].xaxis.set_major_formatter(EngFormatter(unit="s"))
-    axes[3].set_xlabel("Time since turn-on", fontsize=7.5)
-    fig.suptitle("Start-up at the nominal point (stored waveforms)", fontsize=9, x=0.01, ha="left")
-    return Image(_png(fig), width=TEXT_W, height=TEXT_W * 5.2 / 7.0)
+            ax.relim()
+            ax.autoscale_view()
+        return Image(_png(self.startup), width=TEXT_W, height=TEXT_W * 5.0 / 7.0)
 
-
-def _soa_plot(plots: dict[str, Any]) -> Image | None:
-    """The start-up trajectory (V_DS, I_D) against the SOA curves at the rail's ambient, log-log."""
-    w = plots["waves"]
-    x, y = _finite(w.get("v_ds") or [], w.get("i") or [])
-    curves = plots.get("soa_curves") or []
-    # as on the rail page: the trajectory from a tenth of the curves' lowest voltage (and here a
-    # hundredth of their lowest current) up, where a log scale can show it
-    v_floor = min((p[0] for c in curves for p in c.get("points") or [] if p[0] > 0), default=0.0) / 10
-    i_floor = min((p[1] for c in curves for p in c.get("points") or [] if p[1] > 0), default=0.0) / 100
-    keep = [(a, b) for a, b in zip(x, y) if a > 0 and b > 0 and a >= v_floor and b >= i_floor]
-    if not keep and not curves:
-        return None
-    fig = Figure(figsize=(7.0, 3.3), dpi=PLOT_DPI, layout="constrained")
-    ax = fig.subplots()
-    blues = ["#9cc3e6", "#6fa3d4", "#4a84bf", "#2f66a3", "#1f4c80", "#15365c"]
-    for k, c in enumerate(curves):
-        pts = [(p[0], p[1]) for p in c.get("points") or [] if p[0] > 0 and p[1] > 0]
-        if pts:
-            t = c.get("t_pulse")
-            label = "SOA DC" if t is None else f"SOA {EngFormatter(unit='s')(t)}"
-            ax.plot([p[0] for p in pts], [p[1] for p in pts], color=blues[min(k, len(blues) - 1)], lw=1.2, label=label)
-    if keep:
-        ax.plot([p[0] for p in keep], [p[1] for p in keep], color=PLOT_COLOURS[2], lw=1.5, marker=".", ms=2,
-                label="start-up trajectory")
-    pulse = plots.get("pulse") or {}
-    if pulse.get("v_ds") and pulse.get("i"):
-        ax.plot([pulse["v_ds"]], [pulse["i"]], "s", color=PLOT_COLOURS[2], mec="#22303c", ms=6,
-                label="start-up pulse (equivalent rectangle)")
-    for k, p in enumerate(plots.get("points") or []):
-        ax.plot([p["v_ds"]], [p["i"]], "D", color="#b3261e", mfc="none" if k == 0 else "#b3261e", ms=7,
-                label=p["label"])
-    ax.set_xscale("log")
-    ax.set_yscale("log")
-    ax.xaxis.set_major_formatter(EngFormatter(unit="V"))
-    ax.yaxis.set_major_formatter(EngFormatter(unit="A"))
-    ax.set_xlabel("Drain-source voltage", fontsize=7.5)
-    ax.set_ylabel("Drain current", fontsize=7.5)
-    ax.tick_params(labelsize=7)
-    ax.grid(True, which="both", color="#e4e8ed", lw=0.5)
-    ax.legend(fontsize=6, loc="center left", bbox_to_anchor=(1.0, 0.5), frameon=False)
-    fig.suptitle("Safe operating area at the rail's ambient, start-up trajectory", fontsize=9, x=0.01, ha="left")
-    return Image(_png(fig), width=TEXT_W, height=TEXT_W * 3.3 / 7.0)
+    def soa_image(self, plots: dict[str, Any]) -> Image | None:
+        """The start-up trajectory (V_DS, I_D) against the SOA curves at the rail's ambient, log-log."""
+        w = plots["waves"]
+        x, y = _finite(w.get("v_ds") or [], w.get("i") or [])
+        curves = plots.get("soa_curves") or []
+        # as on the rail page: the trajectory from a tenth of the curves' lowest voltage (and here a
+        # hundredth of their lowest current) up, where a log scale can show it
+        v_floor = min((p[0] for c in curves for p in c.get("points") or [] if p[0] > 0), default=0.0) / 10
+        i_floor = min((p[1] for c in curves for p in c.get("points") or [] if p[1] > 0), default=0.0) / 100
+        keep = [(a, b) for a, b in zip(x, y) if a > 0 and b > 0 and a >= v_floor and b >= i_floor]
+        if not keep and not curves:
+            return None
+        ax = self.soa_ax
+        _clear(ax)
+        for k, c in enumerate(curves):
+            pts = [(p[0], p[1]) for p in c.get("points") or [] if p[0] > 0 and p[1] > 0]
+            if pts:
+                t = c.get("t_pulse")
+                label = "SOA DC" if t is None else f"SOA {EngFormatter(unit='s')(t)}"
+                ax.plot([p[0] for p in pts], [p[1] for p in pts], color=SOA_BLUES[min(k, len(SOA_BLUES) - 1)],
+                        lw=1.2, label=label)
+        if keep:
+            ax.plot([p[0] for p in keep], [p[1] for p in keep], color=PLOT_COLOURS[2], lw=1.5, marker=".", ms=2,
+                    label="start-up trajectory")
+        pulse = plots.get("pulse") or {}
+        if pulse.get("v_ds") and pulse.get("i"):
+            ax.plot([pulse["v_ds"]], [pulse["i"]], "s", color=PLOT_COLOURS[2], mec="#22303c", ms=6,
+                    label="start-up pulse (equivalent rectangle)")
+        for k, p in enumerate(plots.get("points") or []):
+            ax.plot([p["v_ds"]], [p["i"]], "D", color="#b3261e", mfc="none" if k == 0 else "#b3261e", ms=7,
+                    label=p["label"])
+        ax.relim()
+        ax.autoscale_view()
+        ax.legend(fontsize=6, loc="center left", bbox_to_anchor=(1.02, 0.5), frameon=False)
+        return Image(_png(self.soa), width=TEXT_W, height=TEXT_W * 3.2 / 7.0)
 
 
 # --- the document --------------------------------------------------------------------------
@@ -250,7 +288,7 @@ def _rules_flowables(wf: dict[str, Any]) -> list[Flowable]:
     return out
 
 
-def _rail_section(r: dict[str, Any], k: int, n: int) -> list[Flowable]:
+def _rail_section(r: dict[str, Any], k: int, n: int, drawer: _Plots) -> list[Flowable]:
     story: list[Flowable] = [PageBreak(), _Bookmark(f"rail-{r['id']}", f"{k}. {r['name']} (revision {r['revision']})"),
                              _p(f"Rail {k} of {n}: {r['name']}", "h1"),
                              _p(f"Revision {r['revision']} · sha256 {r['sha256']}", "body"),
@@ -294,8 +332,8 @@ def _rail_section(r: dict[str, Any], k: int, n: int) -> list[Flowable]:
                             [20, 9, 9, 22]))
     plots = r.get("plots")
     if plots:
-        story.append(KeepTogether([_p("Plots", "h2"), _startup_plot(plots)]))
-        soa = _soa_plot(plots)
+        story.append(KeepTogether([_p("Plots", "h2"), drawer.startup_image(plots)]))
+        soa = drawer.soa_image(plots)
         if soa is not None:
             story.append(soa)
     story.append(_p("Approvals of this revision", "h2"))
@@ -348,8 +386,9 @@ def render(report: dict[str, Any]) -> bytes:
                             creator=f"railsign, analysis engine {report['engine_version']}")
     story = _title_page(report)
     n = len(report["rails"])
+    drawer = _Plots()
     for k, r in enumerate(report["rails"], start=1):
-        story += _rail_section(r, k, n)
+        story += _rail_section(r, k, n, drawer)
     footer = _footer(report)
     doc.build(story, onFirstPage=footer, onLaterPages=footer)
     return out.getvalue()

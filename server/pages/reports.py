@@ -8,10 +8,16 @@ navigation, buttons and forms and starts each rail on a new page.
 
 from __future__ import annotations
 
+import functools
+import json
+import threading
+from collections import OrderedDict
 from typing import Any
 
 from fastapi import APIRouter, Request
 from fastapi.responses import HTMLResponse, Response
+from jinja2.utils import htmlsafe_json_dumps
+from markupsafe import Markup
 from sqlalchemy.orm import Session
 
 from server.auth import CurrentActor
@@ -19,7 +25,7 @@ from server.db import SessionDep
 from server.pages.plots import soa_figure, startup_figure
 from server.pages.rendering import page_context, render
 from server.schemas.result import AnalysisResult
-from server.services import catalog, reports
+from server.services import catalog, reports, results
 from server.services.access import Actor
 
 router = APIRouter(include_in_schema=False)
@@ -33,19 +39,42 @@ def _pdf(data: bytes, filename: str, sha256: str | None = None) -> Response:
     return Response(data, media_type="application/pdf", headers=headers)
 
 
-def _figures(entry: dict[str, Any]) -> dict[str, Any]:
-    """The rail page's start-up and SOA figures of the rail's stored current-engine result."""
+# A stored result never changes, and a rail's figures are drawn from it and from the revision's
+# document (named by its sha256): their JSON is kept per (database, result, revision), a bounded
+# least-recently-used store, so a report of many rails encodes each figure once.
+_FIGURES: OrderedDict[tuple, dict[str, Markup | None]] = OrderedDict()
+_FIGURES_MAX = 2000
+_lock = threading.Lock()
+_dumps = functools.partial(json.dumps, separators=(",", ":"))
+
+
+def _figures(session: Session, entry: dict[str, Any]) -> dict[str, Markup | None]:
+    """The rail page's start-up and SOA figures of the rail's stored current-engine result, as JSON
+    for the page (``plot_json`` in the template)."""
     res = entry["result"]
-    if res is None or res["outdated"] or not entry["stored_result"]:
+    if res is None or res["outdated"]:
         return {}
-    result = AnalysisResult.model_validate(entry["stored_result"])
-    return {"startup": startup_figure(result, entry["document"]), "soa": soa_figure(result, entry["document"])}
+    key = (str(session.get_bind().url), res["id"], entry["sha256"])
+    with _lock:
+        found = _FIGURES.get(key)
+        if found is not None:
+            _FIGURES.move_to_end(key)
+            return found
+    result = AnalysisResult.model_validate(results.stored_result(session, res["id"]))
+    made = {name: htmlsafe_json_dumps(fig, dumps=_dumps) if fig else None
+            for name, fig in (("startup", startup_figure(result, entry["document"])),
+                              ("soa", soa_figure(result, entry["document"])))}
+    with _lock:
+        _FIGURES[key] = made
+        while len(_FIGURES) > _FIGURES_MAX:
+            _FIGURES.popitem(last=False)
+    return made
 
 
 def report_context(session: Session, actor: Actor, board_id: int, *, plots: bool = True) -> dict[str, Any]:
     report = reports.board_report(session=session, actor=actor, board_id=board_id, plots=False)
     for entry in report["rails"]:
-        entry["figures_page"] = _figures(entry) if plots else {}
+        entry["figures_page"] = _figures(session, entry) if plots else {}
     return {"report": report, "board": report["board"], "product": report["product"],
             "archived": reports.list_archives(session=session, actor=actor, board_id=board_id)}
 

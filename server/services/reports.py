@@ -25,22 +25,23 @@ import re
 from datetime import datetime
 from typing import Any
 
-from sqlalchemy import func, select
+from sqlalchemy import Text, func, select, type_coerce
+from sqlalchemy.dialects import postgresql
 from sqlalchemy.orm import Session
 
 from server import report_pdf
 from server.analysis import CAUTION, derated_soa_curves
 from server.analysis.report import limit_text, margin_text, value_text
 from server.analysis.words import rule_title
-from server.models import (Approval, ArchivedReport, Board, Product, Rail, RailRevision, RailState, Team, Waiver,
-                           Workflow, utcnow)
+from server.models import (AnalysisResult, Approval, ArchivedReport, Board, JsonType, Product, Rail, RailRevision,
+                           RailState, Team, Waiver, Workflow, utcnow)
 from server.services import workflows
 from server.services.access import Actor
 from server.services.audit import record
 from server.services.catalog import get_board
 from server.services.errors import NotFound
 from server.services.rails import input_sections
-from server.services.results import engine_version, reading
+from server.services.results import ReadingHead, engine_version, reading_heads
 from server.workflow import WorkflowDef
 
 __all__ = ["CAUTION", "board_report", "live_pdf", "archive_on_entry", "archive_dict", "list_archives",
@@ -155,11 +156,33 @@ def _workflow_rules(wf: WorkflowDef, row: Workflow | None) -> dict[str, Any]:
             "states": states, "transitions": transitions, "on_edit": wf.on_edit}
 
 
+# The parts of a stored result the report reads; the rest (the list of corners above all, most of
+# a result's bytes: the report shows the worst case each check record names) stays in the database.
+REPORT_PARTS = ("verdict", "basis", "worst_case", "checks", "figures", "rules")
+PLOT_PARTS = ("startup", "short_circuit")
+RESULT_PARTS = ("engine_version", "name", "verdict", "basis", "signoff", "checks", "figures", "startup",
+                "short_circuit", "timer", "retry", "steady", "headroom", "worst_case", "corners", "monte_carlo",
+                "rules", "conventions", "notes", "caution")
+
+
+def _bodies(session: Session, ids: list[int], *, plots: bool) -> dict[int, dict[str, Any]]:
+    """The parts the report reads of the stored results ``ids`` (with the start-up waveforms and the
+    short-circuit points for ``plots``)."""
+    if not ids:
+        return {}
+    keep = REPORT_PARTS + (PLOT_PARTS if plots else ())
+    drop = [k for k in RESULT_PARTS if k not in keep]
+    if session.get_bind().dialect.name == "postgresql":
+        body = type_coerce(AnalysisResult.result.op("-")(postgresql.array(drop, type_=Text)), JsonType)
+    else:
+        body = type_coerce(func.json_remove(AnalysisResult.result, *(f"$.{k}" for k in drop)), JsonType)
+    return dict(session.execute(select(AnalysisResult.id, body).where(AnalysisResult.id.in_(ids))).all())
+
+
 def _rail_entry(rail: Rail, head: RailRevision, state: RailState | None, wf: WorkflowDef,
-                approvals: list[Approval], waivers: list[Waiver], session: Session, *, plots: bool) -> dict[str, Any]:
+                approvals: list[Approval], waivers: list[Waiver], now: ReadingHead | None,
+                result: dict[str, Any] | None, *, plots: bool) -> dict[str, Any]:
     doc = head.document
-    now = reading(session, sha256=head.sha256)
-    result = now.row.result if now is not None else None
     state_name = state.state if state is not None and wf.has_state(state.state) else wf.initial
     entry: dict[str, Any] = {
         "id": rail.id, "name": rail.name, "mode": rail.mode.replace("_", " "),
@@ -175,8 +198,8 @@ def _rail_entry(rail: Rail, head: RailRevision, state: RailState | None, wf: Wor
         "document": doc, "stored_result": result,
     }
     if now is not None and result is not None:
-        entry["result"] = {"id": now.row.id, "engine_version": now.engine_version, "outdated": now.outdated,
-                           "verdict": now.row.verdict, "computed_at": when(now.row.created_at),
+        entry["result"] = {"id": now.id, "engine_version": now.engine_version, "outdated": now.outdated,
+                           "verdict": now.verdict, "computed_at": when(now.created_at),
                            "basis": _basis_words(result)}
         entry["checks"] = [_check_row(c) for c in result.get("checks") or []]
         entry["figures"] = _figure_rows(result)
@@ -213,8 +236,16 @@ def _report(session: Session, board: Board, *, plots: bool) -> dict[str, Any]:
             approvals.setdefault(a.rail_id, []).append(a)
         for w in session.scalars(select(Waiver).where(Waiver.rail_id.in_(ids)).order_by(Waiver.id)):
             waivers.setdefault(w.rail_id, []).append(w)
-    entries = [_rail_entry(r, heads[(r.id, r.head_n)], states.get(r.id), wf, approvals.get(r.id, []),
-                           waivers.get(r.id, []), session, plots=plots) for r in rails if (r.id, r.head_n) in heads]
+    readings = reading_heads(session, [rev.sha256 for rev in heads.values()])
+    bodies = _bodies(session, [h.id for h in readings.values()], plots=plots)
+    entries = []
+    for r in rails:
+        head = heads.get((r.id, r.head_n))
+        if head is None:
+            continue
+        now = readings.get(head.sha256)
+        entries.append(_rail_entry(r, head, states.get(r.id), wf, approvals.get(r.id, []), waivers.get(r.id, []),
+                                   now, bodies.get(now.id) if now is not None else None, plots=plots))
     return {"board": {"id": board.id, "name": board.name, "revision": board.revision,
                       "description": board.description},
             "product": {"id": product.id, "name": product.name}, "team": team.name,
