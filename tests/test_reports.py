@@ -216,3 +216,24 @@ def test_the_report_reads_numbers_from_the_stored_record(client, people, board, 
         report = reports.board_report(session=s, actor=Actor.for_user(get_user_by_name(session=s, username="viewer")),
                                       board_id=board["id"])
     assert report["rails"][0]["checks"][0]["value"] == "12.3 V"
+
+
+def test_the_readings_of_many_revisions_at_once_agree_with_one_at_a_time(client, people, board, session_factory):
+    from server.services import results
+    from tests.signoff_support import PASSING, store_checks
+    rails = [make_rail(client, people, board, name=n) for n in ("A", "B", "C", "D")]
+    shas = [r["head"]["sha256"] for r in rails]
+    store_checks(session_factory, shas[0], PASSING)                       # current engine only
+    store_checks(session_factory, shas[1], PASSING, version="1.1.0")      # an older engine only: outdated
+    store_checks(session_factory, shas[2], PASSING, version="1.1.0")      # both: the current engine's wins
+    store_checks(session_factory, shas[2], PASSING)
+    with session_factory() as s:
+        heads = results.reading_heads(s, shas)
+        for sha in shas:
+            one = results.reading(s, sha256=sha)
+            if one is None:
+                assert sha not in heads
+            else:
+                assert (heads[sha].id, heads[sha].outdated, heads[sha].engine_version) == \
+                       (one.row.id, one.outdated, one.engine_version)
+    assert set(heads) == set(shas[:3]) and heads[shas[1]].outdated and not heads[shas[2]].outdated

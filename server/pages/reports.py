@@ -48,6 +48,15 @@ _lock = threading.Lock()
 _dumps = functools.partial(json.dumps, separators=(",", ":"))
 
 
+PAPER_WIDTH_PX = 680   # an A4 page's text width: the report's plots print as they show
+
+
+def _paper(figure: dict[str, Any]) -> dict[str, Any]:
+    """A figure of a fixed width, so that printing does not cut it (a page narrower than the screen)."""
+    figure["layout"] = {**figure["layout"], "width": PAPER_WIDTH_PX, "autosize": False}
+    return figure
+
+
 def _figures(session: Session, entry: dict[str, Any]) -> dict[str, Markup | None]:
     """The rail page's start-up and SOA figures of the rail's stored current-engine result, as JSON
     for the page (``plot_json`` in the template)."""
@@ -61,7 +70,7 @@ def _figures(session: Session, entry: dict[str, Any]) -> dict[str, Markup | None
             _FIGURES.move_to_end(key)
             return found
     result = AnalysisResult.model_validate(results.stored_result(session, res["id"]))
-    made = {name: htmlsafe_json_dumps(fig, dumps=_dumps) if fig else None
+    made = {name: htmlsafe_json_dumps(_paper(fig), dumps=_dumps) if fig else None
             for name, fig in (("startup", startup_figure(result, entry["document"])),
                               ("soa", soa_figure(result, entry["document"])))}
     with _lock:
