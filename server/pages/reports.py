@@ -27,8 +27,10 @@ from server.pages.rendering import page_context, render
 from server.schemas.result import AnalysisResult
 from server.services import catalog, reports, results
 from server.services.access import Actor
+from server.templating import templates
 
 router = APIRouter(include_in_schema=False)
+_BODY = templates.get_template("partials/report_rail_body.html")
 
 
 def _pdf(data: bytes, filename: str, sha256: str | None = None) -> Response:
@@ -39,15 +41,14 @@ def _pdf(data: bytes, filename: str, sha256: str | None = None) -> Response:
     return Response(data, media_type="application/pdf", headers=headers)
 
 
-# A stored result never changes, and a rail's figures are drawn from it and from the revision's
-# document (named by its sha256): their JSON is kept per (database, result, revision), a bounded
-# least-recently-used store, so a report of many rails encodes each figure once.
-_FIGURES: OrderedDict[tuple, dict[str, Markup | None]] = OrderedDict()
-_FIGURES_MAX = 2000
+# A stored result never changes, and the body of a rail's section (inputs, limits, checks, key
+# figures, plots) is drawn from it and from the revision's document (named by its sha256): it is
+# rendered once per (database, rail, revision, result, engine) and kept in a bounded
+# least-recently-used store, so a report of many rails renders and encodes each body once.
+_BODIES: OrderedDict[tuple, Markup] = OrderedDict()
+_BODIES_MAX = 1000
 _lock = threading.Lock()
 _dumps = functools.partial(json.dumps, separators=(",", ":"))
-
-
 PAPER_WIDTH_PX = 680   # an A4 page's text width: the report's plots print as they show
 
 
@@ -58,32 +59,37 @@ def _paper(figure: dict[str, Any]) -> dict[str, Any]:
 
 
 def _figures(session: Session, entry: dict[str, Any]) -> dict[str, Markup | None]:
-    """The rail page's start-up and SOA figures of the rail's stored current-engine result, as JSON
-    for the page (``plot_json`` in the template)."""
+    """The rail page's start-up and SOA figures of the rail's stored current-engine result, as JSON."""
     res = entry["result"]
     if res is None or res["outdated"]:
         return {}
-    key = (str(session.get_bind().url), res["id"], entry["sha256"])
-    with _lock:
-        found = _FIGURES.get(key)
-        if found is not None:
-            _FIGURES.move_to_end(key)
-            return found
     result = AnalysisResult.model_validate(results.stored_result(session, res["id"]))
-    made = {name: htmlsafe_json_dumps(_paper(fig), dumps=_dumps) if fig else None
+    return {name: htmlsafe_json_dumps(_paper(fig), dumps=_dumps) if fig else None
             for name, fig in (("startup", startup_figure(result, entry["document"])),
                               ("soa", soa_figure(result, entry["document"])))}
+
+
+def _body_html(session: Session, entry: dict[str, Any], plots: bool) -> Markup:
+    res = entry["result"]
+    key = (str(session.get_bind().url), entry["id"], entry["sha256"], res["id"] if res else None,
+           results.engine_version(), plots)
     with _lock:
-        _FIGURES[key] = made
-        while len(_FIGURES) > _FIGURES_MAX:
-            _FIGURES.popitem(last=False)
-    return made
+        found = _BODIES.get(key)
+        if found is not None:
+            _BODIES.move_to_end(key)
+            return found
+    html = Markup(_BODY.render(e=entry, figures=_figures(session, entry) if plots else {}))
+    with _lock:
+        _BODIES[key] = html
+        while len(_BODIES) > _BODIES_MAX:
+            _BODIES.popitem(last=False)
+    return html
 
 
 def report_context(session: Session, actor: Actor, board_id: int, *, plots: bool = True) -> dict[str, Any]:
     report = reports.board_report(session=session, actor=actor, board_id=board_id, plots=False)
     for entry in report["rails"]:
-        entry["figures_page"] = _figures(session, entry) if plots else {}
+        entry["body_html"] = _body_html(session, entry, plots)
     return {"report": report, "board": report["board"], "product": report["product"],
             "archived": reports.list_archives(session=session, actor=actor, board_id=board_id)}
 

@@ -22,6 +22,8 @@ from __future__ import annotations
 
 import hashlib
 import re
+import threading
+from collections import OrderedDict
 from datetime import datetime
 from typing import Any
 
@@ -179,10 +181,25 @@ def _bodies(session: Session, ids: list[int], *, plots: bool) -> dict[int, dict[
     return dict(session.execute(select(AnalysisResult.id, body).where(AnalysisResult.id.in_(ids))).all())
 
 
+# The texts a stored result and its revision's document give (inputs, basis, checks, key figures,
+# limits) never change: they are kept per (database, result, revision) in a bounded
+# least-recently-used store, and a result's body is read again only for rows not seen before.
+_PARTS: OrderedDict[tuple, dict[str, Any]] = OrderedDict()
+_PARTS_MAX = 5000
+_lock = threading.Lock()
+
+
+def _parts(doc: dict[str, Any], result: dict[str, Any] | None) -> dict[str, Any]:
+    if result is None:
+        return {"inputs": input_sections(doc), "basis": "", "checks": [], "figures": [], "rules": []}
+    return {"inputs": input_sections(doc), "basis": _basis_words(result),
+            "checks": [_check_row(c) for c in result.get("checks") or []], "figures": _figure_rows(result),
+            "rules": _rule_rows(result, doc)}
+
+
 def _rail_entry(rail: Rail, head: RailRevision, state: RailState | None, wf: WorkflowDef,
                 approvals: list[Approval], waivers: list[Waiver], now: ReadingHead | None,
-                result: dict[str, Any] | None, *, plots: bool) -> dict[str, Any]:
-    doc = head.document
+                parts: dict[str, Any], plots: dict[str, Any] | None) -> dict[str, Any]:
     state_name = state.state if state is not None and wf.has_state(state.state) else wf.initial
     entry: dict[str, Any] = {
         "id": rail.id, "name": rail.name, "mode": rail.mode.replace("_", " "),
@@ -191,21 +208,15 @@ def _rail_entry(rail: Rail, head: RailRevision, state: RailState | None, wf: Wor
         "state": {"name": state_name, "signed_off": wf.is_signed_off(state_name),
                   "since": when(state.since if state is not None else None),
                   "by": state.changed_by if state is not None else ""},
-        "inputs": input_sections(doc),
-        "result": None, "checks": [], "figures": [], "rules": [], "plots": None,
+        "inputs": parts["inputs"], "result": None, "checks": [], "figures": [], "rules": [], "plots": plots,
         "approvals": [_approval_row(a) for a in approvals if a.revision_n == head.n],
         "waivers": [_waiver_row(w) for w in waivers if w.revision_n == head.n],
-        "document": doc, "stored_result": result,
+        "document": head.document,
     }
-    if now is not None and result is not None:
+    if now is not None:
         entry["result"] = {"id": now.id, "engine_version": now.engine_version, "outdated": now.outdated,
-                           "verdict": now.verdict, "computed_at": when(now.created_at),
-                           "basis": _basis_words(result)}
-        entry["checks"] = [_check_row(c) for c in result.get("checks") or []]
-        entry["figures"] = _figure_rows(result)
-        entry["rules"] = _rule_rows(result, doc)
-        if plots:
-            entry["plots"] = _plots(result, doc)
+                           "verdict": now.verdict, "computed_at": when(now.created_at), "basis": parts["basis"]}
+        entry.update(checks=parts["checks"], figures=parts["figures"], rules=parts["rules"])
     return entry
 
 
@@ -237,15 +248,29 @@ def _report(session: Session, board: Board, *, plots: bool) -> dict[str, Any]:
         for w in session.scalars(select(Waiver).where(Waiver.rail_id.in_(ids)).order_by(Waiver.id)):
             waivers.setdefault(w.rail_id, []).append(w)
     readings = reading_heads(session, [rev.sha256 for rev in heads.values()])
-    bodies = _bodies(session, [h.id for h in readings.values()], plots=plots)
+    db = str(session.get_bind().url)
+    keys = {rev.sha256: (db, readings[rev.sha256].id if rev.sha256 in readings else None, rev.sha256)
+            for rev in heads.values()}
+    with _lock:
+        known = {k: _PARTS[k] for k in keys.values() if k in _PARTS}
+    wanted = [k[1] for k in keys.values() if k[1] is not None and (plots or k not in known)]
+    bodies = _bodies(session, wanted, plots=plots)
     entries = []
     for r in rails:
         head = heads.get((r.id, r.head_n))
         if head is None:
             continue
-        now = readings.get(head.sha256)
+        now, key = readings.get(head.sha256), keys[head.sha256]
+        body = bodies.get(now.id) if now is not None else None
+        parts = known.get(key)
+        if parts is None:
+            parts = known[key] = _parts(head.document, body)
+            with _lock:
+                _PARTS[key] = parts
+                while len(_PARTS) > _PARTS_MAX:
+                    _PARTS.popitem(last=False)
         entries.append(_rail_entry(r, head, states.get(r.id), wf, approvals.get(r.id, []), waivers.get(r.id, []),
-                                   now, bodies.get(now.id) if now is not None else None, plots=plots))
+                                   now, parts, _plots(body, head.document) if plots and body is not None else None))
     return {"board": {"id": board.id, "name": board.name, "revision": board.revision,
                       "description": board.description},
             "product": {"id": product.id, "name": product.name}, "team": team.name,
