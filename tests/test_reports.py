@@ -12,12 +12,15 @@ import pytest
 from sqlalchemy import select, text, update
 from sqlalchemy.exc import DBAPIError
 
-from server.models import ArchivedReport
-from server.services import reports
+from server import analysis
+from server.models import AnalysisResult, ArchivedReport
+from server.services import reports, results
+from server.services.access import Actor
+from server.services.users import get_user_by_name
 from server.workflow import DEFAULT_WORKFLOW, WorkflowInvalid, parse_workflow
 from tests.pages.helpers import log_in
 from tests.report_support import freeze, pdf_outline, pdf_pages, store_real_result
-from tests.signoff_support import edit_rail, make_board, make_rail
+from tests.signoff_support import PASSING, edit_rail, make_board, make_rail, store_checks
 
 
 @pytest.fixture
@@ -201,26 +204,21 @@ def test_the_report_reads_numbers_from_the_stored_record(client, people, board, 
     """Nothing is recomputed: a stored record with an invented value shows that value."""
     rail = make_rail(client, people, board)
     result_id = store_real_result(session_factory, rail["head"]["sha256"])
-    from server import analysis
     monkeypatch.setattr(analysis, "analyze_rail", lambda *a, **k: pytest.fail("the report ran the analysis"))
     with session_factory() as s:
-        row = s.get(__import__("server.models", fromlist=["AnalysisResult"]).AnalysisResult, result_id)
+        row = s.get(AnalysisResult, result_id)
         stored = dict(row.result)
         stored["checks"] = [dict(c) for c in stored["checks"]]
         stored["checks"][0]["value"] = 12.3456
         stored["checks"][0]["unit"] = "V"
         row.result = stored
         s.commit()
-        from server.services.access import Actor
-        from server.services.users import get_user_by_name
         report = reports.board_report(session=s, actor=Actor.for_user(get_user_by_name(session=s, username="viewer")),
                                       board_id=board["id"])
     assert report["rails"][0]["checks"][0]["value"] == "12.3 V"
 
 
 def test_the_readings_of_many_revisions_at_once_agree_with_one_at_a_time(client, people, board, session_factory):
-    from server.services import results
-    from tests.signoff_support import PASSING, store_checks
     rails = [make_rail(client, people, board, name=n) for n in ("A", "B", "C", "D")]
     shas = [r["head"]["sha256"] for r in rails]
     store_checks(session_factory, shas[0], PASSING)                       # current engine only

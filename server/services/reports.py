@@ -47,7 +47,7 @@ from server.services.results import ReadingHead, engine_version, reading_heads
 from server.workflow import WorkflowDef
 
 __all__ = ["CAUTION", "board_report", "live_pdf", "archive_on_entry", "archive_dict", "list_archives",
-           "get_archive", "archive_pdf", "archive_count", "when"]
+           "get_archive", "archive_pdf", "when"]
 
 BASIS_WORDS = {"standard": "standard", "common practice": "common practice, not a standard",
                "physical limit": "physical limit"}
@@ -361,8 +361,3 @@ def archive_pdf(*, session: Session, actor: Actor, archive_id: int) -> tuple[byt
     pdf = session.scalar(select(ArchivedReport.pdf).where(ArchivedReport.id == archive_id))
     board = session.get(Board, meta["board_id"])
     return bytes(pdf), meta, _filename(board, f"archived-{archive_id}")
-
-
-def archive_count(session: Session, board_id: int) -> int:
-    """How many archived copies the board's report has (for a caller that has scoped already)."""
-    return session.scalar(select(func.count()).select_from(ArchivedReport).where(ArchivedReport.board_id == board_id))
