@@ -11,7 +11,8 @@ import enum
 from datetime import date, datetime, timezone
 from typing import Any
 
-from sqlalchemy import JSON, Date, DateTime, ForeignKey, Index, Integer, String, Text, UniqueConstraint, text
+from sqlalchemy import (JSON, Date, DateTime, ForeignKey, Index, Integer, LargeBinary, String, Text, UniqueConstraint,
+                        text)
 from sqlalchemy.dialects.postgresql import JSONB
 from sqlalchemy.types import TypeDecorator
 from sqlalchemy.orm import DeclarativeBase, Mapped, mapped_column, relationship
@@ -381,3 +382,25 @@ class ReviewAssignment(Base):
     board_id: Mapped[int | None] = mapped_column(ForeignKey("boards.id", ondelete="CASCADE"), index=True)
     assigned_by: Mapped[str] = mapped_column(String(200), default="")
     created_at: Mapped[datetime] = mapped_column(default=utcnow)
+
+
+class ArchivedReport(Base):
+    """A board's sign-off report as a PDF, archived when the board's rails entered a state that
+    archives the record. Append-only: the database refuses UPDATE and DELETE (migration 0010);
+    ``sha256`` is the digest of ``pdf``, the bytes a download gives.
+    """
+
+    __tablename__ = "archived_reports"
+    id: Mapped[int] = mapped_column(primary_key=True)
+    board_id: Mapped[int] = mapped_column(ForeignKey("boards.id", ondelete="RESTRICT"), index=True)
+    product_id: Mapped[int] = mapped_column(ForeignKey("products.id", ondelete="RESTRICT"))
+    created_at: Mapped[datetime] = mapped_column(default=utcnow)
+    created_by: Mapped[str] = mapped_column(String(200), default="")
+    state: Mapped[str] = mapped_column(String(100))          # the state whose entry archived it
+    # what it holds: [{rail_id, name, revision, sha256}], and what entered the state last
+    rails: Mapped[list[Any]] = mapped_column(JsonType)
+    occasion: Mapped[dict[str, Any]] = mapped_column(JsonType)
+    engine_version: Mapped[str] = mapped_column(String(20))
+    sha256: Mapped[str] = mapped_column(String(64))
+    size: Mapped[int] = mapped_column(Integer)
+    pdf: Mapped[bytes] = mapped_column(LargeBinary)

@@ -16,14 +16,17 @@ Pure: no database, no web. Provides
 A definition::
 
     {"name": "...",
-     "states": [{"name": "in design", "initial": true, "signed_off": false, "description": ""}, ...],
+     "states": [{"name": "in design", "initial": true, "signed_off": false, "archives": false,
+                 "description": ""}, ...],
      "transitions": [{"name": "submit for review", "from": "in design", "to": "awaiting review",
                       "roles": ["designer"],
                       "demands": {"approvals": 0, "checks_pass": false, "no_stale_approvals": false}}],
      "on_edit": "in design"}
 
 ``on_edit`` is the state a rail goes back to when it gets a new revision. A state marked
-``signed_off`` counts as signed off in the managers' risk view.
+``signed_off`` counts as signed off in the managers' risk view. A state marked ``archives``
+("archives the record") is a signed-off state whose entry archives the board's sign-off report:
+once every rail of a board stands in such a state, the report is kept as it reads then, unchangeable.
 """
 
 from __future__ import annotations
@@ -115,13 +118,13 @@ def two_person_refusal(rules: WaiverRules, *, approving: bool, revision_n: int) 
 DEFAULT_WORKFLOW: dict[str, Any] = {
     "name": "margin review",
     "states": [
-        {"name": "in design", "initial": True, "signed_off": False,
+        {"name": "in design", "initial": True, "signed_off": False, "archives": False,
          "description": "the designer is still changing the rail"},
-        {"name": "awaiting review", "initial": False, "signed_off": False,
+        {"name": "awaiting review", "initial": False, "signed_off": False, "archives": False,
          "description": "the designer asks a reviewer to check the margins of the current revision"},
-        {"name": "margins accepted", "initial": False, "signed_off": True,
+        {"name": "margins accepted", "initial": False, "signed_off": True, "archives": False,
          "description": "a reviewer approved this revision; every check passes or has a waiver"},
-        {"name": "frozen for build", "initial": False, "signed_off": True,
+        {"name": "frozen for build", "initial": False, "signed_off": True, "archives": True,
          "description": "the accepted revision is the one the board is built with"},
     ],
     "transitions": [
@@ -163,6 +166,7 @@ class State:
     initial: bool = False
     signed_off: bool = False
     description: str = ""
+    archives: bool = False       # entering it archives the record (the board's sign-off report)
 
 
 @dataclass(frozen=True)
@@ -205,6 +209,11 @@ class WorkflowDef:
         state = self.state(name)
         return bool(state and state.signed_off)
 
+    def archives(self, name: str) -> bool:
+        """Whether entering the state ``name`` archives the record."""
+        state = self.state(name)
+        return bool(state and state.archives)
+
     def transitions_from(self, name: str) -> list[Transition]:
         return [t for t in self.transitions if t.source == name]
 
@@ -214,7 +223,7 @@ class WorkflowDef:
     def as_dict(self) -> dict[str, Any]:
         return {
             "name": self.name,
-            "states": [{"name": s.name, "initial": s.initial, "signed_off": s.signed_off,
+            "states": [{"name": s.name, "initial": s.initial, "signed_off": s.signed_off, "archives": s.archives,
                         "description": s.description} for s in self.states],
             "transitions": [{"name": t.name, "from": t.source, "to": t.target, "roles": list(t.roles),
                              "demands": {"approvals": t.demands.approvals, "checks_pass": t.demands.checks_pass,
@@ -277,10 +286,13 @@ def _parse_states(raw: Any, errors: _Errors) -> list[State]:
         if not isinstance(item, dict):
             errors.add(path, "must be an object with a name")
             continue
-        _unknown_keys(item, {"name", "initial", "signed_off", "description"}, path, errors)
+        _unknown_keys(item, {"name", "initial", "signed_off", "archives", "description"}, path, errors)
         name = _name(item.get("name"), f"{path}.name", errors)
         initial = _flag(item.get("initial"), f"{path}.initial", errors)
         signed_off = _flag(item.get("signed_off"), f"{path}.signed_off", errors)
+        archives = _flag(item.get("archives"), f"{path}.archives", errors)
+        if archives and not signed_off:
+            errors.add(f"{path}.archives", "only a signed-off state archives the record: mark it signed off too")
         description = item.get("description") or ""
         if not isinstance(description, str):
             errors.add(f"{path}.description", "must be text")
@@ -294,7 +306,8 @@ def _parse_states(raw: Any, errors: _Errors) -> list[State]:
             errors.add(f"{path}.name", f"'{name}' names another state already")
             continue
         seen[name.casefold()] = k
-        states.append(State(name=name, initial=initial, signed_off=signed_off, description=description[:500]))
+        states.append(State(name=name, initial=initial, signed_off=signed_off, description=description[:500],
+                            archives=archives))
     return states
 
 
@@ -382,7 +395,8 @@ def parse_workflow(data: Any) -> WorkflowDef:
     """Validate a workflow definition; raises :class:`WorkflowInvalid` listing every problem.
 
     Rules: unique state names (ignoring case and repeated spaces); exactly one initial state,
-    which is not signed off; at least one signed-off state; transitions only between states
+    which is not signed off; at least one signed-off state; a state that archives the record is
+    signed off; transitions only between states
     that exist, to a different state, taken by named roles (not viewers), with names unique
     among the transitions leaving one state; every state reachable from the initial one;
     ``on_edit`` names a state that is not signed off; a transition that enters a signed-off

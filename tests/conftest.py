@@ -102,10 +102,14 @@ def _empty_postgres(url: str) -> None:
     engine = create_engine(url)
     with engine.begin() as conn:  # DELETE is much faster than TRUNCATE on small tables
         # The audit trail refuses DELETE (migration 0003); its owner lifts that for this transaction only.
-        conn.execute(text("ALTER TABLE audit_entries DISABLE TRIGGER USER"))
+        # So do the archived reports (migration 0010).
+        guarded = ("audit_entries", "archived_reports")
+        for name in guarded:
+            conn.execute(text(f"ALTER TABLE {name} DISABLE TRIGGER USER"))
         for table in reversed(Base.metadata.sorted_tables):
             conn.execute(table.delete())
-        conn.execute(text("ALTER TABLE audit_entries ENABLE TRIGGER USER"))
+        for name in guarded:
+            conn.execute(text(f"ALTER TABLE {name} ENABLE TRIGGER USER"))
     engine.dispose()
 
 

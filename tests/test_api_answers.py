@@ -23,6 +23,7 @@ from server.schemas.responses import ErrorResponse
 from server.services import catalog
 from tests.factories import fet_doc, rail_doc
 from tests.pages.helpers import analyse_now
+from tests.report_support import freeze
 from tests.signoff_support import allow_fail_waivers, FAILING, store_checks
 
 NOBODY = 999999
@@ -272,6 +273,20 @@ def test_every_operation_answers_its_declared_model_through_a_products_life(clie
     assert retired["retired"] is True
     assert call("POST", "/api/v1/rails/{rail_id}/restore", 200, role="designer", rail_id=other["id"])["retired"] is False
 
+    # sign-off reports: the live PDF, and the copy archived when the board's only rail is frozen for build
+    report_board = call("POST", "/api/v1/boards", 201, role="designer",
+                        json_body={"product_id": product_id, "name": "Archived", "revision": "A"})
+    frozen = call("POST", "/api/v1/rails", 201, role="designer",
+                  json_body={"board_id": report_board["id"], "document": rail_doc("VFROZEN")})
+    freeze(client, people, frozen)
+    pdf = call("GET", "/api/v1/boards/{board_id}/report.pdf", 200, role="viewer", board_id=report_board["id"])
+    assert pdf.startswith("%PDF-")
+    archived = call("GET", "/api/v1/boards/{board_id}/archived-reports", 200, role="viewer",
+                    board_id=report_board["id"])
+    assert archived["total"] == 1
+    call("GET", "/api/v1/archived-reports/{archive_id}", 200, role="viewer", archive_id=archived["items"][0]["id"])
+    call("GET", "/api/v1/archived-reports/{archive_id}/pdf", 200, role="viewer", archive_id=archived["items"][0]["id"])
+
     # audit
     call("GET", "/api/v1/audit", 200, role="admin", params={"object_type": "rail"})
     call("GET", "/api/v1/products/{product_id}/audit", 200, role="manager", product_id=product_id)
@@ -298,7 +313,8 @@ def test_every_operation_answers_its_declared_model_through_a_products_life(clie
     call("GET", "/api/v1/teams/{team_id}/workflow", 200, role="viewer", team_id=alpha)
     replaced = call("PUT", "/api/v1/teams/{team_id}/workflow", 200, team_id=alpha,
                     json_body={"definition": SMALL_WORKFLOW})
-    assert replaced["moved_rails"] == [{"rail_id": rail_id, "from": "awaiting review", "to": "in design"}]
+    assert replaced["moved_rails"] == [{"rail_id": rail_id, "from": "awaiting review", "to": "in design"},
+                                       {"rail_id": frozen["id"], "from": "frozen for build", "to": "in design"}]
 
     # deleting, innermost first
     spare_product = call("POST", "/api/v1/products", 201, role="designer", json_body={"name": "Spare"})

@@ -4,7 +4,7 @@
   cookie issued before no longer opens a session (on every device of that user).
 
 Revision ID: 0011
-Revises: 0009
+Revises: 0010
 Create Date: 2026-12-02
 """
 
@@ -14,7 +14,7 @@ import sqlalchemy as sa
 from alembic import op
 
 revision = '0011'
-down_revision = '0009'
+down_revision = '0010'
 branch_labels = None
 depends_on = None
 

@@ -23,9 +23,9 @@ from dataclasses import dataclass
 from typing import Any
 
 from server.analysis.report import limit_text, margin_text, value_text
-from server.analysis.words import FIELD_TITLES
 from server.schemas.result import CheckRecord
 from server.units import format_quantity
+from server.services.rails import input_sections  # the inputs in words (the report reads them too)
 
 __all__ = ["VerdictStyle", "VERDICT_STYLES", "VERDICT_ORDER", "verdict_style", "check_records", "check_row",
            "check_rows", "worst_check", "check_text", "fmt", "input_sections", "BASIS_TEXT", "UNIT_TEXT"]
@@ -109,47 +109,3 @@ def worst_check(checks: list[CheckRecord]) -> dict[str, Any] | None:
         return (-verdict_style(c.verdict).severity, m if m is not None and math.isfinite(m) else math.inf)
 
     return check_row(min(candidates, key=key))
-
-
-# The inputs listed on the rail page: (section path, the fields shown); titles and unit kinds
-# come from FIELD_TITLES, the one table of words of the rail document.
-_INPUTS: list[tuple[str, tuple[str, ...]]] = [
-    ("supply", ("v_min", "v_nom", "v_max", "r_source", "l_source", "i_max", "uvlo", "uvlo_filter", "c_in")),
-    ("path", ("r", "l")),
-    ("load", ("c_nom", "c_tol", "esr", "model", "i_nom", "v_on")),
-    ("switch", ("mode", "t_on", "dvdt", "i_limit", "i_limit_tol", "p_limit")),
-    ("switch.timer", ("c", "c_tol", "i_charge", "i_charge_tol", "v_trip", "v_trip_tol", "after_fault", "retry_off")),
-    ("environment", ("t_ambient",)),
-    ("fet", ("name", "vds_max", "id_pulse_max", "rds_on", "rds_on_alpha", "tj_max", "rth_ja")),
-]
-
-
-def _section(document: dict[str, Any], path: str) -> dict[str, Any] | None:
-    node: Any = document
-    for key in path.split("."):
-        node = node.get(key) if isinstance(node, dict) else None
-    return node
-
-
-def _items(section: dict[str, Any], path: str, keys: tuple[str, ...]) -> list[tuple[str, str]]:
-    out = []
-    for key in keys:
-        value = section.get(key)
-        if value is None:
-            continue
-        words = FIELD_TITLES[f"{path}.{key}"]
-        out.append((words.title, str(value).replace("_", " ") if words.kind is None else fmt(value, words.kind)))
-    return out
-
-
-def input_sections(document: dict[str, Any]) -> list[dict[str, Any]]:
-    """The inputs of a rail, grouped, titled and in engineering notation (fields left unset are left out)."""
-    sections = []
-    for path, keys in _INPUTS:
-        section = _section(document, path)
-        title = FIELD_TITLES[path].title
-        if path == "switch.timer" and not section:
-            sections.append({"title": title, "items": [(title, "none")]})
-            continue
-        sections.append({"title": title, "items": _items(section or {}, path, keys)})
-    return sections

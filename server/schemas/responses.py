@@ -24,7 +24,7 @@ __all__ = ["ErrorDetail", "ErrorInfo", "ErrorResponse", "Page", "Listing", "Heal
            "PartStatus", "RailSummary", "RailListItem", "Rail", "RailSaved", "FieldChange", "RevisionDiff",
            "AnalysisOptions", "Job", "Approval", "Waiver", "ResultReading", "SignoffStatus", "TransitionTaken",
            "WorkflowDefinition", "Workflow", "WorkflowReplaced", "TeamSummary", "Team", "User", "UserListItem", "Me",
-           "Token", "NewToken", "AuditEntry", "RiskCheck", "ProductRisks"]
+           "Token", "NewToken", "AuditEntry", "RiskCheck", "ProductRisks", "ArchivedReport"]
 
 T = TypeVar("T")
 Timestamp = Annotated[str, Field(description="ISO 8601 time, UTC", json_schema_extra={"format": "date-time"})]
@@ -416,6 +416,8 @@ class WorkflowState(_Model):
     name: str
     initial: bool
     signed_off: bool
+    archives: bool = Field(description="entering it archives the record: once every rail of a board stands in "
+                                       "such a state, the board's sign-off report is archived as a PDF")
     description: str
 
 
@@ -741,3 +743,37 @@ class ReviewQueue(_Model):
     assigned: list[QueueEntry] = Field(description="awaiting you, oldest first")
     team: list[QueueEntry] = Field(description="awaiting a reviewer of your teams, nobody assigned, oldest first")
     totals: dict[str, int]
+
+
+# --- sign-off reports ------------------------------------------------------------------------
+
+
+class ArchivedRail(_Model):
+    rail_id: int
+    name: str
+    revision: int
+    sha256: Sha256
+
+
+class ArchiveOccasion(_Model):
+    rail_id: int
+    rail: str = Field(description="the rail whose entry completed the board")
+    transition: str
+    state: str
+
+
+class ArchivedReport(_Model):
+    """An archived copy of a board's sign-off report (a PDF); append-only: never changed or deleted."""
+
+    id: int
+    board_id: int
+    created_at: Timestamp
+    created_by: str
+    state: str = Field(description="the state (one that archives the record) every rail stood in")
+    rails: list[ArchivedRail] = Field(description="each rail's revision in the report")
+    occasion: ArchiveOccasion
+    engine_version: str
+    sha256: str = Field(description="sha256 of the PDF's bytes, hex (what a download gives)",
+                        pattern=r"^[0-9a-f]{64}$")
+    size: int = Field(description="bytes")
+    download: str = Field(description="where the PDF is")

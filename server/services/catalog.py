@@ -5,7 +5,7 @@ from __future__ import annotations
 from sqlalchemy import func, select
 from sqlalchemy.orm import Session
 
-from server.models import Board, Product, Rail, Team
+from server.models import ArchivedReport, Board, Product, Rail, Team
 from server.services.access import Actor, Permission, scoped_boards, scoped_products
 from server.services.audit import record
 from server.services.errors import Conflict, Invalid, NotFound, flush_or_conflict
@@ -145,6 +145,8 @@ def delete_board(*, session: Session, actor: Actor, board_id: int) -> None:
     board = get_board(session=session, actor=actor, board_id=board_id)
     if session.scalar(select(func.count()).select_from(Rail).where(Rail.board_id == board_id)):
         raise Conflict(f"board '{board.name}' still has rails: delete them first")
+    if session.scalar(select(func.count()).select_from(ArchivedReport).where(ArchivedReport.board_id == board_id)):
+        raise Conflict(f"board '{board.name}' has archived sign-off reports: they are kept, and the board with them")
     record(session, actor, action="delete", object_type="board", object_id=board.id,
            object_repr=f"{board.name} rev {board.revision}", product_id=board.product_id,
            before=board_dict(board))

@@ -13,14 +13,17 @@ from sqlalchemy import func, select
 from sqlalchemy.orm import Session, defer
 
 from server.analysis.bounds import plausibility_warnings
+from server.analysis.words import FIELD_TITLES
 from server.models import Board, Part, PartRevision, Rail, RailRevision
 from server.schemas.rail import normalize
 from server.schemas.validation import DocumentInvalid, parse_rail_document
 from server.services.access import Actor, scoped_rails
 from server.services.errors import Invalid, NotFound
+from server.units import format_quantity
 
 __all__ = ["normalize_document", "revision_dict", "rail_dict", "rail_dicts", "list_rails", "get_rail",
-           "get_revision", "list_revisions", "diff_documents", "diff_revisions", "part_status"]
+           "get_revision", "list_revisions", "diff_documents", "diff_revisions", "part_status",
+           "input_sections"]
 
 
 def normalize_document(data: Any, prefix: str = "document") -> dict[str, Any]:
@@ -182,3 +185,45 @@ def diff_revisions(*, session: Session, actor: Actor, rail_id: int, from_n: int,
             "to": revision_dict(new, with_document=False), "changes": diff_documents(old.document, new.document)}
 
 
+# The inputs listed on the rail page and in the sign-off report: (section path, the fields shown); titles and unit kinds
+# come from FIELD_TITLES, the one table of words of the rail document.
+_INPUTS: list[tuple[str, tuple[str, ...]]] = [
+    ("supply", ("v_min", "v_nom", "v_max", "r_source", "l_source", "i_max", "uvlo", "uvlo_filter", "c_in")),
+    ("path", ("r", "l")),
+    ("load", ("c_nom", "c_tol", "esr", "model", "i_nom", "v_on")),
+    ("switch", ("mode", "t_on", "dvdt", "i_limit", "i_limit_tol", "p_limit")),
+    ("switch.timer", ("c", "c_tol", "i_charge", "i_charge_tol", "v_trip", "v_trip_tol", "after_fault", "retry_off")),
+    ("environment", ("t_ambient",)),
+    ("fet", ("name", "vds_max", "id_pulse_max", "rds_on", "rds_on_alpha", "tj_max", "rth_ja")),
+]
+
+
+def _section(document: dict[str, Any], path: str) -> dict[str, Any] | None:
+    node: Any = document
+    for key in path.split("."):
+        node = node.get(key) if isinstance(node, dict) else None
+    return node
+
+
+def _items(section: dict[str, Any], path: str, keys: tuple[str, ...]) -> list[tuple[str, str]]:
+    out = []
+    for key in keys:
+        value = section.get(key)
+        if value is None:
+            continue
+        words = FIELD_TITLES[f"{path}.{key}"]
+        out.append((words.title, str(value).replace("_", " ") if words.kind is None else format_quantity(value, words.kind)))
+    return out
+
+
+def input_sections(document: dict[str, Any]) -> list[dict[str, Any]]:
+    """The inputs of a rail, grouped, titled and in engineering notation (fields left unset are left out)."""
+    sections = []
+    for path, keys in _INPUTS:
+        section = _section(document, path)
+        title = FIELD_TITLES[path].title
+        if path == "switch.timer" and not section:
+            sections.append({"title": title, "items": [(title, "none")]})
+            continue
+        sections.append({"title": title, "items": _items(section or {}, path, keys)})
+    return sections

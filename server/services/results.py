@@ -26,7 +26,7 @@ from server.services.errors import NotFound
 
 __all__ = ["NOMINAL_OPTIONS", "engine_version", "normalize_options", "options_key", "find_result", "store_result",
            "latest_result", "latest_outdated_result", "outdated_verdicts", "Reading", "reading", "checks_for_revision", "result_dict",
-           "get_result"]
+           "get_result", "ReadingHead", "reading_heads", "stored_result"]
 
 NOMINAL_OPTIONS: dict[str, Any] = {"corners": True, "monte_carlo": 0, "seed": 0, "distribution": "uniform"}
 
@@ -148,6 +148,42 @@ def reading(session: Session, *, sha256: str) -> Reading | None:
         return Reading(row, False, current)
     old = latest_outdated_result(session, sha256=sha256)
     return None if old is None else Reading(old, True, current)
+
+
+@dataclass(frozen=True)
+class ReadingHead:
+    """What :func:`reading` answers for a revision, without the result's body."""
+
+    id: int
+    engine_version: str
+    verdict: str
+    created_at: Any
+    outdated: bool
+
+
+def reading_heads(session: Session, shas: list[str]) -> dict[str, ReadingHead]:
+    """:func:`reading` for many revisions at once (the same rule: the newest current-engine
+    nominal+corners result, else the newest of another engine, outdated), without reading the
+    results' bodies; revisions never analysed are left out."""
+    if not shas:
+        return {}
+    current = engine_version()
+    rows = session.execute(select(AnalysisResult.id, AnalysisResult.sha256, AnalysisResult.engine_version,
+                                  AnalysisResult.verdict, AnalysisResult.created_at)
+                           .where(AnalysisResult.sha256.in_(set(shas)),
+                                  AnalysisResult.options_key == options_key(NOMINAL_OPTIONS))
+                           .order_by(AnalysisResult.created_at, AnalysisResult.id)).all()
+    out: dict[str, ReadingHead] = {}
+    for rid, sha, version, verdict, created in rows:   # oldest first: the newest of each kind wins
+        head = ReadingHead(rid, version, verdict, created, version != current)
+        if not head.outdated or sha not in out or out[sha].outdated:
+            out[sha] = head
+    return out
+
+
+def stored_result(session: Session, result_id: int) -> dict[str, Any]:
+    """The whole stored result of ``result_id`` (for a caller that has scoped already)."""
+    return session.get(AnalysisResult, result_id).result
 
 
 def checks_for_revision(session: Session, *, sha256: str) -> list[dict[str, Any]] | None:

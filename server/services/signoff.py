@@ -28,7 +28,7 @@ from sqlalchemy.orm import Session
 
 from server.models import AnalysisResult, Approval, Rail, RailRevision, Waiver, utcnow
 from server.services.rails import get_rail
-from server.services import governance, workflows
+from server.services import governance, reports, workflows
 from server.services.access import Actor, Permission
 from server.services.errors import Conflict, Forbidden, Invalid, NotFound, flush_or_conflict
 from server.services.audit import record
@@ -533,6 +533,18 @@ def take_transition(*, session: Session, actor: Actor, rail_id: int, transition:
     source = row.state
     workflows.move_rail(session, actor, rail, row, step.target, product_id=product_id,
                         extra={"transition": step.name, "sha256": rev.sha256, "comment": (comment or "")[:4000]})
+    _archive_if_flagged(session, actor, rail, wf, step.target, step.name)
     session.commit()
     return {"rail_id": rail.id, "from": source, "to": step.target, "transition": step.name, "revision": rev.n,
             "signed_off": wf.is_signed_off(step.target)}
+
+
+# --- archiving the record on entering a flagged state ---------------------------------------
+
+
+def _archive_if_flagged(session: Session, actor: Actor, rail: Rail, wf: WorkflowDef, state: str,
+                        transition: str) -> None:
+    """Entering a state that "archives the record": the board's report is archived once all its rails
+    stand in such a state (:func:`server.services.reports.archive_on_entry`; in this transaction)."""
+    if wf.archives(state):
+        reports.archive_on_entry(session, actor, rail, wf, state, transition=transition)

@@ -152,8 +152,9 @@ def test_a_new_state_and_its_transitions_are_added_in_one_save_and_a_removal_tak
     r = client.post(f"/admin/teams/{team}/workflow", data=as_data(added))
     assert r.status_code == 200, r.text
     definition = client.get(f"/api/v1/teams/{team}/workflow", headers=people.headers("admin")).json()["definition"]
-    assert definition["states"][4] == {"name": "parked", "initial": False, "signed_off": False,
+    assert definition["states"][4] == {"name": "parked", "initial": False, "signed_off": False, "archives": False,
                                        "description": "waiting for a part"}
+    assert [s["archives"] for s in definition["states"][:4]] == [False, False, False, True]   # the editor kept it
     assert [(t["name"], t["from"], t["to"], t["roles"]) for t in definition["transitions"][6:]] == [
         ("park", "in design", "parked", ["designer"]), ("resume", "parked", "in design", ["designer"])]
     assert '<g class="state" data-state="parked">' in r.text           # the diagram shows what was saved

@@ -110,7 +110,8 @@ def test_the_form_of_a_stored_definition_offers_empty_rows_and_picks_states_by_r
     assert len(form.states) == 4 + EXTRA_STATES and len(form.transitions) == 6 + EXTRA_TRANSITIONS
     accept = form.transitions[2]
     assert (accept.name, accept.source, accept.target) == ("accept margins", 1, 2)
-    assert form.on_edit == 0 and form.version == 4 and form.archives is False
+    assert form.on_edit == 0 and form.version == 4
+    assert form.archives is True and [s.archives for s in form.states[:4]] == [False, False, False, True]  # default
     assert all(t.blank for t in form.transitions[6:]) and all(s.blank for s in form.states[4:])
 
 
