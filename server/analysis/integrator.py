@@ -253,6 +253,10 @@ class _Model:
         self.i_nom, self.p_load, self.p_lim = cz.i_nom, cz.p_load, cz.p_lim
         self.g_load = 1.0 / cz.r_load if cz.load == "resistive" else 0.0
         self.rds_on, self.alpha = cz.rds_on, cz.alpha
+        # the step control's bounds on the junction's change, and whether Rds(on) follows it
+        self.tol_th = TJ_RTOL * self.th_span
+        self.step_th = TJ_STEP * self.th_span
+        self.varies = self.alpha != 0.0
 
     def take(self, rows) -> "_Model":
         return _Model(self.cz.take(rows), self.B, self.timer)
@@ -632,14 +636,23 @@ def _locate(S: _State, record, rec):
     return int(hit[0]) if hit.size else None
 
 
+class _Step:
+    """One attempted step of the working rows: where it starts (``t``), its size (``h``; the
+    stage at ``t + gh``, the second interval ``dt1``), the switch state it was taken in
+    (``sw_on``, None without a timer), its two stages (``s1``, ``s2``), the junction at each
+    (Foster rises ``th_g``, ``th_1``; temperatures ``tj_g``, ``tj_1``), the events it holds
+    (``evt``, None where no kind of event applies) and its time in regulation (``dtl``)."""
+
+    __slots__ = ("t", "h", "gh", "dh", "dt1", "t1", "sw_on", "s1", "s2", "th_g", "th_1", "tj_g", "tj_1", "evt",
+                 "dtl")
+
+
 def _run(model: _Model, S: _State, final: dict, wave, rec, record, t_amb: float, max_steps: int) -> _State:
+    """Step every active row until it stops (`_finished`) or the step cap is reached: propose
+    a step, take its stages, control its error, and for the rows that accept it update the
+    running figures, commit the new state and record the waveform."""
     B = model.B
     arrays = B is _ArrayOps
-    t_on = model.t_on
-    timer = model.timer
-    tol_th = TJ_RTOL * model.th_span
-    step_th = TJ_STEP * model.th_span
-    varies = model.alpha != 0.0
     it = 0
     while B.any(S.active):
         it += 1
@@ -651,245 +664,349 @@ def _run(model: _Model, S: _State, final: dict, wave, rec, record, t_amb: float,
         m = model
         active = S.active
         S.steps = S.steps + active
-        t, i, il, vc, vout, vin, ic, fi = S.t, S.i, S.il, S.vc, S.vout, S.vin, S.ic, S.fi
-        h = B.minimum(S.h, 0.1 * B.maximum(S.t_est, t))
-        if t_on > 0.0:
-            t_full = (S.t_att + t_on) if timer else t_on
-            cut = (t < t_full) & (t + h > t_full)
-            h = B.where(cut, B.maximum(t_full - t, 1e-300), h)
-        sw_on = None
-        if timer:
-            sw_on = S.on
-            if m.limit:  # land on the instant the regulation time reaches t_fault
-                h = B.where(sw_on & S.lim, B.minimum(h, m.t_fault - S.t_reg), h)
-            h = B.where(t + h > S.t_restart, B.maximum(S.t_restart - t, 1e-300), h)
-        c = m.c
-        gh = _G * h
-        dh = _D * h
-        dt1 = h - gh
-        t_rel = (t - S.t_att) if (t_on > 0.0 and timer) else t  # time since the switch turned on
-        if varies:  # Rds(on) at the junction temperature extrapolated to the stage
-            r_floor = 0.1 * m.rds_on  # rds_at's floor
-            r_on_g = B.maximum(S.r_on + S.r_rate * gh, r_floor)
-            r_on_1 = B.maximum(S.r_on + S.r_rate * h, r_floor)
-        else:
-            r_on_g = r_on_1 = S.r_on
-        # stage 1: trapezoidal rule to t + gamma h; stage 2: BDF2 to t + h
-        rhs_in1 = m.c_in * vin + dh * S.fin if m.has_cin else 0.0
-        e1, z1 = m.source(dh, m.l * il + dh * fi, rhs_in1)
-        s1 = m.stage(t_rel + gh, dh, e1, z1, rhs_in1, c * vc + dh * ic, vout + gh * ic / c, r_on_g, i, gh,
-                     S.started, sw_on)
-        rhs_in2 = m.c_in * (_C1 * s1.vin - _C2 * vin) if m.has_cin else 0.0
-        e2, z2 = m.source(dh, m.l * (_C1 * s1.il - _C2 * il), rhs_in2)
-        s2 = m.stage(t_rel + h, dh, e2, z2, rhs_in2, c * (_C1 * s1.vc - _C2 * vc),
-                     vout + (s1.vout - vout) * (1.0 / _G), r_on_1, s1.i, dt1, S.started, sw_on)
-        eh = _EC * h
-        tol_v = S.atol_v + RTOL * m.v_s
-        err = B.fabs(eh * (_W0 * ic + _W1 * s1.ic + _W2 * s2.ic) / c) / tol_v
-        if m.has_cin:
-            # (i_L, v_in) estimates filtered by their 2x2 block of the iteration matrix, the
-            # switch a conductance to the output where it is fully on
-            ea = eh * (_W0 * fi + _W1 * s1.fi + _W2 * s2.fi)
-            eb = eh * (_W0 * S.fin + _W1 * s1.fin + _W2 * s2.fin)
-            g_sw = 1.0 / (s2.r_sw + m.esr)
-            if m.limit:
-                g_sw = B.where(s2.lim, 0.0, g_sw)
-            if timer:
-                g_sw = B.where(sw_on, g_sw, 0.0)
-            yl = m.l + dh * m.r
-            cg = m.c_in + dh * g_sw
-            inv = 1.0 / (yl * cg + dh * dh)
-            err = B.maximum(err, B.fabs((yl * eb + dh * ea) * inv) / tol_v)
-            if m.has_l:
-                err = B.maximum(err, B.fabs((cg * ea - dh * eb) * inv) / (S.atol_i + RTOL * S.i_scale))
-        elif m.has_l:
-            # the current is a differential state only where no point of the step regulates
-            ei = eh * (_W0 * fi + _W1 * s1.fi + _W2 * s2.fi) / (m.l + dh * (m.r + s2.r_sw + m.esr))
-            if m.limit:
-                ei = B.where(S.lim | s1.lim | s2.lim, 0.0, ei)
-            err = B.maximum(err, B.fabs(ei) / (S.atol_i + RTOL * S.i_scale))
-
-        # junction temperature: exact Foster update with the power linear between stages;
-        # what the bend of the power at the stage point adds measures the error of taking
-        # the power as linear between stage points
-        th_g, th_1, bend = B.foster(S.theta, S.p, s1.p, s2.p, gh, dt1, m.r_th, m.tau_th)
-        tj_g = t_amb + B.rise(th_g)
-        tj_1 = t_amb + B.rise(th_1)
-        err = B.maximum(err, B.fabs(bend) / tol_th)
-        fac_err = 0.9 * B.maximum(err, 1e-12) ** (-1.0 / 3.0)
-        if varies:  # Rds(on) follows Tj: bound the change of Tj while the switch conducts
-            e_tj = B.fabs(tj_1 - S.tj) / step_th
-            if timer:
-                e_tj = B.where(sw_on, e_tj, 0.0)
-            err = B.maximum(err, e_tj)
-            fac_err = B.minimum(fac_err, 0.9 / B.maximum(e_tj, 1e-12))  # the change is ~ h
-
-        bad = B.not_(err <= 1e300)
-        if s1.bad is not None:
-            bad = bad | s1.bad | s2.bad
-        evt = None
-        if s1.event is not None:
-            # a load switching on or off inside the step: against the predictor of either
-            # stage, or between the start of the step and its end
-            above = vout > m.v_on
-            on_n = (B.where(sw_on, S.started | above, S.started & above) if timer else S.started | above)
-            evt = s1.event | s2.event | (s2.on ^ on_n)
-        if m.limit:
-            # the switch enters or leaves regulation inside the step
-            turn = (S.lim ^ s1.lim) | (s1.lim ^ s2.lim)
-            evt = turn if evt is None else (evt | turn)
-            dtl = _lim_time(B, S.exc, s1.exc, gh) + _lim_time(B, s1.exc, s2.exc, dt1)
-        ok = active & (err <= 1.0) & B.not_(bad)
-        over = None
-        if timer and m.limit:
-            # a step must not carry the regulation time past t_fault: cut it back by the excess
-            excess = S.t_reg + dtl - m.t_fault
-            over = ok & (excess > 1e-9 * m.t_fault)
-            if B.any(over):
-                ok = ok & B.not_(over)
-            else:
-                over = None
-        if evt is not None:
-            # ... is located within 1e-4 of the time scale (t_limit and the load's start to
-            # that accuracy): a step holding an event must not be longer than h_evt
-            long_evt = evt & (h > S.h_evt)
-            ok = ok & B.not_(long_evt)
-        fac = B.minimum(B.maximum(fac_err, 0.2), S.grow)
-        h_next = B.where(ok, h * fac, B.where(bad, 0.25 * h, h * B.maximum(fac, 0.1)))
-        if evt is not None:
-            hit = long_evt & B.not_(bad)
-            f_on = (vout, s1.vout, s2.vout, m.v_on) if s1.event is not None else None
-            f_lim = (S.exc, s1.exc, s2.exc, 0.0) if m.limit else None
-            if arrays:
-                h_next = _event_rows(S, ok, hit, evt, f_on, f_lim, t, h, h_next, fac_err)
-            elif hit or S.phase == 1:
-                h_next = _event_steps(B, S, ok, hit, evt, _event_frac(B, hit, f_on, f_lim), t, h, h_next, fac_err)
-        if over is not None:
-            h_next = B.where(over, B.minimum(h_next, h - excess), h_next)
-        S.h = h_next
-        S.grow = B.where(ok, 8.0, 1.0)  # no growth right after a rejected step (Hairer & Wanner)
+        step = _take_stages(m, S, _propose_step(m, S))
+        err, fac_err = _local_error(m, S, step, t_amb)
+        ok = _control_step(m, S, step, active, err, fac_err)
         if not B.any(ok):
             continue
-        t1 = t + h
-
-        # peak current: stage values, and the vertex of the quadratic where all free
-        s1_hi = s1.i > s2.i
-        pk = B.where(s1_hi, s1.i, s2.i)
-        tpk = B.where(s1_hi, t + gh, t1)
-        if not m.limit:
-            ci = (s1.i - i - _G * (s2.i - i)) * (1.0 / (_G * _G - _G))
-            bi = (s2.i - i) - ci
-            cneg = ci < 0
-            cs = B.where(cneg, ci, -1.0)
-            xv = -bi / (2.0 * cs)
-            use = cneg & (xv > 0) & (xv < 1)
-            vert = i - bi * bi / (4.0 * cs)
-            use = use & (vert > pk)
-            pk = B.where(use, vert, pk)
-            tpk = B.where(use, t + xv * h, tpk)
-        new_pk = ok & (pk > S.i_peak)
-        S.i_peak = B.where(new_pk, pk, S.i_peak)
-        S.t_i_peak = B.where(new_pk, tpk, S.t_i_peak)
-        # the peak power (found inside the step too) and its operating point; under a power
-        # limit the highest v_ds among the points within PEAK_BAND of the peak (the plateau and
-        # its edges alike), the harder point for the SOA, which a slight overshoot at one end of
-        # the plateau does not move
-        vertex = _power_vertex(B, S, s1, s2, m.limit)
-        band = PEAK_BAND if m.mode == "power_limit" else 0.0
-        S.v_pk, S.i_pk, S.p_peak = _peak_point(B, ok, s1, s2, vertex, band, S.v_pk, S.i_pk, S.p_peak)
-        if timer:
-            S.v_att, S.i_att, S.pp_att = _peak_point(B, ok, s1, s2, vertex, band, S.v_att, S.i_att, S.pp_att)
-        de = h * (_Q0 * S.p + _Q1 * s1.p + _Q2 * s2.p)
-        S.e_fet = B.where(ok, S.e_fet + de, S.e_fet)
-        if timer:
-            S.e_att = B.where(ok, S.e_att + de, S.e_att)
-        if m.limit:
-            S.t_reg = B.where(ok, S.t_reg + dtl, S.t_reg)
-
-        # the switch input: lowest value, and the time below the UVLO threshold
-        _dip(m, S, ok, t, gh, h, i, s1, s2, evt)
-
-        # junction temperature: stage points, and the interior peak the closed form gives
-        # where the rise increases at the start of the step and decreases at its end (the
-        # stage point's rate tells in which interval)
-        rate_1 = B.rate(th_1, s2.p, m.r_th, m.tau_th)
-        tj_hi = B.maximum(tj_g, tj_1)
-        turns = ok & (S.dtj > 0.0) & (rate_1 < 0.0)
-        if B.any(turns):
-            rate_g = B.rate(th_g, s1.p, m.r_th, m.tau_th)
-            tj_hi = _interior_peak(m, S, tj_hi, turns & (rate_g < 0.0), turns & (rate_g >= 0.0), th_g, s1, s2, gh,
-                                   dt1, t_amb)
-        S.tj_peak = B.where(ok, B.maximum(S.tj_peak, tj_hi), S.tj_peak)
-
-        r_on1 = m.r_on(tj_1) if varies else S.r_on
-        v_f, i_f = m.final_output(r_on1)
-        band = SETTLE_BAND * B.fabs(v_f)
-        d1 = B.fabs(s2.vout - v_f) - band
-        out_1 = d1 > 0
-        if B.any(B.not_(out_1)):  # some row ends the step inside the band: where did it enter
-            d0 = B.fabs(vout - v_f) - band
-            dg = B.fabs(s1.vout - v_f) - band
-            x1 = dg / B.where(dg > d1, dg - d1, 1.0)
-            x0 = d0 / B.where(d0 > dg, d0 - dg, 1.0)
-            cross_g1 = t + gh + dt1 * B.minimum(B.maximum(x1, 0.0), 1.0)
-            cross_0g = t + gh * B.minimum(B.maximum(x0, 0.0), 1.0)
-            ts_new = B.where(out_1, t1, B.where(dg > 0, cross_g1, B.where(d0 > 0, cross_0g, S.t_settle)))
-        else:
-            ts_new = t1
-        S.t_settle = B.where(ok, ts_new, S.t_settle)
-
-        # commit the accepted rows
-        S.t = B.where(ok, t1, t)
-        S.i = B.where(ok, s2.i, i)
-        S.vc = B.where(ok, s2.vc, vc)
-        S.vout = B.where(ok, s2.vout, vout)
-        S.vin = B.where(ok, s2.vin, vin)
-        S.ic = B.where(ok, s2.ic, ic)
-        S.fi = B.where(ok, s2.fi, fi)
-        S.p = B.where(ok, s2.p, S.p)
-        if m.has_cin:
-            S.il = B.where(ok, s2.il, il)
-            S.fin = B.where(ok, s2.fin, S.fin)
-        else:
-            S.il = S.i
-        if m.limit:
-            S.exc = B.where(ok, s2.exc, S.exc)
-            S.lim = B.where(ok, s2.lim, S.lim)
-        S.theta = B.where(ok[:, None], th_1, S.theta) if arrays else (th_1 if ok else S.theta)
-        S.tj = B.where(ok, tj_1, S.tj)
-        S.dtj = B.where(ok, rate_1, S.dtj)
-        if varies:
-            S.r_rate = B.where(ok, (r_on1 - S.r_on) / h, S.r_rate)
-            S.r_on = B.where(ok, r_on1, S.r_on)
-        S.i_scale = B.maximum(S.i_scale, B.fabs(S.i))
-        if not m.continuous:
-            if timer:
-                S.started = B.where(sw_on, S.started | (ok & (B.maximum(s1.vout, s2.vout) > m.v_on)),
-                                    S.started & B.not_(ok & (s2.vout <= m.v_on)))
-            else:
-                S.started = S.started | (ok & (B.maximum(s1.vout, s2.vout) > m.v_on))
+        _peak_current(m, S, step, ok)
+        _peak_power_and_energy(m, S, step, ok)
+        _dip(m, S, ok, step.t, step.gh, step.h, S.i, step.s1, step.s2, step.evt)
+        tj_hi, rate_1 = _junction_peak(m, S, step, ok, t_amb)
+        r_on1 = m.r_on(step.tj_1) if m.varies else S.r_on
+        v_f, i_f = m.final_output(r_on1)  # the DC operating point at the step's end
+        _settling(m, S, step, ok, v_f)
+        _commit(m, S, step, ok, rate_1, r_on1)
         if rec is not None and (ok[rec] if arrays else ok):
             _record(wave, S, rec if arrays else None)
-
-        dev = m.l * (S.il - i_f) ** 2 + c * (S.vc - v_f) ** 2
-        if m.has_cin:
-            dev = dev + m.c_in * (S.vin - m.v_s + m.r * i_f) ** 2
-        done = ok & (dev <= c * (STOP_BAND * v_f) ** 2)
-        if m.limit:
-            done = done & B.not_(S.lim)
-        if t_on > 0.0:
-            done = done & ((S.t - S.t_att) >= t_on if timer else S.t >= t_on)
-        if timer:
-            done = done & sw_on
-        S.outcome = B.where(done, OUTCOME_COMPLETE, S.outcome)
-        hot = ok & (tj_hi > m.tj_runaway)
-        if B.any(hot):
-            S.outcome = B.where(hot & B.not_(done), OUTCOME_RUNAWAY, S.outcome)
-            done = done | hot
-        if timer:
-            done = done | _switch_events(m, S, ok, final, wave, rec)
+        done = _finished(m, S, step, ok, tj_hi, v_f, i_f, final, wave, rec)
         S.active = active & B.not_(done)
     return S
+
+
+def _propose_step(m: _Model, S: _State):
+    """Each row's next step size: its adaptive size, at most 0.1 of the time scale or of the
+    elapsed time, cut to land on the end of the turn-on ramp, on the instant the regulation
+    time reaches t_fault and on the end of a retry's off time."""
+    B = m.B
+    t = S.t
+    h = B.minimum(S.h, 0.1 * B.maximum(S.t_est, t))
+    t_on = m.t_on
+    if t_on > 0.0:
+        t_full = (S.t_att + t_on) if m.timer else t_on
+        cut = (t < t_full) & (t + h > t_full)
+        h = B.where(cut, B.maximum(t_full - t, 1e-300), h)
+    if m.timer:
+        if m.limit:  # land on the instant the regulation time reaches t_fault
+            h = B.where(S.on & S.lim, B.minimum(h, m.t_fault - S.t_reg), h)
+        h = B.where(t + h > S.t_restart, B.maximum(S.t_restart - t, 1e-300), h)
+    return h
+
+
+def _take_stages(m: _Model, S: _State, h) -> _Step:
+    """The two stages of a step of size ``h`` (stage 1: trapezoidal rule to t + gamma h;
+    stage 2: BDF2 to t + h), Rds(on) at the junction temperature extrapolated to each stage,
+    and the exact Foster update of the junction with the power linear between stages."""
+    B = m.B
+    step = _Step()
+    t, i, il, vc, vout, vin, ic, fi = S.t, S.i, S.il, S.vc, S.vout, S.vin, S.ic, S.fi
+    sw_on = S.on if m.timer else None
+    c = m.c
+    gh = _G * h
+    dh = _D * h
+    dt1 = h - gh
+    t_rel = (t - S.t_att) if (m.t_on > 0.0 and m.timer) else t  # time since the switch turned on
+    if m.varies:  # Rds(on) at the junction temperature extrapolated to the stage
+        r_floor = 0.1 * m.rds_on  # rds_at's floor
+        r_on_g = B.maximum(S.r_on + S.r_rate * gh, r_floor)
+        r_on_1 = B.maximum(S.r_on + S.r_rate * h, r_floor)
+    else:
+        r_on_g = r_on_1 = S.r_on
+    rhs_in1 = m.c_in * vin + dh * S.fin if m.has_cin else 0.0
+    e1, z1 = m.source(dh, m.l * il + dh * fi, rhs_in1)
+    s1 = m.stage(t_rel + gh, dh, e1, z1, rhs_in1, c * vc + dh * ic, vout + gh * ic / c, r_on_g, i, gh,
+                 S.started, sw_on)
+    rhs_in2 = m.c_in * (_C1 * s1.vin - _C2 * vin) if m.has_cin else 0.0
+    e2, z2 = m.source(dh, m.l * (_C1 * s1.il - _C2 * il), rhs_in2)
+    s2 = m.stage(t_rel + h, dh, e2, z2, rhs_in2, c * (_C1 * s1.vc - _C2 * vc),
+                 vout + (s1.vout - vout) * (1.0 / _G), r_on_1, s1.i, dt1, S.started, sw_on)
+    step.t, step.t1, step.h, step.gh, step.dh, step.dt1 = t, t + h, h, gh, dh, dt1
+    step.sw_on, step.s1, step.s2 = sw_on, s1, s2
+    return step
+
+
+def _local_error(m: _Model, S: _State, step: _Step, t_amb: float):
+    """The step's local error relative to its tolerance (1: at the tolerance) and the step
+    factor it asks for (0.9 err^(-1/3), or the factor of the bound on the change of Tj).
+
+    The electrical states' estimates are filtered by the iteration matrix; the junction's
+    error is what the bend of the power at the stage point adds to the rise (the Foster
+    update, with the power linear between stage points, is taken here into ``step``).
+    """
+    B = m.B
+    h, gh, dh, dt1, s1, s2, sw_on = step.h, step.gh, step.dh, step.dt1, step.s1, step.s2, step.sw_on
+    c = m.c
+    ic, fi = S.ic, S.fi
+    eh = _EC * h
+    tol_v = S.atol_v + RTOL * m.v_s
+    err = B.fabs(eh * (_W0 * ic + _W1 * s1.ic + _W2 * s2.ic) / c) / tol_v
+    if m.has_cin:
+        # (i_L, v_in) estimates filtered by their 2x2 block of the iteration matrix, the
+        # switch a conductance to the output where it is fully on
+        ea = eh * (_W0 * fi + _W1 * s1.fi + _W2 * s2.fi)
+        eb = eh * (_W0 * S.fin + _W1 * s1.fin + _W2 * s2.fin)
+        g_sw = 1.0 / (s2.r_sw + m.esr)
+        if m.limit:
+            g_sw = B.where(s2.lim, 0.0, g_sw)
+        if m.timer:
+            g_sw = B.where(sw_on, g_sw, 0.0)
+        yl = m.l + dh * m.r
+        cg = m.c_in + dh * g_sw
+        inv = 1.0 / (yl * cg + dh * dh)
+        err = B.maximum(err, B.fabs((yl * eb + dh * ea) * inv) / tol_v)
+        if m.has_l:
+            err = B.maximum(err, B.fabs((cg * ea - dh * eb) * inv) / (S.atol_i + RTOL * S.i_scale))
+    elif m.has_l:
+        # the current is a differential state only where no point of the step regulates
+        ei = eh * (_W0 * fi + _W1 * s1.fi + _W2 * s2.fi) / (m.l + dh * (m.r + s2.r_sw + m.esr))
+        if m.limit:
+            ei = B.where(S.lim | s1.lim | s2.lim, 0.0, ei)
+        err = B.maximum(err, B.fabs(ei) / (S.atol_i + RTOL * S.i_scale))
+
+    # junction temperature: exact Foster update with the power linear between stages;
+    # what the bend of the power at the stage point adds measures the error of taking
+    # the power as linear between stage points
+    th_g, th_1, bend = B.foster(S.theta, S.p, s1.p, s2.p, gh, dt1, m.r_th, m.tau_th)
+    step.th_g, step.th_1 = th_g, th_1
+    step.tj_g = t_amb + B.rise(th_g)
+    tj_1 = step.tj_1 = t_amb + B.rise(th_1)
+    err = B.maximum(err, B.fabs(bend) / m.tol_th)
+    fac_err = 0.9 * B.maximum(err, 1e-12) ** (-1.0 / 3.0)
+    if m.varies:  # Rds(on) follows Tj: bound the change of Tj while the switch conducts
+        e_tj = B.fabs(tj_1 - S.tj) / m.step_th
+        if m.timer:
+            e_tj = B.where(sw_on, e_tj, 0.0)
+        err = B.maximum(err, e_tj)
+        fac_err = B.minimum(fac_err, 0.9 / B.maximum(e_tj, 1e-12))  # the change is ~ h
+    return err, fac_err
+
+
+def _step_events(m: _Model, S: _State, step: _Step):
+    """Where the step holds an event: a load switching on or off (against the predictor of
+    either stage, or between the start of the step and its end) or the switch entering or
+    leaving regulation; None where neither kind applies. Under a limit the step's time in
+    regulation goes into ``step.dtl``."""
+    B = m.B
+    s1, s2 = step.s1, step.s2
+    evt = None
+    if s1.event is not None:
+        above = S.vout > m.v_on
+        on_n = (B.where(step.sw_on, S.started | above, S.started & above) if m.timer else S.started | above)
+        evt = s1.event | s2.event | (s2.on ^ on_n)
+    if m.limit:
+        turn = (S.lim ^ s1.lim) | (s1.lim ^ s2.lim)
+        evt = turn if evt is None else (evt | turn)
+        step.dtl = _lim_time(B, S.exc, s1.exc, step.gh) + _lim_time(B, s1.exc, s2.exc, step.dt1)
+    step.evt = evt
+    return evt
+
+
+def _control_step(m: _Model, S: _State, step: _Step, active, err, fac_err):
+    """Accept or reject the step of each active row and set its next step size (``S.h``).
+
+    Rejected: an error above the tolerance, a failed stage, a step that carries the
+    regulation time past t_fault (cut back by the excess), and a step longer than h_evt
+    that holds an event (`_event_steps` aims the next one at it). Returns the accepted rows.
+    """
+    B = m.B
+    s1, s2, h = step.s1, step.s2, step.h
+    bad = B.not_(err <= 1e300)
+    if s1.bad is not None:
+        bad = bad | s1.bad | s2.bad
+    evt = _step_events(m, S, step)
+    ok = active & (err <= 1.0) & B.not_(bad)
+    over = None
+    if m.timer and m.limit:
+        # a step must not carry the regulation time past t_fault: cut it back by the excess
+        excess = S.t_reg + step.dtl - m.t_fault
+        over = ok & (excess > 1e-9 * m.t_fault)
+        if B.any(over):
+            ok = ok & B.not_(over)
+        else:
+            over = None
+    if evt is not None:
+        # ... is located within 1e-4 of the time scale (t_limit and the load's start to
+        # that accuracy): a step holding an event must not be longer than h_evt
+        long_evt = evt & (h > S.h_evt)
+        ok = ok & B.not_(long_evt)
+    fac = B.minimum(B.maximum(fac_err, 0.2), S.grow)
+    h_next = B.where(ok, h * fac, B.where(bad, 0.25 * h, h * B.maximum(fac, 0.1)))
+    if evt is not None:
+        hit = long_evt & B.not_(bad)
+        f_on = (S.vout, s1.vout, s2.vout, m.v_on) if s1.event is not None else None
+        f_lim = (S.exc, s1.exc, s2.exc, 0.0) if m.limit else None
+        if B is _ArrayOps:
+            h_next = _event_rows(S, ok, hit, evt, f_on, f_lim, step.t, h, h_next, fac_err)
+        elif hit or S.phase == 1:
+            h_next = _event_steps(B, S, ok, hit, evt, _event_frac(B, hit, f_on, f_lim), step.t, h, h_next,
+                                  fac_err)
+    if over is not None:
+        h_next = B.where(over, B.minimum(h_next, h - excess), h_next)
+    S.h = h_next
+    S.grow = B.where(ok, 8.0, 1.0)  # no growth right after a rejected step (Hairer & Wanner)
+    return ok
+
+
+def _peak_current(m: _Model, S: _State, step: _Step, ok) -> None:
+    """The running peak current and its time: stage values, and the vertex of the quadratic
+    through the step's currents where the switch is free throughout."""
+    B = m.B
+    t, h, s1, s2, i = step.t, step.h, step.s1, step.s2, S.i
+    s1_hi = s1.i > s2.i
+    pk = B.where(s1_hi, s1.i, s2.i)
+    t1 = step.t1
+    tpk = B.where(s1_hi, t + step.gh, t1)
+    if not m.limit:
+        ci = (s1.i - i - _G * (s2.i - i)) * (1.0 / (_G * _G - _G))
+        bi = (s2.i - i) - ci
+        cneg = ci < 0
+        cs = B.where(cneg, ci, -1.0)
+        xv = -bi / (2.0 * cs)
+        use = cneg & (xv > 0) & (xv < 1)
+        vert = i - bi * bi / (4.0 * cs)
+        use = use & (vert > pk)
+        pk = B.where(use, vert, pk)
+        tpk = B.where(use, t + xv * h, tpk)
+    new_pk = ok & (pk > S.i_peak)
+    S.i_peak = B.where(new_pk, pk, S.i_peak)
+    S.t_i_peak = B.where(new_pk, tpk, S.t_i_peak)
+
+
+def _peak_power_and_energy(m: _Model, S: _State, step: _Step, ok) -> None:
+    """The running peak power (found inside the step too) and its operating point, the FET
+    energy, their counts of the attempt under way, and the time in regulation.
+
+    Under a power limit the operating point is the highest v_ds among the points within
+    PEAK_BAND of the peak (the plateau and its edges alike), the harder point for the SOA,
+    which a slight overshoot at one end of the plateau does not move.
+    """
+    B = m.B
+    s1, s2 = step.s1, step.s2
+    vertex = _power_vertex(B, S, s1, s2, m.limit)
+    band = PEAK_BAND if m.mode == "power_limit" else 0.0
+    S.v_pk, S.i_pk, S.p_peak = _peak_point(B, ok, s1, s2, vertex, band, S.v_pk, S.i_pk, S.p_peak)
+    if m.timer:
+        S.v_att, S.i_att, S.pp_att = _peak_point(B, ok, s1, s2, vertex, band, S.v_att, S.i_att, S.pp_att)
+    de = step.h * (_Q0 * S.p + _Q1 * s1.p + _Q2 * s2.p)
+    S.e_fet = B.where(ok, S.e_fet + de, S.e_fet)
+    if m.timer:
+        S.e_att = B.where(ok, S.e_att + de, S.e_att)
+    if m.limit:
+        S.t_reg = B.where(ok, S.t_reg + step.dtl, S.t_reg)
+
+
+def _junction_peak(m: _Model, S: _State, step: _Step, ok, t_amb: float):
+    """The running peak junction temperature: stage points, and the interior peak the closed
+    form gives where the rise increases at the start of the step and decreases at its end
+    (the stage point's rate tells in which interval). Returns the step's highest junction
+    temperature and the rate of the rises at its end."""
+    B = m.B
+    s1, s2 = step.s1, step.s2
+    rate_1 = B.rate(step.th_1, s2.p, m.r_th, m.tau_th)
+    tj_hi = B.maximum(step.tj_g, step.tj_1)
+    turns = ok & (S.dtj > 0.0) & (rate_1 < 0.0)
+    if B.any(turns):
+        rate_g = B.rate(step.th_g, s1.p, m.r_th, m.tau_th)
+        tj_hi = _interior_peak(m, S, tj_hi, turns & (rate_g < 0.0), turns & (rate_g >= 0.0), step.th_g, s1, s2,
+                               step.gh, step.dt1, t_amb)
+    S.tj_peak = B.where(ok, B.maximum(S.tj_peak, tj_hi), S.tj_peak)
+    return tj_hi, rate_1
+
+
+def _settling(m: _Model, S: _State, step: _Step, ok, v_f) -> None:
+    """The settling time: the last instant the output entered the band of SETTLE_BAND around
+    its final value ``v_f`` (the end of the step while it is outside), crossings linear
+    between the stage values."""
+    B = m.B
+    t, gh, dt1, t1, s1, s2 = step.t, step.gh, step.dt1, step.t1, step.s1, step.s2
+    band = SETTLE_BAND * B.fabs(v_f)
+    d1 = B.fabs(s2.vout - v_f) - band
+    out_1 = d1 > 0
+    if B.any(B.not_(out_1)):  # some row ends the step inside the band: where did it enter
+        d0 = B.fabs(S.vout - v_f) - band
+        dg = B.fabs(s1.vout - v_f) - band
+        x1 = dg / B.where(dg > d1, dg - d1, 1.0)
+        x0 = d0 / B.where(d0 > dg, d0 - dg, 1.0)
+        cross_g1 = t + gh + dt1 * B.minimum(B.maximum(x1, 0.0), 1.0)
+        cross_0g = t + gh * B.minimum(B.maximum(x0, 0.0), 1.0)
+        ts_new = B.where(out_1, t1, B.where(dg > 0, cross_g1, B.where(d0 > 0, cross_0g, S.t_settle)))
+    else:
+        ts_new = t1
+    S.t_settle = B.where(ok, ts_new, S.t_settle)
+
+
+def _commit(m: _Model, S: _State, step: _Step, ok, rate_1, r_on1) -> None:
+    """Take the end of the step into the state of the accepted rows (the others keep theirs):
+    time, currents, voltages, power, regulation, junction (and Rds(on) following it), the
+    largest current so far and whether the load has started."""
+    B = m.B
+    s1, s2 = step.s1, step.s2
+    S.t = B.where(ok, step.t1, S.t)
+    S.i = B.where(ok, s2.i, S.i)
+    S.vc = B.where(ok, s2.vc, S.vc)
+    S.vout = B.where(ok, s2.vout, S.vout)
+    S.vin = B.where(ok, s2.vin, S.vin)
+    S.ic = B.where(ok, s2.ic, S.ic)
+    S.fi = B.where(ok, s2.fi, S.fi)
+    S.p = B.where(ok, s2.p, S.p)
+    if m.has_cin:
+        S.il = B.where(ok, s2.il, S.il)
+        S.fin = B.where(ok, s2.fin, S.fin)
+    else:
+        S.il = S.i
+    if m.limit:
+        S.exc = B.where(ok, s2.exc, S.exc)
+        S.lim = B.where(ok, s2.lim, S.lim)
+    S.theta = B.where(ok[:, None], step.th_1, S.theta) if B is _ArrayOps else (step.th_1 if ok else S.theta)
+    S.tj = B.where(ok, step.tj_1, S.tj)
+    S.dtj = B.where(ok, rate_1, S.dtj)
+    if m.varies:
+        S.r_rate = B.where(ok, (r_on1 - S.r_on) / step.h, S.r_rate)
+        S.r_on = B.where(ok, r_on1, S.r_on)
+    S.i_scale = B.maximum(S.i_scale, B.fabs(S.i))
+    if not m.continuous:
+        if m.timer:
+            S.started = B.where(step.sw_on, S.started | (ok & (B.maximum(s1.vout, s2.vout) > m.v_on)),
+                                S.started & B.not_(ok & (s2.vout <= m.v_on)))
+        else:
+            S.started = S.started | (ok & (B.maximum(s1.vout, s2.vout) > m.v_on))
+
+
+def _finished(m: _Model, S: _State, step: _Step, ok, tj_hi, v_f, i_f, final: dict, wave, rec):
+    """The rows done after the committed step, their outcome set: complete (out of regulation,
+    the turn-on ramp over, the deviation energy from the DC operating point ``v_f``, ``i_f``
+    within the stop band), destroyed (the junction past the runaway threshold), or tripped
+    and followed far enough (`_switch_events`, which also carries out trips and retries)."""
+    B = m.B
+    t_on = m.t_on
+    dev = m.l * (S.il - i_f) ** 2 + m.c * (S.vc - v_f) ** 2
+    if m.has_cin:
+        dev = dev + m.c_in * (S.vin - m.v_s + m.r * i_f) ** 2
+    done = ok & (dev <= m.c * (STOP_BAND * v_f) ** 2)
+    if m.limit:
+        done = done & B.not_(S.lim)
+    if t_on > 0.0:
+        done = done & ((S.t - S.t_att) >= t_on if m.timer else S.t >= t_on)
+    if m.timer:
+        done = done & step.sw_on
+    S.outcome = B.where(done, OUTCOME_COMPLETE, S.outcome)
+    hot = ok & (tj_hi > m.tj_runaway)
+    if B.any(hot):
+        S.outcome = B.where(hot & B.not_(done), OUTCOME_RUNAWAY, S.outcome)
+        done = done | hot
+    if m.timer:
+        done = done | _switch_events(m, S, ok, final, wave, rec)
+    return done
 
 
 def _dip(m: _Model, S, ok, t, gh, h, i, s1, s2, evt) -> None:
