@@ -15,6 +15,14 @@ vectorised iteration (corners, Monte Carlo, candidate capacitances), `_FloatOps`
 very same code on Python floats for a single row, where the cost of a NumPy call would
 exceed the arithmetic it does. Each row has its own adaptive step in both cases.
 
+`_run` is the step loop; each part of a step is one helper, in this order: `_propose_step`
+(the size, landing on instants), `_take_stages` (the two stages into a `_Step`),
+`_local_error`, `_control_step` (acceptance, events through `_step_events` and
+`_event_steps`, the next size); then for the rows that accept it `_peak_current`,
+`_peak_power_and_energy`, `_dip` (the switch input and the time below the UVLO),
+`_junction_peak`, `_settling`, `_commit` (the new `_State`) and `_finished` (outcomes;
+trips and retries in `_switch_events`).
+
 Method
 ------
 TR-BDF2 with gamma = 2 - sqrt 2: a trapezoidal stage to t + gamma h, then a BDF2 stage to
@@ -638,8 +646,9 @@ def _locate(state: _State, record, rec):
 
 
 class _Step:
-    """One attempted step of the working rows: where it starts (``t``), its size (``h``; the
-    stage at ``t + gh``, the second interval ``dt1``), the switch state it was taken in
+    """One attempted step of the working rows: where it starts (``t``) and ends (``t1``), its
+    size (``h``; the stage at ``t + gh``, ``dh`` = d h of the stage equations, the second
+    interval ``dt1``), the switch state it was taken in
     (``sw_on``, None without a timer), its two stages (``s1``, ``s2``), the junction at each
     (Foster rises ``th_g``, ``th_1``; temperatures ``tj_g``, ``tj_1``), the events it holds
     (``evt``, None where no kind of event applies) and its time in regulation (``dtl``)."""
@@ -654,10 +663,10 @@ def _run(model: _Model, state: _State, final: dict, wave, rec, record, t_amb: fl
     running figures, commit the new state and record the waveform."""
     ops = model.ops
     arrays = ops is _ArrayOps
-    it = 0
+    iterations = 0
     while ops.any(state.active):
-        it += 1
-        if it > max_steps:
+        iterations += 1
+        if iterations > max_steps:
             return state  # rows still active keep what they computed
         if arrays and state.rows.size > 64 and np.count_nonzero(state.active) < 0.6 * state.rows.size:
             model, state = _compact(model, state, final)
