@@ -734,11 +734,11 @@ def _take_stages(model: _Model, state: _State, h) -> _Step:
     rhs_in1 = model.c_in * vin + dh * state.fin if model.has_cin else 0.0
     e1, z1 = model.source(dh, model.l * il + dh * fi, rhs_in1)
     s1 = model.stage(t_rel + gh, dh, e1, z1, rhs_in1, c * vc + dh * ic, vout + gh * ic / c, r_on_g, i, gh,
-                 state.started, sw_on)
+                     state.started, sw_on)
     rhs_in2 = model.c_in * (_C1 * s1.vin - _C2 * vin) if model.has_cin else 0.0
     e2, z2 = model.source(dh, model.l * (_C1 * s1.il - _C2 * il), rhs_in2)
     s2 = model.stage(t_rel + h, dh, e2, z2, rhs_in2, c * (_C1 * s1.vc - _C2 * vc),
-                 vout + (s1.vout - vout) * (1.0 / _G), r_on_1, s1.i, dt1, state.started, sw_on)
+                     vout + (s1.vout - vout) * (1.0 / _G), r_on_1, s1.i, dt1, state.started, sw_on)
     step.t, step.t1, step.h, step.gh, step.dh, step.dt1 = t, t + h, h, gh, dh, dt1
     step.sw_on, step.s1, step.s2 = sw_on, s1, s2
     return step
@@ -962,39 +962,52 @@ def _settling(model: _Model, state: _State, step: _Step, ok, v_f) -> None:
 def _commit(model: _Model, state: _State, step: _Step, ok, rate_1, r_on1) -> None:
     """Take the end of the step into the state of the accepted rows (the others keep theirs):
     time, currents, voltages, power, regulation, junction (and Rds(on) following it), the
-    largest current so far and whether the load has started."""
+    largest current so far and whether the load has started.
+
+    On the float back end the one row has accepted the step (otherwise the loop has gone on
+    to the next attempt), so its state is the step's end without a choice per value."""
     ops = model.ops
     s1, s2 = step.s1, step.s2
-    state.t = ops.where(ok, step.t1, state.t)
-    state.i = ops.where(ok, s2.i, state.i)
-    state.vc = ops.where(ok, s2.vc, state.vc)
-    state.vout = ops.where(ok, s2.vout, state.vout)
-    state.vin = ops.where(ok, s2.vin, state.vin)
-    state.ic = ops.where(ok, s2.ic, state.ic)
-    state.fi = ops.where(ok, s2.fi, state.fi)
-    state.p = ops.where(ok, s2.p, state.p)
-    if model.has_cin:
-        state.il = ops.where(ok, s2.il, state.il)
-        state.fin = ops.where(ok, s2.fin, state.fin)
+    if ops is _FloatOps:
+        state.t, state.i, state.vc, state.vout = step.t1, s2.i, s2.vc, s2.vout
+        state.vin, state.ic, state.fi, state.p = s2.vin, s2.ic, s2.fi, s2.p
+        if model.has_cin:
+            state.il, state.fin = s2.il, s2.fin
+        if model.limit:
+            state.exc, state.lim = s2.exc, s2.lim
+        state.theta, state.tj, state.dtj = step.th_1, step.tj_1, rate_1
+        if model.varies:
+            state.r_rate = (r_on1 - state.r_on) / step.h
+            state.r_on = r_on1
     else:
-        state.il = state.i
-    if model.limit:
-        state.exc = ops.where(ok, s2.exc, state.exc)
-        state.lim = ops.where(ok, s2.lim, state.lim)
-    if ops is _ArrayOps:
+        state.t = ops.where(ok, step.t1, state.t)
+        state.i = ops.where(ok, s2.i, state.i)
+        state.vc = ops.where(ok, s2.vc, state.vc)
+        state.vout = ops.where(ok, s2.vout, state.vout)
+        state.vin = ops.where(ok, s2.vin, state.vin)
+        state.ic = ops.where(ok, s2.ic, state.ic)
+        state.fi = ops.where(ok, s2.fi, state.fi)
+        state.p = ops.where(ok, s2.p, state.p)
+        if model.has_cin:
+            state.il = ops.where(ok, s2.il, state.il)
+            state.fin = ops.where(ok, s2.fin, state.fin)
+        if model.limit:
+            state.exc = ops.where(ok, s2.exc, state.exc)
+            state.lim = ops.where(ok, s2.lim, state.lim)
         state.theta = ops.where(ok[:, None], step.th_1, state.theta)
-    else:
-        state.theta = step.th_1 if ok else state.theta
-    state.tj = ops.where(ok, step.tj_1, state.tj)
-    state.dtj = ops.where(ok, rate_1, state.dtj)
-    if model.varies:
-        state.r_rate = ops.where(ok, (r_on1 - state.r_on) / step.h, state.r_rate)
-        state.r_on = ops.where(ok, r_on1, state.r_on)
+        state.tj = ops.where(ok, step.tj_1, state.tj)
+        state.dtj = ops.where(ok, rate_1, state.dtj)
+        if model.varies:
+            state.r_rate = ops.where(ok, (r_on1 - state.r_on) / step.h, state.r_rate)
+            state.r_on = ops.where(ok, r_on1, state.r_on)
+    if not model.has_cin:
+        state.il = state.i
     state.i_scale = ops.maximum(state.i_scale, ops.fabs(state.i))
     if not model.continuous:
         if model.timer:
-            state.started = ops.where(step.sw_on, state.started | (ok & (ops.maximum(s1.vout, s2.vout) > model.v_on)),
-                                state.started & ops.not_(ok & (s2.vout <= model.v_on)))
+            state.started = ops.where(step.sw_on,
+                                      state.started | (ok & (ops.maximum(s1.vout, s2.vout) > model.v_on)),
+                                      state.started & ops.not_(ok & (s2.vout <= model.v_on)))
         else:
             state.started = state.started | (ok & (ops.maximum(s1.vout, s2.vout) > model.v_on))
 
