@@ -23,11 +23,11 @@ DocumentError (a ValueError with ``.field``), AnalysisError
 """
 
 from .checks import CHECKS
-from .document import DEFAULT_RULES, RULE_DESCRIPTIONS
 from .engine import CAUTION, ENGINE_VERSION, analyze_rail
 from .errors import AnalysisError, DocumentError
 from .eseries import e12_values, e_series, round_to_series, values_between
 from .report import format_report
+from .rules import DEFAULT_RULES, RULE_DESCRIPTIONS
 from .soa import derated_soa_curves, soa_allowed_time
 from .thermal import zth
 from .units import eng, quantity, temp

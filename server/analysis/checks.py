@@ -62,7 +62,6 @@ __all__ = [
     "SEVERITY",
     "CheckSpec",
     "CHECKS",
-    "CHECK_IDS",
     "SPECS",
     "C_DEPENDENT",
     "STARTUP_CHECKS",
@@ -113,7 +112,6 @@ CHECKS: tuple[CheckSpec, ...] = (
     CheckSpec("fet_pulse_current", "Inrush peak within the FET's pulsed drain current rating", "A",
               "physical limit", "at_most"),
 )
-CHECK_IDS = tuple(c.id for c in CHECKS)
 SPECS = {c.id: c for c in CHECKS}
 # checks whose value comes from the start-up transient (the worst-case search runs these)
 STARTUP_CHECKS = ("startup_complete", "startup_soa", "startup_tj", "timer_startup", "supply_dip", "supply_current",

@@ -127,22 +127,6 @@ class Circuit:
             return np.where(on, self.i_nom, 0.0)
         return np.where(on, self.p_load / np.maximum(v, self.v_on), 0.0)
 
-    def load_is_on(self, v):
-        """Whether the load conducts at ``v`` (V); always for a continuous load."""
-        if self.load == "none" or (self.load == "resistive" and self.v_on == 0.0):
-            return np.ones(np.shape(v), dtype=bool)
-        return v > self.v_on
-
-    def load_max_current(self, v_final):
-        """Largest load current between v_on and ``v_final`` (V), A."""
-        if self.load == "none":
-            return np.zeros_like(v_final)
-        if self.load == "resistive":
-            return v_final / self.r_load
-        if self.load == "constant_current":
-            return np.full_like(v_final, self.i_nom)
-        return np.full_like(v_final, self.p_load / self.v_on)
-
     # -- DC operating point ---------------------------------------------------
 
     def final_output(self, tj) -> tuple[np.ndarray, np.ndarray, np.ndarray]:

@@ -6,14 +6,10 @@ read_rail(doc, team_rules=None)
     Validate a rail document (a JSON-like dict in SI units) and return a `Rail`.
 read_fet(fet)
     Validate a MOSFET on its own (a part library entry: the rail document's ``fet``).
-read_rules(*overrides)
-    Merge partial rule dicts over `DEFAULT_RULES` and validate them.
 DEFAULTS, OPTIONAL, BOUNDS, Bound, FIELD_KEYS, NAME_MAX_LENGTH, LOAD_MODELS, SWITCH_MODES, AFTER_FAULT
     The defaults, the optional fields, the bounds, the keys of each object and the choices of
     the document: the web schema (``server.schemas.rail``) imports them and checks only shape
     and units.
-DEFAULT_RULES, RULE_DESCRIPTIONS
-    The team rules of DESIGN.md section 5 and what each one means.
 Rail, Supply, SeriesPath, Load, Timer, Switch, SoaCurve, Fet
     Frozen dataclasses holding the validated values (SI units, degC for temperatures).
 
@@ -49,6 +45,7 @@ import numpy as np
 from .bounds import (MAX_FOSTER_STAGES, MAX_SOA_CURVES, MAX_SOA_POINTS, NAME_MAX_LENGTH, NUMBER_LARGEST,
                      magnitude_problem, text_problem)
 from .errors import DocumentError
+from .rules import DEFAULT_RULES, RULE_RANGES
 from .units import KIND_SYMBOLS, quantity
 from .words import FIELD_TITLES, generic_path
 
@@ -63,8 +60,6 @@ __all__ = [
     "Bound",
     "BOUNDS",
     "FIELD_KEYS",
-    "DEFAULT_RULES",
-    "RULE_DESCRIPTIONS",
     "Supply",
     "SeriesPath",
     "Load",
@@ -75,7 +70,6 @@ __all__ = [
     "Rail",
     "read_rail",
     "read_fet",
-    "read_rules",
 ]
 
 SCHEMA = "railsign.rail/1"
@@ -84,42 +78,6 @@ ABSOLUTE_ZERO = -273.15  # degC
 LOAD_MODELS = ("none", "resistive", "constant_current", "constant_power")
 SWITCH_MODES = ("hard", "slew", "current_limit", "power_limit")
 AFTER_FAULT = ("latch", "retry")
-
-DEFAULT_RULES: dict[str, float] = {
-    "tj_headroom": 25.0,
-    "soa_margin": 1.5,
-    "fault_margin": 1.5,
-    "timer_margin": 1.5,
-    "vds_derating": 0.8,
-}
-
-RULE_DESCRIPTIONS: dict[str, dict[str, str]] = {
-    "tj_headroom": {
-        "unit": "K",
-        "meaning": "start-up, retry and steady junction temperature stay this far below tj_max",
-        "basis": "common practice",
-    },
-    "soa_margin": {
-        "unit": "ratio",
-        "meaning": "allowed / actual current of the start-up pulse against the derated SOA curves",
-        "basis": "common practice",
-    },
-    "fault_margin": {
-        "unit": "ratio",
-        "meaning": "t_allow / t_fault_max for an output short circuit",
-        "basis": "common practice",
-    },
-    "timer_margin": {
-        "unit": "ratio",
-        "meaning": "t_fault_min / worst-case t_limit, so that a good start never trips the timer",
-        "basis": "common practice",
-    },
-    "vds_derating": {
-        "unit": "ratio",
-        "meaning": "v_max <= vds_derating * vds_max",
-        "basis": "common practice",
-    },
-}
 
 # The value a field takes when the document leaves it out (DESIGN.md section 3).
 DEFAULTS: dict[str, float | str] = {
@@ -209,8 +167,7 @@ BOUNDS: dict[str, Bound] = {
     "fet.tj_max": TEMPERATURE, "fet.rth_ja": POSITIVE, "fet.zth[].r": POSITIVE, "fet.zth[].tau": POSITIVE,
     "fet.soa.t_case": TEMPERATURE, "fet.soa.curves[].t_pulse": POSITIVE,
     "environment.t_ambient": TEMPERATURE,
-    "rules.tj_headroom": NON_NEGATIVE, "rules.soa_margin": Bound(minimum=1.0), "rules.fault_margin": Bound(minimum=1.0),
-    "rules.timer_margin": Bound(minimum=1.0), "rules.vds_derating": Bound(above=0.0, maximum=1.0),
+    **{f"rules.{name}": Bound(**limits) for name, limits in RULE_RANGES.items()},
 }
 
 # The keys each object of the document may hold.
@@ -590,7 +547,7 @@ def _check_curve_order(r: _Reader, curves: list[SoaCurve]) -> None:
     prev = prev_curve = None
     for c in curves:
         # the current the curve allows at each vs: log-log interpolation, 0 beyond its
-        # last point (as soa.curve_current)
+        # last point (as the SOA reading of `soa` does)
         pts = np.log(np.asarray(c.points, dtype=float))
         cur = np.where(x > pts[-1, 0] * (1 + 1e-12) + 1e-12, 0.0, np.exp(np.interp(x, pts[:, 0], pts[:, 1])))
         cur = cur.tolist()
@@ -675,29 +632,6 @@ def _read_rule_overrides(r: _Reader, src: Any) -> dict[str, float]:
         if value is not None:
             out[key] = value
     return out
-
-
-def read_rules(*overrides: Any) -> dict[str, float]:
-    """Merge partial rule dicts over `DEFAULT_RULES` and validate them.
-
-    Parameters
-    ----------
-    *overrides : dict or None
-        Partial rule dicts, later ones win (team rules, then the rail's own); a rule given
-        as None is not overridden.
-
-    Returns
-    -------
-    dict
-        All five rules: ``tj_headroom`` (K), ``soa_margin``, ``fault_margin``,
-        ``timer_margin`` (ratios >= 1) and ``vds_derating`` (ratio in (0, 1]).
-    """
-    r = _Reader()
-    rules = dict(DEFAULT_RULES)
-    for src in overrides:
-        rules.update(_read_rule_overrides(r, src))
-    r.raise_errors()
-    return rules
 
 
 def read_rail(doc: Any, team_rules: dict | None = None) -> Rail:

@@ -17,9 +17,10 @@ box (`worstcase`), and the record names that point in words and what found it. W
 sign-off verdict. Every check record also carries its nominal reading, and the key figures
 show nominal and worst case side by side.
 
-Each part of the result is built by one function below (`_check_records`,
-`_key_figures`, `_startup_section`, ...) from the evaluated rows; nothing downstream
-recomputes a number.
+Each part of the result is built by one function below (`_summary`, `_check_records`,
+`_key_figures`, `_startup_section`, ..., `_closing_sections`) from the evaluated rows;
+`analyze_rail` only evaluates the nominal point and the worst case and puts the parts
+together. Nothing downstream recomputes a number.
 """
 
 from __future__ import annotations
@@ -37,7 +38,7 @@ from .headroom import basis_rows, capacitance_headroom, limit_headroom
 from .montecarlo import distributions_for, run_monte_carlo
 from .soa import CONVENTION as SOA_CONVENTION
 from .startup import (STATUS_NO_CONVERGENCE, STATUS_OK, STATUS_RETRIED, STATUS_RETRY_EXHAUSTED, STATUS_RUNAWAY,
-                      STATUS_STALLED, STATUS_TRIPPED)
+                      STATUS_STALLED, STATUS_TRIPPED, StartupFigures)
 from .timer import fault_times, timer_window
 from .units import eng
 from .waveform import decimate
@@ -499,47 +500,77 @@ def analyze_rail(
         Bad input (a document that cannot be computed), naming the field.
     """
     rail = read_rail(doc, rules)
-    rules_used = rail.rules
+    n_samples = _sample_count(monte_carlo)
+    distribution = distributions_for(distribution)
+    times = _fault_times(rail)
+    nominal = _nominal_reading(rail, times, waveforms)
+    share = 0.6 if n_samples else 1.0
+    wc = _worst_case(rail, times, _split_progress(progress, 0.0, share)) if corners else None
+    records = _check_records(rail, rail.rules, nominal[:2], wc)
+    result = {**_summary(rail, records, wc), "checks": records,
+              **_nominal_sections(rail, nominal, wc, times, waveforms, headroom),
+              "worst_case": _worst_case_summary(wc)}
+    if wc is not None:
+        result["corners"] = _corner_list(wc)
+    if n_samples:
+        result["monte_carlo"] = run_monte_carlo(rail, rail.rules, n_samples, seed=seed, distribution=distribution,
+                                                worst=records, progress=_split_progress(progress, share, 1.0))
+    result.update(_closing_sections(rail, wc))
+    return _clean(result)
+
+
+def _sample_count(monte_carlo) -> int:
+    """The number of Monte Carlo samples asked for (0: none); anything but a whole number >= 0 is refused."""
     if isinstance(monte_carlo, bool) or not isinstance(monte_carlo, (int, np.integer)) or monte_carlo < 0:
         raise ValueError("monte_carlo: must be a whole number >= 0")
-    distribution = distributions_for(distribution)
-    timer = rail.switch.timer
-    times = fault_times(timer) if timer is not None else (math.inf, math.inf, math.inf)
+    return int(monte_carlo)
 
-    fig_n, checks_n, st_n = evaluate_rows(rail, rules_used, nominal_point(rail, times[1]),
-                                          record=0 if waveforms else None)
-    share = 0.6 if monte_carlo else 1.0
-    wc = None
-    if corners:
-        wc = find_worst_case(rail, rules_used, t_fault_range=(times[0], times[2]),
-                             progress=_split_progress(progress, 0.0, share))
-    records = _check_records(rail, rules_used, (fig_n, checks_n), wc)
-    result: dict = {
+
+def _fault_times(rail: Rail) -> tuple[float, float, float]:
+    """The fault timer's shortest, nominal and longest trip time, s (infinite without a timer)."""
+    timer = rail.switch.timer
+    return fault_times(timer) if timer is not None else (math.inf, math.inf, math.inf)
+
+
+def _nominal_reading(rail: Rail, times: tuple, waveforms: bool) -> tuple[dict, dict, StartupFigures]:
+    """The figures, checks and start-up (with its waveform where asked) of the nominal point."""
+    return evaluate_rows(rail, rail.rules, nominal_point(rail, times[1]), record=0 if waveforms else None)
+
+
+def _worst_case(rail: Rail, times: tuple, progress: Callable | None) -> WorstCase:
+    """The sign-off worst case: the tolerance corners and the search inside the tolerance box."""
+    return find_worst_case(rail, rail.rules, t_fault_range=(times[0], times[2]), progress=progress)
+
+
+def _summary(rail: Rail, records: list[dict], wc: WorstCase | None) -> dict:
+    """The result's head: engine, rail, overall verdict (the worst check's) and its basis."""
+    return {
         "engine_version": ENGINE_VERSION,
         "name": rail.name,
         "verdict": VERDICTS[worst_verdict(SEVERITY[r["verdict"]] for r in records)],
         "basis": BASIS_WORST if wc is not None else BASIS_NOMINAL,
         "signoff": wc is not None,
-        "checks": records,
+    }
+
+
+def _nominal_sections(rail: Rail, nominal: tuple, wc: WorstCase | None, times: tuple, waveforms: bool,
+                      headroom: bool) -> dict:
+    """The key figures and the sections of the start-up, short circuit, timer, retry, steady
+    conduction and headroom, each from its builder."""
+    fig_n, checks_n, st_n = nominal
+    rules = rail.rules
+    return {
         "figures": _key_figures(fig_n, wc),
         "startup": _startup_section(rail, fig_n, st_n, waveforms),
         "short_circuit": _short_circuit_section(fig_n, wc),
-        "timer": _timer_section(rail, rules_used, fig_n, wc, times),
+        "timer": _timer_section(rail, rules, fig_n, wc, times),
         "retry": _retry_section(rail, fig_n),
         "steady": _steady_section(fig_n),
-        "headroom": (_headroom(rail, rules_used, (fig_n, checks_n), wc, times[2]) if headroom
-                     else _empty_headroom()),
-        "worst_case": _worst_case_summary(wc),
+        "headroom": _headroom(rail, rules, (fig_n, checks_n), wc, times[2]) if headroom else _empty_headroom(),
     }
-    if wc is not None:
-        result["corners"] = _corner_list(wc)
-    if monte_carlo:
-        result["monte_carlo"] = run_monte_carlo(rail, rules_used, int(monte_carlo), seed=seed,
-                                                distribution=distribution, worst=records,
-                                                progress=_split_progress(progress, share, 1.0))
-    result["rules"] = dict(rules_used)
-    result["conventions"] = [MARGIN_CONVENTION, SOA_CONVENTION]
-    result["notes"] = _notes(rail, wc)
-    result["caution"] = CAUTION
-    return _clean(result)
 
+
+def _closing_sections(rail: Rail, wc: WorstCase | None) -> dict:
+    """The rules the result used, its conventions, notes and the caution."""
+    return {"rules": dict(rail.rules), "conventions": [MARGIN_CONVENTION, SOA_CONVENTION], "notes": _notes(rail, wc),
+            "caution": CAUTION}

@@ -65,7 +65,7 @@ from dataclasses import replace
 
 import numpy as np
 
-from .checks import C_DEPENDENT, CHECKS, PASS, normalised_margin
+from .checks import C_DEPENDENT
 from .circuit import circuit_rows
 from .document import Rail
 from .evaluation import RowParams, evaluate_rows
@@ -76,7 +76,6 @@ from .thermal import foster_arrays, zth
 
 __all__ = ["capacitance_headroom", "limit_headroom", "basis_rows", "C_TOL", "M_TOL"]
 
-_SPECS = {c.id: c for c in CHECKS}
 _MAX_TRIALS = 30
 C_TOL = math.log(1.005)  # a bracket on C narrower than 0.5 % ends the search
 M_TOL = math.log(1.002)  # ... and so does a passing capacitance with its margin below 1.002

@@ -15,6 +15,14 @@ vectorised iteration (corners, Monte Carlo, candidate capacitances), `_FloatOps`
 very same code on Python floats for a single row, where the cost of a NumPy call would
 exceed the arithmetic it does. Each row has its own adaptive step in both cases.
 
+`_run` is the step loop; each part of a step is one helper, in this order: `_propose_step`
+(the size, landing on instants), `_take_stages` (the two stages into a `_Step`),
+`_local_error`, `_control_step` (acceptance, events through `_step_events` and
+`_event_steps`, the next size); then for the rows that accept it `_peak_current`,
+`_peak_power_and_energy`, `_dip` (the switch input and the time below the UVLO),
+`_junction_peak`, `_settling`, `_commit` (the new `_State`) and `_finished` (outcomes;
+trips and retries in `_switch_events`).
+
 Method
 ------
 TR-BDF2 with gamma = 2 - sqrt 2: a trapezoidal stage to t + gamma h, then a BDF2 stage to
@@ -214,7 +222,7 @@ class _Model:
 
     def __init__(self, cz: Circuit, ops, timer: bool = False) -> None:
         self.cz = cz
-        self.B = ops
+        self.ops = ops
         if ops is _FloatOps:
             pick = lambda a: float(a[0])  # noqa: E731
             self.r_th, self.tau_th = tuple(map(float, cz.r_th)), tuple(map(float, cz.tau_th))
@@ -253,12 +261,16 @@ class _Model:
         self.i_nom, self.p_load, self.p_lim = cz.i_nom, cz.p_load, cz.p_lim
         self.g_load = 1.0 / cz.r_load if cz.load == "resistive" else 0.0
         self.rds_on, self.alpha = cz.rds_on, cz.alpha
+        # the step control's bounds on the junction's change, and whether Rds(on) follows it
+        self.tol_th = TJ_RTOL * self.th_span
+        self.step_th = TJ_STEP * self.th_span
+        self.varies = self.alpha != 0.0
 
     def take(self, rows) -> "_Model":
-        return _Model(self.cz.take(rows), self.B, self.timer)
+        return _Model(self.cz.take(rows), self.ops, self.timer)
 
     def r_on(self, tj):
-        return self.rds_on * self.B.maximum(1.0 + self.alpha * (tj - 25.0), 0.1)
+        return self.rds_on * self.ops.maximum(1.0 + self.alpha * (tj - 25.0), 0.1)
 
     def switch_r(self, t, r_on):
         """Switch resistance ``t`` seconds after turn-on: log-linear from R_OFF to r_on over
@@ -266,9 +278,9 @@ class _Model:
         if self.t_on > 0.0:
             if self.floats and t >= self.t_on:
                 return r_on
-            B = self.B
-            x = B.minimum(B.maximum(t * (1.0 / self.t_on), 0.0), 1.0)
-            return B.where(x < 1.0, B.exp(_LOG_ROFF + x * (B.log(r_on) - _LOG_ROFF)), r_on)
+            ops = self.ops
+            x = ops.minimum(ops.maximum(t * (1.0 / self.t_on), 0.0), 1.0)
+            return ops.where(x < 1.0, ops.exp(_LOG_ROFF + x * (ops.log(r_on) - _LOG_ROFF)), r_on)
         return r_on
 
     def load_linear(self, v, started, sw_on):
@@ -279,7 +291,7 @@ class _Model:
         not turn it off again). While the switch is off (``sw_on`` False) a started load
         stops once v falls to v_on (to 0 V for v_on = 0).
         """
-        B = self.B
+        ops = self.ops
         if self.load == "none":
             return 0.0, 0.0, None
         if self.load == "resistive" and self.v_on == 0.0:
@@ -288,13 +300,13 @@ class _Model:
         if sw_on is None:
             on = started | above
         else:
-            on = B.where(sw_on, started | above, started & above)
+            on = ops.where(sw_on, started | above, started & above)
         if self.load == "resistive":
-            return 0.0, B.where(on, self.g_load, 0.0), on
+            return 0.0, ops.where(on, self.g_load, 0.0), on
         if self.load == "constant_current":
-            return B.where(on, self.i_nom, 0.0), 0.0, on
-        vv = B.maximum(v, self.v_on)
-        a = B.where(on, 2.0 * self.p_load / vv, 0.0)
+            return ops.where(on, self.i_nom, 0.0), 0.0, on
+        vv = ops.maximum(v, self.v_on)
+        a = ops.where(on, 2.0 * self.p_load / vv, 0.0)
         return a, -0.5 * a / vv, on
 
     def reference(self, v_p, a, g, e_ref, z_ref):
@@ -304,20 +316,20 @@ class _Model:
         source e_ref behind z_ref (v_s and r without c_in, the l di/dt of the regulated
         current neglected; the stage's Thevenin source with c_in).
         """
-        B = self.B
+        ops = self.ops
         if self.mode == "slew":
             q = self.cdvdt + a
             use_lim = q + g * v_p > self.i_lim
-            return B.where(use_lim, self.i_lim, q), B.where(use_lim, 0.0, g)
+            return ops.where(use_lim, self.i_lim, q), ops.where(use_lim, 0.0, g)
         if self.mode == "power_limit":
             p_lim = self.p_lim
-            vd = B.maximum(e_ref - v_p, 0.0)
+            vd = ops.maximum(e_ref - v_p, 0.0)
             disc = vd * vd - 4.0 * z_ref * p_lim
-            root = B.sqrt(B.maximum(disc, 0.0))
-            ip = B.where(disc > 0.0, 2.0 * p_lim / B.maximum(vd + root, 1e-300), NO_LIMIT)
+            root = ops.sqrt(ops.maximum(disc, 0.0))
+            ip = ops.where(disc > 0.0, 2.0 * p_lim / ops.maximum(vd + root, 1e-300), NO_LIMIT)
             use_lim = ip >= self.i_lim
-            s = ip / B.maximum(root, 1e-3 * vd + 1e-300)
-            return B.where(use_lim, self.i_lim, ip - s * v_p), B.where(use_lim, 0.0, s)
+            s = ip / ops.maximum(root, 1e-3 * vd + 1e-300)
+            return ops.where(use_lim, self.i_lim, ip - s * v_p), ops.where(use_lim, 0.0, s)
         return self.i_lim, 0.0
 
     def final_output(self, r_on):
@@ -331,7 +343,7 @@ class _Model:
             i = self.i_nom
         else:
             disc = self.v_s * self.v_s - 4.0 * rt * self.p_load
-            i = 2.0 * self.p_load / (self.v_s + self.B.sqrt(self.B.maximum(disc, 0.0)))
+            i = 2.0 * self.p_load / (self.v_s + self.ops.sqrt(self.ops.maximum(disc, 0.0)))
         return self.v_s - rt * i, i
 
     def source(self, dh, rhs_l, rhs_in):
@@ -346,7 +358,7 @@ class _Model:
         """Solve (Z + R_sw) i + v_out = E and c v_c - dh (i - i_load(v_out)) = rhs_v, or
         i = i_ref where that is smaller, or i = 0 where the switch is off (``sw_on``);
         ``ts`` is the time since the switch turned on."""
-        B = self.B
+        ops = self.ops
         r_sw = self.switch_r(ts, r_on)
         a, g, on_p = self.load_linear(v_p, started, sw_on)
         esr = self.esr
@@ -361,14 +373,14 @@ class _Model:
         else:
             den = 1.0 + esr * g
             st.bad = den < 0.5
-            av = 1.0 / B.where(st.bad, 1.0, den)
+            av = 1.0 / ops.where(st.bad, 1.0, den)
             ai = esr * av
             a0 = -a * ai
             m21 = -dh * (1.0 - g * ai)
             m22 = self.c + dh * g * av
             bad22 = m22 < 0.5 * self.c
             st.bad = st.bad | bad22
-            m22 = B.where(bad22, self.c, m22)
+            m22 = ops.where(bad22, self.c, m22)
             b2 = rhs_v - dh * (a + g * a0)
         m11 = Z + r_sw + ai
         b1 = E - a0
@@ -386,7 +398,7 @@ class _Model:
                 if sw_on is not None:  # an off switch regulates nothing
                     weak = weak & sw_on
                 st.bad = weak if st.bad is None else (st.bad | weak)
-                den_l = B.where(weak, 1.0, den_l)
+                den_l = ops.where(weak, 1.0, den_l)
             i_lim = (q + s * (a0 + avw * b2)) / den_l
             if self.mode == "power_limit":
                 # one more linearisation of the power limit's reference, at the output this
@@ -404,19 +416,19 @@ class _Model:
                     if sw_on is not None:
                         weak = weak & sw_on
                     st.bad = weak if st.bad is None else (st.bad | weak)
-                    den_l = B.where(weak, 1.0, den_l)
+                    den_l = ops.where(weak, 1.0, den_l)
                 i_lim = (q + s * (a0 + avw * b2)) / den_l
             exc = i_free - i_lim
             lim = exc > 0.0
             if sw_on is not None:
                 lim = lim & sw_on
-                exc = B.where(sw_on, exc, -1.0)
-            i = B.where(lim, i_lim, i_free)
+                exc = ops.where(sw_on, exc, -1.0)
+            i = ops.where(lim, i_lim, i_free)
         else:
             exc = lim = None
             i = i_free
         if sw_on is not None:
-            i = B.where(sw_on, i, 0.0)
+            i = ops.where(sw_on, i, 0.0)
         vc = (b2 - m21 * i) * w
         vout = av * vc + ai * i + a0
         ic = i - a - g * vout
@@ -429,14 +441,14 @@ class _Model:
         else:
             il = i
             if self.limit:
-                fi = B.where(lim, self.l * (i - i_prev) / dt_prev, self.v_s - (self.r + r_sw) * i - vout)
-                vds = B.where(lim, self.v_s - self.r * i - vout - fi, r_sw * i)
+                fi = ops.where(lim, self.l * (i - i_prev) / dt_prev, self.v_s - (self.r + r_sw) * i - vout)
+                vds = ops.where(lim, self.v_s - self.r * i - vout - fi, r_sw * i)
             else:
                 fi = self.v_s - (self.r + r_sw) * i - vout
                 vds = r_sw * i
             if sw_on is not None:  # off: no current, no inductive drop, the FET blocks
-                fi = B.where(sw_on, fi, 0.0)
-                vds = B.where(sw_on, vds, self.v_s - vout)
+                fi = ops.where(sw_on, fi, 0.0)
+                vds = ops.where(sw_on, vds, self.v_s - vout)
             st.fi = fi
             vin = vout + vds
         st.i, st.il, st.vc, st.vout, st.vin, st.ic, st.vds, st.lim, st.exc = i, il, vc, vout, vin, ic, vds, lim, exc
@@ -445,7 +457,7 @@ class _Model:
         if on_p is None:
             st.event = st.on = None
         else:
-            st.on = B.where(sw_on, started | (vout > self.v_on), started & (vout > self.v_on)) \
+            st.on = ops.where(sw_on, started | (vout > self.v_on), started & (vout > self.v_on)) \
                 if sw_on is not None else started | (vout > self.v_on)
             st.event = st.on ^ on_p
         return st
@@ -460,64 +472,65 @@ FIGURES = ("i_peak", "t_i_peak", "p_peak", "v_pk", "i_pk", "e_fet", "t_reg", "v_
 _PULSES = ("e_att", "pp_att", "v_att", "i_att", "tj_att")
 
 
-def _instant(m: _Model, S, idx=None):
+def _instant(model: _Model, state, idx=None):
     """The algebraic quantities at a switching instant (t = 0, a trip, a retry), the
     differential states (series current where l > 0, the capacitor voltages) holding.
 
-    Returns the `_Stage` of rows ``idx`` of ``S`` (all rows where None) for the model
-    ``m`` of those rows; where c_in is modelled the series current is the held state
+    Returns the `_Stage` of rows ``idx`` of ``state`` (all rows where None) for the model
+    ``model`` of those rows; where c_in is modelled the series current is the held state
     (or v_s - r i_L = v_in where l = 0).
     """
-    B = m.B
+    ops = model.ops
     g = (lambda x: x) if idx is None else (lambda x: x[idx])  # noqa: E731
-    il, vin, vc, vout = g(S.il), g(S.vin), g(S.vc), g(S.vout)
+    il, vin, vc, vout = g(state.il), g(state.vin), g(state.vc), g(state.vout)
     dh = _DH_INSTANT
-    if m.has_cin:
+    if model.has_cin:
         E, Z = vin, 0.0 * vin
     else:
-        E, Z = m.l * il / dh + m.v_s, m.l / dh + m.r
-    sw_on = g(S.on) if m.timer else None
-    t_rel = g(S.t) - g(S.t_att)
-    st = m.stage(t_rel, dh, E, Z, m.c_in * vin, m.c * vc, vout, g(S.r_on), il, 1.0, g(S.started), sw_on)
-    if m.has_cin:
-        r_safe = B.where(m.r > 0.0, m.r, 1.0)
-        il = B.where(m.l > 0.0, il, B.where(m.r > 0.0, (m.v_s - vin) / r_safe, st.i))
+        E, Z = model.l * il / dh + model.v_s, model.l / dh + model.r
+    sw_on = g(state.on) if model.timer else None
+    t_rel = g(state.t) - g(state.t_att)
+    st = model.stage(t_rel, dh, E, Z, model.c_in * vin, model.c * vc, vout, g(state.r_on), il, 1.0, g(state.started),
+                     sw_on)
+    if model.has_cin:
+        r_safe = ops.where(model.r > 0.0, model.r, 1.0)
+        il = ops.where(model.l > 0.0, il, ops.where(model.r > 0.0, (model.v_s - vin) / r_safe, st.i))
         st.il = il
         st.vin = vin
-        st.fi = m.v_s - m.r * il - vin
+        st.fi = model.v_s - model.r * il - vin
         st.fin = il - st.i
     else:
         # the input before the inductance has taken up any change of current
-        st.vin = B.where(m.l > 0.0, m.v_s - m.r * st.i, st.vin)
+        st.vin = ops.where(model.l > 0.0, model.v_s - model.r * st.i, st.vin)
     return st
 
 
-def _put(S, name, idx, val):
+def _put(state, name, idx, val):
     """Write ``val`` into rows ``idx`` of state ``name`` (all rows where idx is None)."""
     if idx is None:
-        setattr(S, name, val)
+        setattr(state, name, val)
     else:
-        arr = getattr(S, name)
+        arr = getattr(state, name)
         arr[idx] = val
 
 
-def _apply_instant(m: _Model, S, st: _Stage, idx=None) -> None:
+def _apply_instant(model: _Model, state, st: _Stage, idx=None) -> None:
     """Take the algebraic quantities of `_instant` into the state."""
     for name, val in (("i", st.i), ("il", st.il), ("vout", st.vout), ("vin", st.vin), ("ic", st.ic),
                       ("fi", st.fi), ("p", st.p)):
-        _put(S, name, idx, val)
-    if m.has_cin:
-        _put(S, "fin", idx, st.fin)
-    if m.limit:
-        _put(S, "exc", idx, st.exc)
-        _put(S, "lim", idx, st.lim)
+        _put(state, name, idx, val)
+    if model.has_cin:
+        _put(state, "fin", idx, st.fin)
+    if model.limit:
+        _put(state, "exc", idx, st.exc)
+        _put(state, "lim", idx, st.lim)
     g = (lambda x: x) if idx is None else (lambda x: x[idx])  # noqa: E731
-    _put(S, "dtj", idx, m.B.rate(g(S.theta), st.p, m.r_th, m.tau_th))
+    _put(state, "dtj", idx, model.ops.rate(g(state.theta), st.p, model.r_th, model.tau_th))
 
 
 def _initial(model: _Model, t_est, i_typ, rows, active, t_amb: float) -> _State:
     """State at t = 0: capacitors discharged, no series current, the input at v_s."""
-    B, cz = model.B, model.cz
+    ops, cz = model.ops, model.cz
     n = cz.n
     zero = np.zeros(n)
     r_on0 = cz.rds_on * np.maximum(1.0 + cz.alpha * (t_amb - 25.0), 0.1) * np.ones(n)
@@ -536,25 +549,25 @@ def _initial(model: _Model, t_est, i_typ, rows, active, t_amb: float) -> _State:
         "t_trip": np.full(n, np.nan), "t_off": np.full(n, np.inf), "latched": np.zeros(n, bool),
         "outcome": np.zeros(n, np.int8), "t_i_peak": zero,
     }
-    S = _State()
-    if B is _FloatOps:
+    state = _State()
+    if ops is _FloatOps:
         for key, val in vals.items():
             v = val[0]
-            setattr(S, key, v.item() if hasattr(v, "item") else v)
-        S.theta = [0.0] * k
+            setattr(state, key, v.item() if hasattr(v, "item") else v)
+        state.theta = [0.0] * k
     else:
         for key, val in vals.items():
-            setattr(S, key, np.array(val, copy=True))
-        S.theta = np.zeros((n, k))
-    _apply_instant(model, S, _instant(model, S))
-    S.i_peak = B.maximum(S.i, 0.0)
-    S.p_peak = S.p
-    S.v_pk = S.vin - S.vout
-    S.i_pk = S.i
-    S.tj_peak = S.tj
-    for name, val in zip(_PULSES, (0.0, S.p, S.vin - S.vout, S.i, t_amb)):
-        setattr(S, name, val if B is _FloatOps else np.array(np.broadcast_to(val, (n,)), dtype=float))
-    return S
+            setattr(state, key, np.array(val, copy=True))
+        state.theta = np.zeros((n, k))
+    _apply_instant(model, state, _instant(model, state))
+    state.i_peak = ops.maximum(state.i, 0.0)
+    state.p_peak = state.p
+    state.v_pk = state.vin - state.vout
+    state.i_pk = state.i
+    state.tj_peak = state.tj
+    for name, val in zip(_PULSES, (0.0, state.p, state.vin - state.vout, state.i, t_amb)):
+        setattr(state, name, val if ops is _FloatOps else np.array(np.broadcast_to(val, (n,)), dtype=float))
+    return state
 
 
 def integrate(cz: Circuit, *, t_est, i_typ, active, t_amb: float, record: int | None, max_steps: int,
@@ -592,8 +605,8 @@ def integrate(cz: Circuit, *, t_est, i_typ, active, t_amb: float, record: int | 
     n = cz.n
     ops = _FloatOps if n == 1 else _ArrayOps
     model = _Model(cz, ops, timer)
-    S = _initial(model, t_est, i_typ, np.arange(n), active.copy(), t_amb)
-    final = {name: np.array(np.atleast_1d(getattr(S, name)), copy=True) for name in FIGURES}
+    state = _initial(model, t_est, i_typ, np.arange(n), active.copy(), t_amb)
+    final = {name: np.array(np.atleast_1d(getattr(state, name)), copy=True) for name in FIGURES}
     k = RETRY_ATTEMPTS if timer else 1
     for name in ("pulse_e", "pulse_p_peak", "pulse_v_ds", "pulse_i", "pulse_tj_start"):
         final[name] = np.full((n, k), np.nan)
@@ -602,412 +615,546 @@ def integrate(cz: Circuit, *, t_est, i_typ, active, t_amb: float, record: int | 
     if record is not None and active[record]:
         rec = record
         wave = {key: [] for key in ("t", "v_out", "v_in", "i", "v_ds", "p_fet", "tj", "on")}
-        _record(wave, S, rec if ops is _ArrayOps else None)
+        _record(wave, state, rec if ops is _ArrayOps else None)
     if ops is _ArrayOps and not active.all():
-        model, S = _compact(model, S, final)
-        rec = _locate(S, record, rec)
+        model, state = _compact(model, state, final)
+        rec = _locate(state, record, rec)
     with np.errstate(divide="ignore", invalid="ignore", over="ignore"):
-        S = _run(model, S, final, wave, rec, record, t_amb, max_steps)
-    _store(model, S, final, ops)
+        state = _run(model, state, final, wave, rec, record, t_amb, max_steps)
+    _store(model, state, final, ops)
     return final, wave
 
 
-def _record(wave: dict, S, j) -> None:
+def _record(wave: dict, state, j) -> None:
     """Append the present point of row ``j`` (None: the float back end) to the waveform."""
     take = (lambda x: x) if j is None else (lambda x: x[j])  # noqa: E731
-    wave["t"].append(float(take(S.t)))
-    wave["v_out"].append(float(take(S.vout)))
-    wave["v_in"].append(float(take(S.vin)))
-    wave["i"].append(float(take(S.i)))
-    wave["v_ds"].append(float(take(S.vin) - take(S.vout)))
-    wave["p_fet"].append(float(take(S.p)))
-    wave["tj"].append(float(take(S.tj)))
-    wave["on"].append(1.0 if take(S.on) else 0.0)
+    wave["t"].append(float(take(state.t)))
+    wave["v_out"].append(float(take(state.vout)))
+    wave["v_in"].append(float(take(state.vin)))
+    wave["i"].append(float(take(state.i)))
+    wave["v_ds"].append(float(take(state.vin) - take(state.vout)))
+    wave["p_fet"].append(float(take(state.p)))
+    wave["tj"].append(float(take(state.tj)))
+    wave["on"].append(1.0 if take(state.on) else 0.0)
 
 
-def _locate(S: _State, record, rec):
+def _locate(state: _State, record, rec):
     if rec is None:
         return None
-    hit = np.nonzero(S.rows == record)[0]
+    hit = np.nonzero(state.rows == record)[0]
     return int(hit[0]) if hit.size else None
 
 
-def _run(model: _Model, S: _State, final: dict, wave, rec, record, t_amb: float, max_steps: int) -> _State:
-    B = model.B
-    arrays = B is _ArrayOps
-    t_on = model.t_on
-    timer = model.timer
-    tol_th = TJ_RTOL * model.th_span
-    step_th = TJ_STEP * model.th_span
-    varies = model.alpha != 0.0
-    it = 0
-    while B.any(S.active):
-        it += 1
-        if it > max_steps:
-            return S  # rows still active keep what they computed
-        if arrays and S.rows.size > 64 and np.count_nonzero(S.active) < 0.6 * S.rows.size:
-            model, S = _compact(model, S, final)
-            rec = _locate(S, record, rec)
-        m = model
-        active = S.active
-        S.steps = S.steps + active
-        t, i, il, vc, vout, vin, ic, fi = S.t, S.i, S.il, S.vc, S.vout, S.vin, S.ic, S.fi
-        h = B.minimum(S.h, 0.1 * B.maximum(S.t_est, t))
-        if t_on > 0.0:
-            t_full = (S.t_att + t_on) if timer else t_on
-            cut = (t < t_full) & (t + h > t_full)
-            h = B.where(cut, B.maximum(t_full - t, 1e-300), h)
-        sw_on = None
-        if timer:
-            sw_on = S.on
-            if m.limit:  # land on the instant the regulation time reaches t_fault
-                h = B.where(sw_on & S.lim, B.minimum(h, m.t_fault - S.t_reg), h)
-            h = B.where(t + h > S.t_restart, B.maximum(S.t_restart - t, 1e-300), h)
-        c = m.c
-        gh = _G * h
-        dh = _D * h
-        dt1 = h - gh
-        t_rel = (t - S.t_att) if (t_on > 0.0 and timer) else t  # time since the switch turned on
-        if varies:  # Rds(on) at the junction temperature extrapolated to the stage
-            r_floor = 0.1 * m.rds_on  # rds_at's floor
-            r_on_g = B.maximum(S.r_on + S.r_rate * gh, r_floor)
-            r_on_1 = B.maximum(S.r_on + S.r_rate * h, r_floor)
-        else:
-            r_on_g = r_on_1 = S.r_on
-        # stage 1: trapezoidal rule to t + gamma h; stage 2: BDF2 to t + h
-        rhs_in1 = m.c_in * vin + dh * S.fin if m.has_cin else 0.0
-        e1, z1 = m.source(dh, m.l * il + dh * fi, rhs_in1)
-        s1 = m.stage(t_rel + gh, dh, e1, z1, rhs_in1, c * vc + dh * ic, vout + gh * ic / c, r_on_g, i, gh,
-                     S.started, sw_on)
-        rhs_in2 = m.c_in * (_C1 * s1.vin - _C2 * vin) if m.has_cin else 0.0
-        e2, z2 = m.source(dh, m.l * (_C1 * s1.il - _C2 * il), rhs_in2)
-        s2 = m.stage(t_rel + h, dh, e2, z2, rhs_in2, c * (_C1 * s1.vc - _C2 * vc),
-                     vout + (s1.vout - vout) * (1.0 / _G), r_on_1, s1.i, dt1, S.started, sw_on)
-        eh = _EC * h
-        tol_v = S.atol_v + RTOL * m.v_s
-        err = B.fabs(eh * (_W0 * ic + _W1 * s1.ic + _W2 * s2.ic) / c) / tol_v
-        if m.has_cin:
-            # (i_L, v_in) estimates filtered by their 2x2 block of the iteration matrix, the
-            # switch a conductance to the output where it is fully on
-            ea = eh * (_W0 * fi + _W1 * s1.fi + _W2 * s2.fi)
-            eb = eh * (_W0 * S.fin + _W1 * s1.fin + _W2 * s2.fin)
-            g_sw = 1.0 / (s2.r_sw + m.esr)
-            if m.limit:
-                g_sw = B.where(s2.lim, 0.0, g_sw)
-            if timer:
-                g_sw = B.where(sw_on, g_sw, 0.0)
-            yl = m.l + dh * m.r
-            cg = m.c_in + dh * g_sw
-            inv = 1.0 / (yl * cg + dh * dh)
-            err = B.maximum(err, B.fabs((yl * eb + dh * ea) * inv) / tol_v)
-            if m.has_l:
-                err = B.maximum(err, B.fabs((cg * ea - dh * eb) * inv) / (S.atol_i + RTOL * S.i_scale))
-        elif m.has_l:
-            # the current is a differential state only where no point of the step regulates
-            ei = eh * (_W0 * fi + _W1 * s1.fi + _W2 * s2.fi) / (m.l + dh * (m.r + s2.r_sw + m.esr))
-            if m.limit:
-                ei = B.where(S.lim | s1.lim | s2.lim, 0.0, ei)
-            err = B.maximum(err, B.fabs(ei) / (S.atol_i + RTOL * S.i_scale))
+class _Step:
+    """One attempted step of the working rows: where it starts (``t``) and ends (``t1``), its
+    size (``h``; the stage at ``t + gh``, ``dh`` = d h of the stage equations, the second
+    interval ``dt1``), the switch state it was taken in
+    (``sw_on``, None without a timer), its two stages (``s1``, ``s2``), the junction at each
+    (Foster rises ``th_g``, ``th_1``; temperatures ``tj_g``, ``tj_1``), the events it holds
+    (``evt``, None where no kind of event applies) and its time in regulation (``dtl``)."""
 
-        # junction temperature: exact Foster update with the power linear between stages;
-        # what the bend of the power at the stage point adds measures the error of taking
-        # the power as linear between stage points
-        th_g, th_1, bend = B.foster(S.theta, S.p, s1.p, s2.p, gh, dt1, m.r_th, m.tau_th)
-        tj_g = t_amb + B.rise(th_g)
-        tj_1 = t_amb + B.rise(th_1)
-        err = B.maximum(err, B.fabs(bend) / tol_th)
-        fac_err = 0.9 * B.maximum(err, 1e-12) ** (-1.0 / 3.0)
-        if varies:  # Rds(on) follows Tj: bound the change of Tj while the switch conducts
-            e_tj = B.fabs(tj_1 - S.tj) / step_th
-            if timer:
-                e_tj = B.where(sw_on, e_tj, 0.0)
-            err = B.maximum(err, e_tj)
-            fac_err = B.minimum(fac_err, 0.9 / B.maximum(e_tj, 1e-12))  # the change is ~ h
+    __slots__ = ("t", "h", "gh", "dh", "dt1", "t1", "sw_on", "s1", "s2", "th_g", "th_1", "tj_g", "tj_1", "evt",
+                 "dtl")
 
-        bad = B.not_(err <= 1e300)
-        if s1.bad is not None:
-            bad = bad | s1.bad | s2.bad
-        evt = None
-        if s1.event is not None:
-            # a load switching on or off inside the step: against the predictor of either
-            # stage, or between the start of the step and its end
-            above = vout > m.v_on
-            on_n = (B.where(sw_on, S.started | above, S.started & above) if timer else S.started | above)
-            evt = s1.event | s2.event | (s2.on ^ on_n)
-        if m.limit:
-            # the switch enters or leaves regulation inside the step
-            turn = (S.lim ^ s1.lim) | (s1.lim ^ s2.lim)
-            evt = turn if evt is None else (evt | turn)
-            dtl = _lim_time(B, S.exc, s1.exc, gh) + _lim_time(B, s1.exc, s2.exc, dt1)
-        ok = active & (err <= 1.0) & B.not_(bad)
-        over = None
-        if timer and m.limit:
-            # a step must not carry the regulation time past t_fault: cut it back by the excess
-            excess = S.t_reg + dtl - m.t_fault
-            over = ok & (excess > 1e-9 * m.t_fault)
-            if B.any(over):
-                ok = ok & B.not_(over)
-            else:
-                over = None
-        if evt is not None:
-            # ... is located within 1e-4 of the time scale (t_limit and the load's start to
-            # that accuracy): a step holding an event must not be longer than h_evt
-            long_evt = evt & (h > S.h_evt)
-            ok = ok & B.not_(long_evt)
-        fac = B.minimum(B.maximum(fac_err, 0.2), S.grow)
-        h_next = B.where(ok, h * fac, B.where(bad, 0.25 * h, h * B.maximum(fac, 0.1)))
-        if evt is not None:
-            hit = long_evt & B.not_(bad)
-            f_on = (vout, s1.vout, s2.vout, m.v_on) if s1.event is not None else None
-            f_lim = (S.exc, s1.exc, s2.exc, 0.0) if m.limit else None
-            if arrays:
-                h_next = _event_rows(S, ok, hit, evt, f_on, f_lim, t, h, h_next, fac_err)
-            elif hit or S.phase == 1:
-                h_next = _event_steps(B, S, ok, hit, evt, _event_frac(B, hit, f_on, f_lim), t, h, h_next, fac_err)
-        if over is not None:
-            h_next = B.where(over, B.minimum(h_next, h - excess), h_next)
-        S.h = h_next
-        S.grow = B.where(ok, 8.0, 1.0)  # no growth right after a rejected step (Hairer & Wanner)
-        if not B.any(ok):
+
+def _run(model: _Model, state: _State, final: dict, wave, rec, record, t_amb: float, max_steps: int) -> _State:
+    """Step every active row until it stops (`_finished`) or the step cap is reached: propose
+    a step, take its stages, control its error, and for the rows that accept it update the
+    running figures, commit the new state and record the waveform."""
+    ops = model.ops
+    arrays = ops is _ArrayOps
+    iterations = 0
+    while ops.any(state.active):
+        iterations += 1
+        if iterations > max_steps:
+            return state  # rows still active keep what they computed
+        if arrays and state.rows.size > 64 and np.count_nonzero(state.active) < 0.6 * state.rows.size:
+            model, state = _compact(model, state, final)
+            rec = _locate(state, record, rec)
+        active = state.active
+        state.steps = state.steps + active
+        step = _take_stages(model, state, _propose_step(model, state))
+        err, fac_err = _local_error(model, state, step, t_amb)
+        ok = _control_step(model, state, step, active, err, fac_err)
+        if not ops.any(ok):
             continue
-        t1 = t + h
-
-        # peak current: stage values, and the vertex of the quadratic where all free
-        s1_hi = s1.i > s2.i
-        pk = B.where(s1_hi, s1.i, s2.i)
-        tpk = B.where(s1_hi, t + gh, t1)
-        if not m.limit:
-            ci = (s1.i - i - _G * (s2.i - i)) * (1.0 / (_G * _G - _G))
-            bi = (s2.i - i) - ci
-            cneg = ci < 0
-            cs = B.where(cneg, ci, -1.0)
-            xv = -bi / (2.0 * cs)
-            use = cneg & (xv > 0) & (xv < 1)
-            vert = i - bi * bi / (4.0 * cs)
-            use = use & (vert > pk)
-            pk = B.where(use, vert, pk)
-            tpk = B.where(use, t + xv * h, tpk)
-        new_pk = ok & (pk > S.i_peak)
-        S.i_peak = B.where(new_pk, pk, S.i_peak)
-        S.t_i_peak = B.where(new_pk, tpk, S.t_i_peak)
-        # the peak power (found inside the step too) and its operating point; under a power
-        # limit the highest v_ds among the points within PEAK_BAND of the peak (the plateau and
-        # its edges alike), the harder point for the SOA, which a slight overshoot at one end of
-        # the plateau does not move
-        vertex = _power_vertex(B, S, s1, s2, m.limit)
-        band = PEAK_BAND if m.mode == "power_limit" else 0.0
-        S.v_pk, S.i_pk, S.p_peak = _peak_point(B, ok, s1, s2, vertex, band, S.v_pk, S.i_pk, S.p_peak)
-        if timer:
-            S.v_att, S.i_att, S.pp_att = _peak_point(B, ok, s1, s2, vertex, band, S.v_att, S.i_att, S.pp_att)
-        de = h * (_Q0 * S.p + _Q1 * s1.p + _Q2 * s2.p)
-        S.e_fet = B.where(ok, S.e_fet + de, S.e_fet)
-        if timer:
-            S.e_att = B.where(ok, S.e_att + de, S.e_att)
-        if m.limit:
-            S.t_reg = B.where(ok, S.t_reg + dtl, S.t_reg)
-
-        # the switch input: lowest value, and the time below the UVLO threshold
-        _dip(m, S, ok, t, gh, h, i, s1, s2, evt)
-
-        # junction temperature: stage points, and the interior peak the closed form gives
-        # where the rise increases at the start of the step and decreases at its end (the
-        # stage point's rate tells in which interval)
-        rate_1 = B.rate(th_1, s2.p, m.r_th, m.tau_th)
-        tj_hi = B.maximum(tj_g, tj_1)
-        turns = ok & (S.dtj > 0.0) & (rate_1 < 0.0)
-        if B.any(turns):
-            rate_g = B.rate(th_g, s1.p, m.r_th, m.tau_th)
-            tj_hi = _interior_peak(m, S, tj_hi, turns & (rate_g < 0.0), turns & (rate_g >= 0.0), th_g, s1, s2, gh,
-                                   dt1, t_amb)
-        S.tj_peak = B.where(ok, B.maximum(S.tj_peak, tj_hi), S.tj_peak)
-
-        r_on1 = m.r_on(tj_1) if varies else S.r_on
-        v_f, i_f = m.final_output(r_on1)
-        band = SETTLE_BAND * B.fabs(v_f)
-        d1 = B.fabs(s2.vout - v_f) - band
-        out_1 = d1 > 0
-        if B.any(B.not_(out_1)):  # some row ends the step inside the band: where did it enter
-            d0 = B.fabs(vout - v_f) - band
-            dg = B.fabs(s1.vout - v_f) - band
-            x1 = dg / B.where(dg > d1, dg - d1, 1.0)
-            x0 = d0 / B.where(d0 > dg, d0 - dg, 1.0)
-            cross_g1 = t + gh + dt1 * B.minimum(B.maximum(x1, 0.0), 1.0)
-            cross_0g = t + gh * B.minimum(B.maximum(x0, 0.0), 1.0)
-            ts_new = B.where(out_1, t1, B.where(dg > 0, cross_g1, B.where(d0 > 0, cross_0g, S.t_settle)))
-        else:
-            ts_new = t1
-        S.t_settle = B.where(ok, ts_new, S.t_settle)
-
-        # commit the accepted rows
-        S.t = B.where(ok, t1, t)
-        S.i = B.where(ok, s2.i, i)
-        S.vc = B.where(ok, s2.vc, vc)
-        S.vout = B.where(ok, s2.vout, vout)
-        S.vin = B.where(ok, s2.vin, vin)
-        S.ic = B.where(ok, s2.ic, ic)
-        S.fi = B.where(ok, s2.fi, fi)
-        S.p = B.where(ok, s2.p, S.p)
-        if m.has_cin:
-            S.il = B.where(ok, s2.il, il)
-            S.fin = B.where(ok, s2.fin, S.fin)
-        else:
-            S.il = S.i
-        if m.limit:
-            S.exc = B.where(ok, s2.exc, S.exc)
-            S.lim = B.where(ok, s2.lim, S.lim)
-        S.theta = B.where(ok[:, None], th_1, S.theta) if arrays else (th_1 if ok else S.theta)
-        S.tj = B.where(ok, tj_1, S.tj)
-        S.dtj = B.where(ok, rate_1, S.dtj)
-        if varies:
-            S.r_rate = B.where(ok, (r_on1 - S.r_on) / h, S.r_rate)
-            S.r_on = B.where(ok, r_on1, S.r_on)
-        S.i_scale = B.maximum(S.i_scale, B.fabs(S.i))
-        if not m.continuous:
-            if timer:
-                S.started = B.where(sw_on, S.started | (ok & (B.maximum(s1.vout, s2.vout) > m.v_on)),
-                                    S.started & B.not_(ok & (s2.vout <= m.v_on)))
-            else:
-                S.started = S.started | (ok & (B.maximum(s1.vout, s2.vout) > m.v_on))
+        _peak_current(model, state, step, ok)
+        _peak_power_and_energy(model, state, step, ok)
+        _dip(model, state, ok, step.t, step.gh, step.h, state.i, step.s1, step.s2, step.evt)
+        tj_hi, rate_1 = _junction_peak(model, state, step, ok, t_amb)
+        r_on1 = model.r_on(step.tj_1) if model.varies else state.r_on
+        v_f, i_f = model.final_output(r_on1)  # the DC operating point at the step's end
+        _settling(model, state, step, ok, v_f)
+        _commit(model, state, step, ok, rate_1, r_on1)
         if rec is not None and (ok[rec] if arrays else ok):
-            _record(wave, S, rec if arrays else None)
-
-        dev = m.l * (S.il - i_f) ** 2 + c * (S.vc - v_f) ** 2
-        if m.has_cin:
-            dev = dev + m.c_in * (S.vin - m.v_s + m.r * i_f) ** 2
-        done = ok & (dev <= c * (STOP_BAND * v_f) ** 2)
-        if m.limit:
-            done = done & B.not_(S.lim)
-        if t_on > 0.0:
-            done = done & ((S.t - S.t_att) >= t_on if timer else S.t >= t_on)
-        if timer:
-            done = done & sw_on
-        S.outcome = B.where(done, OUTCOME_COMPLETE, S.outcome)
-        hot = ok & (tj_hi > m.tj_runaway)
-        if B.any(hot):
-            S.outcome = B.where(hot & B.not_(done), OUTCOME_RUNAWAY, S.outcome)
-            done = done | hot
-        if timer:
-            done = done | _switch_events(m, S, ok, final, wave, rec)
-        S.active = active & B.not_(done)
-    return S
+            _record(wave, state, rec if arrays else None)
+        done = _finished(model, state, step, ok, tj_hi, v_f, i_f, final, wave, rec)
+        state.active = active & ops.not_(done)
+    return state
 
 
-def _dip(m: _Model, S, ok, t, gh, h, i, s1, s2, evt) -> None:
+def _propose_step(model: _Model, state: _State):
+    """Each row's next step size: its adaptive size, at most 0.1 of the time scale or of the
+    elapsed time, cut to land on the end of the turn-on ramp, on the instant the regulation
+    time reaches t_fault and on the end of a retry's off time."""
+    ops = model.ops
+    t = state.t
+    h = ops.minimum(state.h, 0.1 * ops.maximum(state.t_est, t))
+    t_on = model.t_on
+    if t_on > 0.0:
+        t_full = (state.t_att + t_on) if model.timer else t_on
+        cut = (t < t_full) & (t + h > t_full)
+        h = ops.where(cut, ops.maximum(t_full - t, 1e-300), h)
+    if model.timer:
+        if model.limit:  # land on the instant the regulation time reaches t_fault
+            h = ops.where(state.on & state.lim, ops.minimum(h, model.t_fault - state.t_reg), h)
+        h = ops.where(t + h > state.t_restart, ops.maximum(state.t_restart - t, 1e-300), h)
+    return h
+
+
+def _take_stages(model: _Model, state: _State, h) -> _Step:
+    """The two stages of a step of size ``h`` (stage 1: trapezoidal rule to t + gamma h;
+    stage 2: BDF2 to t + h), Rds(on) at the junction temperature extrapolated to each stage,
+    and the exact Foster update of the junction with the power linear between stages."""
+    ops = model.ops
+    step = _Step()
+    t, i, il, vc, vout, vin, ic, fi = state.t, state.i, state.il, state.vc, state.vout, state.vin, state.ic, state.fi
+    sw_on = state.on if model.timer else None
+    c = model.c
+    gh = _G * h
+    dh = _D * h
+    dt1 = h - gh
+    t_rel = (t - state.t_att) if (model.t_on > 0.0 and model.timer) else t  # time since the switch turned on
+    if model.varies:  # Rds(on) at the junction temperature extrapolated to the stage
+        r_floor = 0.1 * model.rds_on  # rds_at's floor
+        r_on_g = ops.maximum(state.r_on + state.r_rate * gh, r_floor)
+        r_on_1 = ops.maximum(state.r_on + state.r_rate * h, r_floor)
+    else:
+        r_on_g = r_on_1 = state.r_on
+    rhs_in1 = model.c_in * vin + dh * state.fin if model.has_cin else 0.0
+    e1, z1 = model.source(dh, model.l * il + dh * fi, rhs_in1)
+    s1 = model.stage(t_rel + gh, dh, e1, z1, rhs_in1, c * vc + dh * ic, vout + gh * ic / c, r_on_g, i, gh,
+                     state.started, sw_on)
+    rhs_in2 = model.c_in * (_C1 * s1.vin - _C2 * vin) if model.has_cin else 0.0
+    e2, z2 = model.source(dh, model.l * (_C1 * s1.il - _C2 * il), rhs_in2)
+    s2 = model.stage(t_rel + h, dh, e2, z2, rhs_in2, c * (_C1 * s1.vc - _C2 * vc),
+                     vout + (s1.vout - vout) * (1.0 / _G), r_on_1, s1.i, dt1, state.started, sw_on)
+    step.t, step.t1, step.h, step.gh, step.dh, step.dt1 = t, t + h, h, gh, dh, dt1
+    step.sw_on, step.s1, step.s2 = sw_on, s1, s2
+    return step
+
+
+def _local_error(model: _Model, state: _State, step: _Step, t_amb: float):
+    """The step's local error relative to its tolerance (1: at the tolerance) and the step
+    factor it asks for (0.9 err^(-1/3), or the factor of the bound on the change of Tj).
+
+    The electrical states' estimates are filtered by the iteration matrix; the junction's
+    error is what the bend of the power at the stage point adds to the rise (the Foster
+    update, with the power linear between stage points, is taken here into ``step``).
+    """
+    ops = model.ops
+    h, gh, dh, dt1, s1, s2, sw_on = step.h, step.gh, step.dh, step.dt1, step.s1, step.s2, step.sw_on
+    c = model.c
+    ic, fi = state.ic, state.fi
+    eh = _EC * h
+    tol_v = state.atol_v + RTOL * model.v_s
+    err = ops.fabs(eh * (_W0 * ic + _W1 * s1.ic + _W2 * s2.ic) / c) / tol_v
+    if model.has_cin:
+        # (i_L, v_in) estimates filtered by their 2x2 block of the iteration matrix, the
+        # switch a conductance to the output where it is fully on
+        ea = eh * (_W0 * fi + _W1 * s1.fi + _W2 * s2.fi)
+        eb = eh * (_W0 * state.fin + _W1 * s1.fin + _W2 * s2.fin)
+        g_sw = 1.0 / (s2.r_sw + model.esr)
+        if model.limit:
+            g_sw = ops.where(s2.lim, 0.0, g_sw)
+        if model.timer:
+            g_sw = ops.where(sw_on, g_sw, 0.0)
+        yl = model.l + dh * model.r
+        cg = model.c_in + dh * g_sw
+        inv = 1.0 / (yl * cg + dh * dh)
+        err = ops.maximum(err, ops.fabs((yl * eb + dh * ea) * inv) / tol_v)
+        if model.has_l:
+            err = ops.maximum(err, ops.fabs((cg * ea - dh * eb) * inv) / (state.atol_i + RTOL * state.i_scale))
+    elif model.has_l:
+        # the current is a differential state only where no point of the step regulates
+        ei = eh * (_W0 * fi + _W1 * s1.fi + _W2 * s2.fi) / (model.l + dh * (model.r + s2.r_sw + model.esr))
+        if model.limit:
+            ei = ops.where(state.lim | s1.lim | s2.lim, 0.0, ei)
+        err = ops.maximum(err, ops.fabs(ei) / (state.atol_i + RTOL * state.i_scale))
+
+    # junction temperature: exact Foster update with the power linear between stages;
+    # what the bend of the power at the stage point adds measures the error of taking
+    # the power as linear between stage points
+    th_g, th_1, bend = ops.foster(state.theta, state.p, s1.p, s2.p, gh, dt1, model.r_th, model.tau_th)
+    step.th_g, step.th_1 = th_g, th_1
+    step.tj_g = t_amb + ops.rise(th_g)
+    tj_1 = step.tj_1 = t_amb + ops.rise(th_1)
+    err = ops.maximum(err, ops.fabs(bend) / model.tol_th)
+    fac_err = 0.9 * ops.maximum(err, 1e-12) ** (-1.0 / 3.0)
+    if model.varies:  # Rds(on) follows Tj: bound the change of Tj while the switch conducts
+        e_tj = ops.fabs(tj_1 - state.tj) / model.step_th
+        if model.timer:
+            e_tj = ops.where(sw_on, e_tj, 0.0)
+        err = ops.maximum(err, e_tj)
+        fac_err = ops.minimum(fac_err, 0.9 / ops.maximum(e_tj, 1e-12))  # the change is ~ h
+    return err, fac_err
+
+
+def _step_events(model: _Model, state: _State, step: _Step):
+    """Where the step holds an event: a load switching on or off (against the predictor of
+    either stage, or between the start of the step and its end) or the switch entering or
+    leaving regulation; None where neither kind applies. Under a limit the step's time in
+    regulation goes into ``step.dtl``."""
+    ops = model.ops
+    s1, s2 = step.s1, step.s2
+    evt = None
+    if s1.event is not None:
+        above = state.vout > model.v_on
+        if model.timer:
+            on_n = ops.where(step.sw_on, state.started | above, state.started & above)
+        else:
+            on_n = state.started | above
+        evt = s1.event | s2.event | (s2.on ^ on_n)
+    if model.limit:
+        turn = (state.lim ^ s1.lim) | (s1.lim ^ s2.lim)
+        evt = turn if evt is None else (evt | turn)
+        step.dtl = _lim_time(ops, state.exc, s1.exc, step.gh) + _lim_time(ops, s1.exc, s2.exc, step.dt1)
+    step.evt = evt
+    return evt
+
+
+def _control_step(model: _Model, state: _State, step: _Step, active, err, fac_err):
+    """Accept or reject the step of each active row and set its next step size (``state.h``).
+
+    Rejected: an error above the tolerance, a failed stage, a step that carries the
+    regulation time past t_fault (cut back by the excess), and a step longer than h_evt
+    that holds an event (`_event_steps` aims the next one at it). Returns the accepted rows.
+    """
+    ops = model.ops
+    s1, s2, h = step.s1, step.s2, step.h
+    bad = ops.not_(err <= 1e300)
+    if s1.bad is not None:
+        bad = bad | s1.bad | s2.bad
+    evt = _step_events(model, state, step)
+    ok = active & (err <= 1.0) & ops.not_(bad)
+    over = None
+    if model.timer and model.limit:
+        # a step must not carry the regulation time past t_fault: cut it back by the excess
+        excess = state.t_reg + step.dtl - model.t_fault
+        over = ok & (excess > 1e-9 * model.t_fault)
+        if ops.any(over):
+            ok = ok & ops.not_(over)
+        else:
+            over = None
+    if evt is not None:
+        # ... is located within 1e-4 of the time scale (t_limit and the load's start to
+        # that accuracy): a step holding an event must not be longer than h_evt
+        long_evt = evt & (h > state.h_evt)
+        ok = ok & ops.not_(long_evt)
+    fac = ops.minimum(ops.maximum(fac_err, 0.2), state.grow)
+    h_next = ops.where(ok, h * fac, ops.where(bad, 0.25 * h, h * ops.maximum(fac, 0.1)))
+    if evt is not None:
+        hit = long_evt & ops.not_(bad)
+        f_on = (state.vout, s1.vout, s2.vout, model.v_on) if s1.event is not None else None
+        f_lim = (state.exc, s1.exc, s2.exc, 0.0) if model.limit else None
+        if ops is _ArrayOps:
+            h_next = _event_rows(state, ok, hit, evt, f_on, f_lim, step.t, h, h_next, fac_err)
+        elif hit or state.phase == 1:
+            h_next = _event_steps(ops, state, ok, hit, evt, _event_frac(ops, hit, f_on, f_lim), step.t, h, h_next,
+                                  fac_err)
+    if over is not None:
+        h_next = ops.where(over, ops.minimum(h_next, h - excess), h_next)
+    state.h = h_next
+    state.grow = ops.where(ok, 8.0, 1.0)  # no growth right after a rejected step (Hairer & Wanner)
+    return ok
+
+
+def _peak_current(model: _Model, state: _State, step: _Step, ok) -> None:
+    """The running peak current and its time: stage values, and the vertex of the quadratic
+    through the step's currents where the switch is free throughout."""
+    ops = model.ops
+    t, h, s1, s2, i = step.t, step.h, step.s1, step.s2, state.i
+    s1_hi = s1.i > s2.i
+    pk = ops.where(s1_hi, s1.i, s2.i)
+    t1 = step.t1
+    tpk = ops.where(s1_hi, t + step.gh, t1)
+    if not model.limit:
+        ci = (s1.i - i - _G * (s2.i - i)) * (1.0 / (_G * _G - _G))
+        bi = (s2.i - i) - ci
+        cneg = ci < 0
+        cs = ops.where(cneg, ci, -1.0)
+        xv = -bi / (2.0 * cs)
+        use = cneg & (xv > 0) & (xv < 1)
+        vert = i - bi * bi / (4.0 * cs)
+        use = use & (vert > pk)
+        pk = ops.where(use, vert, pk)
+        tpk = ops.where(use, t + xv * h, tpk)
+    new_pk = ok & (pk > state.i_peak)
+    state.i_peak = ops.where(new_pk, pk, state.i_peak)
+    state.t_i_peak = ops.where(new_pk, tpk, state.t_i_peak)
+
+
+def _peak_power_and_energy(model: _Model, state: _State, step: _Step, ok) -> None:
+    """The running peak power (found inside the step too) and its operating point, the FET
+    energy, their counts of the attempt under way, and the time in regulation.
+
+    Under a power limit the operating point is the highest v_ds among the points within
+    PEAK_BAND of the peak (the plateau and its edges alike), the harder point for the SOA,
+    which a slight overshoot at one end of the plateau does not move.
+    """
+    ops = model.ops
+    s1, s2 = step.s1, step.s2
+    vertex = _power_vertex(ops, state, s1, s2, model.limit)
+    band = PEAK_BAND if model.mode == "power_limit" else 0.0
+    state.v_pk, state.i_pk, state.p_peak = _peak_point(ops, ok, s1, s2, vertex, band, state.v_pk, state.i_pk,
+                                                       state.p_peak)
+    if model.timer:
+        state.v_att, state.i_att, state.pp_att = _peak_point(ops, ok, s1, s2, vertex, band, state.v_att, state.i_att,
+                                                             state.pp_att)
+    de = step.h * (_Q0 * state.p + _Q1 * s1.p + _Q2 * s2.p)
+    state.e_fet = ops.where(ok, state.e_fet + de, state.e_fet)
+    if model.timer:
+        state.e_att = ops.where(ok, state.e_att + de, state.e_att)
+    if model.limit:
+        state.t_reg = ops.where(ok, state.t_reg + step.dtl, state.t_reg)
+
+
+def _junction_peak(model: _Model, state: _State, step: _Step, ok, t_amb: float):
+    """The running peak junction temperature: stage points, and the interior peak the closed
+    form gives where the rise increases at the start of the step and decreases at its end
+    (the stage point's rate tells in which interval). Returns the step's highest junction
+    temperature and the rate of the rises at its end."""
+    ops = model.ops
+    s1, s2 = step.s1, step.s2
+    rate_1 = ops.rate(step.th_1, s2.p, model.r_th, model.tau_th)
+    tj_hi = ops.maximum(step.tj_g, step.tj_1)
+    turns = ok & (state.dtj > 0.0) & (rate_1 < 0.0)
+    if ops.any(turns):
+        rate_g = ops.rate(step.th_g, s1.p, model.r_th, model.tau_th)
+        tj_hi = _interior_peak(model, state, tj_hi, turns & (rate_g < 0.0), turns & (rate_g >= 0.0), step.th_g, s1, s2,
+                               step.gh, step.dt1, t_amb)
+    state.tj_peak = ops.where(ok, ops.maximum(state.tj_peak, tj_hi), state.tj_peak)
+    return tj_hi, rate_1
+
+
+def _settling(model: _Model, state: _State, step: _Step, ok, v_f) -> None:
+    """The settling time: the last instant the output entered the band of SETTLE_BAND around
+    its final value ``v_f`` (the end of the step while it is outside), crossings linear
+    between the stage values."""
+    ops = model.ops
+    t, gh, dt1, t1, s1, s2 = step.t, step.gh, step.dt1, step.t1, step.s1, step.s2
+    band = SETTLE_BAND * ops.fabs(v_f)
+    d1 = ops.fabs(s2.vout - v_f) - band
+    out_1 = d1 > 0
+    if ops.any(ops.not_(out_1)):  # some row ends the step inside the band: where did it enter
+        d0 = ops.fabs(state.vout - v_f) - band
+        dg = ops.fabs(s1.vout - v_f) - band
+        x1 = dg / ops.where(dg > d1, dg - d1, 1.0)
+        x0 = d0 / ops.where(d0 > dg, d0 - dg, 1.0)
+        cross_g1 = t + gh + dt1 * ops.minimum(ops.maximum(x1, 0.0), 1.0)
+        cross_0g = t + gh * ops.minimum(ops.maximum(x0, 0.0), 1.0)
+        ts_new = ops.where(out_1, t1, ops.where(dg > 0, cross_g1, ops.where(d0 > 0, cross_0g, state.t_settle)))
+    else:
+        ts_new = t1
+    state.t_settle = ops.where(ok, ts_new, state.t_settle)
+
+
+def _commit(model: _Model, state: _State, step: _Step, ok, rate_1, r_on1) -> None:
+    """Take the end of the step into the state of the accepted rows (the others keep theirs):
+    time, currents, voltages, power, regulation, junction (and Rds(on) following it), the
+    largest current so far and whether the load has started.
+
+    On the float back end the one row has accepted the step (otherwise the loop has gone on
+    to the next attempt), so its state is the step's end without a choice per value."""
+    ops = model.ops
+    s1, s2 = step.s1, step.s2
+    if ops is _FloatOps:
+        state.t, state.i, state.vc, state.vout = step.t1, s2.i, s2.vc, s2.vout
+        state.vin, state.ic, state.fi, state.p = s2.vin, s2.ic, s2.fi, s2.p
+        if model.has_cin:
+            state.il, state.fin = s2.il, s2.fin
+        if model.limit:
+            state.exc, state.lim = s2.exc, s2.lim
+        state.theta, state.tj, state.dtj = step.th_1, step.tj_1, rate_1
+        if model.varies:
+            state.r_rate = (r_on1 - state.r_on) / step.h
+            state.r_on = r_on1
+    else:
+        state.t = ops.where(ok, step.t1, state.t)
+        state.i = ops.where(ok, s2.i, state.i)
+        state.vc = ops.where(ok, s2.vc, state.vc)
+        state.vout = ops.where(ok, s2.vout, state.vout)
+        state.vin = ops.where(ok, s2.vin, state.vin)
+        state.ic = ops.where(ok, s2.ic, state.ic)
+        state.fi = ops.where(ok, s2.fi, state.fi)
+        state.p = ops.where(ok, s2.p, state.p)
+        if model.has_cin:
+            state.il = ops.where(ok, s2.il, state.il)
+            state.fin = ops.where(ok, s2.fin, state.fin)
+        if model.limit:
+            state.exc = ops.where(ok, s2.exc, state.exc)
+            state.lim = ops.where(ok, s2.lim, state.lim)
+        state.theta = ops.where(ok[:, None], step.th_1, state.theta)
+        state.tj = ops.where(ok, step.tj_1, state.tj)
+        state.dtj = ops.where(ok, rate_1, state.dtj)
+        if model.varies:
+            state.r_rate = ops.where(ok, (r_on1 - state.r_on) / step.h, state.r_rate)
+            state.r_on = ops.where(ok, r_on1, state.r_on)
+    if not model.has_cin:
+        state.il = state.i
+    state.i_scale = ops.maximum(state.i_scale, ops.fabs(state.i))
+    if not model.continuous:
+        if model.timer:
+            state.started = ops.where(step.sw_on,
+                                      state.started | (ok & (ops.maximum(s1.vout, s2.vout) > model.v_on)),
+                                      state.started & ops.not_(ok & (s2.vout <= model.v_on)))
+        else:
+            state.started = state.started | (ok & (ops.maximum(s1.vout, s2.vout) > model.v_on))
+
+
+def _finished(model: _Model, state: _State, step: _Step, ok, tj_hi, v_f, i_f, final: dict, wave, rec):
+    """The rows done after the committed step, their outcome set: complete (out of regulation,
+    the turn-on ramp over, the deviation energy from the DC operating point ``v_f``, ``i_f``
+    within the stop band), destroyed (the junction past the runaway threshold), or tripped
+    and followed far enough (`_switch_events`, which also carries out trips and retries)."""
+    ops = model.ops
+    t_on = model.t_on
+    dev = model.l * (state.il - i_f) ** 2 + model.c * (state.vc - v_f) ** 2
+    if model.has_cin:
+        dev = dev + model.c_in * (state.vin - model.v_s + model.r * i_f) ** 2
+    done = ok & (dev <= model.c * (STOP_BAND * v_f) ** 2)
+    if model.limit:
+        done = done & ops.not_(state.lim)
+    if t_on > 0.0:
+        done = done & ((state.t - state.t_att) >= t_on if model.timer else state.t >= t_on)
+    if model.timer:
+        done = done & step.sw_on
+    state.outcome = ops.where(done, OUTCOME_COMPLETE, state.outcome)
+    hot = ok & (tj_hi > model.tj_runaway)
+    if ops.any(hot):
+        state.outcome = ops.where(hot & ops.not_(done), OUTCOME_RUNAWAY, state.outcome)
+        done = done | hot
+    if model.timer:
+        done = done | _switch_events(model, state, ok, final, wave, rec)
+    return done
+
+
+def _dip(model: _Model, state, ok, t, gh, h, i, s1, s2, evt) -> None:
     """The lowest switch-input voltage and the longest time below the UVLO threshold over
     the accepted step (the input linear between its start, its stage point and its end,
     with the edges and notches of an inductance without c_in put back)."""
-    B = m.B
+    ops = model.ops
     unb = None
-    if m.dip_flag and m.t_on == 0.0:  # a fully-on sample of an instant turn-on
+    if model.dip_flag and model.t_on == 0.0:  # a fully-on sample of an instant turn-on
         lo_g = s1.vin <= s2.vin
-        v_lo = B.where(lo_g, s1.vin, s2.vin)
-        unb = B.where(lo_g, B.not_(s1.lim) if m.limit else True, B.not_(s2.lim) if m.limit else True)
-        if m.timer:
-            unb = unb & S.on
+        v_lo = ops.where(lo_g, s1.vin, s2.vin)
+        unb = ops.where(lo_g, ops.not_(s1.lim) if model.limit else True, ops.not_(s2.lim) if model.limit else True)
+        if model.timer:
+            unb = unb & state.on
     else:
-        v_lo = B.minimum(s1.vin, s2.vin)
-        if m.dip_flag:
+        v_lo = ops.minimum(s1.vin, s2.vin)
+        if model.dip_flag:
             unb = False
     cut_g = cut_1 = edge = None
-    if m.dip_flag and m.limit:
-        entry = ok & B.not_(S.lim) & (s1.lim | s2.lim)
-        if B.any(entry):
+    if model.dip_flag and model.limit:
+        entry = ok & ops.not_(state.lim) & (s1.lim | s2.lim)
+        if ops.any(entry):
             # entering regulation, the fully-on switch passes the inductance's current up to
             # the instant it reaches the reference: the input is lowest just before,
             # v_out + R_sw i_ref there, and steps up as di/dt stops
-            frac = B.minimum(B.maximum(_crossing(B, S.exc, s1.exc, s2.exc), 0.0), 1.0)
+            frac = ops.minimum(ops.maximum(_crossing(ops, state.exc, s1.exc, s2.exc), 0.0), 1.0)
             t_e = t + frac * h
-            i_e = B.where(s1.lim, s1.i, s2.i)  # the current is the reference there
-            v_e = _at(B, frac, S.vout, s1.vout, s2.vout) + m.switch_r(t_e - S.t_att, S.r_on) * i_e
+            i_e = ops.where(s1.lim, s1.i, s2.i)  # the current is the reference there
+            v_e = _at(ops, frac, state.vout, s1.vout, s2.vout) + model.switch_r(t_e - state.t_att, state.r_on) * i_e
             deeper = entry & (v_e < v_lo)
-            v_lo = B.where(deeper, v_e, v_lo)
-            if unb is not None and m.t_on == 0.0:
+            v_lo = ops.where(deeper, v_e, v_lo)
+            if unb is not None and model.t_on == 0.0:
                 unb = unb | deeper
-            edge = (entry, t_e, v_e, _at(B, frac, S.vin, s1.vin, s2.vin))
-    if m.notch and evt is not None and B.any(evt & ok):
+            edge = (entry, t_e, v_e, _at(ops, frac, state.vin, s1.vin, s2.vin))
+    if model.notch and evt is not None and ops.any(evt & ok):
         # a load switching on while the FET regulates steps the reference up
         floor_g = s1.vout + s1.r_sw * s1.i
         floor_1 = s2.vout + s2.r_sw * s2.i
-        on_0 = S.started | (S.vout > m.v_on)
-        w_g, w_1 = m.v_s - m.r * s1.i, m.v_s - m.r * s2.i
-        cut_g = _notch(B, s1.lim & s1.on & B.not_(on_0), w_g, floor_g, m.l * (s1.i - i), gh)
-        cut_1 = _notch(B, s2.lim & s2.on & B.not_(s1.on), w_1, floor_1, m.l * (s2.i - s1.i), h - gh)
+        on_0 = state.started | (state.vout > model.v_on)
+        w_g, w_1 = model.v_s - model.r * s1.i, model.v_s - model.r * s2.i
+        cut_g = _notch(ops, s1.lim & s1.on & ops.not_(on_0), w_g, floor_g, model.l * (s1.i - i), gh)
+        cut_1 = _notch(ops, s2.lim & s2.on & ops.not_(s1.on), w_1, floor_1, model.l * (s2.i - s1.i), h - gh)
         # the notch holds the interval's inductive drop: the input is v_s - r i up to it, and
         # right after it (the sample, the drop's mean over the interval, stands for neither)
         if cut_g is not None:
             cut_g = cut_g + (floor_g,)
-            s1.vin = B.where(cut_g[0], w_g, s1.vin)
+            s1.vin = ops.where(cut_g[0], w_g, s1.vin)
         if cut_1 is not None:
             cut_1 = cut_1 + (floor_1,)
-            s2.vin = B.where(cut_1[0], w_1, s2.vin)
+            s2.vin = ops.where(cut_1[0], w_1, s2.vin)
         for cut in (cut_g, cut_1):
             if cut is not None:
                 deeper = cut[0] & (cut[2] < v_lo)
-                v_lo = B.where(deeper, cut[2], v_lo)
+                v_lo = ops.where(deeper, cut[2], v_lo)
                 if unb is not None:
                     unb = unb | deeper
     if unb is None:
-        S.v_in_min = B.where(ok, B.minimum(S.v_in_min, v_lo), S.v_in_min)
+        state.v_in_min = ops.where(ok, ops.minimum(state.v_in_min, v_lo), state.v_in_min)
     else:
-        new_min = ok & (v_lo < S.v_in_min)
-        S.v_in_min = B.where(new_min, v_lo, S.v_in_min)
-        S.unb = B.where(new_min, unb, S.unb)
-    if not m.has_uvlo:
+        new_min = ok & (v_lo < state.v_in_min)
+        state.v_in_min = ops.where(new_min, v_lo, state.v_in_min)
+        state.unb = ops.where(new_min, unb, state.unb)
+    if not model.has_uvlo:
         return
-    u = m.uvlo
-    if not (B.any(v_lo < u) or B.any(S.bl_t0 < _INF)):
+    u = model.uvlo
+    if not (ops.any(v_lo < u) or ops.any(state.bl_t0 < _INF)):
         return
-    piece = _below_arrays if m.B is _ArrayOps else _below_floats
+    piece = _below_arrays if model.ops is _ArrayOps else _below_floats
     t_g, t_1 = t + gh, t + h
-    for ta, va, tb, vb, cut in ((t, S.vin, t_g, s1.vin, cut_g), (t_g, s1.vin, t_1, s2.vin, cut_1)):
+    for ta, va, tb, vb, cut in ((t, state.vin, t_g, s1.vin, cut_g), (t_g, s1.vin, t_1, s2.vin, cut_1)):
         if edge is not None:  # the sample line up to the edge, its low point, then on
             here = edge[0] & (edge[1] >= ta) & (edge[1] <= tb)
-            t_e = B.where(here, edge[1], ta)
-            piece(S, ok, ta, va, t_e, B.where(here, edge[2], va), u)
-            ta, va = t_e, B.where(here, edge[3], va)
+            t_e = ops.where(here, edge[1], ta)
+            piece(state, ok, ta, va, t_e, ops.where(here, edge[2], va), u)
+            ta, va = t_e, ops.where(here, edge[3], va)
         if cut is None:
-            piece(S, ok, ta, va, tb, vb, u)
+            piece(state, ok, ta, va, tb, vb, u)
             continue
         # a notch at the end of the interval: the sample line up to it, then its floor
         use, width, floor = cut
-        t_n = B.where(use, B.maximum(tb - width, ta), tb)
-        piece(S, ok, ta, va, t_n, vb, u)
-        piece(S, ok & use, t_n, floor, tb, floor, u)
+        t_n = ops.where(use, ops.maximum(tb - width, ta), tb)
+        piece(state, ok, ta, va, t_n, vb, u)
+        piece(state, ok & use, t_n, floor, tb, floor, u)
 
 
-def _at(B, frac, x0, xg, x1):
+def _at(ops, frac, x0, xg, x1):
     """Value at ``frac`` of the step of x, linear between the step start (x0), the stage
     point (xg, at gamma) and the end (x1)."""
-    return B.where(frac < _G, x0 + (xg - x0) * (frac * (1.0 / _G)), xg + (x1 - xg) * ((frac - _G) / (1.0 - _G)))
+    return ops.where(frac < _G, x0 + (xg - x0) * (frac * (1.0 / _G)), xg + (x1 - xg) * ((frac - _G) / (1.0 - _G)))
 
 
-def _below_arrays(S, ok, ta, va, tb, vb, u: float) -> None:
+def _below_arrays(state, ok, ta, va, tb, vb, u: float) -> None:
     """Time below ``u`` (V) over a piece linear from (ta, va) to (tb, vb), rows of arrays:
-    opens a run where the input falls below, closes it (keeping the longest, S.bl_max)
+    opens a run where the input falls below, closes it (keeping the longest, state.bl_max)
     where it rises above, a jump at ta included."""
-    t0 = S.bl_t0
+    t0 = state.bl_t0
     open_ = t0 < _INF
     ina, inb = va < u, vb < u
     close_a = ok & open_ & ~ina
-    best = np.where(close_a, np.maximum(S.bl_max, ta - t0), S.bl_max)
+    best = np.where(close_a, np.maximum(state.bl_max, ta - t0), state.bl_max)
     t0 = np.where(close_a, _INF, np.where(ok & ina & ~open_, ta, t0))
     cross = ok & (ina ^ inb)
     tc = ta + (tb - ta) * (va - u) / np.where(cross, va - vb, 1.0)
     down = cross & inb
     up = cross & ina
     best = np.where(up, np.maximum(best, tc - t0), best)
-    S.bl_t0 = np.where(down, tc, np.where(up, _INF, t0))
-    S.bl_max = best
+    state.bl_t0 = np.where(down, tc, np.where(up, _INF, t0))
+    state.bl_max = best
 
 
-def _below_floats(S, ok, ta, va, tb, vb, u: float) -> None:
+def _below_floats(state, ok, ta, va, tb, vb, u: float) -> None:
     """`_below_arrays` for one row on Python floats."""
     if not ok:
         return
-    t0 = S.bl_t0
+    t0 = state.bl_t0
     ina, inb = va < u, vb < u
     if t0 < _INF and not ina:
-        S.bl_max = max(S.bl_max, ta - t0)
+        state.bl_max = max(state.bl_max, ta - t0)
         t0 = _INF
     elif ina and t0 == _INF:
         t0 = ta
@@ -1016,12 +1163,12 @@ def _below_floats(S, ok, ta, va, tb, vb, u: float) -> None:
         if inb:
             t0 = tc
         else:
-            S.bl_max = max(S.bl_max, tc - t0)
+            state.bl_max = max(state.bl_max, tc - t0)
             t0 = _INF
-    S.bl_t0 = t0
+    state.bl_t0 = t0
 
 
-def _interior_peak(m: _Model, S, tj_hi, in_g, in_1, th_g, s1, s2, gh, dt1, t_amb: float):
+def _interior_peak(model: _Model, state, tj_hi, in_g, in_1, th_g, s1, s2, gh, dt1, t_amb: float):
     """The junction peak inside the step's intervals where the rise turns from rising to
     falling (`thermal.foster_peak`), merged into ``tj_hi``.
 
@@ -1029,165 +1176,165 @@ def _interior_peak(m: _Model, S, tj_hi, in_g, in_1, th_g, s1, s2, gh, dt1, t_amb
     r_i times the interval's largest power (tau dT/dt + T = r P), and where that bound is
     not above the peak so far the interval is passed over.
     """
-    floor = m.B.maximum(S.tj_peak, tj_hi) - t_amb
-    if m.B is _FloatOps:
-        for sel, theta, pa, pb, dt in ((in_g, S.theta, S.p, s1.p, gh), (in_1, th_g, s1.p, s2.p, dt1)):
+    floor = model.ops.maximum(state.tj_peak, tj_hi) - t_amb
+    if model.ops is _FloatOps:
+        for sel, theta, pa, pb, dt in ((in_g, state.theta, state.p, s1.p, gh), (in_1, th_g, s1.p, s2.p, dt1)):
             if sel:
                 p_hi = max(pa, pb)
-                if sum(max(th, ri * p_hi) for th, ri in zip(theta, m.r_th)) > floor:
-                    rise, _ = foster_peak_floats(theta, pa, pb, dt, m.r_th, m.tau_th)
+                if sum(max(th, ri * p_hi) for th, ri in zip(theta, model.r_th)) > floor:
+                    rise, _ = foster_peak_floats(theta, pa, pb, dt, model.r_th, model.tau_th)
                     tj_hi = max(tj_hi, t_amb + rise)
         return tj_hi
     tj_hi = np.array(tj_hi, copy=True)
-    for sel, theta, pa, pb, dt in ((in_g, S.theta, S.p, s1.p, gh), (in_1, th_g, s1.p, s2.p, dt1)):
+    for sel, theta, pa, pb, dt in ((in_g, state.theta, state.p, s1.p, gh), (in_1, th_g, s1.p, s2.p, dt1)):
         idx = np.flatnonzero(sel)
         if idx.size:
             th = theta[idx]
-            bound = np.add.reduce(np.maximum(th, m.r_th * np.maximum(pa[idx], pb[idx])[:, None]), axis=1)
+            bound = np.add.reduce(np.maximum(th, model.r_th * np.maximum(pa[idx], pb[idx])[:, None]), axis=1)
             keep = bound > floor[idx]
             if keep.any():
                 idx, th = idx[keep], th[keep]
                 if idx.size <= 8:  # a few rows: the float code costs less than NumPy's calls
-                    rt, tt = m.r_th.tolist(), m.tau_th.tolist()
+                    rt, tt = model.r_th.tolist(), model.tau_th.tolist()
                     rise = np.array([foster_peak_floats(th[j].tolist(), float(pa[i]), float(pb[i]), float(dt[i]),
                                                         rt, tt)[0] for j, i in enumerate(idx)])
                 else:
-                    rise, _ = foster_peak(th, pa[idx], pb[idx], dt[idx], m.r_th, m.tau_th)
+                    rise, _ = foster_peak(th, pa[idx], pb[idx], dt[idx], model.r_th, model.tau_th)
                 tj_hi[idx] = np.maximum(tj_hi[idx], t_amb + rise)
     return tj_hi
 
 
-def _switch_events(m: _Model, S, ok, final: dict, wave, rec):
+def _switch_events(model: _Model, state, ok, final: dict, wave, rec):
     """Trips, retries and the end of a tripped row, after an accepted step (timer runs).
 
     Returns the rows that are done (the switch off for good and followed far enough).
     """
-    B = m.B
-    on = S.on
-    trip = ok & on & (S.t_reg >= m.t_fault * (1.0 - _LAND)) if m.limit else ok & False
-    restart = ok & B.not_(on) & (S.t >= S.t_restart * (1.0 - _LAND))
-    if B.any(trip) or B.any(restart):
-        if B is _FloatOps:
-            _switch_row(m, S, trip, final, wave, rec is not None)
+    ops = model.ops
+    on = state.on
+    trip = ok & on & (state.t_reg >= model.t_fault * (1.0 - _LAND)) if model.limit else ok & False
+    restart = ok & ops.not_(on) & (state.t >= state.t_restart * (1.0 - _LAND))
+    if ops.any(trip) or ops.any(restart):
+        if ops is _FloatOps:
+            _switch_row(model, state, trip, final, wave, rec is not None)
         else:
             for sel, is_trip in ((trip, True), (restart, False)):
                 idx = np.flatnonzero(sel)
                 if idx.size:
-                    _switch_rows(m, S, idx, is_trip, final)
+                    _switch_rows(model, state, idx, is_trip, final)
                     if rec is not None and sel[rec]:
-                        _record(wave, S, rec)
+                        _record(wave, state, rec)
     # a switch off for good: follow the input's ring and a piece of the output's decay
-    if not B.any(S.latched):
+    if not ops.any(state.latched):
         return False
-    t_since = S.t - S.t_off
-    shown = S.latched & (t_since >= 0.25 * (S.t_off - S.t_att))
-    if m.has_cin:
-        amp2 = (m.l * S.il * S.il) / m.c_in + (S.vin - m.v_s) ** 2
-        calm = (amp2 <= (STOP_BAND * m.v_s) ** 2) | (t_since >= 2.0 * m.t_ring)
-        if m.has_uvlo:
-            calm = calm & (S.vin >= m.uvlo)
+    t_since = state.t - state.t_off
+    shown = state.latched & (t_since >= 0.25 * (state.t_off - state.t_att))
+    if model.has_cin:
+        amp2 = (model.l * state.il * state.il) / model.c_in + (state.vin - model.v_s) ** 2
+        calm = (amp2 <= (STOP_BAND * model.v_s) ** 2) | (t_since >= 2.0 * model.t_ring)
+        if model.has_uvlo:
+            calm = calm & (state.vin >= model.uvlo)
         shown = shown & calm
     end = ok & shown
-    S.outcome = B.where(end, OUTCOME_OFF, S.outcome)
+    state.outcome = ops.where(end, OUTCOME_OFF, state.outcome)
     return end
 
 
-def _trip_bookkeeping(m: _Model, S, final: dict, rows, j) -> None:
+def _trip_bookkeeping(model: _Model, state, final: dict, rows, j) -> None:
     """Write the finished attempt's pulse of state row ``j`` (output row ``rows``)."""
-    k = int(S.attempt if j is None else S.attempt[j]) - 1
+    k = int(state.attempt if j is None else state.attempt[j]) - 1
     take = (lambda x: x) if j is None else (lambda x: x[j])  # noqa: E731
     for name, src in zip(("pulse_e", "pulse_p_peak", "pulse_v_ds", "pulse_i", "pulse_tj_start"), _PULSES):
-        final[name][rows, k] = take(getattr(S, src))
+        final[name][rows, k] = take(getattr(state, src))
 
 
-def _switch_row(m: _Model, S, trip: bool, final: dict, wave, recording: bool) -> None:
+def _switch_row(model: _Model, state, trip: bool, final: dict, wave, recording: bool) -> None:
     """A trip or a retry of the single row of the float back end."""
     if trip:
-        _trip_bookkeeping(m, S, final, 0, None)
-        S.on = False
-        S.t_off = S.t
-        if S.t_trip != S.t_trip:  # NaN: the first trip
-            S.t_trip = S.t
-        if m.retry and S.attempt < RETRY_ATTEMPTS:
-            S.t_restart = S.t + m.retry_off
+        _trip_bookkeeping(model, state, final, 0, None)
+        state.on = False
+        state.t_off = state.t
+        if state.t_trip != state.t_trip:  # NaN: the first trip
+            state.t_trip = state.t
+        if model.retry and state.attempt < RETRY_ATTEMPTS:
+            state.t_restart = state.t + model.retry_off
         else:
-            S.latched = True
+            state.latched = True
     else:
-        S.on = True
-        S.attempt += 1
-        S.t_att = S.t
-        S.t_reg = 0.0
-        S.t_restart = _INF
-        S.e_att, S.pp_att, S.tj_att = 0.0, 0.0, S.tj
-    S.phase = 0
-    S.h = min(S.h, 1e-7 * S.t_est)
-    st = _instant(m, S)
-    _apply_instant(m, S, st)
+        state.on = True
+        state.attempt += 1
+        state.t_att = state.t
+        state.t_reg = 0.0
+        state.t_restart = _INF
+        state.e_att, state.pp_att, state.tj_att = 0.0, 0.0, state.tj
+    state.phase = 0
+    state.h = min(state.h, 1e-7 * state.t_est)
+    st = _instant(model, state)
+    _apply_instant(model, state, st)
     if not trip:
-        S.v_att, S.i_att, S.pp_att = S.vin - S.vout, S.i, S.p
+        state.v_att, state.i_att, state.pp_att = state.vin - state.vout, state.i, state.p
     if recording:
-        _record(wave, S, None)
+        _record(wave, state, None)
 
 
-def _switch_rows(m: _Model, S, idx: np.ndarray, trip: bool, final: dict) -> None:
+def _switch_rows(model: _Model, state, idx: np.ndarray, trip: bool, final: dict) -> None:
     """Trips (``trip``) or retries of rows ``idx`` of the array back end."""
     if trip:
         for j in idx:
-            _trip_bookkeeping(m, S, final, S.rows[j], j)
-        S.on[idx] = False
-        S.t_off[idx] = S.t[idx]
-        first = np.isnan(S.t_trip[idx])
-        S.t_trip[idx[first]] = S.t[idx[first]]
-        again = m.retry & (S.attempt[idx] < RETRY_ATTEMPTS)
-        S.t_restart[idx] = np.where(again, S.t[idx] + m.retry_off, np.inf)
-        S.latched[idx] = ~again
+            _trip_bookkeeping(model, state, final, state.rows[j], j)
+        state.on[idx] = False
+        state.t_off[idx] = state.t[idx]
+        first = np.isnan(state.t_trip[idx])
+        state.t_trip[idx[first]] = state.t[idx[first]]
+        again = model.retry & (state.attempt[idx] < RETRY_ATTEMPTS)
+        state.t_restart[idx] = np.where(again, state.t[idx] + model.retry_off, np.inf)
+        state.latched[idx] = ~again
     else:
-        S.on[idx] = True
-        S.attempt[idx] += 1
-        S.t_att[idx] = S.t[idx]
-        S.t_reg[idx] = 0.0
-        S.t_restart[idx] = np.inf
-        S.e_att[idx] = 0.0
-        S.tj_att[idx] = S.tj[idx]
-    S.phase[idx] = 0
-    S.h[idx] = np.minimum(S.h[idx], 1e-7 * S.t_est[idx])
-    sub = m.take(idx)
-    st = _instant(sub, S, idx)
-    _apply_instant(sub, S, st, idx)
+        state.on[idx] = True
+        state.attempt[idx] += 1
+        state.t_att[idx] = state.t[idx]
+        state.t_reg[idx] = 0.0
+        state.t_restart[idx] = np.inf
+        state.e_att[idx] = 0.0
+        state.tj_att[idx] = state.tj[idx]
+    state.phase[idx] = 0
+    state.h[idx] = np.minimum(state.h[idx], 1e-7 * state.t_est[idx])
+    sub = model.take(idx)
+    st = _instant(sub, state, idx)
+    _apply_instant(sub, state, st, idx)
     if not trip:
-        S.v_att[idx] = S.vin[idx] - S.vout[idx]
-        S.i_att[idx] = S.i[idx]
-        S.pp_att[idx] = S.p[idx]
+        state.v_att[idx] = state.vin[idx] - state.vout[idx]
+        state.i_att[idx] = state.i[idx]
+        state.pp_att[idx] = state.p[idx]
 
 
-def _store(model: _Model, S: _State, final: dict, ops) -> None:
+def _store(model: _Model, state: _State, final: dict, ops) -> None:
     for name in FIGURES:
-        val = getattr(S, name)
+        val = getattr(state, name)
         if ops is _FloatOps:
             final[name][0] = val
         else:
-            final[name][S.rows] = val
+            final[name][state.rows] = val
     if model.timer:  # the attempt under way (a finished one is written again unchanged)
         if ops is _FloatOps:
-            _trip_bookkeeping(model, S, final, 0, None)
+            _trip_bookkeeping(model, state, final, 0, None)
         else:
-            k = S.attempt - 1
+            k = state.attempt - 1
             for name, src in zip(("pulse_e", "pulse_p_peak", "pulse_v_ds", "pulse_i", "pulse_tj_start"), _PULSES):
-                final[name][S.rows, k] = getattr(S, src)
+                final[name][state.rows, k] = getattr(state, src)
 
 
-def _compact(model: _Model, S: _State, final: dict):
+def _compact(model: _Model, state: _State, final: dict):
     """Write the figures of all working rows, then keep only the active ones."""
-    _store(model, S, final, _ArrayOps)
-    keep = np.nonzero(S.active)[0]
-    n_old = S.rows.shape[0]
-    for name, val in list(vars(S).items()):
+    _store(model, state, final, _ArrayOps)
+    keep = np.nonzero(state.active)[0]
+    n_old = state.rows.shape[0]
+    for name, val in list(vars(state).items()):
         if isinstance(val, np.ndarray) and val.ndim >= 1 and val.shape[0] == n_old:
-            setattr(S, name, val[keep])
-    return model.take(keep), S
+            setattr(state, name, val[keep])
+    return model.take(keep), state
 
 
-def _notch(B, event, w_b, floor, area, dt):
+def _notch(ops, event, w_b, floor, area, dt):
     """Where the regulated reference stepped up inside a stage interval: the notch.
 
     The ideal FET is then fully on until the inductance carries the new current: the
@@ -1196,45 +1343,45 @@ def _notch(B, event, w_b, floor, area, dt):
     (V). Returns None where no row has such a notch, else (mask, width in s) for the rows
     whose notch is shorter than the interval (``dt``, s): the others resolve it.
     """
-    if not B.any(event):
+    if not ops.any(event):
         return None
     depth = w_b - floor
-    width = area / B.where(depth > 0.0, depth, 1.0)
+    width = area / ops.where(depth > 0.0, depth, 1.0)
     use = event & (depth > 0.0) & (width > 0.0) & (width < dt)
-    if not B.any(use):
+    if not ops.any(use):
         return None
-    return use, B.where(use, width, 0.5 * dt)
+    return use, ops.where(use, width, 0.5 * dt)
 
 
-def _quadratic(B, f0, f1, f2):
+def _quadratic(ops, f0, f1, f2):
     """Coefficients (b, c) of f(x) = f0 + b x + c x^2 through the step start (x = 0), the
     trapezoidal stage (x = gamma) and the step end (x = 1)."""
     c = (f1 - f0 - _G * (f2 - f0)) * (1.0 / (_G * _G - _G))
     return (f2 - f0) - c, c
 
 
-def _power_vertex(B, S, s1, s2, limit: bool):
+def _power_vertex(ops, state, s1, s2, limit: bool):
     """The peak of the power inside a step where the quadratic through its three values has
     one: (mask, power, v_ds and current there, the latter two on their own quadratics). Only
     where the switch does not regulate at any point of the step: a regulated power follows
     its reference, whose kinks (from the power to the current limit, say) no quadratic
     represents."""
-    b, c = _quadratic(B, S.p, s1.p, s2.p)
+    b, c = _quadratic(ops, state.p, s1.p, s2.p)
     neg = c < 0.0
-    cs = B.where(neg, c, -1.0)
+    cs = ops.where(neg, c, -1.0)
     x = -b / (2.0 * cs)
-    p_v = S.p - b * b / (4.0 * cs)
-    use = neg & (x > 0.0) & (x < 1.0) & (p_v > B.maximum(s1.p, s2.p))
+    p_v = state.p - b * b / (4.0 * cs)
+    use = neg & (x > 0.0) & (x < 1.0) & (p_v > ops.maximum(s1.p, s2.p))
     if limit:
-        use = use & B.not_(S.lim | s1.lim | s2.lim)
-    i0 = S.i
-    v0 = B.where(i0 > 0.0, S.p / B.where(i0 > 0.0, i0, 1.0), s1.vds)
-    bi, ci = _quadratic(B, i0, s1.i, s2.i)
-    bv, cv = _quadratic(B, v0, s1.vds, s2.vds)
+        use = use & ops.not_(state.lim | s1.lim | s2.lim)
+    i0 = state.i
+    v0 = ops.where(i0 > 0.0, state.p / ops.where(i0 > 0.0, i0, 1.0), s1.vds)
+    bi, ci = _quadratic(ops, i0, s1.i, s2.i)
+    bv, cv = _quadratic(ops, v0, s1.vds, s2.vds)
     return use, p_v, v0 + bv * x + cv * x * x, i0 + bi * x + ci * x * x
 
 
-def _peak_point(B, ok, s1, s2, vertex, band: float, v_pk, i_pk, p_peak):
+def _peak_point(ops, ok, s1, s2, vertex, band: float, v_pk, i_pk, p_peak):
     """The running peak power and the operating point the SOA reads it at, after one step.
 
     The candidates are the stage points and the interior vertex of the power (`_power_vertex`).
@@ -1243,84 +1390,84 @@ def _peak_point(B, ok, s1, s2, vertex, band: float, v_pk, i_pk, p_peak):
     the band of the peak, and replaced by the step's best point once it does not.
     """
     use_v, p_v, v_v, i_v = vertex
-    p_hi = B.maximum(B.maximum(s1.p, s2.p), B.where(use_v, p_v, 0.0))
-    p_new = B.maximum(p_peak, p_hi)
-    floor = (1.0 - band) * p_new - 1e-12 * B.fabs(p_new)
+    p_hi = ops.maximum(ops.maximum(s1.p, s2.p), ops.where(use_v, p_v, 0.0))
+    p_new = ops.maximum(p_peak, p_hi)
+    floor = (1.0 - band) * p_new - 1e-12 * ops.fabs(p_new)
     in1 = s1.p >= floor
     in2 = s2.p >= floor
     inv = use_v & (p_v >= floor)
-    pick2 = in2 & (B.not_(in1) | (s2.vds >= s1.vds))
-    v_c = B.where(pick2, s2.vds, s1.vds)
-    i_c = B.where(pick2, s2.i, s1.i)
-    pickv = inv & (B.not_(in1 | in2) | (v_v > v_c))
-    v_c = B.where(pickv, v_v, v_c)
-    i_c = B.where(pickv, i_v, i_c)
+    pick2 = in2 & (ops.not_(in1) | (s2.vds >= s1.vds))
+    v_c = ops.where(pick2, s2.vds, s1.vds)
+    i_c = ops.where(pick2, s2.i, s1.i)
+    pickv = inv & (ops.not_(in1 | in2) | (v_v > v_c))
+    v_c = ops.where(pickv, v_v, v_c)
+    i_c = ops.where(pickv, i_v, i_c)
     cand = in1 | in2 | inv
     kept = v_pk * i_pk >= floor
-    take = ok & cand & (B.not_(kept) | (v_c > v_pk))
-    return B.where(take, v_c, v_pk), B.where(take, i_c, i_pk), B.where(ok, p_new, p_peak)
+    take = ok & cand & (ops.not_(kept) | (v_c > v_pk))
+    return ops.where(take, v_c, v_pk), ops.where(take, i_c, i_pk), ops.where(ok, p_new, p_peak)
 
 
-def _crossing(B, f0, f1, f2):
+def _crossing(ops, f0, f1, f2):
     """Fraction of the step where f, linear between the step start (f0), the trapezoidal
     stage (f1, at gamma) and the end (f2), first changes sign; 2 where it does not."""
     p0, p1, p2 = f0 > 0.0, f1 > 0.0, f2 > 0.0
     c01 = p0 ^ p1
     c12 = p1 ^ p2
-    x01 = _G * f0 / B.where(c01, f0 - f1, 1.0)
-    x12 = _G + (1.0 - _G) * f1 / B.where(c12, f1 - f2, 1.0)
-    return B.where(c01, x01, B.where(c12, x12, 2.0))
+    x01 = _G * f0 / ops.where(c01, f0 - f1, 1.0)
+    x12 = _G + (1.0 - _G) * f1 / ops.where(c12, f1 - f2, 1.0)
+    return ops.where(c01, x01, ops.where(c12, x12, 2.0))
 
 
-def _event_frac(B, hit, f_on, f_lim):
+def _event_frac(ops, hit, f_on, f_lim):
     """Where in the step the stage values put the event (`_crossing`): v_out crossing v_on
     (``f_on``: v_out at the step start, the stage and the end, and v_on) or the limit
     excess crossing 0 (``f_lim``), the earlier one; 2 where no row is hit."""
-    if not B.any(hit):
+    if not ops.any(hit):
         return 2.0
     frac = None
     for f in (f_on, f_lim):
         if f is not None:
-            x = _crossing(B, f[0] - f[3], f[1] - f[3], f[2] - f[3])
-            frac = x if frac is None else B.minimum(frac, x)
+            x = _crossing(ops, f[0] - f[3], f[1] - f[3], f[2] - f[3])
+            frac = x if frac is None else ops.minimum(frac, x)
     return frac
 
 
 _EVENT_STATE = ("h_evt", "phase", "h_back", "t_hi", "aimed", "h_cut")
 
 
-def _event_rows(S: _State, ok, hit, evt, f_on, f_lim, t, h, h_next, fac_err):
+def _event_rows(state: _State, ok, hit, evt, f_on, f_lim, t, h, h_next, fac_err):
     """`_event_steps` on the array back end, on the rows it concerns (those hit or still
     locating an event): in a large batch a few rows at a time, so it runs on those
     rows alone and writes back (the same arithmetic, row by row)."""
-    B = _ArrayOps
-    sel = hit | (S.phase == 1)
+    ops = _ArrayOps
+    sel = hit | (state.phase == 1)
     k = int(np.count_nonzero(sel))
     if k == 0:
         return h_next
     if k == sel.size or sel.size <= 64:
-        return _event_steps(B, S, ok, hit, evt, _event_frac(B, hit, f_on, f_lim), t, h, h_next, fac_err)
+        return _event_steps(ops, state, ok, hit, evt, _event_frac(ops, hit, f_on, f_lim), t, h, h_next, fac_err)
     idx = np.flatnonzero(sel)
     sub = _State()
     for name in _EVENT_STATE:
-        setattr(sub, name, getattr(S, name)[idx])
+        setattr(sub, name, getattr(state, name)[idx])
     pick = lambda f: None if f is None else tuple(x[idx] for x in f[:3]) + (f[3],)  # noqa: E731
     hit_i = hit[idx]
-    hn = _event_steps(B, sub, ok[idx], hit_i, evt[idx], _event_frac(B, hit_i, pick(f_on), pick(f_lim)),
+    hn = _event_steps(ops, sub, ok[idx], hit_i, evt[idx], _event_frac(ops, hit_i, pick(f_on), pick(f_lim)),
                       t[idx], h[idx], h_next[idx], fac_err[idx])
     for name in _EVENT_STATE[1:]:
-        getattr(S, name)[idx] = getattr(sub, name)
+        getattr(state, name)[idx] = getattr(sub, name)
     h_next = np.array(h_next, copy=True)
     h_next[idx] = hn
     return h_next
 
 
-def _event_steps(B, S: _State, ok, hit, evt, frac, t, h, h_next, fac_err):
+def _event_steps(ops, state: _State, ok, hit, evt, frac, t, h, h_next, fac_err):
     """Next step sizes while an event (a load switching on or off, the switch entering or
     leaving regulation) is being located, and the bookkeeping of each row.
 
     A step longer than h_evt that holds an event is rejected (``hit``); its end bounds the
-    event (``S.t_hi``). Where the stage values put the event beyond the first quarter of
+    event (``state.t_hi``). Where the stage values put the event beyond the first quarter of
     the step (its sign change, linear between them: ``frac``) the next step ends half an
     h_evt before that estimate and, once accepted, the one after it tries the rest of the
     bracket, short enough by then to cross the event. Otherwise the step is cut to a
@@ -1328,32 +1475,32 @@ def _event_steps(B, S: _State, ok, hit, evt, frac, t, h, h_next, fac_err):
     is reached (growing back to it after a cut for the error). Never shorter than h_evt.
     When an accepted step holds the event (``evt``) the steps grow back at once, by the
     error control's own factor 0.9 err^(-1/3) (``fac_err``) without its limit of x4, up to
-    the step size the event cut (``S.h_back``).
+    the step size the event cut (``state.h_back``).
     """
-    h_evt = S.h_evt
-    if B.any(hit):
-        land = B.where(frac < 1.0, frac * h - 0.5 * h_evt, 0.0)
+    h_evt = state.h_evt
+    if ops.any(hit):
+        land = ops.where(frac < 1.0, frac * h - 0.5 * h_evt, 0.0)
         aimed = land >= 0.25 * h
-        S.h_back = B.where(hit & (S.phase == 0), h, S.h_back)
-        S.t_hi = B.where(hit, t + h, S.t_hi)
-        S.aimed = B.where(hit, aimed, S.aimed)
-        S.phase = B.where(hit, 1, S.phase)
-        h_cut = B.maximum(B.where(aimed, land, 0.25 * h), h_evt)
-        S.h_cut = B.where(hit, h_cut, S.h_cut)
-        h_next = B.where(hit, h_cut, h_next)
+        state.h_back = ops.where(hit & (state.phase == 0), h, state.h_back)
+        state.t_hi = ops.where(hit, t + h, state.t_hi)
+        state.aimed = ops.where(hit, aimed, state.aimed)
+        state.phase = ops.where(hit, 1, state.phase)
+        h_cut = ops.maximum(ops.where(aimed, land, 0.25 * h), h_evt)
+        state.h_cut = ops.where(hit, h_cut, state.h_cut)
+        h_next = ops.where(hit, h_cut, h_next)
     # crossed it, or passed the bracket without meeting it (an event the predictor saw)
-    crossed = ok & (evt | (t + h >= S.t_hi))
-    rest = B.maximum(S.t_hi - (t + h), h_evt)
-    go_on = B.where(S.aimed, rest, B.minimum(B.minimum(h_next, S.h_cut), rest))
-    resume = B.maximum(B.minimum(S.h_back, h * fac_err), h_evt)
-    h_next = B.where(ok & (S.phase == 1), B.where(crossed, resume, go_on), h_next)
-    S.phase = B.where(crossed, 0, S.phase)
+    crossed = ok & (evt | (t + h >= state.t_hi))
+    rest = ops.maximum(state.t_hi - (t + h), h_evt)
+    go_on = ops.where(state.aimed, rest, ops.minimum(ops.minimum(h_next, state.h_cut), rest))
+    resume = ops.maximum(ops.minimum(state.h_back, h * fac_err), h_evt)
+    h_next = ops.where(ok & (state.phase == 1), ops.where(crossed, resume, go_on), h_next)
+    state.phase = ops.where(crossed, 0, state.phase)
     return h_next
 
 
-def _lim_time(B, e0, e1, dt):
+def _lim_time(ops, e0, e1, dt):
     """Time with positive limit excess over a step where the excess varies linearly:
     dt times the part of [0, 1] where it is positive, max(e0, e1) / |e0 - e1| clipped to
     [0, 1] (1 where both are positive, 0 where neither is)."""
-    frac = B.maximum(e0, e1) / (B.fabs(e0 - e1) + 1e-300)
-    return dt * B.minimum(B.maximum(frac, 0.0), 1.0)
+    frac = ops.maximum(e0, e1) / (ops.fabs(e0 - e1) + 1e-300)
+    return dt * ops.minimum(ops.maximum(frac, 0.0), 1.0)

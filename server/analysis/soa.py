@@ -2,8 +2,6 @@
 
 Provides
 --------
-curve_current(curve, v_ds)
-    Drain current a single SOA curve allows at ``v_ds`` (no derating).
 derating_factor(fet, t_start)
     (tj_max - T) / (tj_max - t_case), clipped to [0, 1].
 allowed_current(fet, v_ds, t_pulse, t_start)
@@ -35,7 +33,6 @@ power (t_equiv = E / P_peak); DESIGN.md section 4.
 from __future__ import annotations
 
 import functools
-import math
 from typing import Any
 
 import numpy as np
@@ -43,7 +40,6 @@ import numpy as np
 from .document import Fet, SoaCurve
 
 __all__ = [
-    "curve_current",
     "derating_factor",
     "allowed_current",
     "soa_allowed_time",
@@ -56,30 +52,6 @@ CONVENTION = ("SOA read without extrapolation: between the longest pulse curve a
               "longest curve's pulse width (no DC curve: nothing longer is allowed); above the shortest curve's "
               "current nothing is allowed; the allowed power is derated linearly from the chart's case temperature "
               "to the maximum junction temperature (common practice, not a standard).")
-
-
-def curve_current(curve: SoaCurve, v_ds: float) -> float:
-    """Drain current one SOA curve allows at ``v_ds`` (no derating).
-
-    Parameters
-    ----------
-    curve : SoaCurve
-        Points (vds V, id A) with vds increasing.
-    v_ds : float
-        Drain-source voltage, V (> 0).
-
-    Returns
-    -------
-    float
-        Current in A: log-log interpolation; the first current below the first point;
-        0 above the last point.
-    """
-    lv = np.log([p[0] for p in curve.points])
-    li = np.log([p[1] for p in curve.points])
-    x = math.log(v_ds)
-    if x > lv[-1] * (1 + 1e-12) + 1e-12:
-        return 0.0
-    return float(np.exp(np.interp(x, lv, li)))
 
 
 class _Table:

@@ -172,12 +172,6 @@ class StartupFigures:
     pulse_tj_start: np.ndarray
     waveform: dict | None = None
 
-    @property
-    def v_supply_min_raw(self) -> np.ndarray:
-        """The same number as ``v_supply_min`` (the dip is no longer filtered); kept for the
-        callers that still read the old name."""
-        return self.v_supply_min
-
 
 def _time_scale(cz: Circuit) -> np.ndarray:
     """Rough duration of the start-up per row, s (sets the first and largest steps)."""

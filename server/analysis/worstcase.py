@@ -49,7 +49,7 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
-from .checks import CHECKS, NA, SPECS, STARTUP_CHECKS
+from .checks import CHECKS, NA, STARTUP_CHECKS
 from .circuit import NO_LIMIT
 from .corners import ALL_PARAMETERS, corner_params, corner_set, point_words
 from .document import Rail

@@ -19,7 +19,8 @@ import math
 from dataclasses import dataclass
 from typing import Any
 
-from server.analysis.document import AFTER_FAULT, DEFAULT_RULES, DEFAULTS, LOAD_MODELS, SWITCH_MODES
+from server.analysis.document import AFTER_FAULT, DEFAULTS, LOAD_MODELS, SWITCH_MODES
+from server.analysis.rules import DEFAULT_RULES
 from server.analysis.words import FIELD_TITLES, field_title
 from server.schemas.rail import SCHEMA_ID
 from server.units import UnitError, format_quantity, parse_quantity

@@ -22,7 +22,7 @@ import pytest
 from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 
-from server.analysis import analyze_rail, headroom
+from server.analysis import analyze_rail
 from server.analysis.checks import C_DEPENDENT
 from server.analysis.document import read_rail
 from server.analysis.evaluation import evaluate_rows, nominal_point

@@ -11,7 +11,8 @@ import re
 
 import pytest
 
-from server.analysis.document import BOUNDS, DEFAULT_RULES, DEFAULTS, OPTIONAL, FIELD_KEYS, read_rail
+from server.analysis.document import BOUNDS, DEFAULTS, FIELD_KEYS, OPTIONAL, read_rail
+from server.analysis.rules import DEFAULT_RULES
 from server.analysis.units import KIND_SYMBOLS, eng, quantity, temp
 from server.analysis.words import (FIELD_TITLES, PARAM_WORDS, RULE_TITLES, field_title, field_words, generic_path,
                                    rule_title)
