@@ -80,7 +80,13 @@ def _client(base: str, cookie: str, token: str, ids: dict, stop: threading.Event
                 kind, r = "API rail", c.get(f"/api/v1/rails/{rail}", headers=api)
             else:
                 kind = "API save"
-                current = c.get(f"/api/v1/rails/{rail}", headers=api).json()
+                read = c.get(f"/api/v1/rails/{rail}", headers=api)
+                if read.status_code != 200:  # busy: the read before the save is counted as an API read
+                    with lock:
+                        out.append(("API rail", read.status_code, time.perf_counter() - t0))
+                    time.sleep(float(read.headers.get("retry-after", "1")))
+                    continue
+                current = read.json()
                 doc = current["document"]
                 doc["load"]["c_nom"] = rng.randint(100, 2000) * 1e-6
                 t0 = time.perf_counter()
