@@ -458,6 +458,7 @@ class ApprovalFact:
 class CheckFact:
     id: str
     verdict: str
+    title: str = ""  # the check's title in words, from its stored record
 
 
 @dataclass(frozen=True)
@@ -549,7 +550,7 @@ def blockers(transition: Transition, facts: RailFacts) -> list[Blocker]:
         else:
             open_checks = unresolved_checks(facts)
             if open_checks:
-                listed = ", ".join(f"{c.id} ({c.verdict})" for c in open_checks)
+                listed = ", ".join(f"{c.title or c.id} ({c.verdict})" for c in open_checks)
                 out.append(Blocker("checks", f"checks failing or marginal without a waiver: {listed}"))
     if transition.demands.no_stale_approvals:
         stale = outstanding_stale(facts)

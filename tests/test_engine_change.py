@@ -434,7 +434,7 @@ def test_a_waiver_of_a_marginal_check_does_not_cover_it_once_it_fails(client, ap
     _post(client, people, rail["id"], "approvals", {"sha256": sha, "comment": "read at the new engine"}, "reviewer2")
     blocked = client.post(f"/api/v1/rails/{rail['id']}/transitions",
                           json={"transition": "accept margins", "sha256": sha}, headers=people.headers("reviewer2"))
-    assert blocked.status_code == 409 and "fault_margin (fail)" in blocked.json()["error"]["message"]
+    assert blocked.status_code == 409 and "fault margin (fail)" in blocked.json()["error"]["message"]
     assert "vds_derating" not in blocked.json()["error"]["message"]
     risks = client.get(f"/api/v1/products/{rail['product_id']}/risks", headers=people.headers("manager")).json()
     (entry,) = [r for b in risks["boards"] for r in b["rails"]]

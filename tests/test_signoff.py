@@ -228,7 +228,7 @@ def test_waivers_cover_their_revision_and_are_carried_explicitly(client, people,
     assert _move(client, people, rail["id"], "submit for review", "designer", sha2).status_code == 200
     assert _approve(client, people, rail["id"], "reviewer", sha2).status_code == 201
     blocked = _move(client, people, rail["id"], "accept margins", "reviewer", sha2)
-    assert blocked.status_code == 409 and "startup_soa (fail)" in blocked.json()["error"]["message"]
+    assert blocked.status_code == 409 and "startup soa (fail)" in blocked.json()["error"]["message"]
 
     carry = lambda waiver_id, sha, who="reviewer": client.post(  # noqa: E731
         f"/api/v1/rails/{rail['id']}/waivers/{waiver_id}/carry", json={"sha256": sha}, headers=people.headers(who))

@@ -224,7 +224,8 @@ def rail_facts(session: Session, rail: Rail, state: str, *, approvals: list[Appr
         state=state, head_n=rail.head_n,
         approvals=tuple(ApprovalFact(a.reviewer_id, a.reviewer_name, a.revision_n, a.stale_at is not None)
                         for a in approvals),
-        checks=None if checks is None else tuple(CheckFact(str(c.get("id")), str(c.get("verdict"))) for c in checks),
+        checks=None if checks is None else tuple(CheckFact(str(c.get("id")), str(c.get("verdict")),
+                                                         str(c.get("title") or "")) for c in checks),
         waived=_waived_verdicts(waivers, rail.head_n))
 
 
