@@ -13,6 +13,7 @@ import os
 import shutil
 import uuid
 from collections.abc import Iterator
+from contextlib import contextmanager
 from pathlib import Path
 
 import pytest
@@ -68,6 +69,21 @@ def postgres_admin_url() -> Iterator[str]:
         yield server.start()
     finally:
         server.stop()
+
+
+@contextmanager
+def scratch_postgres_database(admin_url: str, prefix: str) -> Iterator[str]:
+    """An empty database (no tables) on the server of ``admin_url``, dropped afterwards."""
+    admin = create_engine(make_url(admin_url), isolation_level="AUTOCOMMIT")
+    name = f"{prefix}_{uuid.uuid4().hex[:10]}"
+    with admin.connect() as conn:
+        conn.execute(text(f'CREATE DATABASE "{name}"'))
+    try:
+        yield make_url(admin_url).set(database=name).render_as_string(hide_password=False)
+    finally:
+        with admin.connect() as conn:
+            conn.execute(text(f'DROP DATABASE IF EXISTS "{name}" WITH (FORCE)'))
+        admin.dispose()
 
 
 @pytest.fixture(scope="session")

@@ -2,15 +2,13 @@
 
 from __future__ import annotations
 
-import uuid
 
 import pytest
 from sqlalchemy import create_engine, select, text
-from sqlalchemy.engine import make_url
 
 from server.__main__ import EXIT_BAD_INPUT, main
 from server.models import Base
-from tests.conftest import TEST_SECRET
+from tests.conftest import TEST_SECRET, scratch_postgres_database
 from tests.signoff_support import edit_rail, make_board, make_rail, store_checks, check
 
 
@@ -48,15 +46,8 @@ def empty_copy_url(database_url, tmp_path, request):
     if database_url.startswith("sqlite"):
         yield f"sqlite:///{tmp_path / 'restored.db'}"
         return
-    admin_url = make_url(request.getfixturevalue("postgres_admin_url"))
-    name = f"railsign_restore_{uuid.uuid4().hex[:10]}"
-    admin = create_engine(admin_url, isolation_level="AUTOCOMMIT")
-    with admin.connect() as conn:
-        conn.execute(text(f'CREATE DATABASE "{name}"'))
-    yield admin_url.set(database=name).render_as_string(hide_password=False)
-    with admin.connect() as conn:
-        conn.execute(text(f'DROP DATABASE IF EXISTS "{name}" WITH (FORCE)'))
-    admin.dispose()
+    with scratch_postgres_database(request.getfixturevalue("postgres_admin_url"), "railsign_restore") as url:
+        yield url
 
 
 def test_a_restored_copy_holds_every_revision_approval_waiver_and_audit_entry(

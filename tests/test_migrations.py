@@ -3,20 +3,18 @@ existing teams and rails are carried into the sign-off tables, and the audit gua
 
 from __future__ import annotations
 
-import uuid
 from collections.abc import Iterator
 
 import pytest
 from alembic.autogenerate import compare_metadata
 from alembic.runtime.migration import MigrationContext
 from sqlalchemy import column, create_engine, func, inspect, select, table, text
-from sqlalchemy.engine import make_url
 from sqlalchemy.exc import DBAPIError
 
 from server import migrate
 from server.models import Base, utcnow
 from server.workflow import parse_workflow
-from tests.conftest import BACKENDS, make_settings
+from tests.conftest import BACKENDS, make_settings, scratch_postgres_database
 
 SIGNOFF_TABLES = {"workflows", "rail_states", "approvals", "waivers", "login_throttles", "signoff_rules",
                   "review_assignments"}
@@ -28,15 +26,8 @@ def empty_url(request, tmp_path) -> Iterator[str]:
     if request.param == "sqlite":
         yield f"sqlite:///{tmp_path / 'empty.db'}"
         return
-    admin_url = make_url(request.getfixturevalue("postgres_admin_url"))
-    name = f"railsign_migrations_{uuid.uuid4().hex[:10]}"
-    admin = create_engine(admin_url, isolation_level="AUTOCOMMIT")
-    with admin.connect() as conn:
-        conn.execute(text(f'CREATE DATABASE "{name}"'))
-    yield admin_url.set(database=name).render_as_string(hide_password=False)
-    with admin.connect() as conn:
-        conn.execute(text(f'DROP DATABASE IF EXISTS "{name}" WITH (FORCE)'))
-    admin.dispose()
+    with scratch_postgres_database(request.getfixturevalue("postgres_admin_url"), "railsign_migrations") as url:
+        yield url
 
 
 def _tables(url: str) -> set[str]:

@@ -16,7 +16,7 @@ from server.services.access import Actor, role_abilities
 from server.services.errors import Forbidden, Invalid
 
 router = APIRouter(include_in_schema=False)
-PASSWORD_CHANGED = "Your password was changed. This session goes on; every other session of the old password has ended."
+PASSWORD_CHANGED = "Your password was changed. You stay logged in here; every other login with the old password has ended."
 
 
 def account_context(session: Session, actor: Actor, *, new_token: dict | None = None, error: str = "",

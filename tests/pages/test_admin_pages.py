@@ -462,7 +462,7 @@ def test_you_change_your_own_password_and_this_session_goes_on(client, app, peop
                                                 "new_password_repeat": "new-" + PASSWORD}, follow_redirects=False)
     assert r.status_code == 303 and r.headers["location"] == "/account?done=password"
     assert "railsign_session=" in r.headers["set-cookie"] and "HttpOnly" in r.headers["set-cookie"]
-    after = client.get(r.headers["location"], follow_redirects=False)        # this session goes on, renewed
+    after = client.get(r.headers["location"], follow_redirects=False)        # still logged in here, the cookie renewed
     assert after.status_code == 200 and "Your password was changed" in after.text
     assert csrf_from(after.text) != csrf_from(page.text)
     assert elsewhere.get("/account", follow_redirects=False).status_code == 303   # the other one has ended

@@ -153,7 +153,7 @@ def test_you_change_your_password_see_a_refusal_beside_the_field_and_stay_logged
     pg.wait_for_url(re.compile(r"/account\?done=password$"))
     assert "Your password was changed" in pg.inner_text("#account-notice")
     shot(pg, "account-password-changed")
-    pg.goto("/")                                                # this session goes on
+    pg.goto("/")                                                # still logged in here
     assert pg.url.endswith("/") and pg.locator("h1").count() == 1
     other.reload()                                              # the other session of the old password ended
     assert "/login" in other.url
