@@ -44,7 +44,7 @@ from .words import FIELD_TITLES, generic_path
 
 __all__ = ["NUMBER_LARGEST", "NUMBER_SMALLEST", "COMPUTABLE", "magnitude_problem", "CONTROL_CHARACTERS",
            "LINE_CONTROL_CHARACTERS", "text_problem", "NAME_MAX_LENGTH", "MAX_SOA_CURVES", "MAX_SOA_POINTS",
-           "MAX_FOSTER_STAGES", "PLAUSIBLE", "plausibility_problem", "plausibility_warnings"]
+           "MAX_FOSTER_STAGES", "MAX_RETRIES", "PLAUSIBLE", "plausibility_problem", "plausibility_warnings"]
 
 NUMBER_LARGEST = 1e30
 NUMBER_SMALLEST = 0.0  # a tiny value (1e-300 H) computes as the zero it nearly is
@@ -61,6 +61,7 @@ NAME_MAX_LENGTH = 200  # characters of a rail or MOSFET name
 MAX_SOA_CURVES = 20
 MAX_SOA_POINTS = 100
 MAX_FOSTER_STAGES = 12
+MAX_RETRIES = 1000  # retries before latching: the pulse train is summed in closed form, the bound keeps it a count
 
 # Characters no text holds: C0 controls but tab, line feed and carriage return, DEL, and lone
 # surrogates (not encodable as UTF-8). A one-line text (a name) refuses tab and line breaks too.
@@ -114,6 +115,7 @@ PLAUSIBLE: dict[str, tuple[float, float]] = {
     "ohm": (1e-6, 1e7),
     "s": (1e-12, 1e5),
     "W": (1e-6, 1e6),
+    "J": (1e-9, 1e4),
     "K/W": (1e-4, 1e4),
     "degC": (-100.0, 300.0),
     "K": (0.0, 300.0),

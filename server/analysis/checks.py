@@ -33,6 +33,15 @@ t_ambient). It is 1.0 exactly at the team's limit and >= 1 where the check passe
 physical edge sits at `edge_margin` (below 1 where the team keeps a margin). A flag check
 reads 0 when it fails and infinity when it passes.
 
+A short during operation (the short-circuit time, the retry heating, the onset) starts from
+the steady-state junction temperature at the row's supply (`faults.start_temperature`);
+`START_TEMPERATURE` names the figure each check starts from, and every check record says it.
+The onset and turn-off checks (`faults`) apply only where the rail gives the controller's
+loop response or fast trip (onset), or one of those, an input clamp or the avalanche rating
+(turn-off); a turn-off that reaches the FET's breakdown fails the overshoot check whatever
+the energy (common practice, no source: a sign-off does not rely on avalanche), and the
+energy check says whether the part's avalanche rating would carry it.
+
 The supply dip is read raw: the lowest switch-input voltage against the upstream UVLO.
 Where the rail gives the UVLO's deglitch time (``supply.uvlo_filter``, from the upstream
 part's datasheet), the UVLO trips only when the input stays below it continuously for that
@@ -49,6 +58,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from .document import Rail
+from .faults import ACTED_FAST_TRIP, ACTED_LOOP, BY_BREAKDOWN, BY_CLAMP, BY_INPUT, BY_NONE
 from .startup import (STATUS_NO_CONVERGENCE, STATUS_OK, STATUS_RETRIED, STATUS_RETRY_EXHAUSTED, STATUS_RUNAWAY,
                       STATUS_STALLED, STATUS_TRIPPED, TJ_RUNAWAY_K)
 from .units import eng, temp
@@ -63,6 +73,8 @@ __all__ = [
     "CheckSpec",
     "CHECKS",
     "SPECS",
+    "START_TEMPERATURE",
+    "start_temperature_of",
     "C_DEPENDENT",
     "STARTUP_CHECKS",
     "evaluate_checks",
@@ -111,8 +123,21 @@ CHECKS: tuple[CheckSpec, ...] = (
               "at_most"),
     CheckSpec("fet_pulse_current", "Inrush peak within the FET's pulsed drain current rating", "A",
               "physical limit", "at_most"),
+    CheckSpec("onset_peak", "Short-circuit onset peak within the FET's pulsed drain current rating", "A",
+              "physical limit", "at_most"),
+    CheckSpec("onset_soa", "Short-circuit onset inside the derated SOA (shortest pulse curve)", "ratio",
+              "common practice", "at_least"),
+    CheckSpec("turnoff_vds", "Turn-off V_DS overshoot within the derated V_DS rating", "V", "common practice",
+              "at_most"),
+    CheckSpec("turnoff_avalanche", "Turn-off energy within the FET's avalanche rating", "J", "physical limit",
+              "at_most"),
 )
 SPECS = {c.id: c for c in CHECKS}
+# the figure holding the junction temperature each check starts from (degC); "ambient": the
+# document's ambient; absent: the check has no starting temperature
+START_TEMPERATURE = {"startup_soa": "pulse_tj_start", "startup_tj": "ambient", "short_circuit_time": "sc_t_start",
+                     "retry_tj": "sc_t_start", "steady_tj": "ambient", "steady_stable": "ambient",
+                     "onset_peak": "sc_t_start", "onset_soa": "sc_t_start"}
 # checks whose value comes from the start-up transient (the worst-case search runs these)
 STARTUP_CHECKS = ("startup_complete", "startup_soa", "startup_tj", "timer_startup", "supply_dip", "supply_current",
                   "fet_pulse_current")
@@ -256,7 +281,46 @@ def evaluate_checks(rail: Rail, rules: dict, fig: dict) -> dict:
     idm = fet.id_pulse_max
     put("fet_pulse_current", fig["i_peak"] if idm is not None else nan, idm if idm else np.nan,
         idm if idm else np.nan)
+    _fault_edge_checks(rail, rules, fig, put, nan)
     return out
+
+
+def _fault_edge_checks(rail: Rail, rules: dict, fig: dict, put, nan) -> None:
+    """Onset peak and SOA, turn-off overshoot and avalanche energy (`faults`)."""
+    fet = rail.fet
+    idm = fet.id_pulse_max
+    if fig["has_onset"] and idm is not None:
+        put("onset_peak", fig["onset_i_peak"], idm, idm)
+    else:
+        put("onset_peak", nan, nan, nan)
+    if fig["has_onset"]:
+        put("onset_soa", fig["onset_soa_ratio"], rules["soa_margin"], 1.0)
+    else:
+        put("onset_soa", nan, nan, nan)
+    v = fig["off_v_peak"]
+    if fig["has_turn_off"]:
+        breakdown = fig["off_by"] == BY_BREAKDOWN
+        graded = _grade("at_most", v, rules["vds_derating"] * fet.vds_max, fet.vds_max)
+        put("turnoff_vds", v, rules["vds_derating"] * fet.vds_max, fet.vds_max,
+            np.where(np.isnan(v), NA, np.where(breakdown, FAIL, graded)))
+    else:
+        put("turnoff_vds", nan, nan, nan)
+    eas = fet.e_avalanche
+    if fig["has_turn_off"] and eas is not None:
+        put("turnoff_avalanche", fig["off_e_fet"], eas, eas)
+    else:
+        put("turnoff_avalanche", nan, nan, nan)
+
+
+def start_temperature_of(cid: str, fig: dict, row: int, t_ambient: float) -> float | None:
+    """The junction temperature check ``cid`` starts from in one row, degC (None: none)."""
+    key = START_TEMPERATURE.get(cid)
+    if key is None:
+        return None
+    if key == "ambient":
+        return float(t_ambient)
+    value = float(np.asarray(fig[key], dtype=float)[row])
+    return value if np.isfinite(value) else None
 
 
 def _supply_dip(rail: Rail, fig: dict, put, nan) -> None:
@@ -366,8 +430,8 @@ def check_detail(cid: str, fig: dict, row: int, rail: Rail, rules: dict) -> str:
         by = "SOA curves" if f["sc_t_soa"] <= f["sc_t_thermal"] else "Foster network"
         tf = "no fault timer" if not np.isfinite(f["t_fault"]) else f"the timer trips by {eng(f['t_fault'], 's')}"
         allow = "indefinitely" if not np.isfinite(f["sc_t_allow"]) else eng(f["sc_t_allow"], "s")
-        return (f"{eng(f['sc_p'], 'W')} ({eng(f['v_s'], 'V')}, {eng(f['sc_i'], 'A')}): the FET survives "
-                f"{allow} ({by}); {tf}.")
+        return (f"{eng(f['sc_p'], 'W')} ({eng(f['v_s'], 'V')}, {eng(f['sc_i'], 'A')}) from "
+                f"{_start_words(f, rail)}: the FET survives {allow} ({by}); {tf}.")
     if cid == "timer_startup":
         if not f["has_timer"]:
             return "No fault timer."
@@ -384,8 +448,13 @@ def check_detail(cid: str, fig: dict, row: int, rail: Rail, rules: dict) -> str:
     if cid == "retry_tj":
         if not f["has_retry"]:
             return "Not in retry mode."
+        t = rail.switch.timer
+        count = ("without end" if t.retries is None else
+                 f"{t.retries} retr{'y' if t.retries == 1 else 'ies'} ({t.retries + 1} pulses, superposed), then "
+                 "latches")
         return (f"Short-circuit pulses of {eng(f['sc_p'], 'W')} for {eng(f['t_fault'], 's')} every "
-                f"{eng(f['t_fault'] + rail.switch.timer.retry_off, 's')} (duty {100 * f['retry_duty']:.3g} %).")
+                f"{eng(f['t_fault'] + t.retry_off, 's')} (duty {100 * f['retry_duty']:.3g} %, cool-down ratio "
+                f"{f['retry_cooldown']:.3g}), {count}; from {_start_words(f, rail)}.")
     if cid in ("steady_tj", "steady_stable"):
         if not f["steady_dc_ok"]:
             return "The load has no DC operating point."
@@ -405,7 +474,80 @@ def check_detail(cid: str, fig: dict, row: int, rail: Rail, rules: dict) -> str:
         if fet.id_pulse_max is None:
             return "No pulsed drain current rating given."
         return f"Inrush peak {eng(f['i_peak'], 'A')} against the rating {eng(fet.id_pulse_max, 'A')}."
+    if cid in ("onset_peak", "onset_soa"):
+        return _onset_words(cid, f, rail, rules)
+    if cid in ("turnoff_vds", "turnoff_avalanche"):
+        return _turn_off_words(cid, f, rail)
     return ""
+
+
+def _start_words(f: dict, rail: Rail) -> str:
+    """The junction temperature a short during operation starts from, in words."""
+    t0 = f["sc_t_start"]
+    if not np.isfinite(t0):
+        return temp(rail.t_ambient)
+    if f["steady_stable"]:
+        return f"{temp(t0)} (the steady state at the operating point)"
+    if f["steady_dc_ok"]:
+        return f"{temp(t0)} (the maximum junction temperature: steady conduction runs away)"
+    return f"{temp(t0)} (the ambient: the load has no operating point)"
+
+
+def _onset_words(cid: str, f: dict, rail: Rail, rules: dict) -> str:
+    sw = rail.switch
+    if not f["has_onset"]:
+        return ("Not evaluated: give the current loop's response time or a fast trip to evaluate the first "
+                "microseconds of a short (without them the current is taken as regulated at once).")
+    if cid == "onset_peak" and rail.fet.id_pulse_max is None:
+        return f"No pulsed drain current rating given (onset peak {eng(f['onset_i_peak'], 'A')})."
+    acted = int(f["onset_acted"])
+    if acted == ACTED_FAST_TRIP:
+        after = ("then retries" if sw.timer is not None and sw.timer.after_fault == "retry" else "and latches")
+        how = (f"the fast trip ({eng(sw.fast_trip, 'A')}, delay {eng(sw.fast_trip_delay, 's')}) turns the switch "
+               f"off {eng(f['onset_t_act'], 's')} after the short, {after}")
+    elif acted == ACTED_LOOP:
+        how = (f"the current loop takes over {eng(f['onset_t_act'], 's')} after the short (response "
+               f"{eng(sw.loop_response, 's')} after the current passes the limit)")
+    else:
+        how = (f"nothing acts during the onset: the current settles at {eng(f['onset_i_final'], 'A')}, bounded by "
+               "the resistances and R_DS(on)")
+    local = (" The input capacitance feeds the short through the FET alone: only R_DS(on) bounds the first "
+             "instant." if rail.supply.c_in is not None else "")
+    text = (f"Onset peak {eng(f['onset_i_peak'], 'A')} (R_DS(on) {eng(f['onset_rds'], 'ohm')} at "
+            f"{_start_words(f, rail)}); {how}.{local}")
+    if cid == "onset_peak":
+        return text + f" Against the rating {eng(rail.fet.id_pulse_max, 'A')}."
+    return (text + f" The onset read at the full supply {eng(f['v_s'], 'V')} and its peak for "
+            f"{eng(f['onset_t_act'], 's')} (conservative: the FET holds the supply only once the loop takes over; "
+            f"shorter than the shortest curve, that curve): the SOA derated to {temp(f['sc_t_start'])} allows "
+            f"{eng(f['onset_soa_allowed'], 'A')}.")
+
+
+_BY_WORDS = {BY_NONE: "no series inductance: no overshoot, the open switch holds the supply",
+             BY_INPUT: "the input capacitance takes the inductor's current; it peaks below the clamp",
+             BY_CLAMP: "the input clamp holds the switch input",
+             BY_BREAKDOWN: "nothing holds the input below the FET's breakdown: the FET avalanches"}
+
+
+def _turn_off_words(cid: str, f: dict, rail: Rail) -> str:
+    if not f["has_turn_off"]:
+        return ("Not evaluated: give the controller's loop response or fast trip, an input clamp (supply.v_clamp) "
+                "or the FET's avalanche rating to evaluate the hard turn-off.")
+    if not np.isfinite(f["off_i"]):
+        return "No hard turn-off: neither a fast trip nor a fault timer turns the switch off during a short."
+    what = "the fast trip" if f["onset_fired"] else "the fault timer"
+    by = int(f["off_by"])
+    text = (f"{what[0].upper() + what[1:]} opens the switch with {eng(f['off_i'], 'A')} in the series inductance "
+            f"(½ L I² = {eng(f['off_e_half'], 'J')}); {_BY_WORDS[by]}: V_DS peaks at {eng(f['off_v_peak'], 'V')}.")
+    if cid == "turnoff_vds":
+        return text + f" Against {eng(rail.fet.vds_max, 'V')} (the V_DS rating)."
+    eas = rail.fet.e_avalanche
+    if by != BY_BREAKDOWN:
+        return text + f" No avalanche: the FET absorbs nothing (rating {eng(eas, 'J')})." if eas else text
+    energy = f"The breakdown absorbs {eng(f['off_e_fet'], 'J')} (with the supply's share)"
+    if eas is None:
+        return text + f" {energy}; no avalanche rating given."
+    return text + f" {energy} against the rating {eng(eas, 'J')}."
 
 
 def _dip_words(f: dict, rail: Rail) -> str:

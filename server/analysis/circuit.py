@@ -51,7 +51,8 @@ class Circuit:
     (degC): the FET.
     t_fault : per row, the regulation time after which the fault timer turns the switch
     off, s (``inf``: no timer acting). after_fault : "latch", "retry" or "none"; retry_off :
-    off time before a retry, s.
+    off time before a retry, s; attempts : the most attempts of a retrying switch (1 + its
+    retries before latching), None: the integrator's own cap.
     c_in : capacitance at the switch input, F (0.0: none). uvlo : the upstream
     undervoltage lockout threshold, V (nan: none).
     """
@@ -79,6 +80,7 @@ class Circuit:
     t_fault: np.ndarray | None = field(default=None, repr=False)
     after_fault: str = "none"
     retry_off: float = math.inf
+    attempts: int | None = None
     c_in: float = 0.0
     uvlo: float = math.nan
 
@@ -233,6 +235,7 @@ def circuit_rows(rail: Rail, *, v_s, c, i_limit=None, t_fault=None) -> Circuit:
         t_fault=np.broadcast_to(np.asarray(t_fault, dtype=float), (n,)).copy(),
         after_fault=timer.after_fault if timer is not None else "none",
         retry_off=timer.retry_off if (timer is not None and timer.retry_off is not None) else math.inf,
+        attempts=(timer.retries + 1) if (timer is not None and timer.retries is not None) else None,
         c_in=rail.supply.c_in or 0.0,
         uvlo=rail.supply.uvlo if rail.supply.uvlo is not None else math.nan,
     )

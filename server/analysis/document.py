@@ -42,7 +42,7 @@ from typing import Any
 
 import numpy as np
 
-from .bounds import (MAX_FOSTER_STAGES, MAX_SOA_CURVES, MAX_SOA_POINTS, NAME_MAX_LENGTH, NUMBER_LARGEST,
+from .bounds import (MAX_FOSTER_STAGES, MAX_RETRIES, MAX_SOA_CURVES, MAX_SOA_POINTS, NAME_MAX_LENGTH, NUMBER_LARGEST,
                      magnitude_problem, text_problem)
 from .errors import DocumentError
 from .rules import DEFAULT_RULES, RULE_RANGES
@@ -103,9 +103,10 @@ DEFAULTS: dict[str, float | str] = {
 # Fields that may be absent or null, with no default: absent means "none" (no UVLO, no timer,
 # the DC curve for a null pulse width, the team's rule).
 OPTIONAL: frozenset[str] = frozenset({
-    "supply.i_max", "supply.uvlo", "supply.uvlo_filter", "supply.c_in",
+    "supply.i_max", "supply.uvlo", "supply.uvlo_filter", "supply.c_in", "supply.v_clamp",
     "switch.dvdt", "switch.i_limit", "switch.p_limit", "switch.timer", "switch.timer.retry_off",
-    "fet.id_pulse_max", "fet.soa.curves[].t_pulse",
+    "switch.timer.retries", "switch.loop_response", "switch.fast_trip", "switch.fast_trip_delay",
+    "fet.id_pulse_max", "fet.e_avalanche", "fet.soa.curves[].t_pulse",
     *(f"rules.{k}" for k in DEFAULT_RULES),
 })
 
@@ -154,7 +155,7 @@ TEMPERATURE = Bound(above=ABSOLUTE_ZERO, note="absolute zero")
 BOUNDS: dict[str, Bound] = {
     "supply.v_min": POSITIVE, "supply.v_nom": POSITIVE, "supply.v_max": POSITIVE,
     "supply.r_source": NON_NEGATIVE, "supply.l_source": NON_NEGATIVE, "supply.i_max": POSITIVE,
-    "supply.uvlo": POSITIVE, "supply.uvlo_filter": NON_NEGATIVE, "supply.c_in": POSITIVE,
+    "supply.uvlo": POSITIVE, "supply.uvlo_filter": NON_NEGATIVE, "supply.c_in": POSITIVE, "supply.v_clamp": POSITIVE,
     "path.r": NON_NEGATIVE, "path.l": NON_NEGATIVE,
     "load.c_nom": POSITIVE, "load.c_tol": TOLERANCE, "load.esr": NON_NEGATIVE, "load.i_nom": NON_NEGATIVE,
     "load.v_on": NON_NEGATIVE,
@@ -163,6 +164,10 @@ BOUNDS: dict[str, Bound] = {
     "switch.timer.c": POSITIVE, "switch.timer.c_tol": TOLERANCE, "switch.timer.i_charge": POSITIVE,
     "switch.timer.i_charge_tol": TOLERANCE, "switch.timer.v_trip": POSITIVE, "switch.timer.v_trip_tol": TOLERANCE,
     "switch.timer.retry_off": POSITIVE,
+    "switch.timer.retries": Bound(minimum=1.0, maximum=float(MAX_RETRIES),
+                                  note=f"a whole number of retries from 1 to {MAX_RETRIES}"),
+    "switch.loop_response": NON_NEGATIVE, "switch.fast_trip": POSITIVE, "switch.fast_trip_delay": NON_NEGATIVE,
+    "fet.e_avalanche": POSITIVE,
     "fet.vds_max": POSITIVE, "fet.id_pulse_max": POSITIVE, "fet.rds_on": POSITIVE, "fet.rds_on_alpha": NON_NEGATIVE,
     "fet.tj_max": TEMPERATURE, "fet.rth_ja": POSITIVE, "fet.zth[].r": POSITIVE, "fet.zth[].tau": POSITIVE,
     "fet.soa.t_case": TEMPERATURE, "fet.soa.curves[].t_pulse": POSITIVE,
@@ -173,12 +178,15 @@ BOUNDS: dict[str, Bound] = {
 # The keys each object of the document may hold.
 FIELD_KEYS: dict[str, tuple[str, ...]] = {
     "": ("schema", "name", "supply", "path", "load", "switch", "fet", "environment", "rules"),
-    "supply": ("v_min", "v_nom", "v_max", "r_source", "l_source", "i_max", "uvlo", "uvlo_filter", "c_in"),
+    "supply": ("v_min", "v_nom", "v_max", "r_source", "l_source", "i_max", "uvlo", "uvlo_filter", "c_in", "v_clamp"),
     "path": ("r", "l"),
     "load": ("c_nom", "c_tol", "esr", "model", "i_nom", "v_on"),
-    "switch": ("mode", "t_on", "dvdt", "i_limit", "i_limit_tol", "p_limit", "timer"),
-    "switch.timer": ("c", "c_tol", "i_charge", "i_charge_tol", "v_trip", "v_trip_tol", "after_fault", "retry_off"),
-    "fet": ("name", "vds_max", "id_pulse_max", "rds_on", "rds_on_alpha", "tj_max", "rth_ja", "zth", "soa"),
+    "switch": ("mode", "t_on", "dvdt", "i_limit", "i_limit_tol", "p_limit", "timer", "loop_response", "fast_trip",
+               "fast_trip_delay"),
+    "switch.timer": ("c", "c_tol", "i_charge", "i_charge_tol", "v_trip", "v_trip_tol", "after_fault", "retry_off",
+                     "retries"),
+    "fet": ("name", "vds_max", "id_pulse_max", "rds_on", "rds_on_alpha", "tj_max", "rth_ja", "zth", "soa",
+            "e_avalanche"),
     "fet.zth[]": ("r", "tau"),
     "fet.soa": ("t_case", "curves"),
     "fet.soa.curves[]": ("t_pulse", "points"),
@@ -198,6 +206,7 @@ class Supply:
     uvlo: float | None
     uvlo_filter: float | None = None  # s: the upstream UVLO's deglitch time (datasheet); None: raw dip
     c_in: float | None = None  # F: capacitance at the switch input; None: none modelled
+    v_clamp: float | None = None  # V: clamp (TVS) at the switch input limiting a turn-off overshoot; None: none
 
 
 @dataclass(frozen=True)
@@ -226,6 +235,7 @@ class Timer:
     v_trip_tol: float
     after_fault: str
     retry_off: float | None
+    retries: int | None = None  # retries before latching; None: endless
 
 
 @dataclass(frozen=True)
@@ -237,6 +247,9 @@ class Switch:
     i_limit_tol: float
     p_limit: float | None
     timer: Timer | None
+    loop_response: float | None = None  # s: the current loop's response time; None: not given
+    fast_trip: float | None = None  # A: fast-trip comparator threshold; None: no fast trip
+    fast_trip_delay: float | None = None  # s: delay of the fast trip (required with it)
 
 
 @dataclass(frozen=True)
@@ -257,6 +270,7 @@ class Fet:
     zth: tuple[tuple[float, float], ...]  # (r K/W, tau s)
     t_case: float
     curves: tuple[SoaCurve, ...]  # finite pulses by increasing t_pulse, DC last
+    e_avalanche: float | None = None  # J: single-pulse avalanche energy rating; None: not given
 
 
 @dataclass(frozen=True)
@@ -430,6 +444,10 @@ def _read_timer(r: _Reader, sec: dict) -> Timer | None:
     retry_off = r.number(t, "retry_off", w)
     if after == "retry" and t.get("retry_off") is None:
         r.fail("switch.timer.retry_off", "is required when the timer retries after a fault")
+    retries = r.number(t, "retries", w)
+    if retries is not None and retries != math.floor(retries):
+        r.fail("switch.timer.retries", f"must be a whole number of retries (got {retries:g})")
+        retries = None
     return Timer(
         c=r.number(t, "c", w),
         c_tol=r.number(t, "c_tol", w),
@@ -439,6 +457,7 @@ def _read_timer(r: _Reader, sec: dict) -> Timer | None:
         v_trip_tol=r.number(t, "v_trip_tol", w),
         after_fault=after,
         retry_off=retry_off,
+        retries=int(retries) if retries is not None else None,
     )
 
 
@@ -452,7 +471,11 @@ def _read_switch(r: _Reader, doc: dict) -> Switch | None:
         return None
     w = "switch"
     mode = r.choice(sec, "mode", w, SWITCH_MODES)
-    values = {key: r.number(sec, key, w) for key in ("t_on", "dvdt", "i_limit", "i_limit_tol", "p_limit")}
+    values = {key: r.number(sec, key, w) for key in ("t_on", "dvdt", "i_limit", "i_limit_tol", "p_limit",
+                                                       "loop_response", "fast_trip", "fast_trip_delay")}
+    if values["fast_trip"] is not None and sec.get("fast_trip_delay") is None:
+        r.fail("switch.fast_trip_delay", "is required with a fast-trip threshold (the comparator's delay from "
+                                         "its datasheet)")
     for key in _MODE_NEEDS.get(mode, ()):
         if sec.get(key) is None:  # absent; a bad value is reported already
             r.fail(f"switch.{key}", f"is required in {mode.replace('_', ' ')} mode")
@@ -590,7 +613,8 @@ def _read_fet_section(r: _Reader, doc: dict, t_ambient: float | None) -> Fet | N
     tj_max = r.number(sec, "tj_max", w)
     if tj_max is not None and t_ambient is not None and tj_max <= t_ambient:
         r.fail("fet.tj_max", f"must be above the worst-case high ambient temperature ({quantity(t_ambient, 'degC')})")
-    values = {key: r.number(sec, key, w) for key in ("vds_max", "id_pulse_max", "rds_on", "rds_on_alpha", "rth_ja")}
+    values = {key: r.number(sec, key, w) for key in ("vds_max", "id_pulse_max", "rds_on", "rds_on_alpha", "rth_ja",
+                                                       "e_avalanche")}
     zth = _read_zth(r, sec)
     soa = r.obj(sec, "soa", w)
     t_case = curves = None

@@ -30,15 +30,18 @@ from typing import Any, Callable
 
 import numpy as np
 
-from .checks import CHECKS, NA, SEVERITY, SPECS, VERDICTS, check_detail, edge_margin, worst_verdict
+from .checks import (CHECKS, NA, SEVERITY, SPECS, VERDICTS, check_detail, edge_margin, start_temperature_of,
+                     worst_verdict)
 from .circuit import NO_LIMIT
 from .document import Rail, read_rail
 from .evaluation import RowParams, evaluate_rows, nominal_point
+from .faults import ACTED_FAST_TRIP, ACTED_LOOP, BY_BREAKDOWN, BY_CLAMP, BY_INPUT, start_temperature
 from .headroom import basis_rows, capacitance_headroom, limit_headroom
 from .montecarlo import distributions_for, run_monte_carlo
 from .soa import CONVENTION as SOA_CONVENTION
 from .startup import (STATUS_NO_CONVERGENCE, STATUS_OK, STATUS_RETRIED, STATUS_RETRY_EXHAUSTED, STATUS_RUNAWAY,
                       STATUS_STALLED, STATUS_TRIPPED, StartupFigures)
+from .steady import steady_state
 from .timer import fault_times, timer_window
 from .units import eng
 from .waveform import decimate
@@ -46,7 +49,7 @@ from .worstcase import TIE, WorstCase, find_worst_case
 
 __all__ = ["ENGINE_VERSION", "CAUTION", "BASIS_WORST", "BASIS_NOMINAL", "FIGURES", "analyze_rail"]
 
-ENGINE_VERSION = "2.0.0"
+ENGINE_VERSION = "2.1.0"
 CAUTION = ("railsign computes design margins; it does not certify hardware. Verify on hardware, treat "
            "stored energy and high currents with care, and follow the applicable codes and licensed practice.")
 BASIS_WORST = "worst case"
@@ -69,12 +72,15 @@ STATUS_TEXT = {STATUS_OK: "The start-up completes.",
 
 # the parameters each check depends on (its worst case is named by these)
 _V, _STARTUP, _FAULT = {"v_s"}, {"v_s", "c", "i_limit"}, {"v_s", "i_limit", "timer"}
+_ONSET = {"v_s", "i_limit"}
 CHECK_PARAMETERS = {"startup_complete": _STARTUP, "vds_derating": _V, "startup_soa": _STARTUP,
                     "startup_tj": _STARTUP, "short_circuit_time": _FAULT, "timer_startup": _STARTUP | {"timer"},
                     "retry_tj": _FAULT, "steady_tj": _V, "steady_stable": _V, "supply_dip": _STARTUP,
-                    "supply_current": _STARTUP, "fet_pulse_current": _STARTUP}
+                    "supply_current": _STARTUP, "fet_pulse_current": _STARTUP, "onset_peak": _ONSET,
+                    "onset_soa": _ONSET, "turnoff_vds": _FAULT, "turnoff_avalanche": _FAULT}
 FIGURE_PARAMETERS = {"sc_p": _FAULT, "sc_t_allow": _FAULT, "retry_tj_peak": _FAULT, "steady_p_fet": _V,
-                     "steady_tj": _V, "steady_v_drop": _V}
+                     "steady_tj": _V, "steady_v_drop": _V, "onset_i_peak": _ONSET, "off_v_peak": _FAULT,
+                     "off_e_fet": _FAULT}
 
 
 def _keys(base: set, wc: "WorstCase", row: int) -> set:
@@ -98,6 +104,9 @@ FIGURES: tuple[tuple[str, str, str, str, str], ...] = (
     ("steady_p_fet", "Steady conduction: FET power", "W", "steady_p_fet", "max"),
     ("steady_tj", "Steady conduction: junction temperature", "degC", "steady_tj", "max"),
     ("steady_v_drop", "Steady conduction: voltage drop", "V", "steady_v_drop", "max"),
+    ("onset_i_peak", "Short-circuit onset: peak FET current", "A", "onset_i_peak", "max"),
+    ("off_v_peak", "Turn-off: peak V_DS", "V", "off_v_peak", "max"),
+    ("off_e_fet", "Turn-off: avalanche energy in the FET", "J", "off_e_fet", "max"),
 )
 
 
@@ -177,6 +186,7 @@ def _check_records(rail: Rail, rules: dict, nominal: tuple[dict, dict], wc: Wors
             "found_by": found if applies else None,
             "point": _point(params, row) if (applies and params is not None) else None,
             "detail": check_detail(spec.id, fig, row, rail, rules),
+            "t_start": start_temperature_of(spec.id, fig, row, rail.t_ambient) if applies else None,
         })
     return out
 
@@ -252,12 +262,40 @@ def _short_circuit_point(fig: dict, row: int) -> dict:
         by = "soa" if g("sc_t_soa") <= g("sc_t_thermal") else "thermal"
     return {"v_ds": g("sc_v_ds"), "i": g("sc_i"), "p": g("sc_p"), "t_soa": g("sc_t_soa"),
             "t_thermal": g("sc_t_thermal"), "t_allow": g("sc_t_allow"), "t_fault": _num(g("t_fault")),
-            "margin": g("sc_margin"), "limited_by": by, "survives_indefinitely": not math.isfinite(g("sc_t_allow"))}
+            "margin": g("sc_margin"), "limited_by": by, "survives_indefinitely": not math.isfinite(g("sc_t_allow")),
+            "t_start": g("sc_t_start"), "onset": _onset_point(fig, row), "turn_off": _turn_off_point(fig, row)}
+
+
+_ACTED_WORDS = {ACTED_LOOP: "loop", ACTED_FAST_TRIP: "fast_trip"}
+_BY_KEYS = {BY_INPUT: "input_capacitance", BY_CLAMP: "input_clamp", BY_BREAKDOWN: "breakdown"}
+
+
+def _onset_point(fig: dict, row: int) -> dict | None:
+    """The onset of the short (`faults.onset`) at one row, or None where the rail does not describe it."""
+    if not fig["has_onset"]:
+        return None
+    g = lambda k: fig["onset_" + k][row]  # noqa: E731
+    return {"i_peak": g("i_peak"), "t_act": g("t_act"), "acted_by": _ACTED_WORDS.get(int(g("acted"))),
+            "fast_trip_fired": bool(g("fired")), "e_fet": g("e"), "i_final": g("i_final"), "rds_on": g("rds"),
+            "soa_allowed": g("soa_allowed"), "soa_ratio": g("soa_ratio"), "t_start": fig["sc_t_start"][row]}
+
+
+def _turn_off_point(fig: dict, row: int) -> dict | None:
+    """The hard turn-off (`faults.turn_off`) at one row, or None where the rail does not describe it."""
+    if not fig["has_turn_off"] or not math.isfinite(fig["off_i"][row]):
+        return None
+    g = lambda k: fig["off_" + k][row]  # noqa: E731
+    return {"event": "fast_trip" if bool(fig["onset_fired"][row]) else "fault_timer", "i": g("i"),
+            "v_peak": g("v_peak"), "clamped_by": _BY_KEYS.get(int(g("by"))), "v_clamp": g("v_c"),
+            "e_half_li2": g("e_half"), "e_clamp": g("e_clamp"), "e_fet": g("e_fet")}
 
 
 def _short_circuit_section(fig_n: dict, wc: WorstCase | None) -> dict:
     """The output short circuit at the nominal point, and at the short-circuit check's worst case."""
     if not fig_n["has_limit"]:
+        if fig_n["has_onset"]:  # no limit, but a fast trip: the onset alone
+            out = {"applies": False, "onset": _onset_point(fig_n, 0), "turn_off": _turn_off_point(fig_n, 0)}
+            return out
         return {"applies": False}
     out = {"applies": True, **_short_circuit_point(fig_n, 0), "worst": None}
     if wc is not None:
@@ -302,8 +340,11 @@ def _retry_section(rail: Rail, fig: dict) -> dict | None:
     if not fig["has_retry"]:
         return None
     g = lambda k: fig[k][0]  # noqa: E731
+    t = rail.switch.timer
     return {"duty": g("retry_duty"), "p_avg": g("retry_p_avg"), "tj_peak": g("retry_tj_peak"),
-            "tj_valley": g("retry_tj_valley"), "period": g("t_fault") + rail.switch.timer.retry_off}
+            "tj_valley": g("retry_tj_valley"), "period": g("t_fault") + t.retry_off,
+            "cooldown_ratio": g("retry_cooldown"), "retries": t.retries,
+            "pulses": None if t.retries is None else t.retries + 1, "t_start": g("sc_t_start")}
 
 
 def _steady_section(fig: dict) -> dict:
@@ -325,8 +366,13 @@ def _headroom(rail: Rail, rules: dict, nominal: tuple[dict, dict], wc: WorstCase
         base, owner, start = basis_rows(wc.params, wc.checks, wc.worst)
     c = capacitance_headroom(rail, rules, base, owner, start, fig_n)
     v_sc = rail.supply.v_max
-    lim = limit_headroom(rail, rules, v_sc=v_sc, t_fault=t_fault_max)
+    lim = limit_headroom(rail, rules, v_sc=v_sc, t_fault=t_fault_max, t_start=_start_at(rail, v_sc))
     return {"c_max": _c_record(rail, c), "limit_max": _limit_record(rail, lim)}
+
+
+def _start_at(rail: Rail, v_s: float) -> float:
+    """The junction temperature a short starts from at supply v_s (the steady state there)."""
+    return float(start_temperature(rail, steady_state(rail, v_s=np.array([v_s])))[0])
 
 
 def nominal_point_of(fig: dict) -> RowParams:

@@ -16,8 +16,9 @@ row is computed at that point: the start-up at supply v_s into load capacitance 
 current limit i_lim and the fault timer tripping after t_fault of regulation; the output
 short circuit at V_ds = v_s (DESIGN.md section 4: the supply across the FET, the drop in
 the source and path resistance not subtracted, conservatively) with the current limit
-i_lim, cleared after t_fault; the retry pulse train of that short circuit; and steady
-conduction at v_s. The nominal row is the nominal point; the worst cases come from the
+i_lim, cleared after t_fault, starting from the steady junction temperature at v_s; the
+onset of that short and the hard turn-off that ends it (`faults`); the retry pulse train
+of that short circuit; and steady conduction at v_s. The nominal row is the nominal point; the worst cases come from the
 corners and the worst-case search (`worstcase`).
 """
 
@@ -30,6 +31,7 @@ import numpy as np
 from .checks import evaluate_checks
 from .circuit import NO_LIMIT, circuit_rows
 from .document import Rail
+from .faults import onset, onset_applies, start_temperature, turn_off, turn_off_applies
 from .retry import retry_figures
 from .shortcircuit import has_limit, short_circuit
 from .soa import allowed_current, equivalent_rectangle
@@ -131,6 +133,42 @@ def _soa_pulses(rail: Rail, st: StartupFigures) -> dict:
             "pulse_i": pick(i), "pulse_tj_start": pick(tj0)}
 
 
+_ONSET_KEYS = ("i_peak", "t_act", "acted", "fired", "i_off", "v_in_off", "e", "i_final", "rds", "soa_allowed",
+               "soa_ratio")
+_TURN_OFF_KEYS = ("v_peak", "by", "e_clamp", "e_fet", "e_half", "v_c", "i")
+
+
+def _fault_edges(rail: Rail, params: RowParams, st: dict, t_start: np.ndarray, sc: dict, has_limit: bool,
+                 startup_only: bool) -> dict:
+    """The onset of a short during operation and the hard turn-off that ends it, per row
+    (`faults`): ``onset_*`` and ``off_*`` figures, NaN where the rail does not describe them.
+
+    The turn-off current is the path current when the fast trip acts, else (a fault timer
+    and a current limit) the regulated short-circuit current when the timer trips; a row
+    with neither has no hard turn-off."""
+    n = params.n
+    nan = np.full(n, np.nan)
+    out = {"has_onset": onset_applies(rail) and not startup_only,
+           "has_turn_off": turn_off_applies(rail) and not startup_only}
+    if out["has_onset"]:
+        on = onset(rail, v_s=params.v_s, i_lim=params.i_lim, i_load=st["i"], tj_start=t_start)
+    else:
+        on = {k: nan for k in _ONSET_KEYS}
+        on["fired"] = np.zeros(n, bool)
+        on["acted"] = np.zeros(n, int)
+    out.update({"onset_" + k: v for k, v in on.items()})
+    if out["has_turn_off"]:
+        timed = has_limit and rail.switch.timer is not None
+        i_off = np.where(on["fired"], on["i_off"], sc["i"] if timed else np.nan)
+        off = turn_off(rail, v_s=params.v_s, i_off=i_off, v_in0=np.where(on["fired"], on["v_in_off"], np.nan))
+        off["i"] = i_off
+    else:
+        off = {k: nan for k in _TURN_OFF_KEYS}
+        off["by"] = np.zeros(n, int)
+    out.update({"off_" + k: v for k, v in off.items()})
+    return out
+
+
 def evaluate_rows(rail: Rail, rules: dict, params: RowParams, *, startup: StartupFigures | None = None,
                   record: int | None = None, startup_only: bool = False,
                   max_steps: int = MAX_STEPS) -> tuple[dict, dict, StartupFigures]:
@@ -177,13 +215,23 @@ def evaluate_rows(rail: Rail, rules: dict, params: RowParams, *, startup: Startu
     fig["dip_unbounded"] = np.asarray(getattr(startup, "dip_unbounded", np.zeros(n, bool)), dtype=bool)
     fig.update(_soa_pulses(rail, startup))
 
+    # steady conduction: the operating point a short during operation starts from
+    nan = np.full(n, np.nan)
+    if startup_only:
+        st = {"i": nan, "p_fet": nan, "tj": nan, "v_drop": nan, "stable": np.zeros(n, bool),
+              "dc_ok": np.zeros(n, bool)}
+    else:
+        st = steady_state(rail, v_s=params.v_s)
+    for k, v in st.items():
+        fig["steady_" + k] = v
+    t_start = start_temperature(rail, st) if not startup_only else np.full(n, float(t_amb))
+
     # short circuit at the row's supply, limit and trip time
     fig["has_limit"] = has_limit(rail) and not startup_only
     if fig["has_limit"]:
-        sc = short_circuit(rail, v_ds=params.v_s, i_limit=params.i_lim, t_fault=params.t_fault)
+        sc = short_circuit(rail, v_ds=params.v_s, i_limit=params.i_lim, t_fault=params.t_fault, t_start=t_start)
     else:
-        nan = np.full(n, np.nan)
-        sc = {k: nan for k in ("v_ds", "i", "p", "t_soa", "t_thermal", "t_allow", "margin")}
+        sc = {k: nan for k in ("v_ds", "i", "p", "t_soa", "t_thermal", "t_allow", "margin", "t_start")}
     for k, v in sc.items():
         fig["sc_" + k] = v
 
@@ -195,26 +243,19 @@ def evaluate_rows(rail: Rail, rules: dict, params: RowParams, *, startup: Startu
         sm = np.where(t_need > 0, params.t_fault / t_need, np.inf)
     fig["startup_margin"] = np.where(np.isfinite(t_need), sm, np.nan) if timer is not None else np.full(n, np.nan)
 
+    fig.update(_fault_edges(rail, params, st, t_start, sc, fig["has_limit"], startup_only))
+
     # retry
     fig["has_retry"] = bool(timer is not None and timer.after_fault == "retry" and fig["has_limit"])
     if fig["has_retry"]:
         r, tau = foster_arrays(rail.fet.zth)
-        rt = retry_figures(r, tau, p=sc["p"], t_on=params.t_fault, t_off=timer.retry_off, t_ambient=t_amb)
+        pulses = None if timer.retries is None else 1 + timer.retries
+        rt = retry_figures(r, tau, p=sc["p"], t_on=params.t_fault, t_off=timer.retry_off, t_ambient=t_start,
+                           pulses=pulses)
     else:
-        nan = np.full(n, np.nan)
-        rt = {"duty": nan, "p_avg": nan, "tj_peak": nan, "tj_valley": nan}
+        rt = {"duty": nan, "p_avg": nan, "cooldown": nan, "tj_peak": nan, "tj_valley": nan}
     for k, v in rt.items():
         fig["retry_" + k] = v
-
-    # steady conduction
-    if startup_only:
-        nan = np.full(n, np.nan)
-        st = {"i": nan, "p_fet": nan, "tj": nan, "v_drop": nan, "stable": np.zeros(n, bool),
-              "dc_ok": np.zeros(n, bool)}
-    else:
-        st = steady_state(rail, v_s=params.v_s)
-    for k, v in st.items():
-        fig["steady_" + k] = v
 
     fig["complete"] = startup.status == STATUS_OK
     checks = evaluate_checks(rail, rules, fig)

@@ -401,7 +401,7 @@ class _CSearch:
             self.trial(x)
 
 
-def limit_headroom(rail: Rail, rules: dict, *, v_sc: float, t_fault: float) -> dict:
+def limit_headroom(rail: Rail, rules: dict, *, v_sc: float, t_fault: float, t_start: float | None = None) -> dict:
     """Highest current limit (or power limit) whose short circuit passes the team's fault_margin.
 
     Parameters
@@ -412,6 +412,8 @@ def limit_headroom(rail: Rail, rules: dict, *, v_sc: float, t_fault: float) -> d
         Voltage across the FET during the short circuit, V (v_max).
     t_fault : float
         Longest fault time, s (``inf`` without a timer).
+    t_start : float, optional
+        Junction temperature the short starts from, degC (default: the ambient).
 
     Returns
     -------
@@ -435,24 +437,26 @@ def limit_headroom(rail: Rail, rules: dict, *, v_sc: float, t_fault: float) -> d
     fet = rail.fet
     # the largest short-circuit current the FET survives for fault_margin * t_fault
     t_need = need * t_fault
-    i_soa = float(allowed_current(fet, np.array([v_sc]), np.array([t_need]), rail.t_ambient)[0])
+    t0 = rail.t_ambient if t_start is None else t_start
+    i_soa = float(allowed_current(fet, np.array([v_sc]), np.array([t_need]), t0)[0])
     r, _ = foster_arrays(fet.zth)
     z = float(r.sum()) if math.isinf(t_need) else float(zth(fet.zth, t_need))
-    i_sc = min(i_soa, (fet.tj_max - rail.t_ambient) / (z * v_sc))
+    i_sc = min(i_soa, (fet.tj_max - t0) / (z * v_sc))
     if sw.mode == "power_limit" and sw.p_limit is not None and sw.p_limit / v_sc < sw.i_limit * up:
-        return _power_headroom(rail, need, v_sc, t_fault, i_sc)
+        return _power_headroom(rail, need, v_sc, t_fault, i_sc, t_start)
 
     def passes(i_nom):
         i_nom = np.asarray(i_nom, dtype=float)
         sc = short_circuit(replace(rail, switch=replace(sw, p_limit=None)), v_ds=np.full(i_nom.shape, v_sc),
-                           i_limit=i_nom * up, t_fault=np.full(i_nom.shape, t_fault))
+                           i_limit=i_nom * up, t_fault=np.full(i_nom.shape, t_fault), t_start=t_start)
         return sc["margin"] >= need
 
     found = _highest_passing(passes, i_sc / up, sw.i_limit)
     return {"kind": "current", "present": sw.i_limit, **found}
 
 
-def _power_headroom(rail: Rail, need: float, v_sc: float, t_fault: float, i_sc: float) -> dict:
+def _power_headroom(rail: Rail, need: float, v_sc: float, t_fault: float, i_sc: float,
+                    t_start: float | None = None) -> dict:
     """The power limit's headroom where the power limit sets the short-circuit current."""
     sw = rail.switch
     i_hi = sw.i_limit * (1.0 + sw.i_limit_tol)
@@ -462,7 +466,7 @@ def _power_headroom(rail: Rail, need: float, v_sc: float, t_fault: float, i_sc: 
         out = np.empty(p.shape, bool)
         for k, pk in enumerate(p):
             sc = short_circuit(replace(rail, switch=replace(sw, p_limit=float(pk))), v_ds=np.array([v_sc]),
-                               i_limit=np.array([i_hi]), t_fault=np.array([t_fault]))
+                               i_limit=np.array([i_hi]), t_fault=np.array([t_fault]), t_start=t_start)
             out[k] = sc["margin"][0] >= need
         return out
 

@@ -87,7 +87,7 @@ to the dip: settled when its energy is within the stop band, or after two period
 above the UVLO threshold) and a quarter of the attempt's length of the output's decay is in
 the waveform. "retry": off for retry_off,
 then a new attempt (the turn-on ramp restarts, the regulation count resets), up to
-RETRY_ATTEMPTS attempts. While the switch is off a started load stops drawing when v_out
+RETRY_ATTEMPTS attempts, or 1 + the timer's retries before latching where fewer. While the switch is off a started load stops drawing when v_out
 falls to v_on (its own undervoltage lockout) and no load draws at v_out <= 0; while it is
 on a started load keeps drawing (the hysteresis of that lockout).
 
@@ -251,6 +251,8 @@ class _Model:
         self.timer = timer
         self.retry = cz.after_fault == "retry"
         self.retry_off = float(cz.retry_off)
+        # attempts before the switch latches: 1 + its retries, never more than the run's cap
+        self.attempts = RETRY_ATTEMPTS if cz.attempts is None else min(int(cz.attempts), RETRY_ATTEMPTS)
         self.t_fault = pick(cz.t_fault) if timer else None
         self.th_span = float(cz.tj_max - cz.t_amb)
         self.tj_runaway = float(cz.tj_max + TJ_RUNAWAY_K)
@@ -1255,7 +1257,7 @@ def _switch_row(model: _Model, state, trip: bool, final: dict, wave, recording: 
         state.t_off = state.t
         if state.t_trip != state.t_trip:  # NaN: the first trip
             state.t_trip = state.t
-        if model.retry and state.attempt < RETRY_ATTEMPTS:
+        if model.retry and state.attempt < model.attempts:
             state.t_restart = state.t + model.retry_off
         else:
             state.latched = True
@@ -1285,7 +1287,7 @@ def _switch_rows(model: _Model, state, idx: np.ndarray, trip: bool, final: dict)
         state.t_off[idx] = state.t[idx]
         first = np.isnan(state.t_trip[idx])
         state.t_trip[idx[first]] = state.t[idx[first]]
-        again = model.retry & (state.attempt[idx] < RETRY_ATTEMPTS)
+        again = model.retry & (state.attempt[idx] < model.attempts)
         state.t_restart[idx] = np.where(again, state.t[idx] + model.retry_off, np.inf)
         state.latched[idx] = ~again
     else:

@@ -2,8 +2,9 @@
 
 Provides
 --------
-short_circuit(rail, *, v_ds, i_limit, t_fault)
-    V_ds, I, P, t_soa, t_thermal, t_allow and margin for rows of (v_ds, i_limit, t_fault).
+short_circuit(rail, *, v_ds, i_limit, t_fault, t_start=None)
+    V_ds, I, P, t_soa, t_thermal, t_allow and margin for rows of (v_ds, i_limit, t_fault),
+    the junction starting at t_start.
 has_limit(rail)
     Whether the switch limits a short-circuit current at all.
 
@@ -15,8 +16,14 @@ subtracted), I = i_limit at its high tolerance (power limit: I = min(i_limit, p_
 V_ds), so P = p_limit while the power limit binds). Two independent limits: the derated
 SOA curves (`soa.soa_allowed_time`, measured curves include the hot-spot instability at
 high V_ds that a thermal model misses) and the Foster network (`thermal.time_to_rise`,
-time for Zth(t) P to reach tj_max - t_ambient). t_allow is the smaller one and
+time for Zth(t) P to reach tj_max - t_start). t_allow is the smaller one and
 margin = t_allow / t_fault_max.
+
+A short during operation starts from the junction temperature of the operating point
+(t_start: the steady state's, `faults.start_temperature`): the SOA is derated from it and
+the Foster rise P Zth(t) adds to it (superposition on the steady state; conservative, as
+the conduction loss it replaces is not subtracted). Without t_start the ambient is taken.
+The regulated current comes from `faults.regulated_current` (where a foldback curve enters).
 """
 
 from __future__ import annotations
@@ -25,6 +32,7 @@ import numpy as np
 
 from .circuit import NO_LIMIT
 from .document import Rail
+from .faults import regulated_current
 from .soa import soa_allowed_time
 from .thermal import foster_arrays, time_to_rise
 
@@ -36,7 +44,7 @@ def has_limit(rail: Rail) -> bool:
     return rail.switch.i_limit is not None
 
 
-def short_circuit(rail: Rail, *, v_ds, i_limit, t_fault) -> dict:
+def short_circuit(rail: Rail, *, v_ds, i_limit, t_fault, t_start=None) -> dict:
     """Short-circuit figures for rows of operating conditions.
 
     Parameters
@@ -48,26 +56,32 @@ def short_circuit(rail: Rail, *, v_ds, i_limit, t_fault) -> dict:
         Current limit, A (normally at its high tolerance).
     t_fault : ndarray, shape (n,)
         Time until the fault timer turns the FET off, s (``inf`` without a timer).
+    t_start : ndarray, shape (n,), optional
+        Junction temperature at the start of the short, degC (default: the ambient).
 
     Returns
     -------
     dict of ndarray
         ``v_ds`` (V), ``i`` (A), ``p`` (W), ``t_soa``, ``t_thermal``, ``t_allow`` (s,
         ``inf`` = indefinitely), ``margin`` (t_allow / t_fault; ``inf`` when the FET
-        survives indefinitely, 0 when it does not and nothing turns it off).
+        survives indefinitely, 0 when it does not and nothing turns it off), ``t_start``
+        (degC).
     """
     v = np.atleast_1d(np.asarray(v_ds, dtype=float))
-    i = np.broadcast_to(np.asarray(i_limit, dtype=float), v.shape).copy()
-    if rail.switch.mode == "power_limit" and rail.switch.p_limit is not None:
-        i = np.minimum(i, rail.switch.p_limit / v)
-    i = np.minimum(i, NO_LIMIT)
+    i = np.minimum(regulated_current(rail, v, i_limit), NO_LIMIT)
     p = v * i
     fet = rail.fet
-    t_soa = soa_allowed_time(fet, v, i, rail.t_ambient)
+    if t_start is None:
+        t0 = np.full(v.shape, float(rail.t_ambient))
+        t_soa = soa_allowed_time(fet, v, i, rail.t_ambient)
+    else:
+        t0 = np.broadcast_to(np.asarray(t_start, dtype=float), v.shape).copy()
+        t_soa = soa_allowed_time(fet, v, i, t0)
     r, tau = foster_arrays(fet.zth)
-    t_th = time_to_rise(r, tau, p, fet.tj_max - rail.t_ambient)
+    t_th = time_to_rise(r, tau, p, fet.tj_max - t0)
     t_allow = np.minimum(t_soa, t_th)
     tf = np.broadcast_to(np.asarray(t_fault, dtype=float), v.shape)
     with np.errstate(invalid="ignore", divide="ignore"):
         margin = np.where(np.isinf(t_allow), np.inf, np.where(np.isinf(tf), 0.0, t_allow / tf))
-    return {"v_ds": v, "i": i, "p": p, "t_soa": t_soa, "t_thermal": t_th, "t_allow": t_allow, "margin": margin}
+    return {"v_ds": v, "i": i, "p": p, "t_soa": t_soa, "t_thermal": t_th, "t_allow": t_allow, "margin": margin,
+            "t_start": t0}

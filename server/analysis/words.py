@@ -60,6 +60,9 @@ FIELD_TITLES: dict[str, FieldWords] = {
                             "compared"),
     "supply.c_in": W("Input capacitance at the switch", "F",
                      "capacitance at the switch input, which bounds the dip; blank: none"),
+    "supply.v_clamp": W("Input clamp (TVS) voltage", "V",
+                        "clamp at the switch input that limits the overshoot when the switch turns off hard; "
+                        "blank: none, the FET's breakdown takes it"),
     # path
     "path": W("Path (traces, connector, sense resistor)"),
     "path.r": W("Path resistance", "ohm", "traces, connector and sense resistor between supply and switch"),
@@ -80,6 +83,12 @@ FIELD_TITLES: dict[str, FieldWords] = {
     "switch.i_limit": W("Current limit", "A", "current limit and power limit modes"),
     "switch.i_limit_tol": W("Current limit tolerance", "fraction", "e.g. 10 % or 0.1"),
     "switch.p_limit": W("Power limit", "W", "power limit mode: the FET power held during the start"),
+    "switch.loop_response": W("Current loop response time", "s",
+                              "time from the current passing the limit to the loop regulating it; blank: not "
+                              "given, the onset of a short is not evaluated"),
+    "switch.fast_trip": W("Fast-trip threshold", "A",
+                          "current at which the fast-trip comparator turns the switch off; blank: no fast trip"),
+    "switch.fast_trip_delay": W("Fast-trip delay", "s", "comparator delay from the datasheet; needed with a fast trip"),
     "switch.timer": W("Fault timer", None, "blank: no fault timer"),
     "switch.timer.c": W("Timer capacitor", "F", "the capacitor the timer charges"),
     "switch.timer.c_tol": W("Timer capacitor tolerance", "fraction", "e.g. 10 % or 0.1"),
@@ -89,11 +98,15 @@ FIELD_TITLES: dict[str, FieldWords] = {
     "switch.timer.v_trip_tol": W("Timer trip voltage tolerance", "fraction", "e.g. 5 % or 0.05"),
     "switch.timer.after_fault": W("After a fault", None, "latch off, or retry after the off time"),
     "switch.timer.retry_off": W("Off time between retries", "s", "needed when the timer retries"),
+    "switch.timer.retries": W("Retries before latching", "ratio",
+                              "a whole number; blank: retries without end"),
     # MOSFET
     "fet": W("MOSFET"),
     "fet.name": W("MOSFET name", None, "an invented or in-house name of the part"),
     "fet.vds_max": W("MOSFET drain-source voltage rating", "V", "V_DS(max) from the datasheet"),
     "fet.id_pulse_max": W("MOSFET pulsed drain current rating", "A", "blank: not checked"),
+    "fet.e_avalanche": W("MOSFET single-pulse avalanche energy rating", "J",
+                         "E_AS from the datasheet; blank: not checked"),
     "fet.rds_on": W("MOSFET R_DS(on) at T_j 25 \u00b0C", "ohm",
                     "on-resistance at a junction temperature of 25 \u00b0C"),
     "fet.rds_on_alpha": W("R_DS(on) temperature coefficient", "1/K", "linear rise of R_DS(on) with T_j, e.g. 0.5 %/K"),
