@@ -17,7 +17,7 @@ from pathlib import Path
 
 import numpy as np
 
-__all__ = ["NGSPICE", "ngspice_missing_message", "simulate_ngspice", "longest_time_below"]
+__all__ = ["NGSPICE", "ngspice_missing_message", "simulate_ngspice", "simulate_turn_off", "longest_time_below"]
 
 NGSPICE = shutil.which("ngspice")
 
@@ -143,3 +143,56 @@ def longest_time_below(t: np.ndarray, v: np.ndarray, level: float) -> float:
     if start is not None:
         best = max(best, t[-1] - start)
     return best
+
+
+def _turn_off_netlist(*, v, r, l, i0, v_in0, c_in, v_clamp, t_stop, t_max, out_file) -> str:
+    """The switch opening with current i0 in the series inductance: the supply behind r and l
+    into the switch input, which holds the input capacitance (optional, at v_in0) and a clamp
+    to v_clamp (a steep diode in series with a DC source: the TVS, or the FET's breakdown with
+    the output shorted). The switch itself is open from t = 0."""
+    lines = ["* railsign turn-off circuit", f"V1 vs 0 DC {_n(v)}"]
+    node = "vs"
+    if r > 0:
+        lines.append(f"R1 vs n1 {_n(r)}")
+        node = "n1"
+    lines.append(f"L1 {node} sw {_n(l)} IC={_n(i0)}")
+    # without input capacitance a small one keeps the node defined (its charge is negligible: 10 pF)
+    lines.append(f"Cin sw 0 {_n(c_in if c_in else 1e-11)} IC={_n(v_in0)}")
+    lines += [f"Vcl clx 0 DC {_n(v_clamp)}", "Vm sw swm DC 0", "Dcl swm clx DCLAMP",
+              ".model DCLAMP D(IS=1e-14 N=0.02 RS=0)"]
+    lines += [
+        ".options reltol=1e-6 abstol=1e-12 vntol=1e-9 method=gear maxord=2 itl4=200",
+        ".control",
+        f"tran {_n(t_max)} {_n(t_stop)} 0 {_n(t_max)} uic",
+        f"wrdata {out_file} v(sw) i(vm) i(l1)",
+        "quit",
+        ".endc",
+        ".end",
+    ]
+    return "\n".join(lines) + "\n"
+
+
+def simulate_turn_off(tmp_path: Path, *, t_stop: float, points: int = 40000, **circuit) -> dict:
+    """Run ngspice -b on the turn-off circuit (`_turn_off_netlist`).
+
+    Returns
+    -------
+    dict
+        ``t``, ``v_in``, ``i_clamp``, ``i_l`` arrays; ``v_peak`` (V, the highest switch-input
+        voltage: V_DS with the output shorted) and ``e_clamp`` (J, trapezoidal integral of
+        v_in i_clamp).
+    """
+    if NGSPICE is None:
+        raise RuntimeError(ngspice_missing_message())
+    out_file = "off.txt"
+    net = _turn_off_netlist(t_stop=t_stop, t_max=t_stop / points, out_file=out_file, **circuit)
+    (tmp_path / "off.cir").write_text(net)
+    proc = subprocess.run([NGSPICE, "-b", "off.cir"], cwd=tmp_path, capture_output=True, text=True, timeout=120)
+    if proc.returncode != 0 or not (tmp_path / out_file).exists():
+        raise RuntimeError(f"ngspice failed: {proc.stdout[-2000:]} {proc.stderr[-2000:]}")
+    data = np.loadtxt(tmp_path / out_file)
+    t, v_in, i_cl, i_l = data[:, 0], data[:, 1], data[:, 3], data[:, 5]
+    p = v_in * i_cl
+    dt = np.diff(t)
+    return {"t": t, "v_in": v_in, "i_clamp": i_cl, "i_l": i_l, "v_peak": float(v_in.max()),
+            "e_clamp": float(np.sum(dt * 0.5 * (p[1:] + p[:-1])))}
