@@ -87,6 +87,7 @@ RAIL_SECTIONS: list[tuple[str, str, list[FormField]]] = [
         F("supply.uvlo"),
         F("supply.uvlo_filter"),
         F("supply.c_in"),
+        F("supply.v_clamp"),
     ]),
     (_section_title("path"), "path", [F("path.r"), F("path.l")]),
     (_section_title("load"), "load", [
@@ -104,6 +105,9 @@ RAIL_SECTIONS: list[tuple[str, str, list[FormField]]] = [
         F("switch.i_limit", modes=_LIMITING),
         F("switch.i_limit_tol", modes=_LIMITING),
         F("switch.p_limit", modes=("power_limit",)),
+        F("switch.loop_response", modes=_LIMITING, example="2 \u00b5s"),
+        F("switch.fast_trip", example="30 A"),
+        F("switch.fast_trip_delay", example="500 ns"),
     ]),
     (_section_title("switch.timer", "leave blank for none"), "timer", [
         F("switch.timer.c", example="100 nF"),
@@ -114,6 +118,7 @@ RAIL_SECTIONS: list[tuple[str, str, list[FormField]]] = [
         F("switch.timer.v_trip_tol"),
         F("switch.timer.after_fault", choices=AFTER_FAULT),
         F("switch.timer.retry_off"),
+        F("switch.timer.retries", example="3"),
     ]),
     (_section_title("environment"), "environment", [
         F("environment.t_ambient", required=True, example="55 \u00b0C"),

@@ -29,6 +29,7 @@ PART_FIELDS = [
     _fet_field("name", required=True, example="N-channel 30 V 5 m\u03a9"),
     _fet_field("vds_max", required=True, example="30 V"),
     _fet_field("id_pulse_max"),
+    _fet_field("e_avalanche"),
     _fet_field("rds_on", required=True, example="5 m\u03a9"),
     _fet_field("rds_on_alpha"),
     _fet_field("tj_max", required=True, example="150 \u00b0C"),

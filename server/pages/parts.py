@@ -40,7 +40,7 @@ def parts_context(session: Session, actor: Actor, q: str = "") -> dict[str, Any]
 
 
 # the ratings listed on the part page (paths in the part document), worded by FIELD_TITLES
-_RATINGS = ["vds_max", "id_pulse_max", "rds_on", "rds_on_alpha", "tj_max", "rth_ja", "soa.t_case"]
+_RATINGS = ["vds_max", "id_pulse_max", "e_avalanche", "rds_on", "rds_on_alpha", "tj_max", "rth_ja", "soa.t_case"]
 
 
 def _get(doc: dict[str, Any], path: str) -> Any:

@@ -65,6 +65,7 @@ OptFarad = Annotated[float | None, _optional_quantity("F")]
 OptVoltPerSecond = Annotated[float | None, _optional_quantity("V/s")]
 OptKelvin = Annotated[float | None, _optional_quantity("K")]
 OptRatio = Annotated[float | None, _optional_quantity("ratio")]
+OptJoule = Annotated[float | None, _optional_quantity("J")]
 
 _BOUND_KEYWORDS = (("above", "exclusiveMinimum"), ("minimum", "minimum"), ("below", "exclusiveMaximum"),
                    ("maximum", "maximum"))
@@ -105,6 +106,7 @@ class Supply(_Section):
     uvlo: OptVolt = _field("supply.uvlo")
     uvlo_filter: OptSecond = _field("supply.uvlo_filter")
     c_in: OptFarad = _field("supply.c_in")
+    v_clamp: OptVolt = _field("supply.v_clamp")
 
 
 class PathImpedance(_Section):
@@ -130,6 +132,7 @@ class Timer(_Section):
     v_trip_tol: Fraction = _field("switch.timer.v_trip_tol")
     after_fault: Literal[AFTER_FAULT] = _field("switch.timer.after_fault")  # type: ignore[valid-type]
     retry_off: OptSecond = _field("switch.timer.retry_off")
+    retries: OptRatio = _field("switch.timer.retries")
 
 
 class Switch(_Section):
@@ -140,6 +143,9 @@ class Switch(_Section):
     i_limit_tol: Fraction = _field("switch.i_limit_tol")
     p_limit: OptWatt = _field("switch.p_limit")
     timer: Timer | None = _field("switch.timer")
+    loop_response: OptSecond = _field("switch.loop_response")
+    fast_trip: OptAmp = _field("switch.fast_trip")
+    fast_trip_delay: OptSecond = _field("switch.fast_trip_delay")
 
 
 class FosterStage(_Section):
@@ -169,6 +175,7 @@ class Fet(_Section):
     rth_ja: KelvinPerWatt = _field("fet.rth_ja")
     zth: list[FosterStage] = _field("fet.zth")
     soa: Soa = _field("fet.soa")
+    e_avalanche: OptJoule = _field("fet.e_avalanche")
 
 
 class Environment(_Section):

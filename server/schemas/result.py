@@ -18,7 +18,7 @@ from typing import Annotated, Any, Literal, Union
 from pydantic import BaseModel, ConfigDict, Field, ValidationError, model_validator
 
 __all__ = ["Verdict", "CheckRecord", "NominalReading", "Point", "KeyFigure", "Waveforms", "StartupSection",
-           "ShortCircuitSection", "TimerSection", "RetrySection", "SteadySection", "HeadroomFigure", "Headroom",
+           "OnsetPoint", "TurnOffPoint", "ShortCircuitSection", "TimerSection", "RetrySection", "SteadySection", "HeadroomFigure", "Headroom",
            "WorstCaseSummary", "CornerEntry", "MonteCarloCheck", "MonteCarloFlag", "MonteCarlo", "AnalysisResult",
            "LegacyResult", "StoredResult"]
 
@@ -66,6 +66,8 @@ class CheckRecord(_Model):
     found_by: Literal["corner", "search", "nominal"] | None
     point: Point | None
     detail: str = Field(description="why the value reads as it does, in words")
+    t_start: Number = Field(None, description="the junction temperature the check starts from, degC (none: the "
+                                              "check has no starting temperature, or does not apply)")
 
 
 class KeyFigure(_Model):
@@ -127,6 +129,34 @@ class StartupSection(_Model):
     waveforms: Waveforms | None
 
 
+class OnsetPoint(_Model):
+    """The first microseconds of a short (engine 2.1): the current rising until the loop or the fast trip acts."""
+
+    i_peak: Number = Field(description="peak FET current, A")
+    t_act: Number = Field(description="time from the short until the loop or the fast trip acts, s (none: neither)")
+    acted_by: Literal["loop", "fast_trip"] | None
+    fast_trip_fired: bool
+    e_fet: Number = Field(description="FET energy during the onset (fully on), J")
+    i_final: Number = Field(description="the current the resistances and Rds(on) bound it to, A")
+    rds_on: Number = Field(description="Rds(on) at the starting junction temperature, ohm")
+    soa_allowed: Number
+    soa_ratio: Number
+    t_start: Number = Field(description="junction temperature at the start, degC")
+
+
+class TurnOffPoint(_Model):
+    """The hard turn-off that ends a short (engine 2.1): the overshoot the series inductance drives."""
+
+    event: Literal["fast_trip", "fault_timer"]
+    i: Number = Field(description="current in the series inductance when the switch opens, A")
+    v_peak: Number = Field(description="peak V_DS, V")
+    clamped_by: Literal["input_capacitance", "input_clamp", "breakdown"] | None
+    v_clamp: Number = Field(description="the clamp level: the input clamp, or the FET's V_DS rating, V")
+    e_half_li2: Number = Field(description="1/2 L I^2, J")
+    e_clamp: Number = Field(description="energy the clamp absorbs, J")
+    e_fet: Number = Field(description="energy the FET absorbs in breakdown, J")
+
+
 class ShortCircuitPoint(_Model):
     v_ds: Number
     i: Number
@@ -139,6 +169,9 @@ class ShortCircuitPoint(_Model):
     limited_by: Literal["soa", "thermal"] | None
     survives_indefinitely: bool
     corner: str
+    t_start: Number = None
+    onset: OnsetPoint | None = None
+    turn_off: TurnOffPoint | None = None
 
 
 class ShortCircuitSection(_Model):
@@ -156,6 +189,9 @@ class ShortCircuitSection(_Model):
     limited_by: Literal["soa", "thermal"] | None = None
     survives_indefinitely: bool | None = None
     worst: ShortCircuitPoint | None = None
+    t_start: Number = Field(None, description="junction temperature the short starts from (the steady state), degC")
+    onset: OnsetPoint | None = None
+    turn_off: TurnOffPoint | None = None
 
 
 class TimerSection(_Model):
@@ -181,6 +217,10 @@ class RetrySection(_Model):
     tj_peak: Number
     tj_valley: Number
     period: Number
+    cooldown_ratio: Number = Field(None, description="off time / on time of the retry train")
+    retries: int | None = Field(None, description="retries before latching (none: endless)")
+    pulses: int | None = Field(None, description="pulses of the train (1 + retries; none: endless)")
+    t_start: Number = Field(None, description="junction temperature the train starts from, degC")
 
 
 class SteadySection(_Model):

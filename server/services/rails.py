@@ -188,13 +188,15 @@ def diff_revisions(*, session: Session, actor: Actor, rail_id: int, from_n: int,
 # The inputs listed on the rail page and in the sign-off report: (section path, the fields shown); titles and unit kinds
 # come from FIELD_TITLES, the one table of words of the rail document.
 _INPUTS: list[tuple[str, tuple[str, ...]]] = [
-    ("supply", ("v_min", "v_nom", "v_max", "r_source", "l_source", "i_max", "uvlo", "uvlo_filter", "c_in")),
+    ("supply", ("v_min", "v_nom", "v_max", "r_source", "l_source", "i_max", "uvlo", "uvlo_filter", "c_in", "v_clamp")),
     ("path", ("r", "l")),
     ("load", ("c_nom", "c_tol", "esr", "model", "i_nom", "v_on")),
-    ("switch", ("mode", "t_on", "dvdt", "i_limit", "i_limit_tol", "p_limit")),
-    ("switch.timer", ("c", "c_tol", "i_charge", "i_charge_tol", "v_trip", "v_trip_tol", "after_fault", "retry_off")),
+    ("switch", ("mode", "t_on", "dvdt", "i_limit", "i_limit_tol", "p_limit", "loop_response", "fast_trip",
+                "fast_trip_delay")),
+    ("switch.timer", ("c", "c_tol", "i_charge", "i_charge_tol", "v_trip", "v_trip_tol", "after_fault", "retry_off",
+                      "retries")),
     ("environment", ("t_ambient",)),
-    ("fet", ("name", "vds_max", "id_pulse_max", "rds_on", "rds_on_alpha", "tj_max", "rth_ja")),
+    ("fet", ("name", "vds_max", "id_pulse_max", "e_avalanche", "rds_on", "rds_on_alpha", "tj_max", "rth_ja")),
 ]
 
 

@@ -318,3 +318,16 @@ def test_fault_edge_checks_have_a_worst_case_and_a_starting_temperature():
     by_id2 = {c["id"]: c for c in res2["checks"]}
     assert by_id2["turnoff_vds"]["verdict"] == "fail"
     assert by_id2["turnoff_avalanche"]["value"] > 0.0
+
+
+def test_results_with_the_fault_edges_validate_against_the_result_schema():
+    from server.schemas.result import AnalysisResult
+    doc = hotswap_48v()
+    doc["switch"].update(loop_response=2e-6, fast_trip=15.0, fast_trip_delay=1e-6)
+    doc["switch"]["timer"]["retries"] = 3
+    doc["supply"].update(c_in=10e-6, v_clamp=70.0)
+    doc["fet"]["e_avalanche"] = 0.1
+    res = analyze_rail(doc, waveforms=False, headroom=False, monte_carlo=16)
+    model = AnalysisResult.model_validate(res)
+    assert model.retry.pulses == 4 and model.retry.cooldown_ratio > 1
+    assert model.short_circuit.onset is not None and model.short_circuit.worst.onset is not None
