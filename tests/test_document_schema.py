@@ -309,3 +309,28 @@ def test_random_changes_are_refused_alike_by_both():
         assert sorted(by_schema) == sorted(by_reader), (heads, last, node[last])
         refused += bool(by_reader)
     assert refused > 200  # the walk does reach bad documents
+
+
+def test_fault_edge_fields_are_optional_read_in_units_and_refused_alike():
+    normalized = _si_doc()
+    for path in ("supply.v_clamp", "switch.loop_response", "switch.fast_trip", "switch.fast_trip_delay",
+                 "fet.e_avalanche"):
+        assert path in OPTIONAL and path not in DEFAULTS
+        section, key = path.split(".")
+        assert normalized[section][key] is None
+    doc = rail_doc(supply={"v_clamp": "18 V"},
+                   switch={"loop_response": "2 us", "fast_trip": "20 A", "fast_trip_delay": "500 ns"})
+    doc["fet"]["e_avalanche"] = "45 mJ"
+    normalized = normalize(parse_rail_document(doc))
+    rail = read_rail(normalized)
+    assert rail.supply.v_clamp == pytest.approx(18.0)
+    assert rail.switch.loop_response == pytest.approx(2e-6) and rail.switch.fast_trip_delay == pytest.approx(5e-7)
+    assert rail.fet.e_avalanche == pytest.approx(45e-3)
+    # a fast trip without its delay, and retries that are not a whole number: refused by both on the same field
+    for sections, field in (({"switch": {"fast_trip": "20 A"}}, "switch.fast_trip_delay"),
+                            ({"switch": {"timer": {"c": "100 nF", "i_charge": "10 uA", "v_trip": "1.2 V",
+                                                   "after_fault": "retry", "retry_off": "1 s",
+                                                   "retries": 1.5}}}, "switch.timer.retries")):
+        with pytest.raises(DocumentInvalid) as by_schema:
+            parse_rail_document(rail_doc(**sections))
+        assert field in [e.field for e in by_schema.value.errors]
