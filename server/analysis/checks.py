@@ -114,7 +114,7 @@ CHECKS: tuple[CheckSpec, ...] = (
     CheckSpec("short_circuit_time", "Output short circuit cleared before the FET's limit", "ratio",
               "common practice", "at_least"),
     CheckSpec("timer_startup", "Fault timer does not trip on a good start", "ratio", "common practice", "at_least"),
-    CheckSpec("retry_tj", "Junction temperature in retry (periodic steady state)", "degC", "common practice",
+    CheckSpec("retry_tj", "Junction temperature in retry (pulse train)", "degC", "common practice",
               "at_most", True),
     CheckSpec("steady_tj", "Junction temperature in steady conduction", "degC", "common practice", "at_most", True),
     CheckSpec("steady_stable", "No thermal runaway in steady conduction", "degC", "physical limit", "flag"),

@@ -6,8 +6,8 @@ format_report(result, doc)
     The result of `analyze_rail` as plain text for people: the verdict and its basis, the
     check table (title, verdict, value, limit with its direction, margin, where the worst
     case lies), the key figures nominal and worst case side by side, the reasons of the
-    failing and marginal checks, headroom, the fault timer, Monte Carlo, the conventions
-    and the caution. Pure string formatting from the result's records: nothing is
+    failing and marginal checks, headroom, the fault timer, the short circuit's onset and
+    turn-off, retries, Monte Carlo, the conventions and the caution. Pure string formatting from the result's records: nothing is
     recomputed.
 """
 
@@ -65,11 +65,11 @@ def _check_rows(result: dict) -> list[str]:
         if c.get("found_by") == "search":
             where += " (found by the search)"
         row = [c["verdict"].upper(), c["title"], value_text(c.get("value"), unit), limit_text(c),
-               margin_text(c.get("margin"))]
+               margin_text(c.get("margin")), value_text(c.get("t_start"), "degC")]
         if worst_case:
             row += [value_text((c.get("nominal") or {}).get("value"), unit), where]
         rows.append(row)
-    head = ["verdict", "check", "value", "limit", "margin"]
+    head = ["verdict", "check", "value", "limit", "margin", "starts at"]
     if worst_case:
         head += ["nominal", "worst case at"]
     return _table(rows, head)
@@ -98,6 +98,34 @@ def _timer_lines(tm: dict) -> list[str]:
         lines.append(f"  timer capacitors meeting both margins: {eng(win[0], 'F')} to {hi}{sug}")
     if tm.get("window_note"):
         lines.append(f"  {tm['window_note']}")
+    return lines
+
+
+def _fault_edge_lines(sc: dict, retry: dict | None) -> list[str]:
+    """The short circuit's starting temperature, onset and turn-off, and the retry train, at the nominal point."""
+    lines = []
+    if sc.get("t_start") is not None:
+        lines.append(f"Short circuit at nominal: starts from {temp(sc['t_start'])} (the steady state at the "
+                     "operating point)")
+    on = sc.get("onset")
+    if on:
+        acted = {"loop": "the current loop takes over", "fast_trip": "the fast trip turns the switch off"}.get(
+            on.get("acted_by") or "", "nothing acts during the onset")
+        after = f" after {eng(on['t_act'], 's')}" if on.get("t_act") is not None else ""
+        lines.append(f"  onset: peak {eng(on.get('i_peak'), 'A')}; {acted}{after}; FET energy "
+                     f"{eng(on.get('e_fet'), 'J')}; the SOA from {temp(on.get('t_start'))} allows "
+                     f"{eng(on.get('soa_allowed'), 'A')}")
+    off = sc.get("turn_off")
+    if off:
+        by = {"input_capacitance": "the input capacitance", "input_clamp": "the input clamp",
+              "breakdown": "the FET's breakdown (avalanche)"}.get(off.get("clamped_by") or "", "nothing")
+        event = "the fast trip" if off.get("event") == "fast_trip" else "the fault timer"
+        lines.append(f"  turn-off by {event} at {eng(off.get('i'), 'A')}: V_DS peaks at {eng(off.get('v_peak'), 'V')}"
+                     f" held by {by}; ½ L I² {eng(off.get('e_half_li2'), 'J')}, in the FET {eng(off.get('e_fet'), 'J')}")
+    if retry:
+        count = "without end" if retry.get("retries") is None else f"{retry['retries']} retries, then latches"
+        lines.append(f"Retry at nominal: {count}; cool-down ratio {retry.get('cooldown_ratio', 0):.3g} (off / on); "
+                     f"peak {temp(retry.get('tj_peak'))} from {temp(retry.get('t_start'))}")
     return lines
 
 
@@ -183,6 +211,7 @@ def format_report(result: dict, doc: dict) -> str:
     tm = result.get("timer")
     if tm:
         lines += _timer_lines(tm)
+    lines += _fault_edge_lines(result.get("short_circuit") or {}, result.get("retry"))
     st = result.get("startup") or {}
     if st and not st.get("complete", True):
         lines.append(f"Start-up at nominal: {st.get('status')}.")
