@@ -75,6 +75,10 @@ FETS = [
     _fet("BW-LS20S9 load switch (demo)", 20.0, 9e-3, 40.0, 70.0,
          [(0.3, 10e-6), (1.5, 3e-4), (5.0, 5e-3), (15.0, 0.1), (48.2, 3.0)],
          {1e-4: 250.0, 1e-3: 70.0, 1e-2: 22.0, None: 8.0}),
+    {**_fet("BW-N60A10 avalanche rated (demo)", 60.0, 10e-3, 200.0, 32.0,
+            [(0.04, 25e-6), (0.2, 6e-4), (0.8, 1e-2), (4.5, 0.3), (26.5, 7.0)],
+            {1e-4: 2600.0, 1e-3: 760.0, 1e-2: 240.0, 1e-1: 80.0, None: 45.0}),
+     "e_avalanche": 0.12},
 ]
 
 
@@ -95,6 +99,9 @@ SUPPLY_24 = {"v_min": 18.0, "v_nom": 24.0, "v_max": 32.0, "r_source": 0.05, "l_s
              "uvlo": 16.0, "c_in": 47e-6}
 SUPPLY_12 = {"v_min": 11.4, "v_nom": 12.0, "v_max": 12.6, "r_source": 0.015, "l_source": 200e-9, "i_max": 15.0,
              "uvlo": 10.0, "c_in": 47e-6}
+# a 24 V entry with its bulk capacitance upstream of the path and a 36 V TVS at the switch input
+SUPPLY_24_CLAMPED = {"v_min": 18.0, "v_nom": 24.0, "v_max": 32.0, "r_source": 0.05, "l_source": 1e-6,
+                     "i_max": 12.0, "uvlo": 16.0, "v_clamp": 36.0}
 SUPPLY_5 = {"v_min": 4.75, "v_nom": 5.0, "v_max": 5.25, "r_source": 0.02, "l_source": 100e-9, "i_max": 6.0,
             "uvlo": 4.2, "c_in": 4.7e-6, "uvlo_filter": 2e-6}
 
@@ -115,6 +122,12 @@ BOARDS = [
         (_rail("FAN_24V", SUPPLY_24,
                {"c_nom": 47e-6, "c_tol": 0.2, "esr": 0.2, "model": "constant_current", "i_nom": 0.5, "v_on": 8.0},
                {"mode": "slew", "t_on": 100e-6, "dvdt": 2000.0}, 60.0), 1),
+        # an eFuse with a fast trip, a 3 µs current loop and three retries before it latches
+        (_rail("TOOL_PORT_24V", SUPPLY_24_CLAMPED,
+               {"c_nom": 100e-6, "c_tol": 0.2, "esr": 0.03, "model": "resistive", "i_nom": 1.5},
+               {"mode": "current_limit", "t_on": 100e-6, "i_limit": 4.0, "i_limit_tol": 0.1,
+                "loop_response": 3e-6, "fast_trip": 18.0, "fast_trip_delay": 400e-9,
+                "timer": {**_timer(22e-9, retry_off=1.0), "retries": 3}}, 60.0), 4),
     ]),
     ("Compute carrier", "A", [
         (_rail("SOM_12V", SUPPLY_12,

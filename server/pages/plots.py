@@ -254,6 +254,17 @@ def soa_figure(result: AnalysisResult, document: dict[str, Any]) -> dict[str, An
                          "marker": {"symbol": symbol, "size": 13, "color": VERDICT_COLOURS["fail"],
                                     "line": {"color": INK, "width": 1}},
                          "hovertemplate": text + "<extra></extra>"})
+        for label, point in (("nominal", sc), ("worst case", sc.worst)):
+            on = getattr(point, "onset", None) if point is not None else None
+            if on is None or not (on.i_peak and point.v_ds):
+                continue
+            text = (f"Short-circuit onset, {label}: peak {format_quantity(on.i_peak, 'A')} read at the full supply; "
+                    f"the derated SOA allows {format_quantity(on.soa_allowed, 'A')}")
+            data.append({"type": "scatter", "mode": "markers", "name": f"Short-circuit onset peak ({label})",
+                         "x": _r([point.v_ds]), "y": _r([on.i_peak]),
+                         "marker": {"symbol": "triangle-up" if label == "worst case" else "triangle-up-open",
+                                    "size": 12, "color": VERDICT_COLOURS["fail"], "line": {"color": INK, "width": 1}},
+                         "hovertemplate": text + "<extra></extra>"})
         w = sc.worst
         if w and w.v_ds and w.i:
             allowed = "indefinitely" if w.survives_indefinitely else format_quantity(w.t_allow, "s")
