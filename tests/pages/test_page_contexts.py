@@ -160,3 +160,36 @@ def test_rail_page_keeps_results_of_an_older_engine_as_outdated_dicts(seeded, se
     html = client.get(f"/rails/{rail_id}").text
     assert 'id="outdated-result"' in html and "checks-table" not in html
     assert "The newest Monte Carlo run (1000 samples) was computed by engine 1.1.0" in html
+
+
+def test_rail_page_shows_the_onset_the_turn_off_retries_and_starting_temperatures(people, session_factory, client,
+                                                                                 app):
+    with session_factory() as s:
+        designer = actor_of(s, "designer")
+        from server.services import catalog, parts
+        from tests.factories import fet_doc
+        product = catalog.create_product(session=s, actor=designer, name="Tideline buoy")
+        board = catalog.create_board(session=s, actor=designer, product_id=product.id, name="Power", revision="C")
+        part = parts.create_part(session=s, actor=designer, document={**fet_doc("Rated N30"), "e_avalanche": "80 mJ"},
+                                 message="entered")
+        doc = rail_doc("TOOL_PORT", supply={"v_clamp": "20 V"},
+                       switch={"loop_response": "2 us", "fast_trip": "15 A", "fast_trip_delay": "300 ns",
+                               "timer": {"c": "100 nF", "i_charge": "10 uA", "v_trip": 1.2, "after_fault": "retry",
+                                         "retry_off": "0.5 s", "retries": 2}})
+        doc.pop("fet")
+        rail, rev = rail_edits.create_rail(session=s, actor=designer, board_id=board.id, document=doc,
+                                           part=rail_edits.PartRef(part.part_id), message="first entry")
+        analyse_now(s, rev)
+        ctx = rail_context(s, actor_of(s, "viewer"), rail.id)
+    by_id = {c["id"]: c for c in ctx["checks"]}
+    assert by_id["short_circuit_time"]["t_start"].endswith("°C")
+    assert by_id["onset_peak"]["value"] != "-" and by_id["turnoff_vds"]["value"] == "20 V"
+    names = [t["name"] for t in ctx["figures"]["soa"]["data"]]
+    assert "Short-circuit onset peak (nominal)" in names
+    titles = [title for title, _ in next(x for x in ctx["inputs"] if x["title"] == "Switch")["items"]]
+    assert "Fast-trip threshold" in titles and "Current loop response time" in titles
+    log_in(client, app, people.ids["viewer"])
+    html = client.get(f"/rails/{rail.id}").text
+    assert 'id="fault-figures"' in html and "Junction starts at" in html
+    assert "2 before latching (3 pulses)" in html and "cool-down ratio" in html
+    assert "held by the input clamp" in html
