@@ -13,8 +13,8 @@ onset(rail, *, v_s, i_lim, i_load, tj_start)
     Peak current, the time until the controller acts, FET energy, fast trip, onset SOA.
 turn_off(rail, *, v_s, i_off, v_in0)
     Peak V_DS, what clamps it, the energy the clamp (or the FET's breakdown) absorbs.
-linear2(a, x0, t)
-    Exact response of a two-state linear circuit (rows of arrays).
+Modes(a, eq, x0)
+    Exact response of a two-state linear circuit in modal form (rows of arrays).
 
 Circuit
 -------
@@ -31,7 +31,7 @@ V / R_t at once): the closed form of a series R-L circuit switched onto a DC sou
 (C. K. Alexander and M. N. O. Sadiku, "Fundamentals of Electric Circuits", section 7.6).
 With c_in the input capacitance discharges through the FET alone (only Rds(on) bounds
 that current) while the path current rises: a two-state linear circuit, solved exactly
-by `linear2`. The loop acts ``loop_response`` after the sensed current passes the
+by `Modes`. The loop acts ``loop_response`` after the sensed current passes the
 current limit (the current is then regulated: `regulated_current`); the fast trip acts
 ``fast_trip_delay`` after it passes ``fast_trip`` and turns the switch off. The onset
 ends at the first of the two; with neither acting the current settles at V / R_t. The
@@ -64,13 +64,13 @@ from .soa import allowed_current
 from .thermal import rds_at
 
 __all__ = ["onset_applies", "turn_off_applies", "regulated_current", "start_temperature", "onset", "turn_off",
-           "linear2", "clamp_energy", "ACTED_NONE", "ACTED_LOOP", "ACTED_FAST_TRIP", "BY_NONE", "BY_INPUT",
+           "Modes", "clamp_energy", "ACTED_NONE", "ACTED_LOOP", "ACTED_FAST_TRIP", "BY_NONE", "BY_INPUT",
            "BY_CLAMP", "BY_BREAKDOWN"]
 
 ACTED_NONE, ACTED_LOOP, ACTED_FAST_TRIP = 0, 1, 2
 BY_NONE, BY_INPUT, BY_CLAMP, BY_BREAKDOWN = 0, 1, 2, 3  # turn-off: no overshoot, input C, input clamp, breakdown
-_GRID = 256  # samples of a two-state response before the crossing is refined
-_REFINE = 48  # bisections of a crossing (relative error 2^-48 of the bracket)
+_GRID = 64  # samples of a two-state response before a crossing is refined
+_REFINE = 12  # safeguarded Newton steps refining a crossing
 
 
 def onset_applies(rail: Rail) -> bool:
@@ -108,70 +108,89 @@ def start_temperature(rail: Rail, steady: dict) -> np.ndarray:
 # --- the two-state linear circuit --------------------------------------------------------------
 
 
-def linear2(a: np.ndarray, x0: np.ndarray, t: np.ndarray) -> np.ndarray:
-    """Exact response x(t) = exp(A t) x0 of a two-state linear system, rows of arrays.
+class Modes:
+    """The exact response of a two-state linear circuit, x(t) = eq + exp(A t) (x0 - eq), in modal form.
 
-    Parameters
-    ----------
-    a : ndarray, shape (n, 2, 2)
-        System matrices (real, eigenvalues with negative or zero real parts).
-    x0 : ndarray, shape (n, 2)
-        Initial state (a deviation from the equilibrium).
-    t : ndarray, shape (n, m)
-        Times, s (>= 0).
-
-    Returns
-    -------
-    ndarray, shape (n, m, 2)
-
-    Notes
-    -----
-    For a 2 x 2 matrix with s = tr(A) / 2 and d = sqrt(s^2 - det A) (complex),
-    exp(A t) = exp(s t) (cosh(d t) I + sinh(d t) / d (A - s I)) (Cayley-Hamilton; e.g.
-    C. Moler and C. Van Loan, "Nineteen dubious ways to compute the exponential of a
-    matrix", SIAM Review 20 (1978), method 17), written with exp((s +/- d) t) so that no
-    large terms cancel; d t near 0 takes the series t exp(s t) (1 + (d t)^2 / 6).
+    For a 2 x 2 matrix with s = tr(A) / 2 and d = sqrt(s^2 - det A) (complex), the
+    eigenvalues are s +/- d and exp(A t) = exp(s t) (cosh(d t) I + sinh(d t) / d (A - s I))
+    (Cayley-Hamilton; C. Moler and C. Van Loan, "Nineteen dubious ways to compute the
+    exponential of a matrix", SIAM Review 20 (1978), method 17), so each state is
+    eq_k + Re(a_k1 exp(l_1 t) + a_k2 exp(l_2 t)) with a_k = y0_k / 2 +/- ((A - s I) y0)_k / (2 d),
+    y0 = x0 - eq: closed forms for its value, its slope and integrals of its square.
+    A critically damped row (d = 0) takes d = 1e-7 |s|, a relative error below 1e-6.
     """
-    s = 0.5 * (a[:, 0, 0] + a[:, 1, 1])
-    det = a[:, 0, 0] * a[:, 1, 1] - a[:, 0, 1] * a[:, 1, 0]
-    d = np.sqrt((s * s - det).astype(complex))
-    sc, dc = s[:, None], d[:, None]
-    with np.errstate(over="ignore", invalid="ignore", divide="ignore"):
-        e1, e2 = np.exp((sc + dc) * t), np.exp((sc - dc) * t)
-        ch = 0.5 * (e1 + e2)
-        dt = dc * t
-        small = np.abs(dt) < 1e-6
-        sh = np.where(small, t * np.exp(sc * t) * (1.0 + dt * dt / 6.0), (e1 - e2) / np.where(small, 1.0, 2.0 * dc))
-    m = a - s[:, None, None] * np.eye(2)
-    y = m @ x0[:, :, None]  # (n, 2, 1)
-    out = ch.real[:, :, None] * x0[:, None, :] + sh.real[:, :, None] * y[:, None, :, 0]
-    return out
+
+    def __init__(self, a: np.ndarray, eq: np.ndarray, x0: np.ndarray) -> None:
+        s = 0.5 * (a[:, 0, 0] + a[:, 1, 1])
+        det = a[:, 0, 0] * a[:, 1, 1] - a[:, 0, 1] * a[:, 1, 0]
+        d = np.sqrt((s * s - det).astype(complex))
+        tiny = 1e-7 * np.maximum(np.abs(s), 1e-300)
+        d = np.where(np.abs(d) < tiny, tiny + 0j, d)
+        y0 = x0 - eq
+        my = (a - s[:, None, None] * np.eye(2)) @ y0[:, :, None]  # (n, 2, 1)
+        half = my[:, :, 0] / (2.0 * d[:, None])
+        self.lam = np.stack([s + d, s - d], axis=1)  # (n, 2)
+        self.amp = np.stack([0.5 * y0 + half, 0.5 * y0 - half], axis=2)  # (n, state, mode)
+        self.eq = eq
+
+    def value(self, k: int, t: np.ndarray) -> np.ndarray:
+        """State k at times t (n, m)."""
+        a, lam = self.amp[:, k, :], self.lam
+        with np.errstate(over="ignore", invalid="ignore"):
+            z = a[:, None, 0] * np.exp(lam[:, None, 0] * t) + a[:, None, 1] * np.exp(lam[:, None, 1] * t)
+        return self.eq[:, k, None] + z.real
+
+    def value_slope(self, k: int, t: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+        """State k and its rate of change at times t (n, m)."""
+        a, lam = self.amp[:, k, :], self.lam
+        with np.errstate(over="ignore", invalid="ignore"):
+            e1, e2 = a[:, None, 0] * np.exp(lam[:, None, 0] * t), a[:, None, 1] * np.exp(lam[:, None, 1] * t)
+        return self.eq[:, k, None] + (e1 + e2).real, (e1 * lam[:, None, 0] + e2 * lam[:, None, 1]).real
+
+    def square_integral(self, k: int, t_end: np.ndarray) -> np.ndarray:
+        """int_0^T x_k(t)^2 dt, closed form: sums of int exp((l_i + l_j) t) dt = (exp((l_i + l_j) T) - 1) / (l_i + l_j)."""
+        a, lam, e = self.amp[:, k, :], self.lam, self.eq[:, k]
+        big_t = t_end.astype(complex)
+
+        def grow(mu):  # (exp(mu T) - 1) / mu, T where mu T is tiny
+            x = mu * big_t
+            with np.errstate(over="ignore", invalid="ignore", divide="ignore"):
+                return np.where(np.abs(x) < 1e-8, big_t * (1 + x / 2), np.expm1(x) / np.where(mu == 0, 1.0, mu))
+
+        total = e * e * big_t + 2 * e * (a[:, 0] * grow(lam[:, 0]) + a[:, 1] * grow(lam[:, 1]))
+        for i in range(2):
+            for j in range(2):
+                total = total + a[:, i] * a[:, j] * grow(lam[:, i] + lam[:, j])
+        return total.real
 
 
-def _state(a, eq, x0, t):
-    """States at times t (n, m): equilibrium plus the exact deviation."""
-    return eq[:, None, :] + linear2(a, x0 - eq, t)
-
-
-def _crossing(a, eq, x0, t_hi, k: int, level, *, above: bool = True) -> np.ndarray:
+def _crossing(m: Modes, t_hi, k: int, level, *, above: bool = True) -> np.ndarray:
     """First time in [0, t_hi] where state k reaches ``level`` (from below when ``above``), s;
-    inf where it does not. A grid of `_GRID` samples finds the first bracket, bisection refines it."""
-    n = x0.shape[0]
+    inf where it does not. A grid of `_GRID` samples finds the first bracket; Newton's method
+    kept inside it (a bisection wherever its step would leave it; W. H. Press et al.,
+    "Numerical Recipes", section 9.4) refines it."""
+    n = t_hi.shape[0]
     grid = t_hi[:, None] * np.linspace(0.0, 1.0, _GRID + 1)[None, :]
-    vals = _state(a, eq, x0, grid)[:, :, k]
-    hit = vals >= level[:, None] if above else vals <= level[:, None]
+    sign = 1.0 if above else -1.0
+    vals = sign * (m.value(k, grid) - level[:, None])
+    hit = vals >= 0.0
     any_hit = hit.any(axis=1)
     j = np.argmax(hit, axis=1)
     rows = np.arange(n)
     lo = grid[rows, np.maximum(j - 1, 0)]
     hi = grid[rows, j]
-    for _ in range(_REFINE):
-        mid = 0.5 * (lo + hi)
-        v = _state(a, eq, x0, mid[:, None])[:, 0, k]
-        h = v >= level if above else v <= level
-        hi = np.where(h, mid, hi)
-        lo = np.where(h, lo, mid)
-    return np.where(any_hit, np.where(j == 0, 0.0, hi), np.inf)
+    f_lo, f_hi = vals[rows, np.maximum(j - 1, 0)], vals[rows, j]
+    with np.errstate(invalid="ignore", divide="ignore"):
+        x = lo + (hi - lo) * np.clip(f_lo / np.where(f_lo < f_hi, f_lo - f_hi, -1.0), 0.0, 1.0)
+        for _ in range(_REFINE):
+            v, dv = m.value_slope(k, x[:, None])
+            f, df = sign * (v[:, 0] - level), sign * dv[:, 0]
+            up = f >= 0.0
+            hi = np.where(up, x, hi)
+            lo = np.where(up, lo, x)
+            xn = x - f / df
+            x = np.where((df != 0) & (xn > lo) & (xn < hi), xn, 0.5 * (lo + hi))
+    return np.where(any_hit, np.where(j == 0, 0.0, x), np.inf)
 
 
 def _horizon(a: np.ndarray) -> np.ndarray:
@@ -242,12 +261,11 @@ def onset(rail: Rail, *, v_s, i_lim, i_load, tj_start) -> dict:
             return _first_order_crossing(i0, i_inf, tau, level)
     else:
         a = _onset_matrix(r, ell, c_in, rds)
-        eq = np.stack([i_inf, i_inf * rds], axis=1)
-        x0 = np.stack([i0, v - r * i0], axis=1)
+        modes = Modes(a, np.stack([i_inf, i_inf * rds], axis=1), np.stack([i0, v - r * i0], axis=1))
         t_hi = _horizon(a)
 
         def cross(level):
-            return _crossing(a, eq, x0, t_hi, 0, np.broadcast_to(level, (n,)).astype(float))
+            return _crossing(modes, t_hi, 0, np.broadcast_to(level, (n,)).astype(float))
     t_loop = cross(i_lim) + sw.loop_response if loop_on else np.full(n, np.inf)
     t_ft = cross(np.full(n, sw.fast_trip)) + sw.fast_trip_delay if sw.fast_trip is not None else np.full(n, np.inf)
     fired = np.isfinite(t_ft) & (t_ft <= t_loop)
@@ -256,7 +274,7 @@ def onset(rail: Rail, *, v_s, i_lim, i_load, tj_start) -> dict:
     if c_in is None or ell == 0.0:
         peak, e, i_at, v_at = _first_order_onset(v, r, rds, i0, i_inf, tau, t_act, c_in)
     else:
-        peak, e, i_at, v_at = _second_order_onset(a, eq, x0, rds, t_act)
+        peak, e, i_at, v_at = _second_order_onset(modes, t_hi, rds, t_act)
     allowed = allowed_current(fet, v, np.where(np.isfinite(t_act), t_act, np.inf), tj0)
     with np.errstate(divide="ignore", invalid="ignore"):
         ratio = np.where(peak > 0, allowed / peak, np.inf)
@@ -308,23 +326,17 @@ def _first_order_onset(v, r, rds, i0, i_inf, tau, t_act, c_in):
     return peak, e, i_end, v_end
 
 
-def _second_order_onset(a, eq, x0, rds, t_act):
-    """Peak FET current (v / Rds), FET energy (trapezoid on a grid clustered at 0) and the state
-    at the end of an onset with input capacitance and path inductance."""
-    n = x0.shape[0]
+def _second_order_onset(modes: Modes, t_hi, rds, t_act):
+    """Peak FET current (v / Rds: the highest input voltage on a grid of the onset, its start
+    included), FET energy (int v^2 / Rds dt in closed form, `Modes.square_integral`) and the
+    state at the end of an onset with input capacitance and path inductance."""
     finite = np.isfinite(t_act)
-    t_end = np.where(finite, t_act, _horizon(a))
-    u = np.linspace(0.0, 1.0, 4 * _GRID + 1)
-    grid = t_end[:, None] * (u ** 3)[None, :]
-    x = _state(a, eq, x0, grid)
-    vv = x[:, :, 1]
-    p = vv * vv / rds[:, None]
-    e = np.sum(np.diff(grid, axis=1) * 0.5 * (p[:, 1:] + p[:, :-1]), axis=1)
-    peak = np.max(vv, axis=1) / rds
-    peak = np.maximum(peak, x0[:, 1] / rds)
-    end = _state(a, eq, x0, t_end[:, None])[:, 0, :]
-    i_end = np.where(finite, end[:, 0], eq[:, 0])
-    v_end = np.where(finite, end[:, 1], eq[:, 1])
+    t_end = np.where(finite, t_act, t_hi)
+    grid = t_end[:, None] * np.linspace(0.0, 1.0, _GRID + 1)[None, :]
+    peak = np.max(modes.value(1, grid), axis=1) / rds
+    e = modes.square_integral(1, t_end) / rds
+    i_end = np.where(finite, modes.value(0, t_end[:, None])[:, 0], modes.eq[:, 0])
+    v_end = np.where(finite, modes.value(1, t_end[:, None])[:, 0], modes.eq[:, 1])
     return peak, np.where(finite, e, np.inf), i_end, v_end
 
 
@@ -405,15 +417,14 @@ def _ring_into_input(v, r, ell, c_in, i, v0, v_c, by_clamp):
     n = v.shape[0]
     a = np.empty((n, 2, 2))
     a[:, 0, 0], a[:, 0, 1], a[:, 1, 0], a[:, 1, 1] = -r / ell, -1.0 / ell, 1.0 / c_in, 0.0
-    eq = np.stack([np.zeros(n), v], axis=1)
-    x0 = np.stack([i, v0], axis=1)
+    modes = Modes(a, np.stack([np.zeros(n), v], axis=1), np.stack([i, v0], axis=1))
     t_hi = 2.0 * _horizon(a)
-    t_zero = _crossing(a, eq, x0, t_hi, 0, np.zeros(n), above=False)
-    t_clamp = _crossing(a, eq, x0, np.where(np.isfinite(t_zero), t_zero, t_hi), 1, v_c)
+    t_zero = _crossing(modes, t_hi, 0, np.zeros(n), above=False)
+    t_clamp = _crossing(modes, np.where(np.isfinite(t_zero), t_zero, t_hi), 1, v_c)
     clamped = np.isfinite(t_clamp)
     t_top = np.where(np.isfinite(t_zero), t_zero, t_hi)
-    top = _state(a, eq, x0, t_top[:, None])[:, 0, 1]
-    at_clamp = _state(a, eq, x0, np.where(clamped, t_clamp, 0.0)[:, None])[:, 0, 0]
+    top = modes.value(1, t_top[:, None])[:, 0]
+    at_clamp = modes.value(0, np.where(clamped, t_clamp, 0.0)[:, None])[:, 0]
     v_peak = np.where(clamped, v_c, np.maximum(top, v0))
     e = np.where(clamped, clamp_energy(v_c, v, r, ell, np.maximum(at_clamp, 0.0)), 0.0)
     return v_peak, np.where(clamped, by_clamp, BY_INPUT), e

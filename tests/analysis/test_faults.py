@@ -119,7 +119,7 @@ def test_onset_with_input_capacitance_and_inductance_against_scipy():
     assert on["i_off"][0] == pytest.approx(end.y[0, -1], rel=1e-6)
     assert on["v_in_off"][0] == pytest.approx(end.y[1, -1], rel=1e-6)
     assert on["i_peak"][0] == pytest.approx((v - r * i0) / rds, rel=1e-12)
-    assert on["e"][0] == pytest.approx(end.y[2, -1], rel=1e-3)
+    assert on["e"][0] == pytest.approx(end.y[2, -1], rel=1e-6)
 
 
 def test_onset_soa_reads_the_shortest_curve_derated_from_the_start():
