@@ -23,8 +23,11 @@ from .rail_documents import hotswap_48v
 def _full_document() -> dict:
     """A rail document with every optional field given (a retry timer, every rule overridden)."""
     doc = copy.deepcopy(hotswap_48v())
-    doc["supply"].update(uvlo_filter=5e-6, c_in=10e-6)
+    doc["supply"].update(uvlo_filter=5e-6, c_in=10e-6, v_clamp=70.0)
     doc["switch"]["dvdt"] = 5000.0
+    doc["switch"].update(loop_response=2e-6, fast_trip=20.0, fast_trip_delay=0.5e-6)
+    doc["switch"]["timer"]["retries"] = 3
+    doc["fet"]["e_avalanche"] = 0.1
     doc["rules"] = dict(DEFAULT_RULES)
     read_rail(doc)  # a valid document
     return doc
