@@ -167,6 +167,8 @@ TURN_OFF_CASES = {
     "ring_then_clamp": dict(c_in=1e-6, v_clamp=20.0, vds_max=30.0, i=20.0, by=BY_CLAMP),
     # input capacitance rings and peaks below the breakdown
     "ring": dict(c_in=10e-6, v_clamp=None, vds_max=60.0, i=20.0, by=BY_INPUT),
+    # after a fast trip: the input capacitance partly discharged into the short (input at 4 V)
+    "after_fast_trip": dict(c_in=4.7e-6, v_clamp=24.0, vds_max=40.0, i=30.0, by=BY_CLAMP, v_in0=4.0),
 }
 
 
@@ -181,9 +183,10 @@ def test_turn_off_agrees_with_ngspice(name, tmp_path):
     v, r, ell = 12.0, 0.02, 1e-6
     rail = _rail(v=v, r=r, l=ell, rds_on=0.005, supply={"c_in": kw["c_in"], "v_clamp": kw["v_clamp"]},
                  fet_fields={"vds_max": kw["vds_max"]})
-    off = turn_off(rail, v_s=np.array([v]), i_off=np.array([kw["i"]]))
+    v_in0 = kw.get("v_in0", v - r * kw["i"])
+    off = turn_off(rail, v_s=np.array([v]), i_off=np.array([kw["i"]]), v_in0=np.array([v_in0]))
     assert off["by"][0] == kw["by"]
-    ng = simulate_turn_off(tmp_path, t_stop=20e-6, points=4000, v=v, r=r, l=ell, i0=kw["i"], v_in0=v - r * kw["i"],
+    ng = simulate_turn_off(tmp_path, t_stop=20e-6, points=4000, v=v, r=r, l=ell, i0=kw["i"], v_in0=v_in0,
                            c_in=kw["c_in"], v_clamp=kw["v_clamp"] or kw["vds_max"])
     # Source: ngspice transient (Gear, reltol 1e-6) of the same circuit, the clamp a steep diode to a DC source
     assert off["v_peak"][0] == pytest.approx(ng["v_peak"], rel=0.02)
