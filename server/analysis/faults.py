@@ -271,6 +271,10 @@ def onset(rail: Rail, *, v_s, i_lim, i_load, tj_start) -> dict:
     fired = np.isfinite(t_ft) & (t_ft <= t_loop)
     t_act = np.minimum(t_loop, t_ft)
     acted = np.where(fired, ACTED_FAST_TRIP, np.where(np.isfinite(t_loop), ACTED_LOOP, ACTED_NONE))
+    # a loop regulating at or above the fast-trip threshold trips it all the same, at the regulated current
+    i_reg = regulated_current(rail, v, i_lim)
+    late = (~fired & np.isfinite(t_loop) & (i_reg >= sw.fast_trip)) if sw.fast_trip is not None \
+        else np.zeros(n, bool)
     if c_in is None or ell == 0.0:
         peak, e, i_at, v_at = _first_order_onset(v, r, rds, i0, i_inf, tau, t_act, c_in)
     else:
@@ -278,8 +282,9 @@ def onset(rail: Rail, *, v_s, i_lim, i_load, tj_start) -> dict:
     allowed = allowed_current(fet, v, np.where(np.isfinite(t_act), t_act, np.inf), tj0)
     with np.errstate(divide="ignore", invalid="ignore"):
         ratio = np.where(peak > 0, allowed / peak, np.inf)
-    return {"i_peak": peak, "t_act": t_act, "acted": acted, "fired": fired,
-            "i_off": np.where(fired, i_at, np.nan), "v_in_off": np.where(fired, v_at, np.nan), "e": e,
+    return {"i_peak": peak, "t_act": t_act, "acted": acted, "fired": fired | late,
+            "i_off": np.where(fired, i_at, np.where(late, i_reg, np.nan)), "v_in_off": np.where(fired, v_at, np.nan),
+            "e": e,
             "i_final": i_inf, "rds": rds, "soa_allowed": allowed, "soa_ratio": ratio}
 
 

@@ -334,3 +334,12 @@ def test_results_with_the_fault_edges_validate_against_the_result_schema():
     model = AnalysisResult.model_validate(res)
     assert model.retry.pulses == 4 and model.retry.cooldown_ratio > 1
     assert model.short_circuit.onset is not None and model.short_circuit.worst.onset is not None
+
+
+def test_a_loop_regulating_above_the_fast_trip_still_trips_it():
+    rail = _rail(v=12.0, r=0.02, l=1e-6, rds_on=0.005, i_limit=20.0,
+                 switch={"loop_response": 0.2e-6, "fast_trip": 15.0, "fast_trip_delay": 5e-6})
+    on = onset(rail, v_s=np.array([12.0]), i_lim=np.array([20.0]), i_load=np.array([0.0]), tj_start=np.array([25.0]))
+    # the loop acts first (0.2 µs after 20 A), yet regulates at 20 A, above the 15 A threshold
+    assert on["acted"][0] == ACTED_LOOP and on["fired"][0]
+    assert on["i_off"][0] == 20.0
