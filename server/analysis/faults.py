@@ -148,7 +148,8 @@ class Modes:
         return self.eq[:, k, None] + (e1 + e2).real, (e1 * lam[:, None, 0] + e2 * lam[:, None, 1]).real
 
     def square_integral(self, k: int, t_end: np.ndarray) -> np.ndarray:
-        """int_0^T x_k(t)^2 dt, closed form: sums of int exp((l_i + l_j) t) dt = (exp((l_i + l_j) T) - 1) / (l_i + l_j)."""
+        """int_0^T x_k(t)^2 dt in closed form: sums of
+        int_0^T exp((l_i + l_j) t) dt = (exp((l_i + l_j) T) - 1) / (l_i + l_j)."""
         a, lam, e = self.amp[:, k, :], self.lam, self.eq[:, k]
         big_t = t_end.astype(complex)
 

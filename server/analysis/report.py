@@ -120,8 +120,9 @@ def _fault_edge_lines(sc: dict, retry: dict | None) -> list[str]:
         by = {"input_capacitance": "the input capacitance", "input_clamp": "the input clamp",
               "breakdown": "the FET's breakdown (avalanche)"}.get(off.get("clamped_by") or "", "nothing")
         event = "the fast trip" if off.get("event") == "fast_trip" else "the fault timer"
-        lines.append(f"  turn-off by {event} at {eng(off.get('i'), 'A')}: V_DS peaks at {eng(off.get('v_peak'), 'V')}"
-                     f" held by {by}; ½ L I² {eng(off.get('e_half_li2'), 'J')}, in the FET {eng(off.get('e_fet'), 'J')}")
+        lines.append(f"  turn-off by {event} at {eng(off.get('i'), 'A')}: V_DS peaks at "
+                     f"{eng(off.get('v_peak'), 'V')} held by {by}; ½ L I² {eng(off.get('e_half_li2'), 'J')}, "
+                     f"in the FET {eng(off.get('e_fet'), 'J')}")
     if retry:
         count = "without end" if retry.get("retries") is None else f"{retry['retries']} retries, then latches"
         lines.append(f"Retry at nominal: {count}; cool-down ratio {retry.get('cooldown_ratio', 0):.3g} (off / on); "
