@@ -122,12 +122,6 @@ BOARDS = [
         (_rail("FAN_24V", SUPPLY_24,
                {"c_nom": 47e-6, "c_tol": 0.2, "esr": 0.2, "model": "constant_current", "i_nom": 0.5, "v_on": 8.0},
                {"mode": "slew", "t_on": 100e-6, "dvdt": 2000.0}, 60.0), 1),
-        # an eFuse with a fast trip, a 3 µs current loop and three retries before it latches
-        (_rail("TOOL_PORT_24V", SUPPLY_24_CLAMPED,
-               {"c_nom": 100e-6, "c_tol": 0.2, "esr": 0.03, "model": "resistive", "i_nom": 1.5},
-               {"mode": "current_limit", "t_on": 100e-6, "i_limit": 4.0, "i_limit_tol": 0.1,
-                "loop_response": 3e-6, "fast_trip": 18.0, "fast_trip_delay": 400e-9,
-                "timer": {**_timer(22e-9, retry_off=1.0), "retries": 3}}, 60.0), 4),
     ]),
     ("Compute carrier", "A", [
         (_rail("SOM_12V", SUPPLY_12,
@@ -160,6 +154,12 @@ BOARDS = [
         (_rail("IR_LED_5V", SUPPLY_5,
                {"c_nom": 22e-6, "c_tol": 0.1, "esr": 0.05, "model": "constant_current", "i_nom": 1.0, "v_on": 2.5},
                {"mode": "hard", "t_on": 500e-6}, 70.0), 3),
+        # the 24 V accessory port: an eFuse with a fast trip, a 3 µs current loop and three retries before it latches
+        (_rail("ACCESSORY_24V", SUPPLY_24_CLAMPED,
+               {"c_nom": 100e-6, "c_tol": 0.2, "esr": 0.03, "model": "resistive", "i_nom": 1.5},
+               {"mode": "current_limit", "t_on": 100e-6, "i_limit": 4.0, "i_limit_tol": 0.1,
+                "loop_response": 3e-6, "fast_trip": 18.0, "fast_trip_delay": 400e-9,
+                "timer": {**_timer(22e-9, retry_off=1.0), "retries": 3}}, 60.0), 4),
     ]),
 ]
 
