@@ -206,7 +206,7 @@ def _key_figures(fig_n: dict, wc: WorstCase | None) -> list[dict]:
             finite = np.isfinite(vals)
             if finite.any():
                 pick = np.where(finite, vals, -np.inf if worse == "max" else np.inf)
-                j = int(np.argmax(pick) if worse == "max" else np.argmin(pick))
+                j = _first_extreme(pick, worse)
                 j = _corner_if_as_bad(wc, pick, j, worse)
                 keys = _keys(FIGURE_PARAMETERS.get(fid, _STARTUP), wc, j)
                 entry.update(worst=float(vals[j]), corner=wc.words(j, keys), found_by=wc.source[j])
@@ -218,13 +218,28 @@ def _key_figures(fig_n: dict, wc: WorstCase | None) -> list[dict]:
     return out
 
 
+# Values this close (relative) are one value: the last bits of a figure differ between builds of
+# numpy and scipy, and the row named for a figure must not flip with them.
+SAME_VALUE = 1e-9
+
+
+def _first_extreme(vals: np.ndarray, worse: str) -> int:
+    """The first row whose value is the extreme (highest for "max", lowest for "min") within `SAME_VALUE`."""
+    j = int(np.argmax(vals) if worse == "max" else np.argmin(vals))
+    if not np.isfinite(vals[j]):
+        return j
+    tie = abs(float(vals[j])) * SAME_VALUE
+    close = vals >= vals[j] - tie if worse == "max" else vals <= vals[j] + tie
+    return int(np.argmax(close))
+
+
 def _corner_if_as_bad(wc: "WorstCase", vals: np.ndarray, j: int, worse: str) -> int:
     """A corner as bad as row j (within the search's tie tolerance) names the case instead."""
     if wc.source[j] == "corner":
         return j
     n = len(wc.corners)
     corner = vals[:n]
-    k = int(np.argmax(corner) if worse == "max" else np.argmin(corner))
+    k = _first_extreme(corner, worse)
     tie = abs(vals[j]) * TIE
     as_bad = corner[k] >= vals[j] - tie if worse == "max" else corner[k] <= vals[j] + tie
     return k if as_bad else j

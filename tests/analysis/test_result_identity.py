@@ -5,8 +5,10 @@ every demo rail (`server/demo.py`) and every example rail file (`examples/rails/
 analysed on the sign-off basis (corners, the worst-case search, the headroom search, the
 nominal waveforms) with a seeded Monte Carlo of a few samples, and as a nominal quick look
 (headroom on the nominal point, no waveforms). The whole result is walked and compared with
-`data/result_identity.json`: every float to 1e-12 relative, everything else (keys, words,
-verdicts, counts, None) equal.
+`data/result_identity.json`: every float to 1e-8 relative, everything else (keys, words,
+verdicts, counts, None) equal. Builds of numpy and scipy differ in the last bits of their
+functions and the integrator's step control carries such a difference to about 1e-10 of a
+figure: 1e-8 still catches any change of method, which moves figures by far more.
 
 The stored reading is the engine's own earlier output, not an outside reference: a change
 that is meant to change numbers rewrites it on purpose, and its commit says why::
@@ -30,7 +32,7 @@ from server.demo import BOARDS, FETS
 
 ROOT = Path(__file__).resolve().parents[2]
 STORED = Path(__file__).resolve().parent / "data" / "result_identity.json"
-RTOL = 1e-12
+RTOL = 1e-8
 MC_SAMPLES = 8
 
 
@@ -65,7 +67,7 @@ def analyse_all() -> dict[str, dict]:
 def differences(expected, actual, path: str = "$") -> list[str]:
     """Where ``actual`` differs from ``expected``: floats beyond RTOL relative, anything else unequal."""
     if isinstance(expected, float) and isinstance(actual, float):
-        if math.isclose(expected, actual, rel_tol=RTOL, abs_tol=0.0):
+        if math.isclose(expected, actual, rel_tol=RTOL, abs_tol=1e-18):
             return []
         return [f"{path}: {actual!r} != {expected!r}"]
     if isinstance(expected, dict) and isinstance(actual, dict):
@@ -119,12 +121,12 @@ def test_the_comparison_finds_a_changed_number_key_and_word(stored):
     assert isinstance(i_peak, float) and i_peak > 0
     changed = copy.deepcopy(stored[case])
     changed["verdict"] = "different"
-    changed["startup"]["i_peak"] = i_peak * (1.0 + 1e-11)
+    changed["startup"]["i_peak"] = i_peak * (1.0 + 1e-7)
     changed["steady"]["extra"] = 0.0
     found = differences(stored[case], changed)
     assert [f.split(":")[0] for f in found] == ["$.verdict", "$.startup.i_peak", "$.steady"]
     within = copy.deepcopy(stored[case])
-    within["startup"]["i_peak"] = i_peak * (1.0 + 1e-13)
+    within["startup"]["i_peak"] = i_peak * (1.0 + 1e-9)
     assert differences(stored[case], within) == []
     assert differences({"n": 1}, {"n": 1.0}) != []
 
