@@ -44,6 +44,9 @@ import numpy as np
 
 from .bounds import (MAX_FOSTER_STAGES, MAX_SOA_CURVES, MAX_SOA_POINTS, NAME_MAX_LENGTH, NUMBER_LARGEST,
                      magnitude_problem, text_problem)
+
+MAX_PARALLEL_FETS = 64  # fet.count: more parallel FETs than this are not read
+MAX_RDS_POINTS = MAX_SOA_POINTS  # fet.rds_on_curve: at most this many points
 from .errors import DocumentError
 from .rules import DEFAULT_RULES, RULE_RANGES
 from .units import KIND_SYMBOLS, quantity
@@ -98,6 +101,7 @@ DEFAULTS: dict[str, float | str] = {
     "switch.timer.after_fault": "latch",
     "fet.rds_on_alpha": 0.005,
     "fet.soa.t_case": 25.0,
+    "fet.count": 1,
 }
 
 # Fields that may be absent or null, with no default: absent means "none" (no UVLO, no timer,
@@ -105,7 +109,7 @@ DEFAULTS: dict[str, float | str] = {
 OPTIONAL: frozenset[str] = frozenset({
     "supply.i_max", "supply.uvlo", "supply.uvlo_filter", "supply.c_in",
     "switch.dvdt", "switch.i_limit", "switch.p_limit", "switch.timer", "switch.timer.retry_off",
-    "fet.id_pulse_max", "fet.soa.curves[].t_pulse",
+    "fet.id_pulse_max", "fet.soa.curves[].t_pulse", "fet.rds_on_max", "fet.rds_on_curve",
     *(f"rules.{k}" for k in DEFAULT_RULES),
 })
 
@@ -164,6 +168,8 @@ BOUNDS: dict[str, Bound] = {
     "switch.timer.i_charge_tol": TOLERANCE, "switch.timer.v_trip": POSITIVE, "switch.timer.v_trip_tol": TOLERANCE,
     "switch.timer.retry_off": POSITIVE,
     "fet.vds_max": POSITIVE, "fet.id_pulse_max": POSITIVE, "fet.rds_on": POSITIVE, "fet.rds_on_alpha": NON_NEGATIVE,
+    "fet.rds_on_max": POSITIVE, "fet.count": Bound(minimum=1.0, maximum=float(MAX_PARALLEL_FETS),
+                                                 note="identical FETs in parallel, a whole number"),
     "fet.tj_max": TEMPERATURE, "fet.rth_ja": POSITIVE, "fet.zth[].r": POSITIVE, "fet.zth[].tau": POSITIVE,
     "fet.soa.t_case": TEMPERATURE, "fet.soa.curves[].t_pulse": POSITIVE,
     "environment.t_ambient": TEMPERATURE,
@@ -178,7 +184,8 @@ FIELD_KEYS: dict[str, tuple[str, ...]] = {
     "load": ("c_nom", "c_tol", "esr", "model", "i_nom", "v_on"),
     "switch": ("mode", "t_on", "dvdt", "i_limit", "i_limit_tol", "p_limit", "timer"),
     "switch.timer": ("c", "c_tol", "i_charge", "i_charge_tol", "v_trip", "v_trip_tol", "after_fault", "retry_off"),
-    "fet": ("name", "vds_max", "id_pulse_max", "rds_on", "rds_on_alpha", "tj_max", "rth_ja", "zth", "soa"),
+    "fet": ("name", "vds_max", "id_pulse_max", "rds_on", "rds_on_alpha", "tj_max", "rth_ja", "zth", "soa",
+            "rds_on_max", "rds_on_curve", "count"),
     "fet.zth[]": ("r", "tau"),
     "fet.soa": ("t_case", "curves"),
     "fet.soa.curves[]": ("t_pulse", "points"),
@@ -257,6 +264,9 @@ class Fet:
     zth: tuple[tuple[float, float], ...]  # (r K/W, tau s)
     t_case: float
     curves: tuple[SoaCurve, ...]  # finite pulses by increasing t_pulse, DC last
+    rds_on_max: float | None = None  # ohm: datasheet maximum at 25 degC; None: no spread
+    rds_on_curve: tuple[tuple[float, float], ...] | None = None  # (tj degC, Rds/Rds(25 degC)), tj rising
+    count: int = 1  # identical FETs in parallel (a rail's figure, not the part's)
 
 
 @dataclass(frozen=True)
@@ -591,6 +601,7 @@ def _read_fet_section(r: _Reader, doc: dict, t_ambient: float | None) -> Fet | N
     if tj_max is not None and t_ambient is not None and tj_max <= t_ambient:
         r.fail("fet.tj_max", f"must be above the worst-case high ambient temperature ({quantity(t_ambient, 'degC')})")
     values = {key: r.number(sec, key, w) for key in ("vds_max", "id_pulse_max", "rds_on", "rds_on_alpha", "rth_ja")}
+    values.update(_read_rds_spread(r, sec, values["rds_on"]))
     zth = _read_zth(r, sec)
     soa = r.obj(sec, "soa", w)
     t_case = curves = None
@@ -601,6 +612,53 @@ def _read_fet_section(r: _Reader, doc: dict, t_ambient: float | None) -> Fet | N
                                      f"({quantity(tj_max, 'degC')}): the curves are measured below it")
         curves = _read_curves(r, soa)
     return Fet(name=name, tj_max=tj_max, zth=zth, t_case=t_case, curves=curves, **values)
+
+
+def _read_rds_spread(r: _Reader, sec: dict, rds_on: float | None) -> dict:
+    """``rds_on_max`` (at least rds_on), ``rds_on_curve`` (points) and ``count`` (a whole number)."""
+    rds_max = r.number(sec, "rds_on_max", "fet")
+    if rds_max is not None and rds_on is not None and rds_max < rds_on:
+        r.fail("fet.rds_on_max", f"must not be below the typical R_DS(on) ({quantity(rds_on, 'ohm')}): it is the "
+                                 "datasheet maximum at 25 \u00b0C")
+    count = r.number(sec, "count", "fet")
+    if count is not None and count != int(count):
+        r.fail("fet.count", f"must be a whole number of FETs (got {count:g})")
+        count = None
+    curve = _read_rds_curve(r, sec.get("rds_on_curve"))
+    return {"rds_on_max": rds_max, "rds_on_curve": curve, "count": int(count) if count is not None else 1}
+
+
+def _read_rds_curve(r: _Reader, points: Any) -> tuple[tuple[float, float], ...] | None:
+    """The [Tj degC, Rds(on)/Rds(on, 25 degC)] points: Tj strictly rising, ratios positive."""
+    field = "fet.rds_on_curve"
+    if points is None:
+        return None
+    if not isinstance(points, list) or len(points) < 2:
+        r.fail(field, "needs at least two [T_j, ratio] points")
+        return None
+    if len(points) > MAX_RDS_POINTS:
+        r.fail(field, f"has {len(points)} points; at most {MAX_RDS_POINTS} are read")
+        return None
+    parsed: list[tuple[float, float]] = []
+    for j, p in enumerate(points):
+        pw = f"{field}[{j}]"
+        if (not isinstance(p, (list, tuple)) or len(p) != 2
+                or not all(_is_number(q) and magnitude_problem(q) is None for q in p)):
+            r.fail(pw, f"must be a [T_j, ratio] pair of finite numbers of at most {NUMBER_LARGEST:g}: T_j in "
+                       "\u00b0C and R_DS(on) / R_DS(on) at 25 \u00b0C")
+            return None
+        tj, ratio = float(p[0]), float(p[1])
+        if tj <= ABSOLUTE_ZERO:
+            r.fail(pw, f"T_j must be above absolute zero (got {tj:g} \u00b0C)")
+            return None
+        if ratio <= 0.0:
+            r.fail(pw, f"the ratio must be positive (got {ratio:g})")
+            return None
+        if parsed and tj <= parsed[-1][0]:
+            r.fail(pw, f"T_j must increase from point to point ({tj:g} \u00b0C follows {parsed[-1][0]:g} \u00b0C)")
+            return None
+        parsed.append((tj, ratio))
+    return tuple(parsed)
 
 
 def _read_fet(doc: dict, t_ambient: float | None) -> Fet:
