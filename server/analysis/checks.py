@@ -368,7 +368,7 @@ def check_detail(cid: str, fig: dict, row: int, rail: Rail, rules: dict) -> str:
         what = "" if status == STATUS_OK else " of what happens (the start does not complete normally)"
         text = (f"Foster network from {temp(rail.t_ambient)}: peak {temp(f['tj_peak'])}{what}, "
                 f"FET energy {eng(f['e_fet'], 'J')}.")
-        if f.get("linear_share", 1.0) != 1.0:
+        if fet.count != 1:
             text += (f" The worst of {fet.count} parallel FETs takes {100 * f['linear_share']:.3g} % of the "
                      "pulse (team rule linear_share).")
         if f.get("tj_beyond", False):
@@ -430,7 +430,7 @@ def check_detail(cid: str, fig: dict, row: int, rail: Rail, rules: dict) -> str:
     if cid == "fet_pulse_current":
         if fet.id_pulse_max is None:
             return "No pulsed drain current rating given."
-        if f.get("linear_share", 1.0) != 1.0:
+        if fet.count != 1:
             return (f"Inrush peak {eng(f['i_peak'], 'A')}; the worst of {fet.count} parallel FETs carries "
                     f"{eng(f['fet_i_peak'], 'A')} (team rule linear_share) against the rating "
                     f"{eng(fet.id_pulse_max, 'A')}.")

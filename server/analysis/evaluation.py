@@ -49,14 +49,19 @@ class RowParams:
     ``v_s`` supply (V), ``c`` load capacitance (F), ``i_lim`` current limit (A,
     ``NO_LIMIT`` without one), ``t_fault`` fault-timer trip time (s, ``inf`` without a
     timer), ``rds`` Rds(on) at 25 degC of the FET (ohm: the part's typical ``rds_on``, or
-    between it and ``rds_on_max`` where the part gives a maximum).
+    between it and ``rds_on_max`` where the part gives a maximum; 0 or left out: the
+    typical).
     """
 
     v_s: np.ndarray
     c: np.ndarray
     i_lim: np.ndarray
     t_fault: np.ndarray
-    rds: np.ndarray
+    rds: np.ndarray | None = None
+
+    def __post_init__(self) -> None:
+        if self.rds is None:  # the part's typical Rds(on) (see `rds_rows`)
+            self.rds = np.zeros(np.shape(self.v_s))
 
     @property
     def n(self) -> int:
@@ -82,6 +87,11 @@ def nominal_point(rail: Rail, t_fault_nom: float) -> RowParams:
                      rds=a(rail.fet.rds_on))
 
 
+def rds_rows(rail: Rail, params: RowParams) -> np.ndarray:
+    """The FET's Rds(on) at 25 degC of every row, ohm (a row without one: the part's typical)."""
+    return np.where(params.rds > 0.0, params.rds, rail.fet.rds_on)
+
+
 def linear_share(rail: Rail, rules: dict) -> float:
     """The share of the switch current the worst FET carries in linear mode (start-up regulation,
     short circuit): 1 for one FET; for parallel FETs the team rule ``linear_share`` (default 1:
@@ -97,7 +107,7 @@ def startup_rows(rail: Rail, params: RowParams, *, record: int | None = None,
                  max_steps: int = MAX_STEPS, share: float = 1.0) -> StartupFigures:
     """Start-up transient of every row (one batch integration); ``share``: `linear_share`."""
     cz = circuit_rows(rail, v_s=params.v_s, c=params.c, i_limit=params.i_lim, t_fault=params.t_fault,
-                      rds=params.rds, share=share)
+                      rds=rds_rows(rail, params), share=share)
     return simulate_startup(cz, record=record, max_steps=max_steps)
 
 
@@ -184,8 +194,8 @@ def evaluate_rows(rail: Rail, rules: dict, params: RowParams, *, startup: Startu
     if startup is None:
         startup = startup_rows(rail, params, record=record, max_steps=max_steps, share=share)
     t_amb = rail.t_ambient
-    cz = circuit_rows(rail, v_s=params.v_s, c=params.c, i_limit=params.i_lim, t_fault=params.t_fault,
-                      rds=params.rds)
+    rds = rds_rows(rail, params)
+    cz = circuit_rows(rail, v_s=params.v_s, c=params.c, i_limit=params.i_lim, t_fault=params.t_fault, rds=rds)
     fig: dict = {"n": n, "status": startup.status, "v_s": params.v_s, "c": params.c, "i_lim": params.i_lim,
                  "t_fault": params.t_fault, "v_target": cz.final_output(t_amb)[0]}
     for name in ("i_peak", "t_i_peak", "t_limit", "t_settle", "e_fet", "p_fet_peak", "tj_peak", "v_supply_min",
@@ -197,7 +207,7 @@ def evaluate_rows(rail: Rail, rules: dict, params: RowParams, *, startup: Startu
     fig["dip_unbounded"] = np.asarray(getattr(startup, "dip_unbounded", np.zeros(n, bool)), dtype=bool)
     fig.update(_soa_pulses(rail, startup, share))
     # the Rds(on) of the row, the worst FET's share of the pulse, and where the junction left the part's data
-    fig["rds"] = params.rds
+    fig["rds"] = rds
     fig["linear_share"] = share
     fig["fet_i_peak"] = fig["i_peak"] * share if share != 1.0 else fig["i_peak"]
     rds_t = cz.rds_t
@@ -239,7 +249,7 @@ def evaluate_rows(rail: Rail, rules: dict, params: RowParams, *, startup: Startu
         st = {"i": nan, "i_fet": nan, "p_fet": nan, "tj": nan, "v_drop": nan, "stable": np.zeros(n, bool),
               "dc_ok": np.zeros(n, bool), "beyond": np.zeros(n, bool)}
     else:
-        st = steady_state(rail, v_s=params.v_s, rds=params.rds)
+        st = steady_state(rail, v_s=params.v_s, rds=rds)
     for k, v in st.items():
         fig["steady_" + k] = v
 

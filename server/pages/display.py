@@ -83,6 +83,7 @@ def check_row(c: CheckRecord) -> dict[str, Any]:
         "detail": c.detail, "corner": c.corner, "found_by": c.found_by,
         "found_by_text": FOUND_BY_TEXT.get(c.found_by or "", ""),
         "nominal_value": value_text(c.nominal.value, c.unit), "nominal_verdict": c.nominal.verdict,
+        "rds_on": fmt(c.rds_on, "ohm") if getattr(c, "rds_on", None) is not None else None,
     }
 
 
