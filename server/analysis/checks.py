@@ -363,7 +363,7 @@ def check_detail(cid: str, fig: dict, row: int, rail: Rail, rules: dict) -> str:
         return (f"Equivalent rectangle {eng(f['pulse_p_peak'], 'W')} for {eng(f['pulse_t_equiv'], 's')} at "
                 f"{eng(f['pulse_v_ds'], 'V')}, {eng(f['pulse_i'], 'A')}{which}; the SOA derated to "
                 f"{temp(f['pulse_tj_start'])} allows {eng(f['soa_i_allowed'], 'A')}. The chart is read without "
-                "extrapolation.")
+                "extrapolation." + _share_words(f, fet))
     if cid == "startup_tj":
         what = "" if status == STATUS_OK else " of what happens (the start does not complete normally)"
         text = (f"Foster network from {temp(rail.t_ambient)}: peak {temp(f['tj_peak'])}{what}, "
@@ -381,6 +381,10 @@ def check_detail(cid: str, fig: dict, row: int, rail: Rail, rules: dict) -> str:
         by = "SOA curves" if f["sc_t_soa"] <= f["sc_t_thermal"] else "Foster network"
         tf = "no fault timer" if not np.isfinite(f["t_fault"]) else f"the timer trips by {eng(f['t_fault'], 's')}"
         allow = "indefinitely" if not np.isfinite(f["sc_t_allow"]) else eng(f["sc_t_allow"], "s")
+        if fet.count != 1:
+            return (f"{eng(f['sc_p'], 'W')} in the worst of {fet.count} parallel FETs ({eng(f['v_s'], 'V')}, "
+                    f"{eng(f['sc_i_fet'], 'A')} of the {eng(f['sc_i'], 'A')} limit, team rule linear_share): it "
+                    f"survives {allow} ({by}); {tf}.")
         return (f"{eng(f['sc_p'], 'W')} ({eng(f['v_s'], 'V')}, {eng(f['sc_i'], 'A')}): the FET survives "
                 f"{allow} ({by}); {tf}.")
     if cid == "timer_startup":
@@ -436,6 +440,14 @@ def check_detail(cid: str, fig: dict, row: int, rail: Rail, rules: dict) -> str:
                     f"{eng(fet.id_pulse_max, 'A')}.")
         return f"Inrush peak {eng(f['i_peak'], 'A')} against the rating {eng(fet.id_pulse_max, 'A')}."
     return ""
+
+
+def _share_words(f: dict, fet) -> str:
+    """With parallel FETs: the share of the pulse the worst one carries (team rule linear_share)."""
+    if fet.count == 1:
+        return ""
+    return (f" The pulse is the worst of {fet.count} parallel FETs': {100 * f['linear_share']:.3g} % of the current "
+            "(team rule linear_share; default one FET carries it all, common practice, no source).")
 
 
 def _dip_words(f: dict, rail: Rail) -> str:
