@@ -58,8 +58,8 @@ RULE_DESCRIPTIONS: dict[str, dict[str, str]] = {
         "unit": "ratio",
         "meaning": "share of the total current the worst of parallel FETs carries in linear mode (start-up "
                    "regulation, short circuit); 1: one FET carries it all (threshold spread); never below "
-                   "1 / fet.count",
-        "basis": "common practice, no source",
+                   "1 / fet.count (no source for the default)",
+        "basis": "common practice",
     },
 }
 
