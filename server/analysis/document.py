@@ -32,6 +32,13 @@ datasheet: the UVLO trips only when the switch input stays below it continuously
 long. Absent, the raw dip is compared. ``supply.c_in`` (F, optional) is the capacitance at
 the switch input, which bounds the dip. ``environment.t_ambient`` has no default: a default
 ambient of our own would make the thermal checks easier to pass.
+
+``fet.rds_on_max`` (ohm, optional, at least ``rds_on``) is the datasheet maximum Rds(on) at
+25 degC: Rds(on) then spreads from typical to maximum in the corners, the worst-case search
+and the Monte Carlo. ``fet.rds_on_curve`` (optional) is the datasheet's normalised Rds(on)
+curve as [Tj degC, Rds(on)/Rds(on, 25 degC)] points, Tj strictly rising and ratios
+positive, used instead of ``rds_on_alpha``. ``fet.count`` (a whole number, default 1) is the
+rail's number of identical FETs in parallel (the rail's figure, not the part's).
 """
 
 from __future__ import annotations
