@@ -110,17 +110,22 @@ def distributions_for(distribution: str | dict | None) -> dict[str, str]:
     Returns
     -------
     dict
-        ``{parameter: "uniform" | "normal"}`` for every name of `PARAMETERS`.
+        ``{parameter: "uniform" | "normal"}`` for every name of `PARAMETERS`, and for a
+        name of `SPREAD_PARAMETERS` (``rds_on``) only where it is given or off the default
+        (so that the options of a run without it read as before).
     """
     if distribution is None:
         distribution = {}
     if isinstance(distribution, str):
         if distribution not in DISTRIBUTIONS:
             raise ValueError("distribution: must be uniform or normal")
-        return {p: distribution for p in PARAMETERS + SPREAD_PARAMETERS}
+        out = {p: distribution for p in PARAMETERS}
+        if distribution != DEFAULT_DISTRIBUTION:  # the spread parameters are named only off their default
+            out.update({p: distribution for p in SPREAD_PARAMETERS})
+        return out
     if not isinstance(distribution, dict):
         raise ValueError("distribution: a word or a dict of parameter -> word")
-    out = {p: DEFAULT_DISTRIBUTION for p in PARAMETERS + SPREAD_PARAMETERS}
+    out = {p: DEFAULT_DISTRIBUTION for p in PARAMETERS}
     for key, value in distribution.items():
         if key not in PARAMETERS + SPREAD_PARAMETERS:
             raise ValueError(f"distribution: unknown parameter {key!r} (one of {', '.join(PARAMETERS)})")
@@ -185,8 +190,9 @@ def sample_params(rail: Rail, n: int, *, seed: int, distribution: str | dict | N
     fet = rail.fet
     if fet.rds_on_max is not None and fet.rds_on_max > fet.rds_on:
         # drawn last, so the other parameters' draws stay those of a part without a maximum
-        zr = _draw(rng, n, kinds["rds_on"])
-        if kinds["rds_on"] == "uniform":  # uniform on [typical, maximum]
+        kind = kinds.get("rds_on", DEFAULT_DISTRIBUTION)
+        zr = _draw(rng, n, kind)
+        if kind == "uniform":  # uniform on [typical, maximum]
             rds = fet.rds_on + (zr + 1.0) * 0.5 * (fet.rds_on_max - fet.rds_on)
         else:  # normal around the typical with the maximum at 3 sigma, folded at the typical
             rds = fet.rds_on + np.abs(zr) * (fet.rds_on_max - fet.rds_on)
@@ -299,8 +305,9 @@ def run_monte_carlo(rail: Rail, rules: dict, n: int, *, seed: int = 0, distribut
     return {
         "n": n,
         "seed": seed,
-        "distributions": {k: v for k, v in kinds.items()
-                          if k in PARAMETERS or (k == "rds_on" and rail.fet.rds_on_max is not None)},
+        "distributions": {k: v for k, v in kinds.items() if k in PARAMETERS}
+                         | ({"rds_on": kinds.get("rds_on", DEFAULT_DISTRIBUTION)}
+                            if rail.fet.rds_on_max is not None else {}),
         "yield": k_pass / n,
         "yield_ci95": list(wilson_interval(k_pass, n)),
         "yield_no_fail": k_nofail / n,

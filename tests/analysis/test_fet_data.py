@@ -223,3 +223,18 @@ def test_linear_share_rule_scales_the_short_circuit_and_start_up_pulse():
     assert_allclose(fig["pulse_t_equiv"][0], fig1["pulse_t_equiv"][0], rtol=1e-3)
     # its junction: the Foster rise of 0.7 of the power (superposition), a smaller rise
     assert 60.0 < fig["tj_peak"][0] < fig1["tj_peak"][0]
+
+
+def test_monte_carlo_draws_rds_inside_typical_to_maximum_and_keeps_old_draws():
+    from server.analysis.montecarlo import distributions_for, sample_params
+    doc = efuse_12v()
+    plain, _ = sample_params(read_rail(doc), 500, seed=3, distribution="uniform")
+    doc["fet"]["rds_on_max"] = 2.6e-3
+    for kind in ("uniform", "normal"):
+        p, draws = sample_params(read_rail(doc), 500, seed=3, distribution=kind)
+        assert np.all((p.rds >= 2e-3) & (p.rds <= 2.6e-3)) and np.ptp(p.rds) > 0.3e-3
+    p, _ = sample_params(read_rail(doc), 500, seed=3, distribution="uniform")
+    # drawn last: the other parameters' samples are those of the part without a maximum
+    assert np.array_equal(p.v_s, plain.v_s) and np.array_equal(p.c, plain.c) and np.array_equal(p.t_fault, plain.t_fault)
+    # a run's options without the spread read as before (no rds_on key at the default)
+    assert "rds_on" not in distributions_for("uniform") and distributions_for("normal")["rds_on"] == "normal"
