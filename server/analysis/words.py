@@ -104,7 +104,7 @@ FIELD_TITLES: dict[str, FieldWords] = {
                           "T_j rising; blank: the linear coefficient up to T_j(max)"),
     "fet.rds_on_curve[]": W("R_DS(on) against junction temperature, point {0}", None,
                             "[T_j (\u00b0C), ratio]"),
-    "fet.count": W("Identical MOSFETs in parallel", None, "a whole number; 1: one MOSFET"),
+    "fet.count": W("Identical MOSFETs in parallel", "ratio", "a whole number; 1: one MOSFET"),
     "fet.tj_max": W("MOSFET maximum junction temperature", "degC", "T_j(max) from the datasheet"),
     "fet.rth_ja": W("MOSFET thermal resistance, junction to ambient", "K/W", "as mounted on the board"),
     "fet.zth": W("Foster stages (junction to ambient)", None, "one r (K/W), tau (s) pair per stage"),
