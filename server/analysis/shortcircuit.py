@@ -78,4 +78,5 @@ def short_circuit(rail: Rail, *, v_ds, i_limit, t_fault, share: float = 1.0) -> 
     tf = np.broadcast_to(np.asarray(t_fault, dtype=float), v.shape)
     with np.errstate(invalid="ignore", divide="ignore"):
         margin = np.where(np.isinf(t_allow), np.inf, np.where(np.isinf(tf), 0.0, t_allow / tf))
-    return {"v_ds": v, "i": i, "i_fet": i_fet, "p": p, "t_soa": t_soa, "t_thermal": t_th, "t_allow": t_allow, "margin": margin}
+    return {"v_ds": v, "i": i, "i_fet": i_fet, "p": p, "t_soa": t_soa, "t_thermal": t_th, "t_allow": t_allow,
+            "margin": margin}

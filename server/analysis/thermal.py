@@ -547,7 +547,8 @@ class RdsTemperature:
     def words(self) -> str:
         """Where the data ends, in words."""
         if self.curve is None:
-            return f"the linear R_DS(on) coefficient holds up to the maximum junction temperature {self.t_high:g} \u00b0C"
+            return ("the linear R_DS(on) coefficient holds up to the maximum junction temperature "
+                    f"{self.t_high:g} \u00b0C")
         return f"the R_DS(on) table covers {self.t_low:g} \u00b0C to {self.t_high:g} \u00b0C"
 
 

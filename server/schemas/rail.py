@@ -32,7 +32,8 @@ from server.units import parse_quantity
 
 __all__ = [
     "SCHEMA_ID", "Supply", "PathImpedance", "Load", "Timer", "Switch", "FosterStage", "SoaCurve",
-    "Soa", "Fet", "Environment", "Rules", "RailDocument", "normalize", "part_document", "part_data", "RAIL_FET_KEYS", "canonical_json",
+    "Soa", "Fet", "Environment", "Rules", "RailDocument", "normalize", "part_document", "part_data",
+    "RAIL_FET_KEYS", "canonical_json",
     "document_sha256",
 ]
 
