@@ -79,6 +79,11 @@ FETS = [
             [(0.04, 25e-6), (0.2, 6e-4), (0.8, 1e-2), (4.5, 0.3), (26.5, 7.0)],
             {1e-4: 2600.0, 1e-3: 760.0, 1e-2: 240.0, 1e-1: 80.0, None: 45.0}),
      "e_avalanche": 0.12},
+    # with its R_DS(on) maximum and normalised curve over temperature (invented, as the rest)
+    {**_fet("BW-N60L4 (demo)", 60.0, 4.2e-3, 400.0, 28.0,
+            [(0.02, 40e-6), (0.12, 8e-4), (0.5, 1.2e-2), (3.2, 0.35), (24.16, 9.0)],
+            {1e-4: 3200.0, 1e-3: 950.0, 1e-2: 300.0, 1e-1: 100.0, None: 55.0}, tj_max=175.0),
+     "rds_on_max": 5.4e-3, "rds_on_curve": [[-55.0, 0.6], [25.0, 1.0], [100.0, 1.42], [150.0, 1.72], [175.0, 1.9]]},
 ]
 
 
@@ -116,9 +121,10 @@ BOARDS = [
                {"c_nom": 100e-6, "c_tol": 0.2, "esr": 0.05, "model": "resistive", "i_nom": 0.6},
                {"mode": "current_limit", "t_on": 100e-6, "i_limit": 1.5, "i_limit_tol": 0.15,
                 "timer": _timer(150e-9, retry_off=0.5)}, 60.0), 1),
-        (_rail("HEATER_24V", SUPPLY_24,
-               {"c_nom": 10e-6, "c_tol": 0.1, "esr": 0.1, "model": "resistive", "i_nom": 2.0},
-               {"mode": "hard", "t_on": 2e-3}, 60.0), 1),
+        # two FETs of the one part in parallel (the rail's own figure, fet.count)
+        ({**_rail("HEATER_24V", SUPPLY_24,
+                  {"c_nom": 10e-6, "c_tol": 0.1, "esr": 0.1, "model": "resistive", "i_nom": 8.0},
+                  {"mode": "hard", "t_on": 2e-3}, 60.0), "fet": {"count": 2}}, 4),
         (_rail("FAN_24V", SUPPLY_24,
                {"c_nom": 47e-6, "c_tol": 0.2, "esr": 0.2, "model": "constant_current", "i_nom": 0.5, "v_on": 8.0},
                {"mode": "slew", "t_on": 100e-6, "dvdt": 2000.0}, 60.0), 1),

@@ -13,13 +13,16 @@ The column set (README, "Importing a table of rails"):
 - a unit in square brackets after the name (``load.c_nom [uF]``) applies to bare numbers of
   the column; a cell may carry its own unit ("680uF") instead; a bare number without either is
   in SI units;
-- list-valued fields, ``fet.zth`` (Foster stages) and ``fet.soa.curves`` (SOA curves), as a
-  JSON cell (``[{"r": 0.5, "tau": "1ms"}]``; ``[{"t_pulse": "10ms", "points": [[1, 100], [30, 3]]}]``),
-  or, in a workbook, on a second sheet named after the field: ``fet.zth`` with columns
-  ``board``, ``rail``, ``r``, ``tau`` (one stage per row, in order) and ``fet.soa.curves`` with
-  columns ``board``, ``rail``, ``t_pulse``, ``v_ds``, ``i_d`` (one point per row; the rows of
-  one pulse width make its curve, curves and points in the order of the sheet; ``DC`` or a
-  blank pulse width is the DC curve).
+- list-valued fields, ``fet.zth`` (Foster stages), ``fet.soa.curves`` (SOA curves) and
+  ``fet.rds_on_curve`` (R_DS(on) / R_DS(on) at 25 degC against T_j), as a JSON cell
+  (``[{"r": 0.5, "tau": "1ms"}]``; ``[{"t_pulse": "10ms", "points": [[1, 100], [30, 3]]}]``;
+  ``[[25, 1.0], [100, 1.4], [150, 1.75]]``), or, in a workbook, on a second sheet named after
+  the field: ``fet.zth`` with columns ``board``, ``rail``, ``r``, ``tau`` (one stage per row, in
+  order), ``fet.soa.curves`` with columns ``board``, ``rail``, ``t_pulse``, ``v_ds``, ``i_d``
+  (one point per row; the rows of one pulse width make its curve, curves and points in the
+  order of the sheet; ``DC`` or a blank pulse width is the DC curve) and ``fet.rds_on_curve``
+  with columns ``board``, ``rail``, ``tj``, ``ratio`` (one point per row, in order);
+- ``fet.count`` (parallel FETs) is the rail's own figure: it may be given beside a ``part``.
 
 Blank rows and rows whose first cell starts with ``#`` are skipped. The first sheet of a
 workbook holds the table; numbers count from the table's header (row 1), as a spreadsheet
@@ -50,7 +53,8 @@ __all__ = ["TableRow", "RailTable", "TableInvalid", "read_csv", "read_xlsx", "re
 
 MAX_ROWS = 5000
 META_COLUMNS = ("board", "board_revision", "part", "part_revision")
-LIST_FIELDS = {"fet.zth": ("r", "tau"), "fet.soa.curves": ("t_pulse", "v_ds", "i_d")}
+LIST_FIELDS = {"fet.zth": ("r", "tau"), "fet.soa.curves": ("t_pulse", "v_ds", "i_d"),
+               "fet.rds_on_curve": ("tj", "ratio")}
 _SECTIONS = ("supply", "path", "load", "switch", "environment")
 _HEADER = re.compile(r"^\s*(?P<name>.*?)\s*(?:\[(?P<unit>[^\]]*)\])?\s*$")
 _NUMBER = re.compile(r"^[-+]?(\d+\.?\d*|\.\d+)([eE][-+]?\d+)?$")
@@ -265,6 +269,10 @@ def _stages(items: list[dict]) -> list[dict[str, Any]]:
     return [{"r": _cell_value(i["r"], ""), "tau": _cell_value(i["tau"], "")} for i in items]
 
 
+def _rds_points(items: list[dict]) -> list[list[Any]]:
+    return [[_cell_value(i["tj"], ""), _cell_value(i["ratio"], "")] for i in items]
+
+
 def _curves(items: list[dict]) -> list[dict[str, Any]]:
     curves: dict[str, dict[str, Any]] = {}
     for i in items:
@@ -289,7 +297,7 @@ def read_xlsx(data: bytes) -> RailTable:
                  if path in sheets[1:]}
     finally:
         book.close()
-    build = {"fet.zth": _stages, "fet.soa.curves": _curves}
+    build = {"fet.zth": _stages, "fet.soa.curves": _curves, "fet.rds_on_curve": _rds_points}
     for path, groups in lists.items():
         for row in table.rows:
             items = groups.get((row.board, row.name))

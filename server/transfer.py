@@ -35,7 +35,7 @@ from server.analysis.words import field_title
 from server.bundle import PartLink, RailEntry, RailFile, bundle_dict, rail_entry_dict, read_rail_file
 from server.rail_table import RailTable, TableRow
 from server.models import Board, Part, PartRevision, Product, Rail, RailRevision, Team
-from server.schemas.rail import document_sha256
+from server.schemas.rail import RAIL_FET_KEYS, document_sha256, part_data
 from server.schemas.validation import DocumentInvalid
 from server.services import catalog, rail_edits, rails
 from server.services.access import Actor, Permission
@@ -186,7 +186,7 @@ def _named_part(session: Session, link: PartLink, fet: dict[str, Any]) -> tuple[
     rev = session.scalar(select(PartRevision).where(PartRevision.part_id == part.id, PartRevision.n == link.revision))
     if rev is None:
         return None, f"is not in this library (it holds revisions 1 to {part.head_n} of that part)"
-    if rev.document != fet:
+    if part_data(rev.document) != part_data(fet):
         return None, "differs here from the FET in the file"
     return rev, ""
 
@@ -195,7 +195,7 @@ def _choose_part(session: Session, plan: _Plan, report: ImportReport) -> None:
     """The part revision the rail is stored with, noting a part the file names that cannot be linked."""
     fet = plan.document["fet"]
     present = plan.head.part_revision if plan.head is not None else None
-    present_fits = present is not None and present.document == fet
+    present_fits = present is not None and part_data(present.document) == part_data(fet)
     link = plan.entry.part
     if link is None:
         plan.part = present if present_fits else None
@@ -439,11 +439,11 @@ def _plan_row(session: Session, row: TableRow, boards: dict[tuple[str, str], Boa
         plan.part, problem = _table_part(session, row)
         if problem:
             plan.errors.append(problem)
-        elif document.get("fet"):
+        elif document.get("fet") and not set(document["fet"]) <= RAIL_FET_KEYS:
             plan.errors.append(_row_error("fet", f"the rail uses part '{row.part}', which brings its MOSFET: "
                                                  "leave the MOSFET columns empty"))
-        else:
-            document["fet"] = plan.part.document
+        else:  # the part's MOSFET, in the number the row gives (fet.count)
+            document["fet"] = {**plan.part.document, **(document.get("fet") or {})}
     try:
         plan.document = rails.normalize_document(document, prefix="")
     except Invalid as exc:   # without the part it names, the row's missing MOSFET is no problem of its own

@@ -176,7 +176,10 @@ def test_a_part_that_differs_here_is_not_linked_and_says_so(session_factory, dem
     with session_factory() as s:
         _fresh_installation(s)
         for fet in FETS:
-            parts.create_part(session=s, actor=SYSTEM, document={**fet, "rds_on": fet["rds_on"] * 1.5})
+            differs = {**fet, "rds_on": fet["rds_on"] * 1.5}
+            if "rds_on_max" in fet:  # the maximum stays at or above the typical
+                differs["rds_on_max"] = fet["rds_on_max"] * 1.5
+            parts.create_part(session=s, actor=SYSTEM, document=differs)
         report = transfer.import_data(session=s, actor=SYSTEM, data=demo_bundle, team="elsewhere")
         # the library moves on to a revision 2 with the exported FET: a new export of that revision links again
         part = s.scalar(select(Part).where(Part.name == FETS[2]["name"]))

@@ -49,6 +49,11 @@ long; a shorter dip passes (its margin then reads 1.0: at the edge, held by the 
 time alone). Where no input capacitance is given and the minimum is set by the ideal
 switch closing into series inductance, the dip is not bounded by anything the document
 describes, and the check fails saying so.
+
+Where a junction temperature leaves the part's Rds(on) data (beyond the last point of its
+table, or with the linear coefficient beyond tj_max), Rds(on) is not extrapolated: the
+start-up and steady junction checks fail "beyond the part's data". With parallel FETs the
+SOA, junction and pulsed-current checks read the worst FET's share of the current.
 """
 
 from __future__ import annotations
@@ -61,6 +66,7 @@ from .document import Rail
 from .faults import ACTED_FAST_TRIP, ACTED_LOOP, BY_BREAKDOWN, BY_CLAMP, BY_INPUT, BY_NONE
 from .startup import (STATUS_NO_CONVERGENCE, STATUS_OK, STATUS_RETRIED, STATUS_RETRY_EXHAUSTED, STATUS_RUNAWAY,
                       STATUS_STALLED, STATUS_TRIPPED, TJ_RUNAWAY_K)
+from .thermal import BEYOND_DATA, rds_temperature
 from .units import eng, temp
 
 __all__ = [
@@ -251,7 +257,9 @@ def evaluate_checks(rail: Rail, rules: dict, fig: dict) -> dict:
     put("startup_complete", reached, fig["v_target"], fig["v_target"], np.where(complete, PASS, FAIL))
     put("vds_derating", fig["v_s"], rules["vds_derating"] * fet.vds_max, fet.vds_max)
     put("startup_soa", np.where(has_pulse, fig["soa_ratio"], np.nan), rules["soa_margin"], 1.0)
-    put("startup_tj", fig["tj_peak"], tj_lim, fet.tj_max)
+    beyond = np.asarray(fig.get("tj_beyond", np.zeros(n, bool)), dtype=bool)
+    tj_code = _grade("at_most", row(fig["tj_peak"]), tj_lim, fet.tj_max)
+    put("startup_tj", fig["tj_peak"], tj_lim, fet.tj_max, np.where(beyond, FAIL, tj_code))
     if fig["has_limit"]:
         put("short_circuit_time", fig["sc_margin"], rules["fault_margin"], 1.0)
     else:
@@ -269,7 +277,7 @@ def evaluate_checks(rail: Rail, rules: dict, fig: dict) -> dict:
     else:
         put("retry_tj", nan, nan, nan)
     stable = fig["steady_stable"]
-    steady_ok = fig["steady_dc_ok"]
+    steady_ok = fig["steady_dc_ok"] | np.asarray(fig.get("steady_beyond", False), dtype=bool)
     v = np.where(stable, fig["steady_tj"], np.nan)
     put("steady_tj", v, tj_lim, fet.tj_max,
         np.where(stable, _grade("at_most", v, tj_lim, fet.tj_max), np.where(steady_ok, FAIL, NA)))
@@ -279,7 +287,7 @@ def evaluate_checks(rail: Rail, rules: dict, fig: dict) -> dict:
     put("supply_current", fig["i_peak"] if i_max is not None else nan, i_max if i_max else np.nan,
         i_max if i_max else np.nan)
     idm = fet.id_pulse_max
-    put("fet_pulse_current", fig["i_peak"] if idm is not None else nan, idm if idm else np.nan,
+    put("fet_pulse_current", fig.get("fet_i_peak", fig["i_peak"]) if idm is not None else nan, idm if idm else np.nan,
         idm if idm else np.nan)
     _fault_edge_checks(rail, rules, fig, put, nan)
     return out
@@ -419,17 +427,28 @@ def check_detail(cid: str, fig: dict, row: int, rail: Rail, rules: dict) -> str:
         return (f"Equivalent rectangle {eng(f['pulse_p_peak'], 'W')} for {eng(f['pulse_t_equiv'], 's')} at "
                 f"{eng(f['pulse_v_ds'], 'V')}, {eng(f['pulse_i'], 'A')}{which}; the SOA derated to "
                 f"{temp(f['pulse_tj_start'])} allows {eng(f['soa_i_allowed'], 'A')}. The chart is read without "
-                "extrapolation.")
+                "extrapolation." + _share_words(f, fet))
     if cid == "startup_tj":
         what = "" if status == STATUS_OK else " of what happens (the start does not complete normally)"
-        return (f"Foster network from {temp(rail.t_ambient)}: peak {temp(f['tj_peak'])}{what}, "
+        text = (f"Foster network from {temp(rail.t_ambient)}: peak {temp(f['tj_peak'])}{what}, "
                 f"FET energy {eng(f['e_fet'], 'J')}.")
+        if fet.count != 1:
+            text += (f" The worst of {fet.count} parallel FETs takes {100 * f['linear_share']:.3g} % of the "
+                     "pulse (team rule linear_share).")
+        if f.get("tj_beyond", False):
+            text += (f" The junction goes {BEYOND_DATA}: {rds_temperature(fet).words()}; R_DS(on) is not "
+                     "extrapolated past it (held at its last value), so the figures beyond it are not a reading.")
+        return text
     if cid == "short_circuit_time":
         if not f["has_limit"]:
             return "The switch has no current limit: short-circuit protection lies outside it."
         by = "SOA curves" if f["sc_t_soa"] <= f["sc_t_thermal"] else "Foster network"
         tf = "no fault timer" if not np.isfinite(f["t_fault"]) else f"the timer trips by {eng(f['t_fault'], 's')}"
         allow = "indefinitely" if not np.isfinite(f["sc_t_allow"]) else eng(f["sc_t_allow"], "s")
+        if fet.count != 1:
+            return (f"{eng(f['sc_p'], 'W')} in the worst of {fet.count} parallel FETs ({eng(f['v_s'], 'V')}, "
+                    f"{eng(f['sc_i_fet'], 'A')} of the {eng(f['sc_i'], 'A')} limit, team rule linear_share) from "
+                    f"{_start_words(f, rail)}: it survives {allow} ({by}); {tf}.")
         return (f"{eng(f['sc_p'], 'W')} ({eng(f['v_s'], 'V')}, {eng(f['sc_i'], 'A')}) from "
                 f"{_start_words(f, rail)}: the FET survives {allow} ({by}); {tf}.")
     if cid == "timer_startup":
@@ -456,14 +475,25 @@ def check_detail(cid: str, fig: dict, row: int, rail: Rail, rules: dict) -> str:
                 f"{eng(f['t_fault'] + t.retry_off, 's')} (duty {100 * f['retry_duty']:.3g} %, cool-down ratio "
                 f"{f['retry_cooldown']:.3g}), {count}; from {_start_words(f, rail)}.")
     if cid in ("steady_tj", "steady_stable"):
+        if f.get("steady_beyond", False):
+            return (f"The junction would go {BEYOND_DATA}: {rds_temperature(fet).words()}, and the heating at "
+                    "R_DS(on) held there still exceeds the cooling; R_DS(on) is not extrapolated past the data.")
         if not f["steady_dc_ok"]:
             return "The load has no DC operating point."
         if not f["steady_stable"]:
             load = eng(f["steady_i"], "A") if np.isfinite(f["steady_i"]) else "the load current"
             return (f"Thermal runaway: at {load} the heating exceeds the cooling all the way up to the maximum "
                     f"junction temperature {temp(fet.tj_max)}.")
-        return (f"{eng(f['steady_i'], 'A')} through Rds(on) at Tj: {eng(f['steady_p_fet'], 'W')}, "
+        if fet.count != 1:
+            return (f"{eng(f['steady_i'], 'A')} through {fet.count} parallel FETs; the hottest carries "
+                    f"{eng(f['steady_i_fet'], 'A')} (current divider, R_DS(on) {eng(f['rds'], 'ohm')} at 25 \u00b0C "
+                    f"against the others at the maximum): {eng(f['steady_p_fet'], 'W')}, {temp(f['steady_tj'])} "
+                    f"with rth_ja {fet.rth_ja:g} K/W per FET.")
+        text = (f"{eng(f['steady_i'], 'A')} through Rds(on) at Tj: {eng(f['steady_p_fet'], 'W')}, "
                 f"{temp(f['steady_tj'])} with rth_ja {fet.rth_ja:g} K/W.")
+        if fet.rds_on_max is not None or fet.rds_on_curve is not None:
+            text += f" R_DS(on) {eng(f['rds'], 'ohm')} at 25 \u00b0C; {rds_temperature(fet).words()}."
+        return text
     if cid == "supply_dip":
         return _dip_words(f, rail)
     if cid == "supply_current":
@@ -473,6 +503,10 @@ def check_detail(cid: str, fig: dict, row: int, rail: Rail, rules: dict) -> str:
     if cid == "fet_pulse_current":
         if fet.id_pulse_max is None:
             return "No pulsed drain current rating given."
+        if fet.count != 1:
+            return (f"Inrush peak {eng(f['i_peak'], 'A')}; the worst of {fet.count} parallel FETs carries "
+                    f"{eng(f['fet_i_peak'], 'A')} (team rule linear_share) against the rating "
+                    f"{eng(fet.id_pulse_max, 'A')}.")
         return f"Inrush peak {eng(f['i_peak'], 'A')} against the rating {eng(fet.id_pulse_max, 'A')}."
     if cid in ("onset_peak", "onset_soa"):
         return _onset_words(cid, f, rail, rules)
@@ -548,6 +582,12 @@ def _turn_off_words(cid: str, f: dict, rail: Rail) -> str:
     if eas is None:
         return text + f" {energy}; no avalanche rating given."
     return text + f" {energy} against the rating {eng(eas, 'J')}."
+def _share_words(f: dict, fet) -> str:
+    """With parallel FETs: the share of the pulse the worst one carries (team rule linear_share)."""
+    if fet.count == 1:
+        return ""
+    return (f" The pulse is the worst of {fet.count} parallel FETs': {100 * f['linear_share']:.3g} % of the current "
+            "(team rule linear_share; default one FET carries it all, common practice, no source).")
 
 
 def _dip_words(f: dict, rail: Rail) -> str:

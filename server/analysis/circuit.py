@@ -28,7 +28,7 @@ from dataclasses import dataclass, field, replace
 import numpy as np
 
 from .document import Rail
-from .thermal import foster_arrays, rds_at
+from .thermal import RdsTemperature, foster_arrays, rds_temperature
 
 __all__ = ["NO_LIMIT", "R_OFF", "Circuit", "circuit_rows"]
 
@@ -47,8 +47,10 @@ class Circuit:
     i_lim : current limit, A (``NO_LIMIT`` where there is none).
     load, i_nom (A), v_on (V), v_nom (V): the load model.
     mode, t_on (s), dvdt (V/s), p_lim (W): the switch.
-    rds_on (ohm at 25 degC), alpha (1/K), r_th (K/W), tau_th (s), t_amb (degC), tj_max
-    (degC): the FET.
+    rds_on (ohm at 25 degC, per row: the switch's, i.e. the parallel FETs' together), alpha
+    (1/K), rds_t (the Rds(on) ratio against Tj, `thermal.RdsTemperature`), r_th (K/W: the
+    Foster network of the FET that carries the largest share, scaled by that share), tau_th
+    (s), t_amb (degC), tj_max (degC): the FET.
     t_fault : per row, the regulation time after which the fault timer turns the switch
     off, s (``inf``: no timer acting). after_fault : "latch", "retry" or "none"; retry_off :
     off time before a retry, s; attempts : the most attempts of a retrying switch (1 + its
@@ -71,7 +73,7 @@ class Circuit:
     t_on: float
     dvdt: float
     p_lim: float
-    rds_on: float
+    rds_on: np.ndarray
     alpha: float
     r_th: np.ndarray = field(repr=False)
     tau_th: np.ndarray = field(repr=False)
@@ -83,10 +85,15 @@ class Circuit:
     attempts: int | None = None
     c_in: float = 0.0
     uvlo: float = math.nan
+    rds_t: RdsTemperature | None = field(default=None, repr=False)
 
     def __post_init__(self) -> None:
         if self.t_fault is None:
             object.__setattr__(self, "t_fault", np.full(self.v_s.shape, np.inf))
+        object.__setattr__(self, "rds_on", np.broadcast_to(np.asarray(self.rds_on, dtype=float),
+                                                           self.v_s.shape).copy())
+        if self.rds_t is None:
+            object.__setattr__(self, "rds_t", RdsTemperature(self.alpha, math.inf))
 
     @property
     def n(self) -> int:
@@ -102,7 +109,7 @@ class Circuit:
         return replace(
             self,
             v_s=self.v_s[rows], r=self.r[rows], l=self.l[rows], c=self.c[rows],
-            esr=self.esr[rows], i_lim=self.i_lim[rows], t_fault=self.t_fault[rows],
+            esr=self.esr[rows], i_lim=self.i_lim[rows], t_fault=self.t_fault[rows], rds_on=self.rds_on[rows],
         )
 
     # -- load ---------------------------------------------------------------
@@ -149,7 +156,7 @@ class Circuit:
             False where no operating point exists (a constant-power load asking for
             more than v_s^2 / (4 R), or a load that would sit below its v_on).
         """
-        rt = self.r + rds_at(self.rds_on, self.alpha, tj)
+        rt = self.r + self.rds_on * self.rds_t.ratio(tj)
         v = self.v_s
         if self.load == "none":
             return v.copy(), np.zeros_like(v), np.ones(v.shape, bool)
@@ -181,7 +188,7 @@ class Circuit:
         return ref
 
 
-def circuit_rows(rail: Rail, *, v_s, c, i_limit=None, t_fault=None) -> Circuit:
+def circuit_rows(rail: Rail, *, v_s, c, i_limit=None, t_fault=None, rds=None, share: float = 1.0) -> Circuit:
     """Build the circuit rows of a rail.
 
     Parameters
@@ -196,6 +203,14 @@ def circuit_rows(rail: Rail, *, v_s, c, i_limit=None, t_fault=None) -> Circuit:
     t_fault : array_like, shape (n,), optional
         Regulation time per row after which the fault timer turns the switch off, s
         (default ``inf``: the start-up runs as if no timer acted).
+    rds : array_like, shape (n,), optional
+        Rds(on) at 25 degC of each FET per row, ohm (default the part's typical
+        ``rds_on``); the switch conducts through ``fet.count`` of them in parallel.
+    share : float
+        The share of the switch's current the worst FET carries (1: one FET, or the linear
+        share of parallel FETs): its junction is followed, so the Foster network, given per
+        FET, is scaled by it (the rise of share * P through r equals that of P through
+        share * r: superposition of a linear network).
 
     Returns
     -------
@@ -208,6 +223,12 @@ def circuit_rows(rail: Rail, *, v_s, c, i_limit=None, t_fault=None) -> Circuit:
     if i_limit is None:
         i_limit = full(sw.i_limit if sw.i_limit is not None else NO_LIMIT)
     r_th, tau_th = foster_arrays(rail.fet.zth)
+    if share != 1.0:
+        r_th = r_th * share
+    count = rail.fet.count
+    rds = np.full(n, rail.fet.rds_on) if rds is None else np.broadcast_to(np.asarray(rds, dtype=float), (n,))
+    if count != 1:
+        rds = rds / count
     if t_fault is None:
         t_fault = np.inf
     timer = sw.timer
@@ -226,8 +247,9 @@ def circuit_rows(rail: Rail, *, v_s, c, i_limit=None, t_fault=None) -> Circuit:
         t_on=sw.t_on,
         dvdt=sw.dvdt or 0.0,
         p_lim=sw.p_limit if sw.p_limit is not None else NO_LIMIT,
-        rds_on=rail.fet.rds_on,
+        rds_on=rds,
         alpha=rail.fet.rds_on_alpha,
+        rds_t=rds_temperature(rail.fet),
         r_th=r_th,
         tau_th=tau_th,
         t_amb=rail.t_ambient,

@@ -14,8 +14,10 @@ Method
 A full factorial of the two extremes of every parameter that has a spread: the supply
 (v_min, v_max), the load capacitance (c_nom (1 -/+ c_tol)), the current limit
 (i_limit (1 -/+ i_limit_tol)) and the timer capacitor, charge current and trip voltage
-(each nominal (1 -/+ tol)), all at t_ambient (the worst-case high ambient of the
-document). At most 2^6 = 64 corners. The timer's three parts act through one figure, the
+(each nominal (1 -/+ tol)), and where the part gives a maximum Rds(on) the FET's Rds(on)
+at 25 degC (typical ``rds_on`` and maximum ``rds_on_max``), all at t_ambient (the
+worst-case high ambient of the document). At most 2^7 = 128 corners (2^6 = 64 without an
+Rds(on) maximum). The timer's three parts act through one figure, the
 trip time t_fault = C v_trip / i_charge (`timer.fault_time`). Corners alone bound a check
 only where it is monotone in each parameter; the worst-case search (`worstcase`) looks
 inside the box as well.
@@ -53,11 +55,28 @@ def _relative(value: float, nominal: float) -> str:
     return ("+" if pct > 0 else "\u2212") + text
 
 
-ALL_PARAMETERS = frozenset({"v_s", "c", "i_limit", "timer"})
+ALL_PARAMETERS = frozenset({"v_s", "c", "i_limit", "timer", "rds_on"})
+
+
+def rds_levels(rail: Rail) -> list[float]:
+    """The FET's Rds(on) at 25 degC at the corners: typical and maximum, or the typical alone."""
+    fet = rail.fet
+    if fet.rds_on_max is not None and fet.rds_on_max > fet.rds_on:
+        return [fet.rds_on, fet.rds_on_max]
+    return [fet.rds_on]
+
+
+def _rds_words(rail: Rail, rds: float) -> str:
+    fet = rail.fet
+    if math.isclose(rds, fet.rds_on, rel_tol=1e-9):
+        return f"{PARAM_WORDS['rds_on']} typical"
+    if math.isclose(rds, fet.rds_on_max, rel_tol=1e-9):
+        return f"{PARAM_WORDS['rds_on']} maximum"
+    return f"{PARAM_WORDS['rds_on']} {eng(rds, 'ohm')}"
 
 
 def point_words(rail: Rail, v_s: float, c: float, i_lim: float, t_fault: float,
-                timer: tuple[float, float, float] | None = None, keys=ALL_PARAMETERS) -> str:
+                timer: tuple[float, float, float] | None = None, keys=ALL_PARAMETERS, rds: float | None = None) -> str:
     """A point of the tolerance box in words.
 
     Parameters
@@ -68,8 +87,10 @@ def point_words(rail: Rail, v_s: float, c: float, i_lim: float, t_fault: float,
     timer : (timer C, charge current, trip voltage), optional
         A corner names the timer's three parts; otherwise its trip time is given.
     keys : set of str
-        The parameters to name (of "v_s", "c", "i_limit", "timer"): those the figure
-        described depends on.
+        The parameters to name (of "v_s", "c", "i_limit", "timer", "rds_on"): those the
+        figure described depends on.
+    rds : float, optional
+        The FET's Rds(on) at 25 degC, ohm (named where the part gives a maximum).
 
     Returns
     -------
@@ -96,6 +117,8 @@ def point_words(rail: Rail, v_s: float, c: float, i_lim: float, t_fault: float,
                     parts.append(f"{PARAM_WORDS[key]} {_relative(value, nominal)}")
         elif t.c_tol > 0 or t.i_charge_tol > 0 or t.v_trip_tol > 0:
             parts.append(f"{PARAM_WORDS['t_fault']} trips after {eng(t_fault, 's')}")
+    if rds is not None and "rds_on" in keys and len(rds_levels(rail)) > 1:
+        parts.append(_rds_words(rail, rds))
     if not parts or all(p.endswith("nominal") for p in parts):
         return "nominal"
     return ", ".join(parts)
@@ -108,8 +131,8 @@ def corner_set(rail: Rail) -> list[dict]:
     -------
     list of dict
         ``{"name" (words), "v_s" (V), "c" (F), "i_limit" (A or None), "timer_c" (F),
-        "i_charge" (A), "v_trip" (V), "t_fault" (s, inf without a timer)}``; timer parts
-        None without a timer.
+        "i_charge" (A), "v_trip" (V), "t_fault" (s, inf without a timer), "rds" (ohm, the
+        FET's Rds(on) at 25 degC)}``; timer parts None without a timer.
     """
     s = rail.supply
     v = [s.v_min, s.v_max] if s.v_max > s.v_min else [s.v_nom]
@@ -122,12 +145,12 @@ def corner_set(rail: Rail) -> list[dict]:
     else:
         tc = ic = vt = [None]
     out = []
-    for vv, cc, ii, a, b, d in itertools.product(v, c, il, tc, ic, vt):
+    for vv, cc, ii, a, b, d, rr in itertools.product(v, c, il, tc, ic, vt, rds_levels(rail)):
         t_fault = a * d / b if t is not None else math.inf
         i_row = ii if ii is not None else NO_LIMIT
-        name = point_words(rail, vv, cc, i_row, t_fault, (a, b, d) if t is not None else None)
+        name = point_words(rail, vv, cc, i_row, t_fault, (a, b, d) if t is not None else None, rds=rr)
         out.append({"name": name, "v_s": vv, "c": cc, "i_limit": ii, "timer_c": a, "i_charge": b, "v_trip": d,
-                    "t_fault": t_fault})
+                    "t_fault": t_fault, "rds": rr})
     return out
 
 
@@ -135,4 +158,5 @@ def corner_params(corners: list[dict]) -> RowParams:
     """The corners as rows of operating conditions."""
     arr = lambda key, default=None: np.array(  # noqa: E731
         [default if c[key] is None else c[key] for c in corners], dtype=float)
-    return RowParams(v_s=arr("v_s"), c=arr("c"), i_lim=arr("i_limit", NO_LIMIT), t_fault=arr("t_fault"))
+    return RowParams(v_s=arr("v_s"), c=arr("c"), i_lim=arr("i_limit", NO_LIMIT), t_fault=arr("t_fault"),
+                     rds=arr("rds"))

@@ -32,6 +32,13 @@ datasheet: the UVLO trips only when the switch input stays below it continuously
 long. Absent, the raw dip is compared. ``supply.c_in`` (F, optional) is the capacitance at
 the switch input, which bounds the dip. ``environment.t_ambient`` has no default: a default
 ambient of our own would make the thermal checks easier to pass.
+
+``fet.rds_on_max`` (ohm, optional, at least ``rds_on``) is the datasheet maximum Rds(on) at
+25 degC: Rds(on) then spreads from typical to maximum in the corners, the worst-case search
+and the Monte Carlo. ``fet.rds_on_curve`` (optional) is the datasheet's normalised Rds(on)
+curve as [Tj degC, Rds(on)/Rds(on, 25 degC)] points, Tj strictly rising and ratios
+positive, used instead of ``rds_on_alpha``. ``fet.count`` (a whole number, default 1) is the
+rail's number of identical FETs in parallel (the rail's figure, not the part's).
 """
 
 from __future__ import annotations
@@ -44,6 +51,9 @@ import numpy as np
 
 from .bounds import (MAX_FOSTER_STAGES, MAX_RETRIES, MAX_SOA_CURVES, MAX_SOA_POINTS, NAME_MAX_LENGTH, NUMBER_LARGEST,
                      magnitude_problem, text_problem)
+
+MAX_PARALLEL_FETS = 64  # fet.count: more parallel FETs than this are not read
+MAX_RDS_POINTS = MAX_SOA_POINTS  # fet.rds_on_curve: at most this many points
 from .errors import DocumentError
 from .rules import DEFAULT_RULES, RULE_RANGES
 from .units import KIND_SYMBOLS, quantity
@@ -98,6 +108,7 @@ DEFAULTS: dict[str, float | str] = {
     "switch.timer.after_fault": "latch",
     "fet.rds_on_alpha": 0.005,
     "fet.soa.t_case": 25.0,
+    "fet.count": 1,
 }
 
 # Fields that may be absent or null, with no default: absent means "none" (no UVLO, no timer,
@@ -106,7 +117,7 @@ OPTIONAL: frozenset[str] = frozenset({
     "supply.i_max", "supply.uvlo", "supply.uvlo_filter", "supply.c_in", "supply.v_clamp",
     "switch.dvdt", "switch.i_limit", "switch.p_limit", "switch.timer", "switch.timer.retry_off",
     "switch.timer.retries", "switch.loop_response", "switch.fast_trip", "switch.fast_trip_delay",
-    "fet.id_pulse_max", "fet.e_avalanche", "fet.soa.curves[].t_pulse",
+    "fet.id_pulse_max", "fet.e_avalanche", "fet.soa.curves[].t_pulse", "fet.rds_on_max", "fet.rds_on_curve",
     *(f"rules.{k}" for k in DEFAULT_RULES),
 })
 
@@ -169,6 +180,8 @@ BOUNDS: dict[str, Bound] = {
     "switch.loop_response": NON_NEGATIVE, "switch.fast_trip": POSITIVE, "switch.fast_trip_delay": NON_NEGATIVE,
     "fet.e_avalanche": POSITIVE,
     "fet.vds_max": POSITIVE, "fet.id_pulse_max": POSITIVE, "fet.rds_on": POSITIVE, "fet.rds_on_alpha": NON_NEGATIVE,
+    "fet.rds_on_max": POSITIVE, "fet.count": Bound(minimum=1.0, maximum=float(MAX_PARALLEL_FETS),
+                                                 note="identical FETs in parallel, a whole number"),
     "fet.tj_max": TEMPERATURE, "fet.rth_ja": POSITIVE, "fet.zth[].r": POSITIVE, "fet.zth[].tau": POSITIVE,
     "fet.soa.t_case": TEMPERATURE, "fet.soa.curves[].t_pulse": POSITIVE,
     "environment.t_ambient": TEMPERATURE,
@@ -186,7 +199,7 @@ FIELD_KEYS: dict[str, tuple[str, ...]] = {
     "switch.timer": ("c", "c_tol", "i_charge", "i_charge_tol", "v_trip", "v_trip_tol", "after_fault", "retry_off",
                      "retries"),
     "fet": ("name", "vds_max", "id_pulse_max", "rds_on", "rds_on_alpha", "tj_max", "rth_ja", "zth", "soa",
-            "e_avalanche"),
+            "e_avalanche", "rds_on_max", "rds_on_curve", "count"),
     "fet.zth[]": ("r", "tau"),
     "fet.soa": ("t_case", "curves"),
     "fet.soa.curves[]": ("t_pulse", "points"),
@@ -271,6 +284,9 @@ class Fet:
     t_case: float
     curves: tuple[SoaCurve, ...]  # finite pulses by increasing t_pulse, DC last
     e_avalanche: float | None = None  # J: single-pulse avalanche energy rating; None: not given
+    rds_on_max: float | None = None  # ohm: datasheet maximum at 25 degC; None: no spread
+    rds_on_curve: tuple[tuple[float, float], ...] | None = None  # (tj degC, Rds/Rds(25 degC)), tj rising
+    count: int = 1  # identical FETs in parallel (a rail's figure, not the part's)
 
 
 @dataclass(frozen=True)
@@ -615,6 +631,7 @@ def _read_fet_section(r: _Reader, doc: dict, t_ambient: float | None) -> Fet | N
         r.fail("fet.tj_max", f"must be above the worst-case high ambient temperature ({quantity(t_ambient, 'degC')})")
     values = {key: r.number(sec, key, w) for key in ("vds_max", "id_pulse_max", "rds_on", "rds_on_alpha", "rth_ja",
                                                        "e_avalanche")}
+    values.update(_read_rds_spread(r, sec, values["rds_on"]))
     zth = _read_zth(r, sec)
     soa = r.obj(sec, "soa", w)
     t_case = curves = None
@@ -625,6 +642,53 @@ def _read_fet_section(r: _Reader, doc: dict, t_ambient: float | None) -> Fet | N
                                      f"({quantity(tj_max, 'degC')}): the curves are measured below it")
         curves = _read_curves(r, soa)
     return Fet(name=name, tj_max=tj_max, zth=zth, t_case=t_case, curves=curves, **values)
+
+
+def _read_rds_spread(r: _Reader, sec: dict, rds_on: float | None) -> dict:
+    """``rds_on_max`` (at least rds_on), ``rds_on_curve`` (points) and ``count`` (a whole number)."""
+    rds_max = r.number(sec, "rds_on_max", "fet")
+    if rds_max is not None and rds_on is not None and rds_max < rds_on:
+        r.fail("fet.rds_on_max", f"must not be below the typical R_DS(on) ({quantity(rds_on, 'ohm')}): it is the "
+                                 "datasheet maximum at 25 \u00b0C")
+    count = r.number(sec, "count", "fet")
+    if count is not None and count != int(count):
+        r.fail("fet.count", f"must be a whole number of FETs (got {count:g})")
+        count = None
+    curve = _read_rds_curve(r, sec.get("rds_on_curve"))
+    return {"rds_on_max": rds_max, "rds_on_curve": curve, "count": int(count) if count is not None else 1}
+
+
+def _read_rds_curve(r: _Reader, points: Any) -> tuple[tuple[float, float], ...] | None:
+    """The [Tj degC, Rds(on)/Rds(on, 25 degC)] points: Tj strictly rising, ratios positive."""
+    field = "fet.rds_on_curve"
+    if points is None:
+        return None
+    if not isinstance(points, list) or len(points) < 2:
+        r.fail(field, "needs at least two [T_j, ratio] points")
+        return None
+    if len(points) > MAX_RDS_POINTS:
+        r.fail(field, f"has {len(points)} points; at most {MAX_RDS_POINTS} are read")
+        return None
+    parsed: list[tuple[float, float]] = []
+    for j, p in enumerate(points):
+        pw = f"{field}[{j}]"
+        if (not isinstance(p, (list, tuple)) or len(p) != 2
+                or not all(_is_number(q) and magnitude_problem(q) is None for q in p)):
+            r.fail(pw, f"must be a [T_j, ratio] pair of finite numbers of at most {NUMBER_LARGEST:g}: T_j in "
+                       "\u00b0C and R_DS(on) / R_DS(on) at 25 \u00b0C")
+            return None
+        tj, ratio = float(p[0]), float(p[1])
+        if tj <= ABSOLUTE_ZERO:
+            r.fail(pw, f"T_j must be above absolute zero (got {tj:g} \u00b0C)")
+            return None
+        if ratio <= 0.0:
+            r.fail(pw, f"the ratio must be positive (got {ratio:g})")
+            return None
+        if parsed and tj <= parsed[-1][0]:
+            r.fail(pw, f"T_j must increase from point to point ({tj:g} \u00b0C follows {parsed[-1][0]:g} \u00b0C)")
+            return None
+        parsed.append((tj, ratio))
+    return tuple(parsed)
 
 
 def _read_fet(doc: dict, t_ambient: float | None) -> Fet:

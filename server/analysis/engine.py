@@ -45,6 +45,7 @@ from .steady import steady_state
 from .timer import fault_times, timer_window
 from .units import eng
 from .waveform import decimate
+from .thermal import conduction_share, rds_temperature
 from .worstcase import TIE, WorstCase, find_worst_case
 
 __all__ = ["ENGINE_VERSION", "CAUTION", "BASIS_WORST", "BASIS_NOMINAL", "FIGURES", "analyze_rail"]
@@ -71,16 +72,25 @@ STATUS_TEXT = {STATUS_OK: "The start-up completes.",
                                "followed no further."}
 
 # the parameters each check depends on (its worst case is named by these)
-_V, _STARTUP, _FAULT = {"v_s"}, {"v_s", "c", "i_limit"}, {"v_s", "i_limit", "timer"}
+# (the FET's Rds(on) is named only where the part gives a maximum: `corners.point_words`)
+_V, _STARTUP, _FAULT = {"v_s"}, {"v_s", "c", "i_limit", "rds_on"}, {"v_s", "i_limit", "timer"}
+_STEADY = _V | {"rds_on"}
 _ONSET = {"v_s", "i_limit"}
 CHECK_PARAMETERS = {"startup_complete": _STARTUP, "vds_derating": _V, "startup_soa": _STARTUP,
                     "startup_tj": _STARTUP, "short_circuit_time": _FAULT, "timer_startup": _STARTUP | {"timer"},
-                    "retry_tj": _FAULT, "steady_tj": _V, "steady_stable": _V, "supply_dip": _STARTUP,
+                    "retry_tj": _FAULT, "steady_tj": _STEADY, "steady_stable": _STEADY, "supply_dip": _STARTUP,
                     "supply_current": _STARTUP, "fet_pulse_current": _STARTUP, "onset_peak": _ONSET,
                     "onset_soa": _ONSET, "turnoff_vds": _FAULT, "turnoff_avalanche": _FAULT}
-FIGURE_PARAMETERS = {"sc_p": _FAULT, "sc_t_allow": _FAULT, "retry_tj_peak": _FAULT, "steady_p_fet": _V,
-                     "steady_tj": _V, "steady_v_drop": _V, "onset_i_peak": _ONSET, "off_v_peak": _FAULT,
+FIGURE_PARAMETERS = {"sc_p": _FAULT, "sc_t_allow": _FAULT, "retry_tj_peak": _FAULT, "steady_p_fet": _STEADY,
+                     "steady_tj": _STEADY, "steady_v_drop": _STEADY, "onset_i_peak": _ONSET, "off_v_peak": _FAULT,
                      "off_e_fet": _FAULT}
+
+
+def _fet_data_given(rail: Rail) -> bool:
+    """Whether the rail uses the Rds(on) spread, table or parallel FETs (the result then says
+    which Rds(on) each check used; without them it stays as it was)."""
+    fet = rail.fet
+    return fet.rds_on_max is not None or fet.rds_on_curve is not None or fet.count != 1
 
 
 def _keys(base: set, wc: "WorstCase", row: int) -> set:
@@ -142,10 +152,13 @@ def _split_progress(progress: Callable | None, a: float, b: float):
     return lambda x: progress(a + (b - a) * float(x))
 
 
-def _point(params: RowParams, row: int) -> dict:
+def _point(params: RowParams, row: int, rail: Rail | None = None) -> dict:
     i_lim = float(params.i_lim[row])
-    return {"v_s": float(params.v_s[row]), "c": float(params.c[row]),
-            "i_limit": None if i_lim >= NO_LIMIT else i_lim, "t_fault": _num(params.t_fault[row])}
+    out = {"v_s": float(params.v_s[row]), "c": float(params.c[row]),
+           "i_limit": None if i_lim >= NO_LIMIT else i_lim, "t_fault": _num(params.t_fault[row])}
+    if rail is not None and _fet_data_given(rail):
+        out["rds_on"] = float(params.rds[row])
+    return out
 
 
 # --- checks ----------------------------------------------------------------------------------
@@ -184,10 +197,13 @@ def _check_records(rail: Rail, rules: dict, nominal: tuple[dict, dict], wc: Wors
                         "margin": _num(ch_n["margin"][0]) if graded else None},
             "corner": name if applies else None,
             "found_by": found if applies else None,
-            "point": _point(params, row) if (applies and params is not None) else None,
+            "point": _point(params, row, rail) if (applies and params is not None) else None,
             "detail": check_detail(spec.id, fig, row, rail, rules),
             "t_start": start_temperature_of(spec.id, fig, row, rail.t_ambient) if applies else None,
         })
+        if _fet_data_given(rail):  # the Rds(on) at 25 degC of the FET at this check's reading
+            out[-1]["rds_on"] = (float(fig["rds"][row]) if applies and "rds_on" in CHECK_PARAMETERS[spec.id]
+                                 else None)
     return out
 
 
@@ -275,10 +291,13 @@ def _short_circuit_point(fig: dict, row: int) -> dict:
     by = None
     if math.isfinite(g("sc_t_allow")):
         by = "soa" if g("sc_t_soa") <= g("sc_t_thermal") else "thermal"
-    return {"v_ds": g("sc_v_ds"), "i": g("sc_i"), "p": g("sc_p"), "t_soa": g("sc_t_soa"),
-            "t_thermal": g("sc_t_thermal"), "t_allow": g("sc_t_allow"), "t_fault": _num(g("t_fault")),
-            "margin": g("sc_margin"), "limited_by": by, "survives_indefinitely": not math.isfinite(g("sc_t_allow")),
-            "t_start": g("sc_t_start"), "onset": _onset_point(fig, row), "turn_off": _turn_off_point(fig, row)}
+    out = {"v_ds": g("sc_v_ds"), "i": g("sc_i"), "p": g("sc_p"), "t_soa": g("sc_t_soa"),
+           "t_thermal": g("sc_t_thermal"), "t_allow": g("sc_t_allow"), "t_fault": _num(g("t_fault")),
+           "margin": g("sc_margin"), "limited_by": by, "survives_indefinitely": not math.isfinite(g("sc_t_allow")),
+           "t_start": g("sc_t_start"), "onset": _onset_point(fig, row), "turn_off": _turn_off_point(fig, row)}
+    if fig["linear_share"] != 1.0:  # parallel FETs: the worst FET's current
+        out["i_fet"] = g("sc_i_fet")
+    return out
 
 
 _ACTED_WORDS = {ACTED_LOOP: "loop", ACTED_FAST_TRIP: "fast_trip"}
@@ -362,10 +381,37 @@ def _retry_section(rail: Rail, fig: dict) -> dict | None:
             "pulses": None if t.retries is None else t.retries + 1, "t_start": g("sc_t_start")}
 
 
-def _steady_section(fig: dict) -> dict:
+def _steady_section(rail: Rail, fig: dict) -> dict:
     g = lambda k: fig[k][0]  # noqa: E731
-    return {"i": g("steady_i"), "p_fet": g("steady_p_fet"), "tj": g("steady_tj"), "v_drop": g("steady_v_drop"),
-            "stable": bool(g("steady_stable"))}
+    out = {"i": g("steady_i"), "p_fet": g("steady_p_fet"), "tj": g("steady_tj"), "v_drop": g("steady_v_drop"),
+           "stable": bool(g("steady_stable"))}
+    if _fet_data_given(rail):
+        out.update(i_fet=g("steady_i_fet"), beyond_data=bool(g("steady_beyond")), rds_on=float(g("rds")))
+    return out
+
+
+def _fet_section(rail: Rail, fig_n: dict) -> dict:
+    """The FET data the result used: parallel count, shares, the Rds(on) spread and its data over Tj."""
+    fet = rail.fet
+    r_max = fet.rds_on_max if fet.rds_on_max is not None else fet.rds_on
+    rds_t = rds_temperature(fet)
+    return {
+        "count": fet.count,
+        "rds_on": fet.rds_on,
+        "rds_on_max": fet.rds_on_max,
+        "rds_on_curve": [list(p) for p in fet.rds_on_curve] if fet.rds_on_curve is not None else None,
+        "rds_data": rds_t.words(),
+        "t_data_high": rds_t.t_high,
+        "linear_share": float(fig_n["linear_share"]),
+        # the largest conduction share of the spread: the lowest Rds(on) against the others at the highest
+        "conduction_share": float(conduction_share(fet.rds_on, fet.count, r_max)),
+        "conduction_share_note": ("Fully on, parallel FETs share the current as a current divider of their "
+                                  "R_DS(on); the largest share is that of a FET at the typical against the others "
+                                  "at the maximum." if fet.count > 1 else "One FET."),
+        "linear_share_note": ("While the switch regulates (start-up, short circuit) the worst FET carries this "
+                              "share of the current: the team rule linear_share (default 1: one FET carries it "
+                              "all, threshold spread; common practice, no source)." if fet.count > 1 else "One FET."),
+    }
 
 
 # --- headroom --------------------------------------------------------------------------------
@@ -392,7 +438,8 @@ def _start_at(rail: Rail, v_s: float) -> float:
 
 def nominal_point_of(fig: dict) -> RowParams:
     return RowParams(v_s=np.asarray(fig["v_s"][:1], float), c=np.asarray(fig["c"][:1], float),
-                     i_lim=np.asarray(fig["i_lim"][:1], float), t_fault=np.asarray(fig["t_fault"][:1], float))
+                     i_lim=np.asarray(fig["i_lim"][:1], float), t_fault=np.asarray(fig["t_fault"][:1], float),
+                     rds=np.asarray(fig["rds"][:1], float))
 
 
 def _c_record(rail: Rail, c: dict) -> dict:
@@ -491,11 +538,14 @@ def _worst_case_summary(wc: WorstCase | None) -> dict:
 
 def _corner_list(wc: WorstCase) -> list[dict]:
     out = []
+    keys = ("v_s", "c", "i_limit", "timer_c", "i_charge", "v_trip", "t_fault")
+    if wc.rail is not None and _fet_data_given(wc.rail):
+        keys += ("rds",)
     for j, c in enumerate(wc.corners):
         codes = [int(wc.checks[s.id]["verdict"][j]) for s in CHECKS]
         out.append({
             "name": c["name"],
-            "params": {k: c[k] for k in ("v_s", "c", "i_limit", "timer_c", "i_charge", "v_trip", "t_fault")},
+            "params": {k: c[k] for k in keys},
             "figures": {key: wc.fig[key][j] for _, _, _, key, _ in FIGURES},
             "verdict": VERDICTS[max(codes)],
             "worst_for": [s.id for s in CHECKS if wc.worst[s.id] == j],
@@ -573,6 +623,8 @@ def analyze_rail(
               "worst_case": _worst_case_summary(wc)}
     if wc is not None:
         result["corners"] = _corner_list(wc)
+    if _fet_data_given(rail):
+        result["fet"] = _fet_section(rail, nominal[0])
     if n_samples:
         result["monte_carlo"] = run_monte_carlo(rail, rail.rules, n_samples, seed=seed, distribution=distribution,
                                                 worst=records, progress=_split_progress(progress, share, 1.0))
@@ -626,12 +678,14 @@ def _nominal_sections(rail: Rail, nominal: tuple, wc: WorstCase | None, times: t
         "short_circuit": _short_circuit_section(fig_n, wc),
         "timer": _timer_section(rail, rules, fig_n, wc, times),
         "retry": _retry_section(rail, fig_n),
-        "steady": _steady_section(fig_n),
+        "steady": _steady_section(rail, fig_n),
         "headroom": _headroom(rail, rules, (fig_n, checks_n), wc, times[2]) if headroom else _empty_headroom(),
     }
 
 
 def _closing_sections(rail: Rail, wc: WorstCase | None) -> dict:
     """The rules the result used, its conventions, notes and the caution."""
-    return {"rules": dict(rail.rules), "conventions": [MARGIN_CONVENTION, SOA_CONVENTION], "notes": _notes(rail, wc),
+    # linear_share acts only on parallel FETs: a single FET's result does not list it
+    rules = {k: v for k, v in rail.rules.items() if k != "linear_share" or rail.fet.count != 1}
+    return {"rules": rules, "conventions": [MARGIN_CONVENTION, SOA_CONVENTION], "notes": _notes(rail, wc),
             "caution": CAUTION}

@@ -41,7 +41,7 @@ from .thermal import foster_arrays
 
 __all__ = ["RowParams", "evaluate_rows", "startup_rows", "nominal_point", "PARAMS"]
 
-PARAMS = ("v_s", "c", "i_lim", "t_fault")
+PARAMS = ("v_s", "c", "i_lim", "t_fault", "rds")
 
 
 @dataclass
@@ -50,13 +50,20 @@ class RowParams:
 
     ``v_s`` supply (V), ``c`` load capacitance (F), ``i_lim`` current limit (A,
     ``NO_LIMIT`` without one), ``t_fault`` fault-timer trip time (s, ``inf`` without a
-    timer).
+    timer), ``rds`` Rds(on) at 25 degC of the FET (ohm: the part's typical ``rds_on``, or
+    between it and ``rds_on_max`` where the part gives a maximum; 0 or left out: the
+    typical).
     """
 
     v_s: np.ndarray
     c: np.ndarray
     i_lim: np.ndarray
     t_fault: np.ndarray
+    rds: np.ndarray | None = None
+
+    def __post_init__(self) -> None:
+        if self.rds is None:  # the part's typical Rds(on) (see `rds_rows`)
+            self.rds = np.zeros(np.shape(self.v_s))
 
     @property
     def n(self) -> int:
@@ -78,13 +85,31 @@ def nominal_point(rail: Rail, t_fault_nom: float) -> RowParams:
     sw = rail.switch
     a = lambda x: np.array([float(x)])  # noqa: E731
     return RowParams(v_s=a(rail.supply.v_nom), c=a(rail.load.c_nom),
-                     i_lim=a(sw.i_limit if sw.i_limit is not None else NO_LIMIT), t_fault=a(t_fault_nom))
+                     i_lim=a(sw.i_limit if sw.i_limit is not None else NO_LIMIT), t_fault=a(t_fault_nom),
+                     rds=a(rail.fet.rds_on))
+
+
+def rds_rows(rail: Rail, params: RowParams) -> np.ndarray:
+    """The FET's Rds(on) at 25 degC of every row, ohm (a row without one: the part's typical)."""
+    return np.where(params.rds > 0.0, params.rds, rail.fet.rds_on)
+
+
+def linear_share(rail: Rail, rules: dict) -> float:
+    """The share of the switch current the worst FET carries in linear mode (start-up regulation,
+    short circuit): 1 for one FET; for parallel FETs the team rule ``linear_share`` (default 1:
+    one FET carries it all, threshold spread; common practice, no source), never below the
+    average 1 / count."""
+    count = rail.fet.count
+    if count == 1:
+        return 1.0
+    return max(float(rules["linear_share"]), 1.0 / count)
 
 
 def startup_rows(rail: Rail, params: RowParams, *, record: int | None = None,
-                 max_steps: int = MAX_STEPS) -> StartupFigures:
-    """Start-up transient of every row (one batch integration)."""
-    cz = circuit_rows(rail, v_s=params.v_s, c=params.c, i_limit=params.i_lim, t_fault=params.t_fault)
+                 max_steps: int = MAX_STEPS, share: float = 1.0) -> StartupFigures:
+    """Start-up transient of every row (one batch integration); ``share``: `linear_share`."""
+    cz = circuit_rows(rail, v_s=params.v_s, c=params.c, i_limit=params.i_lim, t_fault=params.t_fault,
+                      rds=rds_rows(rail, params), share=share)
     return simulate_startup(cz, record=record, max_steps=max_steps)
 
 
@@ -99,13 +124,16 @@ def _attempts(st: StartupFigures, t_amb: float) -> dict:
             "pulse_i": col(st.i_at_peak), "pulse_tj_start": np.full((st.status.shape[0], 1), float(t_amb))}
 
 
-def _soa_pulses(rail: Rail, st: StartupFigures) -> dict:
+def _soa_pulses(rail: Rail, st: StartupFigures, share: float = 1.0) -> dict:
     """Each attempt's pulse as its equivalent rectangle (its energy at the power of the peak's
     operating point, V_DS I) against the SOA derated from the attempt's starting junction
-    temperature; the worst attempt per row."""
+    temperature; the worst attempt per row. With parallel FETs the pulse is the worst FET's:
+    ``share`` of the current, energy and power at the same V_DS (so the same rectangle length)."""
     n = st.status.shape[0]
     att = _attempts(st, rail.t_ambient)
     e, p, v, i, tj0 = (att[k] for k in ("pulse_e", "pulse_p_peak", "pulse_v_ds", "pulse_i", "pulse_tj_start"))
+    if share != 1.0:
+        e, p, i = e * share, p * share, i * share
     k = e.shape[1]
     if k == 0:  # no row made an attempt (every start stalled before it began)
         nan = np.full(n, np.nan)
@@ -200,10 +228,12 @@ def evaluate_rows(rail: Rail, rules: dict, params: RowParams, *, startup: Startu
     startup : StartupFigures
     """
     n = params.n
+    share = linear_share(rail, rules)
     if startup is None:
-        startup = startup_rows(rail, params, record=record, max_steps=max_steps)
+        startup = startup_rows(rail, params, record=record, max_steps=max_steps, share=share)
     t_amb = rail.t_ambient
-    cz = circuit_rows(rail, v_s=params.v_s, c=params.c, i_limit=params.i_lim, t_fault=params.t_fault)
+    rds = rds_rows(rail, params)
+    cz = circuit_rows(rail, v_s=params.v_s, c=params.c, i_limit=params.i_lim, t_fault=params.t_fault, rds=rds)
     fig: dict = {"n": n, "status": startup.status, "v_s": params.v_s, "c": params.c, "i_lim": params.i_lim,
                  "t_fault": params.t_fault, "v_target": cz.final_output(t_amb)[0]}
     for name in ("i_peak", "t_i_peak", "t_limit", "t_settle", "e_fet", "p_fet_peak", "tj_peak", "v_supply_min",
@@ -213,15 +243,22 @@ def evaluate_rows(rail: Rail, rules: dict, params: RowParams, *, startup: Startu
     fig["t_trip"] = getattr(startup, "t_trip", np.full(n, np.nan))
     fig["t_below_uvlo"] = getattr(startup, "t_below_uvlo", np.zeros(n))
     fig["dip_unbounded"] = np.asarray(getattr(startup, "dip_unbounded", np.zeros(n, bool)), dtype=bool)
-    fig.update(_soa_pulses(rail, startup))
+    fig.update(_soa_pulses(rail, startup, share))
+    # the Rds(on) of the row, the worst FET's share of the pulse, and where the junction left the part's data
+    fig["rds"] = rds
+    fig["linear_share"] = share
+    fig["fet_i_peak"] = fig["i_peak"] * share if share != 1.0 else fig["i_peak"]
+    rds_t = cz.rds_t
+    with np.errstate(invalid="ignore"):
+        fig["tj_beyond"] = rds_t.beyond(fig["tj_peak"]) | bool(rds_t.beyond(t_amb))
 
     # steady conduction: the operating point a short during operation starts from
     nan = np.full(n, np.nan)
     if startup_only:
-        st = {"i": nan, "p_fet": nan, "tj": nan, "v_drop": nan, "stable": np.zeros(n, bool),
-              "dc_ok": np.zeros(n, bool)}
+        st = {"i": nan, "i_fet": nan, "p_fet": nan, "tj": nan, "v_drop": nan, "stable": np.zeros(n, bool),
+              "dc_ok": np.zeros(n, bool), "beyond": np.zeros(n, bool)}
     else:
-        st = steady_state(rail, v_s=params.v_s)
+        st = steady_state(rail, v_s=params.v_s, rds=rds)
     for k, v in st.items():
         fig["steady_" + k] = v
     t_start = start_temperature(rail, st) if not startup_only else np.full(n, float(t_amb))
@@ -229,9 +266,10 @@ def evaluate_rows(rail: Rail, rules: dict, params: RowParams, *, startup: Startu
     # short circuit at the row's supply, limit and trip time
     fig["has_limit"] = has_limit(rail) and not startup_only
     if fig["has_limit"]:
-        sc = short_circuit(rail, v_ds=params.v_s, i_limit=params.i_lim, t_fault=params.t_fault, t_start=t_start)
+        sc = short_circuit(rail, v_ds=params.v_s, i_limit=params.i_lim, t_fault=params.t_fault, t_start=t_start,
+                           share=share)
     else:
-        sc = {k: nan for k in ("v_ds", "i", "p", "t_soa", "t_thermal", "t_allow", "margin", "t_start")}
+        sc = {k: nan for k in ("v_ds", "i", "i_fet", "p", "t_soa", "t_thermal", "t_allow", "margin", "t_start")}
     for k, v in sc.items():
         fig["sc_" + k] = v
 

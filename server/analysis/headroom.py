@@ -68,7 +68,7 @@ import numpy as np
 from .checks import C_DEPENDENT
 from .circuit import circuit_rows
 from .document import Rail
-from .evaluation import RowParams, evaluate_rows
+from .evaluation import RowParams, evaluate_rows, linear_share
 from .shortcircuit import has_limit, short_circuit
 from .soa import allowed_current
 from .startup import STATUS_OK
@@ -442,13 +442,16 @@ def limit_headroom(rail: Rail, rules: dict, *, v_sc: float, t_fault: float, t_st
     r, _ = foster_arrays(fet.zth)
     z = float(r.sum()) if math.isinf(t_need) else float(zth(fet.zth, t_need))
     i_sc = min(i_soa, (fet.tj_max - t0) / (z * v_sc))
+    share = linear_share(rail, rules)
+    if share != 1.0:  # the worst of parallel FETs carries this share of the switch's current
+        i_sc = i_sc / share
     if sw.mode == "power_limit" and sw.p_limit is not None and sw.p_limit / v_sc < sw.i_limit * up:
-        return _power_headroom(rail, need, v_sc, t_fault, i_sc, t_start)
+        return _power_headroom(rail, need, v_sc, t_fault, i_sc, t_start, share)
 
     def passes(i_nom):
         i_nom = np.asarray(i_nom, dtype=float)
         sc = short_circuit(replace(rail, switch=replace(sw, p_limit=None)), v_ds=np.full(i_nom.shape, v_sc),
-                           i_limit=i_nom * up, t_fault=np.full(i_nom.shape, t_fault), t_start=t_start)
+                           i_limit=i_nom * up, t_fault=np.full(i_nom.shape, t_fault), t_start=t_start, share=share)
         return sc["margin"] >= need
 
     found = _highest_passing(passes, i_sc / up, sw.i_limit)
@@ -456,7 +459,7 @@ def limit_headroom(rail: Rail, rules: dict, *, v_sc: float, t_fault: float, t_st
 
 
 def _power_headroom(rail: Rail, need: float, v_sc: float, t_fault: float, i_sc: float,
-                    t_start: float | None = None) -> dict:
+                    t_start: float | None = None, share: float = 1.0) -> dict:
     """The power limit's headroom where the power limit sets the short-circuit current."""
     sw = rail.switch
     i_hi = sw.i_limit * (1.0 + sw.i_limit_tol)
@@ -466,7 +469,8 @@ def _power_headroom(rail: Rail, need: float, v_sc: float, t_fault: float, i_sc: 
         out = np.empty(p.shape, bool)
         for k, pk in enumerate(p):
             sc = short_circuit(replace(rail, switch=replace(sw, p_limit=float(pk))), v_ds=np.array([v_sc]),
-                               i_limit=np.array([i_hi]), t_fault=np.array([t_fault]), t_start=t_start)
+                               i_limit=np.array([i_hi]), t_fault=np.array([t_fault]), t_start=t_start,
+                               share=share)
             out[k] = sc["margin"][0] >= need
         return out
 

@@ -262,17 +262,23 @@ class _Model:
         self.regulates = cz.mode in ("slew", "power_limit")
         self.i_nom, self.p_load, self.p_lim = cz.i_nom, cz.p_load, cz.p_lim
         self.g_load = 1.0 / cz.r_load if cz.load == "resistive" else 0.0
-        self.rds_on, self.alpha = cz.rds_on, cz.alpha
+        self.rds_on, self.alpha = pick(cz.rds_on), cz.alpha
+        self.rds_t = cz.rds_t
+        # the lowest ratio the Rds(on) data allows (the linear coefficient's floor: 0.1, see rds_at)
+        self.r_floor_ratio = 0.1 if cz.rds_t.curve is None else min(k for _, k in cz.rds_t.curve)
         # the step control's bounds on the junction's change, and whether Rds(on) follows it
         self.tol_th = TJ_RTOL * self.th_span
         self.step_th = TJ_STEP * self.th_span
-        self.varies = self.alpha != 0.0
+        self.varies = cz.rds_t.varies
 
     def take(self, rows) -> "_Model":
         return _Model(self.cz.take(rows), self.ops, self.timer)
 
     def r_on(self, tj):
-        return self.rds_on * self.ops.maximum(1.0 + self.alpha * (tj - 25.0), 0.1)
+        """Switch on-resistance at junction temperature ``tj`` (held at the edge of the part's data)."""
+        if self.floats:
+            return self.rds_on * self.rds_t.ratio_float(tj)
+        return self.rds_on * self.rds_t.ratio(tj)
 
     def switch_r(self, t, r_on):
         """Switch resistance ``t`` seconds after turn-on: log-linear from R_OFF to r_on over
@@ -535,7 +541,7 @@ def _initial(model: _Model, t_est, i_typ, rows, active, t_amb: float) -> _State:
     ops, cz = model.ops, model.cz
     n = cz.n
     zero = np.zeros(n)
-    r_on0 = cz.rds_on * np.maximum(1.0 + cz.alpha * (t_amb - 25.0), 0.1) * np.ones(n)
+    r_on0 = cz.rds_on * cz.rds_t.ratio(t_amb) * np.ones(n)
     k = cz.r_th.shape[0]
     vals = {
         "il": zero, "vc": zero, "vout": zero, "vin": np.array(cz.v_s, dtype=float), "i": zero, "ic": zero,
@@ -728,7 +734,7 @@ def _take_stages(model: _Model, state: _State, h) -> _Step:
     dt1 = h - gh
     t_rel = (t - state.t_att) if (model.t_on > 0.0 and model.timer) else t  # time since the switch turned on
     if model.varies:  # Rds(on) at the junction temperature extrapolated to the stage
-        r_floor = 0.1 * model.rds_on  # rds_at's floor
+        r_floor = model.rds_on * model.r_floor_ratio  # the data's lowest ratio (rds_at's floor: 0.1)
         r_on_g = ops.maximum(state.r_on + state.r_rate * gh, r_floor)
         r_on_1 = ops.maximum(state.r_on + state.r_rate * h, r_floor)
     else:

@@ -21,7 +21,10 @@ Method
 Each toleranced parameter is drawn independently, inside the tolerance box the corners
 span (no sample leaves it): ``uniform`` over its tolerance band (the supply uniform on
 [v_min, v_max]), or ``normal`` with the tolerance as 3 sigma, truncated at 3 sigma (the
-supply: a two-piece normal around v_nom whose 3 sigma reach v_min and v_max). The default
+supply: a two-piece normal around v_nom whose 3 sigma reach v_min and v_max; the FET's
+Rds(on), where the part gives a maximum: uniform on [rds_on, rds_on_max], or a normal around
+the typical with the maximum at 3 sigma folded at the typical, since the box starts there).
+The default
 is uniform for every parameter: with no distribution known, it weighs the band's edges
 most (common practice, no source). Truncated draws are made by inverting the normal
 distribution function on a uniform draw restricted to [Phi(-3), Phi(3)] (the inverse
@@ -57,6 +60,8 @@ __all__ = ["PARAMETERS", "DISTRIBUTIONS", "DEFAULT_DISTRIBUTION", "FLAG_TOLERANC
            "sample_params", "wilson_interval", "run_monte_carlo"]
 
 PARAMETERS = ("v_s", "c", "i_limit", "timer_c", "i_charge", "v_trip")
+# drawn only where the part gives a maximum Rds(on) (and listed in a result only then)
+SPREAD_PARAMETERS = ("rds_on",)
 DISTRIBUTIONS = ("uniform", "normal")
 DEFAULT_DISTRIBUTION = "uniform"
 FLAG_TOLERANCE = 2e-3
@@ -105,19 +110,24 @@ def distributions_for(distribution: str | dict | None) -> dict[str, str]:
     Returns
     -------
     dict
-        ``{parameter: "uniform" | "normal"}`` for every name of `PARAMETERS`.
+        ``{parameter: "uniform" | "normal"}`` for every name of `PARAMETERS`, and for a
+        name of `SPREAD_PARAMETERS` (``rds_on``) only where it is given or off the default
+        (so that the options of a run without it read as before).
     """
     if distribution is None:
         distribution = {}
     if isinstance(distribution, str):
         if distribution not in DISTRIBUTIONS:
             raise ValueError("distribution: must be uniform or normal")
-        return {p: distribution for p in PARAMETERS}
+        out = {p: distribution for p in PARAMETERS}
+        if distribution != DEFAULT_DISTRIBUTION:  # the spread parameters are named only off their default
+            out.update({p: distribution for p in SPREAD_PARAMETERS})
+        return out
     if not isinstance(distribution, dict):
         raise ValueError("distribution: a word or a dict of parameter -> word")
     out = {p: DEFAULT_DISTRIBUTION for p in PARAMETERS}
     for key, value in distribution.items():
-        if key not in PARAMETERS:
+        if key not in PARAMETERS + SPREAD_PARAMETERS:
             raise ValueError(f"distribution: unknown parameter {key!r} (one of {', '.join(PARAMETERS)})")
         if value not in DISTRIBUTIONS:
             raise ValueError(f"distribution.{key}: must be uniform or normal")
@@ -177,8 +187,19 @@ def sample_params(rail: Rail, n: int, *, seed: int, distribution: str | dict | N
     else:
         tc = ich = vt = np.full(n, np.nan)
         tf = np.full(n, np.inf)
-    params = RowParams(v_s=v, c=c, i_lim=il, t_fault=tf)
-    draws = {"v_s": v, "c": c, "i_limit": il, "timer_c": tc, "i_charge": ich, "v_trip": vt}
+    fet = rail.fet
+    if fet.rds_on_max is not None and fet.rds_on_max > fet.rds_on:
+        # drawn last, so the other parameters' draws stay those of a part without a maximum
+        kind = kinds.get("rds_on", DEFAULT_DISTRIBUTION)
+        zr = _draw(rng, n, kind)
+        if kind == "uniform":  # uniform on [typical, maximum]
+            rds = fet.rds_on + (zr + 1.0) * 0.5 * (fet.rds_on_max - fet.rds_on)
+        else:  # normal around the typical with the maximum at 3 sigma, folded at the typical
+            rds = fet.rds_on + np.abs(zr) * (fet.rds_on_max - fet.rds_on)
+    else:
+        rds = np.full(n, fet.rds_on)
+    params = RowParams(v_s=v, c=c, i_lim=il, t_fault=tf, rds=rds)
+    draws = {"v_s": v, "c": c, "i_limit": il, "timer_c": tc, "i_charge": ich, "v_trip": vt, "rds_on": rds}
     return params, draws
 
 
@@ -284,7 +305,9 @@ def run_monte_carlo(rail: Rail, rules: dict, n: int, *, seed: int = 0, distribut
     return {
         "n": n,
         "seed": seed,
-        "distributions": kinds,
+        "distributions": {k: v for k, v in kinds.items() if k in PARAMETERS}
+                         | ({"rds_on": kinds.get("rds_on", DEFAULT_DISTRIBUTION)}
+                            if rail.fet.rds_on_max is not None else {}),
         "yield": k_pass / n,
         "yield_ci95": list(wilson_interval(k_pass, n)),
         "yield_no_fail": k_nofail / n,
@@ -310,4 +333,4 @@ def _beaten(rail: Rail, cid: str, rec: dict, ver: np.ndarray, mu: np.ndarray, pa
             "verdict": {0: "n/a", 1: "pass", 2: "marginal", 3: "fail"}[int(sev[j])],
             "worst_case_margin": rec["margin"], "worst_case_verdict": rec["verdict"],
             "point": point_words(rail, float(params.v_s[j]), float(params.c[j]), float(params.i_lim[j]),
-                                 float(params.t_fault[j]))}
+                                 float(params.t_fault[j]), rds=float(params.rds[j]))}

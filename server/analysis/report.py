@@ -156,6 +156,25 @@ def _monte_carlo_lines(mc: dict) -> list[str]:
     return lines
 
 
+def _fet_lines(result: dict) -> list[str]:
+    """The FET data the result used (parallel count, shares, R_DS(on) spread and data over T_j), and
+    which R_DS(on) each check read; nothing for a rail without them."""
+    f = result.get("fet")
+    if not f:
+        return []
+    lines = [f"MOSFETs in parallel: {f['count']}; R_DS(on) at 25 \u00b0C {eng(f['rds_on'], 'ohm')} typical"
+             + (f", {eng(f['rds_on_max'], 'ohm')} maximum" if f.get("rds_on_max") is not None else "")
+             + f"; {f['rds_data']} (beyond it: fails as beyond the part's data)"]
+    if f["count"] > 1:
+        lines.append(f"  largest share fully on {100 * f['conduction_share']:.3g} % (current divider); while "
+                     f"regulating {100 * f['linear_share']:.3g} % (team rule linear_share, common practice, no source)")
+    used = [f"{c['title']}: {eng(c['rds_on'], 'ohm')}" for c in result.get("checks") or []
+            if c.get("rds_on") is not None]
+    if used and f.get("rds_on_max") is not None:
+        lines.append("  R_DS(on) used: " + "; ".join(used))
+    return lines
+
+
 def format_report(result: dict, doc: dict) -> str:
     """Format an analysis result as a text report.
 
@@ -184,6 +203,7 @@ def format_report(result: dict, doc: dict) -> str:
     lines.append(f"Supply {eng(sup.get('v_min'), 'V')} to {eng(sup.get('v_max'), 'V')} (nominal "
                  f"{eng(sup.get('v_nom'), 'V')}); load {eng(load.get('c_nom'), 'F')}, "
                  f"{str(load.get('model', 'none')).replace('_', ' ')}; {mode} switch; MOSFET {fet.get('name')}")
+    lines += _fet_lines(result)
     lines.append("")
     lines.append("Checks" + (" (sign-off reading: each check's worst case)" if result.get("basis") != "nominal"
                              else " (nominal point only)"))

@@ -25,6 +25,7 @@ DEFAULT_RULES: dict[str, float] = {
     "fault_margin": 1.5,
     "timer_margin": 1.5,
     "vds_derating": 0.8,
+    "linear_share": 1.0,
 }
 
 RULE_DESCRIPTIONS: dict[str, dict[str, str]] = {
@@ -53,6 +54,13 @@ RULE_DESCRIPTIONS: dict[str, dict[str, str]] = {
         "meaning": "v_max <= vds_derating * vds_max",
         "basis": "common practice",
     },
+    "linear_share": {
+        "unit": "ratio",
+        "meaning": "share of the total current the worst of parallel FETs carries in linear mode (start-up "
+                   "regulation, short circuit); 1: one FET carries it all (threshold spread); never below "
+                   "1 / fet.count (no source for the default)",
+        "basis": "common practice",
+    },
 }
 
 RULE_RANGES: dict[str, dict[str, float]] = {
@@ -61,4 +69,5 @@ RULE_RANGES: dict[str, dict[str, float]] = {
     "fault_margin": {"minimum": 1.0},
     "timer_margin": {"minimum": 1.0},
     "vds_derating": {"above": 0.0, "maximum": 1.0},
+    "linear_share": {"above": 0.0, "maximum": 1.0},
 }

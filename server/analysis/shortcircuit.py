@@ -17,7 +17,11 @@ V_ds), so P = p_limit while the power limit binds). Two independent limits: the 
 SOA curves (`soa.soa_allowed_time`, measured curves include the hot-spot instability at
 high V_ds that a thermal model misses) and the Foster network (`thermal.time_to_rise`,
 time for Zth(t) P to reach tj_max - t_start). t_allow is the smaller one and
-margin = t_allow / t_fault_max.
+margin = t_allow / t_fault_max. With FETs in parallel the regulating FETs share the current
+as the team's ``linear_share`` rule says (default: one FET carries it all, threshold spread;
+common practice, no source): the SOA and the Foster network are read for that FET's current
+``i_fet = share I`` and power ``p = V_ds i_fet``. The current is regulated: Rds(on), and so
+its data over temperature, does not enter.
 
 A short during operation starts from the junction temperature of the operating point
 (t_start: the steady state's, `faults.start_temperature`): the SOA is derated from it and
@@ -44,7 +48,7 @@ def has_limit(rail: Rail) -> bool:
     return rail.switch.i_limit is not None
 
 
-def short_circuit(rail: Rail, *, v_ds, i_limit, t_fault, t_start=None) -> dict:
+def short_circuit(rail: Rail, *, v_ds, i_limit, t_fault, t_start=None, share: float = 1.0) -> dict:
     """Short-circuit figures for rows of operating conditions.
 
     Parameters
@@ -58,30 +62,34 @@ def short_circuit(rail: Rail, *, v_ds, i_limit, t_fault, t_start=None) -> dict:
         Time until the fault timer turns the FET off, s (``inf`` without a timer).
     t_start : ndarray, shape (n,), optional
         Junction temperature at the start of the short, degC (default: the ambient).
+    share : float
+        The share of the current the worst of parallel FETs carries (1: one FET).
 
     Returns
     -------
     dict of ndarray
-        ``v_ds`` (V), ``i`` (A), ``p`` (W), ``t_soa``, ``t_thermal``, ``t_allow`` (s,
+        ``v_ds`` (V), ``i`` (A, the switch's), ``i_fet`` (A, the worst FET's), ``p`` (W, the
+        worst FET's), ``t_soa``, ``t_thermal``, ``t_allow`` (s,
         ``inf`` = indefinitely), ``margin`` (t_allow / t_fault; ``inf`` when the FET
         survives indefinitely, 0 when it does not and nothing turns it off), ``t_start``
         (degC).
     """
     v = np.atleast_1d(np.asarray(v_ds, dtype=float))
     i = np.minimum(regulated_current(rail, v, i_limit), NO_LIMIT)
-    p = v * i
+    i_fet = i * share if share != 1.0 else i
+    p = v * i_fet
     fet = rail.fet
     if t_start is None:
         t0 = np.full(v.shape, float(rail.t_ambient))
-        t_soa = soa_allowed_time(fet, v, i, rail.t_ambient)
+        t_soa = soa_allowed_time(fet, v, i_fet, rail.t_ambient)
     else:
         t0 = np.broadcast_to(np.asarray(t_start, dtype=float), v.shape).copy()
-        t_soa = soa_allowed_time(fet, v, i, t0)
+        t_soa = soa_allowed_time(fet, v, i_fet, t0)
     r, tau = foster_arrays(fet.zth)
     t_th = time_to_rise(r, tau, p, fet.tj_max - t0)
     t_allow = np.minimum(t_soa, t_th)
     tf = np.broadcast_to(np.asarray(t_fault, dtype=float), v.shape)
     with np.errstate(invalid="ignore", divide="ignore"):
         margin = np.where(np.isinf(t_allow), np.inf, np.where(np.isinf(tf), 0.0, t_allow / tf))
-    return {"v_ds": v, "i": i, "p": p, "t_soa": t_soa, "t_thermal": t_th, "t_allow": t_allow, "margin": margin,
-            "t_start": t0}
+    return {"v_ds": v, "i": i, "i_fet": i_fet, "p": p, "t_soa": t_soa, "t_thermal": t_th, "t_allow": t_allow,
+            "margin": margin, "t_start": t0}

@@ -20,6 +20,12 @@ time_to_rise(r, tau, power, rise)
     Time for a constant power to raise the junction by ``rise`` (vectorised).
 rds_at(rds_on, alpha, tj)
     Rds(on) at junction temperature ``tj`` with a linear temperature coefficient.
+RdsTemperature, rds_temperature(fet)
+    Rds(on) / Rds(on, 25 degC) against Tj from the part's data (a table or the linear
+    coefficient), held at the edge of the data and never extrapolated past it, with the
+    junction temperatures the data covers.
+conduction_share(rds, count, rds_other)
+    The worst FET's share of the current of identical FETs in parallel (current divider).
 
 Method
 ------
@@ -46,7 +52,10 @@ import numpy as np
 
 __all__ = ["zth", "foster_arrays", "foster_advance", "foster_advance_floats", "foster_step", "foster_step_floats",
            "foster_rate", "foster_rate_floats",
-           "foster_peak", "foster_peak_floats", "time_to_rise", "rds_at"]
+           "foster_peak", "foster_peak_floats", "time_to_rise", "rds_at", "RdsTemperature", "rds_temperature",
+           "conduction_share", "BEYOND_DATA"]
+
+BEYOND_DATA = "beyond the part's data"
 
 
 def foster_arrays(stages: Iterable) -> tuple[np.ndarray, np.ndarray]:
@@ -474,3 +483,99 @@ def rds_at(rds_on: float, alpha: float, tj):
     keeps a cold extrapolation physical).
     """
     return rds_on * np.maximum(1.0 + alpha * (tj - 25.0), 0.1)
+
+
+class RdsTemperature:
+    """Rds(on) / Rds(on, 25 degC) against the junction temperature, from the part's data.
+
+    Either the datasheet's normalised curve as points (``curve``: (Tj degC, ratio), Tj
+    rising; piecewise-linear interpolation between them) or the linear coefficient
+    ``alpha`` (ratio 1 + alpha (Tj - 25), never below 0.1 as in `rds_at`). The data covers
+    Tj from ``t_low`` to ``t_high``: the curve's first and last points, or for the linear
+    coefficient up to tj_max (the datasheet's curves end there). Beyond it the ratio is held
+    at its value at the edge, never extrapolated: a check whose junction passes the edge
+    reads "beyond the part's data" and fails (the holding only keeps the arithmetic finite).
+
+    Method: linear interpolation in a table (``numpy.interp``); the linear coefficient is the
+    common reading of a datasheet's normalised Rds(on) curve over 25..150 degC (common
+    practice, no source).
+    """
+
+    def __init__(self, alpha: float, t_high: float, curve=None) -> None:
+        self.alpha = float(alpha)
+        self.curve = None if curve is None else tuple((float(t), float(k)) for t, k in curve)
+        if self.curve is None:
+            self.t_low, self.t_high = -math.inf, float(t_high)
+            self._xs = self._ys = None
+        else:
+            self._xs = np.array([t for t, _ in self.curve])
+            self._ys = np.array([k for _, k in self.curve])
+            self.t_low, self.t_high = float(self._xs[0]), float(self._xs[-1])
+            self._pairs = list(zip(self.curve[:-1], self.curve[1:]))
+
+    @property
+    def varies(self) -> bool:
+        """Whether the ratio changes with Tj at all."""
+        if self.curve is None:
+            return self.alpha != 0.0
+        return bool(np.any(self._ys != self._ys[0]))
+
+    def ratio(self, tj):
+        """The ratio at ``tj`` (degC; float or ndarray), held at the edges of the data."""
+        if self.curve is None:
+            x = np.minimum(tj, self.t_high)
+            return np.maximum(1.0 + self.alpha * (x - 25.0), 0.1)
+        return np.interp(tj, self._xs, self._ys)
+
+    def ratio_float(self, tj: float) -> float:
+        """`ratio` for one Python float (the one-row back end of the integrator)."""
+        if self.curve is None:
+            return max(1.0 + self.alpha * (min(tj, self.t_high) - 25.0), 0.1)
+        if tj <= self.t_low:
+            return self.curve[0][1]
+        for (t0, k0), (t1, k1) in self._pairs:
+            if tj <= t1:
+                return k0 + (k1 - k0) * (tj - t0) / (t1 - t0)
+        return self.curve[-1][1]
+
+    def beyond(self, tj) -> np.ndarray:
+        """Where ``tj`` lies outside the data (above its last point, or below its first)."""
+        tj = np.asarray(tj, dtype=float)
+        with np.errstate(invalid="ignore"):
+            return (tj > self.t_high * (1.0 + 1e-12) + 1e-9) | (tj < self.t_low - 1e-9)
+
+    def words(self) -> str:
+        """Where the data ends, in words."""
+        if self.curve is None:
+            return ("the linear R_DS(on) coefficient holds up to the maximum junction temperature "
+                    f"{self.t_high:g} \u00b0C")
+        return f"the R_DS(on) table covers {self.t_low:g} \u00b0C to {self.t_high:g} \u00b0C"
+
+
+def rds_temperature(fet) -> RdsTemperature:
+    """The `RdsTemperature` of a part (`document.Fet`): its table, else its linear coefficient up to tj_max."""
+    return RdsTemperature(fet.rds_on_alpha, fet.tj_max, getattr(fet, "rds_on_curve", None))
+
+
+def conduction_share(rds, count: int, rds_other):
+    """The share of the total current one FET carries among ``count`` identical FETs in parallel.
+
+    Parameters
+    ----------
+    rds : float or ndarray
+        That FET's Rds(on), ohm.
+    count : int
+        FETs in parallel (>= 1).
+    rds_other : float or ndarray
+        The Rds(on) of each of the other count - 1 FETs, ohm.
+
+    Returns
+    -------
+    float or ndarray
+        (1 / rds) / (1 / rds + (count - 1) / rds_other): the current divider of parallel
+        resistances (Kirchhoff's current law and Ohm's law; any circuit textbook, e.g.
+        C. K. Alexander and M. N. O. Sadiku, "Fundamentals of Electric Circuits", section
+        2.8). 1 for a single FET.
+    """
+    g = 1.0 / np.asarray(rds, dtype=float)
+    return g / (g + (count - 1) / np.asarray(rds_other, dtype=float))

@@ -110,6 +110,14 @@ FIELD_TITLES: dict[str, FieldWords] = {
     "fet.rds_on": W("MOSFET R_DS(on) at T_j 25 \u00b0C", "ohm",
                     "on-resistance at a junction temperature of 25 \u00b0C"),
     "fet.rds_on_alpha": W("R_DS(on) temperature coefficient", "1/K", "linear rise of R_DS(on) with T_j, e.g. 0.5 %/K"),
+    "fet.rds_on_max": W("MOSFET R_DS(on) maximum at T_j 25 \u00b0C", "ohm",
+                        "datasheet maximum; blank: no spread (the typical value only)"),
+    "fet.rds_on_curve": W("R_DS(on) against junction temperature", None,
+                          "[T_j (\u00b0C), R_DS(on) / R_DS(on) at 25 \u00b0C] points from the datasheet curve, "
+                          "T_j rising; blank: the linear coefficient up to T_j(max)"),
+    "fet.rds_on_curve[]": W("R_DS(on) against junction temperature, point {0}", None,
+                            "[T_j (\u00b0C), ratio]"),
+    "fet.count": W("Identical MOSFETs in parallel", "ratio", "a whole number; 1: one MOSFET"),
     "fet.tj_max": W("MOSFET maximum junction temperature", "degC", "T_j(max) from the datasheet"),
     "fet.rth_ja": W("MOSFET thermal resistance, junction to ambient", "K/W", "as mounted on the board"),
     "fet.zth": W("Foster stages (junction to ambient)", None, "one r (K/W), tau (s) pair per stage"),
@@ -136,6 +144,9 @@ FIELD_TITLES: dict[str, FieldWords] = {
     "rules.timer_margin": W("Fault timer start-up margin", "ratio",
                             "shortest fault time / longest time regulating at start-up"),
     "rules.vds_derating": W("V_DS derating", "ratio", "supply maximum / MOSFET V_DS rating, at most"),
+    "rules.linear_share": W("Linear-mode share of parallel MOSFETs", "ratio",
+                            "share of the current the worst MOSFET carries while regulating; 1: one carries it all "
+                            "(common practice, no source)"),
 }
 del W
 
@@ -151,6 +162,7 @@ PARAM_WORDS: dict[str, str] = {
     "i_charge": "timer charge current",
     "v_trip": "timer trip voltage",
     "t_fault": "fault timer",
+    "rds_on": "MOSFET R_DS(on)",
 }
 
 _INDEX = re.compile(r"\[(\d+)\]")

@@ -20,7 +20,8 @@ piecewise chart as the pulse changes shape). The box is the product of the param
 ranges: supply [v_min, v_max], load capacitance c_nom (1 -/+ c_tol), current limit
 i_limit (1 -/+ i_limit_tol) and, when some corner's start trips the fault timer, the trip
 time [t_fault_min, t_fault_max] (elsewhere the start-up does not depend on it, and the
-timer check takes the shortest trip time). Coordinates are scaled to [0, 1] per parameter.
+timer check takes the shortest trip time), and where the part gives a maximum Rds(on) the
+FET's Rds(on) at 25 degC [rds_on, rds_on_max]. Coordinates are scaled to [0, 1] per parameter.
 
 1. The corners (`corners.corner_set`).
 2. ``QUASI_RANDOM_POINTS`` points of a Halton sequence (bases 2, 3, 5, 7), shifted by a fixed
@@ -96,7 +97,7 @@ class WorstCase:
         corner = self.corners[row] if row < len(self.corners) else None
         parts = (corner["timer_c"], corner["i_charge"], corner["v_trip"]) if corner and corner["timer_c"] else None
         return point_words(self.rail, float(p.v_s[row]), float(p.c[row]), float(p.i_lim[row]),
-                           float(p.t_fault[row]), parts, keys)
+                           float(p.t_fault[row]), parts, keys, rds=float(p.rds[row]))
 
 
 _PRIMES = (2, 3, 5, 7, 11, 13)
@@ -156,7 +157,7 @@ class _Box:
         s, sw = rail.supply, rail.switch
         self.fixed = {"v_s": s.v_nom, "c": rail.load.c_nom,
                       "i_lim": sw.i_limit if sw.i_limit is not None else NO_LIMIT,
-                      "t_fault": t_fault_range[0]}
+                      "t_fault": t_fault_range[0], "rds": rail.fet.rds_on}
         dims = []
         if s.v_max > s.v_min:
             dims.append(("v_s", s.v_min, s.v_max))
@@ -167,6 +168,9 @@ class _Box:
         lo_t, hi_t = t_fault_range
         if with_timer and math.isfinite(hi_t) and hi_t > lo_t:
             dims.append(("t_fault", lo_t, hi_t))
+        fet = rail.fet
+        if fet.rds_on_max is not None and fet.rds_on_max > fet.rds_on:
+            dims.append(("rds", fet.rds_on, fet.rds_on_max))
         self.dims = dims
 
     @property
@@ -275,7 +279,7 @@ def find_worst_case(rail: Rail, rules: dict, *, t_fault_range: tuple[float, floa
     params, fig, checks, source, _ = pool.merged()
     worst, found = _worst_rows(checks, source)
     names = [c["name"] for c in cs] + [
-        point_words(rail, params.v_s[j], params.c[j], params.i_lim[j], params.t_fault[j])
+        point_words(rail, params.v_s[j], params.c[j], params.i_lim[j], params.t_fault[j], rds=params.rds[j])
         for j in range(len(cs), params.n)]
     report(1.0)
     return WorstCase(params=params, fig=fig, checks=checks, source=source, names=names, worst=worst,

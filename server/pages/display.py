@@ -84,6 +84,7 @@ def check_row(c: CheckRecord) -> dict[str, Any]:
         "found_by_text": FOUND_BY_TEXT.get(c.found_by or "", ""),
         "nominal_value": value_text(c.nominal.value, c.unit), "nominal_verdict": c.nominal.verdict,
         "t_start": value_text(c.t_start, "degC") if c.t_start is not None else None,
+        "rds_on": fmt(c.rds_on, "ohm") if getattr(c, "rds_on", None) is not None else None,
     }
 
 

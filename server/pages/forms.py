@@ -123,6 +123,8 @@ RAIL_SECTIONS: list[tuple[str, str, list[FormField]]] = [
     (_section_title("environment"), "environment", [
         F("environment.t_ambient", required=True, example="55 \u00b0C"),
     ]),
+    # the rail's number of parallel FETs: the part (library or own) gives one FET's data
+    ("MOSFETs of the rail (blank: one)", "fets", [F("fet.count", example="2")]),
     (_section_title("rules", "blank: the team's rule; common practice, not a standard"), "rules",
      [F(f"rules.{name}") for name in DEFAULT_RULES]),
 ]
@@ -172,8 +174,8 @@ def document_from_form(form: dict[str, str], fet: dict[str, Any] | None = None) 
             continue
         if raw:
             _put(doc, f.name, raw)
-    if fet is not None:
-        doc["fet"] = fet
+    if fet is not None:  # the rail's own FET, with the count this form gives (blank: one)
+        doc["fet"] = {k: v for k, v in fet.items() if k != "count"} | doc.get("fet", {})
     return doc
 
 

@@ -3,7 +3,10 @@
 Pure functions over plain dicts. An SOA curve is one pulse width and a block of pasted
 points, one "V_ds, I_d" pair per line (comma, semicolon, tab or spaces between the two;
 a header line and lines starting with # are skipped). Foster stages are pasted the same
-way, one "r, tau" pair per line. Values may carry units ("12 V", "20 us").
+way, one "r, tau" pair per line, and so is the normalised R_DS(on) curve over temperature,
+one "T_j, ratio" pair per line (blank: the linear coefficient). Values may carry units
+("12 V", "20 us"). The number of parallel FETs is the rail's, not the part's: it is on the
+rail form.
 
 Provides :data:`PART_FIELDS`, :func:`parse_pairs`, :func:`document_from_part_form`,
 :func:`part_form_from_document`, :func:`curve_slots`.
@@ -18,7 +21,7 @@ from server.analysis.words import field_title
 from server.pages.forms import FormField, form_value, place_errors, titled_field
 
 __all__ = ["PART_FIELDS", "parse_pairs", "document_from_part_form", "part_form_from_document", "curve_slots",
-           "part_errors", "part_field_titles", "ZTH_FIELD", "EMPTY_CURVES"]
+           "part_errors", "part_field_titles", "ZTH_FIELD", "RDS_CURVE_FIELD", "EMPTY_CURVES"]
 
 def _fet_field(name: str, *, required: bool = False, example: str = "") -> FormField:
     """A field of the part form: ``name`` is its path in the part (``fet``) document."""
@@ -31,12 +34,14 @@ PART_FIELDS = [
     _fet_field("id_pulse_max"),
     _fet_field("e_avalanche"),
     _fet_field("rds_on", required=True, example="5 m\u03a9"),
+    _fet_field("rds_on_max", example="6.5 m\u03a9"),
     _fet_field("rds_on_alpha"),
     _fet_field("tj_max", required=True, example="150 \u00b0C"),
     _fet_field("rth_ja", required=True, example="40 K/W"),
     _fet_field("soa.t_case"),
 ]
 ZTH_FIELD = "zth"
+RDS_CURVE_FIELD = "rds_on_curve"
 EMPTY_CURVES = ["100 µs", "1 ms", "10 ms", "DC"]
 _SPLIT = re.compile(r"\s*[,;\t]\s*")
 _COMMENT = "#"
@@ -48,7 +53,7 @@ def _curve_name(k: int, part: str) -> str:
 
 def part_field_titles(slots: list[int]) -> dict[str, str]:
     """Every field of the part form (its path in the part document) -> its title."""
-    names = [f.name for f in PART_FIELDS] + [ZTH_FIELD, "soa.curves"] + [
+    names = [f.name for f in PART_FIELDS] + [ZTH_FIELD, RDS_CURVE_FIELD, "soa.curves"] + [
         _curve_name(k, p) for k in slots for p in ("t_pulse", "points")]
     return {name: field_title(f"fet.{name}") for name in names}
 
@@ -104,6 +109,12 @@ def document_from_part_form(form: dict[str, str]) -> tuple[dict[str, Any], dict[
         errors[ZTH_FIELD] = "; ".join(problems)
     doc["zth"] = [{"r": a, "tau": b} for a, b, _ in pairs]
     mapping: dict[str, Any] = {"curves": {}, "zth_lines": [n for _, _, n in pairs], "points_lines": {}}
+    rds_pairs, problems = parse_pairs(form.get(RDS_CURVE_FIELD, ""))
+    if problems:
+        errors[RDS_CURVE_FIELD] = "; ".join(problems)
+    if rds_pairs:
+        doc["rds_on_curve"] = [[a, b] for a, b, _ in rds_pairs]
+    mapping["rds_lines"] = [n for _, _, n in rds_pairs]
     for k in curve_slots(form):
         t_raw = form.get(_curve_name(k, "t_pulse"), "").strip()
         text = form.get(_curve_name(k, "points"), "")
@@ -139,10 +150,15 @@ def part_errors(details: list[dict[str, Any]], mapping: dict[str, Any]) -> tuple
             j = int(zm.group(1))
             line = mapping["zth_lines"][j] if j < len(mapping["zth_lines"]) else j + 1
             message, path = f"line {line} ({zm.group(2).lstrip('.') or 'stage'}): {message}", ZTH_FIELD
+        rm = re.match(r"rds_on_curve\[(\d+)\](.*)", path)
+        if rm:
+            j = int(rm.group(1))
+            lines = mapping.get("rds_lines", [])
+            message, path = f"line {lines[j] if j < len(lines) else j + 1}: {message}", RDS_CURVE_FIELD
         if path == "soa.curves" or path == "soa":
             path = "soa.curves"
         fixed.append({"field": path, "message": message})
-    names = [f.name for f in PART_FIELDS] + [ZTH_FIELD, "soa.curves"] + [
+    names = [f.name for f in PART_FIELDS] + [ZTH_FIELD, RDS_CURVE_FIELD, "soa.curves"] + [
         _curve_name(k, p) for k in mapping["curves"].values() for p in ("t_pulse", "points")]
     return place_errors(fixed, names)
 
@@ -155,11 +171,13 @@ def part_form_from_document(doc: dict[str, Any] | None) -> dict[str, str]:
             form[_curve_name(k, "t_pulse")] = label
             form[_curve_name(k, "points")] = ""
         form[ZTH_FIELD] = ""
+        form[RDS_CURVE_FIELD] = ""
         return form
     for f in PART_FIELDS:
         value = (doc.get("soa") or {}).get("t_case") if f.name == "soa.t_case" else doc.get(f.name)
         form[f.name] = form_value(value, f.kind)
     form[ZTH_FIELD] = "\n".join(f"{form_value(s['r'], 'K/W')}, {form_value(s['tau'], 's')}" for s in doc["zth"])
+    form[RDS_CURVE_FIELD] = "\n".join(f"{_num(t)}, {_num(k)}" for t, k in (doc.get("rds_on_curve") or []))
     for k, c in enumerate(doc["soa"]["curves"]):
         form[_curve_name(k, "t_pulse")] = "DC" if c["t_pulse"] is None else form_value(c["t_pulse"], "s")
         form[_curve_name(k, "points")] = "\n".join(f"{_num(v)}, {_num(i)}" for v, i in c["points"])

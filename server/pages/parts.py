@@ -12,7 +12,7 @@ from server.analysis.words import FIELD_TITLES
 from server.auth import CurrentActor, require
 from server.db import SessionDep
 from server.pages.display import fmt
-from server.pages.part_forms import (PART_FIELDS, ZTH_FIELD, curve_slots, document_from_part_form,
+from server.pages.part_forms import (PART_FIELDS, RDS_CURVE_FIELD, ZTH_FIELD, curve_slots, document_from_part_form,
                                      part_errors, part_field_titles, part_form_from_document)
 from server.pages.plots import part_soa_figure, pulse_label, zth_figure
 from server.pages.rendering import FormDep, form_dict, page_context, redirect, render
@@ -40,7 +40,8 @@ def parts_context(session: Session, actor: Actor, q: str = "") -> dict[str, Any]
 
 
 # the ratings listed on the part page (paths in the part document), worded by FIELD_TITLES
-_RATINGS = ["vds_max", "id_pulse_max", "e_avalanche", "rds_on", "rds_on_alpha", "tj_max", "rth_ja", "soa.t_case"]
+_RATINGS = ["vds_max", "id_pulse_max", "e_avalanche", "rds_on", "rds_on_max", "rds_on_alpha", "tj_max", "rth_ja",
+            "soa.t_case"]
 
 
 def _get(doc: dict[str, Any], path: str) -> Any:
@@ -70,7 +71,9 @@ def part_context(session: Session, actor: Actor, part_id: int, n: int | None = N
               for c in sorted(doc["soa"]["curves"], key=lambda c: float("inf") if c["t_pulse"] is None else c["t_pulse"])]
     stages = [{"k": k + 1, "r": fmt(s["r"], "K/W"), "tau": fmt(s["tau"], "s")} for k, s in enumerate(doc["zth"])]
     zsum = sum(s["r"] for s in doc["zth"])
+    rds_curve = [{"tj": fmt(t, "degC"), "ratio": f"{k:.4g}"} for t, k in (doc.get("rds_on_curve") or [])]
     return {"part": part, "rev": rev, "document": doc, "ratings": ratings, "curves": curves, "stages": stages,
+            "rds_curve": rds_curve,
             "zth_sum": fmt(zsum, "K/W"), "revisions": part_service.list_part_revisions(
                 session=session, actor=actor, part_id=part_id),
             "usage": usage, "usage_total": len(all_usage), "usage_by_revision": sorted(by_revision.items()),
@@ -84,6 +87,7 @@ def part_form_context(*, values: dict[str, str], errors: dict[str, str], other: 
             "zth_field": ZTH_FIELD, "slots": slots, "base_n": base_n, "conflict": conflict,
             "titles": part_field_titles(slots) | {"message": "What changed and why"},
             "labels": {f.name: f.html_id for f in PART_FIELDS} | {ZTH_FIELD: "f-zth"} | {
+                RDS_CURVE_FIELD: "f-rds-on-curve"} | {
                 f"soa.curves[{k}].{p}": f"f-curve-{k}-{p.replace('_', '-')}" for k in slots
                 for p in ("t_pulse", "points")},
             "action": f"/parts/{part.id}/edit" if part else "/parts/new"}

@@ -35,6 +35,8 @@ MC_SAMPLES = (1000, 5000, 20000)
 # toleranced parameters whose Monte Carlo distribution the form sets, with their words
 MC_PARAMETERS = {"v_s": "Supply voltage", "c": "Load capacitance", "i_limit": "Current limit",
                  "timer_c": "Timer capacitor", "i_charge": "Timer charge current", "v_trip": "Timer trip voltage"}
+# drawn only for a rail whose part gives an R_DS(on) maximum (its form shows the choice only then)
+MC_SPREAD_PARAMETERS = {"rds_on": "MOSFET R_DS(on)"}
 
 
 def _key_figures(result: AnalysisResult) -> list[dict[str, Any]]:
@@ -98,7 +100,9 @@ def rail_context(session: Session, actor: Actor, rail_id: int) -> dict[str, Any]
                                    sha256=head.sha256),
         "mc_job": overview.active_job(session=session, board_id=rail.board_id, rail_id=rail.id,
                                       kind="monte_carlo", sha256=head.sha256),
-        "mc_samples": MC_SAMPLES, "mc_parameters": MC_PARAMETERS, "figures": {}, "checks": [], "worst": None,
+        "mc_samples": MC_SAMPLES, "figures": {}, "checks": [], "worst": None,
+        "mc_parameters": MC_PARAMETERS | (MC_SPREAD_PARAMETERS if (doc.get("fet") or {}).get("rds_on_max") is not None
+                                          else {}),
     }
     if result is not None:
         ctx["checks"] = check_rows(result.checks)
@@ -146,6 +150,13 @@ def monte_carlo_options(form: dict[str, str]) -> dict[str, Any]:
             raise Invalid("unknown distribution", details=[{"field": f"distribution_{param}",
                                                              "message": "uniform or normal"}])
         distribution[param] = kind
+    for param in MC_SPREAD_PARAMETERS:  # only where the form offers it
+        kind = form.get(f"distribution_{param}")
+        if kind:
+            if kind not in ("uniform", "normal"):
+                raise Invalid("unknown distribution", details=[{"field": f"distribution_{param}",
+                                                                 "message": "uniform or normal"}])
+            distribution[param] = kind
     return {"corners": True, "monte_carlo": n, "seed": seed, "distribution": distribution}
 
 

@@ -77,11 +77,13 @@ class AnalysisRequest(_Body):
     corners: bool = Field(True, description="also run every tolerance corner")
     monte_carlo: int = Field(0, ge=0, le=200_000, description="Monte Carlo samples (0: none)")
     seed: int = Field(0, ge=0, le=SEED_MAX, description="random seed of the Monte Carlo run")
-    distribution: Literal["uniform", "normal"] | dict[Literal["v_s", "c", "i_limit", "timer_c", "i_charge", "v_trip"],
+    distribution: Literal["uniform", "normal"] | dict[Literal["v_s", "c", "i_limit", "timer_c", "i_charge", "v_trip",
+                                                              "rds_on"],
                                                       Literal["uniform", "normal"]] = Field(
         "uniform", description="Monte Carlo distribution of the tolerances: uniform within the tolerance, or normal "
         "with the tolerance as 3 sigma truncated to it; one word for every parameter, or per parameter (v_s, c, "
-        "i_limit, timer_c, i_charge, v_trip; the others uniform)")
+        "i_limit, timer_c, i_charge, v_trip, and rds_on where the part gives an R_DS(on) maximum; the others "
+        "uniform)")
     revision: Id | None = Field(None, description="revision to analyse (default: the newest)")
     force: bool = Field(False, description="compute again even when a stored result exists")
 

@@ -32,7 +32,8 @@ from server.units import parse_quantity
 
 __all__ = [
     "SCHEMA_ID", "Supply", "PathImpedance", "Load", "Timer", "Switch", "FosterStage", "SoaCurve",
-    "Soa", "Fet", "Environment", "Rules", "RailDocument", "normalize", "canonical_json",
+    "Soa", "Fet", "Environment", "Rules", "RailDocument", "normalize", "part_document", "part_data",
+    "RAIL_FET_KEYS", "canonical_json",
     "document_sha256",
 ]
 
@@ -66,6 +67,8 @@ OptVoltPerSecond = Annotated[float | None, _optional_quantity("V/s")]
 OptKelvin = Annotated[float | None, _optional_quantity("K")]
 OptRatio = Annotated[float | None, _optional_quantity("ratio")]
 OptJoule = Annotated[float | None, _optional_quantity("J")]
+OptOhm = Annotated[float | None, _optional_quantity("ohm")]
+Ratio = Annotated[float, _quantity("ratio")]
 
 _BOUND_KEYWORDS = (("above", "exclusiveMinimum"), ("minimum", "minimum"), ("below", "exclusiveMaximum"),
                    ("maximum", "maximum"))
@@ -176,6 +179,9 @@ class Fet(_Section):
     zth: list[FosterStage] = _field("fet.zth")
     soa: Soa = _field("fet.soa")
     e_avalanche: OptJoule = _field("fet.e_avalanche")
+    rds_on_max: OptOhm = _field("fet.rds_on_max")
+    rds_on_curve: list[tuple[Celsius, Ratio]] | None = _field("fet.rds_on_curve")
+    count: int = _field("fet.count")
 
 
 class Environment(_Section):
@@ -190,6 +196,7 @@ class Rules(_Section):
     fault_margin: OptRatio = _field("rules.fault_margin")
     timer_margin: OptRatio = _field("rules.timer_margin")
     vds_derating: OptRatio = _field("rules.vds_derating")
+    linear_share: OptRatio = _field("rules.linear_share")
 
 
 class RailDocument(_Section):
@@ -209,7 +216,37 @@ def normalize(document: RailDocument) -> dict[str, Any]:
     """The canonical JSON-able form: SI floats, defaults filled, overrides left unset omitted."""
     data = document.model_dump(mode="json", by_alias=True)
     data["rules"] = {k: v for k, v in data["rules"].items() if v is not None}
+    _drop_absent_fet_data(data["fet"])
     return data
+
+
+# the optional FET fields and the value that stands for "not given": left out of the canonical
+# form, so that a document without them keeps its text and its hash
+_FET_ABSENT = {"rds_on_max": None, "rds_on_curve": None, "count": DEFAULTS["fet.count"]}
+
+
+# the keys of a rail document's ``fet`` that are the rail's, not the part's: FETs in parallel
+RAIL_FET_KEYS = frozenset({"count"})
+
+
+def part_data(fet: dict[str, Any]) -> dict[str, Any]:
+    """A FET document without the rail's own figures: what a library part holds."""
+    return {k: v for k, v in fet.items() if k not in RAIL_FET_KEYS}
+
+
+def part_document(fet: Fet) -> dict[str, Any]:
+    """The canonical form of a part library entry: the FET's data without the rail's own figure
+    (``count``, the FETs a rail puts in parallel) and without optional data left unset."""
+    data = _drop_absent_fet_data(fet.model_dump(mode="json"))
+    data.pop("count", None)
+    return data
+
+
+def _drop_absent_fet_data(fet: dict[str, Any]) -> dict[str, Any]:
+    for key, absent in _FET_ABSENT.items():
+        if key in fet and fet[key] == absent:
+            del fet[key]
+    return fet
 
 
 def canonical_json(data: dict[str, Any]) -> str:

@@ -37,6 +37,8 @@ class Point(_Model):
     c: float = Field(description="load capacitance, F")
     i_limit: Number = Field(description="current limit, A (none: no limit)")
     t_fault: Number = Field(description="fault-timer trip time, s (none: no timer)")
+    rds_on: Number = Field(None, description="the FET's R_DS(on) at 25 degC, ohm (only where the rail gives "
+                                             "an R_DS(on) maximum, table or parallel FETs)")
 
 
 class NominalReading(_Model):
@@ -68,6 +70,9 @@ class CheckRecord(_Model):
     detail: str = Field(description="why the value reads as it does, in words")
     t_start: Number = Field(None, description="the junction temperature the check starts from, degC (none: the "
                                               "check has no starting temperature, or does not apply)")
+    rds_on: Number = Field(None, description="the FET's R_DS(on) at 25 degC at this reading, ohm (only where the "
+                                             "rail gives an R_DS(on) maximum, table or parallel FETs; none: the "
+                                             "check does not depend on it)")
 
 
 class KeyFigure(_Model):
@@ -172,6 +177,7 @@ class ShortCircuitPoint(_Model):
     t_start: Number = None
     onset: OnsetPoint | None = None
     turn_off: TurnOffPoint | None = None
+    i_fet: Number = Field(None, description="the worst of parallel FETs' current, A (team rule linear_share)")
 
 
 class ShortCircuitSection(_Model):
@@ -192,6 +198,7 @@ class ShortCircuitSection(_Model):
     t_start: Number = Field(None, description="junction temperature the short starts from (the steady state), degC")
     onset: OnsetPoint | None = None
     turn_off: TurnOffPoint | None = None
+    i_fet: Number = Field(None, description="the worst of parallel FETs' current, A (team rule linear_share)")
 
 
 class TimerSection(_Model):
@@ -229,6 +236,24 @@ class SteadySection(_Model):
     tj: Number
     v_drop: Number
     stable: bool
+    i_fet: Number = Field(None, description="the hottest of parallel FETs' current, A (current divider)")
+    beyond_data: bool | None = Field(None, description="the junction would leave the part's R_DS(on) data")
+    rds_on: Number = Field(None, description="the FET's R_DS(on) at 25 degC at the nominal point, ohm")
+
+
+class FetSection(_Model):
+    """The FET data the result used (only where the rail gives an R_DS(on) maximum, table or parallel FETs)."""
+
+    count: int
+    rds_on: float
+    rds_on_max: Number
+    rds_on_curve: list[list[float]] | None
+    rds_data: str = Field(description="where the part's R_DS(on) data over temperature ends, in words")
+    t_data_high: float = Field(description="the highest junction temperature the R_DS(on) data covers, degC")
+    linear_share: float = Field(description="share of the current the worst FET carries while regulating")
+    conduction_share: float = Field(description="largest share of the current one FET carries fully on")
+    conduction_share_note: str
+    linear_share_note: str
 
 
 class Excluded(_Model):
@@ -361,6 +386,7 @@ class AnalysisResult(_Model):
     worst_case: WorstCaseSummary
     corners: list[CornerEntry] | None = None
     monte_carlo: MonteCarlo | None = None
+    fet: FetSection | None = None
     rules: dict[str, float]
     conventions: list[str]
     notes: list[str]

@@ -26,7 +26,7 @@ from sqlalchemy import select
 from sqlalchemy.orm import Session
 
 from server.models import PartRevision, Rail, RailRevision, utcnow
-from server.schemas.rail import document_sha256
+from server.schemas.rail import RAIL_FET_KEYS, document_sha256, part_data
 from server.services import jobs, signoff
 from server.services.access import Actor, Permission
 from server.services.audit import record
@@ -80,8 +80,12 @@ def _document_with_part(data: Any, part_rev: PartRevision | None) -> dict[str, A
     """Normalise ``data``; a pinned part supplies the FET, and an inline FET must match it."""
     if part_rev is not None and isinstance(data, dict) and data.get("fet") is None:
         data = {**data, "fet": part_rev.document}
+    elif part_rev is not None and isinstance(data, dict) and isinstance(data.get("fet"), dict) \
+            and set(data["fet"]) <= RAIL_FET_KEYS:
+        # only the rail's own figures (the parallel count): the part supplies the rest
+        data = {**data, "fet": {**part_rev.document, **data["fet"]}}
     doc = normalize_document(data)
-    if part_rev is not None and doc["fet"] != part_rev.document:
+    if part_rev is not None and part_data(doc["fet"]) != part_data(part_rev.document):
         message = (f"differs from part '{part_rev.document['name']}' revision {part_rev.n} that this rail uses: "
                    "edit the part in the library, or send part: null to use a FET of this rail's own")
         raise Invalid(f"fet {message}", details=[{"field": "document.fet", "message": message}])

@@ -196,7 +196,8 @@ _INPUTS: list[tuple[str, tuple[str, ...]]] = [
     ("switch.timer", ("c", "c_tol", "i_charge", "i_charge_tol", "v_trip", "v_trip_tol", "after_fault", "retry_off",
                       "retries")),
     ("environment", ("t_ambient",)),
-    ("fet", ("name", "vds_max", "id_pulse_max", "e_avalanche", "rds_on", "rds_on_alpha", "tj_max", "rth_ja")),
+    ("fet", ("name", "vds_max", "id_pulse_max", "e_avalanche", "rds_on", "rds_on_max", "rds_on_alpha", "tj_max",
+             "rth_ja", "count")),
 ]
 
 
@@ -227,5 +228,14 @@ def input_sections(document: dict[str, Any]) -> list[dict[str, Any]]:
         if path == "switch.timer" and not section:
             sections.append({"title": title, "items": [(title, "none")]})
             continue
-        sections.append({"title": title, "items": _items(section or {}, path, keys)})
+        items = _items(section or {}, path, keys)
+        if path == "fet" and (section or {}).get("rds_on_curve"):
+            items.append(_rds_curve_item(section["rds_on_curve"]))
+        sections.append({"title": title, "items": items})
     return sections
+
+
+def _rds_curve_item(points: list) -> tuple[str, str]:
+    """The R_DS(on) table over temperature as one line: "25 °C: 1, 100 °C: 1.45, ..."."""
+    text = ", ".join(f"{format_quantity(t, 'degC')}: {k:.4g}" for t, k in points)
+    return FIELD_TITLES["fet.rds_on_curve"].title, f"{text} (R_DS(on) / R_DS(on) at 25 \u00b0C)"

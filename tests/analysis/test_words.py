@@ -29,6 +29,8 @@ def _full_document() -> dict:
     doc["switch"]["timer"]["retries"] = 3
     doc["fet"]["e_avalanche"] = 0.1
     doc["rules"] = dict(DEFAULT_RULES)
+    doc["fet"].update(rds_on_max=doc["fet"]["rds_on"] * 1.3, count=2,
+                      rds_on_curve=[[-55.0, 0.6], [25.0, 1.0], [150.0, 1.7]])
     read_rail(doc)  # a valid document
     return doc
 
@@ -38,7 +40,7 @@ def _walk(node, path=""):
     if isinstance(node, dict):
         for key, value in node.items():
             yield from _walk(value, f"{path}.{key}" if path else key)
-    elif isinstance(node, list) and not (path.endswith("]") and "points" in path):
+    elif isinstance(node, list) and not (path.endswith("]") and ("points" in path or "rds_on_curve" in path)):
         for k, value in enumerate(node):
             yield from _walk(value, f"{path}[{k}]")
 
@@ -114,7 +116,7 @@ def test_rules_and_corner_parameters_have_words():
     assert rule_title("vds_derating") == "V_DS derating"
     assert PARAM_WORDS == {"v_s": "supply", "c": "load C", "i_limit": "current limit", "timer_c": "timer C",
                            "i_charge": "timer charge current", "v_trip": "timer trip voltage",
-                           "t_fault": "fault timer"}
+                           "t_fault": "fault timer", "rds_on": "MOSFET R_DS(on)"}
 
 
 @pytest.mark.parametrize("value, unit, text", [

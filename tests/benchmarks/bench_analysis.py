@@ -13,7 +13,12 @@ Prints, measured side by side in the same run on this machine:
   2,000 samples, our single-row path, a straightforward loop calling
   ``scipy.integrate.solve_ivp`` (Radau) once per sample, and ngspice in batch mode once
   per sample (process start included), with the speed ratios and the agreement of the
-  figures.
+  figures;
+- the cost of the R_DS(on) spread and parallel FETs: nominal, the sign-off worst case
+  (corners and search) and Monte Carlo of 10,000 samples of a rail as it is, and with
+  ``fet.rds_on_max`` (1.3 x typical) alone (the cost of the dimension: the physics is the
+  same at the typical corner), with ``fet.count`` 2 (a cooler FET: different transients) and
+  with an R_DS(on) table as well, with the ratios (goal: at most 2 x).
 
 Not collected by pytest (the name does not start with ``test_``).
 """
@@ -256,12 +261,39 @@ def section_stiff() -> None:
     print(f"  start-up {fig.t_limit[0]:.3f} s of regulation in {int(fig.steps[0])} steps, {ms(t)}")
 
 
+def _with_fet_data(doc: dict, table: bool, count: int = 2) -> dict:
+    doc = copy.deepcopy(doc)
+    doc["fet"].update(rds_on_max=doc["fet"]["rds_on"] * 1.3, count=count)
+    if table:
+        doc["fet"]["rds_on_curve"] = [[-55.0, 0.6], [25.0, 1.0], [100.0, 1.4], [175.0, 1.95]]
+    return doc
+
+
+def section_fet_data() -> None:
+    print()
+    print("R_DS(on) maximum and two parallel FETs (and an R_DS(on) table) against the rail as it is (median)")
+    print(f"  {'rail':28s} {'variant':14s} {'nominal':>11s} {'worst case':>11s} {'MC 10k':>10s}  ratios to the rail")
+    for name, make in list(RAILS.items())[:3]:
+        base = None
+        for variant, doc in (("as it is", make()), ("max only", _with_fet_data(make(), False, 1)),
+                             ("max + 2 FETs", _with_fet_data(make(), False)),
+                             ("+ table", _with_fet_data(make(), True))):
+            t_nom = median_time(lambda: analyze_rail(doc, corners=False, headroom=False, waveforms=False), 10)
+            t_wc = median_time(lambda: analyze_rail(doc, headroom=False, waveforms=False), 3)
+            t_mc = median_time(lambda: analyze_rail(doc, corners=False, monte_carlo=10000, headroom=False,
+                                                    waveforms=False), 3)
+            base = base or (t_nom, t_wc, t_mc)
+            ratios = " ".join(f"{a / b:4.2f}" for a, b in zip((t_nom, t_wc, t_mc), base))
+            print(f"  {name:28s} {variant:14s} {ms(t_nom):>11s} {ms(t_wc):>11s} {t_mc:8.3f} s  {ratios}")
+
+
 def main() -> None:
     print(f"railsign analysis benchmark (python {sys.version.split()[0]}, numpy {np.__version__})")
     section_speed()
     section_headroom_backends()
     section_engines()
     section_stiff()
+    section_fet_data()
 
 
 if __name__ == "__main__":
