@@ -187,6 +187,10 @@ def _time_scale(cz: Circuit) -> np.ndarray:
         t = np.maximum(t, cz.v_s / cz.dvdt)
     if cz.mode == "power_limit":
         t = np.maximum(t, cz.c * cz.v_s * cz.v_s / cz.p_lim)
+    if cz.gate is not None:  # the gate's charge to the threshold and the Miller plateau
+        gm = cz.gate
+        i_g = gm.i_g0 if gm.g_g == 0.0 else np.maximum(gm.i_g0 - gm.g_g * (cz.v_s + gm.v_th), 0.1 * gm.i_g0)
+        return np.maximum(t, (gm.c_total * gm.v_th + (gm.c_gd + gm.c_ext) * cz.v_s) / i_g)
     return np.maximum(t, cz.t_on)
 
 
@@ -201,7 +205,7 @@ def _stall_voltage(cz: Circuit, v_final: np.ndarray) -> np.ndarray:
         return out
     frac = np.linspace(0.0, 1.0, 257)
     v = v_final[None, :] * frac[:, None] * (1.0 - 1e-9)  # (257, n)
-    if cz.mode == "slew":
+    if cz.mode == "slew" and cz.fold is None:
         ref = np.broadcast_to(cz.i_lim, v.shape)  # the slew ramp itself never stalls
     else:
         ref = cz.limit_reference(v)
