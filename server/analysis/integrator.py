@@ -371,17 +371,22 @@ class _Model:
         return (f1 + df * (e_ref - vd1)) / den, -df / den
 
     def _gate_current(self, dh, E, Z, rhs_g, vo0, vo1):
-        """The FET's saturation current in a stage, and the gate voltage v_g = g0 + g1 i.
+        """The FET's channel current in a stage, and the gate voltage v_g = g0 + g1 i.
 
         The gate charge q_g = C_t v_g - C_gd v_in - C_gs v_out (C_t = C_gs + C_gd + C_ext)
         obeys dq_g/dt = i_g0 - g_g v_g; its stage equation q_g - dh (i_g0 - g_g v_g) = rhs_g with
-        v_in = E - Z i and v_out = vo0 + vo1 i gives v_g linear in the switch current i. In
-        saturation i = k/2 (v_g - v_out - V_th)^2 (the SPICE level-1 square law, lambda = 0:
-        H. Shichman and D. A. Hodges, IEEE J. Solid-State Circuits 3 (1968) 285-289), with
-        V_GS - V_th = A - beta i (beta >= 0: more current lifts the source and, through C_gd,
-        lowers the gate) is the quadratic (k beta / 2) u^2 + u - A = 0 in the overdrive u,
-        solved exactly in its stable form u = 2 A / (1 + sqrt(1 + 2 k beta A)) (0 below the
-        threshold).
+        v_in = E - Z i and v_out = vo0 + vo1 i gives v_g linear in the switch current i, so the
+        overdrive V_GS - V_th = A - beta i (beta >= 0: more current lifts the source and,
+        through C_gd, lowers the gate) and V_DS = D - delta i are linear in i. The channel is
+        the SPICE level-1 MOSFET with lambda = 0 (H. Shichman and D. A. Hodges, IEEE J.
+        Solid-State Circuits 3 (1968) 285-289): in saturation (V_DS >= u) i = k/2 u^2, the
+        quadratic (k beta / 2) u^2 + u - A = 0 in the overdrive u, solved in its stable form
+        u = 2 A / (1 + sqrt(1 + 2 k beta A)); in the linear region i = k (u V_DS - V_DS^2 / 2),
+        a quadratic a2 i^2 + a1 i + a0 = 0 whose root on the falling side is
+        (-a1 - sqrt(a1^2 - 4 a2 a0)) / (2 a2), taken in the form without cancellation (Press et
+        al., "Numerical Recipes", section 5.6), never above the saturation current. Both are
+        exact for the stage's linear relations; 0 below the threshold. The stage takes the smaller of this current and the fully
+        enhanced V_DS / Rds(on) (`stage`).
         """
         gm = self.gate
         ops = self.ops
@@ -390,8 +395,24 @@ class _Model:
         g1 = (gm.c_gs * vo1 - gm.c_gd * Z) / cd
         a = ops.maximum(g0 - vo0 - gm.v_th, 0.0)
         beta = ops.maximum(vo1 - g1, 0.0)
-        u = 2.0 * a / (1.0 + ops.sqrt(1.0 + 2.0 * gm.k * beta * a))
-        return 0.5 * gm.k * u * u, g0, g1
+        k = gm.k
+        u = 2.0 * a / (1.0 + ops.sqrt(1.0 + 2.0 * k * beta * a))
+        i_sat = 0.5 * k * u * u
+        d, delta = E - vo0, Z + vo1
+        linear = d - delta * i_sat < u  # the saturation solution would have V_DS below its overdrive
+        if ops.any(linear):
+            a2 = k * (beta * delta - 0.5 * delta * delta)
+            a1 = k * (d * delta - a * delta - beta * d) - 1.0
+            a0 = k * (a * d - 0.5 * d * d)
+            disc = a1 * a1 - 4.0 * a2 * a0
+            root = ops.sqrt(ops.maximum(disc, 0.0))
+            # the root on the falling side, (-a1 - root) / (2 a2), in the form without cancellation
+            up = a1 > 0.0
+            i_lin = ops.where(up, (-a1 - root) / ops.where(a2 < 0.0, 2.0 * a2, -1.0),
+                              2.0 * a0 / ops.where(up, 1.0, root - a1 + 1e-300))
+            ok_lin = linear & (disc >= 0.0) & (ops.not_(up) | (a2 < 0.0))
+            i_sat = ops.where(ok_lin, ops.minimum(ops.maximum(i_lin, 0.0), i_sat), i_sat)
+        return i_sat, g0, g1
 
     def _gate_node(self, st: _Stage, dh, rhs_g, g0, g1, sw_on) -> None:
         """The stage's gate voltage and gate current into ``st`` (``vg``, ``fg``).
@@ -418,6 +439,16 @@ class _Model:
             vg = ops.where(sw_on, vg, st.vout)
             fg = ops.where(sw_on, fg, 0.0)
         st.vg, st.fg = vg, fg
+
+    def r_final(self, r_on):
+        """The switch resistance of the DC operating point: Rds(on), or with a voltage gate
+        drive the level-1 channel at the drive's overdrive, 1 / (k (v_drive - v_s - V_th)),
+        where that is higher (a drive that never enhances the FET fully)."""
+        gm = self.gate
+        if gm is None or gm.g_g == 0.0:
+            return r_on
+        over = self.ops.maximum(gm.i_g0 / gm.g_g - self.v_s - gm.v_th, 1e-9)
+        return self.ops.maximum(r_on, 1.0 / (gm.k * over))
 
     def gate_charge(self, vg, vin, vout):
         """The gate charge state q_g = C_t v_g - C_gd v_in - C_gs v_out, C."""
@@ -795,7 +826,7 @@ def _run(model: _Model, state: _State, final: dict, wave, rec, record, t_amb: fl
         _dip(model, state, ok, step.t, step.gh, step.h, state.i, step.s1, step.s2, step.evt)
         tj_hi, rate_1 = _junction_peak(model, state, step, ok, t_amb)
         r_on1 = model.r_on(step.tj_1) if model.varies else state.r_on
-        v_f, i_f = model.final_output(r_on1)  # the DC operating point at the step's end
+        v_f, i_f = model.final_output(model.r_final(r_on1))  # the DC operating point at the step's end
         _settling(model, state, step, ok, v_f)
         _commit(model, state, step, ok, rate_1, r_on1)
         if rec is not None and (ok[rec] if arrays else ok):
@@ -877,10 +908,17 @@ def _local_error(model: _Model, state: _State, step: _Step, t_amb: float):
     eh = _EC * h
     tol_v = state.atol_v + RTOL * model.v_s
     err = ops.fabs(eh * (_W0 * ic + _W1 * s1.ic + _W2 * s2.ic) / c) / tol_v
-    if model.gate is not None:  # the gate charge's estimate, as a gate voltage
+    if model.gate is not None:
+        # the gate charge's estimate as a gate voltage, and what the estimates of the gate and
+        # the output do to the channel current through its transconductance k (V_GS - V_th)
         gm = model.gate
         e_g = eh * (_W0 * state.fg + _W1 * s1.fg + _W2 * s2.fg) / (gm.c_total + dh * gm.g_g)
+        e_v = eh * (_W0 * ic + _W1 * s1.ic + _W2 * s2.ic) / c
+        g_m = gm.k * ops.maximum(s2.vg - s2.vout - gm.v_th, 0.0)
+        if model.timer:
+            g_m = ops.where(sw_on, g_m, 0.0)
         err = ops.maximum(err, ops.fabs(e_g) / tol_v)
+        err = ops.maximum(err, ops.fabs(g_m * (e_g - e_v)) / (state.atol_i + RTOL * state.i_scale))
     if model.has_cin:
         # (i_L, v_in) estimates filtered by their 2x2 block of the iteration matrix, the
         # switch a conductance to the output where it is fully on
@@ -1155,7 +1193,10 @@ def _finished(model: _Model, state: _State, step: _Step, ok, tj_hi, v_f, i_f, fi
     if model.has_cin:
         dev = dev + model.c_in * (state.vin - model.v_s + model.r * i_f) ** 2
     done = ok & (dev <= model.c * (STOP_BAND * v_f) ** 2)
-    if model.limit:
+    if model.gate is not None:  # out of saturation (V_DS below the overdrive) and out of the current limit
+        sat = (state.vin >= state.vg - model.gate.v_th) | (state.exc_c > 0.0)
+        done = done & ops.not_(state.lim & sat)
+    elif model.limit:
         done = done & ops.not_(state.lim)
     if t_on > 0.0:
         done = done & ((state.t - state.t_att) >= t_on if model.timer else state.t >= t_on)

@@ -183,7 +183,7 @@ def _time_scale(cz: Circuit) -> np.ndarray:
         t = np.maximum(t, np.minimum(cz.r_load * cz.c, 1e3))
     lim_rate = np.minimum(cz.i_lim, cz.v_s / (cz.r + rds + cz.esr))
     t = np.maximum(t, cz.c * cz.v_s / lim_rate)
-    if cz.mode == "slew":
+    if cz.mode == "slew" and cz.gate is None:
         t = np.maximum(t, cz.v_s / cz.dvdt)
     if cz.mode == "power_limit":
         t = np.maximum(t, cz.c * cz.v_s * cz.v_s / cz.p_lim)
@@ -261,6 +261,8 @@ def simulate_startup(cz: Circuit, *, record: int | None = None, max_steps: int =
     v_stall = np.where(stalled, np.where(stall_reg, v_grid, 0.0), np.nan)
     t_est = _time_scale(cz)
     i_typ = np.minimum(cz.i_lim, cz.v_s / (cz.r + cz.rds_on + cz.esr + np.sqrt(cz.l / cz.c)))
+    if cz.gate is not None:  # the capacitor's current at the gate's slew, and the load's
+        i_typ = np.minimum(i_typ, cz.c * cz.v_s / t_est + cz.i_nom)
 
     free = ~stalled
     fig, wave = _free_run(cz, t_est=t_est, i_typ=i_typ, active=free, record=record, max_steps=max_steps)
