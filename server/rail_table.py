@@ -19,7 +19,9 @@ The column set (README, "Importing a table of rails"):
   ``board``, ``rail``, ``r``, ``tau`` (one stage per row, in order) and ``fet.soa.curves`` with
   columns ``board``, ``rail``, ``t_pulse``, ``v_ds``, ``i_d`` (one point per row; the rows of
   one pulse width make its curve, curves and points in the order of the sheet; ``DC`` or a
-  blank pulse width is the DC curve).
+  blank pulse width is the DC curve); ``switch.foldback`` (the foldback current limit) likewise as a JSON
+  cell of ``[v_ds, i_limit]`` pairs (``[["2V", "5A"], [10, 1]]``) or on a sheet ``switch.foldback`` with
+  columns ``board``, ``rail``, ``v_ds``, ``i_limit`` (one point per row, in order).
 
 Blank rows and rows whose first cell starts with ``#`` are skipped. The first sheet of a
 workbook holds the table; numbers count from the table's header (row 1), as a spreadsheet
@@ -50,7 +52,8 @@ __all__ = ["TableRow", "RailTable", "TableInvalid", "read_csv", "read_xlsx", "re
 
 MAX_ROWS = 5000
 META_COLUMNS = ("board", "board_revision", "part", "part_revision")
-LIST_FIELDS = {"fet.zth": ("r", "tau"), "fet.soa.curves": ("t_pulse", "v_ds", "i_d")}
+LIST_FIELDS = {"fet.zth": ("r", "tau"), "fet.soa.curves": ("t_pulse", "v_ds", "i_d"),
+               "switch.foldback": ("v_ds", "i_limit")}
 _SECTIONS = ("supply", "path", "load", "switch", "environment")
 _HEADER = re.compile(r"^\s*(?P<name>.*?)\s*(?:\[(?P<unit>[^\]]*)\])?\s*$")
 _NUMBER = re.compile(r"^[-+]?(\d+\.?\d*|\.\d+)([eE][-+]?\d+)?$")
@@ -275,6 +278,10 @@ def _curves(items: list[dict]) -> list[dict[str, Any]]:
     return list(curves.values())
 
 
+def _foldback(items: list[dict]) -> list[list[Any]]:
+    return [[_cell_value(i["v_ds"], ""), _cell_value(i["i_limit"], "")] for i in items]
+
+
 def read_xlsx(data: bytes) -> RailTable:
     """A workbook: the table on its first sheet; Foster stages and SOA curves on sheets ``fet.zth`` and
     ``fet.soa.curves`` (or as JSON cells of the table)."""
@@ -289,7 +296,7 @@ def read_xlsx(data: bytes) -> RailTable:
                  if path in sheets[1:]}
     finally:
         book.close()
-    build = {"fet.zth": _stages, "fet.soa.curves": _curves}
+    build = {"fet.zth": _stages, "fet.soa.curves": _curves, "switch.foldback": _foldback}
     for path, groups in lists.items():
         for row in table.rows:
             items = groups.get((row.board, row.name))
@@ -297,7 +304,7 @@ def read_xlsx(data: bytes) -> RailTable:
                 continue
             if path in table.columns and _get(row.document, path) is not None:
                 row.errors.append({"field": path, "message": f"is given both in its column and on sheet '{path}'"})
-            elif row.part:
+            elif row.part and path.startswith("fet."):
                 row.errors.append({"field": path, "message": f"sheet '{path}' gives it, but the rail uses part "
                                                             f"'{row.part}': a part brings its own MOSFET"})
             else:

@@ -26,14 +26,15 @@ from typing import Annotated, Any, Literal
 from pydantic import BaseModel, BeforeValidator, ConfigDict, Field, model_validator
 from pydantic_core import PydanticUndefined
 
-from server.analysis.document import AFTER_FAULT, BOUNDS, DEFAULTS, LOAD_MODELS, OPTIONAL, SCHEMA, SWITCH_MODES
+from server.analysis.document import (AFTER_FAULT, BOUNDS, DEFAULTS, GATE_DRIVES, LOAD_MODELS, OPTIONAL, SCHEMA,
+                                     SWITCH_MODES)
 from server.analysis.words import FIELD_TITLES
 from server.units import parse_quantity
 
 __all__ = [
     "SCHEMA_ID", "Supply", "PathImpedance", "Load", "Timer", "Switch", "FosterStage", "SoaCurve",
-    "Soa", "Fet", "Environment", "Rules", "RailDocument", "normalize", "canonical_json",
-    "document_sha256",
+    "Soa", "Fet", "FetGate", "GateDrive", "Environment", "Rules", "RailDocument", "normalize", "fet_json",
+    "canonical_json", "document_sha256",
 ]
 
 SCHEMA_ID = SCHEMA
@@ -65,6 +66,9 @@ OptFarad = Annotated[float | None, _optional_quantity("F")]
 OptVoltPerSecond = Annotated[float | None, _optional_quantity("V/s")]
 OptKelvin = Annotated[float | None, _optional_quantity("K")]
 OptRatio = Annotated[float | None, _optional_quantity("ratio")]
+OptOhm = Annotated[float | None, _optional_quantity("ohm")]
+OptSiemens = Annotated[float | None, _optional_quantity("S")]
+OptSquareLaw = Annotated[float | None, _optional_quantity("A/V2")]
 
 _BOUND_KEYWORDS = (("above", "exclusiveMinimum"), ("minimum", "minimum"), ("below", "exclusiveMaximum"),
                    ("maximum", "maximum"))
@@ -132,6 +136,14 @@ class Timer(_Section):
     retry_off: OptSecond = _field("switch.timer.retry_off")
 
 
+class GateDrive(_Section):
+    drive: Literal[GATE_DRIVES] = _field("switch.gate.drive")  # type: ignore[valid-type]
+    i_gate: OptAmp = _field("switch.gate.i_gate")
+    v_drive: OptVolt = _field("switch.gate.v_drive")
+    r_gate: OptOhm = _field("switch.gate.r_gate")
+    c_ext: Farad = _field("switch.gate.c_ext")
+
+
 class Switch(_Section):
     mode: Literal[SWITCH_MODES] = _field("switch.mode")  # type: ignore[valid-type]
     t_on: Second = _field("switch.t_on")
@@ -140,6 +152,8 @@ class Switch(_Section):
     i_limit_tol: Fraction = _field("switch.i_limit_tol")
     p_limit: OptWatt = _field("switch.p_limit")
     timer: Timer | None = _field("switch.timer")
+    foldback: list[tuple[Volt, Amp]] | None = _field("switch.foldback")
+    gate: GateDrive | None = _field("switch.gate")
 
 
 class FosterStage(_Section):
@@ -157,6 +171,15 @@ class Soa(_Section):
     curves: list[SoaCurve] = _field("fet.soa.curves")
 
 
+class FetGate(_Section):
+    v_th: Volt = _field("fet.gate.v_th")
+    k: OptSquareLaw = _field("fet.gate.k")
+    g_fs: OptSiemens = _field("fet.gate.g_fs")
+    i_gfs: OptAmp = _field("fet.gate.i_gfs")
+    c_iss: Farad = _field("fet.gate.c_iss")
+    c_rss: Farad = _field("fet.gate.c_rss")
+
+
 class Fet(_Section):
     """The MOSFET: also the document of a part library entry."""
 
@@ -169,6 +192,7 @@ class Fet(_Section):
     rth_ja: KelvinPerWatt = _field("fet.rth_ja")
     zth: list[FosterStage] = _field("fet.zth")
     soa: Soa = _field("fet.soa")
+    gate: FetGate | None = _field("fet.gate")
 
 
 class Environment(_Section):
@@ -202,6 +226,36 @@ def normalize(document: RailDocument) -> dict[str, Any]:
     """The canonical JSON-able form: SI floats, defaults filled, overrides left unset omitted."""
     data = document.model_dump(mode="json", by_alias=True)
     data["rules"] = {k: v for k, v in data["rules"].items() if v is not None}
+    _drop_unset(data)
+    return data
+
+
+# optional objects added after the first documents: left out when unset, so that a document
+# without them keeps its canonical text and hash
+_LATER_OPTIONAL = (("switch", "foldback"), ("switch", "gate"), ("fet", "gate"))
+
+
+def fet_json(fet: "Fet") -> dict[str, Any]:
+    """A part (FET) document in its canonical JSON form: unset gate data left out."""
+    data = _drop_unset({"fet": fet.model_dump(mode="json")})
+    return data["fet"]
+
+
+def _drop_unset(data: dict[str, Any]) -> dict[str, Any]:
+    for section, key in _LATER_OPTIONAL:
+        sec = data.get(section)
+        if isinstance(sec, dict) and sec.get(key) is None:
+            sec.pop(key, None)
+    gate = (data.get("fet") or {}).get("gate")
+    if isinstance(gate, dict):  # k or g_fs at i_gfs, whichever was given
+        for key in ("k", "g_fs", "i_gfs"):
+            if gate.get(key) is None:
+                gate.pop(key, None)
+    drive = (data.get("switch") or {}).get("gate")
+    if isinstance(drive, dict):
+        for key in ("i_gate", "v_drive", "r_gate"):
+            if drive.get(key) is None:
+                drive.pop(key, None)
     return data
 
 

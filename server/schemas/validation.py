@@ -21,7 +21,7 @@ from pydantic import BaseModel, ValidationError
 from server.analysis.document import read_fet, read_rail
 from server.analysis.errors import DocumentError
 from server.analysis.words import FIELD_TITLES, field_title, generic_path
-from server.schemas.rail import Fet, RailDocument, normalize
+from server.schemas.rail import Fet, RailDocument, fet_json, normalize
 from server.units import UnitError, parse_quantity
 
 __all__ = ["FieldError", "DocumentInvalid", "field_errors", "parse_rail_document", "parse_fet", "parse_model"]
@@ -221,4 +221,4 @@ def parse_rail_document(data: Any, prefix: str = "") -> RailDocument:
 
 def parse_fet(data: Any, prefix: str = "") -> Fet:
     """Validate a FET (part) document: the schema, then the analysis core's own reading of it."""
-    return _validate(Fet, data, "part", prefix, read_fet, lambda fet: fet.model_dump(mode="json"), root="fet")
+    return _validate(Fet, data, "part", prefix, read_fet, fet_json, root="fet")
