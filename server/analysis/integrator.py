@@ -914,7 +914,10 @@ def _local_error(model: _Model, state: _State, step: _Step, t_amb: float):
         gm = model.gate
         e_g = eh * (_W0 * state.fg + _W1 * s1.fg + _W2 * s2.fg) / (gm.c_total + dh * gm.g_g)
         e_v = eh * (_W0 * ic + _W1 * s1.ic + _W2 * s2.ic) / c
-        g_m = gm.k * ops.maximum(s2.vg - s2.vout - gm.v_th, 0.0)
+        # dI_D/dV_GS of the level-1 channel: k (V_GS - V_th) in saturation, k V_DS in the linear
+        # region; none where the channel does not set the current (fully on at Rds(on))
+        g_m = gm.k * ops.maximum(ops.minimum(s2.vg - s2.vout - gm.v_th, s2.vds), 0.0)
+        g_m = ops.where(s2.lim, g_m, 0.0)
         if model.timer:
             g_m = ops.where(sw_on, g_m, 0.0)
         err = ops.maximum(err, ops.fabs(e_g) / tol_v)
@@ -1180,6 +1183,13 @@ def _commit(model: _Model, state: _State, step: _Step, ok, rate_1, r_on1) -> Non
                                       state.started & ops.not_(ok & (s2.vout <= model.v_on)))
         else:
             state.started = state.started | (ok & (ops.maximum(s1.vout, s2.vout) > model.v_on))
+        if model.gate is not None and s1.event is not None:
+            # a load the stage took as on (its predictor reached v_on) has started: the gate's
+            # current may be below the load's, and without the latch the load would chatter at v_on
+            took_on = (s1.on ^ s1.event) | (s2.on ^ s2.event)
+            if model.timer:
+                took_on = took_on & step.sw_on
+            state.started = state.started | (ok & took_on)
 
 
 def _finished(model: _Model, state: _State, step: _Step, ok, tj_hi, v_f, i_f, final: dict, wave, rec):
