@@ -65,12 +65,6 @@ class GateModel:
     def c_total(self) -> float:
         return self.c_gs + self.c_gd + self.c_ext
 
-    @property
-    def slew(self) -> float:
-        """The Miller plateau's output slew rate at a current drive, i_g / (C_gd + C_ext), V/s
-        (0 for a voltage drive: it depends on the gate voltage)."""
-        return self.i_g0 / (self.c_gd + self.c_ext) if self.g_g == 0.0 else 0.0
-
 
 def gate_model(rail: Rail) -> GateModel | None:
     """The rail's `GateModel`, or None without a gate drive."""

@@ -417,24 +417,19 @@ class _Model:
     def _gate_node(self, st: _Stage, dh, rhs_g, g0, g1, sw_on) -> None:
         """The stage's gate voltage and gate current into ``st`` (``vg``, ``fg``).
 
-        Free (fully enhanced) or saturated under the gate drive: v_g = g0 + g1 i and the drive's
-        current i_g0 - g_g v_g. Where the current limit holds the current the controller holds
-        the gate at v_out + V_th + sqrt(2 i / k) and takes the drive's excess: the gate current
-        is what the charge then asks, (q_g - rhs_g) / dh. An off switch has its gate pulled to
-        its source (V_GS = 0), no gate current.
+        v_g = g0 + g1 i and the drive's current i_g0 - g_g v_g, whichever of the channel, the
+        fully enhanced Rds(on) or the current limit sets the current: while the current limit holds
+        it, the gate goes on charging from its drive (the controller's pull-down of the gate is not
+        modelled), so that once the limit lets go the channel passes at once what the gate then
+        allows, no less than the real gate rising again from its held level would (the higher
+        current, conservatively). An off switch has its gate pulled to its source (V_GS = 0),
+        no gate current.
         """
         gm = self.gate
         ops = self.ops
         i = st.i
         vg = g0 + g1 * i
         fg = gm.i_g0 - gm.g_g * vg
-        held = st.exc_c > 0.0
-        if ops.any(held):
-            vg_h = st.vout + gm.v_th + ops.sqrt(2.0 * ops.maximum(i, 0.0) / gm.k)
-            q = gm.c_total * vg_h - gm.c_gd * st.vin - gm.c_gs * st.vout
-            fg_h = ops.where(dh > 1e-100, (q - rhs_g) / dh, fg)
-            vg = ops.where(held, vg_h, vg)
-            fg = ops.where(held, fg_h, fg)
         if sw_on is not None:
             vg = ops.where(sw_on, vg, st.vout)
             fg = ops.where(sw_on, fg, 0.0)

@@ -202,3 +202,18 @@ def test_transconductance_gives_the_square_law_constant():
     doc["switch"]["gate"] = {"drive": "current", "i_gate": 1e-5}
     doc["fet"]["gate"] = {"v_th": 3.0, "g_fs": 20.0, "i_gfs": 10.0, "c_iss": 2e-9, "c_rss": 2e-10}
     assert read_rail(doc).fet.gate.k == pytest.approx(20.0)
+
+
+def test_the_regulation_time_counts_the_current_limit_not_the_gate_ramp():
+    """The fault timer's count (t_limit) runs while the current limit holds the current; the
+    gate's own ramp (the FET in saturation under its drive) is not regulation by the limit.
+    Closed form for the limited case: a constant limit into a pure capacitor needs C V / I."""
+    kwargs = dict(mode="current_limit", v=12.0, c=1e-3, rds_on=1e-4)
+    drive = {"drive": "current", "i_gate": 100e-6, "c_ext": 0.0}  # ~500 kV/s: 500 A into 1 mF, far above
+    _, rail = _gate_rail({**kwargs, "i_limit": 5.0}, drive)
+    st = simulate_startup(circuit_rows(rail, v_s=[12.0], c=[1e-3]))
+    assert st.status[0] == STATUS_OK
+    assert st.t_limit[0] == pytest.approx(1e-3 * 12.0 / 5.0, rel=0.01)  # C V / I_limit
+    _, rail = _gate_rail({**kwargs, "i_limit": 1e4}, {"drive": "current", "i_gate": 1e-6, "c_ext": 10e-9})
+    st = simulate_startup(circuit_rows(rail, v_s=[12.0], c=[1e-3]))
+    assert st.status[0] == STATUS_OK and st.t_limit[0] == 0.0

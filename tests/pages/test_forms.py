@@ -222,3 +222,26 @@ def test_a_part_form_carries_the_gate_data():
     assert form["gate.v_th"] == "2.6 V" and form["gate.k"] == ""
     doc, errors, _ = document_from_part_form(form)
     assert errors == {} and normalize_fet(doc) == fet
+
+
+def test_the_rail_page_shows_the_foldback_curve_the_gate_drive_and_the_largest_load(client, app, people,
+                                                                                  session_factory):
+    from server.services import catalog, rail_edits
+    from tests.pages.helpers import actor_of, analyse_now
+    with session_factory() as s:
+        designer = actor_of(s, "designer")
+        product = catalog.create_product(session=s, actor=designer, name="Tideline buoy")
+        board = catalog.create_board(session=s, actor=designer, product_id=product.id, name="Power", revision="C")
+        doc = rail_doc("VOUT_FOLD", switch={"mode": "current_limit", "i_limit": "4 A", "timer": None,
+                                            "foldback": [["2 V", "4 A"], ["12 V", "1.5 A"]],
+                                            "gate": {"drive": "current", "i_gate": "10 uA", "c_ext": "10 nF"}},
+                       fet=fet_doc(gate={"v_th": 3.0, "k": 40.0, "c_iss": 3e-9, "c_rss": 2e-10}))
+        rail, rev = rail_edits.create_rail(session=s, actor=designer, board_id=board.id, document=doc,
+                                           message="first entry")
+        analyse_now(s, rev)
+        rail_id = rail.id
+    log_in(client, app, people.ids["designer"])
+    page = client.get(f"/rails/{rail_id}").text
+    assert "Foldback current limit (nominal)" in page  # the trace over the SOA curves
+    assert "Largest load that still starts (foldback)" in page
+    assert "Gate drive current" in page and "MOSFET gate threshold voltage" in page
