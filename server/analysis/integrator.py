@@ -39,8 +39,10 @@ for stiff components, so that an inductance far below the step times the loop re
 no longer forces tiny steps.
 
 States: the series current i_L (through r and l), the switch-input voltage v_in across
-c_in (where there is an input capacitance), the output capacitor voltage v_c and the Foster
-stage rises. Eliminating i_L and v_in from a stage's implicit equations leaves the switch
+c_in (where there is an input capacitance), the output capacitor voltage v_c, the Foster
+stage rises and, with a gate drive, the gate charge (`_Model._gate_current`: the channel's
+current in a stage is solved exactly for the stage's linear relations, the gate's estimate
+and its effect on the channel current through the transconductance enter the step control). Eliminating i_L and v_in from a stage's implicit equations leaves the switch
 facing a Thevenin source v_in = E - Z i_sw: without c_in E = rhs_L / dh + v_s,
 Z = l / dh + r; with c_in, from l i_L - dh (v_s - r i_L - v_in) = rhs_L and
 c_in v_in - dh (i_L - i_sw) = rhs_in,

@@ -35,6 +35,12 @@ ramp is honoured in the regulating modes, default 0 = instant) it falls log-line
 R_OFF = 1 Mohm: ln R_sw(t) = ln R_OFF + (t / t_on) (ln Rds(on) - ln R_OFF). i_ref is
 i_limit (current limit, and any mode that has one), c dvdt + i_load(v_out) (slew: the
 capacitor ramps at dvdt), and the current at which the FET dissipates p_limit (power limit).
+With a foldback curve (`foldback`) the current limit is the curve at V_DS, scaled per row by
+the row's limit over the nominal one. With a gate drive (`circuit.GateModel`) the switch is a
+source-follower N-channel FET: the gate voltage is one more state (its charge C_t v_g - C_gd v_in -
+C_gs v_out driven by the gate current), the channel the SPICE level-1 MOSFET, the current at most
+V_DS / Rds(on); the ramp t_on and the slew reference are not used, a current or power limit stays
+on top, and the regulation time the fault timer counts is the current limit's alone.
 With l = 0 the series current is algebraic (an index-1 DAE). A load draws nothing below
 v_on and, once started, keeps drawing while the switch is on (its own UVLO hysteresis).
 Initial state: capacitors discharged, v_in = v_s, no series current.
