@@ -301,6 +301,12 @@ def _startup_words(f: dict, rail: Rail) -> str:
         if not np.isfinite(f["v_stall"]) or f["v_stall"] <= 0.0:
             return ("The load has no operating point with the switch fully on: it asks for more power than "
                     "the supply can deliver through the series resistance.")
+        gate = rail.switch.gate
+        if gate is not None and gate.drive == "voltage" and rail.fet.gate is not None \
+                and gate.v_drive - rail.fet.gate.v_th <= f["v_s"]:
+            return (f"The gate drive of {eng(gate.v_drive, 'V')} does not reach the supply plus the FET's threshold "
+                    f"({eng(f['v_s'] + rail.fet.gate.v_th, 'V')}): the FET never leaves saturation and the output "
+                    f"stops near {eng(f['v_stall'], 'V')} (final {eng(f['v_target'], 'V')}).")
         if rail.switch.foldback is not None:
             return (f"The foldback current limit cannot carry the load: at the V_DS of "
                     f"{eng(f['v_s'] - f['v_stall'], 'V')} it allows no more than the load draws, and the output "

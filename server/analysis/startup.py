@@ -207,6 +207,15 @@ def _stall_voltage(cz: Circuit, v_final: np.ndarray) -> np.ndarray:
     way to v_final; checked on a grid of 257 voltages per row.
     """
     out = np.full(cz.n, np.nan)
+    gm = cz.gate
+    if gm is not None and gm.g_g > 0.0:
+        # a voltage drive from ground that does not reach v_s + V_th leaves the FET in saturation:
+        # the output follows the gate, V_th and an overdrive below it, and never settles
+        v_gate = gm.i_g0 / gm.g_g
+        short = v_gate - gm.v_th <= cz.v_s
+        out = np.where(short, np.clip(v_gate - gm.v_th, 0.0, v_final), out)
+        if short.all():
+            return out
     if not cz.has_limit or cz.load == "none":
         return out
     frac = np.linspace(0.0, 1.0, 257)
@@ -217,7 +226,7 @@ def _stall_voltage(cz: Circuit, v_final: np.ndarray) -> np.ndarray:
         ref = cz.limit_reference(v)
     short = ref <= cz.load_current(v) * (1.0 + 1e-9)
     first = np.argmax(short, axis=0)
-    return np.where(short.any(axis=0), v[first, np.arange(cz.n)], out)
+    return np.where(short.any(axis=0) & np.isnan(out), v[first, np.arange(cz.n)], out)
 
 
 def _free_run(cz: Circuit, *, t_est, i_typ, active, record, max_steps):
@@ -291,6 +300,8 @@ def simulate_startup(cz: Circuit, *, record: int | None = None, max_steps: int =
         val[~free] = np.nan
 
     timed = np.isfinite(cz.t_fault) & ((free & (fig["t_reg"] >= cz.t_fault)) | stall_reg)
+    if cz.gate is not None and cz.gate.g_g > 0.0:  # a gate that never enhances the FET trips no timer
+        timed &= ~(cz.gate.i_g0 / cz.gate.g_g - cz.gate.v_th <= cz.v_s)
     if timed.any():
         rows = np.flatnonzero(timed)
         sub = cz.take(rows)

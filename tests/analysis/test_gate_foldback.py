@@ -217,3 +217,16 @@ def test_the_regulation_time_counts_the_current_limit_not_the_gate_ramp():
     _, rail = _gate_rail({**kwargs, "i_limit": 1e4}, {"drive": "current", "i_gate": 1e-6, "c_ext": 10e-9})
     st = simulate_startup(circuit_rows(rail, v_s=[12.0], c=[1e-3]))
     assert st.status[0] == STATUS_OK and st.t_limit[0] == 0.0
+
+
+def test_a_voltage_drive_below_the_supply_plus_threshold_stalls_the_start():
+    """A drive of 14 V from ground on a 12 V rail with V_th 3 V never leaves saturation: the
+    output stops near v_drive - V_th = 11 V; a failing start, not an error, found without
+    integrating (no step budget spent)."""
+    kwargs, _ = GATE_CASES["voltage drive, resistive load"]
+    doc, rail = _gate_rail(kwargs, {"drive": "voltage", "v_drive": 14.0, "r_gate": 1e5, "c_ext": 10e-9})
+    st = simulate_startup(circuit_rows(rail, v_s=[12.0], c=[100e-6]))
+    assert st.status[0] == STATUS_STALLED and st.v_stall[0] == pytest.approx(11.0)
+    from server.analysis import analyze_rail
+    check = next(c for c in analyze_rail(doc, corners=False, headroom=False)["checks"] if c["id"] == "startup_complete")
+    assert check["verdict"] == "fail" and "never leaves saturation" in check["detail"]
