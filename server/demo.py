@@ -84,6 +84,11 @@ FETS = [
             [(0.02, 40e-6), (0.12, 8e-4), (0.5, 1.2e-2), (3.2, 0.35), (24.16, 9.0)],
             {1e-4: 3200.0, 1e-3: 950.0, 1e-2: 300.0, 1e-1: 100.0, None: 55.0}, tj_max=175.0),
      "rds_on_max": 5.4e-3, "rds_on_curve": [[-55.0, 0.6], [25.0, 1.0], [100.0, 1.42], [150.0, 1.72], [175.0, 1.9]]},
+    # with its gate data, for a gate-driven turn-on (threshold, transconductance, capacitances: invented)
+    {**_fet("BW-N30G4 gate-rated (demo)", 30.0, 4.1e-3, 200.0, 38.0,
+            [(0.06, 15e-6), (0.4, 4e-4), (1.5, 6e-3), (6.5, 0.12), (29.9, 4.5)],
+            {1e-4: 1000.0, 1e-3: 300.0, 1e-2: 100.0, None: 48.0}),
+     "gate": {"v_th": 2.6, "g_fs": 45.0, "i_gfs": 20.0, "c_iss": 3.1e-9, "c_rss": 0.16e-9}},
 ]
 
 
@@ -124,10 +129,15 @@ BOARDS = [
         # two FETs of the one part in parallel (the rail's own figure, fet.count)
         ({**_rail("HEATER_24V", SUPPLY_24,
                   {"c_nom": 10e-6, "c_tol": 0.1, "esr": 0.1, "model": "resistive", "i_nom": 8.0},
-                  {"mode": "hard", "t_on": 2e-3}, 60.0), "fet": {"count": 2}}, 4),
+                  {"mode": "hard", "t_on": 2e-3}, 60.0), "fet": {"count": 2}}, 5),
         (_rail("FAN_24V", SUPPLY_24,
                {"c_nom": 47e-6, "c_tol": 0.2, "esr": 0.2, "model": "constant_current", "i_nom": 0.5, "v_on": 8.0},
                {"mode": "slew", "t_on": 100e-6, "dvdt": 2000.0}, 60.0), 1),
+        # an eFuse whose limit folds back from 4 A below 4 V across it to 1 A at 32 V
+        (_rail("AUX_24V_FOLDBACK", SUPPLY_24,
+               {"c_nom": 330e-6, "c_tol": 0.2, "esr": 0.03, "model": "constant_power", "i_nom": 0.8, "v_on": 16.0},
+               {"mode": "current_limit", "t_on": 100e-6, "i_limit": 4.0, "i_limit_tol": 0.1,
+                "foldback": [[4.0, 4.0], [20.0, 1.5], [32.0, 1.0]], "timer": _timer(220e-9)}, 60.0), 1),
     ]),
     ("Compute carrier", "A", [
         (_rail("SOM_12V", SUPPLY_12,
@@ -144,6 +154,11 @@ BOARDS = [
         (_rail("USB_HUB_12V", SUPPLY_12,
                {"c_nom": 150e-6, "c_tol": 0.2, "esr": 0.02, "model": "none"},
                {"mode": "hard", "t_on": 1e-3}, 55.0), 0),
+        # a charge pump driving the gate through an external gate capacitor: the output slews at
+        # about i_gate / (C_rss + c_ext) = 20 uA / 22.16 nF, 0.9 V/ms
+        (_rail("ACCEL_12V_GATE", SUPPLY_12,
+               {"c_nom": 1e-3, "c_tol": 0.2, "esr": 0.01, "model": "constant_current", "i_nom": 3.0, "v_on": 10.0},
+               {"mode": "hard", "gate": {"drive": "current", "i_gate": 20e-6, "c_ext": 22e-9}}, 55.0), 6),
     ]),
     ("Sensor head", "C", [
         (_rail("LIDAR_12V", SUPPLY_12,

@@ -13,15 +13,17 @@ The column set (README, "Importing a table of rails"):
 - a unit in square brackets after the name (``load.c_nom [uF]``) applies to bare numbers of
   the column; a cell may carry its own unit ("680uF") instead; a bare number without either is
   in SI units;
-- list-valued fields, ``fet.zth`` (Foster stages), ``fet.soa.curves`` (SOA curves) and
-  ``fet.rds_on_curve`` (R_DS(on) / R_DS(on) at 25 degC against T_j), as a JSON cell
-  (``[{"r": 0.5, "tau": "1ms"}]``; ``[{"t_pulse": "10ms", "points": [[1, 100], [30, 3]]}]``;
-  ``[[25, 1.0], [100, 1.4], [150, 1.75]]``), or, in a workbook, on a second sheet named after
-  the field: ``fet.zth`` with columns ``board``, ``rail``, ``r``, ``tau`` (one stage per row, in
-  order), ``fet.soa.curves`` with columns ``board``, ``rail``, ``t_pulse``, ``v_ds``, ``i_d``
-  (one point per row; the rows of one pulse width make its curve, curves and points in the
-  order of the sheet; ``DC`` or a blank pulse width is the DC curve) and ``fet.rds_on_curve``
-  with columns ``board``, ``rail``, ``tj``, ``ratio`` (one point per row, in order);
+- list-valued fields, ``fet.zth`` (Foster stages), ``fet.soa.curves`` (SOA curves),
+  ``fet.rds_on_curve`` (R_DS(on) / R_DS(on) at 25 degC against T_j) and ``switch.foldback``
+  (the foldback current limit), as a JSON cell (``[{"r": 0.5, "tau": "1ms"}]``;
+  ``[{"t_pulse": "10ms", "points": [[1, 100], [30, 3]]}]``; ``[[25, 1.0], [100, 1.4], [150, 1.75]]``;
+  ``[["2V", "5A"], [10, 1]]``), or, in a workbook, on a second sheet named after the field:
+  ``fet.zth`` with columns ``board``, ``rail``, ``r``, ``tau`` (one stage per row, in order),
+  ``fet.soa.curves`` with columns ``board``, ``rail``, ``t_pulse``, ``v_ds``, ``i_d`` (one point
+  per row; the rows of one pulse width make its curve, curves and points in the order of the
+  sheet; ``DC`` or a blank pulse width is the DC curve), ``fet.rds_on_curve`` with columns
+  ``board``, ``rail``, ``tj``, ``ratio`` and ``switch.foldback`` with columns ``board``,
+  ``rail``, ``v_ds``, ``i_limit`` (one point per row, in order);
 - ``fet.count`` (parallel FETs) is the rail's own figure: it may be given beside a ``part``.
 
 Blank rows and rows whose first cell starts with ``#`` are skipped. The first sheet of a
@@ -54,7 +56,7 @@ __all__ = ["TableRow", "RailTable", "TableInvalid", "read_csv", "read_xlsx", "re
 MAX_ROWS = 5000
 META_COLUMNS = ("board", "board_revision", "part", "part_revision")
 LIST_FIELDS = {"fet.zth": ("r", "tau"), "fet.soa.curves": ("t_pulse", "v_ds", "i_d"),
-               "fet.rds_on_curve": ("tj", "ratio")}
+               "fet.rds_on_curve": ("tj", "ratio"), "switch.foldback": ("v_ds", "i_limit")}
 _SECTIONS = ("supply", "path", "load", "switch", "environment")
 _HEADER = re.compile(r"^\s*(?P<name>.*?)\s*(?:\[(?P<unit>[^\]]*)\])?\s*$")
 _NUMBER = re.compile(r"^[-+]?(\d+\.?\d*|\.\d+)([eE][-+]?\d+)?$")
@@ -283,6 +285,10 @@ def _curves(items: list[dict]) -> list[dict[str, Any]]:
     return list(curves.values())
 
 
+def _foldback(items: list[dict]) -> list[list[Any]]:
+    return [[_cell_value(i["v_ds"], ""), _cell_value(i["i_limit"], "")] for i in items]
+
+
 def read_xlsx(data: bytes) -> RailTable:
     """A workbook: the table on its first sheet; Foster stages and SOA curves on sheets ``fet.zth`` and
     ``fet.soa.curves`` (or as JSON cells of the table)."""
@@ -297,7 +303,8 @@ def read_xlsx(data: bytes) -> RailTable:
                  if path in sheets[1:]}
     finally:
         book.close()
-    build = {"fet.zth": _stages, "fet.soa.curves": _curves, "fet.rds_on_curve": _rds_points}
+    build = {"fet.zth": _stages, "fet.soa.curves": _curves, "fet.rds_on_curve": _rds_points,
+             "switch.foldback": _foldback}
     for path, groups in lists.items():
         for row in table.rows:
             items = groups.get((row.board, row.name))
@@ -305,7 +312,7 @@ def read_xlsx(data: bytes) -> RailTable:
                 continue
             if path in table.columns and _get(row.document, path) is not None:
                 row.errors.append({"field": path, "message": f"is given both in its column and on sheet '{path}'"})
-            elif row.part:
+            elif row.part and path.startswith("fet."):
                 row.errors.append({"field": path, "message": f"sheet '{path}' gives it, but the rail uses part "
                                                             f"'{row.part}': a part brings its own MOSFET"})
             else:

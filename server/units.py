@@ -64,6 +64,8 @@ KINDS: dict[str, Kind] = {
     "1/K": _kind("1/K", "temperature coefficient"),
     "fraction": _kind("", "fraction"),
     "ratio": _kind("", "ratio"),
+    "S": _kind("S", "transconductance", "A/V", "mho"),
+    "A/V2": _kind("A/V²", "square-law constant", "A/V^2", "A/V2", "A/V**2"),
 }
 
 # Rates and temperature coefficients carry a scaled denominator that quantiphy leaves alone.

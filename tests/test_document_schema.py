@@ -317,7 +317,7 @@ def test_fault_edge_fields_are_optional_read_in_units_and_refused_alike():
                  "fet.e_avalanche"):
         assert path in OPTIONAL and path not in DEFAULTS
         section, key = path.split(".")
-        assert normalized[section][key] is None
+        assert key not in normalized[section]  # left out of the canonical form: the hash stays
     doc = rail_doc(supply={"v_clamp": "18 V"},
                    switch={"loop_response": "2 us", "fast_trip": "20 A", "fast_trip_delay": "500 ns"})
     doc["fet"]["e_avalanche"] = "45 mJ"
@@ -334,3 +334,40 @@ def test_fault_edge_fields_are_optional_read_in_units_and_refused_alike():
         with pytest.raises(DocumentInvalid) as by_schema:
             parse_rail_document(rail_doc(**sections))
         assert field in [e.field for e in by_schema.value.errors]
+# --- the foldback curve and the gate drive ------------------------------------------------------
+
+_GATE_FET = {"v_th": "2.6 V", "g_fs": "45 S", "i_gfs": "20 A", "c_iss": "3.1 nF", "c_rss": "160 pF"}
+
+
+def test_foldback_and_gate_read_engineering_notation_and_reach_the_reader():
+    doc = rail_doc(switch={"mode": "current_limit", "i_limit": "4 A", "foldback": [["2 V", "4 A"], [10, "1.5A"]],
+                           "gate": {"drive": "current", "i_gate": "20 uA", "c_ext": "22 nF"}},
+                   fet=fet_doc(gate=dict(_GATE_FET)))
+    data = normalize(parse_rail_document(doc))
+    assert data["switch"]["foldback"] == [[2.0, 4.0], [10.0, 1.5]]
+    assert data["switch"]["gate"] == {"drive": "current", "i_gate": pytest.approx(20e-6), "c_ext": pytest.approx(22e-9)}
+    assert data["fet"]["gate"]["g_fs"] == 45.0 and "k" not in data["fet"]["gate"]
+    rail = read_rail(data)
+    assert rail.fet.gate.k == pytest.approx(45.0**2 / 40.0)  # g_fs^2 / (2 i_gfs)
+    assert parse_rail_document(doc) is not None and normalize(parse_rail_document(data)) == data  # idempotent
+
+
+def test_a_document_without_the_new_fields_keeps_its_canonical_form():
+    data = normalize(parse_rail_document(rail_doc()))
+    assert "foldback" not in data["switch"] and "gate" not in data["switch"] and "gate" not in data["fet"]
+    assert "gate" not in parse_fet(fet_doc()).model_dump(exclude_none=True)
+
+
+@pytest.mark.parametrize("switch, fet_gate, field", [
+    ({"foldback": [[2.0, 4.0], [1.0, 3.0]]}, None, "switch.foldback[1]"),
+    ({"foldback": [[2.0, 4.0], [10.0, 5.0]]}, None, "switch.foldback[1]"),
+    ({"gate": {"drive": "current"}}, _GATE_FET, "switch.gate.i_gate"),
+    ({"gate": {"drive": "current", "i_gate": "20 uA"}}, None, "fet.gate"),
+    ({"gate": {"drive": "current", "i_gate": "20 uA"}}, {**_GATE_FET, "c_rss": "5 nF"}, "fet.gate.c_rss"),
+])
+def test_bad_foldback_points_and_gate_data_are_refused_on_their_field(switch, fet_gate, field):
+    doc = rail_doc(switch={"mode": "current_limit", "i_limit": "4 A", **switch},
+                   fet=fet_doc(**({"gate": fet_gate} if fet_gate else {})))
+    with pytest.raises(DocumentInvalid) as exc:
+        parse_rail_document(doc)
+    assert field in [e.field.removeprefix("document.") for e in exc.value.errors]

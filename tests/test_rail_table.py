@@ -236,3 +236,14 @@ def test_the_readme_documents_every_column_of_the_set():
     readme = (Path(__file__).resolve().parent.parent / "README.md").read_text(encoding="utf-8")
     section = readme.split("## Importing a table of rails", 1)[1].split("\n## ", 1)[0]
     assert [c for c in columns() if f"`{c}`" not in section] == []
+
+
+def test_a_foldback_curve_reads_the_same_from_a_json_cell_and_from_its_sheet():
+    header = [h for h in HEADER] + ["switch.foldback"]
+    cell = json.dumps([["2V", "4A"], [10, 1.5]])
+    from_cell = read_csv(_csv([_row("V_PUMP") + [cell]], header)).rows[0]
+    sheet = [["board", "rail", "v_ds", "i_limit"], ["Main", "V_PUMP", "2V", "4A"], ["Main", "V_PUMP", 10, 1.5]]
+    from_sheet = read_xlsx(_xlsx([_row("V_PUMP")], HEADER, {"switch.foldback": sheet})).rows[0]
+    docs = [normalize(parse_rail_document(r.document)) for r in (from_cell, from_sheet)]
+    assert docs[0]["switch"]["foldback"] == docs[1]["switch"]["foldback"] == [[2.0, 4.0], [10.0, 1.5]]
+    assert docs[0] == docs[1]

@@ -122,6 +122,8 @@ PLAUSIBLE: dict[str, tuple[float, float]] = {
     "V/s": (1.0, 1e10),
     "1/K": (0.0, 0.1),
     "ratio": (0.0, 100.0),
+    "S": (1e-3, 1e4),
+    "A/V2": (1e-3, 1e5),
 }
 
 
@@ -149,7 +151,7 @@ def plausibility_warnings(document: dict[str, Any]) -> list[tuple[str, str]]:
                 walk(item, f"{path}.{key}" if path else str(key))
         elif isinstance(value, list):
             generic = generic_path(path)
-            if generic == "fet.soa.curves[].points[]" and len(value) == 2:
+            if generic in ("fet.soa.curves[].points[]", "switch.foldback[]") and len(value) == 2:
                 for number, kind, what in ((value[0], "V", "V_DS"), (value[1], "A", "I_D")):
                     if isinstance(number, (int, float)) and (problem := plausibility_problem(number, kind)):
                         out.append((path, f"{what}: {problem}"))

@@ -373,6 +373,16 @@ def _startup_words(f: dict, rail: Rail) -> str:
         if not np.isfinite(f["v_stall"]) or f["v_stall"] <= 0.0:
             return ("The load has no operating point with the switch fully on: it asks for more power than "
                     "the supply can deliver through the series resistance.")
+        gate = rail.switch.gate
+        if gate is not None and gate.drive == "voltage" and rail.fet.gate is not None \
+                and gate.v_drive - rail.fet.gate.v_th <= f["v_s"]:
+            return (f"The gate drive of {eng(gate.v_drive, 'V')} does not reach the supply plus the FET's threshold "
+                    f"({eng(f['v_s'] + rail.fet.gate.v_th, 'V')}): the FET never leaves saturation and the output "
+                    f"stops near {eng(f['v_stall'], 'V')} (final {eng(f['v_target'], 'V')}).")
+        if rail.switch.foldback is not None:
+            return (f"The foldback current limit cannot carry the load: at the V_DS of "
+                    f"{eng(f['v_s'] - f['v_stall'], 'V')} it allows no more than the load draws, and the output "
+                    f"stalls near {eng(f['v_stall'], 'V')} (final {eng(f['v_target'], 'V')}).")
         return (f"The regulated current cannot carry the load: the output stalls near {eng(f['v_stall'], 'V')} "
                 f"(final {eng(f['v_target'], 'V')}).")
     if status == STATUS_TRIPPED:
@@ -409,8 +419,30 @@ def _timer_advice(f: dict, rail: Rail) -> str:
             "capacitance.")
 
 
+RAMP_CONVENTION = ("The turn-on ramp's shape is a convention (the switch resistance falling log-linearly from "
+                   "1 M\u03a9 to R_DS(on) over the turn-on time); another shape gives other figures. Giving the gate "
+                   "drive and the FET's gate data (switch.gate, fet.gate) removes it.")
+# the checks whose reading depends on the shape of a hard turn-on ramp
+RAMP_CHECKS = ("startup_soa", "startup_tj", "supply_dip", "supply_current", "fet_pulse_current")
+
+
+def rests_on_ramp(rail: Rail) -> bool:
+    """Whether the start-up rests on the turn-on ramp convention: hard mode with t_on > 0 and
+    no gate drive."""
+    sw = rail.switch
+    return sw.mode == "hard" and sw.t_on > 0.0 and sw.gate is None
+
+
 def check_detail(cid: str, fig: dict, row: int, rail: Rail, rules: dict) -> str:
-    """One or two sentences explaining a check's value for one row of figures."""
+    """One or two sentences explaining a check's value for one row of figures; where the
+    reading rests on the turn-on ramp convention, the sentence saying so."""
+    text = _check_detail(cid, fig, row, rail, rules)
+    if cid in RAMP_CHECKS and rests_on_ramp(rail) and text:
+        text = f"{text} {RAMP_CONVENTION}"
+    return text
+
+
+def _check_detail(cid: str, fig: dict, row: int, rail: Rail, rules: dict) -> str:
     f = _f(fig, row)
     fet = rail.fet
     status = int(f["status"])

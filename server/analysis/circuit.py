@@ -18,6 +18,11 @@ i_nom; constant power: P / v with P = v_nom * i_nom.
 Every method here is a few lines of circuit algebra: Kirchhoff's laws and Ohm's law, the
 quadratic of a constant-power load behind a resistance (any circuit-analysis textbook, e.g.
 C. K. Alexander and M. N. O. Sadiku, "Fundamentals of Electric Circuits", chapters 2-4).
+
+A foldback limit (``fold``: the document's nominal points) makes the limit a function of
+V_DS, scaled per row by ``i_lim / i_lim_nom`` (`foldback`). A gate drive (``gate``: a
+`GateModel`) makes the switch a source-follower N-channel FET whose gate is a state of the
+integrator (`integrator`).
 """
 
 from __future__ import annotations
@@ -28,12 +33,50 @@ from dataclasses import dataclass, field, replace
 import numpy as np
 
 from .document import Rail
+from .foldback import foldback_limit
 from .thermal import RdsTemperature, foster_arrays, rds_temperature
 
-__all__ = ["NO_LIMIT", "R_OFF", "Circuit", "circuit_rows"]
+__all__ = ["NO_LIMIT", "R_OFF", "GateModel", "Circuit", "circuit_rows"]
 
 NO_LIMIT = 1e30  # A or W: stands for "no limit" (kept finite so arithmetic stays clean)
 R_OFF = 1e6  # ohm: switch resistance at the start of a hard turn-on ramp
+
+
+@dataclass(frozen=True)
+class GateModel:
+    """The gate of a source-follower N-channel FET and its drive (SI units).
+
+    ``i_g0``, ``g_g``: the drive as a Norton source into the gate node,
+    i_gate = i_g0 - g_g v_g (current drive: i_g0 = i_gate, g_g = 0; voltage drive from ground:
+    i_g0 = v_drive / r_gate, g_g = 1 / r_gate). ``c_gs`` gate-source (source at the output),
+    ``c_gd`` gate-drain (drain at the switch input), ``c_ext`` gate to ground. ``v_th``
+    threshold, ``k`` square-law constant: I_D = k/2 (V_GS - V_th)^2 in saturation.
+    """
+
+    i_g0: float
+    g_g: float
+    c_gs: float
+    c_gd: float
+    c_ext: float
+    v_th: float
+    k: float
+
+    @property
+    def c_total(self) -> float:
+        return self.c_gs + self.c_gd + self.c_ext
+
+
+def gate_model(rail: Rail) -> GateModel | None:
+    """The rail's `GateModel`, or None without a gate drive."""
+    drive, part = rail.switch.gate, rail.fet.gate
+    if drive is None or part is None:
+        return None
+    if drive.drive == "current":
+        i_g0, g_g = drive.i_gate, 0.0
+    else:
+        i_g0, g_g = drive.v_drive / drive.r_gate, 1.0 / drive.r_gate
+    return GateModel(i_g0=i_g0, g_g=g_g, c_gs=part.c_gs, c_gd=part.c_gd, c_ext=drive.c_ext, v_th=part.v_th,
+                     k=part.k)
 
 
 @dataclass(frozen=True)
@@ -57,6 +100,8 @@ class Circuit:
     retries before latching), None: the integrator's own cap.
     c_in : capacitance at the switch input, F (0.0: none). uvlo : the upstream
     undervoltage lockout threshold, V (nan: none).
+    fold : the foldback points (V_DS V, nominal current A), or None; i_lim_nom : the
+    nominal limit that scales them (A). gate : the `GateModel`, or None.
     """
 
     v_s: np.ndarray
@@ -86,6 +131,9 @@ class Circuit:
     c_in: float = 0.0
     uvlo: float = math.nan
     rds_t: RdsTemperature | None = field(default=None, repr=False)
+    fold: tuple[tuple[float, float], ...] | None = None
+    i_lim_nom: float = NO_LIMIT
+    gate: GateModel | None = None
 
     def __post_init__(self) -> None:
         if self.t_fault is None:
@@ -102,7 +150,7 @@ class Circuit:
     @property
     def has_limit(self) -> bool:
         """Whether the switch can regulate (slew, a current limit or a power limit)."""
-        return self.mode in ("slew", "power_limit") or bool(np.any(self.i_lim < NO_LIMIT))
+        return self.mode in ("slew", "power_limit") or bool(np.any(self.i_lim < NO_LIMIT)) or self.fold is not None
 
     def take(self, rows: np.ndarray) -> "Circuit":
         """The same circuit restricted to ``rows`` (index or boolean array)."""
@@ -174,11 +222,28 @@ class Circuit:
         vo = v - rt * i
         return vo, i, vo > self.v_on
 
+    def fold_scale(self) -> np.ndarray:
+        """Per row, the factor on the foldback curve's nominal currents: i_lim / i_lim_nom."""
+        return self.i_lim / self.i_lim_nom
+
+    def current_limit(self, v_out) -> np.ndarray:
+        """The current limit at output voltage ``v_out`` (V; shape (..., n)), A: i_lim, or the
+        foldback curve at V_DS = v_s - v_out - r i (the drop in the series resistance taken
+        with one fixed-point step from the curve at v_s - v_out, which is exact on the flat
+        parts and errs by r times the slope's change otherwise)."""
+        v_out = np.asarray(v_out, dtype=float)
+        if self.fold is None:
+            return np.broadcast_to(self.i_lim, v_out.shape[-1:]) * np.ones_like(v_out)
+        scale = self.fold_scale()
+        vd = np.maximum(self.v_s - v_out, 0.0)
+        i0 = scale * foldback_limit(self.fold, vd)
+        return scale * foldback_limit(self.fold, np.maximum(vd - self.r * i0, 0.0))
+
     def limit_reference(self, v_out) -> np.ndarray:
         """Current the switch allows while regulating, at output voltage ``v_out``, A."""
         v_out = np.asarray(v_out, dtype=float)
-        ref = np.broadcast_to(self.i_lim, v_out.shape[-1:]) * np.ones_like(v_out)
-        if self.mode == "slew":
+        ref = self.current_limit(v_out)
+        if self.mode == "slew" and self.gate is None:
             ref = np.minimum(ref, self.c * self.dvdt + self.load_current(v_out))
         elif self.mode == "power_limit":
             vd = np.maximum(self.v_s - v_out, 0.0)
@@ -260,4 +325,7 @@ def circuit_rows(rail: Rail, *, v_s, c, i_limit=None, t_fault=None, rds=None, sh
         attempts=(timer.retries + 1) if (timer is not None and timer.retries is not None) else None,
         c_in=rail.supply.c_in or 0.0,
         uvlo=rail.supply.uvlo if rail.supply.uvlo is not None else math.nan,
+        fold=sw.foldback,
+        i_lim_nom=sw.i_limit if sw.i_limit is not None else NO_LIMIT,
+        gate=gate_model(rail),
     )

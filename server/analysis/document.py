@@ -39,6 +39,21 @@ and the Monte Carlo. ``fet.rds_on_curve`` (optional) is the datasheet's normalis
 curve as [Tj degC, Rds(on)/Rds(on, 25 degC)] points, Tj strictly rising and ratios
 positive, used instead of ``rds_on_alpha``. ``fet.count`` (a whole number, default 1) is the
 rail's number of identical FETs in parallel (the rail's figure, not the part's).
+``switch.foldback`` (optional): the current limit against the FET's V_DS, a list of
+``[v_ds V, i_limit A]`` points, V_DS strictly increasing from 0 V or more, the current
+positive and not rising with V_DS; piecewise linear between points and held flat beyond
+the ends (`foldback`). It needs ``switch.i_limit``: the points are nominal currents and the
+row's limit (``i_limit`` with its tolerance, in corners and Monte Carlo) scales the whole
+curve by ``row limit / switch.i_limit``; the curve replaces the constant limit.
+
+``switch.gate`` (optional): the controller's gate drive, a current source ("current":
+``i_gate``, a charge pump) or a voltage source behind a resistance ("voltage": ``v_drive``,
+measured from ground, and ``r_gate``), with an optional external gate capacitor ``c_ext``
+to ground. It needs the FET's gate data ``fet.gate``: the threshold ``v_th``, the square-law
+constant ``k`` (A/V^2) or the forward transconductance ``g_fs`` at the drain current
+``i_gfs`` (k = g_fs^2 / (2 i_gfs)), and the capacitances ``c_iss`` and ``c_rss`` (C_gd =
+c_rss, C_gs = c_iss - c_rss). Given, the gate replaces the turn-on ramp (``t_on``) and the
+slew rate (``dvdt``, not needed then) in every mode; a current or power limit stays on top.
 """
 
 from __future__ import annotations
@@ -61,6 +76,9 @@ from .words import FIELD_TITLES, generic_path
 
 __all__ = [
     "SCHEMA",
+    "GATE_DRIVES",
+    "GateDrive",
+    "FetGate",
     "NAME_MAX_LENGTH",
     "LOAD_MODELS",
     "SWITCH_MODES",
@@ -88,6 +106,7 @@ ABSOLUTE_ZERO = -273.15  # degC
 LOAD_MODELS = ("none", "resistive", "constant_current", "constant_power")
 SWITCH_MODES = ("hard", "slew", "current_limit", "power_limit")
 AFTER_FAULT = ("latch", "retry")
+GATE_DRIVES = ("current", "voltage")
 
 # The value a field takes when the document leaves it out (DESIGN.md section 3).
 DEFAULTS: dict[str, float | str] = {
@@ -109,6 +128,7 @@ DEFAULTS: dict[str, float | str] = {
     "fet.rds_on_alpha": 0.005,
     "fet.soa.t_case": 25.0,
     "fet.count": 1,
+    "switch.gate.c_ext": 0.0,
 }
 
 # Fields that may be absent or null, with no default: absent means "none" (no UVLO, no timer,
@@ -118,6 +138,8 @@ OPTIONAL: frozenset[str] = frozenset({
     "switch.dvdt", "switch.i_limit", "switch.p_limit", "switch.timer", "switch.timer.retry_off",
     "switch.timer.retries", "switch.loop_response", "switch.fast_trip", "switch.fast_trip_delay",
     "fet.id_pulse_max", "fet.e_avalanche", "fet.soa.curves[].t_pulse", "fet.rds_on_max", "fet.rds_on_curve",
+    "switch.foldback", "switch.gate", "switch.gate.i_gate", "switch.gate.v_drive", "switch.gate.r_gate",
+    "fet.gate", "fet.gate.k", "fet.gate.g_fs", "fet.gate.i_gfs",
     *(f"rules.{k}" for k in DEFAULT_RULES),
 })
 
@@ -185,6 +207,10 @@ BOUNDS: dict[str, Bound] = {
     "fet.tj_max": TEMPERATURE, "fet.rth_ja": POSITIVE, "fet.zth[].r": POSITIVE, "fet.zth[].tau": POSITIVE,
     "fet.soa.t_case": TEMPERATURE, "fet.soa.curves[].t_pulse": POSITIVE,
     "environment.t_ambient": TEMPERATURE,
+    "switch.gate.i_gate": POSITIVE, "switch.gate.v_drive": POSITIVE, "switch.gate.r_gate": POSITIVE,
+    "switch.gate.c_ext": NON_NEGATIVE,
+    "fet.gate.v_th": POSITIVE, "fet.gate.k": POSITIVE, "fet.gate.g_fs": POSITIVE, "fet.gate.i_gfs": POSITIVE,
+    "fet.gate.c_iss": POSITIVE, "fet.gate.c_rss": POSITIVE,
     **{f"rules.{name}": Bound(**limits) for name, limits in RULE_RANGES.items()},
 }
 
@@ -195,11 +221,13 @@ FIELD_KEYS: dict[str, tuple[str, ...]] = {
     "path": ("r", "l"),
     "load": ("c_nom", "c_tol", "esr", "model", "i_nom", "v_on"),
     "switch": ("mode", "t_on", "dvdt", "i_limit", "i_limit_tol", "p_limit", "timer", "loop_response", "fast_trip",
-               "fast_trip_delay"),
+               "fast_trip_delay", "foldback", "gate"),
+    "switch.gate": ("drive", "i_gate", "v_drive", "r_gate", "c_ext"),
     "switch.timer": ("c", "c_tol", "i_charge", "i_charge_tol", "v_trip", "v_trip_tol", "after_fault", "retry_off",
                      "retries"),
     "fet": ("name", "vds_max", "id_pulse_max", "rds_on", "rds_on_alpha", "tj_max", "rth_ja", "zth", "soa",
-            "e_avalanche", "rds_on_max", "rds_on_curve", "count"),
+            "e_avalanche", "rds_on_max", "rds_on_curve", "count", "gate"),
+    "fet.gate": ("v_th", "k", "g_fs", "i_gfs", "c_iss", "c_rss"),
     "fet.zth[]": ("r", "tau"),
     "fet.soa": ("t_case", "curves"),
     "fet.soa.curves[]": ("t_pulse", "points"),
@@ -252,6 +280,37 @@ class Timer:
 
 
 @dataclass(frozen=True)
+class GateDrive:
+    """The controller's gate drive: ``drive`` "current" (``i_gate`` A into the gate) or
+    "voltage" (``v_drive`` V from ground behind ``r_gate`` ohm); ``c_ext`` F gate to ground."""
+
+    drive: str
+    i_gate: float | None
+    v_drive: float | None
+    r_gate: float | None
+    c_ext: float
+
+
+@dataclass(frozen=True)
+class FetGate:
+    """The FET's gate data: threshold ``v_th`` (V), square-law constant ``k`` (A/V^2; from
+    g_fs at i_gfs where given so), input and reverse-transfer capacitances (F)."""
+
+    v_th: float
+    k: float
+    c_iss: float
+    c_rss: float
+
+    @property
+    def c_gd(self) -> float:
+        return self.c_rss
+
+    @property
+    def c_gs(self) -> float:
+        return self.c_iss - self.c_rss
+
+
+@dataclass(frozen=True)
 class Switch:
     mode: str
     t_on: float
@@ -263,6 +322,8 @@ class Switch:
     loop_response: float | None = None  # s: the current loop's response time; None: not given
     fast_trip: float | None = None  # A: fast-trip comparator threshold; None: no fast trip
     fast_trip_delay: float | None = None  # s: delay of the fast trip (required with it)
+    foldback: tuple[tuple[float, float], ...] | None = None  # (v_ds V, i A), nominal currents
+    gate: GateDrive | None = None
 
 
 @dataclass(frozen=True)
@@ -287,6 +348,7 @@ class Fet:
     rds_on_max: float | None = None  # ohm: datasheet maximum at 25 degC; None: no spread
     rds_on_curve: tuple[tuple[float, float], ...] | None = None  # (tj degC, Rds/Rds(25 degC)), tj rising
     count: int = 1  # identical FETs in parallel (a rail's figure, not the part's)
+    gate: FetGate | None = None
 
 
 @dataclass(frozen=True)
@@ -492,12 +554,106 @@ def _read_switch(r: _Reader, doc: dict) -> Switch | None:
     if values["fast_trip"] is not None and sec.get("fast_trip_delay") is None:
         r.fail("switch.fast_trip_delay", "is required with a fast-trip threshold (the comparator's delay from "
                                          "its datasheet)")
+    gate = _read_gate_drive(r, sec)
     for key in _MODE_NEEDS.get(mode, ()):
+        if key == "dvdt" and sec.get("gate") is not None:  # the gate drive sets the slew
+            continue
         if sec.get(key) is None:  # absent; a bad value is reported already
             r.fail(f"switch.{key}", f"is required in {mode.replace('_', ' ')} mode")
     if mode != "power_limit":
         values["p_limit"] = None
-    return Switch(mode=mode, timer=_read_timer(r, sec), **values)
+    foldback = None
+    if sec.get("foldback") is not None:
+        foldback = _read_foldback(r, sec["foldback"])
+        if sec.get("i_limit") is None:
+            r.fail("switch.i_limit", "is required with a foldback curve: its tolerance scales the curve's "
+                                     "nominal currents")
+    return Switch(mode=mode, timer=_read_timer(r, sec), foldback=foldback, gate=gate, **values)
+
+
+def _read_foldback(r: _Reader, points: Any) -> tuple[tuple[float, float], ...] | None:
+    """The foldback curve's [V_DS, I] points: at least two, V_DS from 0 V up and strictly
+    increasing, the current positive and not rising with V_DS."""
+    field = "switch.foldback"
+    if not isinstance(points, list) or len(points) < 2:
+        r.fail(field, "needs at least two [V_DS, current limit] points")
+        return None
+    if len(points) > MAX_SOA_POINTS:
+        r.fail(field, f"has {len(points)} points; at most {MAX_SOA_POINTS} are read")
+        return None
+    parsed: list[tuple[float, float]] = []
+    for j, p in enumerate(points):
+        pw = f"{field}[{j}]"
+        if not isinstance(p, (list, tuple)) or len(p) != 2 or not all(
+                _is_number(q) and magnitude_problem(q) is None for q in p):
+            r.fail(pw, f"must be a [V_DS, current limit] pair of finite numbers of at most {NUMBER_LARGEST:g} "
+                       "(V and A)")
+            return None
+        v, i = float(p[0]), float(p[1])
+        if v < 0.0:
+            r.fail(pw, f"V_DS must not be negative (got {v:g} V)")
+            return None
+        if i <= 0.0:
+            r.fail(pw, f"the current limit must be above 0 A (got {i:g} A)")
+            return None
+        if parsed and v <= parsed[-1][0]:
+            r.fail(pw, f"V_DS must increase from point to point ({v:g} V follows {parsed[-1][0]:g} V)")
+            return None
+        if parsed and i > parsed[-1][1]:
+            r.fail(pw, f"the current limit must not rise with V_DS ({i:g} A follows {parsed[-1][1]:g} A)")
+            return None
+        parsed.append((v, i))
+    return tuple(parsed)
+
+
+# what each gate drive needs
+_DRIVE_NEEDS = {"current": ("i_gate",), "voltage": ("v_drive", "r_gate")}
+
+
+def _read_gate_drive(r: _Reader, sec: dict) -> GateDrive | None:
+    if sec.get("gate") is None:
+        return None
+    g = r.item(sec["gate"], "switch.gate", "an object or null")
+    if g is None:
+        return None
+    w = "switch.gate"
+    drive = r.choice(g, "drive", w, GATE_DRIVES)
+    values = {key: r.number(g, key, w) for key in ("i_gate", "v_drive", "r_gate", "c_ext")}
+    for key in _DRIVE_NEEDS.get(drive, ()):
+        if g.get(key) is None:
+            r.fail(f"{w}.{key}", f"is required with a {drive} gate drive")
+    if drive == "current":
+        values["v_drive"] = values["r_gate"] = None
+    elif drive == "voltage":
+        values["i_gate"] = None
+    return GateDrive(drive=drive, **values)
+
+
+def _read_fet_gate(r: _Reader, sec: dict) -> FetGate | None:
+    if sec.get("gate") is None:
+        return None
+    g = r.item(sec["gate"], "fet.gate", "an object or null")
+    if g is None:
+        return None
+    w = "fet.gate"
+    v = {key: r.number(g, key, w) for key in FIELD_KEYS["fet.gate"]}
+    k = v["k"]
+    has_gfs = g.get("g_fs") is not None or g.get("i_gfs") is not None
+    if g.get("k") is not None and has_gfs:
+        r.fail("fet.gate.k", "give either the square-law constant or the transconductance g_fs at i_gfs, not both")
+    elif g.get("k") is None:
+        if g.get("g_fs") is None or g.get("i_gfs") is None:
+            r.fail("fet.gate.g_fs" if g.get("g_fs") is None else "fet.gate.i_gfs",
+                   "is required: give the square-law constant k, or g_fs with the drain current i_gfs it is "
+                   "stated at")
+        elif v["g_fs"] is not None and v["i_gfs"] is not None:
+            k = v["g_fs"] ** 2 / (2.0 * v["i_gfs"])  # g_fs = sqrt(2 k I_D) in saturation (square law)
+    if v["c_iss"] is not None and v["c_rss"] is not None and v["c_rss"] >= v["c_iss"]:
+        r.fail("fet.gate.c_rss", f"must be below the input capacitance ({quantity(v['c_iss'], 'F')}): "
+                                 "C_iss = C_gs + C_gd")
+    if None in (v["v_th"], k, v["c_iss"], v["c_rss"]):
+        return None
+    return FetGate(v_th=v["v_th"], k=k, c_iss=v["c_iss"], c_rss=v["c_rss"])
 
 
 def _read_points(r: _Reader, points: Any, where: str) -> tuple[tuple[float, float], ...] | None:
@@ -641,7 +797,8 @@ def _read_fet_section(r: _Reader, doc: dict, t_ambient: float | None) -> Fet | N
             r.fail("fet.soa.t_case", f"must be below the MOSFET maximum junction temperature "
                                      f"({quantity(tj_max, 'degC')}): the curves are measured below it")
         curves = _read_curves(r, soa)
-    return Fet(name=name, tj_max=tj_max, zth=zth, t_case=t_case, curves=curves, **values)
+    gate = _read_fet_gate(r, sec)
+    return Fet(name=name, tj_max=tj_max, zth=zth, t_case=t_case, curves=curves, gate=gate, **values)
 
 
 def _read_rds_spread(r: _Reader, sec: dict, rds_on: float | None) -> dict:
@@ -761,6 +918,10 @@ def read_rail(doc: Any, team_rules: dict | None = None) -> Rail:
         rules.update(_read_rule_overrides(r, src))
     if "rules" in doc and doc["rules"] is None:
         r.fail("rules", "must be an object")
+    if switch is not None and switch.gate is not None and isinstance(doc.get("fet"), dict) \
+            and doc["fet"].get("gate") is None:
+        r.fail("fet.gate", "is required with a gate drive (switch.gate): the threshold, transconductance and "
+                           "capacitances of the FET")
     r.raise_errors()
     return Rail(name=name, supply=supply, path=path, load=load, switch=switch, fet=fet, t_ambient=t_ambient,
                 rules=rules)

@@ -30,13 +30,13 @@ from typing import Any, Callable
 
 import numpy as np
 
-from .checks import (CHECKS, NA, SEVERITY, SPECS, VERDICTS, check_detail, edge_margin, start_temperature_of,
-                     worst_verdict)
+from .checks import (CHECKS, NA, RAMP_CONVENTION, SEVERITY, SPECS, VERDICTS, check_detail, edge_margin,
+                     rests_on_ramp, start_temperature_of, worst_verdict)
 from .circuit import NO_LIMIT
 from .document import Rail, read_rail
 from .evaluation import RowParams, evaluate_rows, nominal_point
 from .faults import ACTED_FAST_TRIP, ACTED_LOOP, BY_BREAKDOWN, BY_CLAMP, BY_INPUT, start_temperature
-from .headroom import basis_rows, capacitance_headroom, limit_headroom
+from .headroom import basis_rows, capacitance_headroom, limit_headroom, load_headroom
 from .montecarlo import distributions_for, run_monte_carlo
 from .soa import CONVENTION as SOA_CONVENTION
 from .startup import (STATUS_NO_CONVERGENCE, STATUS_OK, STATUS_RETRIED, STATUS_RETRY_EXHAUSTED, STATUS_RUNAWAY,
@@ -428,7 +428,34 @@ def _headroom(rail: Rail, rules: dict, nominal: tuple[dict, dict], wc: WorstCase
     c = capacitance_headroom(rail, rules, base, owner, start, fig_n)
     v_sc = rail.supply.v_max
     lim = limit_headroom(rail, rules, v_sc=v_sc, t_fault=t_fault_max, t_start=_start_at(rail, v_sc))
-    return {"c_max": _c_record(rail, c), "limit_max": _limit_record(rail, lim)}
+    out = {"c_max": _c_record(rail, c), "limit_max": _limit_record(rail, lim)}
+    if rail.switch.foldback is not None:
+        out["load_max"] = _load_record(rail, load_headroom(rail, t_fault=_fault_times(rail)[0]))
+    return out
+
+
+def _load_record(rail: Rail, found: dict) -> dict:
+    """The largest load that still starts under the foldback limit, in words."""
+    model = rail.load.model.replace("_", "-")
+    rec = {"title": "Largest load that still starts (foldback)", "unit": "A", "value": found["value"],
+           "present": found["present"], "status": found["status"], "check": "startup_complete",
+           "check_title": SPECS["startup_complete"].title, "trials": found["trials"]}
+    where = ("at the current limit's low tolerance and the shortest trip time, at each supply and load "
+             "capacitance extreme")
+    if found["status"] == "found":
+        value, present = found["value"], found["present"]
+        room = "has room" if value >= present else "does not start"
+        rec["note"] = (f"A {model} load of up to {eng(value, 'A')} nominal still starts under the foldback limit "
+                       f"{where}; the present {eng(present, 'A')} {room}.")
+        if value < present:
+            rec["status"] = "fails"
+    elif found["status"] == "unbounded":
+        rec["note"] = f"64 × the present load still starts under the foldback limit {where}."
+    elif found["status"] == "fails_everywhere":
+        rec["note"] = f"Not even 1/64 of the present load starts under the foldback limit {where}."
+    else:
+        rec["note"] = "No load model: nothing to carry during the start."
+    return rec
 
 
 def _start_at(rail: Rail, v_s: float) -> float:
@@ -687,5 +714,7 @@ def _closing_sections(rail: Rail, wc: WorstCase | None) -> dict:
     """The rules the result used, its conventions, notes and the caution."""
     # linear_share acts only on parallel FETs: a single FET's result does not list it
     rules = {k: v for k, v in rail.rules.items() if k != "linear_share" or rail.fet.count != 1}
-    return {"rules": rules, "conventions": [MARGIN_CONVENTION, SOA_CONVENTION], "notes": _notes(rail, wc),
-            "caution": CAUTION}
+    conventions = [MARGIN_CONVENTION, SOA_CONVENTION]
+    if rests_on_ramp(rail):
+        conventions.append(RAMP_CONVENTION)
+    return {"rules": rules, "conventions": conventions, "notes": _notes(rail, wc), "caution": CAUTION}

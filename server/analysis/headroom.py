@@ -8,6 +8,9 @@ capacitance_headroom(rail, rules, base, owner, start_checks, nominal_fig=None)
 limit_headroom(rail, rules, *, v_sc, t_fault)
     The highest current limit (or, where a power limit sets the short circuit, the highest
     power limit) whose short circuit the FET still survives with the team's fault_margin.
+load_headroom(rail, *, t_fault)
+    With a foldback current limit: the largest load (the load's nominal current, of the
+    document's load model) whose start-up still completes at every start-hard corner.
 C_TOL, M_TOL
     The stopping tolerances of the capacitance search (ln 1.005 in C, ln 1.002 in margin).
 
@@ -71,10 +74,13 @@ from .document import Rail
 from .evaluation import RowParams, evaluate_rows, linear_share
 from .shortcircuit import has_limit, short_circuit
 from .soa import allowed_current
-from .startup import STATUS_OK
+from .startup import STATUS_OK, simulate_startup
 from .thermal import foster_arrays, zth
 
-__all__ = ["capacitance_headroom", "limit_headroom", "basis_rows", "C_TOL", "M_TOL"]
+__all__ = ["capacitance_headroom", "limit_headroom", "load_headroom", "basis_rows", "C_TOL", "M_TOL", "LOAD_TOL"]
+
+LOAD_TOL = 0.005  # the load search ends at a bracket narrower than 0.5 %
+_LOAD_TRIALS = 40
 
 _MAX_TRIALS = 30
 C_TOL = math.log(1.005)  # a bracket on C narrower than 0.5 % ends the search
@@ -505,3 +511,86 @@ def _highest_passing(passes, candidate: float, present: float) -> dict:
     ok2 = passes(fine)
     k = int(np.argmin(ok2)) if not ok2.all() else len(fine)
     return {"value": float(fine[max(k - 1, 0)]), "status": "found"}
+
+
+def _start_corners(rail: Rail, t_fault: float) -> RowParams:
+    """The corners hardest for a start under a foldback limit: the limit at its low tolerance and
+    the shortest trip time, at each supply (minimum, nominal, maximum; the foldback current
+    depends on V_DS, so no one supply is the worst for every load) and each load capacitance
+    extreme (the longer start against the timer, the shorter one)."""
+    sup, load, sw = rail.supply, rail.load, rail.switch
+    v = np.repeat([sup.v_min, sup.v_nom, sup.v_max], 2)
+    c = np.tile([load.c_nom * (1.0 - load.c_tol), load.c_nom * (1.0 + load.c_tol)], 3)
+    n = v.size
+    return RowParams(v_s=v, c=c, i_lim=np.full(n, sw.i_limit * (1.0 - sw.i_limit_tol)), t_fault=np.full(n, t_fault))
+
+
+def load_headroom(rail: Rail, *, t_fault: float) -> dict:
+    """The largest load whose start-up completes under the foldback limit at every start-hard corner.
+
+    Parameters
+    ----------
+    rail : Rail
+        With ``switch.foldback`` and a load model other than "none".
+    t_fault : float
+        The shortest trip time of the fault timer, s (``inf`` without a timer).
+
+    Returns
+    -------
+    dict
+        ``value`` (A: the load's nominal current, ``load.i_nom`` of its own model: a resistance
+        v_nom / i_nom, a constant current, or a power v_nom i_nom; None unless found),
+        ``present`` (the rail's own), ``status`` ("found"; "unbounded": 64 x the present load
+        still starts; "fails_everywhere": not even 1/64 of it starts; "not_applicable": no
+        foldback or no load), ``trials`` (start-up batches run).
+
+    Method
+    ------
+    Whether a start completes is monotone in the load (more load leaves less of the limit for
+    the capacitor, and the start stalls or takes longer against the timer), so the largest
+    load is bracketed by doubling or halving from the present one and then bisected in ln
+    i_nom until the bracket is narrower than LOAD_TOL; each trial runs the start-up transient
+    of the six corners of `_start_corners` in one batch, and a corner that does not settle
+    within the trial's step budget does not start. The reported load starts.
+    """
+    load, sw = rail.load, rail.switch
+    if sw.foldback is None or load.model == "none" or load.i_nom <= 0.0:
+        return {"value": None, "present": load.i_nom if load.model != "none" else None,
+                "status": "not_applicable", "trials": 0}
+    corners = _start_corners(rail, t_fault)
+    trials = 0
+
+    def starts(i_nom: float) -> bool:
+        nonlocal trials
+        trials += 1
+        trial = replace(rail, load=replace(load, i_nom=float(i_nom)))
+        cz = circuit_rows(trial, v_s=corners.v_s, c=corners.c, i_limit=corners.i_lim, t_fault=corners.t_fault)
+        return bool(np.all(simulate_startup(cz, max_steps=_TRIAL_STEPS).status == STATUS_OK))
+
+    present = load.i_nom
+    lo = hi = None
+    if starts(present):
+        lo = present
+        for _ in range(6):
+            if not starts(lo * 2.0):
+                hi = lo * 2.0
+                break
+            lo *= 2.0
+        if hi is None:
+            return {"value": None, "present": present, "status": "unbounded", "trials": trials}
+    else:
+        hi = present
+        for _ in range(6):
+            if starts(hi / 2.0):
+                lo = hi / 2.0
+                break
+            hi /= 2.0
+        if lo is None:
+            return {"value": None, "present": present, "status": "fails_everywhere", "trials": trials}
+    while hi / lo > 1.0 + LOAD_TOL and trials < _LOAD_TRIALS:
+        mid = math.sqrt(lo * hi)
+        if starts(mid):
+            lo = mid
+        else:
+            hi = mid
+    return {"value": float(lo), "present": present, "status": "found", "trials": trials}

@@ -39,8 +39,10 @@ for stiff components, so that an inductance far below the step times the loop re
 no longer forces tiny steps.
 
 States: the series current i_L (through r and l), the switch-input voltage v_in across
-c_in (where there is an input capacitance), the output capacitor voltage v_c and the Foster
-stage rises. Eliminating i_L and v_in from a stage's implicit equations leaves the switch
+c_in (where there is an input capacitance), the output capacitor voltage v_c, the Foster
+stage rises and, with a gate drive, the gate charge (`_Model._gate_current`: the channel's
+current in a stage is solved exactly for the stage's linear relations, the gate's estimate
+and its effect on the channel current through the transconductance enter the step control). Eliminating i_L and v_in from a stage's implicit equations leaves the switch
 facing a Thevenin source v_in = E - Z i_sw: without c_in E = rhs_L / dh + v_s,
 Z = l / dh + r; with c_in, from l i_L - dh (v_s - r i_L - v_in) = rhs_L and
 c_in v_in - dh (i_L - i_sw) = rhs_in,
@@ -129,6 +131,7 @@ import operator
 import numpy as np
 
 from .circuit import NO_LIMIT, R_OFF, Circuit
+from .foldback import foldback_floats, foldback_limit, foldback_slope
 from .thermal import (foster_peak, foster_peak_floats, foster_rate, foster_rate_floats, foster_step,
                       foster_step_floats)
 
@@ -214,7 +217,7 @@ class _FloatOps:
 
 class _Stage:
     __slots__ = ("i", "il", "vc", "vout", "vin", "ic", "fi", "fin", "vds", "p", "lim", "exc", "event", "bad",
-                 "r_sw", "on")
+                 "r_sw", "on", "vg", "fg", "exc_c")
 
 
 class _Model:
@@ -231,8 +234,16 @@ class _Model:
             self.r_th, self.tau_th = cz.r_th, cz.tau_th
         self.v_s, self.r, self.l, self.c = pick(cz.v_s), pick(cz.r), pick(cz.l), pick(cz.c)
         self.esr, self.i_lim = pick(cz.esr), pick(cz.i_lim)
-        self.limit = cz.has_limit
-        self.t_on = cz.t_on
+        self.gate = cz.gate
+        self.limit = cz.has_limit or cz.gate is not None
+        # a gate drive replaces the turn-on ramp and the slew reference
+        self.t_on = cz.t_on if cz.gate is None else 0.0
+        self.instant = cz.t_on == 0.0 and cz.gate is None  # an instant turn-on (no ramp, no gate)
+        self.fold = cz.fold
+        if cz.fold is not None:
+            self.fold_scale = pick(cz.fold_scale())
+            if ops is _FloatOps:
+                self.fold_f, self.fold_df = foldback_floats(cz.fold)
         self.load = cz.load
         self.v_on = cz.v_on
         self.continuous = cz.load == "none" or (cz.load == "resistive" and cz.v_on == 0.0)
@@ -259,7 +270,10 @@ class _Model:
         # shared constants looked up once (the float back end calls these every stage)
         self.floats = ops is _FloatOps
         self.mode = cz.mode
-        self.regulates = cz.mode in ("slew", "power_limit")
+        self.slew = cz.mode == "slew" and cz.gate is None
+        self.regulates = self.slew or cz.mode == "power_limit" or cz.fold is not None
+        # the limits whose reference is linearised again at the solution
+        self.relinearise = cz.mode == "power_limit" or cz.fold is not None
         self.i_nom, self.p_load, self.p_lim = cz.i_nom, cz.p_load, cz.p_lim
         self.g_load = 1.0 / cz.r_load if cz.load == "resistive" else 0.0
         self.rds_on, self.alpha = pick(cz.rds_on), cz.alpha
@@ -325,20 +339,126 @@ class _Model:
         current neglected; the stage's Thevenin source with c_in).
         """
         ops = self.ops
-        if self.mode == "slew":
+        lq, ls = self.limit_line(v_p, e_ref, z_ref)
+        if self.slew:
             q = self.cdvdt + a
-            use_lim = q + g * v_p > self.i_lim
-            return ops.where(use_lim, self.i_lim, q), ops.where(use_lim, 0.0, g)
+            if self.fold is None:
+                use_lim = q + g * v_p > self.i_lim
+            else:
+                use_lim = q + g * v_p > lq + ls * v_p
+            return ops.where(use_lim, lq, q), ops.where(use_lim, ls, g)
         if self.mode == "power_limit":
             p_lim = self.p_lim
             vd = ops.maximum(e_ref - v_p, 0.0)
             disc = vd * vd - 4.0 * z_ref * p_lim
             root = ops.sqrt(ops.maximum(disc, 0.0))
             ip = ops.where(disc > 0.0, 2.0 * p_lim / ops.maximum(vd + root, 1e-300), NO_LIMIT)
-            use_lim = ip >= self.i_lim
+            use_lim = ip >= (self.i_lim if self.fold is None else lq + ls * v_p)
             s = ip / ops.maximum(root, 1e-3 * vd + 1e-300)
-            return ops.where(use_lim, self.i_lim, ip - s * v_p), ops.where(use_lim, 0.0, s)
-        return self.i_lim, 0.0
+            return ops.where(use_lim, lq, ip - s * v_p), ops.where(use_lim, ls, s)
+        return lq, ls
+
+    def limit_line(self, v_p, e_ref, z_ref):
+        """The current limit linearised at the predictor v_p: i_lim ~ q + s v_out.
+
+        Constant: (i_lim, 0). Foldback: the curve F (scaled per row) at V_DS = e_ref -
+        z_ref i - v_out, linearised at V_DS_p = e_ref - v_p - z_ref F(e_ref - v_p) with its
+        segment's slope F' (<= 0): i = F(V_p) + F' (e_ref - z_ref i - v_out - V_p), solved for i.
+        """
+        if self.fold is None:
+            return self.i_lim, 0.0
+        ops = self.ops
+        sc = self.fold_scale
+        vd = ops.maximum(e_ref - v_p, 0.0)
+        if self.floats:
+            vd1 = max(vd - z_ref * sc * self.fold_f(vd), 0.0)
+            f1, df = sc * self.fold_f(vd1), sc * self.fold_df(vd1)
+        else:
+            vd = np.broadcast_to(vd, np.shape(sc)) if np.ndim(vd) < np.ndim(sc) else vd
+            vd1 = np.maximum(vd - z_ref * sc * foldback_limit(self.fold, vd), 0.0)
+            f1, df = sc * foldback_limit(self.fold, vd1), sc * foldback_slope(self.fold, vd1)
+        den = ops.maximum(1.0 + df * z_ref, 0.1)
+        return (f1 + df * (e_ref - vd1)) / den, -df / den
+
+    def _gate_current(self, dh, E, Z, rhs_g, vo0, vo1):
+        """The FET's channel current in a stage, and the gate voltage v_g = g0 + g1 i.
+
+        The gate charge q_g = C_t v_g - C_gd v_in - C_gs v_out (C_t = C_gs + C_gd + C_ext)
+        obeys dq_g/dt = i_g0 - g_g v_g; its stage equation q_g - dh (i_g0 - g_g v_g) = rhs_g with
+        v_in = E - Z i and v_out = vo0 + vo1 i gives v_g linear in the switch current i, so the
+        overdrive V_GS - V_th = A - beta i (beta >= 0: more current lifts the source and,
+        through C_gd, lowers the gate) and V_DS = D - delta i are linear in i. The channel is
+        the SPICE level-1 MOSFET with lambda = 0 (H. Shichman and D. A. Hodges, IEEE J.
+        Solid-State Circuits 3 (1968) 285-289): in saturation (V_DS >= u) i = k/2 u^2, the
+        quadratic (k beta / 2) u^2 + u - A = 0 in the overdrive u, solved in its stable form
+        u = 2 A / (1 + sqrt(1 + 2 k beta A)); in the linear region i = k (u V_DS - V_DS^2 / 2),
+        a quadratic a2 i^2 + a1 i + a0 = 0 whose root on the falling side is
+        (-a1 - sqrt(a1^2 - 4 a2 a0)) / (2 a2), taken in the form without cancellation (Press et
+        al., "Numerical Recipes", section 5.6), never above the saturation current. Both are
+        exact for the stage's linear relations; 0 below the threshold. The stage takes the smaller of this current and the fully
+        enhanced V_DS / Rds(on) (`stage`).
+        """
+        gm = self.gate
+        ops = self.ops
+        cd = gm.c_total + dh * gm.g_g
+        g0 = (rhs_g + dh * gm.i_g0 + gm.c_gd * E + gm.c_gs * vo0) / cd
+        g1 = (gm.c_gs * vo1 - gm.c_gd * Z) / cd
+        a = ops.maximum(g0 - vo0 - gm.v_th, 0.0)
+        beta = ops.maximum(vo1 - g1, 0.0)
+        k = gm.k
+        u = 2.0 * a / (1.0 + ops.sqrt(1.0 + 2.0 * k * beta * a))
+        i_sat = 0.5 * k * u * u
+        d, delta = E - vo0, Z + vo1
+        linear = d - delta * i_sat < u  # the saturation solution would have V_DS below its overdrive
+        if ops.any(linear):
+            a2 = k * (beta * delta - 0.5 * delta * delta)
+            a1 = k * (d * delta - a * delta - beta * d) - 1.0
+            a0 = k * (a * d - 0.5 * d * d)
+            disc = a1 * a1 - 4.0 * a2 * a0
+            root = ops.sqrt(ops.maximum(disc, 0.0))
+            # the root on the falling side, (-a1 - root) / (2 a2), in the form without cancellation
+            up = a1 > 0.0
+            i_lin = ops.where(up, (-a1 - root) / ops.where(a2 < 0.0, 2.0 * a2, -1.0),
+                              2.0 * a0 / ops.where(up, 1.0, root - a1 + 1e-300))
+            ok_lin = linear & (disc >= 0.0) & (ops.not_(up) | (a2 < 0.0))
+            i_sat = ops.where(ok_lin, ops.minimum(ops.maximum(i_lin, 0.0), i_sat), i_sat)
+        return i_sat, g0, g1
+
+    def _gate_node(self, st: _Stage, dh, rhs_g, g0, g1, sw_on) -> None:
+        """The stage's gate voltage and gate current into ``st`` (``vg``, ``fg``).
+
+        v_g = g0 + g1 i and the drive's current i_g0 - g_g v_g, whichever of the channel, the
+        fully enhanced Rds(on) or the current limit sets the current: while the current limit holds
+        it, the gate goes on charging from its drive (the controller's pull-down of the gate is not
+        modelled), so that once the limit lets go the channel passes at once what the gate then
+        allows, no less than the real gate rising again from its held level would (the higher
+        current, conservatively). An off switch has its gate pulled to its source (V_GS = 0),
+        no gate current.
+        """
+        gm = self.gate
+        ops = self.ops
+        i = st.i
+        vg = g0 + g1 * i
+        fg = gm.i_g0 - gm.g_g * vg
+        if sw_on is not None:
+            vg = ops.where(sw_on, vg, st.vout)
+            fg = ops.where(sw_on, fg, 0.0)
+        st.vg, st.fg = vg, fg
+
+    def r_final(self, r_on):
+        """The switch resistance of the DC operating point: Rds(on), or with a voltage gate
+        drive the level-1 channel at the drive's overdrive, 1 / (k (v_drive - v_s - V_th)),
+        where that is higher (a drive that never enhances the FET fully)."""
+        gm = self.gate
+        if gm is None or gm.g_g == 0.0:
+            return r_on
+        over = self.ops.maximum(gm.i_g0 / gm.g_g - self.v_s - gm.v_th, 1e-9)
+        return self.ops.maximum(r_on, 1.0 / (gm.k * over))
+
+    def gate_charge(self, vg, vin, vout):
+        """The gate charge state q_g = C_t v_g - C_gd v_in - C_gs v_out, C."""
+        gm = self.gate
+        return gm.c_total * vg - gm.c_gd * vin - gm.c_gs * vout
 
     def final_output(self, r_on):
         """DC operating point (v_f, i_f) with the switch fully on at resistance r_on."""
@@ -362,10 +482,12 @@ class _Model:
             return (rhs_in * yl + dh * (rhs_l + dh * self.v_s)) * den, dh * yl * den
         return rhs_l / dh + self.v_s, self.l / dh + self.r
 
-    def stage(self, ts, dh, E, Z, rhs_in, rhs_v, v_p, r_on, i_prev, dt_prev, started, sw_on) -> _Stage:
+    def stage(self, ts, dh, E, Z, rhs_in, rhs_v, v_p, r_on, i_prev, dt_prev, started, sw_on, rhs_g=0.0) -> _Stage:
         """Solve (Z + R_sw) i + v_out = E and c v_c - dh (i - i_load(v_out)) = rhs_v, or
         i = i_ref where that is smaller, or i = 0 where the switch is off (``sw_on``);
-        ``ts`` is the time since the switch turned on."""
+        ``ts`` is the time since the switch turned on. With a gate drive, i_ref is also the
+        FET's saturation current at the stage's gate voltage (`_gate_current`; ``rhs_g`` the
+        gate charge equation's right-hand side)."""
         ops = self.ops
         r_sw = self.switch_r(ts, r_on)
         a, g, on_p = self.load_linear(v_p, started, sw_on)
@@ -408,7 +530,7 @@ class _Model:
                 st.bad = weak if st.bad is None else (st.bad | weak)
                 den_l = ops.where(weak, 1.0, den_l)
             i_lim = (q + s * (a0 + avw * b2)) / den_l
-            if self.mode == "power_limit":
+            if self.relinearise:
                 # one more linearisation of the power limit's reference, at the output this
                 # solution gives rather than at the predictor: where the regulation passes
                 # from the power to the current limit the predictor may pick the wrong branch,
@@ -426,11 +548,18 @@ class _Model:
                     st.bad = weak if st.bad is None else (st.bad | weak)
                     den_l = ops.where(weak, 1.0, den_l)
                 i_lim = (q + s * (a0 + avw * b2)) / den_l
+            if self.gate is not None:
+                vo0, vo1 = a0 + avw * b2, ai - avw * m21  # v_out = vo0 + vo1 i
+                i_sat, g0, g1 = self._gate_current(dh, E, Z, rhs_g, vo0, vo1)
+                st.exc_c = ops.minimum(i_free, i_sat) - i_lim  # the current limit binding
+                i_lim = ops.minimum(i_lim, i_sat)
             exc = i_free - i_lim
             lim = exc > 0.0
             if sw_on is not None:
                 lim = lim & sw_on
                 exc = ops.where(sw_on, exc, -1.0)
+                if self.gate is not None:
+                    st.exc_c = ops.where(sw_on, st.exc_c, -1.0)
             i = ops.where(lim, i_lim, i_free)
         else:
             exc = lim = None
@@ -460,6 +589,8 @@ class _Model:
             st.fi = fi
             vin = vout + vds
         st.i, st.il, st.vc, st.vout, st.vin, st.ic, st.vds, st.lim, st.exc = i, il, vc, vout, vin, ic, vds, lim, exc
+        if self.gate is not None:
+            self._gate_node(st, dh, rhs_g, g0, g1, sw_on)
         st.p = vds * i
         st.r_sw = r_sw
         if on_p is None:
@@ -498,8 +629,9 @@ def _instant(model: _Model, state, idx=None):
         E, Z = model.l * il / dh + model.v_s, model.l / dh + model.r
     sw_on = g(state.on) if model.timer else None
     t_rel = g(state.t) - g(state.t_att)
+    rhs_g = model.gate_charge(g(state.vg), vin, vout) if model.gate is not None else 0.0
     st = model.stage(t_rel, dh, E, Z, model.c_in * vin, model.c * vc, vout, g(state.r_on), il, 1.0, g(state.started),
-                     sw_on)
+                     sw_on, rhs_g)
     if model.has_cin:
         r_safe = ops.where(model.r > 0.0, model.r, 1.0)
         il = ops.where(model.l > 0.0, il, ops.where(model.r > 0.0, (model.v_s - vin) / r_safe, st.i))
@@ -532,6 +664,9 @@ def _apply_instant(model: _Model, state, st: _Stage, idx=None) -> None:
     if model.limit:
         _put(state, "exc", idx, st.exc)
         _put(state, "lim", idx, st.lim)
+    if model.gate is not None:
+        for name in ("vg", "fg", "exc_c"):
+            _put(state, name, idx, getattr(st, name))
     g = (lambda x: x) if idx is None else (lambda x: x[idx])  # noqa: E731
     _put(state, "dtj", idx, model.ops.rate(g(state.theta), st.p, model.r_th, model.tau_th))
 
@@ -556,6 +691,7 @@ def _initial(model: _Model, t_est, i_typ, rows, active, t_amb: float) -> _State:
         "t_att": zero, "attempt": np.ones(n, np.int64), "t_restart": np.full(n, np.inf),
         "t_trip": np.full(n, np.nan), "t_off": np.full(n, np.inf), "latched": np.zeros(n, bool),
         "outcome": np.zeros(n, np.int8), "t_i_peak": zero,
+        "vg": zero, "fg": zero, "exc_c": -np.ones(n),
     }
     state = _State()
     if ops is _FloatOps:
@@ -623,6 +759,8 @@ def integrate(cz: Circuit, *, t_est, i_typ, active, t_amb: float, record: int | 
     if record is not None and active[record]:
         rec = record
         wave = {key: [] for key in ("t", "v_out", "v_in", "i", "v_ds", "p_fet", "tj", "on")}
+        if cz.gate is not None:
+            wave["v_g"] = []
         _record(wave, state, rec if ops is _ArrayOps else None)
     if ops is _ArrayOps and not active.all():
         model, state = _compact(model, state, final)
@@ -644,6 +782,8 @@ def _record(wave: dict, state, j) -> None:
     wave["p_fet"].append(float(take(state.p)))
     wave["tj"].append(float(take(state.tj)))
     wave["on"].append(1.0 if take(state.on) else 0.0)
+    if "v_g" in wave:
+        wave["v_g"].append(float(take(state.vg)))
 
 
 def _locate(state: _State, record, rec):
@@ -691,7 +831,7 @@ def _run(model: _Model, state: _State, final: dict, wave, rec, record, t_amb: fl
         _dip(model, state, ok, step.t, step.gh, step.h, state.i, step.s1, step.s2, step.evt)
         tj_hi, rate_1 = _junction_peak(model, state, step, ok, t_amb)
         r_on1 = model.r_on(step.tj_1) if model.varies else state.r_on
-        v_f, i_f = model.final_output(r_on1)  # the DC operating point at the step's end
+        v_f, i_f = model.final_output(model.r_final(r_on1))  # the DC operating point at the step's end
         _settling(model, state, step, ok, v_f)
         _commit(model, state, step, ok, rate_1, r_on1)
         if rec is not None and (ok[rec] if arrays else ok):
@@ -741,12 +881,18 @@ def _take_stages(model: _Model, state: _State, h) -> _Step:
         r_on_g = r_on_1 = state.r_on
     rhs_in1 = model.c_in * vin + dh * state.fin if model.has_cin else 0.0
     e1, z1 = model.source(dh, model.l * il + dh * fi, rhs_in1)
+    if model.gate is not None:
+        q0 = model.gate_charge(state.vg, vin, vout)
+        rhs_g1 = q0 + dh * state.fg
+    else:
+        rhs_g1 = 0.0
     s1 = model.stage(t_rel + gh, dh, e1, z1, rhs_in1, c * vc + dh * ic, vout + gh * ic / c, r_on_g, i, gh,
-                     state.started, sw_on)
+                     state.started, sw_on, rhs_g1)
     rhs_in2 = model.c_in * (_C1 * s1.vin - _C2 * vin) if model.has_cin else 0.0
     e2, z2 = model.source(dh, model.l * (_C1 * s1.il - _C2 * il), rhs_in2)
+    rhs_g2 = _C1 * model.gate_charge(s1.vg, s1.vin, s1.vout) - _C2 * q0 if model.gate is not None else 0.0
     s2 = model.stage(t_rel + h, dh, e2, z2, rhs_in2, c * (_C1 * s1.vc - _C2 * vc),
-                     vout + (s1.vout - vout) * (1.0 / _G), r_on_1, s1.i, dt1, state.started, sw_on)
+                     vout + (s1.vout - vout) * (1.0 / _G), r_on_1, s1.i, dt1, state.started, sw_on, rhs_g2)
     step.t, step.t1, step.h, step.gh, step.dh, step.dt1 = t, t + h, h, gh, dh, dt1
     step.sw_on, step.s1, step.s2 = sw_on, s1, s2
     return step
@@ -767,6 +913,20 @@ def _local_error(model: _Model, state: _State, step: _Step, t_amb: float):
     eh = _EC * h
     tol_v = state.atol_v + RTOL * model.v_s
     err = ops.fabs(eh * (_W0 * ic + _W1 * s1.ic + _W2 * s2.ic) / c) / tol_v
+    if model.gate is not None:
+        # the gate charge's estimate as a gate voltage, and what the estimates of the gate and
+        # the output do to the channel current through its transconductance k (V_GS - V_th)
+        gm = model.gate
+        e_g = eh * (_W0 * state.fg + _W1 * s1.fg + _W2 * s2.fg) / (gm.c_total + dh * gm.g_g)
+        e_v = eh * (_W0 * ic + _W1 * s1.ic + _W2 * s2.ic) / c
+        # dI_D/dV_GS of the level-1 channel: k (V_GS - V_th) in saturation, k V_DS in the linear
+        # region; none where the channel does not set the current (fully on at Rds(on))
+        g_m = gm.k * ops.maximum(ops.minimum(s2.vg - s2.vout - gm.v_th, s2.vds), 0.0)
+        g_m = ops.where(s2.lim, g_m, 0.0)
+        if model.timer:
+            g_m = ops.where(sw_on, g_m, 0.0)
+        err = ops.maximum(err, ops.fabs(e_g) / tol_v)
+        err = ops.maximum(err, ops.fabs(g_m * (e_g - e_v)) / (state.atol_i + RTOL * state.i_scale))
     if model.has_cin:
         # (i_L, v_in) estimates filtered by their 2x2 block of the iteration matrix, the
         # switch a conductance to the output where it is fully on
@@ -826,7 +986,11 @@ def _step_events(model: _Model, state: _State, step: _Step):
     if model.limit:
         turn = (state.lim ^ s1.lim) | (s1.lim ^ s2.lim)
         evt = turn if evt is None else (evt | turn)
-        step.dtl = _lim_time(ops, state.exc, s1.exc, step.gh) + _lim_time(ops, s1.exc, s2.exc, step.dt1)
+        if model.gate is None:
+            step.dtl = _lim_time(ops, state.exc, s1.exc, step.gh) + _lim_time(ops, s1.exc, s2.exc, step.dt1)
+        else:  # the time the current limit (not the gate's saturation) holds the current
+            step.dtl = (_lim_time(ops, state.exc_c, s1.exc_c, step.gh)
+                        + _lim_time(ops, s1.exc_c, s2.exc_c, step.dt1))
     step.evt = evt
     return evt
 
@@ -983,6 +1147,8 @@ def _commit(model: _Model, state: _State, step: _Step, ok, rate_1, r_on1) -> Non
             state.il, state.fin = s2.il, s2.fin
         if model.limit:
             state.exc, state.lim = s2.exc, s2.lim
+        if model.gate is not None:
+            state.vg, state.fg, state.exc_c = s2.vg, s2.fg, s2.exc_c
         state.theta, state.tj, state.dtj = step.th_1, step.tj_1, rate_1
         if model.varies:
             state.r_rate = (r_on1 - state.r_on) / step.h
@@ -1002,6 +1168,10 @@ def _commit(model: _Model, state: _State, step: _Step, ok, rate_1, r_on1) -> Non
         if model.limit:
             state.exc = ops.where(ok, s2.exc, state.exc)
             state.lim = ops.where(ok, s2.lim, state.lim)
+        if model.gate is not None:
+            state.vg = ops.where(ok, s2.vg, state.vg)
+            state.fg = ops.where(ok, s2.fg, state.fg)
+            state.exc_c = ops.where(ok, s2.exc_c, state.exc_c)
         state.theta = ops.where(ok[:, None], step.th_1, state.theta)
         state.tj = ops.where(ok, step.tj_1, state.tj)
         state.dtj = ops.where(ok, rate_1, state.dtj)
@@ -1018,6 +1188,13 @@ def _commit(model: _Model, state: _State, step: _Step, ok, rate_1, r_on1) -> Non
                                       state.started & ops.not_(ok & (s2.vout <= model.v_on)))
         else:
             state.started = state.started | (ok & (ops.maximum(s1.vout, s2.vout) > model.v_on))
+        if model.gate is not None and s1.event is not None:
+            # a load the stage took as on (its predictor reached v_on) has started: the gate's
+            # current may be below the load's, and without the latch the load would chatter at v_on
+            took_on = (s1.on ^ s1.event) | (s2.on ^ s2.event)
+            if model.timer:
+                took_on = took_on & step.sw_on
+            state.started = state.started | (ok & took_on)
 
 
 def _finished(model: _Model, state: _State, step: _Step, ok, tj_hi, v_f, i_f, final: dict, wave, rec):
@@ -1031,7 +1208,10 @@ def _finished(model: _Model, state: _State, step: _Step, ok, tj_hi, v_f, i_f, fi
     if model.has_cin:
         dev = dev + model.c_in * (state.vin - model.v_s + model.r * i_f) ** 2
     done = ok & (dev <= model.c * (STOP_BAND * v_f) ** 2)
-    if model.limit:
+    if model.gate is not None:  # out of saturation (V_DS below the overdrive) and out of the current limit
+        sat = (state.vin >= state.vg - model.gate.v_th) | (state.exc_c > 0.0)
+        done = done & ops.not_(state.lim & sat)
+    elif model.limit:
         done = done & ops.not_(state.lim)
     if t_on > 0.0:
         done = done & ((state.t - state.t_att) >= t_on if model.timer else state.t >= t_on)
@@ -1053,7 +1233,7 @@ def _dip(model: _Model, state, ok, t, gh, h, i, s1, s2, evt) -> None:
     with the edges and notches of an inductance without c_in put back)."""
     ops = model.ops
     unb = None
-    if model.dip_flag and model.t_on == 0.0:  # a fully-on sample of an instant turn-on
+    if model.dip_flag and model.instant:  # a fully-on sample of an instant turn-on
         lo_g = s1.vin <= s2.vin
         v_lo = ops.where(lo_g, s1.vin, s2.vin)
         unb = ops.where(lo_g, ops.not_(s1.lim) if model.limit else True, ops.not_(s2.lim) if model.limit else True)
@@ -1076,7 +1256,7 @@ def _dip(model: _Model, state, ok, t, gh, h, i, s1, s2, evt) -> None:
             v_e = _at(ops, frac, state.vout, s1.vout, s2.vout) + model.switch_r(t_e - state.t_att, state.r_on) * i_e
             deeper = entry & (v_e < v_lo)
             v_lo = ops.where(deeper, v_e, v_lo)
-            if unb is not None and model.t_on == 0.0:
+            if unb is not None and model.instant:
                 unb = unb | deeper
             edge = (entry, t_e, v_e, _at(ops, frac, state.vin, s1.vin, s2.vin))
     if model.notch and evt is not None and ops.any(evt & ok):

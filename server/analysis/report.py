@@ -204,6 +204,7 @@ def format_report(result: dict, doc: dict) -> str:
                  f"{eng(sup.get('v_nom'), 'V')}); load {eng(load.get('c_nom'), 'F')}, "
                  f"{str(load.get('model', 'none')).replace('_', ' ')}; {mode} switch; MOSFET {fet.get('name')}")
     lines += _fet_lines(result)
+    lines += _switch_extras(sw, fet)
     lines.append("")
     lines.append("Checks" + (" (sign-off reading: each check's worst case)" if result.get("basis") != "nominal"
                              else " (nominal point only)"))
@@ -224,7 +225,7 @@ def format_report(result: dict, doc: dict) -> str:
         lines += fig_rows
         lines.append("")
     hd = result.get("headroom") or {}
-    for key in ("c_max", "limit_max"):
+    for key in ("c_max", "limit_max", "load_max"):
         h = hd.get(key)
         if h:
             value = value_text(h.get("value"), h.get("unit", "")) if h.get("value") is not None else "-"
@@ -248,3 +249,26 @@ def format_report(result: dict, doc: dict) -> str:
     lines.append("")
     lines.append("Caution: " + (result.get("caution") or ""))
     return "\n".join(lines) + "\n"
+
+
+def _switch_extras(sw: dict, fet: dict) -> list[str]:
+    """The foldback curve and the gate drive of the document, where given."""
+    out = []
+    if sw.get("foldback"):
+        pts = "; ".join(f"{eng(v, 'V')}: {eng(i, 'A')}" for v, i in sw["foldback"])
+        out.append(f"Foldback current limit (V_DS: nominal limit, flat beyond the ends, scaled by the limit's "
+                   f"tolerance): {pts}")
+    gate, part = sw.get("gate"), fet.get("gate")
+    if gate:
+        if gate.get("drive") == "current":
+            drive = f"current drive {eng(gate.get('i_gate'), 'A')}"
+        else:
+            drive = f"voltage drive {eng(gate.get('v_drive'), 'V')} through {eng(gate.get('r_gate'), 'ohm')}"
+        text = f"Gate drive: {drive}, external gate capacitor {eng(gate.get('c_ext') or 0.0, 'F')}"
+        if part:
+            k = f"k {part['k']:.3g} A/V\u00b2" if part.get("k") is not None else \
+                f"g_fs {eng(part.get('g_fs'), 'S')} at {eng(part.get('i_gfs'), 'A')}"
+            text += (f"; FET V_th {eng(part.get('v_th'), 'V')}, {k}, C_iss {eng(part.get('c_iss'), 'F')}, "
+                     f"C_rss {eng(part.get('c_rss'), 'F')}")
+        out.append(text + " (replaces the turn-on time and the slew rate)")
+    return out

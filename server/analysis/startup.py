@@ -35,6 +35,12 @@ ramp is honoured in the regulating modes, default 0 = instant) it falls log-line
 R_OFF = 1 Mohm: ln R_sw(t) = ln R_OFF + (t / t_on) (ln Rds(on) - ln R_OFF). i_ref is
 i_limit (current limit, and any mode that has one), c dvdt + i_load(v_out) (slew: the
 capacitor ramps at dvdt), and the current at which the FET dissipates p_limit (power limit).
+With a foldback curve (`foldback`) the current limit is the curve at V_DS, scaled per row by
+the row's limit over the nominal one. With a gate drive (`circuit.GateModel`) the switch is a
+source-follower N-channel FET: the gate voltage is one more state (its charge C_t v_g - C_gd v_in -
+C_gs v_out driven by the gate current), the channel the SPICE level-1 MOSFET, the current at most
+V_DS / Rds(on); the ramp t_on and the slew reference are not used, a current or power limit stays
+on top, and the regulation time the fault timer counts is the current limit's alone.
 With l = 0 the series current is algebraic (an index-1 DAE). A load draws nothing below
 v_on and, once started, keeps drawing while the switch is on (its own UVLO hysteresis).
 Initial state: capacitors discharged, v_in = v_s, no series current.
@@ -183,10 +189,14 @@ def _time_scale(cz: Circuit) -> np.ndarray:
         t = np.maximum(t, np.minimum(cz.r_load * cz.c, 1e3))
     lim_rate = np.minimum(cz.i_lim, cz.v_s / (cz.r + rds + cz.esr))
     t = np.maximum(t, cz.c * cz.v_s / lim_rate)
-    if cz.mode == "slew":
+    if cz.mode == "slew" and cz.gate is None:
         t = np.maximum(t, cz.v_s / cz.dvdt)
     if cz.mode == "power_limit":
         t = np.maximum(t, cz.c * cz.v_s * cz.v_s / cz.p_lim)
+    if cz.gate is not None:  # the gate's charge to the threshold and the Miller plateau
+        gm = cz.gate
+        i_g = gm.i_g0 if gm.g_g == 0.0 else np.maximum(gm.i_g0 - gm.g_g * (cz.v_s + gm.v_th), 0.1 * gm.i_g0)
+        return np.maximum(t, (gm.c_total * gm.v_th + (gm.c_gd + gm.c_ext) * cz.v_s) / i_g)
     return np.maximum(t, cz.t_on)
 
 
@@ -197,17 +207,26 @@ def _stall_voltage(cz: Circuit, v_final: np.ndarray) -> np.ndarray:
     way to v_final; checked on a grid of 257 voltages per row.
     """
     out = np.full(cz.n, np.nan)
+    gm = cz.gate
+    if gm is not None and gm.g_g > 0.0:
+        # a voltage drive from ground that does not reach v_s + V_th leaves the FET in saturation:
+        # the output follows the gate, V_th and an overdrive below it, and never settles
+        v_gate = gm.i_g0 / gm.g_g
+        short = v_gate - gm.v_th <= cz.v_s
+        out = np.where(short, np.clip(v_gate - gm.v_th, 0.0, v_final), out)
+        if short.all():
+            return out
     if not cz.has_limit or cz.load == "none":
         return out
     frac = np.linspace(0.0, 1.0, 257)
     v = v_final[None, :] * frac[:, None] * (1.0 - 1e-9)  # (257, n)
-    if cz.mode == "slew":
+    if cz.mode == "slew" and cz.fold is None:
         ref = np.broadcast_to(cz.i_lim, v.shape)  # the slew ramp itself never stalls
     else:
         ref = cz.limit_reference(v)
     short = ref <= cz.load_current(v) * (1.0 + 1e-9)
     first = np.argmax(short, axis=0)
-    return np.where(short.any(axis=0), v[first, np.arange(cz.n)], out)
+    return np.where(short.any(axis=0) & np.isnan(out), v[first, np.arange(cz.n)], out)
 
 
 def _free_run(cz: Circuit, *, t_est, i_typ, active, record, max_steps):
@@ -257,6 +276,8 @@ def simulate_startup(cz: Circuit, *, record: int | None = None, max_steps: int =
     v_stall = np.where(stalled, np.where(stall_reg, v_grid, 0.0), np.nan)
     t_est = _time_scale(cz)
     i_typ = np.minimum(cz.i_lim, cz.v_s / (cz.r + cz.rds_on + cz.esr + np.sqrt(cz.l / cz.c)))
+    if cz.gate is not None:  # the capacitor's current at the gate's slew, and the load's
+        i_typ = np.minimum(i_typ, cz.c * cz.v_s / t_est + cz.i_nom)
 
     free = ~stalled
     fig, wave = _free_run(cz, t_est=t_est, i_typ=i_typ, active=free, record=record, max_steps=max_steps)
@@ -279,6 +300,8 @@ def simulate_startup(cz: Circuit, *, record: int | None = None, max_steps: int =
         val[~free] = np.nan
 
     timed = np.isfinite(cz.t_fault) & ((free & (fig["t_reg"] >= cz.t_fault)) | stall_reg)
+    if cz.gate is not None and cz.gate.g_g > 0.0:  # a gate that never enhances the FET trips no timer
+        timed &= ~(cz.gate.i_g0 / cz.gate.g_g - cz.gate.v_th <= cz.v_s)
     if timed.any():
         rows = np.flatnonzero(timed)
         sub = cz.take(rows)

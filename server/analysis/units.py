@@ -33,7 +33,7 @@ __all__ = ["KIND_SYMBOLS", "eng", "quantity", "temp"]
 
 KIND_SYMBOLS: dict[str, str] = {
     "V": "V", "A": "A", "F": "F", "H": "H", "ohm": "\u03a9", "s": "s", "W": "W", "J": "J", "K/W": "K/W",
-    "degC": "\u00b0C", "K": "K", "V/s": "V/ms", "1/K": "%/K", "fraction": "%", "ratio": "",
+    "degC": "\u00b0C", "K": "K", "V/s": "V/ms", "1/K": "%/K", "fraction": "%", "ratio": "", "S": "S", "A/V2": "A/V\u00b2",
 }
 _PREFIXES = {-18: "a", -15: "f", -12: "p", -9: "n", -6: "\u00b5", -3: "m", 0: "", 3: "k", 6: "M", 9: "G",
              12: "T"}

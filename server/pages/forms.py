@@ -16,17 +16,19 @@ Provides :class:`FormField`, :func:`titled_field`, :data:`RAIL_SECTIONS`, :func:
 from __future__ import annotations
 
 import math
+import re
 from dataclasses import dataclass
 from typing import Any
 
-from server.analysis.document import AFTER_FAULT, DEFAULTS, LOAD_MODELS, SWITCH_MODES
+from server.analysis.document import AFTER_FAULT, DEFAULTS, GATE_DRIVES, LOAD_MODELS, SWITCH_MODES
 from server.analysis.rules import DEFAULT_RULES
 from server.analysis.words import FIELD_TITLES, field_title
 from server.schemas.rail import SCHEMA_ID
 from server.units import UnitError, format_quantity, parse_quantity
 
 __all__ = ["FormField", "titled_field", "RAIL_SECTIONS", "rail_fields", "document_from_form", "form_from_document",
-           "form_value", "place_errors", "compare_rows", "field_titles", "PART_FIELD", "OWN_FET"]
+           "form_value", "place_errors", "compare_rows", "field_titles", "PART_FIELD", "OWN_FET", "points_from_text",
+           "points_to_text"]
 
 PART_FIELD = "part"
 OWN_FET = "own"
@@ -42,6 +44,7 @@ class FormField:
     placeholder: str = ""
     hint: str = ""
     modes: tuple[str, ...] = ()            # switch modes that use the field (empty: every mode)
+    points: bool = False                   # a list of [a, b] pairs, typed one pair per line
 
     @property
     def html_id(self) -> str:
@@ -54,7 +57,7 @@ class FormField:
 
 
 def titled_field(path: str, *, name: str | None = None, required: bool = False, choices: tuple[str, ...] = (),
-                 example: str = "", modes: tuple[str, ...] = ()) -> FormField:
+                 example: str = "", modes: tuple[str, ...] = (), points: bool = False) -> FormField:
     """A form field worded from :data:`server.analysis.words.FIELD_TITLES`.
 
     ``path`` is the rail-document path (its title, unit kind, hint and default); ``name`` the
@@ -66,7 +69,7 @@ def titled_field(path: str, *, name: str | None = None, required: bool = False, 
     placeholder = f"e.g. {example}" if example else ""
     if path in DEFAULTS and words.kind is not None:
         placeholder = f"{format_quantity(DEFAULTS[path], words.kind)} if blank"
-    return FormField(name or path, words.title, words.kind, required, choices, placeholder, words.hint, modes)
+    return FormField(name or path, words.title, words.kind, required, choices, placeholder, words.hint, modes, points)
 
 
 def _section_title(path: str, note: str = "") -> str:
@@ -108,6 +111,7 @@ RAIL_SECTIONS: list[tuple[str, str, list[FormField]]] = [
         F("switch.loop_response", modes=_LIMITING, example="2 \u00b5s"),
         F("switch.fast_trip", example="30 A"),
         F("switch.fast_trip_delay", example="500 ns"),
+        F("switch.foldback", modes=_LIMITING, example="2 V, 5 A / 10 V, 1 A (one pair per line)", points=True),
     ]),
     (_section_title("switch.timer", "leave blank for none"), "timer", [
         F("switch.timer.c", example="100 nF"),
@@ -120,6 +124,13 @@ RAIL_SECTIONS: list[tuple[str, str, list[FormField]]] = [
         F("switch.timer.retry_off"),
         F("switch.timer.retries", example="3"),
     ]),
+    (_section_title("switch.gate", "leave blank for none"), "gate", [
+        F("switch.gate.drive", choices=GATE_DRIVES),
+        F("switch.gate.i_gate", example="10 \u00b5A"),
+        F("switch.gate.v_drive", example="22 V"),
+        F("switch.gate.r_gate", example="100 k\u03a9"),
+        F("switch.gate.c_ext"),
+    ]),
     (_section_title("environment"), "environment", [
         F("environment.t_ambient", required=True, example="55 \u00b0C"),
     ]),
@@ -130,6 +141,30 @@ RAIL_SECTIONS: list[tuple[str, str, list[FormField]]] = [
 ]
 del F
 _TIMER_VALUES = [f.name for f in RAIL_SECTIONS[5][2] if f.name != "switch.timer.after_fault"]
+_GATE_VALUES = [f.name for f in RAIL_SECTIONS[6][2]]
+_PAIR_SPLIT = re.compile(r"\s*[,;\t]\s*")
+
+
+def points_from_text(text: str) -> list[list[str]] | str:
+    """The [a, b] pairs of a points field, one pair per line ("2 V, 5 A"; comma, semicolon, tab or
+    spaces between the two; blank lines and lines starting with # skipped), as typed (the schema
+    parses the units); a line that is not a pair is kept as the text it is, for the reader to refuse
+    on its own point."""
+    out: list[Any] = []
+    for line in text.splitlines():
+        line = line.strip()
+        if not line or line.startswith("#"):
+            continue
+        cells = [c for c in (_PAIR_SPLIT.split(line) if _PAIR_SPLIT.search(line) else line.split()) if c]
+        out.append(cells if len(cells) == 2 else line)
+    return out
+
+
+def points_to_text(points: Any, kinds: tuple[str, str] = ("V", "A")) -> str:
+    """A stored points list as the form shows it, one pair per line, reading back to the same numbers."""
+    if not points:
+        return ""
+    return "\n".join(f"{form_value(a, kinds[0])}, {form_value(b, kinds[1])}" for a, b in points)
 
 
 def rail_fields() -> list[FormField]:
@@ -168,12 +203,15 @@ def document_from_form(form: dict[str, str], fet: dict[str, Any] | None = None) 
     doc: dict[str, Any] = {"schema": SCHEMA_ID, "supply": {}, "path": {}, "load": {}, "switch": {},
                            "environment": {}, "rules": {}}
     has_timer = any(form.get(name, "").strip() for name in _TIMER_VALUES)
+    has_gate = any(form.get(name, "").strip() for name in _GATE_VALUES)
     for f in rail_fields():
         raw = form.get(f.name, "").strip()
         if f.name.startswith("switch.timer.") and not has_timer:
             continue
+        if f.name.startswith("switch.gate.") and not has_gate:
+            continue
         if raw:
-            _put(doc, f.name, raw)
+            _put(doc, f.name, points_from_text(raw) if f.points else raw)
     if fet is not None:  # the rail's own FET, with the count this form gives (blank: one)
         doc["fet"] = {k: v for k, v in fet.items() if k != "count"} | doc.get("fet", {})
     return doc
@@ -205,7 +243,8 @@ def form_value(value: Any, kind: str | None) -> str:
 
 def form_from_document(document: dict[str, Any]) -> dict[str, str]:
     """The form's values for a stored rail document."""
-    return {f.name: form_value(_get(document, f.name), f.kind) for f in rail_fields()}
+    return {f.name: points_to_text(_get(document, f.name)) if f.points else form_value(_get(document, f.name), f.kind)
+            for f in rail_fields()}
 
 
 def _named(path: str, message: str) -> str:

@@ -39,6 +39,13 @@ PART_FIELDS = [
     _fet_field("tj_max", required=True, example="150 \u00b0C"),
     _fet_field("rth_ja", required=True, example="40 K/W"),
     _fet_field("soa.t_case"),
+    # the gate data a gate-driven turn-on needs (all blank: none)
+    _fet_field("gate.v_th", example="3 V"),
+    _fet_field("gate.k", example="20 A/V^2"),
+    _fet_field("gate.g_fs", example="40 S"),
+    _fet_field("gate.i_gfs", example="20 A"),
+    _fet_field("gate.c_iss", example="3 nF"),
+    _fet_field("gate.c_rss", example="150 pF"),
 ]
 ZTH_FIELD = "zth"
 RDS_CURVE_FIELD = "rds_on_curve"
@@ -102,6 +109,8 @@ def document_from_part_form(form: dict[str, str]) -> tuple[dict[str, Any], dict[
         if raw:
             if f.name == "soa.t_case":
                 doc["soa"]["t_case"] = raw
+            elif f.name.startswith("gate."):
+                doc.setdefault("gate", {})[f.name.removeprefix("gate.")] = raw
             else:
                 doc[f.name] = raw
     pairs, problems = parse_pairs(form.get(ZTH_FIELD, ""))
@@ -174,7 +183,12 @@ def part_form_from_document(doc: dict[str, Any] | None) -> dict[str, str]:
         form[RDS_CURVE_FIELD] = ""
         return form
     for f in PART_FIELDS:
-        value = (doc.get("soa") or {}).get("t_case") if f.name == "soa.t_case" else doc.get(f.name)
+        if f.name == "soa.t_case":
+            value = (doc.get("soa") or {}).get("t_case")
+        elif f.name.startswith("gate."):
+            value = (doc.get("gate") or {}).get(f.name.removeprefix("gate."))
+        else:
+            value = doc.get(f.name)
         form[f.name] = form_value(value, f.kind)
     form[ZTH_FIELD] = "\n".join(f"{form_value(s['r'], 'K/W')}, {form_value(s['tau'], 's')}" for s in doc["zth"])
     form[RDS_CURVE_FIELD] = "\n".join(f"{_num(t)}, {_num(k)}" for t, k in (doc.get("rds_on_curve") or []))

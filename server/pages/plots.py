@@ -19,6 +19,7 @@ from typing import Any
 import numpy as np
 
 from server.analysis import derated_soa_curves, zth
+from server.analysis.foldback import foldback_limit
 from server.pages.display import fmt as format_quantity
 from server.schemas.result import AnalysisResult, MonteCarlo, Waveforms
 
@@ -216,6 +217,29 @@ def _trajectory(wave: Waveforms | None, v_floor: float) -> tuple[list, list]:
     return _r(v[keep]), _r(i[keep])
 
 
+def _foldback_traces(document: dict[str, Any], v_floor: float) -> list[dict[str, Any]]:
+    """The foldback current limit (nominal, and at the limit's high tolerance) over the SOA, from
+    v_floor to the supply maximum: the document's curve, flat beyond its points as the analysis
+    reads it (`server.analysis.foldback`)."""
+    sw = document.get("switch") or {}
+    points = sw.get("foldback")
+    if not points:
+        return []
+    v_max = float((document.get("supply") or {}).get("v_max") or points[-1][0])
+    vs = sorted({v_floor, v_max, *(float(p[0]) for p in points if p[0] > v_floor)})
+    nominal = foldback_limit(points, vs)
+    traces = [{"type": "scatter", "mode": "lines", "name": "Foldback current limit (nominal)", "x": _r(vs),
+               "y": _r(nominal), "line": {"color": PALETTE[4], "width": 2.5, "dash": "dot"},
+               "hovertemplate": "%{x:.3s}V, %{y:.3s}A<extra>foldback limit</extra>"}]
+    tol = float(sw.get("i_limit_tol") or 0.0)
+    if tol > 0.0:
+        traces.append({"type": "scatter", "mode": "lines", "name": "Foldback current limit (high tolerance)",
+                       "x": _r(vs), "y": _r(nominal * (1.0 + tol)),
+                       "line": {"color": PALETTE[4], "width": 1.5, "dash": "dash"},
+                       "hovertemplate": "%{x:.3s}V, %{y:.3s}A<extra>foldback limit, high tolerance</extra>"})
+    return traces
+
+
 def _derated(document: dict[str, Any]) -> list[dict[str, Any]]:
     return derated_soa_curves(document["fet"], document.get("environment", {}).get("t_ambient", 25.0))
 
@@ -226,6 +250,7 @@ def soa_figure(result: AnalysisResult, document: dict[str, Any]) -> dict[str, An
     curves = _derated(document)
     v_floor = min(p[0] for c in curves for p in c["points"]) / 10
     data = _curve_traces(curves, "")
+    data += _foldback_traces(document, v_floor)
     st = result.startup
     x, y = _trajectory(st.waveforms, v_floor)
     if x:

@@ -48,7 +48,9 @@ def _key_figures(result: AnalysisResult) -> list[dict[str, Any]]:
 
 def _headroom(result: AnalysisResult) -> list[dict[str, Any]]:
     out = []
-    for h in (result.headroom.c_max, result.headroom.limit_max):
+    for h in (result.headroom.c_max, result.headroom.limit_max, result.headroom.load_max):
+        if h is None:  # the largest load that starts: with a foldback limit only
+            continue
         value = value_text(h.value, h.unit) if h.value is not None else None
         out.append({"title": h.title, "value": value, "note": h.note, "status": h.status})
     return out

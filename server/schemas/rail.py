@@ -26,15 +26,15 @@ from typing import Annotated, Any, Literal
 from pydantic import BaseModel, BeforeValidator, ConfigDict, Field, model_validator
 from pydantic_core import PydanticUndefined
 
-from server.analysis.document import AFTER_FAULT, BOUNDS, DEFAULTS, LOAD_MODELS, OPTIONAL, SCHEMA, SWITCH_MODES
+from server.analysis.document import (AFTER_FAULT, BOUNDS, DEFAULTS, GATE_DRIVES, LOAD_MODELS, OPTIONAL, SCHEMA,
+                                     SWITCH_MODES)
 from server.analysis.words import FIELD_TITLES
 from server.units import parse_quantity
 
 __all__ = [
     "SCHEMA_ID", "Supply", "PathImpedance", "Load", "Timer", "Switch", "FosterStage", "SoaCurve",
-    "Soa", "Fet", "Environment", "Rules", "RailDocument", "normalize", "part_document", "part_data",
-    "RAIL_FET_KEYS", "canonical_json",
-    "document_sha256",
+    "Soa", "Fet", "FetGate", "GateDrive", "Environment", "Rules", "RailDocument", "normalize", "part_document",
+    "part_data", "RAIL_FET_KEYS", "canonical_json", "document_sha256",
 ]
 
 SCHEMA_ID = SCHEMA
@@ -69,6 +69,8 @@ OptRatio = Annotated[float | None, _optional_quantity("ratio")]
 OptJoule = Annotated[float | None, _optional_quantity("J")]
 OptOhm = Annotated[float | None, _optional_quantity("ohm")]
 Ratio = Annotated[float, _quantity("ratio")]
+OptSiemens = Annotated[float | None, _optional_quantity("S")]
+OptSquareLaw = Annotated[float | None, _optional_quantity("A/V2")]
 
 _BOUND_KEYWORDS = (("above", "exclusiveMinimum"), ("minimum", "minimum"), ("below", "exclusiveMaximum"),
                    ("maximum", "maximum"))
@@ -138,6 +140,14 @@ class Timer(_Section):
     retries: OptRatio = _field("switch.timer.retries")
 
 
+class GateDrive(_Section):
+    drive: Literal[GATE_DRIVES] = _field("switch.gate.drive")  # type: ignore[valid-type]
+    i_gate: OptAmp = _field("switch.gate.i_gate")
+    v_drive: OptVolt = _field("switch.gate.v_drive")
+    r_gate: OptOhm = _field("switch.gate.r_gate")
+    c_ext: Farad = _field("switch.gate.c_ext")
+
+
 class Switch(_Section):
     mode: Literal[SWITCH_MODES] = _field("switch.mode")  # type: ignore[valid-type]
     t_on: Second = _field("switch.t_on")
@@ -149,6 +159,8 @@ class Switch(_Section):
     loop_response: OptSecond = _field("switch.loop_response")
     fast_trip: OptAmp = _field("switch.fast_trip")
     fast_trip_delay: OptSecond = _field("switch.fast_trip_delay")
+    foldback: list[tuple[Volt, Amp]] | None = _field("switch.foldback")
+    gate: GateDrive | None = _field("switch.gate")
 
 
 class FosterStage(_Section):
@@ -164,6 +176,15 @@ class SoaCurve(_Section):
 class Soa(_Section):
     t_case: Celsius = _field("fet.soa.t_case")
     curves: list[SoaCurve] = _field("fet.soa.curves")
+
+
+class FetGate(_Section):
+    v_th: Volt = _field("fet.gate.v_th")
+    k: OptSquareLaw = _field("fet.gate.k")
+    g_fs: OptSiemens = _field("fet.gate.g_fs")
+    i_gfs: OptAmp = _field("fet.gate.i_gfs")
+    c_iss: Farad = _field("fet.gate.c_iss")
+    c_rss: Farad = _field("fet.gate.c_rss")
 
 
 class Fet(_Section):
@@ -182,6 +203,7 @@ class Fet(_Section):
     rds_on_max: OptOhm = _field("fet.rds_on_max")
     rds_on_curve: list[tuple[Celsius, Ratio]] | None = _field("fet.rds_on_curve")
     count: int = _field("fet.count")
+    gate: FetGate | None = _field("fet.gate")
 
 
 class Environment(_Section):
@@ -216,13 +238,43 @@ def normalize(document: RailDocument) -> dict[str, Any]:
     """The canonical JSON-able form: SI floats, defaults filled, overrides left unset omitted."""
     data = document.model_dump(mode="json", by_alias=True)
     data["rules"] = {k: v for k, v in data["rules"].items() if v is not None}
-    _drop_absent_fet_data(data["fet"])
+    return _drop_unset(data)
+
+
+# optional fields added after the first documents and the value that stands for "not given":
+# left out of the canonical form, so that a document without them keeps its text and its hash
+_LATER_OPTIONAL: dict[tuple[str, str], Any] = {
+    ("supply", "v_clamp"): None,
+    ("switch", "loop_response"): None, ("switch", "fast_trip"): None, ("switch", "fast_trip_delay"): None,
+    ("switch", "foldback"): None, ("switch", "gate"): None,
+    ("switch.timer", "retries"): None,
+    ("fet", "e_avalanche"): None, ("fet", "rds_on_max"): None, ("fet", "rds_on_curve"): None,
+    ("fet", "count"): DEFAULTS["fet.count"], ("fet", "gate"): None,
+}
+
+
+def _section(data: dict[str, Any], dotted: str) -> Any:
+    for key in dotted.split("."):
+        data = data.get(key) if isinstance(data, dict) else None
     return data
 
 
-# the optional FET fields and the value that stands for "not given": left out of the canonical
-# form, so that a document without them keeps its text and its hash
-_FET_ABSENT = {"rds_on_max": None, "rds_on_curve": None, "count": DEFAULTS["fet.count"]}
+def _drop_unset(data: dict[str, Any]) -> dict[str, Any]:
+    for (section, key), absent in _LATER_OPTIONAL.items():
+        sec = _section(data, section)
+        if isinstance(sec, dict) and key in sec and sec[key] == absent:
+            del sec[key]
+    gate = (data.get("fet") or {}).get("gate")
+    if isinstance(gate, dict):  # k or g_fs at i_gfs, whichever was given
+        for key in ("k", "g_fs", "i_gfs"):
+            if gate.get(key) is None:
+                gate.pop(key, None)
+    drive = (data.get("switch") or {}).get("gate")
+    if isinstance(drive, dict):
+        for key in ("i_gate", "v_drive", "r_gate"):
+            if drive.get(key) is None:
+                drive.pop(key, None)
+    return data
 
 
 # the keys of a rail document's ``fet`` that are the rail's, not the part's: FETs in parallel
@@ -237,16 +289,9 @@ def part_data(fet: dict[str, Any]) -> dict[str, Any]:
 def part_document(fet: Fet) -> dict[str, Any]:
     """The canonical form of a part library entry: the FET's data without the rail's own figure
     (``count``, the FETs a rail puts in parallel) and without optional data left unset."""
-    data = _drop_absent_fet_data(fet.model_dump(mode="json"))
+    data = _drop_unset({"fet": fet.model_dump(mode="json")})["fet"]
     data.pop("count", None)
     return data
-
-
-def _drop_absent_fet_data(fet: dict[str, Any]) -> dict[str, Any]:
-    for key, absent in _FET_ABSENT.items():
-        if key in fet and fet[key] == absent:
-            del fet[key]
-    return fet
 
 
 def canonical_json(data: dict[str, Any]) -> str:

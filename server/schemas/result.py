@@ -278,6 +278,7 @@ class HeadroomFigure(_Model):
 class Headroom(_Model):
     c_max: HeadroomFigure
     limit_max: HeadroomFigure
+    load_max: HeadroomFigure | None = None  # with a foldback current limit only
 
 
 class SearchBudget(_Model):

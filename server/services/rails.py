@@ -191,14 +191,17 @@ _INPUTS: list[tuple[str, tuple[str, ...]]] = [
     ("supply", ("v_min", "v_nom", "v_max", "r_source", "l_source", "i_max", "uvlo", "uvlo_filter", "c_in", "v_clamp")),
     ("path", ("r", "l")),
     ("load", ("c_nom", "c_tol", "esr", "model", "i_nom", "v_on")),
-    ("switch", ("mode", "t_on", "dvdt", "i_limit", "i_limit_tol", "p_limit", "loop_response", "fast_trip",
-                "fast_trip_delay")),
+    ("switch", ("mode", "t_on", "dvdt", "i_limit", "i_limit_tol", "p_limit", "foldback", "loop_response",
+                "fast_trip", "fast_trip_delay")),
     ("switch.timer", ("c", "c_tol", "i_charge", "i_charge_tol", "v_trip", "v_trip_tol", "after_fault", "retry_off",
                       "retries")),
+    ("switch.gate", ("drive", "i_gate", "v_drive", "r_gate", "c_ext")),
     ("environment", ("t_ambient",)),
     ("fet", ("name", "vds_max", "id_pulse_max", "e_avalanche", "rds_on", "rds_on_max", "rds_on_alpha", "tj_max",
              "rth_ja", "count")),
+    ("fet.gate", ("v_th", "k", "g_fs", "i_gfs", "c_iss", "c_rss")),
 ]
+_SHOWN_WHEN_GIVEN = ("switch.gate", "fet.gate")  # sections listed only where the document has them
 
 
 def _section(document: dict[str, Any], path: str) -> dict[str, Any] | None:
@@ -215,6 +218,10 @@ def _items(section: dict[str, Any], path: str, keys: tuple[str, ...]) -> list[tu
         if value is None:
             continue
         words = FIELD_TITLES[f"{path}.{key}"]
+        if f"{path}.{key}" == "switch.foldback":
+            out.append((words.title, "; ".join(f"{format_quantity(v, 'V')}: {format_quantity(i, 'A')}"
+                                               for v, i in value)))
+            continue
         out.append((words.title, str(value).replace("_", " ") if words.kind is None else format_quantity(value, words.kind)))
     return out
 
@@ -227,6 +234,8 @@ def input_sections(document: dict[str, Any]) -> list[dict[str, Any]]:
         title = FIELD_TITLES[path].title
         if path == "switch.timer" and not section:
             sections.append({"title": title, "items": [(title, "none")]})
+            continue
+        if path in _SHOWN_WHEN_GIVEN and not section:
             continue
         items = _items(section or {}, path, keys)
         if path == "fet" and (section or {}).get("rds_on_curve"):

@@ -28,6 +28,9 @@ def _full_document() -> dict:
     doc["switch"].update(loop_response=2e-6, fast_trip=20.0, fast_trip_delay=0.5e-6)
     doc["switch"]["timer"]["retries"] = 3
     doc["fet"]["e_avalanche"] = 0.1
+    doc["switch"]["foldback"] = [[5.0, 6.0], [40.0, 1.5]]
+    doc["switch"]["gate"] = {"drive": "voltage", "i_gate": None, "v_drive": 70.0, "r_gate": 1e5, "c_ext": 10e-9}
+    doc["fet"]["gate"] = {"v_th": 3.0, "k": 20.0, "c_iss": 3e-9, "c_rss": 2e-10}
     doc["rules"] = dict(DEFAULT_RULES)
     doc["fet"].update(rds_on_max=doc["fet"]["rds_on"] * 1.3, count=2,
                       rds_on_curve=[[-55.0, 0.6], [25.0, 1.0], [150.0, 1.7]])
@@ -35,12 +38,23 @@ def _full_document() -> dict:
     return doc
 
 
+def _full_documents() -> list[dict]:
+    """The full document, and the same with the transconductance instead of the square-law
+    constant and a current drive (the choices a document makes one of)."""
+    other = _full_document()
+    other["switch"]["gate"] = {"drive": "current", "i_gate": 10e-6}
+    other["fet"]["gate"] = {"v_th": 3.0, "g_fs": 20.0, "i_gfs": 10.0, "c_iss": 3e-9, "c_rss": 2e-10}
+    read_rail(other)
+    return [_full_document(), other]
+
+
 def _walk(node, path=""):
     yield path
     if isinstance(node, dict):
         for key, value in node.items():
             yield from _walk(value, f"{path}.{key}" if path else key)
-    elif isinstance(node, list) and not (path.endswith("]") and ("points" in path or "rds_on_curve" in path)):
+    elif isinstance(node, list) and not (path.endswith("]") and any(k in path for k in ("points", "rds_on_curve",
+                                                                                         "foldback"))):
         for k, value in enumerate(node):
             yield from _walk(value, f"{path}[{k}]")
 
@@ -67,7 +81,7 @@ def _value(doc, path):
 
 
 def test_the_table_holds_no_title_the_document_does_not_have():
-    walked = {generic_path(p) for p in _walk(_full_document()) if p} | {"document"}
+    walked = {generic_path(p) for doc in _full_documents() for p in _walk(doc) if p} | {"document"}
     assert set(FIELD_TITLES) == walked
     # and every key the reader knows, every default, optional field and bound is titled
     known = {f"{where}.{key}" if where else key for where, keys in FIELD_KEYS.items() for key in keys}

@@ -195,3 +195,53 @@ def test_the_forms_over_http_show_titles_with_paths_as_hints(client, app, people
     assert re.search(r'<label for="f-rds-on-alpha">R_DS\(on\) temperature coefficient', part_page)
     assert '<code class="path-hint" title="JSON path in the document">rds_on_alpha</code>' in part_page
     assert "MOSFET SOA curve 1 pulse width" in part_page
+
+
+def test_foldback_points_and_the_gate_drive_survive_the_form_unchanged():
+    doc = normalize_document(rail_doc(switch={"mode": "current_limit", "i_limit": "4 A",
+                                              "foldback": [["2 V", "4 A"], ["10 V", "1.5 A"], ["12.6 V", "1.2 A"]],
+                                              "gate": {"drive": "voltage", "v_drive": "22 V", "r_gate": "100 kOhm"}},
+                                      fet=fet_doc(gate={"v_th": 2.6, "k": 50.0, "c_iss": 3.1e-9, "c_rss": 1.6e-10})))
+    form = form_from_document(doc)
+    assert form["switch.foldback"].splitlines() == ["2 V, 4 A", "10 V, 1.5 A", "12.6 V, 1.2 A"]
+    assert form["switch.gate.r_gate"] == "100 k\u03a9"
+    again = normalize_document(document_from_form(form, doc["fet"]))
+    assert again == doc
+    # blank gate fields and a blank curve leave both out
+    for name in ("switch.foldback", "switch.gate.drive", "switch.gate.v_drive", "switch.gate.r_gate",
+                 "switch.gate.c_ext"):
+        form[name] = ""
+    plain = document_from_form(form, doc["fet"])
+    assert "foldback" not in plain["switch"] and "gate" not in plain["switch"]
+
+
+def test_a_part_form_carries_the_gate_data():
+    fet = normalize_fet(fet_doc(gate={"v_th": "2.6 V", "g_fs": "45 S", "i_gfs": "20 A", "c_iss": "3.1 nF",
+                                      "c_rss": "160 pF"}))
+    form = part_form_from_document(fet)
+    assert form["gate.v_th"] == "2.6 V" and form["gate.k"] == ""
+    doc, errors, _ = document_from_part_form(form)
+    assert errors == {} and normalize_fet(doc) == fet
+
+
+def test_the_rail_page_shows_the_foldback_curve_the_gate_drive_and_the_largest_load(client, app, people,
+                                                                                  session_factory):
+    from server.services import catalog, rail_edits
+    from tests.pages.helpers import actor_of, analyse_now
+    with session_factory() as s:
+        designer = actor_of(s, "designer")
+        product = catalog.create_product(session=s, actor=designer, name="Tideline buoy")
+        board = catalog.create_board(session=s, actor=designer, product_id=product.id, name="Power", revision="C")
+        doc = rail_doc("VOUT_FOLD", switch={"mode": "current_limit", "i_limit": "4 A", "timer": None,
+                                            "foldback": [["2 V", "4 A"], ["12 V", "1.5 A"]],
+                                            "gate": {"drive": "current", "i_gate": "10 uA", "c_ext": "10 nF"}},
+                       fet=fet_doc(gate={"v_th": 3.0, "k": 40.0, "c_iss": 3e-9, "c_rss": 2e-10}))
+        rail, rev = rail_edits.create_rail(session=s, actor=designer, board_id=board.id, document=doc,
+                                           message="first entry")
+        analyse_now(s, rev)
+        rail_id = rail.id
+    log_in(client, app, people.ids["designer"])
+    page = client.get(f"/rails/{rail_id}").text
+    assert "Foldback current limit (nominal)" in page  # the trace over the SOA curves
+    assert "Largest load that still starts (foldback)" in page
+    assert "Gate drive current" in page and "MOSFET gate threshold voltage" in page
