@@ -103,6 +103,10 @@ FIELD_TITLES: dict[str, FieldWords] = {
     "fet.zth[]": W("Foster stage {0}", None, "r (K/W) and tau (s)"),
     "fet.zth[].r": W("Foster stage {0} resistance", "K/W", "thermal resistance of the stage"),
     "fet.zth[].tau": W("Foster stage {0} time constant", "s", "thermal time constant of the stage"),
+    "fet.zth_points": W("Zth curve points the Foster stages were fitted to", None,
+                        "the datasheet's single-pulse Zth curve (junction to case) as [t (s), Zth (K/W)] points, "
+                        "t rising; kept with the stages, the analysis uses the stages; blank: none"),
+    "fet.zth_points[]": W("Zth curve point {0}", None, "[t (s), Zth (K/W)]"),
     "fet.soa": W("MOSFET SOA", None, "the safe operating area chart"),
     "fet.soa.t_case": W("Case temperature of the SOA curves", "degC", "the case temperature the chart is drawn at"),
     "fet.soa.curves": W("MOSFET SOA curves", None, "one curve per pulse width, at least two; null pulse width: DC"),
