@@ -14,6 +14,7 @@ errors on their fields. Titles and hints in the JSON schema come from
 :data:`server.analysis.words.FIELD_TITLES`.
 
 Provides :class:`RailDocument`, :class:`Fet` (a part library entry), :func:`normalize`,
+:func:`normalize_fet_section`,
 :func:`canonical_json` and :func:`document_sha256`.
 """
 
@@ -32,7 +33,7 @@ from server.units import parse_quantity
 
 __all__ = [
     "SCHEMA_ID", "Supply", "PathImpedance", "Load", "Timer", "Switch", "FosterStage", "SoaCurve",
-    "Soa", "Fet", "Environment", "Rules", "RailDocument", "normalize", "canonical_json",
+    "Soa", "Fet", "Environment", "Rules", "RailDocument", "normalize", "normalize_fet_section", "canonical_json",
     "document_sha256",
 ]
 
@@ -168,6 +169,7 @@ class Fet(_Section):
     tj_max: Celsius = _field("fet.tj_max")
     rth_ja: KelvinPerWatt = _field("fet.rth_ja")
     zth: list[FosterStage] = _field("fet.zth")
+    zth_points: list[tuple[Second, KelvinPerWatt]] | None = _field("fet.zth_points")
     soa: Soa = _field("fet.soa")
 
 
@@ -202,7 +204,25 @@ def normalize(document: RailDocument) -> dict[str, Any]:
     """The canonical JSON-able form: SI floats, defaults filled, overrides left unset omitted."""
     data = document.model_dump(mode="json", by_alias=True)
     data["rules"] = {k: v for k, v in data["rules"].items() if v is not None}
+    _leave_out_absent(data["fet"])
     return data
+
+
+def normalize_fet_section(fet: Fet) -> dict[str, Any]:
+    """The canonical form of a FET (a part document), as `normalize` writes a rail's ``fet``."""
+    return _leave_out_absent(fet.model_dump(mode="json"))
+
+
+# Optional fields added after documents were stored: absent when not given, so that the canonical
+# form (and its sha256) of a document that does not use them is what it was.
+_ADDED_OPTIONAL_FET = ("zth_points",)
+
+
+def _leave_out_absent(fet: dict[str, Any]) -> dict[str, Any]:
+    for key in _ADDED_OPTIONAL_FET:
+        if fet.get(key) is None:
+            fet.pop(key, None)
+    return fet
 
 
 def canonical_json(data: dict[str, Any]) -> str:

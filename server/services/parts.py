@@ -11,7 +11,7 @@ from sqlalchemy import func, select
 from sqlalchemy.orm import Session
 
 from server.models import Part, PartRevision, Rail, RailRevision, utcnow
-from server.schemas.rail import document_sha256
+from server.schemas.rail import document_sha256, normalize_fet_section
 from server.schemas.validation import DocumentInvalid, parse_fet
 from server.services.access import Actor, Permission, scoped_rails
 from server.services.audit import record
@@ -27,7 +27,7 @@ def normalize_fet(data: Any, prefix: str = "document") -> dict[str, Any]:
         fet = parse_fet(data, prefix)
     except DocumentInvalid as exc:
         raise Invalid(str(exc), details=[e.as_dict() for e in exc.errors]) from None
-    return fet.model_dump(mode="json")
+    return normalize_fet_section(fet)
 
 
 def part_revision_dict(rev: PartRevision, *, with_document: bool = True) -> dict:

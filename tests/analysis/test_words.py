@@ -25,6 +25,7 @@ def _full_document() -> dict:
     doc = copy.deepcopy(hotswap_48v())
     doc["supply"].update(uvlo_filter=5e-6, c_in=10e-6)
     doc["switch"]["dvdt"] = 5000.0
+    doc["fet"]["zth_points"] = [[1e-5, 0.02], [1e-3, 0.3]]
     doc["rules"] = dict(DEFAULT_RULES)
     read_rail(doc)  # a valid document
     return doc
