@@ -190,7 +190,7 @@ def allowed_current(fet: Fet, v_ds, t_pulse, t_start) -> np.ndarray:
     # the DC curve's (nothing without one); no extrapolation along the chart
     inner = np.where(lt <= tab.log_t[0], fin[0], inner)
     beyond = dc if dc is not None else np.zeros_like(inner)
-    out = np.where(lt > tab.log_t[-1] * (1 + 1e-12) + 1e-12, beyond, inner)
+    out = np.where(lt > tab.log_t[-1] + 1e-12 * (1.0 + abs(tab.log_t[-1])), beyond, inner)
     return out * derating_factor(fet, t_start)
 
 
