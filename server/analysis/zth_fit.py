@@ -9,6 +9,8 @@ fit_foster(t, z, n_stages)
     The bounded least-squares fit alone: stages (r, tau) by increasing tau.
 board_stage(fitted_total, rth_ja, tau=None)
     The mounting stage: r = rth_ja - fitted total, tau given or `BOARD_TAU_DEFAULT`.
+zth_deviation(stages, points)
+    How far stored stages lie from the points they were fitted to (largest relative difference).
 ZthFit
     The result: the points, the fitted stages, the error at every point and the largest, the
     board stage and every stage for the part document (``fet.zth``).
@@ -50,7 +52,7 @@ from .errors import DocumentError
 from .units import quantity
 
 __all__ = ["FIT_STAGES", "BOARD_TAU_DEFAULT", "BOARD_TAU_WORDS", "METHOD", "ZthFit", "fit_zth", "fit_foster",
-           "board_stage"]
+           "board_stage", "zth_deviation"]
 
 FIT_STAGES = (2, 3, 4, 5, 6)  # the number of stages one may fit
 BOARD_TAU_DEFAULT = 10.0  # s; common practice, no source (see the module's docstring)
@@ -241,3 +243,19 @@ def fit_zth(points: Any, n_stages: int, rth_ja: float | None = None, board_tau: 
     board, default = board_stage(fit.fitted_total, float(rth_ja), board_tau)
     return ZthFit(points=pts, stages=stages, errors=fit.errors, rth_ja=float(rth_ja), board=board,
                   board_tau_default=default)
+
+
+def zth_deviation(stages: Any, points: Any) -> tuple[float, float]:
+    """The largest |Zth_stages(t) / Zth - 1| over the points, and the time of that point (s).
+
+    ``stages``: Foster stages (dicts ``{"r", "tau"}`` or (r, tau) pairs), every stage of the
+    part (the board stage included, so the difference grows where the board stage adds to
+    the junction-to-case curve); ``points``: [[t s, Zth K/W], ...].
+    """
+    rs, taus = zip(*[(s["r"], s["tau"]) if isinstance(s, dict) else s for s in stages])
+    t = np.array([p[0] for p in points], dtype=float)
+    z = np.array([p[1] for p in points], dtype=float)
+    model = np.sum(np.array(rs) * -np.expm1(-t[:, None] / np.array(taus)), axis=1)
+    errors = np.abs(model / z - 1.0)
+    k = int(np.argmax(errors))
+    return float(errors[k]), float(t[k])
