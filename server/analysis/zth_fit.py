@@ -245,17 +245,25 @@ def fit_zth(points: Any, n_stages: int, rth_ja: float | None = None, board_tau: 
                   board_tau_default=default)
 
 
-def zth_deviation(stages: Any, points: Any) -> tuple[float, float]:
-    """The largest |Zth_stages(t) / Zth - 1| over the points, and the time of that point (s).
+def zth_deviation(stages: Any, points: Any) -> dict[str, float]:
+    """How far a part's stages lie below and above the Zth points they were fitted to.
 
-    ``stages``: Foster stages (dicts ``{"r", "tau"}`` or (r, tau) pairs), every stage of the
-    part (the board stage included, so the difference grows where the board stage adds to
-    the junction-to-case curve); ``points``: [[t s, Zth K/W], ...].
+    ``stages``: every Foster stage of the part (dicts ``{"r", "tau"}`` or (r, tau) pairs), the
+    board stage included; ``points``: [[t s, Zth K/W], ...] (junction to case). Below the points
+    is the side that matters (a lower Zth reads a cooler junction); above them the board stage
+    lifts the curve where the case is no longer held at a fixed temperature.
+
+    Returns
+    -------
+    dict
+        ``below``: the largest 1 - Zth_stages / Zth (0 when never below) and ``below_at`` its
+        time, s; ``above``: the largest Zth_stages / Zth - 1 (0 when never above) and
+        ``above_at``.
     """
     rs, taus = zip(*[(s["r"], s["tau"]) if isinstance(s, dict) else s for s in stages])
     t = np.array([p[0] for p in points], dtype=float)
     z = np.array([p[1] for p in points], dtype=float)
-    model = np.sum(np.array(rs) * -np.expm1(-t[:, None] / np.array(taus)), axis=1)
-    errors = np.abs(model / z - 1.0)
-    k = int(np.argmax(errors))
-    return float(errors[k]), float(t[k])
+    ratio = np.sum(np.array(rs) * -np.expm1(-t[:, None] / np.array(taus)), axis=1) / z
+    low, high = int(np.argmin(ratio)), int(np.argmax(ratio))
+    return {"below": float(max(0.0, 1.0 - ratio[low])), "below_at": float(t[low]),
+            "above": float(max(0.0, ratio[high] - 1.0)), "above_at": float(t[high])}

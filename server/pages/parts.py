@@ -86,9 +86,10 @@ def _zth_points_summary(doc: dict[str, Any]) -> dict[str, Any] | None:
     points = doc.get("zth_points")
     if not points:
         return None
-    largest, at = zth_deviation(doc["zth"], points)
+    seen = zth_deviation(doc["zth"], points)
     return {"n": len(points), "from": fmt(points[0][0], "s"), "to": fmt(points[-1][0], "s"),
-            "largest": f"{largest:.1%}", "at": fmt(at, "s")}
+            "below": f"{seen['below']:.1%}", "below_at": fmt(seen["below_at"], "s"),
+            "above": f"{seen['above']:.1%}", "above_at": fmt(seen["above_at"], "s")}
 
 
 def part_form_context(*, values: dict[str, str], errors: dict[str, str], other: list[str], part=None,

@@ -153,3 +153,23 @@ def test_a_fit_takes_well_under_a_second():
     start = time.perf_counter()
     fit_zth(pts, 6, rth_ja=40.0)
     assert time.perf_counter() - start < 1.0
+
+
+def test_the_demo_part_holds_the_fit_of_its_points():
+    from server.demo import FETS, FITTED_RTH_JA, FITTED_ZTH_POINTS
+    from server.analysis.zth_fit import zth_deviation
+
+    fet = next(f for f in FETS if f.get("zth_points"))
+    fit = fit_zth(fet["zth_points"], 5, rth_ja=FITTED_RTH_JA)
+    assert fet["zth_points"] == FITTED_ZTH_POINTS
+    assert [(s["r"], s["tau"]) for s in fet["zth"]] == list(fit.all_stages)
+    assert fit.largest_error < 0.03 and fet["rth_ja"] == FITTED_RTH_JA
+    assert sum(s["r"] for s in fet["zth"]) == pytest.approx(FITTED_RTH_JA, rel=1e-12)
+    # the stored stages (board stage included) lie below the junction-to-case points by no more than the fit's
+    # error; above them by what the board stage adds: 36.9 K/W (1 - exp(-1 s / 10 s)) = 3.5 K/W at 1 s
+    seen = zth_deviation(fet["zth"], fet["zth_points"])
+    assert seen["below"] <= fit.largest_error + 1e-12
+    r_b, tau_b = fit.board
+    jc_at_1s = float(fit.curve(1.0))
+    assert seen["above_at"] == 1.0
+    assert seen["above"] == pytest.approx((jc_at_1s + r_b * -np.expm1(-1.0 / tau_b)) / 1.10 - 1, rel=1e-9)
