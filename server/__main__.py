@@ -27,6 +27,8 @@ import railsign
 from railsign import gate
 from server import backup, migrate, transfer
 from server.analysis import DocumentError, analyze_rail, format_report
+from server.analysis.units import quantity
+from server.analysis.zth_fit import BOARD_TAU_WORDS, METHOD
 from server.app import create_app
 from server.config import Settings
 from server.db import make_engine, make_sessionmaker, ping
@@ -37,7 +39,9 @@ from server.schemas.validation import DocumentInvalid, parse_rail_document
 from server.services import jobs, risks, teams, users
 from server.services.access import Actor
 from server.services.errors import ServiceError
+from server.services.parts import fit_zth_points, zth_points_from_text
 from server.services.results import engine_version
+from server.units import UnitError, parse_quantity
 from server.worker import WorkerPool
 
 EXIT_OK, EXIT_FAILING_CHECK, EXIT_BAD_INPUT, EXIT_NO_DATABASE = 0, 1, 2, 3
@@ -306,9 +310,6 @@ def cmd_check(args: argparse.Namespace) -> int:
 
 def _fit_report(fit, file: str) -> str:
     """The fit in words: the stages, the largest error, the board stage and the part document's fields."""
-    from server.analysis.units import quantity
-    from server.analysis.zth_fit import BOARD_TAU_WORDS, METHOD
-
     lines = [f"Foster stages fitted to {len(fit.points)} Zth points of {file} (junction to case), "
              f"{len(fit.stages)} stages:", "  stage  r             tau"]
     lines += [f"  {k:<5}  {quantity(r, 'K/W', 4):<12}  {quantity(tau, 's', 4)}"
@@ -331,9 +332,6 @@ def _fit_report(fit, file: str) -> str:
 def cmd_fit_zth(args: argparse.Namespace) -> int:
     """Fit Foster stages to a Zth curve file (no database needed): print the stages, the largest error and the
     board stage, or JSON."""
-    from server.services.parts import fit_zth_points, zth_points_from_text
-    from server.units import UnitError, parse_quantity
-
     file = Path(args.file)
     if args.file != "-" and not file.is_file():
         raise CliError(f"no such file: {args.file}")
