@@ -202,6 +202,14 @@ def _num(x: float) -> str:
     return text if float(text) == x else repr(x)
 
 
-def stage_lines(stages: Any) -> str:
-    """Foster stages as the stages' text box shows them: one "r, tau" line each (SI, exact)."""
+def stage_lines(stages: Any, rth_ja: float | None = None) -> str:
+    """Foster stages as the stages' text box shows them: one "r, tau" line each (SI).
+
+    With ``rth_ja`` (a fit: the last stage is the board stage), the fitted stages are written to six
+    significant digits (a millionth, far below any fit's error, and readable) and the board stage's r
+    is R_th junction-ambient minus their sum as written, so that the stages still sum to it."""
+    stages = [(float(r), float(tau)) for r, tau in stages]
+    if rth_ja is not None:
+        fitted = [(float(f"{r:.6g}"), float(f"{tau:.6g}")) for r, tau in stages[:-1]]
+        stages = fitted + [(rth_ja - sum(r for r, _ in fitted), stages[-1][1])]
     return "\n".join(f"{_num(r)}, {_num(tau)}" for r, tau in stages)

@@ -205,7 +205,7 @@ def fit_part_form(session: Session, actor: Actor, form: dict[str, str], part_id:
                                     {"curves": {}, "zth_lines": [], "points_lines": {}, "zth_points_lines": lines})
     if fit is None:
         return False, part_form_context(values=form, errors=errors, other=[], part=part, base_n=base_n)
-    values = {**form, ZTH_FIELD: stage_lines(fit.all_stages)}
+    values = {**form, ZTH_FIELD: stage_lines(fit.all_stages, fit.rth_ja)}
     r_b, tau_b = fit.board
     shown = {"figure": zth_fit_figure(fit), "n_points": len(fit.points), "n_stages": len(fit.stages),
              "largest_error": f"{fit.largest_error:.2%}", "at": fmt(fit.largest_error_at, "s"),
