@@ -84,8 +84,7 @@ BAD_INPUTS = [
     ("load.c_tol", lambda d: d["load"].update(c_tol=1.5), "tolerance"),
     ("load.capacitance", lambda d: d["load"].update(capacitance=1e-3), "not a known field"),
     # Caught by the analysis core's own reading of the document, after the schema:
-    ("fet.soa.curves", lambda d: d["fet"]["soa"]["curves"][3].update(points=[[0.5, 90.0], [30.0, 30.0]]),
-     "more current than a shorter pulse"),
+    ("fet.zth_points[1]", lambda d: d["fet"].update(zth_points=[[1e-3, 0.5], [1e-2, 0.4]]), "must not fall"),
 ]
 
 
@@ -319,13 +318,12 @@ def test_healthz_says_when_the_database_is_unreachable(tmp_path):
     assert r.json()["database"]["reachable"] is False
 
 
-def test_part_with_curves_the_analysis_refuses_is_not_stored(client, people):
+def test_part_with_zth_points_the_analysis_refuses_is_not_stored(client, people):
     h = people.headers("designer")
-    fet = fet_doc("Odd curves")
-    fet["soa"]["curves"][3]["points"] = [[0.5, 90.0], [30.0, 30.0]]  # DC above the 10 ms curve
+    fet = fet_doc("Odd points", zth_points=[[1e-3, 0.5], [1e-2, 0.6], [1e-2, 0.7]])  # t repeats
     r = client.post("/api/v1/parts", json={"document": fet}, headers=h)
     assert r.status_code == 422, r.text
-    assert r.json()["error"]["details"][0]["field"] == "document.soa.curves"
+    assert r.json()["error"]["details"][0]["field"] == "document.zth_points[2]"
     assert client.get("/api/v1/parts", headers=h).json()["total"] == 0
 
 
