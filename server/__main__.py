@@ -1,4 +1,5 @@
-"""The `railsign` command line: serve, demo, migrate, export, import, user, token, analyze, check, worker, jobs.
+"""The `railsign` command line: serve, demo, migrate, export, import, user, token, analyze, check, fit-zth, worker,
+jobs.
 
 Exit codes: 0 success; 1 the analysis found a failing check (`check --strict`: or an unaccepted
 marginal one); 2 bad arguments or input; 3 the database cannot be reached.
@@ -26,6 +27,8 @@ import railsign
 from railsign import gate
 from server import backup, migrate, transfer
 from server.analysis import DocumentError, analyze_rail, format_report
+from server.analysis.units import quantity
+from server.analysis.zth_fit import BOARD_TAU_WORDS, METHOD
 from server.app import create_app
 from server.config import Settings
 from server.db import make_engine, make_sessionmaker, ping
@@ -36,7 +39,9 @@ from server.schemas.validation import DocumentInvalid, parse_rail_document
 from server.services import jobs, risks, teams, users
 from server.services.access import Actor
 from server.services.errors import ServiceError
+from server.services.parts import fit_zth_points, zth_points_from_text
 from server.services.results import engine_version
+from server.units import UnitError, parse_quantity
 from server.worker import WorkerPool
 
 EXIT_OK, EXIT_FAILING_CHECK, EXIT_BAD_INPUT, EXIT_NO_DATABASE = 0, 1, 2, 3
@@ -303,6 +308,47 @@ def cmd_check(args: argparse.Namespace) -> int:
     return run.exit_code()
 
 
+def _fit_report(fit, file: str) -> str:
+    """The fit in words: the stages, the largest error, the board stage and the part document's fields."""
+    lines = [f"Foster stages fitted to {len(fit.points)} Zth points of {file} (junction to case), "
+             f"{len(fit.stages)} stages:", "  stage  r             tau"]
+    lines += [f"  {k:<5}  {quantity(r, 'K/W', 4):<12}  {quantity(tau, 's', 4)}"
+              for k, (r, tau) in enumerate(fit.stages, start=1)]
+    lines.append(f"Fitted total (junction to case): {quantity(fit.fitted_total, 'K/W', 4)}")
+    lines.append(f"Largest error over the points: {fit.largest_error:.2%} "
+                 f"(at {quantity(fit.largest_error_at, 's')})")
+    r_b, tau_b = fit.board
+    lines.append(f"Board stage (mounting): r {quantity(r_b, 'K/W', 4)} = R_th junction-ambient "
+                 f"{quantity(fit.rth_ja, 'K/W', 4)} minus the fitted total; tau {quantity(tau_b, 's', 4)}"
+                 + (f" ({BOARD_TAU_WORDS})" if fit.board_tau_default else " (as given)"))
+    lines.append(f"Method: {METHOD}.")
+    lines.append("fet.zth (every stage, the board stage last):")
+    lines.append(json.dumps([{"r": r, "tau": tau} for r, tau in fit.all_stages]))
+    lines.append("fet.zth_points:")
+    lines.append(json.dumps([list(p) for p in fit.points]))
+    return "\n".join(lines)
+
+
+def cmd_fit_zth(args: argparse.Namespace) -> int:
+    """Fit Foster stages to a Zth curve file (no database needed): print the stages, the largest error and the
+    board stage, or JSON."""
+    file = Path(args.file)
+    if args.file != "-" and not file.is_file():
+        raise CliError(f"no such file: {args.file}")
+    text = sys.stdin.read() if args.file == "-" else file.read_text(encoding="utf-8")
+    try:
+        rth_ja = parse_quantity(args.rth_ja, "K/W")
+        board_tau = None if args.board_tau is None else parse_quantity(args.board_tau, "s")
+    except UnitError as exc:
+        raise CliError(f"--rth-ja / --board-tau: {exc}") from None
+    fit = fit_zth_points(zth_points_from_text(text, field=args.file), args.stages, rth_ja, board_tau)
+    if args.json:
+        print(json.dumps(fit.as_dict(), indent=2, allow_nan=False))
+    else:
+        print(_fit_report(fit, args.file))
+    return EXIT_OK
+
+
 def cmd_worker(args: argparse.Namespace) -> int:
     settings = _settings()
     if args.check:
@@ -476,6 +522,20 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--write-baseline", metavar="FILE", help="write a baseline accepting every marginal check of "
                    "this run (never a failing one), and judge the run with it")
     p.add_argument("--quiet", action="store_true", help="print only rails that do not pass, and the summary")
+
+    p = command("fit-zth", cmd_fit_zth,
+                "fit Foster stages to a MOSFET's single-pulse transient thermal impedance curve (no database "
+                "needed): bounded least squares on log Zth, then the board stage up to R_th junction-ambient")
+    p.add_argument("file", metavar="POINTS.csv", help="the curve as 't, Zth' lines (s, K/W; units allowed, a header "
+                   "line is skipped), or - for standard input")
+    p.add_argument("--stages", type=int, required=True, choices=range(2, 7), metavar="N",
+                   help="number of Foster stages to fit, 2 to 6")
+    p.add_argument("--rth-ja", required=True, metavar="X",
+                   help="R_th junction-ambient as mounted (K/W, e.g. 40 or '40 K/W'): the board stage makes Zth at "
+                        "long times equal to it")
+    p.add_argument("--board-tau", metavar="S", help="time constant of the board stage (s, e.g. 20 or '20 s'; "
+                   "default 10 s, common practice, no source; a shorter one is the cautious choice)")
+    p.add_argument("--json", action="store_true", help="print one JSON object (SI units) instead of the report")
 
     p = command("worker", cmd_worker, "run analysis jobs from the database queue until stopped")
     p.add_argument("--concurrency", type=int, default=1, help="worker threads in this process (default 1)")

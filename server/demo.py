@@ -2,7 +2,8 @@
 
 The scenario is made up for the demo: "Lanternfish", an outdoor edge gateway for a
 fictional fleet of tidal-energy monitoring stations. The MOSFETs are invented; their
-numbers are plausible for their class, not taken from any datasheet. Some rails sit
+numbers are plausible for their class, not taken from any datasheet. One of them has Foster
+stages fitted to an invented single-pulse Zth curve (junction to case), kept with its points. Some rails sit
 comfortably inside their margins and some do not, so the pages show every verdict.
 
 The sign-off is under way: some rails are submitted for review; reviewer ravi is assigned to
@@ -17,6 +18,7 @@ from typing import Any
 from sqlalchemy import func, select
 from sqlalchemy.orm import Session
 
+from server.analysis.zth_fit import fit_zth
 from server.models import Product
 from server.services import catalog, parts, reviews, signoff, users
 from server.services.access import Actor
@@ -90,6 +92,29 @@ FETS = [
             {1e-4: 1000.0, 1e-3: 300.0, 1e-2: 100.0, None: 48.0}),
      "gate": {"v_th": 2.6, "g_fs": 45.0, "i_gfs": 20.0, "c_iss": 3.1e-9, "c_rss": 0.16e-9}},
 ]
+
+
+# An invented single-pulse Zth curve (junction to case) of a 40 V part in a 5 x 6 mm package, as read off a
+# datasheet chart: three points a decade, three significant digits; R_th(j-c) about 1.1 K/W.
+FITTED_ZTH_POINTS = [
+    [1e-5, 0.0185], [2e-5, 0.0290], [5e-5, 0.0520], [1e-4, 0.0790], [2e-4, 0.117], [5e-4, 0.191],
+    [1e-3, 0.267], [2e-3, 0.362], [5e-3, 0.515], [1e-2, 0.640], [2e-2, 0.770], [5e-2, 0.920],
+    [0.1, 1.00], [0.2, 1.06], [0.5, 1.09], [1.0, 1.10],
+]
+FITTED_RTH_JA = 38.0  # K/W as mounted on the demo board (invented)
+
+
+def _fitted_fet() -> dict[str, Any]:
+    """The demo part whose Foster stages are fitted (5 stages, largest error 1.3 % over the points, and the
+    board stage with its default time constant) to `FITTED_ZTH_POINTS`; the points are kept in the part."""
+    fit = fit_zth(FITTED_ZTH_POINTS, 5, rth_ja=FITTED_RTH_JA)
+    fet = _fet("BW-N40F7 fitted Zth (demo)", 40.0, 7.5e-3, 150.0, FITTED_RTH_JA, list(fit.all_stages),
+               {1e-4: 1100.0, 1e-3: 330.0, 1e-2: 110.0, None: 40.0}, tj_max=175.0)
+    fet["zth_points"] = [list(p) for p in FITTED_ZTH_POINTS]
+    return fet
+
+
+FETS.append(_fitted_fet())  # last, so that the rails' part indices above stay as they are
 
 
 def _timer(c: float, *, retry_off: float | None = None) -> dict[str, Any]:

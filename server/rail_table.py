@@ -13,17 +13,19 @@ The column set (README, "Importing a table of rails"):
 - a unit in square brackets after the name (``load.c_nom [uF]``) applies to bare numbers of
   the column; a cell may carry its own unit ("680uF") instead; a bare number without either is
   in SI units;
-- list-valued fields, ``fet.zth`` (Foster stages), ``fet.soa.curves`` (SOA curves),
-  ``fet.rds_on_curve`` (R_DS(on) / R_DS(on) at 25 degC against T_j) and ``switch.foldback``
-  (the foldback current limit), as a JSON cell (``[{"r": 0.5, "tau": "1ms"}]``;
+- list-valued fields, ``fet.zth`` (Foster stages), ``fet.zth_points`` (the Zth curve points the
+  stages were fitted to), ``fet.soa.curves`` (SOA curves), ``fet.rds_on_curve`` (R_DS(on) /
+  R_DS(on) at 25 degC against T_j) and ``switch.foldback`` (the foldback current limit), as a
+  JSON cell (``[{"r": 0.5, "tau": "1ms"}]``; ``[["10us", 0.02], ["1ms", 0.3]]``;
   ``[{"t_pulse": "10ms", "points": [[1, 100], [30, 3]]}]``; ``[[25, 1.0], [100, 1.4], [150, 1.75]]``;
   ``[["2V", "5A"], [10, 1]]``), or, in a workbook, on a second sheet named after the field:
   ``fet.zth`` with columns ``board``, ``rail``, ``r``, ``tau`` (one stage per row, in order),
-  ``fet.soa.curves`` with columns ``board``, ``rail``, ``t_pulse``, ``v_ds``, ``i_d`` (one point
-  per row; the rows of one pulse width make its curve, curves and points in the order of the
-  sheet; ``DC`` or a blank pulse width is the DC curve), ``fet.rds_on_curve`` with columns
-  ``board``, ``rail``, ``tj``, ``ratio`` and ``switch.foldback`` with columns ``board``,
-  ``rail``, ``v_ds``, ``i_limit`` (one point per row, in order);
+  ``fet.zth_points`` with columns ``board``, ``rail``, ``t``, ``zth``, ``fet.soa.curves`` with
+  columns ``board``, ``rail``, ``t_pulse``, ``v_ds``, ``i_d`` (one point per row; the rows of one
+  pulse width make its curve, curves and points in the order of the sheet; ``DC`` or a blank
+  pulse width is the DC curve), ``fet.rds_on_curve`` with columns ``board``, ``rail``, ``tj``,
+  ``ratio`` and ``switch.foldback`` with columns ``board``, ``rail``, ``v_ds``, ``i_limit`` (one
+  point per row, in order);
 - ``fet.count`` (parallel FETs) is the rail's own figure: it may be given beside a ``part``.
 
 Blank rows and rows whose first cell starts with ``#`` are skipped. The first sheet of a
@@ -55,7 +57,7 @@ __all__ = ["TableRow", "RailTable", "TableInvalid", "read_csv", "read_xlsx", "re
 
 MAX_ROWS = 5000
 META_COLUMNS = ("board", "board_revision", "part", "part_revision")
-LIST_FIELDS = {"fet.zth": ("r", "tau"), "fet.soa.curves": ("t_pulse", "v_ds", "i_d"),
+LIST_FIELDS = {"fet.zth": ("r", "tau"), "fet.zth_points": ("t", "zth"), "fet.soa.curves": ("t_pulse", "v_ds", "i_d"),
                "fet.rds_on_curve": ("tj", "ratio"), "switch.foldback": ("v_ds", "i_limit")}
 _SECTIONS = ("supply", "path", "load", "switch", "environment")
 _HEADER = re.compile(r"^\s*(?P<name>.*?)\s*(?:\[(?P<unit>[^\]]*)\])?\s*$")
@@ -273,6 +275,8 @@ def _stages(items: list[dict]) -> list[dict[str, Any]]:
 
 def _rds_points(items: list[dict]) -> list[list[Any]]:
     return [[_cell_value(i["tj"], ""), _cell_value(i["ratio"], "")] for i in items]
+def _zth_points(items: list[dict]) -> list[list[Any]]:
+    return [[_cell_value(i["t"], ""), _cell_value(i["zth"], "")] for i in items]
 
 
 def _curves(items: list[dict]) -> list[dict[str, Any]]:
@@ -290,8 +294,8 @@ def _foldback(items: list[dict]) -> list[list[Any]]:
 
 
 def read_xlsx(data: bytes) -> RailTable:
-    """A workbook: the table on its first sheet; Foster stages and SOA curves on sheets ``fet.zth`` and
-    ``fet.soa.curves`` (or as JSON cells of the table)."""
+    """A workbook: the table on its first sheet; Foster stages, Zth points and SOA curves on sheets
+    ``fet.zth``, ``fet.zth_points`` and ``fet.soa.curves`` (or as JSON cells of the table)."""
     try:
         book = load_workbook(io.BytesIO(data), read_only=True, data_only=True)
     except (zipfile.BadZipFile, KeyError, ValueError, OSError) as exc:
@@ -303,8 +307,8 @@ def read_xlsx(data: bytes) -> RailTable:
                  if path in sheets[1:]}
     finally:
         book.close()
-    build = {"fet.zth": _stages, "fet.soa.curves": _curves, "fet.rds_on_curve": _rds_points,
-             "switch.foldback": _foldback}
+    build = {"fet.zth": _stages, "fet.zth_points": _zth_points, "fet.soa.curves": _curves,
+             "fet.rds_on_curve": _rds_points, "switch.foldback": _foldback}
     for path, groups in lists.items():
         for row in table.rows:
             items = groups.get((row.board, row.name))

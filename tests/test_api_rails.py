@@ -84,8 +84,7 @@ BAD_INPUTS = [
     ("load.c_tol", lambda d: d["load"].update(c_tol=1.5), "tolerance"),
     ("load.capacitance", lambda d: d["load"].update(capacitance=1e-3), "not a known field"),
     # Caught by the analysis core's own reading of the document, after the schema:
-    ("fet.soa.curves", lambda d: d["fet"]["soa"]["curves"][3].update(points=[[0.5, 90.0], [30.0, 30.0]]),
-     "more current than a shorter pulse"),
+    ("fet.zth_points[1]", lambda d: d["fet"].update(zth_points=[[1e-3, 0.5], [1e-2, 0.4]]), "must not fall"),
 ]
 
 
@@ -319,11 +318,32 @@ def test_healthz_says_when_the_database_is_unreachable(tmp_path):
     assert r.json()["database"]["reachable"] is False
 
 
-def test_part_with_curves_the_analysis_refuses_is_not_stored(client, people):
+def test_part_with_zth_points_the_analysis_refuses_is_not_stored(client, people):
     h = people.headers("designer")
-    fet = fet_doc("Odd curves")
-    fet["soa"]["curves"][3]["points"] = [[0.5, 90.0], [30.0, 30.0]]  # DC above the 10 ms curve
+    fet = fet_doc("Odd points", zth_points=[[1e-3, 0.5], [1e-2, 0.6], [1e-2, 0.7]])  # t repeats
     r = client.post("/api/v1/parts", json={"document": fet}, headers=h)
     assert r.status_code == 422, r.text
-    assert r.json()["error"]["details"][0]["field"] == "document.soa.curves"
+    assert r.json()["error"]["details"][0]["field"] == "document.zth_points[2]"
     assert client.get("/api/v1/parts", headers=h).json()["total"] == 0
+
+
+def test_crossing_soa_curves_are_stored_with_warnings_naming_them_and_zth_points_round_trip(client, people, board):
+    h = people.headers("designer")
+    fet = fet_doc("Crossing N30", zth_points=[["10 us", 0.02], ["1 ms", 0.3], ["100 ms", 1.1]])
+    fet["soa"]["curves"][3]["points"] = [[0.5, 90.0], [30.0, 30.0]]  # DC above the 1 ms and 10 ms curves
+    part = client.post("/api/v1/parts", json={"document": fet}, headers=h)
+    assert part.status_code == 201, part.text
+    assert part.json()["head"]["document"]["zth_points"][1] == [pytest.approx(1e-3), 0.3]
+    detail = client.get(f"/api/v1/parts/{part.json()['id']}", headers=h).json()
+    assert {w["field"] for w in detail["warnings"]} == {"fet.soa.curves[3]"}
+    assert any("the DC curve allows more current than the shorter 10 ms curve" in w["message"]
+               for w in detail["warnings"])
+    plain = client.post("/api/v1/parts", json={"document": fet_doc("Plain N30")}, headers=h).json()
+    assert client.get(f"/api/v1/parts/{plain['id']}", headers=h).json()["warnings"] == []
+    assert "zth_points" not in plain["head"]["document"]
+    rail = _create(client, people, board, doc=rail_doc(fet=fet)).json()
+    assert [w["field"] for w in rail["warnings"]] == ["fet.soa.curves[3]", "fet.soa.curves[3]"]
+    bad = client.post("/api/v1/parts", json={"document": fet_doc("Bad N30", zth_points=[[1e-3, 0.5], [1e-4, 0.6]])},
+                      headers=h)
+    assert bad.status_code == 422
+    assert bad.json()["error"]["details"][0]["field"] == "document.zth_points[1]"

@@ -201,3 +201,62 @@ def test_parser_knows_every_documented_command():
     for argv in (["serve", "--host", "0.0.0.0", "--port", "9000", "--workers", "2"], ["demo"], ["migrate"],
                  ["user", "add", "x", "--role", "viewer", "--password-stdin"], ["token", "create", "x", "--label", "ci"]):
         assert parser.parse_args(argv).func is not None
+
+
+# --- fit-zth: Foster stages from a Zth curve file, no database ---------------------------------------------
+
+_ZTH_STAGES = [(0.05, 1e-5), (0.3, 3e-4), (0.6, 5e-3), (0.35, 8e-2)]
+
+
+def _zth_csv(tmp_path, header: bool = True):
+    # Source: Zth(t) = sum r_i (1 - exp(-t / tau_i)) of a Foster network (JEDEC JESD51-14, from memory)
+    import math
+
+    lines = ["t, Zth"] if header else []
+    for k in range(37):
+        t = 10 ** (-6 + k / 6)
+        lines.append(f"{t!r}, {sum(r * (1 - math.exp(-t / tau)) for r, tau in _ZTH_STAGES)!r}")
+    path = tmp_path / "zth.csv"
+    path.write_text("\n".join(lines) + "\n")
+    return path
+
+
+def test_fit_zth_prints_the_stages_the_largest_error_and_the_board_stage(tmp_path, capsys):
+    path = _zth_csv(tmp_path)
+    assert main(["fit-zth", str(path), "--stages", "4", "--rth-ja", "40 K/W"]) == 0
+    out = capsys.readouterr().out
+    assert "fitted to 37 Zth points" in out and "Largest error over the points: 0.00%" in out
+    assert "Board stage (mounting): r 38.7 K/W" in out and "tau 10 s (10 s when none is given" in out
+    assert "common practice, no source" in out
+
+
+def test_fit_zth_json_recovers_the_stages_and_reaches_r_th_junction_ambient(tmp_path, capsys):
+    path = _zth_csv(tmp_path, header=False)
+    assert main(["fit-zth", str(path), "--stages", "4", "--rth-ja", "40", "--board-tau", "20 s", "--json"]) == 0
+    data = json.loads(capsys.readouterr().out)
+    for got, (r, tau) in zip(data["stages"], _ZTH_STAGES):
+        assert got["r"] == pytest.approx(r, rel=0.01) and got["tau"] == pytest.approx(tau, rel=0.01)
+    assert data["board_stage"]["tau"] == 20.0 and not data["board_tau_default"]
+    assert sum(s["r"] for s in data["zth"]) == pytest.approx(40.0, rel=1e-12)
+    assert len(data["points"]) == 37 and data["largest_error"] < 0.01
+
+
+@pytest.mark.parametrize("content, extra, words", [
+    ("1e-3, 0.5\n1e-4, 0.6\n1e-2, 0.7\n0.1, 0.8\n", [], "fet.zth_points[1]"),       # t falls
+    ("1e-3, 0.5\n1e-2, 0.4\n0.1, 0.8\n1, 0.9\n", [], "Zth must not fall"),
+    ("1e-3, 0.5\n1e-2\n", [], "line 2: expected two values"),
+    ("1e-3, 0.5\n1e-2, 0.6\n0.1, 0.8\n1, 0.9\n", ["--rth-ja", "0.5"], "fet.rth_ja"),
+    ("1e-3, 0.5\n1e-2, 0.6\n0.1, 0.8\n1, 0.9\n", ["--rth-ja", "forty"], "--rth-ja"),
+])
+def test_fit_zth_bad_input_exits_2_naming_the_field(tmp_path, capsys, content, extra, words):
+    path = tmp_path / "bad.csv"
+    path.write_text(content)
+    args = ["fit-zth", str(path), "--stages", "2", *(extra or ["--rth-ja", "40"])]
+    assert main(args) == EXIT_BAD_INPUT
+    assert words in capsys.readouterr().err
+
+
+def test_fit_zth_takes_2_to_6_stages():
+    with pytest.raises(SystemExit):
+        build_parser().parse_args(["fit-zth", "x.csv", "--stages", "7", "--rth-ja", "40"])
+    assert build_parser().parse_args(["fit-zth", "x.csv", "--stages", "6", "--rth-ja", "40"]).stages == 6

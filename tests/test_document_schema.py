@@ -116,11 +116,18 @@ BAD = [
     ("fet.soa.curves[1].points[1]", [0.0, 10.0], f"{_CURVES}[1].points[1]"),
     ("fet.soa.curves[1].points[1]", [5.0, -1.0], f"{_CURVES}[1].points[1]"),
     ("fet.soa.curves[2].points", [[5.0, 10.0], [2.0, 5.0]], f"{_CURVES}[2].points[1]"),  # V_DS falls
-    ("fet.soa.curves[2].points", [[1.0, 10.0], [5.0, 20.0]], f"{_CURVES}[2].points[1]"),  # I_D rises
     ("fet.soa.curves[0].points[0]", [1.0, 2.0, 3.0], f"{_CURVES}[0].points[0]"),
     ("fet.soa.curves[0].points[0]", [1.0, "x"], f"{_CURVES}[0].points[0]"),
-    ("fet.soa.curves[3].points", [[0.5, 90.0], [30.0, 30.0]], _CURVES),  # DC above 10 ms
     ("fet.soa.curves[0].width", 1.0, f"{_CURVES}[0].width"),
+    ("fet.zth_points", [[1e-3, 0.5]], "fet.zth_points"),           # one point
+    ("fet.zth_points", "1 ms, 0.5", "fet.zth_points"),
+    ("fet.zth_points", [[1e-3, 0.5], [1e-3, 0.6]], "fet.zth_points[1]"),   # t repeats
+    ("fet.zth_points", [[1e-3, 0.5], [1e-4, 0.6]], "fet.zth_points[1]"),   # t falls
+    ("fet.zth_points", [[1e-3, 0.5], [1e-2, 0.4]], "fet.zth_points[1]"),   # Zth falls
+    ("fet.zth_points", [[0.0, 0.5], [1e-2, 0.6]], "fet.zth_points[0]"),    # t = 0 (log axes)
+    ("fet.zth_points", [[1e-3, -0.5], [1e-2, 0.6]], "fet.zth_points[0]"),
+    ("fet.zth_points", [[1e-3, 0.5, 1.0], [1e-2, 0.6]], "fet.zth_points[0]"),
+    ("fet.zth_points", [[1e-3, 0.5], [1e-2, "x"]], "fet.zth_points[1]"),
     ("environment", _DELETE, "environment"),                   # no ambient of our own
     ("environment.t_ambient", None, "environment.t_ambient"),
     ("rules.soa_margin", 0.9, "rules.soa_margin"),
@@ -158,6 +165,33 @@ def test_schema_and_reader_refuse_the_same_document_on_the_same_field(path, valu
     if title is not None and "[" not in field:
         assert by_schema.value.errors[0].title == title.title
     assert str(by_reader.value).startswith(by_reader.value.title)
+
+
+# Curves read off a chart that cross or rise are read (the analysis takes their conservative envelope and
+# says where, `soa.soa_curve_warnings`): not bad input.
+READ_WITH_A_NOTE = [
+    ("fet.soa.curves[2].points", [[1.0, 60.0], [5.0, 70.0]], f"{_CURVES}[2].points[1]"),  # I_D rises
+    ("fet.soa.curves[3].points", [[0.5, 90.0], [30.0, 30.0]], f"{_CURVES}[3]"),  # DC above 10 ms
+]
+
+
+@pytest.mark.parametrize("path, value, field", READ_WITH_A_NOTE, ids=[p for p, _, _ in READ_WITH_A_NOTE])
+def test_crossing_or_rising_curves_are_read_by_both_with_a_warning_naming_the_curve(path, value, field):
+    from server.analysis.soa import soa_curve_warnings
+
+    doc = normalize(parse_rail_document(_bad(path, value)))
+    read_rail(doc)
+    warnings = soa_curve_warnings(doc["fet"])
+    assert {w[0] for w in warnings} == {field}
+    assert all(("the 10 ms curve" if "[2]" in field else "the DC curve") in message for _, message in warnings)
+
+
+def test_zth_points_are_optional_and_left_out_of_the_canonical_form_when_absent():
+    doc = _si_doc()
+    assert "zth_points" not in doc["fet"]  # the canonical form (and sha256) of older documents is unchanged
+    with_points = normalize(parse_rail_document(rail_doc(fet=fet_doc(zth_points=[["10 us", 0.02], ["1 ms", "0.3"]]))))
+    assert with_points["fet"]["zth_points"] == [[pytest.approx(1e-5), 0.02], [pytest.approx(1e-3), 0.3]]
+    assert "zth_points" not in parse_fet(fet_doc()).model_dump(mode="json", exclude_none=True)
 
 
 def test_a_message_names_the_field_in_words_then_by_path_with_units():

@@ -159,6 +159,18 @@ def test_list_fields_as_json_cells_or_as_sheets_of_their_own_read_the_same():
     assert bad_json.errors[0]["field"] == "fet.soa.curves" and "is not JSON" in bad_json.errors[0]["message"]
 
 
+def test_zth_points_as_a_json_cell_or_a_sheet_of_their_own_read_the_same():
+    points = [["10us", 0.02], ["1ms", 0.3], [0.1, 1.1]]
+    cell = read_csv(_csv([_row("V_PUMP") + [json.dumps(points)]], HEADER + ["fet.zth_points"])).rows[0]
+    sheet = read_xlsx(_xlsx([_row("V_PUMP")], HEADER, {"fet.zth_points": [["board", "rail", "t", "zth"]] + [
+        ["Main", "V_PUMP", t, z] for t, z in points]})).rows[0]
+    docs = [normalize(parse_rail_document(r.document)) for r in (cell, sheet)]
+    assert docs[0]["fet"]["zth_points"] == docs[1]["fet"]["zth_points"]
+    assert docs[0]["fet"]["zth_points"] == [[pytest.approx(1e-5), 0.02], [pytest.approx(1e-3), 0.3], [0.1, 1.1]]
+    assert "fet.zth_points" in columns()
+    assert "zth_points" not in normalize(parse_rail_document(read_csv(_csv([_row("V_PUMP")])).rows[0].document))["fet"]
+
+
 def test_the_column_set_units_titles_and_what_cannot_be_read():
     template = read_csv(template_csv()).rows[0]
     doc = normalize(parse_rail_document(template.document))

@@ -11,13 +11,19 @@ from sqlalchemy import func, select
 from server import transfer
 from server.bundle import BUNDLE_SCHEMA
 from server.db import make_engine, make_sessionmaker
-from server.demo import FETS, seed
+from server.demo import BOARDS, FETS, seed
 from server.models import Part, Product, Rail, RailRevision
 from server.schemas.rail import document_sha256
 from server.services import parts, rail_edits, rails, users
 from server.services.access import Actor
 from server.services.errors import Conflict, Invalid
 from tests.conftest import make_settings
+
+DEMO_RAILS = sum(len(rails) for _, _, rails in BOARDS)  # the demo's one product holds every board
+
+
+def _board_size(rail_name: str) -> int:
+    return next(len(rails) for _, _, rails in BOARDS if rail_name in {doc["name"] for doc, _ in rails})
 
 SYSTEM = Actor.system("transfer-tests")
 
@@ -60,7 +66,7 @@ def test_export_carries_the_part_and_the_revision_of_every_rail(session_factory)
         pinned = {name: rails.part_status(s, head) for name, head in heads.items()}
     assert bundle["schema"] == BUNDLE_SCHEMA
     entries = [e for board in bundle["boards"] for e in board["rails"]]
-    assert len(entries) == len(heads) == 12
+    assert len(entries) == len(heads) == DEMO_RAILS
     for entry in entries:
         name = entry["document"]["name"]
         assert entry["exported_from"] == {"revision": heads[name].n, "sha256": heads[name].sha256}
@@ -82,7 +88,8 @@ def test_demo_round_trip_makes_no_revision_and_keeps_every_part_link(session_fac
     for data in files:
         with session_factory() as s:
             reports.append(transfer.import_data(session=s, actor=SYSTEM, data=data))
-    assert [r.counts()["unchanged"] for r in reports] == [4, 4, 4, 12] + [1] * 12
+    per_board = [len(rails) for _, _, rails in BOARDS]  # the demo's one product holds every board
+    assert [r.counts()["unchanged"] for r in reports] == per_board + [sum(per_board)] + [1] * sum(per_board)
     assert all(r.created == r.updated == 0 and not r.not_linked for r in reports)
     assert all(r.linked == r.unchanged for r in reports)
     with session_factory() as s:
@@ -103,7 +110,7 @@ def test_an_edited_rail_in_the_file_makes_one_revision_and_keeps_its_part(sessio
     with session_factory() as s:
         report = transfer.import_data(session=s, actor=SYSTEM, data=data, message="smaller bulk capacitor")
         head = _heads(s)["SOM_12V"]
-    assert report.counts() == {"created": 0, "updated": 1, "unchanged": 3}
+    assert report.counts() == {"created": 0, "updated": 1, "unchanged": _board_size("SOM_12V") - 1}
     assert head.n == 2 and head.document["load"]["c_nom"] == 560e-6
     assert head.part_revision_id == part_before
     assert head.message == "smaller bulk capacitor"
@@ -136,8 +143,8 @@ def test_into_another_installation_with_the_parts_relinks_them_by_name_and_revis
         for fet in FETS:
             parts.create_part(session=s, actor=SYSTEM, document=fet)
         report = transfer.import_data(session=s, actor=SYSTEM, data=demo_bundle, team="elsewhere")
-        assert report.counts() == {"created": 12, "updated": 0, "unchanged": 0}
-        assert report.linked == 12 and report.not_linked == []
+        assert report.counts() == {"created": DEMO_RAILS, "updated": 0, "unchanged": 0}
+        assert report.linked == DEMO_RAILS and report.not_linked == []
         heads = _heads(s)
         linked = {name: rails.part_status(s, h) for name, h in heads.items()}
         again = transfer.import_data(session=s, actor=SYSTEM, data=demo_bundle)
@@ -146,7 +153,7 @@ def test_into_another_installation_with_the_parts_relinks_them_by_name_and_revis
         assert head.sha256 == entries[name]["exported_from"]["sha256"]
         assert linked[name]["name"] == entries[name]["part"]["name"]
         assert linked[name]["pinned_revision"] == entries[name]["part"]["revision"]
-    assert again.counts() == {"created": 0, "updated": 0, "unchanged": 12} and again.linked == 12
+    assert again.counts() == {"created": 0, "updated": 0, "unchanged": DEMO_RAILS} and again.linked == DEMO_RAILS
 
 
 def test_into_another_installation_without_the_parts_says_which_and_keeps_the_fets(session_factory, demo_bundle):
@@ -159,11 +166,11 @@ def test_into_another_installation_without_the_parts_says_which_and_keeps_the_fe
         heads = _heads(s)
     assert "nothing was imported" in refused.value.message
     assert "part 'BW-N30L5 (demo)' revision 1 is not in this library" in refused.value.message
-    assert report.counts()["created"] == 12 and report.linked == 0
+    assert report.counts()["created"] == DEMO_RAILS and report.linked == 0
     missing = {n.part.name for n in report.not_linked}
-    assert missing == {fet["name"] for fet in FETS}
+    assert missing == {FETS[part]["name"] for _, _, rails in BOARDS for _, part in rails}  # the parts the rails use
     lines = report.lines()
-    assert lines[1] == "0 of 12 rails linked to a library part"
+    assert lines[1] == f"0 of {DEMO_RAILS} rails linked to a library part"
     assert any(line.startswith("not linked: part 'BW-N100H26 (demo)' revision 1 is not in this library. These rails "
                                "use the FET in their own document, not a library part: VIN_24V_HOTSWAP on Power "
                                "entry B") for line in lines)
@@ -195,7 +202,7 @@ def test_a_part_that_differs_here_is_not_linked_and_says_so(session_factory, dem
         report = transfer.import_data(session=s, actor=SYSTEM, data=moved)
         head = _heads(s)["VIN_24V_HOTSWAP"]
         status = rails.part_status(s, head)
-    assert report.counts() == {"created": 0, "updated": 1, "unchanged": 11}  # only the link changes
+    assert report.counts() == {"created": 0, "updated": 1, "unchanged": DEMO_RAILS - 1}  # only the link changes
     assert head.n == 2 and status["name"] == FETS[2]["name"] and status["pinned_revision"] == 2
     assert FETS[2]["name"] not in {n.part.name for n in report.not_linked}
     assert {n.reason for n in report.not_linked} == {"differs here from the FET in the file"}

@@ -25,12 +25,13 @@ text of a name             NAME_MAX_LENGTH characters, no control characters    
 SOA curves                 at most MAX_SOA_CURVES (20)                          refused
 points of one SOA curve    at most MAX_SOA_POINTS (100)                         refused
 Foster stages (zth)        at most MAX_FOSTER_STAGES (12)                       refused
+Zth curve points           at most MAX_ZTH_POINTS (200)                         refused
 numbers of a quantity      outside PLAUSIBLE[kind]                              warned
 =========================  ===================================================  ==========
 
 Provides :data:`NUMBER_LARGEST`, :data:`NUMBER_SMALLEST`, :func:`magnitude_problem`,
 :func:`text_problem`, :data:`NAME_MAX_LENGTH`, :data:`MAX_SOA_CURVES`, :data:`MAX_SOA_POINTS`,
-:data:`MAX_FOSTER_STAGES`, :data:`PLAUSIBLE`, :func:`plausibility_problem`, :func:`plausibility_warnings`.
+:data:`MAX_FOSTER_STAGES`, :data:`MAX_ZTH_POINTS`, :data:`PLAUSIBLE`, :func:`plausibility_problem`, :func:`plausibility_warnings`.
 """
 
 from __future__ import annotations
@@ -44,7 +45,8 @@ from .words import FIELD_TITLES, generic_path
 
 __all__ = ["NUMBER_LARGEST", "NUMBER_SMALLEST", "COMPUTABLE", "magnitude_problem", "CONTROL_CHARACTERS",
            "LINE_CONTROL_CHARACTERS", "text_problem", "NAME_MAX_LENGTH", "MAX_SOA_CURVES", "MAX_SOA_POINTS",
-           "MAX_FOSTER_STAGES", "MAX_RETRIES", "PLAUSIBLE", "plausibility_problem", "plausibility_warnings"]
+           "MAX_FOSTER_STAGES", "MAX_RETRIES", "MAX_ZTH_POINTS", "PLAUSIBLE", "plausibility_problem",
+           "plausibility_warnings"]
 
 NUMBER_LARGEST = 1e30
 NUMBER_SMALLEST = 0.0  # a tiny value (1e-300 H) computes as the zero it nearly is
@@ -62,6 +64,7 @@ MAX_SOA_CURVES = 20
 MAX_SOA_POINTS = 100
 MAX_FOSTER_STAGES = 12
 MAX_RETRIES = 1000  # retries before latching: the pulse train is summed in closed form, the bound keeps it a count
+MAX_ZTH_POINTS = 200  # points of a Zth curve (fet.zth_points)
 
 # Characters no text holds: C0 controls but tab, line feed and carriage return, DEL, and lone
 # surrogates (not encodable as UTF-8). A one-line text (a name) refuses tab and line breaks too.
@@ -140,6 +143,12 @@ def plausibility_problem(value: float, kind: str | None) -> str | None:
             "it is analysed as given: check the unit prefix")
 
 
+# the two numbers of a point of a curve: (name, unit kind) each
+_PAIRS = {"fet.soa.curves[].points[]": (("V_DS", "V"), ("I_D", "A")),
+          "fet.zth_points[]": (("t", "s"), ("Zth", "K/W")),
+          "switch.foldback[]": (("V_DS", "V"), ("I_D", "A"))}
+
+
 def plausibility_warnings(document: dict[str, Any]) -> list[tuple[str, str]]:
     """Every computable but implausible number of a valid rail document (SI, normalised), as
     ``(path, sentence)`` pairs in document order; empty when every value is in its usual range."""
@@ -151,8 +160,9 @@ def plausibility_warnings(document: dict[str, Any]) -> list[tuple[str, str]]:
                 walk(item, f"{path}.{key}" if path else str(key))
         elif isinstance(value, list):
             generic = generic_path(path)
-            if generic in ("fet.soa.curves[].points[]", "switch.foldback[]") and len(value) == 2:
-                for number, kind, what in ((value[0], "V", "V_DS"), (value[1], "A", "I_D")):
+            pair = _PAIRS.get(generic)
+            if pair is not None and len(value) == 2:
+                for number, (what, kind) in zip(value, pair):
                     if isinstance(number, (int, float)) and (problem := plausibility_problem(number, kind)):
                         out.append((path, f"{what}: {problem}"))
                 return

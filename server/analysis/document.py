@@ -6,6 +6,8 @@ read_rail(doc, team_rules=None)
     Validate a rail document (a JSON-like dict in SI units) and return a `Rail`.
 read_fet(fet)
     Validate a MOSFET on its own (a part library entry: the rail document's ``fet``).
+read_zth_points(points)
+    Validate the points of a transient thermal impedance curve (``fet.zth_points``).
 DEFAULTS, OPTIONAL, BOUNDS, Bound, FIELD_KEYS, NAME_MAX_LENGTH, LOAD_MODELS, SWITCH_MODES, AFTER_FAULT
     The defaults, the optional fields, the bounds, the keys of each object and the choices of
     the document: the web schema (``server.schemas.rail``) imports them and checks only shape
@@ -20,12 +22,18 @@ engineering notation ("680uF") is the web schema's job.
 
 Refuses only what cannot be computed: shape (required fields, known keys, choices, numbers),
 non-physical values (zero or negative capacitance, a tolerance of 100 % or more, v_min above
-v_max, SOA points that are not positive or not ordered, fewer than two pulse widths, a longer
-pulse allowing more than a shorter one, tj_max not above the ambient or the SOA case
-temperature), a constant-power load with v_on = 0 (it would draw infinite current), and a
+v_max, SOA points that are not positive or whose V_DS does not rise, fewer than two pulse
+widths, tj_max not above the ambient or the SOA case temperature, Zth points that are not
+positive, not ordered in time or falling), a constant-power load with v_on = 0 (it would draw infinite current), and a
 mode without its parameter. A design that cannot work (a load turning on at or above the
 supply minimum, an upstream UVLO at or above it, a current limit below the load current) is
-read and analysed: its checks fail with the reason.
+read and analysed: its checks fail with the reason. SOA curves as read off a chart may cross (a
+longer pulse allowing more current than a shorter one somewhere) or rise with V_DS: they are
+read, and the analysis uses their conservative envelope (`soa.soa_envelope_notes` says where).
+
+``fet.zth_points`` (optional, [[t s, Zth K/W], ...]) are the points of the datasheet's
+single-pulse transient thermal impedance curve that the Foster stages ``fet.zth`` were fitted
+to (`zth_fit`): provenance only, the analysis uses the stages.
 
 ``supply.uvlo_filter`` (s, optional) is the upstream UVLO's deglitch time from its
 datasheet: the UVLO trips only when the switch input stays below it continuously for that
@@ -64,8 +72,8 @@ from typing import Any
 
 import numpy as np
 
-from .bounds import (MAX_FOSTER_STAGES, MAX_RETRIES, MAX_SOA_CURVES, MAX_SOA_POINTS, NAME_MAX_LENGTH, NUMBER_LARGEST,
-                     magnitude_problem, text_problem)
+from .bounds import (MAX_FOSTER_STAGES, MAX_RETRIES, MAX_SOA_CURVES, MAX_SOA_POINTS, MAX_ZTH_POINTS, NAME_MAX_LENGTH,
+                     NUMBER_LARGEST, magnitude_problem, text_problem)
 
 MAX_PARALLEL_FETS = 64  # fet.count: more parallel FETs than this are not read
 MAX_RDS_POINTS = MAX_SOA_POINTS  # fet.rds_on_curve: at most this many points
@@ -98,6 +106,7 @@ __all__ = [
     "Rail",
     "read_rail",
     "read_fet",
+    "read_zth_points",
 ]
 
 SCHEMA = "railsign.rail/1"
@@ -139,7 +148,7 @@ OPTIONAL: frozenset[str] = frozenset({
     "switch.timer.retries", "switch.loop_response", "switch.fast_trip", "switch.fast_trip_delay",
     "fet.id_pulse_max", "fet.e_avalanche", "fet.soa.curves[].t_pulse", "fet.rds_on_max", "fet.rds_on_curve",
     "switch.foldback", "switch.gate", "switch.gate.i_gate", "switch.gate.v_drive", "switch.gate.r_gate",
-    "fet.gate", "fet.gate.k", "fet.gate.g_fs", "fet.gate.i_gfs",
+    "fet.gate", "fet.gate.k", "fet.gate.g_fs", "fet.gate.i_gfs", "fet.zth_points",
     *(f"rules.{k}" for k in DEFAULT_RULES),
 })
 
@@ -225,8 +234,8 @@ FIELD_KEYS: dict[str, tuple[str, ...]] = {
     "switch.gate": ("drive", "i_gate", "v_drive", "r_gate", "c_ext"),
     "switch.timer": ("c", "c_tol", "i_charge", "i_charge_tol", "v_trip", "v_trip_tol", "after_fault", "retry_off",
                      "retries"),
-    "fet": ("name", "vds_max", "id_pulse_max", "rds_on", "rds_on_alpha", "tj_max", "rth_ja", "zth", "soa",
-            "e_avalanche", "rds_on_max", "rds_on_curve", "count", "gate"),
+    "fet": ("name", "vds_max", "id_pulse_max", "rds_on", "rds_on_alpha", "tj_max", "rth_ja", "zth", "zth_points",
+            "soa", "e_avalanche", "rds_on_max", "rds_on_curve", "count", "gate"),
     "fet.gate": ("v_th", "k", "g_fs", "i_gfs", "c_iss", "c_rss"),
     "fet.zth[]": ("r", "tau"),
     "fet.soa": ("t_case", "curves"),
@@ -329,7 +338,7 @@ class Switch:
 @dataclass(frozen=True)
 class SoaCurve:
     t_pulse: float | None  # seconds; None = DC
-    points: tuple[tuple[float, float], ...]  # (vds V, id A), vds strictly increasing
+    points: tuple[tuple[float, float], ...]  # (vds V, id A) as given, vds strictly increasing
 
 
 @dataclass(frozen=True)
@@ -658,7 +667,8 @@ def _read_fet_gate(r: _Reader, sec: dict) -> FetGate | None:
 
 def _read_points(r: _Reader, points: Any, where: str) -> tuple[tuple[float, float], ...] | None:
     """A curve's [V_DS, I_D] points: every malformed point is reported; then the first point that is
-    not positive or out of order (a later one would only repeat the problem)."""
+    not positive or whose V_DS does not rise (a later one would only repeat the problem). I_D rising
+    with V_DS is read (the analysis takes the running minimum, and says so)."""
     field = f"{where}.points"
     if not isinstance(points, list) or len(points) < 2:
         r.fail(field, "needs at least two [V_DS, I_D] points")
@@ -685,9 +695,6 @@ def _read_points(r: _Reader, points: Any, where: str) -> tuple[tuple[float, floa
             return None
         if parsed and v <= parsed[-1][0]:
             r.fail(pw, f"V_DS must increase from point to point ({v:g} V follows {parsed[-1][0]:g} V)")
-            return None
-        if parsed and i > parsed[-1][1]:
-            r.fail(pw, f"I_D must not rise with V_DS ({i:g} A follows {parsed[-1][1]:g} A)")
             return None
         parsed.append((v, i))
     return tuple(parsed)
@@ -731,31 +738,7 @@ def _read_curves(r: _Reader, soa: dict) -> tuple[SoaCurve, ...] | None:
     if not complete or len(out) < 2:
         return None
     out.sort(key=lambda c: math.inf if c.t_pulse is None else c.t_pulse)
-    _check_curve_order(r, out)
     return tuple(out)
-
-
-def _check_curve_order(r: _Reader, curves: list[SoaCurve]) -> None:
-    """A longer pulse must not allow more current than a shorter one at any vds."""
-    vs = sorted({v for c in curves for v, _ in c.points})
-    x = np.log(vs)
-    prev = prev_curve = None
-    for c in curves:
-        # the current the curve allows at each vs: log-log interpolation, 0 beyond its
-        # last point (as the SOA reading of `soa` does)
-        pts = np.log(np.asarray(c.points, dtype=float))
-        cur = np.where(x > pts[-1, 0] * (1 + 1e-12) + 1e-12, 0.0, np.exp(np.interp(x, pts[:, 0], pts[:, 1])))
-        cur = cur.tolist()
-        if prev is not None:
-            v_end = prev_curve.points[-1][0]  # compare where the shorter pulse is drawn
-            for v, a, b in zip(vs, prev, cur):
-                if v <= v_end and b > a * (1.0 + 1e-9):
-                    label = "DC" if c.t_pulse is None else quantity(c.t_pulse, "s")
-                    shorter = quantity(prev_curve.t_pulse, "s")
-                    r.fail("fet.soa.curves", f"the {label} curve allows more current than a shorter pulse "
-                                             f"({shorter}) at {v:g} V: a longer pulse never allows more")
-                    return
-        prev, prev_curve = cur, c
 
 
 def _read_zth(r: _Reader, sec: dict) -> tuple[tuple[float, float], ...] | None:
@@ -776,6 +759,57 @@ def _read_zth(r: _Reader, sec: dict) -> tuple[tuple[float, float], ...] | None:
     return tuple(stages)
 
 
+def _read_zth_points(r: _Reader, points: Any, field: str = "fet.zth_points") -> tuple[tuple[float, float], ...] | None:
+    """The [t, Zth] points of a single-pulse Zth curve: every malformed point is reported; then the
+    first point that is not positive, not later than the one before, or below it."""
+    if not isinstance(points, list) or len(points) < 2:
+        r.fail(field, "needs at least two [t, Zth] points (t in s, Zth in K/W)")
+        return None
+    if len(points) > MAX_ZTH_POINTS:
+        r.fail(field, f"has {len(points)} points; at most {MAX_ZTH_POINTS} are read")
+        return None
+    well_formed = True
+    for j, p in enumerate(points):
+        if not isinstance(p, (list, tuple)) or len(p) != 2:
+            r.fail(f"{field}[{j}]", "must be a [t, Zth] pair")
+            well_formed = False
+        elif not all(_is_number(q) and magnitude_problem(q) is None for q in p):
+            r.fail(f"{field}[{j}]",
+                   f"must hold two finite numbers of at most {NUMBER_LARGEST:g}: t in s and Zth in K/W")
+            well_formed = False
+    if not well_formed:
+        return None
+    parsed: list[tuple[float, float]] = []
+    for j, (t, z) in enumerate((float(a), float(b)) for a, b in points):
+        pw = f"{field}[{j}]"
+        if t <= 0.0 or z <= 0.0:
+            r.fail(pw, f"t and Zth must be positive, the curve is drawn on log-log axes "
+                       f"(got {quantity(t, 's')}, {z:g} K/W)")
+            return None
+        if parsed and t <= parsed[-1][0]:
+            r.fail(pw, f"t must increase from point to point ({quantity(t, 's')} follows "
+                       f"{quantity(parsed[-1][0], 's')})")
+            return None
+        if parsed and z < parsed[-1][1]:
+            r.fail(pw, f"Zth must not fall as the pulse gets longer ({z:g} K/W follows {parsed[-1][1]:g} K/W): "
+                       "a single-pulse Zth curve only rises")
+            return None
+        parsed.append((t, z))
+    return tuple(parsed)
+
+
+def read_zth_points(points: Any) -> tuple[tuple[float, float], ...]:
+    """Validate the points of a single-pulse Zth curve (``fet.zth_points``): [[t s, Zth K/W], ...].
+
+    At least two, positive, t strictly increasing, Zth not falling; raises `DocumentError`
+    naming the field (every problem in ``.errors``). Returns the points as float pairs.
+    """
+    r = _Reader()
+    pts = _read_zth_points(r, points)
+    r.raise_errors()
+    return pts
+
+
 def _read_fet_section(r: _Reader, doc: dict, t_ambient: float | None) -> Fet | None:
     sec = r.obj(doc, "fet", "")
     if sec is None:
@@ -789,6 +823,8 @@ def _read_fet_section(r: _Reader, doc: dict, t_ambient: float | None) -> Fet | N
                                                        "e_avalanche")}
     values.update(_read_rds_spread(r, sec, values["rds_on"]))
     zth = _read_zth(r, sec)
+    if sec.get("zth_points") is not None:  # provenance of the stages: checked, not analysed
+        _read_zth_points(r, sec["zth_points"])
     soa = r.obj(sec, "soa", w)
     t_case = curves = None
     if soa is not None:

@@ -144,6 +144,10 @@ FIELD_TITLES: dict[str, FieldWords] = {
     "fet.gate.i_gfs": W("Drain current of the transconductance", "A", "the I_D the datasheet states g_fs at"),
     "fet.gate.c_iss": W("MOSFET input capacitance", "F", "C_iss = C_gs + C_gd"),
     "fet.gate.c_rss": W("MOSFET reverse transfer capacitance", "F", "C_rss = C_gd, gate to drain"),
+    "fet.zth_points": W("Zth curve points the Foster stages were fitted to", None,
+                        "the datasheet's single-pulse Zth curve (junction to case) as [t (s), Zth (K/W)] points, "
+                        "t rising; kept with the stages, the analysis uses the stages; blank: none"),
+    "fet.zth_points[]": W("Zth curve point {0}", None, "[t (s), Zth (K/W)]"),
     "fet.soa": W("MOSFET SOA", None, "the safe operating area chart"),
     "fet.soa.t_case": W("Case temperature of the SOA curves", "degC", "the case temperature the chart is drawn at"),
     "fet.soa.curves": W("MOSFET SOA curves", None, "one curve per pulse width, at least two; null pulse width: DC"),

@@ -37,6 +37,7 @@ def get_part(part_id: IdPath, session: SessionDep, actor: CurrentActor) -> dict:
     head = parts.get_part_revision(session=session, actor=actor, part_id=part_id)
     out = parts.part_dict(part, head)
     out["used_by"] = parts.part_usage(session=session, actor=actor, part_id=part_id)
+    out["warnings"] = parts.soa_warnings(head.document)
     return out
 
 

@@ -3,10 +3,10 @@
 Pure functions over plain dicts. An SOA curve is one pulse width and a block of pasted
 points, one "V_ds, I_d" pair per line (comma, semicolon, tab or spaces between the two;
 a header line and lines starting with # are skipped). Foster stages are pasted the same
-way, one "r, tau" pair per line, and so is the normalised R_DS(on) curve over temperature,
-one "T_j, ratio" pair per line (blank: the linear coefficient). Values may carry units
-("12 V", "20 us"). The number of parallel FETs is the rail's, not the part's: it is on the
-rail form.
+way, one "r, tau" pair per line, and so are the points of the Zth curve the stages were fitted
+to, one "t, Zth" pair per line, and the normalised R_DS(on) curve over temperature, one
+"T_j, ratio" pair per line (blank: the linear coefficient). Values may carry units ("12 V",
+"20 us"). The number of parallel FETs is the rail's, not the part's: it is on the rail form.
 
 Provides :data:`PART_FIELDS`, :func:`parse_pairs`, :func:`document_from_part_form`,
 :func:`part_form_from_document`, :func:`curve_slots`.
@@ -21,7 +21,8 @@ from server.analysis.words import field_title
 from server.pages.forms import FormField, form_value, place_errors, titled_field
 
 __all__ = ["PART_FIELDS", "parse_pairs", "document_from_part_form", "part_form_from_document", "curve_slots",
-           "part_errors", "part_field_titles", "ZTH_FIELD", "RDS_CURVE_FIELD", "EMPTY_CURVES"]
+           "part_errors", "part_field_titles", "ZTH_FIELD", "ZTH_POINTS_FIELD", "RDS_CURVE_FIELD", "FIT_FIELDS",
+           "FIT_STAGES_DEFAULT", "EMPTY_CURVES", "stage_lines"]
 
 def _fet_field(name: str, *, required: bool = False, example: str = "") -> FormField:
     """A field of the part form: ``name`` is its path in the part (``fet``) document."""
@@ -49,6 +50,10 @@ PART_FIELDS = [
 ]
 ZTH_FIELD = "zth"
 RDS_CURVE_FIELD = "rds_on_curve"
+ZTH_POINTS_FIELD = "zth_points"
+# the choices of a fit (not stored in the part): number of stages, time constant of the board stage
+FIT_FIELDS = {"fit_stages": "Number of Foster stages to fit", "fit_board_tau": "Time constant of the board stage"}
+FIT_STAGES_DEFAULT = "4"
 EMPTY_CURVES = ["100 µs", "1 ms", "10 ms", "DC"]
 _SPLIT = re.compile(r"\s*[,;\t]\s*")
 _COMMENT = "#"
@@ -60,9 +65,9 @@ def _curve_name(k: int, part: str) -> str:
 
 def part_field_titles(slots: list[int]) -> dict[str, str]:
     """Every field of the part form (its path in the part document) -> its title."""
-    names = [f.name for f in PART_FIELDS] + [ZTH_FIELD, RDS_CURVE_FIELD, "soa.curves"] + [
+    names = [f.name for f in PART_FIELDS] + [ZTH_FIELD, ZTH_POINTS_FIELD, RDS_CURVE_FIELD, "soa.curves"] + [
         _curve_name(k, p) for k in slots for p in ("t_pulse", "points")]
-    return {name: field_title(f"fet.{name}") for name in names}
+    return {name: field_title(f"fet.{name}") for name in names} | FIT_FIELDS
 
 
 def parse_pairs(text: str) -> tuple[list[tuple[str, str, int]], list[str]]:
@@ -117,7 +122,13 @@ def document_from_part_form(form: dict[str, str]) -> tuple[dict[str, Any], dict[
     if problems:
         errors[ZTH_FIELD] = "; ".join(problems)
     doc["zth"] = [{"r": a, "tau": b} for a, b, _ in pairs]
-    mapping: dict[str, Any] = {"curves": {}, "zth_lines": [n for _, _, n in pairs], "points_lines": {}}
+    points, problems = parse_pairs(form.get(ZTH_POINTS_FIELD, ""))
+    if problems:
+        errors[ZTH_POINTS_FIELD] = "; ".join(problems)
+    if points:
+        doc["zth_points"] = [[a, b] for a, b, _ in points]
+    mapping: dict[str, Any] = {"curves": {}, "zth_lines": [n for _, _, n in pairs], "points_lines": {},
+                               "zth_points_lines": [n for _, _, n in points]}
     rds_pairs, problems = parse_pairs(form.get(RDS_CURVE_FIELD, ""))
     if problems:
         errors[RDS_CURVE_FIELD] = "; ".join(problems)
@@ -154,6 +165,9 @@ def part_errors(details: list[dict[str, Any]], mapping: dict[str, Any]) -> tuple
             if pm and int(pm.group(1)) < len(lines):
                 message = f"line {lines[int(pm.group(1))]}: {message}"
             path = _curve_name(k, "t_pulse" if rest.startswith(".t_pulse") else "points")
+        path = _zth_points_error(path, message, mapping, fixed)
+        if path is None:
+            continue
         zm = re.match(r"zth\[(\d+)\](.*)", path)
         if zm:
             j = int(zm.group(1))
@@ -167,9 +181,22 @@ def part_errors(details: list[dict[str, Any]], mapping: dict[str, Any]) -> tuple
         if path == "soa.curves" or path == "soa":
             path = "soa.curves"
         fixed.append({"field": path, "message": message})
-    names = [f.name for f in PART_FIELDS] + [ZTH_FIELD, RDS_CURVE_FIELD, "soa.curves"] + [
+    names = [f.name for f in PART_FIELDS] + [ZTH_FIELD, ZTH_POINTS_FIELD, RDS_CURVE_FIELD, "soa.curves", *FIT_FIELDS] + [
         _curve_name(k, p) for k in mapping["curves"].values() for p in ("t_pulse", "points")]
     return place_errors(fixed, names)
+
+
+def _zth_points_error(path: str, message: str, mapping: dict[str, Any], fixed: list[dict]) -> str | None:
+    """An error on a Zth curve point goes to the points' text box, naming its line (None: placed)."""
+    m = re.match(r"zth_points(?:\[(\d+)\])?$", path)
+    if m is None:
+        return path
+    lines = mapping.get("zth_points_lines", [])
+    if m.group(1) is not None:
+        j = int(m.group(1))
+        message = f"line {lines[j] if j < len(lines) else j + 1}: {message}"
+    fixed.append({"field": ZTH_POINTS_FIELD, "message": message})
+    return None
 
 
 def part_form_from_document(doc: dict[str, Any] | None) -> dict[str, str]:
@@ -181,6 +208,8 @@ def part_form_from_document(doc: dict[str, Any] | None) -> dict[str, str]:
             form[_curve_name(k, "points")] = ""
         form[ZTH_FIELD] = ""
         form[RDS_CURVE_FIELD] = ""
+        form[ZTH_POINTS_FIELD] = ""
+        form["fit_stages"] = FIT_STAGES_DEFAULT
         return form
     for f in PART_FIELDS:
         if f.name == "soa.t_case":
@@ -192,6 +221,8 @@ def part_form_from_document(doc: dict[str, Any] | None) -> dict[str, str]:
         form[f.name] = form_value(value, f.kind)
     form[ZTH_FIELD] = "\n".join(f"{form_value(s['r'], 'K/W')}, {form_value(s['tau'], 's')}" for s in doc["zth"])
     form[RDS_CURVE_FIELD] = "\n".join(f"{_num(t)}, {_num(k)}" for t, k in (doc.get("rds_on_curve") or []))
+    form[ZTH_POINTS_FIELD] = "\n".join(f"{_num(t)}, {_num(z)}" for t, z in doc.get("zth_points") or [])
+    form["fit_stages"] = FIT_STAGES_DEFAULT
     for k, c in enumerate(doc["soa"]["curves"]):
         form[_curve_name(k, "t_pulse")] = "DC" if c["t_pulse"] is None else form_value(c["t_pulse"], "s")
         form[_curve_name(k, "points")] = "\n".join(f"{_num(v)}, {_num(i)}" for v, i in c["points"])
@@ -201,3 +232,16 @@ def part_form_from_document(doc: dict[str, Any] | None) -> dict[str, str]:
 def _num(x: float) -> str:
     text = f"{x:.15g}"
     return text if float(text) == x else repr(x)
+
+
+def stage_lines(stages: Any, rth_ja: float | None = None) -> str:
+    """Foster stages as the stages' text box shows them: one "r, tau" line each (SI).
+
+    With ``rth_ja`` (a fit: the last stage is the board stage), the fitted stages are written to six
+    significant digits (a millionth, far below any fit's error, and readable) and the board stage's r
+    is R_th junction-ambient minus their sum as written, so that the stages still sum to it."""
+    stages = [(float(r), float(tau)) for r, tau in stages]
+    if rth_ja is not None:
+        fitted = [(float(f"{r:.6g}"), float(f"{tau:.6g}")) for r, tau in stages[:-1]]
+        stages = fitted + [(rth_ja - sum(r for r, _ in fitted), stages[-1][1])]
+    return "\n".join(f"{_num(r)}, {_num(tau)}" for r, tau in stages)

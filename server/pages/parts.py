@@ -9,17 +9,20 @@ from fastapi.responses import HTMLResponse, Response
 from sqlalchemy.orm import Session
 
 from server.analysis.words import FIELD_TITLES
+from server.analysis.zth_fit import BOARD_TAU_DEFAULT, BOARD_TAU_WORDS, FIT_STAGES, METHOD, zth_deviation
 from server.auth import CurrentActor, require
 from server.db import SessionDep
 from server.pages.display import fmt
-from server.pages.part_forms import (PART_FIELDS, RDS_CURVE_FIELD, ZTH_FIELD, curve_slots, document_from_part_form,
-                                     part_errors, part_field_titles, part_form_from_document)
-from server.pages.plots import part_soa_figure, pulse_label, zth_figure
+from server.pages.part_forms import (FIT_FIELDS, PART_FIELDS, RDS_CURVE_FIELD, ZTH_FIELD, ZTH_POINTS_FIELD,
+                                     curve_slots, document_from_part_form, parse_pairs, part_errors,
+                                     part_field_titles, part_form_from_document, stage_lines)
+from server.pages.plots import part_soa_figure, pulse_label, zth_figure, zth_fit_figure
 from server.pages.rendering import FormDep, form_dict, page_context, redirect, render
 from server.services import overview
 from server.services import parts as part_service
 from server.services.access import Actor, Permission
 from server.services.errors import Conflict, Invalid
+from server.units import UnitError, parse_quantity
 
 router = APIRouter(include_in_schema=False)
 Editor = Annotated[Actor, Depends(require(Permission.EDIT))]
@@ -74,22 +77,37 @@ def part_context(session: Session, actor: Actor, part_id: int, n: int | None = N
     rds_curve = [{"tj": fmt(t, "degC"), "ratio": f"{k:.4g}"} for t, k in (doc.get("rds_on_curve") or [])]
     return {"part": part, "rev": rev, "document": doc, "ratings": ratings, "curves": curves, "stages": stages,
             "rds_curve": rds_curve,
-            "zth_sum": fmt(zsum, "K/W"), "revisions": part_service.list_part_revisions(
-                session=session, actor=actor, part_id=part_id),
+            "zth_sum": fmt(zsum, "K/W"), "zth_points": _zth_points_summary(doc),
+            "soa_envelope": part_service.SOA_ENVELOPE, "soa_warnings": part_service.soa_warnings(doc),
+            "revisions": part_service.list_part_revisions(session=session, actor=actor, part_id=part_id),
             "usage": usage, "usage_total": len(all_usage), "usage_by_revision": sorted(by_revision.items()),
-            "figures": {"soa": part_soa_figure(doc), "zth": zth_figure(doc["zth"])}}
+            "figures": {"soa": part_soa_figure(doc), "zth": zth_figure(doc["zth"], doc.get("zth_points"))}}
+
+
+def _zth_points_summary(doc: dict[str, Any]) -> dict[str, Any] | None:
+    """The Zth points the stages were fitted to, in words: how many, over what time, how close the stages lie."""
+    points = doc.get("zth_points")
+    if not points:
+        return None
+    seen = zth_deviation(doc["zth"], points)
+    return {"n": len(points), "from": fmt(points[0][0], "s"), "to": fmt(points[-1][0], "s"),
+            "below": f"{seen['below']:.1%}", "below_at": fmt(seen["below_at"], "s"),
+            "above": f"{seen['above']:.1%}", "above_at": fmt(seen["above_at"], "s")}
 
 
 def part_form_context(*, values: dict[str, str], errors: dict[str, str], other: list[str], part=None,
-                      base_n: int | None = None, conflict: str | None = None) -> dict[str, Any]:
+                      base_n: int | None = None, conflict: str | None = None,
+                      fit: dict[str, Any] | None = None) -> dict[str, Any]:
     slots = curve_slots(values) or [0]
     return {"part": part, "values": values, "errors": errors, "other_errors": other, "fields": PART_FIELDS,
             "zth_field": ZTH_FIELD, "slots": slots, "base_n": base_n, "conflict": conflict,
             "titles": part_field_titles(slots) | {"message": "What changed and why"},
-            "labels": {f.name: f.html_id for f in PART_FIELDS} | {ZTH_FIELD: "f-zth"} | {
-                RDS_CURVE_FIELD: "f-rds-on-curve"} | {
+            "labels": {f.name: f.html_id for f in PART_FIELDS} | {ZTH_FIELD: "f-zth", ZTH_POINTS_FIELD: "f-zth-points"}
+            | {RDS_CURVE_FIELD: "f-rds-on-curve"} | {name: "f-" + name.replace("_", "-") for name in FIT_FIELDS} | {
                 f"soa.curves[{k}].{p}": f"f-curve-{k}-{p.replace('_', '-')}" for k in slots
                 for p in ("t_pulse", "points")},
+            "fit_stage_choices": FIT_STAGES, "board_tau_default": fmt(BOARD_TAU_DEFAULT, "s"),
+            "board_tau_words": BOARD_TAU_WORDS, "fit": fit,
             "action": f"/parts/{part.id}/edit" if part else "/parts/new"}
 
 
@@ -141,6 +159,82 @@ def submit_part(session: Session, actor: Actor, form: dict[str, str], part_id: i
                                    conflict=conflict)
 
 
+def _fit_inputs(form: dict[str, str]) -> tuple[list, int | None, float | None, float | None, dict[str, str]]:
+    """The points, the number of stages, R_th junction-ambient and the board time constant of a fit request,
+    and the problems found reading them (by form field)."""
+    errors: dict[str, str] = {}
+    points: list = []
+    try:
+        points = part_service.zth_points_from_text(form.get(ZTH_POINTS_FIELD, ""))
+    except Invalid as exc:
+        errors[ZTH_POINTS_FIELD] = exc.details[0]["message"]
+    if not errors and not points:
+        errors[ZTH_POINTS_FIELD] = "paste the Zth curve's points to fit, one “t, Zth” pair a line"
+    n_stages = int(form["fit_stages"]) if form.get("fit_stages", "").strip() in {str(n) for n in FIT_STAGES} else None
+    if n_stages is None:
+        errors["fit_stages"] = f"choose {FIT_STAGES[0]} to {FIT_STAGES[-1]} stages"
+    rth_ja = board_tau = None
+    try:
+        rth_ja = parse_quantity(form.get("rth_ja", "").strip(), "K/W") if form.get("rth_ja", "").strip() else None
+    except UnitError as exc:
+        errors["rth_ja"] = str(exc)
+    if rth_ja is None and "rth_ja" not in errors:
+        errors["rth_ja"] = "is needed to add the board stage: Zth at long times reaches it"
+    try:
+        raw = form.get("fit_board_tau", "").strip()
+        board_tau = parse_quantity(raw, "s") if raw else None
+    except UnitError as exc:
+        errors["fit_board_tau"] = str(exc)
+    return points, n_stages, rth_ja, board_tau, errors
+
+
+def fit_part_form(session: Session, actor: Actor, form: dict[str, str], part_id: int | None = None
+                  ) -> tuple[bool, dict[str, Any]]:
+    """Fit Foster stages to the form's Zth points (nothing is saved): (fitted, the form again).
+
+    On success the stages' text box holds the fitted stages and the board stage, and the form shows the fit
+    over the points with its largest error; saving the form then stores them with the points."""
+    part = part_service.get_part(session=session, actor=actor, part_id=part_id) if part_id else None
+    base_n = int(form["base_revision"]) if form.get("base_revision", "").isdigit() else None
+    points, n_stages, rth_ja, board_tau, errors = _fit_inputs(form)
+    fit = None
+    if not errors:
+        try:
+            fit = part_service.fit_zth_points(points, n_stages, rth_ja, board_tau)
+        except Invalid as exc:
+            lines = [n for _, _, n in parse_pairs(form.get(ZTH_POINTS_FIELD, ""))[0]]
+            errors, _ = part_errors([{"field": d["field"].replace("fit.", "fit_").removeprefix("fet."),
+                                      "message": d["message"]} for d in exc.details],
+                                    {"curves": {}, "zth_lines": [], "points_lines": {}, "zth_points_lines": lines})
+    if fit is None:
+        return False, part_form_context(values=form, errors=errors, other=[], part=part, base_n=base_n)
+    values = {**form, ZTH_FIELD: stage_lines(fit.all_stages, fit.rth_ja)}
+    r_b, tau_b = fit.board
+    shown = {"figure": zth_fit_figure(fit), "n_points": len(fit.points), "n_stages": len(fit.stages),
+             "largest_error": f"{fit.largest_error:.2%}", "at": fmt(fit.largest_error_at, "s"),
+             "fitted_total": fmt(fit.fitted_total, "K/W"), "rth_ja": fmt(fit.rth_ja, "K/W"),
+             "stages": [{"k": k, "r": fmt(r, "K/W"), "tau": fmt(tau, "s")}
+                        for k, (r, tau) in enumerate(fit.stages, start=1)],
+             "board": {"r": fmt(r_b, "K/W"), "tau": fmt(tau_b, "s"),
+                       "words": BOARD_TAU_WORDS if fit.board_tau_default else "as given"},
+             "method": METHOD}
+    return True, part_form_context(values=values, errors={}, other=[], part=part, base_n=base_n, fit=shown)
+
+
+def _fit_or_save(request: Request, session: Session, actor: Actor, form: dict[str, str],
+                 part_id: int | None) -> Response:
+    """The part form's two buttons: fit the stages (the form again, nothing saved), or save the part."""
+    if form.get("action") == "fit":
+        fitted, ctx = fit_part_form(session, actor, form, part_id)
+        return render(request, "part_form.html", page_context(request, actor, **ctx),
+                      status_code=200 if fitted else 422)
+    saved_id, ctx = submit_part(session, actor, form, part_id)
+    if saved_id is not None:
+        return redirect(f"/parts/{saved_id}")
+    return render(request, "part_form.html", page_context(request, actor, **ctx),
+                  status_code=409 if ctx.get("conflict") else 422)
+
+
 @router.get("/parts", response_class=HTMLResponse)
 def parts_page(request: Request, session: SessionDep, actor: CurrentActor, q: str = "") -> HTMLResponse:
     return render(request, "parts.html", page_context(request, actor, **parts_context(session, actor, q)))
@@ -153,10 +247,7 @@ def new_part_form(request: Request, actor: Editor) -> HTMLResponse:
 
 @router.post("/parts/new", response_class=HTMLResponse)
 def create_part_from_form(request: Request, session: SessionDep, actor: Editor, form: FormDep) -> Response:
-    part_id, ctx = submit_part(session, actor, form_dict(form))
-    if part_id is not None:
-        return redirect(f"/parts/{part_id}")
-    return render(request, "part_form.html", page_context(request, actor, **ctx), status_code=422)
+    return _fit_or_save(request, session, actor, form_dict(form), None)
 
 
 @router.get("/parts/{part_id}", response_class=HTMLResponse)
@@ -174,8 +265,4 @@ def edit_part_form(part_id: int, request: Request, session: SessionDep, actor: E
 @router.post("/parts/{part_id}/edit", response_class=HTMLResponse)
 def save_part_from_form(part_id: int, request: Request, session: SessionDep, actor: Editor,
                         form: FormDep) -> Response:
-    saved_id, ctx = submit_part(session, actor, form_dict(form), part_id)
-    if saved_id is not None:
-        return redirect(f"/parts/{part_id}")
-    return render(request, "part_form.html", page_context(request, actor, **ctx),
-                  status_code=409 if ctx.get("conflict") else 422)
+    return _fit_or_save(request, session, actor, form_dict(form), part_id)

@@ -7,7 +7,7 @@ The figures of a result read it as the typed :class:`~server.schemas.result.Anal
 
 Provides :func:`startup_figure`, :func:`soa_figure`, :func:`timer_figure`,
 :func:`monte_carlo_figure`, :func:`startup_overlay_figure`, :func:`soa_overlay_figure`,
-:func:`budget_figure`, :func:`part_soa_figure`, :func:`zth_figure`, and the palette.
+:func:`budget_figure`, :func:`part_soa_figure`, :func:`zth_figure`, :func:`zth_fit_figure`, and the palette.
 """
 
 from __future__ import annotations
@@ -20,11 +20,12 @@ import numpy as np
 
 from server.analysis import derated_soa_curves, zth
 from server.analysis.foldback import foldback_limit
+from server.analysis.soa import envelope_curves
 from server.pages.display import fmt as format_quantity
 from server.schemas.result import AnalysisResult, MonteCarlo, Waveforms
 
 __all__ = ["PALETTE", "VERDICT_COLOURS", "startup_figure", "soa_figure", "timer_figure", "monte_carlo_figure",
-           "startup_overlay_figure", "soa_overlay_figure", "timer_limits", "budget_figure", "part_soa_figure", "zth_figure",
+           "startup_overlay_figure", "soa_overlay_figure", "timer_limits", "budget_figure", "part_soa_figure", "zth_figure", "zth_fit_figure",
            "pulse_label", "risk_trend_figure"]
 
 INK, GRID, AXIS = "#22303c", "#e4e8ed", "#9aa5b1"
@@ -486,11 +487,20 @@ def budget_figure(entry: dict[str, Any], title: str) -> dict[str, Any] | None:
 # --- part library ----------------------------------------------------------------------------
 
 def part_soa_figure(fet: dict[str, Any]) -> dict[str, Any]:
-    """A part's SOA curves as entered (case at t_case, not derated)."""
+    """A part's SOA curves as entered (case at t_case, not derated); where the analysis reads a curve lower
+    (the conservative envelope of crossing or rising curves), that reading dashed beside it."""
     curves = sorted((fet.get("soa") or {}).get("curves", []),
                     key=lambda c: math.inf if c["t_pulse"] is None else c["t_pulse"])
     t_case = (fet.get("soa") or {}).get("t_case", 25.0)
     data = _curve_traces(curves, "")
+    for k, c in enumerate(envelope_curves(fet)):
+        if c["capped"]:
+            pts = c["points"]
+            data.append({"type": "scatter", "mode": "lines", "name": f"SOA {pulse_label(c['t_pulse'])} as the "
+                         "analysis reads it (envelope)", "x": _r([p[0] for p in pts]), "y": _r([p[1] for p in pts]),
+                         "line": {"color": CURVE_BLUES[min(k, len(CURVE_BLUES) - 1)], "width": 2, "dash": "dash"},
+                         "hovertemplate": "%{x:.3s}V, %{y:.3s}A<extra>" + pulse_label(c["t_pulse"])
+                                          + " as read</extra>"})
     xs = [v for t in data for v in t["x"]]
     ys = [v for t in data for v in t["y"]]
     return {"data": data,
@@ -500,19 +510,52 @@ def part_soa_figure(fet: dict[str, Any]) -> dict[str, Any]:
                               hovermode="closest")}
 
 
-def zth_figure(stages: list[dict[str, Any]]) -> dict[str, Any] | None:
-    """Zth(t) of the Foster stages, from a decade below the fastest to a decade above the slowest stage."""
+def zth_figure(stages: list[dict[str, Any]], points: list[list[float]] | None = None) -> dict[str, Any] | None:
+    """Zth(t) of the Foster stages, from a decade below the fastest to a decade above the slowest stage; with
+    ``points``, the datasheet points the stages were fitted to (junction to case) as markers."""
     if not stages:
         return None
-    taus = [s["tau"] for s in stages]
+    taus = [s["tau"] for s in stages] + [p[0] for p in points or []]
     t = np.logspace(math.log10(min(taus)) - 1, math.log10(max(taus)) + 1, 120)
     z = zth([(s["r"], s["tau"]) for s in stages], t)
-    return {"data": [{"type": "scatter", "mode": "lines", "name": "Zth(t)", "x": _r(t), "y": _r(z),
-                      "line": {"color": PALETTE[3], "width": 2}}],
+    data = [{"type": "scatter", "mode": "lines", "name": "Zth(t) of the stages", "x": _r(t), "y": _r(z),
+             "line": {"color": PALETTE[3], "width": 2}}]
+    if points:
+        data.append(_zth_markers(points))
+    return {"data": data,
             "layout": _layout("Transient thermal impedance of the Foster stages", height=360,
                               xaxis=_axis("Pulse duration", "s", log=True, **_log_ticks(list(t), "s")),
                               yaxis=_axis("Zth junction to ambient", " K/W", log=True,
-                                          **_log_ticks(list(z), "K/W")), showlegend=False)}
+                                          **_log_ticks(list(z) + [p[1] for p in points or []], "K/W")),
+                              showlegend=bool(points))}
+
+
+def _zth_markers(points: list[list[float]] | tuple) -> dict[str, Any]:
+    return {"type": "scatter", "mode": "markers", "name": "Zth points (datasheet, junction to case)",
+            "x": _r([p[0] for p in points]), "y": _r([p[1] for p in points]),
+            "marker": {"color": INK, "size": 7, "symbol": "circle-open"},
+            "hovertemplate": "%{x:.3s}s, %{y:.4s} K/W<extra>point</extra>"}
+
+
+def zth_fit_figure(fit: Any) -> dict[str, Any]:
+    """A Foster fit (`server.analysis.zth_fit.ZthFit`) over its points: the fitted junction-to-case curve, and
+    with the board stage up to R_th junction-ambient, on log-log axes."""
+    t_lo, t_hi = fit.points[0][0], fit.points[-1][0]
+    slowest = max(tau for _, tau in fit.all_stages)
+    t = np.logspace(math.log10(t_lo) - 0.5, math.log10(max(t_hi, slowest)) + 1, 160)
+    fitted, mounted = fit.curve(t), fit.curve(t, board=True)
+    data = [_zth_markers(fit.points),
+            {"type": "scatter", "mode": "lines", "name": f"Fit, {len(fit.stages)} stages (junction to case)",
+             "x": _r(t), "y": _r(fitted), "line": {"color": PALETTE[0], "width": 2}}]
+    if fit.board is not None:
+        data.append({"type": "scatter", "mode": "lines", "name": "With the board stage (junction to ambient)",
+                     "x": _r(t), "y": _r(mounted), "line": {"color": PALETTE[2], "width": 2, "dash": "dash"}})
+    ys = [p[1] for p in fit.points] + list(mounted)
+    return {"data": data,
+            "layout": _layout(f"Foster fit: largest error {fit.largest_error:.2%} over the points", height=400,
+                              xaxis=_axis("Pulse duration", "s", log=True, **_log_ticks(list(t), "s")),
+                              yaxis=_axis("Zth", " K/W", log=True, **_log_ticks(ys, "K/W")),
+                              hovermode="closest")}
 
 
 # --- risk counts over time ------------------------------------------------------------------

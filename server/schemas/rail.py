@@ -14,6 +14,7 @@ errors on their fields. Titles and hints in the JSON schema come from
 :data:`server.analysis.words.FIELD_TITLES`.
 
 Provides :class:`RailDocument`, :class:`Fet` (a part library entry), :func:`normalize`,
+:func:`part_document`,
 :func:`canonical_json` and :func:`document_sha256`.
 """
 
@@ -198,6 +199,7 @@ class Fet(_Section):
     tj_max: Celsius = _field("fet.tj_max")
     rth_ja: KelvinPerWatt = _field("fet.rth_ja")
     zth: list[FosterStage] = _field("fet.zth")
+    zth_points: list[tuple[Second, KelvinPerWatt]] | None = _field("fet.zth_points")
     soa: Soa = _field("fet.soa")
     e_avalanche: OptJoule = _field("fet.e_avalanche")
     rds_on_max: OptOhm = _field("fet.rds_on_max")
@@ -249,7 +251,7 @@ _LATER_OPTIONAL: dict[tuple[str, str], Any] = {
     ("switch", "foldback"): None, ("switch", "gate"): None,
     ("switch.timer", "retries"): None,
     ("fet", "e_avalanche"): None, ("fet", "rds_on_max"): None, ("fet", "rds_on_curve"): None,
-    ("fet", "count"): DEFAULTS["fet.count"], ("fet", "gate"): None,
+    ("fet", "count"): DEFAULTS["fet.count"], ("fet", "gate"): None, ("fet", "zth_points"): None,
 }
 
 

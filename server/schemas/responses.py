@@ -122,6 +122,11 @@ class Board(_Model):
     created_at: Timestamp
 
 
+class FieldWarning(_Model):
+    field: str = Field(description="JSON path in the document")
+    message: str = Field(description="why the value is unusual; it is analysed as given")
+
+
 class PartRevision(_Model):
     part_id: int
     n: int
@@ -154,6 +159,9 @@ class PartUse(_Model):
 
 class PartDetail(Part):
     used_by: list[PartUse] = Field(description="rails whose current revision pins this part")
+    warnings: list[FieldWarning] = Field(description="where the analysis reads the SOA curves lower than drawn: "
+                                         "curves that cross or whose current rises with V_DS are read as their "
+                                         "conservative envelope; never a reason to refuse")
 
 
 # --- rails, revisions, diffs -----------------------------------------------------------------
@@ -205,15 +213,12 @@ class RailListItem(_Model):
     retired_by: str | None
 
 
-class FieldWarning(_Model):
-    field: str = Field(description="JSON path in the document")
-    message: str = Field(description="why the value is unusual; it is analysed as given")
-
-
 class Rail(RailListItem):
     document: Document
     warnings: list[FieldWarning] = Field(description="values that compute but lie outside the usual range of "
-                                         "their quantity (a slip of the unit prefix?); never a reason to refuse")
+                                         "their quantity (a slip of the unit prefix?), and where the analysis reads "
+                                         "the SOA curves lower than drawn (crossing curves, a current rising with "
+                                         "V_DS: the conservative envelope); never a reason to refuse")
 
 
 class RailSaved(Rail):

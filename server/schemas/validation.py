@@ -88,7 +88,10 @@ def _sentence(err: dict[str, Any]) -> str:
     if kind in ("list_type", "tuple_type"):
         return "expected a list"
     if kind in ("too_short", "too_long"):
-        return "must be a [V_DS, I_D] pair" if _is_point(tuple(err["loc"])) else err["msg"]
+        loc = tuple(err["loc"])
+        if _is_point(loc):
+            return "must be a [V_DS, I_D] pair"
+        return "must be a [t, Zth] pair" if _is_zth_point(loc) else err["msg"]
     if kind in ("model_type", "dict_type", "model_attributes_type"):
         return "expected an object with named fields"
     if kind == "value_error":
@@ -98,6 +101,10 @@ def _sentence(err: dict[str, Any]) -> str:
 
 def _is_point(loc: tuple[Any, ...]) -> bool:
     return len(loc) >= 2 and loc[-2] == "points" and isinstance(loc[-1], int)
+
+
+def _is_zth_point(loc: tuple[Any, ...]) -> bool:
+    return len(loc) >= 2 and loc[-2] == "zth_points" and isinstance(loc[-1], int)
 
 
 def field_errors(exc: ValidationError, prefix: str = "", title_prefix: str = "") -> list[FieldError]:
@@ -112,6 +119,9 @@ def field_errors(exc: ValidationError, prefix: str = "", title_prefix: str = "")
         message = _sentence(err)
         if len(loc) >= 3 and isinstance(loc[-1], int) and _is_point(loc[:-1]):
             message = f"{'V_DS' if loc[-1] == 0 else 'I_D'}: {message}"
+            loc = loc[:-1]
+        elif len(loc) >= 3 and isinstance(loc[-1], int) and _is_zth_point(loc[:-1]):
+            message = f"{'t' if loc[-1] == 0 else 'Zth'}: {message}"
             loc = loc[:-1]
         error = _error(_path(loc), message, prefix, title_prefix)
         same = next((k for k, e in enumerate(out) if e.field == error.field), None)
@@ -164,6 +174,8 @@ def _si_numbers(value: Any, path: str) -> Any:
     if isinstance(value, list):
         if generic == "fet.soa.curves[].points[]" and len(value) == 2:
             return [_si_number(value[0], "V"), _si_number(value[1], "A")]
+        if generic == "fet.zth_points[]" and len(value) == 2:
+            return [_si_number(value[0], "s"), _si_number(value[1], "K/W")]
         return [_si_numbers(v, f"{path}[{k}]") for k, v in enumerate(value)]
     words = FIELD_TITLES.get(generic)
     return _si_number(value, words.kind) if words is not None and words.kind else value

@@ -5,20 +5,29 @@ Every save makes a new immutable part revision; rails pin the revision they used
 
 from __future__ import annotations
 
+import re
 from typing import Any
 
 from sqlalchemy import func, select
 from sqlalchemy.orm import Session
 
+from server.analysis import DocumentError
+from server.analysis.soa import ENVELOPE, soa_curve_warnings
+from server.analysis.zth_fit import ZthFit, fit_zth
 from server.models import Part, PartRevision, Rail, RailRevision, utcnow
 from server.schemas.rail import document_sha256, part_document
 from server.schemas.validation import DocumentInvalid, parse_fet
 from server.services.access import Actor, Permission, scoped_rails
 from server.services.audit import record
 from server.services.errors import Conflict, Invalid, NotFound, flush_or_conflict
+from server.units import UnitError, parse_quantity
 
 __all__ = ["normalize_fet", "part_dict", "part_revision_dict", "list_parts", "get_part", "get_part_revision",
-           "list_part_revisions", "create_part", "save_part", "part_usage"]
+           "list_part_revisions", "create_part", "save_part", "part_usage", "soa_warnings", "SOA_ENVELOPE",
+           "zth_points_from_text", "fit_zth_points"]
+
+SOA_ENVELOPE = ENVELOPE
+_SPLIT = re.compile(r"\s*[,;\t]\s*")
 
 
 def normalize_fet(data: Any, prefix: str = "document") -> dict[str, Any]:
@@ -132,3 +141,42 @@ def part_usage(*, session: Session, actor: Actor, part_id: int) -> list[dict]:
         .where(PartRevision.part_id == part_id), actor)
     return [{"rail_id": r.id, "rail_name": r.name, "board_id": r.board_id, "part_revision": r.n}
             for r in session.execute(stmt.order_by(Rail.name))]
+
+
+def soa_warnings(fet: dict[str, Any]) -> list[dict[str, str]]:
+    """Where the analysis reads a part's SOA curves lower than drawn (crossing curves, a current rising with
+    V_DS): ``[{"field": "fet.soa.curves[k]...", "message": sentence}]``, empty for a chart that does neither."""
+    return [{"field": path, "message": message} for path, message in soa_curve_warnings(fet)]
+
+
+def zth_points_from_text(text: str, field: str = "zth_points") -> list[list[float]]:
+    """[t s, Zth K/W] points from pasted text or a CSV file: one "t, Zth" pair a line (comma, semicolon,
+    tab or spaces between), units allowed ("20 us", "0.3 K/W"); a first line without digits is a header,
+    lines starting with # are skipped. Raises Invalid naming ``field`` and the line of every problem."""
+    points, problems = [], []
+    for n, line in enumerate(text.splitlines(), start=1):
+        line = line.strip()
+        if not line or line.startswith("#"):
+            continue
+        if not points and not problems and not re.search(r"\d", line):
+            continue  # header
+        cells = [c for c in (_SPLIT.split(line) if _SPLIT.search(line) else line.split()) if c]
+        if len(cells) != 2:
+            problems.append(f"line {n}: expected two values, t and Zth, got {len(cells)} ('{line[:40]}')")
+            continue
+        try:
+            points.append([parse_quantity(cells[0], "s"), parse_quantity(cells[1], "K/W")])
+        except UnitError as exc:
+            problems.append(f"line {n}: {exc}")
+    if problems:
+        raise Invalid("; ".join(problems), details=[{"field": field, "message": "; ".join(problems)}])
+    return points
+
+
+def fit_zth_points(points: Any, n_stages: int, rth_ja: float | None, board_tau: float | None = None) -> ZthFit:
+    """Foster stages fitted to Zth points, with the board stage (`server.analysis.zth_fit.fit_zth`);
+    bad input raises Invalid whose details name the field (``fet.zth_points[3]``, ``fet.rth_ja``...)."""
+    try:
+        return fit_zth(points, n_stages, rth_ja=rth_ja, board_tau=board_tau)
+    except DocumentError as exc:
+        raise Invalid(str(exc), details=[{"field": e.field, "message": e.reason} for e in exc.errors]) from None

@@ -13,6 +13,7 @@ from sqlalchemy import func, select
 from sqlalchemy.orm import Session, defer
 
 from server.analysis.bounds import plausibility_warnings
+from server.analysis.soa import soa_curve_warnings
 from server.analysis.words import FIELD_TITLES
 from server.models import Board, Part, PartRevision, Rail, RailRevision
 from server.schemas.rail import normalize
@@ -72,8 +73,11 @@ def _rail_dict(rail: Rail, head: RailRevision, product_id: int, part: dict | Non
 
 
 def document_warnings(document: dict[str, Any]) -> list[dict[str, str]]:
-    """The computable but implausible values of a stored document (the bounds table of the analysis core)."""
-    return [{"field": path, "message": message} for path, message in plausibility_warnings(document)]
+    """The computable but implausible values of a stored document (the bounds table of the analysis core),
+    then where the analysis reads its SOA curves lower than drawn (crossing curves, a current rising with
+    V_DS: the conservative envelope)."""
+    found = plausibility_warnings(document) + soa_curve_warnings(document["fet"])
+    return [{"field": path, "message": message} for path, message in found]
 
 
 def rail_dict(session: Session, rail: Rail, head: RailRevision, *, with_document: bool = True) -> dict:

@@ -31,6 +31,7 @@ def _full_document() -> dict:
     doc["switch"]["foldback"] = [[5.0, 6.0], [40.0, 1.5]]
     doc["switch"]["gate"] = {"drive": "voltage", "i_gate": None, "v_drive": 70.0, "r_gate": 1e5, "c_ext": 10e-9}
     doc["fet"]["gate"] = {"v_th": 3.0, "k": 20.0, "c_iss": 3e-9, "c_rss": 2e-10}
+    doc["fet"]["zth_points"] = [[1e-5, 0.02], [1e-3, 0.3]]
     doc["rules"] = dict(DEFAULT_RULES)
     doc["fet"].update(rds_on_max=doc["fet"]["rds_on"] * 1.3, count=2,
                       rds_on_curve=[[-55.0, 0.6], [25.0, 1.0], [150.0, 1.7]])

@@ -301,3 +301,38 @@ def test_the_api_docs_render_offline(browser, served):
     assert "Unable to render" not in pg.inner_text("body")
     assert outside == []
     context.close()
+
+
+def test_fit_foster_stages_to_pasted_zth_points_on_the_part_form(page, served):
+    # the points: the closed form Zth(t) = sum r_i (1 - exp(-t / tau_i)) of known stages (Foster network,
+    # JEDEC JESD51-14; from memory), four per decade
+    import math
+
+    stages = [(0.05, 1e-5), (0.3, 3e-4), (0.6, 5e-3), (0.35, 8e-2)]
+    lines = [f"{10 ** (-6 + k / 4)!r}, {sum(r * (1 - math.exp(-10 ** (-6 + k / 4) / tau)) for r, tau in stages)!r}"
+             for k in range(25)]
+    page.goto("/parts/new")
+    page.fill("#f-name", "Fitted N45 (test)")
+    page.fill("#f-vds-max", "45 V")
+    page.fill("#f-rds-on", "4 mOhm")
+    page.fill("#f-tj-max", "175")
+    page.fill("#f-rth-ja", "38 K/W")
+    page.fill("#f-curve-0-points", "1, 180\n12, 60\n45, 9")
+    page.fill("#f-curve-3-points", "1, 25\n5, 27\n45, 0.8")  # DC rising at 5 V: the preview says so
+    page.wait_for_function("() => document.getElementById('preview-status').textContent.includes('I_D rises')")
+    page.fill("#f-zth-points", "t, Zth\n" + "\n".join(lines))
+    page.select_option("#f-fit-stages", "4")
+    page.click("#fit-zth")
+    page.wait_for_selector("#fit-result")
+    _plot_drawn(page, "plot-zth-fit")
+    assert page.inner_text("#fit-largest-error") == "0.00%"
+    assert page.input_value("#f-zth").count("\n") == 4  # four stages and the board stage
+    shot(page, "part-zth-fit")
+    page.fill("#f-curve-1-t-pulse", "")
+    page.fill("#f-curve-2-t-pulse", "")
+    page.click("#save-part")
+    page.wait_for_url(re.compile(r"/parts/\d+$"))
+    _plot_drawn(page, "plot-part-zth")
+    assert "fitted to 25 points" in page.inner_text("#zth-points")
+    assert "I_D rises with V_DS" in page.inner_text("#soa-warnings")
+    shot(page, "part-page-fitted")

@@ -1,5 +1,6 @@
 /* railsign: SOA curve entry. Pasted CSV points are drawn at once (log-log) so that a wrong
-   column or a unit slip shows before saving; the server checks them again on save.
+   column or a unit slip shows before saving; the server checks them again on save, and the part
+   page says where the analysis reads crossing or rising curves lower (their envelope).
    Also adds empty curve slots ("Add another curve"). */
 (function () {
   "use strict";
@@ -47,6 +48,13 @@
       for (var j = 1; j < parsed.points.length; j++) {
         if (parsed.points[j][0] <= parsed.points[j - 1][0]) {
           problems.push("curve " + (k + 1) + ": V_DS must rise from point to point");
+          break;
+        }
+      }
+      for (var q = 1; q < parsed.points.length; q++) {
+        if (parsed.points[q][1] > parsed.points[q - 1][1]) {
+          problems.push("curve " + (k + 1) + ": I_D rises with V_DS (read lower, as the running minimum, " +
+                        "once saved; the part page says where)");
           break;
         }
       }
