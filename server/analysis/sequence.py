@@ -40,7 +40,9 @@ capacitance c_bus + the rails' c_in; the bus voltage is the supply voltage every
 sees. Each rail is its path resistance, its switch (a resistance R_sw falling log-linearly
 from R_OFF to R_DS(on) over t_on from its enable instant, the current capped by the
 regulation reference of its mode: current limit, slew c dv/dt + i_load, power limit; the
-algebra of `circuit.Circuit.limit_reference`), and its output capacitor with ESR in
+algebra of `circuit.Circuit.limit_reference`; the switch conducts forward only, so a rail's
+output capacitance never holds up the shared bus: conservative for the dip, and what a
+reverse-blocking eFuse or ideal-diode stage does), and its output capacitor with ESR in
 parallel with its load (`circuit.Circuit.load_current`: nothing below v_on, then resistive,
 constant current or constant power; once started the load keeps drawing). R_DS(on) is taken
 at the ambient temperature; the fault timer, path inductance and self-heating are left to
@@ -61,7 +63,8 @@ its own copy of the board, all advanced together, vectorised over rows): the out
 capacitor voltages, the bus voltages and the source currents. In a step the load is
 linearised at the start of the step (resistive exactly; constant power explicitly) and the
 regulation reference is taken at the start of the step, so each rail's switch current is a
-piecewise-linear, non-decreasing function of its bus voltage: min(full-on current, reference).
+piecewise-linear, non-decreasing function of its bus voltage: the full-on current clipped to
+[0, reference].
 The bus voltage of each supply is then the root of one monotone scalar equation (source
 current - bus capacitor current - sum of the rails' currents = 0), solved by Newton's method
 safeguarded by bisection. Kirchhoff's current law and Ohm's law (C. K. Alexander and M. N.
@@ -613,7 +616,7 @@ def _r_switch(p: _Rows, t: float, t_en: np.ndarray) -> np.ndarray:
 
 def _solve_buses(p: _Rows, h: float, v_b0, i_s0, on, a, b, ref, n_sup: int):
     """The bus voltage of every supply row: the root of source current - bus capacitor current - the sum
-    of the rails' currents min(on (v - a) b, ref), decreasing in v; Newton safeguarded by bisection."""
+    of the rails' currents clip((v - a) b, 0, ref), decreasing in v; Newton safeguarded by bisection."""
     span = np.maximum(p.v_src, np.abs(v_b0)) + 1.0
     lo, hi = -span, 2.0 * span
     v = v_b0.copy()
@@ -627,8 +630,8 @@ def _solve_buses(p: _Rows, h: float, v_b0, i_s0, on, a, b, ref, n_sup: int):
         vk = v[p.sup]
         full = (vk - a) * b
         reg = full > ref
-        i_k = np.where(on, np.where(reg, ref, full), 0.0)
-        d_k = np.where(on & ~reg, b, 0.0)
+        i_k = np.where(on, np.clip(full, 0.0, ref), 0.0)
+        d_k = np.where(on & ~reg & (full > 0.0), b, 0.0)
         f = i_src - p.c_bus * (v - v_b0) / h - np.bincount(p.sup, i_k, n_sup)
         df = d_src - p.c_bus / h - np.bincount(p.sup, d_k, n_sup)
         return f, df, i_src
@@ -693,10 +696,12 @@ def simulate_sequence(seq: Sequence, *, rtol: float = RTOL, max_steps: int = MAX
     h = 1e-3 * t_min_scale
     rec_t, rec_vb, rec_is, rec_ik, rec_vo = [0.0], [v_b.copy()], [i_s.copy()], [i_k.copy()], [v_out.copy()]
     steps, finished = 0, False
+    ran = np.zeros(R, bool)  # rails that have conducted in an accepted step
     sup_v = p.v_src[p.sup]
     # the current scale of a supply: its rails' typical charging currents plus their loads
     i_scale = np.bincount(p.sup, p.c * sup_v / p.t_scale + p.i_nom, S2) + 1e-3
     has_l = p.l_s > 0
+    has_c = p.c_bus > 0  # a bus without capacitance is algebraic: it may jump
     while steps < max_steps and t < seq.t_stop:
         on = t_en <= t * (1 + 1e-12) + 1e-18
         future = t_en[np.isfinite(t_en) & ~on]
@@ -718,10 +723,10 @@ def simulate_sequence(seq: Sequence, *, rtol: float = RTOL, max_steps: int = MAX
             rt = _r_switch(p, t1, t_en) + p.r_p
             v_b1, i_s1 = _solve_buses(p, h, v_b, i_s, on, aa, 1.0 / (rt + bb), ref, S2)
             full = (v_b1[p.sup] - aa) / (rt + bb)
-            i1 = np.where(on, np.minimum(full, ref), 0.0)
+            i1 = np.where(on, np.clip(full, 0.0, ref), 0.0)
             vo1 = aa + bb * i1
             vc1 = v_c + kh * (i1 - g * vo1 - j)
-            change = max(float(np.max(np.abs(vc1 - v_c) / sup_v)), float(np.max(np.abs(v_b1 - v_b) / p.v_src)),
+            change = max(float(np.max(np.abs(vc1 - v_c) / sup_v)), float(np.max(np.abs(v_b1 - v_b)[has_c] / p.v_src[has_c], initial=0.0)),
                          float(np.max(np.abs(i_s1 - i_s)[has_l] / i_scale[has_l])) if has_l.any() else 0.0)
             if change <= rtol or h <= 1e-15:
                 break
@@ -754,7 +759,8 @@ def simulate_sequence(seq: Sequence, *, rtol: float = RTOL, max_steps: int = MAX
         rec_vo.append(v_out)
         h = min(2.0 * h, h * 0.9 * rtol / max(change, 1e-12))
         # at rest: every rail that will start has started, its ramp over, and nothing moves
-        waiting = np.isfinite(t_en) & (t_en > t)
+        ran |= on
+        waiting = np.isfinite(t_en) & ~ran
         ramp = (p.t_on > 0) & (t - t_en < p.t_on)
         rest = (np.all(np.abs(i_cap) / p.c * p.t_scale <= SETTLE * sup_v)
                 and np.all(np.abs(i_bus_cap) / np.maximum(p.c_bus, 1e-30) * t_min_scale <= SETTLE * p.v_src)
@@ -994,6 +1000,8 @@ def analyze_sequence(doc: Any, rail_documents: dict[str, Any] | None = None, tea
             "nominal voltage.",
             "R_DS(on) at the ambient temperature, current limits at their nominal value; the fault timer, path "
             "inductance and self-heating are in each rail's own analysis.",
+            "Switches conduct forward only: a rail's output capacitance does not hold up the shared bus "
+            "(conservative for the dip).",
             "A supply's total current is its source current (rails and bus capacitance); a dip is compared raw "
             "with each UVLO unless the rail gives the UVLO's deglitch time.",
         ],
