@@ -1,4 +1,5 @@
-"""The `railsign` command line: serve, demo, migrate, export, import, user, token, analyze, check, worker, jobs.
+"""The `railsign` command line: serve, demo, migrate, export, import, user, token, analyze, sequence, check, worker,
+jobs.
 
 Exit codes: 0 success; 1 the analysis found a failing check (`check --strict`: or an unaccepted
 marginal one); 2 bad arguments or input; 3 the database cannot be reached.
@@ -26,6 +27,7 @@ import railsign
 from railsign import gate
 from server import backup, migrate, transfer
 from server.analysis import DocumentError, analyze_rail, format_report
+from server.analysis.sequence import analyze_sequence, format_sequence_report
 from server.app import create_app
 from server.config import Settings
 from server.db import make_engine, make_sessionmaker, ping
@@ -275,6 +277,35 @@ def cmd_analyze(args: argparse.Namespace) -> int:
     return EXIT_FAILING_CHECK if failing else EXIT_OK
 
 
+def _sequence_rail_documents(doc: Any, base: Path) -> dict[str, Any]:
+    """The rail documents a sequence file names by ``ref``: paths relative to the sequence file."""
+    out: dict[str, Any] = {}
+    rails = doc.get("rails") if isinstance(doc, dict) else None
+    for item in rails if isinstance(rails, list) else []:
+        ref = item.get("ref") if isinstance(item, dict) else None
+        if isinstance(ref, str) and ref not in out and (base / ref).is_file():
+            out[ref] = _read_json(str(base / ref))
+    return out
+
+
+def cmd_sequence(args: argparse.Namespace) -> int:
+    """Analyse a board sequence file without any database: the checks and key figures in words, or JSON;
+    exit 1 when a check fails."""
+    doc = _read_json(args.file)
+    base = Path(args.file).parent if args.file != "-" else Path.cwd()
+    try:
+        result = analyze_sequence(doc, _sequence_rail_documents(doc, base))
+    except DocumentError as exc:
+        lines = "\n".join(f"  {e.text}" for e in exc.errors)
+        raise CliError(f"{args.file} is not a valid board sequence:\n{lines}") from None
+    if args.json:
+        print(json.dumps(result, indent=2, allow_nan=False))
+    else:
+        print(format_sequence_report(result))
+    failing = any(c["verdict"] == "fail" for c in result["checks"])
+    return EXIT_FAILING_CHECK if failing else EXIT_OK
+
+
 def cmd_check(args: argparse.Namespace) -> int:
     """The CI gate: analyse every rail file under the paths, one line per rail, a summary, JUnit and baseline."""
 
@@ -462,6 +493,12 @@ def build_parser() -> argparse.ArgumentParser:
                         "sigma, truncated to it) for every parameter, or per parameter as PARAM=KIND,... with "
                         "PARAM one of v_s, c, i_limit, timer_c, i_charge, v_trip (the others uniform)")
     p.add_argument("--waveforms", action="store_true", help="include the start-up waveforms in --json")
+
+    p = command("sequence", cmd_sequence, "analyse a board power-up sequence file (schema railsign.sequence/1): "
+                "every rail on its shared supplies on one time line, at nominal and supply-low (no database needed)")
+    p.add_argument("file", help="sequence document (JSON), or - for standard input; rails given by ref are "
+                                "rail files relative to it")
+    p.add_argument("--json", action="store_true", help="print one JSON object (SI units) instead of the report")
 
     p = command("check", cmd_check,
                 "CI gate: analyse every rail file (*.json, recursively; a bundle counts each rail) on the sign-off "

@@ -8,7 +8,9 @@ read_sequence(doc, rail_documents=None, team_rules=None)
     Validate a sequence document and return a `Sequence` (`BoardSupply`, `SequenceRail`).
 analyze_sequence(doc_or_sequence, rail_documents=None, team_rules=None)
     The board start-up at the nominal supply and at the supply-low corner, with its checks,
-    as a JSON-ready dict (`SequenceResult` keys below).
+    as a JSON-ready dict (keys in its docstring).
+format_sequence_report(result)
+    That result as a readable text (the command line's report).
 simulate_sequence(seq)
     The coupled time line alone (`Timeline`), full resolution.
 
@@ -113,6 +115,7 @@ __all__ = [
     "read_sequence",
     "simulate_sequence",
     "analyze_sequence",
+    "format_sequence_report",
 ]
 
 SCHEMA = "railsign.sequence/1"
@@ -941,12 +944,14 @@ def analyze_sequence(doc: Any, rail_documents: dict[str, Any] | None = None, tea
     Returns
     -------
     dict
-        JSON-ready: ``schema``, ``name``, ``verdict`` (the worst check), ``checks`` (``id``,
+        JSON-ready: ``schema``, ``name``, ``caution``, ``verdict`` (the worst check), ``checks`` (``id``,
         ``corner``, ``subject``, ``title``, ``verdict``, ``value``, ``limit``, ``unit``, ``margin``
         (value / limit or limit / value: >= 1 passes), ``reason`` in words), ``corners`` (per corner:
         ``supplies`` and ``rails`` figures, ``series`` decimated: ``t``, per supply ``v`` and ``i``, per
         rail ``i`` and ``v_out``; ``finished``, ``steps``) and ``conventions`` (how to read the figures).
     """
+    from .engine import CAUTION
+
     seq = doc if isinstance(doc, Sequence) else read_sequence(doc, rail_documents, team_rules)
     tl = simulate_sequence(seq, rtol=rtol)
     S, K = len(seq.supplies), len(seq.rails)
@@ -990,6 +995,7 @@ def analyze_sequence(doc: Any, rail_documents: dict[str, Any] | None = None, tea
     return {
         "schema": "railsign.sequence-result/1",
         "name": seq.name,
+        "caution": CAUTION,
         "verdict": verdict,
         "checks": checks,
         "corners": corners,
@@ -1006,3 +1012,32 @@ def analyze_sequence(doc: Any, rail_documents: dict[str, Any] | None = None, tea
             "with each UVLO unless the rail gives the UVLO's deglitch time.",
         ],
     }
+
+
+def format_sequence_report(result: dict) -> str:
+    """The result of `analyze_sequence` as a readable text: per corner the supplies' peak current and
+    lowest voltage, each rail's enable and power-good instants, then every check with its reason."""
+    from .engine import CAUTION
+
+    def s_(x):
+        return quantity(x, "s") if x is not None else "never"
+
+    lines = [f"Board power-up sequence: {result['name']}", f"Verdict: {result['verdict']}", ""]
+    for corner in result["corners"]:
+        lines.append(f"At the {corner['title']}" + ("" if corner["finished"] else
+                                                     " (the time line stopped before coming to rest)") + ":")
+        for sup in corner["supplies"]:
+            lines.append(f"  {sup['name']} ({quantity(sup['v_source'], 'V')} source): peak total current "
+                         f"{quantity(sup['i_peak'], 'A')} at {quantity(sup['t_i_peak'], 's')}, lowest voltage "
+                         f"{quantity(sup['v_min'], 'V')} at {quantity(sup['t_v_min'], 's')}")
+        for rail in corner["rails"]:
+            pg = (f", power-good at {s_(rail['t_power_good'])}" if rail["pg_level"] is not None else "")
+            lines.append(f"  rail {rail['id']} ({rail['name']}, on {rail['supply']}): enabled at "
+                         f"{s_(rail['t_enable'])}{pg}, peak input current {quantity(rail['i_peak'], 'A')}, "
+                         f"output {quantity(rail['v_end'], 'V')} at the end")
+        lines.append("")
+    lines.append("Checks:")
+    for c in result["checks"]:
+        lines.append(f"  [{c['verdict']}] {c['title']}: {c['reason']}")
+    lines += ["", "How to read it:"] + [f"  {text}" for text in result["conventions"]] + ["", CAUTION]
+    return "\n".join(lines)
