@@ -413,8 +413,9 @@ def _read_rails(r: _Reader, doc: dict, supplies: dict, rail_documents, team_rule
                 delay = r.number(en, "delay", f"{w}.enable", required=False, minimum=0.0) or 0.0
         if len(r.errors) == before:
             out.append(SequenceRail(rid, rail, sid, pg, at, after, threshold, delay))
-    for k, item in enumerate(doc.get("rails") or []):
-        after = ((item or {}).get("enable") or {}).get("after") if isinstance(item, dict) else None
+    for k, item in enumerate(doc.get("rails") if isinstance(doc.get("rails"), list) else []):
+        enable = item.get("enable") if isinstance(item, dict) else None
+        after = enable.get("after") if isinstance(enable, dict) else None
         if isinstance(after, str) and after not in ids:
             r.fail(f"rails[{k}].enable.after", f"names no rail of this sequence ({after!r})")
     _check_cycles(r, doc, ids)
