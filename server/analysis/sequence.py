@@ -926,9 +926,14 @@ def _rail_checks(seq: Sequence, tl: Timeline, c: int, corner: str, words: str) -
                 order_problems.append(f"rail {sr.id} starts before rail {seq.rails[src - c * K].id} is good")
     title = f"Rails reach power-good in the order of the chain and stay good ({words})"
     out.append(_check("power_good_order", corner, "board", title, FAIL if order_problems else PASS, None, None,
-                      "", None, ("; ".join(order_problems).capitalize() + ".") if order_problems else
+                      "", None, (_sentence("; ".join(order_problems)) + ".") if order_problems else
                       "Every enabling rail is good before the rails it enables start, and stays good."))
     return out
+
+
+def _sentence(text: str) -> str:
+    """The text with its first letter upper case (units keep their case: 10.1 V, not 10.1 v)."""
+    return text[:1].upper() + text[1:]
 
 
 def analyze_sequence(doc: Any, rail_documents: dict[str, Any] | None = None, team_rules: dict | None = None,
