@@ -277,15 +277,31 @@ def cmd_analyze(args: argparse.Namespace) -> int:
     return EXIT_FAILING_CHECK if failing else EXIT_OK
 
 
-def _sequence_rail_documents(doc: Any, base: Path) -> dict[str, Any]:
-    """The rail documents a sequence file names by ``ref``: paths relative to the sequence file."""
-    out: dict[str, Any] = {}
+def _si_rail(data: Any, where: str) -> Any:
+    """A rail document in SI numbers (engineering notation such as "680uF" read as the web form reads it)."""
+    try:
+        return normalize(parse_rail_document(data))
+    except DocumentInvalid as exc:
+        lines = "\n".join(f"  {e.text}" for e in exc.errors)
+        raise CliError(f"{where} is not a valid {exc.what}:\n{lines}") from None
+
+
+def _sequence_rails(doc: Any, base: Path) -> tuple[Any, dict[str, Any]]:
+    """The sequence with its inline rails in SI numbers, and the rail documents it names by ``ref`` (paths
+    relative to the sequence file), read and put in SI numbers."""
+    refs: dict[str, Any] = {}
     rails = doc.get("rails") if isinstance(doc, dict) else None
-    for item in rails if isinstance(rails, list) else []:
+    if not isinstance(rails, list):
+        return doc, refs
+    items = []
+    for k, item in enumerate(rails):
+        if isinstance(item, dict) and isinstance(item.get("rail"), dict):
+            item = {**item, "rail": _si_rail(item["rail"], f"rails[{k}].rail")}
         ref = item.get("ref") if isinstance(item, dict) else None
-        if isinstance(ref, str) and ref not in out and (base / ref).is_file():
-            out[ref] = _read_json(str(base / ref))
-    return out
+        if isinstance(ref, str) and ref not in refs and (base / ref).is_file():
+            refs[ref] = _si_rail(_read_json(str(base / ref)), ref)
+        items.append(item)
+    return {**doc, "rails": items}, refs
 
 
 def cmd_sequence(args: argparse.Namespace) -> int:
@@ -293,8 +309,9 @@ def cmd_sequence(args: argparse.Namespace) -> int:
     exit 1 when a check fails."""
     doc = _read_json(args.file)
     base = Path(args.file).parent if args.file != "-" else Path.cwd()
+    doc, refs = _sequence_rails(doc, base)
     try:
-        result = analyze_sequence(doc, _sequence_rail_documents(doc, base))
+        result = analyze_sequence(doc, refs)
     except DocumentError as exc:
         lines = "\n".join(f"  {e.text}" for e in exc.errors)
         raise CliError(f"{args.file} is not a valid board sequence:\n{lines}") from None

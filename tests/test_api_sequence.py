@@ -87,3 +87,17 @@ def test_a_rail_edit_makes_the_sequence_approval_stale_and_the_result_is_compute
     assert read["result"]["corners"][0]["rails"][0]["i_peak"] > 0
     aux_approvals = client.get(f"/api/v1/rails/{aux['id']}/approvals", headers=people.headers("viewer")).json()
     assert aux_approvals["total"] == 1 and not aux_approvals["items"][0]["stale"]
+
+
+def test_an_inline_rail_is_stored_in_si_numbers_and_a_bad_one_is_named(client, people, board):
+    url = f"/api/v1/boards/{board['id']}/sequence"
+    doc = _sequence()
+    doc["rails"].append({"id": "fan", "rail": rail_doc(name="FAN", load={"c_nom": "100uF"}), "supply": "in12",
+                         "enable": {"at": 2e-3}})
+    r = client.put(url, json={"document": doc}, headers=people.headers("designer"))
+    assert r.status_code == 200, r.text
+    assert r.json()["document"]["rails"][2]["rail"]["load"]["c_nom"] == pytest.approx(100e-6)
+    doc["rails"][2]["rail"]["load"]["c_nom"] = "100 uQ"
+    r = client.put(url, json={"document": doc}, headers=people.headers("designer"))
+    assert r.status_code == 422
+    assert any(d["field"].startswith("document.rails[2].rail.load.c_nom") for d in r.json()["error"]["details"])

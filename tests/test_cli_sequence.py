@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import json
+from pathlib import Path
 
 from server.__main__ import EXIT_BAD_INPUT, EXIT_FAILING_CHECK, EXIT_OK, main
 from tests.analysis.rail_documents import efuse_12v, slew_12v_demo
@@ -53,3 +54,12 @@ def test_a_cycle_is_bad_input_naming_the_field(tmp_path, capsys):
     err = capsys.readouterr().err
     assert code == EXIT_BAD_INPUT
     assert "rails[0].enable.after" in err and "cycle in the enable chain" in err
+
+
+def test_the_example_sequence_reads_rails_in_engineering_notation(capsys):
+    # examples/sequences/example_board.json: one rail by ref to examples/rails/vout_12v.json ("680uF" notation),
+    # one inline
+    code = main(["sequence", str(Path(__file__).resolve().parent.parent / "examples/sequences/example_board.json")])
+    out = capsys.readouterr().out
+    assert code == EXIT_OK, out
+    assert "rail main (VOUT_12V_MAIN, on in12)" in out and "rail aux (VOUT_12V_AUX, on in12)" in out

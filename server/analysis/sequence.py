@@ -528,6 +528,11 @@ class _Rows:
     i_lim_s: np.ndarray
     c_bus: np.ndarray
 
+    def __post_init__(self) -> None:
+        self.slew_rows = np.flatnonzero(self.mode == MODE_SLEW)
+        self.power_rows = np.flatnonzero(self.mode == MODE_POWER)
+        self.ramp_rows = np.flatnonzero(self.t_on > 0)
+
 
 def _rows(seq: Sequence) -> tuple[_Rows, list[Rail]]:
     supplies = {s.id: j for j, s in enumerate(seq.supplies)}
@@ -601,10 +606,11 @@ def _reference(p: _Rows, v_out: np.ndarray, v_in: np.ndarray, i_load: np.ndarray
     """Current the switch allows while regulating (the algebra of `Circuit.limit_reference`, per row with
     its own mode; the FET sees the bus voltage behind the rail's path resistance)."""
     ref = p.i_lim.copy()
-    slew = p.mode == MODE_SLEW
-    ref[slew] = np.minimum(ref[slew], p.c[slew] * p.dvdt[slew] + i_load[slew])
-    pw = p.mode == MODE_POWER
-    if pw.any():
+    slew = p.slew_rows
+    if slew.size:
+        ref[slew] = np.minimum(ref[slew], p.c[slew] * p.dvdt[slew] + i_load[slew])
+    pw = p.power_rows
+    if pw.size:
         vd = np.maximum(v_in[pw] - v_out[pw], 0.0)
         disc = vd * vd - 4.0 * p.r_p[pw] * p.p_lim[pw]
         ip = np.where(disc > 0, 2.0 * p.p_lim[pw] / (vd + np.sqrt(np.maximum(disc, 0.0))), NO_LIMIT)
@@ -614,30 +620,36 @@ def _reference(p: _Rows, v_out: np.ndarray, v_in: np.ndarray, i_load: np.ndarray
 
 def _r_switch(p: _Rows, t: float, t_en: np.ndarray) -> np.ndarray:
     """Switch resistance at ``t``: log-linear from R_OFF to R_DS(on) over t_on from the enable instant."""
-    frac = np.where(p.t_on > 0, np.clip((t - t_en) / np.where(p.t_on > 0, p.t_on, 1.0), 0.0, 1.0), 1.0)
-    return np.exp(math.log(R_OFF) + frac * (np.log(p.rds) - math.log(R_OFF)))
+    r = p.rds.copy()
+    k = p.ramp_rows
+    if k.size:
+        frac = np.minimum(np.maximum((t - t_en[k]) / p.t_on[k], 0.0), 1.0)
+        r[k] = np.exp(math.log(R_OFF) + frac * (np.log(p.rds[k]) - math.log(R_OFF)))
+    return r
 
 
-def _solve_buses(p: _Rows, h: float, v_b0, i_s0, on, a, b, ref, n_sup: int):
+def _solve_buses(p: _Rows, h: float, v_b0, i_s0, a, b, ref, n_sup: int):
     """The bus voltage of every supply row: the root of source current - bus capacitor current - the sum
-    of the rails' currents clip((v - a) b, 0, ref), decreasing in v; Newton safeguarded by bisection."""
+    of the rails' currents clip((v - a) b, 0, ref), decreasing in v (``b`` and ``ref`` are 0 for a rail
+    not enabled); Newton safeguarded by bisection."""
     span = np.maximum(p.v_src, np.abs(v_b0)) + 1.0
     lo, hi = -span, 2.0 * span
-    v = v_b0.copy()
+    v = v_b0
     den_s = p.l_s + h * p.r_s
+    i0 = (p.l_s * i_s0 + h * p.v_src) / den_s  # the source current at a bus voltage of 0
+    gs = h / den_s
+    cb = p.c_bus / h
+    sup = p.sup
 
     def f_and_slope(v):
-        i_src_free = (p.l_s * i_s0 + h * (p.v_src - v)) / den_s
-        lim = i_src_free > p.i_lim_s
-        i_src = np.where(lim, p.i_lim_s, i_src_free)
-        d_src = np.where(lim, 0.0, -h / den_s)
-        vk = v[p.sup]
-        full = (vk - a) * b
-        reg = full > ref
-        i_k = np.where(on, np.clip(full, 0.0, ref), 0.0)
-        d_k = np.where(on & ~reg & (full > 0.0), b, 0.0)
-        f = i_src - p.c_bus * (v - v_b0) / h - np.bincount(p.sup, i_k, n_sup)
-        df = d_src - p.c_bus / h - np.bincount(p.sup, d_k, n_sup)
+        i_free = i0 - gs * v
+        lim = i_free > p.i_lim_s
+        i_src = np.where(lim, p.i_lim_s, i_free)
+        full = (v[sup] - a) * b
+        i_k = np.minimum(np.maximum(full, 0.0), ref)
+        d_k = b * ((full > 0.0) & (full < ref))
+        f = i_src - cb * (v - v_b0) - np.bincount(sup, i_k, n_sup)
+        df = np.where(lim, 0.0, -gs) - cb - np.bincount(sup, d_k, n_sup)
         return f, df, i_src
 
     for _ in range(100):
@@ -717,6 +729,7 @@ def simulate_sequence(seq: Sequence, *, rtol: float = RTOL, max_steps: int = MAX
             h = min(h, float(p.t_on[ramping].min()) / 50.0)
         g, j = _load_linear(p, started, v_out)
         ref = _reference(p, v_out, v_b[p.sup], g * v_out + j)
+        ref_on = np.where(on, ref, 0.0)
         while True:
             steps += 1
             t1 = t + h
@@ -725,9 +738,9 @@ def simulate_sequence(seq: Sequence, *, rtol: float = RTOL, max_steps: int = MAX
             bb = (kh + p.esr) / den
             aa = (v_c - (kh + p.esr) * j) / den
             rt = _r_switch(p, t1, t_en) + p.r_p
-            v_b1, i_s1 = _solve_buses(p, h, v_b, i_s, on, aa, 1.0 / (rt + bb), ref, S2)
-            full = (v_b1[p.sup] - aa) / (rt + bb)
-            i1 = np.where(on, np.clip(full, 0.0, ref), 0.0)
+            bk = np.where(on, 1.0 / (rt + bb), 0.0)
+            v_b1, i_s1 = _solve_buses(p, h, v_b, i_s, aa, bk, ref_on, S2)
+            i1 = np.minimum(np.maximum((v_b1[p.sup] - aa) * bk, 0.0), ref_on)
             vo1 = aa + bb * i1
             vc1 = v_c + kh * (i1 - g * vo1 - j)
             change = max(float(np.max(np.abs(vc1 - v_c) / sup_v)), float(np.max(np.abs(v_b1 - v_b)[has_c] / p.v_src[has_c], initial=0.0)),

@@ -35,6 +35,7 @@ from server.services.access import Actor, Permission
 from server.services.audit import record
 from server.services.catalog import get_board
 from server.services.errors import Conflict, Forbidden, Invalid, NotFound, flush_or_conflict
+from server.services.rails import normalize_document
 from server.services.results import engine_version
 
 __all__ = ["sequence_dict", "approval_dict", "get_sequence", "save_sequence", "current_result", "on_rail_revision",
@@ -144,6 +145,18 @@ def _make_stale(session: Session, seq: BoardSequence, reason: str) -> int:
     return len(rows)
 
 
+def _inline_rails_in_si(document: Any) -> Any:
+    """The sequence with its inline rail documents validated and in SI numbers, as a rail's save stores them
+    (engineering notation such as "680uF" read); a bad one is refused naming its fields (:class:`Invalid`)."""
+    rails = document.get("rails") if isinstance(document, dict) else None
+    if not isinstance(rails, list):
+        return document
+    items = [{**item, "rail": normalize_document(item["rail"], prefix=f"document.rails[{k}].rail")}
+             if isinstance(item, dict) and isinstance(item.get("rail"), dict) else item
+             for k, item in enumerate(rails)]
+    return {**document, "rails": items}
+
+
 def save_sequence(*, session: Session, actor: Actor, board_id: int, document: Any, base_sha256: str | None = None,
                   message: str = "") -> tuple[BoardSequence, BoardSequenceRevision, bool]:
     """Save a new revision of the board's sequence and analyse it; (sequence, revision, created).
@@ -155,6 +168,7 @@ def save_sequence(*, session: Session, actor: Actor, board_id: int, document: An
     actor.require(Permission.EDIT)
     board = get_board(session=session, actor=actor, board_id=board_id)
     rails = _board_rails(session, board)
+    document = _inline_rails_in_si(document)
     try:
         read_sequence(document, {name: r[1].document for name, r in rails.items()})
     except DocumentError as exc:
