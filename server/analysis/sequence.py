@@ -903,10 +903,13 @@ def _rail_checks(seq: Sequence, tl: Timeline, c: int, corner: str, words: str) -
         level = p.pg_level[row]
         title = f"Rail {sr.id} reaches power-good ({words})"
         if np.isnan(tl.t_enable[row]):
-            enabler = seq.rails[p.after[row] - c * K].id
-            out.append(_check("power_good", corner, sr.id, title, FAIL, None, None, "s", None,
-                              f"Never enabled: rail {enabler} never reached the power-good level "
-                              f"{quantity(p.en_level[row], 'V')} that enables it."))
+            if p.after[row] >= 0:
+                reason = (f"Never enabled: rail {seq.rails[p.after[row] - c * K].id} never reached the power-good "
+                          f"level {quantity(p.en_level[row], 'V')} that enables it.")
+            else:
+                reason = (f"Never enabled: its enable time {quantity(p.en_at[row], 's')} lies after the simulated "
+                          f"time ({quantity(seq.t_stop, 's')}).")
+            out.append(_check("power_good", corner, sr.id, title, FAIL, None, None, "s", None, reason))
             continue
         if not np.isnan(level):
             t_pg = tl.t_pg[row]

@@ -176,3 +176,11 @@ def test_a_dip_below_a_uvlo_is_found_and_the_chain_order_is_kept():
     assert "Never enabled: rail big" in low["small"]["reason"]
     assert res["verdict"] == "fail"
     assert math.isclose(res["corners"][1]["supplies"][0]["v_source"], 11.0)
+
+
+def test_an_enable_after_the_simulated_time_fails_in_words():
+    doc = _two_rails(t_b=0.5, rail_a=simple_doc(), rail_b=simple_doc())
+    doc["t_stop"] = 0.1
+    res = analyze_sequence(doc)
+    b = next(c for c in res["checks"] if c["subject"] == "b" and c["corner"] == "nominal")
+    assert b["verdict"] == "fail" and "lies after the simulated time (100 ms)" in b["reason"]
