@@ -201,7 +201,8 @@ def save_sequence(*, session: Session, actor: Actor, board_id: int, document: An
 
 def on_rail_revision(session: Session, actor: Actor, rail: Rail) -> None:
     """A rail's new revision: the approvals of its board's sequence go stale when the sequence names the
-    rail (its result is computed again at the next read); no other rail's approvals change."""
+    rail (its result is computed again at the next read); no other rail's approvals change. A step of the
+    caller's transaction: the caller commits."""
     seq = session.scalar(select(BoardSequence).where(BoardSequence.board_id == rail.board_id))
     if seq is None or seq.head_n == 0:
         return
