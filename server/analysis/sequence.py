@@ -718,6 +718,10 @@ def simulate_sequence(seq: Sequence, *, rtol: float = RTOL, max_steps: int = MAX
     i_scale = np.bincount(p.sup, p.c * sup_v / p.t_scale + p.i_nom, S2) + 1e-3
     has_l = p.l_s > 0
     has_c = p.c_bus > 0  # a bus without capacitance is algebraic: it may jump
+    any_l, any_c = bool(has_l.any()), bool(has_c.any())
+    level = p.pg_level
+    has_level = ~np.isnan(level)
+    chained = p.after >= 0
     while steps < max_steps and t < seq.t_stop:
         on = t_en <= t * (1 + 1e-12) + 1e-18
         future = t_en[np.isfinite(t_en) & ~on]
@@ -743,18 +747,20 @@ def simulate_sequence(seq: Sequence, *, rtol: float = RTOL, max_steps: int = MAX
             i1 = np.minimum(np.maximum((v_b1[p.sup] - aa) * bk, 0.0), ref_on)
             vo1 = aa + bb * i1
             vc1 = v_c + kh * (i1 - g * vo1 - j)
-            change = max(float(np.max(np.abs(vc1 - v_c) / sup_v)), float(np.max(np.abs(v_b1 - v_b)[has_c] / p.v_src[has_c], initial=0.0)),
-                         float(np.max(np.abs(i_s1 - i_s)[has_l] / i_scale[has_l])) if has_l.any() else 0.0)
+            change = float(np.max(np.abs(vc1 - v_c) / sup_v))
+            if any_c:
+                change = max(change, float(np.max(np.abs(v_b1 - v_b)[has_c] / p.v_src[has_c])))
+            if any_l:
+                change = max(change, float(np.max(np.abs(i_s1 - i_s)[has_l] / i_scale[has_l])))
             if change <= rtol or h <= 1e-15:
                 break
             h = max(h * max(0.2, 0.8 * rtol / change), 1e-15)
         # accept
-        level = p.pg_level
-        crossed = np.isnan(t_pg) & (vo1 >= level) & ~np.isnan(level)
+        crossed = np.isnan(t_pg) & (vo1 >= level) & has_level
         if crossed.any():
             frac = np.clip((level - v_out) / np.where(vo1 > v_out, vo1 - v_out, 1.0), 0.0, 1.0)
             t_pg = np.where(crossed, t + frac * h, t_pg)
-        dep = (p.after >= 0) & np.isinf(t_en)
+        dep = chained & np.isinf(t_en)
         if dep.any():
             src = p.after[dep]
             ok = (vo1[src] >= p.en_level[dep]) & (t_en[src] <= t)
@@ -765,8 +771,7 @@ def simulate_sequence(seq: Sequence, *, rtol: float = RTOL, max_steps: int = MAX
         fell = ~np.isnan(t_pg) & (vo1 < level) & ~crossed
         pg_drop = np.where(fell, np.fmin(pg_drop, vo1), pg_drop)
         i_cap = i1 - g * vo1 - j
-        i_bus_cap = p.c_bus * (v_b1 - v_b) / h
-        d_is = np.abs(i_s1 - i_s) / h
+        dv_b, d_is = v_b1 - v_b, np.abs(i_s1 - i_s) / h
         t, v_c, v_out, i_k, v_b, i_s = t1, vc1, vo1, i1, v_b1, i_s1
         started |= v_out > p.v_on
         rec_t.append(t)
@@ -777,12 +782,13 @@ def simulate_sequence(seq: Sequence, *, rtol: float = RTOL, max_steps: int = MAX
         h = min(2.0 * h, h * 0.9 * rtol / max(change, 1e-12))
         # at rest: every rail that will start has started, its ramp over, and nothing moves
         ran |= on
-        waiting = np.isfinite(t_en) & ~ran
-        ramp = (p.t_on > 0) & (t - t_en < p.t_on)
-        rest = (np.all(np.abs(i_cap) / p.c * p.t_scale <= SETTLE * sup_v)
-                and np.all(np.abs(i_bus_cap) / np.maximum(p.c_bus, 1e-30) * t_min_scale <= SETTLE * p.v_src)
-                and np.all(d_is * t_min_scale <= SETTLE * i_scale))
-        if not waiting.any() and not ramp[np.isfinite(t_en)].any() and rest:
+        if (np.isfinite(t_en) & ~ran).any():  # a rail still to start
+            continue
+        if ((p.t_on > 0) & (t - t_en < p.t_on))[np.isfinite(t_en)].any():  # a turn-on ramp not over
+            continue
+        if (np.all(np.abs(i_cap) / p.c * p.t_scale <= SETTLE * sup_v)
+                and np.all(np.abs(dv_b) / h * t_min_scale <= SETTLE * p.v_src)
+                and np.all(d_is * t_min_scale <= SETTLE * i_scale)):
             finished = True
             break
     return Timeline(t=np.asarray(rec_t), v_bus=np.asarray(rec_vb), i_src=np.asarray(rec_is),
