@@ -58,3 +58,14 @@ def test_a_reviewer_approves_the_sequence_from_the_page(client, app, people, see
     assert r.status_code == 303
     page = client.get(f"/boards/{board}")
     assert "reviewer, revision 1: dips checked" in page.text
+
+
+def test_the_board_report_carries_the_sequence_timeline_and_checks(client, app, people, seeded):
+    board = seeded["board_id"]
+    csrf = log_in(client, app, people.ids["designer"])
+    assert 'id="report-sequence"' not in client.get(f"/boards/{board}/report").text  # no sequence yet
+    client.post(f"/boards/{board}/sequence", data={"document": json.dumps(_sequence()), "csrf_token": csrf})
+    report = client.get(f"/boards/{board}/report")
+    assert report.status_code == 200
+    assert 'id="report-sequence"' in report.text and 'id="report-sequence-nominal"' in report.text
+    assert "Rail first reaches power-good (supply-low corner)" in report.text
