@@ -1,4 +1,5 @@
-"""The `railsign` command line: serve, demo, migrate, export, import, user, token, analyze, check, fit-zth, worker,
+"""The `railsign` command line: serve, demo, migrate, export, import, user, token, analyze, sequence, check,
+fit-zth, worker,
 jobs.
 
 Exit codes: 0 success; 1 the analysis found a failing check (`check --strict`: or an unaccepted
@@ -27,6 +28,7 @@ import railsign
 from railsign import gate
 from server import backup, migrate, transfer
 from server.analysis import DocumentError, analyze_rail, format_report
+from server.analysis.sequence import analyze_sequence, format_sequence_report
 from server.analysis.units import quantity
 from server.analysis.zth_fit import BOARD_TAU_WORDS, METHOD
 from server.app import create_app
@@ -280,6 +282,52 @@ def cmd_analyze(args: argparse.Namespace) -> int:
     return EXIT_FAILING_CHECK if failing else EXIT_OK
 
 
+def _si_rail(data: Any, where: str) -> Any:
+    """A rail document in SI numbers (engineering notation such as "680uF" read as the web form reads it)."""
+    try:
+        return normalize(parse_rail_document(data))
+    except DocumentInvalid as exc:
+        lines = "\n".join(f"  {e.text}" for e in exc.errors)
+        raise CliError(f"{where} is not a valid {exc.what}:\n{lines}") from None
+
+
+def _sequence_rails(doc: Any, base: Path) -> tuple[Any, dict[str, Any]]:
+    """The sequence with its inline rails in SI numbers, and the rail documents it names by ``ref`` (paths
+    relative to the sequence file), read and put in SI numbers."""
+    refs: dict[str, Any] = {}
+    rails = doc.get("rails") if isinstance(doc, dict) else None
+    if not isinstance(rails, list):
+        return doc, refs
+    items = []
+    for k, item in enumerate(rails):
+        if isinstance(item, dict) and isinstance(item.get("rail"), dict):
+            item = {**item, "rail": _si_rail(item["rail"], f"rails[{k}].rail")}
+        ref = item.get("ref") if isinstance(item, dict) else None
+        if isinstance(ref, str) and ref not in refs and (base / ref).is_file():
+            refs[ref] = _si_rail(_read_json(str(base / ref)), ref)
+        items.append(item)
+    return {**doc, "rails": items}, refs
+
+
+def cmd_sequence(args: argparse.Namespace) -> int:
+    """Analyse a board sequence file without any database: the checks and key figures in words, or JSON;
+    exit 1 when a check fails."""
+    doc = _read_json(args.file)
+    base = Path(args.file).parent if args.file != "-" else Path.cwd()
+    doc, refs = _sequence_rails(doc, base)
+    try:
+        result = analyze_sequence(doc, refs)
+    except DocumentError as exc:
+        lines = "\n".join(f"  {e.text}" for e in exc.errors)
+        raise CliError(f"{args.file} is not a valid board sequence:\n{lines}") from None
+    if args.json:
+        print(json.dumps(result, indent=2, allow_nan=False))
+    else:
+        print(format_sequence_report(result))
+    failing = any(c["verdict"] == "fail" for c in result["checks"])
+    return EXIT_FAILING_CHECK if failing else EXIT_OK
+
+
 def cmd_check(args: argparse.Namespace) -> int:
     """The CI gate: analyse every rail file under the paths, one line per rail, a summary, JUnit and baseline."""
 
@@ -508,6 +556,12 @@ def build_parser() -> argparse.ArgumentParser:
                         "sigma, truncated to it) for every parameter, or per parameter as PARAM=KIND,... with "
                         "PARAM one of v_s, c, i_limit, timer_c, i_charge, v_trip (the others uniform)")
     p.add_argument("--waveforms", action="store_true", help="include the start-up waveforms in --json")
+
+    p = command("sequence", cmd_sequence, "analyse a board power-up sequence file (schema railsign.sequence/1): "
+                "every rail on its shared supplies on one time line, at nominal and supply-low (no database needed)")
+    p.add_argument("file", help="sequence document (JSON), or - for standard input; rails given by ref are "
+                                "rail files relative to it")
+    p.add_argument("--json", action="store_true", help="print one JSON object (SI units) instead of the report")
 
     p = command("check", cmd_check,
                 "CI gate: analyse every rail file (*.json, recursively; a bundle counts each rail) on the sign-off "

@@ -20,7 +20,7 @@ from sqlalchemy.orm import Session
 
 from server.analysis.zth_fit import fit_zth
 from server.models import Product
-from server.services import catalog, parts, reviews, signoff, users
+from server.services import catalog, parts, reviews, sequences, signoff, users
 from server.services.access import Actor
 from server.services.rail_edits import PartRef, create_rail
 
@@ -210,6 +210,29 @@ BOARDS = [
 ]
 
 
+# The sensor head's power-up sequence (invented): a 12 V harness down the mast, long and thin (0.4 ohm), and a
+# 5 V auxiliary. The lidar's 4.7 mF start and then the camera's pull the harness below the 10.5 V UVLO of the
+# head's converter at the supply-low corner; the 5 V side stays within its budget.
+SEQUENCES = {
+    "Sensor head": {
+        "schema": "railsign.sequence/1", "name": "Sensor head power-up",
+        "supplies": [
+            {"id": "harness12", "name": "12 V harness down the mast", "v_nom": 12.0, "v_min": 11.4, "r_source": 0.4,
+             "l_source": 2e-6, "c_bus": 220e-6, "i_max": 4.0, "uvlo": [10.5]},
+            {"id": "aux5", "name": "5 V auxiliary", "v_nom": 5.0, "v_min": 4.75, "r_source": 0.05, "i_max": 3.0},
+        ],
+        "rails": [
+            {"id": "lidar", "ref": "LIDAR_12V", "supply": "harness12", "power_good": 0.9, "enable": {"at": 0.0}},
+            {"id": "camera", "ref": "CAMERA_12V", "supply": "harness12",
+             "enable": {"after": "lidar", "threshold": 0.85, "delay": 5e-3}},
+            {"id": "sensors", "ref": "SENSORS_5V", "supply": "aux5", "enable": {"at": 1e-3}},
+            {"id": "ir_led", "ref": "IR_LED_5V", "supply": "aux5",
+             "enable": {"after": "sensors", "threshold": 0.9, "delay": 1e-3}},
+        ],
+    },
+}
+
+
 def seed(session: Session) -> dict[str, int]:
     """Create the demo team, users, parts, product, boards and rails. Returns counts."""
     system = Actor.system("railsign-demo")
@@ -237,6 +260,9 @@ def seed(session: Session) -> dict[str, int]:
         rail_id, sha256 = rails[name]
         signoff.take_transition(session=session, actor=designer, rail_id=rail_id, transition="submit for review",
                                 sha256=sha256, comment="ready for a look at the margins")
+    for board_name, document in SEQUENCES.items():
+        sequences.save_sequence(session=session, actor=designer, board_id=boards[board_name], document=document,
+                                message="first entry")
     manager = Actor.for_user(users.get_user_by_name(session=session, username="mona"))
     for username, board_name in BOARD_REVIEWERS:
         reviews.assign(session=session, actor=manager, reviewer_id=users.get_user_by_name(

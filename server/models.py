@@ -404,3 +404,69 @@ class ArchivedReport(Base):
     sha256: Mapped[str] = mapped_column(String(64))
     size: Mapped[int] = mapped_column(Integer)
     pdf: Mapped[bytes] = mapped_column(LargeBinary)
+
+
+# --- Board power-up sequences: a board-level document with its own revisions, results, approvals ---
+
+
+class BoardSequence(Base):
+    """A board's power-up sequence (schema ``railsign.sequence/1``): one per board, revisioned."""
+
+    __tablename__ = "board_sequences"
+    id: Mapped[int] = mapped_column(primary_key=True)
+    board_id: Mapped[int] = mapped_column(ForeignKey("boards.id", ondelete="CASCADE"), unique=True)
+    head_n: Mapped[int] = mapped_column(Integer, default=0)
+    head_sha256: Mapped[str] = mapped_column(String(64), default="")
+    created_at: Mapped[datetime] = mapped_column(default=utcnow)
+    updated_at: Mapped[datetime] = mapped_column(default=utcnow)
+
+
+class BoardSequenceRevision(Base):
+    """An immutable revision of a board's sequence document (rails named by ``ref``: their rail name)."""
+
+    __tablename__ = "board_sequence_revisions"
+    __table_args__ = (UniqueConstraint("sequence_id", "n"),)
+    id: Mapped[int] = mapped_column(primary_key=True)
+    sequence_id: Mapped[int] = mapped_column(ForeignKey("board_sequences.id", ondelete="CASCADE"), index=True)
+    n: Mapped[int]
+    document: Mapped[dict[str, Any]]
+    sha256: Mapped[str] = mapped_column(String(64))
+    author_id: Mapped[int | None] = mapped_column(ForeignKey("users.id"))
+    author_name: Mapped[str] = mapped_column(String(200))
+    message: Mapped[str] = mapped_column(Text, default="")
+    created_at: Mapped[datetime] = mapped_column(default=utcnow)
+
+
+class BoardSequenceResult(Base):
+    """The board start-up of one sequence revision with the rails as they were (``inputs_sha256``: the
+    sequence revision's sha256 and every referenced rail's head sha256), at one engine version."""
+
+    __tablename__ = "board_sequence_results"
+    __table_args__ = (UniqueConstraint("sequence_id", "inputs_sha256", "engine_version"),)
+    id: Mapped[int] = mapped_column(primary_key=True)
+    sequence_id: Mapped[int] = mapped_column(ForeignKey("board_sequences.id", ondelete="CASCADE"), index=True)
+    revision_n: Mapped[int]
+    inputs_sha256: Mapped[str] = mapped_column(String(64))
+    engine_version: Mapped[str] = mapped_column(String(20))
+    verdict: Mapped[str] = mapped_column(String(10))
+    result: Mapped[dict[str, Any]]
+    duration_s: Mapped[float] = mapped_column(default=0.0)
+    created_at: Mapped[datetime] = mapped_column(default=utcnow)
+
+
+class BoardSequenceApproval(Base):
+    """A reviewer's approval of a board sequence as one result read it; stale (kept) once the sequence has
+    a newer revision or one of its rails a new revision (``stale_reason`` says which)."""
+
+    __tablename__ = "board_sequence_approvals"
+    id: Mapped[int] = mapped_column(primary_key=True)
+    sequence_id: Mapped[int] = mapped_column(ForeignKey("board_sequences.id", ondelete="CASCADE"), index=True)
+    revision_n: Mapped[int]
+    inputs_sha256: Mapped[str] = mapped_column(String(64))
+    result_id: Mapped[int | None] = mapped_column(ForeignKey("board_sequence_results.id", ondelete="SET NULL"))
+    reviewer_id: Mapped[int] = mapped_column(ForeignKey("users.id"))
+    reviewer_name: Mapped[str] = mapped_column(String(200))
+    comment: Mapped[str] = mapped_column(Text, default="")
+    created_at: Mapped[datetime] = mapped_column(default=utcnow)
+    stale_at: Mapped[datetime | None]
+    stale_reason: Mapped[str] = mapped_column(Text, default="", server_default=text("''"))

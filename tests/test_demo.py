@@ -46,3 +46,23 @@ def test_demo_reviewers_have_a_queue(session_factory):
     assert sorted(queues["ravi"][0]) == ["FAN_24V", "PSE_PORT_24V", "VIN_24V_HOTSWAP"]
     assert queues["rosa"][0] == ["SOM_12V"]
     assert sorted(queues["ravi"][1]) == sorted(queues["rosa"][1]) == ["CAMERA_12V", "LIDAR_12V", "MODEM_12V"]
+
+
+def test_demo_has_a_board_sequence_whose_harness_dips_below_its_uvlo(session_factory):
+    # four rails on two supplies; the 12 V harness dips too far at the supply-low corner, the 5 V side holds
+    from server.demo import SEQUENCES
+    from server.models import BoardSequence
+    from server.services import sequences
+
+    doc = SEQUENCES["Sensor head"]
+    assert len(doc["rails"]) >= 4 and len(doc["supplies"]) == 2
+    with session_factory() as s:
+        seed_if_empty(s)
+        seq = s.scalar(select(BoardSequence))
+        result = sequences.current_result(s, seq).result
+    failing = {(c["id"], c["subject"], c["corner"]) for c in result["checks"] if c["verdict"] == "fail"}
+    assert ("supply_uvlo", "harness12", "supply_low") in failing
+    # the dip also pulls the lidar's output back below its power-good level once the camera starts
+    assert failing <= {("supply_uvlo", "harness12", "supply_low"), ("power_good_order", "board", "supply_low")}
+    order = next(c for c in result["checks"] if c["id"] == "power_good_order" and c["corner"] == "supply_low")
+    assert "Rail lidar's output falls back to" in order["reason"] and " V after power-good" in order["reason"]

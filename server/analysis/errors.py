@@ -31,15 +31,19 @@ class DocumentError(ValueError):
         What is wrong, in words a designer understands.
     errors : list of DocumentError, optional
         Every problem of the document when there are several (this one first).
+    title : str, optional
+        The field's words when the path is not a rail-document path (a board sequence's
+        fields name their own titles); default: the rail document's title of ``field``.
 
     The text names the field in words first, then by path:
     ``"Supply minimum (supply.v_min): must be above 0 V"``.
     """
 
-    def __init__(self, field: str, reason: str, errors: list[DocumentError] | None = None) -> None:
+    def __init__(self, field: str, reason: str, errors: list[DocumentError] | None = None,
+                 title: str | None = None) -> None:
         self.field = field
         self.reason = reason
-        self.title = field_title(field)
+        self.title = field_title(field) if title is None else title
         self.errors: list[DocumentError] = list(errors) if errors else [self]
         super().__init__("; ".join(e.text for e in self.errors))
 

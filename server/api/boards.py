@@ -9,13 +9,15 @@ from fastapi import APIRouter, Depends, Response
 from server.api.common import IdPath, IdQuery, PageDep, SearchText, TypedRoute, errors
 from server.auth import CurrentActor, require
 from server.db import SessionDep
-from server.schemas.api import BoardIn, BoardPatch
-from server.schemas.responses import Board, Page
-from server.services import catalog
+from server.schemas.api import BoardIn, BoardPatch, SequenceSave
+from server.schemas.responses import Board, BoardSequence, Page, SequenceApproval
+from server.schemas.signoff import ApprovalIn
+from server.services import catalog, sequences
 from server.services.access import Actor, Permission
 
 router = APIRouter(prefix="/boards", tags=["boards"], route_class=TypedRoute)
 Editor = Annotated[Actor, Depends(require(Permission.EDIT))]
+Reviewer = Annotated[Actor, Depends(require(Permission.REVIEW))]
 
 
 @router.get("", response_model=Page[Board], responses=errors(401, 422))
@@ -49,3 +51,32 @@ def update_board(board_id: IdPath, body: BoardPatch, session: SessionDep, actor:
 def delete_board(board_id: IdPath, session: SessionDep, actor: Editor) -> Response:
     catalog.delete_board(session=session, actor=actor, board_id=board_id)
     return Response(status_code=204)
+
+
+@router.get("/{board_id}/sequence", response_model=BoardSequence, responses=errors(401, 404, 422))
+def get_sequence(board_id: IdPath, session: SessionDep, actor: CurrentActor) -> dict:
+    """The board's power-up sequence: its head revision and the board start-up with the rails as they are now
+    (computed at this read when a rail has changed since)."""
+    seq = sequences.get_sequence(session=session, actor=actor, board_id=board_id)
+    out = sequences.sequence_dict(session, seq)
+    session.commit()
+    return out
+
+
+@router.put("/{board_id}/sequence", response_model=BoardSequence, responses=errors(400, 401, 403, 404, 409, 422))
+def put_sequence(board_id: IdPath, body: SequenceSave, session: SessionDep, actor: Editor) -> dict:
+    """Save a new revision of the board's power-up sequence and analyse it; a document the analysis cannot read
+    is refused with every field named, and nothing is stored."""
+    seq, _, _ = sequences.save_sequence(session=session, actor=actor, board_id=board_id, document=body.document,
+                                        base_sha256=body.base_sha256, message=body.message)
+    return sequences.sequence_dict(session, seq)
+
+
+@router.post("/{board_id}/sequence/approvals", status_code=201, response_model=SequenceApproval,
+             responses=errors(400, 401, 403, 404, 409, 422))
+def approve_sequence(board_id: IdPath, body: ApprovalIn, session: SessionDep, actor: Reviewer) -> dict:
+    """Approve the board's sequence as its current result reads it (its head revision, named by sha256; never a
+    revision you saved)."""
+    approval = sequences.approve(session=session, actor=actor, board_id=board_id, sha256=body.sha256,
+                                 comment=body.comment)
+    return sequences.approval_dict(approval)

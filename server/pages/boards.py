@@ -2,9 +2,10 @@
 
 from __future__ import annotations
 
+import json
 from typing import Annotated, Any
 
-from fastapi import APIRouter, Depends, Request
+from fastapi import APIRouter, Depends, Form, Request
 from fastapi.responses import HTMLResponse, RedirectResponse
 from sqlalchemy.orm import Session
 
@@ -13,13 +14,16 @@ from server.auth import CurrentActor, require
 from server.db import SessionDep
 from server.pages import signoff_view
 from server.pages.display import VERDICT_ORDER, check_records, fmt, verdict_style, worst_check
-from server.pages.plots import budget_figure
+from server.pages.plots import budget_figure, sequence_figure
 from server.pages.rendering import page_context, redirect, render
-from server.services import budget, overview, reviews
+from server.services import budget, overview, reviews, sequences
 from server.services.access import Actor, Permission
+from server.services.errors import Conflict, Forbidden, Invalid, NotFound
 
 router = APIRouter(include_in_schema=False)
 Analyst = Annotated[Actor, Depends(require(Permission.ANALYZE))]
+Editor = Annotated[Actor, Depends(require(Permission.EDIT))]
+Reviewer = Annotated[Actor, Depends(require(Permission.REVIEW))]
 MODES = ("hard", "slew", "current_limit", "power_limit")
 
 
@@ -56,8 +60,32 @@ def _budget_title(entry: dict[str, Any]) -> tuple[str, str]:
     return name, words
 
 
+def sequence_context(session: Session, actor: Actor, board_id: int, *, text: str | None = None,
+                     error: dict[str, Any] | None = None) -> dict[str, Any]:
+    """The board's power-up sequence as the page shows it: the stored result's checks and timelines
+    (one per corner), its approvals and its document as JSON for editing."""
+    try:
+        seq = sequences.get_sequence(session=session, actor=actor, board_id=board_id)
+    except NotFound:
+        return {"exists": False, "text": text or "", "error": error}
+    data = sequences.sequence_dict(session, seq)
+    session.commit()  # a result computed at this read (a rail changed since) is kept
+    result = data["result"]
+    corners = []
+    for c in result.get("corners", []):
+        title = f"Board start-up at the {c['title']}"
+        corners.append({"id": f"sequence-{c['id']}", "title": title, "figure": sequence_figure(c, title),
+                        "checks": [ch for ch in result["checks"] if ch["corner"] == c["id"]],
+                        "finished": c["finished"]})
+    return {"exists": True, "n": data["n"], "sha256": data["sha256"], "author": data["author"],
+            "verdict": result["verdict"], "corners": corners, "approvals": data["approvals"],
+            "conventions": result.get("conventions", []), "caution": result.get("caution"),
+            "problem": result.get("error"), "duration_s": result.get("duration_s"),
+            "text": text if text is not None else json.dumps(data["document"], indent=2), "error": error}
+
+
 def board_context(session: Session, actor: Actor, board_id: int, *, q: str = "", verdict: str = "",
-                  mode: str = "") -> dict[str, Any]:
+                  mode: str = "", sequence: dict[str, Any] | None = None) -> dict[str, Any]:
     data = overview.board_rails(session=session, actor=actor, board_id=board_id)
     signoffs = signoff_view.board_signoff(session, board_id, data["product"].team_id)
     rows = [_row(r, signoffs[r["id"]]) for r in data["rails"]]
@@ -85,6 +113,7 @@ def board_context(session: Session, actor: Actor, board_id: int, *, q: str = "",
             "retired": data["retired"], "review": review,
             "counts": [(v, counts[v]) for v in VERDICT_ORDER if counts.get(v)], "supplies": supplies,
             "job": job, "filters": {"q": q, "verdict": verdict, "mode": mode}, "modes": MODES,
+            "sequence": sequence or sequence_context(session, actor, board_id),
             "verdict_words": [verdict_style(v).word for v in VERDICT_ORDER]}
 
 
@@ -100,3 +129,37 @@ def analyse_board(board_id: int, session: SessionDep, actor: Analyst) -> Redirec
     """Queue every rail of the board; the board page shows the progress."""
     jobs.enqueue_board(session=session, actor=actor, board_id=board_id)
     return redirect(f"/boards/{board_id}#analysis")
+
+
+@router.post("/boards/{board_id}/sequence", response_class=HTMLResponse)
+def save_sequence(board_id: int, request: Request, session: SessionDep, actor: Editor,
+                  document: Annotated[str, Form()] = "", message: Annotated[str, Form()] = "") -> Any:
+    """Save the board's power-up sequence from its JSON form; a document that cannot be read is shown again
+    with every problem named, and nothing is stored."""
+    try:
+        parsed = json.loads(document)
+    except json.JSONDecodeError as exc:
+        error = {"message": f"The sequence is not valid JSON: {exc}", "details": []}
+    else:
+        try:
+            sequences.save_sequence(session=session, actor=actor, board_id=board_id, document=parsed,
+                                    message=message[:500])
+            return redirect(f"/boards/{board_id}#sequence")
+        except (Invalid, Conflict) as exc:
+            session.rollback()
+            error = {"message": exc.message, "details": exc.details}
+    ctx = board_context(session, actor, board_id,
+                        sequence=sequence_context(session, actor, board_id, text=document, error=error))
+    return render(request, "board.html", page_context(request, actor, **ctx), 422)
+
+
+@router.post("/boards/{board_id}/sequence/approvals")
+def approve_sequence(board_id: int, session: SessionDep, actor: Reviewer, sha256: Annotated[str, Form()] = "",
+                     comment: Annotated[str, Form()] = "") -> RedirectResponse:
+    """Approve the board's sequence as its current result reads it."""
+    try:
+        sequences.approve(session=session, actor=actor, board_id=board_id, sha256=sha256,
+                          comment=comment.strip()[:2000] or "approved")
+    except (Conflict, Forbidden):
+        session.rollback()
+    return redirect(f"/boards/{board_id}#sequence")

@@ -25,8 +25,8 @@ from server.pages.display import fmt as format_quantity
 from server.schemas.result import AnalysisResult, MonteCarlo, Waveforms
 
 __all__ = ["PALETTE", "VERDICT_COLOURS", "startup_figure", "soa_figure", "timer_figure", "monte_carlo_figure",
-           "startup_overlay_figure", "soa_overlay_figure", "timer_limits", "budget_figure", "part_soa_figure", "zth_figure", "zth_fit_figure",
-           "pulse_label", "risk_trend_figure"]
+           "startup_overlay_figure", "soa_overlay_figure", "timer_limits", "budget_figure", "part_soa_figure",
+           "zth_figure", "zth_fit_figure", "pulse_label", "risk_trend_figure", "sequence_figure"]
 
 INK, GRID, AXIS = "#22303c", "#e4e8ed", "#9aa5b1"
 PALETTE = ["#3a6ea5", "#2a9d8f", "#c98a1b", "#8e5a9b", "#5c6b7a", "#b5523b", "#6f8f3a", "#a0527a"]
@@ -481,6 +481,43 @@ def budget_figure(entry: dict[str, Any], title: str) -> dict[str, Any] | None:
     layout = _layout(title, height=380, xaxis=_axis("Time since a common turn-on", "s"),
                      yaxis=_axis("Current drawn from the supply", "A", rangemode="tozero"), shapes=shapes,
                      annotations=annotations, hovermode="x unified")
+    return {"data": data, "layout": layout}
+
+
+# --- board power-up sequence ----------------------------------------------------------------
+
+def sequence_figure(corner: dict[str, Any], title: str) -> dict[str, Any] | None:
+    """One corner of the board start-up: every supply's voltage with its UVLO thresholds (top), each rail's
+    input current and every supply's total (bottom), on one time axis. The figures come from the stored
+    result (``railsign.sequence-result/1``); nothing is computed here."""
+    series = corner.get("series") or {}
+    t = series.get("t") or []
+    if not t:
+        return None
+    x = _r(t)
+    top, bottom = _stacked_axes(2, 0.08)
+    data, shapes = [], []
+    for k, sup in enumerate(corner["supplies"]):
+        s = series["supplies"][sup["id"]]
+        colour = PALETTE[k % len(PALETTE)]
+        data.append({"type": "scatter", "mode": "lines", "name": f"{sup['name']} voltage", "x": x, "y": _r(s["v"]),
+                     "line": {"color": colour, "width": 2}, "yaxis": "y",
+                     "hovertemplate": "%{y:.4s}V<extra>" + sup["name"] + "</extra>"})
+        data.append({"type": "scatter", "mode": "lines", "name": f"{sup['name']} total current", "x": x,
+                     "y": _r(s["i"]), "line": {"color": colour, "width": 2.5}, "yaxis": "y2",
+                     "hovertemplate": "%{y:.3s}A<extra>" + sup["name"] + " total</extra>"})
+        for level in sup.get("uvlo") or []:
+            shapes.append(_hline(level, VERDICT_COLOURS["fail"], "y", "dot"))
+        if sup.get("i_max"):
+            shapes.append(_hline(sup["i_max"], VERDICT_COLOURS["fail"], "y2", "dot"))
+    for rail in corner["rails"]:
+        r = series["rails"][rail["id"]]
+        data.append({"type": "scatter", "mode": "lines", "name": f"rail {rail['id']}", "x": x, "y": _r(r["i"]),
+                     "line": {"width": 1}, "yaxis": "y2", "hovertemplate": "%{y:.3s}A<extra>" + rail["id"] + "</extra>"})
+    layout = _layout(title, height=560, hovermode="x unified", shapes=shapes,
+                     xaxis=_axis("Time since the first enable", "s", anchor="y2"),
+                     yaxis=_axis("Supply voltage", "V", domain=top),
+                     yaxis2=_axis("Current", "A", domain=bottom, rangemode="tozero"))
     return {"data": data, "layout": layout}
 
 

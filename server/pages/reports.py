@@ -22,11 +22,12 @@ from sqlalchemy.orm import Session
 
 from server.auth import CurrentActor
 from server.db import SessionDep
-from server.pages.plots import soa_figure, startup_figure
+from server.pages.plots import sequence_figure, soa_figure, startup_figure
 from server.pages.rendering import page_context, render
 from server.schemas.result import AnalysisResult
-from server.services import catalog, reports, results
+from server.services import catalog, reports, results, sequences
 from server.services.access import Actor
+from server.services.errors import NotFound
 from server.templating import templates
 
 router = APIRouter(include_in_schema=False)
@@ -91,7 +92,27 @@ def report_context(session: Session, actor: Actor, board_id: int, *, plots: bool
     for entry in report["rails"]:
         entry["body_html"] = _body_html(session, entry, plots)
     return {"report": report, "board": report["board"], "product": report["product"],
+            "sequence": _sequence_section(session, actor, board_id, plots),
             "archived": reports.list_archives(session=session, actor=actor, board_id=board_id)}
+
+
+def _sequence_section(session: Session, actor: Actor, board_id: int, plots: bool) -> dict[str, Any] | None:
+    """The board's power-up sequence in the report: its revision, verdict, checks and timelines per corner
+    (the stored result of the board as it is now; None when the board has no sequence)."""
+    try:
+        seq = sequences.get_sequence(session=session, actor=actor, board_id=board_id)
+    except NotFound:
+        return None
+    data = sequences.sequence_dict(session, seq)
+    session.commit()  # a result computed at this read (a rail changed since) is kept
+    result = data["result"]
+    corners = [{"id": f"report-sequence-{c['id']}", "title": f"Board start-up at the {c['title']}",
+                "figure": sequence_figure(c, f"Board start-up at the {c['title']}") if plots else None,
+                "checks": [ch for ch in result["checks"] if ch["corner"] == c["id"]]}
+               for c in result.get("corners", [])]
+    return {"n": data["n"], "sha256": data["sha256"], "verdict": result["verdict"], "corners": corners,
+            "conventions": result.get("conventions", []), "problem": result.get("error"),
+            "approvals": data["approvals"]}
 
 
 @router.get("/boards/{board_id}/report", response_class=HTMLResponse)

@@ -91,3 +91,11 @@ class AnalysisRequest(_Body):
 class BoardAnalysisRequest(_Body):
     corners: bool = True
     force: bool = False
+
+
+class SequenceSave(_Body):
+    document: dict[str, Any] = Field(description="the board's power-up sequence (schema railsign.sequence/1); rails "
+                                                 "by ref (the rail's name on this board) or inline")
+    base_sha256: str | None = Field(None, pattern=r"^[0-9a-f]{64}$",
+                                    description="sha256 of the revision the edit started from (none: any)")
+    message: Message = ""

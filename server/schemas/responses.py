@@ -24,7 +24,8 @@ __all__ = ["ErrorDetail", "ErrorInfo", "ErrorResponse", "Page", "Listing", "Heal
            "PartStatus", "RailSummary", "RailListItem", "Rail", "RailSaved", "FieldChange", "RevisionDiff",
            "AnalysisOptions", "Job", "Approval", "Waiver", "ResultReading", "SignoffStatus", "TransitionTaken",
            "WorkflowDefinition", "Workflow", "WorkflowReplaced", "TeamSummary", "Team", "User", "UserListItem", "Me",
-           "Token", "NewToken", "AuditEntry", "RiskCheck", "ProductRisks", "ArchivedReport"]
+           "Token", "NewToken", "AuditEntry", "RiskCheck", "ProductRisks", "ArchivedReport", "SequenceApproval",
+           "BoardSequence"]
 
 T = TypeVar("T")
 Timestamp = Annotated[str, Field(description="ISO 8601 time, UTC", json_schema_extra={"format": "date-time"})]
@@ -782,3 +783,27 @@ class ArchivedReport(_Model):
                         pattern=r"^[0-9a-f]{64}$")
     size: int = Field(description="bytes")
     download: str = Field(description="where the PDF is")
+
+
+class SequenceApproval(_Model):
+    id: int
+    revision_n: int
+    reviewer: str
+    comment: str
+    created_at: Timestamp
+    stale: bool
+    stale_reason: str
+    current: bool = Field(description="not stale, and given against the result of the board as it is now")
+
+
+class BoardSequence(_Model):
+    board_id: int
+    n: int = Field(description="the head revision's number")
+    sha256: Sha256
+    author: str
+    message: str
+    created_at: Timestamp
+    document: dict[str, Any]
+    result: dict[str, Any] | None = Field(None, description="the board start-up with the rails as they are now "
+                                                            "(railsign.sequence-result/1): checks, figures, series")
+    approvals: list[SequenceApproval]

@@ -27,7 +27,7 @@ from sqlalchemy.orm import Session
 
 from server.models import PartRevision, Rail, RailRevision, utcnow
 from server.schemas.rail import RAIL_FET_KEYS, document_sha256, part_data
-from server.services import jobs, signoff
+from server.services import jobs, sequences, signoff
 from server.services.access import Actor, Permission
 from server.services.audit import record
 from server.services.catalog import get_board
@@ -57,9 +57,11 @@ class PartRef:
 def _after_new_revision(session: Session, actor: Actor, rail: Rail, revision: RailRevision, *,
                         previous: RailRevision | None) -> None:
     """What a new revision sets going in its own transaction: its analysis is queued, then the
-    sign-off reacts (approvals of older revisions stale, the rail to its workflow's state)."""
+    sign-off reacts (approvals of older revisions stale, the rail to its workflow's state), and the
+    approvals of its board's power-up sequence go stale when the sequence uses the rail."""
     jobs.enqueue_for_revision(session, actor, rail, revision)
     signoff.on_new_revision(session, actor, rail, revision, previous=previous)
+    sequences.on_rail_revision(session, actor, rail)
 
 
 def _summary(doc: dict) -> dict:

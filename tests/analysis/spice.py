@@ -23,7 +23,8 @@ from pathlib import Path
 
 import numpy as np
 
-__all__ = ["NGSPICE", "ngspice_missing_message", "simulate_ngspice", "simulate_turn_off", "longest_time_below"]
+__all__ = ["NGSPICE", "ngspice_missing_message", "simulate_ngspice", "simulate_turn_off", "simulate_ngspice_sequence",
+           "longest_time_below"]
 
 NGSPICE = shutil.which("ngspice")
 
@@ -168,6 +169,69 @@ def simulate_ngspice(tmp_path: Path, *, t_stop: float, points: int = 40000, **ci
         "e_fet": float(np.sum(dt * 0.5 * (p[1:] + p[:-1]))),
         "t_limit": t_limit,
     }
+
+
+def _sequence_netlist(*, v, r, c_bus, rails, t_stop, t_max, out_file):
+    """Several switched rails on one source: ideal v behind r (and c_bus on the shared bus), each rail a
+    B-source switch that conducts forward only from its enable instant t_en (the step function u()), its resistance
+    falling log-linearly from r_off to rds over t_on, its current capped at i_limit; then its capacitor
+    (with esr) and its resistive load."""
+    lines = ["* railsign board sequence reference circuit", f"V1 vs 0 DC {_n(v)}",
+             "Vsrc vs vs2 DC 0", f"R1 vs2 bus {_n(r)}"]
+    if c_bus:
+        lines.append(f"Cbus bus 0 {_n(c_bus)} IC={_n(v)}")
+    probes = ["i(vsrc)", "v(bus)"]
+    for k, rail in enumerate(rails):
+        ten = _n(rail["t_en"])
+        if rail.get("t_on", 0.0) > 0:
+            a, b = math.log(rail["r_off"]), math.log(rail["rds"]) - math.log(rail["r_off"])
+            rsw = f"exp({_n(a)} + {_n(b)} * min(max(time - {ten}, 0) / {_n(rail['t_on'])}, 1))"
+        else:
+            rsw = _n(rail["rds"])
+        expr = f"V(bus,o{k}) / ({rsw})"
+        if rail.get("i_limit") is not None:
+            expr = f"min({expr}, {_n(rail['i_limit'])})"
+        lines.append(f"Vs{k} bus b{k} DC 0")
+        lines.append(f"B{k} b{k} o{k} I = u(time - {ten}) * max({expr}, 0)")
+        if rail.get("esr", 0.0) > 0:
+            lines += [f"Re{k} o{k} x{k} {_n(rail['esr'])}", f"C{k} x{k} 0 {_n(rail['c'])} IC=0"]
+        else:
+            lines.append(f"C{k} o{k} 0 {_n(rail['c'])} IC=0")
+        if rail.get("r_load") is not None:
+            lines.append(f"Rl{k} o{k} 0 {_n(rail['r_load'])}")
+        probes += [f"i(vs{k})", f"v(o{k})"]
+    lines += [
+        ".options reltol=1e-6 abstol=1e-12 vntol=1e-9 method=gear maxord=2 itl4=100",
+        ".control",
+        f"tran {_n(t_max)} {_n(t_stop)} 0 {_n(t_max)} uic",
+        f"wrdata {out_file} {' '.join(probes)}",
+        "quit",
+        ".endc",
+        ".end",
+    ]
+    return "\n".join(lines) + "\n"
+
+
+def simulate_ngspice_sequence(tmp_path: Path, *, t_stop: float, points: int = 40000, **circuit) -> dict:
+    """Run ngspice -b on several switched rails sharing one source (`_sequence_netlist`).
+
+    Returns
+    -------
+    dict
+        ``t``, ``i_src`` (the source current), ``v_bus``, and per rail lists ``i`` and ``v_out``.
+    """
+    if NGSPICE is None:
+        raise RuntimeError(ngspice_missing_message())
+    out_file = "wave.txt"
+    net = _sequence_netlist(t_stop=t_stop, t_max=t_stop / points, out_file=out_file, **circuit)
+    (tmp_path / "board.cir").write_text(net)
+    proc = subprocess.run([NGSPICE, "-b", "board.cir"], cwd=tmp_path, capture_output=True, text=True, timeout=120)
+    if proc.returncode != 0 or not (tmp_path / out_file).exists():
+        raise RuntimeError(f"ngspice failed: {proc.stdout[-2000:]} {proc.stderr[-2000:]}")
+    data = np.loadtxt(tmp_path / out_file)
+    n = len(circuit["rails"])
+    return {"t": data[:, 0], "i_src": data[:, 1], "v_bus": data[:, 3],
+            "i": [data[:, 5 + 4 * k] for k in range(n)], "v_out": [data[:, 7 + 4 * k] for k in range(n)]}
 
 
 def longest_time_below(t: np.ndarray, v: np.ndarray, level: float) -> float:
