@@ -23,11 +23,12 @@ from fastapi.exceptions import RequestValidationError
 from fastapi.openapi.docs import get_swagger_ui_html, get_swagger_ui_oauth2_redirect_html
 from fastapi.responses import FileResponse, HTMLResponse, JSONResponse, RedirectResponse, Response
 from fastapi.staticfiles import StaticFiles
+from starlette.datastructures import MutableHeaders
 from starlette.exceptions import HTTPException as StarletteHTTPException
 
 from server import __version__
 from server.api import api_router
-from server.auth import SessionCookie
+from server.auth import ActorCache, SessionCookie, TokenUse
 from server.config import WEB_DIR, Settings, get_settings
 from server.csrf import csrf_guard, masked
 from server.db import UNREACHABLE_ERRORS, OutageLog, is_busy, make_engine, make_sessionmaker, ping
@@ -133,12 +134,55 @@ class HeadAsGet:
         await self.app({**scope, "method": "GET"}, receive, send_headers_only)
 
 
+class ResponseHeaders:
+    """Every response: its request id (``X-Request-ID``, taken from the request or made), the app's own
+    time (``Server-Timing``, to the start of the response) and the security headers."""
+
+    def __init__(self, app, cookie_secure: bool) -> None:  # noqa: ANN001
+        self.app, self.cookie_secure = app, cookie_secure
+
+    async def __call__(self, scope, receive, send) -> None:  # noqa: ANN001
+        if scope["type"] != "http":
+            await self.app(scope, receive, send)
+            return
+        start = time.perf_counter()
+        request_id = ""
+        for name, value in scope["headers"]:
+            if name == b"x-request-id":
+                request_id = value.decode("latin-1")
+                break
+        request_id = request_id or uuid.uuid4().hex[:16]
+        scope.setdefault("state", {})["request_id"] = request_id
+
+        async def send_with_headers(message) -> None:  # noqa: ANN001
+            if message["type"] == "http.response.start":
+                elapsed_ms = (time.perf_counter() - start) * 1000
+                headers = MutableHeaders(scope=message)
+                headers["X-Request-ID"] = request_id
+                headers["Server-Timing"] = f"app;dur={elapsed_ms:.2f}"
+                headers.setdefault("Content-Security-Policy", CONTENT_SECURITY_POLICY)
+                for name, value in SECURITY_HEADERS.items():
+                    headers[name] = value
+                if self.cookie_secure:
+                    headers["Strict-Transport-Security"] = HSTS
+                log.debug("%s %s -> %s in %.1f ms", scope["method"], scope["path"], message["status"], elapsed_ms)
+            await send(message)
+
+        await self.app(scope, receive, send_with_headers)
+
+
 class Admission:
     """At most ``slots`` requests at work in this process; a request waits ``wait_s`` at most for a
-    turn, else it is answered 503 at once (instead of queueing in the thread pool behind the others)."""
+    turn, else it is answered 503 at once (instead of queueing in the thread pool behind the others).
 
-    def __init__(self, slots: int, wait_s: float) -> None:
+    Static files need no turn. Event streams (paths ending in ``/events``) stay open for minutes, so
+    they take no request slot but one of ``stream_slots`` of their own; with none free they are
+    answered 503 at once (the page then falls back to polling)."""
+
+    def __init__(self, app, slots: int, wait_s: float, stream_slots: int = 64) -> None:  # noqa: ANN001
+        self.app = app
         self.slots, self.wait_s = slots, wait_s
+        self.stream_slots, self.streams = stream_slots, 0
         self._free: asyncio.Semaphore | None = None  # made in the server's event loop
 
     async def enter(self) -> bool:
@@ -153,6 +197,28 @@ class Admission:
     def leave(self) -> None:
         assert self._free is not None
         self._free.release()
+
+    async def __call__(self, scope, receive, send) -> None:  # noqa: ANN001
+        if scope["type"] != "http" or scope["path"].startswith("/static/"):
+            await self.app(scope, receive, send)
+            return
+        if scope["path"].endswith("/events") and scope["method"] in ("GET", "HEAD"):
+            if self.streams >= self.stream_slots:
+                await unavailable_response(Request(scope), busy=True)(scope, receive, send)
+                return
+            self.streams += 1
+            try:
+                await self.app(scope, receive, send)
+            finally:
+                self.streams -= 1
+            return
+        if not await self.enter():
+            await unavailable_response(Request(scope), busy=True)(scope, receive, send)
+            return
+        try:
+            await self.app(scope, receive, send)
+        finally:
+            self.leave()
 
 
 def _error_page(request: Request, status: int, message: str, headers: dict[str, str] | None = None) -> Response:
@@ -240,6 +306,7 @@ def create_app(settings: Settings | None = None) -> FastAPI:
         yield
         if pool is not None:
             pool.stop()
+        app.state.token_use.flush()
         engine.dispose()
 
     app = FastAPI(title="railsign", version=__version__, lifespan=lifespan,
@@ -251,41 +318,13 @@ def create_app(settings: Settings | None = None) -> FastAPI:
     app.state.outage_log = OutageLog(log)
     app.state.read_sessionmaker = make_sessionmaker(engine, read_only=True)
     app.state.session_cookie = SessionCookie(settings)
+    app.state.actor_cache = ActorCache(engine)
+    app.state.token_use = TokenUse(app.state.sessionmaker)
 
-    @app.middleware("http")
-    async def _request_id_and_timing(request: Request, call_next):
-        request.state.request_id = request.headers.get("x-request-id") or uuid.uuid4().hex[:16]
-        start = time.perf_counter()
-        response = await call_next(request)
-        elapsed_ms = (time.perf_counter() - start) * 1000
-        response.headers["X-Request-ID"] = request.state.request_id
-        response.headers["Server-Timing"] = f"app;dur={elapsed_ms:.2f}"
-        log.debug("%s %s -> %s in %.1f ms", request.method, request.url.path, response.status_code, elapsed_ms)
-        return response
-
-    admission = Admission(settings.max_concurrent_requests, settings.busy_wait_s)
-
-    @app.middleware("http")
-    async def _security_headers(request: Request, call_next):
-        response = await call_next(request)
-        response.headers.setdefault("Content-Security-Policy", CONTENT_SECURITY_POLICY)
-        for name, value in SECURITY_HEADERS.items():
-            response.headers[name] = value
-        if settings.cookie_secure:
-            response.headers["Strict-Transport-Security"] = HSTS
-        return response
-
-    @app.middleware("http")
-    async def _admission(request: Request, call_next):
-        if request.url.path.startswith("/static/"):
-            return await call_next(request)
-        if not await admission.enter():
-            return unavailable_response(request, busy=True)
-        try:
-            return await call_next(request)
-        finally:
-            admission.leave()
-
+    # plain ASGI middleware (no task group and body streams of their own, as function middleware has):
+    # request id, timing and security headers around admission (added last, so outside it)
+    app.add_middleware(Admission, slots=settings.max_concurrent_requests, wait_s=settings.busy_wait_s)
+    app.add_middleware(ResponseHeaders, cookie_secure=settings.cookie_secure)
     # compressed answers for clients that ask; CSRF tokens in bodies are masked per response (server.csrf)
     app.add_middleware(GZipMiddleware, minimum_size=1000, compresslevel=6)
     app.add_middleware(HeadAsGet)
