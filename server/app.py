@@ -4,8 +4,6 @@ from __future__ import annotations
 
 import asyncio
 import base64
-import functools
-import gzip
 import hashlib
 import logging
 import re
@@ -16,12 +14,11 @@ from pathlib import Path
 from typing import Any
 
 import fastapi_offline
-import plotly
 from fastapi import Depends, FastAPI, Request
 from starlette.middleware.gzip import GZipMiddleware
 from fastapi.exceptions import RequestValidationError
 from fastapi.openapi.docs import get_swagger_ui_html, get_swagger_ui_oauth2_redirect_html
-from fastapi.responses import FileResponse, HTMLResponse, JSONResponse, RedirectResponse, Response
+from fastapi.responses import HTMLResponse, JSONResponse, RedirectResponse, Response
 from fastapi.staticfiles import StaticFiles
 from starlette.datastructures import MutableHeaders
 from starlette.exceptions import HTTPException as StarletteHTTPException
@@ -33,8 +30,9 @@ from server.config import WEB_DIR, Settings, get_settings
 from server.csrf import csrf_guard, masked
 from server.db import UNREACHABLE_ERRORS, OutageLog, is_busy, make_engine, make_sessionmaker, ping
 from server.limits import BodyLimit, OptionsAnswer, allowed_methods
-from server.pages import page_router
+from server.pages import assets, page_router
 from server.pages.common import login_url
+from server.pages.page_cache import PageCache
 from server.services import jobs
 from server.schemas.responses import DatabaseHealth, Health
 from server.services.errors import ServiceError, Unauthenticated
@@ -42,7 +40,6 @@ from server.templating import templates
 from server.worker import WorkerPool
 
 log = logging.getLogger("railsign.http")
-PLOTLY_DIR = Path(plotly.__file__).parent / "package_data"
 # Swagger UI 5 (it reads OpenAPI 3.1, which FastAPI writes), as packaged for offline use by fastapi-offline.
 DOCS_ASSETS_DIR = Path(fastapi_offline.__file__).parent / "static"
 
@@ -108,12 +105,6 @@ def _inline_script_policy(html: str) -> str:
     return CONTENT_SECURITY_POLICY.replace("script-src 'self'", f"script-src 'self' {hashes}")
 
 
-@functools.lru_cache(maxsize=1)
-def _plotly_gzip() -> bytes:
-    """The plotting library's script, gzip-compressed (level 9), made once per process."""
-    return gzip.compress((PLOTLY_DIR / "plotly.min.js").read_bytes(), compresslevel=9, mtime=0)
-
-
 class HeadAsGet:
     """Every GET route answers HEAD: the request is served as a GET and its body left out (the headers,
     Content-Length included, are those of the GET)."""
@@ -131,7 +122,7 @@ class HeadAsGet:
                 message = {**message, "body": b""}
             await send(message)
 
-        await self.app({**scope, "method": "GET"}, receive, send_headers_only)
+        await self.app({**scope, "method": "GET", "railsign.head": True}, receive, send_headers_only)
 
 
 class ResponseHeaders:
@@ -307,6 +298,7 @@ def create_app(settings: Settings | None = None) -> FastAPI:
         if pool is not None:
             pool.stop()
         app.state.token_use.flush()
+        app.state.page_cache.clock.close()
         engine.dispose()
 
     app = FastAPI(title="railsign", version=__version__, lifespan=lifespan,
@@ -320,6 +312,7 @@ def create_app(settings: Settings | None = None) -> FastAPI:
     app.state.session_cookie = SessionCookie(settings)
     app.state.actor_cache = ActorCache(engine)
     app.state.token_use = TokenUse(app.state.sessionmaker)
+    app.state.page_cache = PageCache(engine)
 
     # plain ASGI middleware (no task group and body streams of their own, as function middleware has):
     # request id, timing and security headers around admission (added last, so outside it)
@@ -333,6 +326,7 @@ def create_app(settings: Settings | None = None) -> FastAPI:
     app.add_middleware(OptionsAnswer, router=app.router)
     app.include_router(api_router)
     app.include_router(page_router)
+    app.include_router(assets.router)  # before the /static mount, which would take its paths
 
     @app.get("/healthz", tags=["health"], response_model=Health,
              responses={503: {"model": Health, "description": "The database does not answer (status degraded)"}})
@@ -343,16 +337,6 @@ def create_app(settings: Settings | None = None) -> FastAPI:
                                   **({"error": problem} if problem else {}))
         body = Health(status="ok" if problem is None else "degraded", version=__version__, database=database)
         return JSONResponse(body.model_dump(exclude_unset=True), status_code=200 if problem is None else 503)
-
-    @app.get("/static/vendor/plotly.min.js", include_in_schema=False)
-    def plotly_js(request: Request) -> Response:
-        """The plotting library's JavaScript, served from the installed plotly package (no CDN); compressed
-        once per process for clients that take gzip."""
-        headers = {"Cache-Control": "public, max-age=86400", "Vary": "Accept-Encoding"}
-        if "gzip" in request.headers.get("accept-encoding", ""):
-            return Response(_plotly_gzip(), media_type="application/javascript",
-                            headers={**headers, "Content-Encoding": "gzip"})
-        return FileResponse(PLOTLY_DIR / "plotly.min.js", media_type="application/javascript", headers=headers)
 
     @app.get("/docs", include_in_schema=False)
     def api_docs() -> HTMLResponse:

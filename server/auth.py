@@ -271,6 +271,7 @@ def _actor_of(request: Request) -> Actor:
             raise Unauthenticated("the API token is unknown or revoked")
         state.token_use.note(token_id, _as_datetime(last_used_at))
         request.state.auth = "token"
+        request.state.user_rows = rows
     else:
         data = state.session_cookie.load(request.cookies.get(SESSION_COOKIE))
         if data is not None and isinstance(data["uid"], int):
@@ -281,6 +282,7 @@ def _actor_of(request: Request) -> Actor:
                 user = cache.user(data["uid"], rows, lambda: _load_user(request, data["uid"]))
                 if user is not None:
                     request.state.auth = "cookie"
+                    request.state.user_rows = rows
                     request.state.csrf_token = data.get("csrf", "")
     if user is None:
         raise Unauthenticated("log in first")

@@ -7,6 +7,16 @@ from fastapi.templating import Jinja2Templates
 from server.config import WEB_DIR
 from server.units import format_quantity
 
+
+
+def _static_url(path: str) -> str:
+    """The content-addressed URL of a static file (:mod:`server.pages.assets`)."""
+    from server.pages.assets import static_url
+
+    return static_url(path)
+
+
 templates = Jinja2Templates(directory=str(WEB_DIR / "templates"))
 templates.env.filters["eng"] = lambda value, kind, digits=3: format_quantity(value, kind, digits)
+templates.env.globals["static_url"] = lambda path: _static_url(path)
 templates.env.filters["when"] = lambda dt: dt.strftime("%Y-%m-%d %H:%M UTC") if dt else "never"
