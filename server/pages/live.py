@@ -33,7 +33,7 @@ from server.services.access import Actor
 
 router = APIRouter(include_in_schema=False)
 TICK_S = 0.05
-STREAM_LIFE_S = 600.0
+STREAM_LIFE_S = 25.0  # then the browser reconnects (a fresh session check); a server stopping waits no longer
 KEEPALIVE_S = 15.0
 RETRY_MS = 1000
 

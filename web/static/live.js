@@ -54,11 +54,15 @@
         here.querySelectorAll("details[id]").forEach(function (d) { open[d.id] = d.open; });
         var node = document.importNode(fresh, true);
         node.querySelectorAll("details[id]").forEach(function (d) { if (d.id in open) { d.open = open[d.id]; } });
+        if (window.Plotly) { here.querySelectorAll(".js-plotly-plot").forEach(function (el) { window.Plotly.purge(el); }); }
         here.replaceWith(node);
         box = document.getElementById("live");
         version = box.getAttribute("data-version");
-        if (window.railsignPlots) { window.railsignPlots.drawAll(node); }
         document.dispatchEvent(new CustomEvent("railsign:content", { detail: { root: node } }));
+        // the new content is painted first (verdicts, tables), the plots drawn after it
+        window.requestAnimationFrame(function () {
+          window.setTimeout(function () { if (window.railsignPlots) { window.railsignPlots.drawAll(node); } }, 0);
+        });
       })
       .catch(function () { /* the next state event or poll tries again */ })
       .then(function () {
