@@ -299,6 +299,7 @@ def create_app(settings: Settings | None = None) -> FastAPI:
             pool.stop()
         app.state.token_use.flush()
         app.state.page_cache.clock.close()
+        app.state.actor_cache.close()
         engine.dispose()
 
     app = FastAPI(title="railsign", version=__version__, lifespan=lifespan,

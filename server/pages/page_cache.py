@@ -164,6 +164,30 @@ class PageCache:
     def __init__(self, engine: Engine, max_bytes: int = 64 * 1024 * 1024) -> None:
         self.clock = ChangeClock(engine)
         self.pages = LruCache(max_bytes, weight=lambda v: len(v[0]) + 200)
+        self._drawing: dict[Hashable, threading.Lock] = {}
+        self._drawing_lock = threading.Lock()
+
+    def get_or_draw(self, key: Hashable | None, draw: Callable[[], tuple[bytes, str]]) -> tuple[bytes, str]:
+        """The kept page of ``key``, else ``draw()`` it, once: requests for a page being drawn wait for that
+        drawing instead of drawing it again side by side (many people opening a changed board at once)."""
+        if key is None:
+            return draw()
+        kept = self.pages.get(key)
+        if kept is not None:
+            return kept
+        with self._drawing_lock:
+            lock = self._drawing.setdefault(key, threading.Lock())
+        with lock:
+            try:
+                kept = self.pages.get(key)
+                if kept is None:
+                    kept = draw()
+                    self.pages.put(key, kept)
+                return kept
+            finally:
+                with self._drawing_lock:
+                    if self._drawing.get(key) is lock:
+                        self._drawing.pop(key, None)
 
 
 def _etag(body: bytes, session_token: str) -> str:
@@ -188,16 +212,15 @@ def cached_page(request: Request, actor: Actor, name: str, build: Callable[[], d
     if change is not None:
         key = (name, request.url.path, request.url.query, actor.user_id, getattr(request.state, "user_rows", None),
                bool(session_token), change, __version__, engine_version())
-    kept = cache.pages.get(key) if key is not None else None
-    if kept is None:
+
+    def draw() -> tuple[bytes, str]:
         context = page_context(request, actor, **build())
         if session_token:
             context["csrf_token"] = CSRF_PLACEHOLDER
         body = templates.TemplateResponse(request, name, context).body
-        kept = (body, _etag(body, session_token))
-        if key is not None:
-            cache.pages.put(key, kept)
-    body, etag = kept
+        return body, _etag(body, session_token)
+
+    body, etag = cache.get_or_draw(key, draw)
     headers = {"ETag": etag, "Cache-Control": "private, no-cache"}
     if _matches(request, etag):
         return Response(status_code=304, headers=headers)
