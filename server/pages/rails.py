@@ -65,6 +65,11 @@ def _monte_carlo_row(session: Session, sha256: str) -> models.AnalysisResult | N
 RENDERED = LruCache(256)
 
 
+def _identity(row: models.AnalysisResult) -> tuple:
+    """What names a stored result beyond its id (an id may name another result in another database)."""
+    return (row.id, row.sha256, row.engine_version, row.options_key, row.created_at, row.verdict)
+
+
 def _result_parts(row: models.AnalysisResult, sha256: str, doc: dict[str, Any]) -> dict[str, Any]:
     """The rail page's pieces of a stored result at the current engine: drawn once per (result, revision)."""
 
@@ -76,13 +81,13 @@ def _result_parts(row: models.AnalysisResult, sha256: str, doc: dict[str, Any]) 
                             "timer": timer_figure(result, doc)},
                 "timer": result.timer, "timer_limits": timer_limits(result)}
 
-    return RENDERED.get_or_make(("rail", row.id, row.engine_version, sha256), make)
+    return RENDERED.get_or_make(("rail", *_identity(row), sha256), make)
 
 
 def _mc_context(mc_row) -> dict[str, Any] | None:
     if mc_row is None:
         return None
-    return RENDERED.get_or_make(("monte-carlo", mc_row.id, mc_row.engine_version, results.engine_version()),
+    return RENDERED.get_or_make(("monte-carlo", *_identity(mc_row), results.engine_version()),
                                 lambda: _mc_parts(mc_row))
 
 
