@@ -10,9 +10,10 @@ Run: ``python tests/benchmarks/bench_pages.py [--rails N] [--seconds S] [--conne
    1 ms) and ``/api/v1/me``.
 2. wrk with ``--connections`` connections for ``--seconds`` per target (the issue's final figures: 60 s)
    against ``railsign``'s app served by uvicorn: SQLite with one web process, PostgreSQL with two.
-   Targets: the rail page (a random rail of the first board each request), the board page, the
-   product overview, ``/api/v1/me`` (all with a session cookie), ``/login`` without one and
-   ``/healthz``. Printed: requests/s, p50/p95/p99 latency, errors and non-2xx answers.
+   Targets: the rail page (the rails of the first board in turn, each page drawn once before the
+   clock starts, so kept pages are measured; and all the rails in turn, mostly drawn afresh), the
+   board page, the product overview, ``/api/v1/me`` (all with a session cookie), ``/login`` without
+   one and ``/healthz``. Printed: requests/s, p50/p95/p99 latency, errors and non-2xx answers.
 3. The previous method in the same run: ``--connections`` Python threads with their own HTTP
    connection against the same server and targets (for ``--thread-seconds``), and the ratio of the
    two. Threads share the two cores with the server, so they measure much of their own cost.
@@ -308,6 +309,14 @@ def serve(tree: Path, url: str, workers: int) -> tuple[subprocess.Popen, str]:
         time.sleep(0.2)
 
 
+def _warm(base: str, paths: list[str], cookie: str | None, workers: int) -> None:
+    """Every path asked for a few times over fresh connections (so each web process draws it once)."""
+    for _ in range(2 * workers):
+        with httpx.Client(base_url=base, cookies={SESSION_COOKIE: cookie} if cookie else None, timeout=60) as c:
+            for path in paths:
+                c.get(path, headers={"Connection": "close"})
+
+
 def load(url: str, ids: dict, cookie: str, trees: dict[str, Path], workers: int,
          args: argparse.Namespace) -> dict[str, dict[str, dict]]:
     """wrk on every target against the app of each source tree, taken in turn target by target (so that
@@ -316,8 +325,12 @@ def load(url: str, ids: dict, cookie: str, trees: dict[str, Path], workers: int,
     out: dict[str, dict[str, dict]] = {label: {} for label in trees}
     try:
         for name, paths, with_cookie in targets(ids):
+            if args.targets and not any(name.startswith(t) for t in args.targets):
+                continue
             c = cookie if with_cookie else None
             for label, (_, base) in served.items():
+                if label == "now" and len(paths) <= RAILS_PER_BOARD:  # each page drawn once before the clock starts
+                    _warm(base, paths, c, workers)
                 wrk(base, paths, c, args.connections, 2)  # warm-up, not counted: templates, connections, caches
                 out[label][name] = {"wrk": wrk(base, paths, c, args.connections, args.seconds)}
             if not args.no_threads and name.startswith(("rail page (200", "board page", "product overview")):
@@ -375,6 +388,7 @@ def main() -> None:
     parser.add_argument("--thread-seconds", type=float, default=10.0,
                         help="duration of the Python-thread method per page")
     parser.add_argument("--no-threads", action="store_true", help="leave out the Python-thread method")
+    parser.add_argument("--targets", nargs="+", help="only the load targets whose names start so ('rail page', ...)")
     parser.add_argument("--before", help="source tree of an earlier version, served on the same database")
     parser.add_argument("--engines", nargs="+", default=["sqlite", "postgres"], choices=["sqlite", "postgres"])
     args = parser.parse_args()
