@@ -19,6 +19,7 @@ from typing import Annotated, Any
 from fastapi import Depends, Request
 from itsdangerous import BadSignature, SignatureExpired, URLSafeTimedSerializer
 from sqlalchemy import Engine, bindparam, create_engine, select
+from sqlalchemy.exc import DBAPIError
 from sqlalchemy.orm import Session
 
 from server.config import Settings
@@ -148,6 +149,13 @@ class ActorCache:
             sql = str(compiled)
             self._compiled[id(stmt)] = (sql, names)
         args = [params[n] for n in names] if names is not None else params
+        dbapi_error = self._reader.dialect.loaded_dbapi.Error
+        try:
+            return self._read_once(sql, args)
+        except dbapi_error as exc:  # as SQLAlchemy wraps it elsewhere: a database that does not answer is a 503
+            raise DBAPIError.instance(sql, args, exc, dbapi_error) from exc
+
+    def _read_once(self, sql: str, args: Any) -> list[tuple]:  # noqa: ANN401
         for attempt in (1, 2):
             conn = self._reader.raw_connection()
             try:

@@ -74,3 +74,18 @@ def test_a_read_writes_nothing_in_the_request(app, client, people, session_facto
     assert client.get("/api/v1/me", headers=people.headers("reviewer")).status_code == 200
     app.state.token_use.flush()
     assert len(calls) == 1  # once, not per request
+
+
+def test_a_database_that_does_not_answer_is_reported_as_such_not_as_an_unexpected_error():
+    """The session read goes straight through the driver; its errors still reach the 503 handler."""
+    from sqlalchemy import create_engine
+
+    from server.auth import ActorCache
+    from server.db import UNREACHABLE_ERRORS
+
+    nowhere = create_engine("postgresql+psycopg://postgres@127.0.0.1:1/none", connect_args={"connect_timeout": 2})
+    try:
+        ActorCache(nowhere).rows(1)
+    except UNREACHABLE_ERRORS:
+        return
+    raise AssertionError("no error from a database that is not there")
