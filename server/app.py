@@ -4,8 +4,6 @@ from __future__ import annotations
 
 import asyncio
 import base64
-import functools
-import gzip
 import hashlib
 import logging
 import re
@@ -16,24 +14,25 @@ from pathlib import Path
 from typing import Any
 
 import fastapi_offline
-import plotly
 from fastapi import Depends, FastAPI, Request
 from starlette.middleware.gzip import GZipMiddleware
 from fastapi.exceptions import RequestValidationError
 from fastapi.openapi.docs import get_swagger_ui_html, get_swagger_ui_oauth2_redirect_html
-from fastapi.responses import FileResponse, HTMLResponse, JSONResponse, RedirectResponse, Response
+from fastapi.responses import HTMLResponse, JSONResponse, RedirectResponse, Response
 from fastapi.staticfiles import StaticFiles
+from starlette.datastructures import MutableHeaders
 from starlette.exceptions import HTTPException as StarletteHTTPException
 
 from server import __version__
 from server.api import api_router
-from server.auth import SessionCookie
+from server.auth import ActorCache, SessionCookie, TokenUse
 from server.config import WEB_DIR, Settings, get_settings
 from server.csrf import csrf_guard, masked
 from server.db import UNREACHABLE_ERRORS, OutageLog, is_busy, make_engine, make_sessionmaker, ping
 from server.limits import BodyLimit, OptionsAnswer, allowed_methods
-from server.pages import page_router
+from server.pages import assets, page_router
 from server.pages.common import login_url
+from server.pages.page_cache import PageCache
 from server.services import jobs
 from server.schemas.responses import DatabaseHealth, Health
 from server.services.errors import ServiceError, Unauthenticated
@@ -41,7 +40,6 @@ from server.templating import templates
 from server.worker import WorkerPool
 
 log = logging.getLogger("railsign.http")
-PLOTLY_DIR = Path(plotly.__file__).parent / "package_data"
 # Swagger UI 5 (it reads OpenAPI 3.1, which FastAPI writes), as packaged for offline use by fastapi-offline.
 DOCS_ASSETS_DIR = Path(fastapi_offline.__file__).parent / "static"
 
@@ -107,12 +105,6 @@ def _inline_script_policy(html: str) -> str:
     return CONTENT_SECURITY_POLICY.replace("script-src 'self'", f"script-src 'self' {hashes}")
 
 
-@functools.lru_cache(maxsize=1)
-def _plotly_gzip() -> bytes:
-    """The plotting library's script, gzip-compressed (level 9), made once per process."""
-    return gzip.compress((PLOTLY_DIR / "plotly.min.js").read_bytes(), compresslevel=9, mtime=0)
-
-
 class HeadAsGet:
     """Every GET route answers HEAD: the request is served as a GET and its body left out (the headers,
     Content-Length included, are those of the GET)."""
@@ -130,15 +122,58 @@ class HeadAsGet:
                 message = {**message, "body": b""}
             await send(message)
 
-        await self.app({**scope, "method": "GET"}, receive, send_headers_only)
+        await self.app({**scope, "method": "GET", "railsign.head": True}, receive, send_headers_only)
+
+
+class ResponseHeaders:
+    """Every response: its request id (``X-Request-ID``, taken from the request or made), the app's own
+    time (``Server-Timing``, to the start of the response) and the security headers."""
+
+    def __init__(self, app, cookie_secure: bool) -> None:  # noqa: ANN001
+        self.app, self.cookie_secure = app, cookie_secure
+
+    async def __call__(self, scope, receive, send) -> None:  # noqa: ANN001
+        if scope["type"] != "http":
+            await self.app(scope, receive, send)
+            return
+        start = time.perf_counter()
+        request_id = ""
+        for name, value in scope["headers"]:
+            if name == b"x-request-id":
+                request_id = value.decode("latin-1")
+                break
+        request_id = request_id or uuid.uuid4().hex[:16]
+        scope.setdefault("state", {})["request_id"] = request_id
+
+        async def send_with_headers(message) -> None:  # noqa: ANN001
+            if message["type"] == "http.response.start":
+                elapsed_ms = (time.perf_counter() - start) * 1000
+                headers = MutableHeaders(scope=message)
+                headers["X-Request-ID"] = request_id
+                headers["Server-Timing"] = f"app;dur={elapsed_ms:.2f}"
+                headers.setdefault("Content-Security-Policy", CONTENT_SECURITY_POLICY)
+                for name, value in SECURITY_HEADERS.items():
+                    headers[name] = value
+                if self.cookie_secure:
+                    headers["Strict-Transport-Security"] = HSTS
+                log.debug("%s %s -> %s in %.1f ms", scope["method"], scope["path"], message["status"], elapsed_ms)
+            await send(message)
+
+        await self.app(scope, receive, send_with_headers)
 
 
 class Admission:
     """At most ``slots`` requests at work in this process; a request waits ``wait_s`` at most for a
-    turn, else it is answered 503 at once (instead of queueing in the thread pool behind the others)."""
+    turn, else it is answered 503 at once (instead of queueing in the thread pool behind the others).
 
-    def __init__(self, slots: int, wait_s: float) -> None:
+    Static files need no turn. Event streams (paths ending in ``/events``) stay open for minutes, so
+    they take no request slot but one of ``stream_slots`` of their own; with none free they are
+    answered 503 at once (the page then falls back to polling)."""
+
+    def __init__(self, app, slots: int, wait_s: float, stream_slots: int = 64) -> None:  # noqa: ANN001
+        self.app = app
         self.slots, self.wait_s = slots, wait_s
+        self.stream_slots, self.streams = stream_slots, 0
         self._free: asyncio.Semaphore | None = None  # made in the server's event loop
 
     async def enter(self) -> bool:
@@ -153,6 +188,28 @@ class Admission:
     def leave(self) -> None:
         assert self._free is not None
         self._free.release()
+
+    async def __call__(self, scope, receive, send) -> None:  # noqa: ANN001
+        if scope["type"] != "http" or scope["path"].startswith("/static/"):
+            await self.app(scope, receive, send)
+            return
+        if scope["path"].endswith("/events") and scope["method"] in ("GET", "HEAD"):
+            if self.streams >= self.stream_slots:
+                await unavailable_response(Request(scope), busy=True)(scope, receive, send)
+                return
+            self.streams += 1
+            try:
+                await self.app(scope, receive, send)
+            finally:
+                self.streams -= 1
+            return
+        if not await self.enter():
+            await unavailable_response(Request(scope), busy=True)(scope, receive, send)
+            return
+        try:
+            await self.app(scope, receive, send)
+        finally:
+            self.leave()
 
 
 def _error_page(request: Request, status: int, message: str, headers: dict[str, str] | None = None) -> Response:
@@ -240,6 +297,9 @@ def create_app(settings: Settings | None = None) -> FastAPI:
         yield
         if pool is not None:
             pool.stop()
+        app.state.token_use.flush()
+        app.state.page_cache.clock.close()
+        app.state.actor_cache.close()
         engine.dispose()
 
     app = FastAPI(title="railsign", version=__version__, lifespan=lifespan,
@@ -251,41 +311,14 @@ def create_app(settings: Settings | None = None) -> FastAPI:
     app.state.outage_log = OutageLog(log)
     app.state.read_sessionmaker = make_sessionmaker(engine, read_only=True)
     app.state.session_cookie = SessionCookie(settings)
+    app.state.actor_cache = ActorCache(engine)
+    app.state.token_use = TokenUse(app.state.sessionmaker)
+    app.state.page_cache = PageCache(engine)
 
-    @app.middleware("http")
-    async def _request_id_and_timing(request: Request, call_next):
-        request.state.request_id = request.headers.get("x-request-id") or uuid.uuid4().hex[:16]
-        start = time.perf_counter()
-        response = await call_next(request)
-        elapsed_ms = (time.perf_counter() - start) * 1000
-        response.headers["X-Request-ID"] = request.state.request_id
-        response.headers["Server-Timing"] = f"app;dur={elapsed_ms:.2f}"
-        log.debug("%s %s -> %s in %.1f ms", request.method, request.url.path, response.status_code, elapsed_ms)
-        return response
-
-    admission = Admission(settings.max_concurrent_requests, settings.busy_wait_s)
-
-    @app.middleware("http")
-    async def _security_headers(request: Request, call_next):
-        response = await call_next(request)
-        response.headers.setdefault("Content-Security-Policy", CONTENT_SECURITY_POLICY)
-        for name, value in SECURITY_HEADERS.items():
-            response.headers[name] = value
-        if settings.cookie_secure:
-            response.headers["Strict-Transport-Security"] = HSTS
-        return response
-
-    @app.middleware("http")
-    async def _admission(request: Request, call_next):
-        if request.url.path.startswith("/static/"):
-            return await call_next(request)
-        if not await admission.enter():
-            return unavailable_response(request, busy=True)
-        try:
-            return await call_next(request)
-        finally:
-            admission.leave()
-
+    # plain ASGI middleware (no task group and body streams of their own, as function middleware has):
+    # request id, timing and security headers around admission (added last, so outside it)
+    app.add_middleware(Admission, slots=settings.max_concurrent_requests, wait_s=settings.busy_wait_s)
+    app.add_middleware(ResponseHeaders, cookie_secure=settings.cookie_secure)
     # compressed answers for clients that ask; CSRF tokens in bodies are masked per response (server.csrf)
     app.add_middleware(GZipMiddleware, minimum_size=1000, compresslevel=6)
     app.add_middleware(HeadAsGet)
@@ -294,6 +327,7 @@ def create_app(settings: Settings | None = None) -> FastAPI:
     app.add_middleware(OptionsAnswer, router=app.router)
     app.include_router(api_router)
     app.include_router(page_router)
+    app.include_router(assets.router)  # before the /static mount, which would take its paths
 
     @app.get("/healthz", tags=["health"], response_model=Health,
              responses={503: {"model": Health, "description": "The database does not answer (status degraded)"}})
@@ -304,16 +338,6 @@ def create_app(settings: Settings | None = None) -> FastAPI:
                                   **({"error": problem} if problem else {}))
         body = Health(status="ok" if problem is None else "degraded", version=__version__, database=database)
         return JSONResponse(body.model_dump(exclude_unset=True), status_code=200 if problem is None else 503)
-
-    @app.get("/static/vendor/plotly.min.js", include_in_schema=False)
-    def plotly_js(request: Request) -> Response:
-        """The plotting library's JavaScript, served from the installed plotly package (no CDN); compressed
-        once per process for clients that take gzip."""
-        headers = {"Cache-Control": "public, max-age=86400", "Vary": "Accept-Encoding"}
-        if "gzip" in request.headers.get("accept-encoding", ""):
-            return Response(_plotly_gzip(), media_type="application/javascript",
-                            headers={**headers, "Content-Encoding": "gzip"})
-        return FileResponse(PLOTLY_DIR / "plotly.min.js", media_type="application/javascript", headers=headers)
 
     @app.get("/docs", include_in_schema=False)
     def api_docs() -> HTMLResponse:

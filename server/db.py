@@ -126,11 +126,42 @@ def make_engine(settings: Settings) -> Engine:
         return engine
     # a row lock (two saves of one rail) is waited for as long as any other turn, then the request is busy
     lock_timeout_ms = int(settings.busy_wait_s * 1000)
-    return create_engine(
+    engine = create_engine(
         url, echo=settings.sql_echo, pool_pre_ping=True, pool_size=10, max_overflow=20,
         pool_timeout=settings.busy_wait_s,
         connect_args={"connect_timeout": 5, "options": f"-c lock_timeout={lock_timeout_ms}"},
     )
+    _install_change_notices(engine)
+    return engine
+
+
+CHANGE_CHANNEL = "railsign_change"
+_WRITES = ("INSERT", "UPDATE", "DELETE")
+
+
+def _install_change_notices(engine: Engine) -> None:
+    """PostgreSQL: every transaction that writes sends one ``NOTIFY railsign_change``, which the server
+    delivers to the listeners when (and only if) the transaction commits. The page cache of every web
+    process listens (:class:`server.pages.page_cache.ChangeClock`): a page kept from before a commit is
+    not served after it. (SQLite needs nothing of the kind: ``PRAGMA data_version`` tells the same.)"""
+
+    @event.listens_for(engine, "before_cursor_execute")
+    def _notice(conn, cursor, statement, parameters, context, executemany) -> None:  # noqa: ANN001
+        info = conn.connection.info
+        if info.get("change_noticed") or not statement.lstrip()[:6].upper().startswith(_WRITES):
+            return
+        info["change_noticed"] = True
+        cursor.connection.execute(f"NOTIFY {CHANGE_CHANNEL}")
+
+    def _reset(conn) -> None:  # noqa: ANN001
+        conn.connection.info.pop("change_noticed", None)
+
+    for name in ("commit", "rollback"):
+        event.listen(engine, name, _reset)
+
+    @event.listens_for(engine.pool, "checkin")
+    def _on_checkin(_dbapi_connection, connection_record) -> None:  # noqa: ANN001
+        connection_record.info.pop("change_noticed", None)
 
 
 def make_sessionmaker(engine: Engine, *, read_only: bool = False) -> sessionmaker[Session]:

@@ -6,7 +6,7 @@ import json
 from typing import Annotated, Any
 
 from fastapi import APIRouter, Depends, Form, Request
-from fastapi.responses import HTMLResponse, RedirectResponse
+from fastapi.responses import HTMLResponse, RedirectResponse, Response
 from sqlalchemy.orm import Session
 
 from server.services import jobs
@@ -14,9 +14,10 @@ from server.auth import CurrentActor, require
 from server.db import SessionDep
 from server.pages import signoff_view
 from server.pages.display import VERDICT_ORDER, check_records, fmt, verdict_style, worst_check
+from server.pages.page_cache import cached_page
 from server.pages.plots import budget_figure, sequence_figure
 from server.pages.rendering import page_context, redirect, render
-from server.services import budget, overview, reviews, sequences
+from server.services import budget, live, overview, reviews, sequences
 from server.services.access import Actor, Permission
 from server.services.errors import Conflict, Forbidden, Invalid, NotFound
 
@@ -114,14 +115,15 @@ def board_context(session: Session, actor: Actor, board_id: int, *, q: str = "",
             "counts": [(v, counts[v]) for v in VERDICT_ORDER if counts.get(v)], "supplies": supplies,
             "job": job, "filters": {"q": q, "verdict": verdict, "mode": mode}, "modes": MODES,
             "sequence": sequence or sequence_context(session, actor, board_id),
+            "live": live.board_state(session=session, actor=actor, board_id=board_id),
             "verdict_words": [verdict_style(v).word for v in VERDICT_ORDER]}
 
 
 @router.get("/boards/{board_id}", response_class=HTMLResponse)
 def board_page(board_id: int, request: Request, session: SessionDep, actor: CurrentActor, q: str = "",
-               verdict: str = "", mode: str = "") -> HTMLResponse:
-    ctx = board_context(session, actor, board_id, q=q, verdict=verdict, mode=mode)
-    return render(request, "board.html", page_context(request, actor, **ctx))
+               verdict: str = "", mode: str = "") -> Response:
+    return cached_page(request, actor, "board.html",
+                       lambda: board_context(session, actor, board_id, q=q, verdict=verdict, mode=mode))
 
 
 @router.post("/boards/{board_id}/analyses")

@@ -11,13 +11,14 @@ from __future__ import annotations
 from typing import Any
 
 from fastapi import APIRouter, Request
-from fastapi.responses import HTMLResponse
+from fastapi.responses import HTMLResponse, Response
 from sqlalchemy.orm import Session
 
 from server.auth import CurrentActor
 from server.db import SessionDep
 from server.pages import signoff_view
 from server.pages.display import VERDICT_ORDER, check_records, worst_check
+from server.pages.page_cache import cached_page
 from server.pages.rendering import page_context, render
 from server.services import engine_change, overview, reviews, risks
 from server.services.access import Actor, Permission
@@ -121,6 +122,5 @@ def home(request: Request, session: SessionDep, actor: CurrentActor) -> HTMLResp
 
 
 @router.get("/products/{product_id}", response_class=HTMLResponse)
-def product_page(product_id: int, request: Request, session: SessionDep, actor: CurrentActor) -> HTMLResponse:
-    ctx = product_context(session, actor, product_id)
-    return render(request, "product.html", page_context(request, actor, **ctx))
+def product_page(product_id: int, request: Request, session: SessionDep, actor: CurrentActor) -> Response:
+    return cached_page(request, actor, "product.html", lambda: product_context(session, actor, product_id))

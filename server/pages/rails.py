@@ -11,7 +11,7 @@ from __future__ import annotations
 from typing import Annotated, Any
 
 from fastapi import APIRouter, Depends, Request
-from fastapi.responses import HTMLResponse, RedirectResponse
+from fastapi.responses import HTMLResponse, RedirectResponse, Response
 from sqlalchemy.orm import Session
 
 from server import models
@@ -22,9 +22,10 @@ from server.pages import signoff_view
 from server.analysis.report import margin_text, value_text
 from server.pages.display import check_rows, input_sections, worst_check
 from server.pages.plots import monte_carlo_figure, soa_figure, startup_figure, timer_figure, timer_limits
-from server.pages.rendering import FormDep, form_dict, page_context, redirect, render
+from server.pages.page_cache import LruCache, cached_page
+from server.pages.rendering import FormDep, form_dict, redirect
 from server.schemas.result import AnalysisResult, MonteCarlo
-from server.services import overview, results
+from server.services import live, overview, results
 from server.services.access import Actor, Permission
 from server.services.errors import Invalid
 from server.services.rails import get_rail, get_revision, part_status
@@ -62,9 +63,39 @@ def _monte_carlo_row(session: Session, sha256: str) -> models.AnalysisResult | N
             or results.latest_result(session, sha256=sha256, monte_carlo=True, current_engine_only=False))
 
 
+# What a stored result renders to. A result row never changes (one revision hash, one engine version, one set
+# of options), and the rail document the figures read is the revision's, named by its hash: kept by those,
+# bounded, shared by the threads of the process.
+RENDERED = LruCache(256)
+
+
+def _identity(row: models.AnalysisResult) -> tuple:
+    """What names a stored result beyond its id (an id may name another result in another database)."""
+    return (row.id, row.sha256, row.engine_version, row.options_key, row.created_at, row.verdict)
+
+
+def _result_parts(row: models.AnalysisResult, sha256: str, doc: dict[str, Any]) -> dict[str, Any]:
+    """The rail page's pieces of a stored result at the current engine: drawn once per (result, revision)."""
+
+    def make() -> dict[str, Any]:
+        result = AnalysisResult.model_validate(row.result)
+        return {"result": result, "checks": check_rows(result.checks), "worst": worst_check(result.checks),
+                "key_figures": _key_figures(result), "headroom": _headroom(result),
+                "figures": {"startup": startup_figure(result, doc), "soa": soa_figure(result, doc),
+                            "timer": timer_figure(result, doc)},
+                "timer": result.timer, "timer_limits": timer_limits(result)}
+
+    return RENDERED.get_or_make(("rail", *_identity(row), sha256), make)
+
+
 def _mc_context(mc_row) -> dict[str, Any] | None:
     if mc_row is None:
         return None
+    return RENDERED.get_or_make(("monte-carlo", *_identity(mc_row), results.engine_version()),
+                                lambda: _mc_parts(mc_row))
+
+
+def _mc_parts(mc_row) -> dict[str, Any] | None:
     if mc_row.engine_version != results.engine_version():  # a run of an older engine, in the shape of its time
         return {"outdated": True, "n": mc_row.options.get("monte_carlo"), "engine_version": mc_row.engine_version,
                 "created_at": mc_row.created_at}
@@ -89,7 +120,8 @@ def rail_context(session: Session, actor: Actor, rail_id: int) -> dict[str, Any]
     doc = head.document
     now = results.reading(session, sha256=head.sha256)
     row = now.row if now is not None and not now.outdated else None  # outdated: signoff["outdated"] shows it
-    result = AnalysisResult.model_validate(row.result) if row is not None else None
+    parts = _result_parts(row, head.sha256, doc) if row is not None else None
+    result = parts["result"] if parts is not None else None
     signoff = signoff_view.rail_signoff(session, actor, rail.id)
     waivers = signoff_view.waivers_by_check(signoff)
     header = signoff_view.header_context(session, actor, signoff, verdict=result.verdict if result else None)
@@ -106,22 +138,16 @@ def rail_context(session: Session, actor: Actor, rail_id: int) -> dict[str, Any]
         "mc_parameters": MC_PARAMETERS | (MC_SPREAD_PARAMETERS if (doc.get("fet") or {}).get("rds_on_max") is not None
                                           else {}),
     }
-    if result is not None:
-        ctx["checks"] = check_rows(result.checks)
-        ctx["worst"] = worst_check(result.checks)
-        ctx["key_figures"] = _key_figures(result)
-        ctx["headroom"] = _headroom(result)
-        ctx["figures"] = {"startup": startup_figure(result, doc), "soa": soa_figure(result, doc),
-                          "timer": timer_figure(result, doc)}
-        ctx["timer"] = result.timer
-        ctx["timer_limits"] = timer_limits(result)
+    if parts is not None:
+        ctx.update({k: v for k, v in parts.items() if k != "result"})
     ctx["mc"] = _mc_context(_monte_carlo_row(session, head.sha256))
+    ctx["live"] = live.rail_state(session=session, actor=actor, rail_id=rail.id)
     return ctx
 
 
 @router.get("/rails/{rail_id}", response_class=HTMLResponse)
-def rail_page(rail_id: int, request: Request, session: SessionDep, actor: CurrentActor) -> HTMLResponse:
-    return render(request, "rail.html", page_context(request, actor, **rail_context(session, actor, rail_id)))
+def rail_page(rail_id: int, request: Request, session: SessionDep, actor: CurrentActor) -> Response:
+    return cached_page(request, actor, "rail.html", lambda: rail_context(session, actor, rail_id))
 
 
 @router.post("/rails/{rail_id}/analyses")

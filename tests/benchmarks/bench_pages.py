@@ -1,15 +1,26 @@
-"""Benchmark of the pages: server time with 5,000 rails stored (and results for them), and
-20 concurrent clients browsing a real uvicorn server.
+"""Benchmark of the pages: server time with 5,000 rails stored (and results for them), and a native HTTP
+load generator (wrk, from Debian's packages) against real served processes.
 
-Run: ``python tests/benchmarks/bench_pages.py [--rails N] [--clients N] [--seconds S]
-[--engines sqlite postgres]``.
+Run: ``python tests/benchmarks/bench_pages.py [--rails N] [--seconds S] [--connections N]
+[--engines sqlite postgres] [--before PATH]``.
 
-1. Server time (the app's Server-Timing header, through the ASGI test client in this
-   process) of the rail page with all its plots (goal p95 under 100 ms) and of the board
-   page (goal p95 under 300 ms), and of the other pages for comparison.
-2. ``--clients`` clients (threads with their own HTTP connection) browsing a mix of pages
-   for ``--seconds`` against ``railsign``'s app served by uvicorn in a separate process:
-   client-side latency p50, p95, p99 and requests per second.
+1. In this process (the ASGI test client; the app's own Server-Timing header): the product overview
+   with all the rails (goal under 50 ms), the rail and board pages, each drawn afresh (the page cache
+   emptied before each request) and as kept; the session check alone (``current_actor``, goal under
+   1 ms) and ``/api/v1/me``.
+2. wrk with ``--connections`` connections for ``--seconds`` per target (the issue's final figures: 60 s)
+   against ``railsign``'s app served by uvicorn: SQLite with one web process, PostgreSQL with two.
+   Targets: the rail page (the rails of the first board in turn, each page drawn once before the
+   clock starts, so kept pages are measured; and all the rails in turn, mostly drawn afresh), the
+   board page, the product overview, ``/api/v1/me`` (all with a session cookie), ``/login`` without
+   one and ``/healthz``. Printed: requests/s, p50/p95/p99 latency, errors and non-2xx answers.
+3. The previous method in the same run: ``--connections`` Python threads with their own HTTP
+   connection against the same server and targets (for ``--thread-seconds``), and the ratio of the
+   two. Threads share the two cores with the server, so they measure much of their own cost.
+4. With ``--before PATH`` (a source tree of an earlier version, e.g. ``git archive REV | tar -x -C
+   PATH``), the same wrk targets against that version served on the same database, side by side.
+
+Without wrk the load part is skipped with a message saying how to install it (``scripts/test-setup``).
 
 Seeding: rails are created through the rail service (so revisions, jobs and audit entries
 are real); the analysis runs once for each of a few distinct designs and that stored result
@@ -21,6 +32,8 @@ from __future__ import annotations
 
 import argparse
 import os
+import shutil
+import tempfile
 import random
 import socket
 import subprocess
@@ -42,7 +55,8 @@ from server.models import AnalysisResult, Job, RailRevision, utcnow  # noqa: E40
 from server.services import catalog, parts, rail_edits, results, users  # noqa: E402
 from server.services.access import Actor  # noqa: E402
 from server.worker import run_analysis  # noqa: E402
-from tests.benchmarks.common import SECRET, database, percentile, server_time_s, settings_for, summary_ms  # noqa: E402
+from tests.benchmarks.common import (SECRET, database, percentile, server_time_s, settings_for,  # noqa: E402
+                                     summary_ms, timed)
 from tests.factories import fet_doc, rail_doc  # noqa: E402
 
 RAILS_PER_BOARD = 200
@@ -127,25 +141,59 @@ def _get(client, path: str) -> float:
     return server_time_s(r)
 
 
-def server_times(app, ids: dict, repeat: int) -> None:
+def _session_check_s(app, user_id: int, repeat: int = 2000) -> list[float]:
+    """The session dependency alone (cookie to Actor), called in this process."""
+    from starlette.requests import Request
+
+    from server.auth import current_actor
+
+    cookie, _ = app.state.session_cookie.dump(user_id)
+    header = [(b"cookie", f"{SESSION_COOKIE}={cookie}".encode())]
+
+    def once() -> None:
+        current_actor(Request({"type": "http", "method": "GET", "path": "/", "query_string": b"", "app": app,
+                               "state": {}, "headers": header}))
+    for _ in range(200):
+        once()
+    return timed(once, repeat)
+
+
+def server_times(app, ids: dict, repeat: int) -> dict[str, list[float]]:
+    """Server time in this process: pages drawn afresh (caches emptied first) and as kept, the session check."""
+    from server.pages import rails as rail_pages
+
     cookie, _ = app.state.session_cookie.dump(ids["user_id"])
     rng = random.Random(1)
+    out: dict[str, list[float]] = {}
+
+    def fresh(client, path: str) -> float:
+        app.state.page_cache.pages.clear()
+        rail_pages.RENDERED.clear()
+        return _get(client, path)
+
     with TestClient(app) as client:
         client.cookies.set(SESSION_COOKIE, cookie)
         for path in ("/", f"/rails/{ids['rail_ids'][0]}", f"/boards/{ids['board_ids'][0]}"):
             _get(client, path)  # warm up: templates compiled, connections open
-        rail = [_get(client, f"/rails/{rng.choice(ids['rail_ids'])}") for _ in range(repeat)]
-        board = [_get(client, f"/boards/{ids['board_ids'][k % len(ids['board_ids'])]}") for k in range(repeat // 2)]
-        product = [_get(client, f"/products/{ids['product_id']}") for _ in range(20)]
-        history = [_get(client, f"/rails/{rng.choice(ids['rail_ids'])}/history") for _ in range(repeat // 4)]
-        part = [_get(client, f"/parts/{ids['part_id']}") for _ in range(20)]
-        home = [_get(client, "/") for _ in range(20)]
-    print(f"  rail page with plots      {summary_ms(rail)}   goal p95 < 100 ms")
-    print(f"  board page ({RAILS_PER_BOARD} rails)    {summary_ms(board)}   goal p95 < 300 ms")
-    print(f"  product overview          {summary_ms(product)}")
-    print(f"  rail history              {summary_ms(history)}")
-    print(f"  part page (all users)     {summary_ms(part)}")
-    print(f"  home                      {summary_ms(home)}")
+        product = f"/products/{ids['product_id']}"
+        out["product overview, drawn afresh"] = [fresh(client, product) for _ in range(20)]
+        out["product overview, kept"] = [_get(client, product) for _ in range(repeat)]
+        out["rail page, drawn afresh"] = [fresh(client, f"/rails/{rng.choice(ids['rail_ids'])}")
+                                          for _ in range(repeat // 4)]
+        first_board = ids["rail_ids"][:RAILS_PER_BOARD]
+        for r in first_board[:50]:
+            _get(client, f"/rails/{r}")
+        out["rail page, kept"] = [_get(client, f"/rails/{rng.choice(first_board[:50])}") for _ in range(repeat)]
+        out["board page, drawn afresh"] = [fresh(client, f"/boards/{ids['board_ids'][k % len(ids['board_ids'])]}")
+                                           for k in range(10)]
+        out["board page, kept"] = [_get(client, f"/boards/{ids['board_ids'][0]}") for _ in range(repeat)]
+        out["/api/v1/me"] = [_get(client, "/api/v1/me") for _ in range(repeat)]
+    out["session check (current_actor)"] = _session_check_s(app, ids["user_id"])
+    goals = {"product overview, drawn afresh": "goal < 50 ms", "session check (current_actor)": "goal < 1 ms"}
+    print("  server time in this process (Server-Timing; 'drawn afresh': page and result caches emptied first)")
+    for name, values in out.items():
+        print(f"    {name:<32} {summary_ms(values)}   {goals.get(name, '')}")
+    return out
 
 
 def _free_port() -> int:
@@ -154,88 +202,160 @@ def _free_port() -> int:
         return s.getsockname()[1]
 
 
-def _pick(rng: random.Random, ids: dict) -> str:
-    x = rng.random()
-    if x < 0.5:
-        return f"/rails/{rng.choice(ids['rail_ids'])}"
-    if x < 0.7:
-        return f"/boards/{rng.choice(ids['board_ids'])}"
-    if x < 0.8:
-        return f"/rails/{rng.choice(ids['rail_ids'])}/history"
-    if x < 0.9:
-        return f"/products/{ids['product_id']}"
-    if x < 0.95:
-        return f"/parts/{ids['part_id']}"
-    return "/"
+def targets(ids: dict) -> list[tuple[str, list[str], bool]]:
+    """(name, paths taken in turn, with the session cookie) of the load targets."""
+    first_board = ids["rail_ids"][:RAILS_PER_BOARD]
+    return [
+        ("rail page (200 rails of a board)", [f"/rails/{r}" for r in first_board], True),
+        (f"rail page (all {len(ids['rail_ids'])} rails)",
+         [f"/rails/{r}" for r in random.Random(7).sample(ids["rail_ids"], len(ids["rail_ids"]))], True),
+        ("board page", [f"/boards/{b}" for b in ids["board_ids"]], True),
+        ("product overview", [f"/products/{ids['product_id']}"], True),
+        ("/api/v1/me", ["/api/v1/me"], True),
+        ("/login (no session)", ["/login"], False),
+        ("/healthz", ["/healthz"], False),
+    ]
 
 
-def concurrent(url: str, app, ids: dict, clients: int, seconds: float, web_workers: int) -> None:
-    port = _free_port()
-    env = {**os.environ, "RAILSIGN_DATABASE_URL": url, "RAILSIGN_SECRET_KEY": SECRET, "RAILSIGN_WORKER_THREADS": "0"}
-    server = subprocess.Popen([sys.executable, "-m", "uvicorn", "server.app:create_app", "--factory", "--host",
-                               "127.0.0.1", "--port", str(port), "--workers", str(web_workers), "--log-level",
-                               "warning", "--no-access-log"], cwd=REPO, env=env)
-    base = f"http://127.0.0.1:{port}"
+WRK_SCRIPT = """
+local paths = {%s}
+local n = 0
+local offset = 0
+setup = function(thread) thread:set("offset", math.random(#paths)) end
+init = function(args) offset = tonumber(wrk.thread:get("offset") or 0) or 0 end
+request = function()
+  n = n + 1
+  return wrk.format("GET", paths[((n + offset) %% #paths) + 1])
+end
+done = function(summary, latency, requests)
+  local e = summary.errors
+  io.write(string.format("RESULT %%d %%d %%d %%d %%d %%d %%d\\n", summary.requests, summary.duration,
+    latency:percentile(50), latency:percentile(95), latency:percentile(99),
+    e.connect + e.read + e.write + e.timeout, e.status))
+end
+"""
+
+
+def wrk(base: str, paths: list[str], cookie: str | None, connections: int, seconds: float) -> dict[str, float]:
+    """One wrk run (2 threads, ``connections`` connections, gzip accepted as browsers do)."""
+    with tempfile.NamedTemporaryFile("w", suffix=".lua", delete=False) as f:
+        f.write(WRK_SCRIPT % ", ".join(f'"{p}"' for p in paths))
+        script = f.name
+    cmd = ["wrk", "-t2", f"-c{connections}", f"-d{max(1, round(seconds))}s", "--timeout", "10s", "-s", script,
+           "-H", "Accept-Encoding: gzip", "-H", "Accept: text/html,application/json"]
+    if cookie:
+        cmd += ["-H", f"Cookie: {SESSION_COOKIE}={cookie}"]
     try:
-        deadline = time.monotonic() + 30
-        while True:
-            try:
-                if httpx.get(base + "/healthz", timeout=1).status_code == 200:
-                    break
-            except httpx.HTTPError:
-                pass
-            assert time.monotonic() < deadline, "the server did not start"
-            time.sleep(0.2)
-        cookie, _ = app.state.session_cookie.dump(ids["user_id"])
-        latencies: list[float] = []
-        server_ms: list[float] = []
-        errors: list[str] = []
-        lock = threading.Lock()
-        start = threading.Event()
-
-        def browse(k: int) -> None:
-            rng = random.Random(100 + k)
-            mine: list[float] = []
-            theirs: list[float] = []
-            with httpx.Client(base_url=base, cookies={SESSION_COOKIE: cookie}, timeout=30) as c:
-                c.get(f"/rails/{ids['rail_ids'][k]}")  # its connection is open before the clock starts
-                start.wait()
-                end = time.monotonic() + seconds
-                while time.monotonic() < end:
-                    path = _pick(rng, ids)
-                    t0 = time.perf_counter()
-                    r = c.get(path)
-                    mine.append(time.perf_counter() - t0)
-                    theirs.append(server_time_s(r) * 1000)
-                    if r.status_code != 200:
-                        with lock:
-                            errors.append(f"{path}: {r.status_code}")
-            with lock:
-                latencies.extend(mine)
-                server_ms.extend(theirs)
-
-        threads = [threading.Thread(target=browse, args=(k,)) for k in range(clients)]
-        for t in threads:
-            t.start()
-        time.sleep(1.0)
-        t0 = time.perf_counter()
-        start.set()
-        for t in threads:
-            t.join()
-        wall = time.perf_counter() - t0
-        ms = [v * 1000 for v in latencies]
-        print(f"  {clients} clients, {web_workers} web process{'es' if web_workers > 1 else ''}, {seconds:.0f} s: "
-              f"p50 {percentile(ms, 50):.1f} ms  p95 {percentile(ms, 95):.1f} ms  p99 {percentile(ms, 99):.1f} ms  "
-              f"{len(ms) / wall:.1f} requests/s  (n={len(ms)}, errors={len(errors)})")
-        print(f"    server time under that load: p50 {percentile(server_ms, 50):.1f} ms  "
-              f"p95 {percentile(server_ms, 95):.1f} ms  p99 {percentile(server_ms, 99):.1f} ms "
-              "(inside the app: the requests in flight share the processes' CPU time, and the clients run on "
-              "the same cores)")
-        if errors:
-            print("   first errors:", errors[:5])
+        out = subprocess.run(cmd + [base + paths[0]], capture_output=True, text=True, check=True).stdout
     finally:
-        server.terminate()
-        server.wait(timeout=30)
+        os.unlink(script)
+    line = next(x for x in out.splitlines() if x.startswith("RESULT "))
+    n, duration_us, p50, p95, p99, errors, non2xx = (int(v) for v in line.split()[1:])
+    return {"rps": n / (duration_us / 1e6), "p50": p50 / 1000, "p95": p95 / 1000, "p99": p99 / 1000,
+            "errors": errors, "non2xx": non2xx, "n": n}
+
+
+def threads_method(base: str, paths: list[str], cookie: str | None, clients: int, seconds: float) -> dict[str, float]:
+    """The previous method: ``clients`` Python threads, each with its own HTTP connection, on the same cores."""
+    latencies: list[float] = []
+    lock, start = threading.Lock(), threading.Event()
+
+    def browse(k: int) -> None:
+        mine = []
+        with httpx.Client(base_url=base, cookies={SESSION_COOKIE: cookie} if cookie else None, timeout=30) as c:
+            c.get(paths[k % len(paths)])
+            start.wait()
+            end, i = time.monotonic() + seconds, k
+            while time.monotonic() < end:
+                i += 1
+                t0 = time.perf_counter()
+                c.get(paths[i % len(paths)])
+                mine.append(time.perf_counter() - t0)
+        with lock:
+            latencies.extend(mine)
+
+    threads = [threading.Thread(target=browse, args=(k,)) for k in range(clients)]
+    for t in threads:
+        t.start()
+    time.sleep(0.5)
+    t0 = time.perf_counter()
+    start.set()
+    for t in threads:
+        t.join()
+    wall = time.perf_counter() - t0
+    ms = [v * 1000 for v in latencies]
+    return {"rps": len(ms) / wall, "p50": percentile(ms, 50), "p95": percentile(ms, 95), "p99": percentile(ms, 99)}
+
+
+def serve(tree: Path, url: str, workers: int) -> tuple[subprocess.Popen, str]:
+    """The app of source tree ``tree`` served by uvicorn (no analysis workers), once it answers."""
+    port = _free_port()
+    env = {**os.environ, "RAILSIGN_DATABASE_URL": url, "RAILSIGN_SECRET_KEY": SECRET, "RAILSIGN_WORKER_THREADS": "0",
+           "PYTHONPATH": str(tree), "RAILSIGN_LOG_LEVEL": "WARNING"}
+    server = subprocess.Popen([sys.executable, "-m", "uvicorn", "server.app:create_app", "--factory", "--host",
+                               "127.0.0.1", "--port", str(port), "--workers", str(workers), "--log-level",
+                               "warning", "--no-access-log"], cwd=tree, env=env)
+    base = f"http://127.0.0.1:{port}"
+    deadline = time.monotonic() + 60
+    while True:
+        try:
+            if httpx.get(base + "/healthz", timeout=1).status_code == 200:
+                return server, base
+        except httpx.HTTPError:
+            pass
+        if time.monotonic() > deadline:
+            server.terminate()
+            raise RuntimeError("the server did not start")
+        time.sleep(0.2)
+
+
+def _warm(base: str, paths: list[str], cookie: str | None, workers: int) -> None:
+    """Every path asked for a few times over fresh connections (so each web process draws it once)."""
+    for _ in range(2 * workers):
+        with httpx.Client(base_url=base, cookies={SESSION_COOKIE: cookie} if cookie else None, timeout=60) as c:
+            for path in paths:
+                c.get(path, headers={"Connection": "close"})
+
+
+def load(url: str, ids: dict, cookie: str, trees: dict[str, Path], workers: int,
+         args: argparse.Namespace) -> dict[str, dict[str, dict]]:
+    """wrk on every target against the app of each source tree, taken in turn target by target (so that
+    both versions meet the same load of the machine), and the Python-thread method on the current one."""
+    served = {label: serve(tree, url, workers) for label, tree in trees.items()}
+    out: dict[str, dict[str, dict]] = {label: {} for label in trees}
+    try:
+        for name, paths, with_cookie in targets(ids):
+            if args.targets and not any(name.startswith(t) for t in args.targets):
+                continue
+            c = cookie if with_cookie else None
+            for label, (_, base) in served.items():
+                if label == "now" and len(paths) <= RAILS_PER_BOARD:  # each page drawn once before the clock starts
+                    _warm(base, paths, c, workers)
+                wrk(base, paths, c, args.connections, 2)  # warm-up, not counted: templates, connections, caches
+                out[label][name] = {"wrk": wrk(base, paths, c, args.connections, args.seconds)}
+            if not args.no_threads and name.startswith(("rail page (200", "board page", "product overview")):
+                out["now"][name]["threads"] = threads_method(served["now"][1], paths, c, args.connections,
+                                                             args.thread_seconds)
+    finally:
+        for server, _ in served.values():
+            server.terminate()
+            server.wait(timeout=30)
+    return out
+
+
+def _row(name: str, now: dict, before: dict | None) -> str:
+    w = now["wrk"]
+    text = (f"    {name:<34} {w['rps']:8.1f}/s  p50 {w['p50']:7.1f}  p95 {w['p95']:7.1f}  p99 {w['p99']:7.1f} ms"
+            f"  errors {w['errors']}, non-2xx {w['non2xx']}")
+    if before is not None:
+        b = before["wrk"]
+        text += (f"  | before {b['rps']:7.1f}/s p50 {b['p50']:7.1f} p95 {b['p95']:7.1f} p99 {b['p99']:7.1f} ms"
+                 f" non-2xx {b['non2xx']}  (x{w['rps'] / b['rps']:.1f})")
+    if "threads" in now:
+        t = now["threads"]
+        text += (f"\n      Python threads (previous method): {t['rps']:7.1f}/s  p50 {t['p50']:7.1f}  p95 {t['p95']:7.1f}"
+                 f" ms; wrk/threads requests/s ratio {w['rps'] / t['rps']:.2f}")
+    return text
 
 
 def run(engine_name: str, args: argparse.Namespace) -> None:
@@ -244,18 +364,32 @@ def run(engine_name: str, args: argparse.Namespace) -> None:
         print(f"{engine_name}:")
         ids = seed(app, args.rails)
         server_times(app, ids, args.repeat)
-        for workers in args.web_workers:
-            concurrent(url, app, ids, args.clients, args.seconds, workers)
+        cookie, _ = app.state.session_cookie.dump(ids["user_id"])
         app.state.engine.dispose()
+        if shutil.which("wrk") is None:
+            print("  load part skipped: wrk is not installed (Debian package 'wrk': scripts/test-setup installs it, "
+                  "or apt-get install wrk)")
+            return
+        workers = 1 if engine_name == "sqlite" else 2
+        print(f"  wrk, {args.connections} connections, {args.seconds:.0f} s per target, {workers} web "
+              f"process{'es' if workers > 1 else ''} (2 cores shared by server and load generator)")
+        trees = {"now": REPO, **({"before": Path(args.before)} if args.before else {})}
+        measured = load(url, ids, cookie, trees, workers, args)
+        for name, now in measured["now"].items():
+            print(_row(name, now, measured.get("before", {}).get(name)))
 
 
 def main() -> None:
     parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     parser.add_argument("--rails", type=int, default=5_000)
     parser.add_argument("--repeat", type=int, default=200)
-    parser.add_argument("--clients", type=int, default=20)
-    parser.add_argument("--seconds", type=float, default=20.0)
-    parser.add_argument("--web-workers", type=int, nargs="+", default=[1, 2])
+    parser.add_argument("--connections", type=int, default=20)
+    parser.add_argument("--seconds", type=float, default=60.0, help="wrk duration per target")
+    parser.add_argument("--thread-seconds", type=float, default=10.0,
+                        help="duration of the Python-thread method per page")
+    parser.add_argument("--no-threads", action="store_true", help="leave out the Python-thread method")
+    parser.add_argument("--targets", nargs="+", help="only the load targets whose names start so ('rail page', ...)")
+    parser.add_argument("--before", help="source tree of an earlier version, served on the same database")
     parser.add_argument("--engines", nargs="+", default=["sqlite", "postgres"], choices=["sqlite", "postgres"])
     args = parser.parse_args()
     for engine_name in args.engines:

@@ -3,11 +3,13 @@ pages carry no inline script, so the content security policy needs neither inlin
 
 from __future__ import annotations
 
+import hashlib
 import re
 
 import pytest
 
 from server.app import CONTENT_SECURITY_POLICY
+from server.pages.assets import PLOTTING_BUNDLE, STATIC_DIR, static_url
 from tests.conftest import make_settings
 from tests.test_route_matrix import all_routes
 from tests.pages.helpers import log_in, seed_board
@@ -78,7 +80,8 @@ def test_every_get_route_answers_head_as_its_get_without_a_body(app, client, peo
     ids = seed_board(session_factory, analysed=1, unanalysed=0)
     log_in(client, app, people.ids["admin"])
     paths = sorted({path for method, path in all_routes(app) if method == "GET"})
-    samples = {"/static": "/static/railsign.css", "/static/docs": "/static/docs/swagger-ui.css"}
+    samples = {"/static": "/static/railsign.css", "/static/docs": "/static/docs/swagger-ui.css",
+               "/static/h/{name}": static_url("plots.js")}
     for path in paths:
         url = samples.get(path) or _filled(path, ids)
         got, head = client.get(url, follow_redirects=False), client.head(url, follow_redirects=False)
@@ -104,9 +107,16 @@ def test_pages_come_compressed_with_a_csrf_token_masked_anew_in_each(app, client
     assert client.post("/account/tokens", data={"name": "forged", "csrf_token": forged}).status_code == 403
 
 
-def test_the_plotting_script_comes_compressed(client):
-    plain = client.get("/static/vendor/plotly.min.js", headers={"accept-encoding": "identity"})
-    packed = client.get("/static/vendor/plotly.min.js", headers={"accept-encoding": "gzip"})
+def test_the_plotting_script_comes_compressed_under_a_content_hashed_name(client):
+    url = static_url(PLOTTING_BUNDLE)
+    digest = hashlib.sha256((STATIC_DIR / PLOTTING_BUNDLE).read_bytes()).hexdigest()[:16]
+    assert url == f"/static/h/vendor/plotly-basic.min.{digest}.js"
+    plain = client.get(url, headers={"accept-encoding": "identity"})
+    packed = client.get(url, headers={"accept-encoding": "gzip"})
     assert packed.headers["content-encoding"] == "gzip" and "content-encoding" not in plain.headers
+    assert packed.headers["cache-control"] == "public, max-age=31536000, immutable"
+    assert packed.headers["content-type"].startswith("application/javascript")
+    assert "accept-encoding" in packed.headers["vary"].lower()
+    assert client.get(url.replace(digest, "0" * 16)).status_code == 404  # another content: not this name
     assert int(packed.headers["content-length"]) < int(plain.headers["content-length"]) / 3
     assert packed.content == plain.content  # the client decodes it to the same script

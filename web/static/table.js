@@ -42,17 +42,24 @@
     if (count) { count.textContent = "Showing " + shown + " of " + rows.length + " rails."; }
   }
 
-  document.querySelectorAll("table.sortable").forEach(function (table) {
-    table.querySelectorAll("thead .sort-button").forEach(function (button) {
-      button.addEventListener("click", function () { sortBy(table, button.closest("th"), button); });
+  // delegated from the document, so that content put in place later (web/static/live.js) works the same
+  document.addEventListener("click", function (e) {
+    var button = e.target.closest && e.target.closest("table.sortable thead .sort-button");
+    if (button) { sortBy(button.closest("table"), button.closest("th"), button); }
+  });
+  function tableOf(form) { return document.getElementById(form.getAttribute("data-filter-for")); }
+  function onFilter(e) {
+    var form = e.target.closest && e.target.closest("form[data-filter-for]");
+    if (!form || !tableOf(form)) { return; }
+    if (e.type === "submit") { e.preventDefault(); }
+    filter(form, tableOf(form));
+  }
+  ["input", "change", "submit"].forEach(function (type) { document.addEventListener(type, onFilter); });
+  function filterAll() {
+    document.querySelectorAll("form[data-filter-for]").forEach(function (form) {
+      if (tableOf(form)) { filter(form, tableOf(form)); }
     });
-  });
-  document.querySelectorAll("form[data-filter-for]").forEach(function (form) {
-    var table = document.getElementById(form.getAttribute("data-filter-for"));
-    if (!table) { return; }
-    form.addEventListener("input", function () { filter(form, table); });
-    form.addEventListener("change", function () { filter(form, table); });
-    form.addEventListener("submit", function (e) { e.preventDefault(); filter(form, table); });
-    filter(form, table);
-  });
+  }
+  document.addEventListener("railsign:content", filterAll);
+  filterAll();
 })();
