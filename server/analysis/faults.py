@@ -60,6 +60,7 @@ from __future__ import annotations
 import numpy as np
 
 from .document import Rail
+from .foldback import foldback_limit
 from .soa import allowed_current
 from .thermal import rds_at
 
@@ -87,9 +88,18 @@ def turn_off_applies(rail: Rail) -> bool:
 
 def regulated_current(rail: Rail, v_ds, i_lim) -> np.ndarray:
     """Current the switch regulates a shorted output to, A: the current limit (under a power
-    limit, min(i_limit, p_limit / V_DS)). A limit falling with V_DS (foldback) enters here."""
+    limit, min(i_limit, p_limit / V_DS)). Under a foldback curve (`foldback`), the curve at the
+    FET's V_DS scaled by the row's limit over the nominal one, as the start-up reads it
+    (`circuit.Circuit.limit_reference`): V_DS is the supply less the series resistance's drop
+    at the current, found in one correction step from the curve at the full supply."""
     v = np.atleast_1d(np.asarray(v_ds, dtype=float))
     i = np.broadcast_to(np.asarray(i_lim, dtype=float), v.shape).copy()
+    sw = rail.switch
+    if sw.foldback is not None and sw.i_limit is not None:
+        scale = i / sw.i_limit
+        r = rail.supply.r_source + rail.path.r
+        i0 = scale * foldback_limit(sw.foldback, v)
+        i = scale * foldback_limit(sw.foldback, np.maximum(v - r * i0, 0.0))
     if rail.switch.mode == "power_limit" and rail.switch.p_limit is not None:
         i = np.minimum(i, rail.switch.p_limit / v)
     return i

@@ -20,7 +20,9 @@ from scipy.integrate import quad
 from server.analysis import DocumentError
 from server.analysis.circuit import circuit_rows
 from server.analysis.document import read_rail
+from server.analysis.faults import regulated_current
 from server.analysis.foldback import foldback_limit, foldback_slope
+from server.analysis.shortcircuit import short_circuit
 from server.analysis.startup import STATUS_OK, STATUS_STALLED, simulate_startup
 
 from .rail_documents import simple_doc
@@ -230,3 +232,23 @@ def test_a_voltage_drive_below_the_supply_plus_threshold_stalls_the_start():
     from server.analysis import analyze_rail
     check = next(c for c in analyze_rail(doc, corners=False, headroom=False)["checks"] if c["id"] == "startup_complete")
     assert check["verdict"] == "fail" and "never leaves saturation" in check["detail"]
+
+
+def test_a_short_under_foldback_is_regulated_to_the_curve_at_its_v_ds():
+    """The short circuit reads the foldback curve at the FET's V_DS, the supply less the series
+    resistance's drop (Kirchhoff's voltage law; the curve linear between its points): with
+    r = 0.5 ohm and the curve falling 0.5 A/V between 2 V and 10 V (FOLD), i = f(v_s - r i) solves
+    to i = (5 + 0.5 * 2 - 0.5 * v_s) / (1 - 0.25) where v_s - r i lies on that segment."""
+    doc = simple_doc(mode="current_limit", v=8.0, c=1e-3, i_limit=5.0, r=0.5)
+    doc["switch"]["foldback"] = FOLD
+    rail = read_rail(doc)
+    i = float(regulated_current(rail, np.array([8.0]), np.array([5.0]))[0])
+    exact = (5.0 + 0.5 * 2.0 - 0.5 * 8.0) / (1.0 - 0.25)
+    assert 2.0 < 8.0 - 0.5 * exact < 10.0
+    # one correction step from the curve at the full supply: within 10 % of the exact solution and
+    # never below the current at the full supply (the conservative side for the FET's stress)
+    assert i == pytest.approx(exact, rel=0.1) and i >= float(foldback_limit(FOLD, 8.0))
+    sc = short_circuit(rail, v_ds=np.array([8.0]), i_limit=np.array([5.0]), t_fault=np.array([np.inf]))
+    assert float(sc["i"][0]) == pytest.approx(i)
+    doc["switch"]["foldback"] = None
+    assert float(regulated_current(read_rail(doc), np.array([8.0]), np.array([5.0]))[0]) == 5.0
