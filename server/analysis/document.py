@@ -584,21 +584,13 @@ def _read_foldback(r: _Reader, points: Any) -> tuple[tuple[float, float], ...] |
     """The foldback curve's [V_DS, I] points: at least two, V_DS from 0 V up and strictly
     increasing, the current positive and not rising with V_DS."""
     field = "switch.foldback"
-    if not isinstance(points, list) or len(points) < 2:
-        r.fail(field, "needs at least two [V_DS, current limit] points")
-        return None
-    if len(points) > MAX_SOA_POINTS:
-        r.fail(field, f"has {len(points)} points; at most {MAX_SOA_POINTS} are read")
+    pairs = _read_pairs(r, points, field, "[V_DS, current limit]", "V_DS in V and the current limit in A",
+                        MAX_SOA_POINTS)
+    if pairs is None:
         return None
     parsed: list[tuple[float, float]] = []
-    for j, p in enumerate(points):
+    for j, (v, i) in enumerate(pairs):
         pw = f"{field}[{j}]"
-        if not isinstance(p, (list, tuple)) or len(p) != 2 or not all(
-                _is_number(q) and magnitude_problem(q) is None for q in p):
-            r.fail(pw, f"must be a [V_DS, current limit] pair of finite numbers of at most {NUMBER_LARGEST:g} "
-                       "(V and A)")
-            return None
-        v, i = float(p[0]), float(p[1])
         if v < 0.0:
             r.fail(pw, f"V_DS must not be negative (got {v:g} V)")
             return None
@@ -665,30 +657,38 @@ def _read_fet_gate(r: _Reader, sec: dict) -> FetGate | None:
     return FetGate(v_th=v["v_th"], k=k, c_iss=v["c_iss"], c_rss=v["c_rss"])
 
 
+def _read_pairs(r: _Reader, points: Any, field: str, pair: str, units: str,
+                most: int) -> list[tuple[float, float]] | None:
+    """A list of at least two ``pair`` points (e.g. "[V_DS, I_D]") as floats: every malformed
+    point is reported (``units`` says what each number is, e.g. "V_DS in V and I_D in A"); None
+    when the list or any point is bad. The caller checks the values and their order."""
+    if not isinstance(points, list) or len(points) < 2:
+        r.fail(field, f"needs at least two {pair} points")
+        return None
+    if len(points) > most:
+        r.fail(field, f"has {len(points)} points; at most {most} are read")
+        return None
+    well_formed = True
+    for j, p in enumerate(points):
+        if not isinstance(p, (list, tuple)) or len(p) != 2:
+            r.fail(f"{field}[{j}]", f"must be a {pair} pair")
+            well_formed = False
+        elif not all(_is_number(q) and magnitude_problem(q) is None for q in p):
+            r.fail(f"{field}[{j}]", f"must hold two finite numbers of at most {NUMBER_LARGEST:g}: {units}")
+            well_formed = False
+    return [(float(a), float(b)) for a, b in points] if well_formed else None
+
+
 def _read_points(r: _Reader, points: Any, where: str) -> tuple[tuple[float, float], ...] | None:
     """A curve's [V_DS, I_D] points: every malformed point is reported; then the first point that is
     not positive or whose V_DS does not rise (a later one would only repeat the problem). I_D rising
     with V_DS is read (the analysis takes the running minimum, and says so)."""
     field = f"{where}.points"
-    if not isinstance(points, list) or len(points) < 2:
-        r.fail(field, "needs at least two [V_DS, I_D] points")
-        return None
-    if len(points) > MAX_SOA_POINTS:
-        r.fail(field, f"has {len(points)} points; at most {MAX_SOA_POINTS} are read")
-        return None
-    well_formed = True
-    for j, p in enumerate(points):
-        if not isinstance(p, (list, tuple)) or len(p) != 2:
-            r.fail(f"{field}[{j}]", "must be a [V_DS, I_D] pair")
-            well_formed = False
-        elif not all(_is_number(q) and magnitude_problem(q) is None for q in p):
-            r.fail(f"{field}[{j}]",
-                   f"must hold two finite numbers of at most {NUMBER_LARGEST:g}: V_DS in V and I_D in A")
-            well_formed = False
-    if not well_formed:
+    pairs = _read_pairs(r, points, field, "[V_DS, I_D]", "V_DS in V and I_D in A", MAX_SOA_POINTS)
+    if pairs is None:
         return None
     parsed: list[tuple[float, float]] = []
-    for j, (v, i) in enumerate((float(a), float(b)) for a, b in points):
+    for j, (v, i) in enumerate(pairs):
         pw = f"{field}[{j}]"
         if v <= 0.0 or i <= 0.0:
             r.fail(pw, f"V_DS and I_D must be positive, the curves are drawn on log-log axes (got {v:g} V, {i:g} A)")
@@ -762,25 +762,11 @@ def _read_zth(r: _Reader, sec: dict) -> tuple[tuple[float, float], ...] | None:
 def _read_zth_points(r: _Reader, points: Any, field: str = "fet.zth_points") -> tuple[tuple[float, float], ...] | None:
     """The [t, Zth] points of a single-pulse Zth curve: every malformed point is reported; then the
     first point that is not positive, not later than the one before, or below it."""
-    if not isinstance(points, list) or len(points) < 2:
-        r.fail(field, "needs at least two [t, Zth] points (t in s, Zth in K/W)")
-        return None
-    if len(points) > MAX_ZTH_POINTS:
-        r.fail(field, f"has {len(points)} points; at most {MAX_ZTH_POINTS} are read")
-        return None
-    well_formed = True
-    for j, p in enumerate(points):
-        if not isinstance(p, (list, tuple)) or len(p) != 2:
-            r.fail(f"{field}[{j}]", "must be a [t, Zth] pair")
-            well_formed = False
-        elif not all(_is_number(q) and magnitude_problem(q) is None for q in p):
-            r.fail(f"{field}[{j}]",
-                   f"must hold two finite numbers of at most {NUMBER_LARGEST:g}: t in s and Zth in K/W")
-            well_formed = False
-    if not well_formed:
+    pairs = _read_pairs(r, points, field, "[t, Zth]", "t in s and Zth in K/W", MAX_ZTH_POINTS)
+    if pairs is None:
         return None
     parsed: list[tuple[float, float]] = []
-    for j, (t, z) in enumerate((float(a), float(b)) for a, b in points):
+    for j, (t, z) in enumerate(pairs):
         pw = f"{field}[{j}]"
         if t <= 0.0 or z <= 0.0:
             r.fail(pw, f"t and Zth must be positive, the curve is drawn on log-log axes "
@@ -856,21 +842,13 @@ def _read_rds_curve(r: _Reader, points: Any) -> tuple[tuple[float, float], ...] 
     field = "fet.rds_on_curve"
     if points is None:
         return None
-    if not isinstance(points, list) or len(points) < 2:
-        r.fail(field, "needs at least two [T_j, ratio] points")
-        return None
-    if len(points) > MAX_RDS_POINTS:
-        r.fail(field, f"has {len(points)} points; at most {MAX_RDS_POINTS} are read")
+    pairs = _read_pairs(r, points, field, "[T_j, ratio]",
+                        "T_j in \u00b0C and R_DS(on) / R_DS(on) at 25 \u00b0C", MAX_RDS_POINTS)
+    if pairs is None:
         return None
     parsed: list[tuple[float, float]] = []
-    for j, p in enumerate(points):
+    for j, (tj, ratio) in enumerate(pairs):
         pw = f"{field}[{j}]"
-        if (not isinstance(p, (list, tuple)) or len(p) != 2
-                or not all(_is_number(q) and magnitude_problem(q) is None for q in p)):
-            r.fail(pw, f"must be a [T_j, ratio] pair of finite numbers of at most {NUMBER_LARGEST:g}: T_j in "
-                       "\u00b0C and R_DS(on) / R_DS(on) at 25 \u00b0C")
-            return None
-        tj, ratio = float(p[0]), float(p[1])
         if tj <= ABSOLUTE_ZERO:
             r.fail(pw, f"T_j must be above absolute zero (got {tj:g} \u00b0C)")
             return None

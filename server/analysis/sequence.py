@@ -89,10 +89,11 @@ from typing import Any
 
 import numpy as np
 
-from .bounds import NAME_MAX_LENGTH, magnitude_problem, text_problem
+from .bounds import magnitude_problem
 from .checks import FAIL, NA, PASS, VERDICTS
 from .circuit import NO_LIMIT, R_OFF, circuit_rows
 from .document import Rail, read_rail
+from .document import _Reader as RailReader
 from .errors import DocumentError
 from .startup import _time_scale
 from .thermal import rds_at
@@ -236,9 +237,9 @@ class Sequence:
     t_stop: float
 
 
-class _Reader:
-    def __init__(self) -> None:
-        self.errors: list[DocumentError] = []
+class _Reader(RailReader):
+    """The rail reader's collecting of problems and its text rule, with the sequence's own titles,
+    objects, numbers and lists."""
 
     def fail(self, field: str, reason: str, title: str | None = None) -> None:
         self.errors.append(DocumentError(field, reason, title=title or sequence_title(field)))
@@ -279,23 +280,6 @@ class _Reader:
             self.fail(field, "must not be negative")
         elif below is not None and not value < below:
             self.fail(field, f"must be below {below:g} (a fraction of the rail's nominal output, like 0.9)")
-        else:
-            return value
-        return None
-
-    def text(self, sec: dict, key: str, where: str) -> str | None:
-        field = f"{where}.{key}" if where else key
-        value = sec.get(key)
-        if value is None:
-            self.fail(field, "is required")
-        elif not isinstance(value, str):
-            self.fail(field, "must be a text")
-        elif not value.strip():
-            self.fail(field, "must not be empty")
-        elif len(value) > NAME_MAX_LENGTH:
-            self.fail(field, f"must be at most {NAME_MAX_LENGTH} characters long")
-        elif (problem := text_problem(value)) is not None:
-            self.fail(field, problem)
         else:
             return value
         return None
