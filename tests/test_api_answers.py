@@ -192,6 +192,21 @@ def test_every_operation_answers_its_declared_model_through_a_products_life(clie
                 params={"from": 1, "to": 2})
     assert any(c["field"] == "load.c_nom" for c in diff["changes"])
 
+    # the board's power-up sequence over its two rails
+    seq_doc = {"schema": "railsign.sequence/1", "name": "Main power-up",
+               "supplies": [{"id": "in12", "name": "12 V input", "v_nom": 12.0, "v_min": 11.4, "r_source": 0.02,
+                             "i_max": 10.0}],
+               "rails": [{"id": "main", "ref": "VOUT_12V", "supply": "in12", "enable": {"at": 0.0}},
+                         {"id": "aux", "ref": "VOUT_5V", "supply": "in12",
+                          "enable": {"after": "main", "threshold": 0.9, "delay": 1e-3}}]}
+    call("GET", "/api/v1/boards/{board_id}/sequence", 404, role="viewer", board_id=board["id"])
+    sequence = call("PUT", "/api/v1/boards/{board_id}/sequence", 200, role="designer", board_id=board["id"],
+                    json_body={"document": seq_doc, "message": "first"})
+    assert sequence["n"] == 1 and sequence["result"]["verdict"] in ("pass", "marginal", "fail")
+    call("GET", "/api/v1/boards/{board_id}/sequence", 200, role="viewer", board_id=board["id"])
+    call("POST", "/api/v1/boards/{board_id}/sequence/approvals", 201, role="reviewer", board_id=board["id"],
+         json_body={"sha256": sequence["sha256"], "comment": "dip and order checked"})
+
     # analyses, jobs, results
     _analyse(session_factory, rail_id)
     _analyse(session_factory, rail_id, monte_carlo=200)

@@ -91,6 +91,7 @@ def _in_view(pg, selector: str) -> bool:
         return r.height > 0 && r.top >= 0 && r.bottom <= window.innerHeight; }""", selector)
 
 
+@pytest.mark.slow  # about 40 s of clicking: run with -m slow
 def test_the_sign_off_of_a_rail_under_the_teams_waiver_rules(browser, served):
     rail_id, product_id = served["ids"]["governed"], served["ids"]["product_id"]
     rail_path = f"/rails/{rail_id}"

@@ -31,10 +31,11 @@ def _walk(routes, prefix: str = ""):
 
 
 def page_routes(app) -> list[str]:
-    """Paths of every GET route that answers with a page (downloads, ``*.csv`` and ``*.pdf``, are not pages)."""
+    """Paths of every GET route that answers with a page (downloads, ``*.csv`` and ``*.pdf``, and the
+    event streams a page follows, ``*/events``, are not pages)."""
     return sorted({path for path, route in _walk(app.routes)
                    if "GET" in route.methods and not path.startswith(NOT_PAGES)
-                   and not path.endswith((".csv", ".pdf"))})
+                   and not path.endswith((".csv", ".pdf", "/events"))})
 
 
 def fill(path: str, values: dict[str, int]) -> str:
