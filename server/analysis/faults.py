@@ -62,7 +62,7 @@ import numpy as np
 from .document import Rail
 from .foldback import foldback_limit
 from .soa import allowed_current
-from .thermal import rds_at
+from .thermal import rds_temperature
 
 __all__ = ["onset_applies", "turn_off_applies", "regulated_current", "start_temperature", "onset", "turn_off",
            "Modes", "clamp_energy", "ACTED_NONE", "ACTED_LOOP", "ACTED_FAST_TRIP", "BY_NONE", "BY_INPUT",
@@ -259,7 +259,7 @@ def onset(rail: Rail, *, v_s, i_lim, i_load, tj_start) -> dict:
     tj0 = np.broadcast_to(np.asarray(tj_start, dtype=float), (n,))
     r = rail.supply.r_source + rail.path.r
     ell = rail.supply.l_source + rail.path.l
-    rds = rds_at(fet.rds_on, fet.rds_on_alpha, tj0)
+    rds = fet.rds_on * rds_temperature(fet).ratio(tj0)  # the part's data over temperature, never extrapolated
     rt = r + rds
     i_inf = v / rt
     loop_on = sw.loop_response is not None and sw.i_limit is not None

@@ -96,7 +96,6 @@ from .document import Rail, read_rail
 from .document import _Reader as RailReader
 from .errors import DocumentError
 from .startup import _time_scale
-from .thermal import rds_at
 from .units import quantity
 from .words import generic_path
 
@@ -518,6 +517,14 @@ class _Rows:
         self.ramp_rows = np.flatnonzero(self.t_on > 0)
 
 
+def _highest_limit(rail: Rail, i_lim: float) -> float:
+    """The rail's current limit for the board time line: under a foldback curve its highest current
+    (the curve at low V_DS), never less than the nominal limit: the larger inrush, conservative for the
+    supply's current and dip."""
+    fold = rail.switch.foldback
+    return i_lim if fold is None else max(i_lim, max(i for _, i in fold))
+
+
 def _rows(seq: Sequence) -> tuple[_Rows, list[Rail]]:
     supplies = {s.id: j for j, s in enumerate(seq.supplies)}
     S, K = len(seq.supplies), len(seq.rails)
@@ -545,9 +552,11 @@ def _rows(seq: Sequence) -> tuple[_Rows, list[Rail]]:
         c=two(one(lambda k: rails[k].load.c_nom)),
         esr=two(one(lambda k: rails[k].load.esr)),
         r_p=two(one(lambda k: rails[k].path.r)),
-        rds=two(one(lambda k: rds_at(rails[k].fet.rds_on, rails[k].fet.rds_on_alpha, rails[k].t_ambient))),
+        # the switch's R_DS(on) as the rail's own circuit reads it: the part's data over temperature, the
+        # FETs in parallel
+        rds=two(one(lambda k: float(np.ravel(cz[k].rds_on * cz[k].rds_t.ratio(rails[k].t_ambient))[0]))),
         t_on=two(one(lambda k: cz[k].t_on)),
-        i_lim=two(one(lambda k: cz[k].i_lim[0])),
+        i_lim=two(one(lambda k: _highest_limit(rails[k], cz[k].i_lim[0]))),
         mode=two(np.array([_MODE_CODES[c.mode] for c in cz], dtype=int)),
         dvdt=two(one(lambda k: cz[k].dvdt)),
         p_lim=two(one(lambda k: cz[k].p_lim)),
@@ -1016,8 +1025,9 @@ def analyze_sequence(doc: Any, rail_documents: dict[str, Any] | None = None, tea
             "at its supply-low voltage; the board supply replaces each rail's own supply.",
             "Power-good levels are fixed voltages: the threshold times the rail's DC output at the supply's "
             "nominal voltage.",
-            "R_DS(on) at the ambient temperature, current limits at their nominal value; the fault timer, path "
-            "inductance and self-heating are in each rail's own analysis.",
+            "R_DS(on) at the ambient temperature, current limits at their nominal value (a foldback curve at its "
+            "highest current); the fault timer, path inductance, self-heating and a gate drive (read as the "
+            "turn-on ramp) are in each rail's own analysis.",
             "Switches conduct forward only: a rail's output capacitance does not hold up the shared bus "
             "(conservative for the dip).",
             "A supply's total current is its source current (rails and bus capacitance); a dip is compared raw "

@@ -343,3 +343,15 @@ def test_a_loop_regulating_above_the_fast_trip_still_trips_it():
     # the loop acts first (0.2 µs after 20 A), yet regulates at 20 A, above the 15 A threshold
     assert on["acted"][0] == ACTED_LOOP and on["fired"][0]
     assert on["i_off"][0] == 20.0
+
+
+def test_the_onset_reads_r_ds_on_from_the_parts_table():
+    """With a table of R_DS(on) over T_j the onset takes the table's value at the starting temperature
+    (linear interpolation between the datasheet's points), not the linear coefficient."""
+    doc = efuse_12v()
+    doc["switch"]["loop_response"] = 2e-6
+    doc["fet"]["rds_on_curve"] = [[25.0, 1.0], [125.0, 1.2]]  # 1.1 at 75 degC; the coefficient would say more
+    rail = read_rail(doc)
+    on = onset(rail, v_s=np.array([12.0]), i_lim=np.array([5.0]), i_load=np.array([0.0]),
+               tj_start=np.array([75.0]))
+    assert float(on["rds"][0]) == pytest.approx(rail.fet.rds_on * 1.1)

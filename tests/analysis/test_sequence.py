@@ -20,7 +20,7 @@ import pytest
 from server.analysis.circuit import R_OFF, circuit_rows
 from server.analysis.document import read_rail
 from server.analysis.errors import DocumentError
-from server.analysis.sequence import analyze_sequence, read_sequence, simulate_sequence
+from server.analysis.sequence import _rows, analyze_sequence, read_sequence, simulate_sequence
 from server.analysis.startup import simulate_startup
 
 from .rail_documents import efuse_12v, simple_doc
@@ -184,3 +184,19 @@ def test_an_enable_after_the_simulated_time_fails_in_words():
     res = analyze_sequence(doc)
     b = next(c for c in res["checks"] if c["subject"] == "b" and c["corner"] == "nominal")
     assert b["verdict"] == "fail" and "lies after the simulated time (100 ms)" in b["reason"]
+
+
+def test_the_time_line_reads_r_ds_on_and_the_limit_as_the_rails_own_circuit():
+    """Two FETs in parallel conduct through half the resistance (Ohm's law for equal resistors in
+    parallel), and a foldback curve is read at its highest current, never below the nominal limit
+    (the larger inrush: conservative for the supply's current and dip)."""
+    one = simple_doc(mode="hard", c=470e-6, rds_on=10e-3)
+    two = {**one, "fet": {**one["fet"], "count": 2}}
+    folded = simple_doc(mode="current_limit", c=470e-6, i_limit=3.0, rds_on=10e-3)
+    folded["switch"]["foldback"] = [[1.0, 4.0], [10.0, 1.0]]
+    rows, _ = _rows(read_sequence({"schema": "railsign.sequence/1", "name": "reading", "supplies": [_supply()],
+                                   "rails": [{"id": "a", "rail": one, "supply": "p12", "enable": {"at": 0.0}},
+                                             {"id": "b", "rail": two, "supply": "p12", "enable": {"at": 0.0}},
+                                             {"id": "c", "rail": folded, "supply": "p12", "enable": {"at": 0.0}}]}))
+    assert rows.rds[1] == pytest.approx(rows.rds[0] / 2.0)
+    assert rows.i_lim[2] == pytest.approx(4.0)
