@@ -32,6 +32,7 @@ from dataclasses import dataclass, field, replace
 
 import numpy as np
 
+from .bank import BankShape, bank_shape
 from .document import Rail
 from .foldback import foldback_limit
 from .thermal import RdsTemperature, foster_arrays, rds_temperature
@@ -102,6 +103,10 @@ class Circuit:
     undervoltage lockout threshold, V (nan: none).
     fold : the foldback points (V_DS V, nominal current A), or None; i_lim_nom : the
     nominal limit that scales them (A). gate : the `GateModel`, or None.
+    bank : the capacitor bank's shared data (`bank.BankShape`: DC-bias tables, group ESRs), or
+    None: one capacitor ``c`` with ``esr``. bank_c : per row and group, the group's capacitance
+    at 0 V (F, shape (n, groups)); ``c`` is then their sum and ``esr`` the groups' ESRs in
+    parallel (for estimates; the transient reads the groups).
     """
 
     v_s: np.ndarray
@@ -134,6 +139,8 @@ class Circuit:
     fold: tuple[tuple[float, float], ...] | None = None
     i_lim_nom: float = NO_LIMIT
     gate: GateModel | None = None
+    bank: BankShape | None = field(default=None, repr=False)
+    bank_c: np.ndarray | None = field(default=None, repr=False)
 
     def __post_init__(self) -> None:
         if self.t_fault is None:
@@ -158,6 +165,7 @@ class Circuit:
             self,
             v_s=self.v_s[rows], r=self.r[rows], l=self.l[rows], c=self.c[rows],
             esr=self.esr[rows], i_lim=self.i_lim[rows], t_fault=self.t_fault[rows], rds_on=self.rds_on[rows],
+            bank_c=None if self.bank_c is None else self.bank_c[rows],
         )
 
     # -- load ---------------------------------------------------------------
@@ -253,7 +261,23 @@ class Circuit:
         return ref
 
 
-def circuit_rows(rail: Rail, *, v_s, c, i_limit=None, t_fault=None, rds=None, share: float = 1.0) -> Circuit:
+def bank_rows(rail: Rail, c: np.ndarray, mult=None) -> tuple[BankShape | None, np.ndarray | None]:
+    """The bank's shared data and each row's group capacitances at 0 V (F, shape (n, groups)):
+    the groups' nominal totals times the row's multipliers (``mult``, shape (n, groups); None:
+    nominal), scaled so that they add up to the row's ``c`` (a capacitance searched as a whole
+    scales every group alike). (None, None) without a bank."""
+    groups = rail.load.bank
+    if groups is None:
+        return None, None
+    shape = bank_shape(groups, rail.t_ambient)
+    n = c.shape[0]
+    m = np.ones((n, shape.n_groups)) if mult is None else np.broadcast_to(np.asarray(mult, float), (n, shape.n_groups))
+    raw = shape.nominal * m
+    return shape, raw * (c / raw.sum(axis=1))[:, None]
+
+
+def circuit_rows(rail: Rail, *, v_s, c, i_limit=None, t_fault=None, rds=None, share: float = 1.0,
+                 bank=None) -> Circuit:
     """Build the circuit rows of a rail.
 
     Parameters
@@ -276,6 +300,9 @@ def circuit_rows(rail: Rail, *, v_s, c, i_limit=None, t_fault=None, rds=None, sh
         share of parallel FETs): its junction is followed, so the Foster network, given per
         FET, is scaled by it (the rise of share * P through r equals that of P through
         share * r: superposition of a linear network).
+    bank : array_like, shape (n, groups), optional
+        With a capacitor bank: each group's capacitance relative to its nominal per row (the
+        corners and the Monte Carlo set them; default nominal), scaled to add up to ``c``.
 
     Returns
     -------
@@ -297,11 +324,13 @@ def circuit_rows(rail: Rail, *, v_s, c, i_limit=None, t_fault=None, rds=None, sh
     if t_fault is None:
         t_fault = np.inf
     timer = sw.timer
+    c = np.broadcast_to(np.asarray(c, dtype=float), (n,)).copy()
+    shape, bank_c = bank_rows(rail, c, bank)
     return Circuit(
         v_s=v_s,
         r=full(rail.supply.r_source + rail.path.r),
         l=full(rail.supply.l_source + rail.path.l),
-        c=np.broadcast_to(np.asarray(c, dtype=float), (n,)).copy(),
+        c=c,
         esr=full(rail.load.esr),
         i_lim=np.broadcast_to(np.asarray(i_limit, dtype=float), (n,)).copy(),
         load=rail.load.model,
@@ -328,4 +357,6 @@ def circuit_rows(rail: Rail, *, v_s, c, i_limit=None, t_fault=None, rds=None, sh
         fold=sw.foldback,
         i_lim_nom=sw.i_limit if sw.i_limit is not None else NO_LIMIT,
         gate=gate_model(rail),
+        bank=shape,
+        bank_c=bank_c,
     )

@@ -30,13 +30,14 @@ import math
 
 import numpy as np
 
+from .bank import group_total, multipliers
 from .circuit import NO_LIMIT
 from .document import Rail
 from .evaluation import RowParams
 from .units import eng
 from .words import PARAM_WORDS
 
-__all__ = ["corner_set", "corner_params", "point_words", "PARAM_WORDS", "ALL_PARAMETERS"]
+__all__ = ["corner_set", "corner_params", "point_words", "c_levels", "c_range", "PARAM_WORDS", "ALL_PARAMETERS"]
 
 
 
@@ -53,6 +54,24 @@ def _relative(value: float, nominal: float) -> str:
         return "nominal"
     text = f"{abs(pct):.3g} %"
     return ("+" if pct > 0 else "\u2212") + text
+
+
+def c_levels(rail: Rail) -> list[tuple[float, np.ndarray | None]]:
+    """The load capacitance at the corners: (total F, the bank's group multipliers or None). A
+    bank moves every group's tolerance (and derating range) together: all low, all high."""
+    load = rail.load
+    if load.bank is None:
+        return [(c, None) for c in _levels(load.c_nom, load.c_tol)]
+    if load.c_tol <= 0:
+        return [(load.c_nom, None)]
+    totals = np.array([group_total(g, rail.t_ambient) for g in load.bank])
+    return [(float((totals * m).sum()), m) for m in (multipliers(load.bank, level) for level in ("low", "high"))]
+
+
+def c_range(rail: Rail) -> tuple[float, float]:
+    """The load capacitance's lowest and highest total at the corners, F."""
+    levels = [c for c, _ in c_levels(rail)]
+    return min(levels), max(levels)
 
 
 ALL_PARAMETERS = frozenset({"v_s", "c", "i_limit", "timer", "rds_on"})
@@ -136,7 +155,7 @@ def corner_set(rail: Rail) -> list[dict]:
     """
     s = rail.supply
     v = [s.v_min, s.v_max] if s.v_max > s.v_min else [s.v_nom]
-    c = _levels(rail.load.c_nom, rail.load.c_tol)
+    c = c_levels(rail)
     sw = rail.switch
     il = _levels(sw.i_limit, sw.i_limit_tol) if sw.i_limit is not None else [None]
     t = sw.timer
@@ -145,12 +164,12 @@ def corner_set(rail: Rail) -> list[dict]:
     else:
         tc = ic = vt = [None]
     out = []
-    for vv, cc, ii, a, b, d, rr in itertools.product(v, c, il, tc, ic, vt, rds_levels(rail)):
+    for vv, (cc, mult), ii, a, b, d, rr in itertools.product(v, c, il, tc, ic, vt, rds_levels(rail)):
         t_fault = a * d / b if t is not None else math.inf
         i_row = ii if ii is not None else NO_LIMIT
         name = point_words(rail, vv, cc, i_row, t_fault, (a, b, d) if t is not None else None, rds=rr)
         out.append({"name": name, "v_s": vv, "c": cc, "i_limit": ii, "timer_c": a, "i_charge": b, "v_trip": d,
-                    "t_fault": t_fault, "rds": rr})
+                    "t_fault": t_fault, "rds": rr, "bank": mult})
     return out
 
 
@@ -158,5 +177,9 @@ def corner_params(corners: list[dict]) -> RowParams:
     """The corners as rows of operating conditions."""
     arr = lambda key, default=None: np.array(  # noqa: E731
         [default if c[key] is None else c[key] for c in corners], dtype=float)
+    bank = None
+    if any(c.get("bank") is not None for c in corners):
+        groups = next(c["bank"] for c in corners if c.get("bank") is not None).shape[0]
+        bank = np.array([np.ones(groups) if c.get("bank") is None else c["bank"] for c in corners])
     return RowParams(v_s=arr("v_s"), c=arr("c"), i_lim=arr("i_limit", NO_LIMIT), t_fault=arr("t_fault"),
-                     rds=arr("rds"))
+                     rds=arr("rds"), bank=bank)

@@ -67,11 +67,13 @@ slew rate (``dvdt``, not needed then) in every mode; a current or power limit st
 from __future__ import annotations
 
 import math
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 from typing import Any
 
 import numpy as np
 
+from .bank import (DIELECTRICS, MAX_BANK_GROUPS, MAX_GROUP_COUNT, BankGroup, bank_esr, bank_spread, bank_total,
+                   group_factor)
 from .bounds import (MAX_FOSTER_STAGES, MAX_RETRIES, MAX_SOA_CURVES, MAX_SOA_POINTS, MAX_ZTH_POINTS, NAME_MAX_LENGTH,
                      NUMBER_LARGEST, magnitude_problem, text_problem)
 
@@ -125,6 +127,8 @@ DEFAULTS: dict[str, float | str] = {
     "path.l": 0.0,
     "load.c_tol": 0.0,
     "load.esr": 0.0,
+    "load.bank[].c_tol": 0.0,
+    "load.bank[].esr": 0.0,
     "load.model": "none",
     "load.i_nom": 0.0,
     "load.v_on": 0.0,
@@ -149,6 +153,8 @@ OPTIONAL: frozenset[str] = frozenset({
     "fet.id_pulse_max", "fet.e_avalanche", "fet.soa.curves[].t_pulse", "fet.rds_on_max", "fet.rds_on_curve",
     "switch.foldback", "switch.gate", "switch.gate.i_gate", "switch.gate.v_drive", "switch.gate.r_gate",
     "fet.gate", "fet.gate.k", "fet.gate.g_fs", "fet.gate.i_gfs", "fet.zth_points",
+    "load.c_nom", "load.bank", "load.bank[].refs", "load.bank[].dc_bias", "load.bank[].tempco",
+    "load.bank[].derating",
     *(f"rules.{k}" for k in DEFAULT_RULES),
 })
 
@@ -201,6 +207,10 @@ BOUNDS: dict[str, Bound] = {
     "path.r": NON_NEGATIVE, "path.l": NON_NEGATIVE,
     "load.c_nom": POSITIVE, "load.c_tol": TOLERANCE, "load.esr": NON_NEGATIVE, "load.i_nom": NON_NEGATIVE,
     "load.v_on": NON_NEGATIVE,
+    "load.bank[].count": Bound(minimum=1.0, maximum=float(MAX_GROUP_COUNT), note="a whole number of capacitors"),
+    "load.bank[].c_nom": POSITIVE, "load.bank[].c_tol": TOLERANCE, "load.bank[].v_rated": POSITIVE,
+    "load.bank[].esr": NON_NEGATIVE,
+    "load.bank[].tempco": Bound(minimum=-0.05, maximum=0.05, note="a fraction of nominal per kelvin, e.g. -0.1 %/K"),
     "switch.t_on": NON_NEGATIVE, "switch.dvdt": POSITIVE, "switch.i_limit": POSITIVE,
     "switch.i_limit_tol": TOLERANCE, "switch.p_limit": POSITIVE,
     "switch.timer.c": POSITIVE, "switch.timer.c_tol": TOLERANCE, "switch.timer.i_charge": POSITIVE,
@@ -228,7 +238,9 @@ FIELD_KEYS: dict[str, tuple[str, ...]] = {
     "": ("schema", "name", "supply", "path", "load", "switch", "fet", "environment", "rules"),
     "supply": ("v_min", "v_nom", "v_max", "r_source", "l_source", "i_max", "uvlo", "uvlo_filter", "c_in", "v_clamp"),
     "path": ("r", "l"),
-    "load": ("c_nom", "c_tol", "esr", "model", "i_nom", "v_on"),
+    "load": ("c_nom", "c_tol", "esr", "model", "i_nom", "v_on", "bank"),
+    "load.bank[]": ("refs", "count", "c_nom", "c_tol", "dielectric", "v_rated", "esr", "dc_bias", "tempco",
+                    "derating"),
     "switch": ("mode", "t_on", "dvdt", "i_limit", "i_limit_tol", "p_limit", "timer", "loop_response", "fast_trip",
                "fast_trip_delay", "foldback", "gate"),
     "switch.gate": ("drive", "i_gate", "v_drive", "r_gate", "c_ext"),
@@ -267,12 +279,17 @@ class SeriesPath:
 
 @dataclass(frozen=True)
 class Load:
+    """The load. With a capacitor ``bank`` (groups, `bank.BankGroup`), ``c_nom`` is the bank's
+    nominal total at 0 V, ``c_tol`` its largest group tolerance (0: no spread) and ``esr`` the
+    groups' ESRs in parallel, for words and estimates; the transient reads the groups."""
+
     c_nom: float
     c_tol: float
     esr: float
     model: str
     i_nom: float
     v_on: float
+    bank: tuple[BankGroup, ...] | None = None
 
 
 @dataclass(frozen=True)
@@ -516,8 +533,96 @@ def _read_load(r: _Reader, doc: dict) -> Load | None:
         r.fail("load.i_nom", f"must be above 0 A for a {model.replace('_', ' ')} load")
     if model == "constant_power" and v_on is not None and v_on <= 0.0:
         r.fail("load.v_on", "must be above 0 V for a constant-power load: at 0 V it would draw infinite current")
-    return Load(c_nom=r.number(sec, "c_nom", w), c_tol=r.number(sec, "c_tol", w), esr=r.number(sec, "esr", w),
-                model=model, i_nom=i_nom, v_on=v_on)
+    if sec.get("bank") is None:
+        c_nom = r.number(sec, "c_nom", w)
+        if sec.get("c_nom") is None:
+            r.fail("load.c_nom", "is required (or a capacitor bank, load.bank)")
+        return Load(c_nom=c_nom, c_tol=r.number(sec, "c_tol", w), esr=r.number(sec, "esr", w),
+                    model=model, i_nom=i_nom, v_on=v_on)
+    for key in ("c_nom", "c_tol", "esr"):
+        if sec.get(key) not in (None, 0, 0.0) or (key == "c_nom" and sec.get(key) is not None):
+            r.fail(f"load.{key}", "must be left out with a capacitor bank: the bank's groups give the capacitance, "
+                                  "tolerance and ESR")
+    bank = _read_bank(r, sec["bank"])
+    if bank is None:
+        return Load(c_nom=None, c_tol=0.0, esr=0.0, model=model, i_nom=i_nom, v_on=v_on)
+    return Load(c_nom=None, c_tol=bank_spread(bank), esr=bank_esr(bank), model=model, i_nom=i_nom, v_on=v_on,
+                bank=bank)
+
+
+def _read_bank(r: _Reader, groups: Any) -> tuple[BankGroup, ...] | None:
+    """The capacitor bank: one to MAX_BANK_GROUPS groups, each read in full (every problem reported)."""
+    field = "load.bank"
+    if not isinstance(groups, list) or not groups:
+        r.fail(field, "must be a list of capacitor groups (at least one)")
+        return None
+    if len(groups) > MAX_BANK_GROUPS:
+        r.fail(field, f"has {len(groups)} groups; at most {MAX_BANK_GROUPS} are read")
+        return None
+    out = []
+    for j, raw in enumerate(groups):
+        where = f"{field}[{j}]"
+        g = r.item(raw, where)
+        if g is None:
+            continue
+        count = r.number(g, "count", where)
+        if count is not None and count != math.floor(count):
+            r.fail(f"{where}.count", f"must be a whole number of capacitors (got {count:g})")
+            count = None
+        refs = g.get("refs")
+        if refs is not None:
+            refs = r.text(g, "refs", where)
+        dielectric = r.choice(g, "dielectric", where, DIELECTRICS)
+        values = {key: r.number(g, key, where) for key in ("c_nom", "c_tol", "v_rated", "esr", "tempco")}
+        dc_bias = _read_dc_bias(r, g["dc_bias"], f"{where}.dc_bias") if g.get("dc_bias") is not None else None
+        derating = _read_derating(r, g["derating"], f"{where}.derating") if g.get("derating") is not None else None
+        if g.get("dc_bias") is not None and g.get("derating") is not None:
+            r.fail(f"{where}.derating", "give a DC-bias curve or a derating range, not both")
+        if None in (count, dielectric, values["c_nom"], values["c_tol"], values["v_rated"], values["esr"]):
+            continue
+        out.append(BankGroup(count=int(count), dielectric=dielectric, dc_bias=dc_bias, derating=derating, refs=refs,
+                             **values))
+    return tuple(out) if len(out) == len(groups) else None
+
+
+def _read_dc_bias(r: _Reader, points: Any, field: str) -> tuple[tuple[float, float], ...] | None:
+    """A DC-bias curve's [V, fraction of nominal] points: V from 0 up and strictly rising, the
+    fraction positive (at most 2) and not rising with voltage."""
+    pairs = _read_pairs(r, points, field, "[V, fraction]", "the DC voltage in V and the capacitance as a fraction "
+                        "of nominal", MAX_SOA_POINTS)
+    if pairs is None:
+        return None
+    parsed: list[tuple[float, float]] = []
+    for j, (v, f) in enumerate(pairs):
+        pw = f"{field}[{j}]"
+        if v < 0.0:
+            r.fail(pw, f"the voltage must not be negative (got {v:g} V)")
+            return None
+        if not 0.0 < f <= 2.0:
+            r.fail(pw, f"the fraction of nominal must be above 0 and at most 2 (got {f:g})")
+            return None
+        if parsed and v <= parsed[-1][0]:
+            r.fail(pw, f"the voltage must increase from point to point ({v:g} V follows {parsed[-1][0]:g} V)")
+            return None
+        if parsed and f > parsed[-1][1]:
+            r.fail(pw, f"the capacitance must not rise with DC voltage ({f:g} follows {parsed[-1][1]:g}); a DC-bias "
+                       "curve falls or stays level")
+            return None
+        parsed.append((v, f))
+    return tuple(parsed)
+
+
+def _read_derating(r: _Reader, pair: Any, field: str) -> tuple[float, float] | None:
+    """A derating range [low, high]: fractions of nominal, 0 < low <= high <= 2."""
+    if (not isinstance(pair, (list, tuple)) or len(pair) != 2
+            or not all(_is_number(q) and magnitude_problem(q) is None for q in pair)):
+        r.fail(field, "must be a [low, high] pair of fractions of nominal, e.g. [0.4, 0.8]")
+        return None
+    lo, hi = float(pair[0]), float(pair[1])
+    if not 0.0 < lo <= hi <= 2.0:
+        r.fail(field, f"needs 0 < low <= high <= 2 (got [{lo:g}, {hi:g}])")
+        return None
+    return lo, hi
 
 
 def _read_timer(r: _Reader, sec: dict) -> Timer | None:
@@ -936,6 +1041,11 @@ def read_rail(doc: Any, team_rules: dict | None = None) -> Rail:
             and doc["fet"].get("gate") is None:
         r.fail("fet.gate", "is required with a gate drive (switch.gate): the threshold, transconductance and "
                            "capacitances of the FET")
+    if load is not None and load.bank is not None and t_ambient is not None:
+        for j, g in enumerate(load.bank):
+            if group_factor(g, t_ambient) <= 0.0:
+                r.fail(f"load.bank[{j}].tempco", f"leaves no capacitance at the ambient {quantity(t_ambient, 'degC')}")
+        load = replace(load, c_nom=bank_total(load.bank, t_ambient))
     r.raise_errors()
     return Rail(name=name, supply=supply, path=path, load=load, switch=switch, fet=fet, t_ambient=t_ambient,
                 rules=rules)

@@ -52,7 +52,9 @@ class RowParams:
     ``NO_LIMIT`` without one), ``t_fault`` fault-timer trip time (s, ``inf`` without a
     timer), ``rds`` Rds(on) at 25 degC of the FET (ohm: the part's typical ``rds_on``, or
     between it and ``rds_on_max`` where the part gives a maximum; 0 or left out: the
-    typical).
+    typical). ``bank`` (shape (n, groups), with a capacitor bank): each group's capacitance
+    relative to its nominal (the corners and the Monte Carlo set them; None: nominal), scaled
+    per row to add up to ``c`` (`circuit.bank_rows`).
     """
 
     v_s: np.ndarray
@@ -60,6 +62,7 @@ class RowParams:
     i_lim: np.ndarray
     t_fault: np.ndarray
     rds: np.ndarray | None = None
+    bank: np.ndarray | None = None
 
     def __post_init__(self) -> None:
         if self.rds is None:  # the part's typical Rds(on) (see `rds_rows`)
@@ -70,14 +73,26 @@ class RowParams:
         return self.v_s.shape[0]
 
     def take(self, rows) -> "RowParams":
-        return RowParams(**{k: getattr(self, k)[rows] for k in PARAMS})
+        return RowParams(**{k: getattr(self, k)[rows] for k in PARAMS},
+                         bank=None if self.bank is None else self.bank[rows])
 
     def copy(self) -> "RowParams":
-        return RowParams(**{k: np.array(getattr(self, k), dtype=float, copy=True) for k in PARAMS})
+        return RowParams(**{k: np.array(getattr(self, k), dtype=float, copy=True) for k in PARAMS},
+                         bank=None if self.bank is None else self.bank.copy())
+
+    def key(self) -> np.ndarray:
+        """The rows as a (n, k) array of every parameter (to find the distinct rows)."""
+        cols = np.stack([getattr(self, k) for k in PARAMS], axis=1)
+        return cols if self.bank is None else np.concatenate([cols, self.bank], axis=1)
 
     @staticmethod
     def stack(parts: list["RowParams"]) -> "RowParams":
-        return RowParams(**{k: np.concatenate([getattr(p, k) for p in parts]) for k in PARAMS})
+        banks = [p.bank for p in parts]
+        bank = None
+        if any(b is not None for b in banks):
+            groups = next(b for b in banks if b is not None).shape[1]
+            bank = np.concatenate([np.ones((p.n, groups)) if p.bank is None else p.bank for p in parts])
+        return RowParams(**{k: np.concatenate([getattr(p, k) for p in parts]) for k in PARAMS}, bank=bank)
 
 
 def nominal_point(rail: Rail, t_fault_nom: float) -> RowParams:
@@ -109,7 +124,7 @@ def startup_rows(rail: Rail, params: RowParams, *, record: int | None = None,
                  max_steps: int = MAX_STEPS, share: float = 1.0) -> StartupFigures:
     """Start-up transient of every row (one batch integration); ``share``: `linear_share`."""
     cz = circuit_rows(rail, v_s=params.v_s, c=params.c, i_limit=params.i_lim, t_fault=params.t_fault,
-                      rds=rds_rows(rail, params), share=share)
+                      rds=rds_rows(rail, params), share=share, bank=params.bank)
     return simulate_startup(cz, record=record, max_steps=max_steps)
 
 
@@ -233,7 +248,8 @@ def evaluate_rows(rail: Rail, rules: dict, params: RowParams, *, startup: Startu
         startup = startup_rows(rail, params, record=record, max_steps=max_steps, share=share)
     t_amb = rail.t_ambient
     rds = rds_rows(rail, params)
-    cz = circuit_rows(rail, v_s=params.v_s, c=params.c, i_limit=params.i_lim, t_fault=params.t_fault, rds=rds)
+    cz = circuit_rows(rail, v_s=params.v_s, c=params.c, i_limit=params.i_lim, t_fault=params.t_fault, rds=rds,
+                      bank=params.bank)
     fig: dict = {"n": n, "status": startup.status, "v_s": params.v_s, "c": params.c, "i_lim": params.i_lim,
                  "t_fault": params.t_fault, "v_target": cz.final_output(t_amb)[0]}
     for name in ("i_peak", "t_i_peak", "t_limit", "t_settle", "e_fet", "p_fet_peak", "tj_peak", "v_supply_min",

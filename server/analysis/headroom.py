@@ -70,6 +70,7 @@ import numpy as np
 
 from .checks import C_DEPENDENT
 from .circuit import circuit_rows
+from .corners import c_levels
 from .document import Rail
 from .evaluation import RowParams, evaluate_rows, linear_share
 from .shortcircuit import has_limit, short_circuit
@@ -520,9 +521,16 @@ def _start_corners(rail: Rail, t_fault: float) -> RowParams:
     extreme (the longer start against the timer, the shorter one)."""
     sup, load, sw = rail.supply, rail.load, rail.switch
     v = np.repeat([sup.v_min, sup.v_nom, sup.v_max], 2)
-    c = np.tile([load.c_nom * (1.0 - load.c_tol), load.c_nom * (1.0 + load.c_tol)], 3)
+    levels = c_levels(rail)
+    if len(levels) == 1:  # no spread: the same capacitance twice
+        levels = levels * 2
+    c = np.tile([c for c, _ in levels], 3)
     n = v.size
-    return RowParams(v_s=v, c=c, i_lim=np.full(n, sw.i_limit * (1.0 - sw.i_limit_tol)), t_fault=np.full(n, t_fault))
+    bank = None
+    if load.bank is not None and levels[0][1] is not None:
+        bank = np.tile(np.array([m for _, m in levels]), (3, 1))
+    return RowParams(v_s=v, c=c, i_lim=np.full(n, sw.i_limit * (1.0 - sw.i_limit_tol)), t_fault=np.full(n, t_fault),
+                     bank=bank)
 
 
 def load_headroom(rail: Rail, *, t_fault: float) -> dict:
@@ -564,7 +572,8 @@ def load_headroom(rail: Rail, *, t_fault: float) -> dict:
         nonlocal trials
         trials += 1
         trial = replace(rail, load=replace(load, i_nom=float(i_nom)))
-        cz = circuit_rows(trial, v_s=corners.v_s, c=corners.c, i_limit=corners.i_lim, t_fault=corners.t_fault)
+        cz = circuit_rows(trial, v_s=corners.v_s, c=corners.c, i_limit=corners.i_lim, t_fault=corners.t_fault,
+                          bank=corners.bank)
         return bool(np.all(simulate_startup(cz, max_steps=_TRIAL_STEPS).status == STATUS_OK))
 
     present = load.i_nom

@@ -130,6 +130,7 @@ import operator
 
 import numpy as np
 
+from .bank import charge, fraction, voltage
 from .circuit import NO_LIMIT, R_OFF, Circuit
 from .foldback import foldback_floats, foldback_limit, foldback_slope
 from .thermal import (foster_peak, foster_peak_floats, foster_rate, foster_rate_floats, foster_step,
@@ -217,7 +218,7 @@ class _FloatOps:
 
 class _Stage:
     __slots__ = ("i", "il", "vc", "vout", "vin", "ic", "fi", "fin", "vds", "p", "lim", "exc", "event", "bad",
-                 "r_sw", "on", "vg", "fg", "exc_c")
+                 "r_sw", "on", "vg", "fg", "exc_c", "bq", "bv", "bi")
 
 
 class _Model:
@@ -234,6 +235,12 @@ class _Model:
             self.r_th, self.tau_th = cz.r_th, cz.tau_th
         self.v_s, self.r, self.l, self.c = pick(cz.v_s), pick(cz.r), pick(cz.l), pick(cz.c)
         self.esr, self.i_lim = pick(cz.esr), pick(cz.i_lim)
+        self.bank = cz.bank is not None
+        if self.bank:
+            self.bk_tables, self.bk_esr = cz.bank.tables, cz.bank.esr
+            self.bk_c = cz.bank_c[0] if ops is _FloatOps else cz.bank_c
+            # the error control and the predictors read the bank's lowest capacitance
+            self.c = pick((cz.bank_c * cz.bank.lowest_fraction()).sum(axis=1))
         self.gate = cz.gate
         self.limit = cz.has_limit or cz.gate is not None
         # a gate drive replaces the turn-on ramp and the slew reference
@@ -331,7 +338,7 @@ class _Model:
         a = ops.where(on, 2.0 * self.p_load / vv, 0.0)
         return a, -0.5 * a / vv, on
 
-    def reference(self, v_p, a, g, e_ref, z_ref):
+    def reference(self, v_p, a, g, e_ref, z_ref, cdvdt=None):
         """Limit reference linearised at the predictor v_p: i_ref ~ q + s v_out.
 
         The power limit holds (e_ref - z_ref i - v_out) i = p_lim: the switch faces the
@@ -341,7 +348,7 @@ class _Model:
         ops = self.ops
         lq, ls = self.limit_line(v_p, e_ref, z_ref)
         if self.slew:
-            q = self.cdvdt + a
+            q = (self.cdvdt if cdvdt is None else cdvdt) + a
             if self.fold is None:
                 use_lim = q + g * v_p > self.i_lim
             else:
@@ -482,22 +489,99 @@ class _Model:
             return (rhs_in * yl + dh * (rhs_l + dh * self.v_s)) * den, dh * yl * den
         return rhs_l / dh + self.v_s, self.l / dh + self.r
 
-    def stage(self, ts, dh, E, Z, rhs_in, rhs_v, v_p, r_on, i_prev, dt_prev, started, sw_on, rhs_g=0.0) -> _Stage:
+    def bank_branch(self, dh, rhs_k, vp_k):
+        """A capacitor bank in a stage, reduced exactly to one branch for the stage's linear solve.
+
+        Each group k obeys q_k(v_k) - dh i_k = rhs_k (its charge equation, ``rhs_k`` in C) and
+        v_out = v_k + esr_k i_k. Its charge is linearised at the predictor ``vp_k`` (one Newton
+        step): q_k ~ Q_p + C_p (v_k - v_p), C_p the incremental capacitance there, so that
+        i_k = (v_out - e_k) / z_k with e_k = v_p + (rhs_k - Q_p) / C_p, z_k = dh / C_p + esr_k:
+        the groups in parallel are the Norton source i = G v_out - J, G = sum 1 / z_k,
+        J = sum e_k / z_k. One branch with capacitance c_eq = sum C_p, ESR 1 / G - dh / c_eq
+        (never negative: each z_k >= dh / C_p) and right-hand side c_eq J / G has the same
+        relation, and the stage solves it as the single capacitor. Returns ((e, z), the branch
+        (c_eq, esr_eq, c_eq dv/dt for a slew limit), rhs_eq).
+        """
+        dh_k = np.asarray(dh, dtype=float)[..., None]
+        cap = np.empty_like(vp_k)
+        q_p = np.empty_like(vp_k)
+        for k, tab in enumerate(self.bk_tables):
+            cap[..., k] = fraction(tab, vp_k[..., k])
+            q_p[..., k] = charge(tab, vp_k[..., k])
+        cap = cap * self.bk_c
+        q_p = q_p * self.bk_c
+        e = vp_k + (rhs_k - q_p) / cap
+        z = dh_k / cap + self.bk_esr
+        y = 1.0 / z
+        big_g = y.sum(axis=-1)
+        c_eq = cap.sum(axis=-1)
+        esr_eq = np.maximum(1.0 / big_g - dh / c_eq, 0.0)
+        rhs_eq = c_eq * (e * y).sum(axis=-1) / big_g
+        if self.floats:
+            c_eq, esr_eq, rhs_eq = float(c_eq), float(esr_eq), float(rhs_eq)
+        cdvdt = c_eq * self.cz.dvdt if self.slew else None
+        return (e, z), (c_eq, esr_eq, cdvdt), rhs_eq
+
+    def bank_groups(self, st: _Stage, dh, rhs_k, ez) -> None:
+        """Each group's current, charge and voltage after the stage's solve (``st.bi``, ``st.bq``,
+        ``st.bv``): i_k = (v_out - e_k) / z_k, q_k = rhs_k + dh i_k (the charge equation held
+        exactly) and v_k the voltage of that charge on the group's DC-bias curve (exact inverse)."""
+        e, z = ez
+        i_k = (np.asarray(st.vout, dtype=float)[..., None] - e) / z
+        q_k = rhs_k + np.asarray(dh, dtype=float)[..., None] * i_k
+        v_k = np.empty_like(q_k)
+        for k, tab in enumerate(self.bk_tables):
+            v_k[..., k] = voltage(tab, q_k[..., k] / self.bk_c[..., k])
+        st.bi, st.bq, st.bv = i_k, q_k, v_k
+
+    def bank_stage(self, ts, dh, E, Z, rhs_in, rhs_k, vp_k, v_p, r_on, i_prev, dt_prev, started, sw_on,
+                   rhs_g=0.0) -> _Stage:
+        """`stage` with a capacitor bank: the groups' charge equations ``rhs_k`` linearised at the
+        group voltages ``vp_k`` (`bank_branch`), then each group's state (`bank_groups`)."""
+        ez, branch, rhs_eq = self.bank_branch(dh, rhs_k, vp_k)
+        st = self.stage(ts, dh, E, Z, rhs_in, rhs_eq, v_p, r_on, i_prev, dt_prev, started, sw_on, rhs_g, branch)
+        self.bank_groups(st, dh, rhs_k, ez)
+        return st
+
+    def bank_cap(self, v_k):
+        """Each group's incremental capacitance at its voltage ``v_k`` (F)."""
+        cap = np.empty_like(v_k)
+        for k, tab in enumerate(self.bk_tables):
+            cap[..., k] = fraction(tab, v_k[..., k])
+        return cap * self.bk_c
+
+    def bank_deviation(self, state, v_f):
+        """The bank's share of the deviation energy from the DC operating point (sum of
+        C_k (v_k - v_f)^2 at the groups' present capacitances) and the capacitance it is
+        measured against (their sum)."""
+        cap = self.bank_cap(state.bv)
+        dv = state.bv - np.asarray(v_f, dtype=float)[..., None]
+        dev, c_ref = (cap * dv * dv).sum(axis=-1), cap.sum(axis=-1)
+        if self.floats:
+            return float(dev), float(c_ref)
+        return dev, c_ref
+
+    def stage(self, ts, dh, E, Z, rhs_in, rhs_v, v_p, r_on, i_prev, dt_prev, started, sw_on, rhs_g=0.0,
+              bank=None) -> _Stage:
         """Solve (Z + R_sw) i + v_out = E and c v_c - dh (i - i_load(v_out)) = rhs_v, or
         i = i_ref where that is smaller, or i = 0 where the switch is off (``sw_on``);
         ``ts`` is the time since the switch turned on. With a gate drive, i_ref is also the
         FET's saturation current at the stage's gate voltage (`_gate_current`; ``rhs_g`` the
-        gate charge equation's right-hand side)."""
+        gate charge equation's right-hand side). ``bank``: a capacitor bank's equivalent branch for
+        the stage (`bank_branch`: capacitance, ESR, C dv/dt of a slew limit) in place of c and esr."""
         ops = self.ops
         r_sw = self.switch_r(ts, r_on)
         a, g, on_p = self.load_linear(v_p, started, sw_on)
-        esr = self.esr
+        if bank is None:
+            c, esr, cdvdt = self.c, self.esr, None
+        else:
+            c, esr, cdvdt = bank
         st = _Stage()
         if self.g_free:
             av, ai = 1.0, esr
             a0 = -a * esr
             m21 = -dh
-            m22 = self.c
+            m22 = c
             b2 = rhs_v - dh * a
             st.bad = None
         else:
@@ -507,10 +591,10 @@ class _Model:
             ai = esr * av
             a0 = -a * ai
             m21 = -dh * (1.0 - g * ai)
-            m22 = self.c + dh * g * av
-            bad22 = m22 < 0.5 * self.c
+            m22 = c + dh * g * av
+            bad22 = m22 < 0.5 * c
             st.bad = st.bad | bad22
-            m22 = ops.where(bad22, self.c, m22)
+            m22 = ops.where(bad22, c, m22)
             b2 = rhs_v - dh * (a + g * a0)
         m11 = Z + r_sw + ai
         b1 = E - a0
@@ -519,9 +603,9 @@ class _Model:
         i_free = (b1 - avw * b2) / (m11 - avw * m21)
         if self.limit:
             if self.has_cin:
-                q, s = self.reference(v_p, a, g, E, Z)
+                q, s = self.reference(v_p, a, g, E, Z, cdvdt)
             else:
-                q, s = self.reference(v_p, a, g, self.v_s, self.r)
+                q, s = self.reference(v_p, a, g, self.v_s, self.r, cdvdt)
             den_l = 1.0 - s * (ai - avw * m21)
             if self.regulates:
                 weak = den_l < 0.1
@@ -537,9 +621,9 @@ class _Model:
                 # and the FET would read a few percent above its power limit
                 v_l = av * ((b2 - m21 * i_lim) * w) + ai * i_lim + a0
                 if self.has_cin:
-                    q, s = self.reference(v_l, a, g, E, Z)
+                    q, s = self.reference(v_l, a, g, E, Z, cdvdt)
                 else:
-                    q, s = self.reference(v_l, a, g, self.v_s, self.r)
+                    q, s = self.reference(v_l, a, g, self.v_s, self.r, cdvdt)
                 den_l = 1.0 - s * (ai - avw * m21)
                 if self.regulates:
                     weak = den_l < 0.1
@@ -630,8 +714,12 @@ def _instant(model: _Model, state, idx=None):
     sw_on = g(state.on) if model.timer else None
     t_rel = g(state.t) - g(state.t_att)
     rhs_g = model.gate_charge(g(state.vg), vin, vout) if model.gate is not None else 0.0
-    st = model.stage(t_rel, dh, E, Z, model.c_in * vin, model.c * vc, vout, g(state.r_on), il, 1.0, g(state.started),
-                     sw_on, rhs_g)
+    if model.bank:  # every group's charge holds
+        st = model.bank_stage(t_rel, dh, E, Z, model.c_in * vin, g(state.bq), g(state.bv), vout, g(state.r_on), il,
+                              1.0, g(state.started), sw_on, rhs_g)
+    else:
+        st = model.stage(t_rel, dh, E, Z, model.c_in * vin, model.c * vc, vout, g(state.r_on), il, 1.0,
+                         g(state.started), sw_on, rhs_g)
     if model.has_cin:
         r_safe = ops.where(model.r > 0.0, model.r, 1.0)
         il = ops.where(model.l > 0.0, il, ops.where(model.r > 0.0, (model.v_s - vin) / r_safe, st.i))
@@ -667,6 +755,8 @@ def _apply_instant(model: _Model, state, st: _Stage, idx=None) -> None:
     if model.gate is not None:
         for name in ("vg", "fg", "exc_c"):
             _put(state, name, idx, getattr(st, name))
+    if model.bank:  # the groups' charges hold; their currents follow the output
+        _put(state, "bi", idx, st.bi)
     g = (lambda x: x) if idx is None else (lambda x: x[idx])  # noqa: E731
     _put(state, "dtj", idx, model.ops.rate(g(state.theta), st.p, model.r_th, model.tau_th))
 
@@ -703,6 +793,10 @@ def _initial(model: _Model, t_est, i_typ, rows, active, t_amb: float) -> _State:
         for key, val in vals.items():
             setattr(state, key, np.array(val, copy=True))
         state.theta = np.zeros((n, k))
+    if model.bank:  # the groups discharged: charge, voltage and current of each
+        groups = cz.bank.n_groups
+        for key in ("bq", "bv", "bi"):
+            setattr(state, key, np.zeros(groups) if ops is _FloatOps else np.zeros((n, groups)))
     _apply_instant(model, state, _instant(model, state))
     state.i_peak = ops.maximum(state.i, 0.0)
     state.p_peak = state.p
@@ -886,13 +980,23 @@ def _take_stages(model: _Model, state: _State, h) -> _Step:
         rhs_g1 = q0 + dh * state.fg
     else:
         rhs_g1 = 0.0
-    s1 = model.stage(t_rel + gh, dh, e1, z1, rhs_in1, c * vc + dh * ic, vout + gh * ic / c, r_on_g, i, gh,
-                     state.started, sw_on, rhs_g1)
+    if model.bank:
+        bq, bv, bi = state.bq, state.bv, state.bi
+        vp_k = bv + np.asarray(gh, dtype=float)[..., None] * bi / model.bank_cap(bv)
+        s1 = model.bank_stage(t_rel + gh, dh, e1, z1, rhs_in1, bq + np.asarray(dh, dtype=float)[..., None] * bi, vp_k,
+                              vout + gh * ic / c, r_on_g, i, gh, state.started, sw_on, rhs_g1)
+    else:
+        s1 = model.stage(t_rel + gh, dh, e1, z1, rhs_in1, c * vc + dh * ic, vout + gh * ic / c, r_on_g, i, gh,
+                         state.started, sw_on, rhs_g1)
     rhs_in2 = model.c_in * (_C1 * s1.vin - _C2 * vin) if model.has_cin else 0.0
     e2, z2 = model.source(dh, model.l * (_C1 * s1.il - _C2 * il), rhs_in2)
     rhs_g2 = _C1 * model.gate_charge(s1.vg, s1.vin, s1.vout) - _C2 * q0 if model.gate is not None else 0.0
-    s2 = model.stage(t_rel + h, dh, e2, z2, rhs_in2, c * (_C1 * s1.vc - _C2 * vc),
-                     vout + (s1.vout - vout) * (1.0 / _G), r_on_1, s1.i, dt1, state.started, sw_on, rhs_g2)
+    if model.bank:
+        s2 = model.bank_stage(t_rel + h, dh, e2, z2, rhs_in2, _C1 * s1.bq - _C2 * bq, bv + (s1.bv - bv) * (1.0 / _G),
+                              vout + (s1.vout - vout) * (1.0 / _G), r_on_1, s1.i, dt1, state.started, sw_on, rhs_g2)
+    else:
+        s2 = model.stage(t_rel + h, dh, e2, z2, rhs_in2, c * (_C1 * s1.vc - _C2 * vc),
+                         vout + (s1.vout - vout) * (1.0 / _G), r_on_1, s1.i, dt1, state.started, sw_on, rhs_g2)
     step.t, step.t1, step.h, step.gh, step.dh, step.dt1 = t, t + h, h, gh, dh, dt1
     step.sw_on, step.s1, step.s2 = sw_on, s1, s2
     return step
@@ -1149,6 +1253,8 @@ def _commit(model: _Model, state: _State, step: _Step, ok, rate_1, r_on1) -> Non
             state.exc, state.lim = s2.exc, s2.lim
         if model.gate is not None:
             state.vg, state.fg, state.exc_c = s2.vg, s2.fg, s2.exc_c
+        if model.bank:
+            state.bq, state.bv, state.bi = s2.bq, s2.bv, s2.bi
         state.theta, state.tj, state.dtj = step.th_1, step.tj_1, rate_1
         if model.varies:
             state.r_rate = (r_on1 - state.r_on) / step.h
@@ -1172,6 +1278,9 @@ def _commit(model: _Model, state: _State, step: _Step, ok, rate_1, r_on1) -> Non
             state.vg = ops.where(ok, s2.vg, state.vg)
             state.fg = ops.where(ok, s2.fg, state.fg)
             state.exc_c = ops.where(ok, s2.exc_c, state.exc_c)
+        if model.bank:
+            for key in ("bq", "bv", "bi"):
+                setattr(state, key, np.where(ok[:, None], getattr(s2, key), getattr(state, key)))
         state.theta = ops.where(ok[:, None], step.th_1, state.theta)
         state.tj = ops.where(ok, step.tj_1, state.tj)
         state.dtj = ops.where(ok, rate_1, state.dtj)
@@ -1204,10 +1313,15 @@ def _finished(model: _Model, state: _State, step: _Step, ok, tj_hi, v_f, i_f, fi
     and followed far enough (`_switch_events`, which also carries out trips and retries)."""
     ops = model.ops
     t_on = model.t_on
-    dev = model.l * (state.il - i_f) ** 2 + model.c * (state.vc - v_f) ** 2
+    if model.bank:
+        dev_c, c_ref = model.bank_deviation(state, v_f)
+        dev = model.l * (state.il - i_f) ** 2 + dev_c
+    else:
+        dev = model.l * (state.il - i_f) ** 2 + model.c * (state.vc - v_f) ** 2
+        c_ref = model.c
     if model.has_cin:
         dev = dev + model.c_in * (state.vin - model.v_s + model.r * i_f) ** 2
-    done = ok & (dev <= model.c * (STOP_BAND * v_f) ** 2)
+    done = ok & (dev <= c_ref * (STOP_BAND * v_f) ** 2)
     if model.gate is not None:  # out of saturation (V_DS below the overdrive) and out of the current limit
         sat = (state.vin >= state.vg - model.gate.v_th) | (state.exc_c > 0.0)
         done = done & ops.not_(state.lim & sat)

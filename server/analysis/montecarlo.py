@@ -50,6 +50,7 @@ import math
 import numpy as np
 from scipy.special import ndtr, ndtri
 
+from .bank import group_total, sample_multipliers
 from .checks import CHECKS, FAIL, MARGINAL, NA, PASS, SEVERITY
 from .circuit import NO_LIMIT
 from .corners import point_words
@@ -198,7 +199,13 @@ def sample_params(rail: Rail, n: int, *, seed: int, distribution: str | dict | N
             rds = fet.rds_on + np.abs(zr) * (fet.rds_on_max - fet.rds_on)
     else:
         rds = np.full(n, fet.rds_on)
-    params = RowParams(v_s=v, c=c, i_lim=il, t_fault=tf, rds=rds)
+    bank = None
+    if rail.load.bank is not None:
+        # drawn last: every group its own tolerance draw (and a uniform draw in its derating range)
+        groups = rail.load.bank
+        bank = sample_multipliers(lambda g: (_draw(rng, n, kinds["c"]), rng.uniform(0.0, 1.0, n)), groups)
+        c = bank @ np.array([group_total(g, rail.t_ambient) for g in groups])
+    params = RowParams(v_s=v, c=c, i_lim=il, t_fault=tf, rds=rds, bank=bank)
     draws = {"v_s": v, "c": c, "i_limit": il, "timer_c": tc, "i_charge": ich, "v_trip": vt, "rds_on": rds}
     return params, draws
 

@@ -233,6 +233,8 @@ def _free_run(cz: Circuit, *, t_est, i_typ, active, record, max_steps):
     """The run without a timer, once per distinct circuit row: rows that differ only in their
     trip time (the corners of a timer's tolerances, say) share it, figures and waveform."""
     key = np.stack([cz.v_s, cz.c, cz.i_lim, cz.r, cz.l, cz.esr], axis=1)
+    if cz.bank_c is not None:
+        key = np.concatenate([key, cz.bank_c], axis=1)
     _, first, inv = np.unique(key, axis=0, return_index=True, return_inverse=True)
     inv = inv.reshape(-1)
     if first.size == cz.n:

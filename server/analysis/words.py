@@ -75,6 +75,27 @@ FIELD_TITLES: dict[str, FieldWords] = {
     "load.model": W("Load model", None, "none, resistive, constant current or constant power"),
     "load.i_nom": W("Load current at nominal supply", "A", "the current the load draws at the nominal supply"),
     "load.v_on": W("Load turn-on voltage", "V", "the load draws nothing below it; needed for constant power"),
+    "load.bank": W("Capacitor bank", None,
+                   "groups of capacitors on the output; replaces the load capacitance, its tolerance and ESR; "
+                   "blank: one capacitance"),
+    "load.bank[]": W("Capacitor group {0}", None, "identical capacitors: count, value, dielectric, rating, ESR"),
+    "load.bank[].refs": W("Capacitor group {0} reference designators", None, "e.g. C12, C14-C20; blank: none"),
+    "load.bank[].count": W("Capacitor group {0} count", "ratio", "a whole number of identical capacitors"),
+    "load.bank[].c_nom": W("Capacitor group {0} value", "F", "nominal capacitance of one capacitor"),
+    "load.bank[].c_tol": W("Capacitor group {0} tolerance", "fraction", "e.g. 10 % or 0.1"),
+    "load.bank[].dielectric": W("Capacitor group {0} dielectric", None,
+                                "C0G, X5R, X7R, aluminium electrolytic, polymer, film or other"),
+    "load.bank[].v_rated": W("Capacitor group {0} voltage rating", "V", "rated voltage of one capacitor"),
+    "load.bank[].esr": W("Capacitor group {0} ESR", "ohm", "equivalent series resistance of one capacitor"),
+    "load.bank[].dc_bias": W("Capacitor group {0} DC-bias curve", None,
+                             "[DC voltage (V), capacitance as a fraction of nominal] points, voltage rising, the "
+                             "fraction not rising; blank: no derating with voltage"),
+    "load.bank[].dc_bias[]": W("Capacitor group {0} DC-bias curve, point {1}", None, "[V, fraction of nominal]"),
+    "load.bank[].tempco": W("Capacitor group {0} temperature coefficient", "1/K",
+                            "change of capacitance per kelvin from 25 \u00b0C, taken at the ambient; blank: none"),
+    "load.bank[].derating": W("Capacitor group {0} derating range", None,
+                              "[low, high] fractions of nominal at working voltage where no DC-bias curve is "
+                              "known, e.g. [0.4, 0.8]; blank: none"),
     # switch
     "switch": W("Switch"),
     "switch.mode": W("Turn-on mode", None, "hard, slew, current limit or power limit"),

@@ -52,9 +52,9 @@ import numpy as np
 
 from .checks import CHECKS, NA, STARTUP_CHECKS
 from .circuit import NO_LIMIT
-from .corners import ALL_PARAMETERS, corner_params, corner_set, point_words
+from .corners import ALL_PARAMETERS, c_range, corner_params, corner_set, point_words
 from .document import Rail
-from .evaluation import PARAMS, RowParams, evaluate_rows
+from .evaluation import RowParams, evaluate_rows
 from .startup import STATUS_RETRIED, STATUS_RETRY_EXHAUSTED, STATUS_TRIPPED
 
 __all__ = ["SEARCH_SEED", "QUASI_RANDOM_POINTS", "WALKERS", "halton_points", "COMPASS_ROUNDS", "COMPASS_STEP", "WorstCase", "find_worst_case",
@@ -138,7 +138,7 @@ def _expand(fig: dict, checks: dict, idx: np.ndarray, n_unique: int) -> tuple[di
 
 def evaluate_unique(rail: Rail, rules: dict, params: RowParams) -> tuple[dict, dict]:
     """`evaluate_rows` on the distinct rows of ``params``, the figures spread back to every row."""
-    key = np.stack([getattr(params, k) for k in PARAMS], axis=1)
+    key = params.key()
     uniq, first, idx = np.unique(key, axis=0, return_index=True, return_inverse=True)
     idx = idx.reshape(-1)
     fig, checks, _ = evaluate_rows(rail, rules, params.take(first))
@@ -162,7 +162,7 @@ class _Box:
         if s.v_max > s.v_min:
             dims.append(("v_s", s.v_min, s.v_max))
         if rail.load.c_tol > 0:
-            dims.append(("c", rail.load.c_nom * (1 - rail.load.c_tol), rail.load.c_nom * (1 + rail.load.c_tol)))
+            dims.append(("c", *c_range(rail)))
         if sw.i_limit is not None and sw.i_limit_tol > 0:
             dims.append(("i_lim", sw.i_limit * (1 - sw.i_limit_tol), sw.i_limit * (1 + sw.i_limit_tol)))
         lo_t, hi_t = t_fault_range

@@ -27,13 +27,14 @@ from typing import Annotated, Any, Literal
 from pydantic import BaseModel, BeforeValidator, ConfigDict, Field, model_validator
 from pydantic_core import PydanticUndefined
 
+from server.analysis.bank import DIELECTRICS
 from server.analysis.document import (AFTER_FAULT, BOUNDS, DEFAULTS, GATE_DRIVES, LOAD_MODELS, OPTIONAL, SCHEMA,
                                      SWITCH_MODES)
 from server.analysis.words import FIELD_TITLES
 from server.units import parse_quantity
 
 __all__ = [
-    "SCHEMA_ID", "Supply", "PathImpedance", "Load", "Timer", "Switch", "FosterStage", "SoaCurve",
+    "SCHEMA_ID", "Supply", "PathImpedance", "BankGroup", "Load", "Timer", "Switch", "FosterStage", "SoaCurve",
     "Soa", "Fet", "FetGate", "GateDrive", "Environment", "Rules", "RailDocument", "normalize", "part_document",
     "part_data", "RAIL_FET_KEYS", "canonical_json", "document_sha256",
 ]
@@ -67,6 +68,7 @@ OptFarad = Annotated[float | None, _optional_quantity("F")]
 OptVoltPerSecond = Annotated[float | None, _optional_quantity("V/s")]
 OptKelvin = Annotated[float | None, _optional_quantity("K")]
 OptRatio = Annotated[float | None, _optional_quantity("ratio")]
+OptPerKelvin = Annotated[float | None, _optional_quantity("1/K")]
 OptJoule = Annotated[float | None, _optional_quantity("J")]
 OptOhm = Annotated[float | None, _optional_quantity("ohm")]
 Ratio = Annotated[float, _quantity("ratio")]
@@ -120,13 +122,27 @@ class PathImpedance(_Section):
     l: Henry = _field("path.l")
 
 
+class BankGroup(_Section):
+    refs: str | None = _field("load.bank[].refs")
+    count: int = _field("load.bank[].count")
+    c_nom: Farad = _field("load.bank[].c_nom")
+    c_tol: Fraction = _field("load.bank[].c_tol")
+    dielectric: Literal[DIELECTRICS] = _field("load.bank[].dielectric")  # type: ignore[valid-type]
+    v_rated: Volt = _field("load.bank[].v_rated")
+    esr: Ohm = _field("load.bank[].esr")
+    dc_bias: list[tuple[Volt, Fraction]] | None = _field("load.bank[].dc_bias")
+    tempco: OptPerKelvin = _field("load.bank[].tempco")
+    derating: tuple[Fraction, Fraction] | None = _field("load.bank[].derating")
+
+
 class Load(_Section):
-    c_nom: Farad = _field("load.c_nom")
+    c_nom: OptFarad = _field("load.c_nom")
     c_tol: Fraction = _field("load.c_tol")
     esr: Ohm = _field("load.esr")
     model: Literal[LOAD_MODELS] = _field("load.model")  # type: ignore[valid-type]
     i_nom: Amp = _field("load.i_nom")
     v_on: Volt = _field("load.v_on")
+    bank: list[BankGroup] | None = _field("load.bank")
 
 
 class Timer(_Section):
@@ -246,6 +262,7 @@ def normalize(document: RailDocument) -> dict[str, Any]:
 # optional fields added after the first documents and the value that stands for "not given":
 # left out of the canonical form, so that a document without them keeps its text and its hash
 _LATER_OPTIONAL: dict[tuple[str, str], Any] = {
+    ("load", "c_nom"): None, ("load", "bank"): None,
     ("supply", "v_clamp"): None,
     ("switch", "loop_response"): None, ("switch", "fast_trip"): None, ("switch", "fast_trip_delay"): None,
     ("switch", "foldback"): None, ("switch", "gate"): None,
@@ -266,6 +283,10 @@ def _drop_unset(data: dict[str, Any]) -> dict[str, Any]:
         sec = _section(data, section)
         if isinstance(sec, dict) and key in sec and sec[key] == absent:
             del sec[key]
+    for group in (data.get("load") or {}).get("bank") or ():
+        for key in ("refs", "dc_bias", "tempco", "derating"):
+            if isinstance(group, dict) and group.get(key) is None:
+                group.pop(key, None)
     gate = (data.get("fet") or {}).get("gate")
     if isinstance(gate, dict):  # k or g_fs at i_gfs, whichever was given
         for key in ("k", "g_fs", "i_gfs"):

@@ -5,10 +5,14 @@ every demo rail (`server/demo.py`) and every example rail file (`examples/rails/
 analysed on the sign-off basis (corners, the worst-case search, the headroom search, the
 nominal waveforms) with a seeded Monte Carlo of a few samples, and as a nominal quick look
 (headroom on the nominal point, no waveforms). The whole result is walked and compared with
-`data/result_identity.json`: every float to 1e-8 relative, everything else (keys, words,
-verdicts, counts, None) equal. Builds of numpy and scipy differ in the last bits of their
-functions and the integrator's step control carries such a difference to about 1e-10 of a
-figure: 1e-8 still catches any change of method, which moves figures by far more.
+`data/result_identity.json`: every float to 1e-5 relative, everything else (keys, words,
+verdicts, counts, None) equal. Why 1e-5: builds of numpy and scipy, and the vector
+units of the processor they run on, differ in the last bits of their functions; the
+integrator's step control, event location and the headroom bisection carry such a difference
+into the figures. Measured between two machines (same numpy 2.4.6 and scipy 1.17.1, another
+processor): 5,718 floats differ, the largest by 2.4e-6 (the headroom search's capacitance,
+found by bisection to its own tolerance), every other by at most 4.2e-7 (a settling time).
+1e-5 still catches any change of method, which moves figures by far more.
 
 The stored reading is the engine's own earlier output, not an outside reference: a change
 that is meant to change numbers rewrites it on purpose, and its commit says why::
@@ -32,7 +36,7 @@ from server.demo import BOARDS, FETS
 
 ROOT = Path(__file__).resolve().parents[2]
 STORED = Path(__file__).resolve().parent / "data" / "result_identity.json"
-RTOL = 1e-8
+RTOL = 1e-5
 MC_SAMPLES = 8
 
 
