@@ -206,6 +206,20 @@ BOARDS = [
                {"mode": "current_limit", "t_on": 100e-6, "i_limit": 4.0, "i_limit_tol": 0.1,
                 "loop_response": 3e-6, "fast_trip": 18.0, "fast_trip_delay": 400e-9,
                 "timer": {**_timer(22e-9, retry_off=1.0), "retries": 3}}, 60.0), 4),
+        # the gimbal's bank (invented): two electrolytics, two dozen X7R ceramics whose capacitance falls to 45 %
+        # at 12 V (an invented DC-bias curve), and eight X5R ceramics with no curve
+        (_rail("GIMBAL_12V", SUPPLY_12,
+               {"model": "constant_power", "i_nom": 1.2, "v_on": 9.0, "bank": [
+                   {"refs": "C401, C402", "count": 2, "c_nom": 330e-6, "c_tol": 0.2, "dielectric": "electrolytic",
+                    "v_rated": 25.0, "esr": 0.08},
+                   {"refs": "C410-C433", "count": 24, "c_nom": 22e-6, "c_tol": 0.1, "dielectric": "x7r",
+                    "v_rated": 25.0, "esr": 0.004,
+                    "dc_bias": [[0.0, 1.0], [4.0, 0.85], [8.0, 0.62], [12.0, 0.45], [16.0, 0.36], [25.0, 0.25]]},
+                   {"refs": "C440-C447", "count": 8, "c_nom": 4.7e-6, "c_tol": 0.1, "dielectric": "x5r",
+                    "v_rated": 16.0, "esr": 0.008},
+               ]},
+               {"mode": "current_limit", "t_on": 200e-6, "i_limit": 3.0, "i_limit_tol": 0.1,
+                "timer": _timer(100e-9)}, 70.0), 1),
     ]),
 ]
 

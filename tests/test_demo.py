@@ -14,7 +14,7 @@ from server.services.users import get_user_by_name
 
 def test_demo_covers_every_mode_and_load_model():
     docs = [doc for _, _, rails in BOARDS for doc, _ in rails]
-    assert len(BOARDS) == 3 and 10 <= len(docs) <= 16
+    assert len(BOARDS) == 3 and 10 <= len(docs) <= 17
     assert {d["switch"]["mode"] for d in docs} == {"hard", "slew", "current_limit", "power_limit"}
     assert {d["load"]["model"] for d in docs} == {"none", "resistive", "constant_current", "constant_power"}
 

@@ -30,6 +30,7 @@ from typing import Any, Callable
 
 import numpy as np
 
+from .bank import bank_summary
 from .checks import (CHECKS, NA, RAMP_CONVENTION, SEVERITY, SPECS, VERDICTS, check_detail, edge_margin,
                      rests_on_ramp, start_temperature_of, worst_verdict)
 from .circuit import NO_LIMIT
@@ -536,6 +537,13 @@ def _empty_headroom() -> dict:
             "limit_max": {"title": "Highest current limit the short circuit allows", "unit": "A", **rec}}
 
 
+BANK_CONVENTION = ("Capacitor bank: each group is its own branch (its ESR, its charge on its DC-bias curve, "
+                   "dq = C(v) dv), held at the curve's end values beyond it; the load capacitance named in the "
+                   "corners and figures is the bank's total at 0 V; corners move every group's tolerance together, "
+                   "the Monte Carlo draws each group on its own; a derating range is read at its middle at nominal "
+                   "and at its ends at the corners.")
+
+
 # --- notes ---------------------------------------------------------------------------------
 
 
@@ -545,6 +553,8 @@ def _notes(rail: Rail, wc: WorstCase | None) -> list[str]:
     if abs(zsum - rail.fet.rth_ja) > 0.1 * rail.fet.rth_ja:
         notes.append(f"The Foster stages sum to {zsum:.3g} K/W but rth_ja is {rail.fet.rth_ja:.3g} K/W: transients "
                      "use the Foster stages, steady conduction uses rth_ja.")
+    if rail.load.bank is not None:
+        notes.extend(bank_summary(rail.load.bank, rail.t_ambient, rail.supply.v_max, rail.supply.v_nom)["notes"])
     if wc is None:
         notes.append("Nominal reading only: not a sign-off verdict. The sign-off basis is the worst case over the "
                      "tolerance corners and the search inside the tolerance box.")
@@ -652,6 +662,8 @@ def analyze_rail(
         result["corners"] = _corner_list(wc)
     if _fet_data_given(rail):
         result["fet"] = _fet_section(rail, nominal[0])
+    if rail.load.bank is not None:
+        result["bank"] = bank_summary(rail.load.bank, rail.t_ambient, rail.supply.v_max, rail.supply.v_nom)
     if n_samples:
         result["monte_carlo"] = run_monte_carlo(rail, rail.rules, n_samples, seed=seed, distribution=distribution,
                                                 worst=records, progress=_split_progress(progress, share, 1.0))
@@ -717,4 +729,6 @@ def _closing_sections(rail: Rail, wc: WorstCase | None) -> dict:
     conventions = [MARGIN_CONVENTION, SOA_CONVENTION]
     if rests_on_ramp(rail):
         conventions.append(RAMP_CONVENTION)
+    if rail.load.bank is not None:
+        conventions.append(BANK_CONVENTION)
     return {"rules": rules, "conventions": conventions, "notes": _notes(rail, wc), "caution": CAUTION}

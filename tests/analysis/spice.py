@@ -64,8 +64,29 @@ OPTIONS = ".options reltol=1e-6 abstol=1e-12 vntol=1e-9 method=gear maxord=2 itl
 GATE_OPTIONS = (OPTIONS, OPTIONS.replace("reltol=1e-6", "reltol=1e-5"), OPTIONS + " gmin=1e-11")
 
 
+def _bank_lines(bank: list[dict]) -> list[str]:
+    """A capacitor bank at the output: per group its ESR and either a linear capacitor (``c``) or a
+    charge ``q`` (an expression in the branch voltage written ``{v}``). The charge is the usual
+    charge-based nonlinear capacitor of circuit simulation: a B-source makes a node's voltage
+    equal to q(v), a 1 F capacitor on that node carries dq/dt, and a current-controlled current
+    source draws that current from the branch (ngspice manual, chapters 4 and 5: B, F and V
+    sources)."""
+    lines = []
+    for k, g in enumerate(bank):
+        node = f"b{k}"
+        lines.append(f"Rb{k} out {node} {_n(g['esr']) if g.get('esr', 0.0) > 0 else '1e-12'}")
+        if g.get("q") is not None:
+            lines += [f"Bq{k} q{k} 0 V = {g['q'].format(v=f'V({node})')}",
+                      f"Cq{k} q{k} qx{k} 1 IC=0",
+                      f"Vq{k} qx{k} 0 DC 0",
+                      f"Fq{k} {node} 0 Vq{k} 1"]
+        else:
+            lines.append(f"Cb{k} {node} 0 {_n(g['c'])} IC=0")
+    return lines
+
+
 def _netlist(*, v, r, l, c, esr, r_load, mode, rds, i_limit, dvdt, t_on, r_off, t_stop, t_max, out_file, c_in=None,
-             gate=None, options=OPTIONS):
+             gate=None, options=OPTIONS, bank=None):
     lines = ["* railsign reference circuit", f"V1 vs 0 DC {_n(v)}"]
     node = "vs"
     if r > 0:
@@ -97,7 +118,9 @@ def _netlist(*, v, r, l, c, esr, r_load, mode, rds, i_limit, dvdt, t_on, r_off, 
         lines.append(f"B1 swx out I = {expr}")
     else:
         lines += _gate_lines(gate, v)
-    if esr > 0:
+    if bank is not None:
+        lines += _bank_lines(bank)
+    elif esr > 0:
         lines.append(f"Resr out x {_n(esr)}")
         lines.append(f"C1 x 0 {_n(c)} IC=0")
     else:
