@@ -58,7 +58,7 @@ import numpy as np
 
 __all__ = ["DIELECTRICS", "CLASS_II", "DIELECTRIC_WORDS", "BankGroup", "BankShape", "bank_shape", "group_factor",
            "group_total", "bank_total", "bank_spread", "group_esr", "bank_esr", "multipliers", "sample_multipliers", "fraction",
-           "charge", "voltage", "bank_summary", "MAX_BANK_GROUPS", "MAX_GROUP_COUNT"]
+           "charge", "voltage", "bank_summary", "effective_capacitance", "document_capacitance", "MAX_BANK_GROUPS", "MAX_GROUP_COUNT"]
 
 DIELECTRICS = ("c0g", "x5r", "x7r", "electrolytic", "polymer", "film", "other")
 CLASS_II = frozenset({"x5r", "x7r"})
@@ -118,6 +118,18 @@ def bank_total(groups, t_ambient: float) -> float:
 def group_esr(group: BankGroup) -> float:
     """The group's ESR: its ``count`` capacitors in parallel, ohm."""
     return group.esr / group.count
+
+
+def document_capacitance(load: dict, t_ambient: float) -> float | None:
+    """The load capacitance of a validated document's ``load`` section (SI numbers): its ``c_nom``,
+    or a bank's nominal total at 0 V (F); None when neither is there."""
+    if load.get("bank"):
+        groups = [BankGroup(count=int(g["count"]), c_nom=g["c_nom"], c_tol=g.get("c_tol", 0.0),
+                            dielectric=g["dielectric"], v_rated=g["v_rated"], esr=g.get("esr", 0.0),
+                            tempco=g.get("tempco"), derating=tuple(g["derating"]) if g.get("derating") else None)
+                  for g in load["bank"]]
+        return bank_total(groups, t_ambient)
+    return load.get("c_nom")
 
 
 def bank_esr(groups) -> float:
@@ -264,6 +276,15 @@ def bank_shape(groups, t_ambient: float) -> BankShape:
     return BankShape(tables=tuple(table(g.dc_bias) for g in groups),
                      esr=np.array([group_esr(g) for g in groups]),
                      nominal=np.array([group_total(g, t_ambient) for g in groups]))
+
+
+def effective_capacitance(groups, t_ambient: float, v: float) -> float:
+    """The charge-equivalent capacitance of the bank at ``v`` (V): Q(v) / v, F (the one capacitor
+    that holds the bank's charge at that voltage; at 0 V, the bank's total)."""
+    shape = bank_shape(groups, t_ambient)
+    if v <= 0.0:
+        return float(shape.nominal.sum())
+    return float(sum(shape.nominal[k] * charge(t, v) for k, t in enumerate(shape.tables)) / v)
 
 
 # -- the summary for people -----------------------------------------------------

@@ -89,6 +89,7 @@ from typing import Any
 
 import numpy as np
 
+from .bank import effective_capacitance
 from .bounds import magnitude_problem
 from .checks import FAIL, NA, PASS, VERDICTS
 from .circuit import NO_LIMIT, R_OFF, circuit_rows
@@ -525,6 +526,15 @@ def _highest_limit(rail: Rail, i_lim: float) -> float:
     return i_lim if fold is None else max(i_lim, max(i for _, i in fold))
 
 
+def _board_capacitance(rail: Rail) -> float:
+    """The rail's load capacitance in the board time line: its capacitance, or a bank's
+    charge-equivalent capacitance at the rail's supply (the bank's charge there, so the same charge
+    drawn from the shared supply; `bank.effective_capacitance`)."""
+    if rail.load.bank is None:
+        return rail.load.c_nom
+    return effective_capacitance(rail.load.bank, rail.t_ambient, rail.supply.v_nom)
+
+
 def _rows(seq: Sequence) -> tuple[_Rows, list[Rail]]:
     supplies = {s.id: j for j, s in enumerate(seq.supplies)}
     S, K = len(seq.supplies), len(seq.rails)
@@ -549,7 +559,7 @@ def _rows(seq: Sequence) -> tuple[_Rows, list[Rail]]:
     sup_k = np.array([supplies[sr.supply] for sr in seq.rails], dtype=int)
     rows = _Rows(
         sup=np.concatenate([sup_k, sup_k + S]),
-        c=two(one(lambda k: rails[k].load.c_nom)),
+        c=two(one(lambda k: _board_capacitance(rails[k]))),
         esr=two(one(lambda k: rails[k].load.esr)),
         r_p=two(one(lambda k: rails[k].path.r)),
         # the switch's R_DS(on) as the rail's own circuit reads it: the part's data over temperature, the
@@ -1032,6 +1042,9 @@ def analyze_sequence(doc: Any, rail_documents: dict[str, Any] | None = None, tea
             "(conservative for the dip).",
             "A supply's total current is its source current (rails and bus capacitance); a dip is compared raw "
             "with each UVLO unless the rail gives the UVLO's deglitch time.",
+            "A rail with a capacitor bank takes part as one capacitor holding the bank's charge at the rail's "
+            "supply (its charge-equivalent capacitance) behind the groups' ESRs in parallel; the rail's own "
+            "analysis follows each group on its DC-bias curve.",
         ],
     }
 

@@ -38,7 +38,7 @@ def _row(r: dict[str, Any], so: dict[str, Any]) -> dict[str, Any]:
     return {
         "id": r["id"], "name": r["name"], "mode": r["mode"], "head_n": r["head_n"],
         "supply": supply_text(r["supply"]), "supply_sort": r["supply"].get("v_nom") or 0,
-        "c": fmt(r["load"].get("c_nom"), "F"), "c_sort": r["load"].get("c_nom") or 0,
+        "c": fmt(r["c_load"], "F"), "c_sort": r["c_load"] or 0,
         "verdict": r["verdict"], "verdict_sort": verdict_style(r["verdict"]).severity, "outdated": r.get("outdated"),
         "worst": worst, "worst_sort": worst["margin"] if worst and worst["margin"] is not None else "",
         "state": so["state"], "signed_off": so["signed_off"], "approvals": so["approvals"], "stale": so["stale"],

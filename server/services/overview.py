@@ -19,6 +19,7 @@ from typing import Any
 from sqlalchemy import func, select
 from sqlalchemy.orm import Session
 
+from server.analysis.bank import document_capacitance
 from server.models import AnalysisResult, Approval, Board, Job, Product, Rail, RailRevision, RailState, Waiver
 from server.services import results, workflows
 from server.services.access import Actor, scoped_products
@@ -206,6 +207,7 @@ def board_rails(*, session: Session, actor: Actor, board_id: int) -> dict[str, A
         p = parts.get(result_id)
         rails.append({"id": rid, "name": name, "mode": mode, "head_n": head_n, "updated_at": updated_at,
                       "supply": supply or {}, "load": load or {}, "t_ambient": (env or {}).get("t_ambient"),
+                      "c_load": document_capacitance(load or {}, (env or {}).get("t_ambient", 25.0)),
                       "verdict": verdict, "analysed_at": analysed_at, "checks": p.checks if p else [],
                       "startup": (p.t, p.i) if p and p.t and p.i else None,
                       "outdated": outdated.get(sha) if verdict is None else None})

@@ -25,6 +25,7 @@ from typing import Any
 from sqlalchemy import select
 from sqlalchemy.orm import Session
 
+from server.analysis.bank import document_capacitance
 from server.models import PartRevision, Rail, RailRevision, utcnow
 from server.schemas.rail import RAIL_FET_KEYS, document_sha256, part_data
 from server.services import jobs, sequences, signoff
@@ -65,7 +66,8 @@ def _after_new_revision(session: Session, actor: Actor, rail: Rail, revision: Ra
 
 
 def _summary(doc: dict) -> dict:
-    return {"v_nom": doc["supply"]["v_nom"], "c_nom": doc["load"]["c_nom"], "load_model": doc["load"]["model"],
+    c_nom = document_capacitance(doc["load"], doc["environment"]["t_ambient"])
+    return {"v_nom": doc["supply"]["v_nom"], "c_nom": c_nom, "load_model": doc["load"]["model"],
             "fet": doc["fet"]["name"]}
 
 

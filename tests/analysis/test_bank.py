@@ -218,3 +218,13 @@ def test_a_bank_and_a_single_capacitance_are_not_both_given():
     with pytest.raises(DocumentError) as err:
         read_rail(none)
     assert err.value.errors[0].field == "load.c_nom"
+
+
+def test_the_charge_equivalent_capacitance_of_a_falling_curve():
+    from server.analysis.bank import BankGroup, effective_capacitance
+    g = BankGroup(count=10, c_nom=100e-6, c_tol=0.0, dielectric="x7r", v_rated=25.0, esr=0.0,
+                  dc_bias=((0.0, 1.0), (20.0, 0.2)))
+    a = 0.8 / 20.0
+    for v in (5.0, 12.0, 20.0):
+        # Source: Q(v) / v = C0 (v - a v^2 / 2) / v = C0 (1 - a v / 2) (closed form of the linear curve)
+        assert effective_capacitance((g,), 25.0, v) == pytest.approx(1e-3 * (1.0 - a * v / 2.0), rel=1e-12)

@@ -125,12 +125,12 @@ def test_the_comparison_finds_a_changed_number_key_and_word(stored):
     assert isinstance(i_peak, float) and i_peak > 0
     changed = copy.deepcopy(stored[case])
     changed["verdict"] = "different"
-    changed["startup"]["i_peak"] = i_peak * (1.0 + 1e-7)
+    changed["startup"]["i_peak"] = i_peak * (1.0 + 1e-4)
     changed["steady"]["extra"] = 0.0
     found = differences(stored[case], changed)
     assert [f.split(":")[0] for f in found] == ["$.verdict", "$.startup.i_peak", "$.steady"]
     within = copy.deepcopy(stored[case])
-    within["startup"]["i_peak"] = i_peak * (1.0 + 1e-9)
+    within["startup"]["i_peak"] = i_peak * (1.0 + 1e-6)
     assert differences(stored[case], within) == []
     assert differences({"n": 1}, {"n": 1.0}) != []
 
