@@ -3,12 +3,19 @@ refusals naming the field, approvals that a rail's new revision makes stale (and
 
 from __future__ import annotations
 
+import time
+
 import pytest
+from fastapi.testclient import TestClient
 from sqlalchemy import func, select
 
+import server.analysis
+from server.app import create_app
+
 from server.models import BoardSequenceResult, Job
-from server.services import jobs
+from server.services import jobs, sequences
 from server.services.access import Actor
+from tests.conftest import make_settings
 from tests.factories import rail_doc
 from tests.job_support import run_queued_jobs
 from tests.signoff_support import PASSING, store_checks
@@ -199,3 +206,65 @@ def test_an_inline_rail_is_stored_in_si_numbers_and_a_bad_one_is_named(client, p
     r = client.put(url, json={"document": doc}, headers=people.headers("designer"))
     assert r.status_code == 422
     assert any(d["field"].startswith("document.rails[2].rail.load.c_nom") for d in r.json()["error"]["details"])
+
+
+def test_retiring_a_named_rail_queues_the_sequence_job_and_its_result_says_the_rail_is_gone(client, app, people,
+                                                                                            board, session_factory):
+    url = f"/api/v1/boards/{board['id']}/sequence"
+    client.put(url, json={"document": _sequence()}, headers=people.headers("designer"))
+    run_queued_jobs(app)
+    aux = board["rails"]["VAUX"]
+    r = client.post(f"/api/v1/rails/{aux['id']}/retire", json={"reason": "not fitted"},
+                    headers=people.headers("designer"))
+    assert r.status_code == 200, r.text
+    assert [j.state for j in _sequence_jobs(session_factory)] == ["done", "queued"]
+    assert client.get(url, headers=people.headers("viewer")).json()["analysis"]["state"] == "queued"
+    run_queued_jobs(app)
+    result = client.get(url, headers=people.headers("viewer")).json()["result"]
+    assert result["verdict"] == "fail" and "VAUX" in result["error"]
+
+
+def test_a_new_engine_leaves_the_sequence_unanalysed_until_its_job_is_queued_and_run(client, app, people, board,
+                                                                                     session_factory, monkeypatch):
+    url = f"/api/v1/boards/{board['id']}/sequence"
+    client.put(url, json={"document": _sequence()}, headers=people.headers("designer"))
+    run_queued_jobs(app)
+    old = client.get(url, headers=people.headers("viewer")).json()["result"]
+    monkeypatch.setattr(server.analysis, "ENGINE_VERSION", server.analysis.ENGINE_VERSION + "+next")
+    read = client.get(url, headers=people.headers("viewer")).json()
+    assert read["result"] is None and read["analysis"] == {"state": "not_queued", "job": None}
+    assert read["outdated_result"]["id"] == old["id"] and "engine" in read["outdated_result"]["outdated_because"]
+    with session_factory() as s:
+        queued = sequences.enqueue_outdated(session=s)
+        assert len(queued) == 1 and queued[0].engine_version.endswith("+next")
+        assert sequences.enqueue_outdated(session=s) == []  # idempotent
+    run_queued_jobs(app)
+    now = client.get(url, headers=people.headers("viewer")).json()["result"]
+    assert now["engine_version"].endswith("+next") and now["id"] != old["id"]
+
+
+def test_an_in_process_worker_runs_the_job_a_sequence_save_queues(database_url, people):
+    app = create_app(make_settings(database_url, worker_threads=1, job_lease_s=5.0))
+    try:
+        with TestClient(app) as client:
+            h = people.headers("designer")
+            product = client.post("/api/v1/products", json={"name": "Worker gateway"}, headers=h).json()
+            board = client.post("/api/v1/boards", json={"product_id": product["id"], "name": "Main"}, headers=h).json()
+            for name in ("VMAIN", "VAUX"):
+                r = client.post("/api/v1/rails", json={"board_id": board["id"], "document": rail_doc(name=name)},
+                                headers=h)
+                assert r.status_code == 201, r.text
+            url = f"/api/v1/boards/{board['id']}/sequence"
+            saved = client.put(url, json={"document": _sequence()}, headers=h).json()
+            job_id = saved["analysis"]["job"]["id"]
+            deadline = time.monotonic() + 60
+            while time.monotonic() < deadline:
+                job = client.get(f"/api/v1/jobs/{job_id}", headers=h).json()
+                if job["state"] not in ("queued", "running"):
+                    break
+                time.sleep(0.05)
+            assert job["state"] == "done", job
+            read = client.get(url, headers=h).json()
+            assert read["result"]["verdict"] == "pass" and read["inputs_sha256"] == job["sha256"]
+    finally:
+        app.state.engine.dispose()
