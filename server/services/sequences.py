@@ -84,10 +84,11 @@ def _head(session: Session, seq: BoardSequence) -> BoardSequenceRevision:
                                                               BoardSequenceRevision.n == seq.head_n))
 
 
-def _stored(session: Session, seq: BoardSequence, key: str, engine: str | None = None) -> BoardSequenceResult | None:
+def _stored(session: Session, seq: BoardSequence, key: str) -> BoardSequenceResult | None:
+    """The stored result of these inputs at this engine."""
     return session.scalar(select(BoardSequenceResult).where(BoardSequenceResult.sequence_id == seq.id,
                                                             BoardSequenceResult.inputs_sha256 == key,
-                                                            BoardSequenceResult.engine_version == (engine or engine_version())))
+                                                            BoardSequenceResult.engine_version == engine_version()))
 
 
 def _enqueue(session: Session, actor: Actor, seq: BoardSequence, rev: BoardSequenceRevision,
