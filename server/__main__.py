@@ -38,7 +38,7 @@ from server.demo import DEMO_PASSWORD, DEMO_USERS, seed_if_empty
 from server.models import Job
 from server.schemas.rail import normalize
 from server.schemas.validation import DocumentInvalid, parse_rail_document
-from server.services import jobs, risks, teams, users
+from server.services import jobs, risks, sequences, teams, users
 from server.services.access import Actor
 from server.services.errors import ServiceError
 from server.services.parts import fit_zth_points, zth_points_from_text
@@ -454,6 +454,8 @@ def cmd_jobs(args: argparse.Namespace) -> int:
             queued = jobs.enqueue_outdated(session=session)
             print(f"queued {len(queued)} analyses at engine {engine_version()} of head revisions whose results "
                   "are all of another engine version")
+            boards = sequences.enqueue_outdated(session=session)
+            print(f"queued {len(boards)} power-up sequence analyses without a result of their current inputs")
             return EXIT_OK
         rows, total = jobs.list_jobs(session=session, actor=actor, state=args.state, limit=args.limit)
         print(f"{'id':>6} {'kind':<12} {'state':<10} {'progress':>8} {'rail':>6} {'rev':>4} {'tries':>5}  error")

@@ -33,7 +33,7 @@ from server.limits import BodyLimit, OptionsAnswer, allowed_methods
 from server.pages import assets, page_router
 from server.pages.common import login_url
 from server.pages.page_cache import PageCache
-from server.services import jobs
+from server.services import jobs, sequences
 from server.schemas.responses import DatabaseHealth, Health
 from server.services.errors import ServiceError, Unauthenticated
 from server.templating import templates
@@ -271,11 +271,13 @@ def _install_error_handlers(app: FastAPI) -> None:
 
 def queue_outdated(factory) -> int:  # noqa: ANN001
     """As the app starts: queue the re-run of head revisions whose results are all of another engine
-    version (idempotent, serialised between processes; see :func:`server.services.jobs.enqueue_outdated`).
+    version (idempotent, serialised between processes; see :func:`server.services.jobs.enqueue_outdated`),
+    and of board sequences without a result of their current inputs at this engine
+    (:func:`server.services.sequences.enqueue_outdated`).
     A failure is logged, not fatal: ``railsign jobs rerun-outdated`` does the same by hand."""
     try:
         with factory() as session:
-            return len(jobs.enqueue_outdated(session=session))
+            return len(jobs.enqueue_outdated(session=session)) + len(sequences.enqueue_outdated(session=session))
     except Exception:
         logging.getLogger("railsign.jobs").exception(
             "could not queue the re-run of outdated results; run `railsign jobs rerun-outdated`")

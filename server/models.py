@@ -208,6 +208,7 @@ class JobKind(str, enum.Enum):
     rail = "rail"                # nominal + tolerance corners of one rail revision
     monte_carlo = "monte_carlo"  # Monte Carlo run of one rail revision
     board = "board"              # container: one rail job per rail of a board
+    sequence = "sequence"        # a board's power-up sequence with the rails as they are (sha256: inputs_sha256)
 
 
 class AnalysisResult(Base):

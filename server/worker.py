@@ -1,7 +1,8 @@
 """Workers that run queued analyses: threads in the web process, or `railsign worker` processes.
 
 Each worker thread loops: claim a job, run the pure analysis on the revision's stored
-document, store the result. While a job runs, a heartbeat thread refreshes its lease and
+document (or, for a sequence job, on the board sequence revision and the rail documents it
+reads: :mod:`server.services.sequences`), store the result. While a job runs, a heartbeat thread refreshes its lease and
 its progress, and notices when the job was cancelled or taken over (the analysis is then
 stopped through its progress callback). Errors of the analysis itself (bad numbers, no
 convergence) fail the job at once; other errors (a lost database connection) give it
@@ -24,8 +25,8 @@ from sqlalchemy.orm import Session, sessionmaker
 from server.analysis import AnalysisError, DocumentError, analyze_rail
 from server.config import Settings
 from server.db import UNREACHABLE_ERRORS, OutageLog
-from server.models import Job, RailRevision
-from server.services import jobs
+from server.models import Job, JobKind, RailRevision
+from server.services import jobs, sequences
 
 __all__ = ["JobStopped", "run_analysis", "WorkerPool"]
 
@@ -137,6 +138,11 @@ class WorkerPool:
         beat = _Heartbeat(self.factory, claim, interval_s=min(0.5, self.settings.job_lease_s / 4))
         try:
             with self.factory() as session:
+                kind = session.get(Job, claim.job_id).kind
+            if kind == JobKind.sequence.value:
+                self._run_sequence(claim, beat, started)
+                return
+            with self.factory() as session:
                 job = session.get(Job, claim.job_id)
                 rev = session.scalar(select(RailRevision).where(RailRevision.rail_id == job.rail_id,
                                                                 RailRevision.n == job.revision_n))
@@ -186,3 +192,34 @@ class WorkerPool:
                 log.exception("job %s: could not record its failure; the lease will expire", claim.job_id)
         finally:
             beat.stop()
+
+    def _run_sequence(self, claim: jobs.Claim, beat: _Heartbeat, started: float) -> None:
+        """A board sequence job: its inputs read in one transaction, the board start-up computed, the result
+        stored (errors are handled by :meth:`run_claim`)."""
+        try:
+            with self.factory() as session:
+                job = session.get(Job, claim.job_id)
+                board_id = job.board_id
+                inputs = sequences.job_inputs(session, job)
+        except sequences.Superseded as exc:
+            with self.factory() as session:
+                jobs.supersede(session, claim, reason=str(exc))
+            log.info("job %s superseded: %s", claim.job_id, exc)
+            return
+        log.info("job %s started: sequence, board %s revision %s, attempt %s, on %s", claim.job_id, board_id,
+                 inputs.revision_n, claim.attempt, claim.worker)
+        beat.start()
+        result = sequences.analyse(inputs)
+        if beat.lost.is_set():
+            raise JobStopped()
+        beat.stop()
+        elapsed = time.perf_counter() - started
+        with self.factory() as session:
+            written = sequences.finish_job(session, claim, inputs, result=result, duration_s=elapsed)
+        if written:
+            with self._count_lock:
+                self.jobs_done += 1
+            log.info("job %s done in %.1f ms: verdict %s", claim.job_id, elapsed * 1000, result.get("verdict"))
+        else:
+            log.info("job %s finished on %s but is no longer its own; result not written", claim.job_id,
+                     claim.worker)

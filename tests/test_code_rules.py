@@ -27,7 +27,8 @@ COMMIT_WITHOUT_ACTOR = {
     "users.note_token_use": "a usage stamp during authentication: nobody acts yet",
 }
 # The worker's protocol: a session and the claim a worker holds, positionally; the worker acts as the system.
-WORKER_PROTOCOL = {"jobs.claim_next", "jobs.heartbeat", "jobs.finish", "jobs.fail"}
+WORKER_PROTOCOL = {"jobs.claim_next", "jobs.heartbeat", "jobs.finish", "jobs.fail", "jobs.supersede",
+                   "sequences.finish_job"}
 
 
 def _imports_inside_functions(path: Path, root: Path = REPO) -> list[str]:

@@ -10,6 +10,7 @@ from server.models import Board, Part, Product, Rail, RailRevision, User
 from server.services import reviews
 from server.services.access import Actor
 from server.services.users import get_user_by_name
+from tests.job_support import run_queued_jobs
 
 
 def test_demo_covers_every_mode_and_load_model():
@@ -48,7 +49,7 @@ def test_demo_reviewers_have_a_queue(session_factory):
     assert sorted(queues["ravi"][1]) == sorted(queues["rosa"][1]) == ["CAMERA_12V", "LIDAR_12V", "MODEM_12V"]
 
 
-def test_demo_has_a_board_sequence_whose_harness_dips_below_its_uvlo(session_factory):
+def test_demo_has_a_board_sequence_whose_harness_dips_below_its_uvlo(app, session_factory):
     # four rails on two supplies; the 12 V harness dips too far at the supply-low corner, the 5 V side holds
     from server.demo import SEQUENCES
     from server.models import BoardSequence
@@ -58,6 +59,8 @@ def test_demo_has_a_board_sequence_whose_harness_dips_below_its_uvlo(session_fac
     assert len(doc["rails"]) >= 4 and len(doc["supplies"]) == 2
     with session_factory() as s:
         seed_if_empty(s)
+    assert len(run_queued_jobs(app)) == 1  # the demo's save queued the sequence's analysis
+    with session_factory() as s:
         seq = s.scalar(select(BoardSequence))
         result = sequences.current_result(s, seq).result
     failing = {(c["id"], c["subject"], c["corner"]) for c in result["checks"] if c["verdict"] == "fail"}

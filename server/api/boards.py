@@ -55,18 +55,17 @@ def delete_board(board_id: IdPath, session: SessionDep, actor: Editor) -> Respon
 
 @router.get("/{board_id}/sequence", response_model=BoardSequence, responses=errors(401, 404, 422))
 def get_sequence(board_id: IdPath, session: SessionDep, actor: CurrentActor) -> dict:
-    """The board's power-up sequence: its head revision and the board start-up with the rails as they are now
-    (computed at this read when a rail has changed since)."""
+    """The board's power-up sequence: its head revision and the board start-up with the rails as they are now;
+    while a job computes that (after a save or a rail's change), ``analysis`` names the job and
+    ``outdated_result`` is the last result of older inputs. Never writes."""
     seq = sequences.get_sequence(session=session, actor=actor, board_id=board_id)
-    out = sequences.sequence_dict(session, seq)
-    session.commit()
-    return out
+    return sequences.sequence_dict(session, seq)
 
 
 @router.put("/{board_id}/sequence", response_model=BoardSequence, responses=errors(400, 401, 403, 404, 409, 422))
 def put_sequence(board_id: IdPath, body: SequenceSave, session: SessionDep, actor: Editor) -> dict:
-    """Save a new revision of the board's power-up sequence and analyse it; a document the analysis cannot read
-    is refused with every field named, and nothing is stored."""
+    """Save a new revision of the board's power-up sequence and queue its analysis (a job: ``analysis`` names
+    it); a document the analysis cannot read is refused with every field named, and nothing is stored."""
     seq, _, _ = sequences.save_sequence(session=session, actor=actor, board_id=board_id, document=body.document,
                                         base_sha256=body.base_sha256, message=body.message)
     return sequences.sequence_dict(session, seq)

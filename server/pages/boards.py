@@ -64,24 +64,31 @@ def _budget_title(entry: dict[str, Any]) -> tuple[str, str]:
 def sequence_context(session: Session, actor: Actor, board_id: int, *, text: str | None = None,
                      error: dict[str, Any] | None = None) -> dict[str, Any]:
     """The board's power-up sequence as the page shows it: the stored result's checks and timelines
-    (one per corner), its approvals and its document as JSON for editing."""
+    (one per corner), its approvals and its document as JSON for editing. While the result of the
+    rails as they are now is computed, its job, and the last result of older inputs marked outdated.
+    Reads only."""
     try:
         seq = sequences.get_sequence(session=session, actor=actor, board_id=board_id)
     except NotFound:
         return {"exists": False, "text": text or "", "error": error}
     data = sequences.sequence_dict(session, seq)
-    session.commit()  # a result computed at this read (a rail changed since) is kept
-    result = data["result"]
+    outdated = data["outdated_result"] if data["result"] is None else None
+    shown = data["result"] or outdated or {}
     corners = []
-    for c in result.get("corners", []):
+    for c in shown.get("corners", []):
         title = f"Board start-up at the {c['title']}"
         corners.append({"id": f"sequence-{c['id']}", "title": title, "figure": sequence_figure(c, title),
-                        "checks": [ch for ch in result["checks"] if ch["corner"] == c["id"]],
+                        "checks": [ch for ch in shown["checks"] if ch["corner"] == c["id"]],
                         "finished": c["finished"]})
+    job = data["analysis"]["job"]
     return {"exists": True, "n": data["n"], "sha256": data["sha256"], "author": data["author"],
-            "verdict": result["verdict"], "corners": corners, "approvals": data["approvals"],
-            "conventions": result.get("conventions", []), "caution": result.get("caution"),
-            "problem": result.get("error"), "duration_s": result.get("duration_s"),
+            "verdict": data["result"]["verdict"] if data["result"] else None, "current": data["result"] is not None,
+            "analysis": data["analysis"]["state"], "job": job,
+            "outdated": outdated and {"verdict": outdated["verdict"], "revision_n": outdated["revision_n"],
+                                      "because": outdated["outdated_because"], "computed_at": outdated["computed_at"]},
+            "corners": corners, "approvals": data["approvals"],
+            "conventions": shown.get("conventions", []), "caution": shown.get("caution"),
+            "problem": shown.get("error"), "duration_s": shown.get("duration_s"),
             "text": text if text is not None else json.dumps(data["document"], indent=2), "error": error}
 
 

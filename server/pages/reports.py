@@ -98,21 +98,22 @@ def report_context(session: Session, actor: Actor, board_id: int, *, plots: bool
 
 def _sequence_section(session: Session, actor: Actor, board_id: int, plots: bool) -> dict[str, Any] | None:
     """The board's power-up sequence in the report: its revision, verdict, checks and timelines per corner
-    (the stored result of the board as it is now; None when the board has no sequence)."""
+    (the stored result of the board as it is now; while its job computes it, only that: no older result is
+    reported). None when the board has no sequence. Reads only."""
     try:
         seq = sequences.get_sequence(session=session, actor=actor, board_id=board_id)
     except NotFound:
         return None
     data = sequences.sequence_dict(session, seq)
-    session.commit()  # a result computed at this read (a rail changed since) is kept
-    result = data["result"]
+    result = data["result"] or {}
     corners = [{"id": f"report-sequence-{c['id']}", "title": f"Board start-up at the {c['title']}",
                 "figure": sequence_figure(c, f"Board start-up at the {c['title']}") if plots else None,
                 "checks": [ch for ch in result["checks"] if ch["corner"] == c["id"]]}
                for c in result.get("corners", [])]
-    return {"n": data["n"], "sha256": data["sha256"], "verdict": result["verdict"], "corners": corners,
-            "conventions": result.get("conventions", []), "problem": result.get("error"),
-            "approvals": data["approvals"]}
+    return {"n": data["n"], "sha256": data["sha256"], "verdict": result.get("verdict"), "corners": corners,
+            "current": data["result"] is not None, "analysis": data["analysis"]["state"],
+            "job": data["analysis"]["job"], "conventions": result.get("conventions", []),
+            "problem": result.get("error"), "approvals": data["approvals"]}
 
 
 @router.get("/boards/{board_id}/report", response_class=HTMLResponse)

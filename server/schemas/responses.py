@@ -25,7 +25,7 @@ __all__ = ["ErrorDetail", "ErrorInfo", "ErrorResponse", "Page", "Listing", "Heal
            "AnalysisOptions", "Job", "Approval", "Waiver", "ResultReading", "SignoffStatus", "TransitionTaken",
            "WorkflowDefinition", "Workflow", "WorkflowReplaced", "TeamSummary", "Team", "User", "UserListItem", "Me",
            "Token", "NewToken", "AuditEntry", "RiskCheck", "ProductRisks", "ArchivedReport", "SequenceApproval",
-           "BoardSequence"]
+           "SequenceAnalysis", "BoardSequence"]
 
 T = TypeVar("T")
 Timestamp = Annotated[str, Field(description="ISO 8601 time, UTC", json_schema_extra={"format": "date-time"})]
@@ -254,21 +254,22 @@ class AnalysisOptions(_Model):
 
 class JobLinks(_Model):
     self: str
-    result: str | None = None
+    result: str | None = Field(None, description="where the result is, once there is one (a sequence job: the "
+                                                 "board's sequence)")
 
 
 class Job(_Model):
     id: int
-    kind: Literal["rail", "monte_carlo", "board"]
+    kind: Literal["rail", "monte_carlo", "board", "sequence"]
     state: JobState
     progress: float = Field(description="0 to 1")
     rail_id: int | None
     board_id: int | None
     parent_id: int | None = Field(description="the board job this rail job belongs to")
-    revision: int | None
-    sha256: Sha256 | None
+    revision: int | None = Field(description="the rail revision, or a sequence job's sequence revision")
+    sha256: Sha256 | None = Field(description="the rail revision's sha256, or a sequence job's inputs_sha256")
     engine_version: str
-    options: AnalysisOptions
+    options: AnalysisOptions | None = Field(description="none for a sequence job")
     attempts: int
     max_attempts: int
     error: str | None
@@ -796,6 +797,12 @@ class SequenceApproval(_Model):
     current: bool = Field(description="not stale, and given against the result of the board as it is now")
 
 
+class SequenceAnalysis(_Model):
+    state: Literal["done", "queued", "running", "failed", "cancelled", "not_queued"] = Field(
+        description="done: the result of the current inputs is stored; otherwise the state of its job")
+    job: Job | None = Field(None, description="the job computing the current inputs, while there is no result")
+
+
 class BoardSequence(_Model):
     board_id: int
     n: int = Field(description="the head revision's number")
@@ -804,6 +811,13 @@ class BoardSequence(_Model):
     message: str
     created_at: Timestamp
     document: dict[str, Any]
+    inputs_sha256: Sha256 = Field(description="the key of the result: the head revision's sha256 with each rail "
+                                              "it names at its head revision")
     result: dict[str, Any] | None = Field(None, description="the board start-up with the rails as they are now "
-                                                            "(railsign.sequence-result/1): checks, figures, series")
+                                                            "(railsign.sequence-result/1): checks, figures, series; "
+                                                            "none while its job computes it (see analysis)")
+    analysis: SequenceAnalysis
+    outdated_result: dict[str, Any] | None = Field(None, description="while there is no result of the current "
+                                                   "inputs: the last result of older ones (revision_n, inputs_sha256, "
+                                                   "computed_at, outdated_because), not for sign-off")
     approvals: list[SequenceApproval]

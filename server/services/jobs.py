@@ -12,6 +12,10 @@ themselves are stored once per (sha256, engine version, options).
 Board jobs are containers: they hold one rail job per rail, and their progress and
 state follow their children.
 
+Sequence jobs compute a board's power-up sequence with the rails as they are: ``sha256`` is the
+inputs key (:mod:`server.services.sequences` queues them with :func:`enqueue_sequence` and
+writes their result; ``result_id`` stays empty, the result is the board sequence's).
+
 A new engine version: :func:`enqueue_outdated` queues the analysis of every head revision
 whose results are all of another engine version (the app calls it once as it starts; it is
 idempotent and serialised across processes), and :func:`finish` lets
@@ -37,9 +41,9 @@ from server.services.catalog import get_board
 from server.services.errors import Conflict, NotFound
 from server.services.rails import get_rail, get_revision, list_rails
 
-__all__ = ["ACTIVE", "job_dict", "enqueue_rail", "enqueue_for_revision", "enqueue_board", "get_job", "list_jobs",
-           "cancel_job", "retry_job", "claim_next", "Claim", "heartbeat", "finish", "fail", "release_expired",
-           "wakeup", "enqueue_outdated"]
+__all__ = ["ACTIVE", "job_dict", "enqueue_rail", "enqueue_for_revision", "enqueue_board", "enqueue_sequence",
+           "get_job", "list_jobs", "cancel_job", "retry_job", "claim_next", "Claim", "heartbeat", "finish", "fail",
+           "owned_job", "mark_done", "supersede", "release_expired", "wakeup", "enqueue_outdated"]
 
 log = logging.getLogger("railsign.jobs")
 ACTIVE = (JobState.queued.value, JobState.running.value)
@@ -56,17 +60,23 @@ def _wake_workers_after_commit(session: Session) -> None:
         wakeup.set()
 
 
+def _result_link(job: Job) -> dict[str, str]:
+    if job.kind == JobKind.sequence.value:
+        return {"result": f"/api/v1/boards/{job.board_id}/sequence"} if job.state == JobState.done.value else {}
+    return {"result": f"/api/v1/results/{job.result_id}"} if job.result_id else {}
+
+
 def job_dict(job: Job) -> dict[str, Any]:
+    sequence = job.kind == JobKind.sequence.value
     return {"id": job.id, "kind": job.kind, "state": job.state, "progress": round(job.progress, 4),
             "rail_id": job.rail_id, "board_id": job.board_id, "parent_id": job.parent_id,
             "revision": job.revision_n, "sha256": job.sha256, "engine_version": job.engine_version,
-            "options": job.options, "attempts": job.attempts, "max_attempts": job.max_attempts,
+            "options": None if sequence else job.options, "attempts": job.attempts, "max_attempts": job.max_attempts,
             "error": job.error or None, "worker": job.worker or None, "result_id": job.result_id,
             "requested_by": job.requested_by, "created_at": job.created_at.isoformat(),
             "started_at": job.started_at.isoformat() if job.started_at else None,
             "finished_at": job.finished_at.isoformat() if job.finished_at else None,
-            "links": {"self": f"/api/v1/jobs/{job.id}",
-                      **({"result": f"/api/v1/results/{job.result_id}"} if job.result_id else {})}}
+            "links": {"self": f"/api/v1/jobs/{job.id}", **_result_link(job)}}
 
 
 def _kind_for(options: dict[str, Any]) -> str:
@@ -138,6 +148,30 @@ def enqueue_board(*, session: Session, actor: Actor, board_id: int, options: dic
     wakeup.set()
     log.info("job %s queued: board %s, %s rails", parent.id, board.id, len(rows))
     return parent
+
+
+# Sequence jobs have no analysis options; this stands in their options_key.
+SEQUENCE_OPTIONS_KEY = "sequence"
+
+
+def enqueue_sequence(session: Session, actor: Actor, *, board_id: int, inputs_sha256: str, revision_n: int) -> Job:
+    """Queue the analysis of a board's power-up sequence revision with the rails as they are (``inputs_sha256``)
+    inside the caller's transaction (the caller commits; workers wake once it has). An equal queued or running
+    job (same board, inputs and engine) is reused."""
+    version = results.engine_version()
+    same = session.scalar(select(Job).where(
+        Job.kind == JobKind.sequence.value, Job.board_id == board_id, Job.sha256 == inputs_sha256,
+        Job.engine_version == version, Job.state.in_(ACTIVE)).order_by(Job.id).limit(1))
+    if same is not None:
+        return same
+    job = Job(kind=JobKind.sequence.value, board_id=board_id, sha256=inputs_sha256, revision_n=revision_n,
+              engine_version=version, options={}, options_key=SEQUENCE_OPTIONS_KEY,
+              requested_by_id=actor.user_id, requested_by=actor.name)
+    session.add(job)
+    session.flush()
+    session.info["railsign_wakeup"] = True
+    log.info("job %s queued: power-up sequence of board %s revision %s", job.id, board_id, revision_n)
+    return job
 
 
 # One constant key for PostgreSQL's transaction-scoped advisory lock that serialises enqueue_outdated
@@ -267,10 +301,13 @@ def release_expired(session: Session, *, lease_s: float, max_attempts: int) -> i
     return len(stale)
 
 
-def claim_next(session: Session, *, worker: str, lease_s: float, max_attempts: int) -> Claim | None:
-    """Claim the oldest queued rail job for ``worker``; None when the queue is empty."""
+def claim_next(session: Session, *, worker: str, lease_s: float, max_attempts: int,
+               kinds: tuple[str, ...] | None = None) -> Claim | None:
+    """Claim the oldest queued job (rail, Monte Carlo or sequence; ``kinds``: only these) for ``worker``; None when
+    the queue is empty."""
     release_expired(session, lease_s=lease_s, max_attempts=max_attempts)
-    job = session.scalar(select(Job).where(Job.state == JobState.queued.value, Job.kind != JobKind.board.value)
+    wanted = Job.kind.in_(kinds) if kinds is not None else Job.kind != JobKind.board.value
+    job = session.scalar(select(Job).where(Job.state == JobState.queued.value, wanted)
                          .order_by(Job.id).limit(1).with_for_update(skip_locked=True))
     if job is None:
         session.commit()
@@ -297,6 +334,29 @@ def heartbeat(session: Session, claim: Claim, progress: float | None = None) -> 
     owned = session.execute(update(Job).where(_owned(claim)).values(**values)).rowcount == 1
     session.commit()
     return owned
+
+
+def owned_job(session: Session, claim: Claim) -> Job | None:
+    """The claimed job, locked, while the attempt is still ours; None (and the transaction rolled back) otherwise."""
+    job = session.scalar(select(Job).where(_owned(claim)).with_for_update())
+    if job is None:
+        session.rollback()
+    return job
+
+
+def mark_done(job: Job) -> None:
+    """A job whose result the caller has stored in the same transaction (the caller commits)."""
+    job.state, job.progress, job.finished_at, job.error = JobState.done.value, 1.0, utcnow(), ""
+
+
+def supersede(session: Session, claim: Claim, *, reason: str) -> bool:
+    """End a job whose inputs are no longer current (a newer job computes them): cancelled, with the reason."""
+    job = owned_job(session, claim)
+    if job is None:
+        return False
+    job.state, job.finished_at, job.error = JobState.cancelled.value, utcnow(), f"superseded: {reason}"[:4000]
+    session.commit()
+    return True
 
 
 def finish(session: Session, claim: Claim, *, result: dict[str, Any], duration_s: float) -> bool:

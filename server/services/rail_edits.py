@@ -13,8 +13,10 @@ transaction (:func:`server.db.make_sessionmaker`), on PostgreSQL the rail row is
 A new revision does two more things in the same transaction, called here one after the
 other: its analysis is queued (:func:`server.services.jobs.enqueue_for_revision`), then the
 sign-off reacts (:func:`server.services.signoff.on_new_revision`: older approvals go stale,
-the rail moves to the state its team's workflow names). The lookups these build on are in
-:mod:`server.services.rails`.
+the rail moves to the state its team's workflow names), and the board's power-up sequence reacts
+(:func:`server.services.sequences.on_rail_change`: its analysis is queued and its approvals go
+stale when the sequence names the rail; retiring, restoring and deleting a rail do the same). The
+lookups these build on are in :mod:`server.services.rails`.
 """
 
 from __future__ import annotations
@@ -173,7 +175,9 @@ def delete_rail(*, session: Session, actor: Actor, rail_id: int) -> None:
     rail = get_rail(session=session, actor=actor, rail_id=rail_id)
     record(session, actor, action="delete", object_type="rail", object_id=rail.id, object_repr=rail.name,
            product_id=rail.board.product_id, before={"n": rail.head_n, "sha256": rail.head_sha256})
+    board_id, name = rail.board_id, rail.name
     session.delete(rail)
+    sequences.on_rail_change(session, actor, board_id=board_id, reason=f"rail '{name}' was deleted")
     session.commit()
 
 
@@ -186,6 +190,7 @@ def retire_rail(*, session: Session, actor: Actor, rail_id: int, reason: str = "
     rail.retired_at, rail.retired_by = utcnow(), actor.name
     record(session, actor, action="retire", object_type="rail", object_id=rail.id, object_repr=rail.name,
            product_id=rail.board.product_id, after={"revision": rail.head_n, "reason": (reason or "").strip()[:1000]})
+    sequences.on_rail_change(session, actor, board_id=rail.board_id, reason=f"rail '{rail.name}' was retired")
     session.commit()
     return rail
 
@@ -200,5 +205,6 @@ def restore_rail(*, session: Session, actor: Actor, rail_id: int) -> Rail:
     rail.retired_at, rail.retired_by = None, ""
     record(session, actor, action="restore", object_type="rail", object_id=rail.id, object_repr=rail.name,
            product_id=rail.board.product_id, before=before, after={"revision": rail.head_n})
+    sequences.on_rail_change(session, actor, board_id=rail.board_id, reason=f"rail '{rail.name}' was restored")
     session.commit()
     return rail

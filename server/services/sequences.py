@@ -9,28 +9,34 @@ stored.
 
 The result belongs to the sequence revision *and* the rails as they are: its key
 (``inputs_sha256``) is the sequence revision's sha256 with every referenced rail's head
-sha256. A save computes it at once; after a rail's new revision the key changes and the next
-read computes it again (:func:`current_result`), so the board page always shows the board as
-it is. A rail's new revision (:func:`on_rail_revision`, called by :mod:`server.services.rail_edits`
-in the save's transaction) makes the sequence's approvals stale, and touches no other rail's
-approvals. Approving (:func:`approve`) follows a rail's rules: the current result only, not by
-the author of the current revision.
+sha256. It is computed by a job (kind ``sequence``, :mod:`server.services.jobs`): a sequence save
+queues it, and so does every change of the board's rails that changes the key (a rail's new
+revision, retirement, restoration or deletion: :func:`on_rail_change`, called by
+:mod:`server.services.rail_edits` in the change's transaction), together with making the
+sequence's approvals stale (no other rail's approvals change). A worker computes it
+(:func:`job_inputs`, :func:`analyse`, :func:`finish_job`: the one write path of
+``board_sequence_results``). A read never writes: it shows the stored result of the current key,
+or says its job is queued or running and shows the last result of older inputs as outdated
+(:func:`sequence_dict`). Approving (:func:`approve`) follows a rail's rules: the result of the
+current key only, not by the author of the current revision.
 """
 
 from __future__ import annotations
 
 import hashlib
-import time
+from dataclasses import dataclass
 from typing import Any
 
-from sqlalchemy import select
+from sqlalchemy import select, text
+from sqlalchemy.exc import IntegrityError
 from sqlalchemy.orm import Session
 
 from server.analysis.errors import DocumentError
 from server.analysis.sequence import analyze_sequence, read_sequence
-from server.models import (Board, BoardSequence, BoardSequenceApproval, BoardSequenceResult, BoardSequenceRevision, Rail,
-                           RailRevision, utcnow)
+from server.models import (Board, BoardSequence, BoardSequenceApproval, BoardSequenceResult, BoardSequenceRevision, Job,
+                           JobKind, Rail, RailRevision, utcnow)
 from server.schemas.rail import canonical_json
+from server.services import engine_change, jobs
 from server.services.access import Actor, Permission
 from server.services.audit import record
 from server.services.catalog import get_board
@@ -39,7 +45,8 @@ from server.services.rails import normalize_document
 from server.services.results import engine_version
 
 __all__ = ["sequence_dict", "approval_dict", "get_sequence", "save_sequence", "current_result", "on_rail_revision",
-           "approve"]
+           "on_rail_change", "approve", "JobInputs", "Superseded", "job_inputs", "analyse", "finish_job",
+           "enqueue_outdated"]
 
 
 def _sha256(data: Any) -> str:
@@ -77,33 +84,137 @@ def _head(session: Session, seq: BoardSequence) -> BoardSequenceRevision:
                                                               BoardSequenceRevision.n == seq.head_n))
 
 
-def _run(session: Session, seq: BoardSequence, rev: BoardSequenceRevision,
-         rails: dict[str, tuple[Rail, RailRevision]]) -> BoardSequenceResult:
-    """Analyse the revision with the rails as they are, and store the result (once per inputs and engine)."""
-    key, engine = _inputs_sha256(rev, rails), engine_version()
-    row = session.scalar(select(BoardSequenceResult).where(BoardSequenceResult.sequence_id == seq.id,
-                                                           BoardSequenceResult.inputs_sha256 == key,
-                                                           BoardSequenceResult.engine_version == engine))
-    if row is not None:
-        return row
-    started = time.perf_counter()
-    try:
-        result = analyze_sequence(rev.document, {name: r[1].document for name, r in rails.items()})
-    except DocumentError as exc:  # a referenced rail retired, renamed or deleted since the save
-        result = {"schema": "railsign.sequence-result/1", "verdict": "fail", "checks": [], "corners": [],
-                  "error": str(exc)}
-    row = BoardSequenceResult(sequence_id=seq.id, revision_n=rev.n, inputs_sha256=key, engine_version=engine,
-                              verdict=result["verdict"], result=result,
-                              duration_s=time.perf_counter() - started)
-    session.add(row)
-    session.flush()
-    return row
+def _stored(session: Session, seq: BoardSequence, key: str) -> BoardSequenceResult | None:
+    """The stored result of these inputs at this engine."""
+    return session.scalar(select(BoardSequenceResult).where(BoardSequenceResult.sequence_id == seq.id,
+                                                            BoardSequenceResult.inputs_sha256 == key,
+                                                            BoardSequenceResult.engine_version == engine_version()))
 
 
-def current_result(session: Session, seq: BoardSequence) -> BoardSequenceResult:
-    """The result of the head revision with the board's rails as they are now: stored, or computed now."""
+def _enqueue(session: Session, actor: Actor, seq: BoardSequence, rev: BoardSequenceRevision,
+             rails: dict[str, tuple[Rail, RailRevision]]) -> Job | None:
+    """Queue the analysis of ``rev`` with ``rails`` unless its result is stored (then None); an equal queued or
+    running job is reused. A step of the caller's transaction."""
+    key = _inputs_sha256(rev, rails)
+    if _stored(session, seq, key) is not None:
+        return None
+    return jobs.enqueue_sequence(session, actor, board_id=seq.board_id, inputs_sha256=key, revision_n=rev.n)
+
+
+def current_result(session: Session, seq: BoardSequence) -> BoardSequenceResult | None:
+    """The stored result of the head revision with the board's rails as they are now, at this engine; None
+    while its job has not stored it. Reads only."""
     board = session.get(Board, seq.board_id)
-    return _run(session, seq, _head(session, seq), _board_rails(session, board))
+    return _stored(session, seq, _inputs_sha256(_head(session, seq), _board_rails(session, board)))
+
+
+# --- the job: inputs read in one transaction, the pure analysis, the result written -----------------
+
+
+class Superseded(Exception):
+    """The job's inputs are no longer the sequence's current ones (a newer job computes those)."""
+
+
+@dataclass(frozen=True)
+class JobInputs:
+    """What a sequence job computes: the revision's document and the rail documents it reads, as they were read."""
+
+    sequence_id: int
+    revision_n: int
+    inputs_sha256: str
+    document: dict[str, Any]
+    rails: dict[str, Any]
+
+
+def job_inputs(session: Session, job: Job) -> JobInputs:
+    """The inputs of a claimed sequence job, read now; :class:`Superseded` when they are no longer the ones the
+    job was queued for (the sequence or one of its rails changed since, and that change queued its own job)."""
+    board = session.get(Board, job.board_id)
+    seq = _get(session, board) if board is not None else None
+    if seq is None or seq.head_n == 0:
+        raise Superseded("the board has no power-up sequence any more")
+    if seq.head_n != job.revision_n:
+        raise Superseded(f"the sequence has a newer revision ({seq.head_n}) than the one queued ({job.revision_n})")
+    rev, rails = _head(session, seq), _board_rails(session, board)
+    key = _inputs_sha256(rev, rails)
+    if key != job.sha256:
+        raise Superseded("a rail the sequence names changed since the job was queued; its change queued the "
+                         "analysis of the rails as they are now")
+    return JobInputs(sequence_id=seq.id, revision_n=rev.n, inputs_sha256=key, document=rev.document,
+                     rails={name: r[1].document for name, r in rails.items()})
+
+
+def analyse(inputs: JobInputs) -> dict[str, Any]:
+    """The board start-up of the inputs (pure: no database). A rail the document names that is gone (retired,
+    renamed, deleted since the save) gives a failing result that says so."""
+    try:
+        return analyze_sequence(inputs.document, inputs.rails)
+    except DocumentError as exc:
+        return {"schema": "railsign.sequence-result/1", "verdict": "fail", "checks": [], "corners": [],
+                "error": str(exc)}
+
+
+def finish_job(session: Session, claim: jobs.Claim, inputs: JobInputs, *, result: dict[str, Any],
+               duration_s: float) -> bool:
+    """Store the job's result (once per sequence, inputs and engine) and mark the job done, if the attempt is
+    still ours. Returns whether it was. The one place that writes ``board_sequence_results``."""
+    job = jobs.owned_job(session, claim)
+    if job is None:
+        return False
+    row = BoardSequenceResult(sequence_id=inputs.sequence_id, revision_n=inputs.revision_n,
+                              inputs_sha256=inputs.inputs_sha256, engine_version=job.engine_version,
+                              verdict=result["verdict"], result=result, duration_s=duration_s)
+    exists = select(BoardSequenceResult.id).where(BoardSequenceResult.sequence_id == row.sequence_id,
+                                                  BoardSequenceResult.inputs_sha256 == row.inputs_sha256,
+                                                  BoardSequenceResult.engine_version == row.engine_version)
+    if session.scalar(exists) is None:
+        try:
+            with session.begin_nested():  # another job of equal inputs may store it at the same moment
+                session.add(row)
+        except IntegrityError:
+            pass
+    jobs.mark_done(job)
+    session.commit()
+    return True
+
+
+# PostgreSQL advisory lock key serialising enqueue_outdated between processes (crc32 of
+# "railsign.sequences.enqueue_outdated"; SQLite's write lock does the same there).
+_OUTDATED_LOCK_KEY = 0xF8EE_C20C
+
+
+def enqueue_outdated(*, session: Session, actor: Actor | None = None) -> list[Job]:
+    """Queue the analysis of every board sequence whose current inputs have no result at this engine and no job
+    at this engine yet (after a new engine version, or rails changed before sequence analyses were jobs);
+    returns the jobs queued. Idempotent, as :func:`server.services.jobs.enqueue_outdated` (``actor``: who queues,
+    default the engine's system actor); commits."""
+    actor = actor or engine_change.engine_actor()
+    actor.require(Permission.ANALYZE)
+    if session.get_bind().dialect.name == "postgresql":  # web processes starting together queue in turn
+        session.execute(text("SELECT pg_advisory_xact_lock(:key)"), {"key": _OUTDATED_LOCK_KEY})
+    queued = []
+    for seq in session.scalars(select(BoardSequence).where(BoardSequence.head_n > 0).order_by(BoardSequence.id)):
+        board = session.get(Board, seq.board_id)
+        rev = _head(session, seq)
+        key = _inputs_sha256(rev, _board_rails(session, board))
+        if _stored(session, seq, key) is not None or _job_for(session, seq, key) is not None:
+            continue
+        queued.append(jobs.enqueue_sequence(session, actor, board_id=seq.board_id, inputs_sha256=key,
+                                            revision_n=rev.n))
+    session.commit()
+    return queued
+
+
+def _job_for(session: Session, seq: BoardSequence, key: str) -> Job | None:
+    """The newest job of these inputs at this engine, in any state."""
+    return session.scalar(select(Job).where(Job.kind == JobKind.sequence.value, Job.board_id == seq.board_id,
+                                            Job.sha256 == key, Job.engine_version == engine_version())
+                          .order_by(Job.id.desc()).limit(1))
+
+
+def _result_dict(row: BoardSequenceResult) -> dict[str, Any]:
+    return {"id": row.id, "engine_version": row.engine_version, "verdict": row.verdict, "duration_s": row.duration_s,
+            **row.result}
 
 
 def approval_dict(a: BoardSequenceApproval, current_key: str | None = None) -> dict[str, Any]:
@@ -112,21 +223,41 @@ def approval_dict(a: BoardSequenceApproval, current_key: str | None = None) -> d
             "current": a.stale_at is None and (current_key is None or a.inputs_sha256 == current_key)}
 
 
-def sequence_dict(session: Session, seq: BoardSequence, *, with_result: bool = True) -> dict[str, Any]:
+def sequence_dict(session: Session, seq: BoardSequence) -> dict[str, Any]:
+    """The head revision, its result with the rails as they are now (None while it is computed: ``analysis``
+    says how far its job is, ``outdated_result`` is the last result of older inputs), its approvals. Reads only."""
     head = _head(session, seq)
+    board = session.get(Board, seq.board_id)
+    key = _inputs_sha256(head, _board_rails(session, board))
     out: dict[str, Any] = {"board_id": seq.board_id, "n": head.n, "sha256": head.sha256, "author": head.author_name,
                            "message": head.message, "created_at": head.created_at.isoformat(),
-                           "document": head.document}
-    key = None
-    if with_result:
-        row = current_result(session, seq)
-        key = row.inputs_sha256
-        out["result"] = {"id": row.id, "engine_version": row.engine_version, "verdict": row.verdict,
-                         "duration_s": row.duration_s, **row.result}
+                           "document": head.document, "inputs_sha256": key, "result": None, "outdated_result": None}
+    row = _stored(session, seq, key)
+    if row is not None:
+        out["result"] = _result_dict(row)
+        out["analysis"] = {"state": "done", "job": None}
+    else:
+        job = _job_for(session, seq, key)
+        out["analysis"] = {"state": job.state if job is not None else "not_queued",
+                           "job": jobs.job_dict(job) if job is not None else None}
+        old = session.scalar(select(BoardSequenceResult).where(BoardSequenceResult.sequence_id == seq.id)
+                             .order_by(BoardSequenceResult.id.desc()).limit(1))
+        if old is not None:
+            out["outdated_result"] = {**_result_dict(old), "revision_n": old.revision_n,
+                                      "inputs_sha256": old.inputs_sha256, "computed_at": old.created_at.isoformat(),
+                                      "outdated_because": _outdated_because(old, head)}
     approvals = session.scalars(select(BoardSequenceApproval).where(BoardSequenceApproval.sequence_id == seq.id)
                                 .order_by(BoardSequenceApproval.id)).all()
     out["approvals"] = [approval_dict(a, key) for a in approvals]
     return out
+
+
+def _outdated_because(old: BoardSequenceResult, head: BoardSequenceRevision) -> str:
+    if old.revision_n != head.n:
+        return f"computed for revision {old.revision_n} of the sequence; the current one is {head.n}"
+    if old.engine_version != engine_version():
+        return f"computed by engine {old.engine_version}; the current engine is {engine_version()}"
+    return "computed with the rails as they were before a later change of one of them"
 
 
 def get_sequence(*, session: Session, actor: Actor, board_id: int) -> BoardSequence:
@@ -159,7 +290,7 @@ def _inline_rails_in_si(document: Any) -> Any:
 
 def save_sequence(*, session: Session, actor: Actor, board_id: int, document: Any, base_sha256: str | None = None,
                   message: str = "") -> tuple[BoardSequence, BoardSequenceRevision, bool]:
-    """Save a new revision of the board's sequence and analyse it; (sequence, revision, created).
+    """Save a new revision of the board's sequence and queue its analysis; (sequence, revision, created).
 
     An unchanged document creates nothing. ``base_sha256``, when given, must be the current head's
     (else :class:`Conflict`, nothing saved). The document is refused (:class:`Invalid`, every field
@@ -194,20 +325,34 @@ def save_sequence(*, session: Session, actor: Actor, board_id: int, document: An
     record(session, actor, action="update" if rev.n > 1 else "create", object_type="board_sequence",
            object_id=seq.id, object_repr=f"{board.name} power-up sequence", product_id=board.product_id,
            after={"n": rev.n, "sha256": sha})
-    _run(session, seq, rev, rails)
+    _enqueue(session, actor, seq, rev, rails)
     session.commit()
     return seq, rev, True
 
 
 def on_rail_revision(session: Session, actor: Actor, rail: Rail) -> None:
-    """A rail's new revision: the approvals of its board's sequence go stale when the sequence names the
-    rail (its result is computed again at the next read); no other rail's approvals change. A step of the
-    caller's transaction: the caller commits."""
-    seq = session.scalar(select(BoardSequence).where(BoardSequence.board_id == rail.board_id))
+    """A rail's new revision (see :func:`on_rail_change`). A step of the caller's transaction: the caller commits."""
+    on_rail_change(session, actor, board_id=rail.board_id, reason=f"rail '{rail.name}' has a newer revision "
+                                                                  f"({rail.head_n})")
+
+
+def on_rail_change(session: Session, actor: Actor, *, board_id: int, reason: str) -> Job | None:
+    """A change of one of the board's rails (a new revision, retired, restored, deleted): when it changes the
+    inputs of the board's sequence (the sequence names the rail), the sequence's approvals of other inputs go stale
+    (``reason``) and its analysis is queued (returned; None when nothing changed or its result is stored). No
+    other rail's approvals change. A step of the caller's transaction: the caller commits."""
+    seq = session.scalar(select(BoardSequence).where(BoardSequence.board_id == board_id))
     if seq is None or seq.head_n == 0:
-        return
-    if rail.name in _refs(_head(session, seq).document):
-        _make_stale(session, seq, f"rail '{rail.name}' has a newer revision ({rail.head_n})")
+        return None
+    session.flush()
+    head, board = _head(session, seq), session.get(Board, board_id)
+    rails = _board_rails(session, board)
+    key = _inputs_sha256(head, rails)
+    for a in session.scalars(select(BoardSequenceApproval).where(BoardSequenceApproval.sequence_id == seq.id,
+                                                                 BoardSequenceApproval.stale_at.is_(None),
+                                                                 BoardSequenceApproval.inputs_sha256 != key)):
+        a.stale_at, a.stale_reason = utcnow(), reason
+    return _enqueue(session, actor, seq, head, rails)
 
 
 def approve(*, session: Session, actor: Actor, board_id: int, sha256: str, comment: str = "") -> BoardSequenceApproval:
@@ -220,6 +365,12 @@ def approve(*, session: Session, actor: Actor, board_id: int, sha256: str, comme
     if head.author_id is not None and head.author_id == actor.user_id:
         raise Forbidden("you saved the sequence's current revision: someone else approves it")
     row = current_result(session, seq)
+    if row is None:
+        board = session.get(Board, seq.board_id)
+        job = _job_for(session, seq, _inputs_sha256(head, _board_rails(session, board)))
+        state = f"its job {job.id} is {job.state}" if job is not None else "its analysis is not queued yet"
+        raise Conflict(f"the board start-up with the rails as they are now has no result yet ({state}); "
+                       "approve once it has one")
     approval = BoardSequenceApproval(sequence_id=seq.id, revision_n=head.n, inputs_sha256=row.inputs_sha256,
                                      result_id=row.id, reviewer_id=actor.user_id, reviewer_name=actor.name,
                                      comment=comment)
