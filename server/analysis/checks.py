@@ -137,6 +137,8 @@ CHECKS: tuple[CheckSpec, ...] = (
               "at_most"),
     CheckSpec("turnoff_avalanche", "Turn-off energy within the FET's avalanche rating", "J", "physical limit",
               "at_most"),
+    CheckSpec("bank_rating", "Supply maximum within every capacitor group's voltage rating", "V", "physical limit",
+              "at_most"),
 )
 SPECS = {c.id: c for c in CHECKS}
 # the figure holding the junction temperature each check starts from (degC); "ambient": the
@@ -256,6 +258,11 @@ def evaluate_checks(rail: Rail, rules: dict, fig: dict) -> dict:
     reached = np.where(complete, fig["v_final"], np.where(np.isnan(fig["v_stall"]), fig["v_end"], fig["v_stall"]))
     put("startup_complete", reached, fig["v_target"], fig["v_target"], np.where(complete, PASS, FAIL))
     put("vds_derating", fig["v_s"], rules["vds_derating"] * fet.vds_max, fet.vds_max)
+    if rail.load.bank is not None:  # a bank names each group's rating; one capacitance names none
+        v_rated = min(g.v_rated for g in rail.load.bank)
+        put("bank_rating", fig["v_s"], v_rated, v_rated)
+    else:
+        put("bank_rating", nan, nan, nan)
     put("startup_soa", np.where(has_pulse, fig["soa_ratio"], np.nan), rules["soa_margin"], 1.0)
     beyond = np.asarray(fig.get("tj_beyond", np.zeros(n, bool)), dtype=bool)
     tj_code = _grade("at_most", row(fig["tj_peak"]), tj_lim, fet.tj_max)
@@ -451,6 +458,13 @@ def _check_detail(cid: str, fig: dict, row: int, rail: Rail, rules: dict) -> str
     if cid == "vds_derating":
         return (f"Supply {eng(f['v_s'], 'V')} against {rules['vds_derating']:g} × the V_DS rating "
                 f"{eng(fet.vds_max, 'V')}; ringing at turn-off is not modelled.")
+    if cid == "bank_rating":
+        if rail.load.bank is None:
+            return "Not evaluated: the load gives one capacitance, without a voltage rating."
+        low = min(rail.load.bank, key=lambda g: g.v_rated)
+        name = low.refs or f"group {rail.load.bank.index(low) + 1}"
+        return (f"Supply {eng(f['v_s'], 'V')} against the lowest rating in the bank, {eng(low.v_rated, 'V')} "
+                f"({name}); a sign-off derating of the rating is the team's to add.")
     if cid == "startup_soa":
         if not np.isfinite(f["soa_ratio"]):
             return "Not evaluated: the start-up draws no pulse."

@@ -81,7 +81,7 @@ CHECK_PARAMETERS = {"startup_complete": _STARTUP, "vds_derating": _V, "startup_s
                     "startup_tj": _STARTUP, "short_circuit_time": _FAULT, "timer_startup": _STARTUP | {"timer"},
                     "retry_tj": _FAULT, "steady_tj": _STEADY, "steady_stable": _STEADY, "supply_dip": _STARTUP,
                     "supply_current": _STARTUP, "fet_pulse_current": _STARTUP, "onset_peak": _ONSET,
-                    "onset_soa": _ONSET, "turnoff_vds": _FAULT, "turnoff_avalanche": _FAULT}
+                    "onset_soa": _ONSET, "turnoff_vds": _FAULT, "turnoff_avalanche": _FAULT, "bank_rating": _V}
 FIGURE_PARAMETERS = {"sc_p": _FAULT, "sc_t_allow": _FAULT, "retry_tj_peak": _FAULT, "steady_p_fet": _STEADY,
                      "steady_tj": _STEADY, "steady_v_drop": _STEADY, "onset_i_peak": _ONSET, "off_v_peak": _FAULT,
                      "off_e_fet": _FAULT}
