@@ -228,3 +228,18 @@ def test_the_charge_equivalent_capacitance_of_a_falling_curve():
     for v in (5.0, 12.0, 20.0):
         # Source: Q(v) / v = C0 (v - a v^2 / 2) / v = C0 (1 - a v / 2) (closed form of the linear curve)
         assert effective_capacitance((g,), 25.0, v) == pytest.approx(1e-3 * (1.0 - a * v / 2.0), rel=1e-12)
+
+
+def test_a_group_rated_below_the_supply_maximum_fails_its_check():
+    from server.analysis import analyze_rail
+    groups = [group(2, 100e-6, esr=0.06, dielectric="electrolytic", v_rated=25.0), group(8, 4.7e-6, v_rated=10.0,
+                                                                                        refs="C9-C16")]
+    result = analyze_rail(bank_doc(groups, **HARD), corners=False, headroom=False, waveforms=False)
+    check = next(c for c in result["checks"] if c["id"] == "bank_rating")
+    assert check["verdict"] == "fail" and check["limit"] == 10.0 and "C9-C16" in check["detail"]
+    assert result["verdict"] == "fail"
+    groups[1]["v_rated"] = 16.0
+    result = analyze_rail(bank_doc(groups, **HARD), corners=False, headroom=False, waveforms=False)
+    assert next(c for c in result["checks"] if c["id"] == "bank_rating")["verdict"] == "pass"
+    one = analyze_rail(simple_doc(c=1e-3, esr=0.01, **HARD), corners=False, headroom=False, waveforms=False)
+    assert next(c for c in one["checks"] if c["id"] == "bank_rating")["verdict"] == "n/a"
