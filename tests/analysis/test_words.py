@@ -46,7 +46,16 @@ def _full_documents() -> list[dict]:
     other["switch"]["gate"] = {"drive": "current", "i_gate": 10e-6}
     other["fet"]["gate"] = {"v_th": 3.0, "g_fs": 20.0, "i_gfs": 10.0, "c_iss": 3e-9, "c_rss": 2e-10}
     read_rail(other)
-    return [_full_document(), other]
+    banked = _full_document()
+    load = banked["load"]
+    for key in ("c_nom", "c_tol", "esr"):
+        load.pop(key)
+    load["bank"] = [{"refs": "C1-C4", "count": 4, "c_nom": 22e-6, "c_tol": 0.1, "dielectric": "x7r", "v_rated": 100.0,
+                     "esr": 0.005, "dc_bias": [[0.0, 1.0], [50.0, 0.5]], "tempco": -0.001},
+                    {"count": 8, "c_nom": 4.7e-6, "c_tol": 0.1, "dielectric": "x5r", "v_rated": 100.0, "esr": 0.01,
+                     "derating": [0.4, 0.8]}]
+    read_rail(banked)
+    return [_full_document(), other, banked]
 
 
 def _walk(node, path=""):
@@ -55,7 +64,8 @@ def _walk(node, path=""):
         for key, value in node.items():
             yield from _walk(value, f"{path}.{key}" if path else key)
     elif isinstance(node, list) and not (path.endswith("]") and any(k in path for k in ("points", "rds_on_curve",
-                                                                                         "foldback"))):
+                                                                                         "foldback", "dc_bias"))) \
+            and not path.endswith("derating"):
         for k, value in enumerate(node):
             yield from _walk(value, f"{path}[{k}]")
 
