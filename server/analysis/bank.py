@@ -64,7 +64,7 @@ DIELECTRICS = ("c0g", "x5r", "x7r", "electrolytic", "polymer", "film", "other")
 CLASS_II = frozenset({"x5r", "x7r"})
 DIELECTRIC_WORDS = {"c0g": "C0G ceramic", "x5r": "X5R ceramic", "x7r": "X7R ceramic",
                     "electrolytic": "aluminium electrolytic", "polymer": "polymer", "film": "film", "other": "other"}
-MAX_BANK_GROUPS = 32
+MAX_BANK_GROUPS = 64
 MAX_GROUP_COUNT = 10_000
 T_REFERENCE = 25.0  # degC: the temperature of the nominal value
 SUMMARY_POINTS = 61  # points of the C(v) curve in the summary
@@ -196,6 +196,7 @@ class Table:
     f: np.ndarray
     big_f: np.ndarray
     s: np.ndarray
+    s_ext: np.ndarray  # the slopes with a flat segment beyond the last point (1/V)
 
     @property
     def flat(self) -> bool:
@@ -209,13 +210,13 @@ class Table:
 def table(dc_bias) -> Table:
     """The `Table` of a DC-bias curve (None: f = 1 everywhere)."""
     if dc_bias is None:
-        return Table(np.zeros(1), np.ones(1), np.zeros(1), np.zeros(0))
+        return Table(np.zeros(1), np.ones(1), np.zeros(1), np.zeros(0), np.zeros(1))
     v = np.array([p[0] for p in dc_bias], dtype=float)
     f = np.array([p[1] for p in dc_bias], dtype=float)
     s = np.diff(f) / np.diff(v)
     seg = np.diff(v) * 0.5 * (f[:-1] + f[1:])
     big_f = f[0] * v[0] + np.concatenate([[0.0], np.cumsum(seg)])
-    return Table(v, f, big_f, s)
+    return Table(v, f, big_f, s, np.concatenate([s, [0.0]]))
 
 
 def fraction(tab: Table, v):
@@ -234,7 +235,7 @@ def charge(tab: Table, v):
     j = np.clip(np.searchsorted(tab.v, v, side="right") - 1, 0, tab.v.shape[0] - 1)
     below = v < tab.v[0]
     d = v - tab.v[j]
-    s = np.concatenate([tab.s, [0.0]])[j]  # beyond the last point: flat
+    s = tab.s_ext[j]  # beyond the last point: flat
     inside = tab.big_f[j] + tab.f[j] * d + 0.5 * s * d * d
     return np.where(below, tab.f[0] * v, inside)
 
@@ -247,7 +248,7 @@ def voltage(tab: Table, x):
     j = np.clip(np.searchsorted(tab.big_f, x, side="right") - 1, 0, tab.v.shape[0] - 1)
     below = x < tab.big_f[0]
     fj = tab.f[j]
-    s = np.concatenate([tab.s, [0.0]])[j]
+    s = tab.s_ext[j]
     dx = x - tab.big_f[j]
     # f_j d + s d^2 / 2 = dx, the root near 0 in the form without cancellation
     root = np.sqrt(np.maximum(fj * fj + 2.0 * s * dx, 0.0))
