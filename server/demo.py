@@ -225,8 +225,9 @@ BOARDS = [
 
 
 # The sensor head's power-up sequence (invented): a 12 V harness down the mast, long and thin (0.4 ohm), and a
-# 5 V auxiliary. The lidar's 4.7 mF start and then the camera's pull the harness below the 10.5 V UVLO of the
-# head's converter at the supply-low corner; the 5 V side stays within its budget.
+# 5 V auxiliary. The lidar's 4.7 mF start pulls the harness below the 10.5 V UVLO of the head's converter at the
+# supply-low corner, and its fault timer (too short for that capacitance, as its own analysis says) turns it off
+# before power-good, so the camera it enables never starts; the 5 V side stays within its budget.
 SEQUENCES = {
     "Sensor head": {
         "schema": "railsign.sequence/1", "name": "Sensor head power-up",

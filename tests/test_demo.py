@@ -65,7 +65,13 @@ def test_demo_has_a_board_sequence_whose_harness_dips_below_its_uvlo(app, sessio
         result = sequences.current_result(s, seq).result
     failing = {(c["id"], c["subject"], c["corner"]) for c in result["checks"] if c["verdict"] == "fail"}
     assert ("supply_uvlo", "harness12", "supply_low") in failing
-    # the dip also pulls the lidar's output back below its power-good level once the camera starts
-    assert failing <= {("supply_uvlo", "harness12", "supply_low"), ("power_good_order", "board", "supply_low")}
-    order = next(c for c in result["checks"] if c["id"] == "power_good_order" and c["corner"] == "supply_low")
-    assert "Rail lidar's output falls back to" in order["reason"] and " V after power-good" in order["reason"]
+    # the lidar's own fault timer is too short for its 4.7 mF (its own analysis fails the same way): on the
+    # board its timer turns it off before power-good, so the camera it enables never starts
+    assert ("power_good", "lidar", "nominal") in failing and ("power_good", "camera", "nominal") in failing
+    assert failing <= {("supply_uvlo", "harness12", "supply_low")} | {
+        (cid, who, corner) for cid, who in (("power_good", "lidar"), ("power_good", "camera"),
+                                            ("power_good_order", "board")) for corner in ("nominal", "supply_low")}
+    lidar = next(c for c in result["checks"] if c["id"] == "power_good" and c["subject"] == "lidar")
+    assert "fault timer turned it off" in lidar["reason"]
+    # the 5 V side holds
+    assert not {c for c in failing if c[1] in ("aux5", "sensors", "ir_led")}

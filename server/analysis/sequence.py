@@ -97,6 +97,7 @@ from .document import Rail, read_rail
 from .document import _Reader as RailReader
 from .errors import DocumentError
 from .startup import _time_scale
+from .timer import fault_times
 from .units import quantity
 from .words import generic_path
 
@@ -506,6 +507,7 @@ class _Rows:
     after: np.ndarray      # rail row of the enabling rail (-1: none)
     en_level: np.ndarray   # V: the enabling rail's power-good level for this rail
     delay: np.ndarray
+    t_fault: np.ndarray    # s: the fault timer's shortest trip time (inf: no timer)
     v_src: np.ndarray      # per supply row
     r_s: np.ndarray
     l_s: np.ndarray
@@ -582,6 +584,8 @@ def _rows(seq: Sequence) -> tuple[_Rows, list[Rail]]:
         after=np.concatenate([after, np.where(after >= 0, after + K, -1)]),
         en_level=two(en_level),
         delay=two(np.array([sr.delay for sr in seq.rails])),
+        t_fault=two(one(lambda k: fault_times(rails[k].switch.timer)[0] if rails[k].switch.timer is not None
+                        else np.inf)),
         v_src=np.array([s.v_nom for s in seq.supplies] + [s.v_min for s in seq.supplies]),
         r_s=two(np.array([max(s.r_source, R_FLOOR) if s.l_source == 0.0 else s.r_source for s in seq.supplies])),
         l_s=two(np.array([s.l_source for s in seq.supplies])),
@@ -676,7 +680,8 @@ class Timeline:
     ``t`` (steps,), ``v_bus`` and ``i_src`` (steps, 2 S), ``i_rail`` and ``v_out`` (steps, 2 K);
     per rail row ``t_enable``, ``t_pg`` (first power-good; nan: never), ``pg_drop`` (the lowest output
     after power-good where it fell below its level again, nan where it did not), ``v_end``;
-    ``finished`` (at rest before t_stop), ``steps``.
+    ``finished`` (at rest before t_stop), ``steps``; ``t_trip`` when a rail's fault timer turned it
+    off (its time in regulation reached its shortest trip time; nan: never).
     """
 
     t: np.ndarray
@@ -691,6 +696,7 @@ class Timeline:
     finished: bool
     steps: int
     rows: _Rows
+    t_trip: np.ndarray | None = None  # per rail row: when its fault timer turned it off (nan: never)
 
 
 def simulate_sequence(seq: Sequence, *, rtol: float = RTOL, max_steps: int = MAX_STEPS) -> Timeline:
@@ -725,10 +731,15 @@ def simulate_sequence(seq: Sequence, *, rtol: float = RTOL, max_steps: int = MAX
     level = p.pg_level
     has_level = ~np.isnan(level)
     chained = p.after >= 0
+    t_reg = np.zeros(R)  # time each rail has regulated (its fault timer's count)
+    t_trip = np.full(R, np.nan)
+    regulating = np.zeros(R, bool)
     while steps < max_steps and t < seq.t_stop:
-        on = t_en <= t * (1 + 1e-12) + 1e-18
-        future = t_en[np.isfinite(t_en) & ~on]
+        on = (t_en <= t * (1 + 1e-12) + 1e-18) & np.isnan(t_trip)
+        future = t_en[np.isfinite(t_en) & ~on & np.isnan(t_trip)]
         h = min(h, h_max, seq.t_stop - t)
+        if regulating.any():  # land on the instant a regulating rail's timer trips
+            h = min(h, max(float(np.min((p.t_fault - t_reg)[regulating])), 1e-15))
         if future.size:
             h = min(h, max(float(future.min()) - t, 1e-15))
         ramping = on & (p.t_on > 0) & (t - t_en < p.t_on)
@@ -759,6 +770,11 @@ def simulate_sequence(seq: Sequence, *, rtol: float = RTOL, max_steps: int = MAX
                 break
             h = max(h * max(0.2, 0.8 * rtol / change), 1e-15)
         # accept
+        regulating = on & (ref_on < NO_LIMIT) & ((v_b1[p.sup] - aa) * bk >= ref_on) & (i1 > 0.0)
+        t_reg = t_reg + np.where(regulating, h, 0.0)
+        trips = regulating & (t_reg >= p.t_fault * (1.0 - 1e-9))
+        if trips.any():
+            t_trip = np.where(trips, t1, t_trip)
         crossed = np.isnan(t_pg) & (vo1 >= level) & has_level
         if crossed.any():
             frac = np.clip((level - v_out) / np.where(vo1 > v_out, vo1 - v_out, 1.0), 0.0, 1.0)
@@ -797,7 +813,8 @@ def simulate_sequence(seq: Sequence, *, rtol: float = RTOL, max_steps: int = MAX
     return Timeline(t=np.asarray(rec_t), v_bus=np.asarray(rec_vb), i_src=np.asarray(rec_is),
                     i_rail=np.asarray(rec_ik), v_out=np.asarray(rec_vo), t_enable=np.where(np.isfinite(t_en) &
                                                                                          (t_en <= t), t_en, np.nan),
-                    t_pg=t_pg, pg_drop=pg_drop, v_end=v_out.copy(), finished=finished, steps=steps, rows=p)
+                    t_pg=t_pg, pg_drop=pg_drop, v_end=v_out.copy(), finished=finished, steps=steps, rows=p,
+                    t_trip=t_trip)
 
 
 # ---------------------------------------------------------------------------
@@ -920,6 +937,13 @@ def _rail_checks(seq: Sequence, tl: Timeline, c: int, corner: str, words: str) -
                           f"time ({quantity(seq.t_stop, 's')}).")
             out.append(_check("power_good", corner, sr.id, title, FAIL, None, None, "s", None, reason))
             continue
+        if tl.t_trip is not None and not np.isnan(tl.t_trip[row]):
+            out.append(_check("power_good", corner, sr.id, title, FAIL, None, None, "s", None,
+                              f"Its fault timer turned it off at {quantity(tl.t_trip[row], 's')}: enabled at "
+                              f"{quantity(tl.t_enable[row], 's')}, it had regulated for its shortest trip time "
+                              f"{quantity(p.t_fault[row], 's')} before reaching power-good. Its retries, if any, "
+                              "are in its own analysis."))
+            continue
         if not np.isnan(level):
             t_pg = tl.t_pg[row]
             if np.isnan(t_pg):
@@ -1036,12 +1060,15 @@ def analyze_sequence(doc: Any, rail_documents: dict[str, Any] | None = None, tea
             "Power-good levels are fixed voltages: the threshold times the rail's DC output at the supply's "
             "nominal voltage.",
             "R_DS(on) at the ambient temperature, current limits at their nominal value (a foldback curve at its "
-            "highest current); the fault timer, path inductance, self-heating and a gate drive (read as the "
-            "turn-on ramp) are in each rail's own analysis.",
+            "highest current); path inductance, self-heating and a gate drive (read as the turn-on ramp) are in "
+            "each rail's own analysis.",
             "Switches conduct forward only: a rail's output capacitance does not hold up the shared bus "
             "(conservative for the dip).",
             "A supply's total current is its source current (rails and bus capacitance); a dip is compared raw "
             "with each UVLO unless the rail gives the UVLO's deglitch time.",
+            "A rail's fault timer counts its time in regulation and turns it off at its shortest trip time (the "
+            "timer's tolerances); a tripped rail stays off in the time line (its retries are in its own "
+            "analysis).",
             "A rail with a capacitor bank takes part as one capacitor holding the bank's charge at the rail's "
             "supply (its charge-equivalent capacitance) behind the groups' ESRs in parallel; the rail's own "
             "analysis follows each group on its DC-bias curve.",

@@ -200,3 +200,30 @@ def test_the_time_line_reads_r_ds_on_and_the_limit_as_the_rails_own_circuit():
                                              {"id": "c", "rail": folded, "supply": "p12", "enable": {"at": 0.0}}]}))
     assert rows.rds[1] == pytest.approx(rows.rds[0] / 2.0)
     assert rows.i_lim[2] == pytest.approx(4.0)
+
+
+def test_a_rail_whose_timer_trips_stays_off_and_its_chain_never_starts():
+    # rail a charges 2.2 mF at 2 A: 13 ms in regulation, but its timer trips after 2 ms at the shortest
+    timer = {"c": 20e-9, "c_tol": 0.1, "i_charge": 10e-6, "i_charge_tol": 0.1, "v_trip": 1.0, "v_trip_tol": 0.0,
+             "after_fault": "latch", "retry_off": None}
+    rail_a = simple_doc(c=2.2e-3, i_limit=2.0, rds_on=10e-3, timer=timer)
+    rail_b = simple_doc(c=100e-6, i_limit=2.0, rds_on=10e-3)
+    doc = _two_rails(t_b=0.0, rail_a=rail_a, rail_b=rail_b, r_source=0.01)
+    doc["rails"][1]["enable"] = {"after": "a", "threshold": 0.9, "delay": 0.0}
+    doc["rails"][0]["power_good"] = 0.9
+    tl = simulate_sequence(read_sequence(doc))
+    # Source: the trip time t = C v_trip / i_charge at the tolerances' short end (the timer's closed form),
+    # 20 nF x 0.9 x 1 V / 11 uA, counted from the enable: the current limit holds from the first instant
+    t_trip = 20e-9 * 0.9 * 1.0 / 11e-6
+    assert tl.t_trip[0] == pytest.approx(t_trip, rel=1e-3)
+    # Source: a constant current into a capacitor, v = I t / C (closed form)
+    assert tl.v_out[np.searchsorted(tl.t, t_trip) - 1, 0] == pytest.approx(2.0 * t_trip / 2.2e-3, rel=0.02)
+    assert math.isnan(tl.t_enable[1])
+    result = analyze_sequence(doc)
+    reasons = {(c["subject"], c["corner"]): c["reason"] for c in result["checks"] if c["id"] == "power_good"}
+    assert "fault timer turned it off" in reasons[("a", "nominal")]
+    assert reasons[("b", "nominal")].startswith("Never enabled")
+    # without the timer the same board starts
+    del rail_a["switch"]["timer"]
+    rail_a["switch"]["timer"] = None
+    assert analyze_sequence(_two_rails(t_b=0.0, rail_a=rail_a, rail_b=rail_b, r_source=0.01))["verdict"] != "fail"
