@@ -22,7 +22,7 @@ import math
 from dataclasses import dataclass
 from typing import Any
 
-from server.analysis.report import limit_text, margin_text, value_text
+from server.analysis.report import bank_view, limit_text, margin_text, value_text  # noqa: F401 (bank_view: for the pages)
 from server.schemas.result import AnalysisResult, CheckRecord
 from server.units import format_quantity
 from server.services.rails import input_sections  # the inputs in words (the report reads them too)
@@ -77,38 +77,6 @@ def read_result(raw: dict[str, Any]) -> tuple[AnalysisResult, dict[str, Any] | N
     if bank is not None and "bank" not in AnalysisResult.model_fields:
         raw = {k: v for k, v in raw.items() if k != "bank"}
     return AnalysisResult.model_validate(raw), bank
-
-
-def _percent(x: float | None) -> str:
-    return "-" if x is None else f"{100.0 * x:.3g} %"
-
-
-def bank_view(bank: dict[str, Any] | None) -> dict[str, Any] | None:
-    """The result's capacitor bank (``result["bank"]``) in words and units for the rail page and the report:
-    per group its designators, count, dielectric, value, total, capacitance at the working voltage (and
-    its share of nominal), rating and ESR; the bank's totals and notes. Every figure is the record's."""
-    if not bank:
-        return None
-    rows = []
-    for k, g in enumerate(bank.get("groups") or []):
-        if g.get("has_curve"):
-            read = "its DC-bias curve"
-        elif g.get("derating"):
-            lo, hi = g["derating"]
-            read = f"derating range {_percent(lo)} to {_percent(hi)} of nominal"
-        else:
-            read = "nominal (no DC-bias curve)"
-        rows.append({"refs": g.get("refs") or f"group {k + 1}", "count": g["count"], "dielectric": g["dielectric"],
-                     "c_each": fmt(g["c_each"], "F"), "c_tol": _percent(g.get("c_tol")),
-                     "c_total": fmt(g["c_total"], "F"), "c_at_v_nom": fmt(g["c_at_v_nom"], "F"),
-                     "fraction_at_v_nom": _percent(g["fraction_at_v_nom"]), "c_effective": fmt(g["c_effective"], "F"),
-                     "v_rated": fmt(g["v_rated"], "V"), "esr": fmt(g["esr"], "ohm"), "read": read})
-    total = bank.get("c_total") or 0.0
-    return {"rows": rows, "c_total": fmt(bank.get("c_total"), "F"), "c_at_v_nom": fmt(bank.get("c_at_v_nom"), "F"),
-            "fraction_at_v_nom": _percent(bank["c_at_v_nom"] / total) if total else "-",
-            "c_effective": fmt(bank.get("c_effective"), "F"), "v_nom": fmt(bank.get("v_nom"), "V"),
-            "notes": list(bank.get("notes") or []),
-            "count": sum(int(g["count"]) for g in bank.get("groups") or [])}
 
 
 def check_records(checks: list[dict[str, Any]] | None) -> list[CheckRecord]:

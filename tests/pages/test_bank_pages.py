@@ -246,3 +246,31 @@ def test_an_uploaded_bom_file_fills_the_bank_and_a_bad_one_names_line_and_column
     assert "line 4, column count" in r.text and "Nothing was filled" in r.text
     kept = FormValues(r.text).values
     assert kept["load.bank[0].refs"] == "C401, C402"  # the bank's rows as they were
+
+
+def test_the_board_report_and_its_pdf_list_the_bank_groups_and_notes(client, app, people, session_factory):
+    from server.analysis.report import format_report
+    from tests.report_support import pdf_pages
+
+    demo = _demo(session_factory)
+    bank = demo["result"]["bank"]
+    _log_in_as(client, app, demo["dana"])
+    page = client.get(f"/boards/{demo['board_id']}/report")
+    assert page.status_code == 200
+    table = page.text.split(f'id="rail-{demo["rail_id"]}-bank-table"', 1)[1].split("</table>", 1)[0]
+    assert all(html.escape(g["refs"]) in table and fmt(g["c_at_v_nom"], "F") in table for g in bank["groups"])
+    pdf = client.get(f"/boards/{demo['board_id']}/report.pdf")
+    assert pdf.status_code == 200
+    text = " ".join(" ".join(pdf_pages(pdf.content)).split())
+    assert "Capacitor bank" in text and "C410-C433" in text and "X7R ceramic" in text
+    assert fmt(bank["c_at_v_nom"], "F") in text
+    # the text report: the bank where the load is shown, its notes with it (not again at the end)
+    with session_factory() as s:
+        doc = s.scalar(select(RailRevision).where(RailRevision.rail_id == demo["rail_id"])).document
+    report = format_report(demo["result"], doc)
+    load_line = next(line for line in report.splitlines() if line.startswith("Supply "))
+    assert f"load capacitor bank {fmt(bank['c_total'], 'F')} nominal" in load_line
+    for g in bank["groups"]:
+        assert any(line.startswith(g["refs"]) and g["dielectric"] in line for line in report.splitlines())
+    for note in bank["notes"]:
+        assert report.count(note) == 1 and f"Bank note: {note}" in report
