@@ -21,6 +21,7 @@ from server.services.rails import normalize_document
 from server.services.users import get_user_by_name
 from tests.factories import rail_doc
 from tests.pages.helpers import analyse_now
+from tests.pages.test_page_accessibility import problems_of
 
 BANK = [{"refs": "C1, C2", "count": 2, "c_nom": "330uF", "c_tol": "20%", "dielectric": "electrolytic",
          "v_rated": "25V", "esr": "80 mOhm"},
@@ -112,6 +113,20 @@ def test_a_bank_document_survives_the_form_unchanged():
     assert document_sha256(again) == document_sha256(doc)
 
 
+def test_the_conflict_comparison_covers_the_bank_groups():
+    from server.pages.forms import compare_rows
+
+    doc = normalize_document(rail_doc("BANKED", load={"c_nom": None, "c_tol": 0, "esr": 0, "bank": BANK}))
+    mine, theirs = form_from_document(doc), form_from_document(doc)
+    mine["load.bank[1].c_nom"] = "22000 nF"  # the same value written otherwise
+    theirs["load.bank[2].v_rated"] = "25 V"
+    rows = {r["name"]: r for r in compare_rows(mine, theirs)}
+    assert rows["load.bank[1].c_nom"]["differs"] is False
+    assert rows["load.bank[2].v_rated"]["differs"] is True and rows["load.bank[2].v_rated"]["label"] == \
+        "Capacitor group 3 voltage rating"
+    assert [n for n, r in rows.items() if r["differs"]] == ["load.bank[2].v_rated"]
+
+
 def test_the_demo_gimbal_page_shows_the_bank_its_groups_and_its_curve(client, app, people, session_factory):
     demo = _demo(session_factory)
     bank = demo["result"]["bank"]
@@ -139,6 +154,7 @@ def test_the_demo_gimbal_page_shows_the_bank_its_groups_and_its_curve(client, ap
     assert figure["layout"]["shapes"][0]["x0"] == bank["v_nom"]  # the nominal supply marked
     assert figure["layout"]["yaxis"]["ticksuffix"] == "F" and figure["layout"]["xaxis"]["ticksuffix"] == "V"
     assert "stored energy" in page  # the page's caution covers a bank at high voltage
+    assert problems_of(page) == []
 
 
 def test_the_rail_form_round_trips_the_demo_bank_without_a_new_revision(client, app, people, session_factory):
@@ -150,6 +166,7 @@ def test_the_rail_form_round_trips_the_demo_bank_without_a_new_revision(client, 
     assert values["load.bank[1].refs"] == "C410-C433" and values["load.bank[1].dielectric"] == "x7r"
     assert values.get("load.c_nom") == ""
     assert 'enctype="multipart/form-data"' in form.text and "X7R ceramic</option>" in form.text
+    assert problems_of(form.text) == []  # labelled, headings in order, ids once (tests/pages/test_page_accessibility.py)
     values["csrf_token"] = csrf
     r = client.post(f"/rails/{demo['rail_id']}/edit", data=values, follow_redirects=False)
     assert r.status_code == 303, r.text[:3000]
