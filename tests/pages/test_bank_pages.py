@@ -10,10 +10,11 @@ from html.parser import HTMLParser
 
 from sqlalchemy import select
 
+from server.analysis.report import format_report
 from server.demo import seed_if_empty
 from server.models import Rail, RailRevision
 from server.pages.display import fmt
-from server.pages.forms import document_from_form, form_from_document
+from server.pages.forms import compare_rows, document_from_form, form_from_document
 from server.pages.plots import _r
 from server.schemas.rail import document_sha256
 from server.services.bom_import import parse_bom
@@ -22,6 +23,7 @@ from server.services.users import get_user_by_name
 from tests.factories import rail_doc
 from tests.pages.helpers import analyse_now
 from tests.pages.test_page_accessibility import problems_of
+from tests.report_support import pdf_pages
 
 BANK = [{"refs": "C1, C2", "count": 2, "c_nom": "330uF", "c_tol": "20%", "dielectric": "electrolytic",
          "v_rated": "25V", "esr": "80 mOhm"},
@@ -114,8 +116,6 @@ def test_a_bank_document_survives_the_form_unchanged():
 
 
 def test_the_conflict_comparison_covers_the_bank_groups():
-    from server.pages.forms import compare_rows
-
     doc = normalize_document(rail_doc("BANKED", load={"c_nom": None, "c_tol": 0, "esr": 0, "bank": BANK}))
     mine, theirs = form_from_document(doc), form_from_document(doc)
     mine["load.bank[1].c_nom"] = "22000 nF"  # the same value written otherwise
@@ -266,9 +266,6 @@ def test_an_uploaded_bom_file_fills_the_bank_and_a_bad_one_names_line_and_column
 
 
 def test_the_board_report_and_its_pdf_list_the_bank_groups_and_notes(client, app, people, session_factory):
-    from server.analysis.report import format_report
-    from tests.report_support import pdf_pages
-
     demo = _demo(session_factory)
     bank = demo["result"]["bank"]
     _log_in_as(client, app, demo["dana"])
