@@ -1,5 +1,5 @@
 """The `railsign` command line: serve, demo, migrate, export, import, user, token, analyze, sequence, check,
-fit-zth, worker,
+fit-zth, bom-import, worker,
 jobs.
 
 Exit codes: 0 success; 1 the analysis found a failing check (`check --strict`: or an unaccepted
@@ -40,6 +40,7 @@ from server.schemas.rail import normalize
 from server.schemas.validation import DocumentInvalid, parse_rail_document
 from server.services import jobs, risks, sequences, teams, users
 from server.services.access import Actor
+from server.services.bom_import import parse_bom
 from server.services.errors import ServiceError
 from server.services.parts import fit_zth_points, zth_points_from_text
 from server.services.results import engine_version
@@ -397,6 +398,26 @@ def cmd_fit_zth(args: argparse.Namespace) -> int:
     return EXIT_OK
 
 
+def cmd_bom_import(args: argparse.Namespace) -> int:
+    """A BOM's capacitor lines as the rail document's ``load.bank`` (JSON on standard output, warnings on
+    standard error; no database needed)."""
+    file = Path(args.file)
+    if args.file != "-" and not file.is_file():
+        raise CliError(f"no such file: {args.file}")
+    try:
+        text = sys.stdin.read() if args.file == "-" else file.read_text(encoding="utf-8-sig")
+    except UnicodeDecodeError:
+        raise CliError(f"{args.file}: not UTF-8 text (save the BOM as CSV, UTF-8)") from None
+    found = parse_bom(text)
+    for warning in found.warnings:
+        print(f"railsign: warning: {warning}", file=sys.stderr)
+    if found.errors:
+        raise CliError(f"{args.file}: the BOM has lines that cannot be read; nothing printed\n"
+                       + "\n".join(f"  {e}" for e in found.errors))
+    print(json.dumps(found.groups, indent=2, ensure_ascii=False, allow_nan=False))
+    return EXIT_OK
+
+
 def cmd_worker(args: argparse.Namespace) -> int:
     settings = _settings()
     if args.check:
@@ -592,6 +613,13 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--board-tau", metavar="S", help="time constant of the board stage (s, e.g. 20 or '20 s'; "
                    "default 10 s, common practice, no source; a shorter one is the cautious choice)")
     p.add_argument("--json", action="store_true", help="print one JSON object (SI units) instead of the report")
+
+    p = command("bom-import", cmd_bom_import,
+                "read a BOM's capacitor lines (CSV) into a capacitor bank: prints the rail document's load.bank "
+                "as JSON (no database needed)")
+    p.add_argument("file", metavar="FILE.csv", help="the capacitors on the rail's net: a header line (reference "
+                   "designators, value, dielectric, rating, count; optional tolerance, ESR), one capacitor line per "
+                   "line; or - for standard input")
 
     p = command("worker", cmd_worker, "run analysis jobs from the database queue until stopped")
     p.add_argument("--concurrency", type=int, default=1, help="worker threads in this process (default 1)")

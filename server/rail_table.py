@@ -26,6 +26,12 @@ The column set (README, "Importing a table of rails"):
   pulse width is the DC curve), ``fet.rds_on_curve`` with columns ``board``, ``rail``, ``tj``,
   ``ratio`` and ``switch.foldback`` with columns ``board``, ``rail``, ``v_ds``, ``i_limit`` (one
   point per row, in order);
+- ``load.bank`` (a capacitor bank: groups of identical capacitors) as a JSON cell holding the
+  document's list of groups (``[{"refs": "C1-C4", "count": 4, "c_nom": "22uF", "dielectric": "x7r",
+  "v_rated": "25V", "dc_bias": [[0, 1], [12, 0.45]]}]``), or, in a workbook, on a sheet ``load.bank``
+  with columns ``board``, ``rail``, ``count``, ``c_nom``, ``dielectric``, ``v_rated`` and optional
+  ``refs``, ``c_tol``, ``esr``, ``tempco``, ``dc_bias`` and ``derating`` (the last two JSON lists),
+  one group per row, in order;
 - ``fet.count`` (parallel FETs) is the rail's own figure: it may be given beside a ``part``.
 
 Blank rows and rows whose first cell starts with ``#`` are skipped. The first sheet of a
@@ -34,7 +40,8 @@ shows them. Reading never validates the physics: :mod:`server.transfer` plans ea
 through the same validation as every other path.
 
 Provides :class:`TableRow`, :class:`RailTable`, :class:`TableInvalid`, :func:`read_csv`,
-:func:`read_xlsx`, :func:`read_table`, :data:`LIST_FIELDS`, :func:`columns`, :func:`template_csv`.
+:func:`read_xlsx`, :func:`read_table`, :data:`LIST_FIELDS`, :func:`columns`, :func:`template_csv`, and
+:func:`write_csv` (rails as a table of this column set, reading back to the same documents).
 """
 
 from __future__ import annotations
@@ -53,12 +60,15 @@ from server.analysis.words import FIELD_TITLES
 from server.schemas.rail import SCHEMA_ID
 
 __all__ = ["TableRow", "RailTable", "TableInvalid", "read_csv", "read_xlsx", "read_table", "LIST_FIELDS",
-           "META_COLUMNS", "columns", "template_csv", "MAX_ROWS"]
+           "META_COLUMNS", "columns", "template_csv", "MAX_ROWS", "write_csv", "BANK_OPTIONAL"]
 
 MAX_ROWS = 5000
 META_COLUMNS = ("board", "board_revision", "part", "part_revision")
 LIST_FIELDS = {"fet.zth": ("r", "tau"), "fet.zth_points": ("t", "zth"), "fet.soa.curves": ("t_pulse", "v_ds", "i_d"),
-               "fet.rds_on_curve": ("tj", "ratio"), "switch.foldback": ("v_ds", "i_limit")}
+               "fet.rds_on_curve": ("tj", "ratio"), "switch.foldback": ("v_ds", "i_limit"),
+               "load.bank": ("count", "c_nom", "dielectric", "v_rated")}
+# columns a ``load.bank`` sheet may add to its required ones: plain values, and two JSON lists
+BANK_OPTIONAL = ("refs", "c_tol", "esr", "tempco", "dc_bias", "derating")
 _SECTIONS = ("supply", "path", "load", "switch", "environment")
 _HEADER = re.compile(r"^\s*(?P<name>.*?)\s*(?:\[(?P<unit>[^\]]*)\])?\s*$")
 _NUMBER = re.compile(r"^[-+]?(\d+\.?\d*|\.\d+)([eE][-+]?\d+)?$")
@@ -293,6 +303,27 @@ def _foldback(items: list[dict]) -> list[list[Any]]:
     return [[_cell_value(i["v_ds"], ""), _cell_value(i["i_limit"], "")] for i in items]
 
 
+def _json_or_text(raw: Any) -> Any:
+    """A JSON list cell of a sheet (a DC-bias curve, a derating range); text the schema then refuses otherwise."""
+    try:
+        return json.loads(str(raw))
+    except json.JSONDecodeError:
+        return _text(raw)
+
+
+def _bank(items: list[dict]) -> list[dict[str, Any]]:
+    groups = []
+    for i in items:
+        group = {k: _cell_value(i[k], "") for k in ("count", "c_nom", "dielectric", "v_rated")}
+        for k in BANK_OPTIONAL:
+            if _text(i.get(k)) != "":
+                group[k] = _json_or_text(i[k]) if k in ("dc_bias", "derating") else _cell_value(i[k], "")
+        if "refs" in group:
+            group["refs"] = _text(i["refs"])
+        groups.append(group)
+    return groups
+
+
 def read_xlsx(data: bytes) -> RailTable:
     """A workbook: the table on its first sheet; Foster stages, Zth points and SOA curves on sheets
     ``fet.zth``, ``fet.zth_points`` and ``fet.soa.curves`` (or as JSON cells of the table)."""
@@ -308,7 +339,7 @@ def read_xlsx(data: bytes) -> RailTable:
     finally:
         book.close()
     build = {"fet.zth": _stages, "fet.zth_points": _zth_points, "fet.soa.curves": _curves,
-             "fet.rds_on_curve": _rds_points, "switch.foldback": _foldback}
+             "fet.rds_on_curve": _rds_points, "switch.foldback": _foldback, "load.bank": _bank}
     for path, groups in lists.items():
         for row in table.rows:
             items = groups.get((row.board, row.name))
@@ -316,6 +347,9 @@ def read_xlsx(data: bytes) -> RailTable:
                 continue
             if path in table.columns and _get(row.document, path) is not None:
                 row.errors.append({"field": path, "message": f"is given both in its column and on sheet '{path}'"})
+            elif path == "load.bank" and _get(row.document, "load.c_nom") is not None:
+                row.errors.append({"field": path, "message": "sheet 'load.bank' gives a capacitor bank, but the row "
+                                                            "also gives load.c_nom: leave it blank with a bank"})
             elif row.part and path.startswith("fet."):
                 row.errors.append({"field": path, "message": f"sheet '{path}' gives it, but the rail uses part "
                                                             f"'{row.part}': a part brings its own MOSFET"})
@@ -357,4 +391,41 @@ def template_csv() -> str:
     writer = csv.writer(out, lineterminator="\r\n")
     writer.writerow(head)
     writer.writerow(example)
+    return out.getvalue()
+
+
+def _cell(value: Any) -> str:
+    if value is None:
+        return ""
+    if isinstance(value, (list, dict)):
+        return json.dumps(value, ensure_ascii=False, allow_nan=False)
+    if isinstance(value, float):
+        return repr(value)
+    return str(value)
+
+
+def write_csv(entries: list[dict[str, Any]]) -> str:
+    """Rails as a CSV table of this column set: each entry ``{"board", "board_revision", "part",
+    "part_revision", "document"}`` (a stored, canonical rail document: SI numbers). Values are written
+    as SI numbers that read back exactly, list fields (``load.bank``, the FET's curves) as JSON cells;
+    a rail on a library ``part`` leaves the ``fet.*`` columns blank but ``fet.count``. Only columns some
+    rail fills are written, in the order of :func:`columns`."""
+    rows = []
+    for e in entries:
+        doc = e["document"]
+        row = {"board": e["board"], "board_revision": e.get("board_revision") or "", "part": e.get("part") or "",
+               "part_revision": "" if e.get("part_revision") is None else str(e["part_revision"])}
+        for path in _PATHS:
+            if e.get("part") and path.startswith("fet.") and path != "fet.count":
+                continue
+            value = _get(doc, path)
+            if value is not None:
+                row[path] = _cell(value)
+        rows.append(row)
+    head = [c for c in columns() if c in META_COLUMNS or any(c in r for r in rows)]
+    out = io.StringIO()
+    writer = csv.writer(out, lineterminator="\r\n")
+    writer.writerow(head)
+    for r in rows:
+        writer.writerow([r.get(c, "") for c in head])
     return out.getvalue()

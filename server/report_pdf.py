@@ -314,6 +314,19 @@ def _rail_section(r: dict[str, Any], k: int, n: int, drawer: _Plots) -> list[Flo
     left, right = items[:half], items[half:]
     rows = [[a[0], a[1], a[2]] + (b if b else ["", "", ""]) for a, b in zip(left, right + [None] * (half - len(right)))]
     story.append(_table(["Section", "Input", "Value"] * 2, rows, [8, 13, 9, 8, 13, 9]))
+    bank = r.get("bank")
+    if bank:
+        story.append(_p("Capacitor bank", "h2"))
+        story.append(_p(f"{bank['count']} capacitors: {bank['c_total']} nominal at 0 V; {bank['c_at_v_nom']} "
+                        f"({bank['fraction_at_v_nom']}) at the nominal supply {bank['v_nom']}; "
+                        f"{bank['c_effective']} charge-equivalent.", "body"))
+        story.append(_table(["Designators", "Count", "Dielectric", "Each", "Total", "At working V", "Of nominal",
+                             "Rating", "ESR (group)"],
+                            [[g["refs"], g["count"], g["dielectric"], g["c_each"], g["c_total"], g["c_at_v_nom"],
+                              g["fraction_at_v_nom"], g["v_rated"], g["esr"]] for g in bank["rows"]],
+                            [10, 4, 10, 6, 6, 7, 6, 5, 6]))
+        for note in bank["notes"]:
+            story.append(_p(note, "small"))
     if r["rules"]:
         story.append(_p("Team limits used", "h2"))
         story.append(_table(["Limit", "Value", "From"], [[x["title"], x["value"], x["source"]] for x in r["rules"]],

@@ -259,3 +259,47 @@ def test_a_foldback_curve_reads_the_same_from_a_json_cell_and_from_its_sheet():
     docs = [normalize(parse_rail_document(r.document)) for r in (from_cell, from_sheet)]
     assert docs[0]["switch"]["foldback"] == docs[1]["switch"]["foldback"] == [[2.0, 4.0], [10.0, 1.5]]
     assert docs[0] == docs[1]
+
+
+def _bank_document() -> dict:
+    from server.demo import BOARDS, FETS  # the demo's GIMBAL_12V: a bank of three groups, one with a DC-bias curve
+    doc, part = next((d, p) for _, _, rails in BOARDS for d, p in rails if d["name"] == "GIMBAL_12V")
+    bank = [dict(g) for g in doc["load"]["bank"]]
+    bank[2] |= {"tempco": -0.0015, "derating": [0.4, 0.8]}  # every optional key of a group once
+    return normalize(parse_rail_document({**doc, "fet": FETS[part], "load": {**doc["load"], "bank": bank}}))
+
+
+def test_a_bank_rail_goes_out_as_csv_and_comes_back_the_same():
+    from server.rail_table import write_csv
+    banked, plain = _bank_document(), normalize(parse_rail_document(rail_doc("VOUT_PLAIN")))
+    text = write_csv([{"board": "Sensor head", "board_revision": "B", "document": banked},
+                      {"board": "Main", "document": plain}])
+    header = next(csv.reader(io.StringIO(text)))
+    assert "load.bank" in header and "load.c_nom" in header  # one rail has a bank, the other one capacitance
+    table = read_csv(text.encode())
+    assert [r.errors for r in table.rows] == [[], []]
+    assert (table.rows[0].board, table.rows[0].board_revision) == ("Sensor head", "B")
+    back = [normalize(parse_rail_document(r.document)) for r in table.rows]
+    assert back[0] == banked and back[1] == plain
+    assert back[0]["load"]["bank"][1]["dc_bias"] == banked["load"]["bank"][1]["dc_bias"]
+    assert "c_nom" not in back[0]["load"]
+
+
+def test_a_bank_reads_the_same_from_a_json_cell_and_from_its_sheet():
+    bank = [{"refs": "C1, C2", "count": 2, "c_nom": "330uF", "c_tol": "20%", "dielectric": "electrolytic",
+             "v_rated": "25V", "esr": "80 mOhm"},
+            {"refs": "C10-C17", "count": 8, "c_nom": "22uF", "dielectric": "x7r", "v_rated": 25,
+             "dc_bias": [[0, 1], [8, 0.62], [16, 0.36]]}]
+    header = [h for h in HEADER if not h.startswith("load.c_")] + ["load.bank"]
+    row = [c for h, c in zip(HEADER, _row("V_BANK")) if not h.startswith("load.c_")]
+    from_cell = read_csv(_csv([row + [json.dumps(bank)]], header)).rows[0]
+    sheet = [["board", "rail", "refs", "count", "c_nom", "c_tol", "dielectric", "v_rated", "esr", "dc_bias"],
+             ["Main", "V_BANK", "C1, C2", 2, "330uF", "20%", "electrolytic", "25V", "80 mOhm", None],
+             ["Main", "V_BANK", "C10-C17", 8, "22uF", None, "x7r", 25, None, json.dumps([[0, 1], [8, 0.62], [16, 0.36]])]]
+    from_sheet = read_xlsx(_xlsx([row], header[:-1], {"load.bank": sheet})).rows[0]
+    docs = [normalize(parse_rail_document(r.document)) for r in (from_cell, from_sheet)]
+    assert docs[0] == docs[1]
+    assert [g["count"] for g in docs[0]["load"]["bank"]] == [2, 8] and docs[0]["load"]["bank"][0]["esr"] == 0.08
+    # a bank on its sheet beside a load capacitance in the table is refused on the bank
+    both = read_xlsx(_xlsx([_row("V_BANK")], HEADER, {"load.bank": sheet})).rows[0]
+    assert any(e["field"] == "load.bank" and "load.c_nom" in e["message"] for e in both.errors)

@@ -9,6 +9,9 @@ format_report(result, doc)
     failing and marginal checks, headroom, the fault timer, the short circuit's onset and
     turn-off, retries, Monte Carlo, the conventions and the caution. Pure string formatting from the result's records: nothing is
     recomputed.
+bank_view(bank)
+    The result's capacitor bank (``result["bank"]``) in words and units, as the report, the
+    rail page and the PDF show it.
 """
 
 from __future__ import annotations
@@ -200,9 +203,12 @@ def format_report(result: dict, doc: dict) -> str:
     lines.append(f"Caution: {result.get('caution', '')}")
     lines.append("")
     mode = str(sw.get("mode", "")).replace("_", " ")
+    bank = result.get("bank")
+    c_load = (f"capacitor bank {eng(bank.get('c_total'), 'F')} nominal" if bank else eng(load.get('c_nom'), 'F'))
     lines.append(f"Supply {eng(sup.get('v_min'), 'V')} to {eng(sup.get('v_max'), 'V')} (nominal "
-                 f"{eng(sup.get('v_nom'), 'V')}); load {eng(load.get('c_nom'), 'F')}, "
+                 f"{eng(sup.get('v_nom'), 'V')}); load {c_load}, "
                  f"{str(load.get('model', 'none')).replace('_', ' ')}; {mode} switch; MOSFET {fet.get('name')}")
+    lines += _bank_lines(bank)
     lines += _fet_lines(result)
     lines += _switch_extras(sw, fet)
     lines.append("")
@@ -244,11 +250,61 @@ def format_report(result: dict, doc: dict) -> str:
     lines.append("")
     for text in result.get("conventions") or []:
         lines.append(f"Convention: {text}")
+    shown = set((bank or {}).get("notes") or ())  # the bank's notes stand with the bank above
     for note in result.get("notes") or []:
-        lines.append(f"Note: {note}")
+        if note not in shown:
+            lines.append(f"Note: {note}")
     lines.append("")
     lines.append("Caution: " + (result.get("caution") or ""))
     return "\n".join(lines) + "\n"
+
+
+def _percent(x) -> str:
+    return "-" if x is None else f"{100.0 * x:.3g} %"
+
+
+def bank_view(bank: dict | None) -> dict | None:
+    """The result's capacitor bank (``result["bank"]``) in words and units for the rail page and the report:
+    per group its designators, count, dielectric, value, total, capacitance at the working voltage (and
+    its share of nominal), rating and ESR; the bank's totals and notes. Every figure is the record's."""
+    if not bank:
+        return None
+    rows = []
+    for k, g in enumerate(bank.get("groups") or []):
+        if g.get("has_curve"):
+            read = "its DC-bias curve"
+        elif g.get("derating"):
+            lo, hi = g["derating"]
+            read = f"derating range {_percent(lo)} to {_percent(hi)} of nominal"
+        else:
+            read = "nominal (no DC-bias curve)"
+        rows.append({"refs": g.get("refs") or f"group {k + 1}", "count": g["count"], "dielectric": g["dielectric"],
+                     "c_each": eng(g["c_each"], "F"), "c_tol": _percent(g.get("c_tol")),
+                     "c_total": eng(g["c_total"], "F"), "c_at_v_nom": eng(g["c_at_v_nom"], "F"),
+                     "fraction_at_v_nom": _percent(g["fraction_at_v_nom"]), "c_effective": eng(g["c_effective"], "F"),
+                     "v_rated": eng(g["v_rated"], "V"), "esr": eng(g["esr"], "ohm"), "read": read})
+    total = bank.get("c_total") or 0.0
+    return {"rows": rows, "c_total": eng(bank.get("c_total"), "F"), "c_at_v_nom": eng(bank.get("c_at_v_nom"), "F"),
+            "fraction_at_v_nom": _percent(bank["c_at_v_nom"] / total) if total else "-",
+            "c_effective": eng(bank.get("c_effective"), "F"), "v_nom": eng(bank.get("v_nom"), "V"),
+            "notes": list(bank.get("notes") or []),
+            "count": sum(int(g["count"]) for g in bank.get("groups") or [])}
+
+
+def _bank_lines(bank: dict | None) -> list[str]:
+    """The capacitor bank as the result holds it: its totals, a row per group, its notes."""
+    view = bank_view(bank)
+    if view is None:
+        return []
+    out = [f"Capacitor bank: {view['count']} capacitors, {view['c_total']} nominal at 0 V; {view['c_at_v_nom']} at "
+           f"the nominal supply {view['v_nom']} ({view['fraction_at_v_nom']} of nominal); {view['c_effective']} "
+           "charge-equivalent"]
+    rows = [[g["refs"], str(g["count"]), g["dielectric"], g["c_each"], g["c_tol"], g["c_total"], g["c_at_v_nom"],
+             g["fraction_at_v_nom"], g["v_rated"], g["esr"]] for g in view["rows"]]
+    out += _table(rows, ["Designators", "Count", "Dielectric", "Each", "Tol.", "Total", "At working V", "Of nom.",
+                         "Rating", "ESR (group)"])
+    out += [f"  Bank note: {n}" for n in view["notes"]]
+    return out
 
 
 def _switch_extras(sw: dict, fet: dict) -> list[str]:

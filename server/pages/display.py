@@ -22,13 +22,14 @@ import math
 from dataclasses import dataclass
 from typing import Any
 
-from server.analysis.report import limit_text, margin_text, value_text
-from server.schemas.result import CheckRecord
+from server.analysis.report import bank_view, limit_text, margin_text, value_text  # noqa: F401 (bank_view: for the pages)
+from server.schemas.result import AnalysisResult, CheckRecord
 from server.units import format_quantity
 from server.services.rails import input_sections  # the inputs in words (the report reads them too)
 
 __all__ = ["VerdictStyle", "VERDICT_STYLES", "VERDICT_ORDER", "verdict_style", "check_records", "check_row",
-           "check_rows", "worst_check", "check_text", "fmt", "input_sections", "BASIS_TEXT", "UNIT_TEXT"]
+           "check_rows", "worst_check", "check_text", "fmt", "input_sections", "BASIS_TEXT", "UNIT_TEXT",
+           "read_result", "bank_view"]
 
 
 @dataclass(frozen=True)
@@ -66,6 +67,16 @@ def verdict_style(verdict: str | None) -> VerdictStyle:
 
 
 fmt = format_quantity  # engineering notation of an SI value for display; '-' when there is none
+
+
+def read_result(raw: dict[str, Any]) -> tuple[AnalysisResult, dict[str, Any] | None]:
+    """A stored result of the current engine as the typed record, and its capacitor bank section as stored
+    (``result["bank"]``: the bank's C(v), its groups and notes; None without a bank). While the typed
+    record has no place for the bank, the section is read beside it, never recomputed."""
+    bank = raw.get("bank")
+    if bank is not None and "bank" not in AnalysisResult.model_fields:
+        raw = {k: v for k, v in raw.items() if k != "bank"}
+    return AnalysisResult.model_validate(raw), bank
 
 
 def check_records(checks: list[dict[str, Any]] | None) -> list[CheckRecord]:

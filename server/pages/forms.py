@@ -17,9 +17,10 @@ from __future__ import annotations
 
 import math
 import re
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 from typing import Any
 
+from server.analysis.bank import DIELECTRIC_WORDS, DIELECTRICS, MAX_BANK_GROUPS
 from server.analysis.document import AFTER_FAULT, DEFAULTS, GATE_DRIVES, LOAD_MODELS, SWITCH_MODES
 from server.analysis.rules import DEFAULT_RULES
 from server.analysis.words import FIELD_TITLES, field_title
@@ -28,7 +29,8 @@ from server.units import UnitError, format_quantity, parse_quantity
 
 __all__ = ["FormField", "titled_field", "RAIL_SECTIONS", "rail_fields", "document_from_form", "form_from_document",
            "form_value", "place_errors", "compare_rows", "field_titles", "PART_FIELD", "OWN_FET", "points_from_text",
-           "points_to_text"]
+           "points_to_text", "BANK_KEYS", "bank_fields", "bank_rows", "bank_values", "compact_bank", "bank_names",
+           "MAX_BANK_GROUPS"]
 
 PART_FIELD = "part"
 OWN_FET = "own"
@@ -45,10 +47,11 @@ class FormField:
     hint: str = ""
     modes: tuple[str, ...] = ()            # switch modes that use the field (empty: every mode)
     points: bool = False                   # a list of [a, b] pairs, typed one pair per line
+    choice_words: tuple[str, ...] = ()     # the words people read for ``choices`` (empty: the choices)
 
     @property
     def html_id(self) -> str:
-        return "f-" + self.name.replace(".", "-").replace("_", "-")
+        return "f-" + self.name.replace("[", "-").replace("]", "").replace(".", "-").replace("_", "-")
 
     @property
     def path(self) -> str:
@@ -94,7 +97,7 @@ RAIL_SECTIONS: list[tuple[str, str, list[FormField]]] = [
     ]),
     (_section_title("path"), "path", [F("path.r"), F("path.l")]),
     (_section_title("load"), "load", [
-        F("load.c_nom", required=True, example="680 \u00b5F"),
+        F("load.c_nom", example="680 \u00b5F (or a capacitor bank below)"),
         F("load.c_tol"),
         F("load.esr"),
         F("load.model", choices=LOAD_MODELS, required=True),
@@ -167,6 +170,99 @@ def points_to_text(points: Any, kinds: tuple[str, str] = ("V", "A")) -> str:
     return "\n".join(f"{form_value(a, kinds[0])}, {form_value(b, kinds[1])}" for a, b in points)
 
 
+# -- the capacitor bank: one row of fields per group, named by the group's document path ------
+
+BANK_KEYS = ("refs", "count", "c_nom", "c_tol", "dielectric", "v_rated", "esr", "dc_bias", "tempco", "derating[0]",
+             "derating[1]")
+_BANK_KEY = re.compile(r"^load\.bank\[(\d+)\]\.(.+)$")
+_BANK_EXAMPLES = {"refs": "C410-C433", "count": "24", "c_nom": "22 \u00b5F", "v_rated": "25 V", "esr": "4 m\u03a9",
+                  "dc_bias": "0 V, 1 / 8 V, 0.62 / 16 V, 0.36 (one pair per line)", "tempco": "-0.1 %/K"}
+_DERATING_ENDS = ("low", "high")
+
+
+def bank_fields(k: int) -> list[FormField]:
+    """The fields of capacitor group ``k`` (0-based): titles, hints and defaults of ``load.bank[]``."""
+    out = []
+    for key in BANK_KEYS:
+        name = f"load.bank[{k}].{key}"
+        if key.startswith("derating"):
+            end = _DERATING_ENDS[int(key[-2])]
+            words = FIELD_TITLES["load.bank[].derating"]
+            out.append(FormField(name, f"{field_title(f'load.bank[{k}].derating')}, {end}", "ratio",
+                                 placeholder="e.g. 0.4" if end == "low" else "e.g. 0.8",
+                                 hint=f"{end} end, a fraction of nominal; only without a DC-bias curve"
+                                 if end == "low" else words.hint))
+            continue
+        f = titled_field(f"load.bank[].{key}", name=name, example=_BANK_EXAMPLES.get(key, ""),
+                         required=key in ("c_nom", "dielectric", "v_rated") or key == "count",
+                         choices=DIELECTRICS if key == "dielectric" else (), points=key == "dc_bias")
+        out.append(replace(f, label=field_title(name),
+                           choice_words=tuple(DIELECTRIC_WORDS[d] for d in DIELECTRICS) if key == "dielectric"
+                           else ()))
+    return out
+
+
+def bank_names(values: dict[str, str]) -> list[str]:
+    """The names of every bank field the form's values hold rows for, and ``load.bank`` itself."""
+    return ["load.bank"] + [f.name for k in range(_bank_size(values)) for f in bank_fields(k)]
+
+
+def _bank_size(values: dict[str, str]) -> int:
+    found = [int(m[1]) for key in values if (m := _BANK_KEY.match(key))]
+    return min(max(found) + 1, MAX_BANK_GROUPS + 1) if found else 0
+
+
+def bank_rows(values: dict[str, str]) -> list[dict[str, str]]:
+    """The capacitor groups a form's values give: per row its values by key, rows left wholly blank dropped."""
+    rows = []
+    for k in range(_bank_size(values)):
+        row = {key: values.get(f"load.bank[{k}].{key}", "").strip() for key in BANK_KEYS}
+        if any(row.values()):
+            rows.append(row)
+    return rows
+
+
+def _bank_form(rows: list[dict[str, str]]) -> dict[str, str]:
+    return {f"load.bank[{k}].{key}": value for k, row in enumerate(rows) for key, value in row.items()}
+
+
+def compact_bank(values: dict[str, str]) -> dict[str, str]:
+    """The form's values with the bank's blank rows dropped and the rest numbered from 0, as the
+    document numbers them (so that an error on ``load.bank[1]`` lands on the second row shown)."""
+    rest = {k: v for k, v in values.items() if not _BANK_KEY.match(k)}
+    return rest | _bank_form(bank_rows(values))
+
+
+def _bank_document(rows: list[dict[str, str]]) -> list[dict[str, Any]]:
+    groups = []
+    for row in rows:
+        group: dict[str, Any] = {}
+        for key in ("refs", "count", "c_nom", "c_tol", "dielectric", "v_rated", "esr", "tempco"):
+            if row[key]:
+                group[key] = row[key]
+        if row["dc_bias"]:
+            group["dc_bias"] = points_from_text(row["dc_bias"])
+        if row["derating[0]"] or row["derating[1]"]:
+            group["derating"] = [row["derating[0]"], row["derating[1]"]]
+        groups.append(group)
+    return groups
+
+
+def bank_values(groups: Any) -> dict[str, str]:
+    """The form's values for a stored bank (``load.bank``), reading back to the same numbers."""
+    rows = []
+    for g in groups or ():
+        derating = g.get("derating") or (None, None)
+        rows.append({"refs": g.get("refs") or "", "count": str(g.get("count", "")),
+                     "c_nom": form_value(g.get("c_nom"), "F"), "c_tol": form_value(g.get("c_tol"), "fraction"),
+                     "dielectric": str(g.get("dielectric") or ""), "v_rated": form_value(g.get("v_rated"), "V"),
+                     "esr": form_value(g.get("esr"), "ohm"),
+                     "dc_bias": points_to_text(g.get("dc_bias"), ("V", "ratio")),
+                     "tempco": form_value(g.get("tempco"), "1/K"),
+                     "derating[0]": form_value(derating[0], "ratio"), "derating[1]": form_value(derating[1], "ratio")})
+    return _bank_form(rows)
+
+
 def rail_fields() -> list[FormField]:
     return [f for _, _, fields in RAIL_SECTIONS for f in fields]
 
@@ -212,6 +308,9 @@ def document_from_form(form: dict[str, str], fet: dict[str, Any] | None = None) 
             continue
         if raw:
             _put(doc, f.name, points_from_text(raw) if f.points else raw)
+    rows = bank_rows(form)
+    if rows:  # the bank's groups give the load capacitance: its single fields go only where typed
+        doc["load"]["bank"] = _bank_document(rows)
     if fet is not None:  # the rail's own FET, with the count this form gives (blank: one)
         doc["fet"] = {k: v for k, v in fet.items() if k != "count"} | doc.get("fet", {})
     return doc
@@ -242,9 +341,12 @@ def form_value(value: Any, kind: str | None) -> str:
 
 
 def form_from_document(document: dict[str, Any]) -> dict[str, str]:
-    """The form's values for a stored rail document."""
-    return {f.name: points_to_text(_get(document, f.name)) if f.points else form_value(_get(document, f.name), f.kind)
-            for f in rail_fields()}
+    """The form's values for a stored rail document (a capacitor bank as its rows of fields)."""
+    values = {f.name: points_to_text(_get(document, f.name)) if f.points else form_value(_get(document, f.name), f.kind)
+              for f in rail_fields()}
+    if _get(document, "load.bank"):  # the bank gives tolerance and ESR: the single fields stay blank (0)
+        values.update({name: "" for name in ("load.c_tol", "load.esr") if not _get(document, name)})
+    return values | bank_values(_get(document, "load.bank"))
 
 
 def _named(path: str, message: str) -> str:
@@ -281,7 +383,9 @@ def place_errors(details: list[dict[str, Any]], field_names: list[str],
 def compare_rows(mine: dict[str, str], theirs: dict[str, str]) -> list[dict[str, Any]]:
     """Side-by-side rows of two versions of the form (typed values against the saved revision)."""
     rows = []
-    for f in rail_fields():
+    groups = max(len(bank_rows(mine)), len(bank_rows(theirs)))
+    mine, theirs = compact_bank(mine), compact_bank(theirs)
+    for f in rail_fields() + [f for k in range(groups) for f in bank_fields(k)]:
         a, b = mine.get(f.name, "").strip(), theirs.get(f.name, "").strip()
         same = a == b
         if not same and f.kind is not None and a and b:

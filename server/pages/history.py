@@ -26,10 +26,10 @@ from server.analysis.report import limit_text, margin_text, value_text
 from server.analysis.words import field_title, field_words
 from server.auth import CurrentActor
 from server.db import SessionDep
-from server.pages.display import BASIS_TEXT, check_row, fmt, input_sections
+from server.pages.display import BASIS_TEXT, check_row, fmt, input_sections, read_result
 from server.pages.plots import soa_figure, soa_overlay_figure, startup_figure, startup_overlay_figure
 from server.pages.rendering import page_context, render
-from server.schemas.result import AnalysisResult, CheckRecord
+from server.schemas.result import CheckRecord
 from server.services import overview, results
 from server.services.access import Actor
 from server.services.rails import diff_revisions, get_rail, get_revision, list_revisions, part_status
@@ -79,7 +79,7 @@ def _reading_dict(now: Reading | None) -> dict[str, Any] | None:
         return None
     typed = None
     if not now.outdated:
-        typed = AnalysisResult.model_validate(now.row.result)
+        typed = read_result(now.row.result)[0]
     checks = [stored_check_row(c) for c in now.row.result.get("checks", [])]
     return {"id": now.row.id, "engine_version": now.engine_version, "current_engine": now.current_engine,
             "outdated": now.outdated, "verdict": now.row.verdict, "created_at": now.row.created_at,

@@ -26,7 +26,7 @@ from server.schemas.result import AnalysisResult, MonteCarlo, Waveforms
 
 __all__ = ["PALETTE", "VERDICT_COLOURS", "startup_figure", "soa_figure", "timer_figure", "monte_carlo_figure",
            "startup_overlay_figure", "soa_overlay_figure", "timer_limits", "budget_figure", "part_soa_figure",
-           "zth_figure", "zth_fit_figure", "pulse_label", "risk_trend_figure", "sequence_figure"]
+           "zth_figure", "zth_fit_figure", "pulse_label", "risk_trend_figure", "sequence_figure", "bank_figure"]
 
 INK, GRID, AXIS = "#22303c", "#e4e8ed", "#9aa5b1"
 PALETTE = ["#3a6ea5", "#2a9d8f", "#c98a1b", "#8e5a9b", "#5c6b7a", "#b5523b", "#6f8f3a", "#a0527a"]
@@ -459,6 +459,38 @@ def monte_carlo_figure(mc: MonteCarlo) -> dict[str, Any] | None:
                 shapes.append({"type": "line", "xref": f"x{n}", "x0": x, "x1": x, "yref": f"y{n} domain", "y0": 0,
                                "y1": 1, "line": {"color": colour, "width": 2, "dash": dash}})
     layout["shapes"], layout["annotations"] = shapes, annotations
+    return {"data": data, "layout": layout}
+
+
+# --- capacitor bank ---------------------------------------------------------------------------
+
+def bank_figure(bank: dict[str, Any] | None) -> dict[str, Any] | None:
+    """The capacitor bank's C(v) as the result holds it (``result["bank"]``): nominal, and the low and high
+    corners (every group's tolerance and derating range together), against the DC voltage, with the
+    nominal supply marked."""
+    if not bank or not bank.get("v"):
+        return None
+    v = _r(bank["v"])
+    hover = "%{x:.3s}V: %{y:.3s}F<extra>"
+    data = [
+        {"type": "scatter", "mode": "lines", "name": "Low corner", "x": v, "y": _r(bank["c_low"]),
+         "line": {"color": PALETTE[4], "width": 1.5, "dash": "dot"}, "hovertemplate": hover + "low corner</extra>"},
+        {"type": "scatter", "mode": "lines", "name": "High corner", "x": v, "y": _r(bank["c_high"]),
+         "line": {"color": PALETTE[4], "width": 1.5, "dash": "dash"}, "fill": "tonexty",
+         "fillcolor": "rgba(92,107,122,0.10)", "hovertemplate": hover + "high corner</extra>"},
+        {"type": "scatter", "mode": "lines", "name": "Nominal", "x": v, "y": _r(bank["c_nominal"]),
+         "line": {"color": PALETTE[0], "width": 2.5}, "hovertemplate": hover + "nominal</extra>"},
+    ]
+    shapes, annotations = [], []
+    v_nom = bank.get("v_nom")
+    if v_nom:
+        shapes.append(_vline(v_nom, VERDICT_COLOURS["n/a"]))
+        annotations.append({"xref": "x", "x": v_nom, "yref": "paper", "y": 1, "xanchor": "left", "yanchor": "top",
+                            "showarrow": False, "text": f" nominal supply {format_quantity(v_nom, 'V')}"})
+    layout = _layout("Capacitor bank: capacitance against DC voltage", height=400,
+                     xaxis=_axis("DC voltage across the bank", "V", rangemode="tozero"),
+                     yaxis=_axis("Capacitance", "F", rangemode="tozero"), shapes=shapes, annotations=annotations,
+                     hovermode="x unified")
     return {"data": data, "layout": layout}
 
 

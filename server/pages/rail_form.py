@@ -7,18 +7,22 @@ or copied (choice values ``part:ID``, ``part:ID:N`` and ``own:RAIL:N``).
 
 from __future__ import annotations
 
+import re
 from typing import Annotated, Any
 
 from fastapi import APIRouter, Depends, Request
 from fastapi.responses import HTMLResponse, Response
 from sqlalchemy.orm import Session
+from starlette.datastructures import FormData, UploadFile
 
 from server.auth import require
 from server.db import SessionDep
-from server.pages.forms import (OWN_FET, PART_FIELD, RAIL_SECTIONS, compare_rows, document_from_form,
+from server.pages.forms import (MAX_BANK_GROUPS, OWN_FET, PART_FIELD, RAIL_SECTIONS, bank_fields, bank_names,
+                                bank_rows, bank_values, compact_bank, compare_rows, document_from_form,
                                 field_titles, form_from_document, place_errors, rail_fields)
 from server.pages.rendering import FormDep, form_dict, page_context, redirect, render
 from server.services import parts as part_service
+from server.services.bom_import import parse_bom
 from server.services.access import Actor, Permission
 from server.services.catalog import get_board
 from server.services.errors import Conflict, Invalid
@@ -64,20 +68,44 @@ def resolve_fet_choice(session: Session, actor: Actor, value: str) -> tuple[Part
     raise Invalid("choose a MOSFET", details=[{"field": PART_FIELD, "message": "choose a MOSFET from the library"}])
 
 
-def _labels() -> dict[str, str]:
-    return {f.name: f.html_id for f in rail_fields()} | {PART_FIELD: "f-part", "message": "f-message"}
+BANK_ACTION = "bank_action"   # the bank editor's buttons: add a group, remove one, fill from a BOM (nothing saved)
+BOM_TEXT, BOM_FILE = "bom_text", "bom_file"
+MAX_BOM_BYTES = 1_000_000
+_COUNT_PATH = re.compile(r"^(document\.)?load\.bank\[\d+\]\.count$")
 
 
-def _titles() -> dict[str, str]:
-    return field_titles(rail_fields()) | {PART_FIELD: "MOSFET", "message": "What changed and why"}
+def _bank_groups(values: dict[str, str]) -> int:
+    return len(bank_rows(values))
+
+
+def _all_fields(values: dict[str, str]) -> list:
+    return rail_fields() + [f for k in range(_bank_groups(values)) for f in bank_fields(k)]
+
+
+def _labels(values: dict[str, str]) -> dict[str, str]:
+    return ({f.name: f.html_id for f in _all_fields(values)}
+            | {PART_FIELD: "f-part", "message": "f-message", "load.bank": "bank-editor", "bom": "f-bom-text"})
+
+
+def _titles(values: dict[str, str]) -> dict[str, str]:
+    return field_titles(_all_fields(values)) | {PART_FIELD: "MOSFET", "message": "What changed and why",
+                                                 "load.bank": "Capacitor bank", "bom": "BOM import"}
+
+
+def bank_editor(values: dict[str, str], extra_rows: int = 0) -> dict[str, Any]:
+    """The bank editor's rows of fields (the form's groups, plus ``extra_rows`` blank ones)."""
+    n = min(_bank_groups(values) + extra_rows, MAX_BANK_GROUPS)
+    return {"rows": [bank_fields(k) for k in range(n)], "max": MAX_BANK_GROUPS}
 
 
 def form_context(session: Session, actor: Actor, *, board, values: dict[str, str], errors: dict[str, str],
                  other: list[str], rail=None, base_n: int | None = None, conflict: dict | None = None,
-                 copied_from=None, warnings: dict[str, str] | None = None) -> dict[str, Any]:
+                 copied_from=None, warnings: dict[str, str] | None = None, extra_rows: int = 0,
+                 bom: dict[str, Any] | None = None) -> dict[str, Any]:
+    values = compact_bank(values)
     return {"board": board, "product": board.product, "rail": rail, "values": values, "errors": errors,
-            "warnings": warnings or {},
-            "other_errors": other, "sections": RAIL_SECTIONS, "labels": _labels(), "titles": _titles(),
+            "warnings": warnings or {}, "bank": bank_editor(values, extra_rows), "bom": bom or {},
+            "other_errors": other, "sections": RAIL_SECTIONS, "labels": _labels(values), "titles": _titles(values),
             "fet_options": fet_options(session, actor, values.get(PART_FIELD)), "base_n": base_n,
             "conflict": conflict, "copied_from": copied_from,
             "action": f"/rails/{rail.id}/edit" if rail else f"/boards/{board.id}/rails/new"}
@@ -109,14 +137,58 @@ def edit_rail_context(session: Session, actor: Actor, rail_id: int) -> dict[str,
                         base_n=head.n, warnings=warnings)
 
 
-def _invalid(exc: Invalid) -> tuple[dict[str, str], list[str]]:
-    names = [f.name for f in rail_fields()] + [PART_FIELD]
-    return place_errors(exc.details or [{"field": "", "message": exc.message}], names, aliases={"fet": PART_FIELD})
+def _invalid(exc: Invalid, values: dict[str, str]) -> tuple[dict[str, str], list[str]]:
+    names = [f.name for f in rail_fields()] + [PART_FIELD] + bank_names(values)
+    details = [_worded(d) for d in (exc.details or [{"field": "", "message": exc.message}])]
+    # a derating range's error ([low, high] together) beside its low end
+    aliases = {"fet": PART_FIELD} | {f"load.bank[{k}].derating": f"load.bank[{k}].derating[0]"
+                                     for k in range(_bank_groups(values))}
+    return place_errors(details, names, aliases=aliases)
+
+
+def _worded(detail: dict[str, Any]) -> dict[str, Any]:
+    """A capacitor count the schema could not read as an integer, in words."""
+    if _COUNT_PATH.match(str(detail.get("field") or "")) and "valid integer" in str(detail.get("message", "")):
+        return {**detail, "message": "must be a whole number of capacitors, e.g. 24"}
+    return detail
+
+
+def bank_action(values: dict[str, str], action: str, bom_upload: str | None = None) -> tuple[dict[str, str], int,
+                                                                                             dict[str, Any]]:
+    """What a bank editor button does to the form's values (nothing is saved): (values, blank rows to add,
+    the BOM import's outcome for the page). ``add``: one blank group; ``remove:K``: drop group K;
+    ``import``: the groups of the BOM pasted (or ``bom_upload``, an uploaded file's text) replace the
+    bank's rows, and the single load capacitance fields are cleared."""
+    values = compact_bank(values)
+    if action == "add":
+        return values, 1, {}
+    if action.startswith("remove:"):
+        try:
+            k = int(action.split(":", 1)[1])
+        except ValueError:
+            return values, 0, {}
+        rows = [r for j, r in enumerate(bank_rows(values)) if j != k]
+        rest = {key: v for key, v in values.items() if not key.startswith("load.bank[")}
+        return rest | {f"load.bank[{j}].{key}": v for j, r in enumerate(rows) for key, v in r.items()}, 0, {}
+    if action == "import":
+        text = bom_upload if bom_upload is not None else values.get(BOM_TEXT, "")
+        found = parse_bom(text)
+        outcome: dict[str, Any] = {"warnings": found.warnings, "errors": [str(e) for e in found.errors],
+                                   "filled": 0}
+        if found.errors or not found.groups:
+            return values, 0, outcome
+        rest = {key: v for key, v in values.items() if not key.startswith("load.bank[")}
+        rest.update({"load.c_nom": "", "load.c_tol": "", "load.esr": "", BOM_TEXT: text})
+        outcome["filled"] = len(found.groups)
+        outcome["count"] = sum(g["count"] for g in found.groups)
+        return rest | bank_values(found.groups), 0, outcome
+    return values, 0, {}
 
 
 def submit_new(session: Session, actor: Actor, board_id: int, form: dict[str, str]) -> tuple[int | None, dict]:
     """Create the rail a submitted form describes: (rail id, None), or (None, the form again with errors)."""
     board = get_board(session=session, actor=actor, board_id=board_id)
+    form = compact_bank(form)
     try:
         part, fet = resolve_fet_choice(session, actor, form.get(PART_FIELD, ""))
         rail, _ = create_rail(session=session, actor=actor, board_id=board.id,
@@ -124,7 +196,7 @@ def submit_new(session: Session, actor: Actor, board_id: int, form: dict[str, st
         return rail.id, {}
     except Invalid as exc:
         session.rollback()
-        errors, other = _invalid(exc)
+        errors, other = _invalid(exc, compact_bank(form))
     except Conflict as exc:
         session.rollback()
         errors, other = {"name": exc.message}, []
@@ -140,6 +212,7 @@ def submit_edit(session: Session, actor: Actor, rail_id: int, form: dict[str, st
     """
     rail = get_rail(session=session, actor=actor, rail_id=rail_id)
     board = rail.board
+    form = compact_bank(form)
     try:
         base_n = int(form.get("base_revision", ""))
     except ValueError:
@@ -151,7 +224,7 @@ def submit_edit(session: Session, actor: Actor, rail_id: int, form: dict[str, st
         return True, {}
     except Invalid as exc:
         session.rollback()
-        errors, other = _invalid(exc)
+        errors, other = _invalid(exc, compact_bank(form))
         return False, form_context(session, actor, board=board, values=form, errors=errors, other=other,
                                    rail=rail, base_n=base_n)
     except Conflict as exc:
@@ -170,6 +243,42 @@ def submit_edit(session: Session, actor: Actor, rail_id: int, form: dict[str, st
                                    base_n=head.n, conflict=conflict)
 
 
+def bank_context(session: Session, actor: Actor, form: dict[str, str], action: str, *, board_id: int | None = None,
+                 rail_id: int | None = None, upload: tuple[str | None, str | None] = (None, None)) -> dict[str, Any]:
+    """The form again after a bank editor button (a group added or removed, a BOM read): nothing saved."""
+    text, problem = upload
+    values, extra, outcome = bank_action(form, action, text)
+    if problem:
+        outcome = {"warnings": [], "errors": [problem], "filled": 0}
+    if rail_id is not None:
+        rail = get_rail(session=session, actor=actor, rail_id=rail_id)
+        try:
+            base_n: int | None = int(form.get("base_revision", ""))
+        except ValueError:
+            base_n = None
+        return form_context(session, actor, board=rail.board, values=values, errors={}, other=[], rail=rail,
+                            base_n=base_n, extra_rows=extra, bom=outcome)
+    board = get_board(session=session, actor=actor, board_id=board_id)
+    return form_context(session, actor, board=board, values=values, errors={}, other=[], extra_rows=extra, bom=outcome)
+
+
+def uploaded_bom(form: FormData) -> tuple[str | None, str | None]:
+    """(text, problem) of a BOM file sent with the form; (None, None) without one."""
+    upload = form.get(BOM_FILE)
+    if not isinstance(upload, UploadFile) or not upload.filename:
+        return None, None
+    data = upload.file.read(MAX_BOM_BYTES + 1)
+    if len(data) > MAX_BOM_BYTES:
+        return None, f"the BOM file is larger than {MAX_BOM_BYTES // 1000} kB"
+    try:
+        return data.decode("utf-8-sig"), None
+    except UnicodeDecodeError:
+        try:
+            return data.decode("cp1252"), None
+        except UnicodeDecodeError:
+            return None, "the BOM file is not text (save it as CSV, UTF-8)"
+
+
 @router.get("/boards/{board_id}/rails/new", response_class=HTMLResponse)
 def new_rail_form(board_id: int, request: Request, session: SessionDep, actor: Editor,
                   copy_from: int | None = None) -> HTMLResponse:
@@ -180,7 +289,11 @@ def new_rail_form(board_id: int, request: Request, session: SessionDep, actor: E
 @router.post("/boards/{board_id}/rails/new", response_class=HTMLResponse)
 def create_rail_from_form(board_id: int, request: Request, session: SessionDep, actor: Editor,
                           form: FormDep) -> Response:
-    rail_id, ctx = submit_new(session, actor, board_id, form_dict(form))
+    values = form_dict(form)
+    if values.get(BANK_ACTION):
+        ctx = bank_context(session, actor, values, values[BANK_ACTION], board_id=board_id, upload=uploaded_bom(form))
+        return render(request, "rail_form.html", page_context(request, actor, **ctx))
+    rail_id, ctx = submit_new(session, actor, board_id, values)
     if rail_id is not None:
         return redirect(f"/rails/{rail_id}")
     return render(request, "rail_form.html", page_context(request, actor, **ctx), status_code=422)
@@ -194,7 +307,11 @@ def edit_rail_form(rail_id: int, request: Request, session: SessionDep, actor: E
 @router.post("/rails/{rail_id}/edit", response_class=HTMLResponse)
 def save_rail_from_form(rail_id: int, request: Request, session: SessionDep, actor: Editor,
                         form: FormDep) -> Response:
-    saved, ctx = submit_edit(session, actor, rail_id, form_dict(form))
+    values = form_dict(form)
+    if values.get(BANK_ACTION):
+        ctx = bank_context(session, actor, values, values[BANK_ACTION], rail_id=rail_id, upload=uploaded_bom(form))
+        return render(request, "rail_form.html", page_context(request, actor, **ctx))
+    saved, ctx = submit_edit(session, actor, rail_id, values)
     if saved:
         return redirect(f"/rails/{rail_id}")
     return render(request, "rail_form.html", page_context(request, actor, **ctx),

@@ -20,8 +20,9 @@ from server.auth import CurrentActor, require
 from server.db import SessionDep
 from server.pages import signoff_view
 from server.analysis.report import margin_text, value_text
-from server.pages.display import check_rows, input_sections, worst_check
-from server.pages.plots import monte_carlo_figure, soa_figure, startup_figure, timer_figure, timer_limits
+from server.pages.display import bank_view, check_rows, input_sections, read_result, worst_check
+from server.pages.plots import (bank_figure, monte_carlo_figure, soa_figure, startup_figure, timer_figure,
+                                timer_limits)
 from server.pages.page_cache import LruCache, cached_page
 from server.pages.rendering import FormDep, form_dict, redirect
 from server.schemas.result import AnalysisResult, MonteCarlo
@@ -78,11 +79,12 @@ def _result_parts(row: models.AnalysisResult, sha256: str, doc: dict[str, Any]) 
     """The rail page's pieces of a stored result at the current engine: drawn once per (result, revision)."""
 
     def make() -> dict[str, Any]:
-        result = AnalysisResult.model_validate(row.result)
+        result, bank = read_result(row.result)
         return {"result": result, "checks": check_rows(result.checks), "worst": worst_check(result.checks),
                 "key_figures": _key_figures(result), "headroom": _headroom(result),
                 "figures": {"startup": startup_figure(result, doc), "soa": soa_figure(result, doc),
-                            "timer": timer_figure(result, doc)},
+                            "timer": timer_figure(result, doc), "bank": bank_figure(bank)},
+                "bank": bank_view(bank),
                 "timer": result.timer, "timer_limits": timer_limits(result)}
 
     return RENDERED.get_or_make(("rail", *_identity(row), sha256), make)
@@ -99,7 +101,7 @@ def _mc_parts(mc_row) -> dict[str, Any] | None:
     if mc_row.engine_version != results.engine_version():  # a run of an older engine, in the shape of its time
         return {"outdated": True, "n": mc_row.options.get("monte_carlo"), "engine_version": mc_row.engine_version,
                 "created_at": mc_row.created_at}
-    mc: MonteCarlo | None = AnalysisResult.model_validate(mc_row.result).monte_carlo
+    mc: MonteCarlo | None = read_result(mc_row.result)[0].monte_carlo
     if mc is None:
         return None
     lo, hi = mc.yield_ci95[:2]
@@ -134,7 +136,7 @@ def rail_context(session: Session, actor: Actor, rail_id: int) -> dict[str, Any]
                                    sha256=head.sha256),
         "mc_job": overview.active_job(session=session, board_id=rail.board_id, rail_id=rail.id,
                                       kind="monte_carlo", sha256=head.sha256),
-        "mc_samples": MC_SAMPLES, "figures": {}, "checks": [], "worst": None,
+        "mc_samples": MC_SAMPLES, "figures": {}, "checks": [], "worst": None, "bank": None,
         "mc_parameters": MC_PARAMETERS | (MC_SPREAD_PARAMETERS if (doc.get("fet") or {}).get("rds_on_max") is not None
                                           else {}),
     }

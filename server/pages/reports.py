@@ -24,7 +24,7 @@ from server.auth import CurrentActor
 from server.db import SessionDep
 from server.pages.plots import sequence_figure, soa_figure, startup_figure
 from server.pages.rendering import page_context, render
-from server.schemas.result import AnalysisResult
+from server.pages.display import read_result
 from server.services import catalog, reports, results, sequences
 from server.services.access import Actor
 from server.services.errors import NotFound
@@ -64,7 +64,7 @@ def _figures(session: Session, entry: dict[str, Any]) -> dict[str, Markup | None
     res = entry["result"]
     if res is None or res["outdated"]:
         return {}
-    result = AnalysisResult.model_validate(results.stored_result(session, res["id"]))
+    result = read_result(results.stored_result(session, res["id"]))[0]
     return {name: htmlsafe_json_dumps(_paper(fig), dumps=_dumps) if fig else None
             for name, fig in (("startup", startup_figure(result, entry["document"])),
                               ("soa", soa_figure(result, entry["document"])))}

@@ -33,7 +33,7 @@ from sqlalchemy.orm import Session
 
 from server import report_pdf
 from server.analysis import CAUTION, derated_soa_curves
-from server.analysis.report import limit_text, margin_text, value_text
+from server.analysis.report import bank_view, limit_text, margin_text, value_text
 from server.analysis.words import rule_title
 from server.models import (AnalysisResult, Approval, ArchivedReport, Board, JsonType, Product, Rail, RailRevision,
                            RailState, Team, Waiver, Workflow, utcnow)
@@ -191,10 +191,10 @@ _lock = threading.Lock()
 
 def _parts(doc: dict[str, Any], result: dict[str, Any] | None) -> dict[str, Any]:
     if result is None:
-        return {"inputs": input_sections(doc), "basis": "", "checks": [], "figures": [], "rules": []}
+        return {"inputs": input_sections(doc), "basis": "", "checks": [], "figures": [], "rules": [], "bank": None}
     return {"inputs": input_sections(doc), "basis": _basis_words(result),
             "checks": [_check_row(c) for c in result.get("checks") or []], "figures": _figure_rows(result),
-            "rules": _rule_rows(result, doc)}
+            "rules": _rule_rows(result, doc), "bank": bank_view(result.get("bank"))}
 
 
 def _rail_entry(rail: Rail, head: RailRevision, state: RailState | None, wf: WorkflowDef,
@@ -208,7 +208,8 @@ def _rail_entry(rail: Rail, head: RailRevision, state: RailState | None, wf: Wor
         "state": {"name": state_name, "signed_off": wf.is_signed_off(state_name),
                   "since": when(state.since if state is not None else None),
                   "by": state.changed_by if state is not None else ""},
-        "inputs": parts["inputs"], "result": None, "checks": [], "figures": [], "rules": [], "plots": plots,
+        "inputs": parts["inputs"], "result": None, "checks": [], "figures": [], "rules": [], "bank": None,
+        "plots": plots,
         "approvals": [_approval_row(a) for a in approvals if a.revision_n == head.n],
         "waivers": [_waiver_row(w) for w in waivers if w.revision_n == head.n],
         "document": head.document,
@@ -216,7 +217,7 @@ def _rail_entry(rail: Rail, head: RailRevision, state: RailState | None, wf: Wor
     if now is not None:
         entry["result"] = {"id": now.id, "engine_version": now.engine_version, "outdated": now.outdated,
                            "verdict": now.verdict, "computed_at": when(now.created_at), "basis": parts["basis"]}
-        entry.update(checks=parts["checks"], figures=parts["figures"], rules=parts["rules"])
+        entry.update(checks=parts["checks"], figures=parts["figures"], rules=parts["rules"], bank=parts.get("bank"))
     return entry
 
 
