@@ -71,12 +71,8 @@ fmt = format_quantity  # engineering notation of an SI value for display; '-' wh
 
 def read_result(raw: dict[str, Any]) -> tuple[AnalysisResult, dict[str, Any] | None]:
     """A stored result of the current engine as the typed record, and its capacitor bank section as stored
-    (``result["bank"]``: the bank's C(v), its groups and notes; None without a bank). While the typed
-    record has no place for the bank, the section is read beside it, never recomputed."""
-    bank = raw.get("bank")
-    if bank is not None and "bank" not in AnalysisResult.model_fields:
-        raw = {k: v for k, v in raw.items() if k != "bank"}
-    return AnalysisResult.model_validate(raw), bank
+    (``result["bank"]``: the bank's C(v), its groups and notes; None without a bank), never recomputed."""
+    return AnalysisResult.model_validate(raw), raw.get("bank")
 
 
 def check_records(checks: list[dict[str, Any]] | None) -> list[CheckRecord]:

@@ -367,6 +367,40 @@ class MonteCarlo(_Model):
     model_config = ConfigDict(extra="forbid", populate_by_name=True, serialize_by_alias=True)
 
 
+class BankGroupFigures(_Model):
+    """One group of a capacitor bank as the result reads it (F, V, ohm; the fraction of nominal at the
+    nominal supply on its DC-bias curve)."""
+
+    refs: str | None
+    dielectric: str = Field(description="the dielectric in words")
+    count: int
+    c_each: float
+    c_total: float = Field(description="the group's nominal total at 0 V (tolerance aside), F")
+    c_at_v_nom: float
+    fraction_at_v_nom: float
+    c_effective: float = Field(description="charge-equivalent capacitance Q(v_nom) / v_nom, F")
+    v_rated: float
+    esr: float = Field(description="the group's ESR: its capacitors in parallel, ohm")
+    c_tol: float
+    derating: list[float] | None
+    has_curve: bool
+
+
+class BankSection(_Model):
+    """A capacitor bank's C(v) at nominal and at the low and high corners, over 0 V to the supply maximum."""
+
+    v: list[float]
+    c_nominal: list[float]
+    c_low: list[float]
+    c_high: list[float]
+    groups: list[BankGroupFigures]
+    c_at_v_nom: float
+    c_effective: float
+    c_total: float
+    v_nom: float
+    notes: list[str]
+
+
 class AnalysisResult(_Model):
     """The whole result of one analysis of one rail revision."""
 
@@ -388,6 +422,7 @@ class AnalysisResult(_Model):
     corners: list[CornerEntry] | None = None
     monte_carlo: MonteCarlo | None = None
     fet: FetSection | None = None
+    bank: BankSection | None = None
     rules: dict[str, float]
     conventions: list[str]
     notes: list[str]

@@ -176,6 +176,14 @@ def _si_numbers(value: Any, path: str) -> Any:
             return [_si_number(value[0], "V"), _si_number(value[1], "A")]
         if generic == "fet.zth_points[]" and len(value) == 2:
             return [_si_number(value[0], "s"), _si_number(value[1], "K/W")]
+        if generic == "switch.foldback[]" and len(value) == 2:
+            return [_si_number(value[0], "V"), _si_number(value[1], "A")]
+        if generic == "fet.rds_on_curve[]" and len(value) == 2:
+            return [_si_number(value[0], "degC"), _si_number(value[1], "ratio")]
+        if generic == "load.bank[].dc_bias[]" and len(value) == 2:
+            return [_si_number(value[0], "V"), _si_number(value[1], "fraction")]
+        if generic == "load.bank[].derating" and len(value) == 2:
+            return [_si_number(value[0], "fraction"), _si_number(value[1], "fraction")]
         return [_si_numbers(v, f"{path}[{k}]") for k, v in enumerate(value)]
     words = FIELD_TITLES.get(generic)
     return _si_number(value, words.kind) if words is not None and words.kind else value
