@@ -381,8 +381,8 @@ def on_rail_revision(session: Session, actor: Actor, rail: Rail) -> None:
 def on_rail_change(session: Session, actor: Actor, *, board_id: int, reason: str) -> Job | None:
     """A change of one of the board's rails (a new revision, retired, restored, deleted): when it changes the
     inputs of the board's sequence (the sequence names the rail), the sequence's approvals and waivers of other
-    inputs go stale (``reason``) and its analysis is queued (returned; None when nothing changed or its result is stored). No
-    other rail's approvals change. A step of the caller's transaction: the caller commits."""
+    inputs go stale (``reason``) and its analysis is queued (returned; None when nothing changed or its result is
+    stored). No other rail's approvals change. A step of the caller's transaction: the caller commits."""
     seq = session.scalar(select(BoardSequence).where(BoardSequence.board_id == board_id))
     if seq is None or seq.head_n == 0:
         return None
