@@ -471,3 +471,32 @@ class BoardSequenceApproval(Base):
     created_at: Mapped[datetime] = mapped_column(default=utcnow)
     stale_at: Mapped[datetime | None]
     stale_reason: Mapped[str] = mapped_column(Text, default="", server_default=text("''"))
+
+
+class BoardSequenceWaiver(Base):
+    """A reviewer's reasoned acceptance of one failing or marginal check of a board sequence's result, made on
+    one set of inputs (``inputs_sha256``: the sequence revision with its rails as they were); stale (kept) once
+    the sequence or one of the rails it names has a newer revision (``stale_reason`` says which).
+
+    ``check_id`` names the check as ``<check>:<subject>`` (e.g. ``supply_uvlo:harness12``): every row of the
+    result with that check and subject (both corners, every threshold on the supply). It covers them while they
+    read no worse than ``verdict``, the worst verdict waived.
+    """
+
+    __tablename__ = "board_sequence_waivers"
+    __table_args__ = (UniqueConstraint("sequence_id", "inputs_sha256", "check_id", "result_id",
+                                       name="uq_board_sequence_waivers_check_result"),)
+    id: Mapped[int] = mapped_column(primary_key=True)
+    sequence_id: Mapped[int] = mapped_column(ForeignKey("board_sequences.id", ondelete="CASCADE"), index=True)
+    revision_n: Mapped[int]
+    inputs_sha256: Mapped[str] = mapped_column(String(64))
+    result_id: Mapped[int | None] = mapped_column(ForeignKey("board_sequence_results.id", ondelete="SET NULL"))
+    check_id: Mapped[str] = mapped_column(String(100))
+    check_title: Mapped[str] = mapped_column(String(200), default="")
+    verdict: Mapped[str] = mapped_column(String(10))
+    reason: Mapped[str] = mapped_column(Text)
+    reviewer_id: Mapped[int] = mapped_column(ForeignKey("users.id"))
+    reviewer_name: Mapped[str] = mapped_column(String(200))
+    created_at: Mapped[datetime] = mapped_column(default=utcnow)
+    stale_at: Mapped[datetime | None]
+    stale_reason: Mapped[str] = mapped_column(Text, default="", server_default=text("''"))

@@ -211,6 +211,24 @@ def test_every_operation_answers_its_declared_model_through_a_products_life(clie
     assert done["result"]["verdict"] in ("pass", "marginal", "fail")
     call("POST", "/api/v1/boards/{board_id}/sequence/approvals", 201, role="reviewer", board_id=board["id"],
          json_body={"sha256": sequence["sha256"], "comment": "dip and order checked"})
+    # a supply that cannot deliver the inrush: its failing check is waived before the sequence is approved
+    weak = {**seq_doc, "supplies": [{**seq_doc["supplies"][0], "i_max": 0.05}]}
+    second = call("PUT", "/api/v1/boards/{board_id}/sequence", 200, role="designer", board_id=board["id"],
+                  json_body={"document": weak, "message": "a weaker supply"})
+    run_queued_jobs(app)
+    failing_seq = call("GET", "/api/v1/boards/{board_id}/sequence", 200, role="viewer", board_id=board["id"])
+    assert failing_seq["result"]["verdict"] == "fail" and failing_seq["approval_blocked"]
+    blocked = call("POST", "/api/v1/boards/{board_id}/sequence/approvals", 409, role="reviewer",
+                   board_id=board["id"], json_body={"sha256": second["sha256"], "comment": "too early"})
+    assert "without a waiver" in blocked["error"]["message"]
+    for problem in failing_seq["problem_checks"]:
+        call("POST", "/api/v1/boards/{board_id}/sequence/waivers", 201, role="reviewer", board_id=board["id"],
+             json_body={"sha256": second["sha256"], "inputs_sha256": failing_seq["inputs_sha256"],
+                        "check_id": problem["check_id"], "reason": "the bench supply is a stand-in"})
+    listed = call("GET", "/api/v1/boards/{board_id}/sequence/waivers", 200, role="viewer", board_id=board["id"])
+    assert listed["total"] == len(failing_seq["problem_checks"]) and all(w["current"] for w in listed["items"])
+    call("POST", "/api/v1/boards/{board_id}/sequence/approvals", 201, role="reviewer2", board_id=board["id"],
+         json_body={"sha256": second["sha256"], "comment": "waived supply current checked"})
 
     # analyses, jobs, results
     _analyse(session_factory, rail_id)

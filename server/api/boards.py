@@ -7,17 +7,20 @@ from typing import Annotated
 from fastapi import APIRouter, Depends, Response
 
 from server.api.common import IdPath, IdQuery, PageDep, SearchText, TypedRoute, errors
-from server.auth import CurrentActor, require
+from server.auth import CurrentActor, require, require_any
 from server.db import SessionDep
 from server.schemas.api import BoardIn, BoardPatch, SequenceSave
-from server.schemas.responses import Board, BoardSequence, Page, SequenceApproval
-from server.schemas.signoff import ApprovalIn
+from server.schemas.responses import Board, BoardSequence, Listing, Page, SequenceApproval, SequenceWaiver
+from server.schemas.signoff import ApprovalIn, SequenceWaiverIn
 from server.services import catalog, sequences
 from server.services.access import Actor, Permission
+from server.workflow import FAIL_WAIVER_ROLES
 
 router = APIRouter(prefix="/boards", tags=["boards"], route_class=TypedRoute)
 Editor = Annotated[Actor, Depends(require(Permission.EDIT))]
 Reviewer = Annotated[Actor, Depends(require(Permission.REVIEW))]
+# reviewers, and the roles a team may name for failing checks: the sequence service applies the team's rules
+Waiving = Annotated[Actor, Depends(require_any(Permission.REVIEW, *FAIL_WAIVER_ROLES))]
 
 
 @router.get("", response_model=Page[Board], responses=errors(401, 422))
@@ -75,7 +78,28 @@ def put_sequence(board_id: IdPath, body: SequenceSave, session: SessionDep, acto
              responses=errors(400, 401, 403, 404, 409, 422))
 def approve_sequence(board_id: IdPath, body: ApprovalIn, session: SessionDep, actor: Reviewer) -> dict:
     """Approve the board's sequence as its current result reads it (its head revision, named by sha256; never a
-    revision you saved)."""
+    revision you saved). Refused (409) while a failing or marginal check has no waiver of the current inputs that
+    covers it (the message names each by its title); under the team's two-person rule, refused (403) to the
+    reviewer whose waiver it would rely on."""
     approval = sequences.approve(session=session, actor=actor, board_id=board_id, sha256=body.sha256,
                                  comment=body.comment)
     return sequences.approval_dict(approval)
+
+
+@router.get("/{board_id}/sequence/waivers", response_model=Listing[SequenceWaiver], responses=errors(401, 404, 422))
+def list_sequence_waivers(board_id: IdPath, session: SessionDep, actor: CurrentActor) -> dict:
+    """Every waiver of the board's sequence, oldest first; ``current``: not stale and of the inputs as they are."""
+    rows, key = sequences.list_waivers(session=session, actor=actor, board_id=board_id)
+    return {"items": [sequences.waiver_dict(w, key) for w in rows], "total": len(rows)}
+
+
+@router.post("/{board_id}/sequence/waivers", status_code=201, response_model=SequenceWaiver,
+             responses=errors(400, 401, 403, 404, 409, 422))
+def waive_sequence_check(board_id: IdPath, body: SequenceWaiverIn, session: SessionDep, actor: Waiving) -> dict:
+    """Waive a failing or marginal check of the current result of the board's sequence (``check_id`` as
+    ``problem_checks`` names it), with a reason. The team's waiver rules apply, as to a rail's: never by the
+    sequence's author; a failing check only by the role the rules name (nobody by default); under the two-person
+    rule not by a reviewer who approved these inputs. The waiver goes stale when the inputs change."""
+    waiver = sequences.waive(session=session, actor=actor, board_id=board_id, sha256=body.sha256,
+                             inputs_sha256=body.inputs_sha256, check_id=body.check_id, reason=body.reason)
+    return sequences.waiver_dict(waiver)

@@ -10,7 +10,7 @@ from fastapi.responses import HTMLResponse, RedirectResponse, Response
 from sqlalchemy.orm import Session
 
 from server.services import jobs
-from server.auth import CurrentActor, require
+from server.auth import CurrentActor, require, require_any
 from server.db import SessionDep
 from server.pages import signoff_view
 from server.pages.display import VERDICT_ORDER, check_records, fmt, verdict_style, worst_check
@@ -19,12 +19,15 @@ from server.pages.plots import budget_figure, sequence_figure
 from server.pages.rendering import page_context, redirect, render
 from server.services import budget, live, overview, reviews, sequences
 from server.services.access import Actor, Permission
-from server.services.errors import Conflict, Forbidden, Invalid, NotFound
+from server.services.errors import Conflict, Invalid, NotFound, ServiceError
+from server.workflow import FAIL_WAIVER_ROLES, WaiverRules, waiver_refusal
 
 router = APIRouter(include_in_schema=False)
 Analyst = Annotated[Actor, Depends(require(Permission.ANALYZE))]
 Editor = Annotated[Actor, Depends(require(Permission.EDIT))]
 Reviewer = Annotated[Actor, Depends(require(Permission.REVIEW))]
+# reviewers, or the role a team names for failing checks: the sequence service applies the team's rules
+Waiving = Annotated[Actor, Depends(require_any(Permission.REVIEW, *FAIL_WAIVER_ROLES))]
 MODES = ("hard", "slew", "current_limit", "power_limit")
 
 
@@ -61,12 +64,22 @@ def _budget_title(entry: dict[str, Any]) -> tuple[str, str]:
     return name, words
 
 
+def _waiving(actor: Actor, rules: dict[str, Any], checks: list[dict[str, Any]]) -> list[dict[str, Any]]:
+    """The failing or marginal checks of the current result, each with why the actor may not waive it (None: they
+    may; the team's rules, read by the rail sign-off's function)."""
+    team = WaiverRules(two_person=rules["two_person"], fail_waiver_role=rules["fail_waiver_role"])
+    may = actor.can(Permission.REVIEW) or (actor.role in FAIL_WAIVER_ROLES and actor.role == team.fail_waiver_role)
+    return [{**c, "refusal": waiver_refusal(team, actor.role, c["verdict"]) if may else None, "may": may}
+            for c in checks]
+
+
 def sequence_context(session: Session, actor: Actor, board_id: int, *, text: str | None = None,
-                     error: dict[str, Any] | None = None) -> dict[str, Any]:
+                     error: dict[str, Any] | None = None,
+                     signoff_error: dict[str, Any] | None = None) -> dict[str, Any]:
     """The board's power-up sequence as the page shows it: the stored result's checks and timelines
-    (one per corner), its approvals and its document as JSON for editing. While the result of the
-    rails as they are now is computed, its job, and the last result of older inputs marked outdated.
-    Reads only."""
+    (one per corner), its failing checks with their waivers, its approvals and waivers, and its document as JSON
+    for editing. While the result of the rails as they are now is computed, its job, and the last result of older
+    inputs marked outdated. ``signoff_error``: a refused waiver or approval, shown beside its form. Reads only."""
     try:
         seq = sequences.get_sequence(session=session, actor=actor, board_id=board_id)
     except NotFound:
@@ -86,7 +99,9 @@ def sequence_context(session: Session, actor: Actor, board_id: int, *, text: str
             "analysis": data["analysis"]["state"], "job": job,
             "outdated": outdated and {"verdict": outdated["verdict"], "revision_n": outdated["revision_n"],
                                       "because": outdated["outdated_because"], "computed_at": outdated["computed_at"]},
-            "corners": corners, "approvals": data["approvals"],
+            "corners": corners, "approvals": data["approvals"], "inputs_sha256": data["inputs_sha256"],
+            "waivers": data["waivers"], "problem_checks": _waiving(actor, data["rules"], data["problem_checks"]),
+            "blocked": data["approval_blocked"], "rules": data["rules"], "signoff_error": signoff_error,
             "conventions": shown.get("conventions", []), "caution": shown.get("caution"),
             "problem": shown.get("error"), "duration_s": shown.get("duration_s"),
             "text": text if text is not None else json.dumps(data["document"], indent=2), "error": error}
@@ -162,13 +177,36 @@ def save_sequence(board_id: int, request: Request, session: SessionDep, actor: E
     return render(request, "board.html", page_context(request, actor, **ctx), 422)
 
 
-@router.post("/boards/{board_id}/sequence/approvals")
-def approve_sequence(board_id: int, session: SessionDep, actor: Reviewer, sha256: Annotated[str, Form()] = "",
-                     comment: Annotated[str, Form()] = "") -> RedirectResponse:
-    """Approve the board's sequence as its current result reads it."""
+def _sequence_act(request: Request, session: Session, actor: Actor, board_id: int, action, *, form: str,
+                  typed: dict[str, str]) -> Response:
+    """Run a sign-off action on the sequence; a refusal renders the board page with the reason beside the form
+    that was sent and what was typed kept."""
     try:
-        sequences.approve(session=session, actor=actor, board_id=board_id, sha256=sha256,
-                          comment=comment.strip()[:2000] or "approved")
-    except (Conflict, Forbidden):
+        action()
+    except ServiceError as exc:
         session.rollback()
-    return redirect(f"/boards/{board_id}#sequence")
+        failed = {"form": form, "message": exc.message, "typed": typed}
+        ctx = board_context(session, actor, board_id,
+                            sequence=sequence_context(session, actor, board_id, signoff_error=failed))
+        return render(request, "board.html", page_context(request, actor, **ctx), exc.status)
+    return redirect(f"/boards/{board_id}#sequence-signoff")
+
+
+@router.post("/boards/{board_id}/sequence/approvals")
+def approve_sequence(board_id: int, request: Request, session: SessionDep, actor: Reviewer,
+                     sha256: Annotated[str, Form()] = "", comment: Annotated[str, Form()] = "") -> Response:
+    """Approve the board's sequence as its current result reads it (a refusal says why beside the form)."""
+    return _sequence_act(request, session, actor, board_id, lambda: sequences.approve(
+        session=session, actor=actor, board_id=board_id, sha256=sha256, comment=comment.strip()[:2000] or "approved"),
+        form="approve", typed={"comment": comment})
+
+
+@router.post("/boards/{board_id}/sequence/waivers")
+def waive_sequence_check(board_id: int, request: Request, session: SessionDep, actor: Waiving,
+                         sha256: Annotated[str, Form()] = "", inputs_sha256: Annotated[str, Form()] = "",
+                         check_id: Annotated[str, Form()] = "", reason: Annotated[str, Form()] = "") -> Response:
+    """Waive a failing or marginal check of the sequence's current result, with a reason (the team's rules apply;
+    a refusal says why beside the check's form)."""
+    return _sequence_act(request, session, actor, board_id, lambda: sequences.waive(
+        session=session, actor=actor, board_id=board_id, sha256=sha256, inputs_sha256=inputs_sha256 or None,
+        check_id=check_id, reason=reason[:4000]), form=f"waive:{check_id}", typed={"reason": reason})

@@ -797,6 +797,34 @@ class SequenceApproval(_Model):
     current: bool = Field(description="not stale, and given against the result of the board as it is now")
 
 
+class SequenceWaiver(_Model):
+    id: int
+    revision_n: int
+    inputs_sha256: Sha256 = Field(description="the inputs it was made on: the sequence revision with its rails")
+    result_id: int | None
+    check_id: str = Field(description="the check and its subject (supply_uvlo:harness12): both corners' rows, and "
+                                      "every threshold on that supply")
+    check_title: str
+    verdict: Verdict = Field(description="the verdict waived")
+    reason: str
+    reviewer: str
+    reviewer_id: int | None
+    created_at: Timestamp
+    past_edge: bool = Field(description="a waiver of a failing check (allowed only where the team's rules name a "
+                                        "role for it)")
+    stale: bool
+    stale_reason: str
+    current: bool = Field(description="not stale, and made on the inputs of the board as it is now")
+
+
+class SequenceProblemCheck(_Model):
+    check_id: str
+    verdict: Verdict = Field(description="its worst verdict over its rows")
+    titles: list[str]
+    reasons: list[str]
+    waiver: SequenceWaiver | None = Field(None, description="the waiver of the current inputs that covers it")
+
+
 class SequenceAnalysis(_Model):
     state: Literal["done", "queued", "running", "failed", "cancelled", "not_queued"] = Field(
         description="done: the result of the current inputs is stored; otherwise the state of its job")
@@ -821,3 +849,9 @@ class BoardSequence(_Model):
                                                    "inputs: the last result of older ones (revision_n, inputs_sha256, "
                                                    "computed_at, outdated_because), not for sign-off")
     approvals: list[SequenceApproval]
+    waivers: list[SequenceWaiver]
+    problem_checks: list[SequenceProblemCheck] = Field(description="the current result's failing or marginal "
+                                                                   "checks, each with the waiver that covers it")
+    approval_blocked: str | None = Field(None, description="why the current result cannot be approved yet, in "
+                                                           "words (null: it can, or there is no result yet)")
+    rules: dict[str, Any] = Field(description="the team's waiver rules (two_person, fail_waiver_role), as for a rail")

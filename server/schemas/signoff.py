@@ -29,6 +29,15 @@ class WaiverIn(_Body):
     reason: prose(COMMENT_MAX, min_length=1)
 
 
+class SequenceWaiverIn(_Body):
+    sha256: str = Field(min_length=64, max_length=64, pattern=r"^[0-9a-fA-F]{64}$",
+                        description="sha256 of the sequence revision this is about (its current revision)")
+    inputs_sha256: str | None = Field(None, min_length=64, max_length=64, pattern=r"^[0-9a-fA-F]{64}$",
+                                      description="the inputs of the result you read; another answers 409")
+    check_id: line(100, min_length=1) = Field(description="the check and its subject, as problem_checks names it")
+    reason: prose(COMMENT_MAX, min_length=1)
+
+
 class WaiverCarry(_Body):
     sha256: str = Sha256
     reason: Comment | None = Field(None, description="omitted: keep the original reason")

@@ -19,6 +19,16 @@ sequence's approvals stale (no other rail's approvals change). A worker computes
 or says its job is queued or running and shows the last result of older inputs as outdated
 (:func:`sequence_dict`). Approving (:func:`approve`) follows a rail's rules: the result of the
 current key only, not by the author of the current revision.
+
+Waivers (:func:`waive`, the one write path of ``board_sequence_waivers``) follow the rail waivers' rules, the
+team's waiver rules of :mod:`server.services.governance` read by the same functions of
+:mod:`server.workflow`: reviewers waive a marginal check, a failing one only the role the team names (nobody by
+default); never the sequence's author (of its first or its current revision); under the two-person rule (on by
+default) a reviewer who waived a check of the current inputs does not approve them, nor waives after approving
+them. A waiver belongs to the inputs it was made on (``inputs_sha256``) and goes stale with the approvals when
+they change. A check is its ``id`` with its ``subject`` (``supply_uvlo:harness12``: both corners and every
+threshold on that supply). :func:`approve` is refused while a failing or marginal check of the current result
+has no waiver of the current inputs that covers it (a rail's sign-off demands the same of its checks).
 """
 
 from __future__ import annotations
@@ -33,20 +43,23 @@ from sqlalchemy.orm import Session
 
 from server.analysis.errors import DocumentError
 from server.analysis.sequence import analyze_sequence, read_sequence
-from server.models import (Board, BoardSequence, BoardSequenceApproval, BoardSequenceResult, BoardSequenceRevision, Job,
-                           JobKind, Rail, RailRevision, utcnow)
+from server.models import (Board, BoardSequence, BoardSequenceApproval, BoardSequenceResult, BoardSequenceRevision,
+                           BoardSequenceWaiver, Job, JobKind, Product, Rail, RailRevision, utcnow)
 from server.schemas.rail import canonical_json
-from server.services import engine_change, jobs
+from server.services import engine_change, governance, jobs
 from server.services.access import Actor, Permission
 from server.services.audit import record
 from server.services.catalog import get_board
 from server.services.errors import Conflict, Forbidden, Invalid, NotFound, flush_or_conflict
 from server.services.rails import normalize_document
 from server.services.results import engine_version
+from server.services.signoff import covering_waivers
+from server.workflow import (FAIL_WAIVER_ROLES, PROBLEM_VERDICTS, SEVERITY, WaiverRules, two_person_refusal,
+                             waiver_covers, waiver_refusal)
 
 __all__ = ["sequence_dict", "approval_dict", "get_sequence", "save_sequence", "current_result", "on_rail_revision",
            "on_rail_change", "approve", "JobInputs", "Superseded", "job_inputs", "analyse", "finish_job",
-           "enqueue_outdated"]
+           "enqueue_outdated", "waiver_dict", "waive", "list_waivers", "check_key"]
 
 
 def _sha256(data: Any) -> str:
@@ -225,7 +238,9 @@ def approval_dict(a: BoardSequenceApproval, current_key: str | None = None) -> d
 
 def sequence_dict(session: Session, seq: BoardSequence) -> dict[str, Any]:
     """The head revision, its result with the rails as they are now (None while it is computed: ``analysis``
-    says how far its job is, ``outdated_result`` is the last result of older inputs), its approvals. Reads only."""
+    says how far its job is, ``outdated_result`` is the last result of older inputs), its approvals and waivers;
+    with a result, its failing or marginal checks (``problem_checks``, each with the waiver that covers it) and
+    why it cannot be approved yet (``approval_blocked``, None: it can). Reads only."""
     head = _head(session, seq)
     board = session.get(Board, seq.board_id)
     key = _inputs_sha256(head, _board_rails(session, board))
@@ -249,6 +264,16 @@ def sequence_dict(session: Session, seq: BoardSequence) -> dict[str, Any]:
     approvals = session.scalars(select(BoardSequenceApproval).where(BoardSequenceApproval.sequence_id == seq.id)
                                 .order_by(BoardSequenceApproval.id)).all()
     out["approvals"] = [approval_dict(a, key) for a in approvals]
+    waivers = session.scalars(select(BoardSequenceWaiver).where(BoardSequenceWaiver.sequence_id == seq.id)
+                              .order_by(BoardSequenceWaiver.id)).all()
+    out["waivers"] = [waiver_dict(w, key) for w in waivers]
+    out["problem_checks"], out["approval_blocked"] = [], None
+    out["rules"] = _board_rules(session, board).as_dict()
+    if row is not None:
+        covered = _covering(row, list(waivers))
+        out["problem_checks"] = [{**g, "waiver": waiver_dict(covered[k], key) if k in covered else None}
+                                 for k, g in _problem_checks(list(row.result.get("checks", []))).items()]
+        out["approval_blocked"] = _approval_blocked(row, list(waivers))
     return out
 
 
@@ -268,12 +293,29 @@ def get_sequence(*, session: Session, actor: Actor, board_id: int) -> BoardSeque
     return seq
 
 
-def _make_stale(session: Session, seq: BoardSequence, reason: str) -> int:
-    rows = session.scalars(select(BoardSequenceApproval).where(BoardSequenceApproval.sequence_id == seq.id,
-                                                               BoardSequenceApproval.stale_at.is_(None))).all()
-    for a in rows:
-        a.stale_at, a.stale_reason = utcnow(), reason
-    return len(rows)
+def _make_stale(session: Session, actor: Actor, seq: BoardSequence, reason: str, *, key: str | None = None) -> None:
+    """The sequence's approvals and waivers of other inputs than ``key`` (None: all of them) go stale with
+    ``reason``; waivers going stale are recorded (a step of the caller's transaction)."""
+    now = utcnow()
+    approvals = select(BoardSequenceApproval).where(BoardSequenceApproval.sequence_id == seq.id,
+                                                    BoardSequenceApproval.stale_at.is_(None))
+    waivers = select(BoardSequenceWaiver).where(BoardSequenceWaiver.sequence_id == seq.id,
+                                                BoardSequenceWaiver.stale_at.is_(None))
+    if key is not None:
+        approvals = approvals.where(BoardSequenceApproval.inputs_sha256 != key)
+        waivers = waivers.where(BoardSequenceWaiver.inputs_sha256 != key)
+    for a in session.scalars(approvals).all():
+        a.stale_at, a.stale_reason = now, reason
+    stale = session.scalars(waivers.order_by(BoardSequenceWaiver.id)).all()
+    for w in stale:
+        w.stale_at, w.stale_reason = now, reason[:1000]
+    if stale:
+        board = session.get(Board, seq.board_id)
+        record(session, actor, action="waivers_stale", object_type="board_sequence", object_id=seq.id,
+               object_repr=f"{board.name} power-up sequence", product_id=board.product_id,
+               before={"waivers": [{"id": w.id, "reviewer": w.reviewer_name, "check_id": w.check_id,
+                                    "revision_n": w.revision_n, "inputs_sha256": w.inputs_sha256} for w in stale]},
+               after={"stale": [w.id for w in stale], "reason": reason})
 
 
 def _inline_rails_in_si(document: Any) -> Any:
@@ -321,7 +363,7 @@ def save_sequence(*, session: Session, actor: Actor, board_id: int, document: An
                                 author_id=actor.user_id, author_name=actor.name, message=message or "saved")
     session.add(rev)
     flush_or_conflict(session, f"the sequence of board '{board.name}' was saved by someone else at the same moment")
-    _make_stale(session, seq, f"the sequence has a newer revision ({rev.n})")
+    _make_stale(session, actor, seq, f"the sequence has a newer revision ({rev.n})")
     record(session, actor, action="update" if rev.n > 1 else "create", object_type="board_sequence",
            object_id=seq.id, object_repr=f"{board.name} power-up sequence", product_id=board.product_id,
            after={"n": rev.n, "sha256": sha})
@@ -338,25 +380,200 @@ def on_rail_revision(session: Session, actor: Actor, rail: Rail) -> None:
 
 def on_rail_change(session: Session, actor: Actor, *, board_id: int, reason: str) -> Job | None:
     """A change of one of the board's rails (a new revision, retired, restored, deleted): when it changes the
-    inputs of the board's sequence (the sequence names the rail), the sequence's approvals of other inputs go stale
-    (``reason``) and its analysis is queued (returned; None when nothing changed or its result is stored). No
-    other rail's approvals change. A step of the caller's transaction: the caller commits."""
+    inputs of the board's sequence (the sequence names the rail), the sequence's approvals and waivers of other
+    inputs go stale (``reason``) and its analysis is queued (returned; None when nothing changed or its result is
+    stored). No other rail's approvals change. A step of the caller's transaction: the caller commits."""
     seq = session.scalar(select(BoardSequence).where(BoardSequence.board_id == board_id))
     if seq is None or seq.head_n == 0:
         return None
     session.flush()
     head, board = _head(session, seq), session.get(Board, board_id)
     rails = _board_rails(session, board)
-    key = _inputs_sha256(head, rails)
-    for a in session.scalars(select(BoardSequenceApproval).where(BoardSequenceApproval.sequence_id == seq.id,
-                                                                 BoardSequenceApproval.stale_at.is_(None),
-                                                                 BoardSequenceApproval.inputs_sha256 != key)):
-        a.stale_at, a.stale_reason = utcnow(), reason
+    _make_stale(session, actor, seq, reason, key=_inputs_sha256(head, rails))
     return _enqueue(session, actor, seq, head, rails)
 
 
+# --- sign-off: checks, waivers, approvals ----------------------------------------------------------
+
+
+def check_key(check: dict[str, Any]) -> str:
+    """A check of a sequence result as a waiver names it: its id with its subject (``supply_uvlo:harness12``,
+    ``power_good:camera``, ``power_good_order:board``); both corners' rows, and every threshold on a supply, are
+    one check."""
+    return f"{check.get('id')}:{check.get('subject')}"[:100]
+
+
+def _keyed(checks: list[dict[str, Any]]) -> list[dict[str, Any]]:
+    """The result's checks with ``id`` the key a waiver names (what the rail sign-off functions read)."""
+    return [{**c, "id": check_key(c)} for c in checks]
+
+
+def _problem_checks(checks: list[dict[str, Any]]) -> dict[str, dict[str, Any]]:
+    """Check key -> its worst verdict and the titles and reasons of its failing or marginal rows, in the result's
+    order (checks that read no problem are left out)."""
+    out: dict[str, dict[str, Any]] = {}
+    for c in checks:
+        verdict = str(c.get("verdict"))
+        if verdict not in PROBLEM_VERDICTS:
+            continue
+        key = check_key(c)
+        group = out.setdefault(key, {"check_id": key, "verdict": verdict, "titles": [], "reasons": []})
+        if SEVERITY[verdict] > SEVERITY[group["verdict"]]:
+            group["verdict"] = verdict
+        if str(c.get("title", "")) not in group["titles"]:
+            group["titles"].append(str(c.get("title", "")))
+            group["reasons"].append(str(c.get("reason", "")))
+    return out
+
+
+def _current_waivers(session: Session, seq: BoardSequence, key: str) -> list[BoardSequenceWaiver]:
+    """The waivers of these inputs that are not stale, oldest first."""
+    return list(session.scalars(select(BoardSequenceWaiver).where(BoardSequenceWaiver.sequence_id == seq.id,
+                                                                  BoardSequenceWaiver.inputs_sha256 == key,
+                                                                  BoardSequenceWaiver.stale_at.is_(None))
+                                .order_by(BoardSequenceWaiver.id)))
+
+
+def _covering(row: BoardSequenceResult, waivers: list[BoardSequenceWaiver]) -> dict[str, BoardSequenceWaiver]:
+    """Check key -> the newest waiver of the result's inputs that covers the check's worst verdict (a waiver of a
+    marginal reading does not cover a failing one), as a rail's sign-off reads its waivers."""
+    mine = [w for w in waivers if w.inputs_sha256 == row.inputs_sha256 and w.stale_at is None]
+    return covering_waivers(_keyed(list(row.result.get("checks", []))), mine, row.revision_n)
+
+
+def _approval_blocked(row: BoardSequenceResult, waivers: list[BoardSequenceWaiver]) -> str | None:
+    """Why the result cannot be approved yet, in words (None: it can): a start-up that could not be computed, or
+    failing or marginal checks without a waiver of these inputs that covers them, each named by its title."""
+    if row.result.get("error"):
+        return f"the board start-up could not be computed ({row.result['error']}): change the sequence or its rails"
+    covered = _covering(row, waivers)
+    open_checks = [g for key, g in _problem_checks(list(row.result.get("checks", []))).items() if key not in covered]
+    if not open_checks:
+        return None
+    listed = "; ".join(f"{title} ({g['verdict']})" for g in open_checks for title in g["titles"])
+    return f"checks failing or marginal without a waiver: {listed}"
+
+
+def _board_rules(session: Session, board: Board) -> WaiverRules:
+    return governance.rules_for_team(session, session.get(Product, board.product_id).team_id)
+
+
+def _own(actor: Actor, rev: BoardSequenceRevision) -> bool:
+    return (rev.author_id is not None and rev.author_id == actor.user_id) or \
+        (rev.author_id is None and rev.author_name == actor.name)
+
+
+def _no_result(session: Session, seq: BoardSequence, head: BoardSequenceRevision, what: str) -> Conflict:
+    board = session.get(Board, seq.board_id)
+    job = _job_for(session, seq, _inputs_sha256(head, _board_rails(session, board)))
+    state = f"its job {job.id} is {job.state}" if job is not None else "its analysis is not queued yet"
+    return Conflict(f"the board start-up with the rails as they are now has no result yet ({state}); "
+                    f"{what} once it has one")
+
+
+def waiver_dict(w: BoardSequenceWaiver, current_key: str | None = None) -> dict[str, Any]:
+    """A sequence waiver as the API and the pages read it; ``current``: not stale and of the current inputs."""
+    return {"id": w.id, "revision_n": w.revision_n, "inputs_sha256": w.inputs_sha256, "result_id": w.result_id,
+            "check_id": w.check_id, "check_title": w.check_title, "verdict": w.verdict, "reason": w.reason,
+            "reviewer": w.reviewer_name, "reviewer_id": w.reviewer_id, "created_at": w.created_at.isoformat(),
+            # a waiver of a failing check: marked apart wherever waivers are shown, as a rail's
+            "past_edge": w.verdict == "fail", "stale": w.stale_at is not None, "stale_reason": w.stale_reason,
+            "current": w.stale_at is None and (current_key is None or w.inputs_sha256 == current_key)}
+
+
+def list_waivers(*, session: Session, actor: Actor, board_id: int) -> tuple[list[BoardSequenceWaiver], str]:
+    """(every waiver of the board's sequence, oldest first; the key of its current inputs). Reads only."""
+    seq = get_sequence(session=session, actor=actor, board_id=board_id)
+    board = session.get(Board, seq.board_id)
+    rows = session.scalars(select(BoardSequenceWaiver).where(BoardSequenceWaiver.sequence_id == seq.id)
+                           .order_by(BoardSequenceWaiver.id)).all()
+    return list(rows), _inputs_sha256(_head(session, seq), _board_rails(session, board))
+
+
+def _require_waiver_role(session: Session, actor: Actor, board: Board) -> None:
+    """Reviewers waive; so does the role a team names for failing checks (its rules decide per check)."""
+    if actor.can(Permission.REVIEW):
+        return
+    if actor.role not in FAIL_WAIVER_ROLES:
+        actor.require(Permission.REVIEW)
+    role = _board_rules(session, board).fail_waiver_role
+    if role is None or actor.role != role:
+        actor.require(Permission.REVIEW)
+
+
+def waive(*, session: Session, actor: Actor, board_id: int, sha256: str, check_id: str, reason: str,
+          inputs_sha256: str | None = None) -> BoardSequenceWaiver:
+    """Waive a failing or marginal check of the current result of the board's sequence (its head revision named
+    by sha256; ``inputs_sha256``, when given, the inputs the reviewer saw), with a reason, under the team's waiver
+    rules. The one write path of ``board_sequence_waivers``."""
+    board = get_board(session=session, actor=actor, board_id=board_id)
+    _require_waiver_role(session, actor, board)
+    reason = (reason or "").strip()
+    if not reason:
+        raise Invalid("a waiver needs a reason: say why the reading is acceptable",
+                      details=[{"field": "reason", "message": "is required: say why the reading is acceptable"}])
+    seq = session.scalar(select(BoardSequence).where(BoardSequence.board_id == board.id).with_for_update())
+    if seq is None or seq.head_n == 0:
+        raise NotFound(f"board '{board.name}' has no power-up sequence yet")
+    head = _head(session, seq)
+    if (sha256 or "").strip().lower() != head.sha256:
+        raise Conflict(f"the sequence's current revision is {head.n}; waive a check of that one (its sha256)")
+    if _own(actor, head):
+        raise Forbidden(f"you saved revision {head.n} of the sequence: someone else waives its checks")
+    first = session.scalar(select(BoardSequenceRevision).where(BoardSequenceRevision.sequence_id == seq.id)
+                           .order_by(BoardSequenceRevision.n).limit(1))
+    if first is not None and first.n != head.n and _own(actor, first):
+        raise Forbidden(f"you created the power-up sequence of board '{board.name}': someone else waives its checks")
+    row = current_result(session, seq)
+    if row is None:
+        raise _no_result(session, seq, head, "waive what it shows")
+    seen = (inputs_sha256 or "").strip().lower()
+    if seen and seen != row.inputs_sha256:
+        raise Conflict("the sequence's rails changed since the result you read: waive a check of the current result")
+    key = (check_id or "").strip()
+    checks = list(row.result.get("checks", []))
+    if not any(check_key(c) == key for c in checks):
+        raise Invalid(f"the board start-up has no check '{key}'",
+                      details=[{"field": "check_id", "message": "is not a check of the current result"}])
+    group = _problem_checks(checks).get(key)
+    if group is None:
+        raise Invalid(f"check '{key}' of the board start-up reads no problem: only failing or marginal checks are "
+                      "waived", details=[{"field": "check_id", "message": "is neither failing nor marginal"}])
+    rules = _board_rules(session, board)
+    why = waiver_refusal(rules, actor.role, group["verdict"])
+    if why is not None:
+        raise Forbidden(why)
+    if rules.two_person:
+        approved = session.scalar(select(BoardSequenceApproval.id).where(
+            BoardSequenceApproval.sequence_id == seq.id, BoardSequenceApproval.inputs_sha256 == row.inputs_sha256,
+            BoardSequenceApproval.reviewer_id == actor.user_id, BoardSequenceApproval.stale_at.is_(None)).limit(1))
+        if approved is not None:
+            raise Forbidden(two_person_refusal(rules, approving=False, revision_n=head.n))
+    earlier = [w for w in _current_waivers(session, seq, row.inputs_sha256) if w.check_id == key]
+    still = next((w for w in earlier if waiver_covers(w.verdict, group["verdict"])), None)
+    if still is not None:
+        raise Conflict(f"check '{'; '.join(group['titles'])}' has a waiver already (waiver {still.id} by "
+                       f"{still.reviewer_name})")
+    waiver = BoardSequenceWaiver(sequence_id=seq.id, revision_n=head.n, inputs_sha256=row.inputs_sha256,
+                                 result_id=row.id, check_id=key, check_title="; ".join(group["titles"])[:200],
+                                 verdict=group["verdict"], reason=reason[:4000], reviewer_id=actor.user_id,
+                                 reviewer_name=actor.name)
+    session.add(waiver)
+    flush_or_conflict(session, f"check '{key}' of the board start-up got a waiver at the same moment")
+    after = {"waiver": waiver.id, "n": head.n, "inputs_sha256": row.inputs_sha256, "result_id": row.id,
+             "check_id": key, "titles": group["titles"], "verdict": waiver.verdict, "reason": waiver.reason}
+    if earlier:
+        after["replaces"] = [{"waiver": w.id, "verdict": w.verdict} for w in earlier]
+    record(session, actor, action="waive", object_type="board_sequence", object_id=seq.id,
+           object_repr=f"{board.name} power-up sequence", product_id=board.product_id, after=after)
+    session.commit()
+    return waiver
+
+
 def approve(*, session: Session, actor: Actor, board_id: int, sha256: str, comment: str = "") -> BoardSequenceApproval:
-    """Approve the board's sequence as its current result reads it (the head revision, named by sha256)."""
+    """Approve the board's sequence as its current result reads it (the head revision, named by sha256): refused
+    while a failing or marginal check has no waiver of the current inputs that covers it, and, under the team's
+    two-person rule, to a reviewer whose waiver it would rely on."""
     actor.require(Permission.REVIEW)
     seq = get_sequence(session=session, actor=actor, board_id=board_id)
     head = _head(session, seq)
@@ -366,19 +583,27 @@ def approve(*, session: Session, actor: Actor, board_id: int, sha256: str, comme
         raise Forbidden("you saved the sequence's current revision: someone else approves it")
     row = current_result(session, seq)
     if row is None:
-        board = session.get(Board, seq.board_id)
-        job = _job_for(session, seq, _inputs_sha256(head, _board_rails(session, board)))
-        state = f"its job {job.id} is {job.state}" if job is not None else "its analysis is not queued yet"
-        raise Conflict(f"the board start-up with the rails as they are now has no result yet ({state}); "
-                       "approve once it has one")
+        raise _no_result(session, seq, head, "approve")
+    waivers = _current_waivers(session, seq, row.inputs_sha256)
+    blocked = _approval_blocked(row, waivers)
+    if blocked is not None:
+        raise Conflict(f"the board start-up of revision {head.n} cannot be approved yet: {blocked}",
+                       details=[{"field": "checks", "message": blocked}])
+    board = session.get(Board, seq.board_id)
+    rules = _board_rules(session, board)
+    if rules.two_person:
+        mine = [w for w in _covering(row, waivers).values() if w.reviewer_id == actor.user_id]
+        if mine:
+            raise Forbidden(two_person_refusal(rules, approving=True, revision_n=head.n) + " (your waiver of "
+                            + ", ".join(f"'{w.check_title or w.check_id}'" for w in mine) + ")")
     approval = BoardSequenceApproval(sequence_id=seq.id, revision_n=head.n, inputs_sha256=row.inputs_sha256,
                                      result_id=row.id, reviewer_id=actor.user_id, reviewer_name=actor.name,
                                      comment=comment)
     session.add(approval)
     session.flush()
-    board = session.get(Board, seq.board_id)
     record(session, actor, action="approve", object_type="board_sequence", object_id=seq.id,
            object_repr=f"{board.name} power-up sequence", product_id=board.product_id,
-           after={"n": head.n, "result_id": row.id, "verdict": row.verdict})
+           after={"n": head.n, "result_id": row.id, "verdict": row.verdict,
+                  "waivers": [w.id for w in _covering(row, waivers).values()]})
     session.commit()
     return approval

@@ -1,15 +1,19 @@
 """The board page's power-up sequence: the JSON form, a refusal naming the field, the timelines and checks,
-the approval form."""
+the approval form; the demo's failing sequence waived under the team's rules before it is approved."""
 
 from __future__ import annotations
 
 import json
+import re
 
 import pytest
 
 from sqlalchemy import func, select
 
-from server.models import BoardSequenceResult, Job
+from server.demo import seed_if_empty
+from server.models import Board, BoardSequenceResult, Job, Product, Rail, RailRevision, User
+from server.services import governance, rail_edits
+from server.services.access import Actor
 from tests.job_support import run_queued_jobs
 from tests.pages.helpers import log_in, seed_board
 
@@ -114,3 +118,100 @@ def _rail_with_part(client, people, rail_id) -> dict:
     """The rail's head document with a larger load capacitance (the pinned part kept)."""
     doc = client.get(f"/api/v1/rails/{rail_id}", headers=people.headers("viewer")).json()["document"]
     return {**doc, "load": {**doc["load"], "c_nom": 1e-3}}
+
+
+def _demo_ids(app) -> tuple[int, dict[str, int]]:
+    """The demo's "Sensor head" board and its users by name (the demo seeded into the empty database)."""
+    with app.state.sessionmaker() as s:
+        seed_if_empty(s)
+        board = s.scalar(select(Board).where(Board.name == "Sensor head"))
+        users = {u.username: u.id for u in s.scalars(select(User))}
+    return board.id, users
+
+
+def _log_in_demo(client, app, user_id: int) -> str:
+    """As log_in, for a demo user (who has a password: the session cookie carries its fingerprint)."""
+    with app.state.sessionmaker() as s:
+        user = s.get(User, user_id)
+        value, csrf = app.state.session_cookie.dump(user.id, user.password_hash, user.session_generation)
+    client.cookies.set("railsign_session", value)
+    return csrf
+
+
+def _form_values(html: str, form_class: str) -> list[dict[str, str]]:
+    """The hidden and text inputs of each form of ``form_class`` on the page."""
+    out = []
+    for chunk in html.split(f'class="filters {form_class}"')[1:]:
+        body = chunk.split("</form>")[0]
+        out.append({name: value for name, value in re.findall(r'name="([a-z_0-9]+)" value="([^"]*)"', body)})
+    return out
+
+
+def test_the_demo_sensor_head_cannot_be_approved_until_its_harness_dip_is_waived_by_another_reviewer(client, app):
+    board, users = _demo_ids(app)
+    run_queued_jobs(app)
+    csrf = _log_in_demo(client, app, users["ravi"])
+    page = client.get(f"/boards/{board}").text
+    problems = page.split('id="sequence-problem-checks"')[1].split("</ul>")[0]
+    # the failing UVLO dip of the harness is named, approval is hidden and the page says why
+    assert "12 V harness down the mast stays above the UVLO 10.5 V" in problems
+    assert 'id="approve-sequence"' not in page and 'id="sequence-approval-blocked"' in page
+    blocked = page.split('id="sequence-approval-blocked"')[1].split("</p>")[0]
+    assert "without a waiver" in blocked and "stays above the UVLO 10.5 V" in blocked
+    # the demo team's rules are the defaults: nobody waives a failing check, and the page says so
+    assert "let nobody waive a failing check" in problems and 'class="filters sequence-waive"' not in page
+    # an admin lets reviewers waive failing checks (two-person rule on)
+    with app.state.sessionmaker() as s:
+        team_id = s.scalar(select(Product).join(Board, Board.product_id == Product.id)
+                           .where(Board.id == board)).team_id
+        governance.set_rules(session=s, actor=Actor.system("test-setup"), team_id=team_id, two_person=True,
+                             fail_waiver_role="reviewer")
+    page = client.get(f"/boards/{board}").text
+    forms = _form_values(page, "sequence-waive")
+    assert forms and all(f["check_id"] for f in forms)
+    empty = client.post(f"/boards/{board}/sequence/waivers", data={**forms[0], "reason": "", "csrf_token": csrf})
+    assert empty.status_code == 422 and "needs a reason" in empty.text
+    for f in forms:
+        r = client.post(f"/boards/{board}/sequence/waivers", follow_redirects=False,
+                        data={**f, "reason": "the converter rides through on its hold-up; bench capture",
+                              "csrf_token": csrf})
+        assert r.status_code == 303, r.text[:2000]
+    page = client.get(f"/boards/{board}").text
+    waivers = page.split('id="sequence-waivers"')[1].split("</ul>")[0]
+    assert waivers.count("ravi, revision 1") == len(forms) and "bench capture" in waivers and "past the edge" in waivers
+    assert 'id="sequence-approval-blocked"' not in page and 'id="approve-sequence"' in page
+    # the reviewer who waived does not approve: the refusal is shown beside the form
+    own = client.post(f"/boards/{board}/sequence/approvals",
+                      data={"sha256": forms[0]["sha256"], "comment": "dip waived", "csrf_token": csrf})
+    assert own.status_code == 403 and 'id="sequence-approve-error"' in own.text and "two-person rule" in own.text
+    csrf = _log_in_demo(client, app, users["rosa"])
+    r = client.post(f"/boards/{board}/sequence/approvals", follow_redirects=False,
+                    data={"sha256": forms[0]["sha256"], "comment": "waived dip read", "csrf_token": csrf})
+    assert r.status_code == 303
+    assert "rosa, revision 1: waived dip read" in client.get(f"/boards/{board}").text
+
+
+def test_a_rail_edit_marks_the_sequence_waiver_stale_on_the_page(client, app):
+    board, users = _demo_ids(app)
+    run_queued_jobs(app)
+    with app.state.sessionmaker() as s:
+        team_id = s.scalar(select(Product).join(Board, Board.product_id == Product.id)
+                           .where(Board.id == board)).team_id
+        governance.set_rules(session=s, actor=Actor.system("test-setup"), team_id=team_id, two_person=True,
+                             fail_waiver_role="reviewer")
+        lidar = s.scalar(select(Rail).where(Rail.board_id == board, Rail.name == "LIDAR_12V"))
+        lidar_id = lidar.id
+    csrf = _log_in_demo(client, app, users["ravi"])
+    form = _form_values(client.get(f"/boards/{board}").text, "sequence-waive")[0]
+    client.post(f"/boards/{board}/sequence/waivers", data={**form, "reason": "held up", "csrf_token": csrf})
+    with app.state.sessionmaker() as s:
+        dana = Actor.for_user(s.get(User, users["dana"]))
+        rail = s.get(Rail, lidar_id)
+        doc = s.scalar(select(RailRevision).where(RailRevision.rail_id == lidar_id,
+                                                  RailRevision.n == rail.head_n)).document
+        rail_edits.save_rail(session=s, actor=dana, rail_id=lidar_id,
+                             document={**doc, "load": {**doc["load"], "c_nom": 3.3e-3}},
+                             base_n=rail.head_n, message="smaller bulk capacitor")
+    page = client.get(f"/boards/{board}").text
+    waivers = page.split('id="sequence-waivers"')[1].split("</ul>")[0]
+    assert "held up" in waivers and "stale" in waivers and "LIDAR_12V" in waivers
