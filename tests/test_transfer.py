@@ -250,7 +250,8 @@ def test_a_bad_entry_names_its_field(session_factory, demo_bundle):
 
 def _sequence_heads(session) -> dict[str, BoardSequenceRevision]:
     """Board name -> the head revision of its sequence."""
-    rows = session.execute(select(Board.name, BoardSequenceRevision).join(BoardSequence, BoardSequence.board_id == Board.id)
+    rows = session.execute(select(Board.name, BoardSequenceRevision)
+                           .join(BoardSequence, BoardSequence.board_id == Board.id)
                            .join(BoardSequenceRevision, (BoardSequenceRevision.sequence_id == BoardSequence.id)
                                  & (BoardSequenceRevision.n == BoardSequence.head_n))).all()
     return {name: rev for name, rev in rows}

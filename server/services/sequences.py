@@ -402,3 +402,11 @@ def check_document(document: Any, rail_documents: dict[str, Any], *, prefix: str
     except Invalid as exc:  # an inline rail document
         raise Invalid(exc.message, details=[{**d, "field": under(d["field"])} for d in exc.details or []]) from None
     return document
+
+
+def board_sequence(*, session: Session, actor: Actor, board_id: int) -> dict[str, Any] | None:
+    """:func:`sequence_dict` of the board's sequence (the board scoped to the actor); None when the board has
+    none. Reads only."""
+    board = get_board(session=session, actor=actor, board_id=board_id)
+    seq = _get(session, board)
+    return sequence_dict(session, seq) if seq is not None and seq.head_n > 0 else None
