@@ -19,8 +19,8 @@ Import keeps what a round trip must keep:
 
 A board's sequence in the file is saved after the board's rails are stored, through the
 sequence service (:func:`server.services.sequences.save_sequence`): an equal document makes no
-revision, another one a new revision, and either way its analysis is queued when its result
-is not stored. A sequence that cannot be read with the board's rails as the import leaves
+revision (the save is not called), another one a new revision whose analysis the save queues.
+A sequence that cannot be read with the board's rails as the import leaves
 them is refused like a bad rail document: naming its board and field, nothing imported.
 
 Every document (sequences included) is validated, every part looked up and every conflict
