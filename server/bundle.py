@@ -3,7 +3,7 @@
 A rail file holds either
 
 - one rail document (schema ``railsign.rail/1``, DESIGN.md section 3), or
-- a bundle (schema ``railsign.bundle/2``): a product, its boards, and per rail an entry::
+- a bundle (schema ``railsign.bundle/3``): a product, its boards, and per rail an entry::
 
       {"document": {...the rail document...},
        "part": {"name": "...", "revision": 3} | null,
@@ -12,11 +12,16 @@ A rail file holds either
   ``part`` names the library part (by name and revision number) whose FET the document
   carries; ``exported_from`` is the rail revision the document was exported from.
 
-Bundles of the first version (``railsign.bundle/1``) listed the bare documents of each board's
-rails; they are still read, with no part and no revision.
+  A board may carry its power-up sequence: ``"sequence": {...}``, the head revision's
+  document (``railsign.sequence/1``, :mod:`server.analysis.sequence`; its rails named by
+  ``ref`` are the board's rails in the same bundle). Optional; a board without one has no key.
 
-Provides :class:`RailFile`, :class:`RailEntry`, :class:`BoardInfo`, :class:`PartLink`,
-:class:`ExportedFrom`, :func:`read_rail_file` (the entries of parsed JSON),
+Bundles of the first version (``railsign.bundle/1``) listed the bare documents of each board's
+rails; they are still read, with no part and no revision. Bundles of the second version
+(``railsign.bundle/2``) are the third without sequences; they are still read.
+
+Provides :class:`RailFile`, :class:`RailEntry`, :class:`SequenceEntry`, :class:`BoardInfo`,
+:class:`PartLink`, :class:`ExportedFrom`, :func:`read_rail_file` (the entries of parsed JSON),
 :func:`load_json` (a file's JSON, errors in words), :func:`bundle_dict` and
 :func:`rail_entry_dict` (writing).
 """
@@ -33,10 +38,16 @@ from pydantic import BaseModel, ConfigDict, Field
 from server.schemas.fields import COMMENT_MAX, ID_MAX, line, prose
 from server.schemas.validation import DocumentInvalid, FieldError, parse_model
 
-__all__ = ["BUNDLE_SCHEMA", "BUNDLE_SCHEMA_V1", "BoardInfo", "PartLink", "ExportedFrom", "RailEntry", "RailFile",
-           "read_rail_file", "load_json", "bundle_dict", "rail_entry_dict"]
+__all__ = ["BUNDLE_SCHEMA", "BUNDLE_SCHEMA_V1", "BUNDLE_SCHEMA_V2", "BoardInfo", "PartLink", "ExportedFrom",
+           "RailEntry", "SequenceEntry", "RailFile", "read_rail_file", "load_json", "bundle_dict", "rail_entry_dict"]
 
-BUNDLE_SCHEMA = "railsign.bundle/2"
+# Version 3 adds one optional key, a board's "sequence". It is a new version and not that key added
+# to version 2 because the reader of version 2 refuses any key it does not know on a board
+# (extra="forbid" below): a version-2 reader given a bundle with a sequence would refuse it as a bad
+# board ("boards[0].sequence: ... not permitted"), while a version-3 bundle is refused by its schema,
+# which says what is wrong. Versions 1 and 2 are still read (neither carries a sequence).
+BUNDLE_SCHEMA = "railsign.bundle/3"
+BUNDLE_SCHEMA_V2 = "railsign.bundle/2"
 BUNDLE_SCHEMA_V1 = "railsign.bundle/1"
 
 
@@ -70,6 +81,7 @@ class _BoardModel(BaseModel):
     revision: line(20, min_length=1) = "A"
     description: prose(COMMENT_MAX) = ""
     rails: list[Any] = Field(default_factory=list)
+    sequence: dict[str, Any] | None = None  # version 3 on: the board's power-up sequence document
 
 
 class _ProductModel(BaseModel):
@@ -80,7 +92,7 @@ class _ProductModel(BaseModel):
 
 class _BundleModel(BaseModel):
     model_config = ConfigDict(extra="forbid", populate_by_name=True)
-    schema_: Literal["railsign.bundle/1", "railsign.bundle/2"] = Field(alias="schema")
+    schema_: Literal["railsign.bundle/1", "railsign.bundle/2", "railsign.bundle/3"] = Field(alias="schema")
     product: _ProductModel
     boards: list[_BoardModel] = Field(default_factory=list)
 
@@ -109,6 +121,15 @@ class RailEntry:
 
 
 @dataclass(frozen=True)
+class SequenceEntry:
+    """A board's power-up sequence in a bundle: its document as written (not yet validated)."""
+
+    location: str  # JSON path of the document in its file: "boards[0].sequence"
+    board: BoardInfo
+    document: dict[str, Any]
+
+
+@dataclass(frozen=True)
 class RailFile:
     """A parsed rail file: a bundle (with its product) or one rail document."""
 
@@ -116,6 +137,7 @@ class RailFile:
     product: dict[str, str] | None = None
     schema: str | None = None
     boards: list[BoardInfo] = field(default_factory=list)
+    sequences: list[SequenceEntry] = field(default_factory=list)
 
     @property
     def is_bundle(self) -> bool:
@@ -142,9 +164,15 @@ def read_rail_file(data: Any) -> RailFile:
     v1 = bundle.schema_ == BUNDLE_SCHEMA_V1
     entries: list[RailEntry] = []
     boards: list[BoardInfo] = []
+    sequences: list[SequenceEntry] = []
     for b, board in enumerate(bundle.boards):
         info = BoardInfo(name=board.name, revision=board.revision, description=board.description)
         boards.append(info)
+        if board.sequence is not None:
+            if bundle.schema_ in (BUNDLE_SCHEMA_V1, BUNDLE_SCHEMA_V2):
+                raise DocumentInvalid([FieldError(f"boards[{b}].sequence", f"is read from {BUNDLE_SCHEMA} on; this "
+                                                  f"bundle says {bundle.schema_}")], "bundle")
+            sequences.append(SequenceEntry(location=f"boards[{b}].sequence", board=info, document=board.sequence))
         for r, raw in enumerate(board.rails):
             where = f"boards[{b}].rails[{r}]"
             if v1:
@@ -153,7 +181,8 @@ def read_rail_file(data: Any) -> RailFile:
             entry = parse_model(_EntryModel, raw, "bundle", where)
             entries.append(RailEntry(location=f"{where}.document", document=entry.document, board=info,
                                      part=entry.part, exported_from=entry.exported_from))
-    return RailFile(rails=entries, product=bundle.product.model_dump(), schema=bundle.schema_, boards=boards)
+    return RailFile(rails=entries, product=bundle.product.model_dump(), schema=bundle.schema_, boards=boards,
+                    sequences=sequences)
 
 
 def load_json(path: str | Path) -> Any:
@@ -176,5 +205,6 @@ def rail_entry_dict(document: dict[str, Any], *, part: PartLink | None, revision
 
 
 def bundle_dict(*, product: dict[str, str], boards: list[dict[str, Any]]) -> dict[str, Any]:
-    """A bundle: ``boards`` are {name, revision, description, rails: [entry, ...]}."""
+    """A bundle: ``boards`` are {name, revision, description, rails: [entry, ...]} and, for a board that has
+    one, ``sequence``: its power-up sequence document."""
     return {"schema": BUNDLE_SCHEMA, "product": product, "boards": boards}

@@ -3,8 +3,9 @@
 :func:`render` takes the report read model of :func:`server.services.reports.board_report`
 (texts already in words and units, and the stored waveform arrays) and returns the PDF bytes.
 A title page (board, product, team, time, engine version, the caution, the rails with their
-revision and sha256, the team's sign-off rules), then one section per rail, each starting
-on a new page and bookmarked: state, revision and sha256, inputs, team limits, the check
+revision and sha256, the team's sign-off rules), the board's power-up sequence when it has one
+(its verdict, its checks in words and the timeline of each corner; or that its analysis is
+pending), then one section per rail, each starting on a new page and bookmarked: state, revision and sha256, inputs, team limits, the check
 table with the worst case's corner in words, the key figures, the start-up and SOA plots,
 approvals and waivers with names and times. Every page carries the caution in its footer.
 
@@ -34,7 +35,7 @@ from reportlab.platypus import (Flowable, Image, KeepTogether, PageBreak, Paragr
                                 Table, TableStyle)
 from xml.sax.saxutils import escape
 
-__all__ = ["render", "FONT"]
+__all__ = ["render", "sequence_section", "FONT"]
 
 # DejaVu Sans (shipped with matplotlib) has µ, Ω, °, ≥, ≤ and ×, which the PDF base fonts lack.
 _FONT_DIR = Path(matplotlib.get_data_path()) / "fonts" / "ttf"
@@ -371,6 +372,92 @@ def _rail_section(r: dict[str, Any], k: int, n: int, drawer: _Plots) -> list[Flo
 FOUND_SEARCH = "the search inside the tolerance box"
 
 
+# --- the board's power-up sequence ----------------------------------------------------------
+
+
+def _sequence_timeline(corners: list[dict[str, Any]]) -> Image | None:
+    """Each supply's voltage (top row) and total current (bottom row) over time, one column per corner (the
+    nominal supply, the supply-low corner), from the stored series; UVLO thresholds and current capability
+    dotted."""
+    corners = [c for c in corners if c.get("t")]
+    if not corners:
+        return None
+    fig = Figure(figsize=(7.0, 4.4), dpi=PLOT_DPI)
+    fig.subplots_adjust(left=0.1, right=0.98, top=0.88, bottom=0.17, hspace=0.12, wspace=0.18)
+    axes = fig.subplots(2, len(corners), sharex="col", squeeze=False)
+    for col, c in enumerate(corners):
+        v_ax, i_ax = axes[0][col], axes[1][col]
+        v_ax.set_title(c["title"], fontsize=8)
+        for k, sup in enumerate(c["supplies"]):
+            colour = PLOT_COLOURS[k % len(PLOT_COLOURS)]
+            x, y = _finite(c["t"], sup.get("v") or [])
+            if x:
+                v_ax.plot(x, y, color=colour, lw=1.3, label=sup["name"])
+            x, y = _finite(c["t"], sup.get("i") or [])
+            if x:
+                i_ax.plot(x, y, color=colour, lw=1.3, label=sup["name"])
+            for level in sorted(set(sup.get("uvlo") or [])):
+                v_ax.axhline(level, color=colour, ls=":", lw=0.9)
+            if sup.get("i_max"):
+                i_ax.axhline(sup["i_max"], color=colour, ls=":", lw=0.9)
+        for ax, label in ((v_ax, "Supply voltage\n(V)"), (i_ax, "Total current\n(A)")):
+            ax.yaxis.set_major_formatter(EngFormatter(unit="", places=None))
+            ax.grid(True, color="#e4e8ed", lw=0.6)
+            ax.tick_params(labelsize=7)
+            if col == 0:
+                ax.set_ylabel(label, fontsize=7.5)
+        i_ax.set_ylim(bottom=0)
+        i_ax.xaxis.set_major_formatter(EngFormatter(unit="s"))
+        i_ax.set_xlabel("Time since the first enable", fontsize=7.5)
+    handles, labels = axes[0][0].get_legend_handles_labels()
+    if handles:
+        fig.legend(handles, labels, loc="lower center", ncol=min(len(labels), 3), fontsize=6.5, frameon=False)
+    fig.suptitle("Board start-up per supply (stored time series; dotted: UVLO thresholds, current capability)",
+                 fontsize=9, x=0.01, ha="left")
+    return Image(_png(fig), width=TEXT_W, height=TEXT_W * 4.4 / 7.0)
+
+
+def sequence_section(seq: dict[str, Any]) -> list[Flowable]:
+    """The board's power-up sequence (``report["sequence"]``, put in words by
+    ``services.reports.sequence_part``): revision, verdict, the checks, the timeline; or that its
+    analysis is pending; or, in an archived copy, that the copy leaves it out."""
+    story: list[Flowable] = [PageBreak(), _Bookmark("sequence", "Power-up sequence"), _p("Power-up sequence", "h1")]
+    if seq.get("omitted"):
+        story.append(_p(f"The board has a power-up sequence (revision {seq['n']}). This archived copy, made at a "
+                        "sign-off transition of a rail, leaves it out: read it on the board page or in the live "
+                        "report.", "body"))
+        return story
+    story.append(_p(f"{seq['name']} · revision {seq['n']} · sha256 {seq['sha256']} · saved by {seq['author']}",
+                    "body"))
+    if not seq["current"]:
+        story.append(_p("Analysis pending: the result of this revision with the rails' current revisions is not "
+                        f"stored yet ({seq['pending']}). No verdict is reported until it is.", "body"))
+    else:
+        colour = VERDICT_COLOURS.get(seq["verdict"], MUTED)
+        word = f'<font color="#{colour.hexval()[2:]}"><b>{escape(seq["verdict"] or "not analysed")}</b></font>'
+        story.append(Paragraph(f"Verdict {word} with the rails' current revisions: every "
+                               "rail on its shared supply on one time line, at the nominal supply and at the "
+                               "supply-low corner.", STYLES["body"]))
+        if seq["problem"]:
+            story.append(_p(seq["problem"], "body"))
+        if seq["checks"]:
+            story.append(_p("Checks", "h2"))
+            story.append(_table(["Check", "Verdict", "Value", "Limit", "Margin", "In words"],
+                                [[c["title"], _verdict(c["verdict"]), c["value"], c["limit"], c["margin"], c["reason"]]
+                                 for c in seq["checks"]], [24, 7, 8, 8, 6, 27]))
+        timeline = _sequence_timeline(seq["corners"])
+        if timeline is not None:
+            story.append(KeepTogether([_p("Timeline", "h2"), timeline]))
+        if seq["conventions"]:
+            story.append(_p("How to read it", "h2"))
+            story += [_p(f"· {text}", "small") for text in seq["conventions"]]
+    story.append(_p("Approvals of the sequence", "h2"))
+    story.append(_p("; ".join(f"{a['reviewer']} (revision {a['revision_n']}"
+                              + (f", stale: {a['stale_reason']})" if a["stale"] else ")") for a in seq["approvals"])
+                    or "None.", "body"))
+    return story
+
+
 def _footer(report: dict[str, Any]):
     b = report["board"]
     label = f"{b['name']} rev {b['revision']} · sign-off report made {report['generated_at']}"
@@ -398,6 +485,8 @@ def render(report: dict[str, Any]) -> bytes:
                             author="railsign", subject=f"{report['product']['name']}, team {report['team']}",
                             creator=f"railsign, analysis engine {report['engine_version']}")
     story = _title_page(report)
+    if report.get("sequence"):
+        story += sequence_section(report["sequence"])
     n = len(report["rails"])
     drawer = _Plots()
     for k, r in enumerate(report["rails"], start=1):

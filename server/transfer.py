@@ -1,8 +1,10 @@
 """Export and import of rail files; the formats themselves are in `server.bundle`.
 
-Export writes bundles (schema ``railsign.bundle/2``): each rail's head document with the
+Export writes bundles (schema ``railsign.bundle/3``): each rail's head document with the
 library part its revision pins (name and revision number) and the revision it comes from
-(number and sha256).
+(number and sha256); and a board's power-up sequence, the document of its head revision, when
+the file holds the whole board (a board or a product; a one-rail file carries none, its other
+rails being absent).
 
 Import keeps what a round trip must keep:
 
@@ -15,8 +17,14 @@ Import keeps what a round trip must keep:
 - a document that names no part keeps the rail's present part when its FET is that part's;
 - a rail changed here since the revision the file was exported from is a conflict.
 
-Every document is validated, every part looked up and every conflict found before anything
-is stored.
+A board's sequence in the file is saved after the board's rails are stored, through the
+sequence service (:func:`server.services.sequences.save_sequence`): an equal document makes no
+revision (the save is not called), another one a new revision whose analysis the save queues.
+A sequence that cannot be read with the board's rails as the import leaves
+them is refused like a bad rail document: naming its board and field, nothing imported.
+
+Every document (sequences included) is validated, every part looked up and every conflict
+found before anything is stored.
 
 A rail table (CSV or workbook, :mod:`server.rail_table`) is imported the same way, row by row:
 :func:`plan_table` is the dry run (each row's problems on its fields, in words), and
@@ -34,10 +42,11 @@ from sqlalchemy.orm import Session
 from server.analysis.words import field_title
 from server.bundle import PartLink, RailEntry, RailFile, bundle_dict, rail_entry_dict, read_rail_file
 from server.rail_table import RailTable, TableRow
-from server.models import Board, Part, PartRevision, Product, Rail, RailRevision, Team
+from server.models import (Board, BoardSequence, BoardSequenceRevision, Part, PartRevision, Product, Rail, RailRevision,
+                           Team)
 from server.schemas.rail import RAIL_FET_KEYS, document_sha256, part_data
 from server.schemas.validation import DocumentInvalid
-from server.services import catalog, rail_edits, rails
+from server.services import catalog, rail_edits, rails, sequences
 from server.services.access import Actor, Permission
 from server.services.errors import Conflict, Invalid, NotFound
 
@@ -56,8 +65,25 @@ def _entry(session: Session, head: RailRevision) -> dict[str, Any]:
     return rail_entry_dict(head.document, part=part, revision=head.n, sha256=head.sha256)
 
 
-def _board_dict(board: Board, entries: list[dict[str, Any]]) -> dict[str, Any]:
-    return {"name": board.name, "revision": board.revision, "description": board.description, "rails": entries}
+def _board_dict(board: Board, entries: list[dict[str, Any]], sequence: dict[str, Any] | None = None) -> dict[str, Any]:
+    out = {"name": board.name, "revision": board.revision, "description": board.description, "rails": entries}
+    if sequence is not None:
+        out["sequence"] = sequence
+    return out
+
+
+def _sequence_document(session: Session, board: Board) -> dict[str, Any] | None:
+    """The document of the head revision of the power-up sequence of a board the caller has found (scoped);
+    None when it has none."""
+    return session.scalar(select(BoardSequenceRevision.document)
+                          .join(BoardSequence, (BoardSequence.id == BoardSequenceRevision.sequence_id)
+                                & (BoardSequence.head_n == BoardSequenceRevision.n))
+                          .where(BoardSequence.board_id == board.id))
+
+
+def _whole_board(session: Session, actor: Actor, board: Board) -> dict[str, Any]:
+    """A board with every rail on it and its sequence."""
+    return _board_dict(board, _board_entries(session, actor, board), _sequence_document(session, board))
 
 
 def _board_entries(session: Session, actor: Actor, board: Board) -> list[dict[str, Any]]:
@@ -84,15 +110,14 @@ def export_rail(*, session: Session, actor: Actor, rail_id: int) -> dict[str, An
 
 
 def export_board(*, session: Session, actor: Actor, board_id: int) -> dict[str, Any]:
-    """A bundle with one board and every rail on it."""
+    """A bundle with one board, every rail on it and its power-up sequence."""
     board = catalog.get_board(session=session, actor=actor, board_id=board_id)
     product = catalog.get_product(session=session, actor=actor, product_id=board.product_id)
-    return bundle_dict(product=_product_dict(product),
-                       boards=[_board_dict(board, _board_entries(session, actor, board))])
+    return bundle_dict(product=_product_dict(product), boards=[_whole_board(session, actor, board)])
 
 
 def export_product(*, session: Session, actor: Actor, product_id: int) -> dict[str, Any]:
-    """A bundle with every board of a product and every rail on them."""
+    """A bundle with every board of a product, every rail on them and their power-up sequences."""
     product = catalog.get_product(session=session, actor=actor, product_id=product_id)
     boards: list[Board] = []
     while True:
@@ -101,8 +126,7 @@ def export_product(*, session: Session, actor: Actor, product_id: int) -> dict[s
         boards += rows
         if not rows or len(boards) >= total:
             break
-    return bundle_dict(product=_product_dict(product),
-                       boards=[_board_dict(b, _board_entries(session, actor, b)) for b in boards])
+    return bundle_dict(product=_product_dict(product), boards=[_whole_board(session, actor, b) for b in boards])
 
 
 # --- import: the report ------------------------------------------------------------------------
@@ -134,6 +158,8 @@ class ImportReport:
     unchanged: int = 0
     linked: int = 0
     not_linked: list[PartNotLinked] = field(default_factory=list)
+    sequences_saved: list[str] = field(default_factory=list)  # boards whose sequence got a new revision
+    sequences_unchanged: list[str] = field(default_factory=list)
 
     def counts(self) -> dict[str, int]:
         return {"created": self.created, "updated": self.updated, "unchanged": self.unchanged}
@@ -146,6 +172,10 @@ class ImportReport:
         for part, reason, instead, names in _by_part(self.not_linked):
             out.append(f"not linked: part '{part.name}' revision {part.revision} {reason}. {instead}: "
                        + ", ".join(names) + ".")
+        if self.sequences_saved:
+            out.append("power-up sequence saved as a new revision: " + ", ".join(self.sequences_saved) + ".")
+        if self.sequences_unchanged:
+            out.append("power-up sequence unchanged: " + ", ".join(self.sequences_unchanged) + ".")
         return out
 
     def refusal(self) -> str:
@@ -287,6 +317,52 @@ def _plan(session: Session, file: RailFile, documents: list[dict[str, Any]],
     return plans
 
 
+@dataclass
+class _SequencePlan:
+    location: str
+    board_key: tuple[str, str]
+    document: dict[str, Any]
+    unchanged: bool  # the board's sequence is this document already: nothing to save
+
+
+def _board_label(key: tuple[str, str]) -> str:
+    return f"board '{key[0]}' revision {key[1]}"
+
+
+def _rails_after(session: Session, board: Board | None, key: tuple[str, str], plans: list[_Plan]) -> dict[str, Any]:
+    """The rail documents a board will have in use once the plans are stored, by name: its rails in use now
+    (not retired) with the file's documents in their place or beside them."""
+    out: dict[str, Any] = {}
+    if board is not None:
+        rows = session.execute(select(Rail.name, RailRevision.document)
+                               .join(RailRevision, (RailRevision.rail_id == Rail.id) & (RailRevision.n == Rail.head_n))
+                               .where(Rail.board_id == board.id, Rail.retired_at.is_(None))).all()
+        out = {name: doc for name, doc in rows}
+    out.update({p.document["name"]: p.document for p in plans if p.board_key == key})
+    return out
+
+
+def _plan_sequences(session: Session, file: RailFile, boards: dict, single_board: bool,
+                    plans: list[_Plan]) -> list[_SequencePlan]:
+    """Every sequence of the file read against its board's rails as the import leaves them, before anything is
+    stored: a bad one refuses the whole import (as a bad rail document does), naming its board and fields."""
+    out: list[_SequencePlan] = []
+    for entry in file.sequences:
+        key = next(iter(boards)) if single_board else (entry.board.name, entry.board.revision)
+        board = boards[key]
+        try:
+            stored = sequences.check_document(entry.document, _rails_after(session, board, key, plans),
+                                              prefix=entry.location)
+        except Invalid as exc:
+            words = "; ".join(f"{d['message']} ({d['field']})" for d in exc.details) or exc.message
+            raise Invalid(f"the power-up sequence of {_board_label(key)} cannot be read with the board's rails as "
+                          f"imported: {words}. Nothing was imported.", details=exc.details) from None
+        # the save reads the file's document again (one write path); it is not called for an equal document
+        out.append(_SequencePlan(location=entry.location, board_key=key, document=entry.document,
+                                 unchanged=board is not None and _sequence_document(session, board) == stored))
+    return out
+
+
 def import_data(*, session: Session, actor: Actor, data: Any, board_id: int | None = None,
                 team: str | None = None, message: str = "imported", require_parts: bool = False) -> ImportReport:
     """Import a rail file's parsed JSON: a bundle, or one rail (a document or a one-rail bundle) with ``board_id``.
@@ -306,8 +382,9 @@ def import_data(*, session: Session, actor: Actor, data: Any, board_id: int | No
     Raises
     ------
     Invalid
-        A bad document or bundle (naming the field), a missing board, or an unlinkable part
-        under ``require_parts``; nothing is stored.
+        A bad document or bundle (naming the field), a board's sequence that cannot be read
+        with the board's rails as imported (naming the board and the field), a missing board,
+        or an unlinkable part under ``require_parts``; nothing is stored.
     Conflict
         A rail was saved here after the revision the file was exported from; nothing is stored.
     """
@@ -320,6 +397,7 @@ def import_data(*, session: Session, actor: Actor, data: Any, board_id: int | No
     product, new_product, team_id, boards = _targets(session, actor, file, board_id, team)
     report = ImportReport()
     plans = _plan(session, file, documents, boards, board_id is not None, report)
+    sequence_plans = _plan_sequences(session, file, boards, board_id is not None, plans)
     conflicts = [c for c in (_outcome(session, p) for p in plans) if c]
     if conflicts:
         raise Conflict("; ".join(conflicts) + ". Nothing was imported: export the rails again and merge your "
@@ -328,6 +406,11 @@ def import_data(*, session: Session, actor: Actor, data: Any, board_id: int | No
         raise Invalid("nothing was imported: " + report.refusal() + ". Add those part revisions to the library, "
                       "or import without --require-parts to store those rails with the FET of their documents.")
     _store(session, actor, plans, product, new_product, team_id, boards, message, report)
+    for seq in sequence_plans:  # after the rails: the sequence is read against them
+        created = not seq.unchanged and sequences.save_sequence(
+            session=session, actor=actor, board_id=boards[seq.board_key].id, document=seq.document,
+            message=message)[2]
+        (report.sequences_saved if created else report.sequences_unchanged).append(_board_label(seq.board_key))
     return report
 
 

@@ -45,7 +45,7 @@ def test_import_then_export_round_trips_the_documents(board_id, tmp_path, capsys
     out = tmp_path / "board.json"
     assert main(["export", "--board", str(board_id), "-o", str(out)]) == 0
     bundle = json.loads(out.read_text())
-    assert bundle["schema"] == "railsign.bundle/2"
+    assert bundle["schema"] == "railsign.bundle/3"
     docs = {e["document"]["name"]: e["document"] for e in bundle["boards"][0]["rails"]}
     assert set(docs) == {"VOUT_A", "VOUT_B"}
     assert docs["VOUT_A"]["load"]["c_nom"] == pytest.approx(680e-6)
@@ -148,6 +148,37 @@ def test_one_exported_rail_goes_back_to_its_board_or_to_another_one(board_id, cl
     assert main(["import", str(spare)]) == 0
     assert main(["import", str(out), "--board", str(_id_of(cli_env, Board, "Spare"))]) == 0
     assert "1 created, 0 updated, 0 unchanged" in capsys.readouterr().out
+
+
+def test_export_and_import_carry_a_boards_sequence_without_options(cli_env, tmp_path, capsys):
+    from server.db import make_engine, make_sessionmaker
+    from server.demo import seed
+    from server.models import Board
+    from tests.conftest import make_settings
+
+    engine = make_engine(make_settings(cli_env))
+    with make_sessionmaker(engine)() as session:
+        seed(session)
+    engine.dispose()
+    board = _id_of(cli_env, Board, "Sensor head")
+    out = tmp_path / "sensor-head.json"
+    assert main(["export", "--board", str(board), "-o", str(out)]) == 0
+    bundle = json.loads(out.read_text())
+    sequence = bundle["boards"][0]["sequence"]
+    assert [r["ref"] for r in sequence["rails"]] == ["LIDAR_12V", "CAMERA_12V", "SENSORS_5V", "IR_LED_5V"]
+    capsys.readouterr()
+    assert main(["import", str(out)]) == 0
+    assert "power-up sequence unchanged: board 'Sensor head' revision C." in capsys.readouterr().out.splitlines()
+    sequence["rails"][1]["enable"]["delay"] = 8e-3
+    out.write_text(json.dumps(bundle))
+    assert main(["import", str(out)]) == 0
+    assert "power-up sequence saved as a new revision: board 'Sensor head' revision C." in \
+        capsys.readouterr().out.splitlines()
+    sequence["rails"][1]["ref"] = "NO_SUCH_RAIL"
+    out.write_text(json.dumps(bundle))
+    assert main(["import", str(out)]) == EXIT_BAD_INPUT
+    err = capsys.readouterr().err
+    assert "board 'Sensor head' revision C" in err and "boards[0].sequence.rails[1].ref" in err
 
 
 @pytest.mark.parametrize("args,words", [

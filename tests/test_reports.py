@@ -6,18 +6,23 @@ download gives, untouched by a later edit while the live report follows it."""
 from __future__ import annotations
 
 import hashlib
+import io
 import re
 
 import pytest
+from pypdf import PdfReader
 from sqlalchemy import select, text, update
 from sqlalchemy.exc import DBAPIError
 
 from server import analysis
-from server.models import AnalysisResult, ArchivedReport
-from server.services import reports, results
+from server.analysis.report import value_text
+from server.demo import seed
+from server.models import AnalysisResult, ArchivedReport, Board, BoardSequenceResult
+from server.services import reports, results, users
 from server.services.access import Actor
 from server.services.users import get_user_by_name
 from server.workflow import DEFAULT_WORKFLOW, WorkflowInvalid, parse_workflow
+from tests.job_support import run_queued_jobs
 from tests.pages.helpers import log_in
 from tests.report_support import freeze, pdf_outline, pdf_pages, store_real_result
 from tests.signoff_support import PASSING, edit_rail, make_board, make_rail, store_checks
@@ -235,3 +240,64 @@ def test_the_readings_of_many_revisions_at_once_agree_with_one_at_a_time(client,
                 assert (heads[sha].id, heads[sha].outdated, heads[sha].engine_version) == \
                        (one.row.id, one.outdated, one.engine_version)
     assert set(heads) == set(shas[:3]) and heads[shas[1]].outdated and not heads[shas[2]].outdated
+
+
+def _flat(pdf: bytes) -> str:
+    return " ".join(" ".join(pdf_pages(pdf)).split())
+
+
+def test_the_pdf_of_the_sensor_head_has_its_power_up_sequence_pending_then_computed(app, client, session_factory):
+    """The demo's Sensor head board: its sequence section says the analysis is pending while the job is queued,
+    then gives the verdict and every stored check in words, values with units from the stored record."""
+    with session_factory() as s:
+        seed(s)
+        board_id = s.scalar(select(Board.id).where(Board.name == "Sensor head"))
+        _, token = users.create_token(session=s, actor=Actor.system("test-setup"), username="dana", name="tests")
+    headers = {"Authorization": f"Bearer {token}"}
+    pending = client.get(f"/api/v1/boards/{board_id}/report.pdf", headers=headers)
+    assert pending.status_code == 200, pending.text
+    words = _flat(pending.content)
+    assert "Power-up sequence Sensor head power-up · revision 1" in words
+    assert "Analysis pending: the result of this revision with the rails' current revisions is not stored yet " \
+           "(job" in words and "is queued)" in words
+    assert "Verdict fail" not in words and "Power-up sequence" in pdf_outline(pending.content)
+    assert run_queued_jobs(app)  # the sequence job the demo's save queued
+    with session_factory() as s:
+        stored = s.scalar(select(BoardSequenceResult.result))
+    for url in (f"/api/v1/boards/{board_id}/report.pdf", f"/boards/{board_id}/report.pdf"):  # the API and the page
+        r = client.get(url, headers=headers)
+        assert r.status_code == 200 and r.content.startswith(b"%PDF-")
+        words = _flat(r.content)
+        assert "Analysis pending" not in words
+        assert f"Verdict {stored['verdict']} with the rails' current revisions" in words
+        timeline = [k for k, text in enumerate(pdf_pages(r.content)) if "Timeline" in text]
+        assert len(timeline) == 1 and PdfReader(io.BytesIO(r.content)).pages[timeline[0]].images  # the plot
+        for check in stored["checks"]:
+            assert " ".join(check["title"].split()) in words
+            if check["value"] is not None:
+                assert value_text(check["value"], check["unit"]) in words
+    uvlo = next(c for c in stored["checks"] if c["id"] == "supply_uvlo" and c["verdict"] == "fail")
+    assert uvlo["unit"] == "V" and value_text(uvlo["value"], "V").endswith(" V")
+    # a board without a sequence has no such section
+    with session_factory() as s:
+        other = s.scalar(select(Board.id).where(Board.name != "Sensor head").limit(1))
+    assert "Power-up sequence" not in _flat(client.get(f"/api/v1/boards/{other}/report.pdf", headers=headers).content)
+
+
+def test_an_archived_copy_says_it_leaves_the_boards_sequence_out(client, people, board):
+    """The archive is made inside a rail's sign-off transition, below the sequence service: it cannot read the
+    sequence's current result, and says so rather than being silent."""
+    rail = make_rail(client, people, board, name="VMAIN")
+    sequence = {"schema": "railsign.sequence/1", "name": "Main power-up",
+                "supplies": [{"id": "in12", "name": "12 V input", "v_nom": 12.0, "v_min": 11.4, "r_source": 0.02}],
+                "rails": [{"id": "main", "ref": "VMAIN", "supply": "in12", "enable": {"at": 0.0}}]}
+    r = client.put(f"/api/v1/boards/{board['id']}/sequence", json={"document": sequence},
+                   headers=people.headers("designer"))
+    assert r.status_code == 200, r.text
+    freeze(client, people, rail)
+    [archive] = _archives(client, people, board["id"])
+    words = _flat(client.get(archive["download"], headers=people.headers("viewer")).content)
+    assert "The board has a power-up sequence (revision 1). This archived copy, made at a sign-off transition " \
+           "of a rail, leaves it out" in words
+    live = _flat(client.get(f"/api/v1/boards/{board['id']}/report.pdf", headers=people.headers("viewer")).content)
+    assert "Power-up sequence Main power-up · revision 1" in live and "leaves it out" not in live

@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import copy
+import hashlib
 import shutil
 
 import pytest
@@ -11,10 +12,11 @@ from sqlalchemy import func, select
 from server import transfer
 from server.bundle import BUNDLE_SCHEMA
 from server.db import make_engine, make_sessionmaker
-from server.demo import BOARDS, FETS, seed
-from server.models import Part, Product, Rail, RailRevision
-from server.schemas.rail import document_sha256
-from server.services import parts, rail_edits, rails, users
+from server.demo import BOARDS, FETS, SEQUENCES, seed
+from server.models import (Board, BoardSequence, BoardSequenceRevision, Job, JobKind, JobState, Part, Product, Rail,
+                           RailRevision)
+from server.schemas.rail import canonical_json, document_sha256
+from server.services import parts, rail_edits, rails, sequences, users
 from server.services.access import Actor
 from server.services.errors import Conflict, Invalid
 from tests.conftest import make_settings
@@ -241,3 +243,127 @@ def test_a_bad_entry_names_its_field(session_factory, demo_bundle):
         with pytest.raises(Invalid) as caught:
             transfer.import_data(session=s, actor=SYSTEM, data=data, team="elsewhere")
     assert [d["field"] for d in caught.value.details] == ["boards[0].rails[1].document.load.c_nom"]
+
+
+# --- the power-up sequence of a board travels with its rails ---------------------------------------
+
+
+def _sequence_heads(session) -> dict[str, BoardSequenceRevision]:
+    """Board name -> the head revision of its sequence."""
+    rows = session.execute(select(Board.name, BoardSequenceRevision)
+                           .join(BoardSequence, BoardSequence.board_id == Board.id)
+                           .join(BoardSequenceRevision, (BoardSequenceRevision.sequence_id == BoardSequence.id)
+                                 & (BoardSequenceRevision.n == BoardSequence.head_n))).all()
+    return {name: rev for name, rev in rows}
+
+
+def _sha(document) -> str:
+    return hashlib.sha256(canonical_json(document).encode()).hexdigest()
+
+
+def _sequence_board(bundle: dict) -> int:
+    return next(k for k, b in enumerate(bundle["boards"]) if "sequence" in b)
+
+
+def test_export_carries_the_head_sequence_of_a_whole_board_only(session_factory):
+    with session_factory() as s:
+        seed(s)
+        heads = _sequence_heads(s)
+        product_id = s.scalar(select(Product.id))
+        board_id = s.scalar(select(Board.id).where(Board.name == "Sensor head"))
+        product = transfer.export_product(session=s, actor=SYSTEM, product_id=product_id)
+        board = transfer.export_board(session=s, actor=SYSTEM, board_id=board_id)
+        rail = transfer.export_rail(session=s, actor=SYSTEM, rail_id=s.scalar(
+            select(Rail.id).where(Rail.name == "LIDAR_12V")))
+    assert set(heads) == set(SEQUENCES) == {"Sensor head"}
+    with_sequence = [b["name"] for b in product["boards"] if "sequence" in b]
+    assert with_sequence == ["Sensor head"]  # a board without a sequence has no key
+    for data in (product, board):
+        document = data["boards"][_sequence_board(data)]["sequence"]
+        assert document == heads["Sensor head"].document
+        assert _sha(document) == heads["Sensor head"].sha256
+    assert "sequence" not in rail["boards"][0]  # one rail of the board: its sequence would name absent rails
+
+
+def test_demo_sequence_round_trips_into_an_empty_installation_and_its_job_is_queued(session_factory, demo_bundle):
+    exported = demo_bundle["boards"][_sequence_board(demo_bundle)]["sequence"]
+    with session_factory() as s:
+        _fresh_installation(s)
+        assert s.scalar(select(func.count()).select_from(BoardSequence)) == 0
+        report = transfer.import_data(session=s, actor=SYSTEM, data=demo_bundle, team="elsewhere")
+        head = _sequence_heads(s)["Sensor head"]
+        board_id = s.scalar(select(Board.id).where(Board.name == "Sensor head"))
+        seq = sequences.get_sequence(session=s, actor=SYSTEM, board_id=board_id)
+        key = sequences.sequence_dict(s, seq)["inputs_sha256"]
+        jobs = s.scalars(select(Job).where(Job.kind == JobKind.sequence.value, Job.board_id == board_id)).all()
+        again = transfer.import_data(session=s, actor=SYSTEM, data=demo_bundle)
+        revisions = s.scalar(select(func.count()).select_from(BoardSequenceRevision))
+    assert head.n == 1 and head.document == exported
+    assert head.sha256 == _sha(exported)  # the same document, byte for byte in canonical form
+    assert [(j.state, j.sha256, j.revision_n) for j in jobs] == [(JobState.queued.value, key, 1)]
+    assert report.sequences_saved == ["board 'Sensor head' revision C"] and report.sequences_unchanged == []
+    assert report.lines()[-1] == "power-up sequence saved as a new revision: board 'Sensor head' revision C."
+    assert again.sequences_unchanged == ["board 'Sensor head' revision C"] and again.sequences_saved == []
+    assert revisions == 1
+
+
+def test_an_edited_sequence_in_the_file_makes_one_sequence_revision(session_factory):
+    with session_factory() as s:
+        seed(s)
+        board_id = s.scalar(select(Board.id).where(Board.name == "Sensor head"))
+        data = transfer.export_board(session=s, actor=SYSTEM, board_id=board_id)
+    data["boards"][0]["sequence"]["rails"][1]["enable"]["delay"] = 8e-3
+    with session_factory() as s:
+        report = transfer.import_data(session=s, actor=SYSTEM, data=data, message="camera later")
+        head = _sequence_heads(s)["Sensor head"]
+    assert report.counts()["unchanged"] == _board_size("LIDAR_12V")
+    assert head.n == 2 and head.message == "camera later"
+    assert head.document["rails"][1]["enable"]["delay"] == 8e-3
+
+
+def test_a_sequence_that_names_a_missing_rail_refuses_the_import_and_stores_nothing(session_factory, demo_bundle):
+    data = copy.deepcopy(demo_bundle)
+    b = _sequence_board(data)
+    data["boards"][b]["sequence"]["rails"][1]["ref"] = "CAMERA_5V"
+    with session_factory() as s:
+        _fresh_installation(s)
+        with pytest.raises(Invalid) as caught:
+            transfer.import_data(session=s, actor=SYSTEM, data=data, team="elsewhere")
+        assert s.scalar(select(func.count()).select_from(Product)) == 0  # nothing half-done, as for a bad rail
+        assert s.scalar(select(func.count()).select_from(Rail)) == 0
+        assert s.scalar(select(func.count()).select_from(BoardSequence)) == 0
+    assert [d["field"] for d in caught.value.details] == [f"boards[{b}].sequence.rails[1].ref"]
+    assert "the power-up sequence of board 'Sensor head' revision C cannot be read" in caught.value.message
+    assert "names no rail known here ('CAMERA_5V')" in caught.value.message
+    assert "Nothing was imported" in caught.value.message
+
+
+def test_a_sequence_is_read_with_the_rails_already_on_the_board(session_factory):
+    """A board file with fewer rails than the sequence names: the board's rails here make up the rest."""
+    with session_factory() as s:
+        seed(s)
+        board_id = s.scalar(select(Board.id).where(Board.name == "Sensor head"))
+        data = transfer.export_board(session=s, actor=SYSTEM, board_id=board_id)
+    data["boards"][0]["rails"] = [e for e in data["boards"][0]["rails"] if e["document"]["name"] == "LIDAR_12V"]
+    data["boards"][0]["sequence"]["name"] = "Sensor head power-up, renamed"
+    with session_factory() as s:
+        report = transfer.import_data(session=s, actor=SYSTEM, data=data)
+        head = _sequence_heads(s)["Sensor head"]
+    assert report.counts() == {"created": 0, "updated": 0, "unchanged": 1}
+    assert head.n == 2 and head.document["name"] == "Sensor head power-up, renamed"
+
+
+def test_an_older_bundle_version_with_a_sequence_is_refused_and_without_one_is_read(session_factory, demo_bundle):
+    data = copy.deepcopy(demo_bundle)
+    data["schema"] = "railsign.bundle/2"
+    b = _sequence_board(data)
+    with session_factory() as s:
+        _fresh_installation(s)
+        with pytest.raises(Invalid) as caught:
+            transfer.import_data(session=s, actor=SYSTEM, data=data, team="elsewhere")
+        assert [d["field"] for d in caught.value.details] == [f"boards[{b}].sequence"]
+        del data["boards"][b]["sequence"]
+        report = transfer.import_data(session=s, actor=SYSTEM, data=data, team="elsewhere")
+        assert s.scalar(select(func.count()).select_from(BoardSequence)) == 0
+    assert BUNDLE_SCHEMA == "railsign.bundle/3" and "is read from railsign.bundle/3 on" in caught.value.message
+    assert report.created == DEMO_RAILS and report.sequences_saved == []

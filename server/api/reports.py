@@ -11,7 +11,7 @@ from server.api.common import TypedRoute, errors
 from server.auth import CurrentActor
 from server.db import SessionDep
 from server.schemas.responses import ArchivedReport, Listing
-from server.services import reports
+from server.services import reports, sequences
 
 router = APIRouter(tags=["reports"], route_class=TypedRoute)
 PDF_BODY = {200: {"description": "The report as PDF", "content": {"application/pdf": {"schema": {
@@ -34,7 +34,8 @@ def pdf_answer(data: bytes, filename: str, sha256: str | None = None) -> PdfResp
             responses=PDF_BODY | errors(401, 404, 422, json_success=False))
 def live_report(board_id: int, session: SessionDep, actor: CurrentActor) -> PdfResponse:
     """The board's sign-off report as it reads now, as PDF (made on the server)."""
-    data, filename = reports.live_pdf(session=session, actor=actor, board_id=board_id)
+    sequence = sequences.board_sequence(session=session, actor=actor, board_id=board_id)
+    data, filename = reports.live_pdf(session=session, actor=actor, board_id=board_id, sequence=sequence)
     return pdf_answer(data, filename)
 
 

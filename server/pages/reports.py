@@ -123,7 +123,8 @@ def report_page(board_id: int, request: Request, session: SessionDep, actor: Cur
 
 @router.get("/boards/{board_id}/report.pdf")
 def report_pdf(board_id: int, session: SessionDep, actor: CurrentActor) -> Response:
-    data, filename = reports.live_pdf(session=session, actor=actor, board_id=board_id)
+    sequence = sequences.board_sequence(session=session, actor=actor, board_id=board_id)
+    data, filename = reports.live_pdf(session=session, actor=actor, board_id=board_id, sequence=sequence)
     return _pdf(data, filename)
 
 

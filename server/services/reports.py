@@ -11,6 +11,12 @@ turned into text by the analysis core's formatters: nothing is recomputed here.
 :func:`board_report` is the read model both renderers take: the report page
 (``server/pages/reports.py``) and the PDF (:mod:`server.report_pdf`, made on the server).
 
+The board's power-up sequence is read by :mod:`server.services.sequences`, which sits above this
+module (it queues jobs, whose completion reaches the sign-off, which archives here): the caller of
+:func:`live_pdf` passes the sequence as :func:`server.services.sequences.sequence_dict` reads it,
+and this module puts it in words (:func:`sequence_part`). An archived copy, made inside a sign-off
+transition, cannot read it: it says that the board has a sequence and that the copy leaves it out.
+
 Archiving (:func:`archive_on_entry`, a step the sign-off calls when a rail enters a state
 that "archives the record"): once every rail of the board stands in such a state, the PDF of
 the report as it reads then is stored with its sha256 in ``archived_reports``. Archived
@@ -35,8 +41,8 @@ from server import report_pdf
 from server.analysis import CAUTION, derated_soa_curves
 from server.analysis.report import bank_view, limit_text, margin_text, value_text
 from server.analysis.words import rule_title
-from server.models import (AnalysisResult, Approval, ArchivedReport, Board, JsonType, Product, Rail, RailRevision,
-                           RailState, Team, Waiver, Workflow, utcnow)
+from server.models import (AnalysisResult, Approval, ArchivedReport, Board, BoardSequence, JsonType, Product, Rail,
+                           RailRevision, RailState, Team, Waiver, Workflow, utcnow)
 from server.services import workflows
 from server.services.access import Actor
 from server.services.audit import record
@@ -47,7 +53,7 @@ from server.services.results import ReadingHead, engine_version, reading_heads
 from server.workflow import WorkflowDef
 
 __all__ = ["CAUTION", "board_report", "live_pdf", "archive_on_entry", "archive_dict", "list_archives",
-           "get_archive", "archive_pdf", "when"]
+           "get_archive", "archive_pdf", "when", "sequence_part"]
 
 BASIS_WORDS = {"standard": "standard", "common practice": "common practice, not a standard",
                "physical limit": "physical limit"}
@@ -285,10 +291,61 @@ def _filename(board: Board, what: str) -> str:
     return f"signoff-report-{words}-{what}.pdf"
 
 
-def live_pdf(*, session: Session, actor: Actor, board_id: int) -> tuple[bytes, str]:
-    """The PDF of the board's report as it reads now, and its file name."""
+def live_pdf(*, session: Session, actor: Actor, board_id: int,
+             sequence: dict[str, Any] | None = None) -> tuple[bytes, str]:
+    """The PDF of the board's report as it reads now, and its file name. ``sequence``: the board's power-up
+    sequence as :func:`server.services.sequences.board_sequence` reads it (None: the board has none)."""
     board = get_board(session=session, actor=actor, board_id=board_id)
-    return report_pdf.render(_report(session, board, plots=True)), _filename(board, "live")
+    report = _report(session, board, plots=True)
+    report["sequence"] = sequence_part(sequence) if sequence is not None else None
+    return report_pdf.render(report), _filename(board, "live")
+
+
+# --- the board's power-up sequence in words -------------------------------------------------
+
+
+def _pending_words(analysis: dict[str, Any]) -> str:
+    job = analysis.get("job")
+    if job is None:
+        return "its analysis is not queued yet"
+    return f"job {job['id']} is {job['state']}" + (f" ({job['error']})" if job.get("error") else "")
+
+
+def sequence_part(data: dict[str, Any]) -> dict[str, Any]:
+    """The power-up sequence section of the PDF from :func:`server.services.sequences.sequence_dict`'s read:
+    the stored result of the head revision with the rails as they are now (checks in words, the stored time
+    series of each corner for the timeline), or that its analysis is pending (no older result is reported,
+    as on the report page). Nothing is recomputed."""
+    result = data.get("result")
+    out: dict[str, Any] = {"n": data["n"], "sha256": data["sha256"], "author": data["author"],
+                           "name": (data.get("document") or {}).get("name") or "", "current": result is not None,
+                           "pending": "" if result is not None else _pending_words(data.get("analysis") or {}),
+                           "verdict": None, "problem": "", "checks": [], "corners": [], "conventions": [],
+                           "approvals": [{"reviewer": a["reviewer"], "revision_n": a["revision_n"],
+                                          "stale": a["stale"], "stale_reason": a["stale_reason"] or ""}
+                                         for a in data.get("approvals") or []],
+                           "omitted": False}
+    if result is None:
+        return out
+    titles = {c["id"]: c["title"] for c in result.get("corners") or []}
+    out.update(verdict=result.get("verdict"), problem=result.get("error") or "",
+               conventions=list(result.get("conventions") or []),
+               checks=[{"title": c.get("title") or str(c.get("id")), "corner": titles.get(c.get("corner"), ""),
+                        "verdict": c.get("verdict"), "value": value_text(c.get("value"), c.get("unit") or ""),
+                        "limit": limit_text(c), "margin": margin_text(c.get("margin")), "reason": c.get("reason") or ""}
+                       for c in result.get("checks") or []],
+               corners=[{"id": c["id"], "title": c["title"], "t": (c.get("series") or {}).get("t") or [],
+                         "supplies": [{"name": s["name"], "uvlo": list(s.get("uvlo") or []), "i_max": s.get("i_max"),
+                                       **((c.get("series") or {}).get("supplies") or {}).get(s["id"], {})}
+                                      for s in c.get("supplies") or []]}
+                        for c in result.get("corners") or []])
+    return out
+
+
+def _archived_sequence(session: Session, board: Board) -> dict[str, Any] | None:
+    """What an archived copy says of the board's sequence: that it has one, left out of the copy."""
+    n = session.scalar(select(BoardSequence.head_n).where(BoardSequence.board_id == board.id))
+    return {"n": n, "omitted": True} if n else None
 
 
 # --- archived copies -----------------------------------------------------------------------
@@ -308,6 +365,7 @@ def archive_on_entry(session: Session, actor: Actor, rail: Rail, wf: WorkflowDef
     if not rows or not all(s is not None and wf.archives(s) for _, s in rows):
         return None
     report = _report(session, board, plots=True)
+    report["sequence"] = _archived_sequence(session, board)
     pdf = report_pdf.render(report)
     digest = hashlib.sha256(pdf).hexdigest()
     row = ArchivedReport(board_id=board.id, product_id=board.product_id, created_by=actor.name, state=state,

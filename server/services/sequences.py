@@ -607,3 +607,31 @@ def approve(*, session: Session, actor: Actor, board_id: int, sha256: str, comme
                   "waivers": [w.id for w in _covering(row, waivers).values()]})
     session.commit()
     return approval
+
+
+def check_document(document: Any, rail_documents: dict[str, Any], *, prefix: str = "document") -> dict[str, Any]:
+    """A sequence document as :func:`save_sequence` would store it (inline rails in SI numbers), read against
+    ``rail_documents`` (the board's rails in use, head documents by name) as it reads them: for a caller that
+    must know a save will be taken before it stores anything (an import). Raises :class:`Invalid` naming every
+    field, under ``prefix`` instead of ``document``. Reads and writes nothing."""
+
+    def under(field: str) -> str:
+        return prefix + field[len("document"):] if field == "document" or field.startswith("document.") else field
+
+    try:
+        document = _inline_rails_in_si(document)
+        read_sequence(document, rail_documents)
+    except DocumentError as exc:
+        invalid = _invalid(exc)
+        raise Invalid(invalid.message, details=[{**d, "field": under(d["field"])} for d in invalid.details]) from None
+    except Invalid as exc:  # an inline rail document
+        raise Invalid(exc.message, details=[{**d, "field": under(d["field"])} for d in exc.details or []]) from None
+    return document
+
+
+def board_sequence(*, session: Session, actor: Actor, board_id: int) -> dict[str, Any] | None:
+    """:func:`sequence_dict` of the board's sequence (the board scoped to the actor); None when the board has
+    none. Reads only."""
+    board = get_board(session=session, actor=actor, board_id=board_id)
+    seq = _get(session, board)
+    return sequence_dict(session, seq) if seq is not None and seq.head_n > 0 else None
