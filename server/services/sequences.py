@@ -59,7 +59,8 @@ from server.workflow import (FAIL_WAIVER_ROLES, PROBLEM_VERDICTS, SEVERITY, Waiv
 
 __all__ = ["sequence_dict", "approval_dict", "get_sequence", "save_sequence", "current_result", "on_rail_revision",
            "on_rail_change", "approve", "JobInputs", "Superseded", "job_inputs", "analyse", "finish_job",
-           "enqueue_outdated", "waiver_dict", "waive", "list_waivers", "check_key"]
+           "enqueue_outdated", "waiver_dict", "waive", "list_waivers", "check_key", "check_document",
+           "board_sequence"]
 
 
 def _sha256(data: Any) -> str:
