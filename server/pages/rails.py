@@ -29,7 +29,8 @@ from server.schemas.result import AnalysisResult, MonteCarlo
 from server.services import live, overview, results
 from server.services.access import Actor, Permission
 from server.services.errors import Invalid
-from server.services.rails import get_rail, get_revision, part_status
+from server.services.parts import SOA_ENVELOPE
+from server.services.rails import document_warnings, get_rail, get_revision, part_status
 
 router = APIRouter(include_in_schema=False)
 Analyst = Annotated[Actor, Depends(require(Permission.ANALYZE))]
@@ -142,6 +143,10 @@ def rail_context(session: Session, actor: Actor, rail_id: int) -> dict[str, Any]
     }
     if parts is not None:
         ctx.update({k: v for k, v in parts.items() if k != "result"})
+    warnings = RENDERED.get_or_make(("warnings", head.sha256), lambda: document_warnings(doc))
+    ctx["soa_warnings"] = [w for w in warnings if w["field"].startswith("fet.soa")]
+    ctx["input_warnings"] = [w for w in warnings if not w["field"].startswith("fet.soa")]
+    ctx["soa_envelope"] = SOA_ENVELOPE
     ctx["mc"] = _mc_context(_monte_carlo_row(session, head.sha256))
     ctx["live"] = live.rail_state(session=session, actor=actor, rail_id=rail.id)
     return ctx
