@@ -422,6 +422,19 @@ class BoardSequence(Base):
     updated_at: Mapped[datetime] = mapped_column(default=utcnow)
 
 
+class BoardSequenceState(Base):
+    """Where a board's sequence stands in its team's workflow: since which revision, and the inputs
+    (``inputs_sha256``: the sequence revision with the rails it names) it was put there for."""
+
+    __tablename__ = "board_sequence_states"
+    sequence_id: Mapped[int] = mapped_column(ForeignKey("board_sequences.id", ondelete="CASCADE"), primary_key=True)
+    state: Mapped[str] = mapped_column(String(100))
+    revision_n: Mapped[int] = mapped_column(Integer, default=1)
+    inputs_sha256: Mapped[str] = mapped_column(String(64), default="")
+    since: Mapped[datetime] = mapped_column(default=utcnow)
+    changed_by: Mapped[str] = mapped_column(String(200), default="")
+
+
 class BoardSequenceRevision(Base):
     """An immutable revision of a board's sequence document (rails named by ``ref``: their rail name)."""
 

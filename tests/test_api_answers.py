@@ -229,6 +229,13 @@ def test_every_operation_answers_its_declared_model_through_a_products_life(clie
     assert listed["total"] == len(failing_seq["problem_checks"]) and all(w["current"] for w in listed["items"])
     call("POST", "/api/v1/boards/{board_id}/sequence/approvals", 201, role="reviewer2", board_id=board["id"],
          json_body={"sha256": second["sha256"], "comment": "waived supply current checked"})
+    # the sequence follows the team's workflow: submitted, then refused while an approval of revision 1 is stale
+    moved_seq = call("POST", "/api/v1/boards/{board_id}/sequence/transitions", 200, role="designer",
+                     board_id=board["id"], json_body={"transition": "submit for review", "sha256": second["sha256"]})
+    assert moved_seq["from"] == "in design" and moved_seq["to"] == "awaiting review"
+    stale_seq = call("POST", "/api/v1/boards/{board_id}/sequence/transitions", 409, role="reviewer2",
+                     board_id=board["id"], json_body={"transition": "accept margins", "sha256": second["sha256"]})
+    assert [d["field"] for d in stale_seq["error"]["details"]] == ["stale_approvals"]
 
     # analyses, jobs, results
     _analyse(session_factory, rail_id)

@@ -59,12 +59,13 @@ def _success_schema(op: dict) -> list[str]:
 
 def test_the_api_has_every_operation(openapi):
     ops = operations(openapi)
-    assert len(ops) == 77
+    assert len(ops) == 78
     names = {(m, p) for m, p, _ in ops}
     assert {("GET", "/api/v1/reviews/queue"), ("PUT", "/api/v1/teams/{team_id}/signoff-rules"),
             ("POST", "/api/v1/rails/{rail_id}/retire"), ("POST", "/api/v1/rails/{rail_id}/restore"),
             ("GET", "/api/v1/boards/{board_id}/sequence/waivers"),
-            ("POST", "/api/v1/boards/{board_id}/sequence/waivers")} <= names
+            ("POST", "/api/v1/boards/{board_id}/sequence/waivers"),
+            ("POST", "/api/v1/boards/{board_id}/sequence/transitions")} <= names
     assert all(path.startswith("/api/v1/") or path == "/healthz" for _, path, _ in ops)
 
 

@@ -10,8 +10,9 @@ from server.api.common import IdPath, IdQuery, PageDep, SearchText, TypedRoute, 
 from server.auth import CurrentActor, require, require_any
 from server.db import SessionDep
 from server.schemas.api import BoardIn, BoardPatch, SequenceSave
-from server.schemas.responses import Board, BoardSequence, Listing, Page, SequenceApproval, SequenceWaiver
-from server.schemas.signoff import ApprovalIn, SequenceWaiverIn
+from server.schemas.responses import (Board, BoardSequence, Listing, Page, SequenceApproval, SequenceTransitionTaken,
+                                      SequenceWaiver)
+from server.schemas.signoff import ApprovalIn, SequenceWaiverIn, TransitionIn
 from server.services import catalog, sequences
 from server.services.access import Actor, Permission
 from server.workflow import FAIL_WAIVER_ROLES
@@ -19,6 +20,7 @@ from server.workflow import FAIL_WAIVER_ROLES
 router = APIRouter(prefix="/boards", tags=["boards"], route_class=TypedRoute)
 Editor = Annotated[Actor, Depends(require(Permission.EDIT))]
 Reviewer = Annotated[Actor, Depends(require(Permission.REVIEW))]
+Mover = Annotated[Actor, Depends(require(Permission.ADVANCE))]
 # reviewers, and the roles a team may name for failing checks: the sequence service applies the team's rules
 Waiving = Annotated[Actor, Depends(require_any(Permission.REVIEW, *FAIL_WAIVER_ROLES))]
 
@@ -60,9 +62,10 @@ def delete_board(board_id: IdPath, session: SessionDep, actor: Editor) -> Respon
 def get_sequence(board_id: IdPath, session: SessionDep, actor: CurrentActor) -> dict:
     """The board's power-up sequence: its head revision and the board start-up with the rails as they are now;
     while a job computes that (after a save or a rail's change), ``analysis`` names the job and
-    ``outdated_result`` is the last result of older inputs. Never writes."""
+    ``outdated_result`` is the last result of older inputs; ``state`` in the team's workflow and the
+    ``transitions`` on offer with what blocks them. Never writes."""
     seq = sequences.get_sequence(session=session, actor=actor, board_id=board_id)
-    return sequences.sequence_dict(session, seq)
+    return sequences.sequence_dict(session, seq, actor=actor)
 
 
 @router.put("/{board_id}/sequence", response_model=BoardSequence, responses=errors(400, 401, 403, 404, 409, 422))
@@ -71,7 +74,7 @@ def put_sequence(board_id: IdPath, body: SequenceSave, session: SessionDep, acto
     it); a document the analysis cannot read is refused with every field named, and nothing is stored."""
     seq, _, _ = sequences.save_sequence(session=session, actor=actor, board_id=board_id, document=body.document,
                                         base_sha256=body.base_sha256, message=body.message)
-    return sequences.sequence_dict(session, seq)
+    return sequences.sequence_dict(session, seq, actor=actor)
 
 
 @router.post("/{board_id}/sequence/approvals", status_code=201, response_model=SequenceApproval,
@@ -103,3 +106,13 @@ def waive_sequence_check(board_id: IdPath, body: SequenceWaiverIn, session: Sess
     waiver = sequences.waive(session=session, actor=actor, board_id=board_id, sha256=body.sha256,
                              inputs_sha256=body.inputs_sha256, check_id=body.check_id, reason=body.reason)
     return sequences.waiver_dict(waiver)
+
+
+@router.post("/{board_id}/sequence/transitions", response_model=SequenceTransitionTaken,
+             responses=errors(400, 401, 403, 404, 409, 422))
+def take_sequence_transition(board_id: IdPath, body: TransitionIn, session: SessionDep, actor: Mover) -> dict:
+    """Move the board's sequence along a transition of its team's workflow (its head revision named by sha256; the
+    transition names who may). Refused (409) while a demand is unmet, each named in words, or when the sha256
+    names an older revision."""
+    return sequences.take_transition(session=session, actor=actor, board_id=board_id, transition=body.transition,
+                                     sha256=body.sha256, comment=body.comment)

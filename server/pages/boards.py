@@ -26,6 +26,7 @@ router = APIRouter(include_in_schema=False)
 Analyst = Annotated[Actor, Depends(require(Permission.ANALYZE))]
 Editor = Annotated[Actor, Depends(require(Permission.EDIT))]
 Reviewer = Annotated[Actor, Depends(require(Permission.REVIEW))]
+Mover = Annotated[Actor, Depends(require(Permission.ADVANCE))]
 # reviewers, or the role a team names for failing checks: the sequence service applies the team's rules
 Waiving = Annotated[Actor, Depends(require_any(Permission.REVIEW, *FAIL_WAIVER_ROLES))]
 MODES = ("hard", "slew", "current_limit", "power_limit")
@@ -84,7 +85,7 @@ def sequence_context(session: Session, actor: Actor, board_id: int, *, text: str
         seq = sequences.get_sequence(session=session, actor=actor, board_id=board_id)
     except NotFound:
         return {"exists": False, "text": text or "", "error": error}
-    data = sequences.sequence_dict(session, seq)
+    data = sequences.sequence_dict(session, seq, actor=actor)
     outdated = data["outdated_result"] if data["result"] is None else None
     shown = data["result"] or outdated or {}
     corners = []
@@ -102,6 +103,7 @@ def sequence_context(session: Session, actor: Actor, board_id: int, *, text: str
             "corners": corners, "approvals": data["approvals"], "inputs_sha256": data["inputs_sha256"],
             "waivers": data["waivers"], "problem_checks": _waiving(actor, data["rules"], data["problem_checks"]),
             "blocked": data["approval_blocked"], "rules": data["rules"], "signoff_error": signoff_error,
+            "workflow": data["workflow"], "state": data["state"], "transitions": data["transitions"],
             "conventions": shown.get("conventions", []), "caution": shown.get("caution"),
             "problem": shown.get("error"), "duration_s": shown.get("duration_s"),
             "text": text if text is not None else json.dumps(data["document"], indent=2), "error": error}
@@ -210,3 +212,13 @@ def waive_sequence_check(board_id: int, request: Request, session: SessionDep, a
     return _sequence_act(request, session, actor, board_id, lambda: sequences.waive(
         session=session, actor=actor, board_id=board_id, sha256=sha256, inputs_sha256=inputs_sha256 or None,
         check_id=check_id, reason=reason[:4000]), form=f"waive:{check_id}", typed={"reason": reason})
+
+
+@router.post("/boards/{board_id}/sequence/transitions")
+def take_sequence_transition(board_id: int, request: Request, session: SessionDep, actor: Mover,
+                             sha256: Annotated[str, Form()] = "", transition: Annotated[str, Form()] = "",
+                             comment: Annotated[str, Form()] = "") -> Response:
+    """Move the board's sequence along a transition of its team's workflow (a refusal says why beside its button)."""
+    return _sequence_act(request, session, actor, board_id, lambda: sequences.take_transition(
+        session=session, actor=actor, board_id=board_id, transition=transition, sha256=sha256,
+        comment=comment.strip()[:4000]), form=f"transition:{transition}", typed={"comment": comment})

@@ -855,3 +855,17 @@ class BoardSequence(_Model):
     approval_blocked: str | None = Field(None, description="why the current result cannot be approved yet, in "
                                                            "words (null: it can, or there is no result yet)")
     rules: dict[str, Any] = Field(description="the team's waiver rules (two_person, fail_waiver_role), as for a rail")
+    workflow: str = Field(description="the name of the team's workflow the sequence follows, as its rails do")
+    state: SignoffState = Field(description="where the sequence stands in that workflow (since, revision and by "
+                                            "are null until its first move)")
+    transitions: list[OfferedTransition] = Field(description="the transitions leaving the state, each with its "
+                                                             "unmet demands and whether you may take it now")
+
+
+class SequenceTransitionTaken(_Model):
+    board_id: int
+    from_: str = Field(alias="from")
+    to: str
+    transition: str
+    revision: int = Field(description="the sequence revision it was taken on")
+    signed_off: bool

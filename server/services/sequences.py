@@ -29,6 +29,15 @@ them. A waiver belongs to the inputs it was made on (``inputs_sha256``) and goes
 they change. A check is its ``id`` with its ``subject`` (``supply_uvlo:harness12``: both corners and every
 threshold on that supply). :func:`approve` is refused while a failing or marginal check of the current result
 has no waiver of the current inputs that covers it (a rail's sign-off demands the same of its checks).
+
+Workflow state: the sequence stands in a state of its team's workflow (the board's product's team), as a rail
+does (``board_sequence_states``, written only by :func:`_set_state`). A new sequence starts in the workflow's
+initial state; a new sequence revision, and a change of a rail it names (one that changes its inputs), moves it
+to the workflow's ``on_edit`` state, recorded in the audit trail. :func:`take_transition` moves it along a
+transition when the actor's role may and :func:`server.workflow.blockers` finds the demands met, for the facts
+:func:`sequence_facts` reads: the current result's checks (by the key a waiver names), the approvals (those of
+other inputs as stale) and the waivers of the current inputs. A sequence without a state row (saved before
+there were sequence states), or in a state its workflow no longer has, stands in the initial state.
 """
 
 from __future__ import annotations
@@ -44,23 +53,24 @@ from sqlalchemy.orm import Session
 from server.analysis.errors import DocumentError
 from server.analysis.sequence import analyze_sequence, read_sequence
 from server.models import (Board, BoardSequence, BoardSequenceApproval, BoardSequenceResult, BoardSequenceRevision,
-                           BoardSequenceWaiver, Job, JobKind, Product, Rail, RailRevision, utcnow)
+                           BoardSequenceState, BoardSequenceWaiver, Job, JobKind, Product, Rail, RailRevision, utcnow)
 from server.schemas.rail import canonical_json
-from server.services import engine_change, governance, jobs
+from server.services import engine_change, governance, jobs, workflows
 from server.services.access import Actor, Permission
 from server.services.audit import record
 from server.services.catalog import get_board
 from server.services.errors import Conflict, Forbidden, Invalid, NotFound, flush_or_conflict
 from server.services.rails import normalize_document
 from server.services.results import engine_version
-from server.services.signoff import covering_waivers
-from server.workflow import (FAIL_WAIVER_ROLES, PROBLEM_VERDICTS, SEVERITY, WaiverRules, two_person_refusal,
-                             waiver_covers, waiver_refusal)
+from server.services.signoff import TransitionBlocked, covering_waivers, transition_dicts
+from server.workflow import (FAIL_WAIVER_ROLES, PROBLEM_VERDICTS, SEVERITY, ApprovalFact, Blocker, CheckFact,
+                             RailFacts, WaiverRules, WorkflowDef, blockers, two_person_refusal, waiver_covers,
+                             waiver_refusal)
 
 __all__ = ["sequence_dict", "approval_dict", "get_sequence", "save_sequence", "current_result", "on_rail_revision",
            "on_rail_change", "approve", "JobInputs", "Superseded", "job_inputs", "analyse", "finish_job",
            "enqueue_outdated", "waiver_dict", "waive", "list_waivers", "check_key", "check_document",
-           "board_sequence"]
+           "board_sequence", "take_transition", "sequence_facts"]
 
 
 def _sha256(data: Any) -> str:
@@ -237,11 +247,12 @@ def approval_dict(a: BoardSequenceApproval, current_key: str | None = None) -> d
             "current": a.stale_at is None and (current_key is None or a.inputs_sha256 == current_key)}
 
 
-def sequence_dict(session: Session, seq: BoardSequence) -> dict[str, Any]:
+def sequence_dict(session: Session, seq: BoardSequence, *, actor: Actor | None = None) -> dict[str, Any]:
     """The head revision, its result with the rails as they are now (None while it is computed: ``analysis``
     says how far its job is, ``outdated_result`` is the last result of older inputs), its approvals and waivers;
     with a result, its failing or marginal checks (``problem_checks``, each with the waiver that covers it) and
-    why it cannot be approved yet (``approval_blocked``, None: it can). Reads only."""
+    why it cannot be approved yet (``approval_blocked``, None: it can); its workflow ``state`` and the
+    ``transitions`` leaving it, each with what blocks it and whether ``actor`` may take it now. Reads only."""
     head = _head(session, seq)
     board = session.get(Board, seq.board_id)
     key = _inputs_sha256(head, _board_rails(session, board))
@@ -275,6 +286,18 @@ def sequence_dict(session: Session, seq: BoardSequence) -> dict[str, Any]:
         out["problem_checks"] = [{**g, "waiver": waiver_dict(covered[k], key) if k in covered else None}
                                  for k, g in _problem_checks(list(row.result.get("checks", []))).items()]
         out["approval_blocked"] = _approval_blocked(row, list(waivers))
+    wf = _workflow(session, board)
+    state_row = session.get(BoardSequenceState, seq.id)
+    name = _state_name(state_row, wf)
+    known = state_row is not None and state_row.state == name
+    out["workflow"] = wf.name
+    out["state"] = {"name": name, "signed_off": wf.is_signed_off(name),
+                    "since": state_row.since.isoformat() if known else None,
+                    "revision": state_row.revision_n if known else None, "by": state_row.changed_by if known else None}
+    facts = sequence_facts(session, seq, state=name)
+    out["transitions"] = [{**t, "blockers": [b.as_dict() for b in _words([Blocker(d["field"], d["message"])
+                                                                          for d in t["blockers"]], facts)]}
+                          for t in transition_dicts(wf, facts, actor)]
     return out
 
 
@@ -368,6 +391,11 @@ def save_sequence(*, session: Session, actor: Actor, board_id: int, document: An
     record(session, actor, action="update" if rev.n > 1 else "create", object_type="board_sequence",
            object_id=seq.id, object_repr=f"{board.name} power-up sequence", product_id=board.product_id,
            after={"n": rev.n, "sha256": sha})
+    key = _inputs_sha256(rev, rails)
+    if rev.n == 1:
+        _set_state(session, actor, seq, board, None, _workflow(session, board).initial, key=key, quiet=True)
+    else:
+        _on_edit(session, actor, seq, board, key, note=f"revision {rev.n} of the sequence saved")
     _enqueue(session, actor, seq, rev, rails)
     session.commit()
     return seq, rev, True
@@ -390,8 +418,147 @@ def on_rail_change(session: Session, actor: Actor, *, board_id: int, reason: str
     session.flush()
     head, board = _head(session, seq), session.get(Board, board_id)
     rails = _board_rails(session, board)
-    _make_stale(session, actor, seq, reason, key=_inputs_sha256(head, rails))
+    key = _inputs_sha256(head, rails)
+    _make_stale(session, actor, seq, reason, key=key)
+    _on_edit(session, actor, seq, board, key, note=reason)
     return _enqueue(session, actor, seq, head, rails)
+
+
+# --- workflow state: where the sequence stands, what moves it ----------------------------------------
+
+
+def _workflow(session: Session, board: Board) -> WorkflowDef:
+    """The workflow of the board's product's team (as a rail finds its team)."""
+    return workflows.definition_for_team(session, session.get(Product, board.product_id).team_id)
+
+
+def _state_name(row: BoardSequenceState | None, wf: WorkflowDef) -> str:
+    """The sequence's state: its row's; without a row, or in a state the workflow lost, the initial one."""
+    return row.state if row is not None and wf.has_state(row.state) else wf.initial
+
+
+def _set_state(session: Session, actor: Actor, seq: BoardSequence, board: Board, row: BoardSequenceState | None,
+               target: str, *, key: str, action: str = "transition", note: str = "",
+               extra: dict[str, Any] | None = None, quiet: bool = False) -> BoardSequenceState:
+    """Put the sequence in ``target`` for the inputs ``key`` at its head revision and record it in the audit trail
+    (``quiet``: no record, for a new sequence's first state and for new inputs that leave the state as it is). The
+    one write path of ``board_sequence_states``; a step of the caller's transaction."""
+    before = {"state": row.state, "revision": row.revision_n} if row is not None else None
+    if row is None:
+        row = BoardSequenceState(sequence_id=seq.id, state=target, revision_n=seq.head_n, inputs_sha256=key,
+                                 since=utcnow(), changed_by=actor.name)
+        session.add(row)
+    else:
+        if row.state != target:
+            row.since = utcnow()
+        row.state, row.revision_n, row.inputs_sha256, row.changed_by = target, seq.head_n, key, actor.name
+    if not quiet:
+        after: dict[str, Any] = {"state": target, "revision": seq.head_n, "inputs_sha256": key, **(extra or {})}
+        if note:
+            after["note"] = note
+        record(session, actor, action=action, object_type="board_sequence", object_id=seq.id,
+               object_repr=f"{board.name} power-up sequence", product_id=board.product_id, before=before, after=after)
+    return row
+
+
+def _on_edit(session: Session, actor: Actor, seq: BoardSequence, board: Board, key: str, *, note: str) -> None:
+    """The sequence's inputs are now ``key``: when they changed (a new sequence revision, a change of a rail it
+    names), it goes to its workflow's ``on_edit`` state, recorded with ``note`` (already there: it stays, for the
+    new inputs). A step of the caller's transaction."""
+    row = session.get(BoardSequenceState, seq.id)
+    wf = _workflow(session, board)
+    if row is not None and row.inputs_sha256 == key and wf.has_state(row.state):
+        return
+    if _state_name(row, wf) != wf.on_edit or (row is not None and not wf.has_state(row.state)):
+        _set_state(session, actor, seq, board, row, wf.on_edit, key=key, action="reset_state", note=note)
+    else:
+        _set_state(session, actor, seq, board, row, wf.on_edit, key=key, quiet=True)
+
+
+def sequence_facts(session: Session, seq: BoardSequence, *, state: str) -> RailFacts:
+    """What the workflow's rules need to know about the sequence in ``state``, read as a rail's: the checks of the
+    current result by the key a waiver names (none: not analysed; a start-up that could not be computed is one
+    failing check), every approval (one of other inputs than the current ones counts as stale), the current
+    inputs' waivers, and the team's two-person rule. Reads only."""
+    board = session.get(Board, seq.board_id)
+    head = _head(session, seq)
+    key = _inputs_sha256(head, _board_rails(session, board))
+    row = _stored(session, seq, key)
+    waivers = _current_waivers(session, seq, key)
+    checks: list[CheckFact] | None = None
+    waived: dict[str, str] = {}
+    by: frozenset[int] = frozenset()
+    if row is not None:
+        checks = [CheckFact(check_key(c), str(c.get("verdict")), str(c.get("title") or ""))
+                  for c in row.result.get("checks", [])]
+        if row.result.get("error"):
+            checks.append(CheckFact("start-up:board", "fail",
+                                    f"the board start-up could not be computed ({row.result['error']})"))
+        for w in waivers:
+            if SEVERITY.get(w.verdict, 3) >= SEVERITY.get(waived.get(w.check_id, "n/a"), 3):
+                waived[w.check_id] = w.verdict
+        by = frozenset(w.reviewer_id for w in _covering(row, waivers).values())
+    approvals = session.scalars(select(BoardSequenceApproval).where(BoardSequenceApproval.sequence_id == seq.id)
+                                .order_by(BoardSequenceApproval.id)).all()
+    return RailFacts(state=state, head_n=head.n, checks=None if checks is None else tuple(checks), waived=waived,
+                     approvals=tuple(ApprovalFact(a.reviewer_id, a.reviewer_name, a.revision_n,
+                                                  a.stale_at is not None or a.inputs_sha256 != key)
+                                     for a in approvals),
+                     waivers_by=by, two_person=_board_rules(session, board).two_person)
+
+
+def _words(problems: list[Blocker], facts: RailFacts) -> list[Blocker]:
+    """The blockers as the sequence's page reads them: without a result, the analysis is a queued job."""
+    if facts.checks is not None:
+        return problems
+    return [Blocker(b.demand, f"the board start-up of revision {facts.head_n} with the rails as they are now has no "
+                              "result yet: its analysis is queued; wait for it") if b.demand == "checks" else b
+            for b in problems]
+
+
+def take_transition(*, session: Session, actor: Actor, board_id: int, transition: str, sha256: str,
+                    comment: str = "") -> dict[str, Any]:
+    """Move the board's sequence along one of its team's workflow transitions (its head revision named by sha256),
+    when the actor's role may and the transition's demands are met (refused naming each unmet one), as a rail's."""
+    actor.require(Permission.ADVANCE)
+    board = get_board(session=session, actor=actor, board_id=board_id)
+    seq = session.scalar(select(BoardSequence).where(BoardSequence.board_id == board.id).with_for_update())
+    if seq is None or seq.head_n == 0:
+        raise NotFound(f"board '{board.name}' has no power-up sequence yet")
+    head = _head(session, seq)
+    sha = (sha256 or "").strip().lower()
+    if sha != head.sha256:
+        found = session.scalar(select(BoardSequenceRevision).where(BoardSequenceRevision.sequence_id == seq.id,
+                                                                   BoardSequenceRevision.sha256 == sha)
+                               .order_by(BoardSequenceRevision.n.desc()).limit(1))
+        if found is None:
+            raise Invalid(f"the sequence of board '{board.name}' has no revision with sha256 {sha[:12] or '(none)'}",
+                          details=[{"field": "sha256", "message": "names no revision of this sequence"}])
+        raise Conflict(f"revision {found.n} of the sequence is not its current revision ({head.n}): moving an old "
+                       f"revision is refused; look at revision {head.n}",
+                       extra={"current": {"n": head.n, "sha256": head.sha256}})
+    wf = _workflow(session, board)
+    row = session.get(BoardSequenceState, seq.id)
+    state = _state_name(row, wf)
+    step = wf.transition(state, (transition or "").strip())
+    if step is None:
+        offered = ", ".join(f"'{t.name}'" for t in wf.transitions_from(state)) or "none"
+        raise Invalid(f"the sequence is in '{state}', which offers no transition '{transition}' (it offers "
+                      f"{offered})", details=[{"field": "transition", "message": "is not offered from the current state"}])
+    if not step.allows(actor.role):
+        raise Forbidden(f"'{step.name}' is for {', '.join(step.roles)}; your role is {actor.role}")
+    facts = sequence_facts(session, seq, state=state)
+    problems = _words(blockers(step, facts), facts)
+    if problems:
+        raise TransitionBlocked(f"'{step.name}' cannot be taken yet: " + "; ".join(b.message for b in problems),
+                                details=[b.as_dict() for b in problems])
+    key = _inputs_sha256(head, _board_rails(session, board))
+    _set_state(session, actor, seq, board, row, step.target, key=key,
+               extra={"transition": step.name, "from": state, "sha256": head.sha256,
+                      "comment": (comment or "")[:4000]})
+    session.commit()
+    return {"board_id": board.id, "from": state, "to": step.target, "transition": step.name, "revision": head.n,
+            "signed_off": wf.is_signed_off(step.target)}
 
 
 # --- sign-off: checks, waivers, approvals ----------------------------------------------------------

@@ -38,7 +38,7 @@ from server.workflow import (FAIL_WAIVER_ROLES, PROBLEM_VERDICTS, SEVERITY, Appr
 
 __all__ = ["TransitionBlocked", "NotAnalysed", "approval_dict", "waiver_dict", "result_note", "on_new_revision",
            "make_stale", "approve", "list_approvals", "waive", "carry_waiver", "list_waivers", "take_transition",
-           "signoff_status", "rail_facts", "current_reading", "covering_waivers", "RailRetired"]
+           "signoff_status", "rail_facts", "current_reading", "covering_waivers", "RailRetired", "transition_dicts"]
 
 
 class TransitionBlocked(Conflict):
@@ -229,7 +229,9 @@ def rail_facts(session: Session, rail: Rail, state: str, *, approvals: list[Appr
         waived=_waived_verdicts(waivers, rail.head_n))
 
 
-def _transition_dicts(wf: WorkflowDef, facts: RailFacts, actor: Actor) -> list[dict[str, Any]]:
+def transition_dicts(wf: WorkflowDef, facts: RailFacts, actor: Actor | None) -> list[dict[str, Any]]:
+    """The transitions leaving ``facts.state``, each with its unmet demands and whether ``actor`` may take it now
+    (None: nobody reads as the actor, so nobody may). Reads only."""
     out = []
     for t in wf.transitions_from(facts.state):
         problems = blockers(t, facts)
@@ -237,7 +239,8 @@ def _transition_dicts(wf: WorkflowDef, facts: RailFacts, actor: Actor) -> list[d
                     "demands": {"approvals": t.demands.approvals, "checks_pass": t.demands.checks_pass,
                                 "no_stale_approvals": t.demands.no_stale_approvals},
                     "blockers": [b.as_dict() for b in problems],
-                    "you_may_take": t.allows(actor.role) and actor.can(Permission.ADVANCE) and not problems})
+                    "you_may_take": actor is not None and t.allows(actor.role) and actor.can(Permission.ADVANCE)
+                    and not problems})
     return out
 
 
@@ -285,7 +288,7 @@ def signoff_status(*, session: Session, actor: Actor, rail_id: int) -> dict[str,
         "waivers": [_head_waiver_dict(w, rail.head_n, now, None if checks is None else verdicts.get(w.check_id, "n/a"))
                     for w in waivers],
         "checks": _check_summary(checks, waivers, rail.head_n),
-        "transitions": _transition_dicts(wf, facts, actor),
+        "transitions": transition_dicts(wf, facts, actor),
     }
 
 
