@@ -489,8 +489,10 @@ def sequence_facts(session: Session, seq: BoardSequence, *, state: str) -> RailF
     waived: dict[str, str] = {}
     by: frozenset[int] = frozenset()
     if row is not None:
-        checks = [CheckFact(check_key(c), str(c.get("verdict")), str(c.get("title") or ""))
-                  for c in row.result.get("checks", [])]
+        rows = list(row.result.get("checks", []))
+        named = {k: "; ".join(g["titles"]) for k, g in _problem_checks(rows).items()}  # a check is all its rows
+        checks = [CheckFact(check_key(c), str(c.get("verdict")), named.get(check_key(c)) or str(c.get("title") or ""))
+                  for c in rows]
         if row.result.get("error"):
             checks.append(CheckFact("start-up:board", "fail",
                                     f"the board start-up could not be computed ({row.result['error']})"))
