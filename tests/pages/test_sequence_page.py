@@ -77,6 +77,51 @@ def test_a_reviewer_approves_the_sequence_from_the_page(client, app, people, see
     assert "reviewer, revision 1: dips checked" in page.text
 
 
+def _transition_buttons(html: str) -> list[str]:
+    """The names of the sequence's transition buttons on the board page."""
+    section = html.split('id="sequence-transitions"')[1].split("</ul>\n")[0] if 'id="sequence-transitions"' in html \
+        else ""
+    return re.findall(r'name="transition" value="([^"]+)"', section)
+
+
+def test_the_page_shows_the_sequence_state_its_blockers_and_a_button_per_transition(client, app, people, seeded):
+    board = seeded["board_id"]
+    csrf = log_in(client, app, people.ids["designer"])
+    client.post(f"/boards/{board}/sequence", data={"document": json.dumps(_sequence()), "csrf_token": csrf})
+    run_queued_jobs(app)
+    page = client.get(f"/boards/{board}")
+    state = page.text.split('id="sequence-state"')[1].split("</p>")[0]
+    assert '<span class="tag">in design</span>' in state and "(signed off)" not in state
+    assert _transition_buttons(page.text) == ["submit for review"]
+    sha = page.text.split('name="sha256" value="')[1].split('"')[0]
+    r = client.post(f"/boards/{board}/sequence/transitions", follow_redirects=False,
+                    data={"sha256": sha, "transition": "submit for review", "comment": "", "csrf_token": csrf})
+    assert r.status_code == 303, r.text[:2000]
+    log_in(client, app, people.ids["viewer"])
+    page = client.get(f"/boards/{board}")
+    assert '<span class="tag">awaiting review</span>' in page.text.split('id="sequence-state"')[1].split("</p>")[0]
+    assert _transition_buttons(page.text) == []  # viewers read the state, and take nothing
+    csrf = log_in(client, app, people.ids["reviewer"])
+    page = client.get(f"/boards/{board}")
+    assert "not yet: needs 1 approval of revision 1 by reviewers; it has 0" in page.text
+    assert "accept margins" not in _transition_buttons(page.text) and "send back" in _transition_buttons(page.text)
+    refused = client.post(f"/boards/{board}/sequence/transitions",
+                          data={"sha256": sha, "transition": "accept margins", "comment": "", "csrf_token": csrf})
+    assert refused.status_code == 409
+    assert "cannot be taken yet: needs 1 approval" in refused.text and 'role="alert"' in refused.text
+    csrf2 = log_in(client, app, people.ids["reviewer2"])
+    r = client.post(f"/boards/{board}/sequence/approvals", follow_redirects=False,
+                    data={"sha256": sha, "comment": "dips checked", "csrf_token": csrf2})
+    assert r.status_code == 303
+    csrf = log_in(client, app, people.ids["reviewer"])
+    assert "accept margins" in _transition_buttons(client.get(f"/boards/{board}").text)
+    r = client.post(f"/boards/{board}/sequence/transitions", follow_redirects=False,
+                    data={"sha256": sha, "transition": "accept margins", "comment": "ok", "csrf_token": csrf})
+    assert r.status_code == 303
+    state = client.get(f"/boards/{board}").text.split('id="sequence-state"')[1].split("</p>")[0]
+    assert '<span class="tag">margins accepted</span> (signed off)' in state and "by reviewer (revision 1)" in state
+
+
 def test_the_board_report_carries_the_sequence_timeline_and_checks(client, app, people, seeded):
     board = seeded["board_id"]
     csrf = log_in(client, app, people.ids["designer"])
