@@ -145,3 +145,27 @@ def test_a_rail_edit_moves_the_sequence_back_but_an_unnamed_rail_does_not(client
     reset = [a for a in _sequence_audit(client) if a.action == "reset_state"]
     assert len(reset) == 1 and reset[0].before["state"] == "awaiting review"
     assert "VMAIN" in reset[0].after["note"] and reset[0].after["inputs_sha256"] == now["inputs_sha256"]
+
+
+def test_retiring_a_named_rail_moves_it_back_and_a_start_up_that_cannot_be_computed_blocks_sign_off(
+        client, app, people, board):
+    read = _saved(client, app, people, board, 10.0)
+    assert _move(client, people, board, read, "designer", "submit for review").status_code == 200
+    aux = board["rails"]["VAUX"]
+    r = client.post(f"/api/v1/rails/{aux['id']}/retire", json={"reason": "not fitted"},
+                    headers=people.headers("designer"))
+    assert r.status_code == 200, r.text
+    queued = _state(client, people, board, "designer")
+    assert queued["state"]["name"] == ON_EDIT and queued["result"] is None
+    submit = next(t for t in queued["transitions"] if t["name"] == "submit for review")
+    assert submit["blockers"] == [] and submit["you_may_take"] is True
+    assert _move(client, people, board, read, "designer", "submit for review").status_code == 200
+    # before its job ran: no result of the inputs as they are, said in words
+    early = _move(client, people, board, read, "reviewer", "accept margins")
+    assert early.status_code == 409 and "no result yet" in early.json()["error"]["message"]
+    run_queued_jobs(app)
+    gone = _state(client, people, board, "reviewer")
+    assert gone["result"]["error"] and "VAUX" in gone["result"]["error"]
+    refused = _move(client, people, board, read, "reviewer", "accept margins")
+    assert refused.status_code == 409
+    assert "the board start-up could not be computed" in refused.json()["error"]["message"]
