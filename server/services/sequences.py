@@ -546,7 +546,8 @@ def take_transition(*, session: Session, actor: Actor, board_id: int, transition
     if step is None:
         offered = ", ".join(f"'{t.name}'" for t in wf.transitions_from(state)) or "none"
         raise Invalid(f"the sequence is in '{state}', which offers no transition '{transition}' (it offers "
-                      f"{offered})", details=[{"field": "transition", "message": "is not offered from the current state"}])
+                      f"{offered})",
+                      details=[{"field": "transition", "message": "is not offered from the current state"}])
     if not step.allows(actor.role):
         raise Forbidden(f"'{step.name}' is for {', '.join(step.roles)}; your role is {actor.role}")
     facts = sequence_facts(session, seq, state=state)
