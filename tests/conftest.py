@@ -49,6 +49,14 @@ def pytest_cmdline_main(config):
         config.option.numprocesses = 0
 
 
+def pytest_configure(config):
+    """With two test processes, each keeps numpy's BLAS to one thread: two processes with a thread
+    per core each would overbook the cores (set before xdist starts its workers, which inherit it)."""
+    if getattr(config.option, "numprocesses", 0) and not os.environ.get("PYTEST_XDIST_WORKER"):
+        for name in ("OPENBLAS_NUM_THREADS", "OMP_NUM_THREADS"):
+            os.environ.setdefault(name, "1")
+
+
 @pytest.hookimpl(tryfirst=True)  # before xdist reads the groups
 def pytest_collection_modifyitems(config, items):
     """Tests that share a module-scoped fixture stay in one process (``--dist loadgroup``): the
