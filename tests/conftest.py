@@ -6,11 +6,12 @@ once, and emptied between tests. When no server answers there, a throwaway one f
 postgresql package serves the run (tests/postgres_server.py); without that package the
 PostgreSQL half fails with the command that installs it, never skipped. SQLite: a migrated template file is copied per test.
 
-Two test processes (pytest-xdist, ``-n auto --maxprocesses 2`` in pyproject.toml) share the run. Each has
+Two test processes (pytest-xdist, ``-n auto --maxprocesses 2`` in pyproject.toml) share a run of the whole
+suite. Each has
 its own PostgreSQL database (named after its worker, gw0 or gw1), its own temporary folder (so its
 own SQLite files) and takes free ports for the servers it starts. Tests that share a module-scoped
 fixture (one served app and browser, one computed reading) run in one process, their module's
-group. ``-s`` and ``--pdb`` run the suite in one process, as does ``-n 0``.
+group. Named test paths, ``-s`` and ``--pdb`` run in one process, as does ``-n 0``.
 """
 
 from __future__ import annotations
@@ -41,11 +42,15 @@ TEST_SECRET = "test-secret-" + "x" * 32
 BACKENDS = ["sqlite", "postgres"]
 
 
+@pytest.hookimpl(tryfirst=True)  # before xdist's own, which starts the workers
 def pytest_cmdline_main(config):
-    """``-s`` and ``--pdb`` mean one process: what a test prints must reach the terminal (the stress
-    suite prints its figures), and the debugger needs the terminal. An explicit ``-n`` still wins."""
-    explicit = any(a == "-n" or a.startswith(("-n", "--numprocesses")) for a in config.invocation_params.args)
-    if not explicit and (config.getoption("capture") == "no" or config.getoption("usepdb")):
+    """Two processes for the whole suite (no test paths named: the README's line, ``-m slow``). One
+    process when files or folders are named (starting two processes costs more than such a run
+    gains), with ``-s`` (what a test prints must reach the terminal: the stress suite prints its
+    figures) and with ``--pdb``. An explicit ``-n`` wins over all of these."""
+    explicit = any(a.startswith(("-n", "--numprocesses")) for a in config.invocation_params.args)
+    named_paths = config.args_source is pytest.Config.ArgsSource.ARGS
+    if not explicit and (named_paths or config.getoption("capture") == "no" or config.getoption("usepdb")):
         config.option.numprocesses = 0
 
 
