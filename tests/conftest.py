@@ -6,12 +6,12 @@ once, and emptied between tests. When no server answers there, a throwaway one f
 postgresql package serves the run (tests/postgres_server.py); without that package the
 PostgreSQL half fails with the command that installs it, never skipped. SQLite: a migrated template file is copied per test.
 
-Two test processes (pytest-xdist, ``-n auto --maxprocesses 2`` in pyproject.toml) share a run of the whole
-suite. Each has
-its own PostgreSQL database (named after its worker, gw0 or gw1), its own temporary folder (so its
-own SQLite files) and takes free ports for the servers it starts. Tests that share a module-scoped
-fixture (one served app and browser, one computed reading) run in one process, their module's
-group. Named test paths, ``-s`` and ``--pdb`` run in one process, as does ``-n 0``.
+Two test processes (pytest-xdist, ``-n auto --maxprocesses 2`` in pyproject.toml) share a run of the
+whole suite. Each has its own PostgreSQL database (named after its worker, gw0 or gw1), its own
+temporary folder (so its own SQLite files) and takes free ports for the servers it starts. Tests
+that share a module-scoped fixture (one served app and browser, one computed reading) run in one
+process, their module's group. Named test paths, ``-s`` and ``--pdb`` run in one process, as does
+``-n 0``.
 """
 
 from __future__ import annotations
