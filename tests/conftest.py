@@ -5,6 +5,13 @@ RAILSIGN_TEST_POSTGRES_URL (default: the machine's server, database ``test``), m
 once, and emptied between tests. When no server answers there, a throwaway one from Debian's
 postgresql package serves the run (tests/postgres_server.py); without that package the
 PostgreSQL half fails with the command that installs it, never skipped. SQLite: a migrated template file is copied per test.
+
+Two test processes (pytest-xdist, ``-n auto --maxprocesses 2`` in pyproject.toml) share a run of the
+whole suite. Each has its own PostgreSQL database (named after its worker, gw0 or gw1), its own
+temporary folder (so its own SQLite files) and takes free ports for the servers it starts. Tests
+that share a module-scoped fixture (one served app and browser, one computed reading) run in one
+process, their module's group. Named test paths, ``-s`` and ``--pdb`` run in one process, as does
+``-n 0``.
 """
 
 from __future__ import annotations
@@ -33,6 +40,43 @@ from tests.postgres_server import HOW_TO_INSTALL, ThrowawayPostgres, server_bina
 POSTGRES_URL = os.environ.get("RAILSIGN_TEST_POSTGRES_URL", "postgresql+psycopg://postgres@127.0.0.1:5432/test")
 TEST_SECRET = "test-secret-" + "x" * 32
 BACKENDS = ["sqlite", "postgres"]
+
+
+@pytest.hookimpl(tryfirst=True)  # before xdist's own, which starts the workers
+def pytest_cmdline_main(config):
+    """Two processes for the whole suite (no test paths named: the README's line, ``-m slow``). One
+    process when files or folders are named (starting two processes costs more than such a run
+    gains), with ``-s`` (what a test prints must reach the terminal: the stress suite prints its
+    figures) and with ``--pdb``. An explicit ``-n`` wins over all of these."""
+    explicit = any(a.startswith(("-n", "--numprocesses")) for a in config.invocation_params.args)
+    named_paths = config.args_source is pytest.Config.ArgsSource.ARGS
+    if not explicit and (named_paths or config.getoption("capture") == "no" or config.getoption("usepdb")):
+        config.option.numprocesses = 0
+
+
+def pytest_configure(config):
+    """With two test processes, each keeps numpy's BLAS to one thread: two processes with a thread
+    per core each would overbook the cores (set before xdist starts its workers, which inherit it)."""
+    if getattr(config.option, "numprocesses", 0) and not os.environ.get("PYTEST_XDIST_WORKER"):
+        for name in ("OPENBLAS_NUM_THREADS", "OMP_NUM_THREADS"):
+            os.environ.setdefault(name, "1")
+
+
+@pytest.hookimpl(tryfirst=True)  # before xdist reads the groups
+def pytest_collection_modifyitems(config, items):
+    """Tests that share a module-scoped fixture stay in one process (``--dist loadgroup``): the
+    fixture is made once, and the module's tests see its state in their order."""
+    for item in items:
+        info = getattr(item, "_fixtureinfo", None)
+        if info is None:
+            continue
+        if any(defs[-1].scope in ("module", "package") for defs in info.name2fixturedefs.values() if defs):
+            item.add_marker(pytest.mark.xdist_group(item.nodeid.split("::", 1)[0]))
+
+
+def worker_name() -> str:
+    """This test process's xdist worker (gw0, gw1, ...), or "main" when the run has one process."""
+    return os.environ.get("PYTEST_XDIST_WORKER", "main")
 
 
 def make_settings(url: str, **extra) -> Settings:
@@ -88,9 +132,10 @@ def scratch_postgres_database(admin_url: str, prefix: str) -> Iterator[str]:
 
 @pytest.fixture(scope="session")
 def postgres_database(postgres_admin_url) -> Iterator[str]:
-    """A fresh, migrated PostgreSQL database for this test process; dropped at the end."""
+    """A fresh, migrated PostgreSQL database for this test process (each xdist worker has its own,
+    named after it); dropped at the end."""
     admin_url = make_url(postgres_admin_url)
-    name = f"railsign_test_{uuid.uuid4().hex[:10]}"
+    name = f"railsign_test_{worker_name()}_{uuid.uuid4().hex[:10]}"
     admin = create_engine(admin_url, isolation_level="AUTOCOMMIT")
     with admin.connect() as conn:
         conn.execute(text(f'CREATE DATABASE "{name}"'))

@@ -23,18 +23,25 @@ def _cookie(app, session_factory, user_id: int) -> str:
 
 
 def test_the_session_check_takes_well_under_a_millisecond(app, people, session_factory):
-    """Loose bound (the benchmark measures it): the median of many in-process calls under 1 ms."""
+    """Loose bound (the benchmark measures it): the median of many in-process calls under 1 ms.
+
+    The cores are shared (the other test process, the database server, other work on the machine):
+    the calls run in five rounds and the best round's median counts. A check that is slow by
+    itself is slow in every round."""
     cookie = _cookie(app, session_factory, people.ids["designer"])
     for _ in range(50):
         current_actor(_request(app, cookie))
-    times = []
-    for _ in range(400):
-        t0 = time.perf_counter()
-        actor = current_actor(_request(app, cookie))
-        times.append(time.perf_counter() - t0)
+    medians = []
+    for _ in range(5):
+        times = []
+        for _ in range(400):
+            t0 = time.perf_counter()
+            actor = current_actor(_request(app, cookie))
+            times.append(time.perf_counter() - t0)
+        medians.append(statistics.median(times))
     assert actor.name == "designer" and actor.role == "designer"
-    assert statistics.median(times) < 1e-3, f"median {statistics.median(times) * 1e6:.0f} µs"
-    assert app.state.actor_cache.hits >= 400
+    assert min(medians) < 1e-3, f"medians of the rounds {[round(m * 1e6) for m in medians]} µs"
+    assert app.state.actor_cache.hits >= 5 * 400
 
 
 def test_a_role_change_a_new_team_and_a_logout_are_seen_by_the_next_request(app, client, people, session_factory):

@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import gc
+import statistics
 import time
 from datetime import timedelta
 
@@ -261,16 +262,21 @@ def test_a_running_analysis_does_not_block_the_web_server(running_app, people, b
     # collector from walking it during the measurement.
     gc.collect()
     gc.freeze()
-    worst = 0.0
+    times = []
     try:
         for _ in range(10):
             t0 = time.perf_counter()
             assert client.get("/healthz").status_code == 200
-            worst = max(worst, time.perf_counter() - t0)
+            times.append(time.perf_counter() - t0)
     finally:
         gc.unfreeze()
     client.delete(f"/api/v1/jobs/{job_id}", headers=h)
-    assert worst < 0.5, f"a health check took {worst * 1000:.0f} ms while an analysis ran"
+    # A server the analysis blocked would keep most checks waiting; the cores are shared (the other
+    # test process, other work on the machine), so one check may lose its core for a moment: the
+    # median is held tight, the slowest only loosely.
+    median, worst = statistics.median(times), max(times)
+    assert median < 0.25, f"the median health check took {median * 1000:.0f} ms while an analysis ran"
+    assert worst < 2.0, f"a health check took {worst * 1000:.0f} ms while an analysis ran"
 
 
 def test_job_start_and_finish_are_logged_with_id_and_duration(running_app, people, board, caplog):
