@@ -67,6 +67,9 @@ def _read_state(request: Request, actor: Actor, read: Callable[..., dict[str, An
         return read(session=session, actor=actor, **ids)
 
 
+_UNSEEN = object()  # a token no reading equals
+
+
 def _sse(event: str, data: dict[str, Any]) -> bytes:
     return f"event: {event}\ndata: {json.dumps(data, separators=(',', ':'))}\n\n".encode()
 
@@ -77,7 +80,9 @@ async def _stream(request: Request, actor: Actor, first: dict[str, Any],
     cache = request.app.state.actor_cache
     uid, rows = actor.user_id, getattr(request.state, "user_rows", None)
     yield f"retry: {RETRY_MS}\n\n".encode() + _sse("state", first)
-    last, seen = first, await run_in_threadpool(token.get)
+    # the first tick reads the state again whatever the token says: a change committed between the first
+    # reading and the token's would otherwise be taken as seen and never pushed
+    last, seen = first, _UNSEEN
     started = last_sent = time.monotonic()
     while time.monotonic() - started < STREAM_LIFE_S:
         await asyncio.sleep(TICK_S)
