@@ -17,23 +17,14 @@ from server.services import jobs, sequences
 from server.services.access import Actor
 from tests.conftest import make_settings
 from tests.factories import rail_doc
+from tests.sequence_support import make_board
 from tests.job_support import run_queued_jobs
 from tests.signoff_support import PASSING, store_checks
 
 
 @pytest.fixture
 def board(client, people) -> dict:
-    h = people.headers("designer")
-    product = client.post("/api/v1/products", json={"name": "Sequence gateway"}, headers=h)
-    board = client.post("/api/v1/boards", json={"product_id": product.json()["id"], "name": "Main"}, headers=h)
-    assert board.status_code == 201, board.text
-    rails = {}
-    for name in ("VMAIN", "VAUX"):
-        r = client.post("/api/v1/rails", json={"board_id": board.json()["id"], "document": rail_doc(name=name)},
-                        headers=h)
-        assert r.status_code == 201, r.text
-        rails[name] = r.json()
-    return {**board.json(), "rails": rails}
+    return make_board(client, people, "Sequence gateway", ("VMAIN", "VAUX"))
 
 
 def _sequence(**supply) -> dict:

@@ -9,22 +9,13 @@ from sqlalchemy import select
 
 from server.models import AuditEntry
 from tests.factories import rail_doc
+from tests.sequence_support import make_board
 from tests.job_support import run_queued_jobs
 
 
 @pytest.fixture
 def board(client, people) -> dict:
-    h = people.headers("designer")
-    product = client.post("/api/v1/products", json={"name": "Sequence waivers"}, headers=h)
-    board = client.post("/api/v1/boards", json={"product_id": product.json()["id"], "name": "Main"}, headers=h)
-    assert board.status_code == 201, board.text
-    rails = {}
-    for name in ("VMAIN", "VAUX"):
-        r = client.post("/api/v1/rails", json={"board_id": board.json()["id"], "document": rail_doc(name=name)},
-                        headers=h)
-        assert r.status_code == 201, r.text
-        rails[name] = r.json()
-    return {**board.json(), "rails": rails, "url": f"/api/v1/boards/{board.json()['id']}/sequence"}
+    return make_board(client, people, "Sequence waivers", ("VMAIN", "VAUX"))
 
 
 def _sequence(i_max: float) -> dict:

@@ -11,6 +11,7 @@ from sqlalchemy import select
 from server.models import AuditEntry
 from server.workflow import DEFAULT_WORKFLOW
 from tests.factories import rail_doc
+from tests.sequence_support import make_board
 from tests.job_support import run_queued_jobs
 
 INITIAL = next(s["name"] for s in DEFAULT_WORKFLOW["states"] if s["initial"])
@@ -19,17 +20,8 @@ ON_EDIT = DEFAULT_WORKFLOW["on_edit"]
 
 @pytest.fixture
 def board(client, people) -> dict:
-    h = people.headers("designer")
-    product = client.post("/api/v1/products", json={"name": "Sequence workflow"}, headers=h)
-    board = client.post("/api/v1/boards", json={"product_id": product.json()["id"], "name": "Main"}, headers=h)
-    assert board.status_code == 201, board.text
-    rails = {}
-    for name in ("VMAIN", "VAUX", "VFAN"):  # VFAN: a rail the sequence does not name
-        r = client.post("/api/v1/rails", json={"board_id": board.json()["id"], "document": rail_doc(name=name)},
-                        headers=h)
-        assert r.status_code == 201, r.text
-        rails[name] = r.json()
-    return {**board.json(), "rails": rails, "url": f"/api/v1/boards/{board.json()['id']}/sequence"}
+    # VFAN: a rail the sequence does not name
+    return make_board(client, people, "Sequence workflow", ("VMAIN", "VAUX", "VFAN"))
 
 
 def _sequence(i_max: float, delay: float = 1e-3) -> dict:
