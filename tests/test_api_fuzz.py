@@ -44,7 +44,7 @@ from tests.conftest import make_settings
 FUZZ_USERS = {"admin": "fuzz-admin", "designer": "fuzz-designer"}
 SHORT_EXAMPLES = 2  # per operation, mode and role: about 450 requests, under a minute
 LONG_EXAMPLES = 100  # per operation, mode and role: over 20,000 requests
-OPERATIONS = 78
+OPERATIONS = 81
 ANALYSED = 6  # demo rails given a stored result before the pass
 
 

@@ -259,3 +259,29 @@ def test_an_in_process_worker_runs_the_job_a_sequence_save_queues(database_url, 
             assert read["result"]["verdict"] == "pass" and read["inputs_sha256"] == job["sha256"]
     finally:
         app.state.engine.dispose()
+
+
+def test_every_revision_is_kept_read_back_and_compared(client, people, board):
+    url, h = board["url"], people.headers("designer")
+    assert client.get(f"{url}/revisions", headers=people.headers("viewer")).status_code == 404
+    first = _sequence()
+    assert client.put(url, json={"document": first, "message": "first"}, headers=h).status_code == 200
+    second = _sequence(i_max=6.0)
+    second["rails"][1]["enable"]["delay"] = 2e-3
+    assert client.put(url, json={"document": second, "message": "weaker supply"}, headers=h).status_code == 200
+    listed = client.get(f"{url}/revisions", headers=people.headers("viewer"))
+    assert listed.status_code == 200, listed.text
+    body = listed.json()
+    assert body["total"] == 2 and [r["n"] for r in body["items"]] == [2, 1]
+    assert [r["message"] for r in body["items"]] == ["weaker supply", "first"]
+    assert "document" not in body["items"][0]
+    # an old revision reads back as it was saved
+    old = client.get(f"{url}/revisions/1", headers=people.headers("viewer")).json()
+    assert old["n"] == 1 and old["document"]["supplies"][0]["i_max"] == 10.0
+    assert old["sha256"] == body["items"][1]["sha256"]
+    diff = client.get(f"{url}/diff", params={"from": 1, "to": 2}, headers=people.headers("viewer")).json()
+    assert diff["from"]["n"] == 1 and diff["to"]["n"] == 2
+    assert {(c["field"], c["change"], c["old"], c["new"]) for c in diff["changes"]} == {
+        ("supplies[0].i_max", "changed", 10.0, 6.0), ("rails[1].enable.delay", "changed", 1e-3, 2e-3)}
+    missing = client.get(f"{url}/revisions/9", headers=people.headers("viewer"))
+    assert missing.status_code == 404 and "no revision 9" in missing.json()["error"]["message"]

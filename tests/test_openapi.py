@@ -59,13 +59,16 @@ def _success_schema(op: dict) -> list[str]:
 
 def test_the_api_has_every_operation(openapi):
     ops = operations(openapi)
-    assert len(ops) == 78
+    assert len(ops) == 81
     names = {(m, p) for m, p, _ in ops}
     assert {("GET", "/api/v1/reviews/queue"), ("PUT", "/api/v1/teams/{team_id}/signoff-rules"),
             ("POST", "/api/v1/rails/{rail_id}/retire"), ("POST", "/api/v1/rails/{rail_id}/restore"),
             ("GET", "/api/v1/boards/{board_id}/sequence/waivers"),
             ("POST", "/api/v1/boards/{board_id}/sequence/waivers"),
-            ("POST", "/api/v1/boards/{board_id}/sequence/transitions")} <= names
+            ("POST", "/api/v1/boards/{board_id}/sequence/transitions"),
+            ("GET", "/api/v1/boards/{board_id}/sequence/revisions"),
+            ("GET", "/api/v1/boards/{board_id}/sequence/revisions/{n}"),
+            ("GET", "/api/v1/boards/{board_id}/sequence/diff")} <= names
     assert all(path.startswith("/api/v1/") or path == "/healthz" for _, path, _ in ops)
 
 

@@ -113,6 +113,7 @@ __all__ = [
     "Sequence",
     "Timeline",
     "SEQUENCE_TITLES",
+    "SEQUENCE_UNITS",
     "sequence_title",
     "read_sequence",
     "simulate_sequence",
@@ -171,6 +172,14 @@ SEQUENCE_TITLES: dict[str, str] = {
     "rails[].enable.after": "Sequence rail {0} enabling rail",
     "rails[].enable.threshold": "Sequence rail {0} enabling power-good threshold",
     "rails[].enable.delay": "Sequence rail {0} power-good delay",
+}
+
+# the unit of each number of the document (a kind of :func:`server.analysis.units.quantity`); the power-good
+# thresholds are fractions of the rail's nominal output
+SEQUENCE_UNITS: dict[str, str] = {
+    "t_stop": "s", "supplies[].v_nom": "V", "supplies[].v_min": "V", "supplies[].r_source": "ohm",
+    "supplies[].l_source": "H", "supplies[].i_max": "A", "supplies[].i_limit": "A", "supplies[].c_bus": "F",
+    "supplies[].uvlo": "V", "rails[].enable.at": "s", "rails[].enable.delay": "s",
 }
 
 _KEYS = {

@@ -4,13 +4,14 @@ from __future__ import annotations
 
 from typing import Annotated
 
-from fastapi import APIRouter, Depends, Response
+from fastapi import APIRouter, Depends, Query, Response
 
-from server.api.common import IdPath, IdQuery, PageDep, SearchText, TypedRoute, errors
+from server.api.common import ID_MAX, IdPath, IdQuery, PageDep, SearchText, TypedRoute, errors
 from server.auth import CurrentActor, require, require_any
 from server.db import SessionDep
 from server.schemas.api import BoardIn, BoardPatch, SequenceSave
-from server.schemas.responses import (Board, BoardSequence, Listing, Page, SequenceApproval, SequenceTransitionTaken,
+from server.schemas.responses import (Board, BoardSequence, Listing, Page, SequenceApproval, SequenceDiff,
+                                      SequenceRevision, SequenceRevisionSummary, SequenceTransitionTaken,
                                       SequenceWaiver)
 from server.schemas.signoff import ApprovalIn, SequenceWaiverIn, TransitionIn
 from server.services import catalog, sequences
@@ -75,6 +76,30 @@ def put_sequence(board_id: IdPath, body: SequenceSave, session: SessionDep, acto
     seq, _, _ = sequences.save_sequence(session=session, actor=actor, board_id=board_id, document=body.document,
                                         base_sha256=body.base_sha256, message=body.message)
     return sequences.sequence_dict(session, seq, actor=actor)
+
+
+@router.get("/{board_id}/sequence/revisions", response_model=Page[SequenceRevisionSummary],
+            responses=errors(401, 404, 422))
+def list_sequence_revisions(board_id: IdPath, session: SessionDep, actor: CurrentActor, page: PageDep) -> dict:
+    """The revisions of the board's power-up sequence, newest first (``total``: the head revision's number)."""
+    rows, total = sequences.list_revisions(session=session, actor=actor, board_id=board_id, limit=page.limit,
+                                           offset=page.offset)
+    return page.answer([sequences.revision_dict(r, board_id=board_id, with_document=False) for r in rows], total)
+
+
+@router.get("/{board_id}/sequence/revisions/{n}", response_model=SequenceRevision, responses=errors(401, 404, 422))
+def get_sequence_revision(board_id: IdPath, n: IdPath, session: SessionDep, actor: CurrentActor) -> dict:
+    """One revision of the board's power-up sequence with its document as it was saved."""
+    rev = sequences.get_revision(session=session, actor=actor, board_id=board_id, n=n)
+    return sequences.revision_dict(rev, board_id=board_id)
+
+
+@router.get("/{board_id}/sequence/diff", response_model=SequenceDiff, responses=errors(401, 404, 422))
+def diff_sequence(board_id: IdPath, session: SessionDep, actor: CurrentActor,
+                  from_n: Annotated[int, Query(alias="from", ge=1, le=ID_MAX)],
+                  to_n: Annotated[int, Query(alias="to", ge=1, le=ID_MAX)]) -> dict:
+    """The field-level changes of the sequence document between two of its revisions (JSON paths)."""
+    return sequences.diff_revisions(session=session, actor=actor, board_id=board_id, from_n=from_n, to_n=to_n)
 
 
 @router.post("/{board_id}/sequence/approvals", status_code=201, response_model=SequenceApproval,

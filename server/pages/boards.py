@@ -13,7 +13,10 @@ from server.services import jobs
 from server.auth import CurrentActor, require, require_any
 from server.db import SessionDep
 from server.pages import signoff_view
+from server.analysis.sequence import SEQUENCE_UNITS, sequence_title
+from server.analysis.words import generic_path
 from server.pages.display import VERDICT_ORDER, check_records, fmt, verdict_style, worst_check
+from server.pages.history import diff_value
 from server.pages.page_cache import cached_page
 from server.pages.plots import budget_figure, sequence_figure
 from server.pages.rendering import page_context, redirect, render
@@ -74,6 +77,38 @@ def _waiving(actor: Actor, rules: dict[str, Any], checks: list[dict[str, Any]]) 
             for c in checks]
 
 
+_FRACTIONS = ("rails[].power_good", "rails[].enable.threshold")
+
+
+def sequence_value(path: str, value: Any) -> str:
+    """A value of the sequence document as a person reads it: engineering notation with its unit, a power-good
+    threshold as a percentage of the rail's output; inside an inline rail, as the rail's history shows it."""
+    head, sep, inner = path.partition(".rail.")
+    if sep and head.startswith("rails["):
+        return diff_value(inner, value)
+    generic = generic_path(path)
+    numeric = isinstance(value, (int, float)) and not isinstance(value, bool)
+    if generic in _FRACTIONS and numeric:
+        return f"{value:.0%} of the rail's output"
+    kind = SEQUENCE_UNITS.get(generic)
+    if kind is not None and numeric:
+        return fmt(float(value), kind, 4)
+    if kind is not None and isinstance(value, list) and all(isinstance(v, (int, float)) for v in value):
+        return ", ".join(fmt(float(v), kind, 4) for v in value) or "(none)"
+    return diff_value(path, value) if not isinstance(value, str) else value
+
+
+def sequence_history(session: Session, actor: Actor, board_id: int) -> list[dict[str, Any]]:
+    """The sequence's latest revisions, each with its changes from the one before in words."""
+    history = sequences.revision_history(session=session, actor=actor, board_id=board_id)
+    for rev in history:
+        if rev["changes"] is not None:
+            rev["changes"] = [{"field": c["field"], "title": sequence_title(c["field"]), "change": c["change"],
+                               "old": sequence_value(c["field"], c["old"]),
+                               "new": sequence_value(c["field"], c["new"])} for c in rev["changes"]]
+    return history
+
+
 def sequence_context(session: Session, actor: Actor, board_id: int, *, text: str | None = None,
                      error: dict[str, Any] | None = None,
                      signoff_error: dict[str, Any] | None = None) -> dict[str, Any]:
@@ -106,6 +141,7 @@ def sequence_context(session: Session, actor: Actor, board_id: int, *, text: str
             "workflow": data["workflow"], "state": data["state"], "transitions": data["transitions"],
             "conventions": shown.get("conventions", []), "caution": shown.get("caution"),
             "problem": shown.get("error"), "duration_s": shown.get("duration_s"),
+            "history": sequence_history(session, actor, board_id),
             "text": text if text is not None else json.dumps(data["document"], indent=2), "error": error}
 
 

@@ -786,6 +786,27 @@ class ArchivedReport(_Model):
     download: str = Field(description="where the PDF is")
 
 
+class SequenceRevisionSummary(_Model):
+    board_id: int
+    n: int
+    sha256: Sha256
+    author: str
+    author_id: int | None
+    message: str
+    created_at: Timestamp
+
+
+class SequenceRevision(SequenceRevisionSummary):
+    document: dict[str, Any] = Field(description="the sequence document of this revision (railsign.sequence/1)")
+
+
+class SequenceDiff(_Model):
+    board_id: int
+    from_: SequenceRevisionSummary = Field(alias="from")
+    to: SequenceRevisionSummary
+    changes: list[FieldChange]
+
+
 class SequenceApproval(_Model):
     id: int
     revision_n: int

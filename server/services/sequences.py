@@ -60,7 +60,7 @@ from server.services.access import Actor, Permission
 from server.services.audit import record
 from server.services.catalog import get_board
 from server.services.errors import Conflict, Forbidden, Invalid, NotFound, flush_or_conflict
-from server.services.rails import normalize_document
+from server.services.rails import diff_documents, normalize_document
 from server.services.results import engine_version
 from server.services.signoff import TransitionBlocked, covering_waivers, transition_dicts
 from server.workflow import (FAIL_WAIVER_ROLES, PROBLEM_VERDICTS, SEVERITY, ApprovalFact, Blocker, CheckFact,
@@ -70,7 +70,8 @@ from server.workflow import (FAIL_WAIVER_ROLES, PROBLEM_VERDICTS, SEVERITY, Appr
 __all__ = ["sequence_dict", "approval_dict", "get_sequence", "save_sequence", "current_result", "on_rail_revision",
            "on_rail_change", "approve", "JobInputs", "Superseded", "job_inputs", "analyse", "finish_job",
            "enqueue_outdated", "waiver_dict", "waive", "list_waivers", "check_key", "check_document",
-           "board_sequence", "take_transition", "sequence_facts"]
+           "board_sequence", "take_transition", "sequence_facts", "revision_dict", "list_revisions", "get_revision",
+           "diff_revisions", "revision_history"]
 
 
 def _sha256(data: Any) -> str:
@@ -315,6 +316,53 @@ def get_sequence(*, session: Session, actor: Actor, board_id: int) -> BoardSeque
     if seq is None or seq.head_n == 0:
         raise NotFound(f"board '{board.name}' has no power-up sequence yet")
     return seq
+
+
+def revision_dict(rev: BoardSequenceRevision, *, board_id: int, with_document: bool = True) -> dict[str, Any]:
+    out = {"board_id": board_id, "n": rev.n, "sha256": rev.sha256, "author": rev.author_name,
+           "author_id": rev.author_id, "message": rev.message, "created_at": rev.created_at.isoformat()}
+    if with_document:
+        out["document"] = rev.document
+    return out
+
+
+def list_revisions(*, session: Session, actor: Actor, board_id: int, limit: int = 50,
+                   offset: int = 0) -> tuple[list[BoardSequenceRevision], int]:
+    """The sequence's revisions, newest first, and how many there are (the head's number). Reads only."""
+    seq = get_sequence(session=session, actor=actor, board_id=board_id)
+    rows = session.scalars(select(BoardSequenceRevision).where(BoardSequenceRevision.sequence_id == seq.id)
+                           .order_by(BoardSequenceRevision.n.desc()).limit(limit).offset(offset)).all()
+    return list(rows), seq.head_n
+
+
+def get_revision(*, session: Session, actor: Actor, board_id: int, n: int) -> BoardSequenceRevision:
+    seq = get_sequence(session=session, actor=actor, board_id=board_id)
+    rev = session.scalar(select(BoardSequenceRevision).where(BoardSequenceRevision.sequence_id == seq.id,
+                                                             BoardSequenceRevision.n == n))
+    if rev is None:
+        raise NotFound(f"the board's power-up sequence has no revision {n}")
+    return rev
+
+
+def revision_history(*, session: Session, actor: Actor, board_id: int, limit: int = 20) -> list[dict[str, Any]]:
+    """The newest ``limit`` revisions of the sequence, newest first, each with the field-level changes from the
+    revision before it (``changes``; the first revision has none). Reads only."""
+    rows, _ = list_revisions(session=session, actor=actor, board_id=board_id, limit=limit + 1)
+    out = []
+    for k, rev in enumerate(rows[:limit]):
+        before = rows[k + 1] if k + 1 < len(rows) else None
+        out.append({**revision_dict(rev, board_id=board_id, with_document=False),
+                    "changes": diff_documents(before.document, rev.document) if before is not None else None})
+    return out
+
+
+def diff_revisions(*, session: Session, actor: Actor, board_id: int, from_n: int, to_n: int) -> dict[str, Any]:
+    """The field-level changes of the sequence document from revision ``from_n`` to ``to_n``."""
+    old = get_revision(session=session, actor=actor, board_id=board_id, n=from_n)
+    new = get_revision(session=session, actor=actor, board_id=board_id, n=to_n)
+    return {"board_id": board_id, "from": revision_dict(old, board_id=board_id, with_document=False),
+            "to": revision_dict(new, board_id=board_id, with_document=False),
+            "changes": diff_documents(old.document, new.document)}
 
 
 def _make_stale(session: Session, actor: Actor, seq: BoardSequence, reason: str, *, key: str | None = None) -> None:

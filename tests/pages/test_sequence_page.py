@@ -61,6 +61,30 @@ def test_the_sequence_form_refuses_a_cycle_then_saves_and_the_page_shows_the_tim
     assert 'id="approve-sequence"' not in page.text  # a designer does not review
 
 
+def test_the_page_lists_the_sequence_revisions_with_their_changes_in_words(client, app, people, seeded):
+    board = seeded["board_id"]
+    csrf = log_in(client, app, people.ids["designer"])
+    first = _sequence()
+    second = _sequence()
+    second["supplies"][0]["i_max"] = 4.5
+    second["rails"][1]["enable"]["threshold"] = 0.8
+    for doc, message in ((first, "first cut"), (second, "smaller adapter")):
+        r = client.post(f"/boards/{board}/sequence", data={"document": json.dumps(doc), "message": message,
+                                                          "csrf_token": csrf}, follow_redirects=False)
+        assert r.status_code == 303, r.text[:2000]
+    html = client.get(f"/boards/{board}").text
+    assert "Revisions of the sequence (2)" in html
+    newest = html[html.index('id="sequence-revision-2"'):html.index('id="sequence-revision-1"')]
+    assert "smaller adapter" in newest and "Changed from revision 1" in newest
+    rows = dict(re.findall(r'<tr data-field="([^"]+)"><td>([^<]+)</td>', newest))
+    # the fields in words, the values in engineering notation with their units
+    assert rows == {"supplies[0].i_max": "Shared supply 1 current capability",
+                    "rails[1].enable.threshold": "Sequence rail 2 enabling power-good threshold"}
+    assert "6 A" in newest and "4.5 A" in newest and "90% of the rail&#39;s output" in newest
+    oldest = html[html.index('id="sequence-revision-1"'):]
+    assert "first cut" in oldest and "The first revision." in oldest
+
+
 def test_a_reviewer_approves_the_sequence_from_the_page(client, app, people, seeded):
     board = seeded["board_id"]
     csrf = log_in(client, app, people.ids["designer"])
