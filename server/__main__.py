@@ -28,7 +28,7 @@ import railsign
 from railsign import gate
 from server import backup, migrate, transfer
 from server.analysis import DocumentError, analyze_rail, format_report
-from server.analysis.sequence import analyze_sequence, format_sequence_report
+from server.analysis.sequence import analyze_sequence, format_sequence_report, timeline_csv
 from server.analysis.units import quantity
 from server.analysis.zth_fit import BOARD_TAU_WORDS, METHOD
 from server.app import create_app
@@ -323,6 +323,8 @@ def cmd_sequence(args: argparse.Namespace) -> int:
         raise CliError(f"{args.file} is not a valid board sequence:\n{lines}") from None
     if args.json:
         print(json.dumps(result, indent=2, allow_nan=False))
+    elif args.csv:
+        sys.stdout.write(timeline_csv(result))
     else:
         print(format_sequence_report(result))
     failing = any(c["verdict"] == "fail" for c in result["checks"])
@@ -584,7 +586,10 @@ def build_parser() -> argparse.ArgumentParser:
                 "every rail on its shared supplies on one time line, at nominal and supply-low (no database needed)")
     p.add_argument("file", help="sequence document (JSON), or - for standard input; rails given by ref are "
                                 "rail files relative to it")
-    p.add_argument("--json", action="store_true", help="print one JSON object (SI units) instead of the report")
+    out = p.add_mutually_exclusive_group()
+    out.add_argument("--json", action="store_true", help="print one JSON object (SI units) instead of the report")
+    out.add_argument("--csv", action="store_true", help="print the time lines as CSV (a row per instant and corner: "
+                                                        "supplies' voltage and current, rails' current and output)")
 
     p = command("check", cmd_check,
                 "CI gate: analyse every rail file (*.json, recursively; a bundle counts each rail) on the sign-off "

@@ -2,6 +2,8 @@
 
 from __future__ import annotations
 
+import csv
+import io
 import json
 from pathlib import Path
 
@@ -63,3 +65,21 @@ def test_the_example_sequence_reads_rails_in_engineering_notation(capsys):
     out = capsys.readouterr().out
     assert code == EXIT_OK, out
     assert "rail main (VOUT_12V_MAIN, on in12)" in out and "rail aux (VOUT_12V_AUX, on in12)" in out
+
+
+def test_csv_prints_every_instant_of_each_corner_as_the_json_holds_it(tmp_path, capsys):
+    path = _sequence(tmp_path)
+    assert main(["sequence", path, "--json"]) == EXIT_OK
+    result = json.loads(capsys.readouterr().out)
+    assert main(["sequence", path, "--csv"]) == EXIT_OK
+    rows = list(csv.reader(io.StringIO(capsys.readouterr().out)))
+    assert rows[0] == ["Corner", "Time (s)", "12 V input: voltage (V)", "12 V input: current (A)",
+                       "Rail main (12 V main, eFuse): input current (A)",
+                       "Rail logic (12 V logic, slew-controlled): input current (A)",
+                       "Rail main (12 V main, eFuse): output (V)", "Rail logic (12 V logic, slew-controlled): output (V)"]
+    for corner in result["corners"]:
+        mine = [row for row in rows[1:] if row[0] == corner["title"]]
+        series = corner["series"]
+        assert [float(r[1]) for r in mine] == series["t"]
+        assert [float(r[3]) for r in mine] == series["supplies"]["p12"]["i"]
+        assert [float(r[7]) for r in mine] == series["rails"]["logic"]["v_out"]

@@ -51,6 +51,7 @@ ROUTES: list[tuple[str, str, str]] = [
     ("POST",   "/products/{product_id}/import",                     P.EDIT),
     ("GET",    "/rail-table-template.csv",                          P.READ),
     ("GET",    "/boards/{board_id}",                                P.READ),
+    ("GET",    "/boards/{board_id}/sequence.csv",                   P.READ),
     ("GET",    "/boards/{board_id}/events",                         P.READ),
     ("GET",    "/rails/{rail_id}/events",                           P.READ),
     ("POST",   "/boards/{board_id}/analyses",                       P.ANALYZE),

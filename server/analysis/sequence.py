@@ -114,6 +114,7 @@ __all__ = [
     "Timeline",
     "SEQUENCE_TITLES",
     "SEQUENCE_UNITS",
+    "timeline_csv",
     "sequence_title",
     "read_sequence",
     "simulate_sequence",
@@ -1083,6 +1084,34 @@ def analyze_sequence(doc: Any, rail_documents: dict[str, Any] | None = None, tea
             "analysis follows each group on its DC-bias curve.",
         ],
     }
+
+
+def timeline_csv(result: dict) -> str:
+    """The time lines of a sequence result as CSV text, one row per computed instant of each corner: the corner in
+    words, the time (s), every shared supply's voltage (V) and total current (A), every rail's input current (A)
+    and output (V), headed in words with their units. Each corner keeps its own time steps (the integrator's)."""
+    import csv
+    import io
+
+    corners = result.get("corners", [])
+    supplies = [(s["id"], s["name"]) for s in corners[0]["supplies"]] if corners else []
+    rails = [(r["id"], r["name"]) for r in corners[0]["rails"]] if corners else []
+    header = ["Corner", "Time (s)"]
+    header += [f"{name}: voltage (V)" for _, name in supplies] + [f"{name}: current (A)" for _, name in supplies]
+    header += [f"Rail {rid} ({name}): input current (A)" for rid, name in rails]
+    header += [f"Rail {rid} ({name}): output (V)" for rid, name in rails]
+    out = io.StringIO()
+    writer = csv.writer(out, lineterminator="\n")
+    writer.writerow(header)
+    for corner in corners:
+        series = corner["series"]
+        columns = [series["supplies"][sid]["v"] for sid, _ in supplies]
+        columns += [series["supplies"][sid]["i"] for sid, _ in supplies]
+        columns += [series["rails"][rid]["i"] for rid, _ in rails]
+        columns += [series["rails"][rid]["v_out"] for rid, _ in rails]
+        for k, t in enumerate(series["t"]):
+            writer.writerow([corner["title"], repr(float(t))] + [repr(float(col[k])) for col in columns])
+    return out.getvalue()
 
 
 def format_sequence_report(result: dict) -> str:

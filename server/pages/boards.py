@@ -13,7 +13,7 @@ from server.services import jobs
 from server.auth import CurrentActor, require, require_any
 from server.db import SessionDep
 from server.pages import signoff_view
-from server.analysis.sequence import SEQUENCE_UNITS, sequence_title
+from server.analysis.sequence import SEQUENCE_UNITS, sequence_title, timeline_csv
 from server.analysis.words import generic_path
 from server.pages.display import VERDICT_ORDER, check_records, fmt, verdict_style, worst_check
 from server.pages.history import diff_value
@@ -184,6 +184,19 @@ def board_page(board_id: int, request: Request, session: SessionDep, actor: Curr
                verdict: str = "", mode: str = "") -> Response:
     return cached_page(request, actor, "board.html",
                        lambda: board_context(session, actor, board_id, q=q, verdict=verdict, mode=mode))
+
+
+@router.get("/boards/{board_id}/sequence.csv")
+def sequence_csv(board_id: int, session: SessionDep, actor: CurrentActor) -> Response:
+    """The time lines of the sequence's stored result of the board as it is now, as CSV (never an outdated one)."""
+    seq = sequences.get_sequence(session=session, actor=actor, board_id=board_id)
+    row = sequences.current_result(session, seq)
+    if row is None:
+        raise NotFound("the power-up sequence of the board as it is now has no result yet: its analysis is queued "
+                       "or running")
+    return Response(timeline_csv(row.result), media_type="text/csv; charset=utf-8",
+                    headers={"Content-Disposition": f'attachment; filename="sequence-board-{board_id}-'
+                                                    f'revision-{seq.head_n}.csv"'})
 
 
 @router.post("/boards/{board_id}/analyses")

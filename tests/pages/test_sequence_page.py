@@ -3,6 +3,8 @@ the approval form; the demo's failing sequence waived under the team's rules bef
 
 from __future__ import annotations
 
+import csv
+import io
 import json
 import re
 
@@ -52,11 +54,27 @@ def test_the_sequence_form_refuses_a_cycle_then_saves_and_the_page_shows_the_tim
         job = s.scalar(select(Job).where(Job.kind == "sequence"))
     assert 'id="sequence-pending"' in page.text and f'href="/api/v1/jobs/{job.id}"' in page.text
     assert 'id="sequence-nominal"' not in page.text and 'id="sequence-outdated"' not in page.text
+    assert client.get(f"/boards/{board}/sequence.csv").status_code == 404  # no result of these inputs yet
     assert run_queued_jobs(app) == [job.id]
     page = client.get(f"/boards/{board}")
     assert 'id="sequence-pending"' not in page.text
     assert 'id="sequence-nominal"' in page.text and 'id="sequence-supply_low"' in page.text
     assert "Rail second reaches power-good (nominal supply)" in page.text
+    # the time lines download as CSV from the stored result: a row per instant of each corner
+    assert f'href="/boards/{board}/sequence.csv"' in page.text
+    table = client.get(f"/boards/{board}/sequence.csv")
+    assert table.status_code == 200 and table.headers["content-type"].startswith("text/csv")
+    lines = list(csv.reader(io.StringIO(table.text)))
+    assert lines[0][:3] == ["Corner", "Time (s)", "12 V input: voltage (V)"]
+    assert "Rail second (RAIL_1): input current (A)" in lines[0]
+    with app.state.sessionmaker() as s:
+        stored = s.scalar(select(BoardSequenceResult)).result
+    corners = [c["title"] for c in stored["corners"]]
+    assert {row[0] for row in lines[1:]} == set(corners)
+    assert len(lines) - 1 == sum(len(c["series"]["t"]) for c in stored["corners"])
+    first = next(row for row in lines[1:] if row[0] == corners[0] and float(row[1]) > 0)
+    k = stored["corners"][0]["series"]["t"].index(float(first[1]))
+    assert float(first[2]) == stored["corners"][0]["series"]["supplies"]["in12"]["v"][k]
     assert "does not certify hardware" in page.text
     assert 'id="approve-sequence"' not in page.text  # a designer does not review
 
