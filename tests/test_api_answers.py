@@ -225,6 +225,14 @@ def test_every_operation_answers_its_declared_model_through_a_products_life(clie
         call("POST", "/api/v1/boards/{board_id}/sequence/waivers", 201, role="reviewer", board_id=board["id"],
              json_body={"sha256": second["sha256"], "inputs_sha256": failing_seq["inputs_sha256"],
                         "check_id": problem["check_id"], "reason": "the bench supply is a stand-in"})
+    revisions = call("GET", "/api/v1/boards/{board_id}/sequence/revisions", 200, role="viewer", board_id=board["id"])
+    assert [r["n"] for r in revisions["items"]] == [2, 1] and revisions["items"][0]["message"] == "a weaker supply"
+    first = call("GET", "/api/v1/boards/{board_id}/sequence/revisions/{n}", 200, role="viewer", board_id=board["id"],
+                 n=1)
+    assert first["sha256"] == sequence["sha256"] and first["document"]["supplies"][0]["i_max"] != 0.05
+    seq_diff = call("GET", "/api/v1/boards/{board_id}/sequence/diff", 200, role="viewer", board_id=board["id"],
+                    params={"from": 1, "to": 2})
+    assert [c["field"] for c in seq_diff["changes"]] == ["supplies[0].i_max"]
     listed = call("GET", "/api/v1/boards/{board_id}/sequence/waivers", 200, role="viewer", board_id=board["id"])
     assert listed["total"] == len(failing_seq["problem_checks"]) and all(w["current"] for w in listed["items"])
     call("POST", "/api/v1/boards/{board_id}/sequence/approvals", 201, role="reviewer2", board_id=board["id"],
