@@ -168,14 +168,18 @@ class PartDetail(Part):
 # --- rails, revisions, diffs -----------------------------------------------------------------
 
 
-class RevisionSummary(_Model):
-    rail_id: int
+class _RevisionFields(_Model):
+    """What every stored revision (a rail's, a board sequence's) says of itself."""
     n: int
     sha256: Sha256
     author: str
     author_id: int | None
     message: str
     created_at: Timestamp
+
+
+class RevisionSummary(_RevisionFields):
+    rail_id: int
     part_revision_id: int | None
 
 
@@ -786,14 +790,8 @@ class ArchivedReport(_Model):
     download: str = Field(description="where the PDF is")
 
 
-class SequenceRevisionSummary(_Model):
+class SequenceRevisionSummary(_RevisionFields):
     board_id: int
-    n: int
-    sha256: Sha256
-    author: str
-    author_id: int | None
-    message: str
-    created_at: Timestamp
 
 
 class SequenceRevision(SequenceRevisionSummary):
