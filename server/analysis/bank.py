@@ -58,7 +58,7 @@ import numpy as np
 
 __all__ = ["DIELECTRICS", "CLASS_II", "DIELECTRIC_WORDS", "BankGroup", "BankShape", "bank_shape", "group_factor",
            "group_total", "bank_total", "bank_spread", "group_esr", "bank_esr", "multipliers", "sample_multipliers", "fraction",
-           "charge", "voltage", "bank_summary", "effective_capacitance", "document_capacitance", "MAX_BANK_GROUPS", "MAX_GROUP_COUNT"]
+           "charge", "voltage", "bank_summary", "bank_curve", "effective_capacitance", "document_capacitance", "MAX_BANK_GROUPS", "MAX_GROUP_COUNT"]
 
 DIELECTRICS = ("c0g", "x5r", "x7r", "electrolytic", "polymer", "film", "other")
 CLASS_II = frozenset({"x5r", "x7r"})
@@ -277,6 +277,16 @@ def bank_shape(groups, t_ambient: float) -> BankShape:
     return BankShape(tables=tuple(table(g.dc_bias) for g in groups),
                      esr=np.array([group_esr(g) for g in groups]),
                      nominal=np.array([group_total(g, t_ambient) for g in groups]))
+
+
+def bank_curve(groups, t_ambient: float) -> tuple[np.ndarray, np.ndarray]:
+    """The whole bank's nominal C(v) as points ``(v, c)`` (V, F), exact: the sum of the groups' curves is
+    linear between the union of their points and held at the end values beyond them (as each group's is)."""
+    shape = bank_shape(groups, t_ambient)
+    v = np.unique(np.concatenate([[0.0]] + [t.v for t in shape.tables]))
+    c = sum(shape.nominal[k] * np.asarray(fraction(t, v), dtype=float) * np.ones_like(v)
+            for k, t in enumerate(shape.tables))
+    return v, np.asarray(c, dtype=float)
 
 
 def effective_capacitance(groups, t_ambient: float, v: float) -> float:

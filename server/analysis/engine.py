@@ -51,7 +51,7 @@ from .worstcase import TIE, WorstCase, find_worst_case
 
 __all__ = ["ENGINE_VERSION", "CAUTION", "BASIS_WORST", "BASIS_NOMINAL", "FIGURES", "analyze_rail"]
 
-ENGINE_VERSION = "2.2.0"
+ENGINE_VERSION = "2.2.1"
 CAUTION = ("railsign computes design margins; it does not certify hardware. Verify on hardware, treat "
            "stored energy and high currents with care, and follow the applicable codes and licensed practice.")
 BASIS_WORST = "worst case"

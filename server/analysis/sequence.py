@@ -45,7 +45,8 @@ regulation reference of its mode: current limit, slew c dv/dt + i_load, power li
 algebra of `circuit.Circuit.limit_reference`; the switch conducts forward only, so a rail's
 output capacitance never holds up the shared bus: conservative for the dip, and what a
 reverse-blocking eFuse or ideal-diode stage does), and its output capacitor with ESR in
-parallel with its load (`circuit.Circuit.load_current`: nothing below v_on, then resistive,
+parallel with its load (a capacitor bank: the groups' C(v) summed, charged as dq = C(v) dv with
+C at the start of each step, behind the groups' ESRs in parallel) (`circuit.Circuit.load_current`: nothing below v_on, then resistive,
 constant current or constant power; once started the load keeps drawing). R_DS(on) is taken
 at the ambient temperature; the fault timer, path inductance and self-heating are left to
 each rail's own analysis (the board time line is about currents and voltages).
@@ -84,12 +85,12 @@ rail's own start-up (`startup.simulate_startup`) and against ngspice
 from __future__ import annotations
 
 import math
-from dataclasses import dataclass, replace
+from dataclasses import dataclass, field, replace
 from typing import Any
 
 import numpy as np
 
-from .bank import effective_capacitance
+from .bank import bank_curve, effective_capacitance
 from .bounds import magnitude_problem
 from .checks import FAIL, NA, PASS, VERDICTS
 from .circuit import NO_LIMIT, R_OFF, circuit_rows
@@ -523,6 +524,9 @@ class _Rows:
     l_s: np.ndarray
     i_lim_s: np.ndarray
     c_bus: np.ndarray
+    c_slew: np.ndarray     # F: the capacitance a slew controller's current is set for (a bank's total at 0 V)
+    # per rail row with a capacitor bank: the bank's C(v) as points (V, F); c is its charge-equivalent value
+    bank_curves: dict[int, tuple[np.ndarray, np.ndarray]] = field(default_factory=dict)
 
     def __post_init__(self) -> None:
         self.slew_rows = np.flatnonzero(self.mode == MODE_SLEW)
@@ -539,9 +543,9 @@ def _highest_limit(rail: Rail, i_lim: float) -> float:
 
 
 def _board_capacitance(rail: Rail) -> float:
-    """The rail's load capacitance in the board time line: its capacitance, or a bank's
-    charge-equivalent capacitance at the rail's supply (the bank's charge there, so the same charge
-    drawn from the shared supply; `bank.effective_capacitance`)."""
+    """The rail's load capacitance as the board time line's scales read it (the step sizes, the test
+    of rest): its capacitance, or a bank's charge-equivalent capacitance at the rail's supply
+    (`bank.effective_capacitance`). The steps themselves charge a bank on its C(v) (`_capacitance`)."""
     if rail.load.bank is None:
         return rail.load.c_nom
     return effective_capacitance(rail.load.bank, rail.t_ambient, rail.supply.v_nom)
@@ -601,6 +605,9 @@ def _rows(seq: Sequence) -> tuple[_Rows, list[Rail]]:
         l_s=two(np.array([s.l_source for s in seq.supplies])),
         i_lim_s=two(np.array([s.i_limit if s.i_limit is not None else NO_LIMIT for s in seq.supplies])),
         c_bus=two(np.array([s.c_bus for s in seq.supplies]) + c_in),
+        c_slew=two(one(lambda k: rails[k].load.c_nom)),
+        bank_curves={corner * K + k: bank_curve(rails[k].load.bank, rails[k].t_ambient)
+                     for corner in (0, 1) for k in range(K) if rails[k].load.bank is not None},
     )
     return rows, rails
 
@@ -619,13 +626,26 @@ def _load_linear(p: _Rows, started: np.ndarray, v_out: np.ndarray) -> tuple[np.n
     return g, j
 
 
+def _capacitance(p: _Rows, v_c: np.ndarray) -> np.ndarray:
+    """Each row's output capacitance for a step starting at capacitor voltage ``v_c`` (V): its capacitance, or
+    its bank's C(v_c) (incremental: dq = C(v) dv, C taken at the step's start; on a DC-bias curve, which does not
+    rise with v, that is the larger side: a little more charge and current, the conservative side)."""
+    if not p.bank_curves:
+        return p.c
+    c = p.c.copy()
+    for row, (v, c_v) in p.bank_curves.items():
+        c[row] = np.interp(v_c[row], v, c_v)
+    return c
+
+
 def _reference(p: _Rows, v_out: np.ndarray, v_in: np.ndarray, i_load: np.ndarray) -> np.ndarray:
     """Current the switch allows while regulating (the algebra of `Circuit.limit_reference`, per row with
-    its own mode; the FET sees the bus voltage behind the rail's path resistance)."""
+    its own mode; a slew rate into the capacitance at 0 V, as the rail's own analysis reads a bank; the FET
+    sees the bus voltage behind the rail's path resistance)."""
     ref = p.i_lim.copy()
     slew = p.slew_rows
     if slew.size:
-        ref[slew] = np.minimum(ref[slew], p.c[slew] * p.dvdt[slew] + i_load[slew])
+        ref[slew] = np.minimum(ref[slew], p.c_slew[slew] * p.dvdt[slew] + i_load[slew])
     pw = p.power_rows
     if pw.size:
         vd = np.maximum(v_in[pw] - v_out[pw], 0.0)
@@ -756,12 +776,13 @@ def simulate_sequence(seq: Sequence, *, rtol: float = RTOL, max_steps: int = MAX
         if ramping.any():
             h = min(h, float(p.t_on[ramping].min()) / 50.0)
         g, j = _load_linear(p, started, v_out)
+        c_step = _capacitance(p, v_c)
         ref = _reference(p, v_out, v_b[p.sup], g * v_out + j)
         ref_on = np.where(on, ref, 0.0)
         while True:
             steps += 1
             t1 = t + h
-            kh = h / p.c
+            kh = h / c_step
             den = 1.0 + g * (p.esr + kh)
             bb = (kh + p.esr) / den
             aa = (v_c - (kh + p.esr) * j) / den
@@ -1079,9 +1100,9 @@ def analyze_sequence(doc: Any, rail_documents: dict[str, Any] | None = None, tea
             "A rail's fault timer counts its time in regulation and turns it off at its shortest trip time (the "
             "timer's tolerances); a tripped rail stays off in the time line (its retries are in its own "
             "analysis).",
-            "A rail with a capacitor bank takes part as one capacitor holding the bank's charge at the rail's "
-            "supply (its charge-equivalent capacitance) behind the groups' ESRs in parallel; the rail's own "
-            "analysis follows each group on its DC-bias curve.",
+            "A rail with a capacitor bank charges the bank's total C(v) (every group on its DC-bias curve, "
+            "summed; dq = C(v) dv with C at the start of each step, the larger side of a falling curve) behind "
+            "the groups' ESRs in parallel; the rail's own analysis follows each group as its own branch.",
         ],
     }
 

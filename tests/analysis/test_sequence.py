@@ -227,3 +227,27 @@ def test_a_rail_whose_timer_trips_stays_off_and_its_chain_never_starts():
     del rail_a["switch"]["timer"]
     rail_a["switch"]["timer"] = None
     assert analyze_sequence(_two_rails(t_b=0.0, rail_a=rail_a, rail_b=rail_b, r_source=0.01))["verdict"] != "fail"
+
+
+def test_a_bank_charges_on_its_dc_bias_curve_in_the_time_line():
+    """C(v) = C0 (1 - a v), a = 0.05 / V (ten 100 uF X7R capacitors), charged by a 2 A current limit from 12 V."""
+    from .test_bank import bank_doc, group
+
+    c0, a, i_lim = 1e-3, 0.05, 2.0
+    rail = bank_doc([group(10, 100e-6, dc_bias=[[0.0, 1.0], [12.0, 1.0 - a * 12.0]])], v=12.0, i_limit=i_lim,
+                    rds_on=1e-3)
+    doc = {"schema": "railsign.sequence/1", "name": "one bank", "supplies": [_supply(r_source=0.01)],
+           "rails": [{"id": "a", "rail": rail, "supply": "p12", "enable": {"at": 0.0}}]}
+    tl = simulate_sequence(read_sequence(doc))
+    assert tl.finished
+    t, v, i = tl.t, tl.v_out[:, 0], tl.i_rail[:, 0]
+    limited = (i > 0.999 * i_lim) & (v > 0.5) & (v < 11.0)
+    assert np.count_nonzero(limited) >= 20
+    # Source: t = (1/I) integral_0^v C(u) du = C0 (v - a v^2 / 2) / I (closed form), within 0.5 % (backward
+    # Euler with C at the start of each step: first order, on the side of more charge)
+    expected = c0 * (v[limited] - a * v[limited] ** 2 / 2.0) / i_lim
+    assert t[limited] == pytest.approx(expected, rel=5e-3)
+    assert np.all(t[limited] >= expected * (1 - 1e-9))
+    # the charge drawn until the end: the bank's charge at its final voltage, Q = C0 (v - a v^2 / 2)
+    q = np.sum(np.diff(t) * 0.5 * (i[1:] + i[:-1]))
+    assert q == pytest.approx(c0 * (tl.v_end[0] - a * tl.v_end[0] ** 2 / 2.0), rel=5e-3)
