@@ -137,9 +137,7 @@ class WorkerPool:
         started = time.perf_counter()
         beat = _Heartbeat(self.factory, claim, interval_s=min(0.5, self.settings.job_lease_s / 4))
         try:
-            with self.factory() as session:
-                kind = session.get(Job, claim.job_id).kind
-            if kind == JobKind.sequence.value:
+            if claim.kind == JobKind.sequence.value:
                 self._run_sequence(claim, beat, started)
                 return
             with self.factory() as session:

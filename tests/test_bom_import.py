@@ -126,3 +126,16 @@ def test_the_groups_are_a_bank_the_rail_document_takes():
     normal = normalize_document(doc)
     assert normal["load"]["bank"][0]["count"] == 2 and normal["load"]["bank"][0]["refs"] == "C401, C402"
     assert "c_nom" not in normal["load"]
+
+
+def test_a_tolerance_not_given_is_read_as_0_percent_and_said():
+    # 0 % is the only reading a blank gives, and it narrows the corners: the person is told, per line or once
+    bom = parse_bom("Refdes,Value,Dielectric,Rating,Qty,Tolerance\n"
+                    "C1,22u,X7R,25V,1,10%\n"
+                    "C2,47u,X5R,25V,1,\n")
+    assert bom.ok and [g["c_tol"] for g in bom.groups] == [pytest.approx(0.1), 0.0]
+    assert [w for w in bom.warnings if "tolerance" in w] == [
+        "Line 3: no tolerance given; read as 0 % (the corners do not move this group)."]
+    without = parse_bom("Refdes,Value,Dielectric,Rating,Qty\nC1,22u,X7R,25V,1\n")
+    assert without.ok and any(w.startswith("No tolerance column: every group is read at 0 % tolerance")
+                              for w in without.warnings)

@@ -284,9 +284,7 @@ def bank_curve(groups, t_ambient: float) -> tuple[np.ndarray, np.ndarray]:
     linear between the union of their points and held at the end values beyond them (as each group's is)."""
     shape = bank_shape(groups, t_ambient)
     v = np.unique(np.concatenate([[0.0]] + [t.v for t in shape.tables]))
-    c = sum(shape.nominal[k] * np.asarray(fraction(t, v), dtype=float) * np.ones_like(v)
-            for k, t in enumerate(shape.tables))
-    return v, np.asarray(c, dtype=float)
+    return v, sum(shape.nominal[k] * fraction(t, v) for k, t in enumerate(shape.tables))
 
 
 def effective_capacitance(groups, t_ambient: float, v: float) -> float:
@@ -311,7 +309,8 @@ def bank_summary(groups, t_ambient: float, v_max: float, v_nom: float) -> dict:
         the nominal point and the low and high corners); ``groups``: per group its words,
         count, nominal total (F), C at the nominal supply (F) and its fraction, the
         effective (charge-equivalent) capacitance Q(v_nom) / v_nom (F) and the rating;
-        ``c_at_v_nom`` and ``c_effective`` for the whole bank (F); ``notes``: sentences.
+        ``c_at_v_nom``, its ``fraction_at_v_nom`` of the total at 0 V and ``c_effective`` for the
+        whole bank (F); ``notes``: sentences.
     """
     shape = bank_shape(groups, t_ambient)
     lo, hi = multipliers(groups, "low"), multipliers(groups, "high")
@@ -345,10 +344,11 @@ def bank_summary(groups, t_ambient: float, v_max: float, v_nom: float) -> dict:
     if len(groups) > 1 and not _same_time_constant(groups, shape):
         notes.append("The groups have different ESR times capacitance: each group is its own branch in the "
                      "transient (one equivalent ESR would not be exact).")
+    c_at_v_nom, c_total = float(sum(r["c_at_v_nom"] for r in rows)), float(shape.nominal.sum())
     return {"v": v.tolist(), "c_nominal": per.sum(axis=0).tolist(),
             "c_low": (lo[:, None] * per).sum(axis=0).tolist(), "c_high": (hi[:, None] * per).sum(axis=0).tolist(),
-            "groups": rows, "c_at_v_nom": float(sum(r["c_at_v_nom"] for r in rows)), "c_effective": q_nom / v_nom,
-            "c_total": float(shape.nominal.sum()), "v_nom": v_nom, "notes": notes}
+            "groups": rows, "c_at_v_nom": c_at_v_nom, "fraction_at_v_nom": c_at_v_nom / c_total,
+            "c_effective": q_nom / v_nom, "c_total": c_total, "v_nom": v_nom, "notes": notes}
 
 
 def _same_time_constant(groups, shape: BankShape) -> bool:

@@ -283,9 +283,8 @@ def bank_view(bank: dict | None) -> dict | None:
                      "c_total": eng(g["c_total"], "F"), "c_at_v_nom": eng(g["c_at_v_nom"], "F"),
                      "fraction_at_v_nom": _percent(g["fraction_at_v_nom"]), "c_effective": eng(g["c_effective"], "F"),
                      "v_rated": eng(g["v_rated"], "V"), "esr": eng(g["esr"], "ohm"), "read": read})
-    total = bank.get("c_total") or 0.0
     return {"rows": rows, "c_total": eng(bank.get("c_total"), "F"), "c_at_v_nom": eng(bank.get("c_at_v_nom"), "F"),
-            "fraction_at_v_nom": _percent(bank["c_at_v_nom"] / total) if total else "-",
+            "fraction_at_v_nom": _percent(bank.get("fraction_at_v_nom")),
             "c_effective": eng(bank.get("c_effective"), "F"), "v_nom": eng(bank.get("v_nom"), "V"),
             "notes": list(bank.get("notes") or []),
             "count": sum(int(g["count"]) for g in bank.get("groups") or [])}

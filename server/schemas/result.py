@@ -395,6 +395,7 @@ class BankSection(_Model):
     c_high: list[float]
     groups: list[BankGroupFigures]
     c_at_v_nom: float
+    fraction_at_v_nom: float = Field(description="c_at_v_nom as a fraction of the total at 0 V")
     c_effective: float
     c_total: float
     v_nom: float

@@ -203,6 +203,9 @@ def parse_bom(text: str) -> BomImport:
                                  + "; the header names the columns, e.g. “refdes, value, dielectric, rating, qty”"))
     if errors:
         return BomImport(warnings=warnings, errors=errors)
+    if "tolerance" not in columns:
+        warnings.append("No tolerance column: every group is read at 0 % tolerance, so the corners and the Monte "
+                        "Carlo do not move the bank; give each part's tolerance before saving.")
 
     groups: dict[tuple, dict[str, Any]] = {}
     seen: dict[str, int] = {}
@@ -262,6 +265,8 @@ def _read_row(line_no: int, row: dict[str, str], errors: list[BomProblem],
     c_nom = quantity("value", "F", True)
     v_rated = quantity("rating", "V", True)
     c_tol = quantity("tolerance", "fraction", False)
+    if c_tol is None and "tolerance" in row:
+        warnings.append(f"Line {line_no}: no tolerance given; read as 0 % (the corners do not move this group).")
     esr = quantity("esr", "ohm", False)
     refs = row.get("refs", "").strip()
     listed = None

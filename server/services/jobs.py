@@ -277,6 +277,7 @@ class Claim:
     job_id: int
     attempt: int
     worker: str
+    kind: str  # the job's kind (JobKind), so a worker knows what to run without reading the job again
 
 
 def release_expired(session: Session, *, lease_s: float, max_attempts: int) -> int:
@@ -316,7 +317,7 @@ def claim_next(session: Session, *, worker: str, lease_s: float, max_attempts: i
     job.state, job.worker, job.attempts = JobState.running.value, worker, job.attempts + 1
     job.max_attempts = max_attempts
     job.started_at, job.heartbeat_at, job.progress = now, now, 0.0
-    claim = Claim(job.id, job.attempts, worker)
+    claim = Claim(job.id, job.attempts, worker, job.kind)
     session.commit()
     return claim
 
@@ -361,14 +362,13 @@ def supersede(session: Session, claim: Claim, *, reason: str) -> bool:
 
 def finish(session: Session, claim: Claim, *, result: dict[str, Any], duration_s: float) -> bool:
     """Store the result and mark the job done, if the attempt is still ours. Returns whether it was."""
-    job = session.scalar(select(Job).where(_owned(claim)).with_for_update())
+    job = owned_job(session, claim)
     if job is None:
-        session.rollback()
         return False
     stored = results.store_result(session, sha256=job.sha256, options=job.options, result=result,
                                   duration_s=duration_s, version=job.engine_version)
-    job.state, job.progress, job.result_id, job.finished_at = JobState.done.value, 1.0, stored.id, utcnow()
-    job.error = ""
+    mark_done(job)
+    job.result_id = stored.id
     session.flush()
     for moved in engine_change.on_new_result(session, sha256=job.sha256, result=stored):
         log.warning("rail %s moved from '%s' to '%s': %s", moved["rail_id"], moved["from"], moved["to"],
@@ -381,9 +381,8 @@ def finish(session: Session, claim: Claim, *, result: dict[str, Any], duration_s
 
 def fail(session: Session, claim: Claim, *, error: str, retry: bool) -> bool:
     """Record an attempt's error: back to the queue while attempts remain and ``retry``, else failed."""
-    job = session.scalar(select(Job).where(_owned(claim)).with_for_update())
+    job = owned_job(session, claim)
     if job is None:
-        session.rollback()
         return False
     job.error = error[:4000]
     if retry and job.attempts < job.max_attempts:

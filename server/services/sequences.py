@@ -295,7 +295,7 @@ def sequence_dict(session: Session, seq: BoardSequence, *, actor: Actor | None =
     out["state"] = {"name": name, "signed_off": wf.is_signed_off(name),
                     "since": state_row.since.isoformat() if known else None,
                     "revision": state_row.revision_n if known else None, "by": state_row.changed_by if known else None}
-    facts = sequence_facts(session, seq, state=name)
+    facts = _facts(session, seq, board, head, key, row, name)
     out["transitions"] = [{**t, "blockers": [b.as_dict() for b in _words([Blocker(d["field"], d["message"])
                                                                           for d in t["blockers"]], facts)]}
                           for t in transition_dicts(wf, facts, actor)]
@@ -531,7 +531,12 @@ def sequence_facts(session: Session, seq: BoardSequence, *, state: str) -> RailF
     board = session.get(Board, seq.board_id)
     head = _head(session, seq)
     key = _inputs_sha256(head, _board_rails(session, board))
-    row = _stored(session, seq, key)
+    return _facts(session, seq, board, head, key, _stored(session, seq, key), state)
+
+
+def _facts(session: Session, seq: BoardSequence, board: Board, head: BoardSequenceRevision, key: str,
+           row: BoardSequenceResult | None, state: str) -> RailFacts:
+    """:func:`sequence_facts` of the inputs ``key`` and their stored result ``row`` (None: not yet), as read."""
     waivers = _current_waivers(session, seq, key)
     checks: list[CheckFact] | None = None
     waived: dict[str, str] = {}
